@@ -1,0 +1,137 @@
+"""Read ``archivist.toml`` and validate it against ``schemas/manifest.schema.json``.
+
+A manifest that is not TOML at all stops the run (exit 2). A manifest that
+is TOML but breaks the schema is a finding (``manifest-invalid``) with the key
+path, and loading carries on with what is usable.
+"""
+
+from __future__ import annotations
+
+import json
+import tomllib
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import jsonschema
+
+from .errors import ArchivistError
+from .model import Hit
+
+MANIFEST_NAME = "archivist.toml"
+
+# Field names each role reads, and their defaults.
+LAYER_DEFAULTS: dict[str, dict[str, str]] = {
+    "units": {"unit_field": "unit"},
+    "lines": {"kind_field": "kind"},
+    "extent": {},
+    "samples": {"id_field": "sample_id", "unit_field": "unit"},
+    "structures": {"kind_field": "kind", "azimuth_field": "azimuth", "dip_field": "dip", "convention": "dip-direction"},
+}
+# Fields a role cannot do without; the others are read when present.
+REQUIRED_FIELDS: dict[str, tuple[str, ...]] = {
+    "units": ("unit_field",),
+    "lines": ("kind_field",),
+    "extent": (),
+    "samples": ("id_field",),
+    "structures": ("kind_field", "azimuth_field", "dip_field"),
+}
+TABLE_DEFAULTS: dict[str, dict[str, str]] = {
+    "legend": {"unit_field": "unit"},
+    "analyses": {"sample_field": "sample_id"},
+}
+
+
+def schema_dir() -> Path:
+    """The folder of JSON Schemas: inside the installed package, else the source tree's ``schemas/``."""
+    packaged = resources.files("archivist").joinpath("schemas")
+    if packaged.is_dir():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parent.parent / "schemas"
+
+
+@lru_cache(maxsize=None)
+def load_schema(name: str) -> dict[str, Any]:
+    path = schema_dir() / name
+    return json.loads(path.read_text(encoding="utf-8"))
+
+
+def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
+    """Return (project folder, manifest path or None) for a folder or a manifest file.
+
+    Raises ArchivistError when the path does not exist.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise ArchivistError(f"{p}: no such file or folder")
+    if p.is_dir():
+        m = p / MANIFEST_NAME
+        return p, (m if m.is_file() else None)
+    if p.suffix.lower() == ".toml":
+        return p.parent, p
+    raise ArchivistError(f"{p}: expected a project folder or its {MANIFEST_NAME}")
+
+
+def read_manifest(path: Path) -> dict[str, Any]:
+    """Parse the TOML of a manifest. A syntax error is an ArchivistError naming file and line."""
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise ArchivistError(f"{path}: cannot read the manifest ({exc.strerror})") from None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise ArchivistError(f"{path}: the manifest is not UTF-8 (byte offset {exc.start})") from None
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ArchivistError(f"{path}: not valid TOML: {exc}") from None
+
+
+def key_path(parts) -> str:
+    """Render a JSON path as the mapper wrote it in TOML: ``layers.units.unit_feild``."""
+    out = ""
+    for p in parts:
+        out += f"[{p}]" if isinstance(p, int) else (f".{p}" if out else str(p))
+    return out
+
+
+def validate_manifest(data: dict[str, Any], source: str) -> list[Hit]:
+    """Schema problems as ``manifest-invalid`` hits, each naming the key path."""
+    validator = jsonschema.Draft202012Validator(load_schema("manifest.schema.json"))
+    hits = []
+    for err in sorted(validator.iter_errors(data), key=lambda e: (list(map(str, e.absolute_path)), e.message)):
+        where = key_path(err.absolute_path)
+        if err.validator == "additionalProperties":
+            extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+            for key in extra:
+                full = f"{where}.{key}" if where else key
+                hits.append(Hit(f"{source}: unknown key '{full}'.", layer=source, rule="manifest-invalid"))
+            continue
+        if err.validator == "required":
+            missing = [k for k in err.validator_value if k not in err.instance]
+            for key in missing:
+                full = f"{where}.{key}" if where else key
+                hits.append(Hit(f"{source}: required key '{full}' is missing.", layer=source, rule="manifest-invalid"))
+            continue
+        hits.append(Hit(f"{source}: key '{where or '(top)'}': {err.message}.", layer=source, rule="manifest-invalid"))
+    return hits
+
+
+def with_defaults(data: dict[str, Any]) -> dict[str, Any]:
+    """A copy of the manifest with the default field names filled in per role."""
+    out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in data.items()}
+    layers = {}
+    for role, spec in (data.get("layers") or {}).items():
+        if isinstance(spec, dict):
+            layers[role] = {**LAYER_DEFAULTS.get(role, {}), **spec}
+    out["layers"] = layers
+    tables = {}
+    for role, spec in (data.get("tables") or {}).items():
+        if isinstance(spec, dict):
+            tables[role] = {**TABLE_DEFAULTS.get(role, {}), **spec}
+    out["tables"] = tables
+    out.setdefault("map", {})
+    out.setdefault("checks", {})
+    return out

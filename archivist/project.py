@@ -1,0 +1,369 @@
+"""The loaded map project: one loader turns a manifest into a :class:`MapProject`.
+
+Loading never writes to the project folder. Problems found while loading
+(a missing file, a missing field, a CSV that is not UTF-8) are kept as hits
+on the project and reported by the metadata rule family; only a project that
+cannot be read at all raises :class:`~archivist.errors.ArchivistError`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import shapely
+
+from . import manifest as mf
+from .errors import ArchivistError
+from .model import Hit
+from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
+
+LAYER_ROLES = ("units", "lines", "extent", "samples", "structures")
+TABLE_ROLES = ("legend", "analyses")
+EXPECTED_GEOMETRY = {
+    "units": ("Polygon", "MultiPolygon"),
+    "extent": ("Polygon", "MultiPolygon"),
+    "lines": ("LineString", "MultiLineString"),
+    "samples": ("Point", "MultiPoint"),
+    "structures": ("Point", "MultiPoint"),
+}
+
+
+@dataclass
+class Layer:
+    """A vector layer with its role, source and settings from the manifest.
+
+    ``ids`` are the feature ids as text (the ``id_field`` when the manifest
+    names one, else the file's feature id), aligned with ``frame``.
+    """
+
+    role: str
+    path: Path
+    source: str  # how the mapper wrote it: "map.gpkg:units"
+    frame: gpd.GeoDataFrame
+    ids: np.ndarray
+    spec: dict[str, Any]
+
+    @property
+    def crs(self) -> pyproj.CRS | None:
+        return self.frame.crs
+
+    @property
+    def geometry(self) -> np.ndarray:
+        """The geometries as a numpy object array (shapely 2 vectorised functions take it)."""
+        return np.asarray(self.frame.geometry.array, dtype=object)
+
+    def field(self, key: str) -> str | None:
+        """The attribute column named by manifest key ``key`` (e.g. ``unit_field``), if it is in the data."""
+        name = self.spec.get(key)
+        return name if name in self.frame.columns else None
+
+    def text(self, key: str) -> np.ndarray | None:
+        """The column named by manifest key ``key`` as text (identifiers, codes), or None."""
+        name = self.field(key)
+        return None if name is None else text_column(self.frame[name])
+
+
+@dataclass
+class Table:
+    """A non-spatial table (legend, analyses) with its role and source."""
+
+    role: str
+    path: Path
+    source: str
+    data: TableData
+    spec: dict[str, Any]
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        return self.data.frame
+
+    def field(self, key: str) -> str | None:
+        name = self.spec.get(key)
+        return name if name in self.frame.columns else None
+
+
+@dataclass
+class CheckConfig:
+    """Settings from ``[checks]`` with defaults derived from the map scale."""
+
+    scale: float
+    tolerance: float
+    sliver_area_mm2: float = 1.0
+    sliver_width_mm: float = 0.5
+    total_min: float = 98.5
+    total_max: float = 101.5
+    line_kinds: tuple[str, ...] = ("contact", "fault", "map-boundary")
+    certainties: tuple[str, ...] = ("certain", "approximate", "inferred", "concealed")
+    structure_kinds: tuple[str, ...] = (
+        "bedding", "foliation", "cleavage", "joint", "vein", "fault plane", "lineation", "fold axis",
+    )
+    severity: dict[str, str] = field(default_factory=dict)
+
+    @property
+    def metres_per_map_mm(self) -> float:
+        """Ground metres covered by one millimetre of the printed map."""
+        return self.scale / 1000.0
+
+
+@dataclass
+class MapProject:
+    """Everything a check needs: layers, tables, declared CRS, settings.
+
+    Attributes
+    ----------
+    root
+        The project folder.
+    manifest
+        The manifest with default field names filled in.
+    manifest_path
+        The manifest file, or None when roles were inferred from the data.
+    crs
+        The declared map CRS, or None when it is missing or not understood.
+    problems
+        Hits found while loading; the metadata family reports them.
+    notes
+        Statements about how the project was read, printed atop the report.
+    """
+
+    root: Path
+    manifest: dict[str, Any]
+    manifest_path: Path | None
+    crs: pyproj.CRS | None
+    layers: dict[str, Layer]
+    tables: dict[str, Table]
+    config: CheckConfig
+    problems: list[Hit] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    files: list[Path] = field(default_factory=list)
+
+    @property
+    def name(self) -> str:
+        return str(self.manifest.get("map", {}).get("title") or self.root.name)
+
+    def has(self, role: str) -> bool:
+        return role in self.layers or role in self.tables
+
+
+def crs_label(crs: pyproj.CRS | None) -> str | None:
+    """A CRS as people read it: ``EPSG:32633 (WGS 84 / UTM zone 33N)``."""
+    if crs is None:
+        return None
+    epsg = crs.to_epsg(min_confidence=70)
+    return f"EPSG:{epsg} ({crs.name})" if epsg else crs.name
+
+
+def parse_crs(text: str, where: str) -> tuple[pyproj.CRS | None, Hit | None]:
+    try:
+        return pyproj.CRS.from_user_input(text), None
+    except pyproj.exceptions.CRSError:
+        return None, Hit(f"{where}: '{text}' is not a CRS pyproj understands.", layer="manifest", rule="manifest-invalid")
+
+
+def make_config(manifest: dict[str, Any], crs: pyproj.CRS | None) -> CheckConfig:
+    m = manifest.get("map", {})
+    checks = manifest.get("checks", {})
+    scale = m.get("scale") if isinstance(m.get("scale"), (int, float)) and m.get("scale") > 0 else 25000.0
+    metres = scale * 1e-4  # 0.1 mm at map scale
+    if crs is not None and crs.is_geographic:
+        metres /= 111_320.0  # metres to degrees near the equator; crs-geographic warns
+    elif crs is not None and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
+        metres /= crs.axis_info[0].unit_conversion_factor
+    kw: dict[str, Any] = {"scale": float(scale), "tolerance": float(checks.get("tolerance", metres))}
+    for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max"):
+        if key in checks:
+            kw[key] = float(checks[key])
+    for key in ("line_kinds", "certainties", "structure_kinds"):
+        if key in checks:
+            kw[key] = tuple(str(v) for v in checks[key])
+    kw["severity"] = {str(k): str(v) for k, v in (checks.get("severity") or {}).items()}
+    return CheckConfig(**kw)
+
+
+def _resolve(root: Path, rel: str) -> Path:
+    return (root / rel).resolve() if not Path(rel).is_absolute() else Path(rel)
+
+
+def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit]) -> Layer | None:
+    rel = spec["path"]
+    path = _resolve(root, rel)
+    source = f"{rel}:{spec['layer']}" if spec.get("layer") else rel
+    if not path.exists():
+        problems.append(Hit(f"layers.{role}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
+        return None
+    if path.suffix.lower() in TABLE_SUFFIXES and spec.get("x_field"):
+        return _layer_from_table(path, role, spec, rel, problems)
+    try:
+        names = [str(n) for n, _ in pyogrio.list_layers(path)]
+    except Exception as exc:  # GDAL raises several kinds for a file it cannot open
+        problems.append(Hit(f"layers.{role}: '{rel}' cannot be opened: {exc}.", layer=role, rule="layer-unreadable"))
+        return None
+    name = spec.get("layer")
+    if name is None:
+        if len(names) != 1:
+            problems.append(
+                Hit(
+                    f"layers.{role}: '{rel}' holds {len(names)} layers ({', '.join(names)}); name one with layers.{role}.layer.",
+                    layer=role,
+                    rule="layer-missing",
+                )
+            )
+            return None
+        name = names[0]
+    elif name not in names:
+        problems.append(
+            Hit(f"layers.{role}: '{rel}' has no layer '{name}' (layers: {', '.join(names) or 'none'}).", layer=role, rule="layer-missing")
+        )
+        return None
+    try:
+        frame = pyogrio.read_dataframe(path, layer=name, fid_as_index=True, on_invalid="ignore")
+    except Exception as exc:
+        problems.append(Hit(f"layers.{role}: '{source}' cannot be read: {exc}.", layer=role, rule="layer-unreadable"))
+        return None
+    if not isinstance(frame, gpd.GeoDataFrame):
+        problems.append(Hit(f"layers.{role}: '{source}' has no geometry column.", layer=role, rule="layer-unreadable"))
+        return None
+    return _finish_layer(role, path, source, frame, spec, problems)
+
+
+def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, problems: list[Hit]) -> Layer | None:
+    data, hits = read_table(path, rel, spec.get("sheet"))
+    problems.extend(hits)
+    if data is None:
+        return None
+    frame = data.frame
+    xf, yf = spec.get("x_field"), spec.get("y_field")
+    for key, col in (("x_field", xf), ("y_field", yf)):
+        if col not in frame.columns:
+            problems.append(Hit(f"layers.{role}: field '{col}' ({key}) is not in '{rel}'.", layer=role, rule="field-missing"))
+            return None
+    x = pd.to_numeric(frame[xf], errors="coerce").to_numpy(dtype=float)
+    y = pd.to_numeric(frame[yf], errors="coerce").to_numpy(dtype=float)
+    geom = shapely.points(x, y)
+    geom[np.isnan(x) | np.isnan(y)] = None
+    crs = None
+    if spec.get("crs"):
+        crs, hit = parse_crs(spec["crs"], f"layers.{role}.crs")
+        if hit:
+            problems.append(hit)
+    gdf = gpd.GeoDataFrame(frame.drop(columns=[xf, yf]), geometry=geom, crs=crs)
+    gdf.index = pd.RangeIndex(data.header_row + 1, data.header_row + 1 + len(gdf), name="row")
+    return _finish_layer(role, path, rel, gdf, spec, problems)
+
+
+def _finish_layer(role, path, source, frame, spec, problems) -> Layer:
+    for key in mf.REQUIRED_FIELDS.get(role, ()):
+        col = spec.get(key)
+        if col is not None and col not in frame.columns:
+            problems.append(
+                Hit(
+                    f"layers.{role}: field '{col}' ({key}) is not in '{source}' (fields: {', '.join(map(str, frame.columns.drop('geometry')))}).",
+                    layer=role,
+                    rule="field-missing",
+                )
+            )
+    for key, col in spec.items():
+        if key.endswith("_field") and key not in mf.REQUIRED_FIELDS.get(role, ()) and key not in mf.LAYER_DEFAULTS.get(role, {}):
+            if col not in frame.columns and key not in ("x_field", "y_field"):
+                problems.append(Hit(f"layers.{role}: field '{col}' ({key}) is not in '{source}'.", layer=role, rule="field-missing"))
+    ids = None
+    id_col = spec.get("id_field")
+    if id_col and id_col in frame.columns:
+        ids = text_column(frame[id_col])
+    if ids is None:
+        ids = np.asarray(frame.index.astype(str), dtype=object)
+    return Layer(role, path, source, frame, ids, spec)
+
+
+def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit]) -> Table | None:
+    rel = spec["path"]
+    path = _resolve(root, rel)
+    if not path.exists():
+        problems.append(Hit(f"tables.{role}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
+        return None
+    data, hits = read_table(path, rel, spec.get("sheet"))
+    problems.extend(hits)
+    if data is None:
+        return None
+    source = f"{rel}, sheet '{data.sheet}'" if data.sheet else rel
+    for key, col in spec.items():
+        if key.endswith("_field") and col not in data.frame.columns:
+            problems.append(
+                Hit(
+                    f"tables.{role}: column '{col}' ({key}) is not in '{source}' (columns: {', '.join(map(str, data.frame.columns))}).",
+                    layer=role,
+                    rule="field-missing",
+                )
+            )
+    return Table(role, path, source, data, spec)
+
+
+def load_project(path: str | Path) -> MapProject:
+    """Load a map project from its folder or its ``archivist.toml``.
+
+    Without a manifest, the roles of the folder's files are inferred from
+    their geometry types and field names, and the project's notes say so.
+
+    Raises
+    ------
+    ArchivistError
+        The path does not exist or the manifest is not readable TOML.
+
+    Examples
+    --------
+    >>> project = load_project("example_bundle")  # doctest: +SKIP
+    >>> sorted(project.layers)  # doctest: +SKIP
+    ['extent', 'lines', 'samples', 'structures', 'units']
+    """
+    root, manifest_path = mf.find_manifest(path)
+    problems: list[Hit] = []
+    notes: list[str] = []
+    if manifest_path is not None:
+        raw = mf.read_manifest(manifest_path)
+        problems.extend(mf.validate_manifest(raw, manifest_path.name))
+    else:
+        from .infer import infer_manifest
+
+        raw, infer_notes = infer_manifest(root)
+        notes.append(f"No {mf.MANIFEST_NAME} in {root}: the roles of its files were inferred from the data; confirm them with 'archivist init'.")
+        notes.extend(infer_notes)
+    manifest = mf.with_defaults(raw)
+    crs = None
+    crs_text = manifest["map"].get("crs")
+    if isinstance(crs_text, str) and crs_text.strip():
+        crs, hit = parse_crs(crs_text, "map.crs")
+        if hit:
+            problems.append(hit)
+    layers: dict[str, Layer] = {}
+    for role in LAYER_ROLES:
+        spec = manifest["layers"].get(role)
+        if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+            layer = load_layer(root, role, spec, problems)
+            if layer is not None:
+                layers[role] = layer
+    tables: dict[str, Table] = {}
+    for role in TABLE_ROLES:
+        spec = manifest["tables"].get(role)
+        if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+            table = load_table(root, role, spec, problems)
+            if table is not None:
+                tables[role] = table
+    files = sorted({lay.path for lay in layers.values()} | {t.path for t in tables.values()})
+    return MapProject(
+        root=root,
+        manifest=manifest,
+        manifest_path=manifest_path,
+        crs=crs,
+        layers=layers,
+        tables=tables,
+        config=make_config(manifest, crs),
+        problems=problems,
+        notes=notes,
+        files=files,
+    )

@@ -1,0 +1,172 @@
+"""The rule registry.
+
+A rule is a small function registered once with :func:`rule`::
+
+    @rule("unit-overlap", family="topology", severity="error", needs=("units",))
+    def unit_overlap(project, ctx):
+        \"\"\"Two unit polygons share area.
+
+        Catches
+        -------
+        ...
+        Why it matters
+        --------------
+        ...
+        Fix
+        ---
+        ...
+        Example
+        -------
+        ...
+        \"\"\"
+        yield Hit(...)
+
+The docstring is the rule's documentation: a one-line title, then the four
+sections above (numpy-style underlined headings). `archivist rules` prints
+them and a test makes sure no rule lacks one.
+"""
+
+from __future__ import annotations
+
+import importlib
+import inspect
+import re
+from dataclasses import dataclass
+from typing import Callable, Iterable
+
+from .model import Hit, Severity
+
+SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
+FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures")
+FAMILY_MODULES = {
+    "metadata": "archivist.rules.metadata",
+    "topology": "archivist.rules.topology",
+    "linework": "archivist.rules.linework",
+    "crs": "archivist.rules.crs",
+    "legend": "archivist.rules.legend",
+    "samples": "archivist.rules.samples",
+    "structures": "archivist.rules.structures",
+}
+_ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)+$")
+
+
+@dataclass(frozen=True)
+class RuleInfo:
+    """A registered rule: identity, default severity and documentation."""
+
+    id: str
+    family: str
+    severity: Severity
+    func: Callable[..., Iterable[Hit]]
+    needs: tuple[str, ...]
+    title: str
+    sections: tuple[tuple[str, str], ...]
+
+    @property
+    def doc(self) -> dict[str, str]:
+        return dict(self.sections)
+
+    def markdown(self) -> str:
+        lines = [f"### `{self.id}`", "", f"{self.title} *Family:* {self.family}; *default severity:* {self.severity.value}.", ""]
+        for name, text in self.sections:
+            lines += [f"**{name}.** {text}", ""]
+        return "\n".join(lines).rstrip() + "\n"
+
+
+_RULES: dict[str, RuleInfo] = {}
+
+
+def parse_doc(doc: str | None) -> tuple[str, tuple[tuple[str, str], ...]]:
+    """Split a rule docstring into its title and its named sections."""
+    text = inspect.cleandoc(doc or "")
+    lines = text.splitlines()
+    title = lines[0].strip() if lines else ""
+    sections: list[tuple[str, list[str]]] = []
+    i = 1
+    while i < len(lines):
+        line = lines[i].rstrip()
+        nxt = lines[i + 1].strip() if i + 1 < len(lines) else ""
+        if line.strip() in SECTIONS and nxt and set(nxt) == {"-"}:
+            sections.append((line.strip(), []))
+            i += 2
+            continue
+        if sections:
+            sections[-1][1].append(line.strip())
+        i += 1
+    out = tuple((name, " ".join(part for part in body if part).strip()) for name, body in sections)
+    return title, out
+
+
+def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()):
+    """Register a rule function under `id`.
+
+    Parameters
+    ----------
+    id
+        Kebab-case noun phrase, unique across archivist.
+    family
+        One of :data:`FAMILIES`.
+    severity
+        Default severity: `"error"`, `"warning"` or `"notice"`.
+    needs
+        Layer or table roles the rule reads; the rule is skipped when one is
+        absent (the absence itself is reported by the metadata family).
+    """
+
+    def register(func):
+        if not _ID.match(id):
+            raise ValueError(f"rule id {id!r} is not a kebab-case noun phrase")
+        if id in _RULES and _RULES[id].func.__qualname__ != func.__qualname__:
+            raise ValueError(f"rule id {id!r} registered twice")
+        if family not in FAMILIES:
+            raise ValueError(f"rule {id!r}: unknown family {family!r}")
+        title, sections = parse_doc(func.__doc__)
+        _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections)
+        func.rule_id = id
+        return func
+
+    return register
+
+
+def load_all() -> None:
+    """Import every family module so that its rules register."""
+    for module in FAMILY_MODULES.values():
+        try:
+            importlib.import_module(module)
+        except ModuleNotFoundError as exc:  # a family not written yet
+            if exc.name != module:
+                raise
+
+
+def all_rules() -> list[RuleInfo]:
+    """Every registered rule, ordered by family then id."""
+    load_all()
+    order = {f: i for i, f in enumerate(FAMILIES)}
+    return sorted(_RULES.values(), key=lambda r: (order[r.family], r.id))
+
+
+def get_rule(rule_id: str) -> RuleInfo:
+    load_all()
+    try:
+        return _RULES[rule_id]
+    except KeyError:
+        raise KeyError(rule_id) from None
+
+
+def select(only: Iterable[str] = (), rules: Iterable[str] = ()) -> list[RuleInfo]:
+    """Rules chosen by family (`only`) and/or id (`rules`); all when both empty.
+
+    Raises KeyError naming the first unknown family or rule id.
+    """
+    only, rules = list(only), list(rules)
+    everything = all_rules()
+    known = {r.id for r in everything}
+    for fam in only:
+        if fam not in FAMILIES:
+            raise KeyError(f"family {fam!r}")
+    for rid in rules:
+        if rid not in known:
+            raise KeyError(f"rule {rid!r}")
+    if not only and not rules:
+        return everything
+    return [r for r in everything if r.family in only or r.id in rules]

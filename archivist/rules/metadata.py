@@ -1,0 +1,410 @@
+"""Family `metadata`: the manifest, the files it names, deposit metadata, geometry validity."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import numpy as np
+import shapely
+
+from ..identifiers import orcid_problem
+from ..model import Hit
+from ..project import EXPECTED_GEOMETRY
+from ..registry import all_rules, rule
+
+DEPOSIT_KEYS = ("title", "version", "abstract", "licence", "authors")
+
+
+def _loading(project, rule_id):
+    return [h for h in project.problems if h.rule == rule_id]
+
+
+@rule("manifest-invalid", family="metadata", severity="error")
+def manifest_invalid(project, ctx):
+    """The manifest breaks its schema: an unknown key, a missing required key, a value of the wrong type.
+
+    Catches
+    -------
+    Keys of `archivist.toml` that `schemas/manifest.schema.json` does not
+    allow (often a typo such as `unit_feild`), required keys that are absent,
+    values of the wrong type, a `map.crs` that is not a CRS, and severity
+    overrides naming a rule that does not exist. Each finding names the key path.
+
+    Why it matters
+    --------------
+    A misspelt key is silently ignored by most tools, so a setting the mapper
+    believes is in force is not. The next user reads the manifest to learn what
+    each file is; a wrong manifest misleads them.
+
+    Fix
+    ---
+    Correct the key named in the finding; `archivist rules` and the manifest
+    reference in the README list the allowed keys.
+
+    Example
+    -------
+    `[layers.units]` with `unit_feild = "code"` gives
+    "archivist.toml: unknown key 'layers.units.unit_feild'".
+    """
+    yield from _loading(project, "manifest-invalid")
+    known = {r.id for r in all_rules()}
+    for rid in project.config.severity:
+        if rid not in known:
+            yield Hit(f"checks.severity: '{rid}' is not a rule id; 'archivist rules' lists them.", layer="manifest")
+
+
+@rule("layer-missing", family="metadata", severity="error")
+def layer_missing(project, ctx):
+    """A file, layer or sheet named in the manifest is not there.
+
+    Catches
+    -------
+    A `path` that does not exist, a `layer` the file does not hold, a
+    spreadsheet `sheet` that is absent, or a multi-layer file with no
+    `layer` named.
+
+    Why it matters
+    --------------
+    Every check of that layer is skipped, and a package made now would lack
+    part of the map.
+
+    Fix
+    ---
+    Correct the path (relative to the manifest) or the layer/sheet name, or
+    remove the entry if the layer really is not part of the project.
+
+    Example
+    -------
+    `[layers.lines] path = "lines.shp"` with no such file gives
+    "layers.lines: file 'lines.shp' does not exist".
+    """
+    yield from _loading(project, "layer-missing")
+
+
+@rule("layer-unreadable", family="metadata", severity="error")
+def layer_unreadable(project, ctx):
+    """A file named in the manifest exists but cannot be read as a layer or table.
+
+    Catches
+    -------
+    Files that GDAL or the spreadsheet reader cannot open (corrupt, truncated,
+    a format that needs a driver not available, an old binary `.xls`), with
+    the reader's own reason.
+
+    Why it matters
+    --------------
+    What cannot be read cannot be checked or archived, and the next user will
+    hit the same wall without the original software.
+
+    Fix
+    ---
+    Re-export the layer from the GIS to an open format (GeoPackage for
+    vectors, CSV or XLSX for tables) and point the manifest at it.
+
+    Example
+    -------
+    A zero-byte `units.gpkg` gives "layers.units: 'units.gpkg' cannot be opened: ...".
+    """
+    yield from _loading(project, "layer-unreadable")
+
+
+@rule("table-not-utf8", family="metadata", severity="error")
+def table_not_utf8(project, ctx):
+    """A CSV table is not encoded as UTF-8.
+
+    Catches
+    -------
+    CSV/TSV files with bytes that are not valid UTF-8 (typically a legacy
+    Windows or Latin-1 export); the finding names the byte offset and line.
+    A UTF-8 byte-order mark is accepted.
+
+    Why it matters
+    --------------
+    Accented unit names, degree signs and micro signs turn into garbage on the
+    next machine, and archives must be readable without guessing the encoding.
+
+    Fix
+    ---
+    Re-save the file as "CSV UTF-8" from the spreadsheet, or convert it
+    (`iconv -f WINDOWS-1252 -t UTF-8`) after checking which encoding it is.
+
+    Example
+    -------
+    `legend.csv` written in Latin-1 with "Gneiß" gives
+    "legend.csv is not UTF-8: byte 0xDF at offset 212 (line 5)".
+    """
+    yield from _loading(project, "table-not-utf8")
+
+
+@rule("field-missing", family="metadata", severity="error")
+def field_missing(project, ctx):
+    """A field the manifest names (or the default name for it) is not in the layer or table.
+
+    Catches
+    -------
+    `unit_field`, `kind_field`, `id_field`, `azimuth_field`,
+    `dip_field`, `sample_field` and the other `*_field` keys whose
+    column is absent from the data. Defaults apply when a key is not given
+    (`unit`, `kind`, `sample_id`, `azimuth`, `dip`).
+
+    Why it matters
+    --------------
+    The checks that read the field cannot run, and the next user cannot tell
+    which column carries the information.
+
+    Fix
+    ---
+    Name the right column in the manifest (the finding lists the columns that
+    are there) or rename the column in the data.
+
+    Example
+    -------
+    Units with a `code` column and no `unit_field` key give
+    "layers.units: field 'unit' (unit_field) is not in 'map.gpkg:units'".
+    """
+    yield from _loading(project, "field-missing")
+
+
+@rule("metadata-incomplete", family="metadata", severity="warning")
+def metadata_incomplete(project, ctx):
+    """Metadata a deposit needs is missing from `[map]`.
+
+    Catches
+    -------
+    An empty or absent `map.title`, `map.version`, `map.abstract`,
+    `map.licence` or `map.authors` (each author needs a `name`).
+    `archivist pack` refuses to run without them.
+
+    Why it matters
+    --------------
+    A repository deposit without authors, licence or abstract cannot be cited,
+    may not legally be reused, and tells a stranger nothing about the map.
+
+    Fix
+    ---
+    Fill in the keys named in the finding in `archivist.toml`.
+
+    Example
+    -------
+    No `licence` key gives "map.licence is missing: a deposit needs it".
+    """
+    m = project.manifest.get("map", {})
+    for key in DEPOSIT_KEYS:
+        value = m.get(key)
+        empty = value is None or (isinstance(value, str) and not value.strip()) or (isinstance(value, list) and not value)
+        if empty:
+            yield Hit(f"map.{key} is missing: a deposit needs it.", layer="manifest")
+    for i, author in enumerate(m.get("authors") or []):
+        if isinstance(author, dict) and not str(author.get("name", "")).strip():
+            yield Hit(f"map.authors[{i}].name is empty.", layer="manifest")
+
+
+@lru_cache(maxsize=1)
+def _spdx():
+    from license_expression import get_spdx_licensing
+
+    return get_spdx_licensing()
+
+
+def licence_problem(expression: str) -> str | None:
+    """None when `expression` is a valid SPDX licence expression, else why not."""
+    info = _spdx().validate(expression, strict=True)
+    if info.errors:
+        unknown = [s for s in info.invalid_symbols]
+        if unknown:
+            return f"'{', '.join(map(str, unknown))}' is not on the SPDX licence list"
+        return "; ".join(info.errors)
+    return None
+
+
+@rule("licence-unknown", family="metadata", severity="error")
+def licence_unknown(project, ctx):
+    """The licence is not a recognised SPDX licence identifier or expression.
+
+    Catches
+    -------
+    `map.licence` values that are not on the SPDX licence list (checked with
+    the `license-expression` package's copy of the list), such as
+    `CC-BY` without a version, or free text like "open".
+
+    Why it matters
+    --------------
+    Repositories and harvesters read the SPDX id to tell users what they may do
+    with the data; an unrecognised licence makes the deposit legally unusable.
+
+    Fix
+    ---
+    Use the exact SPDX id, e.g. `CC-BY-4.0`, `CC0-1.0` or `ODbL-1.0`
+    (see the SPDX licence list).
+
+    Example
+    -------
+    `licence = "CC-BY"` gives "map.licence: 'CC-BY' is not on the SPDX licence list".
+    """
+    value = project.manifest.get("map", {}).get("licence")
+    if isinstance(value, str) and value.strip():
+        why = licence_problem(value.strip())
+        if why:
+            yield Hit(f"map.licence: {why}.", layer="manifest")
+
+
+@rule("identifier-invalid", family="metadata", severity="error")
+def identifier_invalid(project, ctx):
+    """A persistent identifier is malformed or fails its check digit.
+
+    Catches
+    -------
+    Author ORCID iDs that are not 16 characters in four groups or whose last
+    character is not the ISO 7064 MOD 11-2 check character of the other 15
+    digits (the usual sign of a typo or transposed digits).
+
+    Why it matters
+    --------------
+    A wrong ORCID credits someone else, or no one, in the repository and in
+    every citation of the map.
+
+    Fix
+    ---
+    Copy the iD from the author's ORCID record, in the form `0000-0002-1825-0097`
+    (with or without `https://orcid.org/`).
+
+    Example
+    -------
+    `orcid = "0000-0002-1825-0098"` gives "map.authors[0].orcid ... has check
+    digit 8 where ISO 7064 MOD 11-2 gives 7".
+    """
+    for i, author in enumerate(project.manifest.get("map", {}).get("authors") or []):
+        if isinstance(author, dict) and isinstance(author.get("orcid"), str):
+            why = orcid_problem(author["orcid"])
+            if why:
+                yield Hit(f"map.authors[{i}].orcid '{author['orcid']}' ({author.get('name', '?')}) {why}.", layer="manifest")
+
+
+_TYPE_KEY = {"Point": "POINT", "MultiPoint": "MULTIPOINT", "LineString": "LINESTRING",
+             "MultiLineString": "MULTILINESTRING", "Polygon": "POLYGON", "MultiPolygon": "MULTIPOLYGON"}
+
+
+def _empty_mask(geoms: np.ndarray) -> np.ndarray:
+    return shapely.is_missing(geoms) | shapely.is_empty(geoms)
+
+
+@rule("geometry-missing", family="metadata", severity="error")
+def geometry_missing(project, ctx):
+    """A feature has no geometry (null or empty).
+
+    Catches
+    -------
+    Features of any layer whose geometry is null or empty, typically rows
+    left behind by an editing session or a failed import.
+
+    Why it matters
+    --------------
+    The feature's attributes are in the data but it is on no map; the next
+    user cannot tell whether something was lost.
+
+    Fix
+    ---
+    Redraw the feature from the field data, or delete the row if it is
+    spurious.
+
+    Example
+    -------
+    A unit row with a null geometry gives "units feature 12 has no geometry".
+    """
+    for role, layer in project.layers.items():
+        geoms = layer.geometry
+        for i in np.flatnonzero(_empty_mask(geoms)):
+            fid = layer.ids[i]
+            yield Hit(f"{role} feature {fid} ({layer.source}) has no geometry.", layer=role, features=(fid,))
+
+
+@rule("geometry-type-unexpected", family="metadata", severity="error")
+def geometry_type_unexpected(project, ctx):
+    """A layer holds geometries of the wrong type for its role.
+
+    Catches
+    -------
+    Non-polygons in `units` or `extent`, non-lines in `lines`,
+    non-points in `samples` or `structures`; counted per layer, with the
+    first feature ids.
+
+    Why it matters
+    --------------
+    A point in the unit layer or a polygon in the contacts is usually a layer
+    mix-up; the topology checks ignore such features, so their problems hide.
+
+    Fix
+    ---
+    Move the features to the right layer, or point the manifest at the right
+    file.
+
+    Example
+    -------
+    A line in the units layer gives "units: 1 feature is LineString where
+    Polygon or MultiPolygon is expected".
+    """
+    for role, layer in project.layers.items():
+        expected = EXPECTED_GEOMETRY.get(role)
+        if not expected:
+            continue
+        geoms = layer.geometry
+        types = shapely.get_type_id(geoms)
+        allowed = [shapely.GeometryType[_TYPE_KEY[e]].value for e in expected]
+        bad = np.flatnonzero(~np.isin(types, allowed) & ~_empty_mask(geoms))
+        if len(bad):
+            names = ", ".join(sorted({geoms[i].geom_type for i in bad[:1000]}))
+            ids = tuple(layer.ids[bad[:20]])
+            yield Hit(
+                f"{role}: {len(bad)} feature(s) are {names} where {' or '.join(expected)} is expected.",
+                layer=role,
+                features=ids,
+                geometry=geoms[bad[0]],
+            )
+
+
+@rule("geometry-invalid", family="metadata", severity="error")
+def geometry_invalid(project, ctx):
+    """A geometry is invalid by the OGC Simple Features rules, with GEOS's reason.
+
+    Catches
+    -------
+    Self-intersecting rings, bow-ties, rings with too few points, holes
+    outside their shell and the other cases GEOS reports through
+    `is_valid_reason`; the finding gives the reason and its location.
+
+    Why it matters
+    --------------
+    Areas, overlaps and gaps of invalid polygons are undefined: every later
+    check and every GIS that opens the map may compute something different.
+
+    Fix
+    ---
+    Repair the geometry in the GIS (or with `shapely.make_valid`) and look
+    at the result: an automatic repair can split or drop a sliver.
+
+    Example
+    -------
+    A bow-tie unit polygon gives "units feature 7 is invalid: Self-intersection[5 5]".
+    """
+    for role, layer in project.layers.items():
+        geoms = layer.geometry
+        present = ~_empty_mask(geoms)
+        valid = shapely.is_valid(geoms)
+        for i in np.flatnonzero(present & ~valid):
+            reason = shapely.is_valid_reason(geoms[i])
+            where = None
+            if "[" in reason and reason.endswith("]"):
+                try:
+                    x, y = map(float, reason[reason.rindex("[") + 1 : -1].split()[:2])
+                    where = (x, y)
+                except ValueError:
+                    where = None
+            fid = layer.ids[i]
+            yield Hit(
+                f"{role} feature {fid} is invalid: {reason}.",
+                layer=role,
+                features=(fid,),
+                geometry=geoms[i],
+                x=where[0] if where else None,
+                y=where[1] if where else None,
+            )

@@ -1,0 +1,238 @@
+"""Small builders for test projects: geometries made in code, written to a tmp folder.
+
+``tiny_project`` writes a minimal, clean project (two units side by side, a
+contact between them, a map boundary, a legend). ``copy_bundle`` copies the
+example bundle; ``edit_manifest``, ``edit_layer`` and ``edit_table`` make a
+broken variant of either with one defect.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import shutil
+import tomllib
+from pathlib import Path
+from typing import Any, Callable
+
+import geopandas as gpd
+import pandas as pd
+import pyogrio
+from shapely.geometry import LineString, Point, Polygon, box
+
+REPO = Path(__file__).resolve().parent.parent
+BUNDLE = REPO / "example_bundle"
+CRS = "EPSG:32633"
+
+
+def tree_digest(root: Path) -> dict[str, str]:
+    """SHA-256 of every file under ``root`` (relative path -> hex), to prove nothing was written."""
+    return {
+        str(p.relative_to(root)): hashlib.sha256(p.read_bytes()).hexdigest()
+        for p in sorted(Path(root).rglob("*"))
+        if p.is_file()
+    }
+
+
+def dump_toml(data: dict[str, Any]) -> str:
+    """A tiny TOML writer for the manifest shapes used in tests (tables, arrays of tables, scalars)."""
+
+    def scalar(v):
+        if isinstance(v, bool):
+            return "true" if v else "false"
+        if isinstance(v, (int, float)):
+            return repr(v)
+        if isinstance(v, list):
+            return "[" + ", ".join(scalar(x) for x in v) + "]"
+        return '"' + str(v).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+    lines: list[str] = []
+
+    def emit(prefix: str, table: dict[str, Any]):
+        simple = {k: v for k, v in table.items() if not isinstance(v, dict) and not (isinstance(v, list) and v and all(isinstance(x, dict) for x in v))}
+        nested = {k: v for k, v in table.items() if k not in simple}
+        if prefix and (simple or not nested):
+            lines.append(f"[{prefix}]")
+        for k, v in simple.items():
+            lines.append(f"{k} = {scalar(v)}")
+        for k, v in nested.items():
+            name = f"{prefix}.{k}" if prefix else k
+            if isinstance(v, dict):
+                emit(name, v)
+            else:
+                for item in v:
+                    lines.append(f"[[{name}]]")
+                    for ik, iv in item.items():
+                        lines.append(f"{ik} = {scalar(iv)}")
+
+    emit("", data)
+    return "\n".join(lines) + "\n"
+
+
+def read_manifest(project: Path) -> dict[str, Any]:
+    return tomllib.loads((Path(project) / "archivist.toml").read_text(encoding="utf-8"))
+
+
+def write_manifest(project: Path, data: dict[str, Any]) -> None:
+    (Path(project) / "archivist.toml").write_text(dump_toml(data), encoding="utf-8")
+
+
+def edit_manifest(project: Path, change: Callable[[dict[str, Any]], None]) -> Path:
+    """Apply ``change`` to the parsed manifest in place and write it back."""
+    data = read_manifest(project)
+    change(data)
+    write_manifest(project, data)
+    return Path(project)
+
+
+def read_layer(project: Path, file: str, layer: str) -> gpd.GeoDataFrame:
+    return pyogrio.read_dataframe(Path(project) / file, layer=layer, fid_as_index=True)
+
+
+def edit_layer(project: Path, file: str, layer: str, change: Callable[[gpd.GeoDataFrame], gpd.GeoDataFrame | None]) -> Path:
+    """Read a layer, let ``change`` edit (or return) the frame, write it back in place of the layer.
+
+    Feature ids are kept: the frame's index is written as the GeoPackage fid.
+    """
+    path = Path(project) / file
+    frame = read_layer(project, file, layer)
+    out = change(frame)
+    frame = frame if out is None else out
+    others = {str(n): pyogrio.read_dataframe(path, layer=str(n), fid_as_index=True) for n, _ in pyogrio.list_layers(path) if str(n) != layer}
+    path.unlink()
+    for name, other in {**others, layer: frame}.items():
+        write_layer(path, name, other)
+    return Path(project)
+
+
+def write_layer(path: Path, layer: str, frame: gpd.GeoDataFrame) -> None:
+    frame = frame.copy()
+    if frame.index.name == "fid":
+        frame = frame.reset_index()
+    pyogrio.write_dataframe(frame, path, layer=layer, driver="GPKG" if str(path).endswith(".gpkg") else None)
+
+
+def edit_table(project: Path, file: str, change: Callable[[pd.DataFrame], pd.DataFrame | None]) -> Path:
+    """Read a CSV table as text, let ``change`` edit it, write it back as UTF-8."""
+    path = Path(project) / file
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False).astype(object)
+    out = change(frame)
+    frame = frame if out is None else out
+    frame.to_csv(path, index=False, lineterminator="\n")
+    return Path(project)
+
+
+def copy_bundle(tmp_path: Path, name: str = "bundle") -> Path:
+    """A private copy of the example bundle to break."""
+    dest = Path(tmp_path) / name
+    shutil.copytree(BUNDLE, dest, ignore=shutil.ignore_patterns("__pycache__", "*.py"))
+    return dest
+
+
+# ---------------------------------------------------------------- tiny projects
+
+def two_units() -> gpd.GeoDataFrame:
+    """Two 100 m x 100 m squares side by side: unit A west of x=100, unit B east of it."""
+    return gpd.GeoDataFrame(
+        {"unit": ["A", "B"]},
+        geometry=[box(0, 0, 100, 100), box(100, 0, 200, 100)],
+        crs=CRS,
+    )
+
+
+def two_units_lines() -> gpd.GeoDataFrame:
+    """The contact between the two squares and the map boundary around them."""
+    return gpd.GeoDataFrame(
+        {"kind": ["contact", "map-boundary"], "certainty": ["certain", "certain"]},
+        geometry=[
+            LineString([(100, 0), (100, 100)]),
+            LineString([(100, 0), (0, 0), (0, 100), (100, 100), (200, 100), (200, 0), (100, 0)]),
+        ],
+        crs=CRS,
+    )
+
+
+def tiny_legend() -> pd.DataFrame:
+    return pd.DataFrame(
+        {
+            "unit": ["A", "B"],
+            "name": ["Alder Sandstone", "Birch Mudstone"],
+            "description": ["Red cross-bedded sandstone.", "Grey laminated mudstone."],
+            "age": ["Norian", "Carnian"],
+            "min_age_ma": ["210", "230"],
+            "max_age_ma": ["220", "235"],
+            "order": ["1", "2"],
+            "colour": ["#E8A060", "#9AA0B0"],
+            "lithology": ["sandstone", "mudstone"],
+            "kind": ["sedimentary", "sedimentary"],
+        }
+    )
+
+
+def tiny_project(
+    tmp_path: Path,
+    *,
+    units: gpd.GeoDataFrame | None = None,
+    lines: gpd.GeoDataFrame | None = None,
+    extent: Polygon | None = None,
+    samples: gpd.GeoDataFrame | None = None,
+    structures: gpd.GeoDataFrame | None = None,
+    legend: pd.DataFrame | None = None,
+    manifest: dict[str, Any] | None = None,
+    name: str = "tiny",
+) -> Path:
+    """Write a small project to ``tmp_path/name`` and return its folder.
+
+    Defaults give a clean two-unit map at 1:10 000 (tolerance 1 m). Pass
+    frames to replace a layer, or ``False``-y empty frames to leave one out
+    by editing ``manifest`` afterwards.
+    """
+    root = Path(tmp_path) / name
+    root.mkdir(parents=True, exist_ok=False)
+    units = two_units() if units is None else units
+    lines = two_units_lines() if lines is None else lines
+    gpkg = root / "map.gpkg"
+    write_layer(gpkg, "units", units)
+    write_layer(gpkg, "lines", lines)
+    data: dict[str, Any] = {
+        "map": {
+            "title": "Tiny test map",
+            "version": "1.0.0",
+            "scale": 10000,
+            "crs": CRS,
+            "licence": "CC-BY-4.0",
+            "abstract": "Two invented units for tests.",
+            "keywords": ["test"],
+            "authors": [{"name": "Test Mapper", "orcid": "0000-0002-1825-0097"}],
+        },
+        "layers": {
+            "units": {"path": "map.gpkg", "layer": "units", "unit_field": "unit"},
+            "lines": {"path": "map.gpkg", "layer": "lines", "kind_field": "kind", "certainty_field": "certainty"},
+        },
+        "tables": {"legend": {"path": "legend.csv"}},
+    }
+    if extent is not None:
+        write_layer(gpkg, "extent", gpd.GeoDataFrame(geometry=[extent], crs=units.crs))
+        data["layers"]["extent"] = {"path": "map.gpkg", "layer": "extent"}
+    if samples is not None:
+        write_layer(gpkg, "samples", samples)
+        data["layers"]["samples"] = {"path": "map.gpkg", "layer": "samples", "id_field": "sample_id", "unit_field": "unit"}
+    if structures is not None:
+        write_layer(gpkg, "structures", structures)
+        data["layers"]["structures"] = {"path": "map.gpkg", "layer": "structures"}
+    (tiny_legend() if legend is None else legend).to_csv(root / "legend.csv", index=False, lineterminator="\n")
+    if manifest:
+        _merge(data, manifest)
+    write_manifest(root, data)
+    return root
+
+
+def _merge(base: dict, extra: dict) -> None:
+    for k, v in extra.items():
+        if isinstance(v, dict) and isinstance(base.get(k), dict):
+            _merge(base[k], v)
+        else:
+            base[k] = v
+
+
+def point(x: float, y: float) -> Point:
+    return Point(x, y)

@@ -1,0 +1,60 @@
+"""The registry: unique kebab-case ids, complete docs, a failing and a passing case for every rule."""
+
+import re
+
+import pytest
+
+import archivist
+from archivist import registry
+from rule_cases import all_cases
+
+RULES = registry.all_rules()
+CASES = all_cases()
+
+
+def test_ids_unique_and_kebab_case():
+    ids = [r.id for r in RULES]
+    assert len(ids) == len(set(ids))
+    for rid in ids:
+        assert re.fullmatch(r"[a-z][a-z0-9]*(-[a-z0-9]+)+", rid), rid
+        assert not rid.startswith(("must-", "should-")), rid
+
+
+@pytest.mark.parametrize("info", RULES, ids=lambda r: r.id)
+def test_doc_complete(info):
+    assert info.title and info.title.endswith("."), info.id
+    names = [n for n, _ in info.sections]
+    assert names == list(registry.SECTIONS), f"{info.id}: sections {names}"
+    for name, body in info.sections:
+        assert len(body) >= 20, f"{info.id}: section {name!r} too short"
+
+
+def test_every_rule_has_cases():
+    assert sorted(CASES) == sorted(r.id for r in RULES)
+
+
+@pytest.mark.parametrize("rule_id", sorted(CASES))
+def test_rule_fails_and_passes(rule_id, tmp_path):
+    make_failing, make_passing = CASES[rule_id]
+    bad = archivist.check(make_failing(tmp_path / "fail"), rules=[rule_id])
+    assert any(f.rule == rule_id for f in bad.findings), f"{rule_id} silent on its failing case"
+    good = archivist.check(make_passing(tmp_path / "pass"), rules=[rule_id])
+    assert not [f for f in good.findings if f.rule == rule_id], [f.message for f in good.findings]
+
+
+def test_severity_override_off_and_unknown(tmp_path):
+    from builders import tiny_project
+
+    root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY"}, "checks": {"severity": {"licence-unknown": "off", "no-such-rule": "warning"}}})
+    report = archivist.check(root)
+    assert "licence-unknown" not in {f.rule for f in report.findings}
+    assert any(f.rule == "manifest-invalid" and "no-such-rule" in f.message for f in report.findings)
+
+
+def test_severity_override_changes_level(tmp_path):
+    from builders import tiny_project
+
+    root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY"}, "checks": {"severity": {"licence-unknown": "notice"}}})
+    report = archivist.check(root)
+    found = [f for f in report.findings if f.rule == "licence-unknown"]
+    assert found and all(f.severity.value == "notice" for f in found)

@@ -1,0 +1,179 @@
+"""Family `metadata`: manifest, files, deposit metadata, identifiers, geometry validity."""
+
+from pathlib import Path
+
+import geopandas as gpd
+import pytest
+from shapely.geometry import LineString, Point, Polygon, box
+
+import archivist
+from archivist.identifiers import orcid_check_digit, orcid_problem
+from archivist.rules.metadata import licence_problem
+from builders import CRS, edit_manifest, tiny_project, two_units, tree_digest
+
+
+def clean(tmp_path):
+    return tiny_project(tmp_path)
+
+
+def unknown_key(tmp_path):
+    root = tiny_project(tmp_path)
+    return edit_manifest(root, lambda m: m["layers"]["units"].update(unit_feild="code"))
+
+
+def missing_file(tmp_path):
+    root = tiny_project(tmp_path)
+    return edit_manifest(root, lambda m: m["layers"]["lines"].update(path="lines.shp"))
+
+
+def unreadable(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "broken.gpkg").write_bytes(b"this is not a geopackage")
+    return edit_manifest(root, lambda m: m["layers"]["lines"].update(path="broken.gpkg"))
+
+
+def latin1_legend(tmp_path):
+    root = tiny_project(tmp_path)
+    text = (root / "legend.csv").read_text(encoding="utf-8").replace("Alder Sandstone", "Gneiß Sandstone")
+    (root / "legend.csv").write_bytes(text.encode("latin-1"))
+    return root
+
+
+def missing_field(tmp_path):
+    root = tiny_project(tmp_path)
+    return edit_manifest(root, lambda m: m["layers"]["units"].update(unit_field="code"))
+
+
+def no_licence(tmp_path):
+    root = tiny_project(tmp_path)
+    return edit_manifest(root, lambda m: m["map"].pop("licence"))
+
+
+def bad_licence(tmp_path):
+    return tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY"}})
+
+
+def bad_orcid(tmp_path):
+    return tiny_project(tmp_path, manifest={"map": {"authors": [{"name": "Test Mapper", "orcid": "0000-0002-1825-0098"}]}})
+
+
+def null_geometry(tmp_path):
+    units = two_units()
+    units.loc[len(units)] = {"unit": "A", "geometry": None}
+    return tiny_project(tmp_path, units=units)
+
+
+def wrong_type(tmp_path):
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "A"]}, geometry=[box(0, 0, 100, 100), box(100, 0, 200, 100), LineString([(0, 0), (5, 5)])], crs=CRS)
+    return tiny_project(tmp_path, units=units)
+
+
+def bow_tie(tmp_path):
+    units = two_units()
+    units.loc[1, "geometry"] = Polygon([(100, 0), (200, 100), (200, 0), (100, 100)])
+    return tiny_project(tmp_path, units=units)
+
+
+CASES = {
+    "manifest-invalid": (unknown_key, clean),
+    "layer-missing": (missing_file, clean),
+    "layer-unreadable": (unreadable, clean),
+    "table-not-utf8": (latin1_legend, clean),
+    "field-missing": (missing_field, clean),
+    "metadata-incomplete": (no_licence, clean),
+    "licence-unknown": (bad_licence, clean),
+    "identifier-invalid": (bad_orcid, clean),
+    "geometry-missing": (null_geometry, clean),
+    "geometry-type-unexpected": (wrong_type, clean),
+    "geometry-invalid": (bow_tie, clean),
+}
+
+
+def findings(root, rule):
+    return [f for f in archivist.check(root, rules=[rule]).findings if f.rule == rule]
+
+
+# ---------------------------------------------------------------- named findings, project untouched
+
+@pytest.mark.parametrize(
+    "make, rule, words",
+    [
+        (unknown_key, "manifest-invalid", "layers.units.unit_feild"),
+        (missing_file, "layer-missing", "lines.shp"),
+        (missing_field, "field-missing", "'code'"),
+        (latin1_legend, "table-not-utf8", "offset"),
+        (bad_orcid, "identifier-invalid", "0000-0002-1825-0098"),
+        (bad_licence, "licence-unknown", "CC-BY"),
+        (no_licence, "metadata-incomplete", "map.licence"),
+    ],
+)
+def test_broken_input_gives_named_finding_and_leaves_project_alone(make, rule, words, tmp_path):
+    root = make(tmp_path)
+    before = tree_digest(root)
+    found = findings(root, rule)
+    assert len(found) == 1, [f.message for f in found]
+    assert words in found[0].message
+    assert tree_digest(root) == before
+
+
+def test_latin1_offset_is_the_first_bad_byte(tmp_path):
+    root = latin1_legend(tmp_path)
+    raw = (root / "legend.csv").read_bytes()
+    offset = raw.index("ß".encode("latin-1"))
+    (f,) = findings(root, "table-not-utf8")
+    assert f"offset {offset}" in f.message and "0xDF" in f.message
+
+
+def test_bow_tie_reason_and_place(tmp_path):
+    (f,) = findings(bow_tie(tmp_path), "geometry-invalid")
+    assert "Self-intersection" in f.message  # GEOS's own reason text
+    assert (f.x, f.y) == (150.0, 50.0)  # where the two diagonals cross
+    assert f.features == ("2",)
+
+
+# ---------------------------------------------------------------- ORCID against ORCID's documented examples
+
+@pytest.mark.parametrize(
+    "orcid",
+    # Example iDs from ORCID's support article on the structure of the ORCID identifier
+    # (which also documents the ISO 7064 MOD 11-2 check digit).
+    ["0000-0002-1825-0097", "0000-0001-5109-3700", "0000-0002-1694-233X", "https://orcid.org/0000-0002-1825-0097"],
+)
+def test_orcid_documented_examples_are_valid(orcid):
+    assert orcid_problem(orcid) is None
+
+
+@pytest.mark.parametrize(
+    "orcid, why",
+    [
+        ("0000-0002-1825-0098", "check digit"),  # last digit changed
+        ("0000-0002-1852-0097", "check digit"),  # two digits transposed
+        ("0000-0002-1825-009", "form"),
+        ("0000-0002-1825-00X7", "form"),
+    ],
+)
+def test_orcid_broken_examples_are_refused(orcid, why):
+    assert why in orcid_problem(orcid)
+
+
+def test_orcid_x_check_character():
+    # 0000-0002-1694-233X: the documented example whose check value is 10, written X.
+    assert orcid_check_digit("000000021694233") == "X"
+
+
+# ---------------------------------------------------------------- SPDX against the SPDX licence list
+
+@pytest.mark.parametrize("expr", ["CC-BY-4.0", "CC0-1.0", "ODbL-1.0", "CC-BY-SA-4.0", "MIT", "CC-BY-4.0 OR ODbL-1.0"])
+def test_spdx_list_ids_are_known(expr):
+    # Identifiers as spelt on the SPDX License List (spdx.org/licenses).
+    assert licence_problem(expr) is None
+
+
+@pytest.mark.parametrize("expr", ["CC-BY", "open", "Creative Commons Attribution", "CC-BY-5.0"])
+def test_non_spdx_licences_are_refused(expr):
+    assert licence_problem(expr) is not None
+
+
+def test_clean_tiny_project_has_no_findings(tmp_path):
+    report = archivist.check(clean(tmp_path), only=["metadata"])
+    assert report.findings == ()
