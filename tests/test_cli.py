@@ -1,0 +1,120 @@
+"""The command line: exit codes, formats, one-line errors, outputs never in the project."""
+
+import json
+
+import jsonschema
+import pytest
+from click.testing import CliRunner
+
+from archivist.cli import cli
+from archivist.manifest import load_schema
+from builders import tiny_project, tree_digest
+
+COMMANDS = sorted(cli.commands)
+
+
+def run(*args):
+    return CliRunner().invoke(cli, [str(a) for a in args], catch_exceptions=False)
+
+
+@pytest.mark.parametrize("command", COMMANDS)
+def test_help_for_every_command(command):
+    result = run(command, "--help")
+    assert result.exit_code == 0
+    assert "Usage:" in result.output
+
+
+def test_clean_project_exits_0_and_json_validates(tmp_path):
+    root = tiny_project(tmp_path)
+    result = run("check", root, "--format", "json")
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.output)
+    jsonschema.validate(data, load_schema("report.schema.json"))
+    assert data["summary"]["errors"] == 0
+
+
+def test_errors_exit_1(tmp_path):
+    root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY"}})
+    result = run("check", root)
+    assert result.exit_code == 1
+    assert "licence-unknown" in result.output
+
+
+def test_strict_makes_warnings_fail(tmp_path):
+    root = tiny_project(tmp_path, manifest={"map": {"abstract": ""}})
+    assert run("check", root, "--only", "metadata").exit_code == 0
+    assert run("check", root, "--only", "metadata", "--strict").exit_code == 1
+
+
+@pytest.mark.parametrize(
+    "args, words",
+    [
+        (["check", "no/such/place"], "no/such/place"),
+        (["check", "{root}", "--only", "geology"], "family 'geology'"),
+        (["check", "{root}", "--rule", "no-such-rule"], "rule 'no-such-rule'"),
+        (["rules", "no-such-rule"], "no-such-rule"),
+    ],
+)
+def test_cannot_run_is_one_line_exit_2(args, words, tmp_path):
+    root = tiny_project(tmp_path)
+    result = CliRunner().invoke(cli, [a.format(root=root) for a in args])
+    assert result.exit_code == 2
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and words in lines[0] and "Traceback" not in result.output
+
+
+def test_toml_syntax_error_is_one_line_exit_2(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "archivist.toml").write_text('[map]\ntitle = "unclosed\n', encoding="utf-8")
+    before = tree_digest(root)
+    result = CliRunner().invoke(cli, ["check", str(root)])
+    assert result.exit_code == 2
+    (line,) = result.stderr.strip().splitlines()
+    assert "archivist.toml" in line and "line 2" in line
+    assert tree_digest(root) == before
+
+
+def test_output_file_written_atomically_and_not_overwritten(tmp_path):
+    root = tiny_project(tmp_path)
+    out = tmp_path / "report.json"
+    assert run("check", root, "--format", "json", "--output", out).exit_code == 0
+    assert json.loads(out.read_text())["tool"] == "archivist"
+    again = CliRunner().invoke(cli, ["check", str(root), "--output", str(out)])
+    assert again.exit_code == 2 and "--force" in again.stderr
+    assert run("check", root, "--output", out, "--force").exit_code == 0
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".report")] == []
+
+
+def test_output_inside_project_refused(tmp_path):
+    root = tiny_project(tmp_path)
+    before = tree_digest(root)
+    result = CliRunner().invoke(cli, ["check", str(root), "--output", str(root / "report.txt")])
+    assert result.exit_code == 2 and "inside the project" in result.stderr
+    assert tree_digest(root) == before
+
+
+def test_text_report_layout(tmp_path, monkeypatch):
+    monkeypatch.setenv("NO_COLOR", "1")
+    root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY", "abstract": ""}})
+    out = run("check", root).output
+    assert "\x1b[" not in out
+    assert out.index("error") < out.index("warning")
+    assert "1 error, 1 warning, 0 notices" in out
+    assert out.rstrip().endswith("under local rules.")
+
+
+def test_no_manifest_says_so_first(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "archivist.toml").unlink()
+    out = run("check", root).output
+    assert out.splitlines()[0].startswith("Note: No archivist.toml")
+
+
+def test_rules_lists_every_rule_with_doc():
+    from archivist.registry import all_rules
+
+    out = run("rules").output
+    for info in all_rules():
+        assert info.id in out and info.title in out
+    one = run("rules", "unit-overlap" if "unit-overlap" in out else "licence-unknown").output
+    assert "Why it matters" in one and "Fix" in one

@@ -1,0 +1,76 @@
+"""Loading: the manifest becomes a MapProject; nothing is written; roles are inferred without a manifest."""
+
+import geopandas as gpd
+import pytest
+from shapely.geometry import Point
+
+import archivist
+from archivist.errors import ArchivistError
+from archivist.project import crs_label, load_project
+from builders import CRS, tiny_project, tree_digest, edit_manifest
+
+
+def test_load_tiny_project(tmp_path):
+    root = tiny_project(tmp_path)
+    before = tree_digest(root)
+    project = load_project(root)
+    assert sorted(project.layers) == ["lines", "units"]
+    assert sorted(project.tables) == ["legend"]
+    assert project.layers["units"].ids.tolist() == ["1", "2"]  # GeoPackage fids, as text
+    assert project.config.tolerance == pytest.approx(1.0)  # 0.1 mm at 1:10 000
+    assert project.problems == []
+    assert tree_digest(root) == before
+
+
+def test_manifest_file_path_works_too(tmp_path):
+    root = tiny_project(tmp_path)
+    assert load_project(root / "archivist.toml").root == root
+
+
+def test_crs_label_from_epsg_data():
+    import pyproj
+
+    # Name as in the EPSG dataset shipped with pyproj.
+    assert crs_label(pyproj.CRS("EPSG:32633")) == "EPSG:32633 (WGS 84 / UTM zone 33N)"
+
+
+def test_sample_ids_stay_text(tmp_path):
+    samples = gpd.GeoDataFrame({"sample_id": ["007", "0100"], "unit": ["A", "B"]}, geometry=[Point(50, 50), Point(150, 50)], crs=CRS)
+    project = load_project(tiny_project(tmp_path, samples=samples))
+    assert project.layers["samples"].ids.tolist() == ["007", "0100"]
+
+
+def test_samples_from_csv_with_coordinates(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "samples.csv").write_text("sample_id,east,north,unit\n007,50,50,A\n008,,,B\n", encoding="utf-8")
+    edit_manifest(root, lambda m: m["layers"].update(samples={"path": "samples.csv", "x_field": "east", "y_field": "north", "crs": CRS}))
+    layer = load_project(root).layers["samples"]
+    assert layer.ids.tolist() == ["007", "008"]
+    assert layer.crs.to_epsg() == 32633
+    assert layer.geometry[0].equals(Point(50, 50)) and layer.geometry[1] is None
+
+
+def test_unknown_crs_is_a_finding(tmp_path):
+    root = tiny_project(tmp_path, manifest={"map": {"crs": "EPSG:999999"}})
+    report = archivist.check(root, rules=["manifest-invalid"])
+    assert any("map.crs" in f.message for f in report.findings)
+
+
+def test_missing_path_raises(tmp_path):
+    with pytest.raises(ArchivistError, match="no such file"):
+        load_project(tmp_path / "nothing")
+
+
+def test_inferred_roles_without_manifest(tmp_path):
+    samples = gpd.GeoDataFrame({"sample_id": ["007"], "unit": ["A"]}, geometry=[Point(50, 50)], crs=CRS)
+    structures = gpd.GeoDataFrame({"kind": ["bedding"], "azimuth": [120.0], "dip": [30.0]}, geometry=[Point(20, 20)], crs=CRS)
+    root = tiny_project(tmp_path, samples=samples, structures=structures)
+    (root / "archivist.toml").unlink()
+    before = tree_digest(root)
+    project = load_project(root)
+    assert project.manifest_path is None
+    assert sorted(project.layers) == ["lines", "samples", "structures", "units"]
+    assert sorted(project.tables) == ["legend"]
+    assert project.manifest["map"]["crs"] == "EPSG:32633"
+    assert project.notes[0].startswith("No archivist.toml")
+    assert tree_digest(root) == before
