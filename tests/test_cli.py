@@ -118,3 +118,15 @@ def test_rules_lists_every_rule_with_doc():
         assert info.id in out and info.title in out
     one = run("rules", "unit-overlap" if "unit-overlap" in out else "licence-unknown").output
     assert "Why it matters" in one and "Fix" in one
+
+
+def test_example_bundle_json_is_valid_and_clean():
+    from builders import BUNDLE
+
+    before = tree_digest(BUNDLE)
+    result = run("check", BUNDLE, "--format", "json")
+    data = json.loads(result.output)
+    jsonschema.validate(data, load_schema("report.schema.json"))
+    assert data["summary"] == {"errors": 0, "warnings": 0, "notices": 0}, [f["message"] for f in data["findings"]]
+    assert result.exit_code == 0
+    assert tree_digest(BUNDLE) == before
