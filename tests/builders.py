@@ -236,3 +236,82 @@ def _merge(base: dict, extra: dict) -> None:
 
 def point(x: float, y: float) -> Point:
     return Point(x, y)
+
+
+# ---------------------------------------------------------------- samples, analyses, structures (issue 4)
+
+def tiny_samples(ids=("S-0001", "S-0002"), units=("A", "B"), xy=((50, 50), (150, 50))) -> gpd.GeoDataFrame:
+    """Sample points for the tiny two-unit map: by default one in each unit, 50 m from the contact."""
+    return gpd.GeoDataFrame(
+        {"sample_id": list(ids), "unit": list(units)},
+        geometry=[Point(x, y) for x, y in xy],
+        crs=CRS,
+    )
+
+
+def tiny_structures(kinds=("bedding", "lineation"), azimuths=(130.0, 215.0), dips=(24.0, 18.0)) -> gpd.GeoDataFrame:
+    """Structural measurements for the tiny map."""
+    n = len(kinds)
+    return gpd.GeoDataFrame(
+        {"kind": list(kinds), "azimuth": list(azimuths), "dip": list(dips)},
+        geometry=[Point(20 + 40 * i, 30) for i in range(n)],
+        crs=CRS,
+    )
+
+
+MAJOR_HEADER = ["sample_id", "SiO2 (wt%)", "TiO2 (wt%)", "Al2O3 (wt%)", "Fe2O3T (wt%)", "MnO (wt%)", "MgO (wt%)",
+                "CaO (wt%)", "Na2O (wt%)", "K2O (wt%)", "P2O5 (wt%)", "LOI (wt%)", "Total (wt%)"]
+# An invented granite-like analysis that totals 100.00 wt%.
+MAJOR_ROW = [72.50, 0.28, 14.00, 2.30, 0.05, 0.55, 1.50, 3.50, 4.60, 0.10, 0.62]
+
+
+def write_xlsx(path: Path, sheet: str, header: list, rows: list[list]) -> Path:
+    """Write one sheet of a workbook with openpyxl (values as given: numbers stay numbers)."""
+    import openpyxl
+
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = sheet
+    ws.append(list(header))
+    for row in rows:
+        ws.append(list(row))
+    wb.save(path)
+    return Path(path)
+
+
+def major_rows(ids) -> list[list]:
+    """One clean major-element row per sample id, with its Total."""
+    return [[sid, *MAJOR_ROW, round(sum(MAJOR_ROW), 2)] for sid in ids]
+
+
+def tiny_with_analyses(tmp_path: Path, *, ids=("S-0001", "S-0002"), header=None, rows=None, samples=None,
+                       manifest=None, **kw) -> Path:
+    """The tiny project with samples and an analyses workbook (sheet 'majors')."""
+    samples = tiny_samples() if samples is None else samples
+    extra = {"tables": {"analyses": {"path": "analyses.xlsx", "sheet": "majors", "sample_field": "sample_id"}}}
+    if manifest:
+        _merge(extra, manifest)
+    root = tiny_project(tmp_path, samples=samples, manifest=extra, **kw)
+    write_xlsx(root / "analyses.xlsx", "majors", header or MAJOR_HEADER, major_rows(ids) if rows is None else rows)
+    return root
+
+
+def edit_xlsx(project: Path, file: str, sheet: str, change: Callable[[Any], None]) -> Path:
+    """Open a workbook with openpyxl, let ``change`` edit the worksheet ``sheet``, save it in place."""
+    import openpyxl
+
+    path = Path(project) / file
+    wb = openpyxl.load_workbook(path)
+    change(wb[sheet])
+    wb.save(path)
+    return Path(project)
+
+
+def xlsx_cell(ws, sample_id: str, header: str):
+    """The openpyxl cell of the row whose first column is ``sample_id`` and the column headed ``header``."""
+    headers = [c.value for c in ws[1]]
+    col = headers.index(header) + 1
+    for row in ws.iter_rows(min_row=2):
+        if row[0].value == sample_id:
+            return ws.cell(row=row[0].row, column=col)
+    raise KeyError(sample_id)

@@ -96,7 +96,7 @@ def test_output_inside_project_refused(tmp_path):
 def test_text_report_layout(tmp_path, monkeypatch):
     monkeypatch.setenv("NO_COLOR", "1")
     root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY", "abstract": ""}})
-    out = run("check", root).output
+    out = run("check", root, "--only", "metadata").output
     assert "\x1b[" not in out
     assert out.index("error") < out.index("warning")
     assert "1 error, 1 warning, 0 notices" in out

@@ -7,7 +7,7 @@ from functools import lru_cache
 import numpy as np
 import shapely
 
-from ..identifiers import orcid_problem
+from ..identifiers import doi_problem, igsn_problem, orcid_problem
 from ..model import Hit
 from ..project import EXPECTED_GEOMETRY
 from ..registry import all_rules, rule
@@ -256,28 +256,60 @@ def identifier_invalid(project, ctx):
     -------
     Author ORCID iDs that are not 16 characters in four groups or whose last
     character is not the ISO 7064 MOD 11-2 check character of the other 15
-    digits (the usual sign of a typo or transposed digits).
+    digits (the usual sign of a typo or transposed digits); a `map.doi` that
+    is not a DOI by the DOI Handbook's syntax ("10." + registrant code, "/",
+    suffix; the `doi:` and `https://doi.org/` forms are accepted); and, when
+    `[layers.samples]` names an `igsn_field`, sample identifiers in it that
+    are neither an IGSN (`IGSN:code`, `https://igsn.org/code`, a bare code)
+    nor a DOI (IGSN IDs are now registered as DOIs). Blank IGSN cells are
+    not reported: not every sample is registered. Only the syntax is checked:
+    a well-formed identifier may still be unregistered or belong to another
+    object, which only the registry can tell.
 
     Why it matters
     --------------
     A wrong ORCID credits someone else, or no one, in the repository and in
-    every citation of the map.
+    every citation of the map; a malformed DOI or IGSN does not resolve, so the
+    link from the map to its publication or to the physical sample is broken.
 
     Fix
     ---
     Copy the iD from the author's ORCID record, in the form `0000-0002-1825-0097`
-    (with or without `https://orcid.org/`).
+    (with or without `https://orcid.org/`); copy DOIs and IGSNs from the
+    registry's landing page rather than retyping them.
 
     Example
     -------
     `orcid = "0000-0002-1825-0098"` gives "map.authors[0].orcid ... has check
-    digit 8 where ISO 7064 MOD 11-2 gives 7".
+    digit 8 where ISO 7064 MOD 11-2 gives 7"; `doi = "10.1000 /tarrowmere.1"`
+    gives "map.doi '10.1000 /tarrowmere.1' has prefix '10.1000 ' ...".
     """
-    for i, author in enumerate(project.manifest.get("map", {}).get("authors") or []):
+    m = project.manifest.get("map", {})
+    for i, author in enumerate(m.get("authors") or []):
         if isinstance(author, dict) and isinstance(author.get("orcid"), str):
             why = orcid_problem(author["orcid"])
             if why:
                 yield Hit(f"map.authors[{i}].orcid '{author['orcid']}' ({author.get('name', '?')}) {why}.", layer="manifest")
+    if isinstance(m.get("doi"), str):
+        why = doi_problem(m["doi"])
+        if why:
+            yield Hit(f"map.doi '{m['doi']}' {why}.", layer="manifest")
+    samples = project.layers.get("samples")
+    values = samples.text("igsn_field") if samples is not None else None
+    if values is not None:
+        column = samples.field("igsn_field")
+        present = np.array([bool(v.strip()) for v in values], dtype=bool)
+        geoms = samples.geometry
+        for i in np.flatnonzero(present):
+            why = igsn_problem(values[i])
+            if why:
+                sid = samples.ids[i]
+                yield Hit(
+                    f"samples: sample {sid} has '{values[i]}' in {column} (igsn_field), which {why}.",
+                    layer="samples",
+                    features=(sid,),
+                    geometry=geoms[i] if geoms[i] is not None and not shapely.is_empty(geoms[i]) else None,
+                )
 
 
 _TYPE_KEY = {"Point": "POINT", "MultiPoint": "MULTIPOINT", "LineString": "LINESTRING",
@@ -295,7 +327,8 @@ def geometry_missing(project, ctx):
     Catches
     -------
     Features of any layer whose geometry is null or empty, typically rows
-    left behind by an editing session or a failed import.
+    left behind by an editing session or a failed import. Samples without a
+    location are left to `sample-missing-location`, which says more about them.
 
     Why it matters
     --------------
@@ -312,6 +345,8 @@ def geometry_missing(project, ctx):
     A unit row with a null geometry gives "units feature 12 has no geometry".
     """
     for role, layer in project.layers.items():
+        if role == "samples":
+            continue
         geoms = layer.geometry
         for i in np.flatnonzero(_empty_mask(geoms)):
             fid = layer.ids[i]

@@ -1,0 +1,1141 @@
+"""Family `samples`: are samples located, identified and tied to their analyses, and do the analyses read?
+
+Samples are points (`[layers.samples]`, or a table with `x_field`/`y_field`)
+with an id (`id_field`) and, optionally, the unit the mapper recorded
+(`unit_field`). Analyses are a table (`[tables.analyses]`, CSV or XLSX)
+with one row per analysis, the sample id in `sample_field` and one column
+per analyte.
+
+An analyte column is a column whose header names a chemical species
+("SiO2", "Fe2O3T", "Cu", "87Sr/86Sr"), "LOI" or "Total", or that has a unit
+in `[tables.analyses.units]`. Its unit is read from the header ("SiO2
+(wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest. Cells are read as
+numbers, censored values ("<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.",
+">10000"), not-analysed marks ("n.a.", "-"), or unreadable (Excel error
+cells such as "#N/A", text, dates).
+
+These checks test the bookkeeping of samples and analyses, not the
+geochemistry: a total inside the accepted range does not make an analysis
+good, and the range itself is a convention the mapper may change.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+import unicodedata
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from ..model import Hit, Severity
+from ..readers import as_text, text_column
+from ..registry import rule
+
+# ---------------------------------------------------------------- identifiers and their spreadsheet manglings
+
+_SPACES = re.compile(r"[\s\u00a0\u2007\u202f\u200b\u2060\ufeff]+")
+_DASHES = re.compile(r"[\u2010\u2011\u2012\u2013\u2014\u2015\u2212]")
+_LEAD_ZEROS = re.compile(r"(?<!\d)0+(?=\d)")
+_TRAILING_ZERO_DECIMAL = re.compile(r"(?<=\d)\.0+$")
+_SCI = re.compile(r"^([+-]?)(\d+)(?:[.,](\d+))?[eE]([+-]?\d+)$")
+MONTHS = ("jan", "feb", "mar", "apr", "may", "jun", "jul", "aug", "sep", "oct", "nov", "dec")
+MONTH_NAMES = ("january", "february", "march", "april", "may", "june", "july", "august", "september", "october", "november", "december")
+_MON = "|".join(MONTHS + MONTH_NAMES + ("sept",))
+_DATE_PATTERNS = (
+    (re.compile(r"^(\d{4})-(\d{1,2})-(\d{1,2})(?:[ t]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?$"), "ymd"),
+    (re.compile(rf"^(\d{{1,2}})[- ]({_MON})\.?(?:[- ](\d{{2}}|\d{{4}}))?$"), "d-mon-y"),
+    (re.compile(rf"^({_MON})\.?[- ](\d{{1,4}})$"), "mon-n"),
+    (re.compile(r"^(\d{1,2})[/.](\d{1,2})[/.](\d{2}|\d{4})$"), "a/b/y"),
+)
+
+
+def space_key(text: str) -> str:
+    """An id with spaces (also non-breaking and zero-width), a leading apostrophe and typographic dashes removed."""
+    s = unicodedata.normalize("NFKC", str(text))
+    s = _DASHES.sub("-", s)
+    s = _SPACES.sub("", s)
+    return s[1:] if s.startswith("'") else s
+
+
+def space_keys(values) -> pd.Series:
+    """:func:`space_key` of a whole column, case folded, in vectorised string operations."""
+    s = pd.Series(np.asarray(values, dtype=object), dtype=object).fillna("").astype(str)
+    s = s.str.normalize("NFKC").str.replace(_DASHES, "-", regex=True).str.replace(_SPACES, "", regex=True)
+    return s.str.replace(r"^'", "", regex=True).str.casefold()
+
+
+def loose_key(text: str) -> str:
+    """The loosest comparison key: :func:`space_key`, case folded, no trailing ".0", no leading zeros in digit runs."""
+    s = space_key(text).casefold()
+    s = _TRAILING_ZERO_DECIMAL.sub("", s)
+    return _LEAD_ZEROS.sub("", s)
+
+
+def _month(text: str) -> int:
+    t = text.casefold().rstrip(".")
+    if t == "sept":
+        return 9
+    return (MONTHS.index(t[:3]) + 1) if t[:3] in MONTHS else 0
+
+
+def as_date(value) -> tuple[dt.date, bool] | None:
+    """The date a spreadsheet made of an id and whether it has a year, or None.
+
+    A date cell, or text such as "2024-03-01", "1-Mar", "Mar-24". Without a
+    year in the text ("1-Mar") the date is in 2000 and the flag is False.
+    """
+    if isinstance(value, dt.datetime):
+        return value.date(), True
+    if isinstance(value, dt.date):
+        return value, True
+    text = str(value).strip().casefold()
+    for pattern, kind in _DATE_PATTERNS:
+        m = pattern.match(text)
+        if not m:
+            continue
+        try:
+            if kind == "ymd":
+                return dt.date(int(m[1]), int(m[2]), int(m[3])), True
+            if kind == "d-mon-y":
+                year = int(m[3]) if m[3] else 2000
+                year = year + 2000 if year < 100 else year
+                return dt.date(year, _month(m[2]), int(m[1])), bool(m[3])
+            if kind == "mon-n":
+                n = int(m[2])
+                if 1 <= n <= 28 and len(m[2]) <= 2:
+                    return dt.date(2000, _month(m[1]), n), False
+                year = n + 1900 if 29 <= n < 100 else n
+                return dt.date(year, _month(m[1]), 1), True
+            if kind == "a/b/y":
+                a, b = int(m[1]), int(m[2])
+                year = int(m[3]) + (2000 if len(m[3]) == 2 else 0)
+                return (dt.date(year, a, b) if a <= 12 else dt.date(year, b, a)), True
+        except ValueError:
+            return None
+    return None
+
+
+def _date_originals(d: dt.date) -> list[str]:
+    """Texts a spreadsheet turns into date ``d``: "3-1", "1-3", "3/1", "MAR1", "1-Mar", "Mar-24"..."""
+    m, day, y = d.month, d.day, d.year
+    mons = [MONTHS[m - 1], MONTH_NAMES[m - 1]] + (["sept"] if m == 9 else [])
+    out = [f"{m}-{day}", f"{day}-{m}", f"{m}/{day}", f"{day}/{m}", f"{m}.{day}", f"{day}.{m}"]
+    for mon in mons:
+        out += [f"{mon}{day}", f"{mon}-{day}", f"{day}-{mon}", f"{day}{mon}"]
+    if day == 1:
+        yy = f"{y % 100:02d}"
+        out += [f"{m}-{yy}", f"{m}/{yy}", f"{m}-{y}", f"{m}/{y}"]
+        for mon in mons:
+            out += [f"{mon}{yy}", f"{mon}-{yy}", f"{mon}{y}", f"{mon}-{y}"]
+    out += [f"{m}-{day}-{y % 100:02d}", f"{day}-{m}-{y % 100:02d}", f"{m}/{day}/{y}", f"{day}/{m}/{y}"]
+    return out
+
+
+def _sci_candidates(text: str, numeric_ids: dict[int, list[str]]) -> list[str]:
+    """Ids a number in scientific notation may stand for: the exact value, and ids that round to it."""
+    m = _SCI.match(space_key(text))
+    if not m:
+        return []
+    sign, whole, frac, exp = m[1], m[2], m[3] or "", int(m[4])
+    digits = (whole + frac).lstrip("0") or "0"
+    value = float(f"{sign}{whole}.{frac or '0'}e{exp}")
+    out = []
+    if value.is_integer():
+        out.append(str(int(value)))
+    # Excel shows 1.23457E+11 for 123456789012: match ids that round to the shown digits.
+    shown = len(digits)
+    magnitude = int(np.floor(np.log10(abs(value)))) if value else 0
+    step = 10 ** max(0, magnitude - shown + 1)
+    for n, ids in numeric_ids.items():
+        if round(n / step) * step == round(value / step) * step:
+            out.extend(ids)
+    return out
+
+
+@dataclass
+class SampleIndex:
+    """Sample ids ready for matching: exact, and by the loosest key."""
+
+    ids: np.ndarray
+    exact: set[str] = field(default_factory=set)
+    by_loose: dict[str, list[str]] = field(default_factory=dict)
+    numeric: dict[int, list[str]] = field(default_factory=dict)
+
+    @classmethod
+    def of(cls, ids) -> "SampleIndex":
+        ids = np.asarray([str(i) for i in ids], dtype=object)
+        index = cls(ids, set(ids))
+        for sid in dict.fromkeys(ids):
+            if not sid.strip():
+                continue
+            index.by_loose.setdefault(loose_key(sid), []).append(sid)
+            digits = space_key(sid)
+            if digits.isdigit():
+                index.numeric.setdefault(int(digits), []).append(sid)
+        return index
+
+
+def _why(orphan: str, target: str) -> list[str]:
+    """The manglings that turn ``target`` into ``orphan`` (both as text)."""
+    reasons = []
+    raw = str(orphan)
+    if raw.strip().startswith("'"):
+        reasons.append("a leading apostrophe")
+    if _DASHES.search(raw) and not _DASHES.search(target):
+        reasons.append("a typographic dash")
+    if _SPACES.sub("", raw) != raw:
+        reasons.append("a non-breaking space" if re.search(r"[\u00a0\u2007\u202f]", raw) else "stray spaces")
+    a, b = space_key(orphan), space_key(target)
+    if a.casefold() == b.casefold() and a != b:
+        reasons.append("different case")
+    a, b = a.casefold(), b.casefold()
+    if _TRAILING_ZERO_DECIMAL.search(a) and not _TRAILING_ZERO_DECIMAL.search(b):
+        reasons.append("a trailing '.0'")
+        a = _TRAILING_ZERO_DECIMAL.sub("", a)
+    if a != b and _LEAD_ZEROS.sub("", a) == _LEAD_ZEROS.sub("", b):
+        reasons.append("leading zeros lost" if len(a) < len(b) else "extra leading zeros")
+    return reasons
+
+
+def probable_samples(value, index: SampleIndex) -> list[tuple[str, str]]:
+    """The samples an unmatched analysis id probably meant, each with how it was mangled.
+
+    Tries, in order: the id itself compared loosely (spaces, non-breaking
+    spaces, typographic dashes, a leading apostrophe, case, a trailing
+    ".0", leading zeros); scientific notation ("1.2E+04" for "12000", or a
+    rounded "1.23457E+11"); a date a spreadsheet made of the id (a date
+    cell, "2024-03-01", "1-Mar", an Excel day number) and the texts that
+    become that date ("3-1", "MAR1"...).
+
+    Examples
+    --------
+    >>> idx = SampleIndex.of(["HV24-0007", "HV24-0012"])
+    >>> probable_samples("HV24-7", idx)
+    [('HV24-0007', 'leading zeros lost')]
+    """
+    text = as_text(value) if not isinstance(value, (dt.date, dt.datetime)) else ""
+    found: dict[str, str] = {}
+
+    def take(candidates, how):
+        for cand in candidates:
+            for sid in index.by_loose.get(loose_key(cand), ()):
+                if sid not in found:
+                    found[sid] = how(sid) if callable(how) else how
+
+    if text:
+        take([text], lambda sid: ", ".join(_why(text, sid)) or "a different spelling")
+    if not found and text:
+        sci = _sci_candidates(text, index.numeric)
+        for sid in sci:
+            if sid in index.exact and sid not in found:
+                found[sid] = "written in scientific notation"
+        take(sci, "written in scientific notation")
+    if not found:
+        got = as_date(value) if not text or not _SCI.match(space_key(text)) else None
+        how = "turned into the date {} by a spreadsheet"
+        if got is None and text.isdigit() and 20000 <= int(text) <= 80000:
+            # An Excel day number (1900 date system): a date cell later formatted as a number.
+            got = (dt.date(1899, 12, 30) + dt.timedelta(days=int(text)), True)
+            how = "turned into a date by a spreadsheet, then into its day number ({})"
+        if got is not None:
+            d, has_year = got
+            shown = d.isoformat() if has_year else f"{d.day} {MONTH_NAMES[d.month - 1].capitalize()}"
+            take(_date_originals(d), how.format(shown))
+    return list(found.items())
+
+
+# ---------------------------------------------------------------- analyte columns
+
+ELEMENTS = frozenset(
+    "H He Li Be B C N O F Ne Na Mg Al Si P S Cl Ar K Ca Sc Ti V Cr Mn Fe Co Ni Cu Zn Ga Ge As Se Br Kr "
+    "Rb Sr Y Zr Nb Mo Tc Ru Rh Pd Ag Cd In Sn Sb Te I Xe Cs Ba La Ce Pr Nd Pm Sm Eu Gd Tb Dy Ho Er Tm Yb "
+    "Lu Hf Ta W Re Os Ir Pt Au Hg Tl Pb Bi Po At Rn Fr Ra Ac Th Pa U Np Pu".split()
+)
+_TOKEN = re.compile(r"([A-Z][a-z]?)(\d*)")
+_TOTAL_IRON = re.compile(r"^(.*?)(?:\(\s*(?:t|tot|total)\s*\)|t|tot|total|\*)$", re.IGNORECASE)
+UNIT_WORDS = {
+    "wt%": "wt%", "wt.%": "wt%", "wt %": "wt%", "wt. %": "wt%", "%": "wt%", "weight%": "wt%", "weight percent": "wt%",
+    "mass%": "wt%", "% m/m": "wt%", "pct": "wt%",
+    "ppm": "ppm", "µg/g": "ppm", "μg/g": "ppm", "ug/g": "ppm", "mg/kg": "ppm", "g/t": "ppm",
+    "ppb": "ppb", "ng/g": "ppb", "µg/kg": "ppb", "μg/kg": "ppb", "ug/kg": "ppb", "mg/t": "ppb",
+    "ppt": "ppt", "pg/g": "ppt",
+    "‰": "permil", "permil": "permil", "per mil": "permil", "per mille": "permil",
+    "mol%": "mol%", "ratio": "ratio", "1": "ratio",
+}
+_UNIT_ALT = "|".join(sorted((re.escape(u) for u in UNIT_WORDS), key=len, reverse=True))
+_HEADER_BRACKET = re.compile(r"^(?P<name>.+?)\s*(?:\((?P<p>[^()]*)\)|\[(?P<b>[^\[\]]*)\])\s*$")
+_HEADER_SUFFIX = re.compile(rf"^(?P<name>.+?)[\s_]+(?P<u>{_UNIT_ALT})$", re.IGNORECASE)
+REQUIRED_MAJORS = ("SiO2", "Al2O3", "MgO", "CaO", "Na2O", "K2O")
+VOLATILES = ("LOI", "H2O", "CO2", "H2O+", "H2O-")
+EXCEL_ERRORS = frozenset({"#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#UNKNOWN!", "#CONNECT!", "#BUSY!"})
+_CENSORED = re.compile(
+    r"^(?:[<>≤≥]\s*=?\s*(?:\d+(?:\.\d+)?|lod|lld|dl|d\.l\.|mdl|loq)|b\.?d\.?l\.?|n\.?d\.?|below detection(?: limit)?|not detected|<?\s*lod)$",
+    re.IGNORECASE,
+)
+_NOT_ANALYSED = frozenset({"n.a.", "na", "n/a", "n.a", "not analysed", "not analyzed", "-", "--", "---", "—", "–", "n.m.", "nm"})
+
+
+def _formula(name: str) -> tuple[bool, bool]:
+    """(is a chemical species, is total iron) for a header name such as "SiO2", "Fe2O3T", "87Sr"."""
+    text = name.strip()
+    total = False
+    m = _TOTAL_IRON.match(text)
+    if m and m[1] and "Fe" in m[1]:
+        text, total = m[1].strip(), True
+    text = re.sub(r"^\d{1,3}", "", text)  # isotope mass number: "87Sr"
+    text = text.rstrip("+-")  # "H2O+", "H2O-"
+    if not text or not re.fullmatch(r"(?:[A-Z][a-z]?\d*)+", text):
+        return False, False
+    return all(sym in ELEMENTS for sym, _ in _TOKEN.findall(text)), total
+
+
+@dataclass(frozen=True)
+class Analyte:
+    """An analyte column: its header, species name, unit (canonical) and where the unit came from."""
+
+    column: str
+    name: str
+    unit: str | None
+    unit_text: str | None
+    source: str | None  # "header", "manifest" or None
+    is_ratio: bool
+    is_total: bool
+    total_iron: bool
+    problem: str | None = None  # a unit question to report (unknown unit word, conflict)
+
+    @property
+    def is_volatile(self) -> bool:
+        return self.name.upper().rstrip("+-") in ("LOI", "H2O", "CO2")
+
+    @property
+    def is_oxide(self) -> bool:
+        return not self.is_ratio and not self.is_total and "O" in re.findall(r"[A-Z][a-z]?", self.name) and self.name != "O"
+
+    @property
+    def may_be_negative(self) -> bool:
+        """LOI is negative when a rock gains mass on ignition; delta values in per mil are signed."""
+        return self.name.upper() == "LOI" or self.unit == "permil"
+
+
+def split_header(header: str) -> tuple[str, str | None, str | None]:
+    """(name, canonical unit or None, unit text as written or None) of a column header."""
+    h = " ".join(str(header).split())
+    m = _HEADER_BRACKET.match(h)
+    if m:
+        inner = (m["p"] if m["p"] is not None else m["b"]).strip()
+        canon = UNIT_WORDS.get(inner.casefold()) or UNIT_WORDS.get(inner)
+        if canon:
+            return m["name"].strip(), canon, inner
+        if re.fullmatch(r"(?:t|tot|total)", inner, re.IGNORECASE):
+            return h, None, None  # "Fe2O3 (T)": total iron, not a unit
+        return m["name"].strip(), None, inner
+    m = _HEADER_SUFFIX.match(h)
+    if m:
+        return m["name"].strip(" _"), UNIT_WORDS[m["u"].casefold()] if m["u"].casefold() in UNIT_WORDS else UNIT_WORDS.get(m["u"]), m["u"]
+    return h, None, None
+
+
+def analytes(table) -> list[Analyte]:
+    """The analyte columns of the analyses table, with their units from the header or the manifest."""
+    declared = {str(k): str(v) for k, v in (table.spec.get("units") or {}).items()}
+    sample_col = table.spec.get("sample_field")
+    out = []
+    for col in table.frame.columns:
+        col = str(col)
+        if col == sample_col:
+            continue
+        name, unit, unit_text = split_header(col)
+        is_ratio = "/" in name and all(_formula(p)[0] for p in name.split("/"))
+        species, total_iron = _formula(name)
+        is_total = name.strip().casefold() in ("total", "sum", "total oxides", "sum of oxides")
+        is_loi = name.strip().upper() in ("LOI", "L.O.I.", "LOI*")
+        if not (species or is_ratio or is_total or is_loi or col in declared):
+            continue
+        problem = None
+        source = "header" if unit else None
+        if unit is None and unit_text is not None:
+            problem = f"'({unit_text})' in the header is not a unit archivist knows"
+        if col in declared:
+            d = declared[col].strip()
+            canon = UNIT_WORDS.get(d.casefold()) or UNIT_WORDS.get(d) or d
+            if unit is not None and canon != unit:
+                problem = f"the header says {unit_text} but tables.analyses.units says {d}"
+            elif unit is None:
+                unit, unit_text, source, problem = canon, d, "manifest", None
+        if is_ratio and unit is None and problem is None:
+            unit, source = "ratio", "implied"
+        out.append(Analyte(col, "LOI" if is_loi else name.strip(), unit, unit_text, source, is_ratio, is_total, total_iron, problem))
+    return out
+
+
+# ---------------------------------------------------------------- reading cells
+
+@dataclass
+class Cells:
+    """One analyte column's cells, classified (all arrays aligned with the table rows)."""
+
+    value: np.ndarray  # float; NaN unless a plain number
+    blank: np.ndarray
+    censored: np.ndarray
+    not_analysed: np.ndarray
+    excel_error: np.ndarray
+    unreadable: np.ndarray  # neither number, censored, not-analysed nor blank (includes Excel errors)
+    text: np.ndarray
+
+
+def classify(series: pd.Series) -> Cells:
+    """Classify the cells of one column in whole-column operations."""
+    obj = series.astype(object)
+    is_date = obj.map(lambda v: isinstance(v, (dt.date, dt.datetime))).to_numpy(dtype=bool)
+    missing = obj.isna().to_numpy(dtype=bool)
+    text = obj.where(~obj.isna(), "").map(str).str.strip()
+    blank = missing | (text == "").to_numpy(dtype=bool)
+    numeric_text = text.where(~pd.Series(is_date, index=text.index), "")
+    value = pd.to_numeric(numeric_text.where(~numeric_text.str.contains(",", regex=False), ""), errors="coerce").to_numpy(dtype=float, copy=True)
+    value[~np.isfinite(value)] = np.nan
+    folded = text.str.casefold()
+    censored = text.str.match(_CENSORED).to_numpy(dtype=bool) & ~blank
+    not_analysed = folded.isin(_NOT_ANALYSED).to_numpy(dtype=bool) & ~censored
+    excel_error = text.str.upper().isin(EXCEL_ERRORS).to_numpy(dtype=bool)
+    unreadable = ~blank & np.isnan(value) & ~censored & ~not_analysed
+    value[is_date] = np.nan
+    return Cells(value, blank, censored, not_analysed, excel_error, unreadable, text.to_numpy(dtype=object))
+
+
+@dataclass
+class Analyses:
+    table: object
+    sample_col: str | None
+    sample_values: np.ndarray  # raw cell objects
+    sample_text: np.ndarray  # as text (readers.text_column), not stripped
+    analytes: list[Analyte]
+    cells: dict[str, Cells]
+
+
+def read_analyses(project, ctx) -> Analyses:
+    def compute():
+        table = project.tables["analyses"]
+        col = table.field("sample_field")
+        raw = table.frame[col].to_numpy(dtype=object) if col else np.empty(0, dtype=object)
+        text = text_column(table.frame[col]) if col else np.empty(0, dtype=object)
+        found = analytes(table)
+        return Analyses(table, col, raw, text, found, {a.column: classify(table.frame[a.column]) for a in found})
+
+    return ctx.shared("samples:analyses", compute)
+
+
+def _sample_points(project, ctx):
+    """Sample id -> point (first one when ids repeat), for placing table findings on the map."""
+
+    def compute():
+        layer = project.layers.get("samples")
+        if layer is None:
+            return {}
+        geoms = layer.geometry
+        ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+        out = {}
+        for sid, g in zip(layer.ids[ok][::-1], geoms[ok][::-1]):
+            out[sid] = g
+        return out
+
+    return ctx.shared("samples:points", compute)
+
+
+def _header_ref(table, column: str) -> str:
+    data = table.data
+    if data.sheet is not None:
+        return f"{data.file}, sheet '{data.sheet}', cell {data.letters.get(column, '?')}{data.header_row}"
+    return f"{data.file}, header of column '{column}'"
+
+
+# ---------------------------------------------------------------- sample rules
+
+def _fid(layer, i) -> str:
+    index = layer.frame.index
+    label = "row" if index.name == "row" else "feature"
+    return f"{label} {index[i]}"
+
+
+@rule("sample-duplicate-id", family="samples", severity="error", needs=("samples",))
+def sample_duplicate_id(project, ctx):
+    """Two samples share an id, or a sample has none.
+
+    Catches
+    -------
+    Sample ids (`id_field`) used by more than one sample, including ids
+    that differ only in case, spaces or dash characters ("TM24-0007" and
+    "tm24-0007 "), and samples with an empty id. The finding gives the
+    features and how far apart the samples lie: 0 m suggests a row entered
+    twice, hundreds of metres two samples given one number.
+
+    Why it matters
+    --------------
+    An analysis, a thin section or a stored specimen is tied to its sample by
+    the id alone; with two samples under one id, results end up attached to
+    the wrong rock and place.
+
+    Fix
+    ---
+    Give each sample its own id from the field notebook or sample store;
+    delete true duplicate rows.
+
+    Example
+    -------
+    Two points numbered TM24-0012 gives "sample id 'TM24-0012' is used by 2
+    samples (feature 5, feature 19), 2314.6 m apart".
+    """
+    layer = project.layers["samples"]
+    ids = np.asarray(layer.ids, dtype=object)
+    geoms = layer.geometry
+    keys = space_keys(ids)
+    blank = np.flatnonzero(keys.to_numpy() == "")
+    if len(blank):
+        yield Hit(
+            f"{len(blank)} sample(s) have no id in {layer.spec.get('id_field')}: {', '.join(_fid(layer, i) for i in blank[:20])}.",
+            layer="samples",
+            geometry=shapely.multipoints([g for g in geoms[blank] if g is not None and not g.is_empty]) if len(blank) else None,
+        )
+    counts = keys[keys != ""].value_counts()
+    for key in sorted(counts[counts > 1].index):
+        idx = np.flatnonzero(keys.to_numpy() == key)
+        written = list(dict.fromkeys(ids[idx]))
+        pts = [g for g in geoms[idx] if g is not None and not g.is_empty]
+        spread = None
+        if len(pts) > 1:
+            xy = shapely.get_coordinates(np.array(pts, dtype=object))
+            spread = float(np.max(np.hypot(xy[:, None, 0] - xy[None, :, 0], xy[:, None, 1] - xy[None, :, 1])))
+        where = ", ".join(_fid(layer, i) for i in idx)
+        apart = f", {spread:.1f} m apart" if spread is not None else ""
+        if len(written) == 1:
+            text = f"sample id '{written[0]}' is used by {len(idx)} samples ({where}){apart}."
+        else:
+            text = f"sample ids {', '.join(repr(w) for w in written)} differ only in case, spaces or dashes ({where}){apart}."
+        yield Hit(text, layer="samples", features=tuple(written), measure=spread,
+                  geometry=shapely.multipoints(pts) if pts else None)
+
+
+@rule("sample-missing-location", family="samples", severity="error", needs=("samples",))
+def sample_missing_location(project, ctx):
+    """A sample has no usable location.
+
+    Catches
+    -------
+    Samples with no geometry (blank or non-numeric x/y cells in a coordinate
+    table), an empty point, non-finite coordinates, or a point at exactly
+    (0, 0) when the map does not reach the origin (the usual placeholder of
+    a blank coordinate). Coordinates present but in the wrong place are
+    reported by `sample-outside-extent`.
+
+    Why it matters
+    --------------
+    A sample without a location cannot be revisited, plotted or related to
+    the units it was taken from; its analyses lose most of their value.
+
+    Fix
+    ---
+    Enter the coordinates from the field notebook or GPS log; if they are
+    lost, say so in the sample's notes rather than leaving a placeholder.
+
+    Example
+    -------
+    A row of `samples.csv` with an empty `easting` cell gives "sample
+    TM24-0031 (row 32) has no location".
+    """
+    layer = project.layers["samples"]
+    geoms = layer.geometry
+    missing = shapely.is_missing(geoms) | shapely.is_empty(geoms)
+    xy = np.full((len(geoms), 2), np.nan)
+    present = np.flatnonzero(~missing)
+    if len(present):
+        pts = shapely.centroid(geoms[present])
+        xy[present, 0] = shapely.get_x(pts)
+        xy[present, 1] = shapely.get_y(pts)
+    nonfinite = ~missing & ~np.isfinite(xy).all(axis=1)
+    origin = ~missing & (xy[:, 0] == 0) & (xy[:, 1] == 0)
+    if origin.any():
+        extent = _extent(project, ctx)
+        if extent is not None and extent.covers(shapely.Point(0, 0)):
+            origin[:] = False
+    source = layer.source
+    for i in np.flatnonzero(missing | nonfinite | origin):
+        sid = layer.ids[i] or "(no id)"
+        if missing[i]:
+            why = "has no location" + (" (its coordinate cells are blank or not numbers)" if layer.spec.get("x_field") else " (null or empty geometry)")
+        elif nonfinite[i]:
+            why = "has coordinates that are not finite numbers"
+        else:
+            why = "is at (0, 0), the usual placeholder for a blank coordinate"
+        yield Hit(f"sample {sid} ({_fid(layer, i)} of {source}) {why}.", layer="samples", features=(layer.ids[i],) if layer.ids[i] else ())
+
+
+def _extent(project, ctx):
+    """The map's extent: the extent layer, else the union of the unit polygons; None when neither is there."""
+
+    def compute():
+        for role in ("extent", "units"):
+            layer = project.layers.get(role)
+            if layer is None:
+                continue
+            geoms = layer.geometry
+            ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & shapely.is_valid(geoms)
+            if ok.any():
+                geom = shapely.union_all(geoms[ok])
+                shapely.prepare(geom)
+                return geom, role
+        return None
+
+    found = ctx.shared("samples:extent", compute)
+    return None if found is None else found[0]
+
+
+def _extent_role(project, ctx) -> str | None:
+    _extent(project, ctx)
+    found = ctx.shared("samples:extent", lambda: None)
+    return None if found is None else found[1]
+
+
+@rule("sample-outside-extent", family="samples", severity="warning", needs=("samples",))
+def sample_outside_extent(project, ctx):
+    """A sample lies outside the map's extent.
+
+    Catches
+    -------
+    Sample points farther than the tolerance outside the extent layer (or,
+    without one, outside the union of the unit polygons); the finding gives
+    the distance. Samples without a location are left to
+    `sample-missing-location`.
+
+    Why it matters
+    --------------
+    A sample off the map is usually a typo in a coordinate, a sample from
+    another project, or a CRS mix-up; if it really was collected beyond the
+    sheet edge, the next user needs to know that its unit is not mapped here.
+
+    Fix
+    ---
+    Correct the coordinates from the field record, remove samples that
+    belong to another project, or accept the finding for samples
+    deliberately taken beyond the sheet edge.
+
+    Example
+    -------
+    A sample with a dropped digit in its northing gives "sample TM24-0044
+    lies 612034.2 m outside the map extent".
+    """
+    layer = project.layers["samples"]
+    extent = _extent(project, ctx)
+    if extent is None:
+        return
+    role = _extent_role(project, ctx)
+    geoms = layer.geometry
+    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    idx = np.flatnonzero(ok)
+    dist = shapely.distance(extent, geoms[idx])
+    far = dist > ctx.tolerance
+    what = "the map extent" if role == "extent" else "the unit polygons (no extent layer)"
+    for k in np.flatnonzero(far):
+        i = idx[k]
+        yield Hit(
+            f"sample {layer.ids[i]} lies {dist[k]:.1f} m outside {what}.",
+            layer="samples",
+            features=(layer.ids[i],),
+            measure=float(dist[k]),
+            geometry=geoms[i],
+        )
+
+
+@rule("sample-unit-mismatch", family="samples", severity="error", needs=("samples", "units"))
+def sample_unit_mismatch(project, ctx):
+    """The unit recorded for a sample differs from the unit polygon it falls in.
+
+    Catches
+    -------
+    Samples whose `unit_field` value is not the unit of any unit polygon
+    containing (or touching) the point, found with one STRtree query. A
+    notice instead of an error when the point is within the tolerance of the
+    polygon's edge (the sample sits on a contact, within the accuracy of the
+    linework), or when the polygon is a superficial unit in the legend
+    (`kind` = superficial) and the sample a bedrock unit: samples are often
+    taken from exposures beneath mapped drift. The finding gives the
+    distance to the edge and to the nearest polygon of the recorded unit.
+    Samples with no recorded unit, or outside every polygon, are skipped.
+
+    Why it matters
+    --------------
+    Either the sample is labelled with the wrong unit, and its analysis will
+    describe the wrong rock, or the contact is drawn in the wrong place; both
+    mislead the next user.
+
+    Fix
+    ---
+    Check the field record: correct the sample's unit, or move the contact
+    if the sample shows the mapped boundary is wrong. The mapper's judgement
+    decides which.
+
+    Example
+    -------
+    A KES sample inside a MAR polygon gives "sample TM24-0007 is recorded as
+    KES but lies in a MAR polygon (feature 12), 35.2 m inside its edge; the
+    nearest KES polygon is 35.4 m away".
+    """
+    samples = project.layers["samples"]
+    units = project.layers["units"]
+    recorded = samples.text("unit_field")
+    codes = units.text("unit_field")
+    if recorded is None or codes is None:
+        return
+    recorded = np.array([r.strip() for r in recorded], dtype=object)
+    codes = np.array([c.strip() for c in codes], dtype=object)
+    pts, polys = samples.geometry, units.geometry
+    usable = ~(shapely.is_missing(pts) | shapely.is_empty(pts)) & (recorded != "")
+    poly_ok = ~(shapely.is_missing(polys) | shapely.is_empty(polys))
+    tree = shapely.STRtree(np.where(poly_ok, polys, None))
+    pi, ui = tree.query(np.where(usable, pts, None), predicate="intersects")
+    if len(pi) == 0:
+        return
+    pairs = pd.DataFrame({"p": pi, "u": ui, "code": codes[ui]})
+    pairs["match"] = pairs.code.to_numpy() == recorded[pairs.p.to_numpy()]
+    has_match = pairs.groupby("p").match.any()
+    bad = has_match[~has_match].index.to_numpy()
+    if len(bad) == 0:
+        return
+    first = pairs[pairs.p.isin(bad)].drop_duplicates("p").set_index("p").loc[bad]
+    poly_idx = first.u.to_numpy()
+    edge = shapely.distance(pts[bad], shapely.boundary(polys[poly_idx]))
+    superficial = _superficial_units(project)
+    nearest = np.full(len(bad), np.nan)
+    for code in np.unique(recorded[bad]):  # one query per recorded unit code: a handful
+        mask = recorded[bad] == code
+        same = np.flatnonzero((codes == code) & poly_ok)
+        if len(same):
+            t = shapely.STRtree(polys[same])
+            _, d = t.query_nearest(pts[bad[mask]], return_distance=True, all_matches=False)
+            nearest[mask] = d
+    for k, i in enumerate(bad):
+        u = poly_idx[k]
+        sid = samples.ids[i]
+        near = (
+            f"; the nearest {recorded[i]} polygon is {nearest[k]:.1f} m away"
+            if np.isfinite(nearest[k])
+            else f"; no polygon on the map is {recorded[i]}"
+        )
+        case = " (the codes differ only in case)" if recorded[i].casefold() == codes[u].casefold() else ""
+        severity = None
+        note = ""
+        if edge[k] <= ctx.tolerance:
+            severity, note = Severity.NOTICE, f", within the tolerance ({ctx.tolerance:g}) of its edge: the sample sits on the contact"
+        elif codes[u] in superficial and recorded[i] not in superficial:
+            severity, note = Severity.NOTICE, f" ({codes[u]} is superficial: the sample may come from an exposure beneath it), {edge[k]:.1f} m inside its edge"
+        else:
+            note = f", {edge[k]:.1f} m inside its edge"
+        yield Hit(
+            f"sample {sid} is recorded as {recorded[i]} but lies in a {codes[u]} polygon (feature {units.ids[u]}){note}{near}{case}.",
+            layer="samples",
+            features=(sid, str(units.ids[u])),
+            measure=float(edge[k]),
+            geometry=pts[i],
+            severity=severity,
+        )
+
+
+def _superficial_units(project) -> set[str]:
+    legend = project.tables.get("legend")
+    if legend is None:
+        return set()
+    from .legend import cells
+
+    codes, kinds = cells(legend, "unit"), cells(legend, "kind")
+    if codes is None or kinds is None:
+        return set()
+    return {c for c, k in zip(codes, kinds) if c and k.casefold().startswith("superficial")}
+
+
+# ---------------------------------------------------------------- samples and analyses
+
+def _orphans(project, ctx):
+    """Analysis rows whose sample id matches no sample exactly: (row, raw value, text, probable matches)."""
+
+    def compute():
+        an = read_analyses(project, ctx)
+        index = SampleIndex.of(project.layers["samples"].ids)
+        out = []
+        if an.sample_col is None:
+            return out
+        unmatched = ~np.isin(an.sample_text.astype(str), list(index.exact))
+        for i in np.flatnonzero(unmatched):
+            raw, text = an.sample_values[i], an.sample_text[i]
+            blank = isinstance(raw, str) and not raw.strip() or raw is None
+            out.append((int(i), raw, text, [] if blank else probable_samples(raw, index)))
+        return out
+
+    return ctx.shared("samples:orphans", compute)
+
+
+def _shown(raw, text) -> str:
+    if isinstance(raw, (dt.datetime, dt.date)):
+        d = raw.date() if isinstance(raw, dt.datetime) else raw
+        return f"the date {d.isoformat()}"
+    return repr(text)
+
+
+@rule("analysis-orphan", family="samples", severity="error", needs=("samples", "analyses"))
+def analysis_orphan(project, ctx):
+    """An analysis names a sample id that matches no sample.
+
+    Catches
+    -------
+    Rows of the analyses table whose `sample_field` value is not exactly the
+    id of a sample, including blank ids. When the id looks mangled by a
+    spreadsheet, the sample it probably meant is named, with the mangling:
+    leading zeros lost ("7" for "0007", "HV24-7" for "HV24-0007"), a trailing
+    ".0", scientific notation ("1.2E+04" for "12000"), an id turned into a
+    date ("3-1" or "MAR1" read as 1 March), case, stray or non-breaking
+    spaces, typographic dashes, a leading apostrophe. The guess is a hint:
+    only the lab's submission sheet can confirm it.
+
+    Why it matters
+    --------------
+    An analysis that cannot be tied to its sample has no location and no
+    unit: it is lost to every later user, and a silently wrong join attaches
+    it to another rock.
+
+    Fix
+    ---
+    Correct the id in the analyses table (format the id column as text
+    before typing or pasting ids into a spreadsheet), or add the missing
+    sample.
+
+    Example
+    -------
+    `TM24-7` in the analyses gives "analyses.xlsx, sheet 'majors', cell
+    A4: sample id 'TM24-7' matches no sample; probably TM24-0007 (leading
+    zeros lost)".
+    """
+    an = read_analyses(project, ctx)
+    for i, raw, text, probable in _orphans(project, ctx):
+        where = an.table.data.cell(i, an.sample_col)
+        if not text.strip() and not isinstance(raw, (dt.date, dt.datetime)):
+            yield Hit(f"{where}: the analysis has no sample id.", layer="analyses")
+            continue
+        if len(probable) == 1:
+            sid, how = probable[0]
+            hint = f"; probably {sid} ({how})"
+        elif probable:
+            hint = "; perhaps one of " + ", ".join(f"{sid} ({how})" for sid, how in probable[:5])
+        else:
+            hint = ""
+        point = _sample_points(project, ctx).get(probable[0][0]) if len(probable) == 1 else None
+        yield Hit(
+            f"{where}: sample id {_shown(raw, text)} matches no sample{hint}.",
+            layer="analyses",
+            features=(text,) + tuple(sid for sid, _ in probable[:5]),
+            geometry=point,
+        )
+
+
+@rule("sample-unanalysed", family="samples", severity="notice", needs=("samples", "analyses"))
+def sample_unanalysed(project, ctx):
+    """A sample has no analysis.
+
+    Catches
+    -------
+    Samples whose id appears in no row of the analyses table. A notice: many
+    samples are taken for thin sections, fossils or reference and are never
+    analysed. When an unmatched analysis row probably meant the sample, the
+    finding says so.
+
+    Why it matters
+    --------------
+    A missing analysis is often a broken join (see `analysis-orphan`) or a
+    batch that never came back from the laboratory; the next user cannot tell
+    which without this note.
+
+    Fix
+    ---
+    Nothing, if the sample was not meant for analysis; otherwise correct the
+    id in the analyses table or add the missing results.
+
+    Example
+    -------
+    A sample TM24-0007 whose analysis row reads `TM24-7` gives "sample
+    TM24-0007 has no analysis (analyses.xlsx, sheet 'majors', cell A4 reads
+    'TM24-7', probably meant for it)".
+    """
+    an = read_analyses(project, ctx)
+    if an.sample_col is None:
+        return
+    layer = project.layers["samples"]
+    analysed = set(an.sample_text.astype(str))
+    claimed: dict[str, list[str]] = {}
+    for i, raw, text, probable in _orphans(project, ctx):
+        if len(probable) == 1:
+            claimed.setdefault(probable[0][0], []).append(f"{an.table.data.cell(i, an.sample_col)} reads {_shown(raw, text)}")
+    geoms = layer.geometry
+    for i in np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed))):
+        sid = layer.ids[i]
+        if not str(sid).strip():
+            continue
+        extra = f" ({'; '.join(claimed[sid])}, probably meant for it)" if sid in claimed else ""
+        g = geoms[i]
+        yield Hit(
+            f"sample {sid} has no analysis{extra}.",
+            layer="samples",
+            features=(sid,),
+            geometry=g if g is not None and not shapely.is_empty(g) else None,
+        )
+
+
+@rule("analysis-unit-undeclared", family="samples", severity="error", needs=("analyses",))
+def analysis_unit_undeclared(project, ctx):
+    """An analyte column has no unit, in its header or in the manifest.
+
+    Catches
+    -------
+    Analyte columns (headers naming a chemical species, LOI or Total) whose
+    header carries no unit ("SiO2 (wt%)", "SiO2_wt%", "Cu [ppm]") and that
+    `[tables.analyses.units]` does not cover; headers whose bracketed text
+    is not a unit (e.g. "SiO2 (XRF)"); a header and the manifest that
+    disagree; and manifest entries naming a column that is not in the table.
+    Isotope ratios ("87Sr/86Sr") need no unit. Columns that do not look like
+    analytes (dates, lab numbers, comments) are not checked.
+
+    Why it matters
+    --------------
+    A number without its unit is useless or, worse, misread: ppm taken for
+    wt% is off by ten thousand. Units in lab reports live in a header row
+    that is easily cut off when tables are merged.
+
+    Fix
+    ---
+    Put the unit in the header ("Cu (ppm)") or declare it in the manifest:
+    `[tables.analyses.units]` then `"Cu" = "ppm"`.
+
+    Example
+    -------
+    A column headed `Cu` gives "analyses.xlsx, sheet 'majors', cell N1:
+    analyte column 'Cu' has no unit".
+    """
+    an = read_analyses(project, ctx)
+    table = an.table
+    for a in an.analytes:
+        where = _header_ref(table, a.column)
+        if a.problem:
+            yield Hit(f"{where}: analyte column '{a.column}': {a.problem}.", layer="analyses")
+        elif a.unit is None:
+            yield Hit(
+                f"{where}: analyte column '{a.column}' has no unit; write it in the header (e.g. '{a.name} (wt%)') "
+                f"or declare it in [tables.analyses.units].",
+                layer="analyses",
+            )
+    columns = {str(c) for c in table.frame.columns}
+    for col in (table.spec.get("units") or {}):
+        if str(col) not in columns:
+            yield Hit(f"tables.analyses.units names column '{col}', which is not in {table.source}.", layer="analyses")
+
+
+def _grouped(an, column, rows, describe, limit=10):
+    """Per-cell hits, or one hit for the column when it has more than ``limit`` of them."""
+    data = an.table.data
+    if len(rows) <= limit:
+        for r in rows:
+            yield r, f"{data.cell(r, column)}", describe(r)
+        return
+    first = ", ".join(data.cell(r, column).rsplit(" ", 1)[-1] for r in rows[:5])
+    yield None, f"{_header_ref(an.table, column).rsplit(',', 1)[0]}, column '{column}'", f"{len(rows)} cells ({first}, ...)"
+
+
+def _sample_of(an, r):
+    return an.sample_text[r] if an.sample_col is not None else ""
+
+
+@rule("analysis-value-unreadable", family="samples", severity="error", needs=("analyses",))
+def analysis_value_unreadable(project, ctx):
+    """An analyte cell holds an Excel error, a date or text that is not a value.
+
+    Catches
+    -------
+    Cells of analyte columns that are Excel error values (#N/A, #VALUE!,
+    #DIV/0!, #REF!...), dates, or text that is neither a number, a censored
+    value ("<0.5", "bdl", "b.d.l.", "n.d.", ">10000") nor a not-analysed
+    mark ("n.a.", "-"); numbers written with a comma are reported rather
+    than guessed (decimal comma or thousands separator?). Each finding names
+    the cell; a column with more than ten gives one finding.
+
+    Why it matters
+    --------------
+    An error value is a formula that broke in the spreadsheet: the number the
+    lab reported is gone. Text in a number column stops every program that
+    reads the table as numbers.
+
+    Fix
+    ---
+    Replace the cell with the value from the laboratory's certificate;
+    write below-detection values as "<" and the detection limit.
+
+    Example
+    -------
+    A `#N/A` in the MgO column gives "analyses.xlsx, sheet 'majors', cell
+    G5: '#N/A' is an Excel error value, not a result (sample TM24-0012)".
+    """
+    an = read_analyses(project, ctx)
+    for a in an.analytes:
+        c = an.cells[a.column]
+        rows = np.flatnonzero(c.unreadable)
+
+        def describe(r, c=c):
+            t = c.text[r]
+            if c.excel_error[r]:
+                kind = "is an Excel error value, not a result"
+            elif re.fullmatch(r"-?\d+,\d+", t):
+                kind = "has a comma: decimal comma or thousands separator? write the number with a point"
+            elif isinstance(an.table.frame[a.column].iloc[r], (dt.date, dt.datetime)):
+                kind = "is a date, not a result"
+            else:
+                kind = "is neither a number, a censored value (e.g. '<0.01') nor a not-analysed mark"
+            return f"'{t}' {kind} (sample {_sample_of(an, r)})"
+
+        for r, where, what in _grouped(an, a.column, rows, describe):
+            yield Hit(f"{where}: {what}.", layer="analyses", features=(_sample_of(an, r),) if r is not None else ())
+
+
+@rule("analysis-negative-value", family="samples", severity="error", needs=("analyses",))
+def analysis_negative_value(project, ctx):
+    """An analyte value is negative.
+
+    Catches
+    -------
+    Negative numbers in analyte columns, except LOI (a rock can gain mass on
+    ignition, e.g. when ferrous iron oxidises) and values in per mil (delta
+    notation is signed). Some laboratories write below-detection results as
+    the negative detection limit ("-0.01" for "<0.01"); the finding says so.
+
+    Why it matters
+    --------------
+    A concentration cannot be negative. Left as it is, a "-0.01" that meant
+    "below 0.01" is summed, averaged and plotted as a real value.
+
+    Fix
+    ---
+    If the laboratory uses negative numbers for below-detection results,
+    rewrite them as "<" and the detection limit; otherwise correct the value
+    from the certificate.
+
+    Example
+    -------
+    `-0.01` in MnO gives "analyses.xlsx, sheet 'majors', cell F4: MnO is
+    -0.01 wt% (sample TM24-0007): if the lab meant below detection, write '<0.01'".
+    """
+    an = read_analyses(project, ctx)
+    for a in an.analytes:
+        if a.may_be_negative:
+            continue
+        c = an.cells[a.column]
+        with np.errstate(invalid="ignore"):
+            rows = np.flatnonzero(c.value < 0)
+        unit = f" {a.unit_text}" if a.unit_text else ""
+
+        def describe(r, c=c, a=a, unit=unit):
+            v = c.value[r]
+            return f"{a.name} is {v:g}{unit} (sample {_sample_of(an, r)}): if the lab meant below detection, write '<{-v:g}'"
+
+        for r, where, what in _grouped(an, a.column, rows, describe):
+            hit_what = what if r is not None else f"{what} are negative; if the lab meant below detection, write '<' and the limit"
+            yield Hit(
+                f"{where}: {hit_what}.",
+                layer="analyses",
+                features=(_sample_of(an, r),) if r is not None else (),
+                measure=float(-c.value[r]) if r is not None else None,
+                geometry=_sample_points(project, ctx).get(_sample_of(an, r)) if r is not None else None,
+            )
+
+
+def major_totals(an) -> tuple[np.ndarray, str, str | None] | None:
+    """Per row: the major-oxide total in wt%, how it was obtained, and the Total column (or None).
+
+    The "Total" column when there is one (in wt% or without a unit); else the
+    sum of the oxide and volatile (LOI, H2O, CO2) columns in wt%, censored
+    values counted as 0, total iron used instead of FeO + Fe2O3 when both are
+    given. Without a Total column the sum needs at least SiO2, Al2O3, an iron
+    oxide, MgO, CaO, Na2O and K2O; returns None otherwise. NaN where a row
+    cannot be totalled (a blank, unreadable or missing cell).
+    """
+    wt = [a for a in an.analytes if a.unit in ("wt%", None)]
+    total_col = next((a for a in wt if a.is_total), None)
+    if total_col is not None:
+        c = an.cells[total_col.column]
+        return c.value.copy(), f"'{total_col.column}'", total_col.column
+    oxides = [a for a in an.analytes if a.unit == "wt%" and (a.is_oxide or a.is_volatile)]
+    names = {a.name for a in oxides}
+    has_iron = any(a.name.startswith("Fe") for a in oxides)
+    if not (set(REQUIRED_MAJORS) <= names and has_iron):
+        return None
+    if any(a.total_iron for a in oxides):
+        oxides = [a for a in oxides if a.total_iron or a.name not in ("FeO", "Fe2O3")]
+    n = len(an.table.frame)
+    total = np.zeros(n)
+    bad = np.zeros(n, dtype=bool)
+    for a in oxides:  # one vectorised step per column
+        c = an.cells[a.column]
+        total += np.where(c.censored, 0.0, np.nan_to_num(c.value))
+        bad |= c.blank | c.unreadable | c.not_analysed
+    total[bad] = np.nan
+    return total, f"the sum of {len(oxides)} oxide and volatile columns", None
+
+
+@rule("analysis-total-out-of-range", family="samples", severity="warning", needs=("analyses",))
+def analysis_total_out_of_range(project, ctx):
+    """A major-oxide analysis does not total 98.5-101.5 wt%.
+
+    Catches
+    -------
+    Rows whose major-oxide total (the "Total" column, or the sum of the oxide
+    and LOI columns in wt% when there is no Total column; censored values
+    count as 0) lies outside `checks.total_min`..`checks.total_max`,
+    98.5-101.5 wt% by default: common practice for whole-rock XRF analyses
+    including LOI. Rows that cannot be totalled (blank or unreadable cells)
+    are left to the other rules. Tables without the usual major oxides are
+    not totalled. The range is a convention, not a law: sulphide-, graphite-
+    or fluorine-rich rocks and analyses reporting only some oxides total low
+    for good reasons; the mapper judges.
+
+    Why it matters
+    --------------
+    A total far from 100 % is the first sign of a missing oxide, a unit or
+    transcription error, or a bad analysis; results from such rows can
+    mislead every diagram they are plotted on.
+
+    Fix
+    ---
+    Check the row against the laboratory certificate; correct transcription
+    errors, add missing oxides, or flag the analysis as suspect. Set
+    `total_min`/`total_max` in `[checks]` if your method warrants another range.
+
+    Example
+    -------
+    A row totalling 96.2 wt% gives "analyses.xlsx, sheet 'majors', cell
+    M7: total 96.20 wt% for sample TM24-0015 is below 98.5 wt% by 2.30".
+    """
+    an = read_analyses(project, ctx)
+    found = major_totals(an)
+    if found is None:
+        return
+    totals, how, column = found
+    lo, hi = ctx.config.total_min, ctx.config.total_max
+    with np.errstate(invalid="ignore"):
+        rows = np.flatnonzero((totals < lo) | (totals > hi))
+    for r in rows:
+        v = totals[r]
+        where = an.table.data.cell(r, column) if column else f"{an.table.source}, row {an.table.data.header_row + 1 + r}"
+        off, side = (lo - v, f"below {lo:g}") if v < lo else (v - hi, f"above {hi:g}")
+        sid = _sample_of(an, r)
+        via = "" if column else f" ({how})"
+        yield Hit(
+            f"{where}: total {v:.2f} wt%{via} for sample {sid} is {side} wt% by {off:.2f}.",
+            layer="analyses",
+            features=(sid,) if sid else (),
+            measure=float(off),
+            geometry=_sample_points(project, ctx).get(sid),
+        )

@@ -1,0 +1,465 @@
+"""Family `samples`: sample points, their units, and the analyses table tied to them."""
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import pytest
+import shapely
+from shapely.geometry import Point
+
+import archivist
+from archivist.rules.samples import SampleIndex, analytes, classify, probable_samples, split_header
+from builders import (
+    BUNDLE,
+    MAJOR_HEADER,
+    MAJOR_ROW,
+    copy_bundle,
+    edit_layer,
+    edit_manifest,
+    edit_xlsx,
+    major_rows,
+    read_layer,
+    tiny_legend,
+    tiny_samples,
+    tiny_with_analyses,
+    tree_digest,
+    xlsx_cell,
+)
+
+pytestmark = pytest.mark.skipif(not (BUNDLE / "archivist.toml").exists(), reason="example bundle not generated")
+
+
+def clean(tmp_path):
+    return copy_bundle(tmp_path)
+
+
+def _samples(root):
+    return read_layer(root, "map.gpkg", "samples")
+
+
+def duplicate_id(tmp_path):
+    def dup(frame):
+        frame.loc[frame.index[4], "sample_id"] = frame.sample_id.iloc[1]
+
+    return edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", dup)
+
+
+def no_location(tmp_path):
+    def drop(frame):
+        g = frame.geometry.values.copy()
+        g[2] = None
+        frame.geometry = g
+        return frame
+
+    return edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", drop)
+
+
+def off_the_map(tmp_path):
+    def move(frame):
+        g = frame.geometry.values.copy()
+        g[0] = Point(g[0].x, 6798000 + 500)  # 500 m north of the sheet's top edge
+        frame.geometry = g
+        return frame
+
+    return edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", move)
+
+
+def wrong_unit(tmp_path):
+    def relabel(frame):
+        i = frame.index[frame.unit == "DUN"][0]
+        frame.loc[i, "unit"] = "KES"
+
+    return edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", relabel)
+
+
+def _first_id(root):
+    return _samples(root).sample_id.iloc[2]  # TM24-0007 in the bundle
+
+
+def mangled_id(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _first_id(root)
+    prefix, number = sid.split("-")
+
+    def change(ws):
+        for row in ws.iter_rows(min_row=2):
+            if row[0].value == sid:
+                row[0].value = f"{prefix}-{int(number)}"  # leading zeros lost
+
+    return edit_xlsx(root, "analyses.xlsx", "majors", change)
+
+
+def row_deleted(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _first_id(root)
+
+    def change(ws):
+        for row in ws.iter_rows(min_row=2):
+            if row[0].value == sid:
+                ws.delete_rows(row[0].row)
+                return
+
+    return edit_xlsx(root, "analyses.xlsx", "majors", change)
+
+
+def header_without_unit(tmp_path):
+    def change(ws):
+        for cell in ws[1]:
+            if cell.value == "MnO (wt%)":
+                cell.value = "MnO"
+
+    return edit_xlsx(copy_bundle(tmp_path), "analyses.xlsx", "majors", change)
+
+
+def excel_error(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _samples(root).sample_id.iloc[4]
+    return edit_xlsx(root, "analyses.xlsx", "majors", lambda ws: setattr(xlsx_cell(ws, sid, "MgO (wt%)"), "value", "#N/A"))
+
+
+def negative_value(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _samples(root).sample_id.iloc[4]
+    return edit_xlsx(root, "analyses.xlsx", "majors", lambda ws: setattr(xlsx_cell(ws, sid, "P2O5 (wt%)"), "value", -0.01))
+
+
+def low_total(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _samples(root).sample_id.iloc[4]
+    return edit_xlsx(root, "analyses.xlsx", "majors", lambda ws: setattr(xlsx_cell(ws, sid, "Total (wt%)"), "value", 96.2))
+
+
+CASES = {
+    "sample-duplicate-id": (duplicate_id, clean),
+    "sample-missing-location": (no_location, clean),
+    "sample-outside-extent": (off_the_map, clean),
+    "sample-unit-mismatch": (wrong_unit, clean),
+    "analysis-orphan": (mangled_id, clean),
+    "sample-unanalysed": (row_deleted, clean),
+    "analysis-unit-undeclared": (header_without_unit, clean),
+    "analysis-value-unreadable": (excel_error, clean),
+    "analysis-negative-value": (negative_value, clean),
+    "analysis-total-out-of-range": (low_total, clean),
+}
+
+
+def found(root, rule):
+    return [f for f in archivist.check(root, rules=[rule]).findings if f.rule == rule]
+
+
+def _xlsx_row(root, sid):
+    frame = pd.read_excel(root / "analyses.xlsx", sheet_name="majors", dtype=object)
+    return int(frame.index[frame.sample_id == sid][0]) + 2
+
+
+def test_clean_bundle_gives_no_sample_findings(tmp_path):
+    root = clean(tmp_path)
+    before = tree_digest(root)
+    assert archivist.check(root, only=["samples"]).findings == ()
+    assert tree_digest(root) == before
+
+
+# ---------------------------------------------------------------- samples
+
+def test_duplicate_id_names_features_and_distance(tmp_path):
+    root = duplicate_id(tmp_path)
+    (f,) = found(root, "sample-duplicate-id")
+    s = _samples(root)
+    sid = s.sample_id.iloc[1]
+    a, b = s.geometry.iloc[1], s.geometry.iloc[4]
+    assert f.features == (sid,) and f"feature {s.index[1]}" in f.message and f"feature {s.index[4]}" in f.message
+    assert f.measure == pytest.approx(a.distance(b), abs=1e-3)  # GEOS distance through shapely
+
+
+def test_ids_differing_only_in_case_or_spaces_are_duplicates(tmp_path):
+    samples = tiny_samples(ids=("S-0001", " s-0001"))
+    (f,) = found(tiny_with_analyses(tmp_path, samples=samples, ids=("S-0001",)), "sample-duplicate-id")
+    assert "differ only in case" in f.message
+
+
+def test_missing_location_named(tmp_path):
+    root = no_location(tmp_path)
+    (f,) = found(root, "sample-missing-location")
+    assert f.features == (_samples(root).sample_id.iloc[2],) and "no location" in f.message
+
+
+def test_missing_location_in_a_coordinate_table_and_null_island(tmp_path):
+    root = tiny_with_analyses(tmp_path, ids=("S-1", "S-2", "S-3"))
+    (root / "samples.csv").write_text("sample_id,unit,x,y\nS-1,A,50,50\nS-2,B,,50\nS-3,A,0,0\n", encoding="utf-8")
+    edit_manifest(root, lambda m: m["layers"].update(samples={"path": "samples.csv", "x_field": "x", "y_field": "y", "crs": "EPSG:32633"}))
+    (f,) = found(root, "sample-missing-location")
+    assert f.features == ("S-2",) and "row 3" in f.message and "blank or not numbers" in f.message
+    # S-3 at (0, 0) is not flagged: this tiny map's corner is the origin, so (0, 0) is a real place on it.
+
+
+def test_null_island_placeholder(tmp_path):
+    def to_origin(frame):
+        g = frame.geometry.values.copy()
+        g[1] = Point(0, 0)
+        frame.geometry = g
+        return frame
+
+    root = edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", to_origin)
+    (f,) = found(root, "sample-missing-location")
+    assert f.features == (_samples(root).sample_id.iloc[1],) and "(0, 0)" in f.message
+
+
+def test_outside_extent_with_distance(tmp_path):
+    root = off_the_map(tmp_path)
+    (f,) = found(root, "sample-outside-extent")
+    extent = read_layer(root, "map.gpkg", "extent").geometry.iloc[0]
+    p = _samples(root).geometry.iloc[0]
+    assert f.measure == pytest.approx(extent.distance(p), abs=1e-3) and f.measure == pytest.approx(500, abs=1e-3)
+    assert (f.x, f.y) == (round(p.x, 3), round(p.y, 3))
+
+
+def test_unit_mismatch_is_an_error_away_from_contacts(tmp_path):
+    root = wrong_unit(tmp_path)
+    (f,) = found(root, "sample-unit-mismatch")
+    assert f.severity.value == "error" and "recorded as KES but lies in a DUN polygon" in f.message
+    original = _samples(clean(tmp_path / "clean"))
+    i = int(np.flatnonzero(original.unit.to_numpy() == "DUN")[0])  # the sample wrong_unit relabels
+    assert f.features[0] == original.sample_id.iloc[i]
+    units = read_layer(root, "map.gpkg", "units")
+    p = original.geometry.iloc[i]
+    # Reference distances from GEOS through shapely: to the nearest KES polygon and to the DUN polygon's edge.
+    kes = units[units.unit == "KES"].geometry
+    assert f"nearest KES polygon is {kes.distance(p).min():.1f} m away" in f.message
+    dun = units[units.geometry.contains(p)].geometry.iloc[0]
+    assert f.measure == pytest.approx(dun.boundary.distance(p), abs=1e-3)
+
+
+@pytest.mark.parametrize(
+    "xy, recorded, severity",
+    [
+        ((99.5, 50), "B", "notice"),  # 0.5 m from the contact at x=100, tolerance 1 m
+        ((97.0, 50), "B", "error"),  # 3 m from it
+        ((100.0, 50), "B", None),  # on the contact: touches the B polygon
+        ((50, 50), "A", None),
+    ],
+)
+def test_unit_mismatch_near_contact_is_a_notice(tmp_path, xy, recorded, severity):
+    samples = tiny_samples(ids=("S-1",), units=(recorded,), xy=(xy,))
+    hits = found(tiny_with_analyses(tmp_path, samples=samples, ids=("S-1",)), "sample-unit-mismatch")
+    assert [h.severity.value for h in hits] == ([severity] if severity else [])
+
+
+def test_bedrock_sample_under_superficial_unit_is_a_notice(tmp_path):
+    legend = tiny_legend()
+    legend.loc[0, "kind"] = "superficial"
+    samples = tiny_samples(ids=("S-1",), units=("B",), xy=((50, 50),))
+    (f,) = found(tiny_with_analyses(tmp_path, samples=samples, ids=("S-1",), legend=legend), "sample-unit-mismatch")
+    assert f.severity.value == "notice" and "superficial" in f.message
+
+
+# ---------------------------------------------------------------- analyses and their sample ids
+
+def test_orphan_names_the_cell_and_the_probable_sample(tmp_path):
+    root = mangled_id(tmp_path)
+    sid = _first_id(root)
+    (f,) = found(root, "analysis-orphan")
+    assert f"analyses.xlsx, sheet 'majors', cell A{_xlsx_row(root, sid.split('-')[0] + '-' + str(int(sid.split('-')[1])))}" in f.message
+    assert f"probably {sid} (leading zeros lost)" in f.message
+    (u,) = found(root, "sample-unanalysed")
+    assert u.features == (sid,) and "probably meant for it" in u.message
+
+
+SAMPLE_IDS = ["0007", "HV24-0007", "HV24-0012", "118", "12000", "123456789012", "3-1", "SEPT2", "0042"]
+
+# Spreadsheet manglings: (what the analyses table holds, the sample meant, the mangling named).
+MANGLINGS = [
+    ("7", "0007", "leading zeros lost"),
+    (7, "0007", "leading zeros lost"),  # a number cell
+    ("HV24-7", "HV24-0007", "leading zeros lost"),
+    ("118.0", "118", "trailing '.0'"),
+    ("1.2E+04", "12000", "scientific notation"),
+    ("1.23457E+11", "123456789012", "scientific notation"),  # Excel's 6 significant digits
+    (dt.datetime(2024, 3, 1), "3-1", "date 2024-03-01"),  # a date cell, as openpyxl reads it
+    ("01-Mar", "3-1", "date 1 March"),
+    ("2024-09-02 00:00:00", "SEPT2", "date 2024-09-02"),
+    ("2-Sep", "SEPT2", "date 2 September"),
+    (45352, "3-1", "day number"),  # 45352 is 1 March 2024 in Excel's 1900 date system
+    ("hv24-0012", "HV24-0012", "different case"),
+    (" HV24-0012 ", "HV24-0012", "stray spaces"),
+    ("HV24-0012\u00a0", "HV24-0012", "non-breaking space"),
+    ("HV24\u20130012", "HV24-0012", "typographic dash"),
+    ("'0042", "0042", "leading apostrophe"),
+]
+
+
+@pytest.mark.parametrize("mangled, meant, how", MANGLINGS, ids=[repr(m[0]) for m in MANGLINGS])
+def test_mangled_ids_resolve_to_the_intended_sample(mangled, meant, how):
+    (match,) = probable_samples(mangled, SampleIndex.of(SAMPLE_IDS))
+    assert match[0] == meant and how in match[1]
+
+
+def test_excel_day_number_matches_python_date_arithmetic():
+    # Excel's 1900 date system counts days from 1899-12-30 (for dates after February 1900).
+    assert dt.date(1899, 12, 30) + dt.timedelta(days=45352) == dt.date(2024, 3, 1)
+
+
+def test_unrelated_ids_get_no_guess():
+    assert probable_samples("ZZ99-1234", SampleIndex.of(SAMPLE_IDS)) == []
+
+
+def test_mangled_ids_end_to_end_through_a_workbook(tmp_path):
+    samples = tiny_samples(ids=("0007", "3-1", "12000"), units=("A", "A", "B"), xy=((20, 20), (40, 40), (150, 50)))
+    rows = [[v, *MAJOR_ROW, round(sum(MAJOR_ROW), 2)] for v in (7, dt.datetime(2024, 3, 1), "1.2E+04")]
+    root = tiny_with_analyses(tmp_path, samples=samples, rows=rows)
+    hits = {f.message.split(":")[0]: f for f in found(root, "analysis-orphan")}
+    meant = {cell: f.message.split("probably ")[1].split(" ")[0] for cell, f in hits.items()}
+    assert meant == {
+        "analyses.xlsx, sheet 'majors', cell A2": "0007",
+        "analyses.xlsx, sheet 'majors', cell A3": "3-1",
+        "analyses.xlsx, sheet 'majors', cell A4": "12000",
+    }
+    assert "sample id the date 2024-03-01 matches no sample" in hits["analyses.xlsx, sheet 'majors', cell A3"].message
+
+
+def test_blank_sample_id_is_an_orphan(tmp_path):
+    rows = major_rows(["S-0001", "S-0002"]) + [[None, *MAJOR_ROW, 100.0]]
+    (f,) = found(tiny_with_analyses(tmp_path, rows=rows), "analysis-orphan")
+    assert "cell A4" in f.message and "no sample id" in f.message
+
+
+# ---------------------------------------------------------------- reading analyte columns
+
+@pytest.mark.parametrize(
+    "header, name, unit",
+    [
+        ("SiO2 (wt%)", "SiO2", "wt%"),
+        ("SiO2_wt%", "SiO2", "wt%"),
+        ("SiO2 wt.%", "SiO2", "wt%"),
+        ("Cu [ppm]", "Cu", "ppm"),
+        ("Cu_ppm", "Cu", "ppm"),
+        ("Au (ppb)", "Au", "ppb"),
+        ("Zr (µg/g)", "Zr", "ppm"),
+        ("Fe2O3(T) (wt%)", "Fe2O3(T)", "wt%"),
+        ("Cu", "Cu", None),
+        ("SiO2 (XRF)", "SiO2", None),
+    ],
+)
+def test_header_units(header, name, unit):
+    got = split_header(header)
+    assert got[0] == name and got[1] == unit
+
+
+def test_analyte_columns_and_units(tmp_path):
+    header = ["sample_id", "SiO2 (wt%)", "Fe2O3T", "Cu", "87Sr/86Sr", "lab_batch", "comment", "Total"]
+    rows = [["S-0001", 72.0, 2.0, 15, 0.7101, "B12", "fresh", 99.9]]
+    root = tiny_with_analyses(tmp_path, header=header, rows=rows, manifest={"tables": {"analyses": {"units": {"Cu": "ppm"}}}})
+    project = archivist.load_project(root)
+    got = {a.column: a.unit for a in analytes(project.tables["analyses"])}
+    assert got == {"SiO2 (wt%)": "wt%", "Fe2O3T": None, "Cu": "ppm", "87Sr/86Sr": "ratio", "Total": None}
+    msgs = sorted(f.message for f in found(root, "analysis-unit-undeclared"))
+    assert len(msgs) == 2 and "cell C1" in msgs[0] and "'Fe2O3T'" in msgs[0] and "'Total'" in msgs[1]
+
+
+def test_unit_conflict_and_unknown_manifest_column(tmp_path):
+    root = tiny_with_analyses(tmp_path)
+    with open(root / "archivist.toml", "a", encoding="utf-8") as fh:
+        fh.write('[tables.analyses.units]\n"SiO2 (wt%)" = "ppm"\nSiO3 = "wt%"\n')
+    msgs = sorted(f.message for f in found(root, "analysis-unit-undeclared"))
+    assert any("header says wt% but tables.analyses.units says ppm" in m for m in msgs)
+    assert any("names column 'SiO3'" in m for m in msgs)
+
+
+@pytest.mark.parametrize("cell", ["<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.", "BDL", ">10000", "<LOD"])
+def test_censored_values_are_read_not_reported(cell):
+    c = classify(pd.Series([cell], dtype=object))
+    assert c.censored[0] and not c.unreadable[0]
+
+
+@pytest.mark.parametrize("cell", ["#N/A", "#VALUE!", "#DIV/0!", "#REF!"])
+def test_excel_errors_are_unreadable(cell):
+    c = classify(pd.Series([cell], dtype=object))
+    assert c.excel_error[0] and c.unreadable[0]
+
+
+def test_censored_cells_in_the_bundle_are_not_findings(tmp_path):
+    root = clean(tmp_path)
+    frame = pd.read_excel(root / "analyses.xlsx", sheet_name="majors", dtype=object)
+    assert (frame == "<0.01").to_numpy().sum() >= 2  # the bundle has censored cells
+    assert found(root, "analysis-value-unreadable") == []
+
+
+def test_excel_error_names_the_cell(tmp_path):
+    root = excel_error(tmp_path)
+    (f,) = found(root, "analysis-value-unreadable")
+    sid = _samples(root).sample_id.iloc[4]
+    assert f"cell G{_xlsx_row(root, sid)}" in f.message and "'#N/A' is an Excel error value" in f.message
+    assert f.features == (sid,)
+
+
+def test_text_and_decimal_comma_are_unreadable(tmp_path):
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[0][2] = "0,28"
+    rows[1][3] = "approx 14"
+    hits = sorted(found(tiny_with_analyses(tmp_path, rows=rows), "analysis-value-unreadable"), key=lambda f: f.message)
+    assert len(hits) == 2 and "cell C2" in hits[0].message and "comma" in hits[0].message
+    assert "cell D3" in hits[1].message
+
+
+def test_negative_value_suggests_censoring_but_spares_loi(tmp_path):
+    root = negative_value(tmp_path)
+    (f,) = found(root, "analysis-negative-value")
+    assert "write '<0.01'" in f.message and f.measure == pytest.approx(0.01)
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[0][11] = -0.35  # LOI: a rock may gain mass on ignition
+    rows[0][12] = round(sum(rows[0][1:11]) - 0.35, 2)
+    assert found(tiny_with_analyses(tmp_path / "loi", rows=rows), "analysis-negative-value") == []
+
+
+def test_low_total_from_the_total_column(tmp_path):
+    root = low_total(tmp_path)
+    (f,) = found(root, "analysis-total-out-of-range")
+    sid = _samples(root).sample_id.iloc[4]
+    assert f"cell M{_xlsx_row(root, sid)}" in f.message and "below 98.5" in f.message
+    assert f.measure == pytest.approx(98.5 - 96.2)
+    p = _samples(root).geometry.iloc[4]
+    assert (f.x, f.y) == (round(p.x, 3), round(p.y, 3))  # placed at the sample
+
+
+def test_total_summed_when_there_is_no_total_column(tmp_path):
+    header = MAJOR_HEADER[:-1]
+    rows = [["S-0001", *MAJOR_ROW], ["S-0002", 60.0, *MAJOR_ROW[1:]]]
+    (f,) = found(tiny_with_analyses(tmp_path, header=header, rows=rows), "analysis-total-out-of-range")
+    expected = 60.0 + sum(MAJOR_ROW[1:])
+    assert f"total {expected:.2f} wt% (the sum of 11 oxide and volatile columns)" in f.message
+    assert f.features == ("S-0002",)
+
+
+def test_censored_oxide_counts_as_zero_in_the_sum(tmp_path):
+    header = MAJOR_HEADER[:-1]
+    rows = [["S-0001", *MAJOR_ROW], ["S-0002", *MAJOR_ROW[:4], "<0.01", *MAJOR_ROW[5:]]]
+    assert found(tiny_with_analyses(tmp_path, header=header, rows=rows), "analysis-total-out-of-range") == []
+
+
+def test_total_range_is_configurable(tmp_path):
+    root = low_total(tmp_path)
+    edit_manifest(root, lambda m: m["checks"].update(total_min=96.0))
+    assert found(root, "analysis-total-out-of-range") == []
+
+
+def test_partial_tables_are_not_totalled(tmp_path):
+    header = ["sample_id", "SiO2 (wt%)", "Cu (ppm)"]
+    rows = [["S-0001", 50.0, 12], ["S-0002", 40.0, 8]]
+    assert found(tiny_with_analyses(tmp_path, header=header, rows=rows), "analysis-total-out-of-range") == []
+
+
+def test_shapely_within_agrees_with_rule_on_bundle(tmp_path):
+    # Reference: every bundle sample lies within a polygon of its recorded unit (GEOS predicate).
+    root = clean(tmp_path)
+    s, u = _samples(root), read_layer(root, "map.gpkg", "units")
+    tree = shapely.STRtree(u.geometry.values)
+    pi, ui = tree.query(s.geometry.values, predicate="within")
+    assert set(pi) == set(range(len(s)))
+    assert (u.unit.to_numpy()[ui] == s.unit.to_numpy()[pi]).all()
+    assert found(root, "sample-unit-mismatch") == []
+
+
+def test_ambiguous_date_offers_every_candidate():
+    # 1 March could have been typed "3-1" or "MAR1": both samples are offered, neither is chosen.
+    found_ = probable_samples(dt.datetime(2024, 3, 1), SampleIndex.of(["3-1", "MAR1", "HV24-0007"]))
+    assert sorted(sid for sid, _ in found_) == ["3-1", "MAR1"]
