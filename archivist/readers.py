@@ -60,10 +60,12 @@ def as_text(value: Any) -> str:
 
 
 def text_column(series: pd.Series) -> np.ndarray:
-    """A column as an object array of text, in one pass."""
+    """A column as an object array of text; each distinct value is converted once."""
     if pd.api.types.is_integer_dtype(series.dtype):
         return series.astype("int64").astype(str).to_numpy(dtype=object)
-    return np.array([as_text(v) for v in series.to_numpy(dtype=object)], dtype=object)
+    codes, uniques = pd.factorize(series.to_numpy(dtype=object), use_na_sentinel=True)
+    texts = np.array([as_text(v) for v in uniques] + [""], dtype=object)  # code -1 (missing) -> ""
+    return texts[codes]
 
 
 def decode_utf8(raw: bytes, name: str) -> tuple[str | None, Hit | None]:

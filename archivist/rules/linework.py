@@ -1,0 +1,975 @@
+"""Family `linework`: contacts, faults and the map boundary agree with the unit polygons.
+
+Line kinds
+----------
+The kind of each line is read from the lines layer's `kind_field` (default
+`kind`) and checked against `[checks] line_kinds` (default `contact`,
+`fault`, `map-boundary`). Case, and the difference between spaces, hyphens
+and underscores, are ignored (`Map boundary` is `map-boundary`). A certainty
+qualifier from `[checks] certainties` (default `certain`, `approximate`,
+`inferred`, `concealed`) may be written into the kind itself, as
+`contact, inferred`, `fault (concealed)` or `inferred contact`; the
+`certainty_field`, when named, is checked against the same list. What a kind
+means for the checks follows from its name: a kind containing "fault" or
+"thrust" is a fault, `map-boundary` is the map boundary, a kind containing
+"contact" or "unconformity" is a contact; any other kind you add (a fold
+axial trace, a dyke) is drawn freely and only checked for self-intersections
+and duplicates.
+
+How it scales
+-------------
+Each line segment is looked up by its two endpoints in the half-edge table
+of the unit polygons built by the topology family (one hash per segment,
+numpy ``searchsorted``). On a map whose lines and polygons were built from
+each other, nearly every segment is found there exactly, and the checks are
+pure array work. Only the rest, the segments with no exact twin, go through
+GEOS geometry (distance within the tolerance, buffers, differences), so the
+cost of the exact checks grows with the number of problems, not the size of
+the map.
+"""
+
+from __future__ import annotations
+
+import re
+from collections import Counter
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import shapely
+from shapely.ops import substring
+
+from ..model import Hit
+from ..registry import rule
+from .topology import (
+    ABOVE,
+    LINESTRING,
+    MULTILINESTRING,
+    COLLECTION,
+    canonical,
+    coord_hash,
+    get_coverage,
+    get_edges,
+    get_units,
+    group_sorted,
+    linear_parts,
+    merge_by_group,
+    metres_per_unit,
+    num,
+    segment_lines,
+    text_values,
+)
+
+ROLE_NAMES = {"contact": "Contact", "fault": "Fault", "boundary": "Map-boundary line", "other": "Line", "unknown": "Line"}
+
+
+# ---------------------------------------------------------------- kinds
+
+def _norm(text: str) -> str:
+    return re.sub(r"[\s_\-]+", " ", str(text).strip().lower()).strip()
+
+
+def parse_kind(text: Any, kinds, certainties) -> tuple[str, str | None] | None:
+    """The vocabulary kind (and certainty qualifier) a kind value names, or None.
+
+    Accepts the kind alone or with a qualifier: ``contact``, ``Contact``,
+    ``contact, inferred``, ``fault (concealed)``, ``inferred contact``,
+    ``map boundary``.
+    """
+    if text is None:
+        return None
+    t = _norm(text)
+    if not t:
+        return None
+    vocab = {_norm(k): k for k in kinds}
+    quals = {_norm(c): c for c in certainties}
+    if t in vocab:
+        return vocab[t], None
+    m = re.fullmatch(r"(.+?)\s*(?:,\s*(.+)|\(\s*(.+?)\s*\))", str(text).strip().lower())
+    if m:
+        base, qual = _norm(m.group(1)), _norm(m.group(2) or m.group(3))
+        if base in vocab and qual in quals:
+            return vocab[base], quals[qual]
+    for q in sorted(quals, key=len, reverse=True):
+        if t.startswith(q + " ") and t[len(q) + 1:] in vocab:
+            return vocab[t[len(q) + 1:]], quals[q]
+    return None
+
+
+def kind_role(kind: str) -> str:
+    """What the checks make of a vocabulary kind: contact, fault, boundary or other."""
+    n = _norm(kind)
+    if "fault" in n or "thrust" in n:
+        return "fault"
+    if n == "map boundary":
+        return "boundary"
+    if "contact" in n or "unconformity" in n:
+        return "contact"
+    return "other"
+
+
+# ---------------------------------------------------------------- the line network
+
+@dataclass
+class Lines:
+    """The lines layer as the linework checks see it: features, parts and segments."""
+
+    rows: np.ndarray
+    geoms: np.ndarray
+    ids: np.ndarray
+    kind_code: np.ndarray | None  # per feature: index into kind_texts (the last one, "", for nulls)
+    kind_texts: np.ndarray | None  # distinct kind values as written
+    kind_parsed: list  # per distinct value: (kind, qualifier) or None
+    roles: np.ndarray  # per feature: contact, fault, boundary, other, unknown
+    coords: np.ndarray
+    part_off: np.ndarray
+    part_feat: np.ndarray
+    seg_c0: np.ndarray  # coordinate index of each segment's start
+    seg_part: np.ndarray
+    h: np.ndarray
+    px: np.ndarray
+    py: np.ndarray
+    qx: np.ndarray
+    qy: np.ndarray
+    seg_edge: np.ndarray | None = None
+    _tree: Any = None
+
+    @property
+    def n_parts(self) -> int:
+        return len(self.part_off) - 1
+
+    @property
+    def part_roles(self) -> np.ndarray:
+        return self.roles[self.part_feat]
+
+    @property
+    def seg_roles(self) -> np.ndarray:
+        return self.roles[self.part_feat[self.seg_part]]
+
+    @property
+    def seg_length(self) -> np.ndarray:
+        return np.hypot(self.qx - self.px, self.qy - self.py)
+
+    def part(self, p: int):
+        """Part p as a LineString."""
+        return shapely.linestrings(self.coords[self.part_off[p]:self.part_off[p + 1]])
+
+    def part_ends(self, parts: np.ndarray) -> np.ndarray:
+        """Both end coordinates of each part: shape (n, 2, 2)."""
+        return np.stack([self.coords[self.part_off[parts]], self.coords[self.part_off[parts + 1] - 1]], axis=1)
+
+    @property
+    def tree(self) -> shapely.STRtree:
+        """Spatial index of the line features (built on first use)."""
+        if self._tree is None:
+            self._tree = shapely.STRtree(self.geoms)
+        return self._tree
+
+    def role_lines(self, role: str) -> np.ndarray:
+        return self.geoms[self.roles == role]
+
+    def label(self, f: int) -> str:
+        return f"{ROLE_NAMES.get(self.roles[f], 'Line')} {self.ids[f]}"
+
+    def kind(self, f: int):
+        """(kind, qualifier) of feature f, or None."""
+        if self.kind_code is None:
+            return None
+        return self.kind_parsed[self.kind_code[f]]
+
+    def kind_text(self, f: int) -> str:
+        k = self.kind(f)
+        return "unknown kind" if k is None else k[0]
+
+    def match(self, project, ctx) -> np.ndarray:
+        """For every segment, the unit edge with exactly its endpoints, or -1."""
+        if self.seg_edge is None:
+            edges = get_edges(project, ctx)
+            self.seg_edge = edges.find(self.h, self.px, self.py, self.qx, self.qy)
+        return self.seg_edge
+
+    def edges_drawn_by(self, project, ctx, roles=None) -> np.ndarray:
+        """A mask over the unit edges: True where a line segment (of the given roles) draws the edge exactly."""
+        se = self.match(project, ctx)
+        sel = se >= 0
+        if roles is not None:
+            sel &= np.isin(self.seg_roles, roles)
+        drawn = np.zeros(len(get_edges(project, ctx)), dtype=bool)
+        drawn[se[sel]] = True
+        return drawn
+
+    def runs(self, sel: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Maximal stretches of consecutive selected segments, as LineStrings, with their part."""
+        idx = np.flatnonzero(sel)
+        if not len(idx):
+            return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
+        c0 = self.seg_c0[idx]
+        part = self.seg_part[idx]
+        brk = np.ones(len(idx), dtype=bool)
+        brk[1:] = (np.diff(c0) != 1) | (np.diff(part) != 0)
+        run = np.cumsum(brk) - 1
+        last = np.r_[brk[1:], True]
+        cidx = np.concatenate([c0, c0[last] + 1])
+        rid = np.concatenate([run, run[last]])
+        order = np.lexsort((cidx, rid))
+        geoms = shapely.linestrings(self.coords[cidx[order]], indices=rid[order])
+        return geoms, part[brk]
+
+
+def _line_geoms(layer) -> np.ndarray:
+    g = np.array(layer.geometry, dtype=object, copy=True)
+    t = shapely.get_type_id(g)
+    coll = np.flatnonzero(t == COLLECTION)
+    if len(coll):
+        parts, k = linear_parts(g[coll])
+        out = np.full(len(coll), None, dtype=object)
+        if len(parts):
+            shapely.multilinestrings(parts, indices=k, out=out)
+        g[coll] = out
+        t = shapely.get_type_id(g)
+    g[~np.isin(t, (LINESTRING, MULTILINESTRING))] = None
+    g[shapely.is_empty(g)] = None
+    return g
+
+
+def build_lines(project) -> Lines:
+    layer = project.layers["lines"]
+    cfg = project.config
+    all_geoms = _line_geoms(layer)
+    rows = np.flatnonzero(~shapely.is_missing(all_geoms))
+    geoms = all_geoms[rows]
+    ids = np.asarray(layer.ids, dtype=object)[rows]
+    values = text_values(layer, "kind_field")
+    if values is not None:
+        code, texts = values
+        code = np.where(code < 0, len(texts) - 1, code)[rows]
+        parsed = [parse_kind(t, cfg.line_kinds, cfg.certainties) for t in texts]
+        roles = np.array(["unknown" if k is None else kind_role(k[0]) for k in parsed], dtype=object)[code]
+    else:
+        code, texts, parsed = None, None, []
+        roles = np.full(len(rows), "unknown", dtype=object)
+    if len(geoms):
+        gtype, coords, offsets = shapely.to_ragged_array(geoms, include_z=False)
+        if gtype == shapely.GeometryType.LINESTRING:
+            part_off = offsets[0].astype(np.int64)
+            part_feat = np.arange(len(part_off) - 1)
+        else:
+            part_off = offsets[0].astype(np.int64)
+            part_feat = np.repeat(np.arange(len(offsets[1]) - 1), np.diff(offsets[1]))
+    else:
+        coords, part_off, part_feat = np.empty((0, 2)), np.zeros(1, dtype=np.int64), np.empty(0, dtype=np.int64)
+    # drop empty parts: they have no coordinates and no segments
+    sizes = np.diff(part_off)
+    if (sizes == 0).any():
+        keep = sizes > 0
+        part_feat = part_feat[keep]
+        part_off = np.r_[0, np.cumsum(sizes[keep])]
+    start = np.ones(len(coords), dtype=bool)
+    start[part_off[1:] - 1] = False
+    c0 = np.flatnonzero(start)
+    seg_part = np.repeat(np.arange(len(part_off) - 1), np.maximum(np.diff(part_off) - 1, 0))
+    x, y = coords[:, 0], coords[:, 1]
+    nonzero = (x[c0] != x[c0 + 1]) | (y[c0] != y[c0 + 1])
+    c0, seg_part = c0[nonzero], seg_part[nonzero]
+    px, py, qx, qy, _ = canonical(x[c0], y[c0], x[c0 + 1], y[c0 + 1])
+    h = coord_hash(px, py, qx, qy)
+    return Lines(rows, geoms, ids, code, texts, parsed, roles, coords, part_off, part_feat, c0, seg_part, h, px, py, qx, qy)
+
+
+def get_lines(project, ctx) -> Lines:
+    return ctx.shared("linework.lines", lambda: build_lines(project))
+
+
+# ---------------------------------------------------------------- geometry within the tolerance
+
+def _near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
+    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
+    out = np.full(len(targets), None, dtype=object)
+    if not len(ti):
+        return out
+    b = shapely.bounds(targets[ti])
+    pad = 2.0 * tol + 1e-9
+    boxes = shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad)
+    clipped = shapely.intersection(refs, boxes)
+    parts, k = shapely.get_parts(clipped, return_index=True)
+    keep = ~shapely.is_empty(parts)
+    parts, k = parts[keep], ti[k[keep]]
+    if not len(parts):
+        return out
+    order = np.argsort(k, kind="stable")
+    shapely.geometrycollections(parts[order], indices=k[order], out=out)
+    have = ~shapely.is_missing(out)
+    # with a zero tolerance, "on" means within floating-point noise of the reference
+    dist = tol if tol > 0 else 1e-9 * max(float(np.abs(b).max()), 1.0)
+    out[have] = shapely.buffer(out[have], dist)
+    return out
+
+
+def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every reference line."""
+    targets = np.asarray(targets, dtype=object)
+    if not len(targets) or not len(refs):
+        return targets.copy()
+    tree = tree if tree is not None else shapely.STRtree(refs)
+    ti, ri = tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    buf = _near_buffers(targets, ti, refs[ri], tol)
+    out = targets.copy()
+    have = ~shapely.is_missing(buf)
+    out[have] = shapely.difference(targets[have], buf[have])
+    return out
+
+
+def off_unit_boundaries(targets: np.ndarray, units, tol: float) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every unit polygon boundary."""
+    if not len(targets) or not len(units):
+        return np.asarray(targets, dtype=object).copy()
+    ti, ui = units.tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    buf = _near_buffers(targets, ti, shapely.boundary(units.geoms[ui]), tol)
+    out = np.asarray(targets, dtype=object).copy()
+    have = ~shapely.is_missing(buf)
+    out[have] = shapely.difference(targets[have], buf[have])
+    return out
+
+
+def connected_pieces(pieces: np.ndarray, groups: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Join the pieces of each group that touch (a stretch split where the line crosses itself)."""
+    out, out_groups = [], []
+    for g in np.unique(groups):
+        mine = list(pieces[groups == g])
+        while mine:
+            cluster = [mine.pop()]
+            grown = True
+            while grown:
+                grown = False
+                for other in list(mine):
+                    if any(shapely.intersects(other, c) for c in cluster):
+                        cluster.append(other)
+                        mine.remove(other)
+                        grown = True
+            out.append(cluster[0] if len(cluster) == 1 else shapely.line_merge(shapely.multilinestrings(cluster)))
+            out_groups.append(g)
+    return np.array(out, dtype=object), np.array(out_groups, dtype=np.int64)
+
+
+def unit_at(points: np.ndarray, units) -> np.ndarray:
+    """Index of the unit polygon each point lies inside, or -1."""
+    out = np.full(len(points), -1, dtype=np.int64)
+    if len(points) and len(units):
+        pi, ui = units.tree.query(points, predicate="within")
+        out[pi] = ui
+    return out
+
+
+# ---------------------------------------------------------------- rules
+
+@rule("line-off-boundary", family="linework", severity="error", needs=("lines", "units"))
+def line_off_boundary(project, ctx):
+    """A contact, or a stretch of one, does not lie on a unit polygon boundary.
+
+    Catches
+    -------
+    Each stretch longer than the tolerance (`[checks] tolerance`, default
+    0.1 mm at map scale) of a contact that is farther than the tolerance from
+    every unit polygon boundary, with its length; map-boundary lines are held
+    to the map's outer edge (the extent layer, or the outline of the units).
+    Digitising noise within the tolerance is not reported; every misfit beyond
+    it is. Faults are exempt where they run inside a unit (they may cut
+    through rock and end in it) but not where they leave the mapped area.
+    Lines of other kinds you add to the vocabulary are not checked. Segments
+    whose two endpoints are exactly those of a polygon edge are on the
+    boundary without further test; the rest are measured with GEOS.
+
+    Why it matters
+    --------------
+    Lines and polygons tell two different stories: the printed contact runs
+    through a unit while the polygons put it elsewhere, and anyone rebuilding
+    polygons from the lines gets a different map.
+
+    Fix
+    ---
+    Snap the line to the polygon boundary (or reshape the polygons to the
+    line, if the line is right); if the line is really a fault, give it a fault
+    kind.
+
+    Example
+    -------
+    A contact drawn 3 m east of the edge between two units, on a map whose
+    tolerance is 1 m: "Contact 1 runs 100.00 m off the unit boundaries,
+    inside unit 2 (B)."
+    """
+    net = get_lines(project, ctx)
+    units = get_units(project, ctx)
+    cov = get_coverage(project, ctx)
+    edges = get_edges(project, ctx)
+    tol = float(ctx.tolerance)
+    m = metres_per_unit(project)
+    se = net.match(project, ctx)
+    roles = net.seg_roles
+    on = se >= 0
+    on_outline = on.copy()
+    on_outline[on] = edges.outline[se[on]]
+    sel_poly = ~on & np.isin(roles, ("contact", "fault"))
+    sel_edge = ~on_outline & (roles == "boundary")
+    found = []
+    runs, part = net.runs(sel_poly)
+    if len(runs):
+        off = off_unit_boundaries(runs, units, tol)
+        pieces, k = linear_parts(off, tol * ABOVE)
+        found.append((pieces, part[k], "boundaries"))
+    runs, part = net.runs(sel_edge)
+    if len(runs) and cov.extent is not None:
+        off = uncovered(runs, np.array([cov.extent_boundary], dtype=object), tol)
+        pieces, k = linear_parts(off, tol * ABOVE)
+        found.append((pieces, part[k], "edge"))
+    for pieces, parts, what in found:
+        if not len(pieces):
+            continue
+        pieces, parts = connected_pieces(pieces, parts)
+        mid = shapely.line_interpolate_point(pieces, 0.5, normalized=True)
+        inside = unit_at(mid, units)
+        for piece, p, u in zip(pieces, parts, inside):
+            f = net.part_feat[p]
+            role = net.roles[f]
+            if role == "fault" and u >= 0:
+                continue
+            length = float(shapely.length(piece) * m)
+            if what == "edge":
+                text = f"{net.label(f)} runs {num(length)} m off the map's outer edge."
+            elif u >= 0:
+                text = f"{net.label(f)} runs {num(length)} m off the unit boundaries, inside unit {units.label(u)}."
+            else:
+                text = f"{net.label(f)} runs {num(length)} m outside every unit polygon."
+            yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+
+
+@rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"))
+def boundary_without_line(project, ctx):
+    """A stretch of boundary between two units, or along the map edge, that no line draws.
+
+    Catches
+    -------
+    Each stretch longer than the tolerance of the boundary between two
+    polygons of different units, or of the units' edge along the map's outer
+    edge, that no line of the lines layer (of any kind) covers within the
+    tolerance, with its length. Boundaries between two polygons of the same
+    unit are left to `unit-same-neighbour`; edges of gaps and overlaps are
+    left to the topology family.
+
+    Why it matters
+    --------------
+    The printed map shows a boundary with no line symbol (so no certainty can
+    be read off it), and the linework no longer describes the polygons: a
+    contact was deleted, or never drawn after a polygon was split.
+
+    Fix
+    ---
+    Draw the contact (or fault, or map boundary) along the stretch, snapped
+    to the polygon edge, with its kind and certainty.
+
+    Example
+    -------
+    Two units side by side with no line between them: "No line draws
+    100.00 m of the boundary between units 1 (A) and 2 (B)."
+    """
+    net = get_lines(project, ctx)
+    units = get_units(project, ctx)
+    edges = get_edges(project, ctx)
+    get_coverage(project, ctx)
+    tol = float(ctx.tolerance)
+    m = metres_per_unit(project)
+    twin = edges.twin.copy()
+    if units.codes is not None and len(units):
+        cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
+        twin &= ~((cl == cr) & (cl != ""))
+    consider = (twin | edges.outline) & ~net.edges_drawn_by(project, ctx)
+    idx = np.flatnonzero(consider)
+    if not len(idx):
+        return
+    a = np.where(edges.twin[idx], np.minimum(edges.left[idx], edges.right[idx]), np.maximum(edges.left[idx], edges.right[idx]))
+    b = np.where(edges.twin[idx], np.maximum(edges.left[idx], edges.right[idx]), -1)
+    key = a * (len(units) + 1) + (b + 1)
+    uk, inv = np.unique(key, return_inverse=True)
+    stretches = merge_by_group(edges.lines(idx), inv, len(uk))
+    if len(net.geoms):
+        stretches = uncovered(stretches, net.geoms, tol, net.tree)
+    pieces, k = linear_parts(stretches, tol * ABOVE)
+    for piece, kk in zip(pieces, k):
+        ua, ub = int(uk[kk] // (len(units) + 1)), int(uk[kk] % (len(units) + 1)) - 1
+        length = float(shapely.length(piece) * m)
+        if ub >= 0:
+            text = f"No line draws {num(length)} m of the boundary between units {units.labels([ua, ub])}."
+            feats = (units.ids[ua], units.ids[ub])
+        else:
+            text = f"No line draws {num(length)} m of the map edge along unit {units.label(ua)}."
+            feats = (units.ids[ua],)
+        yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+
+
+def _endpoints(net: Lines, parts: np.ndarray):
+    """Coordinate indices of the two ends of each part (start, end)."""
+    return net.part_off[parts], net.part_off[parts + 1] - 1
+
+
+@rule("line-dangle", family="linework", severity="error", needs=("lines",))
+def line_dangle(project, ctx):
+    """A contact or map-boundary line ends without touching another line.
+
+    Catches
+    -------
+    Ends of contacts and map-boundary lines that touch no other line within
+    the tolerance, nor their own line further along (a closed loop), nor the
+    map's outer edge (a contact may stop at the frame when the frame is not
+    drawn as a line; `boundary-without-line` asks for the frame). Faults may
+    end freely inside a unit and are never reported, nor are kinds you add to
+    the vocabulary. The finding gives the free end and how far it is from
+    being connected: for an overshoot, the length of line past the line it
+    crosses (to trim); for an undershoot, the distance to the nearest line (to
+    add). Ends that share a vertex exactly with another line are connected
+    without further test.
+
+    Why it matters
+    --------------
+    A contact separates two units, so it must end where it meets another
+    boundary; a free end means polygons cannot be built from the lines and the
+    map does not say where one unit stops.
+
+    Fix
+    ---
+    Snap the end onto the line it should meet (extend an undershoot, trim an
+    overshoot), or, if the line is a fault dying out in a unit, give it a
+    fault kind.
+
+    Example
+    -------
+    A contact that runs 5 m past the map boundary it should end on: "Contact
+    1 ends free 5.00 m past the line it crosses (line 2)."
+    """
+    net = get_lines(project, ctx)
+    tol = float(ctx.tolerance)
+    m = metres_per_unit(project)
+    sel_parts = np.flatnonzero(np.isin(net.part_roles, ("contact", "boundary")) & (np.diff(net.part_off) >= 2))
+    if not len(sel_parts):
+        return
+    # exact: an end is connected when its coordinates occur at another vertex of any line
+    c = net.coords
+    n = len(c)
+    keep = np.ones(n, dtype=bool)
+    if n > 1:
+        keep[1:] = (c[1:, 0] != c[:-1, 0]) | (c[1:, 1] != c[:-1, 1])
+        keep[net.part_off[:-1][np.diff(net.part_off) > 0]] = True
+    kept = np.flatnonzero(keep)
+    order, gid, starts = group_sorted(coord_hash(c[kept, 0], c[kept, 1]), c[kept, 0], c[kept, 1])
+    counts = np.diff(np.r_[starts, len(order)])
+    gid_of_kept = np.empty(len(kept), dtype=np.int64)
+    gid_of_kept[order] = gid
+    pos = np.cumsum(keep) - 1
+    s, e = _endpoints(net, sel_parts)
+    ends = np.concatenate([s, e])
+    end_part = np.concatenate([sel_parts, sel_parts])
+    at_start = np.r_[np.ones(len(s), bool), np.zeros(len(e), bool)]
+    loose = counts[gid_of_kept[pos[ends]]] < 2
+    ends, end_part, at_start = ends[loose], end_part[loose], at_start[loose]
+    if not len(ends):
+        return
+    # within the tolerance of another line, of another part of the same line, or of the map edge
+    pts = shapely.points(c[ends])
+    end_feat = net.part_feat[end_part]
+    pi, fj = net.tree.query(pts, predicate="dwithin", distance=max(tol, 0.0))
+    connected = np.zeros(len(ends), dtype=bool)
+    connected[pi[fj != end_feat[pi]]] = True
+    edge = None
+    if "units" in project.layers:
+        cov = get_coverage(project, ctx)
+        if cov.extent is not None:
+            edge = cov.extent_boundary
+            connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
+    for k in np.flatnonzero(~connected):
+        p, f = int(end_part[k]), int(end_feat[k])
+        part = net.part(p)
+        length = part.length
+        first, last = np.searchsorted(net.part_feat, [f, f + 1])
+        rest = [net.part(q) for q in range(first, last) if q != p]
+        away = 2.0 * tol + 1e-9 * max(abs(c[ends[k]]).max(), 1.0)
+        if length > away:
+            rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
+        if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
+            continue
+        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, m)
+
+
+def _dangle_hit(net: Lines, f: int, part, pt, at_start: bool, edge, tol: float, m: float) -> Hit:
+    """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
+    nearest, gap, name = None, np.inf, None
+    xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
+    size = max(xmax - xmin, ymax - ymin, 1.0)
+    radius = max(10.0 * tol, 1e-3 * size)
+    while radius <= 4.0 * size:
+        cand = net.tree.query(shapely.buffer(pt, radius))
+        cand = cand[cand != f]
+        if len(cand):
+            d = shapely.distance(pt, net.geoms[cand])
+            j = int(np.argmin(d))
+            if d[j] <= radius:
+                nearest, gap, name = net.geoms[cand[j]], float(d[j]), f"line {net.ids[cand[j]]}"
+                break
+        radius *= 4.0
+    if edge is not None:
+        d = float(shapely.distance(pt, edge))
+        if d < gap:
+            nearest, gap, name = edge, d, "the map edge"
+    what = net.label(f)
+    if nearest is None:
+        return Hit(f"{what} ends free, with no other line on the map.", layer="lines", features=(net.ids[f],), geometry=pt)
+    crossing = shapely.intersection(part, nearest)
+    length = part.length
+    if not shapely.is_empty(crossing):
+        along = shapely.line_locate_point(part, shapely.points(shapely.get_coordinates(crossing)))
+        free = float(along.min()) if at_start else float(length - along.max())
+        if free < length - max(tol, 0.0):
+            piece = substring(part, 0, free) if at_start else substring(part, length - free, length)
+            return Hit(f"{what} ends free {num(free * m)} m past the line it crosses ({name}).", layer="lines",
+                       features=(net.ids[f],), measure=free * m, geometry=piece, x=pt.x, y=pt.y)
+    link = shapely.shortest_line(pt, nearest)
+    return Hit(f"{what} ends free, {num(gap * m)} m short of the nearest line ({name}).", layer="lines",
+               features=(net.ids[f],), measure=gap * m, geometry=link, x=pt.x, y=pt.y)
+
+
+@rule("line-same-unit-contact", family="linework", severity="warning", needs=("lines", "units"))
+def line_same_unit_contact(project, ctx):
+    """A contact has the same unit on both sides.
+
+    Catches
+    -------
+    Contacts lying on the boundary between two polygons that carry the same
+    unit code, over more than the tolerance, with the length concerned. Each
+    side is read from the polygons the contact's segment belongs to when the
+    segment is exactly a polygon edge, otherwise from the polygons found just
+    off each side of it (twice the tolerance away). A contact inside a single
+    polygon is reported by `line-off-boundary` instead.
+
+    Why it matters
+    --------------
+    A contact separates two different units. With the same unit on both sides,
+    either the line is of the wrong kind (often a fault recorded as a
+    contact), or one of the polygons carries the wrong code, or the line and
+    the split of the polygons are both leftovers.
+
+    Fix
+    ---
+    Correct the unit code of the mislabelled polygon, give the line its right
+    kind, or delete the line and merge the two polygons.
+
+    Example
+    -------
+    A contact between two polygons both coded `A`: "Contact 1 has unit A on
+    both sides over 100.00 m (units 1 and 2)."
+    """
+    net = get_lines(project, ctx)
+    units = get_units(project, ctx)
+    if units.codes is None or not len(units):
+        return
+    edges = get_edges(project, ctx)
+    tol = float(ctx.tolerance)
+    m = metres_per_unit(project)
+    codes = units.codes
+    se = net.match(project, ctx)
+    contact = net.seg_roles == "contact"
+    left = np.full(len(se), -1, dtype=np.int64)
+    right = np.full(len(se), -1, dtype=np.int64)
+    exact = contact & (se >= 0)
+    ok = exact.copy()
+    ok[exact] = edges.twin[se[exact]]
+    left[ok], right[ok] = edges.left[se[ok]], edges.right[se[ok]]
+    loose = np.flatnonzero(contact & (se < 0))
+    if len(loose):
+        x0, y0 = net.coords[net.seg_c0[loose]].T
+        x1, y1 = net.coords[net.seg_c0[loose] + 1].T
+        length = np.hypot(x1 - x0, y1 - y0)
+        d = 2.0 * tol if tol > 0 else 1e-6 * max(np.abs(net.coords).max(), 1.0)
+        nx, ny = -(y1 - y0) / length * d, (x1 - x0) / length * d
+        mx, my = (x0 + x1) / 2, (y0 + y1) / 2
+        left[loose] = unit_at(shapely.points(mx + nx, my + ny), units)
+        right[loose] = unit_at(shapely.points(mx - nx, my - ny), units)
+    same = (left >= 0) & (right >= 0) & (left != right)
+    same[same] = (codes[left[same]] == codes[right[same]]) & (codes[left[same]] != "")
+    idx = np.flatnonzero(same)
+    if not len(idx):
+        return
+    feat = net.part_feat[net.seg_part[idx]]
+    uf, inv = np.unique(feat, return_inverse=True)
+    segs = segment_lines(net.px[idx], net.py[idx], net.qx[idx], net.qy[idx])
+    geoms = merge_by_group(segs, inv, len(uf))
+    lengths = np.bincount(inv, weights=net.seg_length[idx], minlength=len(uf))
+    for k, (f, g, length) in enumerate(zip(uf, geoms, lengths)):
+        if length <= tol * ABOVE:
+            continue
+        mine = idx[inv == k]
+        pairs = sorted({tuple(sorted((int(a), int(b)))) for a, b in zip(left[mine], right[mine])})
+        polys = sorted({u for pair in pairs for u in pair})
+        yield Hit(
+            f"{net.label(f)} has unit {units.code(polys[0])} on both sides over {num(length * m)} m (units {join_ids(units, polys)}).",
+            layer="lines",
+            features=(net.ids[f],),
+            measure=float(length * m),
+            geometry=g,
+        )
+
+
+def join_ids(units, polys) -> str:
+    ids = [str(units.ids[u]) for u in polys]
+    return ", ".join(ids[:-1]) + " and " + ids[-1] if len(ids) > 1 else "".join(ids)
+
+
+@rule("line-self-intersection", family="linework", severity="error", needs=("lines",))
+def line_self_intersection(project, ctx):
+    """A line crosses, touches or doubles back on itself.
+
+    Catches
+    -------
+    Lines that GEOS does not find simple (`shapely.is_simple`): a line
+    crossing itself, touching itself, running back over itself, or a
+    multi-part line whose parts cross. A closed line (start = end) is fine.
+    The finding gives the self-intersection points and a size: when the line
+    runs back over itself, the length of line that repeats its own trace;
+    otherwise the length of the smallest loop it closes.
+
+    Why it matters
+    --------------
+    Such a line is almost always a digitising slip (a double click, a wobble
+    at a snap); it builds bow-tie polygons and breaks length and side
+    computations.
+
+    Fix
+    ---
+    Delete the loop or the doubled-back vertices so that the line runs once
+    along its trace.
+
+    Example
+    -------
+    A contact drawn (0 0, 10 0, 10 10, 5 -5): "Contact 1 crosses itself at 1
+    point; the smallest loop it closes is 31.81 m long."
+    """
+    net = get_lines(project, ctx)
+    m = metres_per_unit(project)
+    if not len(net.geoms):
+        return
+    # a single segment is always simple; only longer or multi-part lines need GEOS's test
+    cand = np.flatnonzero((shapely.get_num_coordinates(net.geoms) >= 3) | (shapely.get_type_id(net.geoms) == MULTILINESTRING))
+    for f in cand[~shapely.is_simple(net.geoms[cand])]:
+        g = net.geoms[f]
+        noded = shapely.node(g)
+        pieces = shapely.get_parts(noded)
+        ends = Counter()
+        for piece in pieces:
+            xy = shapely.get_coordinates(piece)
+            ends[tuple(xy[0])] += 1
+            ends[tuple(xy[-1])] += 1
+        original = set()
+        for part in shapely.get_parts(g):
+            xy = shapely.get_coordinates(part)
+            if len(xy):
+                original.add(tuple(xy[0]))
+                original.add(tuple(xy[-1]))
+        nodes = [p for p, c in ends.items() if c >= 3 or (c == 1 and p not in original)]
+        retraced = float(shapely.length(g) - shapely.length(noded))
+        loops = shapely.get_parts(shapely.polygonize(pieces))
+        n_nodes = max(len(nodes), 1)
+        points = "point" if n_nodes == 1 else "points"
+        if retraced > 1e-9 * max(g.length, 1.0):
+            text = f"{net.label(f)} runs back over itself: {num(retraced * m)} m of it repeats its own trace."
+            measure = retraced * m
+        elif len(loops):
+            size = float(shapely.length(loops).min())
+            text = f"{net.label(f)} crosses itself at {n_nodes} {points}; the smallest loop it closes is {num(size * m)} m long."
+            measure = size * m
+        else:
+            text = f"{net.label(f)} touches itself at {n_nodes} {points}."
+            measure = None
+        geom = shapely.multipoints(nodes) if nodes else g
+        yield Hit(text, layer="lines", features=(net.ids[f],), measure=measure, geometry=geom)
+
+
+@rule("line-duplicate", family="linework", severity="error", needs=("lines",))
+def line_duplicate(project, ctx):
+    """Two lines share length: one trace drawn twice.
+
+    Catches
+    -------
+    Pairs of lines that run together over more than the tolerance: segments
+    with exactly the same endpoints (found by hashing, whatever the kinds), and
+    lines running within the tolerance of each other without sharing vertices.
+    Where two lines meet at a junction they are close over a short stretch;
+    that stretch (five tolerances around each junction and line end) is not
+    counted, so only lines meeting at angles under about 11 degrees can be
+    reported for it. A line running back over itself is reported by
+    `line-self-intersection`.
+
+    Why it matters
+    --------------
+    The trace is printed twice (often with two symbols, e.g. a contact and a
+    fault), lengths are counted twice, and which of the two carries the right
+    kind and certainty is unclear.
+
+    Fix
+    ---
+    Keep one line with the right kind and certainty and delete the other, or
+    cut the shared stretch out of one of them.
+
+    Example
+    -------
+    A fault digitised over a contact along 100 m: "Lines 1 (contact) and 3
+    (fault) share 100.00 m."
+    """
+    net = get_lines(project, ctx)
+    tol = float(ctx.tolerance)
+    m = metres_per_unit(project)
+    nseg = len(net.h)
+    if not nseg:
+        return
+    # exact: segments with identical endpoints in two features
+    if "units" in project.layers:
+        se = net.match(project, ctx)
+        matched = se >= 0
+        key = np.where(matched, se, -1)
+    else:
+        matched = np.zeros(nseg, dtype=bool)
+        key = np.full(nseg, -1)
+    groups: list[np.ndarray] = []
+    mi = np.flatnonzero(matched)
+    if len(mi):
+        counts = np.bincount(key[mi])
+        multi = mi[counts[key[mi]] >= 2]
+        if len(multi):
+            o = np.argsort(key[multi], kind="stable")
+            multi = multi[o]
+            cut = np.flatnonzero(np.diff(key[multi])) + 1
+            groups += np.split(multi, cut)
+    ui = np.flatnonzero(~matched)
+    if len(ui):
+        order, gid, starts = group_sorted(net.h[ui], net.px[ui], net.py[ui], net.qx[ui], net.qy[ui])
+        counts = np.diff(np.r_[starts, len(order)])
+        for g in np.flatnonzero(counts >= 2):
+            groups.append(ui[order[starts[g]:starts[g] + counts[g]]])
+    shared: dict[tuple[int, int], list] = {}
+    for members in groups:
+        feats = sorted(set(net.part_feat[net.seg_part[members]].tolist()))
+        seg = int(members[0])
+        for i in range(len(feats)):
+            for j in range(i + 1, len(feats)):
+                shared.setdefault((feats[i], feats[j]), []).append(seg)
+    found: dict[tuple[int, int], tuple[Any, float]] = {}
+    for pair, segs in shared.items():
+        segs = np.array(segs)
+        length = float(net.seg_length[segs].sum())
+        geom = shapely.line_merge(shapely.multilinestrings(segment_lines(net.px[segs], net.py[segs], net.qx[segs], net.qy[segs])))
+        found[pair] = (geom, length)
+    # near: stretches without an exact twin, within the tolerance of another line
+    if tol > 0 and len(net.geoms) > 1:
+        runs, rpart = net.runs(~matched)
+        if len(runs):
+            rfeat = net.part_feat[rpart]
+            # stretches close to one another ...
+            ri, rj = shapely.STRtree(runs).query(runs, predicate="dwithin", distance=tol)
+            fj = rfeat[rj]
+            # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
+            # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
+            if "units" in project.layers:
+                close = shapely.length(off_unit_boundaries(runs, get_units(project, ctx), tol)) < shapely.length(runs) * (1 - 1e-12)
+            else:
+                close = np.ones(len(runs), dtype=bool)
+            if close.any():
+                near = np.flatnonzero(close)
+                qi, qf = net.tree.query(runs[near], predicate="dwithin", distance=tol)
+                ri, fj = np.concatenate([ri, near[qi]]), np.concatenate([fj, qf])
+            keep = fj != rfeat[ri]
+            both = np.unique(np.c_[ri[keep], fj[keep]], axis=0)
+            ri, fj = both[:, 0], both[:, 1]
+            if len(ri):
+                near = _near_shared(runs[ri], net.geoms[fj], net.part_ends(rpart[ri]), tol)
+                lengths = shapely.length(near)
+                for r, b, g, length in zip(ri, fj, near, lengths):
+                    if length <= tol * ABOVE:
+                        continue
+                    a = net.part_feat[rpart[r]]
+                    pair = (min(a, b), max(a, b))
+                    if pair not in found or found[pair][1] < length:
+                        found[pair] = (g, float(length))
+    for (a, b), (geom, length) in sorted(found.items()):
+        if length <= tol * ABOVE:
+            continue
+        yield Hit(
+            f"Lines {net.ids[a]} ({net.kind_text(a)}) and {net.ids[b]} ({net.kind_text(b)}) share {num(length * m)} m.",
+            layer="lines",
+            features=(net.ids[a], net.ids[b]),
+            measure=length * m,
+            geometry=geom,
+        )
+
+
+def _near_shared(runs: np.ndarray, others: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
+    """The part of each run within ``tol`` of the other line, away from where the two lines meet or end."""
+    close = shapely.intersection(runs, shapely.buffer(others, tol))
+    meet = shapely.intersection(runs, others)
+    ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends))
+    junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
+    return shapely.difference(close, junctions)
+
+
+@rule("line-kind-unknown", family="linework", severity="error", needs=("lines",))
+def line_kind_unknown(project, ctx):
+    """A line's kind (or certainty) is not in the vocabulary.
+
+    Catches
+    -------
+    Lines whose kind (`kind_field`, default `kind`) is empty or is not one
+    of `[checks] line_kinds` (default `contact`, `fault`, `map-boundary`),
+    and lines whose certainty (`certainty_field`, when named) is not one of
+    `[checks] certainties` (default `certain`, `approximate`, `inferred`,
+    `concealed`). Case, and spaces versus hyphens or underscores, do not
+    matter; a certainty may be written into the kind (`contact, inferred`,
+    `fault (concealed)`, `inferred contact`). One finding per line.
+
+    Why it matters
+    --------------
+    The kind decides the symbol on the printed map and which checks apply (a
+    contact must lie on a boundary, a fault may end in a unit); an unknown kind
+    gets neither, and a reader cannot tell what the line is.
+
+    Fix
+    ---
+    Correct the value, or add the kind (or certainty) to `[checks]
+    line_kinds` (`certainties`) if the map really uses it; kinds containing
+    "fault" or "thrust" are treated as faults, kinds containing "contact" or
+    "unconformity" as contacts.
+
+    Example
+    -------
+    A line with `kind = "contcat"`: "Line 4 has kind 'contcat', which is not
+    in the vocabulary (contact, fault, map-boundary)."
+    """
+    layer = project.layers["lines"]
+    net = get_lines(project, ctx)
+    cfg = project.config
+    vocab = ", ".join(cfg.line_kinds)
+    if net.kind_code is not None:
+        unknown = np.array([k is None for k in net.kind_parsed], dtype=bool)
+        for f in np.flatnonzero(unknown[net.kind_code]):
+            raw = net.kind_texts[net.kind_code[f]]
+            if not str(raw).strip():
+                text = f"Line {net.ids[f]} has no kind (field '{layer.field('kind_field')}'); the vocabulary is {vocab}."
+            else:
+                text = f"Line {net.ids[f]} has kind '{raw}', which is not in the vocabulary ({vocab})."
+            yield Hit(text, layer="lines", features=(net.ids[f],), geometry=net.geoms[f])
+    values = text_values(layer, "certainty_field")
+    if values is not None:
+        code, texts = values
+        known = {_norm(c) for c in cfg.certainties}
+        bad = np.array([bool(t.strip()) and _norm(t) not in known for t in texts], dtype=bool)
+        code = np.where(code < 0, len(texts) - 1, code)[net.rows]
+        for f in np.flatnonzero(bad[code]):
+            yield Hit(
+                f"Line {net.ids[f]} has certainty '{texts[code[f]]}', which is not in the vocabulary ({', '.join(cfg.certainties)}).",
+                layer="lines",
+                features=(net.ids[f],),
+                geometry=net.geoms[f],
+            )

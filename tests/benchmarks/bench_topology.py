@@ -1,0 +1,162 @@
+"""Benchmark: the topology and linework checks against reading the map and GEOS's coverage validation.
+
+    python tests/benchmarks/bench_topology.py --sizes 10000 100000 1000000 [--defects K] [--repeat R] [--keep DIR]
+
+For each size a child process writes a synthetic map (``topology_maps.py``:
+a Voronoi coverage dissolved into units, with its contacts, faults and map
+boundary) to a temporary GeoPackage. A second, fresh child process then
+measures, side by side in that one process:
+
+* read: ``pyogrio.read_dataframe`` of the units and the lines layers;
+* reference: ``shapely.coverage_is_valid`` on the unit polygons just read;
+* check: ``archivist.check(project, only=["topology", "linework"])`` on the
+  project loaded by ``archivist.load_project`` (loading is timed apart);
+* ratio: check / (read + reference);
+* peak memory: the measuring process's maximum resident set size
+  (``resource.getrusage``), covering read, reference, load and check.
+
+Timings are the best of ``--repeat`` runs. The clean maps must give no
+finding; with ``--defects K`` the findings per rule are listed instead.
+Targets (issue 3): ratio <= 2 at 10^5 polygons, 10^6 polygons under 6 GB,
+time roughly proportional to size. Exits 1 when a clean map has findings or
+the 10^5 ratio exceeds 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+
+
+def best(fn, repeat: int):
+    out, times = None, []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        out = fn()
+        times.append(time.perf_counter() - t)
+    return out, min(times)
+
+
+def measure(folder: Path, repeat: int) -> dict:
+    """Run in a fresh process: read, reference, load and check, with the peak memory."""
+    import pyogrio
+    import shapely
+
+    import archivist
+    from archivist.project import load_project
+
+    gpkg = folder / "map.gpkg"
+
+    def read():
+        return pyogrio.read_dataframe(gpkg, layer="units"), pyogrio.read_dataframe(gpkg, layer="lines")
+
+    (units, lines), t_read = best(read, repeat)
+    valid, t_ref = best(lambda polys=units.geometry.values: shapely.coverage_is_valid(polys), repeat)
+    del units, lines
+    project, t_load = best(lambda: load_project(folder), repeat)
+    before_check = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    report, t_check = best(lambda: archivist.check(project, only=["topology", "linework"]), repeat)
+    counts: dict[str, int] = {}
+    for f in report.findings:
+        counts[f.rule] = counts.get(f.rule, 0) + 1
+    geoms = project.layers["units"].geometry
+    return {
+        "polygons": len(geoms),
+        "lines": len(project.layers["lines"].frame),
+        "vertices": int(shapely.get_num_coordinates(geoms).sum()),
+        "read": t_read,
+        "coverage_is_valid": t_ref,
+        "valid": bool(valid),
+        "load": t_load,
+        "check": t_check,
+        "ratio": t_check / (t_read + t_ref),
+        "peak_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0,
+        "peak_before_check_mb": before_check,
+        "findings": counts,
+    }
+
+
+def machine() -> str:
+    import numpy
+    import pyogrio
+    import shapely
+
+    cpu = platform.processor() or "?"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    return (
+        f"{os.cpu_count()} CPUs ({cpu}); Python {platform.python_version()}, shapely {shapely.__version__} "
+        f"(GEOS {shapely.geos_version_string}), numpy {numpy.__version__}, pyogrio {pyogrio.__version__} "
+        f"(GDAL {pyogrio.__gdal_version_string__})"
+    )
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
+    ap.add_argument("--defects", type=int, default=0, help="inject K overlaps, K gaps and K dangles")
+    ap.add_argument("--repeat", type=int, default=1)
+    ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--keep", type=Path, help="write the maps here and keep them (default: a temporary folder)")
+    ap.add_argument("--_measure", type=Path, help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args._measure:
+        print(json.dumps(measure(args._measure, args.repeat)))
+        return 0
+    work = args.keep or Path(tempfile.mkdtemp(prefix="archivist-bench-"))
+    work.mkdir(parents=True, exist_ok=True)
+    print(machine())
+    head = (f"{'polygons':>9} {'lines':>9} {'vertices':>10} {'read s':>7} {'cov_valid s':>11} {'load s':>7} {'check s':>8} "
+            f"{'ratio':>6} {'peak MB':>8} {'(before check)':>14}  findings")
+    print(head)
+    rows, failed = [], False
+    for n in args.sizes:
+        folder = work / (f"map_{n}_seed{args.seed}" + (f"_defects{args.defects}" if args.defects else ""))
+        if not (folder / "map.gpkg").exists():
+            t = time.perf_counter()
+            subprocess.run([sys.executable, str(HERE / "topology_maps.py"), str(folder), str(n), "--seed", str(args.seed),
+                            "--defects", str(args.defects)], check=True, stdout=subprocess.DEVNULL)
+            print(f"  (generated {folder.name} in {time.perf_counter() - t:.0f} s)", flush=True)
+        out = subprocess.run([sys.executable, __file__, "--_measure", str(folder), "--repeat", str(args.repeat)],
+                             check=True, capture_output=True, text=True)
+        r = json.loads(out.stdout.strip().splitlines()[-1])
+        rows.append(r)
+        found = ", ".join(f"{k} {v}" for k, v in sorted(r["findings"].items())) or "none"
+        print(f"{r['polygons']:>9} {r['lines']:>9} {r['vertices']:>10} {r['read']:>7.2f} {r['coverage_is_valid']:>11.2f} {r['load']:>7.2f} "
+              f"{r['check']:>8.2f} {r['ratio']:>6.2f} {r['peak_mb']:>8.0f} {r['peak_before_check_mb']:>14.0f}  {found}", flush=True)
+        if not args.defects and r["findings"]:
+            failed = True
+            print("  a clean synthetic map gave findings", flush=True)
+        if not args.defects and not r["valid"]:
+            failed = True
+            print("  GEOS says the clean synthetic coverage is not valid", flush=True)
+        if 50_000 <= r["polygons"] <= 200_000 and r["ratio"] > 2.0:
+            failed = True
+            print("  above the target of 2x (read + coverage_is_valid) at 10^5 polygons", flush=True)
+    for a, b in zip(rows, rows[1:]):
+        grow = b["polygons"] / a["polygons"]
+        print(f"  {a['polygons']} -> {b['polygons']} polygons (x{grow:.1f}): check time x{b['check'] / a['check']:.1f}, "
+              f"reference x{(b['read'] + b['coverage_is_valid']) / (a['read'] + a['coverage_is_valid']):.1f}")
+    if not args.keep:
+        shutil.rmtree(work, ignore_errors=True)
+    return 1 if failed else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
