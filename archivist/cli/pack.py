@@ -1,0 +1,69 @@
+"""``archivist pack PROJECT --out DIR``."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from ..report import write_text
+from .options import progress_options, progress_for
+
+
+def _size(n: int) -> str:
+    for unit in ("bytes", "kB", "MB", "GB"):
+        if n < 1000 or unit == "GB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
+        n /= 1000
+    return f"{n} bytes"
+
+
+@click.command("pack")
+@click.argument("project", type=click.Path(path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(path_type=Path), metavar="DIR", help="Folder to write <name>-<version>/ into.")
+@click.option("--zip", "make_zip", is_flag=True, help="Also write <name>-<version>.zip.")
+@click.option("--allow-errors", is_flag=True, help="Pack even when the checks find errors; the package names them.")
+@click.option("--force", is_flag=True, help="Replace an existing package of the same name and version.")
+@progress_options
+def pack_command(project, out, make_zip, allow_errors, force, quiet, verbose):
+    """Check the map PROJECT and write it as an open data package in DIR.
+
+    The package is a BagIt bag whose data/ folder is a Frictionless Data
+    Package: the map as GeoPackage and GeoJSON, tables as CSV, DataCite and
+    PROV metadata, a README, licence and citation. SOURCE_DATE_EPOCH fixes
+    every recorded time, so the same project packs to the same bytes.
+
+    Exit 0: packed. 1: the checks found errors (the report is printed; nothing
+    written). 2: could not run (missing metadata, output exists without
+    --force, ...).
+    """
+    from ..package import PackRefused, pack
+    from ..package.staging import Interrupted
+    from . import handle_errors
+
+    @handle_errors
+    def run():
+        try:
+            with progress_for(quiet, verbose) as progress:
+                result = pack(project, out, zip=make_zip, allow_errors=allow_errors, force=force, progress=progress)
+        except PackRefused as exc:
+            write_text(exc.report, sys.stdout)
+            click.echo(f"archivist: {exc}", err=True)
+            sys.exit(1)
+        except (Interrupted, KeyboardInterrupt):
+            click.echo("archivist: pack interrupted; no package was written", err=True)
+            sys.exit(130)
+        s = result.report.summary
+        click.echo(f"Packed {result.path} ({len(result.files)} files, {_size(result.bytes)}).")
+        if result.zip_path is not None:
+            click.echo(f"Zip: {result.zip_path} ({_size(result.zip_path.stat().st_size)}).")
+        click.echo(f"Checks: {s.errors} errors, {s.warnings} warnings, {s.notices} notices.")
+        if result.open_errors:
+            click.echo(
+                f"Warning: packed with {result.open_errors} open error{'s' if result.open_errors != 1 else ''}; "
+                "they are listed in data/README.md, datapackage.json and the DataCite record.",
+                err=True,
+            )
+
+    run()

@@ -1,0 +1,344 @@
+"""The map's data in open formats: one GeoPackage, GeoJSON per layer, CSV per layer and table.
+
+Every layer is written in the map CRS to ``map.gpkg`` (the editable master)
+with its feature ids kept, and as RFC 7946 GeoJSON in WGS 84 (GDAL's GeoJSON
+driver with ``RFC7946=YES`` reprojects and writes lon/lat order, 7 decimals).
+Every attribute is kept, with the mapper's field names. Identifiers stay text.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pandas as pd
+import pyogrio
+import pyproj
+import shapely
+
+from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
+from .determinism import gdal_date
+from .tables import TextTable, column_text, text_table
+
+LAYER_TITLES = {
+    "units": "Map units",
+    "lines": "Contacts, faults and other map lines",
+    "extent": "Map extent",
+    "samples": "Sample locations",
+    "structures": "Structural measurements",
+    "legend": "Legend",
+    "analyses": "Analyses",
+}
+LAYER_DESCRIPTIONS = {
+    "units": "Polygons of the mapped units; together they tile the map.",
+    "lines": "Geological lines: contacts, faults, the map boundary.",
+    "extent": "The map's outer boundary.",
+    "samples": "Where each sample was taken, with its attributes.",
+    "structures": "Orientation measurements at stations.",
+    "legend": "One row per map unit: code, name, description, age.",
+    "analyses": "Laboratory analyses, one row per analysed sample.",
+}
+FIELD_DESCRIPTIONS = {
+    ("units", "unit_field"): "Map unit code; every code is a unit of the legend.",
+    ("lines", "kind_field"): "Kind of line (contact, fault, map boundary...).",
+    ("lines", "certainty_field"): "How certain the line's position is (certain, approximate, inferred, concealed...).",
+    ("samples", "id_field"): "Sample identifier, unique in the map; the analyses refer to it.",
+    ("samples", "unit_field"): "Map unit the sample was taken from; a unit of the legend.",
+    ("structures", "kind_field"): "Kind of measurement (bedding, foliation, joint, lineation...).",
+    ("structures", "dip_field"): "Dip, in degrees below the horizontal.",
+    ("legend", "unit_field"): "Map unit code (the key the layers refer to).",
+    ("analyses", "sample_field"): "Sample identifier; a sample of the samples layer.",
+}
+AZIMUTH = {
+    "dip-direction": "Dip direction, in degrees clockwise from north.",
+    "right-hand-rule": "Strike, in degrees clockwise from north; the dip is to the right looking along the strike (right-hand rule).",
+}
+LEGEND_COLUMNS = {
+    "name": ("Name of the unit.", None),
+    "description": ("Description of the unit.", None),
+    "age": ("Age, as named on the International Chronostratigraphic Chart.", None),
+    "min_age_ma": ("Youngest age of the unit.", "Ma"),
+    "max_age_ma": ("Oldest age of the unit.", "Ma"),
+    "order": ("Position in the legend, 1 at the top.", None),
+    "colour": ("Display colour, #RRGGBB.", None),
+    "lithology": ("Main lithology.", None),
+    "kind": ("Kind of unit (sedimentary, volcanic, intrusive, metamorphic, superficial...).", None),
+}
+
+
+GEOMETRY_NAMES = {
+    0: "Point", 1: "LineString", 2: "LinearRing", 3: "Polygon", 4: "MultiPoint",
+    5: "MultiLineString", 6: "MultiPolygon", 7: "GeometryCollection",
+}
+
+
+@dataclass
+class PreparedLayer:
+    """A layer ready to write: in the map CRS, with a ``fid`` column first."""
+
+    role: str
+    frame: gpd.GeoDataFrame
+    source: str
+    note: str | None
+    geometry_type: str
+
+    @property
+    def count(self) -> int:
+        return len(self.frame)
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float] | None:
+        geoms = np.asarray(self.frame.geometry.array, dtype=object)
+        present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+        if not present.any():
+            return None
+        b = shapely.total_bounds(geoms[present])
+        return tuple(float(v) for v in b)
+
+
+def _fids(frame: gpd.GeoDataFrame) -> np.ndarray:
+    """The feature ids to keep: the file's own when they are whole, unique numbers, else 1..n."""
+    idx = frame.index
+    if idx.name == "fid" and pd.api.types.is_integer_dtype(idx.dtype) and idx.is_unique and (len(idx) == 0 or idx.min() >= 0):
+        return idx.to_numpy(dtype=np.int64)
+    return np.arange(1, len(frame) + 1, dtype=np.int64)
+
+
+def prepare_layers(project: MapProject) -> list[PreparedLayer]:
+    """The project's layers in role order, each in the map CRS with a ``fid`` column."""
+    out = []
+    target: pyproj.CRS = project.crs
+    for role in LAYER_ROLES:
+        layer = project.layers.get(role)
+        if layer is None:
+            continue
+        frame = layer.frame
+        note = None
+        if frame.crs is None:
+            frame = frame.set_crs(target)
+            note = f"{role}: the layer declared no CRS; written in the map CRS as declared in the manifest."
+        elif not frame.crs.equals(target):
+            note = f"{role}: reprojected from {frame.crs.name} to the map CRS."
+            frame = frame.to_crs(target)
+        else:
+            frame = frame.set_crs(target, allow_override=True)
+        geo_name = frame.geometry.name
+        attrs = [c for c in frame.columns if c != geo_name]
+        data = {"fid": _fids(frame)}
+        for c in attrs:
+            data[c] = frame[c].to_numpy() if not isinstance(frame[c].dtype, pd.api.extensions.ExtensionDtype) else frame[c].array
+        prepared = gpd.GeoDataFrame(data, geometry=np.asarray(frame.geometry.array, dtype=object), crs=target)
+        types = sorted(set(shapely.get_type_id(prepared.geometry.array).tolist()) - {-1})
+        gtype = ", ".join(GEOMETRY_NAMES[t] for t in types) or "none"
+        out.append(PreparedLayer(role, prepared, layer.source, note, gtype))
+    return out
+
+
+def write_geopackage(layers: list[PreparedLayer], path: Path, created: dt.datetime) -> None:
+    """All layers into one GeoPackage, in role order, stamped with ``created`` (byte-stable)."""
+    with gdal_date(created):
+        for pl in layers:
+            pyogrio.write_dataframe(
+                pl.frame,
+                path,
+                layer=pl.role,
+                driver="GPKG",
+                layer_options={"IDENTIFIER": LAYER_TITLES[pl.role], "DESCRIPTION": LAYER_DESCRIPTIONS[pl.role]},
+            )
+
+
+def _plain(value):
+    """A distinct cell value as JSON can hold it (numpy scalars as Python ones, others as text)."""
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value if isinstance(value, (str, int, float, bool)) or value is None else str(value)
+
+
+def _json_column(series: pd.Series) -> np.ndarray:
+    """A column as JSON values (text), one per row, without a Python loop over the rows.
+
+    Numbers come from numpy (integers; floats in the shortest form that reads
+    back the same value, NaN and infinities as null); text, dates and other
+    values are JSON-encoded once per distinct value and spread by code.
+    """
+    dtype = series.dtype
+    n = len(series)
+    if pd.api.types.is_bool_dtype(dtype) and not series.isna().any():
+        return np.where(series.to_numpy(dtype=bool), "true", "false").astype(object)
+    if pd.api.types.is_integer_dtype(dtype):
+        present = series.notna().to_numpy()
+        text = series.astype("Int64").astype(str).to_numpy(dtype=object)
+        return np.where(present, text, "null").astype(object)
+    if pd.api.types.is_float_dtype(dtype):
+        values = series.to_numpy(dtype=float, na_value=np.nan)
+        return np.where(np.isfinite(values), values.astype(str), "null").astype(object)
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        text, _, _ = column_text(series)
+        series = text.where(text != "", None)
+    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    encoded = np.array(
+        [json.dumps(_plain(v), ensure_ascii=False) for v in uniques] + ["null"],
+        dtype=object,
+    )
+    return encoded[codes] if n else np.array([], dtype=object)
+
+
+def _features_json(frame: gpd.GeoDataFrame, geometry_json: np.ndarray) -> np.ndarray:
+    """``{"type":"Feature","id":..,"properties":{..},"geometry":..}`` per row, assembled column by column."""
+    props = frame.drop(columns=frame.geometry.name)
+    out = np.full(len(frame), '{"type":"Feature","id":', dtype=object) + props["fid"].astype("int64").astype(str).to_numpy(dtype=object)
+    out = out + ',"properties":{'
+    for i, col in enumerate(props.columns):
+        key = json.dumps(str(col), ensure_ascii=False) + ":"
+        out = out + ("," if i else "") + key + _json_column(props[col])
+    return out + '},"geometry":' + geometry_json + "}"
+
+
+def write_geojson(pl: PreparedLayer, path: Path) -> None:
+    """One layer as RFC 7946 GeoJSON: WGS 84 longitude/latitude, 7 decimals, exterior rings counterclockwise.
+
+    The ``fid`` is the feature's ``id`` and a property. Built with whole-array
+    operations (pyproj, shapely, pandas); a layer that crosses the
+    antimeridian, or whose attributes pandas cannot write as JSON, goes
+    through GDAL's GeoJSON driver with ``RFC7946=YES``, which splits such
+    geometries.
+    """
+    to_wgs84 = pyproj.Transformer.from_crs(pl.frame.crs, "EPSG:4326", always_xy=True)
+
+    def project_and_round(xy: np.ndarray) -> np.ndarray:
+        out = np.array(xy, dtype=float)  # heights, if any, stay as they are
+        lon, lat = to_wgs84.transform(xy[:, 0], xy[:, 1])
+        out[:, 0] = np.round(lon, 7)
+        out[:, 1] = np.round(lat, 7)
+        return out
+
+    geoms = np.asarray(pl.frame.geometry.array, dtype=object)
+    rounded = shapely.transform(geoms, project_and_round, include_z=None if shapely.has_z(geoms).any() else False)
+    present = ~(shapely.is_missing(rounded) | shapely.is_empty(rounded))
+    bounds = shapely.bounds(rounded)
+    crosses = bool(np.any((bounds[present, 2] - bounds[present, 0]) > 180.0)) if present.any() else False
+    if crosses or not pl.frame.columns.is_unique:
+        pyogrio.write_dataframe(pl.frame, path, layer=pl.role, driver="GeoJSON", layer_options={"RFC7946": "YES"})
+        return
+    polygons = np.isin(shapely.get_type_id(rounded), [3, 6])  # Polygon, MultiPolygon
+    if polygons.any():
+        rounded = rounded.copy()
+        rounded[polygons] = shapely.orient_polygons(rounded[polygons], exterior_cw=False)
+    geojson = shapely.to_geojson(rounded).astype(object)
+    geojson[shapely.is_missing(rounded)] = "null"
+    features = _features_json(pl.frame, geojson)
+    head = {"type": "FeatureCollection", "name": pl.role}
+    if present.any():
+        b = shapely.total_bounds(rounded[present])
+        head["bbox"] = [round(float(v), 7) for v in b]
+    opening = json.dumps(head, ensure_ascii=False, separators=(",", ":"))[:-1] + ',"features":[\n'
+    with open(path, "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(opening)
+        fh.write(",\n".join(features.tolist()))
+        fh.write("\n]}\n")
+
+
+def _axis_unit(crs: pyproj.CRS) -> str | None:
+    info = crs.axis_info
+    return info[0].unit_name if info else None
+
+
+def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
+    """The attributes of a layer as a table (no geometry; points get their coordinates)."""
+    role = pl.role
+    spec = project.layers[role].spec
+    frame = pd.DataFrame(pl.frame.drop(columns=pl.frame.geometry.name))
+    descriptions = {"fid": f"Feature id in map.gpkg (layer '{role}') and geojson/{role}.geojson."}
+    units: dict[str, str] = {}
+    identifiers = set()
+    for key, col in spec.items():
+        if not key.endswith("_field") or not isinstance(col, str):
+            continue
+        if (role, key) in FIELD_DESCRIPTIONS:
+            descriptions[col] = FIELD_DESCRIPTIONS[(role, key)]
+        if key in ("id_field", "unit_field"):
+            identifiers.add(col)
+        if role == "structures" and key == "azimuth_field":
+            descriptions[col] = AZIMUTH.get(spec.get("convention", "dip-direction"), AZIMUTH["dip-direction"])
+            units[col] = "degree"
+        if role == "structures" and key == "dip_field":
+            units[col] = "degree"
+    if role in ("samples", "structures") and pl.geometry_type == "Point":
+        xname = spec.get("x_field") or "x"
+        yname = spec.get("y_field") or "y"
+        if xname in frame.columns or yname in frame.columns:
+            xname, yname = "map_x", "map_y"
+        geoms = np.asarray(pl.frame.geometry.array, dtype=object)
+        frame[xname] = shapely.get_x(geoms)
+        frame[yname] = shapely.get_y(geoms)
+        label = project.crs.name
+        descriptions[xname] = f"Easting of the point in the map CRS ({label})."
+        descriptions[yname] = f"Northing of the point in the map CRS ({label})."
+        unit = _axis_unit(project.crs)
+        if unit:
+            units[xname] = units[yname] = unit
+    table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
+    table.title = LAYER_TITLES[role] + " (attributes)"
+    table.description = LAYER_DESCRIPTIONS[role] + " Attributes only; the geometries are in map.gpkg and the GeoJSON file."
+    return table
+
+
+def project_table(project: MapProject, role: str) -> TextTable:
+    """A legend or analyses table as text, with units read from the headers for analyses."""
+    t = project.tables[role]
+    spec = t.spec
+    identifiers = set()
+    descriptions: dict[str, str] = {}
+    units: dict[str, str] = {}
+    for key, col in spec.items():
+        if key.endswith("_field") and isinstance(col, str):
+            identifiers.add(col)
+            if (role, key) in FIELD_DESCRIPTIONS:
+                descriptions[col] = FIELD_DESCRIPTIONS[(role, key)]
+    if role == "legend":
+        for col, (desc, unit) in LEGEND_COLUMNS.items():
+            descriptions.setdefault(col, desc)
+            if unit:
+                units[col] = unit
+    if role == "analyses":
+        units.update({str(k): str(v) for k, v in (spec.get("units") or {}).items()})
+    table = text_table(role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses")
+    table.title = LAYER_TITLES[role]
+    table.description = f"{LAYER_DESCRIPTIONS[role]} From {t.source}."
+    return table
+
+
+def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTable]:
+    """Layer attribute tables and project tables, with the keys that link them."""
+    tables = {pl.role: layer_table(project, pl) for pl in layers}
+    for role in TABLE_ROLES:
+        if role in project.tables:
+            tables[role] = project_table(project, role)
+    for role, table in tables.items():
+        if role in project.layers:
+            table.primary_key = ["fid"]
+    legend = tables.get("legend")
+    legend_unit = project.tables["legend"].spec.get("unit_field") if "legend" in project.tables else None
+    if legend is not None and legend.has(legend_unit):
+        legend.primary_key = [legend_unit]
+    samples = tables.get("samples")
+    sample_id = project.layers["samples"].spec.get("id_field") if "samples" in project.layers else None
+    if samples is not None and samples.has(sample_id):
+        samples.primary_key = [sample_id]
+    for role in ("units", "samples"):
+        table = tables.get(role)
+        unit = project.layers[role].spec.get("unit_field") if role in project.layers else None
+        if table is not None and legend is not None and table.has(unit) and legend.has(legend_unit):
+            table.foreign_keys.append({"fields": [unit], "reference": {"resource": "legend", "fields": [legend_unit]}})
+    analyses = tables.get("analyses")
+    sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
+    if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):
+        analyses.foreign_keys.append({"fields": [sample_field], "reference": {"resource": "samples", "fields": [sample_id]}})
+    order = list(LAYER_ROLES) + list(TABLE_ROLES)
+    return [tables[r] for r in order if r in tables]

@@ -1,0 +1,467 @@
+"""``archivist.pack``: a checked map project as a self-describing, verifiable, reproducible package.
+
+The package is a BagIt bag (RFC 8493) whose payload ``data/`` is a
+Frictionless Data Package::
+
+    <name>-<version>/
+      bagit.txt  bag-info.txt  manifest-sha256.txt  tagmanifest-sha256.txt
+      data/
+        datapackage.json  README.md  LICENSE.txt  CITATION.cff  archivist.toml
+        map.gpkg                      all layers, map CRS (the editable master)
+        geojson/<layer>.geojson       RFC 7946, WGS 84
+        tables/<layer or table>.csv   attributes and tables, UTF-8
+        metadata/datacite.json  metadata/provenance.json
+        metadata/validation-report.json  metadata/crs.wkt
+        source/...                    the input files, byte for byte
+
+Nothing is written in the project. The package is built in a hidden sibling
+of its final place and renamed there at the end; an interrupted run leaves
+no package.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import re
+import datetime as dt
+import shutil
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import ExitStack
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pyproj
+
+from .. import engine
+from ..errors import ArchivistError
+from ..manifest import MANIFEST_NAME
+from ..model import Report
+from ..project import MapProject, load_project
+from ..progress import Progress
+from ..report.html import render_html
+from . import datacite as dc
+from . import datapackage as dp
+from .bagwrite import Hashes, write_bag
+from .deposit import Deposit, read_deposit, relative_source
+from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
+from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, write_geojson, write_geopackage
+from .packmanifest import dump_toml, packaged_manifest
+from .provenance import FileFact, provenance
+from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
+from .staging import move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
+from .tables import write_csv
+
+REPORT_PATH = "metadata/validation-report.json"
+HTML_REPORT_PATH = "metadata/validation-report.html"
+SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg", ".qix", ".sbn", ".sbx", ".qmd", ".shp.xml")
+
+
+@dataclass(frozen=True)
+class PackResult:
+    """What ``pack`` wrote.
+
+    Attributes
+    ----------
+    path
+        The package folder ``DIR/<name>-<version>``.
+    zip_path
+        The zip of the package, or None without ``zip=True``.
+    report
+        The check report the package was made with.
+    files
+        Every file of the bag, relative to ``path``, sorted.
+    open_errors
+        Errors of the report packed with ``allow_errors`` (0 otherwise).
+    """
+
+    path: Path
+    zip_path: Path | None
+    name: str
+    version: str
+    report: Report
+    files: tuple[str, ...]
+    open_errors: int
+    bytes: int
+
+
+class PackRefused(ArchivistError):
+    """The checks found errors and ``allow_errors`` was not given (exit code 1)."""
+
+    exit_code = 1
+
+    def __init__(self, report: Report, message: str) -> None:
+        super().__init__(message)
+        self.report = report
+
+
+def _utcnow() -> dt.datetime:
+    return dt.datetime.now(dt.timezone.utc).replace(microsecond=0)
+
+
+def _guard(project: MapProject, out_dir: Path, targets: list[Path], force: bool) -> None:
+    root = project.root.resolve()
+    if out_dir.exists() and not out_dir.is_dir():
+        raise ArchivistError(f"{out_dir}: is a file; --out needs a folder")
+    for target in targets:
+        resolved = target.resolve()
+        if resolved == root or root in resolved.parents:
+            raise ArchivistError(f"{target}: is inside the project folder {project.root}; archivist never writes there, choose another --out")
+        if resolved in root.parents:
+            raise ArchivistError(f"{target}: would replace a folder that holds the project {project.root}; choose another --out")
+        if target.exists() and not force:
+            raise ArchivistError(f"{target}: already exists; use --force to replace it")
+        if target.exists() and target.is_dir() != (target.suffix != ".zip"):
+            raise ArchivistError(f"{target}: exists and is not a {'zip file' if target.suffix == '.zip' else 'folder'}; remove it first")
+
+
+def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
+    """(file, path relative to the project, roles) of every input: the manifest and the files it names.
+
+    A shapefile comes with its side files; a folder format (File Geodatabase)
+    with every file inside it.
+    """
+    roles: dict[Path, list[str]] = {}
+    if project.manifest_path is not None:
+        roles.setdefault(project.manifest_path.resolve(), []).append("manifest")
+    for role, layer in project.layers.items():
+        roles.setdefault(layer.path.resolve(), []).append(role)
+    for role, table in project.tables.items():
+        roles.setdefault(table.path.resolve(), []).append(role)
+    out: dict[Path, tuple[str, str]] = {}
+    for path, rs in roles.items():
+        label = ", ".join(rs)
+        if path.is_dir():
+            for p in sorted(path.rglob("*")):
+                if p.is_file():
+                    out[p] = (relative_source(project, p), label)
+            continue
+        out[path] = (relative_source(project, path), label)
+        if path.suffix.lower() == ".shp":
+            stem = path.name[: -len(path.suffix)].lower()
+            for sib in sorted(path.parent.iterdir()):
+                low = sib.name.lower()
+                if sib.is_file() and sib != path and any(low == stem + part for part in SHAPEFILE_PARTS):
+                    out[sib.resolve()] = (relative_source(project, sib), label)
+    return sorted(((p, rel, label) for p, (rel, label) in out.items()), key=lambda t: t[1])
+
+
+def stored_name(rel: str) -> str:
+    """The path an input file gets under ``source/``: the project's own, with ``%``, CR and LF replaced by ``_``.
+
+    RFC 8493 would have those percent-encoded in the manifests, but common
+    BagIt tools and ``sha256sum -c`` do not decode ``%25``; the original name
+    stays in the resource title and the provenance.
+    """
+    return re.sub(r"[%\r\n]", "_", rel)
+
+
+def _transform_bbox(bbox: tuple[float, float, float, float], crs: pyproj.CRS) -> tuple[float, float, float, float]:
+    """The bbox in WGS 84 longitude/latitude, its edges densified (21 points per edge) so curved edges are covered."""
+    t = pyproj.Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+    w, s, e, n = t.transform_bounds(*bbox, densify_pts=21)
+    down = lambda v: math.floor(v * 1e7) / 1e7  # noqa: E731  (rounded outwards: the box still covers the map)
+    up = lambda v: math.ceil(v * 1e7) / 1e7  # noqa: E731
+    return (down(w), down(s), up(e), up(n))
+
+
+def _map_bbox(layers: list[PreparedLayer]) -> tuple[float, float, float, float] | None:
+    by_role = {pl.role: pl for pl in layers}
+    if "extent" in by_role and by_role["extent"].bounds is not None:
+        return by_role["extent"].bounds
+    boxes = [pl.bounds for pl in layers if pl.bounds is not None]
+    if not boxes:
+        return None
+    return (min(b[0] for b in boxes), min(b[1] for b in boxes), max(b[2] for b in boxes), max(b[3] for b in boxes))
+
+
+def _shareable(report: Report, project: MapProject) -> Report:
+    """The report as packed: the project named by its manifest, no absolute paths of the packing machine."""
+    root = str(project.root)
+    name = project.manifest_path.name if project.manifest_path else project.root.name
+    notes = tuple(n.replace(str(project.root.resolve()), project.root.name).replace(root, project.root.name) for n in report.notes)
+    return dataclasses.replace(report, project=name, notes=notes)
+
+
+def pack(
+    project_or_path: MapProject | str | Path,
+    out_dir: str | Path,
+    *,
+    zip: bool = False,
+    allow_errors: bool = False,
+    force: bool = False,
+    report: Report | None = None,
+    progress: Progress | None = None,
+) -> PackResult:
+    """Check a map project and write it as an open data package in ``out_dir``.
+
+    Parameters
+    ----------
+    project_or_path
+        A loaded :class:`~archivist.project.MapProject`, or a project folder or manifest.
+    out_dir
+        Folder to write ``<name>-<version>/`` into (created when missing).
+    zip
+        Also write ``<name>-<version>.zip`` next to the folder.
+    allow_errors
+        Pack even when the checks report errors; the package then names them
+        in its README, its metadata and ``bag-info.txt``.
+    force
+        Replace an existing package of the same name and version (the new one
+        is built in full before the old one is removed).
+    report
+        The report of ``archivist.check`` on this same, loaded project, when
+        the caller has just run it; the checks are then not run again.
+    progress
+        A :class:`archivist.progress.Progress` told about each step (reading,
+        checking, writing the package, zipping); silent when None.
+
+    Raises
+    ------
+    PackRefused
+        The checks found errors and ``allow_errors`` is false (``.report`` holds the report).
+    ArchivistError
+        The project cannot be read, deposit metadata is missing (the message
+        names the manifest key), or the output exists without ``force``.
+
+    Examples
+    --------
+    >>> result = pack("example_bundle", "build", force=True)  # doctest: +SKIP
+    >>> result.path.name  # doctest: +SKIP
+    'geological-map-of-the-tarrowmere-district-1.0.0'
+    """
+    fixed = pack_time()
+    reproducible = _source_date_set()
+    pack_start = fixed if reproducible else _utcnow()
+    progress = progress or Progress()
+    project = project_or_path if isinstance(project_or_path, MapProject) else load_project(project_or_path, progress=progress)
+    deposit = read_deposit(project, fixed)
+    out_dir = Path(out_dir)
+    target = out_dir / deposit.stem
+    zip_target = out_dir / f"{deposit.stem}.zip" if zip else None
+    _guard(project, out_dir, [target] + ([zip_target] if zip_target else []), force)
+
+    check_start = fixed if reproducible else _utcnow()
+    if report is None:
+        report = engine.check(project, progress=progress)
+    check_end = fixed if reproducible else _utcnow()
+    errors = report.summary.errors
+    if errors and not allow_errors:
+        raise PackRefused(
+            report,
+            f"{project.manifest_path or project.root}: the checks found {errors} error{'s' if errors != 1 else ''}; "
+            "no package was written (fix them, or pack anyway with --allow-errors)",
+        )
+
+    out_dir.mkdir(parents=True, exist_ok=True)
+    remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
+    with terminate_as_exception(), ExitStack() as stack:
+        bag = stack.enter_context(staging_dir(target))
+        zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
+        hashes = Hashes()
+        with progress.step("writing the package"):
+            _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
+            write_bag(bag, deposit, hashes, open_errors=errors)
+        fix_modes(bag)
+        files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
+        size = sum((bag / f).stat().st_size for f in files)
+        if zip_tmp is not None:
+            with progress.step("zipping the package"):
+                zip_tree(bag, zip_tmp, deposit.stem, fixed)
+            zip_tmp.chmod(0o644)
+        move_into_place(bag, target)
+        if zip_tmp is not None:
+            move_into_place(zip_tmp, zip_target)
+    return PackResult(
+        path=target,
+        zip_path=zip_target,
+        name=deposit.name,
+        version=deposit.version,
+        report=report,
+        files=files,
+        open_errors=errors,
+        bytes=size,
+    )
+
+
+def _source_date_set() -> bool:
+    return bool(os.environ.get("SOURCE_DATE_EPOCH", "").strip())
+
+
+def _write_payload(
+    project: MapProject,
+    deposit: Deposit,
+    report: Report,
+    data: Path,
+    hashes: Hashes,
+    check_times: tuple[dt.datetime, dt.datetime],
+    pack_start: dt.datetime,
+    reproducible: bool,
+) -> None:
+    data.mkdir()
+    resources: list[dp.ResourceInfo] = []
+
+    # The map: one GeoPackage in the map CRS (written by GDAL in a second thread while the
+    # rest is built here), GeoJSON per layer in WGS 84, tables as CSV, the inputs as handed in.
+    layers = prepare_layers(project)
+    notes = [pl.note for pl in layers if pl.note]
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        gpkg_job = pool.submit(write_geopackage, layers, data / "map.gpkg", deposit.created)
+        resources.append(dp.ResourceInfo(
+            "map.gpkg", "map-gpkg", "The map (GeoPackage)",
+            f"All layers ({', '.join(pl.role for pl in layers)}) in {deposit.crs_label}; feature ids as in the project.",
+            extra={"layers": {pl.role: pl.count for pl in layers}},
+        ))
+        (data / "geojson").mkdir()
+        for pl in layers:
+            rel = f"geojson/{pl.role}.geojson"
+            write_geojson(pl, data / rel)
+            resources.append(dp.ResourceInfo(
+                rel, f"{pl.role}-geojson", f"{LAYER_TITLES[pl.role]} (GeoJSON)",
+                f"{pl.count} features, RFC 7946 GeoJSON in WGS 84 longitude/latitude; from {pl.source}.",
+            ))
+
+        # Tables: attributes of every layer, legend and analyses, with the keys that link them.
+        (data / "tables").mkdir()
+        tables = all_tables(project, layers)
+        table_paths = {}
+        for table in tables:
+            rel = f"tables/{table.name}.csv"
+            write_csv(table, data / rel)
+            table_paths[table.name] = rel
+            resources.append(dp.ResourceInfo(rel, table.name, table.title, table.description, schema=table.schema()))
+
+        inputs = input_files(project)
+        for src, rel, _ in inputs:
+            dest = data / "source" / stored_name(rel)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(src, dest)
+        gpkg_job.result()
+
+    write_text(
+        data / MANIFEST_NAME,
+        dump_toml(
+            packaged_manifest(project, [pl.role for pl in layers], {r: p for r, p in table_paths.items() if r in project.tables}),
+            header=f"Written by archivist pack: the manifest of {deposit.stem}, pointing at the files of this package.\n"
+            "'archivist check' runs on this folder as it is.",
+        ),
+    )
+    resources.append(dp.ResourceInfo(MANIFEST_NAME, "manifest", "archivist manifest", "The project manifest, pointing at the files of this package."))
+
+    # Metadata: CRS, check report.
+    (data / "metadata").mkdir()
+    write_text(data / "metadata" / "crs.wkt", deposit.crs.to_wkt(pyproj.enums.WktVersion.WKT2_2019, pretty=True) + "\n")
+    resources.append(dp.ResourceInfo("metadata/crs.wkt", "crs-wkt", "Map CRS (WKT2)", f"{deposit.crs_label} as WKT2 (ISO 19162:2019)."))
+    shared = _shareable(report, project)
+    write_text(data / REPORT_PATH, _report_json(shared))
+    resources.append(dp.ResourceInfo(REPORT_PATH, "validation-report", "Check report", "The archivist check report the package was made with (schema: report.schema.json)."))
+    write_text(data / HTML_REPORT_PATH, render_html(shared, project))
+    resources.append(dp.ResourceInfo(
+        HTML_REPORT_PATH, "validation-report-html", "Check report (HTML)",
+        "The same report as a self-contained page: a map of the findings, the findings table, the legend. Opens in any browser, offline.",
+    ))
+
+    # Sizes and hashes of everything so far (each file read once).
+    written = sorted(p for p in data.rglob("*") if p.is_file())
+    hashes.add(written)
+
+    bbox = _map_bbox(layers)
+    bbox_wgs84 = _transform_bbox(bbox, deposit.crs) if bbox else None
+    source_facts = []
+    for _, rel, label in inputs:
+        digest, size = hashes.get(data / "source" / stored_name(rel))
+        source_facts.append(FileFact(rel, digest, size, label))
+        resources.append(dp.ResourceInfo(
+            f"source/{stored_name(rel)}", _resource_name(f"source-{rel}", resources), f"{rel} (as handed in)",
+            f"Input file ({label}), byte for byte as it was in the project.",
+        ))
+    output_facts = []
+    for info in resources:
+        if info.path.startswith(("map.gpkg", "geojson/", "tables/")):
+            digest, size = hashes.get(data / info.path)
+            output_facts.append(FileFact(info.path, digest, size, info.name))
+
+    pack_end = deposit.created if reproducible else max(_utcnow(), pack_start)
+    write_json(
+        data / "metadata" / "provenance.json",
+        provenance(deposit, source_facts, output_facts, REPORT_PATH, check_times, (pack_start, pack_end), report.summary.errors),
+    )
+    resources.append(dp.ResourceInfo("metadata/provenance.json", "provenance", "Provenance (W3C PROV-JSON)", "Inputs with SHA-256, the check and pack runs, the authors."))
+
+    technical = (
+        f"Geological map at 1:{deposit.scale:.0f} in {deposit.crs_label}. Layers: "
+        + ", ".join(f"{pl.role} ({pl.count} features)" for pl in layers)
+        + f". Checked with archivist {report.version}: {report.summary.errors} errors, {report.summary.warnings} warnings, "
+        f"{report.summary.notices} notices from {len(report.rules_run)} rules."
+    )
+    open_errors = open_error_lines(report)
+    record = dc.datacite_record(
+        deposit,
+        bbox_wgs84=bbox_wgs84,
+        formats=[dp.media_type(r.path)[1] for r in resources],
+        sizes=[f"{pl.count} features in {pl.role}" for pl in layers] + [f"{len(t.frame)} rows in {t.name}" for t in tables if t.name in project.tables],
+        technical=technical,
+        open_errors=open_errors,
+    )
+    write_json(data / "metadata" / "datacite.json", record)
+    resources.append(dp.ResourceInfo("metadata/datacite.json", "datacite", "DataCite metadata", "DataCite Metadata Schema 4.5 record, JSON form."))
+
+    # Human-readable files.
+    legend = project.tables.get("legend")
+    write_text(
+        data / "README.md",
+        readme_text(
+            deposit,
+            report,
+            [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source) for pl in layers],
+            legend_rows(legend.frame if legend else None, legend.spec.get("unit_field") if legend else None),
+            [(t.name, t.title, len(t.frame)) for t in tables],
+            bbox,
+            bbox_wgs84,
+            notes + list(shared.notes),
+        ),
+    )
+    write_text(data / "LICENSE.txt", licence_text(deposit))
+    write_text(data / "CITATION.cff", citation_cff(deposit))
+    resources.insert(0, dp.ResourceInfo("README.md", "readme", "README", "What the map is, how to cite it, what was checked."))
+    resources.insert(1, dp.ResourceInfo("LICENSE.txt", "licence", "Licence", deposit.licence))
+    resources.insert(2, dp.ResourceInfo("CITATION.cff", "citation", "Citation (Citation File Format 1.2.0)"))
+
+    # The descriptor, with the size and hash of every other file.
+    hashes.add([data / r.path for r in resources])
+    descriptors = [r.descriptor(*hashes.get(data / r.path)) for r in resources]
+    spatial: dict[str, Any] = {"crs": _crs_id(deposit.crs), "crs_name": deposit.crs.name, "crs_wkt": "metadata/crs.wkt", "scale": deposit.scale}
+    if bbox:
+        spatial["bbox"] = [round(v, 3) for v in bbox]
+    if bbox_wgs84:
+        spatial["bbox_wgs84"] = list(bbox_wgs84)
+    write_json(
+        data / "datapackage.json",
+        dp.descriptor(
+            deposit,
+            descriptors,
+            sources=[{"title": f"{f.path} ({f.role})", "path": f"source/{stored_name(f.path)}"} for f in source_facts],
+            spatial=spatial,
+            validation=dp.validation_summary(report, REPORT_PATH),
+        ),
+    )
+
+
+def _crs_id(crs: pyproj.CRS) -> str:
+    auth = crs.to_authority(min_confidence=70)
+    return f"{auth[0]}:{auth[1]}" if auth else crs.name
+
+
+def _resource_name(wanted: str, resources: list[dp.ResourceInfo]) -> str:
+    base = re.sub(r"[^a-z0-9._-]+", "-", wanted.lower()).strip("-")
+    taken = {r.name for r in resources}
+    name, i = base, 2
+    while name in taken:
+        name, i = f"{base}-{i}", i + 1
+    return name
+
+
+def _report_json(report: Report) -> str:
+    return json_text(report.to_dict())
