@@ -22,6 +22,7 @@ import shapely
 from . import manifest as mf
 from .errors import ArchivistError
 from .model import Hit
+from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
 
 LAYER_ROLES = ("units", "lines", "extent", "samples", "structures")
@@ -142,12 +143,15 @@ class MapProject:
     problems: list[Hit] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     files: list[Path] = field(default_factory=list)
+    archive: Any = None  # set by ``archivist audit``: what it found about the archive (rules of family ``archive`` read it)
 
     @property
     def name(self) -> str:
         return str(self.manifest.get("map", {}).get("title") or self.root.name)
 
     def has(self, role: str) -> bool:
+        if role == "archive":
+            return self.archive is not None
         return role in self.layers or role in self.tables
 
 
@@ -304,11 +308,19 @@ def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
     return Table(role, path, source, data, spec)
 
 
-def load_project(path: str | Path) -> MapProject:
+def _label(spec: dict[str, Any]) -> str:
+    """A file (and layer or sheet) as the mapper wrote it in the manifest."""
+    inner = spec.get("layer") or spec.get("sheet")
+    return f"{spec['path']}:{inner}" if inner else str(spec["path"])
+
+
+def load_project(path: str | Path, *, progress: Progress | None = None) -> MapProject:
     """Load a map project from its folder or its ``archivist.toml``.
 
     Without a manifest, the roles of the folder's files are inferred from
     their geometry types and field names, and the project's notes say so.
+    ``progress`` (an :class:`archivist.progress.Progress`) gets one step per
+    file read.
 
     Raises
     ------
@@ -322,6 +334,7 @@ def load_project(path: str | Path) -> MapProject:
     ['extent', 'lines', 'samples', 'structures', 'units']
     """
     root, manifest_path = mf.find_manifest(path)
+    progress = progress or Progress()
     problems: list[Hit] = []
     notes: list[str] = []
     if manifest_path is not None:
@@ -344,14 +357,16 @@ def load_project(path: str | Path) -> MapProject:
     for role in LAYER_ROLES:
         spec = manifest["layers"].get(role)
         if isinstance(spec, dict) and isinstance(spec.get("path"), str):
-            layer = load_layer(root, role, spec, problems)
+            with progress.step(f"reading {_label(spec)}"):
+                layer = load_layer(root, role, spec, problems)
             if layer is not None:
                 layers[role] = layer
     tables: dict[str, Table] = {}
     for role in TABLE_ROLES:
         spec = manifest["tables"].get(role)
         if isinstance(spec, dict) and isinstance(spec.get("path"), str):
-            table = load_table(root, role, spec, problems)
+            with progress.step(f"reading {_label(spec)}"):
+                table = load_table(root, role, spec, problems)
             if table is not None:
                 tables[role] = table
     files = sorted({lay.path for lay in layers.values()} | {t.path for t in tables.values()})

@@ -37,7 +37,7 @@ from typing import Callable, Iterable
 from .model import Hit, Severity
 
 SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
-FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures")
+FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "archive")
 FAMILY_MODULES = {
     "metadata": "archivist.rules.metadata",
     "topology": "archivist.rules.topology",
@@ -46,6 +46,7 @@ FAMILY_MODULES = {
     "legend": "archivist.rules.legend",
     "samples": "archivist.rules.samples",
     "structures": "archivist.rules.structures",
+    "archive": "archivist.rules.archive",  # run by `archivist audit` only: its rules need the archive facts
 }
 _ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)+$")
 

@@ -1,0 +1,38 @@
+"""``archivist unpack ARCHIVE DIR``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from .audit import limit_options, make_limits
+
+
+@click.command("unpack")
+@click.argument("archive", type=click.Path(path_type=Path))
+@click.argument("directory", metavar="DIR", type=click.Path(path_type=Path))
+@click.option("--force", is_flag=True, help="Replace DIR if it exists (only once the new project is complete).")
+@limit_options
+def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
+    """Turn the archivist package ARCHIVE (folder or zip) into an editable project in DIR.
+
+    The package's checksums are verified first; a damaged package is refused.
+    DIR gets the input files as the authors handed them in and their
+    archivist.toml, with the version bumped (1.0.0 becomes 1.0.1-dev) and
+    map.derived_from naming the package.
+
+    Exit 0: unpacked. 2: could not (not a package, damaged, DIR exists without --force).
+    """
+    from ..package.unpack import unpack
+    from . import handle_errors
+
+    @handle_errors
+    def run():
+        result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
+        click.echo(f"Unpacked {archive} into {result.path}: {len(result.files)} files "
+                   f"({'the input files as handed in' if result.origin == 'source' else 'the package files'}).")
+        click.echo(f"Version {result.previous_version} -> {result.version}; map.derived_from = \"{result.derived_from}\".")
+        click.echo(f"Next: edit the map, then 'archivist check {result.path}' and 'archivist diff {archive} {result.path}'.")
+
+    run()

@@ -1,0 +1,274 @@
+"""A map from anywhere: a project folder, an archivist package, or any archive of map data.
+
+:func:`open_map` gives a :class:`MapProject` for each, so that ``audit`` and
+``diff`` treat them alike:
+
+* a project folder (or its ``archivist.toml``) is the user's own and is read
+  in place, as ``archivist check`` reads it;
+* a zip file, or a folder that is a BagIt bag, comes from elsewhere: it is
+  opened with :func:`archivist.package.safe.open_archive` (checked, then
+  copied into a private temporary folder) and read there. Its manifest is
+  believed only after every path in it is shown to stay inside the archive,
+  and a layer file is handed to GDAL only when its first bytes are those of a
+  self-contained format (:func:`~archivist.package.safe.sniff_vector`).
+
+In a package the map is read from ``data/`` with the manifest the packager
+wrote there (``data/archivist.toml``); without one, the roles of the files are
+inferred from the data, as for a bare folder.
+"""
+
+from __future__ import annotations
+
+import shutil
+import tomllib
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterator
+
+from .. import manifest as mf
+from ..errors import ArchivistError
+from ..model import Hit
+from ..project import MapProject, load_project
+from ..readers import TABLE_SUFFIXES, VECTOR_SUFFIXES
+from .safe import Limits, OpenedArchive, inspect_zip, name_problem, open_archive, sniff_vector
+
+AUDIT_MANIFEST = ".archivist-audit.toml"  # written into the private copy only, never into the user's files
+
+
+@dataclass
+class OpenedMap:
+    """A map opened by :func:`open_map`.
+
+    Attributes
+    ----------
+    project
+        The loaded map (layers, tables, manifest, problems).
+    kind
+        ``"project"`` (read in place), ``"package"`` (a BagIt bag) or ``"archive"`` (any other zip or folder).
+    archive
+        The private copy, for packages and archives.
+    root
+        The folder the archive's content starts at (the bag's folder for a package).
+    data
+        The folder the map's files are in (``root/data`` for a package).
+    held
+        Files not opened because their content is not a self-contained format, relative to ``root``.
+    """
+
+    project: MapProject
+    kind: str
+    label: str
+    archive: OpenedArchive | None = None
+    root: Path | None = None
+    data: Path | None = None
+    held: list[str] = field(default_factory=list)
+
+
+def is_bag(root: Path) -> bool:
+    return (root / "bagit.txt").is_file()
+
+
+def is_project_path(path: Path) -> bool:
+    """True when ``path`` is one's own project: a folder that is not a bag, or a manifest file."""
+    if path.is_file():
+        return path.suffix.lower() == ".toml"
+    if not path.is_dir() or is_bag(path):
+        return False
+    entries = [p for p in path.iterdir() if not p.name.startswith(".")]
+    return not (len(entries) == 1 and entries[0].is_dir() and is_bag(entries[0]))
+
+
+def _vector_spec(spec: dict[str, Any]) -> bool:
+    return not (Path(str(spec.get("path", ""))).suffix.lower() in TABLE_SUFFIXES and (spec.get("x_field") or spec.get("y_field")))
+
+
+def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> tuple[dict[str, Any], list[Hit], list[str]]:
+    """A copy of an archive's manifest whose every path stays inside ``base`` and whose layers GDAL may open.
+
+    A path that leads outside the archive stops the run (ArchivistError): the
+    archive is hostile. A layer file whose content is not a self-contained
+    format is left out, with a ``layer-unreadable`` hit.
+    """
+    out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in raw.items()}
+    hits: list[Hit] = []
+    held: list[str] = []
+    base = base.resolve()
+    for group in ("layers", "tables"):
+        specs = out.get(group)
+        if not isinstance(specs, dict):
+            continue
+        kept = {}
+        for role, spec in specs.items():
+            if not isinstance(spec, dict) or not isinstance(spec.get("path"), str):
+                kept[role] = spec
+                continue
+            rel = spec["path"]
+            why = name_problem(rel)
+            target = (base / rel).resolve()
+            if why or (target != base and base not in target.parents):
+                raise ArchivistError(f"{label}: {where}: {group}.{role}.path '{rel}' leads outside the archive; refusing the archive")
+            workbook = workbook_problem(target) if target.is_file() else None
+            if workbook:
+                hits.append(Hit(f"{group}.{role}: '{rel}' was not opened: {workbook}.", layer=role, rule="layer-unreadable"))
+                held.append(rel)
+                continue
+            if group == "layers" and _vector_spec(spec) and target.is_file() and sniff_vector(target) is None:
+                hits.append(
+                    Hit(
+                        f"{group}.{role}: '{rel}' was not opened: its content is not a self-contained GeoPackage, shapefile, "
+                        "FlatGeobuf or GeoJSON, and other formats can make GDAL read files outside the archive.",
+                        layer=role,
+                        rule="layer-unreadable",
+                    )
+                )
+                held.append(rel)
+                continue
+            kept[role] = spec
+        out[group] = kept
+    return out, hits, held
+
+
+def _toml_value(v: Any) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    if isinstance(v, dict):
+        return "{" + ", ".join(f"{_toml_key(k)} = {_toml_value(x)}" for k, x in v.items()) + "}"
+    s = str(v).replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n").replace("\r", "\\r").replace("\t", "\\t")
+    return f'"{s}"'
+
+
+def _toml_key(k: str) -> str:
+    import re
+
+    return k if re.fullmatch(r"[A-Za-z0-9_-]+", k) else _toml_value(k)
+
+
+def manifest_toml(data: dict[str, Any]) -> str:
+    """A manifest as TOML text (the shapes ``archivist.toml`` uses: tables, arrays of tables, scalars)."""
+    lines: list[str] = []
+
+    def emit(prefix: str, table: dict[str, Any]) -> None:
+        simple = {k: v for k, v in table.items() if not isinstance(v, dict) and not (isinstance(v, list) and v and all(isinstance(x, dict) for x in v))}
+        nested = {k: v for k, v in table.items() if k not in simple}
+        if prefix and (simple or not nested):
+            lines.append(f"[{prefix}]")
+        for k, v in simple.items():
+            lines.append(f"{_toml_key(k)} = {_toml_value(v)}")
+        for k, v in nested.items():
+            name = f"{prefix}.{_toml_key(k)}" if prefix else _toml_key(k)
+            if isinstance(v, dict):
+                if lines and lines[-1] != "":
+                    lines.append("")
+                emit(name, v)
+            else:
+                for item in v:
+                    lines.append("")
+                    lines.append(f"[[{name}]]")
+                    for ik, iv in item.items():
+                        lines.append(f"{_toml_key(ik)} = {_toml_value(iv)}")
+                lines.append("")
+
+    emit("", data)
+    text = "\n".join(lines).strip() + "\n"
+    assert tomllib.loads(text) == data  # the writer must round-trip what it is given
+    return text
+
+
+# A workbook is itself a zip: its parts are checked like an archive's members before openpyxl reads them.
+WORKBOOK_LIMITS = Limits(max_members=10_000, max_total_bytes=2 * 1024**3, max_ratio=500.0)
+
+
+def workbook_problem(path: Path) -> str | None:
+    """Why the spreadsheet at ``path`` must not be opened (a zip bomb, a path escape...), or None."""
+    if path.suffix.lower() not in (".xlsx", ".xlsm"):
+        return None
+    try:
+        inspect_zip(path, WORKBOOK_LIMITS)
+    except ArchivistError as exc:
+        return str(exc).split(": ", 1)[-1].replace("; refusing the archive", "")
+    return None
+
+
+def _hold_unsafe_layers(root: Path, held_dir: Path) -> list[str]:
+    """Move top-level files that must not be opened out of ``root`` (a private copy); return their names."""
+    held = []
+    for path in sorted(root.iterdir()):
+        if path.is_file() and workbook_problem(path):
+            held_dir.mkdir(exist_ok=True)
+            shutil.move(str(path), held_dir / path.name)
+            held.append(path.name)
+        elif path.is_file() and path.suffix.lower() in VECTOR_SUFFIXES and sniff_vector(path) is None:
+            held_dir.mkdir(exist_ok=True)
+            shutil.move(str(path), held_dir / path.name)
+            held.append(path.name)
+        elif path.is_dir() and path.suffix.lower() in VECTOR_SUFFIXES:  # e.g. a File Geodatabase folder
+            held_dir.mkdir(exist_ok=True)
+            shutil.move(str(path), held_dir / path.name)
+            held.append(path.name + "/")
+    return held
+
+
+def load_archive_project(arc: OpenedArchive) -> OpenedMap:
+    """Load the map inside an opened archive (package or not), safely."""
+    root = arc.content_root()
+    bag = is_bag(root)
+    data = root / "data" if bag and (root / "data").is_dir() else root
+    manifest_path = data / mf.MANIFEST_NAME
+    label = arc.label
+    held: list[str] = []
+    hits: list[Hit] = []
+    prefix = data.relative_to(root).as_posix() + "/" if data != root else ""
+    if manifest_path.is_file():
+        raw = mf.read_manifest(manifest_path)
+        screened, hits, held_rel = screen_manifest(raw, data, label, f"{prefix}{mf.MANIFEST_NAME}")
+        held = [prefix + h for h in held_rel]
+        audit_manifest = data / AUDIT_MANIFEST
+        # Paths stay as the archive wrote them; the schema check runs on the original.
+        audit_manifest.write_text(manifest_toml(screened), encoding="utf-8")
+        try:
+            project = load_project(audit_manifest)
+        finally:
+            audit_manifest.unlink()  # the copy is left as extracted, for the checksum verification
+        project.manifest_path = manifest_path
+        # schema problems are reported against the archive's own manifest, not the screened copy
+        own = [h for h in project.problems if not h.message.startswith(f"{AUDIT_MANIFEST}:")]
+        project.problems = mf.validate_manifest(raw, f"{prefix}{mf.MANIFEST_NAME}") + own + hits
+    else:
+        held_dir = arc.root.parent / "held"
+        held = [prefix + h for h in _hold_unsafe_layers(data, held_dir)]
+        project = load_project(data)
+        for name in held:
+            project.notes.append(f"{name} was not opened: its content is not a self-contained GeoPackage, shapefile, FlatGeobuf or GeoJSON.")
+    project.notes = [_relabel(n, data, label, prefix) for n in project.notes]
+    return OpenedMap(project=project, kind="package" if bag else "archive", label=label, archive=arc, root=root, data=data, held=held)
+
+
+def _relabel(text: str, data: Path, label: str, prefix: str) -> str:
+    shown = f"{label}/{prefix.rstrip('/')}" if prefix else label
+    return text.replace(str(data), shown).replace(AUDIT_MANIFEST, mf.MANIFEST_NAME)
+
+
+@contextmanager
+def open_map(path: str | Path, *, limits: Limits | None = None) -> Iterator[OpenedMap]:
+    """Open a project, package or archive and yield it as an :class:`OpenedMap`.
+
+    Archives are removed from the temporary folder when the ``with`` block ends.
+
+    Raises
+    ------
+    ArchivistError
+        No such path, or an archive that cannot be opened safely.
+    """
+    p = Path(path)
+    if not p.exists():
+        raise ArchivistError(f"{p}: no such file or folder")
+    if is_project_path(p):
+        yield OpenedMap(project=load_project(p), kind="project", label=str(p))
+        return
+    with open_archive(p, limits) as arc:
+        yield load_archive_project(arc)

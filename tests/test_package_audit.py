@@ -1,0 +1,207 @@
+"""``archivist audit``: a package's integrity, any archive's readiness for reuse, the map re-checked.
+
+The packages are made by ``archivist pack`` (the example bundle and the tiny
+project); the damaged ones are broken here in code.
+"""
+
+import json
+import shutil
+import zipfile
+
+import jsonschema
+import pytest
+from click.testing import CliRunner
+
+import archivist
+from archivist.cli import cli
+from archivist.manifest import load_schema
+from archives import flip_byte, package, package_zip, rebag
+from builders import tiny_project, tree_digest
+
+
+def run(*args):
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def rules_of(result):
+    return {f["rule"] for f in json.loads(result.stdout)["findings"]}
+
+
+# ---------------------------------------------------------------- a sound package
+
+def test_example_bundle_package_fit_for_reuse(tmp_path):
+    archive = package_zip(tmp_path, "bundle")
+    result = run("audit", archive, "--format", "json")
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    jsonschema.validate(data, load_schema("report.schema.json"))
+    assert data["summary"] == {"errors": 0, "warnings": 0, "notices": 0}
+    families = {archivist.get_rule(r).family for r in data["rules_run"]}
+    # every check family ran on the packaged map, besides the archive family
+    assert {"archive", "metadata", "topology", "linework", "crs", "legend", "samples", "structures"} <= families
+    assert data["notes"][0].startswith(f"Audited a private copy of {archive.name} (zip")
+
+
+def test_audit_writes_nothing_into_the_archive(tmp_path):
+    root = package(tmp_path)
+    before = tree_digest(root)
+    assert run("audit", root).exit_code == 0
+    assert tree_digest(root) == before
+
+
+def test_report_written_atomically_never_inside_the_archive(tmp_path):
+    root = package(tmp_path)
+    inside = run("audit", root, "--output", root / "report.txt")
+    assert inside.exit_code == 2 and "inside the project folder" in inside.stderr
+    out = tmp_path / "audit.json"
+    assert run("audit", root, "--format", "json", "--output", out).exit_code == 0
+    assert json.loads(out.read_text())["tool"] == "archivist"
+    again = run("audit", root, "--output", out)
+    assert again.exit_code == 2 and "--force" in again.stderr
+
+
+# ---------------------------------------------------------------- what must show: the damaged file is named
+
+@pytest.mark.parametrize("as_zip", [False, True], ids=["folder", "zip"])
+def test_flipped_byte_names_the_file(as_zip, tmp_path):
+    root = package(tmp_path / "p", "bundle")
+    flip_byte(root / "data" / "map.gpkg", 5000)
+    target = root
+    if as_zip:
+        target = shutil.make_archive(str(tmp_path / root.name), "zip", root.parent, root.name)
+    result = run("audit", target, "--format", "json")
+    assert result.exit_code == 1
+    data = json.loads(result.stdout)
+    mismatches = [f for f in data["findings"] if f["rule"] == "archive-checksum-mismatch"]
+    assert [f["features"] for f in mismatches] == [["data/map.gpkg"]]
+    assert mismatches[0]["severity"] == "error" and "data/map.gpkg" in mismatches[0]["message"]
+
+
+def test_removed_file_is_named(tmp_path):
+    root = package(tmp_path, "bundle")
+    (root / "data" / "tables" / "analyses.csv").unlink()
+    result = run("audit", root, "--format", "json")
+    assert result.exit_code == 1
+    missing = [f for f in json.loads(result.stdout)["findings"] if f["rule"] == "archive-file-missing"]
+    assert [f["features"] for f in missing] == [["data/tables/analyses.csv"]]
+    assert "data/tables/analyses.csv is listed in manifest-sha256.txt" in missing[0]["message"]
+
+
+def test_text_report_names_the_file(tmp_path, monkeypatch):
+    monkeypatch.setenv("NO_COLOR", "1")
+    root = package(tmp_path)
+    flip_byte(root / "data" / "README.md", 3)
+    out = run("audit", root).stdout
+    assert "archive-checksum-mismatch: data/README.md: SHA256 is" in out
+    assert "1 error" in out
+
+
+def test_tampered_and_rebagged_data_caught_by_the_checks(tmp_path):
+    """Someone edits a layer and re-computes every checksum: integrity holds, but the re-run checks catch the damage."""
+    import geopandas as gpd
+    import pyogrio
+    from shapely.geometry import box
+
+    root = package(tmp_path)
+    gpkg = root / "data" / "map.gpkg"
+    units = pyogrio.read_dataframe(gpkg, layer="units", fid_as_index=True)
+    units.loc[units.index[1], "geometry"] = box(90, 0, 200, 100)  # now overlaps unit A by 10 m x 100 m
+    others = {n: pyogrio.read_dataframe(gpkg, layer=n, fid_as_index=True) for n, _ in pyogrio.list_layers(gpkg) if n != "units"}
+    gpkg.unlink()
+    for name, frame in {"units": units, **others}.items():
+        pyogrio.write_dataframe(gpd.GeoDataFrame(frame).reset_index(), gpkg, layer=name, driver="GPKG")
+    rebag(root)
+    result = run("audit", root, "--format", "json")
+    found = rules_of(result)
+    assert "archive-checksum-mismatch" not in found
+    assert "unit-overlap" in found, found
+    assert result.exit_code == 1
+
+
+# ---------------------------------------------------------------- what must show: a bare folder of layers
+
+def test_bare_folder_of_layers_gives_reuse_findings(tmp_path):
+    import geopandas as gpd
+    import pyogrio
+
+    src = tiny_project(tmp_path / "src")
+    root = tmp_path / "layers"
+    root.mkdir()
+    for layer in ("units", "lines"):
+        frame = pyogrio.read_dataframe(src / "map.gpkg", layer=layer)
+        pyogrio.write_dataframe(gpd.GeoDataFrame(frame), root / f"{layer}.shp")
+    result = run("audit", root, "--format", "json")
+    assert result.exit_code == 1
+    data = json.loads(result.stdout)
+    archive = {f["rule"]: f["message"] for f in data["findings"] if f["family"] == "archive"}
+    assert set(archive) == {
+        "archive-licence-missing",
+        "archive-authors-missing",
+        "archive-contact-missing",
+        "archive-lineage-missing",
+        "archive-description-missing",
+        "archive-legend-missing",
+        "archive-checksums-absent",
+    }
+    assert all("ask" in m for m in archive.values()), archive  # each says what to ask for
+    assert "2 codes: A, B" in archive["archive-legend-missing"]
+    assert any(n.startswith("No archivist.toml in layers") for n in data["notes"])
+    assert "metadata-incomplete" not in {f["rule"] for f in data["findings"]}  # the archive rules say it, once
+
+
+def test_bare_folder_with_metadata_is_fit_for_reuse(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "archivist.toml").write_text(
+        (root / "archivist.toml").read_text().replace('licence = "CC-BY-4.0"', 'licence = "CC-BY-4.0"\ncontact = "maps@example.org"')
+    )
+    (root / "README.md").write_text("# Tiny map\n\n## Methods\n\nTwo units mapped in the field in 2024.\n")
+    (root / "SHA256SUMS").write_text("")
+    result = run("audit", root, "--format", "json", "--only", "archive")
+    assert result.exit_code == 0, result.stdout
+    assert json.loads(result.stdout)["findings"] == []
+
+
+# ---------------------------------------------------------------- the descriptor is never followed outside
+
+def test_descriptor_pointing_outside_is_not_followed(tmp_path):
+    from archives import edit_json
+
+    root = package(tmp_path)
+    secret = tmp_path / "secret.csv"
+    secret.write_text("a,b\n1,2\n")
+    edit_json(root / "data" / "datapackage.json", lambda d: d["resources"].append({"name": "x", "path": "../../secret.csv"}))
+    edit_json(root / "data" / "datapackage.json", lambda d: d["resources"].append({"name": "y", "path": "https://example.org/y.csv"}))
+    rebag(root)
+    result = run("audit", root, "--format", "json", "--rule", "descriptor-invalid", "--rule", "package-data-invalid")
+    messages = [f["message"] for f in json.loads(result.stdout)["findings"]]
+    assert any("'../../secret.csv' leads outside the package" in m for m in messages)
+    assert any("'https://example.org/y.csv' is a remote address" in m for m in messages)
+    assert not any("secret.csv" in m and "foreign" in m for m in messages)
+
+
+def test_audit_of_a_damaged_zip_member_is_exit_2(tmp_path):
+    archive = package_zip(tmp_path)
+    raw = bytearray(archive.read_bytes())
+    with zipfile.ZipFile(archive) as zf:
+        info = next(i for i in zf.infolist() if i.filename.endswith("data/map.gpkg"))
+    at = info.header_offset + 30 + len(info.filename) + len(info.extra) + 50
+    raw[at] ^= 0xFF
+    archive.write_bytes(bytes(raw))
+    result = run("audit", archive)
+    assert result.exit_code == 2
+    (line,) = result.stderr.strip().splitlines()
+    assert "corrupt zip" in line and "data/map.gpkg" in line
+
+
+def test_zip_with_system_clutter_is_still_a_package(tmp_path):
+    """A package zipped by a desktop that adds its resource-fork folder beside the package folder."""
+    root = package(tmp_path / "p")
+    archive = tmp_path / "zipped.zip"
+    with zipfile.ZipFile(archive, "w", zipfile.ZIP_DEFLATED) as zf:
+        for path in sorted(root.rglob("*")):
+            if path.is_file():
+                zf.write(path, f"{root.name}/{path.relative_to(root).as_posix()}")
+        zf.writestr(f"__MACOSX/{root.name}/._bagit.txt", b"\x00\x05\x16\x07resource fork")
+    result = run("audit", archive, "--format", "json", "--only", "archive")
+    assert result.exit_code == 0, result.stdout
+    assert "an archivist package" in json.loads(result.stdout)["notes"][0]
