@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from itertools import groupby
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
@@ -14,6 +15,7 @@ from ._version import __version__
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
 from .project import MapProject, crs_label, load_project
+from .progress import Progress
 
 
 @dataclass
@@ -75,23 +77,30 @@ def to_finding(info: registry.RuleInfo, hit: Hit, severity: Severity, forced: bo
     )
 
 
-def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo]) -> Report:
-    """Run ``selected`` rules over ``project`` (severity overrides applied)."""
+def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progress: Progress | None = None) -> Report:
+    """Run ``selected`` rules over ``project`` (severity overrides applied).
+
+    ``progress`` gets one step per rule family and one item per rule run.
+    """
     ctx = CheckContext(project)
+    progress = progress or Progress()
     overrides = project.config.severity
     findings: list[Finding] = []
     ran: list[str] = []
-    for info in selected:
-        level = overrides.get(info.id, info.severity.value)
-        if level == "off":
-            continue
-        if any(not project.has(role) for role in info.needs):
-            continue
-        severity = Severity.parse(level)
-        ran.append(info.id)
-        forced = info.id in overrides
-        for hit in info.func(project, ctx) or ():
-            findings.append(to_finding(info, hit, severity, forced))
+    for family, group in groupby(selected, key=lambda i: i.family):
+        group = list(group)
+        with progress.step(f"{family} rules", total=len(group)) as step:
+            for info in group:
+                level = overrides.get(info.id, info.severity.value)
+                if level == "off" or any(not project.has(role) for role in info.needs):
+                    step.advance()
+                    continue
+                severity = Severity.parse(level)
+                ran.append(info.id)
+                forced = info.id in overrides
+                with step.item(info.id):
+                    for hit in info.func(project, ctx) or ():
+                        findings.append(to_finding(info, hit, severity, forced))
     return Report(
         tool="archivist",
         version=__version__,
@@ -103,7 +112,13 @@ def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo]) -> Rep
     )
 
 
-def check(project: MapProject | str | Path, *, only: Iterable[str] = (), rules: Iterable[str] = ()) -> Report:
+def check(
+    project: MapProject | str | Path,
+    *,
+    only: Iterable[str] = (),
+    rules: Iterable[str] = (),
+    progress: Progress | None = None,
+) -> Report:
     """Check a map project and return its report.
 
     Parameters
@@ -114,6 +129,9 @@ def check(project: MapProject | str | Path, *, only: Iterable[str] = (), rules: 
         Families to run (e.g. ``["topology"]``); all when empty.
     rules
         Rule ids to run; combined with ``only`` as a union.
+    progress
+        A :class:`archivist.progress.Progress` told about each step (loading,
+        each rule family); silent when None.
 
     Raises
     ------
@@ -127,9 +145,9 @@ def check(project: MapProject | str | Path, *, only: Iterable[str] = (), rules: 
     0
     """
     if not isinstance(project, MapProject):
-        project = load_project(project)
+        project = load_project(project, progress=progress)
     try:
         selected = registry.select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
-    return run_rules(project, selected)
+    return run_rules(project, selected, progress)

@@ -1,129 +1,507 @@
-"""Guess the roles of a folder's files when there is no ``archivist.toml``.
+"""Guess the roles of a folder's files (or a GeoPackage's layers) when there is no ``archivist.toml``.
 
-Roles come from geometry types and field names only; nothing is written.
-``archivist init`` writes the same guess out as a manifest to confirm.
+Roles come from geometry types, field names and a look at the values
+(a field whose codes are the legend's unit codes is the unit field; a field
+holding "contact" and "fault" is the line kind). Nothing is written here:
+``load_project`` uses the guess for a folder without a manifest, and
+``archivist init`` writes the same guess out as a commented manifest for the
+mapper to confirm (:mod:`archivist.scaffold`).
 """
 
 from __future__ import annotations
 
 import re
+from collections import Counter
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
 import pyogrio
 import pyproj
 
 from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table
 
-UNIT_NAMES = ("unit", "unit_code", "unitcode", "code", "map_unit", "formation", "lithocode")
-KIND_NAMES = ("kind", "type", "line_type", "linetype", "class", "feature")
-SAMPLE_ID_NAMES = ("sample_id", "sampleid", "sample", "sample_no", "sample_number", "id")
-AZIMUTH_NAMES = ("azimuth", "dip_direction", "dipdir", "dip_dir", "strike", "trend")
-DIP_NAMES = ("dip", "plunge", "inclination")
-EXTENT_WORDS = re.compile(r"extent|boundary|frame|outline|area", re.I)
-OXIDE = re.compile(r"^(SiO2|TiO2|Al2O3|Fe2O3|FeO|MnO|MgO|CaO|Na2O|K2O|P2O5)", re.I)
+# Field names, best first. Compared without case.
+UNIT_NAMES = (
+    "unit", "unit_code", "unitcode", "map_unit", "mapunit", "unit_symbol", "symbol", "map_symbol",
+    "code", "geol_code", "geocode", "litho_code", "lithocode", "formation",
+)
+KIND_NAMES = ("kind", "line_kind", "type", "line_type", "linetype", "feature", "class", "category")
+CERTAINTY_NAMES = ("certainty", "confidence", "existence", "exist", "location", "accuracy", "positional_accuracy", "qualifier")
+SAMPLE_ID_NAMES = ("sample_id", "sampleid", "sample", "sample_no", "sample_number", "sample_code", "sample_name", "id")
+AZIMUTH_NAMES = ("azimuth", "dip_direction", "dipdirection", "dip_dir", "dipdir", "dip_azimuth", "dipazimuth", "trend", "strike")
+DIP_NAMES = ("dip", "dip_angle", "plunge", "inclination")
+STRUCT_KIND_NAMES = ("kind", "type", "structure", "structure_type", "feature", "measurement", "class")
+X_NAMES = ("x", "easting", "east", "e", "lon", "long", "longitude")
+Y_NAMES = ("y", "northing", "north", "n", "lat", "latitude")
+LEGEND_EXTRA = ("name", "description", "age", "colour", "color", "min_age_ma", "max_age_ma", "order", "lithology")
+EXTENT_WORDS = re.compile(r"extent|boundary|frame|outline|area|border|limit", re.I)
+UNIT_WORDS = re.compile(r"unit|geol|litho|bedrock|formation|polygon", re.I)
+LINE_WORDS = re.compile(r"line|contact|fault|linework|boundar", re.I)
+SAMPLE_WORDS = re.compile(r"sample", re.I)
+STRUCT_WORDS = re.compile(r"struct|orient|measure|bedding|foliation|dip", re.I)
+OXIDE = re.compile(r"^(SiO2|TiO2|Al2O3|Fe2O3T?|FeOT?|MnO|MgO|CaO|Na2O|K2O|P2O5)\b", re.I)
+KIND_VALUES = ("contact", "fault", "boundary", "thrust", "dyke", "dike", "unconformity", "shear", "axial")
+CERTAINTY_VALUES = ("certain", "approximate", "approx", "inferred", "concealed", "uncertain", "accurate", "queried")
+SKIP_DIRS = {"__pycache__", "node_modules"}
+MAX_DEPTH = 3
+SAMPLE_ROWS = 5000  # values looked at per field
 
 
 def _pick(fields: list[str], names: tuple[str, ...]) -> str | None:
-    lower = {f.lower(): f for f in fields}
+    lower = {f.lower(): f for f in reversed(fields)}
     for n in names:
         if n in lower:
             return lower[n]
     return None
 
 
-def _vector_layers(root: Path) -> list[tuple[Path, str, str, list[str], str | None]]:
-    found = []
-    for path in sorted(root.iterdir()):
-        if path.suffix.lower() not in VECTOR_SUFFIXES or path.name.startswith("."):
-            continue
+def _share(values: pd.Series, words: tuple[str, ...]) -> tuple[float, list[str]]:
+    """Share of the non-empty values that contain one of ``words``, and the commonest such values."""
+    v = values.dropna().astype(str).str.strip()
+    v = v[v != ""]
+    if v.empty:
+        return 0.0, []
+    pattern = "|".join(re.escape(w) for w in words)
+    hit = v.str.lower().str.contains(pattern, regex=True)
+    return float(hit.mean()), v[hit].value_counts().index[:3].tolist()
+
+
+@dataclass
+class Source:
+    """One candidate layer or table found in the folder."""
+
+    path: Path
+    rel: str  # relative to the project folder, with /
+    layer: str | None = None  # layer in a multi-layer file
+    sheet: str | None = None  # sheet of a workbook
+    geometry: str | None = None  # "Polygon", "LineString", "Point"; None for a table
+    fields: list[str] = field(default_factory=list)
+    crs: str | None = None
+    features: int | None = None
+    columns_only: bool = False  # a table with no geometry inside a vector file (not readable as a table)
+    _frame: pd.DataFrame | None = None
+
+    @property
+    def label(self) -> str:
+        inner = self.layer if self.layer is not None else self.sheet
+        return f"{self.rel}:{inner}" if inner else self.rel
+
+    @property
+    def described(self) -> str:
+        if self.layer is not None:
+            where = f"{self.rel}, layer '{self.layer}'"
+        elif self.sheet is not None:
+            where = f"{self.rel}, sheet '{self.sheet}'"
+        else:
+            where = self.rel
+        if self.geometry:
+            word = {"Polygon": "polygon", "LineString": "line", "Point": "point"}.get(self.geometry, f"{self.geometry} feature")
+            if self.features is None:
+                return f"{where}: {word}s"
+            return f"{where}: {self.features} {word}{'' if self.features == 1 else 's'}"
+        n = len(self._frame) if self._frame is not None else 0
+        return f"{where}: a table of {n} row{'' if n == 1 else 's'}"
+
+    def values(self, column: str) -> pd.Series:
+        if self._frame is not None:
+            return self._frame[column] if column in self._frame.columns else pd.Series([], dtype=object)
         try:
-            layers = pyogrio.list_layers(path)
-        except Exception:
+            df = pyogrio.read_dataframe(self.path, layer=self.layer, columns=[column], read_geometry=False, max_features=SAMPLE_ROWS)
+            return df[column] if column in df.columns else pd.Series([], dtype=object)
+        except Exception:  # noqa: BLE001 - a layer GDAL lists but cannot read: no values to look at
+            return pd.Series([], dtype=object)
+
+    def spec(self) -> dict[str, Any]:
+        spec: dict[str, Any] = {"path": self.rel}
+        if self.layer is not None and self._needs_layer:
+            spec["layer"] = self.layer
+        if self.sheet is not None:
+            spec["sheet"] = self.sheet
+        return spec
+
+    _needs_layer: bool = True
+
+
+@dataclass
+class Placed:
+    """A role given to a source, with the reasons written beside it in the manifest."""
+
+    role: str
+    source: Source
+    spec: dict[str, Any]
+    why: list[str] = field(default_factory=list)
+    confirm: list[str] = field(default_factory=list)
+
+
+@dataclass
+class Inference:
+    """What :func:`infer` found: the manifest, and how each part of it was decided."""
+
+    root: Path
+    manifest: dict[str, Any]
+    placed: dict[str, Placed]
+    unplaced: list[tuple[str, str]]  # (file or layer, why it was not placed)
+    crs_label: str | None
+    crs_name: str | None
+    crs_from: str | None
+    crs_disagree: list[tuple[str, str]]  # (source, its CRS) differing from the map CRS
+    notes: list[str]
+
+
+def crs_text(crs: str | None) -> tuple[str | None, str | None]:
+    """(manifest value, name) of a CRS read from a file: ``EPSG:n`` when identifiable, else WKT."""
+    if not crs:
+        return None, None
+    try:
+        c = pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError:
+        return str(crs), None
+    epsg = c.to_epsg(min_confidence=70)
+    return (f"EPSG:{epsg}" if epsg else c.to_wkt()), c.name
+
+
+def _walk(root: Path, depth: int = 0):
+    try:
+        entries = sorted(root.iterdir(), key=lambda p: p.name)
+    except OSError:
+        return
+    for p in entries:
+        if p.name.startswith(".") or p.name in SKIP_DIRS:
             continue
-        for name, gtype in layers:
-            if gtype is None:
-                continue
+        if p.is_dir() and p.suffix.lower() != ".gdb":
+            if (p / "bagit.txt").is_file():
+                yield p  # a package (e.g. an earlier archivist pack): listed, not read
+            elif depth < MAX_DEPTH:
+                yield from _walk(p, depth + 1)
+            continue
+        yield p
+
+
+FAMILY_OF_TYPE_ID = {0: "Point", 4: "Point", 1: "LineString", 2: "LineString", 5: "LineString", 3: "Polygon", 6: "Polygon"}
+
+
+def _geometry_family(path: Path, layer: str, gtype: str) -> str:
+    """Point, LineString or Polygon for a layer; a layer declared as mixed ("Unknown") is judged by its features."""
+    g = gtype.replace("Multi", "").replace(" Z", "").replace(" M", "").replace("25D", "").strip()
+    if g in ("Point", "LineString", "Polygon"):
+        return g
+    if g == "LinearRing":
+        return "LineString"
+    try:
+        import shapely
+
+        df = pyogrio.read_dataframe(path, layer=layer, columns=[], max_features=SAMPLE_ROWS)
+        ids = shapely.get_type_id(df.geometry.values[~df.geometry.isna().to_numpy()])
+    except Exception:  # noqa: BLE001 - unreadable: leave the declared type, it will be listed as not placed
+        return g
+    families = Counter(FAMILY_OF_TYPE_ID.get(int(i)) for i in ids if int(i) in FAMILY_OF_TYPE_ID)
+    return families.most_common(1)[0][0] if families else g
+
+
+def scan(root: Path, only: Path | None = None) -> tuple[list[Source], list[tuple[str, str]]]:
+    """Every layer and table under ``root`` (or in the one file ``only``), and the files that are neither."""
+    sources: list[Source] = []
+    other: list[tuple[str, str]] = []
+    files = [only] if only is not None else list(_walk(root))
+    sidecars = {".dbf", ".shx", ".prj", ".cpg", ".qix", ".sbn", ".sbx", ".xml", ".qmd", ".qml", ".lock"}
+    for path in files:
+        rel = path.relative_to(root).as_posix()
+        suffix = path.suffix.lower()
+        if path.is_dir() and suffix != ".gdb":
+            other.append((rel, "a BagIt package, not a source of the map: not looked into"))
+            continue
+        if suffix in VECTOR_SUFFIXES:
             try:
-                info = pyogrio.read_info(path, layer=str(name))
-            except Exception:
+                layers = pyogrio.list_layers(path)
+            except Exception:  # noqa: BLE001 - GDAL raises several kinds for a file it cannot open
+                other.append((rel, "not readable as a vector layer"))
                 continue
-            found.append((path, str(name), str(gtype), [str(f) for f in info["fields"]], info.get("crs")))
-    return found
+            found = []
+            for name, gtype in layers:
+                name = str(name)
+                try:
+                    info = pyogrio.read_info(path, layer=name)
+                except Exception:  # noqa: BLE001
+                    other.append((f"{rel}:{name}", "cannot be read"))
+                    continue
+                fields = [str(f) for f in info["fields"]]
+                if gtype is None:
+                    other.append((f"{rel}:{name}", f"a table inside a vector file (columns: {', '.join(fields)}); archivist reads tables from CSV or XLSX"))
+                    continue
+                g = _geometry_family(path, name, str(gtype))
+                found.append(Source(path, rel, name, None, g, fields, info.get("crs"), info.get("features")))
+            for s in found:
+                s._needs_layer = len(layers) > 1
+            sources.extend(found)
+        elif suffix in TABLE_SUFFIXES:
+            sheets: list[str | None] = [None]
+            if suffix in (".xlsx", ".xlsm"):
+                try:
+                    import openpyxl
+
+                    wb = openpyxl.load_workbook(path, read_only=True)
+                    sheets = list(wb.sheetnames)
+                    wb.close()
+                except Exception:  # noqa: BLE001
+                    other.append((rel, "not readable as a spreadsheet"))
+                    continue
+            for sheet in sheets:
+                data, hits = read_table(path, rel, sheet)
+                label = f"{rel}:{sheet}" if sheet else rel
+                if data is None:
+                    why = hits[0].message if hits else "cannot be read"
+                    other.append((label, why))
+                    continue
+                if data.frame.empty and not len(data.frame.columns):
+                    other.append((label, "empty"))
+                    continue
+                src = Source(path, rel, None, sheet if len(sheets) > 1 else None, None, [str(c) for c in data.frame.columns])
+                src._frame = data.frame
+                sources.append(src)
+        elif suffix not in sidecars and not path.name.lower().startswith("archivist"):
+            other.append((rel, "not a vector layer or a table"))
+    return sources, other
+
+
+def _unit_field(src: Source, legend_codes: set[str]) -> tuple[str | None, str]:
+    """The field holding unit codes, and why it was chosen."""
+    if legend_codes:
+        best, best_share = None, 0.0
+        for f in src.fields:
+            v = src.values(f).dropna().astype(str).str.strip()
+            v = set(v[v != ""])
+            if not v:
+                continue
+            share = len(v & legend_codes) / len(v)
+            if share > best_share:
+                best, best_share = f, share
+        if best is not None and best_share >= 0.5:
+            return best, f"its values are the legend's unit codes ({best_share:.0%} of the distinct values)"
+    name = _pick(src.fields, UNIT_NAMES)
+    if name:
+        return name, "by its name"
+    return None, ""
+
+
+def _field_by_values(src: Source, names: tuple[str, ...], words: tuple[str, ...]) -> tuple[str | None, str]:
+    best, best_share, examples = None, 0.0, []
+    for f in src.fields:
+        share, found = _share(src.values(f), words)
+        if share > best_share:
+            best, best_share, examples = f, share, found
+    if best is not None and best_share >= 0.3:
+        return best, "its values include " + ", ".join(f"'{x}'" for x in examples)
+    name = _pick(src.fields, names)
+    return (name, "by its name") if name else (None, "")
+
+
+def _legend(sources: list[Source]) -> tuple[Source | None, str | None]:
+    best = None
+    for s in sources:
+        if s.geometry is not None:
+            continue
+        unit = _pick(s.fields, UNIT_NAMES)
+        extra = {f.lower() for f in s.fields} & set(LEGEND_EXTRA)
+        if unit and extra:
+            score = (len(extra), -len(s.fields))
+            if best is None or score > best[0]:
+                best = (score, s, unit)
+    return (best[1], best[2]) if best else (None, None)
+
+
+def infer(path: Path) -> Inference:
+    """Guess a manifest for the project folder ``path``, or for the GeoPackage ``path`` alone."""
+    path = Path(path)
+    if path.is_file():
+        root, only = path.parent, path
+        title = path.stem
+    else:
+        root, only = path, None
+        title = path.resolve().name
+    sources, unplaced = scan(root, only)
+    placed: dict[str, Placed] = {}
+    used: set[int] = set()
+
+    def place(role: str, src: Source, spec: dict[str, Any], why: list[str], confirm: list[str] | None = None):
+        placed[role] = Placed(role, src, spec, why, confirm or [])
+        used.add(id(src))
+
+    # tables first: the legend's codes help find the unit field
+    legend, legend_unit = _legend(sources)
+    legend_codes: set[str] = set()
+    if legend is not None:
+        spec = legend.spec()
+        if legend_unit != "unit":
+            spec["unit_field"] = legend_unit
+        cols = [c for c in legend.fields if c.lower() in LEGEND_EXTRA]
+        place("legend", legend, spec, [f"a unit column '{legend_unit}' with {', '.join(cols)}"])
+        v = legend.values(legend_unit).dropna().astype(str).str.strip()
+        legend_codes = set(v[v != ""])
+    for s in sources:
+        if s.geometry is not None or id(s) in used or "analyses" in placed:
+            continue
+        oxides = [c for c in s.fields if OXIDE.match(c)]
+        sid = _pick(s.fields, SAMPLE_ID_NAMES)
+        if len(oxides) >= 3 and sid:
+            spec = s.spec()
+            spec["sample_field"] = sid
+            place("analyses", s, spec, [f"{len(oxides)} oxide columns ({', '.join(oxides[:4])}…) and a sample column '{sid}'"])
+
+    # polygons: the unit layer, then the extent
+    polys = [s for s in sources if s.geometry == "Polygon"]
+    ranked = []
+    for s in polys:
+        unit, why = _unit_field(s, legend_codes)
+        named = bool(UNIT_WORDS.search(s.layer or s.path.stem))
+        extentish = bool(EXTENT_WORDS.search(s.layer or s.path.stem)) and not named
+        ranked.append(((unit is not None, "values" in why, named, not extentish, s.features or 0), s, unit, why))
+    ranked.sort(key=lambda r: r[0], reverse=True)
+    if ranked and (ranked[0][2] is not None or ranked[0][0][2]):
+        _, s, unit, why = ranked[0]
+        spec = s.spec()
+        confirm = []
+        if unit is None:
+            confirm.append(f"no field with unit codes was recognised (fields: {', '.join(s.fields) or 'none'}); set unit_field")
+        else:
+            spec["unit_field"] = unit
+        place("units", s, spec, [f"polygons; unit field '{unit}': {why}"] if unit else ["polygons named like map units"], confirm)
+    for s in polys:
+        if id(s) in used or "extent" in placed:
+            continue
+        name = s.layer or s.path.stem
+        if EXTENT_WORDS.search(name) or (s.features is not None and s.features <= 2 and "units" in placed):
+            place("extent", s, s.spec(), [f"polygons named '{name}'" if EXTENT_WORDS.search(name) else f"{s.features} polygon(s) besides the units"])
+
+    # lines
+    lines = [s for s in sources if s.geometry == "LineString"]
+    ranked = []
+    for s in lines:
+        kind, kwhy = _field_by_values(s, KIND_NAMES, KIND_VALUES)
+        ranked.append(((kind is not None, bool(LINE_WORDS.search(s.layer or s.path.stem)), s.features or 0), s, kind, kwhy))
+    ranked.sort(key=lambda r: r[0], reverse=True)
+    if ranked:
+        _, s, kind, kwhy = ranked[0]
+        spec = s.spec()
+        why, confirm = ["lines"], []
+        if kind:
+            spec["kind_field"] = kind
+            why.append(f"kind field '{kind}': {kwhy}")
+        else:
+            confirm.append(f"no field naming the kind of line (contact, fault…) was recognised (fields: {', '.join(s.fields) or 'none'}); set kind_field")
+        cert, cwhy = _field_by_values(s, CERTAINTY_NAMES, CERTAINTY_VALUES)
+        if cert and cert != kind:
+            spec["certainty_field"] = cert
+            why.append(f"certainty field '{cert}': {cwhy}")
+        place("lines", s, spec, ["; ".join(why)], confirm)
+        for _, other, _, _ in ranked[1:]:
+            unplaced.append((other.label, "another line layer: archivist reads one lines layer; merge contacts, faults and boundaries into it with a kind field"))
+            used.add(id(other))
+
+    # points: structures (azimuth and dip), samples (a sample id)
+    points = [s for s in sources if s.geometry == "Point"]
+    ranked_s = []
+    for s in points:
+        az, dip = _pick(s.fields, AZIMUTH_NAMES), _pick(s.fields, DIP_NAMES)
+        if az and dip:
+            ranked_s.append(((bool(STRUCT_WORDS.search(s.layer or s.path.stem)), s.features or 0), s, az, dip))
+    ranked_s.sort(key=lambda r: r[0], reverse=True)
+    if ranked_s:
+        _, s, az, dip = ranked_s[0]
+        spec = s.spec()
+        kind = _pick(s.fields, STRUCT_KIND_NAMES)
+        if kind:
+            spec["kind_field"] = kind
+        spec.update(azimuth_field=az, dip_field=dip)
+        strike = az.lower() == "strike"
+        spec["convention"] = "right-hand-rule" if strike else "dip-direction"
+        confirm = []
+        if strike:
+            confirm.append("azimuths read as strikes by the right-hand rule (the field is named 'strike')")
+        else:
+            confirm.append("azimuths read as dip directions; set convention = \"right-hand-rule\" if they are strikes")
+        if not kind:
+            confirm.append(f"no field naming the kind of measurement was recognised (fields: {', '.join(s.fields)}); set kind_field")
+        place("structures", s, spec, [f"points with azimuth '{az}' and dip '{dip}'" + (f", kind '{kind}'" if kind else "")], confirm)
+    ranked_p = []
+    for s in points:
+        if id(s) in used:
+            continue
+        sid = _pick(s.fields, SAMPLE_ID_NAMES)
+        if sid:
+            ranked_p.append(((bool(SAMPLE_WORDS.search(s.layer or s.path.stem)), sid.lower() != "id", s.features or 0), s, sid))
+    ranked_p.sort(key=lambda r: r[0], reverse=True)
+    if ranked_p:
+        _, s, sid = ranked_p[0]
+        spec = s.spec()
+        spec["id_field"] = sid
+        why = [f"points with a sample id '{sid}'"]
+        unit = _pick(s.fields, UNIT_NAMES)
+        if unit:
+            spec["unit_field"] = unit
+            why.append(f"unit '{unit}'")
+        place("samples", s, spec, [", ".join(why)])
+    if "samples" not in placed:
+        for s in sources:
+            if s.geometry is not None or id(s) in used:
+                continue
+            sid, x, y = _pick(s.fields, SAMPLE_ID_NAMES), _pick(s.fields, X_NAMES), _pick(s.fields, Y_NAMES)
+            if sid and x and y:
+                spec = s.spec()
+                spec.update(id_field=sid, x_field=x, y_field=y)
+                geographic = x.lower() in ("lon", "long", "longitude")
+                confirm = ["the CRS of the coordinates: longitude/latitude read as EPSG:4326" if geographic else "the CRS of the coordinates: taken to be the map's"]
+                unit = _pick(s.fields, UNIT_NAMES)
+                if unit:
+                    spec["unit_field"] = unit
+                place("samples", s, spec, [f"a table with sample id '{sid}' and coordinates '{x}', '{y}'"], confirm)
+                if geographic:
+                    spec["crs"] = "EPSG:4326"
+                break
+
+    # the map CRS: the units', else the most common
+    crs_of = {p.source.label: p.source.crs for p in placed.values() if p.source.geometry}
+    crs_label = crs_name = crs_from = None
+    if "units" in placed and placed["units"].source.crs:
+        crs_from = placed["units"].source.label
+        crs_label, crs_name = crs_text(placed["units"].source.crs)
+    else:
+        common = Counter(c for c in crs_of.values() if c).most_common(1)
+        if common:
+            crs_from = next(k for k, v in crs_of.items() if v == common[0][0])
+            crs_label, crs_name = crs_text(common[0][0])
+    disagree = []
+    for label, c in crs_of.items():
+        if not c:
+            disagree.append((label, "no CRS"))
+        elif crs_label and crs_text(c)[0] != crs_label:
+            disagree.append((label, crs_text(c)[0] or str(c)))
+    if "samples" in placed and "x_field" in placed["samples"].spec and "crs" not in placed["samples"].spec and crs_label:
+        placed["samples"].spec["crs"] = crs_label
+
+    for s in sources:
+        if id(s) not in used:
+            if s.geometry:
+                why = f"{s.geometry} features with fields {', '.join(s.fields) or 'none'}: no role recognised"
+            else:
+                why = f"a table with columns {', '.join(s.fields[:12])}{'…' if len(s.fields) > 12 else ''}: no role recognised"
+            unplaced.append((s.label, why))
+
+    layers = {r: placed[r].spec for r in ("units", "lines", "extent", "samples", "structures") if r in placed}
+    tables = {r: placed[r].spec for r in ("legend", "analyses") if r in placed}
+    manifest: dict[str, Any] = {"map": {"title": title, "version": "0.1.0", "scale": 25000}, "layers": layers}
+    if tables:
+        manifest["tables"] = tables
+    if crs_label:
+        manifest["map"]["crs"] = crs_label
+    notes = ["Publication scale unknown: 1:25 000 assumed for tolerances; set map.scale in archivist.toml."]
+    if unplaced:
+        notes.append(f"Not placed in any role: {', '.join(u for u, _ in unplaced)}.")
+    return Inference(root, manifest, placed, unplaced, crs_label, crs_name, crs_from, disagree, notes)
 
 
 def infer_manifest(root: Path) -> tuple[dict[str, Any], list[str]]:
     """A manifest guessed from the folder's data, and notes on what was guessed."""
-    layers: dict[str, dict[str, Any]] = {}
-    tables: dict[str, dict[str, Any]] = {}
-    notes: list[str] = []
-    unplaced: list[str] = []
-    crs_text = None
-    for path, name, gtype, fields, crs in _vector_layers(root):
-        rel = path.name
-        spec: dict[str, Any] = {"path": rel, "layer": name}
-        g = gtype.replace("Multi", "").replace(" Z", "").replace("25D", "")
-        role = None
-        if g == "Polygon":
-            unit = _pick(fields, UNIT_NAMES)
-            if unit and "units" not in layers:
-                role, spec["unit_field"] = "units", unit
-            elif EXTENT_WORDS.search(name) and "extent" not in layers:
-                role = "extent"
-        elif g == "LineString" and "lines" not in layers:
-            role = "lines"
-            kind = _pick(fields, KIND_NAMES)
-            if kind:
-                spec["kind_field"] = kind
-        elif g == "Point":
-            az, dip = _pick(fields, AZIMUTH_NAMES), _pick(fields, DIP_NAMES)
-            sid = _pick(fields, SAMPLE_ID_NAMES)
-            if az and dip and "structures" not in layers:
-                role = "structures"
-                spec.update(azimuth_field=az, dip_field=dip)
-                kind = _pick(fields, KIND_NAMES)
-                if kind:
-                    spec["kind_field"] = kind
-            elif sid and "samples" not in layers:
-                role = "samples"
-                spec["id_field"] = sid
-                unit = _pick(fields, UNIT_NAMES)
-                if unit:
-                    spec["unit_field"] = unit
-        if role is None:
-            unplaced.append(f"{rel}:{name}")
-            continue
-        layers[role] = spec
-        if role == "units" and crs:
-            crs_text = crs
-    for path in sorted(root.iterdir()):
-        if path.suffix.lower() not in TABLE_SUFFIXES or path.name.startswith("."):
-            continue
-        data, hits = read_table(path, path.name)
-        if data is None:
-            unplaced.append(path.name)
-            continue
-        cols = [str(c) for c in data.frame.columns]
-        lower = {c.lower() for c in cols}
-        if "unit" in lower and ({"name", "description", "age"} & lower) and "legend" not in tables:
-            tables["legend"] = {"path": path.name}
-        elif any(OXIDE.match(c) for c in cols) and _pick(cols, SAMPLE_ID_NAMES) and "analyses" not in tables:
-            tables["analyses"] = {"path": path.name, "sample_field": _pick(cols, SAMPLE_ID_NAMES)}
-        else:
-            unplaced.append(path.name)
-    crs_label = None
-    if crs_text:
-        c = pyproj.CRS.from_user_input(crs_text)
-        epsg = c.to_epsg(min_confidence=70)
-        crs_label = f"EPSG:{epsg}" if epsg else c.to_wkt()
-    manifest: dict[str, Any] = {
-        "map": {"title": root.resolve().name, "version": "0.0.0", "scale": 25000},
-        "layers": layers,
-        "tables": tables,
-    }
-    if crs_label:
-        manifest["map"]["crs"] = crs_label
-    notes.append("Publication scale unknown: 1:25 000 assumed for tolerances; set map.scale in archivist.toml.")
-    if unplaced:
-        notes.append(f"Files not placed in any role: {', '.join(unplaced)}.")
-    return manifest, notes
+    inf = infer(Path(root))
+    return inf.manifest, inf.notes

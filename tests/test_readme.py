@@ -3,8 +3,12 @@
 import re
 from pathlib import Path
 
-from archivist.cli.rules import rules_markdown
-from archivist.docs import END, START
+from click.testing import CliRunner
+
+from archivist.cli import cli
+from archivist.cli.rules import rules_markdown, rules_reference
+from archivist.docs import END, REFERENCE, START
+from archivist.registry import all_rules
 
 ROOT = Path(__file__).resolve().parent.parent
 README = (ROOT / "README.md").read_text(encoding="utf-8")
@@ -12,7 +16,24 @@ README = (ROOT / "README.md").read_text(encoding="utf-8")
 
 def test_rule_list_is_generated_from_registry():
     body = README.split(START, 1)[1].split(END, 1)[0]
-    assert body.strip() == rules_markdown().strip(), "run: python -m archivist.docs"
+    assert body.strip() == rules_markdown(link=REFERENCE).strip(), "run: python -m archivist.docs"
+
+
+def test_rule_reference_is_generated_from_registry():
+    text = (ROOT / REFERENCE).read_text(encoding="utf-8")
+    assert text == rules_reference(), "run: python -m archivist.docs"
+
+
+def test_rules_markdown_command_is_the_reference():
+    out = CliRunner().invoke(cli, ["rules", "--format", "markdown"]).output
+    assert out == rules_reference()
+    for info in all_rules():
+        # every rule has its section with all four parts of its doc
+        section = out.split(f"### `{info.id}`", 1)[1].split("\n### ", 1)[0]
+        for name, _ in info.sections:
+            assert f"**{name}.**" in section
+        # and the list links to it
+        assert f"[`{info.id}`](#{info.id})" in out
 
 
 def test_ci_runs_the_readme_commands():

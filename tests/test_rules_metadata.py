@@ -169,7 +169,7 @@ def test_spdx_list_ids_are_known(expr):
     assert licence_problem(expr) is None
 
 
-@pytest.mark.parametrize("expr", ["CC-BY", "open", "Creative Commons Attribution", "CC-BY-5.0"])
+@pytest.mark.parametrize("expr", ["CC-BY", "open", "Creative Commons Attribution", "CC-BY-5.0", "Copyright the authors, all rights reserved"])
 def test_non_spdx_licences_are_refused(expr):
     assert licence_problem(expr) is not None
 

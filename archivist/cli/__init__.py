@@ -36,10 +36,20 @@ def cli():
 
 
 from . import check as _check  # noqa: E402  (registers the subcommand)
+from . import pack as _pack  # noqa: E402
 from . import rules as _rules  # noqa: E402
+from . import init as _init  # noqa: E402
+from . import audit as _audit  # noqa: E402
+from . import unpack as _unpack  # noqa: E402
+from . import diff as _diff  # noqa: E402
 
 cli.add_command(_check.check_command)
+cli.add_command(_pack.pack_command)
 cli.add_command(_rules.rules_command)
+cli.add_command(_init.init_command)
+cli.add_command(_audit.audit_command)
+cli.add_command(_unpack.unpack_command)
+cli.add_command(_diff.diff_command)
 
 
 def main() -> None:

@@ -10,7 +10,12 @@ import click
 from .. import engine
 from ..fsutil import atomic_write_text, guard_output
 from ..manifest import find_manifest
+from ..errors import ArchivistError
+from ..project import load_project
 from ..report import render_json, render_text, write_text
+from ..report.gpkg import write_findings_gpkg
+from ..report.html import write_html
+from .options import progress_for, progress_options
 
 
 @click.command("check")
@@ -21,7 +26,16 @@ from ..report import render_json, render_text, write_text
 @click.option("--only", "only", multiple=True, metavar="FAMILY", help="Run only this rule family (repeatable).")
 @click.option("--rule", "rules", multiple=True, metavar="RULE", help="Run only this rule (repeatable).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
-def check_command(path, fmt, output, strict, only, rules, force):
+@click.option("--html", "html_out", type=click.Path(path_type=Path), metavar="FILE", help="Also write the report as one self-contained HTML page with a map.")
+@click.option(
+    "--findings-gpkg",
+    "gpkg_out",
+    type=click.Path(path_type=Path),
+    metavar="FILE",
+    help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
+)
+@progress_options
+def check_command(path, fmt, output, strict, only, rules, force, html_out, quiet, verbose, gpkg_out=None):
     """Check the map project at PATH (a folder or its archivist.toml).
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
@@ -33,7 +47,26 @@ def check_command(path, fmt, output, strict, only, rules, force):
         root, _ = find_manifest(path)
         if output is not None:
             guard_output(output, force=force, project_root=root)
-        report = engine.check(path, only=only, rules=rules)
+        if html_out is not None:
+            if output is not None and Path(output).resolve() == Path(html_out).resolve():
+                raise ArchivistError(f"{html_out}: --html and --output name the same file")
+            guard_output(html_out, force=force, project_root=root)
+        if gpkg_out is not None:
+            if Path(gpkg_out).suffix.lower() != ".gpkg":
+                raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
+            for other in (output, html_out):
+                if other is not None and Path(other).resolve() == Path(gpkg_out).resolve():
+                    raise ArchivistError(f"{gpkg_out}: --findings-gpkg names the same file as another output")
+            guard_output(gpkg_out, force=force, project_root=root)
+        with progress_for(quiet, verbose) as progress:
+            project = load_project(path, progress=progress)
+            report = engine.check(project, only=only, rules=rules, progress=progress)
+            if html_out is not None:
+                with progress.step(f"writing {html_out}"):
+                    write_html(report, project, html_out)
+            if gpkg_out is not None:
+                with progress.step(f"writing {gpkg_out}"):
+                    write_findings_gpkg(report, gpkg_out, crs=project.crs)
         if output is not None:
             atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report))
         elif fmt == "json":

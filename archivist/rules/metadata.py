@@ -208,7 +208,10 @@ def _spdx():
 
 def licence_problem(expression: str) -> str | None:
     """None when `expression` is a valid SPDX licence expression, else why not."""
-    info = _spdx().validate(expression, strict=True)
+    try:
+        info = _spdx().validate(expression, strict=True)
+    except Exception:  # the parser raises on some free text instead of reporting it
+        return f"'{expression}' is not an SPDX licence identifier or expression"
     if info.errors:
         unknown = [s for s in info.invalid_symbols]
         if unknown:

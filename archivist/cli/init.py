@@ -1,0 +1,40 @@
+"""``archivist init DIR``."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from ..scaffold import write_manifest
+
+
+@click.command("init")
+@click.argument("path", type=click.Path(path_type=Path))
+def init_command(path):
+    """Write a commented archivist.toml for the map project in PATH (a folder or a GeoPackage).
+
+    The role of each layer and table (units, lines, extent, samples,
+    structures, legend, analyses) is guessed from geometry types, field names
+    and values, and the map CRS is read from the data. Confirm the lines
+    marked CONFIRM, then run 'archivist check'. An existing archivist.toml is
+    never replaced (exit 2).
+    """
+    from . import handle_errors
+
+    @handle_errors
+    def run():
+        target, inf = write_manifest(path)
+        click.echo(f"Wrote {target}")
+        order = ("units", "lines", "extent", "samples", "structures", "legend", "analyses")
+        for role in order:
+            if role in inf.placed:
+                click.echo(f"  {role:<10}  {inf.placed[role].source.described}")
+        if "units" not in inf.placed:
+            click.echo("  No unit polygons recognised: name them in [layers.units].")
+        for label, why in inf.unplaced:
+            click.echo(f"  not placed: {label} ({why})")
+        n = sum(1 for line in target.read_text(encoding="utf-8").splitlines() if "CONFIRM" in line)
+        click.echo(f"Confirm the {n} line{'s' if n != 1 else ''} marked CONFIRM in {target}, then run: archivist check {target.parent}")
+
+    run()

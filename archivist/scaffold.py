@@ -1,0 +1,223 @@
+"""``archivist init``: write a commented ``archivist.toml`` from what :mod:`archivist.infer` recognised.
+
+This is the one place archivist writes into the mapper's folder, and only a
+file that does not exist yet: an existing manifest is never replaced.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+import tomllib
+from pathlib import Path
+from typing import Any
+
+from ._version import __version__
+from .errors import ArchivistError
+from .infer import Inference, Placed, infer
+from .manifest import MANIFEST_NAME
+
+ROLE_TITLES = {
+    "units": "Unit polygons",
+    "lines": "Lines: contacts, faults, the map boundary",
+    "extent": "The map's outer boundary",
+    "samples": "Sample locations",
+    "structures": "Orientation measurements",
+    "legend": "The legend",
+    "analyses": "Analyses of the samples",
+}
+ROLE_HINTS = {
+    "units": ("polygons with a field of unit codes", ["path = \"…\"", "layer = \"…\"", "unit_field = \"…\""]),
+    "lines": ("lines with a field naming their kind: contact, fault, map-boundary", ["path = \"…\"", "kind_field = \"…\""]),
+    "extent": ("one polygon: the edge of the mapped area", ["path = \"…\""]),
+    "samples": ("points, or a table with coordinates, with a sample id", ["path = \"…\"", "id_field = \"…\""]),
+    "structures": ("points with azimuth and dip fields", ["path = \"…\"", "kind_field = \"…\"", "azimuth_field = \"…\"", "dip_field = \"…\""]),
+    "legend": ("a CSV or XLSX table: unit, name, description, age, min_age_ma, max_age_ma, order, colour", ["path = \"…\""]),
+    "analyses": ("a CSV or XLSX table of analyses with a sample id column", ["path = \"…\"", "sample_field = \"…\""]),
+}
+COMMENT_COLUMN = 40
+
+
+def toml_value(v: Any) -> str:
+    """A TOML literal for a string, number, boolean or list of them."""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(toml_value(x) for x in v) + "]"
+    # JSON string escapes are TOML basic-string escapes; TOML also wants DEL escaped
+    return json.dumps(str(v), ensure_ascii=False).replace("\x7f", "\\u007F")
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def _kv(key: str, value: Any, comment: str | None = None) -> str:
+    line = f"{key} = {toml_value(value)}"
+    if comment:
+        line = f"{line:<{COMMENT_COLUMN - 2}}  # {_one_line(comment)}"
+    return line
+
+
+def _block(inf: Inference, p: Placed, section: str) -> list[str]:
+    out = [f"# {ROLE_TITLES[p.role]}: {_one_line(p.source.described)}."]
+    for why in p.why:
+        out.append(f"# Recognised by: {_one_line(why)}.")
+    crs_note = dict(inf.crs_disagree).get(p.source.label)
+    if p.source.geometry and crs_note:
+        if crs_note == "no CRS":
+            out.append("# CONFIRM: this layer declares no CRS; `archivist check` will report it.")
+        else:
+            out.append(f"# CONFIRM: this layer's CRS ({_one_line(crs_note)}) differs from the map's; `archivist check` will report it.")
+    for c in p.confirm:
+        out.append(f"# CONFIRM: {_one_line(c)}.")
+    out.append(f"[{section}.{p.role}]")
+    for key, value in p.spec.items():
+        out.append(_kv(key, value))
+    return out
+
+
+def manifest_text(inf: Inference, command_path: str) -> str:
+    """The commented manifest for an inference; parses to ``inf.manifest``."""
+    m = inf.manifest["map"]
+    lines = [
+        "# archivist.toml: what each file of this map project is.",
+        f"# Written by `archivist init` (archivist {__version__}) from the files in this folder:",
+        "# the role of each layer and table was guessed from its geometry type, field names and values.",
+        "# Confirm every line marked CONFIRM, fill in what is missing, then run",
+        f"#     archivist check {command_path}",
+        "# Paths are relative to this file. `archivist rules` explains every check.",
+        "",
+        "[map]",
+        _kv("title", m["title"], "CONFIRM: the map's title (the folder's name for now)"),
+        _kv("version", m["version"], "CONFIRM: the version of this release of the map"),
+        _kv("scale", m["scale"], "CONFIRM: publication scale denominator; not in the data, 1:25 000 assumed"),
+    ]
+    if inf.crs_label:
+        where = f"read from {inf.crs_from}"
+        agree = "every layer shares it" if not inf.crs_disagree else "CONFIRM: not every layer shares it (see below)"
+        name = f"{inf.crs_name}, " if inf.crs_name and inf.crs_label.startswith("EPSG:") else ""
+        lines.append(_kv("crs", m["crs"], f"{name}{where}; {agree}"))
+    else:
+        lines.append("# " + _kv("crs", "EPSG:…", "CONFIRM: no layer declares a CRS; archivist needs the map's"))
+    lines += [
+        "# A deposit also needs these (`archivist pack` refuses to run without them; `check` warns):",
+        "# " + _kv("licence", "CC-BY-4.0", "an SPDX licence identifier"),
+        "# " + _kv("abstract", "What the map shows, where, and how it was made."),
+        "# " + _kv("keywords", ["geological map"]),
+        "# [[map.authors]]",
+        "# " + _kv("name", "…"),
+        "# " + _kv("orcid", "0000-0000-0000-0000", "optional; its check digit is verified"),
+        "# " + _kv("affiliation", "…"),
+        "",
+    ]
+    layer_roles = ("units", "lines", "extent", "samples", "structures")
+    table_roles = ("legend", "analyses")
+    if not any(r in inf.placed for r in layer_roles):
+        lines.append("[layers]")
+    for section, roles in (("layers", layer_roles), ("tables", table_roles)):
+        for role in roles:
+            p = inf.placed.get(role)
+            if p is not None:
+                lines += _block(inf, p, section)
+            else:
+                hint, keys = ROLE_HINTS[role]
+                lead = "CONFIRM: archivist needs unit polygons and" if role == "units" else "If the map has them,"
+                lines.append(f"# {ROLE_TITLES[role]}: none recognised ({hint}). {lead} name them here:")
+                lines.append(f"# [{section}.{role}]")
+                lines += [f"# {k}" for k in keys]
+            lines.append("")
+    scale = m["scale"]
+    lines += [
+        "# Check settings; the defaults follow from the scale.",
+        "# [checks]",
+        "# " + _kv("tolerance", scale / 10000, f"in map units; the default is 0.1 mm at map scale ({scale / 10000:g} m at 1:{scale:,.0f})".replace(",", " ")),
+        "# [checks.severity]" + " " * (COMMENT_COLUMN + 2 - 19) + "# per rule: \"error\", \"warning\", \"notice\" or \"off\"",
+        "",
+    ]
+    if inf.unplaced:
+        lines.append("# Not placed: archivist could not tell what these are. Add any that belong to the map above.")
+        shown = inf.unplaced[:60]
+        for label, why in shown:
+            lines.append(f"#   {_one_line(label)}: {_one_line(why)}")
+        if len(inf.unplaced) > len(shown):
+            lines.append(f"#   … and {len(inf.unplaced) - len(shown)} more")
+        lines.append("")
+    return "\n".join(lines).rstrip("\n") + "\n"
+
+
+def _write_new(target: Path, text: str) -> None:
+    """Write ``target`` only if it does not exist, complete or not at all."""
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    except OSError as exc:
+        raise ArchivistError(f"{target.parent}: cannot write there ({exc.strerror})") from None
+    tmp_path = Path(tmp)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(text)
+        try:
+            os.link(tmp_path, target)  # fails if the target appeared meanwhile: never replaces
+        except FileExistsError:
+            raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest") from None
+        except OSError:
+            # a file system without hard links (e.g. FAT): exclusive create instead
+            try:
+                with open(target, "x", encoding="utf-8", newline="\n") as fh:
+                    fh.write(text)
+            except FileExistsError:
+                raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest") from None
+    finally:
+        if tmp_path.exists():
+            tmp_path.unlink()
+
+
+def init_project(path: str | Path) -> Path:
+    """Write a commented ``archivist.toml`` for the folder (or GeoPackage) ``path`` and return its path.
+
+    The roles of the layers and tables are guessed from geometry types, field
+    names and values; the CRS is read from the data; what could not be placed
+    is listed at the end of the file. The mapper confirms the lines marked
+    ``CONFIRM`` and then runs ``archivist check``.
+
+    Raises
+    ------
+    ArchivistError
+        ``path`` does not exist, is neither a folder nor a GeoPackage, holds
+        no layer or table at all, or already has an ``archivist.toml`` (which
+        is never replaced).
+
+    Examples
+    --------
+    >>> init_project("field_season_2024")  # doctest: +SKIP
+    PosixPath('field_season_2024/archivist.toml')
+    """
+    return write_manifest(path)[0]
+
+
+def write_manifest(path: str | Path) -> tuple[Path, Inference]:
+    """:func:`init_project`, returning the inference too (for the command line's summary)."""
+    p = Path(path)
+    if not p.exists():
+        raise ArchivistError(f"{p}: no such folder")
+    if p.is_file():
+        if p.suffix.lower() != ".gpkg":
+            raise ArchivistError(f"{p}: expected a project folder or a GeoPackage (.gpkg)")
+        folder = p.parent
+    else:
+        folder = p
+    target = folder / MANIFEST_NAME
+    if target.exists():
+        raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest (edit it, or move it away first)")
+    inf = infer(p)
+    if not inf.placed and not any(why != "not a vector layer or a table" for _, why in inf.unplaced):
+        raise ArchivistError(f"{p}: no vector layers or tables found (GeoPackage, shapefile, GeoJSON…, CSV, XLSX)")
+    text = manifest_text(inf, str(folder))
+    parsed = tomllib.loads(text)
+    if parsed != inf.manifest:  # the comments must never change what the manifest says
+        raise AssertionError("archivist init: the written manifest does not match the inference")
+    _write_new(target, text)
+    return target, inf
