@@ -36,6 +36,13 @@ def _by_file(problems):
     return out
 
 
+def _file_hits(facts, kind: str, loose=()):
+    """One hit per file: the bag's problems of ``kind``, then those from loose checksum lists."""
+    problems = [(p.file, p.message) for p in facts.bag.of(kind)] if facts.bag is not None else []
+    for file, message in _by_file([*problems, *loose]).items():
+        yield Hit(message, layer=file, features=(file,))
+
+
 # ------------------------------------------------------------------ integrity
 
 @rule("archive-checksum-mismatch", family="archive", severity="error", needs=NEEDS)
@@ -67,13 +74,7 @@ def archive_checksum_mismatch(project, ctx):
     One byte changed in `data/tables/legend.csv` gives "data/tables/legend.csv:
     SHA256 is 5e0c... where manifest-sha256.txt records 9a41...".
     """
-    facts = project.archive
-    problems = []
-    if facts.bag is not None:
-        problems += [(p.file, p.message) for p in facts.bag.of("mismatch")]
-    problems += facts.checksum_mismatches
-    for file, message in _by_file(problems).items():
-        yield Hit(message, layer=file, features=(file,))
+    yield from _file_hits(project.archive, "mismatch", project.archive.checksum_mismatches)
 
 
 @rule("archive-file-missing", family="archive", severity="error", needs=NEEDS)
@@ -102,13 +103,7 @@ def archive_file_missing(project, ctx):
     A package whose `data/tables/analyses.csv` was deleted gives
     "data/tables/analyses.csv is listed in manifest-sha256.txt but is not in the payload".
     """
-    facts = project.archive
-    problems = []
-    if facts.bag is not None:
-        problems += [(p.file, p.message) for p in facts.bag.of("missing")]
-    problems += facts.checksum_missing
-    for file, message in _by_file(problems).items():
-        yield Hit(message, layer=file, features=(file,))
+    yield from _file_hits(project.archive, "missing", project.archive.checksum_missing)
 
 
 @rule("archive-file-unlisted", family="archive", severity="error", needs=NEEDS)
@@ -135,11 +130,7 @@ def archive_file_unlisted(project, ctx):
     A `data/notes.txt` dropped into a package gives "data/notes.txt is in the
     payload but not in manifest-sha256.txt".
     """
-    facts = project.archive
-    if facts.bag is None:
-        return
-    for file, message in _by_file((p.file, p.message) for p in facts.bag.of("unlisted")).items():
-        yield Hit(message, layer=file, features=(file,))
+    yield from _file_hits(project.archive, "unlisted")
 
 
 @rule("bag-structure-invalid", family="archive", severity="error", needs=NEEDS)
