@@ -183,33 +183,31 @@ def merge_by_group(lines: np.ndarray, groups: np.ndarray, n_groups: int) -> np.n
     return out
 
 
-def polygonal_parts(geoms: np.ndarray, min_area: float = 0.0):
-    """Polygon parts with area above ``min_area`` of each geometry: (parts, index of the source geometry)."""
+def _parts_of_type(geoms: np.ndarray, single: int, multi: int, measure, minimum: float):
+    """Parts of type ``single`` whose ``measure`` exceeds ``minimum``: (parts, index of the source geometry).
+
+    Overlay results can nest a multi-geometry inside a collection; those are opened too.
+    """
     if len(geoms) == 0:
         return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
     parts, idx = shapely.get_parts(geoms, return_index=True)
-    # overlay results can nest a multipolygon inside a collection
-    multi = shapely.get_type_id(parts) == MULTIPOLYGON
-    if multi.any():
-        sub, k = shapely.get_parts(parts[multi], return_index=True)
-        parts = np.concatenate([parts[~multi], sub])
-        idx = np.concatenate([idx[~multi], idx[multi][k]])
-    keep = (shapely.get_type_id(parts) == POLYGON) & (shapely.area(parts) > min_area)
+    nested = shapely.get_type_id(parts) == multi
+    if nested.any():
+        sub, k = shapely.get_parts(parts[nested], return_index=True)
+        parts = np.concatenate([parts[~nested], sub])
+        idx = np.concatenate([idx[~nested], idx[nested][k]])
+    keep = (shapely.get_type_id(parts) == single) & (measure(parts) > minimum)
     return parts[keep], idx[keep]
+
+
+def polygonal_parts(geoms: np.ndarray, min_area: float = 0.0):
+    """Polygon parts with area above ``min_area`` of each geometry: (parts, index of the source geometry)."""
+    return _parts_of_type(geoms, POLYGON, MULTIPOLYGON, shapely.area, min_area)
 
 
 def linear_parts(geoms: np.ndarray, min_length: float = 0.0):
     """LineString parts longer than ``min_length``: (parts, index of the source geometry)."""
-    if len(geoms) == 0:
-        return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
-    parts, idx = shapely.get_parts(geoms, return_index=True)
-    multi = shapely.get_type_id(parts) == MULTILINESTRING
-    if multi.any():
-        sub, k = shapely.get_parts(parts[multi], return_index=True)
-        parts = np.concatenate([parts[~multi], sub])
-        idx = np.concatenate([idx[~multi], idx[multi][k]])
-    keep = (shapely.get_type_id(parts) == LINESTRING) & (shapely.length(parts) > min_length)
-    return parts[keep], idx[keep]
+    return _parts_of_type(geoms, LINESTRING, MULTILINESTRING, shapely.length, min_length)
 
 
 def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
