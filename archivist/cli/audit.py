@@ -9,9 +9,8 @@ from pathlib import Path
 import click
 
 from ..errors import ArchivistError
-from ..fsutil import atomic_write_text, guard_output
-from ..report import render_json, render_text, write_text
-from .options import progress_for, progress_options
+from ..fsutil import guard_output
+from .options import emit_report, progress_for, progress_options
 
 _SIZE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([kKMGT]i?B|B|bytes)?\s*$")
 _FACTOR = {None: 1, "B": 1, "bytes": 1, "kB": 1000, "KB": 1000, "MB": 1000**2, "GB": 1000**3, "TB": 1000**4,
@@ -87,12 +86,7 @@ def audit_command(archive, fmt, output, strict, only, rules, force, max_members,
             guard_output(output, force=force, project_root=archive if Path(archive).is_dir() else None)
         with progress_for(quiet, verbose) as progress:
             report = audit(archive, limits=limits, only=only, rules=rules, progress=progress)
-        if output is not None:
-            atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report))
-        elif fmt == "json":
-            sys.stdout.write(render_json(report))
-        else:
-            write_text(report, sys.stdout)
+        emit_report(report, fmt, output)
         sys.exit(1 if report.failed(strict) else 0)
 
     run()

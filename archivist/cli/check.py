@@ -8,14 +8,13 @@ from pathlib import Path
 import click
 
 from .. import engine
-from ..fsutil import atomic_write_text, guard_output
+from ..fsutil import guard_output
 from ..manifest import find_manifest
 from ..errors import ArchivistError
 from ..project import load_project
-from ..report import render_json, render_text, write_text
 from ..report.gpkg import write_findings_gpkg
 from ..report.html import write_html
-from .options import progress_for, progress_options
+from .options import emit_report, progress_for, progress_options
 
 
 @click.command("check")
@@ -67,12 +66,7 @@ def check_command(path, fmt, output, strict, only, rules, force, html_out, quiet
             if gpkg_out is not None:
                 with progress.step(f"writing {gpkg_out}"):
                     write_findings_gpkg(report, gpkg_out, crs=project.crs)
-        if output is not None:
-            atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report))
-        elif fmt == "json":
-            sys.stdout.write(render_json(report))
-        else:
-            write_text(report, sys.stdout)
+        emit_report(report, fmt, output)
         sys.exit(1 if report.failed(strict) else 0)
 
     run()

@@ -21,3 +21,18 @@ def progress_options(func):
 def progress_for(quiet: bool, verbose: bool) -> Progress:
     """The progress hook for a command run (bars on a terminal, timings with -v)."""
     return make_progress(quiet=quiet, verbose=verbose)
+
+
+def emit_report(report, fmt: str, output) -> None:
+    """Write a report as text or JSON to ``output`` (atomically) or to stdout."""
+    import sys
+
+    from ..fsutil import atomic_write_text
+    from ..report import render_json, render_text, write_text
+
+    if output is not None:
+        atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report))
+    elif fmt == "json":
+        sys.stdout.write(render_json(report))
+    else:
+        write_text(report, sys.stdout)
