@@ -20,7 +20,6 @@ import pyproj
 import shapely
 
 from . import manifest as mf
-from .errors import ArchivistError
 from .model import Hit
 from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column

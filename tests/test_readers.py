@@ -1,6 +1,5 @@
 """Readers: identifiers stay text, encodings are named, cells are located."""
 
-from pathlib import Path
 
 import numpy as np
 import openpyxl

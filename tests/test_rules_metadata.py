@@ -1,10 +1,9 @@
 """Family `metadata`: manifest, files, deposit metadata, identifiers, geometry validity."""
 
-from pathlib import Path
 
 import geopandas as gpd
 import pytest
-from shapely.geometry import LineString, Point, Polygon, box
+from shapely.geometry import LineString, Polygon, box
 
 import archivist
 from archivist.identifiers import orcid_check_digit, orcid_problem
