@@ -45,8 +45,15 @@ class _Placed:
     own_crs: bool  # False when the layer has no CRS and the map CRS is assumed
     bounds: np.ndarray  # (n, 4) in the layer's CRS; NaN rows for empty geometries
     lonlat: np.ndarray  # (n, 4) west, south, east, north; NaN where the transform fails
-    swapped: np.ndarray  # same, with x and y exchanged before transforming
     present: np.ndarray  # (n,) bool: the feature has a geometry
+
+    def swapped(self, rows: np.ndarray) -> np.ndarray:
+        """Lon/lat boxes of the selected rows with x and y exchanged before transforming.
+
+        Computed only for the rows asked for (those that do not fit as read),
+        since a clean layer needs none.
+        """
+        return _lonlat_boxes(self.crs, self.bounds[rows][:, [1, 0, 3, 2]])
 
     def box(self, which: np.ndarray | None = None) -> np.ndarray | None:
         """The lon/lat box of all (or the selected) transformable features, or None."""
@@ -78,6 +85,14 @@ def _to_lonlat(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
     return out
 
 
+def _lonlat_boxes(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
+    """Lon/lat boxes; NaN where a geographic CRS holds coordinates it cannot (|lat| > 90, |lon| > 360)."""
+    out = _to_lonlat(crs, bounds)
+    if crs.is_geographic:
+        out[(np.abs(bounds[:, 1]) > 90) | (np.abs(bounds[:, 3]) > 90) | (np.abs(bounds[:, 0]) > 360) | (np.abs(bounds[:, 2]) > 360)] = np.nan
+    return out
+
+
 def placements(project, ctx) -> dict[str, _Placed]:
     """Every layer with a usable CRS (its own, else the map's) placed on the globe; computed once per check."""
 
@@ -92,15 +107,10 @@ def placements(project, ctx) -> dict[str, _Placed]:
             bounds = shapely.bounds(geoms)
             bounds[~present] = np.nan
             try:
-                lonlat = _to_lonlat(crs, bounds)
-                swapped = _to_lonlat(crs, bounds[:, [1, 0, 3, 2]])
+                lonlat = _lonlat_boxes(crs, bounds)
             except (pyproj.exceptions.ProjError, pyproj.exceptions.CRSError):
                 continue  # a local or engineering CRS: not tied to the globe, nothing to place
-            # Coordinates a geographic CRS cannot hold are not a box on the globe.
-            if crs.is_geographic:
-                for arr, b in ((lonlat, bounds), (swapped, bounds[:, [1, 0, 3, 2]])):
-                    arr[(np.abs(b[:, 1]) > 90) | (np.abs(b[:, 3]) > 90) | (np.abs(b[:, 0]) > 360) | (np.abs(b[:, 2]) > 360)] = np.nan
-            out[role] = _Placed(role, crs, layer.crs is not None, bounds, lonlat, swapped, present)
+            out[role] = _Placed(role, crs, layer.crs is not None, bounds, lonlat, present)
         return out
 
     return ctx.shared("crs:placements", compute)
@@ -411,9 +421,10 @@ def _swap_suspects(project, ctx) -> dict[str, tuple[np.ndarray, tuple, bool]]:
         out = {}
         for role, placed in placements(project, ctx).items():
             ref, from_layers = _reference_area(project, ctx, role, placed)
-            fits = _within(placed.lonlat, ref, SWAP_MARGIN_DEG)
-            fits_swapped = _within(placed.swapped, ref, SWAP_MARGIN_DEG)
-            suspect = placed.present & ~fits & fits_swapped
+            rows = np.flatnonzero(placed.present & ~_within(placed.lonlat, ref, SWAP_MARGIN_DEG))
+            suspect = np.zeros(len(placed.present), dtype=bool)
+            if len(rows):
+                suspect[rows] = _within(placed.swapped(rows), ref, SWAP_MARGIN_DEG)
             if suspect.any():
                 out[role] = (suspect, ref, from_layers)
         return out
