@@ -110,9 +110,9 @@ def synthetic_map(
     seeds = jittered_points(n_polygons, side, side, rng, jitter=0.45) + [ox, oy]
     cells = voronoi_cells(np.round(fine, 2), box)
     centre = shapely.get_coordinates(shapely.centroid(cells))
-    from scipy.spatial import cKDTree
-
-    _, group = cKDTree(seeds).query(centre)
+    nearest = shapely.STRtree(shapely.points(seeds)).query_nearest(shapely.points(centre), all_matches=False)
+    group = np.empty(len(centre), dtype=np.int64)
+    group[nearest[0]] = nearest[1]
     used, group = np.unique(group, return_inverse=True)
     polys = dissolve(cells, group, len(used))
     n = len(polys)
