@@ -7,6 +7,7 @@ path, and loading carries on with what is usable.
 
 from __future__ import annotations
 
+import copy
 import json
 import tomllib
 from functools import lru_cache
@@ -117,6 +118,38 @@ def validate_manifest(data: dict[str, Any], source: str) -> list[Hit]:
             continue
         hits.append(Hit(f"{source}: key '{where or '(top)'}': {err.message}.", layer=source, rule="manifest-invalid"))
     return hits
+
+
+def usable(data: dict[str, Any]) -> dict[str, Any]:
+    """A copy of the manifest without the values the schema rejects.
+
+    The rejections themselves are reported by :func:`validate_manifest`; what
+    is left is safe for the loader and the rules to read (a string where a
+    table belongs, a tolerance of "a", a severity of "loud" are dropped and
+    their defaults apply).
+    """
+    out = copy.deepcopy(data)
+    validator = jsonschema.Draft202012Validator(load_schema("manifest.schema.json"))
+    doomed: list[tuple] = []
+    for err in validator.iter_errors(data):
+        path = tuple(err.absolute_path)
+        if err.validator == "additionalProperties":
+            doomed += [path + (key,) for key in set(err.instance) - set(err.schema.get("properties", {}))]
+        elif err.validator != "required" and path:
+            doomed.append(path)
+    # deepest first, and higher list indices before lower ones so deletions do not shift the rest
+    for path in sorted(set(doomed), key=lambda p: (len(p), p[-1] if isinstance(p[-1], int) else -1), reverse=True):
+        parent = out
+        try:
+            for part in path[:-1]:
+                parent = parent[part]
+            if isinstance(parent, dict):
+                parent.pop(path[-1], None)
+            elif isinstance(parent, list) and isinstance(path[-1], int) and path[-1] < len(parent):
+                del parent[path[-1]]
+        except (KeyError, IndexError, TypeError):
+            continue  # an enclosing value was dropped already
+    return out
 
 
 def with_defaults(data: dict[str, Any]) -> dict[str, Any]:

@@ -345,7 +345,7 @@ def load_project(path: str | Path, *, progress: Progress | None = None) -> MapPr
         raw, infer_notes = infer_manifest(root)
         notes.append(f"No {mf.MANIFEST_NAME} in {root}: the roles of its files were inferred from the data; confirm them with 'archivist init'.")
         notes.extend(infer_notes)
-    manifest = mf.with_defaults(raw)
+    manifest = mf.with_defaults(mf.usable(raw))
     crs = None
     crs_text = manifest["map"].get("crs")
     if isinstance(crs_text, str) and crs_text.strip():

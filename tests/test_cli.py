@@ -130,3 +130,30 @@ def test_example_bundle_json_is_valid_and_clean():
     assert data["summary"] == {"errors": 0, "warnings": 0, "notices": 0}, [f["message"] for f in data["findings"]]
     assert result.exit_code == 0
     assert tree_digest(BUNDLE) == before
+
+
+@pytest.mark.parametrize(
+    "toml, key",
+    [
+        ('map = "x"\n[layers.units]\npath = "map.gpkg"\nlayer = "units"\n', "'map'"),
+        ('[map]\ntitle = "t"\nversion = "1"\nscale = "big"\ncrs = "EPSG:32633"\n[layers.units]\npath = "map.gpkg"\nlayer = "units"\n', "map.scale"),
+        ('[map]\ntitle = "t"\nversion = "1"\nscale = 1000\ncrs = "EPSG:32633"\n[layers.units]\npath = "map.gpkg"\nlayer = "units"\n'
+         '[checks]\ntolerance = "a"\n', "checks.tolerance"),
+        ('[map]\ntitle = "t"\nversion = "1"\nscale = 1000\ncrs = "EPSG:32633"\n[layers.units]\npath = "map.gpkg"\nlayer = "units"\n'
+         '[checks.severity]\nunit-overlap = "loud"\n', "checks.severity.unit-overlap"),
+        ('[map]\ntitle = "t"\nversion = "1"\nscale = 1000\ncrs = "EPSG:32633"\n[[map.authors]]\naffiliation = "nobody"\n'
+         '[layers.units]\npath = "map.gpkg"\nlayer = "units"\n', "map.authors[0].name"),
+    ],
+)
+def test_wrongly_typed_manifest_values_are_findings_not_crashes(toml, key, tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "archivist.toml").write_text(toml, encoding="utf-8")
+    before = tree_digest(root)
+    result = CliRunner().invoke(cli, ["check", str(root), "--format", "json"])
+    assert isinstance(result.exception, SystemExit), result.exception  # an uncaught error would show here
+    assert result.exit_code == 1
+    found = [f for f in json.loads(result.output)["findings"] if f["rule"] == "manifest-invalid"]
+    assert any(key in f["message"] for f in found), [f["message"] for f in found]
+    packed = CliRunner().invoke(cli, ["pack", str(root), "--out", str(tmp_path / "out")])
+    assert isinstance(packed.exception, SystemExit) and packed.exit_code in (1, 2), packed.exception
+    assert tree_digest(root) == before

@@ -6,6 +6,7 @@ import pytest
 
 import archivist
 from archivist.errors import ArchivistError
+from archivist.package import PackRefused
 from archivist.package.deposit import read_deposit, slug, split_name
 from builders import edit_manifest, tiny_project
 
@@ -56,7 +57,11 @@ def test_author_without_name(tmp_path):
 
 
 def test_bad_map_name(tmp_path):
+    # The schema rejects the name: check reports it, and pack refuses on that error.
     root = tiny_project(tmp_path)
     edit_manifest(root, lambda m: m["map"].update(name="Tiny Map"))
-    with pytest.raises(ArchivistError, match="map.name"):
-        read_deposit(archivist.load_project(root), NOW)
+    found = [f for f in archivist.check(root, rules=["manifest-invalid"]).findings]
+    assert any("map.name" in f.message for f in found), [f.message for f in found]
+    with pytest.raises(PackRefused):
+        archivist.pack(root, tmp_path / "out")
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
