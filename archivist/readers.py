@@ -95,7 +95,12 @@ def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
             delimiter = csv.Sniffer().sniff(sample, delimiters=",;\t").delimiter
         except csv.Error:
             delimiter = ","
-    frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, sep=delimiter)
+    if not text.strip():
+        return TableData(pd.DataFrame(dtype=object), name, None, 1, {}), []
+    try:
+        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, sep=delimiter)
+    except pd.errors.ParserError as exc:
+        return None, [Hit(f"{name} cannot be read as a table: {' '.join(str(exc).split())}.", layer=name, rule="layer-unreadable")]
     frame = frame.astype(object)
     frame.columns = [str(c).strip() for c in frame.columns]
     return TableData(frame, name, None, 1, {}), []

@@ -36,7 +36,7 @@ import archivist
 from archivist.cli import cli
 from archivist.manifest import load_schema
 from archivist.package import PackRefused, pack
-from builders import BUNDLE, tiny_project, tree_digest
+from builders import BUNDLE, edit_manifest, tiny_project, tree_digest
 
 EPOCH = "1767225600"  # 2026-01-01T00:00:00Z
 STEM = "geological-map-of-the-tarrowmere-district-1.0.0"
@@ -659,3 +659,27 @@ def test_samples_from_a_table_keep_their_coordinate_columns(tmp_path):
     rows = (result.path / "data" / "tables" / "samples.csv").read_text(encoding="utf-8").split("\n")
     assert rows[0] == "fid,sample_id,unit,easting,northing" and rows[1] == "1,007,A,50.0,50.0"
     assert archivist.check(result.path / "data").summary == result.report.summary
+
+
+def test_no_readable_units_is_one_line_exit_2_even_with_allow_errors(tmp_path):
+    root = tiny_project(tmp_path)
+    (root / "map.gpkg").write_bytes(b"")
+    before = tree_digest(root)
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(tmp_path / "out"), "--allow-errors"])
+    assert result.exit_code == 2 and "layers.units" in result.stderr and len(result.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+    assert tree_digest(root) == before
+
+
+def test_untransformable_layer_is_one_line_exit_2_naming_it(tmp_path):
+    import geopandas as gpd
+    from shapely.geometry import box
+
+    # Metre-sized coordinates labelled as degrees: latitudes of 100 cannot be placed on the globe.
+    units = gpd.GeoDataFrame({"unit": ["A", "B"]}, geometry=[box(0, 0, 100, 100), box(100, 0, 200, 100)], crs="EPSG:4326")
+    root = tiny_project(tmp_path)
+    units.to_file(root / "u.geojson")
+    edit_manifest(root, lambda m: m["layers"].update(units={"path": "u.geojson"}))
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(tmp_path / "out"), "--allow-errors"])
+    assert result.exit_code == 2 and "u.geojson" in result.stderr and "cannot be transformed" in result.stderr
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())

@@ -70,3 +70,17 @@ def test_xlsx_missing_sheet(tmp_path):
     wb.save(tmp_path / "a.xlsx")
     data, hits = read_table(tmp_path / "a.xlsx", "a.xlsx", "traces")
     assert data is None and hits[0].rule == "layer-missing" and "traces" in hits[0].message
+
+
+def test_empty_csv_is_an_empty_table(tmp_path):
+    p = tmp_path / "t.csv"
+    p.write_text("", encoding="utf-8")
+    data, hits = read_table(p, "t.csv")
+    assert hits == [] and data.frame.empty
+
+
+def test_malformed_csv_is_a_finding(tmp_path):
+    p = tmp_path / "t.csv"
+    p.write_text('unit,name\nA,"unclosed\n', encoding="utf-8")
+    data, hits = read_table(p, "t.csv")
+    assert data is None and hits[0].rule == "layer-unreadable" and "t.csv" in hits[0].message

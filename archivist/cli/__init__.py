@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import functools
 import sys
+import warnings
 
 import click
 
@@ -53,4 +54,9 @@ cli.add_command(_diff.diff_command)
 
 
 def main() -> None:
+    # Library warnings (numpy invalid values on NaN coordinates, GDAL notes on
+    # a layer without CRS) are not addressed to the mapper: what matters in
+    # them is reported as findings. The Python API leaves warnings alone.
+    warnings.simplefilter("ignore", RuntimeWarning)
+    warnings.simplefilter("ignore", UserWarning)
     cli(prog_name="archivist")

@@ -20,6 +20,7 @@ import pyogrio
 import pyproj
 import shapely
 
+from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
 from .determinism import gdal_date
 from .tables import TextTable, column_text, text_table
@@ -108,6 +109,18 @@ def _fids(frame: gpd.GeoDataFrame) -> np.ndarray:
     return np.arange(1, len(frame) + 1, dtype=np.int64)
 
 
+def _require_finite(geoms: np.ndarray, source: str, target: str) -> None:
+    """Stop with one line naming the layer when some coordinates could not be transformed."""
+    coords, idx = shapely.get_coordinates(geoms, return_index=True)
+    bad = ~np.isfinite(coords).all(axis=1)
+    if bad.any():
+        n = len(np.unique(idx[bad]))
+        raise ArchivistError(
+            f"{source}: {n} feature(s) cannot be transformed to {target}; their coordinates do not fit the layer's CRS "
+            "(see the crs findings of 'archivist check')"
+        )
+
+
 def prepare_layers(project: MapProject) -> list[PreparedLayer]:
     """The project's layers in role order, each in the map CRS with a ``fid`` column."""
     out = []
@@ -123,7 +136,9 @@ def prepare_layers(project: MapProject) -> list[PreparedLayer]:
             note = f"{role}: the layer declared no CRS; written in the map CRS as declared in the manifest."
         elif not frame.crs.equals(target):
             note = f"{role}: reprojected from {frame.crs.name} to the map CRS."
-            frame = frame.to_crs(target)
+            with np.errstate(invalid="ignore"):
+                frame = frame.to_crs(target)
+            _require_finite(np.asarray(frame.geometry.array, dtype=object), layer.source, f"the map CRS ({target.name})")
         else:
             frame = frame.set_crs(target, allow_override=True)
         geo_name = frame.geometry.name
@@ -220,6 +235,7 @@ def write_geojson(pl: PreparedLayer, path: Path) -> None:
 
     geoms = np.asarray(pl.frame.geometry.array, dtype=object)
     rounded = shapely.transform(geoms, project_and_round, include_z=None if shapely.has_z(geoms).any() else False)
+    _require_finite(rounded, pl.source, "WGS 84 for the GeoJSON copy")
     present = ~(shapely.is_missing(rounded) | shapely.is_empty(rounded))
     bounds = shapely.bounds(rounded)
     crosses = bool(np.any((bounds[present, 2] - bounds[present, 0]) > 180.0)) if present.any() else False

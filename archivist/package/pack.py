@@ -255,6 +255,11 @@ def pack(
             "no package was written (fix them, or pack anyway with --allow-errors)",
         )
 
+    if "units" not in project.layers:
+        raise ArchivistError(
+            f"{project.manifest_path or project.root}: layers.units could not be read, so there is no map to pack "
+            "(see the metadata findings of 'archivist check')"
+        )
     out_dir.mkdir(parents=True, exist_ok=True)
     remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
     with terminate_as_exception(), ExitStack() as stack:
