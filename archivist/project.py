@@ -345,6 +345,15 @@ def load_project(path: str | Path, *, progress: Progress | None = None) -> MapPr
         raw, infer_notes = infer_manifest(root)
         notes.append(f"No {mf.MANIFEST_NAME} in {root}: the roles of its files were inferred from the data; confirm them with 'archivist init'.")
         notes.extend(infer_notes)
+        if "units" not in (raw.get("layers") or {}):
+            problems.append(
+                Hit(
+                    f"{root}: no polygon layer with unit codes was found, so there is no map to check; "
+                    f"name the units layer in {mf.MANIFEST_NAME} ('archivist init' writes one to complete).",
+                    layer="units",
+                    rule="layer-missing",
+                )
+            )
     manifest = mf.with_defaults(mf.usable(raw))
     crs = None
     crs_text = manifest["map"].get("crs")

@@ -205,3 +205,11 @@ def test_zip_with_system_clutter_is_still_a_package(tmp_path):
     result = run("audit", archive, "--format", "json", "--only", "archive")
     assert result.exit_code == 0, result.stdout
     assert "an archivist package" in json.loads(result.stdout)["notes"][0]
+
+
+def test_archive_without_map_is_reported_once(tmp_path):
+    (tmp_path / "bare").mkdir()
+    (tmp_path / "bare" / "notes.txt").write_text("field notes\n", encoding="utf-8")
+    report = archivist.audit(tmp_path / "bare")
+    rules = [f.rule for f in report.findings]
+    assert "archive-map-missing" in rules and "layer-missing" not in rules

@@ -74,3 +74,11 @@ def test_inferred_roles_without_manifest(tmp_path):
     assert project.manifest["map"]["crs"] == "EPSG:32633"
     assert project.notes[0].startswith("No archivist.toml")
     assert tree_digest(root) == before
+
+
+def test_folder_without_map_says_so(tmp_path):
+    (tmp_path / "empty").mkdir()
+    report = archivist.check(tmp_path / "empty")
+    assert report.summary.errors == 1
+    (f,) = [f for f in report.findings if f.rule == "layer-missing"]
+    assert "no polygon layer with unit codes" in f.message

@@ -242,6 +242,8 @@ def load_archive_project(arc: OpenedArchive) -> OpenedMap:
         held_dir = arc.root.parent / "held"
         held = [prefix + h for h in _hold_unsafe_layers(data, held_dir)]
         project = load_project(data)
+        # archive-map-missing says this for an archive, with what to ask the authors for
+        project.problems = [h for h in project.problems if not (h.rule == "layer-missing" and h.layer == "units")]
         for name in held:
             project.notes.append(f"{name} was not opened: its content is not a self-contained GeoPackage, shapefile, FlatGeobuf or GeoJSON.")
     project.notes = [_relabel(n, data, label, prefix) for n in project.notes]
