@@ -9,6 +9,7 @@ cannot be read at all raises :class:`~archivist.errors.ArchivistError`.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -58,6 +59,11 @@ class Layer:
     def geometry(self) -> np.ndarray:
         """The geometries as a numpy object array (shapely 2 vectorised functions take it)."""
         return np.asarray(self.frame.geometry.array, dtype=object)
+
+    @cached_property
+    def valid(self) -> np.ndarray:
+        """GEOS validity of every geometry (False where there is none), computed once per load."""
+        return shapely.is_valid(self.geometry)
 
     def field(self, key: str) -> str | None:
         """The attribute column named by manifest key ``key`` (e.g. ``unit_field``), if it is in the data."""

@@ -427,7 +427,7 @@ def geometry_invalid(project, ctx):
     for role, layer in project.layers.items():
         geoms = layer.geometry
         present = ~_empty_mask(geoms)
-        valid = shapely.is_valid(geoms)
+        valid = layer.valid
         for i in np.flatnonzero(present & ~valid):
             reason = shapely.is_valid_reason(geoms[i])
             where = None

@@ -221,12 +221,13 @@ def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
 
 # ---------------------------------------------------------------- the unit polygons
 
-def polygonal(geoms: np.ndarray) -> np.ndarray:
+def polygonal(geoms: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
     """Polygonal geometries fit for coverage work; None where a feature has no area.
 
     Invalid polygons are repaired with GEOS ``make_valid`` (method
     'structure', which keeps the area the rings enclose) and non-polygonal
     parts are dropped: the metadata family reports those features themselves.
+    ``valid`` is the layer's GEOS validity when already known (``Layer.valid``).
     """
     g = np.array(geoms, dtype=object, copy=True)
     t = shapely.get_type_id(g)
@@ -234,7 +235,7 @@ def polygonal(geoms: np.ndarray) -> np.ndarray:
     g[shapely.is_empty(g)] = None
     t = shapely.get_type_id(g)
     poly = np.isin(t, (POLYGON, MULTIPOLYGON))
-    bad = np.flatnonzero(poly & ~shapely.is_valid(g))
+    bad = np.flatnonzero(poly & ~(shapely.is_valid(g) if valid is None else valid))
     if len(bad):
         g[bad] = shapely.make_valid(g[bad], method="structure", keep_collapsed=False)
     t = shapely.get_type_id(g)
@@ -284,7 +285,7 @@ class Units:
 def get_units(project, ctx) -> Units:
     def compute():
         layer = project.layers["units"]
-        geoms = polygonal(layer.geometry)
+        geoms = polygonal(layer.geometry, layer.valid)
         rows = np.flatnonzero(~shapely.is_missing(geoms))
         codes = None
         values = text_values(layer, "unit_field")
@@ -447,7 +448,7 @@ def extent_of(project, union) -> tuple[Any, bool]:
     """The map extent: the extent layer when it has area, else the outer boundary of the units."""
     layer = project.layers.get("extent")
     if layer is not None:
-        geoms = polygonal(layer.geometry)
+        geoms = polygonal(layer.geometry, layer.valid)
         geoms = geoms[~shapely.is_missing(geoms)]
         if len(geoms):
             return shapely.union_all(geoms), True
