@@ -6,7 +6,6 @@ file that does not exist yet: an existing manifest is never replaced.
 
 from __future__ import annotations
 
-import json
 import os
 import tempfile
 import tomllib
@@ -17,6 +16,7 @@ from ._version import __version__
 from .errors import ArchivistError
 from .infer import Inference, Placed, infer
 from .manifest import MANIFEST_NAME
+from .tomltext import toml_value
 
 ROLE_TITLES = {
     "units": "Unit polygons",
@@ -37,18 +37,6 @@ ROLE_HINTS = {
     "analyses": ("a CSV or XLSX table of analyses with a sample id column", ["path = \"…\"", "sample_field = \"…\""]),
 }
 COMMENT_COLUMN = 40
-
-
-def toml_value(v: Any) -> str:
-    """A TOML literal for a string, number, boolean or list of them."""
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if isinstance(v, (list, tuple)):
-        return "[" + ", ".join(toml_value(x) for x in v) + "]"
-    # JSON string escapes are TOML basic-string escapes; TOML also wants DEL escaped
-    return json.dumps(str(v), ensure_ascii=False).replace("\x7f", "\\u007F")
 
 
 def _one_line(text: str) -> str:

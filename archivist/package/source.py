@@ -20,7 +20,6 @@ inferred from the data, as for a bare folder.
 from __future__ import annotations
 
 import shutil
-import tomllib
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -31,6 +30,7 @@ from ..errors import ArchivistError
 from ..model import Hit
 from ..project import MapProject, load_project
 from ..readers import TABLE_SUFFIXES, VECTOR_SUFFIXES
+from ..tomltext import dump_toml
 from .safe import Limits, OpenedArchive, inspect_zip, name_problem, open_archive, sniff_vector
 
 AUDIT_MANIFEST = ".archivist-audit.toml"  # written into the private copy only, never into the user's files
@@ -129,56 +129,6 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
     return out, hits, held
 
 
-def _toml_value(v: Any) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, float)):
-        return repr(v)
-    if isinstance(v, list):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
-    if isinstance(v, dict):
-        return "{" + ", ".join(f"{_toml_key(k)} = {_toml_value(x)}" for k, x in v.items()) + "}"
-    s = str(v).replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n").replace("\r", "\\r").replace("\t", "\\t")
-    return f'"{s}"'
-
-
-def _toml_key(k: str) -> str:
-    import re
-
-    return k if re.fullmatch(r"[A-Za-z0-9_-]+", k) else _toml_value(k)
-
-
-def manifest_toml(data: dict[str, Any]) -> str:
-    """A manifest as TOML text (the shapes ``archivist.toml`` uses: tables, arrays of tables, scalars)."""
-    lines: list[str] = []
-
-    def emit(prefix: str, table: dict[str, Any]) -> None:
-        simple = {k: v for k, v in table.items() if not isinstance(v, dict) and not (isinstance(v, list) and v and all(isinstance(x, dict) for x in v))}
-        nested = {k: v for k, v in table.items() if k not in simple}
-        if prefix and (simple or not nested):
-            lines.append(f"[{prefix}]")
-        for k, v in simple.items():
-            lines.append(f"{_toml_key(k)} = {_toml_value(v)}")
-        for k, v in nested.items():
-            name = f"{prefix}.{_toml_key(k)}" if prefix else _toml_key(k)
-            if isinstance(v, dict):
-                if lines and lines[-1] != "":
-                    lines.append("")
-                emit(name, v)
-            else:
-                for item in v:
-                    lines.append("")
-                    lines.append(f"[[{name}]]")
-                    for ik, iv in item.items():
-                        lines.append(f"{_toml_key(ik)} = {_toml_value(iv)}")
-                lines.append("")
-
-    emit("", data)
-    text = "\n".join(lines).strip() + "\n"
-    assert tomllib.loads(text) == data  # the writer must round-trip what it is given
-    return text
-
-
 # A workbook is itself a zip: its parts are checked like an archive's members before openpyxl reads them.
 WORKBOOK_LIMITS = Limits(max_members=10_000, max_total_bytes=2 * 1024**3, max_ratio=500.0)
 
@@ -229,7 +179,7 @@ def load_archive_project(arc: OpenedArchive) -> OpenedMap:
         held = [prefix + h for h in held_rel]
         audit_manifest = data / AUDIT_MANIFEST
         # Paths stay as the archive wrote them; the schema check runs on the original.
-        audit_manifest.write_text(manifest_toml(screened), encoding="utf-8")
+        audit_manifest.write_text(dump_toml(screened), encoding="utf-8")
         try:
             project = load_project(audit_manifest)
         finally:

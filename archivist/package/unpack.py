@@ -43,7 +43,8 @@ from ..fsutil import guard_output
 from ..manifest import MANIFEST_NAME
 from .bagcheck import file_digest, verify_bag
 from .safe import Limits, open_archive
-from .source import is_bag, manifest_toml
+from ..tomltext import dump_toml, toml_value
+from .source import is_bag
 
 _SEMVER = re.compile(r"^(\d+)\.(\d+)\.(\d+)(?:[-+].*)?$")
 _NUMERIC = re.compile(r"^(.*?)(\d+)([^\d]*)$")
@@ -134,7 +135,7 @@ def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
         for key, value in changes.items():
             pattern = re.compile(rf"^\s*{re.escape(key)}\s*=")
             at = next((i for i, ln in enumerate(section) if pattern.match(ln)), None)
-            new = None if value is None else f"{key} = {manifest_toml({'v': value}).split('=', 1)[1].strip()}"
+            new = None if value is None else f"{key} = {toml_value(value)}"
             if at is not None:
                 if new is None:
                     del section[at]
@@ -149,7 +150,7 @@ def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
                 return candidate
         except tomllib.TOMLDecodeError:
             pass
-    return manifest_toml(expected)
+    return dump_toml(expected)
 
 
 def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, str | None]:
