@@ -19,6 +19,8 @@ import pandas as pd
 import pyogrio
 from shapely.geometry import LineString, Point, Polygon, box
 
+from archivist.tomltext import dump_toml
+
 REPO = Path(__file__).resolve().parent.parent
 BUNDLE = REPO / "example_bundle"
 CRS = "EPSG:32633"
@@ -31,41 +33,6 @@ def tree_digest(root: Path) -> dict[str, str]:
         for p in sorted(Path(root).rglob("*"))
         if p.is_file()
     }
-
-
-def dump_toml(data: dict[str, Any]) -> str:
-    """A tiny TOML writer for the manifest shapes used in tests (tables, arrays of tables, scalars)."""
-
-    def scalar(v):
-        if isinstance(v, bool):
-            return "true" if v else "false"
-        if isinstance(v, (int, float)):
-            return repr(v)
-        if isinstance(v, list):
-            return "[" + ", ".join(scalar(x) for x in v) + "]"
-        return '"' + str(v).replace("\\", "\\\\").replace('"', '\\"') + '"'
-
-    lines: list[str] = []
-
-    def emit(prefix: str, table: dict[str, Any]):
-        simple = {k: v for k, v in table.items() if not isinstance(v, dict) and not (isinstance(v, list) and v and all(isinstance(x, dict) for x in v))}
-        nested = {k: v for k, v in table.items() if k not in simple}
-        if prefix and (simple or not nested):
-            lines.append(f"[{prefix}]")
-        for k, v in simple.items():
-            lines.append(f"{k} = {scalar(v)}")
-        for k, v in nested.items():
-            name = f"{prefix}.{k}" if prefix else k
-            if isinstance(v, dict):
-                emit(name, v)
-            else:
-                for item in v:
-                    lines.append(f"[[{name}]]")
-                    for ik, iv in item.items():
-                        lines.append(f"{ik} = {scalar(iv)}")
-
-    emit("", data)
-    return "\n".join(lines) + "\n"
 
 
 def read_manifest(project: Path) -> dict[str, Any]:
