@@ -45,7 +45,7 @@ from .topology import (
     ABOVE,
     LINESTRING,
     MULTILINESTRING,
-    COLLECTION,
+    collections_as,
     canonical,
     coord_hash,
     get_coverage,
@@ -217,17 +217,8 @@ class Lines:
 
 
 def _line_geoms(layer) -> np.ndarray:
-    g = np.array(layer.geometry, dtype=object, copy=True)
-    t = shapely.get_type_id(g)
-    coll = np.flatnonzero(t == COLLECTION)
-    if len(coll):
-        parts, k = linear_parts(g[coll])
-        out = np.full(len(coll), None, dtype=object)
-        if len(parts):
-            shapely.multilinestrings(parts, indices=k, out=out)
-        g[coll] = out
-        t = shapely.get_type_id(g)
-    g[~np.isin(t, (LINESTRING, MULTILINESTRING))] = None
+    g = collections_as(np.array(layer.geometry, dtype=object, copy=True), linear_parts, shapely.multilinestrings)
+    g[~np.isin(shapely.get_type_id(g), (LINESTRING, MULTILINESTRING))] = None
     g[shapely.is_empty(g)] = None
     return g
 

@@ -221,6 +221,23 @@ def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
 
 # ---------------------------------------------------------------- the unit polygons
 
+def collections_as(g: np.ndarray, parts_of, build) -> np.ndarray:
+    """Replace, in place, each GeometryCollection of ``g`` by one multi-geometry of its parts.
+
+    ``parts_of`` is :func:`polygonal_parts` or :func:`linear_parts`, ``build``
+    the matching shapely constructor (``multipolygons``, ``multilinestrings``);
+    a collection without such parts becomes None.
+    """
+    coll = np.flatnonzero(shapely.get_type_id(g) == COLLECTION)
+    if len(coll):
+        parts, k = parts_of(g[coll])
+        out = np.full(len(coll), None, dtype=object)
+        if len(parts):
+            build(parts, indices=k, out=out)
+        g[coll] = out
+    return g
+
+
 def polygonal(geoms: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
     """Polygonal geometries fit for coverage work; None where a feature has no area.
 
@@ -238,14 +255,7 @@ def polygonal(geoms: np.ndarray, valid: np.ndarray | None = None) -> np.ndarray:
     bad = np.flatnonzero(poly & ~(shapely.is_valid(g) if valid is None else valid))
     if len(bad):
         g[bad] = shapely.make_valid(g[bad], method="structure", keep_collapsed=False)
-    t = shapely.get_type_id(g)
-    coll = np.flatnonzero(t == COLLECTION)
-    if len(coll):
-        parts, k = polygonal_parts(g[coll])
-        out = np.full(len(coll), None, dtype=object)
-        if len(parts):
-            shapely.multipolygons(parts, indices=k, out=out)
-        g[coll] = out
+    collections_as(g, polygonal_parts, shapely.multipolygons)
     g[shapely.is_empty(g)] = None
     return g
 
