@@ -44,19 +44,17 @@ def check_command(path, fmt, output, strict, only, rules, force, html_out, quiet
     @handle_errors
     def run():
         root, _ = find_manifest(path)
-        if output is not None:
-            guard_output(output, force=force, project_root=root)
-        if html_out is not None:
-            if output is not None and Path(output).resolve() == Path(html_out).resolve():
-                raise ArchivistError(f"{html_out}: --html and --output name the same file")
-            guard_output(html_out, force=force, project_root=root)
-        if gpkg_out is not None:
-            if Path(gpkg_out).suffix.lower() != ".gpkg":
-                raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
-            for other in (output, html_out):
-                if other is not None and Path(other).resolve() == Path(gpkg_out).resolve():
-                    raise ArchivistError(f"{gpkg_out}: --findings-gpkg names the same file as another output")
-            guard_output(gpkg_out, force=force, project_root=root)
+        if gpkg_out is not None and Path(gpkg_out).suffix.lower() != ".gpkg":
+            raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
+        seen: dict[Path, str] = {}
+        for target, flag in ((output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")):
+            if target is None:
+                continue
+            key = Path(target).resolve()
+            if key in seen:
+                raise ArchivistError(f"{target}: {flag} and {seen[key]} name the same file")
+            seen[key] = flag
+            guard_output(target, force=force, project_root=root)
         with progress_for(quiet, verbose) as progress:
             project = load_project(path, progress=progress)
             report = engine.check(project, only=only, rules=rules, progress=progress)
