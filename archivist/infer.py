@@ -20,6 +20,7 @@ import pandas as pd
 import pyogrio
 import pyproj
 
+from .fileset import SIDE_FILE_SUFFIXES
 from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table
 
 # Field names, best first. Compared without case.
@@ -205,7 +206,7 @@ def scan(root: Path, only: Path | None = None) -> tuple[list[Source], list[tuple
     sources: list[Source] = []
     other: list[tuple[str, str]] = []
     files = [only] if only is not None else list(_walk(root))
-    sidecars = {".dbf", ".shx", ".prj", ".cpg", ".qix", ".sbn", ".sbx", ".xml", ".qmd", ".qml", ".lock"}
+    sidecars = SIDE_FILE_SUFFIXES | {".qml", ".lock"}
     for path in files:
         rel = path.relative_to(root).as_posix()
         suffix = path.suffix.lower()

@@ -37,6 +37,7 @@ import pyproj
 
 from .. import engine
 from ..errors import ArchivistError
+from ..fileset import dataset_files
 from ..manifest import MANIFEST_NAME
 from ..model import Report
 from ..project import MapProject, load_project
@@ -56,7 +57,6 @@ from .tables import write_csv
 
 REPORT_PATH = "metadata/validation-report.json"
 HTML_REPORT_PATH = "metadata/validation-report.html"
-SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg", ".qix", ".sbn", ".sbx", ".qmd", ".shp.xml")
 
 
 @dataclass(frozen=True)
@@ -121,7 +121,8 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     """(file, path relative to the project, roles) of every input: the manifest and the files it names.
 
     A shapefile comes with its side files; a folder format (File Geodatabase)
-    with every file inside it.
+    with every file inside it; any file with its metadata sidecar
+    (:func:`archivist.fileset.dataset_files`).
     """
     roles: dict[Path, list[str]] = {}
     if project.manifest_path is not None:
@@ -133,18 +134,8 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     out: dict[Path, tuple[str, str]] = {}
     for path, rs in roles.items():
         label = ", ".join(rs)
-        if path.is_dir():
-            for p in sorted(path.rglob("*")):
-                if p.is_file():
-                    out[p] = (relative_source(project, p), label)
-            continue
-        out[path] = (relative_source(project, path), label)
-        if path.suffix.lower() == ".shp":
-            stem = path.name[: -len(path.suffix)].lower()
-            for sib in sorted(path.parent.iterdir()):
-                low = sib.name.lower()
-                if sib.is_file() and sib != path and any(low == stem + part for part in SHAPEFILE_PARTS):
-                    out[sib.resolve()] = (relative_source(project, sib), label)
+        for p in dataset_files(path) or [path]:
+            out[p] = (relative_source(project, p), label)
     return sorted(((p, rel, label) for p, (rel, label) in out.items()), key=lambda t: t[1])
 
 
