@@ -1,7 +1,12 @@
 """``archivist unpack``: a package back into an editable project; packing it again gives the same data."""
 
 import hashlib
+import json
 import os
+import signal
+import subprocess
+import sys
+import time
 import tomllib
 import zipfile
 from pathlib import Path
@@ -13,9 +18,9 @@ from packaging.version import Version
 
 import archivist
 from archivist.cli import cli
-from archivist.package.unpack import bump_version, edit_map_keys
+from archivist.package.unpack import MARKER, bump_version, edit_map_keys
 from archives import EPOCH, flip_byte, package, package_zip, rebag
-from builders import BUNDLE, tiny_project, tree_digest
+from builders import BUNDLE, REPO, tiny_project, tree_digest
 
 # Files whose bytes depend on the version and origin written in the manifest: everything else is data.
 METADATA = {
@@ -88,16 +93,17 @@ def test_unpack_writes_nothing_into_the_package(tmp_path):
     assert inside.exit_code == 2 and "inside the project folder" in inside.stderr
 
 
-def test_unpack_refuses_to_overwrite_without_force(tmp_path):
+def test_unpack_refuses_a_folder_it_did_not_make_even_with_force(tmp_path):
     root = package(tmp_path)
     target = tmp_path / "work"
     target.mkdir()
     (target / "mine.txt").write_text("keep me")
-    refused = run("unpack", root, target)
-    assert refused.exit_code == 2 and "--force" in refused.stderr
-    assert (target / "mine.txt").read_text() == "keep me"
-    assert run("unpack", root, target, "--force").exit_code == 0
-    assert not (target / "mine.txt").exists() and (target / "archivist.toml").is_file()
+    for args in ((), ("--force",)):
+        refused = run("unpack", root, target, *args)
+        assert refused.exit_code == 2
+        (line,) = refused.stderr.strip().splitlines()
+        assert str(target) in line and "not made by 'archivist unpack'" in line
+        assert sorted(p.name for p in target.iterdir()) == ["mine.txt"] and (target / "mine.txt").read_text() == "keep me"
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".work")] == []
 
 
@@ -168,3 +174,265 @@ def test_edit_map_keys_inline_table_falls_back_to_rewrite():
     text = 'map = {title = "T", version = "1"}\n[layers.units]\npath = "u.gpkg"\n'
     out = edit_map_keys(text, {"version": "2-dev"})
     assert tomllib.loads(out) == {"map": {"title": "T", "version": "2-dev"}, "layers": {"units": {"path": "u.gpkg"}}}
+
+
+# ---------------------------------------------------------------- multi-file formats travel whole
+
+SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")  # ESRI "Shapefile file extensions": .shp/.shx/.dbf required; .prj CRS; .cpg code page
+
+
+def shapefile_project(tmp_path: Path, name: str = "shp") -> Path:
+    """The tiny project with its units and lines as shapefiles (written by GDAL through pyogrio) instead of a GeoPackage."""
+    import pyogrio
+
+    from builders import edit_manifest, two_units, two_units_lines
+
+    root = tiny_project(tmp_path, name=name)
+    units = two_units()
+    units["note"] = ["Grès rouge, Ærdal type", "Schiste à ciment"]  # non-ASCII: read right only with the .cpg
+    pyogrio.write_dataframe(units, root / "units.shp", encoding="UTF-8")
+    pyogrio.write_dataframe(two_units_lines(), root / "lines.shp", encoding="UTF-8")
+    (root / "map.gpkg").unlink()
+
+    def use_shapefiles(m):
+        m["layers"]["units"] = {"path": "units.shp", "unit_field": "unit"}
+        m["layers"]["lines"] = {"path": "lines.shp", "kind_field": "kind", "certainty_field": "certainty"}
+
+    edit_manifest(root, use_shapefiles)
+    for layer in ("units", "lines"):
+        assert sorted(p.suffix for p in root.glob(f"{layer}.*")) == sorted(SHAPEFILE_PARTS)
+    return root
+
+
+def test_shapefile_project_survives_pack_unpack_check_pack(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    src = shapefile_project(tmp_path)
+    (tmp_path / "first").mkdir()
+    first = archivist.pack(src, tmp_path / "first", zip=True)
+    result = run("unpack", first.zip_path, tmp_path / "work")
+    assert result.exit_code == 0, result.output
+    work = tmp_path / "work"
+    for layer in ("units", "lines"):
+        for suffix in SHAPEFILE_PARTS:
+            assert (work / f"{layer}{suffix}").read_bytes() == (src / f"{layer}{suffix}").read_bytes()
+    # the unpacked project opens and checks like the original
+    old, new = archivist.check(src), archivist.check(work)
+    assert [f.to_dict() for f in new.findings] == [f.to_dict() for f in old.findings]
+    assert new.rules_run == old.rules_run and new.summary.errors == 0
+    (tmp_path / "again").mkdir()
+    second = archivist.pack(work, tmp_path / "again")
+    a, b = manifest_entries(first.path), manifest_entries(second.path)
+    assert set(a) == set(b)
+    data = sorted(set(a) - METADATA)
+    for layer in ("units", "lines"):
+        assert {f"data/source/{layer}{s}" for s in SHAPEFILE_PARTS} <= set(data)
+    assert "data/map.gpkg" in data and "data/tables/units.csv" in data
+    assert {k: a[k] for k in data} == {k: b[k] for k in data}
+
+
+def test_unpack_keeps_parts_of_any_case_and_metadata_sidecars(tmp_path):
+    """Parts written with upper-case suffixes (as files from Windows often are) and an ArcGIS .shp.xml come back too."""
+    import pyogrio
+
+    src = shapefile_project(tmp_path)
+    (src / "units.shx").rename(src / "units.SHX")
+    (src / "units.dbf").rename(src / "units.DBF")
+    (src / "units.shp.xml").write_text("<metadata><idinfo><citation>invented</citation></idinfo></metadata>\n")
+    (src / "legend.csv.aux.xml").write_text("<PAMDataset/>\n")
+    (src / "unrelated.txt").write_text("not part of any dataset\n")
+    (tmp_path / "out").mkdir()
+    packed = archivist.pack(src, tmp_path / "out")
+    result = archivist.unpack(packed.path, tmp_path / "work")
+    expected = sorted(p.name for p in src.iterdir() if p.name != "unrelated.txt")
+    assert list(result.files) == expected
+    for name in expected:
+        if name != "archivist.toml":
+            assert (tmp_path / "work" / name).read_bytes() == (src / name).read_bytes()
+    # GDAL reads the unpacked shapefile as it reads the original (attributes, CRS from .prj, text through .cpg)
+    a = pyogrio.read_dataframe(src / "units.shp")
+    b = pyogrio.read_dataframe(tmp_path / "work" / "units.shp")
+    assert a.equals(b) and b.crs == a.crs and list(b["note"]) == ["Grès rouge, Ærdal type", "Schiste à ciment"]
+
+
+def test_unpack_brings_back_a_file_geodatabase_folder_whole(tmp_path, monkeypatch):
+    import pyogrio
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    from builders import edit_manifest, two_units, two_units_lines
+
+    src = tiny_project(tmp_path, name="gdb")
+    pyogrio.write_dataframe(two_units(), src / "map.gdb", layer="units", driver="OpenFileGDB")
+    pyogrio.write_dataframe(two_units_lines(), src / "map.gdb", layer="lines", driver="OpenFileGDB")
+    (src / "map.gpkg").unlink()
+    edit_manifest(src, lambda m: [m["layers"][r].update(path="map.gdb") for r in ("units", "lines")])
+    inside = sorted(p.relative_to(src).as_posix() for p in (src / "map.gdb").rglob("*") if p.is_file())
+    assert len(inside) > 5  # a File Geodatabase is a folder of many files (GDAL OpenFileGDB driver)
+    (tmp_path / "out").mkdir()
+    first = archivist.pack(src, tmp_path / "out")
+    result = archivist.unpack(first.path, tmp_path / "work")
+    assert result.origin == "source"
+    assert set(inside) <= set(result.files)
+    for rel in inside:
+        assert (tmp_path / "work" / rel).read_bytes() == (src / rel).read_bytes()
+    assert [f.to_dict() for f in archivist.check(tmp_path / "work").findings] == [f.to_dict() for f in archivist.check(src).findings]
+
+
+# ---------------------------------------------------------------- --force replaces only what unpack made
+
+def test_force_never_replaces_a_folder_that_holds_the_package(tmp_path):
+    target = tmp_path / "work"
+    zipped = package_zip(target, "tiny")  # the package zip inside DIR
+    folder = package(target / "pkgs")  # and a package folder inside DIR
+    (target / "notes.txt").write_text("field notes")
+    before = tree_digest(target)
+    for pkg in (zipped, folder):
+        result = run("unpack", pkg, target, "--force")
+        assert result.exit_code == 2, result.output
+        (line,) = result.stderr.strip().splitlines()
+        assert str(target) in line and "holds the package" in line
+        assert tree_digest(target) == before
+    assert [p.name for p in tmp_path.iterdir()] == ["work"]
+
+
+def test_force_replaces_an_unchanged_earlier_unpack(tmp_path):
+    root = package(tmp_path)
+    target = tmp_path / "work"
+    assert run("unpack", root, target).exit_code == 0
+    record = json.loads((target / MARKER).read_text())
+    # the mark records the SHA-256 of every file written (hashlib), and nothing else is in the folder
+    assert record["files"] == {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in target.iterdir() if p.name != MARKER}
+    again = run("unpack", root, target)
+    assert again.exit_code == 2 and "--force" in again.stderr
+    forced = run("unpack", root, target, "--force")
+    assert forced.exit_code == 0, forced.output
+    assert sorted(p.name for p in target.iterdir()) == sorted([MARKER, "archivist.toml", "legend.csv", "map.gpkg"])
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".work")] == []
+
+
+@pytest.mark.parametrize("work", ["extra file", "extra hidden file", "edited file", "edited manifest", "no mark", "broken mark", "link"])
+def test_force_never_loses_the_mappers_work(tmp_path, work):
+    root = package(tmp_path)
+    target = tmp_path / "work"
+    assert run("unpack", root, target).exit_code == 0
+    if work == "extra file":
+        (target / "sub").mkdir()
+        (target / "sub" / "field-photo.jpg").write_bytes(b"\xff\xd8 invented")
+    elif work == "extra hidden file":
+        (target / ".map.gpkg-journal").write_bytes(b"pending")
+    elif work == "edited file":
+        with open(target / "legend.csv", "a") as fh:
+            fh.write("C,Cedar Tuff,Welded tuff.,Rhaetian,201,208,3,#C0C0C0,tuff,volcanic\n")
+    elif work == "edited manifest":
+        with open(target / "archivist.toml", "a") as fh:
+            fh.write("# my note\n")
+    elif work == "no mark":
+        (target / MARKER).unlink()
+    elif work == "broken mark":
+        (target / MARKER).write_text("{not json")
+    elif work == "link":
+        (target / "elsewhere").symlink_to(tmp_path)
+    before = tree_digest(target)
+    result = run("unpack", root, target, "--force")
+    assert result.exit_code == 2, result.output
+    (line,) = result.stderr.strip().splitlines()
+    assert str(target) in line and "Traceback" not in result.output
+    assert tree_digest(target) == before
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".work")] == []
+
+
+@pytest.mark.parametrize("where", ["current folder", "parent of the current folder"])
+def test_force_into_the_current_folder_is_one_line(tmp_path, monkeypatch, where):
+    root = package(tmp_path / "pkgs")
+    target = tmp_path / "work"
+    assert run("unpack", root, target).exit_code == 0  # a folder unpack made: only the place stops it
+    cwd = target if where == "current folder" else target / "sub"
+    cwd.mkdir(exist_ok=True)
+    before = tree_digest(target)
+    monkeypatch.chdir(cwd)
+    result = CliRunner().invoke(cli, ["unpack", str(root), "." if where == "current folder" else "..", "--force"])
+    assert result.exit_code == 2 and isinstance(result.exception, SystemExit)
+    (line,) = result.stderr.strip().splitlines()
+    assert "current folder" in line and "Traceback" not in result.output
+    assert tree_digest(target) == before and cwd.is_dir()
+
+
+def test_force_into_the_current_folder_in_a_subprocess(tmp_path):
+    root = package(tmp_path / "pkgs")
+    target = tmp_path / "work"
+    assert run("unpack", root, target).exit_code == 0
+    proc = subprocess.run(
+        [sys.executable, "-c", "from archivist.cli import main; main()", "unpack", str(root), ".", "--force"],
+        cwd=target, env={**os.environ, "PYTHONPATH": str(REPO)}, capture_output=True, text=True, timeout=120,
+    )
+    assert proc.returncode == 2
+    assert "Traceback" not in proc.stderr + proc.stdout
+    (line,) = proc.stderr.strip().splitlines()
+    assert line.startswith("archivist: .: is the current folder")
+
+
+def test_the_mark_stays_out_of_check_pack_and_role_guessing(tmp_path):
+    from archivist.infer import scan
+
+    root = package(tmp_path)
+    work = tmp_path / "work"
+    archivist.unpack(root, work)
+    assert (work / MARKER).is_file()
+    sources, other = scan(work)
+    assert MARKER not in {s.rel for s in sources} | {rel for rel, _ in other}
+    report = archivist.check(work)
+    assert MARKER not in json.dumps(report.to_dict())
+    (tmp_path / "again").mkdir()
+    packed = archivist.pack(work, tmp_path / "again", force=True)
+    assert not [f for f in packed.files if MARKER in f]
+
+
+# ---------------------------------------------------------------- interrupted runs leave nothing
+
+SLOW_UNPACK = """
+import sys, time
+from pathlib import Path
+import archivist.package.unpack as u
+
+archive, flag, target = sys.argv[1:4]
+real = u._copy_file
+def slow(src, dest):
+    digest = real(src, dest)
+    Path(flag).write_text("copying")
+    time.sleep(60)
+    return digest
+u._copy_file = slow
+from archivist.cli import main
+sys.argv = ["archivist", "unpack", archive, target]
+main()
+"""
+
+
+def test_sigterm_mid_copy_leaves_no_staging_folder_and_no_private_copy(tmp_path):
+    archive = package_zip(tmp_path / "pkgs", "tiny")
+    temp = tmp_path / "tmp"
+    temp.mkdir()
+    flag = tmp_path / "copying"
+    out = tmp_path / "out"
+    out.mkdir()
+    proc = subprocess.Popen(
+        [sys.executable, "-c", SLOW_UNPACK, str(archive), str(flag), str(out / "work")],
+        env={**os.environ, "PYTHONPATH": str(REPO), "TMPDIR": str(temp)},
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        deadline = time.monotonic() + 120
+        while not flag.exists() and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert flag.exists(), proc.communicate()
+        # mid-copy: the staging folder and the private copy of the archive exist
+        assert [p.name for p in out.iterdir() if p.name.endswith(".part")]
+        assert [p.name for p in temp.iterdir() if p.name.startswith("archivist-archive-")]
+        proc.send_signal(signal.SIGTERM)
+        stdout, stderr = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == 130
+    assert "Traceback" not in stdout + stderr and "interrupted" in stderr
+    assert list(out.iterdir()) == []
+    assert list(temp.iterdir()) == []

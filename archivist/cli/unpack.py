@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 import click
@@ -12,7 +13,11 @@ from .audit import limit_options, make_limits
 @click.command("unpack")
 @click.argument("archive", type=click.Path(path_type=Path))
 @click.argument("directory", metavar="DIR", type=click.Path(path_type=Path))
-@click.option("--force", is_flag=True, help="Replace DIR if it exists (only once the new project is complete).")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace DIR if an earlier unpack made it and it holds no changes (only once the new project is complete).",
+)
 @limit_options
 def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
     """Turn the archivist package ARCHIVE (folder or zip) into an editable project in DIR.
@@ -20,16 +25,24 @@ def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
     The package's checksums are verified first; a damaged package is refused.
     DIR gets the input files as the authors handed them in and their
     archivist.toml, with the version bumped (1.0.0 becomes 1.0.1-dev) and
-    map.derived_from naming the package.
+    map.derived_from naming the package. DIR also gets a small record of
+    what unpack wrote (.archivist-unpack.json); --force replaces only such a
+    folder, and only while it holds nothing else and no changed file.
 
-    Exit 0: unpacked. 2: could not (not a package, damaged, DIR exists without --force).
+    Exit 0: unpacked. 2: could not (not a package, damaged, DIR exists
+    without --force, or DIR holds other files, changes or the package).
     """
+    from ..package.staging import Interrupted
     from ..package.unpack import unpack
     from . import handle_errors
 
     @handle_errors
     def run():
-        result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
+        try:
+            result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
+        except (Interrupted, KeyboardInterrupt):
+            click.echo(f"archivist: unpack interrupted; {directory} was not written or changed", err=True)
+            sys.exit(130)
         click.echo(f"Unpacked {archive} into {result.path}: {len(result.files)} files "
                    f"({'the input files as handed in' if result.origin == 'source' else 'the package files'}).")
         click.echo(f"Version {result.previous_version} -> {result.version}; map.derived_from = \"{result.derived_from}\".")

@@ -22,29 +22,58 @@ SemVer pre-release tag ``dev`` marks a version being worked on; set the real
 number (``1.1.0``, ``2.0.0``...) before packing the new version. A version
 that does not end in a number gets ``-dev`` appended.
 
+Every dataset travels whole: a shapefile with its ``.shx``, ``.dbf``,
+``.prj``, ``.cpg`` and other parts, a File Geodatabase folder with all it
+holds, a metadata sidecar (``units.shp.xml``, ``map.gpkg.aux.xml``); which
+files belong together is decided by :func:`archivist.fileset.dataset_files`,
+the same function ``pack`` uses.
+
 Packing the unpacked project again without edits gives the same data files
 and the same check results; only the manifest (version, origin) and the
 metadata written from it differ.
+
+The mark of an unpacked folder
+------------------------------
+The new folder holds one more file, ``.archivist-unpack.json`` (:data:`MARKER`):
+which package it came from and the SHA-256 of every file unpack wrote. It
+sits in the project folder itself so that it moves with the folder; it is
+hidden (a leading dot), so role guessing never sees it, and ``check`` and
+``pack`` read only the files the manifest names, so it never ends up in a
+package. ``unpack --force`` replaces an existing folder only when that
+mark shows unpack made it and nothing was added or changed since (the
+mapper's edits are never lost); it never replaces a folder that holds the
+package being unpacked, nor the current folder or one that holds it.
+
+The folder is built in a hidden sibling (``.DIR.<pid>-<random>.part``) and
+renamed into place at the end; an error, Ctrl-C or SIGTERM removes the
+sibling and the private copy of the package in the temporary folder.
 """
 
 from __future__ import annotations
 
+import hashlib
+import json
 import os
 import re
-import shutil
-import tempfile
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from .._version import __version__
 from ..errors import ArchivistError
+from ..fileset import dataset_files
 from ..fsutil import guard_output
 from ..manifest import MANIFEST_NAME
+from ..tomltext import dump_toml, toml_value
 from .bagcheck import file_digest, verify_bag
 from .safe import Limits, open_archive
-from ..tomltext import dump_toml, toml_value
 from .source import is_bag
+from .staging import move_into_place, remove_leftovers, staging_dir, terminate_as_exception
+
+MARKER = ".archivist-unpack.json"
+"""The file in an unpacked folder that records what ``unpack`` wrote there (see the module docstring)."""
+MARKER_KIND = "archivist unpack record"
 
 _SEMVER = re.compile(r"^(\d+)\.(\d+)\.(\d+)(?:[-+].*)?$")
 _NUMERIC = re.compile(r"^(.*?)(\d+)([^\d]*)$")
@@ -65,7 +94,8 @@ class UnpackResult:
     origin
         ``"source"`` (the inputs as handed in) or ``"package"`` (the package's own files).
     files
-        The files written, relative to ``path``, sorted.
+        The project files written, relative to ``path``, sorted (the mark
+        :data:`MARKER` is written too, and not listed here).
     """
 
     path: Path
@@ -176,6 +206,115 @@ def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, s
     return stem, doi if isinstance(doi, str) else None
 
 
+def _copy_file(src: Path, dest: Path) -> str:
+    """Copy ``src`` to the new file ``dest`` (mode 0644); return the SHA-256 of the bytes copied (read once)."""
+    digest = hashlib.sha256()
+    with open(src, "rb") as fin, open(dest, "xb") as fout:
+        while chunk := fin.read(1 << 20):
+            digest.update(chunk)
+            fout.write(chunk)
+    os.chmod(dest, 0o644)
+    return digest.hexdigest()
+
+
+def _write_new(dest: Path, data: bytes) -> str:
+    dest.write_bytes(data)
+    os.chmod(dest, 0o644)
+    return hashlib.sha256(data).hexdigest()
+
+
+def _listing(folder: Path) -> tuple[dict[str, os.stat_result], list[str]]:
+    """(regular files under ``folder`` by relative path -> stat, entries that are links or special files)."""
+    files: dict[str, os.stat_result] = {}
+    odd: list[str] = []
+    for here, dirs, names in os.walk(folder, followlinks=False):
+        base = Path(here)
+        for name in sorted(dirs):
+            if (base / name).is_symlink():
+                odd.append((base / name).relative_to(folder).as_posix())
+        for name in sorted(names):
+            p = base / name
+            rel = p.relative_to(folder).as_posix()
+            st = p.lstat()
+            if p.is_symlink() or not p.is_file():
+                odd.append(rel)
+            else:
+                files[rel] = st
+    return files, sorted(odd)
+
+
+def _marker_files(target: Path) -> dict[str, str]:
+    """The files and SHA-256 that the mark of an unpacked folder records; ArchivistError when there is none."""
+    marker = target / MARKER
+    if not marker.is_file() or marker.is_symlink():
+        raise ArchivistError(
+            f"{target}: already exists and was not made by 'archivist unpack' (it has no {MARKER}); "
+            "unpack replaces only a folder it made, so choose a new folder"
+        )
+    try:
+        record = json.loads(marker.read_text(encoding="utf-8"))
+        files = record["files"] if isinstance(record, dict) and record.get("kind") == MARKER_KIND else None
+        if not isinstance(files, dict) or not all(
+            isinstance(k, str) and isinstance(v, str) and re.fullmatch(r"[0-9a-f]{64}", v) for k, v in files.items()
+        ):
+            raise ValueError("not the record unpack writes")
+    except (OSError, UnicodeDecodeError, ValueError, KeyError) as exc:
+        raise ArchivistError(f"{marker}: cannot be read as the record of 'archivist unpack' ({exc}); the folder is left alone, choose a new one") from None
+    return files
+
+
+def replaceable(target: Path, package: Path) -> dict[str, tuple[int, int]]:
+    """Check that the existing folder ``target`` may be replaced by a new unpack of ``package``.
+
+    It may when it is a folder that ``unpack`` made (its :data:`MARKER` is
+    there), holds no file that unpack did not write and no file whose
+    content differs from what unpack wrote, is not and does not hold
+    ``package``, and is not the current folder or one that holds it.
+
+    Returns the size and modification time (ns) of each file, to see just
+    before the swap that nothing changed meanwhile.
+
+    Raises
+    ------
+    ArchivistError
+        One line naming the folder (or the file in it) and why it stays.
+    """
+    target = Path(target)
+    if target.is_symlink():
+        raise ArchivistError(f"{target}: is a link; unpack writes a new folder, choose one that does not exist")
+    if not target.is_dir():
+        raise ArchivistError(f"{target}: exists and is not a folder")
+    resolved = target.resolve()
+    pkg = Path(package).resolve()
+    if pkg == resolved or resolved in pkg.parents:
+        raise ArchivistError(f"{target}: holds the package {package} being unpacked; unpack never replaces it, choose a new folder")
+    cwd = Path.cwd().resolve()
+    if resolved == cwd or resolved in cwd.parents:
+        raise ArchivistError(f"{target}: is the current folder or holds it; unpack never replaces it, choose a new folder")
+    recorded = _marker_files(target)
+    files, odd = _listing(target)
+    extra = odd + sorted(rel for rel in files if rel != MARKER and rel not in recorded)
+    if extra:
+        more = f" (and {len(extra) - 1} more)" if len(extra) > 1 else ""
+        raise ArchivistError(
+            f"{target}: holds '{extra[0]}'{more}, which 'archivist unpack' did not write; replacing the folder would lose it, so it is left alone"
+        )
+    for rel in sorted(files):
+        if rel != MARKER and file_digest(target / rel, "sha256") != recorded[rel]:
+            raise ArchivistError(
+                f"{target}: '{rel}' was changed after 'archivist unpack' wrote it; replacing the folder would lose the change, so it is left alone"
+            )
+    return {rel: (st.st_size, st.st_mtime_ns) for rel, st in files.items()}
+
+
+def _still_same(target: Path, before: dict[str, tuple[int, int]]) -> None:
+    files, odd = _listing(target)
+    now = {rel: (st.st_size, st.st_mtime_ns) for rel, st in files.items()}
+    if odd or now != before:
+        changed = sorted(set(now) ^ set(before) | {r for r in now.keys() & before.keys() if now[r] != before[r]} | set(odd))
+        raise ArchivistError(f"{target}: '{changed[0]}' changed while unpacking; the folder is left alone and nothing was written")
+
+
 def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, limits: Limits | None = None) -> UnpackResult:
     """Turn an archivist package (folder or zip) into an editable project at ``out_dir``.
 
@@ -186,7 +325,9 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
     out_dir
         The new project folder; it must not exist unless ``force``.
     force
-        Replace an existing ``out_dir`` (only once the new project is complete).
+        Replace an existing ``out_dir`` that an earlier ``unpack`` made and
+        that holds no changes (:func:`replaceable`); only once the new
+        project is complete.
     limits
         Caps for opening the archive (:class:`~archivist.package.safe.Limits`).
 
@@ -195,7 +336,10 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
     ArchivistError
         The archive cannot be opened safely, is not an archivist package, is
         damaged (a checksum differs, a file is missing or unlisted), or
-        ``out_dir`` exists without ``force`` or lies inside the archive.
+        ``out_dir`` exists (without ``force``, or ``force`` may not replace
+        it) or lies inside the archive.
+    staging.Interrupted
+        SIGTERM arrived; nothing was written and the temporary copies are gone.
 
     Examples
     --------
@@ -207,9 +351,29 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
     target = Path(out_dir)
     if not source.exists():
         raise ArchivistError(f"{source}: no such file or folder")
-    guard_output(target, force=force, project_root=source if source.is_dir() else None)
-    if target.exists() and not target.is_dir():
-        raise ArchivistError(f"{target}: exists and is not a folder")
+    guard_output(target, force=True, project_root=source if source.is_dir() else None)
+    before = None
+    if target.exists() or target.is_symlink():
+        before = replaceable(target, source)
+        if not force:
+            raise ArchivistError(f"{target}: already exists (made by an earlier 'archivist unpack', unchanged); use --force to replace it")
+    final = Path(os.path.abspath(target))
+    with terminate_as_exception():
+        remove_leftovers(final.parent, {final.name})
+        with staging_dir(final) as tmp:
+            written, version, previous, derived, origin = _unpack_into(source, tmp, limits)
+            os.chmod(tmp, 0o755)
+            if before is not None:
+                _still_same(target, before)
+            move_into_place(tmp, final)
+    return UnpackResult(path=target, version=version, previous_version=previous, derived_from=derived, origin=origin, files=written)
+
+
+def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[str, ...], str, str, str, str]:
+    """Write the project from the package ``source`` into the empty folder ``tmp``, with its mark.
+
+    Returns (files written, version, previous version, derived_from, origin).
+    """
     with open_archive(source, limits) as arc:
         root = arc.content_root()
         label = arc.label
@@ -233,16 +397,16 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
                 src_text = (src / MANIFEST_NAME).read_text(encoding="utf-8-sig")
                 src_data = tomllib.loads(src_text)
                 paths = _manifest_paths(src_data)
-                if paths and all((p := _inside(src, rel)) is not None and p.is_file() for rel in paths):
+                if paths and all((p := _inside(src, rel)) is not None and p.exists() for rel in paths):
                     origin, base, text = "source", src, src_text
             except (tomllib.TOMLDecodeError, UnicodeDecodeError):
                 pass
         manifest = tomllib.loads(text)
-        files = sorted(set(_manifest_paths(manifest)))
-        for rel in files:
+        named = sorted(set(_manifest_paths(manifest)))
+        for rel in named:
             if _inside(base, rel) is None:
                 raise ArchivistError(f"{label}: {MANIFEST_NAME} names '{rel}', which leads outside the package; refusing it")
-            if not (base / rel).is_file():
+            if not (base / rel).exists():
                 raise ArchivistError(f"{label}: {MANIFEST_NAME} names '{rel}', which is not in the package")
         previous = str(manifest.get("map", {}).get("version", "")).strip() or "0.0.0"
         version = bump_version(previous)
@@ -250,28 +414,18 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         digest = file_digest(root / "manifest-sha256.txt", "sha256") if (root / "manifest-sha256.txt").is_file() else None
         derived = stem + (f"; bag manifest sha256:{digest}" if digest else "") + (f"; https://doi.org/{doi}" if doi else "")
         new_text = edit_map_keys(text, {"version": version, "derived_from": derived, "doi": None})
-        # build the project beside its final place, move it in only when whole
-        target_parent = target.resolve().parent
-        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target_parent))
-        try:
-            for rel in files:
-                dest = tmp / rel
+
+        # every file of every dataset the manifest names (a shapefile's parts, a .gdb folder's files)
+        written: dict[str, str] = {}
+        for rel in named:
+            for part in dataset_files(base / rel):
+                part_rel = part.relative_to(base).as_posix()
+                if part_rel in written or part_rel in (MANIFEST_NAME, MARKER):
+                    continue
+                dest = tmp / part_rel
                 dest.parent.mkdir(parents=True, exist_ok=True)
-                shutil.copyfile(base / rel, dest)
-                os.chmod(dest, 0o644)
-            (tmp / MANIFEST_NAME).write_text(new_text, encoding="utf-8", newline="\n")
-            os.chmod(tmp / MANIFEST_NAME, 0o644)
-            os.chmod(tmp, 0o755)
-            written = tuple(sorted([MANIFEST_NAME, *files]))
-            if target.exists():
-                old = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".old", dir=target_parent))
-                os.rmdir(old)
-                os.replace(target, old)
-                os.replace(tmp, target)
-                shutil.rmtree(old, ignore_errors=True)
-            else:
-                os.replace(tmp, target)
-        finally:
-            if tmp.exists():
-                shutil.rmtree(tmp, ignore_errors=True)
-    return UnpackResult(path=target, version=version, previous_version=previous, derived_from=derived, origin=origin, files=written)
+                written[part_rel] = _copy_file(part, dest)
+        written[MANIFEST_NAME] = _write_new(tmp / MANIFEST_NAME, new_text.encode("utf-8"))
+    record = {"kind": MARKER_KIND, "archivist": __version__, "package": derived, "files": dict(sorted(written.items()))}
+    _write_new(tmp / MARKER, (json.dumps(record, indent=2, ensure_ascii=False) + "\n").encode("utf-8"))
+    return tuple(sorted(written)), version, previous, derived, origin
