@@ -255,16 +255,8 @@ def test_unpack_keeps_parts_of_any_case_and_metadata_sidecars(tmp_path):
 
 
 def test_unpack_brings_back_a_file_geodatabase_folder_whole(tmp_path, monkeypatch):
-    import pyogrio
-
     monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
-    from builders import edit_manifest, two_units, two_units_lines
-
-    src = tiny_project(tmp_path, name="gdb")
-    pyogrio.write_dataframe(two_units(), src / "map.gdb", layer="units", driver="OpenFileGDB")
-    pyogrio.write_dataframe(two_units_lines(), src / "map.gdb", layer="lines", driver="OpenFileGDB")
-    (src / "map.gpkg").unlink()
-    edit_manifest(src, lambda m: [m["layers"][r].update(path="map.gdb") for r in ("units", "lines")])
+    src = gdb_project(tmp_path)
     inside = sorted(p.relative_to(src).as_posix() for p in (src / "map.gdb").rglob("*") if p.is_file())
     assert len(inside) > 5  # a File Geodatabase is a folder of many files (GDAL OpenFileGDB driver)
     (tmp_path / "out").mkdir()
@@ -275,6 +267,37 @@ def test_unpack_brings_back_a_file_geodatabase_folder_whole(tmp_path, monkeypatc
     for rel in inside:
         assert (tmp_path / "work" / rel).read_bytes() == (src / rel).read_bytes()
     assert [f.to_dict() for f in archivist.check(tmp_path / "work").findings] == [f.to_dict() for f in archivist.check(src).findings]
+
+
+def gdb_project(tmp_path: Path) -> Path:
+    """The tiny project with its units and lines in a File Geodatabase folder (GDAL's OpenFileGDB driver)."""
+    import pyogrio
+
+    from builders import edit_manifest, two_units, two_units_lines
+
+    src = tiny_project(tmp_path, name="gdb")
+    pyogrio.write_dataframe(two_units(), src / "map.gdb", layer="units", driver="OpenFileGDB")
+    pyogrio.write_dataframe(two_units_lines(), src / "map.gdb", layer="lines", driver="OpenFileGDB")
+    (src / "map.gpkg").unlink()
+    edit_manifest(src, lambda m: [m["layers"][r].update(path="map.gdb") for r in ("units", "lines")])
+    return src
+
+
+def test_audit_reads_multi_file_datasets_whole(tmp_path):
+    """A shapefile's parts (any case) are read with it; a package's inputs as handed in are not taken for its data."""
+    src = shapefile_project(tmp_path)
+    (src / "units.shx").rename(src / "units.SHX")
+    (src / "units.prj").rename(src / "units.PRJ")
+    (src / "units.shp.xml").write_text("<metadata/>\n")
+    bare = archivist.audit(src)  # a plain archive: the CRS of each shapefile comes from its .prj
+    rules = {f.rule for f in bare.findings}
+    assert bare.summary.errors == 0 and "archive-crs-undeclared" not in rules and "layer-unreadable" not in rules
+    for i, project in enumerate((src, gdb_project(tmp_path))):
+        (tmp_path / f"out{i}").mkdir()
+        packed = archivist.pack(project, tmp_path / f"out{i}")
+        report = archivist.audit(packed.path)
+        assert report.summary.errors == 0, [f.message for f in report.findings]
+        assert not [f.message for f in report.findings if "source/" in f.message]  # e.g. data/source/map.gdb/ called a closed format
 
 
 # ---------------------------------------------------------------- --force replaces only what unpack made

@@ -600,7 +600,8 @@ def _gather_layers(facts: ArchiveFacts, opened: OpenedMap) -> None:
     for rel in facts.members:
         path = root / rel
         suffix = path.suffix.lower()
-        if suffix in CLOSED_FORMATS:
+        as_handed_in = facts.is_package and rel.startswith("data/source/")  # beside the package's open copies
+        if suffix in CLOSED_FORMATS and not as_handed_in:
             facts.closed_files.append((rel, CLOSED_FORMATS[suffix]))
         if facts.is_package and rel != "data/map.gpkg":
             continue  # the GeoJSON copies are WGS 84 by RFC 7946; source/ holds the inputs as handed in
@@ -632,7 +633,8 @@ def _gather_layers(facts: ArchiveFacts, opened: OpenedMap) -> None:
                 except pyproj.exceptions.CRSError:
                     text = str(crs)
             facts.layer_crs.append((label, text, crs or None))
-    gdb = sorted({rel.split(".gdb/")[0] + ".gdb" for rel in facts.members if ".gdb/" in rel.lower()})
+    gdb = sorted({m.group(1) for rel in facts.members if (m := re.match(r"(?i)^(.*?\.gdb)/", rel))
+                  and not (facts.is_package and rel.startswith("data/source/"))})
     for g in gdb:
         facts.closed_files.append((g + "/", CLOSED_FORMATS[".gdb"]))
     crs_wkt = root / "data" / "metadata" / "crs.wkt"
