@@ -430,7 +430,8 @@ main()
 """
 
 
-def test_sigterm_mid_copy_leaves_no_staging_folder_and_no_private_copy(tmp_path):
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT], ids=["SIGTERM", "Ctrl-C"])
+def test_a_stop_mid_copy_leaves_no_staging_folder_and_no_private_copy(tmp_path, signum):
     archive = package_zip(tmp_path / "pkgs", "tiny")
     temp = tmp_path / "tmp"
     temp.mkdir()
@@ -450,7 +451,7 @@ def test_sigterm_mid_copy_leaves_no_staging_folder_and_no_private_copy(tmp_path)
         # mid-copy: the staging folder and the private copy of the archive exist
         assert [p.name for p in out.iterdir() if p.name.endswith(".part")]
         assert [p.name for p in temp.iterdir() if p.name.startswith("archivist-archive-")]
-        proc.send_signal(signal.SIGTERM)
+        proc.send_signal(signum)
         stdout, stderr = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
@@ -459,3 +460,14 @@ def test_sigterm_mid_copy_leaves_no_staging_folder_and_no_private_copy(tmp_path)
     assert "Traceback" not in stdout + stderr and "interrupted" in stderr
     assert list(out.iterdir()) == []
     assert list(temp.iterdir()) == []
+
+
+def test_leftovers_of_a_killed_unpack_are_removed_by_the_next(tmp_path):
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    leftover = tmp_path / f".work.{int(dead.stdout)}-0123abcd.part"  # what a run killed outright (SIGKILL) leaves
+    leftover.mkdir()
+    (leftover / "map.gpkg").write_bytes(b"half")
+    other = tmp_path / f".other.{int(dead.stdout)}-0123abcd.part"  # not this folder's: left alone
+    other.mkdir()
+    assert run("unpack", package(tmp_path / "pkgs"), tmp_path / "work").exit_code == 0
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([other.name, "pkgs", "work"])

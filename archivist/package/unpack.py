@@ -69,7 +69,7 @@ from ..tomltext import dump_toml, toml_value
 from .bagcheck import file_digest, verify_bag
 from .safe import Limits, open_archive
 from .source import is_bag
-from .staging import move_into_place, remove_leftovers, staging_dir, terminate_as_exception
+from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, terminate_as_exception
 
 MARKER = ".archivist-unpack.json"
 """The file in an unpacked folder that records what ``unpack`` wrote there (see the module docstring)."""
@@ -338,8 +338,10 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         damaged (a checksum differs, a file is missing or unlisted), or
         ``out_dir`` exists (without ``force``, or ``force`` may not replace
         it) or lies inside the archive.
-    staging.Interrupted
-        SIGTERM arrived; nothing was written and the temporary copies are gone.
+    staging.Interrupted, KeyboardInterrupt
+        SIGTERM or Ctrl-C arrived before the new folder was in place; nothing
+        was written and the temporary copies are gone. (One arriving after
+        it is in place is ignored: the work is done.)
 
     Examples
     --------
@@ -358,14 +360,20 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         if not force:
             raise ArchivistError(f"{target}: already exists (made by an earlier 'archivist unpack', unchanged); use --force to replace it")
     final = Path(os.path.abspath(target))
-    with terminate_as_exception():
-        remove_leftovers(final.parent, {final.name})
-        with staging_dir(final) as tmp:
-            written, version, previous, derived, origin = _unpack_into(source, tmp, limits)
-            os.chmod(tmp, 0o755)
-            if before is not None:
-                _still_same(target, before)
-            move_into_place(tmp, final)
+    placed = False
+    try:
+        with terminate_as_exception():
+            remove_leftovers(final.parent, {final.name})
+            with staging_dir(final) as tmp:
+                written, version, previous, derived, origin = _unpack_into(source, tmp, limits)
+                os.chmod(tmp, 0o755)
+                if before is not None:
+                    _still_same(target, before)
+                move_into_place(tmp, final)
+                placed = True
+    except (Interrupted, KeyboardInterrupt):
+        if not placed:
+            raise  # nothing was written: the staging folder and the private copy are gone
     return UnpackResult(path=target, version=version, previous_version=previous, derived_from=derived, origin=origin, files=written)
 
 
