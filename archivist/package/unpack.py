@@ -185,8 +185,6 @@ def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
 
 def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, str | None]:
     """(name-version of the package, its DOI or None)."""
-    import json
-
     stem = root.name
     info = root / "bag-info.txt"
     if info.is_file():
