@@ -37,7 +37,7 @@ import pyproj
 
 from .. import engine
 from ..errors import ArchivistError
-from ..manifest import MANIFEST_NAME
+from ..manifest import MANIFEST_NAME, read_manifest
 from ..model import Report
 from ..project import MapProject, load_project
 from ..progress import Progress
@@ -45,7 +45,7 @@ from ..report.html import render_html
 from . import datacite as dc
 from . import datapackage as dp
 from .bagwrite import Hashes, write_bag
-from .deposit import Deposit, read_deposit, relative_source
+from .deposit import Deposit, SourceNames, read_deposit, source_names
 from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
 from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, write_geojson, write_geopackage
 from .packmanifest import dump_toml, packaged_manifest
@@ -121,7 +121,8 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     """(file, path relative to the project, roles) of every input: the manifest and the files it names.
 
     A shapefile comes with its side files; a folder format (File Geodatabase)
-    with every file inside it.
+    with every file inside it. Names are distinct and relative (see
+    :func:`~archivist.package.deposit.source_names`).
     """
     roles: dict[Path, list[str]] = {}
     if project.manifest_path is not None:
@@ -130,21 +131,22 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
         roles.setdefault(layer.path.resolve(), []).append(role)
     for role, table in project.tables.items():
         roles.setdefault(table.path.resolve(), []).append(role)
+    names = source_names(project, roles)
     out: dict[Path, tuple[str, str]] = {}
     for path, rs in roles.items():
         label = ", ".join(rs)
         if path.is_dir():
             for p in sorted(path.rglob("*")):
                 if p.is_file():
-                    out[p] = (relative_source(project, p), label)
+                    out[p] = (names.name(p), label)
             continue
-        out[path] = (relative_source(project, path), label)
+        out[path] = (names.name(path), label)
         if path.suffix.lower() == ".shp":
             stem = path.name[: -len(path.suffix)].lower()
             for sib in sorted(path.parent.iterdir()):
                 low = sib.name.lower()
                 if sib.is_file() and sib != path and any(low == stem + part for part in SHAPEFILE_PARTS):
-                    out[sib.resolve()] = (relative_source(project, sib), label)
+                    out[sib.resolve()] = (names.name(sib), label)
     return sorted(((p, rel, label) for p, (rel, label) in out.items()), key=lambda t: t[1])
 
 
@@ -156,6 +158,74 @@ def stored_name(rel: str) -> str:
     stays in the resource title and the provenance.
     """
     return re.sub(r"[%\r\n]", "_", rel)
+
+
+def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
+    """(path as the manifest wrote it, the file or folder it names) for every layer and table of the manifest."""
+    out = []
+    for group in ("layers", "tables"):
+        for spec in (project.manifest.get(group) or {}).values():
+            if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+                written = spec["path"]
+                path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+                out.append((written, path))
+    return out
+
+
+def input_names(project: MapProject) -> SourceNames:
+    """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
+    paths = [p for _, p in _manifest_paths(project)] + [x.path for x in (*project.layers.values(), *project.tables.values())]
+    if project.manifest_path is not None:
+        paths.append(project.manifest_path)
+    return source_names(project, paths)
+
+
+def shareable_text(project: MapProject, names: SourceNames):
+    """A function that replaces every absolute path of the packing machine in a text by its name in the package.
+
+    Absolute paths written in the manifest become the input's name under
+    ``source/``; the project folder becomes its own name.
+    """
+    pairs: dict[str, str] = {}
+    for written, path in _manifest_paths(project):
+        if Path(written).is_absolute():
+            pairs[written] = names.name(path)
+    for root in (str(project.root.resolve()), str(project.root.absolute()), str(project.root)):
+        if Path(root).is_absolute():
+            pairs.setdefault(root, project.root.name)
+    keys = sorted(pairs, key=len, reverse=True)
+
+    def scrub(text: str) -> str:
+        for key in keys:
+            text = text.replace(key, pairs[key])
+        return text
+
+    return scrub
+
+
+def source_manifest(project: MapProject, names: SourceNames) -> tuple[str, str] | None:
+    """(text, why) of the manifest copy for ``source/`` when the manifest names files by absolute paths or
+    outside the project folder: the same manifest with those paths pointing at their copies in ``source/``.
+    None when the manifest can be stored byte for byte."""
+    if project.manifest_path is None:
+        return None
+    raw = read_manifest(project.manifest_path)
+    changed = []
+    for group in ("layers", "tables"):
+        for role, spec in (raw.get(group) or {}).items():
+            if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
+                continue
+            written = spec["path"]
+            path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+            inside = path == project.root.resolve() or project.root.resolve() in path.parents
+            if Path(written).is_absolute() or not inside:
+                spec["path"] = names.name(path)
+                changed.append(f"{group}.{role}.path")
+    if not changed:
+        return None
+    why = f"{', '.join(changed)} rewritten to the copies in source/ (the project named them outside its folder)"
+    header = f"Written by archivist pack: the project's {MANIFEST_NAME} with {why}."
+    return dump_toml(raw, header=header), why
 
 
 def _transform_bbox(bbox: tuple[float, float, float, float], crs: pyproj.CRS) -> tuple[float, float, float, float]:
@@ -177,12 +247,13 @@ def _map_bbox(layers: list[PreparedLayer]) -> tuple[float, float, float, float] 
     return (min(b[0] for b in boxes), min(b[1] for b in boxes), max(b[2] for b in boxes), max(b[3] for b in boxes))
 
 
-def _shareable(report: Report, project: MapProject) -> Report:
+def _shareable(report: Report, project: MapProject, scrub=None) -> Report:
     """The report as packed: the project named by its manifest, no absolute paths of the packing machine."""
-    root = str(project.root)
+    scrub = scrub or shareable_text(project, input_names(project))
     name = project.manifest_path.name if project.manifest_path else project.root.name
-    notes = tuple(n.replace(str(project.root.resolve()), project.root.name).replace(root, project.root.name) for n in report.notes)
-    return dataclasses.replace(report, project=name, notes=notes)
+    notes = tuple(scrub(n) for n in report.notes)
+    findings = tuple(dataclasses.replace(f, message=scrub(f.message)) for f in report.findings)
+    return dataclasses.replace(report, project=name, notes=notes, findings=findings)
 
 
 def pack(
@@ -310,7 +381,12 @@ def _write_payload(
 
     # The map: one GeoPackage in the map CRS (written by GDAL in a second thread while the
     # rest is built here), GeoJSON per layer in WGS 84, tables as CSV, the inputs as handed in.
+    names = input_names(project)
+    scrub = shareable_text(project, names)
     layers = prepare_layers(project)
+    for pl in layers:
+        pl.source = scrub(pl.source)
+        pl.note = scrub(pl.note) if pl.note else pl.note
     notes = [pl.note for pl in layers if pl.note]
     with ThreadPoolExecutor(max_workers=1) as pool:
         gpkg_job = pool.submit(write_geopackage, layers, data / "map.gpkg", deposit.created)
@@ -334,14 +410,21 @@ def _write_payload(
         table_paths = {}
         for table in tables:
             rel = f"tables/{table.name}.csv"
+            table.description = scrub(table.description)
             write_csv(table, data / rel)
             table_paths[table.name] = rel
             resources.append(dp.ResourceInfo(rel, table.name, table.title, table.description, schema=table.schema()))
 
         inputs = input_files(project)
+        own_manifest = source_manifest(project, names)
+        rewritten: dict[str, str] = {}
         for src, rel, _ in inputs:
             dest = data / "source" / stored_name(rel)
             dest.parent.mkdir(parents=True, exist_ok=True)
+            if own_manifest is not None and src == project.manifest_path.resolve():
+                write_text(dest, own_manifest[0])
+                rewritten[rel] = own_manifest[1]
+                continue
             shutil.copyfile(src, dest)
         gpkg_job.result()
 
@@ -359,7 +442,7 @@ def _write_payload(
     (data / "metadata").mkdir()
     write_text(data / "metadata" / "crs.wkt", deposit.crs.to_wkt(pyproj.enums.WktVersion.WKT2_2019, pretty=True) + "\n")
     resources.append(dp.ResourceInfo("metadata/crs.wkt", "crs-wkt", "Map CRS (WKT2)", f"{deposit.crs_label} as WKT2 (ISO 19162:2019)."))
-    shared = _shareable(report, project)
+    shared = _shareable(report, project, scrub)
     write_text(data / REPORT_PATH, _report_json(shared))
     resources.append(dp.ResourceInfo(REPORT_PATH, "validation-report", "Check report", "The archivist check report the package was made with (schema: report.schema.json)."))
     write_text(data / HTML_REPORT_PATH, render_html(shared, project))
@@ -380,7 +463,7 @@ def _write_payload(
         source_facts.append(FileFact(rel, digest, size, label))
         resources.append(dp.ResourceInfo(
             f"source/{stored_name(rel)}", _resource_name(f"source-{rel}", resources), f"{rel} (as handed in)",
-            f"Input file ({label}), byte for byte as it was in the project.",
+            f"Input file ({label}), {rewritten[rel]}." if rel in rewritten else f"Input file ({label}), byte for byte as it was in the project.",
         ))
     output_facts = []
     for info in resources:
@@ -401,7 +484,7 @@ def _write_payload(
         + f". Checked with archivist {report.version}: {report.summary.errors} errors, {report.summary.warnings} warnings, "
         f"{report.summary.notices} notices from {len(report.rules_run)} rules."
     )
-    open_errors = open_error_lines(report)
+    open_errors = open_error_lines(shared)
     record = dc.datacite_record(
         deposit,
         bbox_wgs84=bbox_wgs84,
@@ -419,7 +502,7 @@ def _write_payload(
         data / "README.md",
         readme_text(
             deposit,
-            report,
+            shared,
             [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source) for pl in layers],
             legend_rows(legend.frame if legend else None, legend.spec.get("unit_field") if legend else None),
             [(t.name, t.title, len(t.frame)) for t in tables],
@@ -449,7 +532,7 @@ def _write_payload(
             descriptors,
             sources=[{"title": f"{f.path} ({f.role})", "path": f"source/{stored_name(f.path)}"} for f in source_facts],
             spatial=spatial,
-            validation=dp.validation_summary(report, REPORT_PATH),
+            validation=dp.validation_summary(shared, REPORT_PATH),
         ),
     )
 
