@@ -765,3 +765,95 @@ def test_audit_of_a_package_with_outside_inputs_is_clean(tmp_path, monkeypatch):
     result = pack(outside_inputs(tmp_path), tmp_path / "out")
     report = archivist.audit(result.path)
     assert [f for f in report.findings if f.family == "archive"] == [], [f.message for f in report.findings]
+
+
+# ---------------------------------------------------------------- interruption and concurrent packs tell the truth
+
+def test_ctrl_c_after_the_move_names_the_whole_package(tmp_path, monkeypatch):
+    pack_module = importlib.import_module("archivist.package.pack")
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+    real = pack_module.move_into_place
+
+    def move_then_interrupt(tmp, target):
+        real(tmp, target)
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(pack_module, "move_into_place", move_then_interrupt)
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert result.exit_code == 130
+    assert "no package was written" not in result.stderr
+    assert str(out / "tiny-test-map-1.0.0") in result.stderr and "whole" in result.stderr
+    assert bagit.Bag(str(out / "tiny-test-map-1.0.0")).is_valid()  # the bagit library agrees
+
+
+def test_ctrl_c_before_the_move_leaves_nothing(tmp_path, monkeypatch):
+    pack_module = importlib.import_module("archivist.package.pack")
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+
+    def interrupt(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(pack_module, "write_bag", interrupt)
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert result.exit_code == 130 and "no package was written" in result.stderr
+    assert list(out.iterdir()) == []
+
+
+HELD_PACK = """
+import sys, time
+from pathlib import Path
+import importlib
+pack_module = importlib.import_module("archivist.package.pack")
+from archivist.cli import main
+
+ready, go = Path(sys.argv[1]), Path(sys.argv[2])
+real = pack_module.move_into_place
+
+def held(tmp, target):
+    ready.touch()
+    for _ in range(6000):  # at most 60 s, in case the test process died
+        if go.exists():
+            break
+        time.sleep(0.01)
+    real(tmp, target)
+
+pack_module.move_into_place = held
+sys.argv = ["archivist", "pack", sys.argv[3], "--out", sys.argv[4]] + sys.argv[5:]
+main()
+"""
+
+
+@pytest.mark.parametrize("force", [False, True])
+def test_a_second_pack_into_a_busy_folder_is_refused(force, tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+    ready, go = tmp_path / "ready", tmp_path / "go"
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(Path(archivist.__file__).parent.parent), os.environ.get("PYTHONPATH", "")]))
+    first = subprocess.Popen(
+        [sys.executable, "-c", HELD_PACK, str(ready), str(go), str(root), str(out)] + (["--force"] if force else []),
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        for _ in range(12000):  # wait until the first pack holds the folder (no timing is asserted)
+            if ready.exists() or first.poll() is not None:
+                break
+            time.sleep(0.01)
+        assert ready.exists(), first.communicate()
+        second = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)] + (["--force"] if force else []))
+        assert second.exit_code == 2, second.output
+        assert "another archivist pack is writing" in second.stderr and "Traceback" not in second.output
+    finally:
+        go.touch()
+        stdout, stderr = first.communicate(timeout=120)
+    assert first.returncode == 0, stderr
+    assert bagit.Bag(str(out / "tiny-test-map-1.0.0")).is_valid()
+    # once the first is done, a pack without --force refuses the existing package as before
+    third = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert third.exit_code == 2 and "already exists" in third.stderr

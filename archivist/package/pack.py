@@ -28,10 +28,10 @@ import re
 import datetime as dt
 import shutil
 from concurrent.futures import ThreadPoolExecutor
-from contextlib import ExitStack
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 import pyproj
 
@@ -51,7 +51,7 @@ from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, wri
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
-from .staging import move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
+from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
 from .tables import write_csv
 
 REPORT_PATH = "metadata/validation-report.json"
@@ -256,6 +256,38 @@ def _shareable(report: Report, project: MapProject, scrub=None) -> Report:
     return dataclasses.replace(report, project=name, notes=notes, findings=findings)
 
 
+class PackBusy(ArchivistError):
+    """Another pack is writing into the same output folder."""
+
+
+@contextmanager
+def output_lock(out_dir: Path) -> Iterator[None]:
+    """Hold an exclusive lock on the folder ``out_dir`` while a package is written into it.
+
+    The lock is ``flock`` on the folder itself (no lock file is left behind);
+    the kernel releases it when the process ends, however it ends. A second
+    pack into the same folder is refused at once, ``--force`` or not.
+    Where ``fcntl`` is not available (Windows) no lock is taken.
+    """
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX
+        yield
+        return
+    fd = os.open(out_dir, os.O_RDONLY)
+    try:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise PackBusy(f"{out_dir}: another archivist pack is writing into this folder; wait for it to finish") from None
+        try:
+            yield
+        finally:
+            fcntl.flock(fd, fcntl.LOCK_UN)
+    finally:
+        os.close(fd)
+
+
 def pack(
     project_or_path: MapProject | str | Path,
     out_dir: str | Path,
@@ -332,24 +364,39 @@ def pack(
             "(see the metadata findings of 'archivist check')"
         )
     out_dir.mkdir(parents=True, exist_ok=True)
-    remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
-    with terminate_as_exception(), ExitStack() as stack:
-        bag = stack.enter_context(staging_dir(target))
-        zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
-        hashes = Hashes()
-        with progress.step("writing the package"):
-            _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
-            write_bag(bag, deposit, hashes, open_errors=errors)
-        fix_modes(bag)
-        files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
-        size = sum((bag / f).stat().st_size for f in files)
-        if zip_tmp is not None:
-            with progress.step("zipping the package"):
-                zip_tree(bag, zip_tmp, deposit.stem, fixed)
-            zip_tmp.chmod(0o644)
-        move_into_place(bag, target)
-        if zip_tmp is not None:
-            move_into_place(zip_tmp, zip_target)
+    placed: list[Path] = []
+    try:
+        with terminate_as_exception(), ExitStack() as stack:
+            stack.enter_context(output_lock(out_dir))
+            _guard(project, out_dir, [target] + ([zip_target] if zip_target else []), force)  # again, now that no other pack writes here
+            remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
+            bag = stack.enter_context(staging_dir(target))
+            zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
+            hashes = Hashes()
+            with progress.step("writing the package"):
+                _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
+                write_bag(bag, deposit, hashes, open_errors=errors)
+            fix_modes(bag)
+            files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
+            size = sum((bag / f).stat().st_size for f in files)
+            if zip_tmp is not None:
+                with progress.step("zipping the package"):
+                    zip_tree(bag, zip_tmp, deposit.stem, fixed)
+                zip_tmp.chmod(0o644)
+            try:
+                move_into_place(bag, target)
+            finally:  # even when interrupted inside the move: the staging folder gone means the package is in place
+                if not bag.exists() and target.is_dir():
+                    placed.append(target)
+            if zip_tmp is not None:
+                try:
+                    move_into_place(zip_tmp, zip_target)
+                finally:
+                    if not zip_tmp.exists() and zip_target.is_file():
+                        placed.append(zip_target)
+    except (KeyboardInterrupt, Interrupted) as exc:
+        exc.placed = tuple(placed)  # what is whole in place: the CLI tells the truth about it
+        raise
     return PackResult(
         path=target,
         zip_path=zip_target,
