@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .errors import ArchivistError
 from .model import Hit
 
 VECTOR_SUFFIXES = {".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gdb", ".gml", ".kml", ".sqlite"}
@@ -33,10 +34,17 @@ class TableData:
     sheet: str | None
     header_row: int  # 1-based row number of the header in the file or sheet
     letters: dict[str, str]  # column name -> spreadsheet column letter (XLSX only)
+    lines: tuple[int, ...] = ()  # 1-based row in the file of each data row, where blank rows were skipped
+
+    def line(self, row: int) -> int:
+        """The 1-based row in the file or sheet of data row ``row`` (0-based)."""
+        if 0 <= row < len(self.lines):
+            return self.lines[row]
+        return self.header_row + 1 + row
 
     def cell(self, row: int, column: str) -> str:
         """Where the cell of data row ``row`` (0-based) and ``column`` lives, as a mapper would name it."""
-        line = self.header_row + 1 + row
+        line = self.line(row)
         if self.sheet is not None:
             return f"{self.file}, sheet '{self.sheet}', cell {self.letters.get(column, '?')}{line}"
         return f"{self.file}, row {line}, column '{column}'"
@@ -84,7 +92,17 @@ def decode_utf8(raw: bytes, name: str) -> tuple[str | None, Hit | None]:
 
 
 def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
-    raw = path.read_bytes()
+    """Read a CSV/TSV as text cells; the delimiter is sniffed (``,``, ``;`` or tab).
+
+    Raises
+    ------
+    ArchivistError
+        The file cannot be read (a folder, no permission).
+    """
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise _os_error(name, exc) from None
     text, hit = decode_utf8(raw, name)
     if hit is not None:
         return None, [hit]
@@ -106,14 +124,102 @@ def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
     return TableData(frame, name, None, 1, {}), []
 
 
-def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | None, list[Hit]]:
-    import openpyxl
-    from openpyxl.utils import get_column_letter
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split()) or type(exc).__name__
+
+
+def _os_error(name: str, exc: OSError) -> ArchivistError:
+    """One line for a table file the system will not let us read (a folder, no permission...)."""
+    if isinstance(exc, IsADirectoryError):
+        return ArchivistError(f"{name}: is a folder, not a table file; point the manifest at the file itself")
+    return ArchivistError(f"{name}: cannot be read: {exc.strerror or _one_line(exc)}")
+
+
+def _defused(exc: BaseException) -> BaseException | None:
+    """The defusedxml refusal behind ``exc`` (openpyxl wraps it in a ValueError), if there is one."""
+    from defusedxml import DefusedXmlException
+
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        seen.add(id(exc))
+        if isinstance(exc, DefusedXmlException):
+            return exc
+        exc = exc.__cause__ or exc.__context__
+    return None
+
+
+XML_REFUSAL = (
+    "its XML declares a DTD or entities, which archivist does not expand (they can make a small file grow without "
+    "bound or read other files); save the workbook again from a spreadsheet program"
+)
+
+
+def workbook_xml_problem(path: Path) -> str | None:
+    """Why the XML inside the workbook at ``path`` must not be parsed (a DTD or entity declaration), or None.
+
+    Each XML part is read with defusedxml only up to its root element, which
+    is as far as a document type declaration may appear (XML 1.0, section 2.8).
+    A file that is not a zip, or XML that does not parse, is left to the
+    spreadsheet reader to report. ``OSError`` (no permission, a folder) is raised.
+    """
+    import zipfile
+    from xml.etree.ElementTree import ParseError
+
+    from defusedxml import DefusedXmlException
+    from defusedxml.ElementTree import iterparse
 
     try:
-        wb = openpyxl.load_workbook(path, read_only=True, data_only=True)
+        zf = zipfile.ZipFile(path)
+    except zipfile.BadZipFile:
+        return None
+    with zf:
+        for info in zf.infolist():
+            if not info.filename.lower().endswith((".xml", ".rels", ".vml")):
+                continue
+            try:
+                with zf.open(info) as fh:
+                    for _ in iterparse(fh, events=("start",), forbid_dtd=True):
+                        break
+            except DefusedXmlException:
+                return f"part '{info.filename}': {XML_REFUSAL}"
+            except (ParseError, zipfile.BadZipFile, EOFError, RuntimeError, NotImplementedError):
+                continue  # broken or encrypted: openpyxl says so when it reads the workbook
+    return None
+
+
+def _is_formula(value: Any) -> bool:
+    """A cell as openpyxl gives it without ``data_only``: a formula is ``"=..."`` or an array/data-table formula object."""
+    if isinstance(value, str):
+        return value.startswith("=") and len(value) > 1
+    return type(value).__name__ in ("ArrayFormula", "DataTableFormula")
+
+
+def cell_ranges(column: str, rows: list[int], limit: int = 8) -> str:
+    """Rows of one column as spreadsheet ranges: ``D2:D34, D40``; at most ``limit`` ranges, then a count."""
+    runs: list[tuple[int, int]] = []
+    for r in rows:
+        if runs and r == runs[-1][1] + 1:
+            runs[-1] = (runs[-1][0], r)
+        else:
+            runs.append((r, r))
+    parts = [f"{column}{a}" if a == b else f"{column}{a}:{column}{b}" for a, b in runs[:limit]]
+    if len(runs) > limit:
+        parts.append(f"and {len(runs) - limit} more ranges")
+    return ", ".join(parts)
+
+
+def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
+    """(rows as tuples, sheet title, sheet names) or (None, hits); refusals and OS errors raise ArchivistError."""
+    import openpyxl
+
+    try:
+        wb = openpyxl.load_workbook(path, read_only=True, data_only=data_only)
+    except OSError as exc:
+        raise _os_error(name, exc) from None
     except Exception as exc:  # openpyxl raises many kinds for a broken file
-        return None, [Hit(f"{name} cannot be read as a spreadsheet: {exc}.", layer=name, rule="layer-unreadable")]
+        if _defused(exc) is not None:
+            raise ArchivistError(f"{name}: {XML_REFUSAL}") from None
+        return None, [Hit(f"{name} cannot be read as a spreadsheet: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
     try:
         if sheet is None:
             ws = wb.worksheets[0]
@@ -127,35 +233,146 @@ def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | Non
                     rule="layer-missing",
                 )
             ]
-        rows = ws.iter_rows(values_only=True)
-        header = None
-        header_row = 0
-        for header_row, row in enumerate(rows, start=1):
-            if any(v not in (None, "") for v in row):
-                header = row
-                break
-        if header is None:
-            return TableData(pd.DataFrame(), name, ws.title, 1, {}), []
-        keep = [i for i, v in enumerate(header) if v not in (None, "")]
-        columns = [str(header[i]).strip() for i in keep]
-        data = []
-        for row in rows:
-            cells = [row[i] if i < len(row) else None for i in keep]
-            if all(v in (None, "") for v in cells):
-                continue
-            data.append(cells)
-        frame = pd.DataFrame(data, columns=columns, dtype=object)
-        letters = {c: get_column_letter(i + 1) for c, i in zip(columns, keep)}
-        return TableData(frame, name, ws.title, header_row, letters), []
+        try:
+            rows = [tuple(r) for r in ws.iter_rows(values_only=True)]
+        except OSError as exc:
+            raise _os_error(name, exc) from None
+        except Exception as exc:  # the sheet's XML is broken
+            if _defused(exc) is not None:
+                raise ArchivistError(f"{name}: {XML_REFUSAL}") from None
+            return None, [Hit(f"{name}, sheet '{ws.title}' cannot be read: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
+        return (rows, ws.title), []
     finally:
         wb.close()
 
 
+def _merged_headers(path: Path, title: str, header_row: int) -> dict[int, tuple[str, str]]:
+    """0-based column -> (merged range, top-left value) for header cells covered by a merged cell.
+
+    openpyxl does not read merged ranges in read-only mode, so the sheet is
+    opened once more in full; this runs only when a column has data but no header.
+    """
+    import openpyxl
+
+    wb = openpyxl.load_workbook(path, data_only=True)
+    try:
+        ws = wb[title]
+        out: dict[int, tuple[str, str]] = {}
+        for rng in ws.merged_cells.ranges:
+            if not (rng.min_row <= header_row <= rng.max_row):
+                continue
+            top = ws.cell(row=rng.min_row, column=rng.min_col).value
+            for col in range(rng.min_col, rng.max_col + 1):
+                out[col - 1] = (rng.coord, "" if top is None else str(top).strip())
+        return out
+    finally:
+        wb.close()
+
+
+def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | None, list[Hit]]:
+    """Read one sheet: the first non-empty row is the header, every column with a header or data is kept.
+
+    Hits: ``column-unnamed`` for a column with data but no header text (it is
+    named after its merged header or its letter), ``formula-value-missing``
+    for formula cells without a stored value (they read as empty).
+
+    Raises
+    ------
+    ArchivistError
+        The file cannot be read (a folder, no permission) or its XML declares a DTD or entities.
+    """
+    from openpyxl.utils import get_column_letter
+
+    refusal = workbook_xml_problem(path) if path.is_file() else None
+    if refusal:
+        raise ArchivistError(f"{name}: {refusal}")
+    loaded, hits = _load_rows(path, name, sheet, data_only=True)
+    if loaded is None:
+        return None, hits
+    grid, title = loaded
+    width = max((len(r) for r in grid), default=0)
+    rows = [tuple(r) + (None,) * (width - len(r)) for r in grid]
+    empty = lambda v: v is None or (isinstance(v, str) and not v.strip())  # noqa: E731
+    start = next((i for i, r in enumerate(rows) if not all(empty(v) for v in r)), None)
+    if start is None:
+        return TableData(pd.DataFrame(), name, title, 1, {}), []
+    header_row = start + 1
+    header, body = rows[start], rows[start + 1 :]
+
+    problems: list[Hit] = []
+    formulas: dict[int, list[int]] = {}  # column -> 1-based rows of formulas with no stored value
+    if any(v is None for r in rows[start:] for v in r):
+        raw, _ = _load_rows(path, name, title, data_only=False)
+        if raw is not None:
+            for i, r in enumerate(raw[0][start:], start=start):
+                for j, v in enumerate(r):
+                    if j < width and rows[i][j] is None and _is_formula(v):
+                        formulas.setdefault(j, []).append(i + 1)
+    if formulas:
+        where = ", ".join(cell_ranges(get_column_letter(j + 1), formulas[j]) for j in sorted(formulas))
+        problems.append(
+            Hit(
+                f"{name}, sheet '{title}': cells {where} hold formulas with no stored value, so they read as empty; "
+                "open and save the workbook in a spreadsheet program so the values are stored.",
+                layer=name,
+                rule="formula-value-missing",
+            )
+        )
+
+    has_data = [any(not empty(r[j]) for r in body) or j in formulas for j in range(width)]
+    keep = [j for j in range(width) if not empty(header[j]) or has_data[j]]
+    unnamed = [j for j in keep if empty(header[j])]
+    merged = _merged_headers(path, title, header_row) if unnamed else {}
+    columns: list[str] = []
+    used = {str(header[j]).strip() for j in keep if not empty(header[j])}
+    for j in keep:
+        if not empty(header[j]):
+            columns.append(str(header[j]).strip())
+            continue
+        letter = get_column_letter(j + 1)
+        rng, top = merged.get(j, ("", ""))
+        base = f"{top}, column {letter}" if top else f"column {letter}"
+        label, n = base, 2
+        while label in used:
+            label, n = f"{base} {n}", n + 1
+        used.add(label)
+        columns.append(label)
+        why = f"its header cell {letter}{header_row} is covered by the merged cell {rng} ('{top}')" if rng else f"its header cell {letter}{header_row} is empty"
+        problems.append(
+            Hit(
+                f"{name}, sheet '{title}': column {letter} holds data but has no header of its own ({why}); "
+                f"it is read and packed as '{label}'. Give every column a header in one cell.",
+                layer=name,
+                rule="column-unnamed",
+            )
+        )
+    data, lines = [], []
+    for i, row in enumerate(body, start=header_row + 1):
+        cells = [row[j] for j in keep]
+        if all(empty(v) for v in cells) and not any(i in formulas.get(j, ()) for j in keep):
+            continue
+        data.append(cells)
+        lines.append(i)
+    frame = pd.DataFrame(data, columns=columns, dtype=object)
+    letters = {c: get_column_letter(j + 1) for c, j in zip(columns, keep)}
+    return TableData(frame, name, title, header_row, letters, tuple(lines)), problems
+
+
 def read_table(path: Path, name: str, sheet: str | None = None) -> tuple[TableData | None, list[Hit]]:
-    """Read a CSV/TSV or XLSX table. Returns (table or None, hits)."""
+    """Read a CSV/TSV or XLSX table. Returns (table or None, hits).
+
+    Raises
+    ------
+    ArchivistError
+        The file cannot be read at all (a folder, no permission), or a
+        workbook's XML declares a DTD or entities; one line naming the file.
+    """
     suffix = path.suffix.lower()
-    if suffix in (".xlsx", ".xlsm"):
-        return read_xlsx(path, name, sheet)
-    if suffix == ".xls":
-        return None, [Hit(f"{name}: the old binary .xls format is not read; save it as .xlsx or CSV.", layer=name, rule="layer-unreadable")]
-    return read_csv(path, name)
+    try:
+        if suffix in (".xlsx", ".xlsm"):
+            return read_xlsx(path, name, sheet)
+        if suffix == ".xls":
+            return None, [Hit(f"{name}: the old binary .xls format is not read; save it as .xlsx or CSV.", layer=name, rule="layer-unreadable")]
+        return read_csv(path, name)
+    except OSError as exc:
+        raise _os_error(name, exc) from None

@@ -683,3 +683,177 @@ def test_untransformable_layer_is_one_line_exit_2_naming_it(tmp_path):
     result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(tmp_path / "out"), "--allow-errors"])
     assert result.exit_code == 2 and "u.geojson" in result.stderr and "cannot be transformed" in result.stderr
     assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+# ---------------------------------------------------------------- every input recorded under its own, relative name
+
+def outside_inputs(tmp_path):
+    """A project whose legend and analyses are two different files named table.csv in two folders outside it;
+    the legend is named by an absolute path, the analyses by a relative one."""
+    from builders import tiny_legend, tiny_samples
+
+    root = tiny_project(tmp_path, samples=tiny_samples())
+    (tmp_path / "a").mkdir()
+    (tmp_path / "b").mkdir()
+    tiny_legend().to_csv(tmp_path / "a" / "table.csv", index=False, lineterminator="\n")
+    (tmp_path / "b" / "table.csv").write_text("sample_id,SiO2 (wt%)\nS-0001,70.5\nS-0002,71.5\n", encoding="utf-8")
+    return edit_manifest(
+        root,
+        lambda m: (
+            m["tables"]["legend"].update(path=str(tmp_path / "a" / "table.csv")),
+            m["tables"].update(analyses={"path": "../b/table.csv", "sample_field": "sample_id"}),
+        ),
+    )
+
+
+def test_outside_inputs_of_one_name_stay_apart(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = outside_inputs(tmp_path)
+    result = pack(root, tmp_path / "out")
+    data = data_of(result)
+    legend, analyses = data / "source/external/a/table.csv", data / "source/external/b/table.csv"
+    assert legend.read_bytes() == (tmp_path / "a" / "table.csv").read_bytes()
+    assert analyses.read_bytes() == (tmp_path / "b" / "table.csv").read_bytes()
+    sources = json.loads((data / "datapackage.json").read_text(encoding="utf-8"))["sources"]
+    paths = [s["path"] for s in sources]
+    assert len(paths) == len(set(paths)) and {"source/external/a/table.csv", "source/external/b/table.csv"} <= set(paths)
+    # provenance (read with the prov library): each input named once, with its own file's SHA-256 (hashlib)
+    from prov.model import ProvDocument, ProvEntity
+
+    doc = ProvDocument.deserialize(source=str(data / "metadata" / "provenance.json"), format="json")
+    digests = {}
+    for ent in (r for r in doc.get_records() if isinstance(r, ProvEntity)):
+        values = {str(k): v for k, v in ent.attributes}
+        if str(values.get("prov:type")).endswith("InputFile"):
+            digests[str(values["prov:label"])] = str(values[next(k for k in values if k.endswith("sha256"))])
+    assert digests["external/a/table.csv"] == hashlib.sha256((tmp_path / "a" / "table.csv").read_bytes()).hexdigest()
+    assert digests["external/b/table.csv"] == hashlib.sha256((tmp_path / "b" / "table.csv").read_bytes()).hexdigest()
+    # the bagit library validates the bag
+    assert bagit.Bag(str(result.path)).is_valid()
+
+
+def test_no_absolute_path_of_the_packing_machine_in_the_package(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = outside_inputs(tmp_path)
+    result = pack(root, tmp_path / "out", allow_errors=True)
+    prefixes = {str(tmp_path), str(tmp_path.resolve())}
+    for path in result.path.rglob("*"):
+        if path.is_file() and path.suffix != ".gpkg":
+            text = path.read_bytes().decode("utf-8", errors="replace")
+            assert not any(p in text for p in prefixes), path.relative_to(result.path)
+
+
+def test_source_manifest_points_at_the_copies_and_is_checkable(tmp_path, monkeypatch):
+    import tomllib
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = outside_inputs(tmp_path)
+    result = pack(root, tmp_path / "out")
+    source = data_of(result) / "source"
+    manifest = tomllib.loads((source / "archivist.toml").read_text(encoding="utf-8"))
+    assert manifest["tables"]["legend"]["path"] == "external/a/table.csv"
+    assert manifest["tables"]["analyses"]["path"] == "external/b/table.csv"
+    descriptor = json.loads((data_of(result) / "datapackage.json").read_text(encoding="utf-8"))
+    (res,) = [r for r in descriptor["resources"] if r["path"] == "source/archivist.toml"]
+    assert "rewritten" in res["description"]
+    report = archivist.check(source)
+    assert set(report.rules_run) and not [f for f in report.findings if f.rule in ("layer-missing", "layer-unreadable")]
+
+
+def test_audit_of_a_package_with_outside_inputs_is_clean(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    result = pack(outside_inputs(tmp_path), tmp_path / "out")
+    report = archivist.audit(result.path)
+    assert [f for f in report.findings if f.family == "archive"] == [], [f.message for f in report.findings]
+
+
+# ---------------------------------------------------------------- interruption and concurrent packs tell the truth
+
+def test_ctrl_c_after_the_move_names_the_whole_package(tmp_path, monkeypatch):
+    pack_module = importlib.import_module("archivist.package.pack")
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+    real = pack_module.move_into_place
+
+    def move_then_interrupt(tmp, target):
+        real(tmp, target)
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(pack_module, "move_into_place", move_then_interrupt)
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert result.exit_code == 130
+    assert "no package was written" not in result.stderr
+    assert str(out / "tiny-test-map-1.0.0") in result.stderr and "whole" in result.stderr
+    assert bagit.Bag(str(out / "tiny-test-map-1.0.0")).is_valid()  # the bagit library agrees
+
+
+def test_ctrl_c_before_the_move_leaves_nothing(tmp_path, monkeypatch):
+    pack_module = importlib.import_module("archivist.package.pack")
+
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+
+    def interrupt(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(pack_module, "write_bag", interrupt)
+    result = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert result.exit_code == 130 and "no package was written" in result.stderr
+    assert list(out.iterdir()) == []
+
+
+HELD_PACK = """
+import sys, time
+from pathlib import Path
+import importlib
+pack_module = importlib.import_module("archivist.package.pack")
+from archivist.cli import main
+
+ready, go = Path(sys.argv[1]), Path(sys.argv[2])
+real = pack_module.move_into_place
+
+def held(tmp, target):
+    ready.touch()
+    for _ in range(6000):  # at most 60 s, in case the test process died
+        if go.exists():
+            break
+        time.sleep(0.01)
+    real(tmp, target)
+
+pack_module.move_into_place = held
+sys.argv = ["archivist", "pack", sys.argv[3], "--out", sys.argv[4]] + sys.argv[5:]
+main()
+"""
+
+
+@pytest.mark.parametrize("force", [False, True])
+def test_a_second_pack_into_a_busy_folder_is_refused(force, tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+    ready, go = tmp_path / "ready", tmp_path / "go"
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(Path(archivist.__file__).parent.parent), os.environ.get("PYTHONPATH", "")]))
+    first = subprocess.Popen(
+        [sys.executable, "-c", HELD_PACK, str(ready), str(go), str(root), str(out)] + (["--force"] if force else []),
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        for _ in range(12000):  # wait until the first pack holds the folder (no timing is asserted)
+            if ready.exists() or first.poll() is not None:
+                break
+            time.sleep(0.01)
+        assert ready.exists(), first.communicate()
+        second = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)] + (["--force"] if force else []))
+        assert second.exit_code == 2, second.output
+        assert "another archivist pack is writing" in second.stderr and "Traceback" not in second.output
+    finally:
+        go.touch()
+        stdout, stderr = first.communicate(timeout=120)
+    assert first.returncode == 0, stderr
+    assert bagit.Bag(str(out / "tiny-test-map-1.0.0")).is_valid()
+    # once the first is done, a pack without --force refuses the existing package as before
+    third = CliRunner().invoke(cli, ["pack", str(root), "--out", str(out)])
+    assert third.exit_code == 2 and "already exists" in third.stderr

@@ -84,3 +84,173 @@ def test_malformed_csv_is_a_finding(tmp_path):
     p.write_text('unit,name\nA,"unclosed\n', encoding="utf-8")
     data, hits = read_table(p, "t.csv")
     assert data is None and hits[0].rule == "layer-unreadable" and "t.csv" in hits[0].message
+
+
+# ---------------------------------------------------------------- hostile XML, unreadable files, data kept whole
+
+import builtins
+import io
+import zipfile
+
+from click.testing import CliRunner
+
+from archivist.cli import cli
+from archivist.errors import ArchivistError
+from archivist.readers import workbook_xml_problem
+from builders import edit_manifest, tiny_project, tree_digest, write_xlsx
+
+# The classic "billion laughs" shape (nested internal entities; Python's XML documentation, "XML vulnerabilities"),
+# kept small so that a parser that expands it still finishes, and an external entity naming a local file.
+NESTED = (
+    '<!DOCTYPE d [<!ENTITY a "lol"><!ENTITY b "&a;&a;&a;&a;&a;&a;&a;&a;&a;&a;">'
+    '<!ENTITY c "&b;&b;&b;&b;&b;&b;&b;&b;&b;&b;"><!ENTITY d "&c;&c;&c;&c;&c;&c;&c;&c;&c;&c;">]>'
+)
+EXTERNAL = '<!DOCTYPE d [<!ENTITY d SYSTEM "file:///etc/hostname">]>'
+
+
+def hostile_workbook(path, part, doctype):
+    """A workbook written by openpyxl, then a DOCTYPE put in front of one XML part and '&d;' in one cell."""
+    plain = path.with_name("plain-" + path.name)
+    write_xlsx(plain, "legend", ["unit", "name"], [["A", "Alder"], ["B", "Birch"]])
+    with zipfile.ZipFile(plain) as zin, zipfile.ZipFile(path, "w") as zout:
+        for info in zin.infolist():
+            data = zin.read(info.filename)
+            if info.filename == part:
+                text = data.decode("utf-8")
+                if text.startswith("<?xml"):
+                    text = text[text.index("?>") + 2 :]
+                data = ('<?xml version="1.0"?>' + doctype + text.replace("Alder", "&d;")).encode("utf-8")
+            zout.writestr(info, data)
+    plain.unlink()
+    return path
+
+
+@pytest.mark.parametrize("part", ["xl/worksheets/sheet1.xml", "xl/workbook.xml", "[Content_Types].xml"])
+@pytest.mark.parametrize("doctype", [NESTED, EXTERNAL], ids=["nested", "external"])
+def test_xml_declarations_in_a_workbook_are_refused(part, doctype, tmp_path):
+    book = hostile_workbook(tmp_path / "legend.xlsx", part, doctype)
+    assert part in workbook_xml_problem(book)
+    with pytest.raises(ArchivistError) as caught:
+        read_table(book, "legend.xlsx")
+    assert str(caught.value).startswith("legend.xlsx: part ") and "\n" not in str(caught.value)
+
+
+def test_plain_workbook_has_no_xml_problem(tmp_path):
+    assert workbook_xml_problem(write_xlsx(tmp_path / "a.xlsx", "s", ["unit"], [["A"]])) is None
+
+
+def test_openpyxl_parses_sheets_with_defusedxml():
+    # The second fence: openpyxl switches to defusedxml when it is installed (openpyxl/xml/__init__.py, DEFUSEDXML).
+    from openpyxl.xml import DEFUSEDXML
+
+    assert DEFUSEDXML is True
+
+
+def legend_project(tmp_path, table):
+    root = tiny_project(tmp_path)
+    return edit_manifest(root, lambda m: m["tables"]["legend"].update(path=table))
+
+
+def run_cli(*args):
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+@pytest.mark.parametrize("command", ["check", "pack"])
+def test_cli_refuses_a_workbook_with_entities_in_one_line(command, tmp_path):
+    root = legend_project(tmp_path, "legend.xlsx")
+    hostile_workbook(root / "legend.xlsx", "xl/worksheets/sheet1.xml", NESTED)
+    before = tree_digest(root)
+    args = [command, root] + (["--out", tmp_path / "out"] if command == "pack" else [])
+    result = run_cli(*args)
+    assert result.exit_code == 2, result.output
+    assert "Traceback" not in result.output and "lollol" not in result.output
+    assert "legend.xlsx" in result.output and "DTD or entities" in result.output
+    assert tree_digest(root) == before
+
+
+def _refuse_open(monkeypatch, target):
+    """Make opening ``target`` fail as it does for a file without read permission (tests may run as root)."""
+    real = io.open
+
+    def guarded(file, *args, **kwargs):
+        if str(file) == str(target):
+            raise PermissionError(13, "Permission denied", str(file))
+        return real(file, *args, **kwargs)
+
+    monkeypatch.setattr(io, "open", guarded)
+    monkeypatch.setattr(builtins, "open", guarded)
+
+
+@pytest.mark.parametrize("table", ["legend.csv", "legend.xlsx"])
+def test_unreadable_table_is_one_line_exit_2(table, tmp_path, monkeypatch):
+    root = legend_project(tmp_path, table)
+    if table.endswith(".xlsx"):
+        write_xlsx(root / table, "legend", ["unit", "name"], [["A", "Alder"], ["B", "Birch"]])
+    _refuse_open(monkeypatch, root / table)
+    result = run_cli("check", root)
+    assert result.exit_code == 2, result.output
+    assert "Traceback" not in result.output
+    (line,) = [ln for ln in result.output.splitlines() if ln.strip()]
+    assert table in line and "Permission denied" in line
+
+
+@pytest.mark.parametrize("table", ["legend.csv", "legend.xlsx"])
+def test_table_path_that_is_a_folder_is_one_line_exit_2(table, tmp_path):
+    root = legend_project(tmp_path, table.replace("legend", "units-legend"))
+    table = table.replace("legend", "units-legend")
+    (root / table).mkdir()
+    result = run_cli("check", root)
+    assert result.exit_code == 2, result.output
+    assert "Traceback" not in result.output
+    assert f"{table}: is a folder" in result.output
+
+
+def test_blank_rows_keep_cell_references(tmp_path):
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["sample_id", "SiO2"])
+    ws.append(["A", 1.0])
+    ws.append([None, None])
+    ws.append(["B", 2.0])
+    wb.save(tmp_path / "a.xlsx")
+    data, _ = read_table(tmp_path / "a.xlsx", "a.xlsx")
+    assert data.cell(1, "SiO2") == "a.xlsx, sheet 'Sheet', cell B4"
+
+
+def test_unnamed_column_without_merge_is_named_by_its_letter(tmp_path):
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["sample_id", None, "SiO2"])
+    ws.append(["A", "field note", 1.0])
+    wb.save(tmp_path / "a.xlsx")
+    data, hits = read_table(tmp_path / "a.xlsx", "a.xlsx")
+    assert list(data.frame.columns) == ["sample_id", "column B", "SiO2"]
+    assert data.frame["column B"].tolist() == ["field note"]
+    (hit,) = hits
+    assert hit.rule == "column-unnamed" and "header cell B1 is empty" in hit.message
+    assert data.cell(0, "column B") == "a.xlsx, sheet 'Sheet', cell B2"
+
+
+def test_row_with_only_a_formula_is_kept(tmp_path):
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.append(["sample_id", "total"])
+    ws.append(["A", 1.0])
+    ws.append([None, "=1+1"])  # openpyxl stores no value for it
+    wb.save(tmp_path / "a.xlsx")
+    data, hits = read_table(tmp_path / "a.xlsx", "a.xlsx")
+    assert len(data.frame) == 2
+    (hit,) = hits
+    assert hit.rule == "formula-value-missing" and "cells B3 " in hit.message
+
+
+def test_audit_holds_a_workbook_with_entities_as_a_finding(tmp_path):
+    # The same screen runs on an archive before openpyxl sees it: the workbook is not opened,
+    # layer-unreadable names it, and the rest of the map is still audited.
+    import archivist
+
+    root = legend_project(tmp_path, "legend.xlsx")
+    hostile_workbook(root / "legend.xlsx", "xl/worksheets/sheet1.xml", EXTERNAL)
+    report = archivist.audit(root)
+    held = [f for f in report.findings if f.rule == "layer-unreadable"]
+    assert any("legend.xlsx" in f.message and "DTD or entities" in f.message for f in held), [f.message for f in report.findings]

@@ -8,7 +8,18 @@ from shapely.geometry import LineString, Polygon, box
 import archivist
 from archivist.identifiers import orcid_check_digit, orcid_problem
 from archivist.rules.metadata import licence_problem
-from builders import CRS, edit_manifest, tiny_project, two_units, tree_digest
+from builders import (
+    CRS,
+    MAJOR_HEADER,
+    edit_manifest,
+    edit_xlsx,
+    major_rows,
+    tiny_legend,
+    tiny_project,
+    tiny_with_analyses,
+    two_units,
+    tree_digest,
+)
 
 
 def clean(tmp_path):
@@ -73,6 +84,33 @@ def bow_tie(tmp_path):
     return tiny_project(tmp_path, units=units)
 
 
+def merged_header(tmp_path):
+    """Analyses whose header 'Major elements' is merged over the columns of SiO2 and TiO2 (B1:C1)."""
+    root = tiny_with_analyses(tmp_path)
+
+    def merge(ws):
+        ws["B1"] = "Major elements"
+        ws["C1"] = None
+        ws.merge_cells("B1:C1")
+
+    return edit_xlsx(root, "analyses.xlsx", "majors", merge)
+
+
+def formulas_without_values(tmp_path):
+    """Totals written as formulas by openpyxl, which stores formulas without computing them."""
+    rows = major_rows(["S-0001", "S-0002"])
+    for i, row in enumerate(rows, start=2):
+        row[-1] = f"=SUM(B{i}:L{i})"
+    return tiny_with_analyses(tmp_path, rows=rows)
+
+
+def formula_like_legend(tmp_path):
+    legend = tiny_legend()
+    legend.loc[1, "name"] = '=HYPERLINK("http://example.invalid","Birch")'
+    legend.loc[0, "description"] = "-12.5"  # a plain number: not reported
+    return tiny_project(tmp_path, legend=legend)
+
+
 CASES = {
     "manifest-invalid": (unknown_key, clean),
     "layer-missing": (missing_file, clean),
@@ -85,6 +123,9 @@ CASES = {
     "geometry-missing": (null_geometry, clean),
     "geometry-type-unexpected": (wrong_type, clean),
     "geometry-invalid": (bow_tie, clean),
+    "column-unnamed": (merged_header, clean),
+    "formula-value-missing": (formulas_without_values, clean),
+    "formula-like-value": (formula_like_legend, clean),
 }
 
 
@@ -176,3 +217,83 @@ def test_non_spdx_licences_are_refused(expr):
 def test_clean_tiny_project_has_no_findings(tmp_path):
     report = archivist.check(clean(tmp_path), only=["metadata"])
     assert report.findings == ()
+
+
+# ---------------------------------------------------------------- spreadsheets read whole, published cells
+
+def test_merged_header_column_is_kept_named_and_reported(tmp_path):
+    root = merged_header(tmp_path)
+    project = archivist.load_project(root)
+    frame = project.tables["analyses"].frame
+    assert "Major elements, column C" in frame.columns  # TiO2's data, under the merged header
+    assert frame["Major elements, column C"].tolist() == [0.28, 0.28]
+    (f,) = findings(root, "column-unnamed")
+    assert "sheet 'majors'" in f.message and "B1:C1" in f.message and "column C" in f.message
+
+
+def test_merged_header_column_reaches_the_package(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")
+    result = archivist.pack(merged_header(tmp_path), tmp_path / "out")
+    text = (result.path / "data" / "tables" / "analyses.csv").read_text(encoding="utf-8")
+    assert "Major elements, column C" in text.splitlines()[0]
+    assert text.count("0.28") == 2
+
+
+def test_formulas_without_values_are_named_by_cell(tmp_path):
+    root = formulas_without_values(tmp_path)
+    (f,) = findings(root, "formula-value-missing")
+    assert f.severity.value == "error"
+    assert "sheet 'majors'" in f.message and "M2:M3" in f.message  # Total is the 13th column, rows 2-3
+
+
+def test_formulas_with_stored_values_are_read_as_values(tmp_path):
+    # openpyxl stores no cached values, so a stored value is injected in the sheet XML as a spreadsheet program writes it:
+    # <c><f>SUM(...)</f><v>100</v></c> (ECMA-376 Part 1, 18.3.1.4 c (Cell)).
+    import zipfile
+
+    root = formulas_without_values(tmp_path)
+    book = root / "analyses.xlsx"
+    with zipfile.ZipFile(book) as zin:
+        parts = {i.filename: zin.read(i.filename) for i in zin.infolist()}
+    sheet = parts["xl/worksheets/sheet1.xml"].decode()
+    sheet = sheet.replace("</f><v></v>", "</f><v>100</v>").replace("</f><v/>", "</f><v>100</v>")
+    if "<v>100</v>" not in sheet:
+        sheet = sheet.replace("</f></c>", "</f><v>100</v></c>")
+    parts["xl/worksheets/sheet1.xml"] = sheet.encode()
+    with zipfile.ZipFile(book, "w") as zout:
+        for name, data in parts.items():
+            zout.writestr(name, data)
+    assert findings(root, "formula-value-missing") == []
+    assert archivist.load_project(root).tables["analyses"].frame["Total (wt%)"].tolist() == [100, 100]
+
+
+@pytest.mark.parametrize("value", ["=1+2", "@SUM(A1)", "+A1", "-A1+B1", "\t=1"])
+def test_formula_like_values_are_reported(value, tmp_path):
+    legend = tiny_legend()
+    legend.loc[0, "description"] = value
+    root = tiny_project(tmp_path, legend=legend)
+    (f,) = findings(root, "formula-like-value")
+    assert "column 'description'" in f.message and "row 2" in f.message
+
+
+@pytest.mark.parametrize("value", ["-12.5", "+3", "1e-3", "-0.5e2", "A=B", "Sandstone - red"])
+def test_numbers_and_inner_signs_are_not_formula_like(value, tmp_path):
+    legend = tiny_legend()
+    legend.loc[0, "description"] = value
+    assert findings(tiny_project(tmp_path, legend=legend), "formula-like-value") == []
+
+
+def test_formula_like_values_are_kept_as_given_in_the_package(tmp_path, monkeypatch):
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")
+    root = formula_like_legend(tmp_path)
+    result = archivist.pack(root, tmp_path / "out")
+    assert any(f.rule == "formula-like-value" for f in result.report.findings)
+    assert '=HYPERLINK(""http://example.invalid"",""Birch"")' in (result.path / "data" / "tables" / "legend.csv").read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("value", ["=cmd|' /C calc'!A0", "\r=1"])  # a CR cannot travel in the test's own CSV legend
+def test_formula_like_values_in_layer_attributes_name_the_feature(value, tmp_path):
+    units = two_units()
+    units["note"] = [value, "plain"]
+    (f,) = findings(tiny_project(tmp_path, units=units), "formula-like-value")
+    assert "column 'note'" in f.message and f.features == ("1",)

@@ -19,6 +19,16 @@ def _size(n: int) -> str:
     return f"{n} bytes"
 
 
+def interrupted_message(placed: tuple[Path, ...], make_zip: bool) -> str:
+    """What an interrupted pack leaves, as it is: the paths moved into place whole, or nothing new."""
+    if not placed:
+        return "pack interrupted; no package was written (an earlier package of the same name, if any, is unchanged)"
+    folder = placed[0]
+    if make_zip and len(placed) < 2:
+        return f"pack interrupted after the package was written: {folder} is in place and whole; the zip was not written"
+    return f"pack interrupted after the package was written: {', '.join(map(str, placed))} in place and whole"
+
+
 @click.command("pack")
 @click.argument("project", type=click.Path(path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path), metavar="DIR", help="Folder to write <name>-<version>/ into.")
@@ -51,8 +61,8 @@ def pack_command(project, out, make_zip, allow_errors, force, quiet, verbose):
             write_text(exc.report, sys.stdout)
             click.echo(f"archivist: {exc}", err=True)
             sys.exit(1)
-        except (Interrupted, KeyboardInterrupt):
-            click.echo("archivist: pack interrupted; no package was written", err=True)
+        except (Interrupted, KeyboardInterrupt) as exc:
+            click.echo(f"archivist: {interrupted_message(getattr(exc, 'placed', ()), make_zip)}", err=True)
             sys.exit(130)
         s = result.report.summary
         click.echo(f"Packed {result.path} ({len(result.files)} files, {_size(result.bytes)}).")

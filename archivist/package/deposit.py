@@ -214,8 +214,53 @@ def read_deposit(project: MapProject, created: dt.datetime) -> Deposit:
 
 
 def relative_source(project: MapProject, path: Path) -> str:
-    """A project file as a path relative to the project folder (POSIX), or ``external/<name>`` outside it."""
-    try:
-        return Path(path).resolve().relative_to(project.root.resolve()).as_posix()
-    except ValueError:
-        return f"external/{Path(path).name}"
+    """A project file as a path relative to the project folder (POSIX), or ``external/<name>`` outside it.
+
+    For the inputs of a package use :func:`source_names`, which keeps two
+    outside files of the same name apart.
+    """
+    return source_names(project, [path]).name(path)
+
+
+@dataclass(frozen=True)
+class SourceNames:
+    """Distinct relative names for the input files of a package.
+
+    A file inside the project keeps its path relative to the project folder;
+    a file outside it is named by its path relative to the deepest folder that
+    holds every outside input, under ``prefix`` (``external/a/legend.csv`` and
+    ``external/b/legend.csv``). No absolute path of the packing machine is kept.
+    """
+
+    root: Path
+    outside: Path | None
+    prefix: str = "external"
+
+    def name(self, path: Path) -> str:
+        """The name of ``path`` (a file or folder, inside or outside the project) in the package."""
+        resolved = Path(path).resolve()
+        try:
+            return resolved.relative_to(self.root).as_posix()
+        except ValueError:
+            pass
+        if self.outside is not None:
+            try:
+                return f"{self.prefix}/{resolved.relative_to(self.outside).as_posix()}"
+            except ValueError:
+                pass
+        return f"{self.prefix}/{resolved.name}"
+
+
+def source_names(project: MapProject, paths) -> SourceNames:
+    """Names for ``paths`` (the files and folders the manifest names) that differ wherever the files differ."""
+    import os
+
+    root = project.root.resolve()
+    resolved = [Path(p).resolve() for p in paths]
+    outside = [r for r in resolved if r != root and root not in r.parents]
+    common = Path(os.path.commonpath([str(r.parent) for r in outside])) if outside else None
+    inside_tops = {r.relative_to(root).parts[0] for r in resolved if r not in outside and r != root}
+    prefix, n = "external", 2
+    while prefix in inside_tops:
+        prefix, n = f"external-{n}", n + 1
+    return SourceNames(root, common, prefix)

@@ -28,17 +28,17 @@ import re
 import datetime as dt
 import shutil
 from concurrent.futures import ThreadPoolExecutor
-from contextlib import ExitStack
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 import pyproj
 
 from .. import engine
 from ..errors import ArchivistError
 from ..fileset import dataset_files
-from ..manifest import MANIFEST_NAME
+from ..manifest import MANIFEST_NAME, read_manifest
 from ..model import Report
 from ..project import MapProject, load_project
 from ..progress import Progress
@@ -46,13 +46,13 @@ from ..report.html import render_html
 from . import datacite as dc
 from . import datapackage as dp
 from .bagwrite import Hashes, write_bag
-from .deposit import Deposit, read_deposit, relative_source
+from .deposit import Deposit, SourceNames, read_deposit, source_names
 from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
 from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, write_geojson, write_geopackage
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
-from .staging import move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
+from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
 from .tables import write_csv
 
 REPORT_PATH = "metadata/validation-report.json"
@@ -122,7 +122,8 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
 
     A shapefile comes with its side files; a folder format (File Geodatabase)
     with every file inside it; any file with its metadata sidecar
-    (:func:`archivist.fileset.dataset_files`).
+    (:func:`archivist.fileset.dataset_files`). Names are distinct and
+    relative (see :func:`~archivist.package.deposit.source_names`).
     """
     roles: dict[Path, list[str]] = {}
     if project.manifest_path is not None:
@@ -131,11 +132,12 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
         roles.setdefault(layer.path.resolve(), []).append(role)
     for role, table in project.tables.items():
         roles.setdefault(table.path.resolve(), []).append(role)
+    names = source_names(project, roles)
     out: dict[Path, tuple[str, str]] = {}
     for path, rs in roles.items():
         label = ", ".join(rs)
         for p in dataset_files(path) or [path]:
-            out[p] = (relative_source(project, p), label)
+            out[p] = (names.name(p), label)
     return sorted(((p, rel, label) for p, (rel, label) in out.items()), key=lambda t: t[1])
 
 
@@ -147,6 +149,74 @@ def stored_name(rel: str) -> str:
     stays in the resource title and the provenance.
     """
     return re.sub(r"[%\r\n]", "_", rel)
+
+
+def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
+    """(path as the manifest wrote it, the file or folder it names) for every layer and table of the manifest."""
+    out = []
+    for group in ("layers", "tables"):
+        for spec in (project.manifest.get(group) or {}).values():
+            if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+                written = spec["path"]
+                path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+                out.append((written, path))
+    return out
+
+
+def input_names(project: MapProject) -> SourceNames:
+    """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
+    paths = [p for _, p in _manifest_paths(project)] + [x.path for x in (*project.layers.values(), *project.tables.values())]
+    if project.manifest_path is not None:
+        paths.append(project.manifest_path)
+    return source_names(project, paths)
+
+
+def shareable_text(project: MapProject, names: SourceNames):
+    """A function that replaces every absolute path of the packing machine in a text by its name in the package.
+
+    Absolute paths written in the manifest become the input's name under
+    ``source/``; the project folder becomes its own name.
+    """
+    pairs: dict[str, str] = {}
+    for written, path in _manifest_paths(project):
+        if Path(written).is_absolute():
+            pairs[written] = names.name(path)
+    for root in (str(project.root.resolve()), str(project.root.absolute()), str(project.root)):
+        if Path(root).is_absolute():
+            pairs.setdefault(root, project.root.name)
+    keys = sorted(pairs, key=len, reverse=True)
+
+    def scrub(text: str) -> str:
+        for key in keys:
+            text = text.replace(key, pairs[key])
+        return text
+
+    return scrub
+
+
+def source_manifest(project: MapProject, names: SourceNames) -> tuple[str, str] | None:
+    """(text, why) of the manifest copy for ``source/`` when the manifest names files by absolute paths or
+    outside the project folder: the same manifest with those paths pointing at their copies in ``source/``.
+    None when the manifest can be stored byte for byte."""
+    if project.manifest_path is None:
+        return None
+    raw = read_manifest(project.manifest_path)
+    changed = []
+    for group in ("layers", "tables"):
+        for role, spec in (raw.get(group) or {}).items():
+            if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
+                continue
+            written = spec["path"]
+            path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+            inside = path == project.root.resolve() or project.root.resolve() in path.parents
+            if Path(written).is_absolute() or not inside:
+                spec["path"] = names.name(path)
+                changed.append(f"{group}.{role}.path")
+    if not changed:
+        return None
+    why = f"{', '.join(changed)} rewritten to the copies in source/ (the project named them outside its folder)"
+    header = f"Written by archivist pack: the project's {MANIFEST_NAME} with {why}."
+    return dump_toml(raw, header=header), why
 
 
 def _transform_bbox(bbox: tuple[float, float, float, float], crs: pyproj.CRS) -> tuple[float, float, float, float]:
@@ -168,12 +238,45 @@ def _map_bbox(layers: list[PreparedLayer]) -> tuple[float, float, float, float] 
     return (min(b[0] for b in boxes), min(b[1] for b in boxes), max(b[2] for b in boxes), max(b[3] for b in boxes))
 
 
-def _shareable(report: Report, project: MapProject) -> Report:
+def _shareable(report: Report, project: MapProject, scrub=None) -> Report:
     """The report as packed: the project named by its manifest, no absolute paths of the packing machine."""
-    root = str(project.root)
+    scrub = scrub or shareable_text(project, input_names(project))
     name = project.manifest_path.name if project.manifest_path else project.root.name
-    notes = tuple(n.replace(str(project.root.resolve()), project.root.name).replace(root, project.root.name) for n in report.notes)
-    return dataclasses.replace(report, project=name, notes=notes)
+    notes = tuple(scrub(n) for n in report.notes)
+    findings = tuple(dataclasses.replace(f, message=scrub(f.message)) for f in report.findings)
+    return dataclasses.replace(report, project=name, notes=notes, findings=findings)
+
+
+class PackBusy(ArchivistError):
+    """Another pack is writing into the same output folder."""
+
+
+@contextmanager
+def output_lock(out_dir: Path) -> Iterator[None]:
+    """Hold an exclusive lock on the folder ``out_dir`` while a package is written into it.
+
+    The lock is ``flock`` on the folder itself (no lock file is left behind);
+    the kernel releases it when the process ends, however it ends. A second
+    pack into the same folder is refused at once, ``--force`` or not.
+    Where ``fcntl`` is not available (Windows) no lock is taken.
+    """
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX
+        yield
+        return
+    fd = os.open(out_dir, os.O_RDONLY)
+    try:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise PackBusy(f"{out_dir}: another archivist pack is writing into this folder; wait for it to finish") from None
+        try:
+            yield
+        finally:
+            fcntl.flock(fd, fcntl.LOCK_UN)
+    finally:
+        os.close(fd)
 
 
 def pack(
@@ -252,24 +355,39 @@ def pack(
             "(see the metadata findings of 'archivist check')"
         )
     out_dir.mkdir(parents=True, exist_ok=True)
-    remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
-    with terminate_as_exception(), ExitStack() as stack:
-        bag = stack.enter_context(staging_dir(target))
-        zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
-        hashes = Hashes()
-        with progress.step("writing the package"):
-            _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
-            write_bag(bag, deposit, hashes, open_errors=errors)
-        fix_modes(bag)
-        files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
-        size = sum((bag / f).stat().st_size for f in files)
-        if zip_tmp is not None:
-            with progress.step("zipping the package"):
-                zip_tree(bag, zip_tmp, deposit.stem, fixed)
-            zip_tmp.chmod(0o644)
-        move_into_place(bag, target)
-        if zip_tmp is not None:
-            move_into_place(zip_tmp, zip_target)
+    placed: list[Path] = []
+    try:
+        with terminate_as_exception(), ExitStack() as stack:
+            stack.enter_context(output_lock(out_dir))
+            _guard(project, out_dir, [target] + ([zip_target] if zip_target else []), force)  # again, now that no other pack writes here
+            remove_leftovers(out_dir, {target.name} | ({zip_target.name} if zip_target else set()))
+            bag = stack.enter_context(staging_dir(target))
+            zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
+            hashes = Hashes()
+            with progress.step("writing the package"):
+                _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
+                write_bag(bag, deposit, hashes, open_errors=errors)
+            fix_modes(bag)
+            files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
+            size = sum((bag / f).stat().st_size for f in files)
+            if zip_tmp is not None:
+                with progress.step("zipping the package"):
+                    zip_tree(bag, zip_tmp, deposit.stem, fixed)
+                zip_tmp.chmod(0o644)
+            try:
+                move_into_place(bag, target)
+            finally:  # even when interrupted inside the move: the staging folder gone means the package is in place
+                if not bag.exists() and target.is_dir():
+                    placed.append(target)
+            if zip_tmp is not None:
+                try:
+                    move_into_place(zip_tmp, zip_target)
+                finally:
+                    if not zip_tmp.exists() and zip_target.is_file():
+                        placed.append(zip_target)
+    except (KeyboardInterrupt, Interrupted) as exc:
+        exc.placed = tuple(placed)  # what is whole in place: the CLI tells the truth about it
+        raise
     return PackResult(
         path=target,
         zip_path=zip_target,
@@ -301,7 +419,12 @@ def _write_payload(
 
     # The map: one GeoPackage in the map CRS (written by GDAL in a second thread while the
     # rest is built here), GeoJSON per layer in WGS 84, tables as CSV, the inputs as handed in.
+    names = input_names(project)
+    scrub = shareable_text(project, names)
     layers = prepare_layers(project)
+    for pl in layers:
+        pl.source = scrub(pl.source)
+        pl.note = scrub(pl.note) if pl.note else pl.note
     notes = [pl.note for pl in layers if pl.note]
     with ThreadPoolExecutor(max_workers=1) as pool:
         gpkg_job = pool.submit(write_geopackage, layers, data / "map.gpkg", deposit.created)
@@ -325,14 +448,21 @@ def _write_payload(
         table_paths = {}
         for table in tables:
             rel = f"tables/{table.name}.csv"
+            table.description = scrub(table.description)
             write_csv(table, data / rel)
             table_paths[table.name] = rel
             resources.append(dp.ResourceInfo(rel, table.name, table.title, table.description, schema=table.schema()))
 
         inputs = input_files(project)
+        own_manifest = source_manifest(project, names)
+        rewritten: dict[str, str] = {}
         for src, rel, _ in inputs:
             dest = data / "source" / stored_name(rel)
             dest.parent.mkdir(parents=True, exist_ok=True)
+            if own_manifest is not None and src == project.manifest_path.resolve():
+                write_text(dest, own_manifest[0])
+                rewritten[rel] = own_manifest[1]
+                continue
             shutil.copyfile(src, dest)
         gpkg_job.result()
 
@@ -350,7 +480,7 @@ def _write_payload(
     (data / "metadata").mkdir()
     write_text(data / "metadata" / "crs.wkt", deposit.crs.to_wkt(pyproj.enums.WktVersion.WKT2_2019, pretty=True) + "\n")
     resources.append(dp.ResourceInfo("metadata/crs.wkt", "crs-wkt", "Map CRS (WKT2)", f"{deposit.crs_label} as WKT2 (ISO 19162:2019)."))
-    shared = _shareable(report, project)
+    shared = _shareable(report, project, scrub)
     write_text(data / REPORT_PATH, _report_json(shared))
     resources.append(dp.ResourceInfo(REPORT_PATH, "validation-report", "Check report", "The archivist check report the package was made with (schema: report.schema.json)."))
     write_text(data / HTML_REPORT_PATH, render_html(shared, project))
@@ -371,7 +501,7 @@ def _write_payload(
         source_facts.append(FileFact(rel, digest, size, label))
         resources.append(dp.ResourceInfo(
             f"source/{stored_name(rel)}", _resource_name(f"source-{rel}", resources), f"{rel} (as handed in)",
-            f"Input file ({label}), byte for byte as it was in the project.",
+            f"Input file ({label}), {rewritten[rel]}." if rel in rewritten else f"Input file ({label}), byte for byte as it was in the project.",
         ))
     output_facts = []
     for info in resources:
@@ -392,7 +522,7 @@ def _write_payload(
         + f". Checked with archivist {report.version}: {report.summary.errors} errors, {report.summary.warnings} warnings, "
         f"{report.summary.notices} notices from {len(report.rules_run)} rules."
     )
-    open_errors = open_error_lines(report)
+    open_errors = open_error_lines(shared)
     record = dc.datacite_record(
         deposit,
         bbox_wgs84=bbox_wgs84,
@@ -410,7 +540,7 @@ def _write_payload(
         data / "README.md",
         readme_text(
             deposit,
-            report,
+            shared,
             [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source) for pl in layers],
             legend_rows(legend.frame if legend else None, legend.spec.get("unit_field") if legend else None),
             [(t.name, t.title, len(t.frame)) for t in tables],
@@ -440,7 +570,7 @@ def _write_payload(
             descriptors,
             sources=[{"title": f"{f.path} ({f.role})", "path": f"source/{stored_name(f.path)}"} for f in source_facts],
             spatial=spatial,
-            validation=dp.validation_summary(report, REPORT_PATH),
+            validation=dp.validation_summary(shared, REPORT_PATH),
         ),
     )
 

@@ -29,7 +29,7 @@ from .. import manifest as mf
 from ..errors import ArchivistError
 from ..model import Hit
 from ..project import MapProject, load_project
-from ..readers import TABLE_SUFFIXES, VECTOR_SUFFIXES
+from ..readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, workbook_xml_problem
 from ..tomltext import dump_toml
 from .safe import Limits, OpenedArchive, inspect_zip, name_problem, open_archive, sniff_vector
 
@@ -141,7 +141,7 @@ def workbook_problem(path: Path) -> str | None:
         inspect_zip(path, WORKBOOK_LIMITS)
     except ArchivistError as exc:
         return str(exc).split(": ", 1)[-1].replace("; refusing the archive", "")
-    return None
+    return workbook_xml_problem(path)
 
 
 def _hold_unsafe_layers(root: Path, held_dir: Path) -> list[str]:

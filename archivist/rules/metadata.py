@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import re
 from functools import lru_cache
 
 import numpy as np
+import pandas as pd
 import shapely
 
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
@@ -445,4 +447,149 @@ def geometry_invalid(project, ctx):
                 geometry=geoms[i],
                 x=where[0] if where else None,
                 y=where[1] if where else None,
+            )
+
+
+# ---------------------------------------------------------------- spreadsheets and published cells
+
+@rule("column-unnamed", family="metadata", severity="warning")
+def column_unnamed(project, ctx):
+    """A spreadsheet column holds data but has no header of its own.
+
+    Catches
+    -------
+    Columns of an XLSX sheet whose header cell is empty, typically because
+    a header was merged across several columns ("Major elements" over B1:D1).
+    The column is kept and named after the merged header and its letter
+    (`Major elements, column C`) or its letter alone (`column C`); the
+    finding says which name it got. Only the first non-empty row is read as
+    the header: headers spread over two rows are not recognised.
+
+    Why it matters
+    --------------
+    A reader that drops unnamed columns loses their data without a word; a
+    name made up by software tells the next user nothing about the quantity
+    or its unit.
+
+    Fix
+    ---
+    Unmerge the header and give every column its own header in one cell,
+    with the unit in brackets (`TiO2 (wt%)`).
+
+    Example
+    -------
+    "Major elements" merged over B1:D1 gives "analyses.xlsx, sheet 'XRF':
+    column C holds data but has no header of its own ... it is read and
+    packed as 'Major elements, column C'".
+    """
+    yield from _loading(project, "column-unnamed")
+
+
+@rule("formula-value-missing", family="metadata", severity="error")
+def formula_value_missing(project, ctx):
+    """Spreadsheet formula cells carry no stored value, so they read as empty.
+
+    Catches
+    -------
+    Cells of an XLSX sheet that hold a formula but no cached result, as
+    written by software that stores formulas without computing them (a
+    script using a spreadsheet library, some exports). archivist reads the
+    values a spreadsheet program stored and never evaluates formulas; the
+    finding names the sheet and the cell ranges.
+
+    Why it matters
+    --------------
+    The table as read, and the package made from it, would have empty cells
+    where the spreadsheet shows numbers: analyses lost without a word.
+
+    Fix
+    ---
+    Open the workbook in a spreadsheet program and save it, so the values are
+    stored next to the formulas; or replace the formulas by their values.
+
+    Example
+    -------
+    A sheet 'XRF' written by a script with `=B2*0.1` in D2:D34 gives
+    "analyses.xlsx, sheet 'XRF': cells D2:D34 hold formulas with no stored value".
+    """
+    yield from _loading(project, "formula-value-missing")
+
+
+# A cell a spreadsheet may run as a formula when it opens a CSV: it begins with one of these
+# (common practice of CSV-injection guidance, from memory). Plain numbers such as -12.5 or +3 are data.
+FORMULA_LEAD = re.compile(r"^[=+\-@\t\r]")
+PLAIN_NUMBER = re.compile(r"^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$")
+
+
+def _formula_like(series: pd.Series) -> np.ndarray:
+    """True where a cell is text that begins like a formula and is not a plain number."""
+    text = series.astype(object).where(series.map(type) == str)
+    lead = text.str.match(FORMULA_LEAD).fillna(False).to_numpy(dtype=bool)
+    if not lead.any():
+        return lead
+    number = text.str.match(PLAIN_NUMBER).fillna(False).to_numpy(dtype=bool)
+    return lead & ~number
+
+
+def _shown(value: str) -> str:
+    text = value if len(value) <= 40 else value[:37] + "..."
+    return repr(text)
+
+
+@rule("formula-like-value", family="metadata", severity="warning")
+def formula_like_value(project, ctx):
+    """A text cell begins with `=`, `+`, `-`, `@`, a tab or a carriage return, so a spreadsheet may run it as a formula.
+
+    Catches
+    -------
+    Text values in the attribute columns of every layer and in the legend
+    and analyses tables that begin with one of those characters (the
+    characters of CSV-injection guidance, common practice, from memory).
+    Plain numbers written as text (`-12.5`, `+3`, `1e-3`) are not reported.
+    The package keeps every value as given; this finding warns its readers.
+    Text with the character later in the cell, and numbers stored as
+    numbers, are not reported.
+
+    Why it matters
+    --------------
+    The package publishes tables as CSV. A spreadsheet that opens such a CSV
+    evaluates `=...` or `@...` as a formula: at best the value shown is not
+    the value stored, at worst a crafted cell runs a command or sends data away.
+
+    Fix
+    ---
+    If the value is meant as text (a note starting with "-", a code like
+    "+A"), reword it so it does not begin with those characters, e.g. "minus
+    ..." or a leading letter. If it came from a formula by mistake, replace
+    it with the value.
+
+    Example
+    -------
+    A legend name `=HYPERLINK("http://example.invalid","Alder")` gives
+    "legend.csv, column 'name': 1 value begins like a formula (row 2) ...".
+    """
+    sources = []
+    for role, layer in project.layers.items():
+        frame = layer.frame
+        columns = [c for c in frame.columns if c != frame.geometry.name]
+        sources.append((role, layer.source, frame, columns, lambda i, ids=layer.ids: f"feature {ids[i]}", layer.ids))
+    for role, table in project.tables.items():
+        frame = table.frame
+        sources.append((role, table.source, frame, list(frame.columns), lambda i, d=table.data: f"row {d.line(i)}", None))
+    for role, source, frame, columns, where, ids in sources:
+        for column in columns:
+            series = frame[column]
+            if not (pd.api.types.is_object_dtype(series.dtype) or pd.api.types.is_string_dtype(series.dtype)):
+                continue
+            hit = np.flatnonzero(_formula_like(series))
+            if not len(hit):
+                continue
+            places = ", ".join(where(i) for i in hit[:10]) + (f" and {len(hit) - 10} more" if len(hit) > 10 else "")
+            n = len(hit)
+            yield Hit(
+                f"{source}, column '{column}': {n} value{'s' if n != 1 else ''} begin{'s' if n == 1 else ''} like a formula "
+                f"({places}), e.g. {_shown(str(series.iloc[hit[0]]))}; a spreadsheet opening the packaged CSV may run "
+                f"{'them' if n != 1 else 'it'} as {'formulas' if n != 1 else 'a formula'}.",
+                layer=role,
+                features=tuple(str(ids[i]) for i in hit[:20]) if ids is not None else (),
             )
