@@ -1,9 +1,13 @@
 """The command line: exit codes, formats, one-line errors, outputs never in the project."""
 
+import builtins
+import errno
 import io
 import json
+import os
 import re
 import unicodedata
+from pathlib import Path
 
 import jsonschema
 import pytest
@@ -279,3 +283,133 @@ def test_error_lines_show_values_as_escapes(args, tmp_path):
     assert result.exit_code == 2
     (line,) = result.stderr.strip().splitlines()
     assert terminal_unsafe(line) == [] and "\\x1b[2J" in line
+
+
+# ---------------------------------------------------------------- outputs that cannot be written
+# Tests may run as root, for whom chmod does not stop a write: a read-only
+# (EROFS), forbidden (EACCES) or full (ENOSPC) output folder is simulated by
+# making every call that creates, writes or renames something in that folder
+# fail with the error the kernel gives (errno names from POSIX, strerror from
+# the C library through os.strerror).
+_WRITE_FLAGS = os.O_WRONLY | os.O_RDWR | os.O_CREAT | os.O_APPEND | os.O_TRUNC
+
+
+def refuse_writes_in(monkeypatch, folder: Path, err: int) -> None:
+    folder = Path(folder).resolve()
+
+    def inside(path) -> bool:
+        try:
+            p = Path(os.fsdecode(path)).resolve()
+        except (TypeError, ValueError):
+            return False
+        return p == folder or folder in p.parents
+
+    def refuse(path):
+        raise OSError(err, os.strerror(err), os.fsdecode(path))
+
+    real_open, real_mkdir, real_replace, real_rename, real_link = os.open, os.mkdir, os.replace, os.rename, os.link
+    real_io_open = io.open
+
+    def fake_open(path, flags, *args, **kwargs):
+        if flags & _WRITE_FLAGS and inside(path):
+            refuse(path)
+        return real_open(path, flags, *args, **kwargs)
+
+    def fake_mkdir(path, *args, **kwargs):
+        if inside(path):
+            refuse(path)
+        return real_mkdir(path, *args, **kwargs)
+
+    def two(real):
+        def fake(src, dst, *args, **kwargs):
+            if inside(dst):
+                refuse(dst)
+            return real(src, dst, *args, **kwargs)
+        return fake
+
+    def fake_io_open(file, mode="r", *args, **kwargs):
+        if isinstance(file, (str, bytes, os.PathLike)) and set(mode) & set("wax+") and inside(file):
+            refuse(file)
+        return real_io_open(file, mode, *args, **kwargs)
+
+    monkeypatch.setattr(os, "open", fake_open)
+    monkeypatch.setattr(os, "mkdir", fake_mkdir)
+    monkeypatch.setattr(os, "replace", two(real_replace))
+    monkeypatch.setattr(os, "rename", two(real_rename))
+    monkeypatch.setattr(os, "link", two(real_link))
+    monkeypatch.setattr(io, "open", fake_io_open)
+    monkeypatch.setattr(builtins, "open", fake_io_open)
+
+
+OUTPUTS = {
+    "check --output": (["check", "{root}", "--output", "{out}/report.json", "--format", "json"], "report.json"),
+    "check --html": (["check", "{root}", "--html", "{out}/report.html"], "report.html"),
+    "check --findings-gpkg": (["check", "{root}", "--findings-gpkg", "{out}/findings.gpkg"], "findings.gpkg"),
+    "pack --out": (["pack", "{root}", "--out", "{out}"], "{out}"),
+    "pack --zip": (["pack", "{root}", "--out", "{out}", "--zip"], "{out}"),
+    "audit --output": (["audit", "{root}", "--output", "{out}/audit.txt"], "audit.txt"),
+    "diff --output": (["diff", "{root}", "{root}", "--output", "{out}/changes.txt"], "changes.txt"),
+    "diff --gpkg": (["diff", "{root}", "{root}", "--gpkg", "{out}/changes.gpkg"], "changes.gpkg"),
+    "init": (["init", "{bare}"], "{bare}"),
+}
+
+
+def one_line_exit_2(result, name: str) -> str:
+    assert result.exit_code == 2, (result.exit_code, result.output)
+    assert "Traceback" not in result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and name in lines[0], result.stderr
+    return lines[0]
+
+
+@pytest.mark.parametrize("err", [errno.EROFS, errno.EACCES, errno.ENOSPC], ids=errno.errorcode.get)
+@pytest.mark.parametrize("which", sorted(OUTPUTS))
+def test_output_that_cannot_be_written_is_one_line_exit_2(which, err, tmp_path, monkeypatch):
+    root = tiny_project(tmp_path)
+    bare = tiny_project(tmp_path, name="bare")
+    (bare / "archivist.toml").unlink()
+    out = tmp_path / "out"
+    out.mkdir()
+    args, name = OUTPUTS[which]
+    fill = {"root": root, "out": out, "bare": bare}
+    target_folder = bare if which == "init" else out
+    refuse_writes_in(monkeypatch, target_folder, err)
+    result = CliRunner().invoke(cli, [a.format(**fill) for a in args])
+    line = one_line_exit_2(result, name.format(**fill))
+    assert os.strerror(err) in line
+    assert sorted(p.name for p in out.iterdir()) == []
+
+
+@pytest.mark.parametrize("which", ["check --output", "check --html", "check --findings-gpkg", "audit --output",
+                                   "diff --output", "diff --gpkg"])
+def test_output_under_a_file_is_one_line_exit_2(which, tmp_path):
+    """A real case that holds for root too: the output's folder is a regular file (ENOTDIR)."""
+    root = tiny_project(tmp_path)
+    (tmp_path / "plain").write_text("not a folder\n", encoding="utf-8")
+    args, name = OUTPUTS[which]
+    result = CliRunner().invoke(cli, [a.format(root=root, out=tmp_path / "plain") for a in args])
+    one_line_exit_2(result, str(tmp_path / "plain" / name))
+
+
+def test_output_in_sysfs_real_case(tmp_path):
+    """Another real case for root on Linux: the kernel refuses new files in /sys (sysfs) with EACCES."""
+    root = tiny_project(tmp_path)
+    result = CliRunner().invoke(cli, ["check", str(root), "--output", "/sys/archivist-report.json"])
+    one_line_exit_2(result, "/sys/archivist-report.json")
+
+
+def test_an_internal_error_is_one_line_and_never_exit_1(tmp_path, monkeypatch):
+    import archivist.engine
+
+    def broken(*args, **kwargs):
+        raise ZeroDivisionError("division by zero")
+
+    root = tiny_project(tmp_path)
+    monkeypatch.setattr(archivist.engine, "run_rules", broken)
+    monkeypatch.delenv("ARCHIVIST_TRACEBACK", raising=False)
+    result = CliRunner().invoke(cli, ["check", str(root)])
+    line = one_line_exit_2(result, "internal error")
+    assert "ZeroDivisionError" in line and "ARCHIVIST_TRACEBACK=1" in line
+    monkeypatch.setenv("ARCHIVIST_TRACEBACK", "1")
+    shown = CliRunner().invoke(cli, ["check", str(root)])
+    assert isinstance(shown.exception, ZeroDivisionError)
