@@ -16,14 +16,20 @@ from typing import Iterator
 from .errors import ArchivistError
 
 
+class OutputError(ArchivistError, OSError):
+    """An output could not be written: one line naming it (exit 2), and still an ``OSError`` for API callers."""
+
+
 def os_reason(exc: OSError) -> str:
-    """The system's reason for ``exc`` in words (``strerror``), e.g. ``Read-only file system``."""
-    return exc.strerror or type(exc).__name__
+    """The system's reason for ``exc`` in words (``strerror``, e.g. ``Read-only file system``), else its text."""
+    return exc.strerror or " ".join(str(exc).split()) or type(exc).__name__
 
 
-def write_failed(target: Path, exc: OSError) -> ArchivistError:
+def write_failed(target: Path, exc: OSError) -> OutputError:
     """The one-line error for an output ``target`` that could not be written."""
-    return ArchivistError(f"{target}: cannot write ({os_reason(exc)})")
+    err = OutputError(f"{target}: cannot write ({os_reason(exc)})")
+    err.errno = exc.errno
+    return err
 
 
 def guard_output(target: Path, *, force: bool, project_root: Path | None = None) -> Path:
