@@ -9,6 +9,7 @@ from typing import Any, Callable, Iterable
 
 import numpy as np
 import shapely
+from shapely.errors import GEOSException
 
 from . import registry
 from ._version import __version__
@@ -77,30 +78,61 @@ def to_finding(info: registry.RuleInfo, hit: Hit, severity: Severity, forced: bo
     )
 
 
+def empty_layers(project: MapProject) -> set[str]:
+    """Roles whose layer is there but holds no feature; ``layer-empty`` reports them."""
+    return {role for role, layer in project.layers.items() if len(layer.frame) == 0}
+
+
+def rule_failed(info: registry.RuleInfo, exc: GEOSException) -> Finding:
+    """The finding for a rule that GEOS stopped: the rule could not finish, and why."""
+    reason = " ".join(str(exc).split()) or type(exc).__name__
+    return Finding(
+        rule=info.id,
+        family=info.family,
+        severity=Severity.ERROR,
+        message=f"The check {info.id} could not finish: GEOS stopped with \"{reason}\"; "
+                "its findings are incomplete. A geometry the other checks report is the likely cause.",
+        layer=None,
+        features=(),
+        x=None,
+        y=None,
+        measure=None,
+        wkt=None,
+    )
+
+
 def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progress: Progress | None = None) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
+    A rule that needs a layer with no features is not run (``layer-empty``
+    says so once). A rule that GEOS stops (``GEOSException``) keeps the
+    findings it had made and adds one error finding saying it could not finish;
+    the other rules run as usual.
     """
     ctx = CheckContext(project)
     progress = progress or Progress()
     overrides = project.config.severity
     findings: list[Finding] = []
     ran: list[str] = []
+    empty = empty_layers(project)
     for family, group in groupby(selected, key=lambda i: i.family):
         group = list(group)
         with progress.step(f"{family} rules", total=len(group)) as step:
             for info in group:
                 level = overrides.get(info.id, info.severity.value)
-                if level == "off" or any(not project.has(role) for role in info.needs):
+                if level == "off" or any(not project.has(role) or role in empty for role in info.needs):
                     step.advance()
                     continue
                 severity = Severity.parse(level)
                 ran.append(info.id)
                 forced = info.id in overrides
                 with step.item(info.id):
-                    for hit in info.func(project, ctx) or ():
-                        findings.append(to_finding(info, hit, severity, forced))
+                    try:
+                        for hit in info.func(project, ctx) or ():
+                            findings.append(to_finding(info, hit, severity, forced))
+                    except GEOSException as exc:
+                        findings.append(rule_failed(info, exc))
     return Report(
         tool="archivist",
         version=__version__,

@@ -15,7 +15,9 @@ stderr when stderr is a terminal and ``--quiet`` is not given, and with
 ``-v`` one timing line per step (and per item) as each finishes.
 
 Every :class:`Progress` records its timings in ``progress.timings``, so a
-caller can read them after the run whatever is shown.
+caller can read them after the run whatever is shown. Labels hold file and
+layer names as given; what is shown passes through
+:func:`archivist.printable.printable` and is never read as rich markup.
 """
 
 from __future__ import annotations
@@ -26,6 +28,8 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from time import perf_counter
 from typing import IO, Iterator
+
+from .printable import printable
 
 
 @dataclass(frozen=True)
@@ -110,7 +114,7 @@ class Progress:
 def format_timing(t: Timing) -> str:
     """One timing line as ``-v`` prints it: ``  1.234 s  reading map.gpkg:units``."""
     indent = "    " * t.depth
-    return f"{t.seconds:8.3f} s  {indent}{t.label}"
+    return f"{t.seconds:8.3f} s  {indent}{printable(t.label)}"
 
 
 class RichProgress(Progress):
@@ -130,7 +134,7 @@ class RichProgress(Progress):
 
             self._bars = Bars(
                 SpinnerColumn(),
-                TextColumn("{task.description}"),
+                TextColumn("{task.description}", markup=False),
                 BarColumn(),
                 MofNCompleteColumn(),
                 TimeElapsedColumn(),
@@ -157,7 +161,7 @@ class RichProgress(Progress):
         if not self._started:
             self._bars.start()
             self._started = True
-        step.task = self._bars.add_task(step.label, total=step.total)
+        step.task = self._bars.add_task(printable(step.label), total=step.total)
 
     def _advance(self, step: Step, n: int) -> None:
         if self._bars is not None and step.task is not None:

@@ -1,6 +1,13 @@
 """The command line: exit codes, formats, one-line errors, outputs never in the project."""
 
+import builtins
+import errno
+import io
 import json
+import os
+import re
+import unicodedata
+from pathlib import Path
 
 import jsonschema
 import pytest
@@ -8,7 +15,7 @@ from click.testing import CliRunner
 
 from archivist.cli import cli
 from archivist.manifest import load_schema
-from builders import tiny_project, tree_digest
+from builders import edit_manifest, tiny_legend, tiny_project, tree_digest, two_units
 
 COMMANDS = sorted(cli.commands)
 
@@ -157,3 +164,252 @@ def test_wrongly_typed_manifest_values_are_findings_not_crashes(toml, key, tmp_p
     packed = CliRunner().invoke(cli, ["pack", str(root), "--out", str(tmp_path / "out")])
     assert isinstance(packed.exception, SystemExit) and packed.exit_code in (1, 2), packed.exception
     assert tree_digest(root) == before
+
+
+# ---------------------------------------------------------------- what reaches the terminal
+# A unit code that clears the screen (ESC [2J, ESC [H: ECMA-48 ED and CUP) and
+# paints a fake clean report, a CR that returns to the start of the line, a
+# BEL, a C1 CSI (U+009B), an OSC title change, and the bidi override U+202E
+# and isolate U+2066 (Unicode UAX #9).
+EVIL = "\x1b[2J\x1b[HNo findings.\r\x07\u202eKa\u2066\x9b<script>x</script>"
+EVIL_NAME = "Alder\x1b]0;owned\x07 Sandstone"
+EVIL_FILE = "map\x1b[31m\u202e.gpkg"
+SGR = re.compile(r"\x1b\[[0-9;]*m")  # Select Graphic Rendition: the writer's own colour codes (ECMA-48 8.3.117)
+
+
+def terminal_unsafe(text: str) -> list[str]:
+    """Controls (Unicode category Cc, but the newline) and UAX #9 bidi controls in ``text``."""
+    bidi = "\u202a\u202b\u202c\u202d\u202e\u2066\u2067\u2068\u2069"
+    return [c for c in text if (unicodedata.category(c) == "Cc" and c != "\n") or c in bidi]
+
+
+def evil_project(tmp_path, name="evil", evil_file=True):
+    """A project whose unit code, legend name and (with ``evil_file``) GeoPackage name carry terminal control sequences."""
+    units = two_units()
+    units["unit"] = ["A", EVIL]
+    legend = tiny_legend()
+    legend.loc[0, "name"] = EVIL_NAME
+    root = tiny_project(tmp_path, units=units, legend=legend, name=name)
+    if not evil_file:
+        return root
+    (root / "map.gpkg").rename(root / EVIL_FILE)
+
+    def repath(m):
+        for spec in m["layers"].values():
+            spec["path"] = EVIL_FILE
+
+    return edit_manifest(root, repath)
+
+
+def test_check_text_shows_data_as_escapes(tmp_path):
+    root = evil_project(tmp_path)
+    result = CliRunner().invoke(cli, ["check", str(root)])
+    assert result.exit_code == 1, result.output
+    assert terminal_unsafe(result.output) == []
+    assert terminal_unsafe(result.stderr) == []
+    assert "\\x1b[2J\\x1b[HNo findings.\\r\\x07\\u202eKa\\u2066\\x9b" in result.output
+    assert "Alder\\x1b]0;owned\\x07 Sandstone" in result.output or "legend-missing-unit" in result.output
+
+
+def test_check_text_with_colour_has_only_its_own_colour_codes(tmp_path):
+    from archivist import check
+    from archivist.report import write_text
+
+    report = check(evil_project(tmp_path))
+    buf = io.StringIO()
+    write_text(report, buf, color=True)
+    out = buf.getvalue()
+    assert SGR.search(out), "colour was forced, so colour codes are expected"
+    assert terminal_unsafe(SGR.sub("", out)) == []
+
+
+def test_check_json_keeps_the_exact_value(tmp_path):
+    root = evil_project(tmp_path)
+    result = CliRunner().invoke(cli, ["check", str(root), "--format", "json"])
+    assert terminal_unsafe(result.output) == []
+    data = json.loads(result.output)
+    assert any(EVIL in f["message"] for f in data["findings"])
+    assert data["project"].endswith("archivist.toml")
+
+
+def test_html_escapes_data(tmp_path):
+    root = evil_project(tmp_path)
+    page = tmp_path / "report.html"
+    result = CliRunner().invoke(cli, ["check", str(root), "--html", page])
+    assert result.exit_code == 1
+    text = page.read_text(encoding="utf-8")
+    assert "<script>x</script>" not in text
+    assert "&lt;script&gt;x&lt;/script&gt;" in text  # html.escape (Python docs): < > & as entities
+
+
+def test_audit_text_shows_data_as_escapes(tmp_path):
+    root = evil_project(tmp_path, evil_file=False)
+    result = CliRunner().invoke(cli, ["audit", str(root)])
+    assert result.exit_code in (0, 1), result.output
+    assert terminal_unsafe(result.output) == [] and terminal_unsafe(result.stderr) == []
+    assert "\\x1b[2J" in result.output
+    # a member name with control characters is refused; the refusal line shows it as escapes
+    refused = CliRunner().invoke(cli, ["audit", str(evil_project(tmp_path, name="evil2"))])
+    assert refused.exit_code == 2
+    (line,) = refused.stderr.strip().splitlines()
+    assert terminal_unsafe(line) == [] and "\\x1b[31m" in line
+
+
+def test_diff_text_shows_data_as_escapes(tmp_path):
+    old = tiny_project(tmp_path, name="old")
+    new = evil_project(tmp_path, name="new")
+    result = CliRunner().invoke(cli, ["diff", str(old), str(new)])
+    assert result.exit_code == 1, result.output
+    assert terminal_unsafe(result.output) == [] and terminal_unsafe(result.stderr) == []
+    assert "\\x1b[2J" in result.output
+    as_json = CliRunner().invoke(cli, ["diff", str(old), str(new), "--format", "json"])
+    assert terminal_unsafe(as_json.output) == []
+    assert any(EVIL in c["message"] for c in json.loads(as_json.output)["changes"])
+
+
+def test_progress_labels_show_file_names_as_escapes(tmp_path):
+    root = evil_project(tmp_path)
+    result = CliRunner().invoke(cli, ["check", str(root), "-v"])
+    assert result.exit_code == 1
+    assert "reading map\\x1b[31m\\u202e.gpkg" in result.stderr
+    assert terminal_unsafe(result.stderr) == [] and terminal_unsafe(result.output) == []
+
+
+@pytest.mark.parametrize("args", [["check", "{tmp}/no\x1b[2Jsuch\u202e"], ["check", "{root}", "--rule", "x\x1b[2J\r"],
+                                  ["rules", "x\x1b[2J\u202e"], ["init", "{tmp}/no\x1b[2Jsuch"]])
+def test_error_lines_show_values_as_escapes(args, tmp_path):
+    root = tiny_project(tmp_path)
+    result = CliRunner().invoke(cli, [a.format(tmp=tmp_path, root=root) for a in args])
+    assert result.exit_code == 2
+    (line,) = result.stderr.strip().splitlines()
+    assert terminal_unsafe(line) == [] and "\\x1b[2J" in line
+
+
+# ---------------------------------------------------------------- outputs that cannot be written
+# Tests may run as root, for whom chmod does not stop a write: a read-only
+# (EROFS), forbidden (EACCES) or full (ENOSPC) output folder is simulated by
+# making every call that creates, writes or renames something in that folder
+# fail with the error the kernel gives (errno names from POSIX, strerror from
+# the C library through os.strerror).
+_WRITE_FLAGS = os.O_WRONLY | os.O_RDWR | os.O_CREAT | os.O_APPEND | os.O_TRUNC
+
+
+def refuse_writes_in(monkeypatch, folder: Path, err: int) -> None:
+    folder = Path(folder).resolve()
+
+    def inside(path) -> bool:
+        try:
+            p = Path(os.fsdecode(path)).resolve()
+        except (TypeError, ValueError):
+            return False
+        return p == folder or folder in p.parents
+
+    def refuse(path):
+        raise OSError(err, os.strerror(err), os.fsdecode(path))
+
+    real_open, real_mkdir, real_replace, real_rename, real_link = os.open, os.mkdir, os.replace, os.rename, os.link
+    real_io_open = io.open
+
+    def fake_open(path, flags, *args, **kwargs):
+        if flags & _WRITE_FLAGS and inside(path):
+            refuse(path)
+        return real_open(path, flags, *args, **kwargs)
+
+    def fake_mkdir(path, *args, **kwargs):
+        if inside(path):
+            refuse(path)
+        return real_mkdir(path, *args, **kwargs)
+
+    def two(real):
+        def fake(src, dst, *args, **kwargs):
+            if inside(dst):
+                refuse(dst)
+            return real(src, dst, *args, **kwargs)
+        return fake
+
+    def fake_io_open(file, mode="r", *args, **kwargs):
+        if isinstance(file, (str, bytes, os.PathLike)) and set(mode) & set("wax+") and inside(file):
+            refuse(file)
+        return real_io_open(file, mode, *args, **kwargs)
+
+    monkeypatch.setattr(os, "open", fake_open)
+    monkeypatch.setattr(os, "mkdir", fake_mkdir)
+    monkeypatch.setattr(os, "replace", two(real_replace))
+    monkeypatch.setattr(os, "rename", two(real_rename))
+    monkeypatch.setattr(os, "link", two(real_link))
+    monkeypatch.setattr(io, "open", fake_io_open)
+    monkeypatch.setattr(builtins, "open", fake_io_open)
+
+
+OUTPUTS = {
+    "check --output": (["check", "{root}", "--output", "{out}/report.json", "--format", "json"], "report.json"),
+    "check --html": (["check", "{root}", "--html", "{out}/report.html"], "report.html"),
+    "check --findings-gpkg": (["check", "{root}", "--findings-gpkg", "{out}/findings.gpkg"], "findings.gpkg"),
+    "pack --out": (["pack", "{root}", "--out", "{out}"], "{out}"),
+    "pack --zip": (["pack", "{root}", "--out", "{out}", "--zip"], "{out}"),
+    "audit --output": (["audit", "{root}", "--output", "{out}/audit.txt"], "audit.txt"),
+    "diff --output": (["diff", "{root}", "{root}", "--output", "{out}/changes.txt"], "changes.txt"),
+    "diff --gpkg": (["diff", "{root}", "{root}", "--gpkg", "{out}/changes.gpkg"], "changes.gpkg"),
+    "init": (["init", "{bare}"], "{bare}"),
+}
+
+
+def one_line_exit_2(result, name: str) -> str:
+    assert result.exit_code == 2, (result.exit_code, result.output)
+    assert "Traceback" not in result.output
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and name in lines[0], result.stderr
+    return lines[0]
+
+
+@pytest.mark.parametrize("err", [errno.EROFS, errno.EACCES, errno.ENOSPC], ids=errno.errorcode.get)
+@pytest.mark.parametrize("which", sorted(OUTPUTS))
+def test_output_that_cannot_be_written_is_one_line_exit_2(which, err, tmp_path, monkeypatch):
+    root = tiny_project(tmp_path)
+    bare = tiny_project(tmp_path, name="bare")
+    (bare / "archivist.toml").unlink()
+    out = tmp_path / "out"
+    out.mkdir()
+    args, name = OUTPUTS[which]
+    fill = {"root": root, "out": out, "bare": bare}
+    target_folder = bare if which == "init" else out
+    refuse_writes_in(monkeypatch, target_folder, err)
+    result = CliRunner().invoke(cli, [a.format(**fill) for a in args])
+    line = one_line_exit_2(result, name.format(**fill))
+    assert os.strerror(err) in line
+    assert sorted(p.name for p in out.iterdir()) == []
+
+
+@pytest.mark.parametrize("which", ["check --output", "check --html", "check --findings-gpkg", "audit --output",
+                                   "diff --output", "diff --gpkg"])
+def test_output_under_a_file_is_one_line_exit_2(which, tmp_path):
+    """A real case that holds for root too: the output's folder is a regular file (ENOTDIR)."""
+    root = tiny_project(tmp_path)
+    (tmp_path / "plain").write_text("not a folder\n", encoding="utf-8")
+    args, name = OUTPUTS[which]
+    result = CliRunner().invoke(cli, [a.format(root=root, out=tmp_path / "plain") for a in args])
+    one_line_exit_2(result, str(tmp_path / "plain" / name))
+
+
+def test_output_in_sysfs_real_case(tmp_path):
+    """Another real case for root on Linux: the kernel refuses new files in /sys (sysfs) with EACCES."""
+    root = tiny_project(tmp_path)
+    result = CliRunner().invoke(cli, ["check", str(root), "--output", "/sys/archivist-report.json"])
+    one_line_exit_2(result, "/sys/archivist-report.json")
+
+
+def test_an_internal_error_is_one_line_and_never_exit_1(tmp_path, monkeypatch):
+    import archivist.engine
+
+    def broken(*args, **kwargs):
+        raise ZeroDivisionError("division by zero")
+
+    root = tiny_project(tmp_path)
+    monkeypatch.setattr(archivist.engine, "run_rules", broken)
+    monkeypatch.delenv("ARCHIVIST_TRACEBACK", raising=False)
+    result = CliRunner().invoke(cli, ["check", str(root)])
+    line = one_line_exit_2(result, "internal error")
+    assert "ZeroDivisionError" in line and "ARCHIVIST_TRACEBACK=1" in line
+    monkeypatch.setenv("ARCHIVIST_TRACEBACK", "1")
+    shown = CliRunner().invoke(cli, ["check", str(root)])
+    assert isinstance(shown.exception, ZeroDivisionError)

@@ -84,3 +84,33 @@ def test_cli_verbose_and_quiet(tmp_path):
     timing_lines = verbose.stderr.splitlines()
     assert timing_lines and all(TIMING.match(line) for line in timing_lines)
     assert any(line.endswith("reading map.gpkg:units") for line in timing_lines)
+
+
+# ECMA-48 ED (ESC [2J) and CUP (ESC [H), a CR, a BEL, and the UAX #9 override U+202E;
+# "[/bold]" would be a closing tag to rich's markup parser.
+HOSTILE = "reading \x1b[2J\x1b[Hx\r\x07\u202e[/bold][red].gpkg"
+SHOWN = "reading \\x1b[2J\\x1b[Hx\\r\\x07\\u202e[/bold][red].gpkg"
+
+
+def test_labels_from_data_are_shown_as_escapes_in_bars_and_timings(monkeypatch):
+    monkeypatch.setenv("TERM", "xterm-256color")
+    stream = Terminal()
+    with make_progress(verbose=True, stream=stream) as progress:
+        assert progress.shows_bars
+        with progress.step(HOSTILE, total=1) as step:
+            with step.item(HOSTILE):
+                pass
+    out = stream.getvalue()
+    assert "\x1b[2J" not in out and "\u202e" not in out and "\x07" not in out
+    assert SHOWN in out  # shown literally: not read as markup either
+    assert progress.timings[0].label == HOSTILE  # the recorded timing keeps the label as given
+
+
+def test_timing_lines_without_a_terminal_hold_no_control_character():
+    stream = io.StringIO()
+    with make_progress(verbose=True, stream=stream) as progress:
+        with progress.step(HOSTILE):
+            pass
+    out = stream.getvalue()
+    assert SHOWN in out
+    assert [c for c in out if ord(c) < 0x20 and c != "\n"] == []

@@ -3,7 +3,7 @@
 
 import geopandas as gpd
 import pytest
-from shapely.geometry import LineString, Polygon, box
+from shapely.geometry import LineString, Point, Polygon, box
 
 import archivist
 from archivist.identifiers import orcid_check_digit, orcid_problem
@@ -109,6 +109,19 @@ def formula_like_legend(tmp_path):
     legend.loc[1, "name"] = '=HYPERLINK("http://example.invalid","Birch")'
     legend.loc[0, "description"] = "-12.5"  # a plain number: not reported
     return tiny_project(tmp_path, legend=legend)
+def empty_units(tmp_path):
+    return tiny_project(tmp_path, units=two_units().iloc[0:0])
+
+
+# A corner at 1e300: its square (an area) overflows binary64, whose largest
+# finite value is about 1.8e308 (IEEE 754; Python's sys.float_info.max).
+FAR = 1e300
+
+
+def far_corner(tmp_path):
+    units = two_units()
+    units.loc[len(units)] = {"unit": "A", "geometry": box(FAR, FAR, FAR * 1.000001, FAR * 1.000001)}
+    return tiny_project(tmp_path, units=units)
 
 
 CASES = {
@@ -126,6 +139,8 @@ CASES = {
     "column-unnamed": (merged_header, clean),
     "formula-value-missing": (formulas_without_values, clean),
     "formula-like-value": (formula_like_legend, clean),
+    "layer-empty": (empty_units, clean),
+    "coordinates-implausible": (far_corner, clean),
 }
 
 
@@ -297,3 +312,55 @@ def test_formula_like_values_in_layer_attributes_name_the_feature(value, tmp_pat
     units["note"] = [value, "plain"]
     (f,) = findings(tiny_project(tmp_path, units=units), "formula-like-value")
     assert "column 'note'" in f.message and f.features == ("1",)
+# ---------------------------------------------------------------- one cause, one finding
+
+def test_empty_units_layer_is_one_error_and_the_derived_checks_keep_quiet(tmp_path):
+    from builders import copy_bundle, edit_layer
+
+    root = copy_bundle(tmp_path)
+    before = archivist.check(root)
+    edit_layer(root, "map.gpkg", "units", lambda frame: frame.iloc[0:0])
+    report = archivist.check(root)
+    empty = [f for f in report.findings if f.rule == "layer-empty"]
+    assert [(f.layer, f.severity.value) for f in empty] == [("units", "error")]
+    assert "map.gpkg:units" in empty[0].message
+    # checks that compare other layers with the units are not run
+    assert not {"line-off-boundary", "unit-gap", "legend-unused-unit"} & {f.rule for f in report.findings}
+    assert not {"line-off-boundary", "unit-gap", "legend-unused-unit"} & set(report.rules_run)
+    assert "line-off-boundary" in before.rules_run
+
+
+def test_empty_samples_layer_is_a_warning(tmp_path):
+    from builders import tiny_samples
+
+    root = tiny_project(tmp_path, samples=tiny_samples().iloc[0:0])
+    (f,) = findings(root, "layer-empty")
+    assert (f.layer, f.severity.value) == ("samples", "warning")
+
+
+def test_far_corner_is_one_finding_and_every_other_check_still_reports(tmp_path):
+    units = two_units()
+    units.loc[1, "geometry"] = Polygon([(100, 0), (200, 100), (200, 0), (100, 100)])  # a bow tie as well
+    without = tiny_project(tmp_path, units=units, name="without")
+    units.loc[len(units)] = {"unit": "A", "geometry": box(FAR, FAR, FAR * 1.000001, FAR * 1.000001)}
+    root = tiny_project(tmp_path, units=units)
+    report = archivist.check(root)
+    far = [f for f in report.findings if f.rule == "coordinates-implausible"]
+    assert [(f.layer, f.features) for f in far] == [("units", ("3",))]
+    assert "1e+300" in far[0].message
+    expected = [(f.rule, f.message) for f in archivist.check(without).findings if f.rule != "crs-outside-area-of-use"]
+    found = [(f.rule, f.message) for f in report.findings if f.rule not in ("coordinates-implausible", "crs-outside-area-of-use")]
+    assert {"geometry-invalid", "boundary-without-line"} <= {rule for rule, _ in expected}
+    assert found == expected  # the topology and linework checks ran on the rest, with the same findings
+
+
+@pytest.mark.parametrize("x", [float("inf"), float("nan")])
+def test_non_finite_coordinates_are_one_finding(x, tmp_path):
+    from builders import tiny_samples
+
+    samples = tiny_samples()
+    samples.loc[1, "geometry"] = Point(x, 50.0)
+    root = tiny_project(tmp_path, samples=samples)
+    report = archivist.check(root)
+    far = [f for f in report.findings if f.rule == "coordinates-implausible"]
+    assert [f.features for f in far] == [("S-0002",)] and "not a finite number" in far[0].message

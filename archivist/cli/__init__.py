@@ -1,31 +1,67 @@
 """The ``archivist`` command: a thin click group over the Python API.
 
 Each subcommand lives in its own module and calls one public function.
-Errors that stop a run print one line on stderr and exit 2.
+Errors that stop a run print one line on stderr and exit 2: an
+``ArchivistError``, an OS error (the file it names and the system's reason),
+and, as a last fence, an unexpected error (a bug): one line saying so, exit 2;
+set the environment variable ``ARCHIVIST_TRACEBACK=1`` to see its traceback.
+Everything printed passes through :func:`archivist.printable.printable`.
 """
 
 from __future__ import annotations
 
 import functools
+import os
 import sys
 import warnings
+from typing import Any, Callable
 
 import click
 
 from .._version import __version__
 from ..errors import ArchivistError
+from ..printable import printable
+
+TRACEBACK_VARIABLE = "ARCHIVIST_TRACEBACK"
+"""Set to 1 to let an unexpected error (a bug in archivist) show its traceback."""
 
 
-def handle_errors(func):
-    """Turn ArchivistError into one line on stderr and exit code 2."""
+def fail(message: object, code: int = 2) -> None:
+    """Print ``archivist: <message>`` as one printable line on stderr and exit with ``code``."""
+    click.echo(f"archivist: {' '.join(printable(message).split())}", err=True)
+    sys.exit(code)
+
+
+def os_error_line(exc: OSError) -> str:
+    """One line for an OS error: the file(s) it names and the system's reason."""
+    reason = exc.strerror or " ".join(str(exc).split()) or type(exc).__name__
+    names = [str(n) for n in (exc.filename, exc.filename2) if n is not None]
+    return f"{' -> '.join(names)}: {reason}" if names else reason
+
+
+def handle_errors(func: Callable[..., Any]) -> Callable[..., Any]:
+    """Turn ArchivistError, OSError and unexpected errors into one line on stderr and exit code 2.
+
+    click's own exceptions (usage errors, ``Abort``) and ``SystemExit`` pass
+    through. With ``ARCHIVIST_TRACEBACK=1`` an unexpected error is re-raised.
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         try:
             return func(*args, **kwargs)
         except ArchivistError as exc:
-            click.echo(f"archivist: {exc}", err=True)
-            sys.exit(2)
+            fail(exc)
+        except (click.ClickException, click.exceptions.Abort, click.exceptions.Exit):
+            raise
+        except OSError as exc:
+            fail(os_error_line(exc))
+        except Exception as exc:  # the last fence: a bug must not show a mapper a traceback
+            if os.environ.get(TRACEBACK_VARIABLE, "") not in ("", "0"):
+                raise
+            detail = " ".join(str(exc).split())
+            fail(f"internal error ({type(exc).__name__}{': ' + detail if detail else ''}); "
+                 f"please report it; set {TRACEBACK_VARIABLE}=1 to see the traceback")
 
     return wrapper
 

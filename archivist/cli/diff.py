@@ -11,16 +11,28 @@ from pathlib import Path
 import click
 
 from ..errors import ArchivistError
-from ..fsutil import atomic_write_text, guard_output
+from ..fsutil import atomic_write_text, guard_output, write_failed
 from .audit import limit_options, make_limits
 
 
 def _write_gpkg_atomically(target: Path, write) -> None:
-    """Write a GeoPackage in a hidden sibling folder (keeping the .gpkg name GDAL expects), then move it into place."""
-    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    """Write a GeoPackage in a hidden sibling folder (keeping the .gpkg name GDAL expects), then move it into place.
+
+    Failing to make, fill or rename it is one ``ArchivistError`` naming ``target``.
+    """
+    from pyogrio.errors import DataLayerError, DataSourceError
+
+    try:
+        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent))
+    except OSError as exc:
+        raise write_failed(target, exc) from None
     try:
         write(tmp / target.name)
         os.replace(tmp / target.name, target)
+    except OSError as exc:
+        raise write_failed(target, exc) from None
+    except (DataSourceError, DataLayerError) as exc:
+        raise ArchivistError(f"{target}: cannot write ({' '.join(str(exc).split())})") from None
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
 

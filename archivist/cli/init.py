@@ -6,6 +6,7 @@ from pathlib import Path
 
 import click
 
+from ..printable import printable
 from ..scaffold import write_manifest
 
 
@@ -25,16 +26,17 @@ def init_command(path):
     @handle_errors
     def run():
         target, inf = write_manifest(path)
-        click.echo(f"Wrote {target}")
+        click.echo(f"Wrote {printable(target)}")
         order = ("units", "lines", "extent", "samples", "structures", "legend", "analyses")
         for role in order:
             if role in inf.placed:
-                click.echo(f"  {role:<10}  {inf.placed[role].source.described}")
+                click.echo(f"  {role:<10}  {printable(inf.placed[role].source.described)}")
         if "units" not in inf.placed:
             click.echo("  No unit polygons recognised: name them in [layers.units].")
         for label, why in inf.unplaced:
-            click.echo(f"  not placed: {label} ({why})")
+            click.echo(f"  not placed: {printable(label)} ({printable(why)})")
         n = sum(1 for line in target.read_text(encoding="utf-8").splitlines() if "CONFIRM" in line)
-        click.echo(f"Confirm the {n} line{'s' if n != 1 else ''} marked CONFIRM in {target}, then run: archivist check {target.parent}")
+        click.echo(f"Confirm the {n} line{'s' if n != 1 else ''} marked CONFIRM in {printable(target)}, "
+                   f"then run: archivist check {printable(target.parent)}")
 
     run()

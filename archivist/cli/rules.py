@@ -8,6 +8,7 @@ import sys
 import click
 
 from .. import registry
+from ..printable import printable
 
 
 def _text(info: registry.RuleInfo) -> str:
@@ -72,7 +73,7 @@ def rules_command(rule, fmt):
         try:
             infos = [registry.get_rule(rule)]
         except KeyError:
-            click.echo(f"archivist: no rule '{rule}'; 'archivist rules' lists them", err=True)
+            click.echo(f"archivist: no rule '{printable(rule)}'; 'archivist rules' lists them", err=True)
             sys.exit(2)
     else:
         infos = registry.all_rules()

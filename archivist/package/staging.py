@@ -19,9 +19,17 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator
 
+from ..fsutil import write_failed
+
 
 class Interrupted(BaseException):
     """The run was asked to stop (SIGTERM); raised so every clean-up runs."""
+
+
+def _own_failure(exc: OSError, tmp: Path) -> bool:
+    """Whether ``exc`` is about writing in ``tmp`` (or names no file, as a failed write does)."""
+    name = exc.filename
+    return name is None or str(name) == str(tmp) or str(name).startswith(f"{tmp}{os.sep}")
 
 
 def _staging_name(stem: str, kind: str) -> str:
@@ -66,11 +74,21 @@ def remove(path: Path) -> None:
 
 @contextmanager
 def staging_dir(target: Path) -> Iterator[Path]:
-    """A fresh hidden sibling folder of ``target``; removed on any exit unless it was moved into place."""
+    """A fresh hidden sibling folder of ``target``; removed on any exit unless it was moved into place.
+
+    An OS error in making or filling it is an ``ArchivistError`` naming ``target``.
+    """
     tmp = target.parent / _staging_name(target.name, "part")
-    tmp.mkdir()
+    try:
+        tmp.mkdir()
+    except OSError as exc:
+        raise write_failed(target, exc) from None
     try:
         yield tmp
+    except OSError as exc:
+        if not _own_failure(exc, tmp):
+            raise
+        raise write_failed(target, exc) from None
     finally:
         remove(tmp)
 
@@ -81,6 +99,10 @@ def staging_file(target: Path) -> Iterator[Path]:
     tmp = target.parent / _staging_name(target.name, "part")
     try:
         yield tmp
+    except OSError as exc:
+        if not _own_failure(exc, tmp):
+            raise
+        raise write_failed(target, exc) from None
     finally:
         remove(tmp)
 
@@ -90,8 +112,15 @@ def move_into_place(tmp: Path, target: Path) -> None:
 
     A file is replaced atomically (``os.replace``). A folder cannot be swapped
     atomically: the old one is first renamed aside, the new one renamed in,
-    then the old one removed.
+    then the old one removed. An OS error is an ``ArchivistError`` naming ``target``.
     """
+    try:
+        _move_into_place(tmp, target)
+    except OSError as exc:
+        raise write_failed(target, exc) from None
+
+
+def _move_into_place(tmp: Path, target: Path) -> None:
     if tmp.is_dir() and target.exists():
         aside = target.parent / _staging_name(target.name, "old")
         os.replace(target, aside)

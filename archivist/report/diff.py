@@ -1,6 +1,8 @@
 """Writers for a :class:`~archivist.diff.DiffReport`: text, JSON, and a GeoPackage of the changed areas.
 
-They format what ``archivist.diff`` computed; they compute nothing.
+They format what ``archivist.diff`` computed; they compute nothing. The text
+writer shows every value from the data through :func:`archivist.printable.printable`;
+the JSON writer keeps values exact, with terminal-unsafe characters as ``\\uXXXX``.
 JSON shape: ``schemas/diff.schema.json``.
 """
 
@@ -19,13 +21,14 @@ from rich.console import Console
 from rich.text import Text
 
 from ..diff import LAYER_ORDER, DiffReport
+from ..printable import json_printable, printable
 
 DIFF_CAUTION = "archivist diff lists what differs between the two data sets; whether each change is geologically right is for the mappers to judge."
 STYLE = {"added": "green", "removed": "red"}
 
 
 def render_diff_json(report: DiffReport) -> str:
-    return json.dumps(report.to_dict(), indent=2, ensure_ascii=False) + "\n"
+    return json_printable(json.dumps(report.to_dict(), indent=2, ensure_ascii=False)) + "\n"
 
 
 def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None = None) -> None:
@@ -33,19 +36,19 @@ def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None =
     console = Console(file=stream, force_terminal=color if color else None, no_color=(color is False) or None,
                       highlight=False, soft_wrap=True, emoji=False)
     for note in report.notes:
-        console.print(Text(f"Note: {note}", style="italic"))
-    console.print(Text(f"archivist {report.version} diff: {report.old} -> {report.new}", style="bold"))
-    console.print(f"Map CRS: {report.crs or 'not declared'}")
+        console.print(Text(f"Note: {printable(note)}", style="italic"))
+    console.print(Text(f"archivist {report.version} diff: {printable(report.old)} -> {printable(report.new)}", style="bold"))
+    console.print(Text(f"Map CRS: {printable(report.crs) if report.crs else 'not declared'}"))
     order = {name: i for i, name in enumerate(LAYER_ORDER)}
     changes = sorted(report.changes, key=lambda c: order.get(c.layer, 99))
     for layer, items in groupby(changes, key=lambda c: c.layer):
         items = list(items)
         console.print()
-        console.print(Text(f"{layer} ({len(items)})", style="bold underline"))
+        console.print(Text(f"{printable(layer)} ({len(items)})", style="bold underline"))
         for c in items:
             line = Text("  ")
-            line.append(f"{c.change:<22}", style=STYLE.get(c.change.rsplit("-", 1)[-1], "yellow"))
-            line.append(f" {c.message}")
+            line.append(f"{printable(c.change):<22}", style=STYLE.get(c.change.rsplit("-", 1)[-1], "yellow"))
+            line.append(f" {printable(c.message)}")
             if c.x is not None and c.y is not None:
                 line.append(f"  [at {c.x:.1f}, {c.y:.1f}]", style="dim")
             console.print(line)
@@ -53,8 +56,8 @@ def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None =
     if not report.changes:
         console.print(Text("No changes.", style="green"))
     else:
-        counts = ", ".join(f"{n} {kind}" for kind, n in report.counts.items())
-        console.print(f"{len(report.changes)} change{'s' if len(report.changes) != 1 else ''}: {counts}.")
+        counts = ", ".join(f"{n} {printable(kind)}" for kind, n in report.counts.items())
+        console.print(Text(f"{len(report.changes)} change{'s' if len(report.changes) != 1 else ''}: {counts}."))
     console.print(Text(DIFF_CAUTION, style="dim"))
 
 

@@ -1,6 +1,10 @@
 """Text report: findings grouped by family, errors first, counts at the end.
 
 Colour only on a terminal and never under NO_COLOR (rich honours both).
+Every value that comes from the data (project path, CRS name, notes,
+messages) passes through :func:`archivist.printable.printable` and is printed
+as rich ``Text``, never as markup: the only control sequences in the output
+are the writer's own newlines and colour codes.
 """
 
 from __future__ import annotations
@@ -13,6 +17,7 @@ from rich.console import Console
 from rich.text import Text
 
 from ..model import Report, Severity
+from ..printable import printable
 from ..registry import FAMILIES
 
 CAUTION = (
@@ -38,20 +43,20 @@ def write_text(report: Report, stream: IO[str], *, color: bool | None = None) ->
         emoji=False,
     )
     for note in report.notes:
-        console.print(Text(f"Note: {note}", style="italic"))
-    console.print(Text(f"archivist {report.version}: {report.project}", style="bold"))
-    console.print(f"Map CRS: {report.crs or 'not declared'}")
+        console.print(Text(f"Note: {printable(note)}", style="italic"))
+    console.print(Text(f"archivist {report.version}: {printable(report.project)}", style="bold"))
+    console.print(Text(f"Map CRS: {printable(report.crs) if report.crs else 'not declared'}"))
     order = {f: i for i, f in enumerate(FAMILIES)}
     by_family = sorted(report.findings, key=lambda f: (order.get(f.family, 99), f.severity.rank, f.rule))
     for family, items in groupby(by_family, key=lambda f: f.family):
         items = list(items)
         console.print()
-        console.print(Text(f"{family} ({len(items)})", style="bold underline"))
+        console.print(Text(f"{printable(family)} ({len(items)})", style="bold underline"))
         for f in items:
             line = Text("  ")
             line.append(f"{f.severity.value:<7}", style=STYLE[f.severity])
-            line.append(f" {f.rule}: ", style="bold")
-            line.append(f.message)
+            line.append(f" {printable(f.rule)}: ", style="bold")
+            line.append(printable(f.message))
             if f.x is not None and f.y is not None:
                 line.append(f"  [at {f.x:.1f}, {f.y:.1f}]", style="dim")
             console.print(line)

@@ -39,6 +39,7 @@ import numpy as np
 import shapely
 from shapely.ops import substring
 
+from ..farcoords import far_out
 from ..model import Hit
 from ..registry import rule
 from .topology import (
@@ -220,6 +221,7 @@ def _line_geoms(layer) -> np.ndarray:
     g = collections_as(np.array(layer.geometry, dtype=object, copy=True), linear_parts, shapely.multilinestrings)
     g[~np.isin(shapely.get_type_id(g), (LINESTRING, MULTILINESTRING))] = None
     g[shapely.is_empty(g)] = None
+    g[far_out(layer.geometry, layer.crs)[0]] = None  # reported by coordinates-implausible
     return g
 
 

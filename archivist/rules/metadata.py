@@ -9,8 +9,9 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..farcoords import coordinate_limit, far_out
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
-from ..model import Hit
+from ..model import Hit, Severity
 from ..project import EXPECTED_GEOMETRY
 from ..registry import all_rules, rule
 
@@ -592,4 +593,90 @@ def formula_like_value(project, ctx):
                 f"{'them' if n != 1 else 'it'} as {'formulas' if n != 1 else 'a formula'}.",
                 layer=role,
                 features=tuple(str(ids[i]) for i in hit[:20]) if ids is not None else (),
+            )
+
+
+@rule("layer-empty", family="metadata", severity="warning")
+def layer_empty(project, ctx):
+    """A layer named in the manifest is there but holds no feature.
+
+    Catches
+    -------
+    A layer of any role (units, lines, extent, samples, structures) with
+    zero features, often a layer exported before it was filled, or the wrong
+    one of two layers of similar name. An empty units layer is an error (a
+    geological map without unit polygons has nothing to check or publish); an
+    empty layer of another role is a warning. The checks that need the empty
+    layer are not run, so this is the one finding about it. Empty tables
+    (legend, analyses) are not covered by this rule; a layer whose features
+    all lack geometry is `geometry-missing`.
+
+    Why it matters
+    --------------
+    Every check of the layer passes trivially, and checks that compare other
+    layers with it (contacts against unit boundaries, legend against units)
+    report a flood of problems whose one cause is the empty layer.
+
+    Fix
+    ---
+    Point the manifest at the layer that holds the features, or export the
+    layer again from the GIS project.
+
+    Example
+    -------
+    A units layer `map.gpkg:units` with no rows gives "units layer
+    map.gpkg:units has no features; the checks that need it were not run".
+    """
+    for role, layer in project.layers.items():
+        if len(layer.frame) == 0:
+            yield Hit(
+                f"{role} layer {layer.source} has no features; the checks that need it were not run.",
+                layer=role,
+                severity=Severity.ERROR if role == "units" else Severity.WARNING,
+            )
+
+
+@rule("coordinates-implausible", family="metadata", severity="error")
+def coordinates_implausible(project, ctx):
+    """A feature has a coordinate that is not a finite number, or lies far beyond any extent of its CRS.
+
+    Catches
+    -------
+    Vertices that are infinite or not a number, and x or y values beyond
+    ±720 degrees in a geographic CRS or beyond ±1e9 map units in any other
+    (25 times the Earth's circumference in metres), usually a unit mix-up, a
+    typed-in exponent or a broken import. The features are left out of the
+    topology and linework checks, which report everything else. A place that
+    is merely wrong but within these bounds is for `crs-outside-area-of-use`;
+    Z and M values are not looked at.
+
+    Why it matters
+    --------------
+    Areas and lengths of such a feature overflow to infinity, GEOS refuses to
+    work on it, and a GIS zoomed to the layer shows nothing; the feature is
+    effectively lost while its attributes remain.
+
+    Fix
+    ---
+    Correct the vertex from the field data or the source file, or delete the
+    feature if it is spurious.
+
+    Example
+    -------
+    A unit polygon with a corner at 1e300 gives "units feature 3
+    (map.gpkg:units) has a coordinate of 1e+300, far beyond ±1e+09 map units
+    for its CRS".
+    """
+    for role, layer in project.layers.items():
+        mask, largest = far_out(layer.geometry, layer.crs)
+        limit = coordinate_limit(layer.crs)
+        unit = "degrees" if layer.crs is not None and layer.crs.is_geographic else "map units"
+        for i in np.flatnonzero(mask):
+            fid = layer.ids[i]
+            value = "a coordinate that is not a finite number" if not np.isfinite(largest[i]) else f"a coordinate of {largest[i]:.4g}"
+            yield Hit(
+                f"{role} feature {fid} ({layer.source}) has {value}, far beyond ±{limit:.4g} {unit} for its CRS; "
+                "it is left out of the topology and linework checks.",
+                layer=role,
+                features=(fid,),
             )

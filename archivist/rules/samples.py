@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..farcoords import far_out
 from ..model import Hit, Severity
 from ..readers import as_text, text_column
 from ..registry import rule
@@ -631,7 +632,7 @@ def sample_outside_extent(project, ctx):
         return
     role = _extent_role(project, ctx)
     geoms = layer.geometry
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & ~far_out(geoms, layer.crs)[0]  # coordinates-implausible
     idx = np.flatnonzero(ok)
     dist = shapely.distance(extent, geoms[idx])
     far = dist > ctx.tolerance

@@ -43,6 +43,7 @@ import pandas as pd
 import shapely
 
 from ..errors import ArchivistError
+from ..farcoords import far_out
 from ..model import Hit
 from ..readers import as_text
 from ..registry import rule
@@ -296,7 +297,8 @@ def get_units(project, ctx) -> Units:
     def compute():
         layer = project.layers["units"]
         geoms = polygonal(layer.geometry, layer.valid)
-        rows = np.flatnonzero(~shapely.is_missing(geoms))
+        # features with coordinates no map can have are reported by coordinates-implausible
+        rows = np.flatnonzero(~shapely.is_missing(geoms) & ~far_out(layer.geometry, layer.crs)[0])
         codes = None
         values = text_values(layer, "unit_field")
         if values is not None:
@@ -459,7 +461,7 @@ def extent_of(project, union) -> tuple[Any, bool]:
     layer = project.layers.get("extent")
     if layer is not None:
         geoms = polygonal(layer.geometry, layer.valid)
-        geoms = geoms[~shapely.is_missing(geoms)]
+        geoms = geoms[~shapely.is_missing(geoms) & ~far_out(layer.geometry, layer.crs)[0]]
         if len(geoms):
             return shapely.union_all(geoms), True
     if union is None or shapely.is_empty(union):
