@@ -312,8 +312,8 @@ def _refuse_remote(path: str) -> None:
         raise VectorReadError(f"'{path}' is not a file inside the archive; archivist opens nothing else from an archive")
 
 
-# Configuration options, each documented in GDAL's configuration option list (gdal.org/user/configoptions.html)
-# or its driver pages, as read for GDAL 3.12:
+# GDAL configuration options (names as GDAL 3.12 reads them; GDAL_SKIP and the two CPL_VSIL_CURL_* options
+# are each tested in tests/test_vectorio.py; the SQLite ones restate GDAL's defaults and are not tested apart):
 FENCE_OPTIONS: dict[str, str] = {
     # /vsicurl/ and the file systems built on it (and http:// paths, which GDAL opens through it)
     # only open a file with exactly this name or one of these extensions: nothing is ever fetched.

@@ -4,8 +4,11 @@ Outside references: the SQLite file format (sqlite.org/fileformat2.html): the
 header string (section 1.3), the write/read version bytes 18-19 (1 rollback,
 2 WAL, section 1.3) and the WAL header magic and frame layout (section 4.1);
 SQLite's temporary files page (sqlite.org/tempfiles.html) for the ``-wal``,
-``-shm`` and ``-journal`` names; GDAL's configuration options and GeoPackage
-driver open options, as documented for GDAL 3.12.
+``-shm`` and ``-journal`` names; GDAL 3.12's GeoPackage open option
+``IMMUTABLE`` (from the driver's own option list) and its configuration
+options ``GDAL_SKIP`` (read while drivers are registered) and
+``CPL_VSIL_CURL_ALLOWED_FILENAME`` / ``CPL_VSIL_CURL_ALLOWED_EXTENSIONS``,
+each tested here for the effect relied on.
 """
 
 from __future__ import annotations
@@ -308,6 +311,21 @@ def test_fence_makes_no_network_connection(tmp_path):
         server.close()
 
 
+@pytest.mark.parametrize("option", ["CPL_VSIL_CURL_ALLOWED_FILENAME", "CPL_VSIL_CURL_ALLOWED_EXTENSIONS"])
+def test_each_network_option_alone_keeps_vsicurl_off_the_network(option):
+    server = _listening_socket()
+    port = server.getsockname()[1]
+    pyogrio.set_gdal_config_options({option: vectorio.FENCE_OPTIONS[option], "GDAL_HTTP_TIMEOUT": "1", "GDAL_HTTP_MAX_RETRY": "0"})
+    try:
+        with pytest.raises(Exception):
+            pyogrio.list_layers(f"/vsicurl/http://127.0.0.1:{port}/{option.lower()}.gpkg")
+        assert _connections(server) == 0
+    finally:
+        pyogrio.set_gdal_config_options({option: None, "GDAL_HTTP_TIMEOUT": None, "GDAL_HTTP_MAX_RETRY": None})
+        server.close()
+
+
+@pytest.mark.filterwarnings("ignore::RuntimeWarning")
 def test_fence_the_connection_is_really_possible_without_it():
     # The listening socket does see GDAL's connections when the fence is off (so the test above means something).
     server = _listening_socket()
