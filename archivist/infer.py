@@ -17,9 +17,9 @@ from pathlib import Path
 from typing import Any
 
 import pandas as pd
-import pyogrio
 import pyproj
 
+from . import vectorio
 from .fileset import SIDE_FILE_SUFFIXES
 from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table
 
@@ -109,9 +109,9 @@ class Source:
         if self._frame is not None:
             return self._frame[column] if column in self._frame.columns else pd.Series([], dtype=object)
         try:
-            df = pyogrio.read_dataframe(self.path, layer=self.layer, columns=[column], read_geometry=False, max_features=SAMPLE_ROWS)
+            df = vectorio.read_dataframe(self.path, layer=self.layer, columns=[column], read_geometry=False, max_features=SAMPLE_ROWS)
             return df[column] if column in df.columns else pd.Series([], dtype=object)
-        except Exception:  # noqa: BLE001 - a layer GDAL lists but cannot read: no values to look at
+        except vectorio.VectorReadError:  # a layer GDAL lists but cannot read: no values to look at
             return pd.Series([], dtype=object)
 
     def spec(self) -> dict[str, Any]:
@@ -193,9 +193,9 @@ def _geometry_family(path: Path, layer: str, gtype: str) -> str:
     try:
         import shapely
 
-        df = pyogrio.read_dataframe(path, layer=layer, columns=[], max_features=SAMPLE_ROWS)
+        df = vectorio.read_dataframe(path, layer=layer, columns=[], max_features=SAMPLE_ROWS)
         ids = shapely.get_type_id(df.geometry.values[~df.geometry.isna().to_numpy()])
-    except Exception:  # noqa: BLE001 - unreadable: leave the declared type, it will be listed as not placed
+    except (vectorio.VectorReadError, AttributeError):  # unreadable, or no geometry: leave the declared type, it will be listed as not placed
         return g
     families = Counter(FAMILY_OF_TYPE_ID.get(int(i)) for i in ids if int(i) in FAMILY_OF_TYPE_ID)
     return families.most_common(1)[0][0] if families else g
@@ -215,16 +215,16 @@ def scan(root: Path, only: Path | None = None) -> tuple[list[Source], list[tuple
             continue
         if suffix in VECTOR_SUFFIXES:
             try:
-                layers = pyogrio.list_layers(path)
-            except Exception:  # noqa: BLE001 - GDAL raises several kinds for a file it cannot open
-                other.append((rel, "not readable as a vector layer"))
+                layers = vectorio.list_layers(path, label=rel)
+            except vectorio.VectorReadError as exc:
+                other.append((rel, f"not readable as a vector layer: {exc}"))
                 continue
             found = []
             for name, gtype in layers:
                 name = str(name)
                 try:
-                    info = pyogrio.read_info(path, layer=name)
-                except Exception:  # noqa: BLE001
+                    info = vectorio.read_info(path, layer=name, label=rel)
+                except vectorio.VectorReadError:
                     other.append((f"{rel}:{name}", "cannot be read"))
                     continue
                 fields = [str(f) for f in info["fields"]]
@@ -313,8 +313,15 @@ def _legend(sources: list[Source]) -> tuple[Source | None, str | None]:
 
 
 def infer(path: Path) -> Inference:
-    """Guess a manifest for the project folder ``path``, or for the GeoPackage ``path`` alone."""
-    path = Path(path)
+    """Guess a manifest for the project folder ``path``, or for the GeoPackage ``path`` alone.
+
+    Files are read through :mod:`archivist.vectorio` in one session: nothing in the folder changes.
+    """
+    with vectorio.reading():
+        return _infer(Path(path))
+
+
+def _infer(path: Path) -> Inference:
     if path.is_file():
         root, only = path.parent, path
         title = path.stem

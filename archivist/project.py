@@ -16,11 +16,11 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import pandas as pd
-import pyogrio
 import pyproj
 import shapely
 
 from . import manifest as mf
+from . import vectorio
 from .model import Hit
 from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
@@ -209,9 +209,9 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
     if path.suffix.lower() in TABLE_SUFFIXES and spec.get("x_field"):
         return _layer_from_table(path, role, spec, rel, problems)
     try:
-        names = [str(n) for n, _ in pyogrio.list_layers(path)]
-    except Exception as exc:  # GDAL raises several kinds for a file it cannot open
-        problems.append(Hit(f"layers.{role}: '{rel}' cannot be opened: {exc}.", layer=role, rule="layer-unreadable"))
+        names = [n for n, _ in vectorio.list_layers(path, label=rel)]
+    except vectorio.VectorReadError as exc:
+        problems.append(Hit(f"layers.{role}: {exc}.", layer=role, rule="layer-unreadable"))
         return None
     name = spec.get("layer")
     if name is None:
@@ -231,14 +231,36 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
         )
         return None
     try:
-        frame = pyogrio.read_dataframe(path, layer=name, fid_as_index=True, on_invalid="ignore")
-    except Exception as exc:
-        problems.append(Hit(f"layers.{role}: '{source}' cannot be read: {exc}.", layer=role, rule="layer-unreadable"))
+        frame = vectorio.read_dataframe(path, layer=name, label=rel, fid_as_index=True, on_invalid="ignore")
+    except vectorio.VectorReadError as exc:
+        problems.append(Hit(f"layers.{role}: {exc}.", layer=role, rule="layer-unreadable"))
         return None
     if not isinstance(frame, gpd.GeoDataFrame):
         problems.append(Hit(f"layers.{role}: '{source}' has no geometry column.", layer=role, rule="layer-unreadable"))
         return None
-    return _finish_layer(role, path, source, frame, spec, problems)
+    attributes = True
+    if path.suffix.lower() == ".shp":
+        attributes = _shapefile_sidecars(role, path, rel, problems)
+    return _finish_layer(role, path, source, frame, spec, problems, attributes=attributes)
+
+
+def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit]) -> bool:
+    """Report a missing ``.dbf`` or an unusable ``.prj`` beside a shapefile; False when there are no attributes."""
+    prj = vectorio.prj_problem(path)
+    if prj:
+        problems.append(Hit(f"layers.{role}: {prj}; save the layer again from the GIS with its CRS.", layer=role, rule="layer-unreadable"))
+    if vectorio.sidecar(path, ".dbf") is None:
+        dbf = Path(rel).with_suffix(".dbf").as_posix()
+        problems.append(
+            Hit(
+                f"layers.{role}: '{dbf}' is missing beside '{rel}', so the attributes of its features (unit codes and every other field) "
+                "cannot be read; copy the .dbf from where the shapefile came from.",
+                layer=role,
+                rule="layer-unreadable",
+            )
+        )
+        return False
+    return True
 
 
 def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, problems: list[Hit]) -> Layer | None:
@@ -266,8 +288,12 @@ def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, pro
     return _finish_layer(role, path, rel, gdf, spec, problems)
 
 
-def _finish_layer(role, path, source, frame, spec, problems) -> Layer:
-    for key in mf.REQUIRED_FIELDS.get(role, ()):
+def _finish_layer(role, path, source, frame, spec, problems, *, attributes: bool = True) -> Layer:
+    """A :class:`Layer` from a read frame; fields the manifest names but the data lacks become hits.
+
+    ``attributes`` False (a shapefile without its .dbf) reports no missing field: the cause is reported once.
+    """
+    for key in mf.REQUIRED_FIELDS.get(role, ()) if attributes else ():
         col = spec.get(key)
         if col is not None and col not in frame.columns:
             problems.append(
@@ -277,7 +303,7 @@ def _finish_layer(role, path, source, frame, spec, problems) -> Layer:
                     rule="field-missing",
                 )
             )
-    for key, col in spec.items():
+    for key, col in spec.items() if attributes else ():
         if key.endswith("_field") and key not in mf.REQUIRED_FIELDS.get(role, ()) and key not in mf.LAYER_DEFAULTS.get(role, {}):
             if col not in frame.columns and key not in ("x_field", "y_field"):
                 problems.append(Hit(f"layers.{role}: field '{col}' ({key}) is not in '{source}'.", layer=role, rule="field-missing"))
@@ -339,7 +365,11 @@ def load_project(path: str | Path, *, progress: Progress | None = None) -> MapPr
     ['extent', 'lines', 'samples', 'structures', 'units']
     """
     root, manifest_path = mf.find_manifest(path)
-    progress = progress or Progress()
+    with vectorio.reading():  # private copies of changing SQLite inputs live until the load ends
+        return _load(root, manifest_path, progress or Progress())
+
+
+def _load(root: Path, manifest_path: Path | None, progress: Progress) -> MapProject:
     problems: list[Hit] = []
     notes: list[str] = []
     if manifest_path is not None:

@@ -282,3 +282,73 @@ def xlsx_cell(ws, sample_id: str, header: str):
         if row[0].value == sample_id:
             return ws.cell(row=row[0].row, column=col)
     raise KeyError(sample_id)
+
+
+# ---------------------------------------------------------------- SQLite write-ahead log
+
+# SQLite file format, section 4.1: a WAL file starts with a 32-byte header whose magic number is
+# 0x377f0682 or 0x377f0683; each frame is a 24-byte frame header and one page.
+WAL_MAGIC = (0x377F0682, 0x377F0683)
+
+
+def wal_frames(wal: Path) -> int:
+    """Number of frames in a ``-wal`` file, read from its raw bytes (SQLite file format section 4.1)."""
+    data = Path(wal).read_bytes()
+    if len(data) < 32 or int.from_bytes(data[:4], "big") not in WAL_MAGIC:
+        return 0
+    page_size = int.from_bytes(data[8:12], "big")
+    return (len(data) - 32) // (24 + page_size)
+
+
+def leave_in_wal(gpkg: Path, *statements: str) -> Path:
+    """Switch ``gpkg`` to WAL mode and commit ``statements`` so they stay in its ``-wal``, not checkpointed.
+
+    As a GIS that still has the file open (or crashed) leaves it: a child
+    process opens the file with the ``sqlite3`` module, sets
+    ``journal_mode=WAL`` and ``wal_autocheckpoint=0``, runs the statements,
+    commits and ends with ``os._exit`` without closing, so SQLite neither
+    checkpoints nor deletes the ``-wal``. The GeoPackage's R-tree triggers
+    name SQL functions GDAL provides; they are declared here so the
+    statements compile, and fail if a statement ever makes them run
+    (statements must not change geometries).
+    """
+    import os
+    import sqlite3
+
+    gpkg = Path(gpkg)
+    pid = os.fork()
+    if pid == 0:  # pragma: no cover - runs in the child
+        code = 1
+        try:
+            con = sqlite3.connect(gpkg)
+
+            def refuse(*_):
+                raise sqlite3.OperationalError("geometry functions are not available in this builder")
+
+            for name in ("ST_IsEmpty", "ST_MinX", "ST_MaxX", "ST_MinY", "ST_MaxY"):
+                con.create_function(name, 1, refuse)
+            assert con.execute("PRAGMA journal_mode=WAL").fetchone()[0] == "wal"
+            con.execute("PRAGMA wal_autocheckpoint=0")
+            for sql in statements:
+                con.execute(sql)
+            con.commit()
+            code = 0
+        finally:
+            os._exit(code)
+    _, status = os.waitpid(pid, 0)
+    assert status == 0, "the child writing the WAL failed"
+    assert wal_frames(Path(f"{gpkg}-wal")) > 0, "the -wal holds no frames"
+    return gpkg
+
+
+def folder_state(root: Path) -> dict[str, tuple]:
+    """Every entry under ``root`` (and ``root`` itself): kind, SHA-256 of files, and mtime in ns."""
+    out: dict[str, tuple] = {".": ("dir", None, Path(root).stat().st_mtime_ns)}
+    for p in sorted(Path(root).rglob("*")):
+        st = p.lstat()
+        rel = p.relative_to(root).as_posix()
+        if p.is_file() and not p.is_symlink():
+            out[rel] = ("file", hashlib.sha256(p.read_bytes()).hexdigest(), st.st_mtime_ns)
+        else:
+            out[rel] = ("dir" if p.is_dir() else "other", None, st.st_mtime_ns)
+    return out

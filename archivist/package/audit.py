@@ -38,10 +38,9 @@ from pathlib import Path
 from typing import Any, Iterable
 
 import jsonschema
-import pyogrio
 import pyproj
 
-from .. import registry
+from .. import registry, vectorio
 from ..engine import run_rules
 from ..errors import ArchivistError
 from ..manifest import load_schema, schema_dir
@@ -614,15 +613,17 @@ def _gather_layers(facts: ArchiveFacts, opened: OpenedMap) -> None:
                 facts.held.append(rel)
             continue
         try:
-            layers = pyogrio.list_layers(path)
-        except Exception:
+            with vectorio.untrusted():
+                layers = vectorio.list_layers(path)
+        except vectorio.VectorReadError:
             continue
         for name, gtype in layers:
             if gtype is None:
                 continue
             try:
-                info = pyogrio.read_info(path, layer=str(name))
-            except Exception:
+                with vectorio.untrusted():
+                    info = vectorio.read_info(path, layer=str(name))
+            except vectorio.VectorReadError:
                 continue
             label = f"{rel}:{name}" if len(layers) > 1 or suffix == ".gpkg" else rel
             crs = info.get("crs")

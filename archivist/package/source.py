@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any, Iterator
 
 from .. import manifest as mf
+from .. import vectorio
 from ..errors import ArchivistError
 from ..model import Hit
 from ..project import MapProject, load_project
@@ -164,7 +165,12 @@ def _hold_unsafe_layers(root: Path, held_dir: Path) -> list[str]:
 
 
 def load_archive_project(arc: OpenedArchive) -> OpenedMap:
-    """Load the map inside an opened archive (package or not), safely."""
+    """Load the map inside an opened archive (package or not), safely: GDAL runs fenced (:func:`archivist.vectorio.untrusted`)."""
+    with vectorio.untrusted():
+        return _load_archive_project(arc)
+
+
+def _load_archive_project(arc: OpenedArchive) -> OpenedMap:
     root = arc.content_root()
     bag = is_bag(root)
     data = root / "data" if bag and (root / "data").is_dir() else root

@@ -18,6 +18,7 @@ from pyproj.aoi import AreaOfInterest
 from pyproj.database import query_utm_crs_info
 from shapely.geometry import box
 
+from .. import vectorio
 from ..model import Hit
 from ..project import crs_label
 from ..registry import rule
@@ -220,6 +221,8 @@ def crs_missing(project, ctx):
         assumed = f"; the checks assume the map CRS {_label(project.crs)}" if project.crs is not None else ""
         if layer.spec.get("x_field"):
             how = f': add crs = "EPSG:..." to [layers.{role}]'
+        elif layer.path.suffix.lower() == ".shp" and vectorio.sidecar(layer.path, ".prj") is not None:
+            how = " (its .prj is there but could not be read or understood: see layer-unreadable)"
         elif layer.path.suffix.lower() == ".shp":
             how = " (is the .prj file missing beside the .shp?)"
         else:
