@@ -319,13 +319,14 @@ def _label(spec: dict[str, Any]) -> str:
     return f"{spec['path']}:{inner}" if inner else str(spec["path"])
 
 
-def load_project(path: str | Path, *, progress: Progress | None = None) -> MapProject:
+def load_project(path: str | Path, *, progress: Progress | None = None, manifest: dict[str, Any] | None = None) -> MapProject:
     """Load a map project from its folder or its ``archivist.toml``.
 
     Without a manifest, the roles of the folder's files are inferred from
     their geometry types and field names, and the project's notes say so.
     ``progress`` (an :class:`archivist.progress.Progress`) gets one step per
-    file read.
+    file read. ``manifest``, when given, is used instead of the folder's
+    ``archivist.toml`` (already read and validated by the caller).
 
     Raises
     ------
@@ -342,7 +343,9 @@ def load_project(path: str | Path, *, progress: Progress | None = None) -> MapPr
     progress = progress or Progress()
     problems: list[Hit] = []
     notes: list[str] = []
-    if manifest_path is not None:
+    if manifest is not None:  # read, screened and validated by the caller (an audited archive's manifest)
+        raw = manifest
+    elif manifest_path is not None:
         raw = mf.read_manifest(manifest_path)
         problems.extend(mf.validate_manifest(raw, manifest_path.name))
     else:

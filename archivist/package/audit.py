@@ -50,7 +50,7 @@ from ..progress import Progress
 from ..project import crs_label
 from .bagcheck import BagCheck, file_digest, read_manifest_lines, verify_bag
 from .safe import DEFAULT_LIMITS, Limits, open_archive, sniff_vector
-from .source import AUDIT_MANIFEST, OpenedMap, is_bag, load_archive_project
+from .source import OpenedMap, is_bag, load_archive_project
 
 JSON_CAP = 64 * 1024 * 1024  # metadata files larger than this are not parsed
 TEXT_CAP = 1024 * 1024  # README and licence texts: the first MiB is read
@@ -673,7 +673,6 @@ def gather(opened: OpenedMap) -> ArchiveFacts:
     for m in arc.members:
         if m.name.startswith(prefix):
             members.append(m.name[len(prefix):])
-    members = [m for m in members if m.rsplit("/", 1)[-1] != AUDIT_MANIFEST]
     facts = ArchiveFacts(label=opened.label, kind="package" if is_bag(root) else "archive", members=sorted(members), held=list(opened.held))
     if facts.is_package:
         facts.bag = verify_bag(root)

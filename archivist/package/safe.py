@@ -466,3 +466,126 @@ def sniff_vector(path: Path) -> str | None:
         if text.startswith(b"{"):
             return "geojson"
     return None
+
+
+# ------------------------------------------------------------------ the screen before any reader
+
+# Suffixes of files and folders GDAL may be handed (archivist.readers.VECTOR_SUFFIXES, plus the
+# SQLite and FlatGeobuf spellings sniff_vector knows).
+VECTOR_LIKE = {".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gdb", ".gml", ".kml", ".sqlite", ".db"}
+WORKBOOK_SUFFIXES = {".xlsx", ".xlsm"}
+# Document roots through which GDAL reaches other files or network addresses: the OGR and GDAL
+# virtual formats, the WMS/WCS/WFS service descriptions (GDAL documentation, "VRT -- GDAL Virtual
+# Format", "OGR VRT driver", "WMS", "WCS", "WFS" driver pages).
+FOLLOWING_ROOTS = (b"<OGRVRTDataSource", b"<VRTDataset", b"<GDAL_WMS", b"<WCS_GDAL", b"<OGRWFSDataSource", b"<OGRWFS3DataSource")
+# GDAL's virtual file system and network prefixes (GDAL documentation, "GDAL Virtual File Systems").
+VSI_PREFIXES = (b"/vsi", b"http://", b"https://", b"ftp://", b"file:")
+SNIFF_BYTES = 4096
+# A workbook is itself a zip: its parts are checked like an archive's members before openpyxl reads them.
+WORKBOOK_LIMITS = Limits(max_members=10_000, max_total_bytes=2 * GiB, max_ratio=500.0)
+
+LAYER_WHY = "its content is not a self-contained GeoPackage, shapefile, FlatGeobuf or GeoJSON"
+FOLLOW_WHY = (
+    "its content is a GDAL virtual layer or service description, which can make GDAL read files "
+    "or network addresses outside the archive"
+)
+
+
+def workbook_problem(path: Path) -> str | None:
+    """Why the spreadsheet at ``path`` must not be opened (a zip bomb, a path escape...), or None."""
+    if path.suffix.lower() not in WORKBOOK_SUFFIXES:
+        return None
+    try:
+        inspect_zip(path, WORKBOOK_LIMITS)
+    except ArchivistError as exc:
+        return str(exc).split(": ", 1)[-1].replace("; refusing the archive", "")
+    return None
+
+
+def _follows(head: bytes) -> bool:
+    """True when a file begins with a virtual-file-system path or is XML whose root is one GDAL follows."""
+    text = head.lstrip(b"\xef\xbb\xbf \t\r\n")
+    if text.lower().startswith(VSI_PREFIXES):
+        return True
+    return text.startswith(b"<") and any(root in text for root in FOLLOWING_ROOTS)
+
+
+def open_problem(path: Path) -> str | None:
+    """Why no reader (GDAL, openpyxl) may be handed ``path`` from an untrusted archive, or None.
+
+    A folder with a vector suffix (a File Geodatabase, say) is never opened; a
+    file with a vector suffix is opened only when :func:`sniff_vector` names
+    its format; a workbook must pass the zip checks; and a file of any suffix
+    whose first bytes are a GDAL virtual layer, a service description or a
+    virtual-file-system path is held back, since such a file only points
+    elsewhere.
+
+    Not covered: a self-contained file GDAL opens may still be malformed; the
+    GDAL configuration of the untrusted opens is the second fence for that.
+    """
+    suffix = path.suffix.lower()
+    if path.is_dir():
+        if suffix in VECTOR_LIKE:
+            return "it is a folder in a multi-file vector format, which is not opened in an audit"
+        return None
+    if not path.is_file():
+        return None
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(SNIFF_BYTES)
+    except OSError as exc:
+        return f"it cannot be read ({exc.strerror or exc})"
+    if _follows(head):
+        return FOLLOW_WHY
+    if suffix in WORKBOOK_SUFFIXES:
+        return workbook_problem(path)
+    if suffix in VECTOR_LIKE and sniff_vector(path) is None:
+        return LAYER_WHY
+    return None
+
+
+def screen_tree(root: Path) -> list[tuple[str, str]]:
+    """Every file or folder under ``root``, at any depth, that no reader may be handed: (relative path, why).
+
+    Folders so held are not looked into. Links cannot occur in a private copy
+    made by :func:`open_archive`, and are not followed.
+    """
+    found: list[tuple[str, str]] = []
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
+        here = Path(dirpath)
+        keep = []
+        for name in sorted(dirnames):
+            why = open_problem(here / name)
+            if why:
+                found.append(((here / name).relative_to(root).as_posix() + "/", why))
+            else:
+                keep.append(name)
+        dirnames[:] = keep
+        for name in sorted(filenames):
+            why = open_problem(here / name)
+            if why:
+                found.append(((here / name).relative_to(root).as_posix(), why))
+    return sorted(found)
+
+
+@contextmanager
+def set_aside(root: Path, entries: list[tuple[str, str]], store: Path) -> Iterator[None]:
+    """Move ``entries`` (from :func:`screen_tree`) out of ``root`` into ``store`` for the block, then put them back.
+
+    While they are away no reader can reach them, whatever walks the tree; the
+    copy is whole again afterwards, for the checksum verification.
+    """
+    moved: list[tuple[Path, Path]] = []
+    try:
+        for n, (rel, _) in enumerate(entries):
+            src = root / rel.rstrip("/")
+            if not src.exists():
+                continue  # inside a folder already set aside
+            dest = store / str(n)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            os.rename(src, dest)
+            moved.append((src, dest))
+        yield
+    finally:
+        for src, dest in reversed(moved):
+            os.rename(dest, src)
