@@ -105,6 +105,7 @@ def bare(tmp_path, *, legend=True, licence=None, readme=None, cff=None, files=No
     if cff is not None:
         (root / "CITATION.cff").write_text(cff, encoding="utf-8")
     for name, data in (files or {}).items():
+        (root / name).parent.mkdir(parents=True, exist_ok=True)
         (root / name).write_bytes(data)
     return root
 
@@ -193,6 +194,7 @@ CASES = {
     "archive-description-missing": (bare, lambda t: bare(t, readme="# Tiny map\n\nTwo invented units mapped for the tests of archivist.\n")),
     "archive-format-closed": (lambda t: bare(t, files={"legend.xls": b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504)}), bare),
     "archive-map-missing": (no_map, bare),
+    "archive-file-unopened": (lambda t: bare(t, files={"sub/deeper/units.gpkg": b"<OGRVRTDataSource/>\n"}), bare),
 }
 
 

@@ -73,6 +73,7 @@ class OpenedMap:
     root: Path | None = None
     data: Path | None = None
     held: list[str] = field(default_factory=list)
+    unopened: list[tuple[str, str]] = field(default_factory=list)  # (path relative to root, why), from the screen
 
 
 def is_bag(root: Path) -> bool:
@@ -167,13 +168,22 @@ def load_archive_project(arc: OpenedArchive) -> OpenedMap:
             project = load_project(data)
             # archive-map-missing says this for an archive, with what to ask the authors for
             project.problems = [h for h in project.problems if not (h.rule == "layer-missing" and h.layer == "units")]
-    for rel, why in unsafe:
-        if rel.rstrip("/") in {h.rstrip("/") for h in held}:
-            continue  # named by a layer-unreadable finding already
+    named = {h.rstrip("/") for h in held}
+    unopened = [(rel, why) for rel, why in unsafe if rel.rstrip("/") not in named]  # the others have a layer-unreadable hit
+    for rel, why in unopened:
         held.append(rel)
         project.notes.append(f"{rel} was not opened: {why}.")
     project.notes = [_relabel(n, data, label, prefix) for n in project.notes]
-    return OpenedMap(project=project, kind="package" if bag else "archive", label=label, archive=arc, root=root, data=data, held=held)
+    return OpenedMap(
+        project=project,
+        kind="package" if bag else "archive",
+        label=label,
+        archive=arc,
+        root=root,
+        data=data,
+        held=held,
+        unopened=unopened,
+    )
 
 
 def _relabel(text: str, data: Path, label: str, prefix: str) -> str:

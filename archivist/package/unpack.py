@@ -43,6 +43,7 @@ from ..fsutil import guard_output
 from ..manifest import MANIFEST_NAME
 from .bagcheck import file_digest, verify_bag
 from .safe import Limits, open_archive
+from ..safeparse import LimitExceeded, load_json, load_toml
 from ..tomltext import dump_toml, toml_value
 from .source import is_bag
 
@@ -155,8 +156,6 @@ def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
 
 def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, str | None]:
     """(name-version of the package, its DOI or None)."""
-    import json
-
     stem = root.name
     info = root / "bag-info.txt"
     if info.is_file():
@@ -168,8 +167,8 @@ def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, s
     record = root / "data" / "metadata" / "datacite.json"
     if not doi and record.is_file():
         try:
-            doi = json.loads(record.read_text(encoding="utf-8")).get("doi")
-        except (ValueError, AttributeError):
+            doi = load_json(record, "data/metadata/datacite.json").get("doi")
+        except (ValueError, AttributeError, OSError, LimitExceeded):
             doi = None
     if isinstance(doi, str):
         doi = re.sub(r"^(?:https?://(?:dx\.)?doi\.org/|doi:)", "", doi.strip(), flags=re.I) or None
@@ -223,7 +222,7 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         data = root / "data"
         packaged_text = (data / MANIFEST_NAME).read_text(encoding="utf-8")
         try:
-            packaged = tomllib.loads(packaged_text)
+            packaged = load_toml(packaged_text, f"{label}: data/{MANIFEST_NAME}")
         except tomllib.TOMLDecodeError as exc:
             raise ArchivistError(f"{label}: data/{MANIFEST_NAME} is not valid TOML: {exc}") from None
         origin, base, text = "package", data, packaged_text
@@ -231,11 +230,11 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         if (src / MANIFEST_NAME).is_file():
             try:
                 src_text = (src / MANIFEST_NAME).read_text(encoding="utf-8-sig")
-                src_data = tomllib.loads(src_text)
+                src_data = load_toml(src_text, f"{label}: data/source/{MANIFEST_NAME}")
                 paths = _manifest_paths(src_data)
                 if paths and all((p := _inside(src, rel)) is not None and p.is_file() for rel in paths):
                     origin, base, text = "source", src, src_text
-            except (tomllib.TOMLDecodeError, UnicodeDecodeError):
+            except (tomllib.TOMLDecodeError, UnicodeDecodeError, LimitExceeded):
                 pass
         manifest = tomllib.loads(text)
         files = sorted(set(_manifest_paths(manifest)))

@@ -825,6 +825,46 @@ def archive_format_closed(project, ctx):
         yield Hit(f"{rel} is {what}.", layer=rel, features=(rel,))
 
 
+@rule("archive-file-unopened", family="archive", severity="warning", needs=NEEDS)
+def archive_file_unopened(project, ctx):
+    """Files of the archive were held back unopened or unread, and why.
+
+    Catches
+    -------
+    Every file or folder, at any depth, that the audit did not hand to a
+    reader because it could reach outside the archive or exhaust the machine:
+    a "GeoPackage", GeoJSON, shapefile or other layer whose content is not a
+    self-contained format (a GDAL virtual layer can point at any file or
+    network address), a workbook that fails the zip checks, a folder in a
+    multi-file vector format, and a structured file (`CITATION.cff`) over
+    the size, depth or alias-expansion limits or not parseable. Files a
+    manifest names are reported by `layer-unreadable` instead; the Data
+    Package, DataCite and PROV records by their own rules. It does not say
+    whether the held file was meant harmlessly.
+
+    Why it matters
+    --------------
+    What the audit could not read it could not check: a layer held back may
+    be the map itself, and a metadata file not read may hold the licence or
+    the authors.
+
+    Fix
+    ---
+    Ask the authors for the files in self-contained open formats (GeoPackage,
+    GeoJSON, CSV) and for plain metadata files; a virtual layer or an alias
+    bomb in a deposit is worth reporting to the repository.
+
+    Example
+    -------
+    `sub/units.gpkg` holding GDAL virtual-layer XML gives "sub/units.gpkg was
+    not opened: its content is a GDAL virtual layer or service description,
+    which can make GDAL read files or network addresses outside the archive."
+    """
+    facts = project.archive
+    for rel, why in facts.unread:
+        yield Hit(f"{rel} was not opened: {why}.", layer=rel, features=(rel,))
+
+
 @rule("archive-map-missing", family="archive", severity="error", needs=NEEDS)
 def archive_map_missing(project, ctx):
     """The archive holds no layer of map-unit polygons that archivist can find.
