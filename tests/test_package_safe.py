@@ -493,3 +493,51 @@ def test_archive_layers_at_any_depth_never_reach_outside(tmp_path, private_tmp, 
         assert "GDAL virtual layer" in out
     assert listener.close() == [], "something connected to the listening socket"
     assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+# ---------------------------------------------------------------- names longer than the system allows
+
+def test_name_component_over_255_bytes_refused_in_zip(tmp_path, private_tmp):
+    """NAME_MAX is 255 bytes on Linux (<linux/limits.h>) and on ext4/XFS; a longer name cannot be written."""
+    long_name = "data/" + "é" * 128 + ".csv"  # 256 bytes of UTF-8 in one component
+    archive = zip_with(tmp_path / "long.zip", [("data/a.csv", b"x\n"), (long_name, b"x\n")])
+    for command in ("audit", "unpack"):
+        args = [command, str(archive)] + ([str(tmp_path / "out")] if command == "unpack" else [])
+        result = CliRunner().invoke(cli, args)
+        assert result.exit_code == 2, result.output
+        (line,) = result.stderr.strip().splitlines()
+        assert "longer than 255 bytes" in line and "long.zip" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+def test_path_over_path_max_refused_in_zip(tmp_path, private_tmp):
+    """PATH_MAX is 4096 bytes on Linux (<linux/limits.h>): 25 folders of 200 bytes cannot be created."""
+    deep = "/".join(["d" * 200] * 25) + "/units.csv"
+    archive = zip_with(tmp_path / "deep.zip", [("README.md", b"# deep\n"), (deep, b"x\n")])
+    result = CliRunner().invoke(cli, ["audit", str(archive)])
+    assert result.exit_code == 2, result.output
+    (line,) = result.stderr.strip().splitlines()
+    assert "deep.zip: entry 'ddd" in line and "longer than this system allows" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+def test_path_over_path_max_refused_in_folder(tmp_path, private_tmp):
+    """A folder whose deepest path fits where it is but not in the (longer) private copy."""
+    root = tmp_path / "f"
+    root.mkdir()
+    (root / "README.md").write_text("# deep\n")
+    room = 4095 - len(str(root)) - 1  # bytes left for the relative path under PATH_MAX
+    parts, used = [], 0
+    while used + 201 < room - 20:
+        parts.append("d" * 200)
+        used += 201
+    parts.append("u" * (room - used - 1))
+    rel = "/".join(parts)
+    assert len(str(root / rel)) <= 4095
+    os.makedirs(root / "/".join(parts[:-1]))
+    (root / rel).write_text("x\n")
+    result = CliRunner().invoke(cli, ["audit", str(root)])
+    assert result.exit_code == 2, result.output
+    (line,) = result.stderr.strip().splitlines()
+    assert line.startswith("archivist: f: entry 'ddd") and "longer than this system allows" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []

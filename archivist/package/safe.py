@@ -35,6 +35,7 @@ other files or URLs, is never opened.
 
 from __future__ import annotations
 
+import errno
 import os
 import shutil
 import stat
@@ -151,6 +152,10 @@ class OpenedArchive:
 # ------------------------------------------------------------------ names
 
 _CONTROL = {chr(c) for c in range(32)} | {"\x7f"}
+# The longest file name most file systems store: ext4, XFS, APFS, NTFS (255 bytes or UTF-16 units;
+# Linux <linux/limits.h> NAME_MAX). Longer paths in total (PATH_MAX, 4096 on Linux) are caught when
+# the private copy is written, where the length of the temporary folder's own path is known.
+NAME_MAX = 255
 
 
 def name_problem(name: str) -> str | None:
@@ -168,6 +173,8 @@ def name_problem(name: str) -> str | None:
     parts = PurePosixPath(name).parts
     if any(p == ".." for p in name.split("/")):
         return "has a '..' component that leads outside the archive"
+    if any(len(p.encode("utf-8", "surrogateescape")) > NAME_MAX for p in name.split("/")):
+        return f"has a name longer than {NAME_MAX} bytes, more than file systems allow"
     if not parts:
         return "has an empty name"
     return None
@@ -282,6 +289,29 @@ def _inside(root: Path, rel: str) -> Path:
     return target
 
 
+def _too_long(label: str, rel: str, dest: Path) -> str:
+    shown = rel if len(rel) <= 80 else f"{rel[:56]}...{rel[-20:]}"
+    return (
+        f"{label}: entry '{shown}' ({len(rel.encode())} bytes) makes a path longer than this system allows "
+        f"under the temporary folder {dest.parent.parent}; refusing the archive"
+    )
+
+
+def _make_room(dest: Path, rel: str, label: str) -> Path:
+    """The path of ``rel`` inside ``dest``, its folders created; a path too long for the system is one line."""
+    try:
+        target = _inside(dest, rel.rstrip("/"))
+        if rel.endswith("/"):
+            target.mkdir(parents=True, exist_ok=True)
+        else:
+            target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        if exc.errno == errno.ENAMETOOLONG:
+            raise ArchivistError(_too_long(label, rel, dest)) from None
+        raise ArchivistError(f"{label}: entry '{rel}' cannot be written to the private copy ({exc.strerror or exc})") from None
+    return target
+
+
 def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: Limits) -> list[Member]:
     label = path.name
     members: list[Member] = []
@@ -292,11 +322,9 @@ def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: L
         raise ArchivistError(f"{label}: not a readable zip file ({exc})") from None
     with zf:
         for info in infos:
-            target = _inside(dest, info.filename.rstrip("/"))
+            target = _make_room(dest, info.filename, label)
             if info.is_dir():
-                target.mkdir(parents=True, exist_ok=True)
                 continue
-            target.parent.mkdir(parents=True, exist_ok=True)
             written = 0
             try:
                 with zf.open(info) as src, _open_new(target) as out:
@@ -307,6 +335,8 @@ def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: L
                             raise ArchivistError(f"{label}: entry '{info.filename}' expands beyond its declared size; refusing the archive")
                         out.write(chunk)
             except (zipfile.BadZipFile, zlib.error, EOFError, OSError, ValueError, NotImplementedError) as exc:
+                if isinstance(exc, OSError) and exc.errno == errno.ENAMETOOLONG:
+                    raise ArchivistError(_too_long(label, info.filename, dest)) from None
                 if isinstance(exc, FileExistsError):
                     raise ArchivistError(f"{label}: entry '{info.filename}' would overwrite another entry; refusing the archive") from None
                 reason = str(exc) or type(exc).__name__
@@ -354,18 +384,23 @@ def _copy_folder(path: Path, entries: list[tuple[str, int, bool]], dest: Path, l
     members = []
     total = 0
     for rel, size, is_dir in entries:
-        target = _inside(dest, rel)
+        target = _make_room(dest, rel + "/" if is_dir else rel, label)
         if is_dir:
-            target.mkdir(parents=True, exist_ok=True)
             continue
-        target.parent.mkdir(parents=True, exist_ok=True)
         flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_BINARY", 0)
         try:
             fd = os.open(path / rel, flags)
         except OSError as exc:
             raise ArchivistError(f"{label}: '{rel}' cannot be read ({exc.strerror or exc})") from None
         written = 0
-        with os.fdopen(fd, "rb") as src, _open_new(target) as out:
+        try:
+            out = _open_new(target)
+        except OSError as exc:
+            os.close(fd)
+            if exc.errno == errno.ENAMETOOLONG:
+                raise ArchivistError(_too_long(label, rel, dest)) from None
+            raise ArchivistError(f"{label}: '{rel}' cannot be written to the private copy ({exc.strerror or exc})") from None
+        with os.fdopen(fd, "rb") as src, out:
             if not stat.S_ISREG(os.fstat(src.fileno()).st_mode):
                 raise ArchivistError(f"{label}: '{rel}' changed into something other than a file while being read; refusing the archive")
             while chunk := src.read(CHUNK):
