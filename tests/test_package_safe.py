@@ -541,3 +541,37 @@ def test_path_over_path_max_refused_in_folder(tmp_path, private_tmp):
     (line,) = result.stderr.strip().splitlines()
     assert line.startswith("archivist: f: entry 'ddd") and "longer than this system allows" in line
     assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+# ---------------------------------------------------------------- SIGTERM mid-audit
+
+def test_sigterm_mid_audit_removes_the_private_copy(tmp_path):
+    """A scheduler's SIGTERM while the audit reads the copy: the copy is removed, the process ends by the signal."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    root = tmp_path / "many"
+    root.mkdir()
+    (root / "README.md").write_text("# Many invented tables\n")
+    for i in range(1500):  # reading every table keeps the audit busy for a while after the copy exists
+        (root / f"t{i:04d}.csv").write_text("unit,name\n" + "".join(f"U{j},Unit {j}\n" for j in range(50)))
+    work = tmp_path / "tmp"
+    work.mkdir()
+    env = {**os.environ, "TMPDIR": str(work)}
+    code = "import sys; from archivist.cli import main; sys.exit(main())"
+    proc = subprocess.Popen([sys.executable, "-c", code, "audit", str(root)], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    try:
+        # wait (not a timing assertion) until the private copy has been made, then signal
+        while proc.poll() is None and not any(work.glob("archivist-archive-*/content/t1499.csv")):
+            time.sleep(0.01)
+        assert proc.poll() is None, "the audit ended before it could be signalled"
+        proc.send_signal(signal.SIGTERM)
+        _, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == -signal.SIGTERM, err.decode()
+    assert "Traceback" not in err.decode()
+    assert list(work.iterdir()) == [], "the private copy was left in the temporary folder"

@@ -20,7 +20,7 @@ then does it copy the members, streaming and counting the bytes actually
 produced, into a fresh temporary folder of its own, created with mode 0700.
 Files are written with ``O_EXCL | O_NOFOLLOW`` and without execute bits;
 nothing is run or imported from the archive. The folder is removed when the
-``with`` block ends, whatever happens inside it.
+``with`` block ends, whatever happens inside it, SIGTERM included.
 
 A folder archive is copied the same way, so that the audit works on a private
 snapshot that cannot change under it and GDAL never opens a file in the
@@ -38,8 +38,10 @@ from __future__ import annotations
 import errno
 import os
 import shutil
+import signal
 import stat
 import tempfile
+import threading
 import unicodedata
 import zipfile
 import zlib
@@ -49,6 +51,7 @@ from pathlib import Path, PurePosixPath
 from typing import Iterator
 
 from ..errors import ArchivistError
+from .staging import Interrupted, terminate_as_exception
 
 SYSTEM_CLUTTER = {"__MACOSX", ".DS_Store", "Thumbs.db", "desktop.ini"}
 GiB = 1024**3
@@ -454,20 +457,28 @@ def open_archive(path: str | Path, limits: Limits | None = None, *, workdir: str
         need = sum(i.file_size for i in infos)
     else:
         raise ArchivistError(f"{source}: not a zip file or a folder")
-    tmp = Path(tempfile.mkdtemp(prefix="archivist-archive-", dir=workdir))
     try:
-        free = shutil.disk_usage(tmp).free
-        if need > free:
-            raise ArchivistError(f"{source.name}: needs {_size(need)} to extract but {tmp.parent} has {_size(free)} free")
-        root = tmp / "content"
-        root.mkdir()
-        if kind == "folder":
-            members = _copy_folder(source.resolve(), entries, root, limits)
-        else:
-            members = _extract_zip(source, infos, root, limits)
-        yield OpenedArchive(source=source, kind=kind, root=root, members=members)
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+        # SIGTERM (a scheduler's time limit, `kill`) raises inside the block so the copy is removed;
+        # the signal is then delivered again to whatever handled it before (by default: the process ends).
+        with terminate_as_exception():
+            tmp = Path(tempfile.mkdtemp(prefix="archivist-archive-", dir=workdir))
+            try:
+                free = shutil.disk_usage(tmp).free
+                if need > free:
+                    raise ArchivistError(f"{source.name}: needs {_size(need)} to extract but {tmp.parent} has {_size(free)} free")
+                root = tmp / "content"
+                root.mkdir()
+                if kind == "folder":
+                    members = _copy_folder(source.resolve(), entries, root, limits)
+                else:
+                    members = _extract_zip(source, infos, root, limits)
+                yield OpenedArchive(source=source, kind=kind, root=root, members=members)
+            finally:
+                shutil.rmtree(tmp, ignore_errors=True)
+    except Interrupted:
+        if threading.current_thread() is threading.main_thread():
+            os.kill(os.getpid(), signal.SIGTERM)
+        raise
 
 
 # ------------------------------------------------------------------ what GDAL may open
