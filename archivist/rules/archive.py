@@ -168,6 +168,50 @@ def bag_structure_invalid(project, ctx):
         yield Hit(p.message, layer=p.file)
 
 
+@rule("bag-tags-unprotected", family="archive", severity="warning", needs=NEEDS)
+def bag_tags_unprotected(project, ctx):
+    """Tag files of a bag are covered by no tag manifest.
+
+    Catches
+    -------
+    A BagIt bag without any `tagmanifest-<algorithm>.txt`, or whose tag
+    manifests leave out tag files (`bag-info.txt`, `bagit.txt`, the payload
+    manifests, other tag files). RFC 8493 (2.2.1) allows a bag without a tag
+    manifest; what is lost is named: a change to those files cannot be
+    detected. It does not say whether they were changed.
+
+    Why it matters
+    --------------
+    The payload manifest is what proves the data intact; if nothing protects
+    it, whoever changes a data file can change its line in the manifest too,
+    and the bag still verifies. archivist packages always carry a tag
+    manifest, so its absence there means it was removed.
+
+    Fix
+    ---
+    Ask the repository for the bag as deposited, or for its tag manifest; a
+    bag you make yourself should have `tagmanifest-sha256.txt`.
+
+    Example
+    -------
+    A package whose `tagmanifest-sha256.txt` was deleted gives "The bag has
+    no tag manifest: nothing protects bag-info.txt, bagit.txt,
+    manifest-sha256.txt: a change to them ... cannot be detected".
+    """
+    facts = project.archive
+    if facts.bag is None or not facts.bag.unprotected:
+        return
+    files = facts.bag.unprotected
+    has_tag = any(m.startswith("tagmanifest-") for m in facts.members if "/" not in m)
+    what = "No tag manifest lists" if has_tag else "The bag has no tag manifest: nothing protects"
+    yield Hit(
+        f"{what} {_first(files)}: a change to them, the payload manifests included, cannot be detected "
+        "(RFC 8493 allows this; the checksums in the payload manifest are then only as trustworthy as the manifest itself).",
+        layer=files[0],
+        features=tuple(files),
+    )
+
+
 @rule("package-part-missing", family="archive", severity="error", needs=NEEDS)
 def package_part_missing(project, ctx):
     """An archivist package lacks one of the files its layout always has.
