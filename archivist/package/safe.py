@@ -26,6 +26,9 @@ A folder archive is copied the same way, so that the audit works on a private
 snapshot that cannot change under it and GDAL never opens a file in the
 user's folder.
 
+:func:`screen_tree` runs over the whole private copy, at every depth, before
+any reader is handed a file: :func:`open_problem` names what must not be
+opened, and :func:`set_aside` keeps it out of reach while the map is read.
 :func:`sniff_vector` guards every GDAL open in an audit: a file is read as a
 layer only when its first bytes are those of a self-contained format
 (GeoPackage/SQLite, shapefile, FlatGeobuf, GeoJSON). A file that merely bears

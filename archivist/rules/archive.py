@@ -918,7 +918,8 @@ def archive_map_missing(project, ctx):
     Archives in which no manifest names a unit layer and no polygon layer
     with a unit field (`unit`, `code`, `formation`...) is found among the
     files archivist can open safely (GeoPackage, shapefile, FlatGeobuf,
-    GeoJSON at the top of the archive).
+    GeoJSON, in the folders the role guessing looks into; files held back
+    unopened are listed by `archive-file-unopened`).
 
     Why it matters
     --------------
