@@ -19,6 +19,7 @@ import jsonschema
 
 from .errors import ArchivistError
 from .model import Hit
+from .safeparse import load_toml
 
 MANIFEST_NAME = "archivist.toml"
 
@@ -75,19 +76,21 @@ def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
 
 
 def read_manifest(path: Path) -> dict[str, Any]:
-    """Parse the TOML of a manifest. A syntax error is an ArchivistError naming file and line."""
+    """Parse the TOML of a manifest within :mod:`archivist.safeparse`'s limits.
+
+    A syntax error, an unreadable file, a text that is not UTF-8 and a
+    manifest over a limit (size, nesting depth) are each an ArchivistError of
+    one line naming the file.
+    """
     try:
-        raw = path.read_bytes()
+        data = load_toml(path, str(path))
     except OSError as exc:
-        raise ArchivistError(f"{path}: cannot read the manifest ({exc.strerror})") from None
-    try:
-        text = raw.decode("utf-8-sig")
+        raise ArchivistError(f"{path}: cannot read the manifest ({exc.strerror or exc})") from None
     except UnicodeDecodeError as exc:
         raise ArchivistError(f"{path}: the manifest is not UTF-8 (byte offset {exc.start})") from None
-    try:
-        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ArchivistError(f"{path}: not valid TOML: {exc}") from None
+    return data
 
 
 def key_path(parts) -> str:

@@ -345,13 +345,14 @@ def _label(spec: dict[str, Any]) -> str:
     return f"{spec['path']}:{inner}" if inner else str(spec["path"])
 
 
-def load_project(path: str | Path, *, progress: Progress | None = None) -> MapProject:
+def load_project(path: str | Path, *, progress: Progress | None = None, manifest: dict[str, Any] | None = None) -> MapProject:
     """Load a map project from its folder or its ``archivist.toml``.
 
     Without a manifest, the roles of the folder's files are inferred from
     their geometry types and field names, and the project's notes say so.
     ``progress`` (an :class:`archivist.progress.Progress`) gets one step per
-    file read.
+    file read. ``manifest``, when given, is used instead of the folder's
+    ``archivist.toml`` (already read and validated by the caller).
 
     Raises
     ------
@@ -366,13 +367,15 @@ def load_project(path: str | Path, *, progress: Progress | None = None) -> MapPr
     """
     root, manifest_path = mf.find_manifest(path)
     with vectorio.reading():  # private copies of changing SQLite inputs live until the load ends
-        return _load(root, manifest_path, progress or Progress())
+        return _load(root, manifest_path, progress or Progress(), manifest)
 
 
-def _load(root: Path, manifest_path: Path | None, progress: Progress) -> MapProject:
+def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dict[str, Any] | None) -> MapProject:
     problems: list[Hit] = []
     notes: list[str] = []
-    if manifest_path is not None:
+    if given is not None:  # read, screened and validated by the caller (an audited archive's manifest)
+        raw = given
+    elif manifest_path is not None:
         raw = mf.read_manifest(manifest_path)
         problems.extend(mf.validate_manifest(raw, manifest_path.name))
     else:

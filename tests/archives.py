@@ -155,3 +155,61 @@ def set_central_field(path: Path, member: str, field_offset: int, fmt: str, valu
 
 def tree_names(root: Path) -> set[str]:
     return {p.relative_to(root).as_posix() for p in Path(root).rglob("*")}
+
+
+# ---------------------------------------------------------------- archives that try to reach outside
+
+def vrt_over(source: str, layer: str, geometry: str = "wkbPolygon") -> str:
+    """An OGR VRT document exposing ``layer`` of ``source`` with geometries from its WKT field.
+
+    The elements are those of GDAL's "VRT -- Virtual Format" vector driver page
+    (OGRVRTDataSource, OGRVRTLayer, SrcDataSource, SrcLayer, GeometryType,
+    GeometryField encoding="WKT").
+    """
+    return (
+        f'<OGRVRTDataSource><OGRVRTLayer name="{layer}"><SrcDataSource>{source}</SrcDataSource>'
+        f"<SrcLayer>{Path(source).stem}</SrcLayer><GeometryType>{geometry}</GeometryType>"
+        '<GeometryField encoding="WKT" field="WKT"/></OGRVRTLayer></OGRVRTDataSource>\n'
+    )
+
+
+def outside_secret(folder: Path, token: str) -> Path:
+    """A CSV outside any archive whose unit codes are ``token``: GDAL's CSV driver reads its WKT column."""
+    path = Path(folder) / "secret.csv"
+    path.write_text(
+        f'unit,kind,WKT\n{token},contact,"POLYGON ((0 0, 100 0, 100 100, 0 0))"\n'
+        f'{token}B,fault,"POLYGON ((0 0, 100 100, 0 100, 0 0))"\n',
+        encoding="utf-8",
+    )
+    return path
+
+
+def plant_reaching_layers(root: Path, secret: Path, url: str) -> list[str]:
+    """Write layers under ``root``, at several depths, that are GDAL virtual layers over ``secret`` and ``url``.
+
+    Returns their paths relative to ``root``: each must be held back by the
+    audit, with the reason.
+    """
+    planted = {
+        "sub/units.gpkg": vrt_over(str(secret), "units"),
+        "sub/deeper/units.geojson": vrt_over(f"/vsicurl/{url}", "units"),
+        "sub/deeper/faults.shp": vrt_over(str(secret), "faults", "wkbLineString"),
+        "sub/deeper/still/contacts.fgb": vrt_over(f"/vsicurl/{url}", "contacts", "wkbLineString"),
+        "old.gdb/a00000001.gdbtable": vrt_over(str(secret), "units"),
+        "notes/units.csv": vrt_over(f"/vsicurl/{url}", "units"),
+    }
+    for rel, text in planted.items():
+        path = Path(root) / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text, encoding="utf-8")
+    return sorted({r if not r.startswith("old.gdb/") else "old.gdb/" for r in planted})
+
+
+def zip_folder(folder: Path, dest: Path) -> Path:
+    """A zip of ``folder``'s content (its files under the folder's name), as a depositor would make it."""
+    folder = Path(folder)
+    with zipfile.ZipFile(dest, "w", zipfile.ZIP_DEFLATED) as zf:
+        for p in sorted(folder.rglob("*")):
+            if p.is_file():
+                zf.write(p, f"{folder.name}/{p.relative_to(folder).as_posix()}")
+    return Path(dest)

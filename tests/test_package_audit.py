@@ -8,6 +8,7 @@ import json
 import shutil
 import zipfile
 
+import bagit
 import jsonschema
 import pytest
 from click.testing import CliRunner
@@ -213,3 +214,29 @@ def test_archive_without_map_is_reported_once(tmp_path):
     report = archivist.audit(tmp_path / "bare")
     rules = [f.rule for f in report.findings]
     assert "archive-map-missing" in rules and "layer-missing" not in rules
+
+
+# ---------------------------------------------------------------- structured files over the limits
+
+def test_deeply_nested_descriptor_is_a_finding_not_a_traceback(tmp_path):
+    """datapackage.json nested 100 000 deep: json's scanner would raise RecursionError; the audit goes on."""
+    root = package(tmp_path)
+    (root / "data" / "datapackage.json").write_text("[" * 100_000 + "]" * 100_000, encoding="utf-8")
+    bagit.Bag(str(root)).save(manifests=True)  # the bagit reference library re-bags it, intact
+    result = run("audit", root, "--format", "json")
+    assert result.exit_code == 1, result.output
+    assert result.exception is None or isinstance(result.exception, SystemExit)
+    findings = json.loads(result.stdout)["findings"]
+    messages = [f["message"] for f in findings if f["rule"] == "descriptor-invalid"]
+    assert any("data/datapackage.json: nested more than 128 levels deep, over the limit; not read" in m for m in messages), messages
+    assert "archive-checksum-mismatch" not in {f["rule"] for f in findings}  # the rest of the audit ran
+
+
+def test_deeply_nested_archive_manifest_stops_in_one_line(tmp_path):
+    root = package(tmp_path)
+    (root / "data" / "archivist.toml").write_text("x = " + "[" * 100_000 + "]" * 100_000 + "\n", encoding="utf-8")
+    rebag(root)
+    result = run("audit", root)
+    assert result.exit_code == 2
+    (line,) = result.stderr.strip().splitlines()
+    assert "archivist.toml: nested more than 128 levels deep, over the limit; not read" in line

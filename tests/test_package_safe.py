@@ -8,7 +8,9 @@ extraction; the temporary folder is gone afterwards).
 """
 
 import os
+import socket
 import stat
+import threading
 import tempfile
 import unicodedata
 import zipfile
@@ -20,7 +22,17 @@ from click.testing import CliRunner
 from archivist.cli import cli
 from archivist.errors import ArchivistError
 from archivist.package.safe import DEFAULT_LIMITS, Limits, name_problem, open_archive, sniff_vector
-from archives import link_entry, set_central_field, tree_names, zip_with
+from archives import (
+    link_entry,
+    outside_secret,
+    package,
+    plant_reaching_layers,
+    rebag,
+    set_central_field,
+    tree_names,
+    zip_folder,
+    zip_with,
+)
 from builders import tiny_project
 
 MiB = 1024 * 1024
@@ -385,3 +397,181 @@ def test_workbook_bomb_inside_an_archive_is_not_opened(tmp_path, private_tmp):
     result = CliRunner().invoke(cli, ["audit", str(root), "--format", "json", "--only", "metadata"])
     assert result.exit_code == 1
     assert "'analyses.xlsx' was not opened" in result.output and "xl/worksheets/sheet1.xml" in result.output
+
+
+# ---------------------------------------------------------------- nothing reaches outside the archive
+
+TOKEN = "QZXSECRET7731"  # invented; appears only in a file outside every archive
+
+
+class Listener:
+    """A TCP socket listening on 127.0.0.1 that accepts (with a timeout) and records every connection."""
+
+    def __init__(self) -> None:
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(16)
+        self.sock.settimeout(0.2)
+        self.port = self.sock.getsockname()[1]
+        self.connections: list[tuple[str, int]] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._accept, daemon=True)
+        self._thread.start()
+
+    def _accept(self) -> None:
+        while not self._stop.is_set():
+            try:
+                conn, addr = self.sock.accept()
+            except (socket.timeout, OSError):
+                continue
+            self.connections.append(addr)
+            conn.close()
+
+    def close(self) -> list[tuple[str, int]]:
+        self._stop.set()
+        self._thread.join()
+        self.sock.close()
+        return self.connections
+
+
+@pytest.fixture
+def listener():
+    lis = Listener()
+    yield lis
+    lis.close()
+
+
+def _reaching_bare(tmp_path, secret, url):
+    root = tmp_path / "survey-data"
+    root.mkdir(parents=True)
+    (root / "README.md").write_text("# Survey data of Glenmarrow\n", encoding="utf-8")
+    (root / "legend.csv").write_text("unit,name\nKa,Alder sandstone\n", encoding="utf-8")
+    planted = plant_reaching_layers(root, secret, url)
+    return root, planted
+
+
+def _reaching_package(tmp_path, secret, url):
+    """A package whose own manifest names a virtual layer as its units layer, with more planted below data/."""
+    root = package(tmp_path)
+    data = root / "data"
+    planted = ["data/" + p for p in plant_reaching_layers(data, secret, url)]
+    manifest = data / "archivist.toml"
+    text = manifest.read_text(encoding="utf-8").replace('[layers.units]\npath = "map.gpkg"\nlayer = "units"', '[layers.units]\npath = "sub/units.gpkg"')
+    assert 'path = "sub/units.gpkg"' in text
+    manifest.write_text(text, encoding="utf-8")
+    rebag(root)
+    return root, planted
+
+
+@pytest.mark.parametrize("make", [_reaching_bare, _reaching_package], ids=["bare", "package"])
+@pytest.mark.parametrize("as_zip", [False, True], ids=["folder", "zip"])
+def test_archive_layers_at_any_depth_never_reach_outside(tmp_path, private_tmp, listener, make, as_zip, monkeypatch):
+    """GDAL virtual layers disguised as GeoPackage, GeoJSON, shapefile, FlatGeobuf, CSV and a .gdb folder,
+    below sub-folders, pointing at a local file and at a listening socket: none is opened, each is named."""
+    monkeypatch.setenv("GDAL_HTTP_TIMEOUT", "5")  # should GDAL ever connect, the run still ends
+    outside = tmp_path / "outside"
+    outside.mkdir()
+    secret = outside_secret(outside, TOKEN)
+    url = f"http://127.0.0.1:{listener.port}/secret.csv"
+    root, planted = make(tmp_path / "arc", secret, url)
+    target = zip_folder(root, tmp_path / (root.name + ".zip")) if as_zip else root
+    runs = {
+        "audit text": CliRunner().invoke(cli, ["audit", str(target)]),
+        "audit json": CliRunner().invoke(cli, ["audit", str(target), "--format", "json"]),
+    }
+    if as_zip:  # a folder that is no bag is one's own project to diff; a zip is an archive
+        runs["diff"] = CliRunner().invoke(cli, ["diff", str(target), str(tiny_project(tmp_path / "new"))])
+    for what, result in runs.items():
+        assert result.exit_code in ((0, 1, 2) if what == "diff" else (1,)), f"{what}: {result.output}"
+        assert result.exception is None or isinstance(result.exception, SystemExit), what
+        assert TOKEN not in result.output and TOKEN not in (result.stderr or ""), f"{what} printed the outside file"
+    for what in ("audit text", "audit json"):
+        out = runs[what].output
+        for rel in planted:
+            assert rel in out, f"{what} does not name {rel}"
+        assert "was not opened" in out
+        assert "GDAL virtual layer" in out
+    assert listener.close() == [], "something connected to the listening socket"
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+# ---------------------------------------------------------------- names longer than the system allows
+
+def test_name_component_over_255_bytes_refused_in_zip(tmp_path, private_tmp):
+    """NAME_MAX is 255 bytes on Linux (<linux/limits.h>) and on ext4/XFS; a longer name cannot be written."""
+    long_name = "data/" + "é" * 128 + ".csv"  # 256 bytes of UTF-8 in one component
+    archive = zip_with(tmp_path / "long.zip", [("data/a.csv", b"x\n"), (long_name, b"x\n")])
+    for command in ("audit", "unpack"):
+        args = [command, str(archive)] + ([str(tmp_path / "out")] if command == "unpack" else [])
+        result = CliRunner().invoke(cli, args)
+        assert result.exit_code == 2, result.output
+        (line,) = result.stderr.strip().splitlines()
+        assert "longer than 255 bytes" in line and "long.zip" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+def test_path_over_path_max_refused_in_zip(tmp_path, private_tmp):
+    """PATH_MAX is 4096 bytes on Linux (<linux/limits.h>): 25 folders of 200 bytes cannot be created."""
+    deep = "/".join(["d" * 200] * 25) + "/units.csv"
+    archive = zip_with(tmp_path / "deep.zip", [("README.md", b"# deep\n"), (deep, b"x\n")])
+    result = CliRunner().invoke(cli, ["audit", str(archive)])
+    assert result.exit_code == 2, result.output
+    (line,) = result.stderr.strip().splitlines()
+    assert "deep.zip: entry 'ddd" in line and "longer than this system allows" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+def test_path_over_path_max_refused_in_folder(tmp_path, private_tmp):
+    """A folder whose deepest path fits where it is but not in the (longer) private copy."""
+    root = tmp_path / "f"
+    root.mkdir()
+    (root / "README.md").write_text("# deep\n")
+    room = 4095 - len(str(root)) - 1  # bytes left for the relative path under PATH_MAX
+    parts, used = [], 0
+    while used + 201 < room - 20:
+        parts.append("d" * 200)
+        used += 201
+    parts.append("u" * (room - used - 1))
+    rel = "/".join(parts)
+    assert len(str(root / rel)) <= 4095
+    os.makedirs(root / "/".join(parts[:-1]))
+    (root / rel).write_text("x\n")
+    result = CliRunner().invoke(cli, ["audit", str(root)])
+    assert result.exit_code == 2, result.output
+    (line,) = result.stderr.strip().splitlines()
+    assert line.startswith("archivist: f: entry 'ddd") and "longer than this system allows" in line
+    assert list(private_tmp.glob("archivist-archive-*")) == []
+
+
+# ---------------------------------------------------------------- SIGTERM mid-audit
+
+def test_sigterm_mid_audit_removes_the_private_copy(tmp_path):
+    """A scheduler's SIGTERM while the audit reads the copy: the copy is removed, the process ends by the signal."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    root = tmp_path / "many"
+    root.mkdir()
+    (root / "README.md").write_text("# Many invented tables\n")
+    for i in range(1500):  # reading every table keeps the audit busy for a while after the copy exists
+        (root / f"t{i:04d}.csv").write_text("unit,name\n" + "".join(f"U{j},Unit {j}\n" for j in range(50)))
+    work = tmp_path / "tmp"
+    work.mkdir()
+    env = {**os.environ, "TMPDIR": str(work)}
+    code = "import sys; from archivist.cli import main; sys.exit(main())"
+    proc = subprocess.Popen([sys.executable, "-c", code, "audit", str(root)], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    try:
+        # wait (not a timing assertion) until the private copy has been made, then signal
+        while proc.poll() is None and not any(work.glob("archivist-archive-*/content/t1499.csv")):
+            time.sleep(0.01)
+        assert proc.poll() is None, "the audit ended before it could be signalled"
+        proc.send_signal(signal.SIGTERM)
+        _, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == -signal.SIGTERM, err.decode()
+    assert "Traceback" not in err.decode()
+    assert list(work.iterdir()) == [], "the private copy was left in the temporary folder"

@@ -48,6 +48,12 @@ def pkg_file_added(tmp_path):
     return root
 
 
+def pkg_tag_manifest_removed(tmp_path):
+    root = package(tmp_path)
+    (root / "tagmanifest-sha256.txt").unlink()
+    return root
+
+
 def pkg_bad_oxum(tmp_path):
     root = package(tmp_path)
     info = root / "bag-info.txt"
@@ -105,6 +111,7 @@ def bare(tmp_path, *, legend=True, licence=None, readme=None, cff=None, files=No
     if cff is not None:
         (root / "CITATION.cff").write_text(cff, encoding="utf-8")
     for name, data in (files or {}).items():
+        (root / name).parent.mkdir(parents=True, exist_ok=True)
         (root / name).write_bytes(data)
     return root
 
@@ -175,6 +182,7 @@ CASES = {
     "archive-file-missing": (pkg_file_removed, pkg),
     "archive-file-unlisted": (pkg_file_added, pkg),
     "bag-structure-invalid": (pkg_bad_oxum, pkg),
+    "bag-tags-unprotected": (pkg_tag_manifest_removed, pkg),
     "package-part-missing": (pkg_part_removed, pkg),
     "descriptor-invalid": (pkg_descriptor_escape, pkg),
     "package-data-invalid": (pkg_foreign_key_broken, pkg),
@@ -193,6 +201,7 @@ CASES = {
     "archive-description-missing": (bare, lambda t: bare(t, readme="# Tiny map\n\nTwo invented units mapped for the tests of archivist.\n")),
     "archive-format-closed": (lambda t: bare(t, files={"legend.xls": b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + bytes(504)}), bare),
     "archive-map-missing": (no_map, bare),
+    "archive-file-unopened": (lambda t: bare(t, files={"sub/deeper/units.gpkg": b"<OGRVRTDataSource/>\n"}), bare),
 }
 
 
@@ -336,3 +345,61 @@ def test_provenance_read_by_the_prov_library(tmp_path):
 def test_foreign_key_break_is_named_by_frictionless(tmp_path):
     found = findings(pkg_foreign_key_broken(tmp_path), "package-data-invalid", rules=["package-data-invalid"])
     assert any("foreign key" in f.message and "'B'" in f.message.replace('"', "'") for f in found), [f.message for f in found]
+
+
+# ---------------------------------------------------------------- tag files: blame only what is proven wrong
+
+def _retag(root, algorithm, change=None):
+    """Write tagmanifest-<algorithm>.txt over the tag files the sha256 tag manifest lists (RFC 8493, 2.2.1 format)."""
+    listed = [ln.split(maxsplit=1)[1] for ln in (root / "tagmanifest-sha256.txt").read_text().splitlines() if ln.strip()]
+    lines = []
+    for rel in listed:
+        digest = hashlib.new(algorithm, (root / rel).read_bytes()).hexdigest()
+        if change and rel == change:
+            digest = hashlib.new(algorithm, b"not the file").hexdigest()
+        lines.append(f"{digest}  {rel}")
+    (root / f"tagmanifest-{algorithm}.txt").write_text("\n".join(lines) + "\n")
+
+
+def test_tampered_tag_manifest_does_not_accuse_intact_bag_info(tmp_path):
+    """Only one tag manifest, and it disagrees with bag-info.txt: both are named, neither accused."""
+    root = package(tmp_path)
+    before = (root / "bag-info.txt").read_bytes()
+    _retag(root, "sha256", change="bag-info.txt")
+    assert (root / "bag-info.txt").read_bytes() == before
+    hits = findings(root, "archive-checksum-mismatch", rules=["archive-checksum-mismatch"])
+    (f,) = hits
+    assert "either bag-info.txt or tagmanifest-sha256.txt was changed" in f.message
+    assert "the file was changed" not in f.message
+    # the bagit reference library also fails this bag, without telling which side changed
+    with pytest.raises(bagit.BagValidationError):
+        bagit.Bag(str(root)).validate()
+
+
+def test_second_tag_manifest_proves_which_side_changed(tmp_path):
+    """A sha512 tag manifest confirms bag-info.txt: the sha256 tag manifest is the one that was changed."""
+    root = package(tmp_path)
+    _retag(root, "sha512")
+    _retag(root, "sha256", change="bag-info.txt")
+    (f,) = findings(root, "archive-checksum-mismatch", rules=["archive-checksum-mismatch"])
+    assert f.layer == "tagmanifest-sha256.txt"
+    assert "tagmanifest-sha256.txt was changed or damaged after packing, not bag-info.txt" in f.message
+    assert "tagmanifest-sha512.txt" in f.message
+
+
+def test_deleted_tag_manifest_says_what_is_lost(tmp_path):
+    root = package(tmp_path)
+    (root / "tagmanifest-sha256.txt").unlink()
+    bagit.Bag(str(root)).validate()  # still a valid bag for the reference library (RFC 8493 allows it)
+    (f,) = findings(root, "bag-tags-unprotected", rules=["bag-tags-unprotected"])
+    assert f.message.startswith("The bag has no tag manifest: nothing protects bag-info.txt, bagit.txt, manifest-sha256.txt")
+
+
+def test_member_named_like_a_private_file_is_left_alone(tmp_path):
+    """A member called .archivist-audit.toml is the archive's own: audited as is, never overwritten or missed."""
+    root = package(tmp_path)
+    (root / "data" / ".archivist-audit.toml").write_text("# the depositor's own file\n")
+    rebag(root)
+    report = archivist.audit(root)
+    assert not [f for f in report.findings if f.rule in ("archive-file-missing", "archive-checksum-mismatch", "archive-file-unlisted")]
+    assert (root / "data" / ".archivist-audit.toml").read_text() == "# the depositor's own file\n"

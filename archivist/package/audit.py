@@ -46,10 +46,11 @@ from ..errors import ArchivistError
 from ..manifest import load_schema, schema_dir
 from ..model import Report
 from ..progress import Progress
+from ..safeparse import LimitExceeded, load_json, load_yaml
 from ..project import crs_label
 from .bagcheck import BagCheck, file_digest, read_manifest_lines, verify_bag
 from .safe import DEFAULT_LIMITS, Limits, open_archive, sniff_vector
-from .source import AUDIT_MANIFEST, OpenedMap, is_bag, load_archive_project
+from .source import OpenedMap, is_bag, load_archive_project
 
 JSON_CAP = 64 * 1024 * 1024  # metadata files larger than this are not parsed
 TEXT_CAP = 1024 * 1024  # README and licence texts: the first MiB is read
@@ -155,6 +156,7 @@ class ArchiveFacts:
     declared_crs: list[Statement] = field(default_factory=list)
     closed_files: list[tuple[str, str]] = field(default_factory=list)
     held: list[str] = field(default_factory=list)
+    unread: list[tuple[str, str]] = field(default_factory=list)  # (file, why): files not opened or not read, and why
     notes: list[str] = field(default_factory=list)
 
     @property
@@ -165,11 +167,13 @@ class ArchiveFacts:
 # ------------------------------------------------------------------ small readers
 
 def _read_json(path: Path, rel: str, problems: list[str]) -> Any:
-    if path.stat().st_size > JSON_CAP:
-        problems.append(f"{rel} is larger than {JSON_CAP // 2**20} MiB and was not read.")
-        return None
+    """The JSON in ``path`` read within :mod:`archivist.safeparse`'s limits, or None with the reason in ``problems``."""
     try:
-        return json.loads(path.read_bytes().decode("utf-8-sig"))
+        return load_json(path, rel, max_bytes=JSON_CAP)
+    except LimitExceeded as exc:
+        problems.append(f"{exc}.")
+    except OSError as exc:
+        problems.append(f"{rel} cannot be read ({exc.strerror or exc}).")
     except UnicodeDecodeError as exc:
         problems.append(f"{rel} is not UTF-8 (byte offset {exc.start}).")
     except json.JSONDecodeError as exc:
@@ -570,9 +574,12 @@ def _read_cff(facts: ArchiveFacts, path: Path, rel: str) -> None:
     import yaml
 
     try:
-        data = yaml.safe_load(_read_text(path))
-    except yaml.YAMLError:
-        facts.notes.append(f"{rel} is not valid YAML and was not read.")
+        data = load_yaml(path, rel)
+    except LimitExceeded as exc:
+        facts.unread.append((rel, str(exc).split(": ", 1)[-1].removesuffix("; not read")))
+        return
+    except (yaml.YAMLError, UnicodeDecodeError, OSError):
+        facts.unread.append((rel, "it is not valid UTF-8 YAML (Citation File Format)"))
         return
     if not isinstance(data, dict):
         return
@@ -591,6 +598,16 @@ def _read_cff(facts: ArchiveFacts, path: Path, rel: str) -> None:
             facts.contacts.append(Statement(f"{rel} contact", str(c.get("email") or c.get("name"))))
     if str(data.get("abstract", "")).strip():
         facts.descriptions.append(Statement(f"{rel} abstract", str(data["abstract"])))
+
+
+def _packed_input_folder(rel: str, root: Path) -> bool:
+    """True for a folder-format dataset (a File Geodatabase) kept as handed in under a package's ``data/source/``.
+
+    The package's map is read from its own GeoPackage; the inputs are kept
+    byte for byte beside it and covered by the bag's checksums, so a folder
+    format there is expected, not a file held back.
+    """
+    return is_bag(root) and rel.startswith("data/source/") and rel.endswith("/")
 
 
 def _gather_layers(facts: ArchiveFacts, opened: OpenedMap) -> None:
@@ -676,8 +693,13 @@ def gather(opened: OpenedMap) -> ArchiveFacts:
     for m in arc.members:
         if m.name.startswith(prefix):
             members.append(m.name[len(prefix):])
-    members = [m for m in members if m.rsplit("/", 1)[-1] != AUDIT_MANIFEST]
-    facts = ArchiveFacts(label=opened.label, kind="package" if is_bag(root) else "archive", members=sorted(members), held=list(opened.held))
+    facts = ArchiveFacts(
+        label=opened.label,
+        kind="package" if is_bag(root) else "archive",
+        members=sorted(members),
+        held=list(opened.held),
+        unread=[(rel, why) for rel, why in opened.unopened if not _packed_input_folder(rel, root)],
+    )
     if facts.is_package:
         facts.bag = verify_bag(root)
         facts.parts_missing = [p for p in PACKAGE_PARTS if not (root / p).is_file()]
@@ -771,6 +793,9 @@ def audit(
             facts = gather(opened)
         project = opened.project
         project.archive = facts
+        # files held back by the screen are findings of archive-file-unopened, not notes as well
+        shown = tuple(f"{rel} was not opened:" for rel, _ in opened.unopened)
+        project.notes = [n for n in project.notes if not n.startswith(shown)] if shown else project.notes
         if project.manifest_path is None and any(r.id == "metadata-incomplete" for r in selected):
             # its subject is archivist.toml, which this archive does not have: the archive rules report what is missing
             selected = [r for r in selected if r.id != "metadata-incomplete"]

@@ -10,7 +10,11 @@ What is checked, with the section of RFC 8493 it comes from:
 * every file listed exists and has the listed checksum; every payload file is
   listed in every payload manifest (2.1.3, 3);
 * each tag manifest ``tagmanifest-<algorithm>.txt`` lists tag files whose
-  checksums match, and lists every payload manifest (2.2.1);
+  checksums match, and lists every payload manifest (2.2.1); since nothing
+  protects a tag manifest, a mismatch blames the tag manifest when another
+  tag manifest confirms the file, and otherwise names both sides without
+  accusing either; tag files no tag manifest covers (all of
+  them in a bag without one, which 2.2.1 allows) are listed as unprotected;
 * ``Payload-Oxum`` in ``bag-info.txt``, when present, matches the payload's
   octet and file counts (2.2.2);
 * a ``fetch.txt`` whose files are absent leaves the bag incomplete (2.2.3);
@@ -51,6 +55,7 @@ class BagCheck:
     payload_bytes: int = 0
     info: dict[str, list[str]] = field(default_factory=dict)
     verified: int = 0  # files whose checksum was compared
+    unprotected: list[str] = field(default_factory=list)  # tag files no tag manifest covers
 
     def of(self, kind: str) -> list[BagProblem]:
         return [p for p in self.problems if p.kind == kind]
@@ -124,6 +129,35 @@ def _read_manifest(path: Path, check: BagCheck) -> dict[str, str]:
     return read_manifest_lines(text, name, lambda msg: check.add("structure", name, msg))
 
 
+def _judge_tag_files(check: BagCheck, votes: dict[str, dict[str, tuple[bool, str, str, str]]]) -> None:
+    """Report tag files whose checksum disagrees with a tag manifest, blaming only the side that is proven wrong.
+
+    A tag manifest is itself protected by nothing (RFC 8493, 2.2.1), so a
+    mismatch alone cannot tell a changed tag file from a changed tag manifest.
+    When another tag manifest (another algorithm) confirms the file, the
+    disagreeing manifest is the one that was changed; otherwise both are named
+    and neither is accused.
+    """
+    for rel, by_manifest in votes.items():
+        agree = [m for m, (ok, *_rest) in by_manifest.items() if ok]
+        disagree = {m: v for m, v in by_manifest.items() if not v[0]}
+        for name, (_, actual, digest, algorithm) in disagree.items():
+            if agree:
+                check.add(
+                    "mismatch",
+                    name,
+                    f"{name} records {algorithm.upper()} {digest[:16]}... for {rel}, but {rel} matches its checksum in "
+                    f"{', '.join(agree)}: {name} was changed or damaged after packing, not {rel}.",
+                )
+            else:
+                check.add(
+                    "mismatch",
+                    f"{rel} or {name}",
+                    f"{rel}: {algorithm.upper()} is {actual[:16]}... where {name} records {digest[:16]}...: either {rel} or "
+                    f"{name} was changed or damaged after packing; no other record in the bag tells which.",
+                )
+
+
 def verify_bag(root: Path) -> BagCheck:
     """Verify the bag at ``root`` (the folder holding ``bagit.txt``); never raises for a damaged bag.
 
@@ -157,6 +191,8 @@ def verify_bag(root: Path) -> BagCheck:
     if not data.is_dir():
         check.add("missing", "data/", "The payload folder data/ is missing.")
     manifests = sorted(p for p in root.iterdir() if p.is_file() and _MANIFEST.match(p.name))
+    tag_listed: set[str] = set()
+    tag_votes: dict[str, dict[str, tuple[bool, str, str, str]]] = {}
     payload_manifests = [p for p in manifests if not p.name.startswith("tag")]
     if not payload_manifests:
         check.add("structure", "manifest-sha256.txt", "The bag has no payload manifest (manifest-<algorithm>.txt), so nothing can be verified.")
@@ -168,6 +204,8 @@ def verify_bag(root: Path) -> BagCheck:
         if algorithm not in check.algorithms:
             check.algorithms.append(algorithm)
         entries = _read_manifest(manifest, check)
+        if tag:
+            tag_listed.update(entries)
         for rel, digest in entries.items():
             if not tag and not rel.startswith("data/"):
                 check.add("structure", manifest.name, f"{manifest.name} lists '{rel}', which is not under data/.")
@@ -179,6 +217,9 @@ def verify_bag(root: Path) -> BagCheck:
                 continue
             actual = file_digest(path, algorithm)
             check.verified += 1
+            if tag:
+                tag_votes.setdefault(rel, {})[manifest.name] = (actual == digest, actual, digest, algorithm)
+                continue
             if actual != digest:
                 check.add(
                     "mismatch",
@@ -194,6 +235,15 @@ def verify_bag(root: Path) -> BagCheck:
             for pm in payload_manifests:
                 if pm.name not in entries:
                     check.add("structure", manifest.name, f"{manifest.name} does not list the payload manifest {pm.name} (RFC 8493, 2.2.1).")
+    _judge_tag_files(check, tag_votes)
+    tag_manifests = [p.name for p in manifests if p.name.startswith("tag")]
+    tag_files = sorted(p.relative_to(root).as_posix() for p in root.rglob("*") if p.is_file() and not p.relative_to(root).as_posix().startswith("data/"))
+    for rel in tag_files:
+        if rel in tag_manifests or rel in tag_listed:
+            continue
+        if tag_manifests and rel in {p.name for p in payload_manifests}:
+            continue  # reported above as a structure problem
+        check.unprotected.append(rel)
     oxum = (check.info.get("Payload-Oxum") or [None])[0]
     if oxum:
         m = re.fullmatch(r"\s*(\d+)\.(\d+)\s*", oxum)

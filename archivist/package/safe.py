@@ -20,12 +20,15 @@ then does it copy the members, streaming and counting the bytes actually
 produced, into a fresh temporary folder of its own, created with mode 0700.
 Files are written with ``O_EXCL | O_NOFOLLOW`` and without execute bits;
 nothing is run or imported from the archive. The folder is removed when the
-``with`` block ends, whatever happens inside it.
+``with`` block ends, whatever happens inside it, SIGTERM included.
 
 A folder archive is copied the same way, so that the audit works on a private
 snapshot that cannot change under it and GDAL never opens a file in the
 user's folder.
 
+:func:`screen_tree` runs over the whole private copy, at every depth, before
+any reader is handed a file: :func:`open_problem` names what must not be
+opened, and :func:`set_aside` keeps it out of reach while the map is read.
 :func:`sniff_vector` guards every GDAL open in an audit: a file is read as a
 layer only when its first bytes are those of a self-contained format
 (GeoPackage/SQLite, shapefile, FlatGeobuf, GeoJSON). A file that merely bears
@@ -35,10 +38,13 @@ other files or URLs, is never opened.
 
 from __future__ import annotations
 
+import errno
 import os
 import shutil
+import signal
 import stat
 import tempfile
+import threading
 import unicodedata
 import zipfile
 import zlib
@@ -48,6 +54,7 @@ from pathlib import Path, PurePosixPath
 from typing import Iterator
 
 from ..errors import ArchivistError
+from .staging import Interrupted, terminate_as_exception
 
 SYSTEM_CLUTTER = {"__MACOSX", ".DS_Store", "Thumbs.db", "desktop.ini"}
 GiB = 1024**3
@@ -151,6 +158,10 @@ class OpenedArchive:
 # ------------------------------------------------------------------ names
 
 _CONTROL = {chr(c) for c in range(32)} | {"\x7f"}
+# The longest file name most file systems store: ext4, XFS, APFS, NTFS (255 bytes or UTF-16 units;
+# Linux <linux/limits.h> NAME_MAX). Longer paths in total (PATH_MAX, 4096 on Linux) are caught when
+# the private copy is written, where the length of the temporary folder's own path is known.
+NAME_MAX = 255
 
 
 def name_problem(name: str) -> str | None:
@@ -168,6 +179,8 @@ def name_problem(name: str) -> str | None:
     parts = PurePosixPath(name).parts
     if any(p == ".." for p in name.split("/")):
         return "has a '..' component that leads outside the archive"
+    if any(len(p.encode("utf-8", "surrogateescape")) > NAME_MAX for p in name.split("/")):
+        return f"has a name longer than {NAME_MAX} bytes, more than file systems allow"
     if not parts:
         return "has an empty name"
     return None
@@ -282,6 +295,29 @@ def _inside(root: Path, rel: str) -> Path:
     return target
 
 
+def _too_long(label: str, rel: str, dest: Path) -> str:
+    shown = rel if len(rel) <= 80 else f"{rel[:56]}...{rel[-20:]}"
+    return (
+        f"{label}: entry '{shown}' ({len(rel.encode())} bytes) makes a path longer than this system allows "
+        f"under the temporary folder {dest.parent.parent}; refusing the archive"
+    )
+
+
+def _make_room(dest: Path, rel: str, label: str) -> Path:
+    """The path of ``rel`` inside ``dest``, its folders created; a path too long for the system is one line."""
+    try:
+        target = _inside(dest, rel.rstrip("/"))
+        if rel.endswith("/"):
+            target.mkdir(parents=True, exist_ok=True)
+        else:
+            target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        if exc.errno == errno.ENAMETOOLONG:
+            raise ArchivistError(_too_long(label, rel, dest)) from None
+        raise ArchivistError(f"{label}: entry '{rel}' cannot be written to the private copy ({exc.strerror or exc})") from None
+    return target
+
+
 def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: Limits) -> list[Member]:
     label = path.name
     members: list[Member] = []
@@ -292,11 +328,9 @@ def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: L
         raise ArchivistError(f"{label}: not a readable zip file ({exc})") from None
     with zf:
         for info in infos:
-            target = _inside(dest, info.filename.rstrip("/"))
+            target = _make_room(dest, info.filename, label)
             if info.is_dir():
-                target.mkdir(parents=True, exist_ok=True)
                 continue
-            target.parent.mkdir(parents=True, exist_ok=True)
             written = 0
             try:
                 with zf.open(info) as src, _open_new(target) as out:
@@ -307,6 +341,8 @@ def _extract_zip(path: Path, infos: list[zipfile.ZipInfo], dest: Path, limits: L
                             raise ArchivistError(f"{label}: entry '{info.filename}' expands beyond its declared size; refusing the archive")
                         out.write(chunk)
             except (zipfile.BadZipFile, zlib.error, EOFError, OSError, ValueError, NotImplementedError) as exc:
+                if isinstance(exc, OSError) and exc.errno == errno.ENAMETOOLONG:
+                    raise ArchivistError(_too_long(label, info.filename, dest)) from None
                 if isinstance(exc, FileExistsError):
                     raise ArchivistError(f"{label}: entry '{info.filename}' would overwrite another entry; refusing the archive") from None
                 reason = str(exc) or type(exc).__name__
@@ -354,18 +390,23 @@ def _copy_folder(path: Path, entries: list[tuple[str, int, bool]], dest: Path, l
     members = []
     total = 0
     for rel, size, is_dir in entries:
-        target = _inside(dest, rel)
+        target = _make_room(dest, rel + "/" if is_dir else rel, label)
         if is_dir:
-            target.mkdir(parents=True, exist_ok=True)
             continue
-        target.parent.mkdir(parents=True, exist_ok=True)
         flags = os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_BINARY", 0)
         try:
             fd = os.open(path / rel, flags)
         except OSError as exc:
             raise ArchivistError(f"{label}: '{rel}' cannot be read ({exc.strerror or exc})") from None
         written = 0
-        with os.fdopen(fd, "rb") as src, _open_new(target) as out:
+        try:
+            out = _open_new(target)
+        except OSError as exc:
+            os.close(fd)
+            if exc.errno == errno.ENAMETOOLONG:
+                raise ArchivistError(_too_long(label, rel, dest)) from None
+            raise ArchivistError(f"{label}: '{rel}' cannot be written to the private copy ({exc.strerror or exc})") from None
+        with os.fdopen(fd, "rb") as src, out:
             if not stat.S_ISREG(os.fstat(src.fileno()).st_mode):
                 raise ArchivistError(f"{label}: '{rel}' changed into something other than a file while being read; refusing the archive")
             while chunk := src.read(CHUNK):
@@ -419,20 +460,28 @@ def open_archive(path: str | Path, limits: Limits | None = None, *, workdir: str
         need = sum(i.file_size for i in infos)
     else:
         raise ArchivistError(f"{source}: not a zip file or a folder")
-    tmp = Path(tempfile.mkdtemp(prefix="archivist-archive-", dir=workdir))
     try:
-        free = shutil.disk_usage(tmp).free
-        if need > free:
-            raise ArchivistError(f"{source.name}: needs {_size(need)} to extract but {tmp.parent} has {_size(free)} free")
-        root = tmp / "content"
-        root.mkdir()
-        if kind == "folder":
-            members = _copy_folder(source.resolve(), entries, root, limits)
-        else:
-            members = _extract_zip(source, infos, root, limits)
-        yield OpenedArchive(source=source, kind=kind, root=root, members=members)
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+        # SIGTERM (a scheduler's time limit, `kill`) raises inside the block so the copy is removed;
+        # the signal is then delivered again to whatever handled it before (by default: the process ends).
+        with terminate_as_exception():
+            tmp = Path(tempfile.mkdtemp(prefix="archivist-archive-", dir=workdir))
+            try:
+                free = shutil.disk_usage(tmp).free
+                if need > free:
+                    raise ArchivistError(f"{source.name}: needs {_size(need)} to extract but {tmp.parent} has {_size(free)} free")
+                root = tmp / "content"
+                root.mkdir()
+                if kind == "folder":
+                    members = _copy_folder(source.resolve(), entries, root, limits)
+                else:
+                    members = _extract_zip(source, infos, root, limits)
+                yield OpenedArchive(source=source, kind=kind, root=root, members=members)
+            finally:
+                shutil.rmtree(tmp, ignore_errors=True)
+    except Interrupted:
+        if threading.current_thread() is threading.main_thread():
+            os.kill(os.getpid(), signal.SIGTERM)
+        raise
 
 
 # ------------------------------------------------------------------ what GDAL may open
@@ -466,3 +515,128 @@ def sniff_vector(path: Path) -> str | None:
         if text.startswith(b"{"):
             return "geojson"
     return None
+
+
+# ------------------------------------------------------------------ the screen before any reader
+
+# Suffixes of files and folders GDAL may be handed (archivist.readers.VECTOR_SUFFIXES, plus the
+# SQLite and FlatGeobuf spellings sniff_vector knows).
+VECTOR_LIKE = {".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gdb", ".gml", ".kml", ".sqlite", ".db"}
+WORKBOOK_SUFFIXES = {".xlsx", ".xlsm"}
+# Document roots through which GDAL reaches other files or network addresses: the OGR and GDAL
+# virtual formats, the WMS/WCS/WFS service descriptions (GDAL documentation, "VRT -- GDAL Virtual
+# Format", "OGR VRT driver", "WMS", "WCS", "WFS" driver pages).
+FOLLOWING_ROOTS = (b"<OGRVRTDataSource", b"<VRTDataset", b"<GDAL_WMS", b"<WCS_GDAL", b"<OGRWFSDataSource", b"<OGRWFS3DataSource")
+# GDAL's virtual file system and network prefixes (GDAL documentation, "GDAL Virtual File Systems").
+VSI_PREFIXES = (b"/vsi", b"http://", b"https://", b"ftp://", b"file:")
+SNIFF_BYTES = 4096
+# A workbook is itself a zip: its parts are checked like an archive's members before openpyxl reads them.
+WORKBOOK_LIMITS = Limits(max_members=10_000, max_total_bytes=2 * GiB, max_ratio=500.0)
+
+LAYER_WHY = "its content is not a self-contained GeoPackage, shapefile, FlatGeobuf or GeoJSON"
+FOLLOW_WHY = (
+    "its content is a GDAL virtual layer or service description, which can make GDAL read files "
+    "or network addresses outside the archive"
+)
+
+
+def workbook_problem(path: Path) -> str | None:
+    """Why the spreadsheet at ``path`` must not be opened (a zip bomb, a path escape...), or None."""
+    if path.suffix.lower() not in WORKBOOK_SUFFIXES:
+        return None
+    try:
+        inspect_zip(path, WORKBOOK_LIMITS)
+    except ArchivistError as exc:
+        return str(exc).split(": ", 1)[-1].replace("; refusing the archive", "")
+    from ..readers import workbook_xml_problem  # its XML parts: no DTD, no entities
+
+    return workbook_xml_problem(path)
+
+
+def _follows(head: bytes) -> bool:
+    """True when a file begins with a virtual-file-system path or is XML whose root is one GDAL follows."""
+    text = head.lstrip(b"\xef\xbb\xbf \t\r\n")
+    if text.lower().startswith(VSI_PREFIXES):
+        return True
+    return text.startswith(b"<") and any(root in text for root in FOLLOWING_ROOTS)
+
+
+def open_problem(path: Path) -> str | None:
+    """Why no reader (GDAL, openpyxl) may be handed ``path`` from an untrusted archive, or None.
+
+    A folder with a vector suffix (a File Geodatabase, say) is never opened; a
+    file with a vector suffix is opened only when :func:`sniff_vector` names
+    its format; a workbook must pass the zip checks; and a file of any suffix
+    whose first bytes are a GDAL virtual layer, a service description or a
+    virtual-file-system path is held back, since such a file only points
+    elsewhere.
+
+    Not covered: a self-contained file GDAL opens may still be malformed; the
+    GDAL configuration of the untrusted opens is the second fence for that.
+    """
+    suffix = path.suffix.lower()
+    if path.is_dir():
+        if suffix in VECTOR_LIKE:
+            return "it is a folder in a multi-file vector format, which is not opened in an audit"
+        return None
+    if not path.is_file():
+        return None
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(SNIFF_BYTES)
+    except OSError as exc:
+        return f"it cannot be read ({exc.strerror or exc})"
+    if _follows(head):
+        return FOLLOW_WHY
+    if suffix in WORKBOOK_SUFFIXES:
+        return workbook_problem(path)
+    if suffix in VECTOR_LIKE and sniff_vector(path) is None:
+        return LAYER_WHY
+    return None
+
+
+def screen_tree(root: Path) -> list[tuple[str, str]]:
+    """Every file or folder under ``root``, at any depth, that no reader may be handed: (relative path, why).
+
+    Folders so held are not looked into. Links cannot occur in a private copy
+    made by :func:`open_archive`, and are not followed.
+    """
+    found: list[tuple[str, str]] = []
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
+        here = Path(dirpath)
+        keep = []
+        for name in sorted(dirnames):
+            why = open_problem(here / name)
+            if why:
+                found.append(((here / name).relative_to(root).as_posix() + "/", why))
+            else:
+                keep.append(name)
+        dirnames[:] = keep
+        for name in sorted(filenames):
+            why = open_problem(here / name)
+            if why:
+                found.append(((here / name).relative_to(root).as_posix(), why))
+    return sorted(found)
+
+
+@contextmanager
+def set_aside(root: Path, entries: list[tuple[str, str]], store: Path) -> Iterator[None]:
+    """Move ``entries`` (from :func:`screen_tree`) out of ``root`` into ``store`` for the block, then put them back.
+
+    While they are away no reader can reach them, whatever walks the tree; the
+    copy is whole again afterwards, for the checksum verification.
+    """
+    moved: list[tuple[Path, Path]] = []
+    try:
+        for n, (rel, _) in enumerate(entries):
+            src = root / rel.rstrip("/")
+            if not src.exists():
+                continue  # inside a folder already set aside
+            dest = store / str(n)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            os.rename(src, dest)
+            moved.append((src, dest))
+        yield
+    finally:
+        for src, dest in reversed(moved):
+            os.rename(dest, src)

@@ -19,7 +19,6 @@ inferred from the data, as for a bare folder.
 
 from __future__ import annotations
 
-import shutil
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -30,11 +29,22 @@ from .. import vectorio
 from ..errors import ArchivistError
 from ..model import Hit
 from ..project import MapProject, load_project
-from ..readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, workbook_xml_problem
-from ..tomltext import dump_toml
-from .safe import Limits, OpenedArchive, inspect_zip, name_problem, open_archive, sniff_vector
+from ..readers import TABLE_SUFFIXES
+from .safe import (
+    LAYER_WHY,
+    WORKBOOK_LIMITS,
+    Limits,
+    OpenedArchive,
+    name_problem,
+    open_archive,
+    open_problem,
+    screen_tree,
+    set_aside,
+    sniff_vector,
+    workbook_problem,
+)
 
-AUDIT_MANIFEST = ".archivist-audit.toml"  # written into the private copy only, never into the user's files
+__all__ = ["OpenedMap", "open_map", "load_archive_project", "screen_manifest", "workbook_problem", "WORKBOOK_LIMITS"]
 
 
 @dataclass
@@ -64,6 +74,7 @@ class OpenedMap:
     root: Path | None = None
     data: Path | None = None
     held: list[str] = field(default_factory=list)
+    unopened: list[tuple[str, str]] = field(default_factory=list)  # (path relative to root, why), from the screen
 
 
 def is_bag(root: Path) -> bool:
@@ -85,11 +96,12 @@ def _vector_spec(spec: dict[str, Any]) -> bool:
 
 
 def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> tuple[dict[str, Any], list[Hit], list[str]]:
-    """A copy of an archive's manifest whose every path stays inside ``base`` and whose layers GDAL may open.
+    """A copy of an archive's manifest whose every path stays inside ``base`` and whose files a reader may open.
 
     A path that leads outside the archive stops the run (ArchivistError): the
-    archive is hostile. A layer file whose content is not a self-contained
-    format is left out, with a ``layer-unreadable`` hit.
+    archive is hostile. A file no reader may be handed (:func:`open_problem`), a
+    layer file whose content is not a self-contained format, and a layer path
+    that is a folder are left out, each with a ``layer-unreadable`` hit.
     """
     out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in raw.items()}
     hits: list[Hit] = []
@@ -109,20 +121,13 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
             target = (base / rel).resolve()
             if why or (target != base and base not in target.parents):
                 raise ArchivistError(f"{label}: {where}: {group}.{role}.path '{rel}' leads outside the archive; refusing the archive")
-            workbook = workbook_problem(target) if target.is_file() else None
-            if workbook:
-                hits.append(Hit(f"{group}.{role}: '{rel}' was not opened: {workbook}.", layer=role, rule="layer-unreadable"))
-                held.append(rel)
-                continue
-            if group == "layers" and _vector_spec(spec) and target.is_file() and sniff_vector(target) is None:
-                hits.append(
-                    Hit(
-                        f"{group}.{role}: '{rel}' was not opened: its content is not a self-contained GeoPackage, shapefile, "
-                        "FlatGeobuf or GeoJSON, and other formats can make GDAL read files outside the archive.",
-                        layer=role,
-                        rule="layer-unreadable",
-                    )
-                )
+            problem = open_problem(target)
+            if problem is None and target.is_dir():
+                problem = "it is a folder, and a folder is not opened as a layer in an audit"
+            if problem is None and group == "layers" and _vector_spec(spec) and target.is_file() and sniff_vector(target) is None:
+                problem = LAYER_WHY + ", and other formats can make GDAL read files outside the archive"
+            if problem:
+                hits.append(Hit(f"{group}.{role}: '{rel}' was not opened: {problem}.", layer=role, rule="layer-unreadable"))
                 held.append(rel)
                 continue
             kept[role] = spec
@@ -130,47 +135,24 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
     return out, hits, held
 
 
-# A workbook is itself a zip: its parts are checked like an archive's members before openpyxl reads them.
-WORKBOOK_LIMITS = Limits(max_members=10_000, max_total_bytes=2 * 1024**3, max_ratio=500.0)
-
-
-def workbook_problem(path: Path) -> str | None:
-    """Why the spreadsheet at ``path`` must not be opened (a zip bomb, a path escape...), or None."""
-    if path.suffix.lower() not in (".xlsx", ".xlsm"):
-        return None
-    try:
-        inspect_zip(path, WORKBOOK_LIMITS)
-    except ArchivistError as exc:
-        return str(exc).split(": ", 1)[-1].replace("; refusing the archive", "")
-    return workbook_xml_problem(path)
-
-
-def _hold_unsafe_layers(root: Path, held_dir: Path) -> list[str]:
-    """Move top-level files that must not be opened out of ``root`` (a private copy); return their names."""
-    held = []
-    for path in sorted(root.iterdir()):
-        if path.is_file() and workbook_problem(path):
-            held_dir.mkdir(exist_ok=True)
-            shutil.move(str(path), held_dir / path.name)
-            held.append(path.name)
-        elif path.is_file() and path.suffix.lower() in VECTOR_SUFFIXES and sniff_vector(path) is None:
-            held_dir.mkdir(exist_ok=True)
-            shutil.move(str(path), held_dir / path.name)
-            held.append(path.name)
-        elif path.is_dir() and path.suffix.lower() in VECTOR_SUFFIXES:  # e.g. a File Geodatabase folder
-            held_dir.mkdir(exist_ok=True)
-            shutil.move(str(path), held_dir / path.name)
-            held.append(path.name + "/")
-    return held
-
-
 def load_archive_project(arc: OpenedArchive) -> OpenedMap:
-    """Load the map inside an opened archive (package or not), safely: GDAL runs fenced (:func:`archivist.vectorio.untrusted`)."""
+    """Load the map inside an opened archive (package or not), safely.
+
+    Two fences stand between the archive and GDAL. Every file and folder of
+    the private copy, at any depth, is screened first
+    (:func:`~archivist.package.safe.screen_tree`): those no reader may be
+    handed are set aside, out of the copy, while the map is read (by the
+    manifest or by inferring roles), and put back afterwards for the checksum
+    verification; each one is named with the reason. Then the reading runs
+    with GDAL's virtual and network drivers switched off
+    (:func:`archivist.vectorio.untrusted`).
+    """
     with vectorio.untrusted():
         return _load_archive_project(arc)
 
 
 def _load_archive_project(arc: OpenedArchive) -> OpenedMap:
+    """The body of :func:`load_archive_project`, inside the GDAL fence."""
     root = arc.content_root()
     bag = is_bag(root)
     data = root / "data" if bag and (root / "data").is_dir() else root
@@ -179,36 +161,44 @@ def _load_archive_project(arc: OpenedArchive) -> OpenedMap:
     held: list[str] = []
     hits: list[Hit] = []
     prefix = data.relative_to(root).as_posix() + "/" if data != root else ""
+    raw: dict[str, Any] | None = None
+    screened: dict[str, Any] | None = None
     if manifest_path.is_file():
         raw = mf.read_manifest(manifest_path)
         screened, hits, held_rel = screen_manifest(raw, data, label, f"{prefix}{mf.MANIFEST_NAME}")
         held = [prefix + h for h in held_rel]
-        audit_manifest = data / AUDIT_MANIFEST
-        # Paths stay as the archive wrote them; the schema check runs on the original.
-        audit_manifest.write_text(dump_toml(screened), encoding="utf-8")
-        try:
-            project = load_project(audit_manifest)
-        finally:
-            audit_manifest.unlink()  # the copy is left as extracted, for the checksum verification
-        project.manifest_path = manifest_path
-        # schema problems are reported against the archive's own manifest, not the screened copy
-        own = [h for h in project.problems if not h.message.startswith(f"{AUDIT_MANIFEST}:")]
-        project.problems = mf.validate_manifest(raw, f"{prefix}{mf.MANIFEST_NAME}") + own + hits
-    else:
-        held_dir = arc.root.parent / "held"
-        held = [prefix + h for h in _hold_unsafe_layers(data, held_dir)]
-        project = load_project(data)
-        # archive-map-missing says this for an archive, with what to ask the authors for
-        project.problems = [h for h in project.problems if not (h.rule == "layer-missing" and h.layer == "units")]
-        for name in held:
-            project.notes.append(f"{name} was not opened: its content is not a self-contained GeoPackage, shapefile, FlatGeobuf or GeoJSON.")
+    unsafe = screen_tree(root)
+    # the store is a sibling of the copy, never inside the archive's own tree
+    with set_aside(root, unsafe, arc.root.parent / "held"):
+        if screened is not None:
+            project = load_project(data, manifest=screened)
+            project.manifest_path = manifest_path
+            project.problems = mf.validate_manifest(raw, f"{prefix}{mf.MANIFEST_NAME}") + project.problems + hits
+        else:
+            project = load_project(data)
+            # archive-map-missing says this for an archive, with what to ask the authors for
+            project.problems = [h for h in project.problems if not (h.rule == "layer-missing" and h.layer == "units")]
+    named = {h.rstrip("/") for h in held}
+    unopened = [(rel, why) for rel, why in unsafe if rel.rstrip("/") not in named]  # the others have a layer-unreadable hit
+    for rel, why in unopened:
+        held.append(rel)
+        project.notes.append(f"{rel} was not opened: {why}.")
     project.notes = [_relabel(n, data, label, prefix) for n in project.notes]
-    return OpenedMap(project=project, kind="package" if bag else "archive", label=label, archive=arc, root=root, data=data, held=held)
+    return OpenedMap(
+        project=project,
+        kind="package" if bag else "archive",
+        label=label,
+        archive=arc,
+        root=root,
+        data=data,
+        held=held,
+        unopened=unopened,
+    )
 
 
 def _relabel(text: str, data: Path, label: str, prefix: str) -> str:
     shown = f"{label}/{prefix.rstrip('/')}" if prefix else label
-    return text.replace(str(data), shown).replace(AUDIT_MANIFEST, mf.MANIFEST_NAME)
+    return text.replace(str(data), shown)
 
 
 @contextmanager

@@ -68,6 +68,7 @@ from ..manifest import MANIFEST_NAME
 from ..tomltext import dump_toml, toml_value
 from .bagcheck import file_digest, verify_bag
 from .safe import Limits, open_archive
+from ..safeparse import LimitExceeded, load_json, load_toml
 from .source import is_bag
 from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, terminate_as_exception
 
@@ -196,8 +197,8 @@ def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, s
     record = root / "data" / "metadata" / "datacite.json"
     if not doi and record.is_file():
         try:
-            doi = json.loads(record.read_text(encoding="utf-8")).get("doi")
-        except (ValueError, AttributeError):
+            doi = load_json(record, "data/metadata/datacite.json").get("doi")
+        except (ValueError, AttributeError, OSError, LimitExceeded):
             doi = None
     if isinstance(doi, str):
         doi = re.sub(r"^(?:https?://(?:dx\.)?doi\.org/|doi:)", "", doi.strip(), flags=re.I) or None
@@ -393,7 +394,7 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
         data = root / "data"
         packaged_text = (data / MANIFEST_NAME).read_text(encoding="utf-8")
         try:
-            packaged = tomllib.loads(packaged_text)
+            packaged = load_toml(packaged_text, f"{label}: data/{MANIFEST_NAME}")
         except tomllib.TOMLDecodeError as exc:
             raise ArchivistError(f"{label}: data/{MANIFEST_NAME} is not valid TOML: {exc}") from None
         origin, base, text = "package", data, packaged_text
@@ -401,11 +402,11 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
         if (src / MANIFEST_NAME).is_file():
             try:
                 src_text = (src / MANIFEST_NAME).read_text(encoding="utf-8-sig")
-                src_data = tomllib.loads(src_text)
+                src_data = load_toml(src_text, f"{label}: data/source/{MANIFEST_NAME}")
                 paths = _manifest_paths(src_data)
                 if paths and all((p := _inside(src, rel)) is not None and p.exists() for rel in paths):
                     origin, base, text = "source", src, src_text
-            except (tomllib.TOMLDecodeError, UnicodeDecodeError):
+            except (tomllib.TOMLDecodeError, UnicodeDecodeError, LimitExceeded):
                 pass
         manifest = tomllib.loads(text)
         named = sorted(set(_manifest_paths(manifest)))

@@ -168,6 +168,50 @@ def bag_structure_invalid(project, ctx):
         yield Hit(p.message, layer=p.file)
 
 
+@rule("bag-tags-unprotected", family="archive", severity="warning", needs=NEEDS)
+def bag_tags_unprotected(project, ctx):
+    """Tag files of a bag are covered by no tag manifest.
+
+    Catches
+    -------
+    A BagIt bag without any `tagmanifest-<algorithm>.txt`, or whose tag
+    manifests leave out tag files (`bag-info.txt`, `bagit.txt`, the payload
+    manifests, other tag files). RFC 8493 (2.2.1) allows a bag without a tag
+    manifest; what is lost is named: a change to those files cannot be
+    detected. It does not say whether they were changed.
+
+    Why it matters
+    --------------
+    The payload manifest is what proves the data intact; if nothing protects
+    it, whoever changes a data file can change its line in the manifest too,
+    and the bag still verifies. archivist packages always carry a tag
+    manifest, so its absence there means it was removed.
+
+    Fix
+    ---
+    Ask the repository for the bag as deposited, or for its tag manifest; a
+    bag you make yourself should have `tagmanifest-sha256.txt`.
+
+    Example
+    -------
+    A package whose `tagmanifest-sha256.txt` was deleted gives "The bag has
+    no tag manifest: nothing protects bag-info.txt, bagit.txt,
+    manifest-sha256.txt: a change to them ... cannot be detected".
+    """
+    facts = project.archive
+    if facts.bag is None or not facts.bag.unprotected:
+        return
+    files = facts.bag.unprotected
+    has_tag = any(m.startswith("tagmanifest-") for m in facts.members if "/" not in m)
+    what = "No tag manifest lists" if has_tag else "The bag has no tag manifest: nothing protects"
+    yield Hit(
+        f"{what} {_first(files)}: a change to them, the payload manifests included, cannot be detected "
+        "(RFC 8493 allows this; the checksums in the payload manifest are then only as trustworthy as the manifest itself).",
+        layer=files[0],
+        features=tuple(files),
+    )
+
+
 @rule("package-part-missing", family="archive", severity="error", needs=NEEDS)
 def package_part_missing(project, ctx):
     """An archivist package lacks one of the files its layout always has.
@@ -825,6 +869,46 @@ def archive_format_closed(project, ctx):
         yield Hit(f"{rel} is {what}.", layer=rel, features=(rel,))
 
 
+@rule("archive-file-unopened", family="archive", severity="warning", needs=NEEDS)
+def archive_file_unopened(project, ctx):
+    """Files of the archive were held back unopened or unread, and why.
+
+    Catches
+    -------
+    Every file or folder, at any depth, that the audit did not hand to a
+    reader because it could reach outside the archive or exhaust the machine:
+    a "GeoPackage", GeoJSON, shapefile or other layer whose content is not a
+    self-contained format (a GDAL virtual layer can point at any file or
+    network address), a workbook that fails the zip checks, a folder in a
+    multi-file vector format, and a structured file (`CITATION.cff`) over
+    the size, depth or alias-expansion limits or not parseable. Files a
+    manifest names are reported by `layer-unreadable` instead; the Data
+    Package, DataCite and PROV records by their own rules. It does not say
+    whether the held file was meant harmlessly.
+
+    Why it matters
+    --------------
+    What the audit could not read it could not check: a layer held back may
+    be the map itself, and a metadata file not read may hold the licence or
+    the authors.
+
+    Fix
+    ---
+    Ask the authors for the files in self-contained open formats (GeoPackage,
+    GeoJSON, CSV) and for plain metadata files; a virtual layer or an alias
+    bomb in a deposit is worth reporting to the repository.
+
+    Example
+    -------
+    `sub/units.gpkg` holding GDAL virtual-layer XML gives "sub/units.gpkg was
+    not opened: its content is a GDAL virtual layer or service description,
+    which can make GDAL read files or network addresses outside the archive."
+    """
+    facts = project.archive
+    for rel, why in facts.unread:
+        yield Hit(f"{rel} was not opened: {why}.", layer=rel, features=(rel,))
+
+
 @rule("archive-map-missing", family="archive", severity="error", needs=NEEDS)
 def archive_map_missing(project, ctx):
     """The archive holds no layer of map-unit polygons that archivist can find.
@@ -834,7 +918,8 @@ def archive_map_missing(project, ctx):
     Archives in which no manifest names a unit layer and no polygon layer
     with a unit field (`unit`, `code`, `formation`...) is found among the
     files archivist can open safely (GeoPackage, shapefile, FlatGeobuf,
-    GeoJSON at the top of the archive).
+    GeoJSON, in the folders the role guessing looks into; files held back
+    unopened are listed by `archive-file-unopened`).
 
     Why it matters
     --------------
