@@ -232,38 +232,41 @@ def make_project(base: Path, container: str, manifest: bool, defect: str) -> Pat
     return root
 
 
-projects = st.fixed_dictionaries(
-    {
-        "container": st.sampled_from(["gpkg", "wal-gpkg", "shapefile"]),
-        "manifest": st.booleans(),
-        "defect": st.sampled_from(["none", "overlap", "escape-code", "legend-folder"]),
-    }
-)
+CONTAINERS = ["gpkg", "wal-gpkg", "shapefile"]
+DEFECTS = ["none", "overlap", "escape-code", "legend-folder"]
 
 
 def _fresh(tmp_path_factory) -> Path:
     return tmp_path_factory.mktemp("sandbox")
 
 
-@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(spec=projects)
-def test_project_commands_do_no_harm(spec, tmp_path_factory, monkeypatch, socket_guard, listener):
+@pytest.mark.parametrize("container", CONTAINERS)
+@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(manifest=st.booleans(), defect=st.sampled_from(DEFECTS), inside=st.booleans())
+def test_project_commands_do_no_harm(container, manifest, defect, inside, tmp_path_factory, monkeypatch, socket_guard, listener):
     sandbox = _fresh(tmp_path_factory)
-    project = make_project(sandbox / "in", **spec)
+    project = make_project(sandbox / "in", container, manifest, defect)
     out = sandbox / "out"
     out.mkdir()
     other = make_project(sandbox / "in2", "gpkg", True, "none")
     runs = [
-        (["check", str(project)], []),
+        (["check", str(project)], [], None),
         (["check", str(project), "--format", "json", "--output", str(out / "r.json"), "--html", str(out / "r.html"),
-          "--findings-gpkg", str(out / "f.gpkg")], [out]),
-        (["pack", str(project), "--out", str(out), "--zip", "--allow-errors"], [out]),
-        (["diff", str(other), str(project), "--output", str(out / "d.txt"), "--force"], [out]),
-        (["audit", str(project), "--output", str(out / "a.txt"), "--force"], [out]),
+          "--findings-gpkg", str(out / "f.gpkg")], [out], None),
+        (["pack", str(project), "--out", str(out), "--zip", "--allow-errors"], [out], None),
+        (["diff", str(other), str(project), "--output", str(out / "d.txt"), "--force"], [out], None),
+        (["audit", str(project), "--output", str(out / "a.txt"), "--force"], [out], None),
     ]
-    for args, allowed in runs:
-        run_in_sandbox(sandbox, args, [project, other], allowed, monkeypatch)
-    if not spec["manifest"]:
+    if inside:  # an output named inside the project is refused (exit 2), and nothing is written there
+        runs += [
+            (["check", str(project), "--output", str(project / "report.txt")], [], 2),
+            (["pack", str(project), "--out", str(project)], [], 2),
+            (["diff", str(other), str(project), "--gpkg", str(project / "changes.gpkg")], [], 2),
+        ]
+    for args, allowed, expected in runs:
+        code, output = run_in_sandbox(sandbox, args, [project, other], allowed, monkeypatch)
+        assert expected is None or code == expected, f"archivist {' '.join(args)} exited {code}\n{output}"
+    if not manifest:
         before = snapshot(project)
         run_in_sandbox(sandbox, ["init", str(project)], [], [project], monkeypatch)
         after = snapshot(project)
@@ -279,7 +282,9 @@ def test_project_commands_do_no_harm(spec, tmp_path_factory, monkeypatch, socket
 VRT = """<OGRVRTDataSource>
   <OGRVRTLayer name="units">
     <SrcDataSource>{src}</SrcDataSource>
+    <SrcLayer>secret</SrcLayer>
     <GeometryType>wkbPolygon</GeometryType>
+    <GeometryField encoding="WKT" field="WKT"/>
   </OGRVRTLayer>
 </OGRVRTDataSource>
 """
@@ -306,6 +311,8 @@ def make_archive(base: Path, kind: str, port: int) -> Path:
         (folder / "sub" / "units.gpkg").write_text(VRT.format(src=src), encoding="utf-8")
         (folder / "sub" / "deeper" / "lines.shp").write_text(VRT.format(src=src), encoding="utf-8")
         (folder / "README.txt").write_text("An old deposit.\n", encoding="utf-8")
+        # a legend, so that a unit code read from outside would be reported as missing from it
+        (folder / "legend.csv").write_text("code,name\nKa,Tarrowmere Sandstone\n", encoding="utf-8")
         return archives.zip_with(base / "deposit.zip", [(p.relative_to(folder).as_posix(), p.read_bytes())
                                                         for p in sorted(folder.rglob("*")) if p.is_file()])
     if kind == "yaml-bomb":
@@ -325,23 +332,28 @@ def make_archive(base: Path, kind: str, port: int) -> Path:
 ARCHIVE_KINDS = ["package", "package-zip", "package-flipped", "traversal-zip", "vrt-local", "vrt-url", "yaml-bomb", "deep-json"]
 
 
-@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
-@given(kind=st.sampled_from(ARCHIVE_KINDS), fmt=st.sampled_from(["text", "json"]))
-def test_archive_commands_do_no_harm(kind, fmt, tmp_path_factory, monkeypatch, socket_guard, listener):
+@pytest.mark.parametrize("kind", ARCHIVE_KINDS)
+@settings(max_examples=3, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(fmt=st.sampled_from(["text", "json"]), force=st.booleans())
+def test_archive_commands_do_no_harm(kind, fmt, force, tmp_path_factory, monkeypatch, socket_guard, listener):
     sandbox = _fresh(tmp_path_factory)
     archive = make_archive(sandbox / "in", kind, listener.port)
     project = make_project(sandbox / "mine", "gpkg", True, "none")
     out = sandbox / "out"
     out.mkdir()
+    extra = ["--force"] if force else []
     runs = [
         (["audit", str(archive), "--format", fmt], []),
-        (["audit", str(archive), "--format", fmt, "--output", str(out / "audit.out")], [out]),
-        (["unpack", str(archive), str(out / "remap")], [out]),
+        (["audit", str(archive), "--format", fmt, "--output", str(out / "audit.out"), *extra], [out]),
+        (["unpack", str(archive), str(out / "remap"), *extra], [out]),
+        (["unpack", str(archive), str(archive.parent), "--force"], []),  # never over the folder holding the package
         (["diff", str(archive), str(project), "--format", fmt], []),
     ]
     for args, allowed in runs:
-        _, output = run_in_sandbox(sandbox, args, [archive, project], allowed, monkeypatch)
+        code, output = run_in_sandbox(sandbox, args, [archive, project], allowed, monkeypatch)
         assert SECRET not in output, f"archivist {' '.join(args)} printed a local file's content"
+        if args[0] == "unpack" and not allowed:
+            assert code == 2
     for p in out.rglob("*"):
         if p.is_file():
             assert SECRET.encode() not in p.read_bytes(), f"{p.name} holds a local file's content"
