@@ -7,12 +7,15 @@ import json
 import os
 import re
 import unicodedata
+import signal
+import sys
 from pathlib import Path
 
 import jsonschema
 import pytest
 from click.testing import CliRunner
 
+import archivist
 from archivist.cli import cli
 from archivist.manifest import load_schema
 from builders import edit_manifest, tiny_legend, tiny_project, tree_digest, two_units
@@ -413,3 +416,56 @@ def test_an_internal_error_is_one_line_and_never_exit_1(tmp_path, monkeypatch):
     monkeypatch.setenv("ARCHIVIST_TRACEBACK", "1")
     shown = CliRunner().invoke(cli, ["check", str(root)])
     assert isinstance(shown.exception, ZeroDivisionError)
+
+
+# ---------------------------------------------------------------- stopped runs: one line, nothing half-written
+
+STOPPABLE = """
+import pathlib, sys, time
+import archivist.fsutil as fsutil
+real = fsutil.Path.write_text
+flag = pathlib.Path(sys.argv[1])
+
+def slow_write(self, text, *a, **k):
+    out = real(self, text, *a, **k)
+    if self.name.endswith(".part"):
+        real(flag, "writing")  # tell the test the temporary sibling exists
+        time.sleep(60)
+    return out
+
+fsutil.Path.write_text = slow_write
+from archivist.cli import main
+sys.argv = ["archivist", *sys.argv[2:]]
+main()
+"""
+
+
+@pytest.mark.parametrize("how, code", [(signal.SIGTERM, 143), (signal.SIGINT, 130)])
+def test_a_stopped_check_leaves_no_partial_output_and_says_so_in_one_line(tmp_path, how, code):
+    """SIGTERM (a scheduler's limit, kill) and Ctrl-C while the report is being written.
+
+    Exit codes 128 + the signal number are the shells' convention (common practice).
+    """
+    import subprocess
+    import time
+
+    root = tiny_project(tmp_path)
+    out = tmp_path / "out"
+    out.mkdir()
+    flag = tmp_path / "flag"
+    env = {**os.environ, "PYTHONPATH": str(Path(archivist.__file__).parent.parent)}
+    proc = subprocess.Popen(
+        [sys.executable, "-c", STOPPABLE, str(flag), "check", str(root), "--output", str(out / "report.txt")],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env,
+    )
+    deadline = time.monotonic() + 120
+    while not flag.exists() and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert flag.exists(), proc.communicate()
+    proc.send_signal(how)
+    stdout, stderr = proc.communicate(timeout=60)
+    assert proc.returncode == code, stderr
+    assert "Traceback" not in stderr
+    (line,) = stderr.strip().splitlines()
+    assert line.startswith("archivist: ") and "not written" in line
+    assert list(out.iterdir()) == []  # neither the report nor its temporary sibling

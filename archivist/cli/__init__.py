@@ -20,6 +20,7 @@ import click
 
 from .._version import __version__
 from ..errors import ArchivistError
+from ..interrupt import Interrupted, terminate_as_exception
 from ..printable import printable
 
 TRACEBACK_VARIABLE = "ARCHIVIST_TRACEBACK"
@@ -54,6 +55,10 @@ def handle_errors(func: Callable[..., Any]) -> Callable[..., Any]:
             fail(exc)
         except (click.ClickException, click.exceptions.Abort, click.exceptions.Exit):
             raise
+        except KeyboardInterrupt:
+            fail("interrupted (Ctrl-C); an output not yet complete was not written", 130)
+        except Interrupted as exc:
+            fail(f"{exc}; an output not yet complete was not written", 128 + int(exc.signum))
         except OSError as exc:
             fail(os_error_line(exc))
         except Exception as exc:  # the last fence: a bug must not show a mapper a traceback
@@ -95,4 +100,7 @@ def main() -> None:
     # them is reported as findings. The Python API leaves warnings alone.
     warnings.simplefilter("ignore", RuntimeWarning)
     warnings.simplefilter("ignore", UserWarning)
-    cli(prog_name="archivist")
+    # SIGTERM raises Interrupted: temporary siblings and private copies are removed,
+    # and handle_errors prints one line (exit 143, 128 + the signal number).
+    with terminate_as_exception():
+        cli(prog_name="archivist")

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import click
 
+from ..printable import printable
 from ..report import write_text
 from .options import progress_options, progress_for
 
@@ -59,15 +60,15 @@ def pack_command(project, out, make_zip, allow_errors, force, quiet, verbose):
                 result = pack(project, out, zip=make_zip, allow_errors=allow_errors, force=force, progress=progress)
         except PackRefused as exc:
             write_text(exc.report, sys.stdout)
-            click.echo(f"archivist: {exc}", err=True)
+            click.echo(f"archivist: {printable(exc)}", err=True)
             sys.exit(1)
         except (Interrupted, KeyboardInterrupt) as exc:
-            click.echo(f"archivist: {interrupted_message(getattr(exc, 'placed', ()), make_zip)}", err=True)
+            click.echo(f"archivist: {printable(interrupted_message(getattr(exc, 'placed', ()), make_zip))}", err=True)
             sys.exit(130)
         s = result.report.summary
-        click.echo(f"Packed {result.path} ({len(result.files)} files, {_size(result.bytes)}).")
+        click.echo(f"Packed {printable(result.path)} ({len(result.files)} files, {_size(result.bytes)}).")
         if result.zip_path is not None:
-            click.echo(f"Zip: {result.zip_path} ({_size(result.zip_path.stat().st_size)}).")
+            click.echo(f"Zip: {printable(result.zip_path)} ({_size(result.zip_path.stat().st_size)}).")
         click.echo(f"Checks: {s.errors} errors, {s.warnings} warnings, {s.notices} notices.")
         if result.open_errors:
             click.echo(

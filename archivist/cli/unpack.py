@@ -34,6 +34,7 @@ def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
     """
     from ..package.staging import Interrupted
     from ..package.unpack import unpack
+    from ..printable import printable
     from . import handle_errors
 
     @handle_errors
@@ -41,11 +42,13 @@ def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
         try:
             result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
         except (Interrupted, KeyboardInterrupt):
-            click.echo(f"archivist: unpack interrupted; {directory} was not written or changed", err=True)
+            click.echo(f"archivist: unpack interrupted; {printable(directory)} was not written or changed", err=True)
             sys.exit(130)
-        click.echo(f"Unpacked {archive} into {result.path}: {len(result.files)} files "
+        shown, arc = printable(result.path), printable(archive)
+        click.echo(f"Unpacked {arc} into {shown}: {len(result.files)} files "
                    f"({'the input files as handed in' if result.origin == 'source' else 'the package files'}).")
-        click.echo(f"Version {result.previous_version} -> {result.version}; map.derived_from = \"{result.derived_from}\".")
-        click.echo(f"Next: edit the map, then 'archivist check {result.path}' and 'archivist diff {archive} {result.path}'.")
+        click.echo(f"Version {printable(result.previous_version)} -> {printable(result.version)}; "
+                   f"map.derived_from = \"{printable(result.derived_from)}\".")
+        click.echo(f"Next: edit the map, then 'archivist check {shown}' and 'archivist diff {arc} {shown}'.")
 
     run()

@@ -13,17 +13,14 @@ import os
 import re
 import secrets
 import shutil
-import signal
-import threading
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Iterator
 
 from ..fsutil import write_failed
+from ..interrupt import Interrupted, terminate_as_exception
 
-
-class Interrupted(BaseException):
-    """The run was asked to stop (SIGTERM); raised so every clean-up runs."""
+__all__ = ["Interrupted", "terminate_as_exception", "staging_dir", "staging_file", "move_into_place", "remove_leftovers", "remove"]
 
 
 def _own_failure(exc: OSError, tmp: Path) -> bool:
@@ -132,20 +129,3 @@ def _move_into_place(tmp: Path, target: Path) -> None:
         remove(aside)
     else:
         os.replace(tmp, target)
-
-
-@contextmanager
-def terminate_as_exception() -> Iterator[None]:
-    """While inside, SIGTERM raises :class:`Interrupted` so clean-up code runs (main thread only)."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-
-    def handler(signum, frame):
-        raise Interrupted(f"stopped by signal {signum}")
-
-    before = signal.signal(signal.SIGTERM, handler)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGTERM, before)
