@@ -240,3 +240,19 @@ def test_deeply_nested_archive_manifest_stops_in_one_line(tmp_path):
     assert result.exit_code == 2
     (line,) = result.stderr.strip().splitlines()
     assert "archivist.toml: nested more than 128 levels deep, over the limit; not read" in line
+
+
+def test_one_file_described_by_two_resources_is_a_descriptor_finding(tmp_path):
+    """A descriptor listing one path twice (the symptom of two inputs of one base name colliding)."""
+    pkg = package(tmp_path)
+    desc_path = pkg / "data" / "datapackage.json"
+    desc = json.loads(desc_path.read_text(encoding="utf-8"))
+    first = next(r for r in desc["resources"] if str(r.get("path", "")).startswith("source/"))
+    desc["resources"].append({**first, "name": first["name"] + "-again"})
+    desc_path.write_text(json.dumps(desc, indent=2), encoding="utf-8")
+    rebag(pkg)
+    report = archivist.audit(pkg)
+    hits = [f for f in report.findings if f.rule == "descriptor-invalid"]
+    assert len(hits) == 1
+    assert f"all describe the file '{first['path']}'" in hits[0].message
+    assert archivist.audit(package(tmp_path / "clean")).summary.errors == 0

@@ -270,6 +270,7 @@ def _check_descriptor(facts: ArchiveFacts, data: Path, rel_prefix: str) -> None:
             facts.descriptor_problems.append(f"{rel}: at '{where}': {err.message} (package profile schemas/package.schema.json).")
     safe, unsafe = _safe_descriptor(desc, data)
     facts.descriptor_problems.extend(f"{rel}: {u}" for u in unsafe)
+    facts.descriptor_problems.extend(f"{rel}: {d}" for d in _shared_paths(desc))
     try:
         from frictionless import Package
     except ImportError:  # pragma: no cover - frictionless is a dependency
@@ -294,6 +295,24 @@ def _check_descriptor(facts: ArchiveFacts, data: Path, rel_prefix: str) -> None:
         place = getattr(task, "place", None)
         for e in task.errors[:200]:
             facts.data_problems.append(DataProblem(task.name or "?", f"{rel_prefix}{place}" if isinstance(place, str) else None, e.type, e.message))
+
+
+def _shared_paths(desc: dict[str, Any]) -> list[str]:
+    """Files that more than one resource describes (a file listed twice hides another that is missing)."""
+    owners: dict[str, list[str]] = {}
+    resources = desc.get("resources")
+    for i, res in enumerate(resources if isinstance(resources, list) else []):
+        if not isinstance(res, dict):
+            continue
+        paths = res.get("path")
+        for p in paths if isinstance(paths, list) else [paths]:
+            if isinstance(p, str):
+                owners.setdefault(p, []).append(str(res.get("name") or f"#{i + 1}"))
+    return [
+        f"resources {', '.join(repr(n) for n in names)} all describe the file '{p}'; each file should be one resource"
+        for p, names in owners.items()
+        if len(names) > 1
+    ]
 
 
 def _unsafe_ref(value: Any, data: Path) -> str | None:

@@ -256,8 +256,10 @@ def descriptor_invalid(project, ctx):
     -------
     A `datapackage.json` that is not JSON, that the `frictionless` library
     rejects as a Data Package descriptor, that breaks the package profile
-    `schemas/package.schema.json`, or whose resources point outside the
-    package or at remote addresses (which are never fetched).
+    `schemas/package.schema.json`, whose resources point outside the
+    package or at remote addresses (which are never fetched), or in which
+    two resources describe one file (a file listed twice is often another
+    file's entry overwritten, so that one is not described at all).
 
     Why it matters
     --------------
