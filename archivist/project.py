@@ -284,7 +284,8 @@ def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, pro
         if hit:
             problems.append(hit)
     gdf = gpd.GeoDataFrame(frame.drop(columns=[xf, yf]), geometry=geom, crs=crs)
-    gdf.index = pd.RangeIndex(data.header_row + 1, data.header_row + 1 + len(gdf), name="row")
+    rows = np.asarray(data.lines, dtype=np.int64) if len(data.lines) == len(gdf) else np.arange(len(gdf)) + data.header_row + 1
+    gdf.index = pd.Index(rows, name="row")  # the mapper's own row numbers, blank rows counted
     return _finish_layer(role, path, rel, gdf, spec, problems)
 
 

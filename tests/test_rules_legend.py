@@ -232,3 +232,18 @@ def test_age_order_uses_chart_when_numbers_absent(tmp_path):
     legend["order"] = ["2", "1"]  # Carnian (older) listed above Norian
     (f,) = found(tiny_project(tmp_path, legend=legend), "legend-age-order")
     assert "'B'" in f.message and "227-237" in f.message  # Carnian ~237 to ~227 Ma, ICS chart v2023/09
+
+
+def test_row_numbers_count_the_blank_rows_of_a_workbook_legend(tmp_path):
+    """A legend sheet with a blank row between entries: findings name the row the mapper sees."""
+    from builders import edit_manifest, write_xlsx
+
+    root = tiny_project(tmp_path)
+    legend = tiny_legend()
+    extra = {**legend.iloc[0].to_dict(), "unit": "GAB", "name": "Unused Gabbro"}
+    rows = [list(r) for r in legend.itertuples(index=False)] + [[None] * len(legend.columns), list(extra.values())]
+    write_xlsx(root / "legend.xlsx", "legend", list(legend.columns), rows)
+    edit_manifest(root, lambda m: m["tables"].update({"legend": {"path": "legend.xlsx"}}))
+    (f,) = found(root, "legend-unused-unit")
+    # header in row 1, two entries in rows 2-3, a blank row 4: the unused unit is in row 5
+    assert "legend.xlsx, sheet 'legend', row 5" in f.message

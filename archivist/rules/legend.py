@@ -56,7 +56,7 @@ def cells(table, key: str) -> np.ndarray | None:
 def row_ref(table, i: int) -> str:
     """A data row as a mapper finds it: "legend.csv, row 5" or "legend.xlsx, sheet 'units', row 5"."""
     data = table.data
-    line = data.header_row + 1 + i
+    line = data.line(i)
     return f"{data.file}, sheet '{data.sheet}', row {line}" if data.sheet else f"{data.file}, row {line}"
 
 
@@ -222,7 +222,7 @@ def legend_duplicate_unit(project, ctx):
         if len(group) < 2:
             continue
         idx = group.index.to_numpy()
-        rows = ", ".join(str(legend.data.header_row + 1 + i) for i in idx)
+        rows = ", ".join(str(legend.data.line(i)) for i in idx)
         texts = frame.iloc[idx].map(lambda v: as_text(v).strip())
         differ = [str(c) for c in frame.columns if texts[c].nunique() > 1]
         how = f"that differ in {', '.join(differ)}" if differ else "that are exact copies"
@@ -524,7 +524,7 @@ def legend_age_order(project, ctx):
     younger = (base[:, None] <= top[None, :]) & differ
     inverted = above & older
     concordant = above & younger
-    name = (lambda i: codes[i] if codes is not None and codes[i] else f"row {legend.data.header_row + 1 + i}")
+    name = (lambda i: codes[i] if codes is not None and codes[i] else f"row {legend.data.line(i)}")
     if inverted.sum() >= 2 and not concordant.any():
         yield Hit(
             f"{legend.source}: the legend is listed oldest first by {by}; archivist expects youngest first (order 1 = youngest).",

@@ -1129,7 +1129,7 @@ def analysis_total_out_of_range(project, ctx):
         rows = np.flatnonzero((totals < lo) | (totals > hi))
     for r in rows:
         v = totals[r]
-        where = an.table.data.cell(r, column) if column else f"{an.table.source}, row {an.table.data.header_row + 1 + r}"
+        where = an.table.data.cell(r, column) if column else f"{an.table.source}, row {an.table.data.line(r)}"
         off, side = (lo - v, f"below {lo:g}") if v < lo else (v - hi, f"above {hi:g}")
         sid = _sample_of(an, r)
         via = "" if column else f" ({how})"
