@@ -47,3 +47,26 @@ def test_readme_opens_with_the_job_and_its_limits():
     first = README.split("\n\n")[1]
     assert "geolog" in first and "archivist" in first
     assert "What the checks do not cover" in README
+
+
+def test_every_test_the_readme_cites_exists():
+    """The promises point at tests by name (`tests/x.py::name`, or a file followed by names in brackets)."""
+    import ast
+    import re
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parent.parent
+    text = (root / "README.md").read_text(encoding="utf-8")
+    cited: list[tuple[str, str | None]] = []
+    for m in re.finditer(r"`(tests/[\w/]+\.py)(?:::(\w+))?`(?:\s*\(([^)]*)\))?", text, re.S):
+        path, name, group = m.group(1), m.group(2), m.group(3)
+        cited.append((path, name))
+        for inner in re.findall(r"`(test_\w+)`", group or ""):
+            cited.append((path, inner))
+    assert len(cited) > 20
+    for path, name in cited:
+        file = root / path
+        assert file.is_file(), path
+        if name:
+            names = {n.name for n in ast.walk(ast.parse(file.read_text(encoding="utf-8"))) if isinstance(n, ast.FunctionDef)}
+            assert name in names, f"README cites {path}::{name}, which does not exist"
