@@ -546,7 +546,7 @@ def test_path_over_path_max_refused_in_folder(tmp_path, private_tmp):
 # ---------------------------------------------------------------- SIGTERM mid-audit
 
 def test_sigterm_mid_audit_removes_the_private_copy(tmp_path):
-    """A scheduler's SIGTERM while the audit reads the copy: the copy is removed, the process ends by the signal."""
+    """A scheduler's SIGTERM while the audit reads the copy: the copy is removed, one line, exit 143 (128 + 15)."""
     import signal
     import subprocess
     import sys
@@ -572,6 +572,8 @@ def test_sigterm_mid_audit_removes_the_private_copy(tmp_path):
     finally:
         if proc.poll() is None:
             proc.kill()
-    assert proc.returncode == -signal.SIGTERM, err.decode()
+    assert proc.returncode == 128 + signal.SIGTERM, err.decode()
     assert "Traceback" not in err.decode()
+    (line,) = err.decode().strip().splitlines()
+    assert line.startswith("archivist: stopped by signal 15")
     assert list(work.iterdir()) == [], "the private copy was left in the temporary folder"
