@@ -378,7 +378,7 @@ def add_measures(gpkg: Path, layer: str, measures: dict[int, list[float]], *, wi
     import shapely
 
     con = sqlite3.connect(gpkg)
-    envelope = lambda blob: struct.unpack("<4d", blob[8:40])  # noqa: E731
+    envelope = lambda blob: struct.unpack("<4d", blob[8:40])
     con.create_function("ST_IsEmpty", 1, lambda blob: 0)
     for i, name in enumerate(("ST_MinX", "ST_MaxX", "ST_MinY", "ST_MaxY")):
         con.create_function(name, 1, lambda blob, i=i: envelope(blob)[i])

@@ -3,6 +3,7 @@
 import datetime as dt
 import hashlib
 import json
+import warnings
 
 import geopandas as gpd
 import numpy as np
@@ -10,11 +11,26 @@ import pandas as pd
 import pyogrio
 import pyproj
 import pytest
+import shapely
+from builders import (
+    LINE_MEASURES,
+    add_measures,
+    edit_layer,
+    edit_manifest,
+    measures_of,
+    tiny_project,
+    tiny_with_measures,
+    tree_digest,
+)
 from shapely.geometry import Point, Polygon, box
 
 import archivist
-from archivist.package.layers import all_tables, prepare_layers, write_geojson, write_geopackage
-from builders import edit_layer, tiny_project
+from archivist.package.layers import (
+    all_tables,
+    prepare_layers,
+    write_geojson,
+    write_geopackage,
+)
 
 T = dt.datetime(2026, 1, 1, tzinfo=dt.timezone.utc)
 
@@ -117,12 +133,6 @@ def test_keys_link_the_tables(tmp_path):
 
 
 # ---------------------------------------------------------------- M (measure) values
-
-import warnings  # noqa: E402
-
-import shapely  # noqa: E402
-
-from builders import LINE_MEASURES, add_measures, edit_manifest, measures_of, tiny_with_measures, tree_digest  # noqa: E402
 
 MEASURES_RULE = "measures-source-only"
 
