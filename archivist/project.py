@@ -8,6 +8,8 @@ cannot be read at all raises :class:`~archivist.errors.ArchivistError`.
 
 from __future__ import annotations
 
+import re
+import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -50,6 +52,7 @@ class Layer:
     frame: gpd.GeoDataFrame
     ids: np.ndarray
     spec: dict[str, Any]
+    measured: int = 0  # features whose geometry carries M (measure) values in the file; GDAL's reader drops them
 
     @property
     def crs(self) -> pyproj.CRS | None:
@@ -231,7 +234,9 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
         )
         return None
     try:
-        frame = vectorio.read_dataframe(path, layer=name, label=rel, fid_as_index=True, on_invalid="ignore")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", UserWarning)
+            frame = vectorio.read_dataframe(path, layer=name, label=rel, fid_as_index=True, on_invalid="ignore")
     except vectorio.VectorReadError as exc:
         problems.append(Hit(f"layers.{role}: {exc}.", layer=role, rule="layer-unreadable"))
         return None
@@ -241,7 +246,54 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
     attributes = True
     if path.suffix.lower() == ".shp":
         attributes = _shapefile_sidecars(role, path, rel, problems)
-    return _finish_layer(role, path, source, frame, spec, problems, attributes=attributes)
+    layer = _finish_layer(role, path, source, frame, spec, problems, attributes=attributes)
+    declared = False
+    for w in caught:  # the warnings of one read, not of every feature
+        if MEASURED_WARNING in str(w.message):
+            declared = True
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    layer.measured = _measured_features(path, name, rel, frame, declared)
+    return layer
+
+
+# pyogrio (0.13) reads no M values: it reads a layer whose GDAL geometry type is measured
+# ("Measured LineString", a GeoPackage with gpkg_geometry_columns.m = 1 or 2, a PolyLineM
+# shapefile) without them and says so with a UserWarning starting with these words.
+MEASURED_WARNING = "Measured (M) geometry types are not supported"
+
+
+def _sql_name(name: str) -> str:
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _measured_features(path: Path, layer: str, rel: str, frame: gpd.GeoDataFrame, declared: bool) -> int:
+    """How many features of the layer carry M values in the file.
+
+    From the geometries when the reader kept M; otherwise, when the layer's
+    type is measured, by GDAL's ``ST_IsMeasured`` in its SQLite SQL dialect
+    (one query, no Python loop); every feature with a geometry when that
+    query cannot run.
+    """
+    geoms = np.asarray(frame.geometry.array, dtype=object)
+    kept = int(shapely.has_m(geoms).sum())
+    if kept or not declared:
+        return kept
+    present = int((~(shapely.is_missing(geoms) | shapely.is_empty(geoms))).sum())
+    try:
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message=re.escape(MEASURED_WARNING), category=UserWarning)
+            column = vectorio.read_info(path, layer=layer, label=rel).get("geometry_name") or "GEOMETRY"
+            flags = vectorio.read_dataframe(
+                path,
+                label=rel,
+                sql=f"SELECT ST_IsMeasured({_sql_name(column)}) AS m FROM {_sql_name(layer)}",
+                sql_dialect="SQLITE",
+                read_geometry=False,
+            )
+        return int(pd.to_numeric(flags["m"], errors="coerce").fillna(0).astype(bool).sum())
+    except (vectorio.VectorReadError, KeyError):
+        return present
 
 
 def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit]) -> bool:

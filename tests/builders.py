@@ -352,3 +352,82 @@ def folder_state(root: Path) -> dict[str, tuple]:
         else:
             out[rel] = ("dir" if p.is_dir() else "other", None, st.st_mtime_ns)
     return out
+
+
+# ---------------------------------------------------------------- measures (M) on GeoPackage geometries
+
+def add_measures(gpkg: Path, layer: str, measures: dict[int, list[float]], *, with_z: bool = False, optional: bool = False) -> Path:
+    """Give the features of ``layer`` M values (one per vertex, by fid), as a GIS that stores route measures does.
+
+    pyogrio 0.13 writes no M geometry types, so the file is edited with
+    ``sqlite3``: each geometry becomes a GeoPackage binary (GeoPackage 1.4,
+    OGC 12-128r19, section 2.1.3: "GP", version 0, flags byte with bit 0 =
+    little endian and bits 1-3 = 1 for an [minx, maxx, miny, maxy] envelope,
+    srs_id int32, the envelope, then ISO WKB) whose WKB is of ISO type 2002
+    (LineString M) or 3002 (LineString ZM), 2001/3001 for points (OGC Simple
+    Features 1.2.1 / ISO 19125-1, WKB geometry type codes); ``gpkg_geometry_columns.m``
+    becomes 1 ("mandatory", section 2.1.5, table 7), or 2 ("optional") with
+    ``optional`` (then features left out of ``measures`` keep plain x, y),
+    and ``z`` too with ``with_z`` (Z = 0 then). ``geometry_type_name`` keeps its base name
+    (LINESTRING, POINT): the GeoPackage gives the dimensions in ``z`` and ``m``.
+    The R-tree triggers call GDAL's SQL functions; they are given here from the envelope.
+    """
+    import sqlite3
+    import struct
+
+    import shapely
+
+    con = sqlite3.connect(gpkg)
+    envelope = lambda blob: struct.unpack("<4d", blob[8:40])
+    con.create_function("ST_IsEmpty", 1, lambda blob: 0)
+    for i, name in enumerate(("ST_MinX", "ST_MaxX", "ST_MinY", "ST_MaxY")):
+        con.create_function(name, 1, lambda blob, i=i: envelope(blob)[i])
+    (column,) = con.execute("SELECT column_name FROM gpkg_geometry_columns WHERE table_name = ?", (layer,)).fetchone()
+    for fid, ms in measures.items():
+        blob = con.execute(f'SELECT "{column}" FROM "{layer}" WHERE fid = ?', (fid,)).fetchone()[0]
+        srs_id = struct.unpack("<i" if blob[3] & 1 else ">i", blob[4:8])[0]
+        envelope_bytes = {0: 0, 1: 32, 2: 48, 3: 48, 4: 64}[(blob[3] >> 1) & 7]
+        geom = shapely.from_wkb(blob[8 + envelope_bytes:])
+        xy = shapely.get_coordinates(geom)
+        assert len(xy) == len(ms), f"fid {fid}: {len(xy)} vertices, {len(ms)} measures"
+        dims = "ZM" if with_z else "M"
+        vertices = ", ".join(" ".join(repr(float(v)) for v in ((x, y, 0.0, m) if with_z else (x, y, m))) for (x, y), m in zip(xy, ms))
+        kind = shapely.get_type_id(geom)
+        text = f"POINT {dims} ({vertices})" if kind == 0 else f"LINESTRING {dims} ({vertices})"
+        wkb = shapely.to_wkb(shapely.from_wkt(text), flavor="iso", output_dimension=4, byte_order=1)
+        assert int.from_bytes(wkb[1:5], "little") == (3000 if with_z else 2000) + (1 if kind == 0 else 2)
+        minx, miny, maxx, maxy = shapely.bounds(geom)
+        new = b"GP" + bytes([0, 0b0000_0011]) + struct.pack("<i4d", srs_id, minx, maxx, miny, maxy) + wkb
+        con.execute(f'UPDATE "{layer}" SET "{column}" = ? WHERE fid = ?', (new, fid))
+    con.execute("UPDATE gpkg_geometry_columns SET m = ?, z = ? WHERE table_name = ?", (2 if optional else 1, 1 if with_z else 0, layer))
+    con.commit()
+    con.close()
+    return Path(gpkg)
+
+
+def measures_of(gpkg: Path, layer: str) -> dict[int, list[float]]:
+    """The M value of every vertex by fid, read from the GeoPackage binaries with ``sqlite3`` and shapely (not GDAL)."""
+    import sqlite3
+
+    import shapely
+
+    con = sqlite3.connect(f"file:{gpkg}?mode=ro", uri=True)
+    (column,) = con.execute("SELECT column_name FROM gpkg_geometry_columns WHERE table_name = ?", (layer,)).fetchone()
+    out = {}
+    for fid, blob in con.execute(f'SELECT fid, "{column}" FROM "{layer}" ORDER BY fid'):
+        envelope_bytes = {0: 0, 1: 32, 2: 48, 3: 48, 4: 64}[(blob[3] >> 1) & 7]
+        geom = shapely.from_wkb(blob[8 + envelope_bytes:])
+        out[fid] = shapely.get_coordinates(geom, include_m=True)[:, -1].tolist() if shapely.has_m(geom) else []
+    con.close()
+    return out
+
+
+# Route measures along the two lines of the tiny map (fids 1 and 2), in metres from each line's start.
+LINE_MEASURES = {1: [0.0, 100.0], 2: [0.0, 100.0, 200.0, 300.0, 400.0, 500.0, 600.0]}
+
+
+def tiny_with_measures(tmp_path: Path, *, with_z: bool = False, **kw) -> Path:
+    """The tiny project whose lines carry M values (``LINE_MEASURES``), as LineString M or ZM."""
+    root = tiny_project(tmp_path, **kw)
+    add_measures(root / "map.gpkg", "lines", LINE_MEASURES, with_z=with_z)
+    return root

@@ -3,6 +3,7 @@
 import datetime as dt
 import hashlib
 import json
+import warnings
 
 import geopandas as gpd
 import numpy as np
@@ -10,11 +11,26 @@ import pandas as pd
 import pyogrio
 import pyproj
 import pytest
+import shapely
+from builders import (
+    LINE_MEASURES,
+    add_measures,
+    edit_layer,
+    edit_manifest,
+    measures_of,
+    tiny_project,
+    tiny_with_measures,
+    tree_digest,
+)
 from shapely.geometry import Point, Polygon, box
 
 import archivist
-from archivist.package.layers import all_tables, prepare_layers, write_geojson, write_geopackage
-from builders import edit_layer, tiny_project
+from archivist.package.layers import (
+    all_tables,
+    prepare_layers,
+    write_geojson,
+    write_geopackage,
+)
 
 T = dt.datetime(2026, 1, 1, tzinfo=dt.timezone.utc)
 
@@ -114,3 +130,83 @@ def test_keys_link_the_tables(tmp_path):
     assert tables["legend"].primary_key == ["unit"]
     legend = {f["name"]: f for f in tables["legend"].fields}
     assert legend["min_age_ma"]["unit"] == "Ma" and legend["min_age_ma"]["type"] == "integer"
+
+
+# ---------------------------------------------------------------- M (measure) values
+
+MEASURES_RULE = "measures-source-only"
+
+
+def test_measured_layer_is_what_gdal_calls_measured_and_pyogrio_reads_without_m(tmp_path):
+    # The premise of the rule, against GDAL itself: GDAL's ST_IsMeasured (its SQLite SQL dialect) sees
+    # the M of every feature the builder wrote, pyogrio 0.13 reads them without M and says so.
+    root = tiny_with_measures(tmp_path)
+    assert measures_of(root / "map.gpkg", "lines") == LINE_MEASURES  # the builder's values, read back with sqlite3 + shapely
+    flags = pyogrio.read_dataframe(root / "map.gpkg", sql='SELECT ST_IsMeasured("geom") AS m FROM "lines"',
+                                   sql_dialect="SQLITE", read_geometry=False)
+    assert flags["m"].tolist() == [1, 1]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        frame = pyogrio.read_dataframe(root / "map.gpkg", layer="lines")
+    assert not shapely.has_m(frame.geometry.array).any()
+    assert any("Measured (M)" in str(w.message) for w in caught)
+
+
+@pytest.mark.parametrize("with_z", [False, True], ids=["LineString M", "LineString ZM"])
+def test_check_names_the_layer_and_counts_features_with_m(tmp_path, with_z):
+    root = tiny_with_measures(tmp_path, with_z=with_z)
+    before = tree_digest(root)
+    report = archivist.check(root)
+    found = [f for f in report.findings if f.rule == MEASURES_RULE]
+    assert len(found) == 1 and found[0].layer == "lines" and found[0].severity.value == "warning"
+    assert "lines layer map.gpkg:lines: 2 features carry M (measure) values" in found[0].message
+    assert "source/" in found[0].message and "map.gpkg" in found[0].message
+    assert archivist.load_project(root).layers["units"].measured == 0
+    assert tree_digest(root) == before
+
+
+def test_only_the_features_with_m_are_counted(tmp_path):
+    # GeoPackage 1.4, table 7: m = 2 means M is optional; feature 2 alone carries it here.
+    root = tiny_project(tmp_path)
+    add_measures(root / "map.gpkg", "lines", {2: LINE_MEASURES[2]}, optional=True)
+    assert archivist.load_project(root).layers["lines"].measured == 1
+    found = [f for f in archivist.check(root).findings if f.rule == MEASURES_RULE]
+    assert "1 feature carries M" in found[0].message
+
+
+def test_shapefile_with_m_is_counted(tmp_path):
+    # A PolyLineM shapefile (shape type 23, ESRI Shapefile Technical Description, 1998), written by GDAL
+    # from ISO WKB 2002 with its SHPT=ARCM layer option.
+    root = tiny_project(tmp_path)
+    lines = pyogrio.read_dataframe(root / "map.gpkg", layer="lines")
+    xy = [shapely.get_coordinates(g) for g in lines.geometry]
+    wkt = [f"LINESTRING M ({', '.join(f'{x} {y} {m}' for (x, y), m in zip(c, LINE_MEASURES[i + 1]))})" for i, c in enumerate(xy)]
+    wkb = shapely.to_wkb(shapely.from_wkt(wkt), flavor="iso", output_dimension=4)
+    pyogrio.raw.write(root / "lines.shp", wkb, [lines["kind"].to_numpy(), lines["certainty"].to_numpy()], ["kind", "certainty"],
+                      driver="ESRI Shapefile", geometry_type="LineString", crs="EPSG:32633", layer_options={"SHPT": "ARCM"})
+    assert int.from_bytes((root / "lines.shp").read_bytes()[32:36], "little") == 23
+    edit_manifest(root, lambda m: m["layers"]["lines"].update(path="lines.shp", layer="lines"))
+    found = [f for f in archivist.check(root).findings if f.rule == MEASURES_RULE]
+    assert len(found) == 1 and "lines layer lines.shp:lines: 2 features carry M" in found[0].message
+
+
+def test_pack_says_where_the_m_values_are_and_keeps_them_in_source(tmp_path):
+    root = tiny_with_measures(tmp_path)
+    before = tree_digest(root)
+    data = archivist.pack(root, tmp_path / "out").path / "data"
+    # The input, byte for byte, with every M value as written.
+    assert digest(data / "source" / "map.gpkg") == digest(root / "map.gpkg")
+    assert measures_of(data / "source" / "map.gpkg", "lines") == LINE_MEASURES
+    # map.gpkg has the lines without M (pyogrio writes none), and says nothing false about them.
+    assert measures_of(data / "map.gpkg", "lines") == {1: [], 2: []}
+    assert pyogrio.read_dataframe(data / "map.gpkg", sql='SELECT ST_IsMeasured("geom") AS m FROM "lines"',
+                                  sql_dialect="SQLITE", read_geometry=False)["m"].tolist() == [0, 0]
+    # GeoJSON positions: longitude, latitude (RFC 7946, section 3.1.1: no M).
+    doc = json.loads((data / "geojson" / "lines.geojson").read_text(encoding="utf-8"))
+    assert {len(p) for f in doc["features"] for p in f["geometry"]["coordinates"]} == {2}
+    readme = (data / "README.md").read_text(encoding="utf-8")
+    assert "Note: lines layer map.gpkg:lines: 2 features carry M (measure) values" in readme
+    assert "map.gpkg and geojson/lines.geojson hold the geometries without M" in readme
+    report = json.loads((data / "metadata" / "validation-report.json").read_text(encoding="utf-8"))
+    assert [f["layer"] for f in report["findings"] if f["rule"] == MEASURES_RULE] == ["lines"]
+    assert tree_digest(root) == before

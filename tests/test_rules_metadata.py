@@ -17,6 +17,7 @@ from builders import (
     tiny_legend,
     tiny_project,
     tiny_with_analyses,
+    tiny_with_measures,
     two_units,
     tree_digest,
 )
@@ -124,6 +125,11 @@ def far_corner(tmp_path):
     return tiny_project(tmp_path, units=units)
 
 
+def measured_lines(tmp_path):
+    """Contacts of type LineString M: route measures in metres along each line."""
+    return tiny_with_measures(tmp_path)
+
+
 CASES = {
     "manifest-invalid": (unknown_key, clean),
     "layer-missing": (missing_file, clean),
@@ -141,6 +147,7 @@ CASES = {
     "formula-like-value": (formula_like_legend, clean),
     "layer-empty": (empty_units, clean),
     "coordinates-implausible": (far_corner, clean),
+    "measures-source-only": (measured_lines, clean),
 }
 
 

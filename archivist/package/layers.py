@@ -4,6 +4,10 @@ Every layer is written in the map CRS to ``map.gpkg`` (the editable master)
 with its feature ids kept, and as RFC 7946 GeoJSON in WGS 84 (GDAL's GeoJSON
 driver with ``RFC7946=YES`` reprojects and writes lon/lat order, 7 decimals).
 Every attribute is kept, with the mapper's field names. Identifiers stay text.
+M (measure) values are not carried: pyogrio reads geometries without them
+(and writes none from a GeoDataFrame), and RFC 7946 GeoJSON has no M
+(section 3.1.1); a layer that had them gets a note saying so, and the input
+file in ``source/`` keeps them byte for byte.
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ import shapely
 
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
+from ..rules.metadata import measures_statement
 from .determinism import gdal_date
 from .tables import TextTable, column_text, text_table
 
@@ -141,6 +146,10 @@ def prepare_layers(project: MapProject) -> list[PreparedLayer]:
             _require_finite(np.asarray(frame.geometry.array, dtype=object), layer.source, f"the map CRS ({target.name})")
         else:
             frame = frame.set_crs(target, allow_override=True)
+        if layer.measured:
+            # pyogrio reads and writes no M values: say what map.gpkg and the GeoJSON lack, and where the values are.
+            measures = measures_statement(layer) + "."
+            note = f"{note} {measures}" if note else measures
         geo_name = frame.geometry.name
         attrs = [c for c in frame.columns if c != geo_name]
         data = {"fid": _fids(frame)}

@@ -680,3 +680,58 @@ def coordinates_implausible(project, ctx):
                 layer=role,
                 features=(fid,),
             )
+
+
+def measures_statement(layer) -> str:
+    """What happens to a layer's M values in a package, in one sentence (used by the rule and the package README)."""
+    n = layer.measured
+    role = layer.role
+    return (
+        f"{role} layer {layer.source}: {n} feature{'s' if n != 1 else ''} carr{'y' if n != 1 else 'ies'} M (measure) values, "
+        f"which archivist does not read; a package made from it holds them only in source/, which keeps the file byte "
+        f"for byte: map.gpkg and geojson/{role}.geojson hold the geometries without M"
+    )
+
+
+@rule("measures-source-only", family="metadata", severity="warning")
+def measures_source_only(project, ctx):
+    """A layer's geometries carry M (measure) values that the package's map files will not hold.
+
+    Catches
+    -------
+    Layers whose geometries carry M values besides x, y (and z): a GeoPackage
+    layer of type LineString M, Point ZM and the like
+    (`gpkg_geometry_columns.m` 1 or 2), a PolyLineM or PointZ shapefile;
+    route measures along a traverse, depths along a borehole trace. The
+    finding names the layer and counts the features with M. archivist reads
+    geometries through GDAL with pyogrio, which returns them without M, so
+    the checks ignore the M values (their order along a line, gaps and
+    duplicates are not looked at), and `archivist pack` writes
+    `data/map.gpkg` and the GeoJSON copies without them. GeoJSON has no M
+    coordinate at all (RFC 7946, section 3.1.1: a position holds longitude,
+    latitude and optionally elevation). Z values are not affected.
+
+    Why it matters
+    --------------
+    The packaged map silently differs from the mapper's: a user who opens
+    `map.gpkg` finds lines without the measures the field work produced. The
+    package does not lose them: `data/source/` keeps the input file byte for
+    byte, and the package README says where they are.
+
+    Fix
+    ---
+    Nothing is wrong with the map. If the M values matter to the next user,
+    say so in the abstract, or also store them as attributes (a start and end
+    measure per line, a depth per sample) so that every file of the package
+    holds them; otherwise accept the finding or turn it off with
+    `[checks.severity] measures-source-only = "off"`.
+
+    Example
+    -------
+    A lines layer of type LineString M gives "lines layer map.gpkg:lines: 2
+    features carry M (measure) values, which archivist does not read; a
+    package made from it holds them only in source/ ...".
+    """
+    for role, layer in project.layers.items():
+        if layer.measured:
+            yield Hit(measures_statement(layer) + ".", layer=role)
