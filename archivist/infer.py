@@ -197,7 +197,7 @@ def _geometry_family(path: Path, layer: str, gtype: str) -> str:
         ids = shapely.get_type_id(df.geometry.values[~df.geometry.isna().to_numpy()])
     except (vectorio.VectorReadError, AttributeError):  # unreadable, or no geometry: leave the declared type, it will be listed as not placed
         return g
-    families = Counter(FAMILY_OF_TYPE_ID.get(int(i)) for i in ids if int(i) in FAMILY_OF_TYPE_ID)
+    families = Counter(FAMILY_OF_TYPE_ID[int(i)] for i in ids if int(i) in FAMILY_OF_TYPE_ID)
     return families.most_common(1)[0][0] if families else g
 
 
@@ -339,7 +339,7 @@ def _infer(path: Path) -> Inference:
     # tables first: the legend's codes help find the unit field
     legend, legend_unit = _legend(sources)
     legend_codes: set[str] = set()
-    if legend is not None:
+    if legend is not None and legend_unit is not None:
         spec = legend.spec()
         if legend_unit != "unit":
             spec["unit_field"] = legend_unit
@@ -384,25 +384,25 @@ def _infer(path: Path) -> Inference:
 
     # lines
     lines = [s for s in sources if s.geometry == "LineString"]
-    ranked = []
+    ranked_lines: list[tuple[tuple[bool, bool, int], Source, str | None, str]] = []
     for s in lines:
         kind, kwhy = _field_by_values(s, KIND_NAMES, KIND_VALUES)
-        ranked.append(((kind is not None, bool(LINE_WORDS.search(s.layer or s.path.stem)), s.features or 0), s, kind, kwhy))
-    ranked.sort(key=lambda r: r[0], reverse=True)
-    if ranked:
-        _, s, kind, kwhy = ranked[0]
+        ranked_lines.append(((kind is not None, bool(LINE_WORDS.search(s.layer or s.path.stem)), s.features or 0), s, kind, kwhy))
+    ranked_lines.sort(key=lambda r: r[0], reverse=True)
+    if ranked_lines:
+        _, s, kind, kwhy = ranked_lines[0]
         spec = s.spec()
-        why, confirm = ["lines"], []
+        reasons, confirm = ["lines"], []
         if kind:
             spec["kind_field"] = kind
-            why.append(f"kind field '{kind}': {kwhy}")
+            reasons.append(f"kind field '{kind}': {kwhy}")
         else:
             confirm.append(f"no field naming the kind of line (contact, fault…) was recognised (fields: {', '.join(s.fields) or 'none'}); set kind_field")
         cert, cwhy = _field_by_values(s, CERTAINTY_NAMES, CERTAINTY_VALUES)
         if cert and cert != kind:
             spec["certainty_field"] = cert
-            why.append(f"certainty field '{cert}': {cwhy}")
-        place("lines", s, spec, ["; ".join(why)], confirm)
+            reasons.append(f"certainty field '{cert}': {cwhy}")
+        place("lines", s, spec, ["; ".join(reasons)], confirm)
         for _, other, _, _ in ranked[1:]:
             unplaced.append((other.label, "another line layer: archivist reads one lines layer; merge contacts, faults and boundaries into it with a kind field"))
             used.add(id(other))
@@ -444,12 +444,12 @@ def _infer(path: Path) -> Inference:
         _, s, sid = ranked_p[0]
         spec = s.spec()
         spec["id_field"] = sid
-        why = [f"points with a sample id '{sid}'"]
+        reasons = [f"points with a sample id '{sid}'"]
         unit = _pick(s.fields, UNIT_NAMES)
         if unit:
             spec["unit_field"] = unit
-            why.append(f"unit '{unit}'")
-        place("samples", s, spec, [", ".join(why)])
+            reasons.append(f"unit '{unit}'")
+        place("samples", s, spec, [", ".join(reasons)])
     if "samples" not in placed:
         for s in sources:
             if s.geometry is not None or id(s) in used:

@@ -27,7 +27,7 @@ import sys
 from contextlib import contextmanager
 from dataclasses import dataclass
 from time import perf_counter
-from typing import IO, Iterator
+from typing import IO, Any, Iterator
 
 from .printable import printable
 
@@ -49,7 +49,7 @@ class Step:
         self.label = label
         self.total = total
         self.done = 0
-        self.task = None  # the display's handle, if any
+        self.task: Any = None  # the display's handle (a rich TaskID), if any
 
     def advance(self, n: int = 1) -> None:
         self.done += n

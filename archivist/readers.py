@@ -104,8 +104,8 @@ def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
     except OSError as exc:
         raise _os_error(name, exc) from None
     text, hit = decode_utf8(raw, name)
-    if hit is not None:
-        return None, [hit]
+    if text is None:
+        return None, [hit] if hit is not None else []
     sample = text[:4096]
     delimiter = "\t" if path.suffix.lower() == ".tsv" else ","
     if path.suffix.lower() != ".tsv":
@@ -140,11 +140,12 @@ def _defused(exc: BaseException) -> BaseException | None:
     from defusedxml import DefusedXmlException
 
     seen = set()
-    while exc is not None and id(exc) not in seen:
-        seen.add(id(exc))
-        if isinstance(exc, DefusedXmlException):
-            return exc
-        exc = exc.__cause__ or exc.__context__
+    current: BaseException | None = exc
+    while current is not None and id(current) not in seen:
+        seen.add(id(current))
+        if isinstance(current, DefusedXmlException):
+            return current
+        current = current.__cause__ or current.__context__
     return None
 
 

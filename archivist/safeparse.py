@@ -49,7 +49,7 @@ from __future__ import annotations
 import json
 import tomllib
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterable
 
 import yaml
 
@@ -106,6 +106,7 @@ def _check_depth(value: Any, label: str, max_depth: int) -> None:
     stack = [(value, 1)]
     while stack:
         item, depth = stack.pop()
+        children: Iterable[Any]
         if isinstance(item, dict):
             children = item.values()
         elif isinstance(item, list):

@@ -117,6 +117,7 @@ class Reader:
         if key in self._targets:
             return self._targets[key]
         state = sqlite_state(p) if p.is_file() else SqliteState(False)
+        found: tuple[str, dict[str, str]]
         if state.needs_copy:
             found = (str(self._copy(p, state)), {})
         elif state.is_sqlite:

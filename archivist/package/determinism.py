@@ -102,16 +102,16 @@ def zip_tree(src: Path, dest: Path, prefix: str, t: dt.datetime) -> None:
         entries.append((f"{prefix}/{rel}/" if path.is_dir() else f"{prefix}/{rel}", None if path.is_dir() else path))
     entries.sort(key=lambda e: e[0])
     with zipfile.ZipFile(dest, "w", allowZip64=True) as zf:
-        for name, path in entries:
+        for name, member in entries:
             info = zipfile.ZipInfo(name, date_time=stamp)
             info.create_system = 3  # Unix, so the permission bits below are read
-            if path is None:
+            if member is None:
                 info.external_attr = (stat.S_IFDIR | DIR_MODE) << 16 | 0x10
                 info.compress_type = zipfile.ZIP_STORED
                 zf.writestr(info, b"")
             else:
                 info.external_attr = (stat.S_IFREG | FILE_MODE) << 16
                 info.compress_type = zipfile.ZIP_DEFLATED
-                with open(path, "rb") as fh, zf.open(info, "w", force_zip64=path.stat().st_size > 2**31) as out:
+                with open(member, "rb") as fh, zf.open(info, "w", force_zip64=member.stat().st_size > 2**31) as out:
                     while chunk := fh.read(1 << 20):
                         out.write(chunk)

@@ -170,7 +170,7 @@ def _load_archive_project(arc: OpenedArchive) -> OpenedMap:
     unsafe = screen_tree(root)
     # the store is a sibling of the copy, never inside the archive's own tree
     with set_aside(root, unsafe, arc.root.parent / "held"):
-        if screened is not None:
+        if screened is not None and raw is not None:
             project = load_project(data, manifest=screened)
             project.manifest_path = manifest_path
             project.problems = mf.validate_manifest(raw, f"{prefix}{mf.MANIFEST_NAME}") + project.problems + hits

@@ -48,8 +48,8 @@ def write_text(report: Report, stream: IO[str], *, color: bool | None = None) ->
     console.print(Text(f"Map CRS: {printable(report.crs) if report.crs else 'not declared'}"))
     order = {f: i for i, f in enumerate(FAMILIES)}
     by_family = sorted(report.findings, key=lambda f: (order.get(f.family, 99), f.severity.rank, f.rule))
-    for family, items in groupby(by_family, key=lambda f: f.family):
-        items = list(items)
+    for family, group in groupby(by_family, key=lambda f: f.family):
+        items = list(group)
         console.print()
         console.print(Text(f"{printable(family)} ({len(items)})", style="bold underline"))
         for f in items:

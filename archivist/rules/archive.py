@@ -12,11 +12,16 @@ archive, and each finding says what to ask the original authors for.
 from __future__ import annotations
 
 from collections import OrderedDict
+from typing import TYPE_CHECKING, Iterator
 
 import numpy as np
 
 from ..model import Hit, Severity
 from ..registry import rule
+
+if TYPE_CHECKING:
+    from ..engine import CheckContext
+    from ..project import MapProject
 
 NEEDS = ("archive",)
 LEGEND_DETAIL = ("name", "age", "description")
@@ -46,7 +51,7 @@ def _file_hits(facts, kind: str, loose=()):
 # ------------------------------------------------------------------ integrity
 
 @rule("archive-checksum-mismatch", family="archive", severity="error", needs=NEEDS)
-def archive_checksum_mismatch(project, ctx):
+def archive_checksum_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A file's checksum differs from the one the archive records for it.
 
     Catches
@@ -78,7 +83,7 @@ def archive_checksum_mismatch(project, ctx):
 
 
 @rule("archive-file-missing", family="archive", severity="error", needs=NEEDS)
-def archive_file_missing(project, ctx):
+def archive_file_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A file the archive lists (in a manifest or checksum list) is not in it.
 
     Catches
@@ -107,7 +112,7 @@ def archive_file_missing(project, ctx):
 
 
 @rule("archive-file-unlisted", family="archive", severity="error", needs=NEEDS)
-def archive_file_unlisted(project, ctx):
+def archive_file_unlisted(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A payload file of a bag is not listed in its manifest.
 
     Catches
@@ -134,7 +139,7 @@ def archive_file_unlisted(project, ctx):
 
 
 @rule("bag-structure-invalid", family="archive", severity="error", needs=NEEDS)
-def bag_structure_invalid(project, ctx):
+def bag_structure_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The bag's own files break the BagIt rules (RFC 8493).
 
     Catches
@@ -169,7 +174,7 @@ def bag_structure_invalid(project, ctx):
 
 
 @rule("bag-tags-unprotected", family="archive", severity="warning", needs=NEEDS)
-def bag_tags_unprotected(project, ctx):
+def bag_tags_unprotected(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Tag files of a bag are covered by no tag manifest.
 
     Catches
@@ -213,7 +218,7 @@ def bag_tags_unprotected(project, ctx):
 
 
 @rule("package-part-missing", family="archive", severity="error", needs=NEEDS)
-def package_part_missing(project, ctx):
+def package_part_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An archivist package lacks one of the files its layout always has.
 
     Catches
@@ -249,7 +254,7 @@ def package_part_missing(project, ctx):
 
 
 @rule("descriptor-invalid", family="archive", severity="error", needs=NEEDS)
-def descriptor_invalid(project, ctx):
+def descriptor_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The Data Package descriptor (`datapackage.json`) is not valid.
 
     Catches
@@ -283,7 +288,7 @@ def descriptor_invalid(project, ctx):
 
 
 @rule("package-data-invalid", family="archive", severity="error", needs=NEEDS)
-def package_data_invalid(project, ctx):
+def package_data_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A file of a Data Package fails its description: types, keys, links, size or hash.
 
     Catches
@@ -322,7 +327,7 @@ def package_data_invalid(project, ctx):
 
 
 @rule("datacite-record-invalid", family="archive", severity="error", needs=NEEDS)
-def datacite_record_invalid(project, ctx):
+def datacite_record_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The DataCite metadata record is not valid.
 
     Catches
@@ -354,7 +359,7 @@ def datacite_record_invalid(project, ctx):
 
 
 @rule("provenance-record-invalid", family="archive", severity="error", needs=NEEDS)
-def provenance_record_invalid(project, ctx):
+def provenance_record_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The provenance record is not a usable W3C PROV-JSON document.
 
     Catches
@@ -387,7 +392,7 @@ def provenance_record_invalid(project, ctx):
 
 
 @rule("archive-checksums-absent", family="archive", severity="warning", needs=NEEDS)
-def archive_checksums_absent(project, ctx):
+def archive_checksums_absent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive carries no checksums, so damage to its files cannot be detected.
 
     Catches
@@ -427,7 +432,7 @@ def archive_checksums_absent(project, ctx):
 # ------------------------------------------------------------------ reuse-readiness
 
 @rule("archive-licence-missing", family="archive", severity="error", needs=NEEDS)
-def archive_licence_missing(project, ctx):
+def archive_licence_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive states no licence anywhere.
 
     Catches
@@ -464,7 +469,7 @@ def archive_licence_missing(project, ctx):
 
 
 @rule("archive-licence-unclear", family="archive", severity="error", needs=NEEDS)
-def archive_licence_unclear(project, ctx):
+def archive_licence_unclear(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A licence is stated but cannot be identified, or the archive states different licences.
 
     Catches
@@ -494,7 +499,7 @@ def archive_licence_unclear(project, ctx):
     facts = project.archive
     if not facts.licences:
         return
-    ids = OrderedDict()
+    ids: OrderedDict[str, list[str]] = OrderedDict()
     for st in facts.licence_ids:
         ids.setdefault(st.text, []).append(st.source)
     if not ids:
@@ -512,7 +517,7 @@ def archive_licence_unclear(project, ctx):
 
 
 @rule("archive-crs-undeclared", family="archive", severity="error", needs=NEEDS)
-def archive_crs_undeclared(project, ctx):
+def archive_crs_undeclared(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer of the archive declares no coordinate reference system.
 
     Catches
@@ -544,7 +549,7 @@ def archive_crs_undeclared(project, ctx):
 
 
 @rule("archive-crs-inconsistent", family="archive", severity="error", needs=NEEDS)
-def archive_crs_inconsistent(project, ctx):
+def archive_crs_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The layers of the archive are in different coordinate reference systems.
 
     Catches
@@ -603,7 +608,7 @@ def _crs(text):
 
 
 @rule("archive-legend-missing", family="archive", severity="error", needs=NEEDS)
-def archive_legend_missing(project, ctx):
+def archive_legend_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive holds no legend for its map units.
 
     Catches
@@ -640,7 +645,7 @@ def archive_legend_missing(project, ctx):
 
 
 @rule("archive-legend-incomplete", family="archive", severity="error", needs=("archive", "units", "legend"))
-def archive_legend_incomplete(project, ctx):
+def archive_legend_incomplete(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The legend lacks units that are mapped, or its entries lack name, age or description.
 
     Catches
@@ -676,7 +681,8 @@ def archive_legend_incomplete(project, ctx):
 
     codes = text_column(legend.frame[code_col])
     known = set(codes)
-    mapped, counts = np.unique(np.array([u for u in units if u], dtype=object), return_counts=True) if len(units) else ([], [])
+    present = np.array([u for u in units if u], dtype=object)
+    mapped, counts = np.unique(present, return_counts=True) if len(present) else (np.array([], dtype=object), np.array([], dtype=int))
     absent = [(str(c), int(n)) for c, n in zip(mapped, counts) if c not in known]
     if absent:
         text = _first([f"{c} ({n} polygon{'s' if n != 1 else ''})" for c, n in absent])
@@ -704,7 +710,7 @@ def archive_legend_incomplete(project, ctx):
 
 
 @rule("archive-authors-missing", family="archive", severity="error", needs=NEEDS)
-def archive_authors_missing(project, ctx):
+def archive_authors_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive names no authors.
 
     Catches
@@ -737,7 +743,7 @@ def archive_authors_missing(project, ctx):
 
 
 @rule("archive-contact-missing", family="archive", severity="warning", needs=NEEDS)
-def archive_contact_missing(project, ctx):
+def archive_contact_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive gives no way to contact the authors or the data's keeper.
 
     Catches
@@ -772,7 +778,7 @@ def archive_contact_missing(project, ctx):
 
 
 @rule("archive-lineage-missing", family="archive", severity="warning", needs=NEEDS)
-def archive_lineage_missing(project, ctx):
+def archive_lineage_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive does not say how the map was made or what it came from.
 
     Catches
@@ -807,7 +813,7 @@ def archive_lineage_missing(project, ctx):
 
 
 @rule("archive-description-missing", family="archive", severity="warning", needs=NEEDS)
-def archive_description_missing(project, ctx):
+def archive_description_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive does not describe what it holds.
 
     Catches
@@ -840,7 +846,7 @@ def archive_description_missing(project, ctx):
 
 
 @rule("archive-format-closed", family="archive", severity="warning", needs=NEEDS)
-def archive_format_closed(project, ctx):
+def archive_format_closed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Files are in closed or vendor-bound formats.
 
     Catches
@@ -872,7 +878,7 @@ def archive_format_closed(project, ctx):
 
 
 @rule("archive-file-unopened", family="archive", severity="warning", needs=NEEDS)
-def archive_file_unopened(project, ctx):
+def archive_file_unopened(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Files of the archive were held back unopened or unread, and why.
 
     Catches
@@ -912,7 +918,7 @@ def archive_file_unopened(project, ctx):
 
 
 @rule("archive-map-missing", family="archive", severity="error", needs=NEEDS)
-def archive_map_missing(project, ctx):
+def archive_map_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The archive holds no layer of map-unit polygons that archivist can find.
 
     Catches
