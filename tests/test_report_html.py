@@ -167,6 +167,25 @@ def test_page_is_self_contained_and_states_its_limits(handmade):
     assert len(markers) == sum(1 for f in report.findings if f.x is not None)
 
 
+def test_style_and_script_are_the_shipped_assets(handmade):
+    # the page's <style> and <script> hold the package data files verbatim, read through
+    # importlib.resources (the Python documentation's way to reach files inside a package)
+    from importlib import resources
+
+    _, _, page = handmade
+    text = page.read_text(encoding="utf-8")
+    assets = resources.files("archivist.report") / "assets"
+    css = (assets / "report.css").read_text(encoding="utf-8")
+    js = (assets / "report.js").read_text(encoding="utf-8")
+    assert css.strip() and js.strip()
+    assert f"<style>\n{css}</style>" in text
+    assert f"<script>\n{js}</script></body>" in text
+    # HTML's raw text elements end at the first "</style" or "</script" (WHATWG HTML, "raw text
+    # elements"): neither file may contain the other's or its own end tag
+    for name, body in (("report.css", css), ("report.js", js)):
+        assert not re.search(r"</(style|script)", body, re.I), name
+
+
 def test_user_text_is_escaped(tmp_path):
     import geopandas as gpd
 
