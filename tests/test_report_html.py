@@ -167,6 +167,25 @@ def test_page_is_self_contained_and_states_its_limits(handmade):
     assert len(markers) == sum(1 for f in report.findings if f.x is not None)
 
 
+def test_style_and_script_are_the_shipped_assets(handmade):
+    # the page's <style> and <script> hold the package data files verbatim, read through
+    # importlib.resources (the Python documentation's way to reach files inside a package)
+    from importlib import resources
+
+    _, _, page = handmade
+    text = page.read_text(encoding="utf-8")
+    assets = resources.files("archivist.report") / "assets"
+    css = (assets / "report.css").read_text(encoding="utf-8")
+    js = (assets / "report.js").read_text(encoding="utf-8")
+    assert css.strip() and js.strip()
+    assert f"<style>\n{css}</style>" in text
+    assert f"<script>\n{js}</script></body>" in text
+    # HTML's raw text elements end at the first "</style" or "</script" (WHATWG HTML, "raw text
+    # elements"): neither file may contain the other's or its own end tag
+    for name, body in (("report.css", css), ("report.js", js)):
+        assert not re.search(r"</(style|script)", body, re.I), name
+
+
 def test_user_text_is_escaped(tmp_path):
     import geopandas as gpd
 
@@ -534,7 +553,7 @@ def decode(d: str) -> list[list[tuple[int, int]]]:
 
 
 def test_path_data_round_trips_the_polygons():
-    from archivist.report.html import Frame, path_data, path_data_joined
+    from archivist.report.svg import Frame, path_data, path_data_joined
 
     project = archivist.load_project(BUNDLE_DIR)
     geoms = project.layers["units"].geometry
@@ -558,7 +577,7 @@ def test_path_data_round_trips_the_polygons():
 
 
 def test_display_simplification_keeps_a_coverage(monkeypatch):
-    import archivist.report.html as html_mod
+    import archivist.report.svg as svg_mod
 
     # a densely digitised coverage: wavy boundaries sampled every metre, polygonised by GEOS
     t = np.arange(0.0, 401.0)
@@ -566,7 +585,7 @@ def test_display_simplification_keeps_a_coverage(monkeypatch):
     lines += [shapely.LineString(np.c_[t, j * 100 + 8 * np.sin(t / 17 + j)]) for j in range(5)]
     dense = np.asarray(shapely.get_parts(shapely.polygonize(shapely.get_parts(shapely.union_all(lines)))), dtype=object)
     assert len(dense) == 9 and shapely.coverage_is_valid(dense)  # the 3 x 3 closed cells
-    out, how = html_mod._simplify_units(dense, 1.0)
+    out, how = svg_mod._simplify_units(dense, 1.0)
     assert how == "coverage"
     assert shapely.get_num_coordinates(out).sum() < shapely.get_num_coordinates(dense).sum() / 5
     # GEOS's own coverage check: no gaps or overlaps were made by the simplification
@@ -574,11 +593,11 @@ def test_display_simplification_keeps_a_coverage(monkeypatch):
     # and the outline moved by no more than the tolerance: area change within perimeter x tolerance
     outline = shapely.union_all(dense)
     assert abs(shapely.union_all(out).area - outline.area) <= outline.length * 1.0
-    monkeypatch.setattr(html_mod, "COVERAGE_VERTICES", 10)
-    out2, how2 = html_mod._simplify_units(dense, 1.0)
+    monkeypatch.setattr(svg_mod, "COVERAGE_VERTICES", 10)
+    out2, how2 = svg_mod._simplify_units(dense, 1.0)
     assert how2 == "polygon" and shapely.get_num_coordinates(out2).sum() < shapely.get_num_coordinates(dense).sum() / 5
     bundle = archivist.load_project(BUNDLE_DIR).layers["units"].geometry
-    assert html_mod._simplify_units(bundle, 1.0) == (None, None)  # 52 m segments on average: nothing to gain
+    assert svg_mod._simplify_units(bundle, 1.0) == (None, None)  # 52 m segments on average: nothing to gain
 
 
 def test_ci_installs_the_browser_and_playwright():
