@@ -353,3 +353,49 @@ def test_cli_json_shape_for_each_kind(tiny, tmp_path):
     data = json.loads(result.stdout)
     jsonschema.validate(data, SCHEMA)
     assert {"change", "layer", "features", "message", "x", "y"} <= set(data["changes"][0])
+
+
+def test_layer_and_column_changes_of_every_layer_are_reported(tmp_path):
+    """A samples column added, an analyses column removed, a structures layer and an extent layer added:
+    each is one change, like the same edits to the units, lines and legend."""
+    old = tiny_with_analyses(tmp_path, name="old")
+    new = tiny_with_analyses(tmp_path, name="new", structures=tiny_structures(), extent=box(0, 0, 200, 100))
+    edit_layer(new, "map.gpkg", "samples", lambda f: f.assign(collector="Test Mapper"))
+    edit_xlsx(new, "analyses.xlsx", "majors", lambda ws: ws.delete_cols(ws.max_column))
+    report = archivist.diff(old, new)
+    found = {(c.change, c.layer) for c in report.changes}
+    assert {("column-added", "samples"), ("column-removed", "analyses"), ("layer-added", "structures"), ("layer-added", "extent")} <= found
+    jsonschema.validate(json.loads(json.dumps(report.to_dict())), SCHEMA)
+
+
+def test_folding_reshapes_leaves_the_changes_given_untouched(tiny, tmp_path):
+    """The contact moved 5 m east and both squares reshaped to follow it: the fold returns a completed copy of
+    the line move (A gained and B lost 5 m x 100 m = 500 m², plane geometry) and leaves the changes given unchanged."""
+    from archivist.diff.common import start
+    from archivist.diff.lines import match_lines
+    from archivist.diff.polygons import match_polygons
+    from archivist.diff.reshapes import fold_reshapes
+
+    new = variant(tiny, tmp_path)
+
+    def move_contact(f):
+        f.loc[f.index[0], "geometry"] = LineString([(105, 0), (105, 100)])
+
+    def follow(f):
+        f.loc[f.index[0], "geometry"] = box(0, 0, 105, 100)
+        f.loc[f.index[1], "geometry"] = box(105, 0, 200, 100)
+
+    edit_layer(new, "map.gpkg", "lines", move_contact)
+    edit_layer(new, "map.gpkg", "units", follow)
+    cmp, _ = start(archivist.load_project(tiny), archivist.load_project(new))
+    polygons, lines = match_polygons(cmp), match_lines(cmp)
+    assert polygons.found.changes == [] and len(polygons.reshapes) == 2
+    (moved,) = lines.changes
+    before = (moved.message, dict(moved.area_gained), dict(moved.area_lost), len(moved.pieces))
+    folded = fold_reshapes(polygons.reshapes, polygons.found.changes, lines.changes, cmp.tol)
+    assert (moved.message, moved.area_gained, moved.area_lost, len(moved.pieces)) == before
+    (done,) = folded.lines
+    assert done.change == "line-moved" and folded.reshaped == []
+    assert done.area_gained == {"A": pytest.approx(500.0)} and done.area_lost == {"B": pytest.approx(500.0)}
+    again = fold_reshapes(polygons.reshapes, polygons.found.changes, lines.changes, cmp.tol)
+    assert [c.message for c in again.lines] == [done.message]

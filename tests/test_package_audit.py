@@ -4,8 +4,11 @@ The packages are made by ``archivist pack`` (the example bundle and the tiny
 project); the damaged ones are broken here in code.
 """
 
+import importlib
+import importlib.resources
 import json
 import shutil
+import sys
 import zipfile
 
 import bagit
@@ -15,7 +18,7 @@ from click.testing import CliRunner
 
 import archivist
 from archivist.cli import cli
-from archivist.manifest import load_schema
+from archivist.manifest import load_schema, schema_dir
 from archives import flip_byte, package, package_zip, rebag
 from builders import tiny_project, tree_digest
 
@@ -256,3 +259,70 @@ def test_one_file_described_by_two_resources_is_a_descriptor_finding(tmp_path):
     assert len(hits) == 1
     assert f"all describe the file '{first['path']}'" in hits[0].message
     assert archivist.audit(package(tmp_path / "clean")).summary.errors == 0
+
+
+# ---------------------------------------------------------------- the same result whatever is installed
+
+def _outcome(report):
+    return [(f.rule, f.message) for f in report.findings], list(report.notes[1:])
+
+
+def test_datacite_result_does_not_depend_on_the_datacite_package(tmp_path, monkeypatch):
+    """The DataCite record is checked against the 4.5 JSON Schema shipped in schemas/ (copied from the
+    datacite package), so hiding that package changes nothing; the value 'Mapz' is not in the schema's
+    resourceTypeGeneral list (DataCite Metadata Schema 4.5, property 10.a)."""
+    from archives import edit_json
+
+    root = package(tmp_path)
+    edit_json(root / "data" / "metadata" / "datacite.json", lambda d: d["types"].update(resourceTypeGeneral="Mapz"))
+    rebag(root)
+    with_package = _outcome(archivist.audit(root, only=["archive"]))
+    assert any("Mapz" in m for r, m in with_package[0] if r == "datacite-record-invalid")
+    monkeypatch.setitem(sys.modules, "datacite", None)  # import datacite now fails
+    with pytest.raises(ImportError):
+        importlib.import_module("datacite")
+    assert _outcome(archivist.audit(root, only=["archive"])) == with_package
+
+
+def test_shipped_datacite_schema_is_the_datacite_package_file():
+    """schemas/datacite-v4.5.json is the datacite package's file byte for byte (schemas/README.md records the source)."""
+    import datacite  # a test dependency (pyproject.toml, [test])
+
+    shipped = schema_dir() / "datacite-v4.5.json"
+    original = importlib.resources.files(datacite) / "schemas" / "datacite-v4.5.json"
+    assert shipped.read_bytes() == original.read_bytes()
+    jsonschema.Draft7Validator.check_schema(json.loads(shipped.read_text(encoding="utf-8")))
+
+
+# ---------------------------------------------------------------- nothing unreadable is skipped silently
+
+def test_unreadable_layer_files_are_findings(tmp_path):
+    """A GeoPackage cut short after its SQLite header and a .geojson that is not JSON: GDAL cannot read
+    either; each is an archive-file-unopened finding naming the file, not a silent skip."""
+    root = tiny_project(tmp_path)
+    gpkg = (root / "map.gpkg").read_bytes()
+    (root / "extra").mkdir()
+    (root / "extra" / "cut.gpkg").write_bytes(gpkg[:1024])  # "SQLite format 3" header, then nothing
+    (root / "extra" / "broken.geojson").write_text('{"type": "FeatureCollection", "features": [', encoding="utf-8")
+    report = archivist.audit(root, only=["archive"])
+    unopened = {f.features[0]: f.message for f in report.findings if f.rule == "archive-file-unopened"}
+    assert set(unopened) == {"extra/cut.gpkg", "extra/broken.geojson"}, unopened
+    assert all("GDAL could not read it" in m for m in unopened.values())
+
+
+def test_descriptor_frictionless_cannot_read_is_a_finding(tmp_path):
+    """A field constraint of the wrong type passes frictionless's descriptor check, then fails while
+    reading with a TypeError of its own: a descriptor finding, and the audit goes on."""
+    from archives import edit_json
+
+    root = package(tmp_path)
+
+    def bad_constraint(d):
+        res = next(r for r in d["resources"] if r.get("schema", {}).get("fields"))
+        field = next(f for f in res["schema"]["fields"] if f.get("type") in ("integer", "number"))
+        field.setdefault("constraints", {})["minimum"] = "x"
+
+    edit_json(root / "data" / "datapackage.json", bad_constraint)
+    rebag(root)
+    report = archivist.audit(root, rules=["descriptor-invalid"])
+    assert any("the frictionless library cannot read it" in f.message for f in report.findings), [f.message for f in report.findings]

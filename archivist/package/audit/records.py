@@ -1,0 +1,234 @@
+"""Validators of the records an archive carries about itself: the Data Package descriptor, DataCite, W3C PROV.
+
+Each fills its part of :class:`~.facts.ArchiveFacts`: the record as read,
+where it was read, and the problems found. The DataCite record is validated
+against the DataCite Metadata Schema 4.5 JSON Schema shipped in ``schemas/``
+(so the result does not depend on what else is installed).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import jsonschema
+
+from ...manifest import load_schema, schema_dir
+from .facts import ArchiveFacts, DataProblem, read_json
+
+PROV_KEYS = {
+    "prefix", "entity", "activity", "agent", "wasGeneratedBy", "used", "wasInformedBy", "wasStartedBy", "wasEndedBy",
+    "wasInvalidatedBy", "wasDerivedFrom", "wasAttributedTo", "wasAssociatedWith", "actedOnBehalfOf", "wasInfluencedBy",
+    "specializationOf", "alternateOf", "hadMember", "mentionOf", "bundle",
+}  # the top-level members of a PROV-JSON document (W3C Member Submission "PROV-JSON", 2013, section 2)
+# The properties a DataCite record cannot do without: the "required" list of datacite-v4.5.json in the
+# datacite package (creators, titles, publisher, publicationYear, types, schemaVersion).
+DATACITE_REQUIRED = ("creators", "titles", "publisher", "publicationYear", "types", "schemaVersion")
+# The DataCite Metadata Schema 4.5 as JSON Schema, shipped in schemas/ (source and licence: schemas/README.md).
+DATACITE_SCHEMA = "datacite-v4.5.json"
+# What frictionless lets escape, besides its own FrictionlessException, from a descriptor its own
+# descriptor check passed (a constraint of the wrong type, for one, ends in a TypeError while reading).
+FRICTIONLESS_ESCAPES = (TypeError, ValueError, LookupError, AttributeError, ArithmeticError)
+
+
+def check_descriptor(facts: ArchiveFacts, data: Path, rel_prefix: str) -> None:
+    """Validate ``datapackage.json`` in ``data``: the package profile, unsafe references, then frictionless
+    (the descriptor, every table against its Table Schema, foreign keys, bytes and hashes)."""
+    path = data / "datapackage.json"
+    rel = f"{rel_prefix}datapackage.json"
+    desc = read_json(path, rel, facts.descriptor_problems)
+    if not isinstance(desc, dict):
+        if desc is not None:
+            facts.descriptor_problems.append(f"{rel} is not a JSON object.")
+        return
+    facts.descriptor, facts.descriptor_source = desc, rel
+    profile = schema_dir() / "package.schema.json"
+    if profile.is_file():
+        validator = jsonschema.Draft202012Validator(load_schema("package.schema.json"))
+        for err in sorted(validator.iter_errors(desc), key=lambda e: list(map(str, e.absolute_path)))[:50]:
+            where = "/".join(map(str, err.absolute_path)) or "(top)"
+            facts.descriptor_problems.append(f"{rel}: at '{where}': {err.message} (package profile schemas/package.schema.json).")
+    safe, unsafe = _safe_descriptor(desc, data)
+    facts.descriptor_problems.extend(f"{rel}: {u}" for u in unsafe)
+    facts.descriptor_problems.extend(f"{rel}: {d}" for d in _shared_paths(desc))
+    from frictionless import (  # imported when an archive has a descriptor
+        FrictionlessException,
+        Package,
+    )
+
+    try:
+        report = Package.validate_descriptor(safe)
+        for e in report.errors:
+            facts.descriptor_problems.append(f"{rel}: {e.message}")
+        for task in report.tasks:
+            for e in task.errors:
+                facts.descriptor_problems.append(f"{rel}: {e.message}")
+        if not report.valid:
+            return
+        package = Package(safe, basepath=str(data))
+        result = package.validate()
+    except (FrictionlessException, *FRICTIONLESS_ESCAPES) as exc:
+        facts.descriptor_problems.append(f"{rel}: the frictionless library cannot read it: {exc}")
+        return
+    for e in result.errors:
+        facts.descriptor_problems.append(f"{rel}: {e.message}")
+    for task in result.tasks:
+        place = getattr(task, "place", None)
+        for e in task.errors[:200]:
+            facts.data_problems.append(DataProblem(task.name or "?", f"{rel_prefix}{place}" if isinstance(place, str) else None, e.type, e.message))
+
+
+def _shared_paths(desc: dict[str, Any]) -> list[str]:
+    """Files that more than one resource describes (a file listed twice hides another that is missing)."""
+    owners: dict[str, list[str]] = {}
+    resources = desc.get("resources")
+    for i, res in enumerate(resources if isinstance(resources, list) else []):
+        if not isinstance(res, dict):
+            continue
+        paths = res.get("path")
+        for p in paths if isinstance(paths, list) else [paths]:
+            if isinstance(p, str):
+                owners.setdefault(p, []).append(str(res.get("name") or f"#{i + 1}"))
+    return [
+        f"resources {', '.join(repr(n) for n in names)} all describe the file '{p}'; each file should be one resource"
+        for p, names in owners.items()
+        if len(names) > 1
+    ]
+
+
+def _unsafe_ref(value: Any, data: Path) -> str | None:
+    if not isinstance(value, str):
+        return None
+    if "://" in value or value.startswith(("//", "file:")):
+        return f"'{value}' is a remote address"
+    if value.startswith("/") or ".." in value.split("/") or "\\" in value:
+        return f"'{value}' leads outside the package"
+    target = (data / value).resolve()
+    if data.resolve() not in target.parents:
+        return f"'{value}' leads outside the package"
+    return None
+
+
+def _safe_descriptor(desc: dict[str, Any], data: Path) -> tuple[dict[str, Any], list[str]]:
+    """A copy of the descriptor frictionless may read without leaving the package or using the network."""
+    out = json.loads(json.dumps(desc))
+    problems = []
+    for key in ("profile", "$schema"):
+        v = out.get(key)
+        if isinstance(v, str) and "://" in v and "frictionlessdata.io" not in v and "datapackage.org" not in v:
+            problems.append(f"{key} '{v}' points at a remote profile, which was not fetched.")
+            out.pop(key)
+    resources = out.get("resources")
+    if not isinstance(resources, list):
+        return out, problems
+    kept = []
+    for i, res in enumerate(resources):
+        if not isinstance(res, dict):
+            kept.append(res)
+            continue
+        name = res.get("name", f"resources[{i}]")
+        bad = None
+        paths = res.get("path")
+        for p in paths if isinstance(paths, list) else [paths]:
+            bad = bad or _unsafe_ref(p, data)
+        for key in ("schema", "dialect"):
+            bad = bad or _unsafe_ref(res.get(key), data)
+        v = res.get("profile") or res.get("$schema")
+        if isinstance(v, str) and "://" in v and "frictionlessdata.io" not in v and "datapackage.org" not in v:
+            bad = bad or f"'{v}' is a remote profile"
+        if bad:
+            problems.append(f"resource '{name}': {bad}; it was not read.")
+            continue
+        kept.append(res)
+    out["resources"] = kept
+    return out, problems
+
+
+def check_datacite(facts: ArchiveFacts, path: Path, rel: str) -> None:
+    """Check the DataCite record at ``path``: its mandatory properties, then the DataCite 4.5 JSON Schema."""
+    record = read_json(path, rel, facts.datacite_problems)
+    if record is None:
+        return
+    if isinstance(record, dict) and isinstance(record.get("data"), dict) and isinstance(record["data"].get("attributes"), dict):
+        record = record["data"]["attributes"]  # the DataCite REST API's JSON:API wrapping
+    if not isinstance(record, dict):
+        facts.datacite_problems.append(f"{rel} is not a JSON object.")
+        return
+    facts.datacite, facts.datacite_source = record, rel
+    for key in DATACITE_REQUIRED:
+        value = record.get(key)
+        if value in (None, "", [], {}):
+            facts.datacite_problems.append(f"{rel}: the mandatory property '{key}' is missing (DataCite Metadata Schema 4.x).")
+    for i, c in enumerate(record.get("creators") or []):
+        if not isinstance(c, dict) or not str(c.get("name", "")).strip():
+            facts.datacite_problems.append(f"{rel}: creators[{i}] has no name.")
+    types = record.get("types")
+    if isinstance(types, dict) and not types.get("resourceTypeGeneral"):
+        facts.datacite_problems.append(f"{rel}: types.resourceTypeGeneral is missing.")
+    validator = jsonschema.Draft7Validator(_datacite_schema())
+    for err in sorted(validator.iter_errors(record), key=lambda e: list(map(str, e.absolute_path)))[:50]:
+        where = "/".join(map(str, err.absolute_path)) or "(top)"
+        facts.datacite_problems.append(f"{rel}: at '{where}': {err.message} (DataCite JSON Schema of the datacite package).")
+
+
+def _datacite_schema() -> dict[str, Any]:
+    """The DataCite Metadata Schema 4.5 JSON Schema shipped in ``schemas/``; its references are all inside it."""
+    schema = dict(load_schema(DATACITE_SCHEMA))
+    schema.pop("$id", None)  # keep $ref resolution local
+    return schema
+
+
+_RELATION_REFS = {
+    "wasGeneratedBy": ("prov:entity", "prov:activity"),
+    "used": ("prov:activity", "prov:entity"),
+    "wasDerivedFrom": ("prov:generatedEntity", "prov:usedEntity"),
+    "wasAttributedTo": ("prov:entity", "prov:agent"),
+    "wasAssociatedWith": ("prov:activity", "prov:agent"),
+    "actedOnBehalfOf": ("prov:delegate", "prov:responsible"),
+    "wasInformedBy": ("prov:informed", "prov:informant"),
+}
+
+
+def check_provenance(facts: ArchiveFacts, path: Path, rel: str) -> None:
+    """Check the PROV-JSON record at ``path``: its members, prefixes, and that relations refer to recorded records."""
+    doc = read_json(path, rel, facts.provenance_problems)
+    if doc is None:
+        return
+    if not isinstance(doc, dict):
+        facts.provenance_problems.append(f"{rel} is not a JSON object.")
+        return
+    facts.provenance, facts.provenance_source = doc, rel
+    extra = sorted(set(doc) - PROV_KEYS)
+    if extra:
+        facts.provenance_problems.append(f"{rel}: '{extra[0]}' is not a PROV-JSON member.")
+    prefixes = set((doc.get("prefix") or {}).keys()) | {"prov", "xsd", "_"}
+    declared: set[str] = set()
+    for kind in ("entity", "activity", "agent"):
+        records = doc.get(kind) or {}
+        if not isinstance(records, dict):
+            facts.provenance_problems.append(f"{rel}: '{kind}' is not an object of records.")
+            continue
+        declared.update(records)
+    for kind in ("entity", "activity", "agent"):
+        if not doc.get(kind):
+            facts.provenance_problems.append(f"{rel}: no {kind} is recorded.")
+    for ident in sorted(declared):
+        p = ident.split(":", 1)[0] if ":" in ident else None
+        if p is not None and p not in prefixes:
+            facts.provenance_problems.append(f"{rel}: '{ident}' uses the undeclared prefix '{p}'.")
+    for kind, roles in _RELATION_REFS.items():
+        records = doc.get(kind) or {}
+        if not isinstance(records, dict):
+            facts.provenance_problems.append(f"{rel}: '{kind}' is not an object of records.")
+            continue
+        for rid, attrs in records.items():
+            if not isinstance(attrs, dict):
+                continue
+            for role in roles:
+                ref = attrs.get(role)
+                if isinstance(ref, str) and ref not in declared:
+                    facts.provenance_problems.append(f"{rel}: {kind} '{rid}' refers to '{ref}' ({role}), which is not recorded.")
+    if not (doc.get("wasDerivedFrom") or doc.get("wasGeneratedBy") or doc.get("used")):
+        facts.provenance_problems.append(f"{rel}: records no derivation or generation: it does not say what the data came from.")
+
