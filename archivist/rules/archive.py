@@ -334,9 +334,10 @@ def datacite_record_invalid(project: MapProject, ctx: CheckContext) -> Iterator[
     -------
     A `metadata/datacite.json` that is not JSON, lacks one of the mandatory
     properties (creators, titles, publisher, publicationYear, types,
-    schemaVersion: the required list of the DataCite 4.x JSON Schema shipped by
-    the `datacite` package), has a creator without a name, or breaks that JSON
-    Schema when the `datacite` package is installed.
+    schemaVersion: the required list of the DataCite Metadata Schema 4.5 JSON
+    Schema), has a creator without a name, or breaks that JSON Schema (shipped
+    in `schemas/datacite-v4.5.json`, so the result never depends on what else
+    is installed).
 
     Why it matters
     --------------

@@ -169,7 +169,7 @@ def check_datacite(facts: ArchiveFacts, path: Path, rel: str) -> None:
     validator = jsonschema.Draft7Validator(_datacite_schema())
     for err in sorted(validator.iter_errors(record), key=lambda e: list(map(str, e.absolute_path)))[:50]:
         where = "/".join(map(str, err.absolute_path)) or "(top)"
-        facts.datacite_problems.append(f"{rel}: at '{where}': {err.message} (DataCite JSON Schema of the datacite package).")
+        facts.datacite_problems.append(f"{rel}: at '{where}': {err.message} (DataCite Metadata Schema 4.5, JSON Schema in schemas/datacite-v4.5.json).")
 
 
 def _datacite_schema() -> dict[str, Any]:
