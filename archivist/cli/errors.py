@@ -41,7 +41,8 @@ class CommandFailed(click.ClickException):
 
     def __init__(self, message: object, exit_code: int = 2) -> None:
         super().__init__(" ".join(printable(message).split()))
-        self.exit_code = exit_code
+        # click declares exit_code on the class; click.exceptions.Exit sets it per instance the same way
+        self.exit_code = exit_code  # type: ignore[misc]
 
     def format_message(self) -> str:
         """The one line, without the ``archivist:`` prefix."""

@@ -372,14 +372,14 @@ def pack(
             finally:  # even when interrupted inside the move: the staging folder gone means the package is in place
                 if not bag.exists() and target.is_dir():
                     placed.append(target)
-            if zip_tmp is not None:
+            if zip_tmp is not None and zip_target is not None:
                 try:
                     move_into_place(zip_tmp, zip_target)
                 finally:
                     if not zip_tmp.exists() and zip_target.is_file():
                         placed.append(zip_target)
     except (KeyboardInterrupt, Interrupted) as exc:
-        exc.placed = tuple(placed)  # what is whole in place: the CLI tells the truth about it
+        setattr(exc, "placed", tuple(placed))  # what is whole in place: the CLI tells the truth about it
         raise
     return PackResult(
         path=target,

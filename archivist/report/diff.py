@@ -43,8 +43,8 @@ def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None =
     console.print(Text(f"Map CRS: {printable(report.crs) if report.crs else 'not declared'}"))
     order = {name: i for i, name in enumerate(LAYER_ORDER)}
     changes = sorted(report.changes, key=lambda c: order.get(c.layer, 99))
-    for layer, items in groupby(changes, key=lambda c: c.layer):
-        items = list(items)
+    for layer, group in groupby(changes, key=lambda c: c.layer):
+        items = list(group)
         console.print()
         console.print(Text(f"{printable(layer)} ({len(items)})", style="bold underline"))
         for c in items:
