@@ -54,6 +54,7 @@ from typing import Any, Iterable
 import yaml
 
 from .errors import ArchivistError
+from .filebytes import human_size
 
 MiB = 1024 * 1024
 YAML_MAX_BYTES = 4 * MiB
@@ -80,7 +81,8 @@ class LimitExceeded(ArchivistError):
 
 
 def _size(n: int) -> str:
-    return f"{n / MiB:g} MiB" if n >= MiB else f"{n} bytes"
+    """A cap in words, in the binary units the caps are set in (``64.0 MiB``)."""
+    return human_size(n, binary=True)
 
 
 def _text(source: str | bytes | Path, label: str, max_bytes: int, kind: str) -> str:

@@ -6,14 +6,13 @@ file that does not exist yet: an existing manifest is never replaced.
 
 from __future__ import annotations
 
-import os
-import tempfile
 import tomllib
 from pathlib import Path
 from typing import Any
 
 from ._version import __version__
 from .errors import ArchivistError
+from .fsutil import create_new
 from .infer import Inference, Placed, infer
 from .manifest import MANIFEST_NAME
 from .tomltext import toml_value
@@ -137,32 +136,6 @@ def manifest_text(inf: Inference, command_path: str) -> str:
     return "\n".join(lines).rstrip("\n") + "\n"
 
 
-def _write_new(target: Path, text: str) -> None:
-    """Write ``target`` only if it does not exist, complete or not at all."""
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
-    except OSError as exc:
-        raise ArchivistError(f"{target.parent}: cannot write there ({exc.strerror})") from None
-    tmp_path = Path(tmp)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-        try:
-            os.link(tmp_path, target)  # fails if the target appeared meanwhile: never replaces
-        except FileExistsError:
-            raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest") from None
-        except OSError:
-            # a file system without hard links (e.g. FAT): exclusive create instead
-            try:
-                with open(target, "x", encoding="utf-8", newline="\n") as fh:
-                    fh.write(text)
-            except FileExistsError:
-                raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest") from None
-    finally:
-        if tmp_path.exists():
-            tmp_path.unlink()
-
-
 def init_project(path: str | Path) -> Path:
     """Write a commented ``archivist.toml`` for the folder (or GeoPackage) ``path`` and return its path.
 
@@ -207,5 +180,5 @@ def write_manifest(path: str | Path) -> tuple[Path, Inference]:
     parsed = tomllib.loads(text)
     if parsed != inf.manifest:  # the comments must never change what the manifest says
         raise AssertionError("archivist init: the written manifest does not match the inference")
-    _write_new(target, text)
+    create_new(target, text, exists_hint="archivist init never replaces a manifest")
     return target, inf

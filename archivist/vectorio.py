@@ -188,14 +188,14 @@ def reading() -> Iterator[Reader]:
     """A reading session: every read inside shares one :class:`Reader`; its private copies go at the end.
 
     Nested sessions use the outer one. SIGTERM inside raises (see
-    :func:`archivist.package.staging.terminate_as_exception`) so the copies
+    :func:`archivist.interrupt.terminate_as_exception`) so the copies
     are removed when a run is stopped.
     """
     current = _session.get()
     if current is not None:
         yield current
         return
-    from .package.staging import terminate_as_exception
+    from .interrupt import terminate_as_exception
 
     reader = Reader()
     token = _session.set(reader)

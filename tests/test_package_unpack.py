@@ -176,6 +176,16 @@ def test_edit_map_keys_inline_table_falls_back_to_rewrite():
     assert tomllib.loads(out) == {"map": {"title": "T", "version": "2-dev"}, "layers": {"units": {"path": "u.gpkg"}}}
 
 
+def test_edit_map_keys_keeps_comments_on_the_edited_lines_and_the_authors():
+    """A comment on the changed line itself, comments between keys, [[map.authors]] after them: all kept (tomlkit)."""
+    text = ('[map]  # the map\ntitle = "T"\nversion = "1.0.0"  # bumped by unpack\n# scale of the printed sheet\nscale = 25000\n'
+            '\n# who mapped it\n[[map.authors]]\nname = "A. Mapper"  # field lead\n\n[layers.units]\npath = "u.gpkg"\n')
+    out = edit_map_keys(text, {"version": "1.0.1-dev", "derived_from": "t-1.0.0", "doi": None})
+    assert out == text.replace('version = "1.0.0"  # bumped by unpack\n',
+                               'version = "1.0.1-dev"  # bumped by unpack\nderived_from = "t-1.0.0"\n')
+    assert tomllib.loads(out)["map"]["authors"] == [{"name": "A. Mapper"}]
+
+
 # ---------------------------------------------------------------- multi-file formats travel whole
 
 SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")  # ESRI "Shapefile file extensions": .shp/.shx/.dbf required; .prj CRS; .cpg code page

@@ -5,12 +5,16 @@ from __future__ import annotations
 import re
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable, TypeVar
 
 import click
 
 from ..errors import ArchivistError
-from ..fsutil import guard_output
+from .errors import handle_errors
 from .options import emit_report, progress_for, progress_options
+
+if TYPE_CHECKING:
+    from ..package.safe import Limits
 
 _SIZE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([kKMGT]i?B|B|bytes)?\s*$")
 _FACTOR = {None: 1, "B": 1, "bytes": 1, "kB": 1000, "KB": 1000, "MB": 1000**2, "GB": 1000**3, "TB": 1000**4,
@@ -25,25 +29,44 @@ def parse_size(text: str) -> int:
     return int(float(m.group(1)) * _FACTOR[m.group(2)])
 
 
-def limit_options(func):
-    """``--max-members``, ``--max-size`` and ``--max-ratio``: the caps for opening an untrusted archive."""
-    from ..package.safe import DEFAULT_LIMITS as d
+F = TypeVar("F", bound=Callable[..., Any])
 
-    func = click.option("--max-ratio", type=float, default=None, metavar="R",
-                        help=f"Refuse a member that expands more than R times (default {d.max_ratio:g}).")(func)
+
+class CapOption(click.Option):
+    """An option whose help names the default cap of :data:`~archivist.package.safe.DEFAULT_LIMITS`.
+
+    The default is read when the help is shown, so that loading the command
+    line (``archivist --help``) does not load the package modules.
+    """
+
+    def get_help_record(self, ctx: click.Context) -> tuple[str, str] | None:
+        """click's help line, with ``{max_ratio}``, ``{max_members}`` in the help text filled in."""
+        from ..package.safe import DEFAULT_LIMITS as d
+
+        record = super().get_help_record(ctx)
+        if record is None:
+            return None
+        return record[0], record[1].format(max_ratio=f"{d.max_ratio:g}", max_members=d.max_members)
+
+
+def limit_options(func: F) -> F:
+    """``--max-members``, ``--max-size`` and ``--max-ratio``: the caps for opening an untrusted archive."""
+    func = click.option("--max-ratio", cls=CapOption, type=float, default=None, metavar="R",
+                        help="Refuse a member that expands more than R times (default {max_ratio}).")(func)
     func = click.option("--max-size", default=None, metavar="SIZE",
                         help="Refuse an archive that expands beyond SIZE, e.g. 16GiB (the default).")(func)
-    func = click.option("--max-members", type=int, default=None, metavar="N",
-                        help=f"Refuse an archive of more than N members (default {d.max_members}).")(func)
+    func = click.option("--max-members", cls=CapOption, type=int, default=None, metavar="N",
+                        help="Refuse an archive of more than N members (default {max_members}).")(func)
     return func
 
 
-def make_limits(max_members, max_size, max_ratio):
+def make_limits(max_members: int | None, max_size: str | None, max_ratio: float | None) -> Limits:
+    """The caps of :data:`~archivist.package.safe.DEFAULT_LIMITS` with the options given on the command line."""
     from dataclasses import replace
 
     from ..package.safe import DEFAULT_LIMITS
 
-    changes = {}
+    changes: dict[str, Any] = {}
     if max_members is not None:
         changes["max_members"] = max_members
     if max_size is not None:
@@ -63,7 +86,10 @@ def make_limits(max_members, max_size, max_ratio):
 @click.option("--force", is_flag=True, help="Replace an existing output file.")
 @limit_options
 @progress_options
-def audit_command(archive, fmt, output, strict, only, rules, force, max_members, max_size, max_ratio, quiet, verbose):
+@handle_errors
+def audit_command(archive: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
+                  force: bool, max_members: int | None, max_size: str | None, max_ratio: float | None,
+                  quiet: bool, verbose: bool) -> None:
     """Audit ARCHIVE (a zip or a folder) before reusing it.
 
     The archive is inspected before anything is extracted: absolute paths,
@@ -76,17 +102,13 @@ def audit_command(archive, fmt, output, strict, only, rules, force, max_members,
     Exit 0: fit for reuse (no errors). 1: problems (errors, or warnings with
     --strict). 2: the archive cannot be opened.
     """
+    from ..fsutil import guard_output
     from ..package.audit import audit
-    from . import handle_errors
 
-    @handle_errors
-    def run():
-        limits = make_limits(max_members, max_size, max_ratio)
-        if output is not None:
-            guard_output(output, force=force, project_root=archive if Path(archive).is_dir() else None)
-        with progress_for(quiet, verbose) as progress:
-            report = audit(archive, limits=limits, only=only, rules=rules, progress=progress)
-        emit_report(report, fmt, output)
-        sys.exit(1 if report.failed(strict) else 0)
-
-    run()
+    limits = make_limits(max_members, max_size, max_ratio)
+    if output is not None:
+        guard_output(output, force=force, project_root=archive if Path(archive).is_dir() else None)
+    with progress_for(quiet, verbose) as progress:
+        report = audit(archive, limits=limits, only=only, rules=rules, progress=progress)
+    emit_report(report, fmt, output)
+    sys.exit(1 if report.failed(strict) else 0)

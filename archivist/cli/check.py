@@ -7,13 +7,7 @@ from pathlib import Path
 
 import click
 
-from .. import engine
-from ..fsutil import guard_output
-from ..manifest import find_manifest
-from ..errors import ArchivistError
-from ..project import load_project
-from ..report.gpkg import write_findings_gpkg
-from ..report.html import write_html
+from .errors import handle_errors
 from .options import emit_report, progress_for, progress_options
 
 
@@ -34,37 +28,35 @@ from .options import emit_report, progress_for, progress_options
     help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
 )
 @progress_options
-def check_command(path, fmt, output, strict, only, rules, force, html_out, quiet, verbose, gpkg_out=None):
+@handle_errors
+def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
+                  force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None) -> None:
     """Check the map project at PATH (a folder or its archivist.toml).
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
     """
-    from . import handle_errors
+    from .. import engine
+    from ..errors import ArchivistError
+    from ..fsutil import guard_outputs
+    from ..manifest import find_manifest
+    from ..project import load_project
 
-    @handle_errors
-    def run():
-        root, _ = find_manifest(path)
-        if gpkg_out is not None and Path(gpkg_out).suffix.lower() != ".gpkg":
-            raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
-        seen: dict[Path, str] = {}
-        for target, flag in ((output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")):
-            if target is None:
-                continue
-            key = Path(target).resolve()
-            if key in seen:
-                raise ArchivistError(f"{target}: {flag} and {seen[key]} name the same file")
-            seen[key] = flag
-            guard_output(target, force=force, project_root=root)
-        with progress_for(quiet, verbose) as progress:
-            project = load_project(path, progress=progress)
-            report = engine.check(project, only=only, rules=rules, progress=progress)
-            if html_out is not None:
-                with progress.step(f"writing {html_out}"):
-                    write_html(report, project, html_out)
-            if gpkg_out is not None:
-                with progress.step(f"writing {gpkg_out}"):
-                    write_findings_gpkg(report, gpkg_out, crs=project.crs)
-        emit_report(report, fmt, output)
-        sys.exit(1 if report.failed(strict) else 0)
+    root, _ = find_manifest(path)
+    if gpkg_out is not None and Path(gpkg_out).suffix.lower() != ".gpkg":
+        raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
+    guard_outputs([(output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")], force=force, project_roots=[root])
+    with progress_for(quiet, verbose) as progress:
+        project = load_project(path, progress=progress)
+        report = engine.check(project, only=only, rules=rules, progress=progress)
+        if html_out is not None:
+            from ..report.html import write_html
 
-    run()
+            with progress.step(f"writing {html_out}"):
+                write_html(report, project, html_out)
+        if gpkg_out is not None:
+            from ..report.gpkg import write_findings_gpkg
+
+            with progress.step(f"writing {gpkg_out}"):
+                write_findings_gpkg(report, gpkg_out, crs=project.crs)
+    emit_report(report, fmt, output)
+    sys.exit(1 if report.failed(strict) else 0)

@@ -7,12 +7,13 @@ from pathlib import Path
 import click
 
 from ..printable import printable
-from ..scaffold import write_manifest
+from .errors import handle_errors
 
 
 @click.command("init")
 @click.argument("path", type=click.Path(path_type=Path))
-def init_command(path):
+@handle_errors
+def init_command(path: Path) -> None:
     """Write a commented archivist.toml for the map project in PATH (a folder or a GeoPackage).
 
     The role of each layer and table (units, lines, extent, samples,
@@ -21,22 +22,18 @@ def init_command(path):
     marked CONFIRM, then run 'archivist check'. An existing archivist.toml is
     never replaced (exit 2).
     """
-    from . import handle_errors
+    from ..scaffold import write_manifest
 
-    @handle_errors
-    def run():
-        target, inf = write_manifest(path)
-        click.echo(f"Wrote {printable(target)}")
-        order = ("units", "lines", "extent", "samples", "structures", "legend", "analyses")
-        for role in order:
-            if role in inf.placed:
-                click.echo(f"  {role:<10}  {printable(inf.placed[role].source.described)}")
-        if "units" not in inf.placed:
-            click.echo("  No unit polygons recognised: name them in [layers.units].")
-        for label, why in inf.unplaced:
-            click.echo(f"  not placed: {printable(label)} ({printable(why)})")
-        n = sum(1 for line in target.read_text(encoding="utf-8").splitlines() if "CONFIRM" in line)
-        click.echo(f"Confirm the {n} line{'s' if n != 1 else ''} marked CONFIRM in {printable(target)}, "
-                   f"then run: archivist check {printable(target.parent)}")
-
-    run()
+    target, inf = write_manifest(path)
+    click.echo(f"Wrote {printable(target)}")
+    order = ("units", "lines", "extent", "samples", "structures", "legend", "analyses")
+    for role in order:
+        if role in inf.placed:
+            click.echo(f"  {role:<10}  {printable(inf.placed[role].source.described)}")
+    if "units" not in inf.placed:
+        click.echo("  No unit polygons recognised: name them in [layers.units].")
+    for label, why in inf.unplaced:
+        click.echo(f"  not placed: {printable(label)} ({printable(why)})")
+    n = sum(1 for line in target.read_text(encoding="utf-8").splitlines() if "CONFIRM" in line)
+    click.echo(f"Confirm the {n} line{'s' if n != 1 else ''} marked CONFIRM in {printable(target)}, "
+               f"then run: archivist check {printable(target.parent)}")

@@ -2,12 +2,20 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable, TypeVar
+
 import click
 
 from ..progress import Progress, make_progress
 
+if TYPE_CHECKING:
+    from ..model import Report
 
-def progress_options(func):
+F = TypeVar("F", bound=Callable[..., Any])
+
+
+def progress_options(func: F) -> F:
     """Add ``--quiet/-q`` and ``--verbose/-v``; the command receives ``quiet`` and ``verbose``.
 
     Progress bars go to stderr only when it is a terminal and ``--quiet`` is
@@ -23,7 +31,7 @@ def progress_for(quiet: bool, verbose: bool) -> Progress:
     return make_progress(quiet=quiet, verbose=verbose)
 
 
-def emit_report(report, fmt: str, output) -> None:
+def emit_report(report: Report, fmt: str, output: Path | None) -> None:
     """Write a report as text or JSON to ``output`` (atomically) or to stdout."""
     import sys
 

@@ -8,16 +8,8 @@ from pathlib import Path
 import click
 
 from ..printable import printable
-from ..report import write_text
-from .options import progress_options, progress_for
-
-
-def _size(n: int) -> str:
-    for unit in ("bytes", "kB", "MB", "GB"):
-        if n < 1000 or unit == "GB":
-            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
-        n /= 1000
-    return f"{n} bytes"
+from .errors import CommandFailed, handle_errors
+from .options import progress_for, progress_options
 
 
 def interrupted_message(placed: tuple[Path, ...], make_zip: bool) -> str:
@@ -37,7 +29,8 @@ def interrupted_message(placed: tuple[Path, ...], make_zip: bool) -> str:
 @click.option("--allow-errors", is_flag=True, help="Pack even when the checks find errors; the package names them.")
 @click.option("--force", is_flag=True, help="Replace an existing package of the same name and version.")
 @progress_options
-def pack_command(project, out, make_zip, allow_errors, force, quiet, verbose):
+@handle_errors
+def pack_command(project: Path, out: Path, make_zip: bool, allow_errors: bool, force: bool, quiet: bool, verbose: bool) -> None:
     """Check the map PROJECT and write it as an open data package in DIR.
 
     The package is a BagIt bag whose data/ folder is a Frictionless Data
@@ -49,32 +42,27 @@ def pack_command(project, out, make_zip, allow_errors, force, quiet, verbose):
     written). 2: could not run (missing metadata, output exists without
     --force, ...).
     """
+    from ..filebytes import human_size
+    from ..interrupt import Interrupted
     from ..package import PackRefused, pack
-    from ..package.staging import Interrupted
-    from . import handle_errors
+    from ..report import write_text
 
-    @handle_errors
-    def run():
-        try:
-            with progress_for(quiet, verbose) as progress:
-                result = pack(project, out, zip=make_zip, allow_errors=allow_errors, force=force, progress=progress)
-        except PackRefused as exc:
-            write_text(exc.report, sys.stdout)
-            click.echo(f"archivist: {printable(exc)}", err=True)
-            sys.exit(1)
-        except (Interrupted, KeyboardInterrupt) as exc:
-            click.echo(f"archivist: {printable(interrupted_message(getattr(exc, 'placed', ()), make_zip))}", err=True)
-            sys.exit(130)
-        s = result.report.summary
-        click.echo(f"Packed {printable(result.path)} ({len(result.files)} files, {_size(result.bytes)}).")
-        if result.zip_path is not None:
-            click.echo(f"Zip: {printable(result.zip_path)} ({_size(result.zip_path.stat().st_size)}).")
-        click.echo(f"Checks: {s.errors} errors, {s.warnings} warnings, {s.notices} notices.")
-        if result.open_errors:
-            click.echo(
-                f"Warning: packed with {result.open_errors} open error{'s' if result.open_errors != 1 else ''}; "
-                "they are listed in data/README.md, datapackage.json and the DataCite record.",
-                err=True,
-            )
-
-    run()
+    try:
+        with progress_for(quiet, verbose) as progress:
+            result = pack(project, out, zip=make_zip, allow_errors=allow_errors, force=force, progress=progress)
+    except PackRefused as exc:
+        write_text(exc.report, sys.stdout)
+        raise  # one line, exit 1 (its exit_code)
+    except (Interrupted, KeyboardInterrupt) as exc:
+        raise CommandFailed(interrupted_message(getattr(exc, "placed", ()), make_zip), 130) from None
+    s = result.report.summary
+    click.echo(f"Packed {printable(result.path)} ({len(result.files)} files, {human_size(result.bytes)}).")
+    if result.zip_path is not None:
+        click.echo(f"Zip: {printable(result.zip_path)} ({human_size(result.zip_path.stat().st_size)}).")
+    click.echo(f"Checks: {s.errors} errors, {s.warnings} warnings, {s.notices} notices.")
+    if result.open_errors:
+        click.echo(
+            f"Warning: packed with {result.open_errors} open error{'s' if result.open_errors != 1 else ''}; "
+            "they are listed in data/README.md, datapackage.json and the DataCite record.",
+            err=True,
+        )

@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import json
-import sys
 
 import click
 
 from .. import registry
 from ..printable import printable
+from .errors import CommandFailed, handle_errors
 
 
 def _text(info: registry.RuleInfo) -> str:
@@ -67,14 +67,14 @@ def rules_reference() -> str:
 @click.command("rules")
 @click.argument("rule", required=False)
 @click.option("--format", "fmt", type=click.Choice(["text", "markdown", "json"]), default="text", show_default=True)
-def rules_command(rule, fmt):
+@handle_errors
+def rules_command(rule: str | None, fmt: str) -> None:
     """List every rule with its documentation, or print one RULE's doc."""
     if rule:
         try:
             infos = [registry.get_rule(rule)]
         except KeyError:
-            click.echo(f"archivist: no rule '{printable(rule)}'; 'archivist rules' lists them", err=True)
-            sys.exit(2)
+            raise CommandFailed(f"no rule '{rule}'; 'archivist rules' lists them") from None
     else:
         infos = registry.all_rules()
     if fmt == "json":

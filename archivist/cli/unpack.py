@@ -2,12 +2,12 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 import click
 
 from .audit import limit_options, make_limits
+from .errors import CommandFailed, handle_errors
 
 
 @click.command("unpack")
@@ -19,7 +19,9 @@ from .audit import limit_options, make_limits
     help="Replace DIR if an earlier unpack made it and it holds no changes (only once the new project is complete).",
 )
 @limit_options
-def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
+@handle_errors
+def unpack_command(archive: Path, directory: Path, force: bool, max_members: int | None, max_size: str | None,
+                   max_ratio: float | None) -> None:
     """Turn the archivist package ARCHIVE (folder or zip) into an editable project in DIR.
 
     The package's checksums are verified first; a damaged package is refused.
@@ -32,23 +34,17 @@ def unpack_command(archive, directory, force, max_members, max_size, max_ratio):
     Exit 0: unpacked. 2: could not (not a package, damaged, DIR exists
     without --force, or DIR holds other files, changes or the package).
     """
-    from ..package.staging import Interrupted
+    from ..interrupt import Interrupted
     from ..package.unpack import unpack
     from ..printable import printable
-    from . import handle_errors
 
-    @handle_errors
-    def run():
-        try:
-            result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
-        except (Interrupted, KeyboardInterrupt):
-            click.echo(f"archivist: unpack interrupted; {printable(directory)} was not written or changed", err=True)
-            sys.exit(130)
-        shown, arc = printable(result.path), printable(archive)
-        click.echo(f"Unpacked {arc} into {shown}: {len(result.files)} files "
-                   f"({'the input files as handed in' if result.origin == 'source' else 'the package files'}).")
-        click.echo(f"Version {printable(result.previous_version)} -> {printable(result.version)}; "
-                   f"map.derived_from = \"{printable(result.derived_from)}\".")
-        click.echo(f"Next: edit the map, then 'archivist check {shown}' and 'archivist diff {arc} {shown}'.")
-
-    run()
+    try:
+        result = unpack(archive, directory, force=force, limits=make_limits(max_members, max_size, max_ratio))
+    except (Interrupted, KeyboardInterrupt):
+        raise CommandFailed(f"unpack interrupted; {directory} was not written or changed", 130) from None
+    shown, arc = printable(result.path), printable(archive)
+    click.echo(f"Unpacked {arc} into {shown}: {len(result.files)} files "
+               f"({'the input files as handed in' if result.origin == 'source' else 'the package files'}).")
+    click.echo(f"Version {printable(result.previous_version)} -> {printable(result.version)}; "
+               f"map.derived_from = \"{printable(result.derived_from)}\".")
+    click.echo(f"Next: edit the map, then 'archivist check {shown}' and 'archivist diff {arc} {shown}'.")

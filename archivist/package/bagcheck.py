@@ -33,6 +33,8 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from ..filebytes import file_digest
+
 _MANIFEST = re.compile(r"^(tag)?manifest-([a-z0-9]+)\.txt$")
 
 
@@ -88,11 +90,6 @@ def read_tag_file(path: Path) -> tuple[dict[str, list[str]], list[str]]:
         last = label.strip()
         out.setdefault(last, []).append(value.strip())
     return out, bad
-
-
-def file_digest(path: Path, algorithm: str) -> str:
-    with open(path, "rb") as fh:
-        return hashlib.file_digest(fh, algorithm).hexdigest()
 
 
 def read_manifest_lines(text: str, name: str, on_problem) -> dict[str, str]:

@@ -8,25 +8,16 @@ line ends, file paths sorted and percent-encoded as RFC 8493 section 2.1.3 asks.
 
 from __future__ import annotations
 
-import hashlib
 import os
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 from .._version import __version__
+from ..filebytes import human_size, sha256_file
 from .deposit import Deposit
 from .determinism import write_text
 
 BAGIT_VERSION = "1.0"
-CHUNK = 1 << 20
-
-
-def sha256_file(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while chunk := fh.read(CHUNK):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 class Hashes:
@@ -59,15 +50,6 @@ def encode_path(rel: str) -> str:
 def payload_files(bag: Path) -> list[Path]:
     data = bag / "data"
     return sorted((p for p in data.rglob("*") if p.is_file()), key=lambda p: p.relative_to(bag).as_posix())
-
-
-def human_size(n: int) -> str:
-    size = float(n)
-    for unit in ("bytes", "KB", "MB", "GB", "TB"):
-        if size < 1000 or unit == "TB":
-            return f"{size:.0f} {unit}" if unit == "bytes" else f"{size:.1f} {unit}"
-        size /= 1000
-    return f"{n} bytes"
 
 
 def _info_value(text: str) -> str:

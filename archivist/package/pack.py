@@ -38,6 +38,8 @@ import pyproj
 from .. import engine
 from ..errors import ArchivistError
 from ..fileset import dataset_files
+from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir, staging_file
+from ..interrupt import Interrupted, terminate_as_exception
 from ..manifest import MANIFEST_NAME, read_manifest
 from ..model import Report
 from ..project import MapProject, load_project
@@ -52,7 +54,6 @@ from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, wri
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
-from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, staging_file, terminate_as_exception
 from .tables import write_csv
 
 REPORT_PATH = "metadata/validation-report.json"
@@ -102,19 +103,11 @@ def _utcnow() -> dt.datetime:
 
 
 def _guard(project: MapProject, out_dir: Path, targets: list[Path], force: bool) -> None:
-    root = project.root.resolve()
     if out_dir.exists() and not out_dir.is_dir():
         raise ArchivistError(f"{out_dir}: is a file; --out needs a folder")
     for target in targets:
-        resolved = target.resolve()
-        if resolved == root or root in resolved.parents:
-            raise ArchivistError(f"{target}: is inside the project folder {project.root}; archivist never writes there, choose another --out")
-        if resolved in root.parents:
-            raise ArchivistError(f"{target}: would replace a folder that holds the project {project.root}; choose another --out")
-        if target.exists() and not force:
-            raise ArchivistError(f"{target}: already exists; use --force to replace it")
-        if target.exists() and target.is_dir() != (target.suffix != ".zip"):
-            raise ArchivistError(f"{target}: exists and is not a {'zip file' if target.suffix == '.zip' else 'folder'}; remove it first")
+        guard_output(target, force=force, project_root=project.root, kind="zip file" if target.suffix == ".zip" else "folder",
+                     parent_may_be_missing=True, refuse_ancestor=True, hint="choose another --out")
 
 
 def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
@@ -379,14 +372,14 @@ def pack(
             finally:  # even when interrupted inside the move: the staging folder gone means the package is in place
                 if not bag.exists() and target.is_dir():
                     placed.append(target)
-            if zip_tmp is not None:
+            if zip_tmp is not None and zip_target is not None:
                 try:
                     move_into_place(zip_tmp, zip_target)
                 finally:
                     if not zip_tmp.exists() and zip_target.is_file():
                         placed.append(zip_target)
     except (KeyboardInterrupt, Interrupted) as exc:
-        exc.placed = tuple(placed)  # what is whole in place: the CLI tells the truth about it
+        setattr(exc, "placed", tuple(placed))  # what is whole in place: the CLI tells the truth about it
         raise
     return PackResult(
         path=target,

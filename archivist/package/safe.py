@@ -54,7 +54,8 @@ from pathlib import Path, PurePosixPath
 from typing import Iterator
 
 from ..errors import ArchivistError
-from .staging import Interrupted, terminate_as_exception
+from ..filebytes import human_size
+from ..interrupt import Interrupted, terminate_as_exception
 
 SYSTEM_CLUTTER = {"__MACOSX", ".DS_Store", "Thumbs.db", "desktop.ini"}
 GiB = 1024**3
@@ -102,11 +103,8 @@ DEFAULT_LIMITS = Limits()
 
 
 def _size(n: float) -> str:
-    for unit in ("bytes", "KiB", "MiB", "GiB", "TiB"):
-        if n < 1024 or unit == "TiB":
-            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.1f} {unit}"
-        n /= 1024
-    return f"{n} bytes"  # pragma: no cover
+    """A size in words, in the binary units the caps are set in (``16.0 GiB``)."""
+    return human_size(n, binary=True)
 
 
 @dataclass(frozen=True)

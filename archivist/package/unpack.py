@@ -51,7 +51,6 @@ sibling and the private copy of the package in the temporary folder.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import re
@@ -62,15 +61,16 @@ from typing import Any
 
 from .._version import __version__
 from ..errors import ArchivistError
+from ..filebytes import copy_new_file, sha256_bytes, sha256_file
 from ..fileset import dataset_files
-from ..fsutil import guard_output
+from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir
+from ..interrupt import Interrupted, terminate_as_exception
 from ..manifest import MANIFEST_NAME
-from ..tomltext import dump_toml, toml_value
-from .bagcheck import file_digest, verify_bag
+from ..tomltext import dump_toml
+from .bagcheck import verify_bag
 from .safe import Limits, open_archive
 from ..safeparse import LimitExceeded, load_json, load_toml
 from .source import is_bag
-from .staging import Interrupted, move_into_place, remove_leftovers, staging_dir, terminate_as_exception
 
 MARKER = ".archivist-unpack.json"
 """The file in an unpacked folder that records what ``unpack`` wrote there (see the module docstring)."""
@@ -149,39 +149,53 @@ def _inside(base: Path, rel: str) -> Path | None:
 
 
 def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
-    """``text`` (a manifest) with keys of its ``[map]`` table set (or removed when None), comments kept.
+    """``text`` (a manifest) with keys of its ``[map]`` table set (or removed when None), comments and layout kept.
 
-    Falls back to rewriting the whole manifest when the text cannot be edited
-    line by line (e.g. ``[map]`` written as an inline table); the result is
-    always checked by parsing it again.
+    The manifest is edited through ``tomlkit``, which keeps every comment,
+    blank line and key order of the mapper's file: a key that is there is
+    changed where it stands, a new key goes right after ``version``. The
+    result is checked by parsing it again (``tomllib``); should it differ
+    from what was asked (or the text has no ``[map]`` table tomlkit can
+    edit), the whole manifest is rewritten instead, without its comments.
     """
+    import tomlkit
+    from tomlkit.exceptions import TOMLKitError
+
     data = tomllib.loads(text)
     expected = dict(data)
     expected["map"] = {k: v for k, v in {**data.get("map", {}), **changes}.items() if v is not None}
-    lines = text.splitlines()
-    start = next((i for i, ln in enumerate(lines) if re.match(r"^\s*\[map\]\s*(#.*)?$", ln)), None)
-    if start is not None:
-        end = next((i for i in range(start + 1, len(lines)) if re.match(r"^\s*\[", lines[i])), len(lines))
-        section = lines[start + 1 : end]
-        for key, value in changes.items():
-            pattern = re.compile(rf"^\s*{re.escape(key)}\s*=")
-            at = next((i for i, ln in enumerate(section) if pattern.match(ln)), None)
-            new = None if value is None else f"{key} = {toml_value(value)}"
-            if at is not None:
-                if new is None:
-                    del section[at]
+    try:
+        doc = tomlkit.parse(text)
+        table = doc.get("map")
+        if isinstance(table, (tomlkit.items.Table, tomlkit.items.InlineTable)):
+            for key, value in changes.items():
+                if value is None:
+                    if key in table:
+                        del table[key]
+                elif key in table or "version" not in table:
+                    table[key] = value
                 else:
-                    section[at] = new
-            elif new is not None:
-                anchor = next((i for i, ln in enumerate(section) if re.match(r"^\s*version\s*=", ln)), None)
-                section.insert(anchor + 1 if anchor is not None else len([s for s in section if s.strip()]), new)
-        candidate = "\n".join(lines[: start + 1] + section + lines[end:]) + "\n"
-        try:
+                    _insert_after(table, "version", key, value)
+            candidate = tomlkit.dumps(doc)
             if tomllib.loads(candidate) == expected:
                 return candidate
-        except tomllib.TOMLDecodeError:
-            pass
+    except (TOMLKitError, tomllib.TOMLDecodeError):
+        pass
     return dump_toml(expected)
+
+
+def _insert_after(table: Any, anchor: str, key: str, value: str) -> None:
+    """Add ``key = value`` to the tomlkit ``table`` on the line after ``anchor``.
+
+    tomlkit has no public call for a position; its container's
+    ``_insert_after`` is used when present, else the key goes at the end of
+    the table (still correct TOML, checked by the caller).
+    """
+    insert = getattr(getattr(table, "value", None), "_insert_after", None)
+    if insert is None:
+        table[key] = value
+        return
+    insert(anchor, key, value)
 
 
 def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, str | None]:
@@ -207,19 +221,13 @@ def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, s
 
 def _copy_file(src: Path, dest: Path) -> str:
     """Copy ``src`` to the new file ``dest`` (mode 0644); return the SHA-256 of the bytes copied (read once)."""
-    digest = hashlib.sha256()
-    with open(src, "rb") as fin, open(dest, "xb") as fout:
-        while chunk := fin.read(1 << 20):
-            digest.update(chunk)
-            fout.write(chunk)
-    os.chmod(dest, 0o644)
-    return digest.hexdigest()
+    return copy_new_file(src, dest, 0o644)
 
 
 def _write_new(dest: Path, data: bytes) -> str:
     dest.write_bytes(data)
     os.chmod(dest, 0o644)
-    return hashlib.sha256(data).hexdigest()
+    return sha256_bytes(data)
 
 
 def _listing(folder: Path) -> tuple[dict[str, os.stat_result], list[str]]:
@@ -299,7 +307,7 @@ def replaceable(target: Path, package: Path) -> dict[str, tuple[int, int]]:
             f"{target}: holds '{extra[0]}'{more}, which 'archivist unpack' did not write; replacing the folder would lose it, so it is left alone"
         )
     for rel in sorted(files):
-        if rel != MARKER and file_digest(target / rel, "sha256") != recorded[rel]:
+        if rel != MARKER and sha256_file(target / rel) != recorded[rel]:
             raise ArchivistError(
                 f"{target}: '{rel}' was changed after 'archivist unpack' wrote it; replacing the folder would lose the change, so it is left alone"
             )
@@ -337,7 +345,7 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
         damaged (a checksum differs, a file is missing or unlisted), or
         ``out_dir`` exists (without ``force``, or ``force`` may not replace
         it) or lies inside the archive.
-    staging.Interrupted, KeyboardInterrupt
+    archivist.interrupt.Interrupted, KeyboardInterrupt
         SIGTERM or Ctrl-C arrived before the new folder was in place; nothing
         was written and the temporary copies are gone. (One arriving after
         it is in place is ignored: the work is done.)
@@ -418,7 +426,7 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
         previous = str(manifest.get("map", {}).get("version", "")).strip() or "0.0.0"
         version = bump_version(previous)
         stem, doi = _package_identity(root, packaged)
-        digest = file_digest(root / "manifest-sha256.txt", "sha256") if (root / "manifest-sha256.txt").is_file() else None
+        digest = sha256_file(root / "manifest-sha256.txt") if (root / "manifest-sha256.txt").is_file() else None
         derived = stem + (f"; bag manifest sha256:{digest}" if digest else "") + (f"; https://doi.org/{doi}" if doi else "")
         new_text = edit_map_keys(text, {"version": version, "derived_from": derived, "doi": None})
 

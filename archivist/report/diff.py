@@ -12,7 +12,7 @@ import io
 import json
 from itertools import groupby
 from pathlib import Path
-from typing import IO
+from typing import IO, Any
 
 import geopandas as gpd
 import pyogrio
@@ -21,6 +21,7 @@ from rich.console import Console
 from rich.text import Text
 
 from ..diff import LAYER_ORDER, DiffReport
+from ..fsutil import atomic_dataset
 from ..printable import json_printable, printable
 
 DIFF_CAUTION = "archivist diff lists what differs between the two data sets; whether each change is geologically right is for the mappers to judge."
@@ -28,6 +29,7 @@ STYLE = {"added": "green", "removed": "red"}
 
 
 def render_diff_json(report: DiffReport) -> str:
+    """The report as JSON text (``schemas/diff.schema.json``), terminal-unsafe characters escaped."""
     return json_printable(json.dumps(report.to_dict(), indent=2, ensure_ascii=False)) + "\n"
 
 
@@ -41,8 +43,8 @@ def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None =
     console.print(Text(f"Map CRS: {printable(report.crs) if report.crs else 'not declared'}"))
     order = {name: i for i, name in enumerate(LAYER_ORDER)}
     changes = sorted(report.changes, key=lambda c: order.get(c.layer, 99))
-    for layer, items in groupby(changes, key=lambda c: c.layer):
-        items = list(items)
+    for layer, group in groupby(changes, key=lambda c: c.layer):
+        items = list(group)
         console.print()
         console.print(Text(f"{printable(layer)} ({len(items)})", style="bold underline"))
         for c in items:
@@ -62,17 +64,21 @@ def write_diff_text(report: DiffReport, stream: IO[str], *, color: bool | None =
 
 
 def render_diff_text(report: DiffReport) -> str:
+    """The text of :func:`write_diff_text`, without colour."""
     buf = io.StringIO()
     write_diff_text(report, buf, color=False)
     return buf.getvalue()
 
 
-def write_diff_gpkg(report: DiffReport, path: Path, crs) -> None:
+def write_diff_gpkg(report: DiffReport, path: Path, crs: Any) -> None:
     """Write ``changed_areas`` (one row per piece of area that changed unit, or per changed polygon),
     ``changed_lines`` (old and new positions) and ``changed_points`` to a new GeoPackage at ``path``.
 
     Every row carries the index of its change in the report (``change_no``, from 1),
-    the kind of change, the layer and the feature ids.
+    the kind of change, the layer and the feature ids. ``crs`` is the map's
+    CRS (anything pyproj accepts). The file is built in a hidden sibling
+    and renamed onto ``path`` at the end (:func:`archivist.fsutil.atomic_dataset`);
+    the caller has already made sure ``path`` may be written.
     """
     areas, lines, points = [], [], []
     for n, c in enumerate(report.changes, start=1):
@@ -94,10 +100,12 @@ def write_diff_gpkg(report: DiffReport, path: Path, crs) -> None:
         "changed_lines": (lines, ["change_no", "change", "layer", "features", "message", "side"], "MultiLineString"),
         "changed_points": (points, ["change_no", "change", "layer", "features", "message", "side"], "Point"),
     }
-    for name, (rows, cols, gtype) in columns.items():
-        if rows:
-            frame = gpd.GeoDataFrame(rows, geometry="geometry", crs=crs)
-        else:
-            frame = gpd.GeoDataFrame({c: [] for c in cols}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
-        frame = frame[cols + ["geometry"]]
-        pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", geometry_type=gtype, promote_to_multi=gtype.startswith("Multi"))
+    with atomic_dataset(Path(path)) as work:
+        for name, (rows, cols, gtype) in columns.items():
+            if rows:
+                frame = gpd.GeoDataFrame(rows, geometry="geometry", crs=crs)
+            else:
+                frame = gpd.GeoDataFrame({c: [] for c in cols}, geometry=gpd.GeoSeries([], crs=crs), crs=crs)
+            frame = frame[cols + ["geometry"]]
+            pyogrio.write_dataframe(frame, work, layer=name, driver="GPKG", geometry_type=gtype,
+                                    promote_to_multi=gtype.startswith("Multi"))

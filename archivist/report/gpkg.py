@@ -25,7 +25,6 @@ module never decides where: the command refuses paths inside the project.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import geopandas as gpd
@@ -34,7 +33,7 @@ import pandas as pd
 import pyogrio
 import shapely
 
-from ..fsutil import atomic_path
+from ..fsutil import atomic_dataset
 from ..model import Report
 
 LAYERS = {"points": "findings_points", "lines": "findings_lines", "polygons": "findings_polygons"}
@@ -115,19 +114,11 @@ def write_findings_gpkg(report: Report, target: Path, crs=None) -> dict[str, int
     target = Path(target)
     frames, table = findings_frames(report, crs)
     counts = {}
-    with atomic_path(target) as part:
-        # GDAL wants a .gpkg name while writing; the finished file takes the part's place
-        work = part.with_name(part.name + ".gpkg")
-        try:
-            for kind, frame in frames.items():
-                pyogrio.write_dataframe(frame, work, layer=LAYERS[kind], driver="GPKG", geometry_type=GEOMETRY_TYPES[kind])
-                counts[LAYERS[kind]] = len(frame)
-            if len(table):
-                pyogrio.write_dataframe(table, work, layer=TABLE, driver="GPKG")
-                counts[TABLE] = len(table)
-            os.replace(work, part)
-        finally:
-            for extra in (work, Path(f"{work}-journal"), Path(f"{work}-wal"), Path(f"{work}-shm")):
-                if extra.exists():
-                    extra.unlink()
+    with atomic_dataset(target) as work:
+        for kind, frame in frames.items():
+            pyogrio.write_dataframe(frame, work, layer=LAYERS[kind], driver="GPKG", geometry_type=GEOMETRY_TYPES[kind])
+            counts[LAYERS[kind]] = len(frame)
+        if len(table):
+            pyogrio.write_dataframe(table, work, layer=TABLE, driver="GPKG")
+            counts[TABLE] = len(table)
     return counts
