@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from itertools import groupby
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Iterable
 
 import numpy as np
 import shapely
@@ -13,40 +12,13 @@ from shapely.errors import GEOSException
 
 from . import registry
 from ._version import __version__
+from .analysis.context import CheckContext
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
 from .project import MapProject, crs_label, load_project
 from .progress import Progress
 
-
-@dataclass
-class CheckContext:
-    """What a rule may use besides the project: settings and a per-run cache.
-
-    Several rules of one family share one expensive analysis (e.g. the unit
-    adjacency graph); ``ctx.shared(key, compute)`` runs it once per check.
-    """
-
-    project: MapProject
-    notes: list[str] = field(default_factory=list)
-    _cache: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def config(self):
-        return self.project.config
-
-    @property
-    def tolerance(self) -> float:
-        return self.project.config.tolerance
-
-    def shared(self, key: str, compute: Callable[[], Any]) -> Any:
-        if key not in self._cache:
-            self._cache[key] = compute()
-        return self._cache[key]
-
-    def note(self, text: str) -> None:
-        if text not in self.notes:
-            self.notes.append(text)
+__all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
 
 
 def _round(v: float | None) -> float | None:
@@ -116,8 +88,8 @@ def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progre
     findings: list[Finding] = []
     ran: list[str] = []
     empty = empty_layers(project)
-    for family, group in groupby(selected, key=lambda i: i.family):
-        group = list(group)
+    for family, members in groupby(selected, key=lambda i: i.family):
+        group = list(members)
         with progress.step(f"{family} rules", total=len(group)) as step:
             for info in group:
                 level = overrides.get(info.id, info.severity.value)

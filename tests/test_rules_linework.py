@@ -18,7 +18,7 @@ from hypothesis import strategies as st
 from shapely.geometry import LineString, box
 
 import archivist
-from archivist.rules.linework import kind_role, parse_kind
+from archivist.analysis.lines import kind_role, parse_kind
 from builders import copy_bundle, edit_layer, read_layer
 from coverage_builders import FRAME, extend_line, square_map, synthetic_map, write_map
 

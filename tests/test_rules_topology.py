@@ -21,7 +21,9 @@ from shapely.geometry import LineString, Polygon, box
 
 import archivist
 from archivist.project import load_project
-from archivist.rules.topology import coord_hash, sliver_thresholds, stretch_length
+from archivist.analysis.arrays import coord_hash
+from archivist.analysis.coverage import stretch_length
+from archivist.analysis.polygons import sliver_thresholds
 from builders import copy_bundle, edit_layer, read_layer
 from coverage_builders import FRAME, enlarge, remove, shrink, square_map, synthetic_map, write_map
 
