@@ -5,6 +5,8 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Iterable, Sequence
 
 if TYPE_CHECKING:
+    import numpy as np
+
     from ..project import MapProject
 
 # "Longer (wider) than the tolerance" allows for floating-point noise: a stretch
@@ -49,7 +51,7 @@ def lat_words(v: float) -> str:
     return f"{abs(v):.2f}°{'N' if v >= 0 else 'S'}"
 
 
-def box_words(b: Sequence[float]) -> str:
+def box_words(b: Sequence[float] | np.ndarray) -> str:
     """A lon/lat box (west, south, east, north) in words."""
     return f"{lon_words(b[0])} to {lon_words(b[2])}, {lat_words(b[1])} to {lat_words(b[3])}"
 

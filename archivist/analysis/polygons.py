@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cached_property
-from typing import TYPE_CHECKING, Iterable
+from typing import TYPE_CHECKING, Iterable, SupportsIndex
 
 import numpy as np
 import shapely
@@ -57,15 +57,15 @@ class Units:
         """Spatial index of the polygons (built on first use)."""
         return shapely.STRtree(self.geoms)
 
-    def code(self, k: int) -> str:
+    def code(self, k: SupportsIndex) -> str:
         if self.codes is None:
             return "?"
         return str(self.codes[k] or "no code")
 
-    def label(self, k: int) -> str:
+    def label(self, k: SupportsIndex) -> str:
         return f"{self.ids[k]} ({self.code(k)})"
 
-    def labels(self, ks: Iterable[int]) -> str:
+    def labels(self, ks: Iterable[SupportsIndex]) -> str:
         return join_words([self.label(k) for k in ks])
 
 

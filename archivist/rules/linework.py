@@ -187,7 +187,7 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
         length = float(shapely.length(piece) * m)
         if ub >= 0:
             text = f"No line draws {num(length)} m of the boundary between units {units.labels([ua, ub])}."
-            feats = (units.ids[ua], units.ids[ub])
+            feats: tuple[str, ...] = (units.ids[ua], units.ids[ub])
         else:
             text = f"No line draws {num(length)} m of the map edge along unit {units.label(ua)}."
             feats = (units.ids[ua],)
@@ -448,7 +448,7 @@ def line_self_intersection(project: MapProject, ctx: CheckContext) -> Iterator[H
         g = net.geoms[f]
         noded = shapely.node(g)
         pieces = shapely.get_parts(noded)
-        ends = Counter()
+        ends: Counter[tuple[float, ...]] = Counter()
         for piece in pieces:
             xy = shapely.get_coordinates(piece)
             ends[tuple(xy[0])] += 1
@@ -547,8 +547,8 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             for j in range(i + 1, len(feats)):
                 shared.setdefault((feats[i], feats[j]), []).append(seg)
     found: dict[tuple[int, int], tuple[Any, float]] = {}
-    for pair, segs in shared.items():
-        segs = np.array(segs)
+    for pair, seg_list in shared.items():
+        segs = np.array(seg_list)
         length = float(net.seg_length[segs].sum())
         geom = shapely.line_merge(shapely.multilinestrings(segment_lines(net.px[segs], net.py[segs], net.qx[segs], net.qy[segs])))
         found[pair] = (geom, length)
@@ -640,7 +640,7 @@ def line_kind_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     net = ctx.line_network()
     cfg = project.config
     vocab = ", ".join(cfg.line_kinds)
-    if net.kind_code is not None:
+    if net.kind_code is not None and net.kind_texts is not None:
         unknown = np.array([k is None for k in net.kind_parsed], dtype=bool)
         for f in np.flatnonzero(unknown[net.kind_code]):
             raw = net.kind_texts[net.kind_code[f]]

@@ -116,7 +116,8 @@ def structure_out_of_range(project: MapProject, ctx: CheckContext) -> Iterator[H
     """
     layer = project.layers["structures"]
     kind_col = layer.field("kind_field")
-    kinds = layer.text("kind_field") if kind_col else np.full(len(layer.frame), "", dtype=object)
+    text = layer.text("kind_field") if kind_col else None
+    kinds = text if text is not None else np.full(len(layer.frame), "", dtype=object)
     linear = np.isin(_fold_all(kinds), LINEAR_KINDS)
     geoms = layer.geometry
     problems: dict[int, list[str]] = {}
@@ -142,12 +143,12 @@ def structure_out_of_range(project: MapProject, ctx: CheckContext) -> Iterator[H
             else:
                 why = f"{word} {values[i]:g} is outside {lo:g}-{hi:g}"
             problems.setdefault(int(i), []).append(why)
-    for i in sorted(problems):
-        fid = layer.ids[i]
-        kind = f" ({kinds[i]})" if kinds[i] else ""
-        g = geoms[i]
+    for row in sorted(problems):
+        fid = layer.ids[row]
+        kind = f" ({kinds[row]})" if kinds[row] else ""
+        g = geoms[row]
         yield Hit(
-            f"structures feature {fid}{kind}: {'; '.join(problems[i])}.",
+            f"structures feature {fid}{kind}: {'; '.join(problems[row])}.",
             layer="structures",
             features=(fid,),
             geometry=g if g is not None and not g.is_empty else None,

@@ -457,14 +457,14 @@ def unit_code_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     blank = np.array([not t.strip() for t in texts], dtype=bool)[k]
     name = layer.field("unit_field")
     m = metres_per_unit(project)
-    for k in np.flatnonzero(blank):
-        g = geoms[k]
+    for row in np.flatnonzero(blank):
+        g = geoms[row]
         has = g is not None and not shapely.is_empty(g)
         yield Hit(
-            f"Unit polygon {layer.ids[k]} has no unit code (field '{name}')"
+            f"Unit polygon {layer.ids[row]} has no unit code (field '{name}')"
             + (f"; it covers {num(shapely.area(g) * m * m)} m²." if has else "."),
             layer="units",
-            features=(str(layer.ids[k]),),
+            features=(str(layer.ids[row]),),
             measure=float(shapely.area(g) * m * m) if has else None,
             geometry=g if has else None,
         )
