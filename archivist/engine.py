@@ -10,13 +10,13 @@ import numpy as np
 import shapely
 from shapely.errors import GEOSException
 
-from . import registry
 from ._version import __version__
 from .analysis.context import CheckContext
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
-from .project import MapProject, crs_label, load_project
 from .progress import Progress
+from .project import MapProject, crs_label, load_project
+from .registry import RuleInfo, select
 
 __all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
 
@@ -27,7 +27,7 @@ def _round(v: float | None) -> float | None:
     return float(round(v, 3))
 
 
-def to_finding(info: registry.RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
+def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
     """A hit as a finding; ``forced`` (a manifest override) wins over the hit's own severity."""
     x, y, wkt = hit.x, hit.y, None
     g = hit.geometry
@@ -55,7 +55,7 @@ def empty_layers(project: MapProject) -> set[str]:
     return {role for role, layer in project.layers.items() if len(layer.frame) == 0}
 
 
-def rule_failed(info: registry.RuleInfo, exc: GEOSException) -> Finding:
+def rule_failed(info: RuleInfo, exc: GEOSException) -> Finding:
     """The finding for a rule that GEOS stopped: the rule could not finish, and why."""
     reason = " ".join(str(exc).split()) or type(exc).__name__
     return Finding(
@@ -73,7 +73,7 @@ def rule_failed(info: registry.RuleInfo, exc: GEOSException) -> Finding:
     )
 
 
-def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progress: Progress | None = None) -> Report:
+def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
@@ -151,7 +151,7 @@ def check(
     if not isinstance(project, MapProject):
         project = load_project(project, progress=progress)
     try:
-        selected = registry.select(only, rules)
+        selected = select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
     return run_rules(project, selected, progress)

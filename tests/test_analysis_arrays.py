@@ -10,7 +10,14 @@ import numpy as np
 import shapely
 from shapely.geometry import LineString, Point, box
 
-from archivist.analysis.arrays import canonical, coord_hash, group_sorted, linear_parts, merge_by_group, polygonal_parts
+from archivist.analysis.arrays import (
+    canonical,
+    coord_hash,
+    group_sorted,
+    linear_parts,
+    merge_by_group,
+    polygonal_parts,
+)
 
 
 def test_coordinate_hash_equal_rows_equal_hashes():

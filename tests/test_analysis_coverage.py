@@ -13,6 +13,7 @@ import dataclasses
 import numpy as np
 import pytest
 import shapely
+from coverage_builders import square_map
 from shapely.errors import GEOSException
 from shapely.geometry import Polygon, box
 
@@ -21,7 +22,6 @@ from archivist.analysis.context import CheckContext
 from archivist.analysis.coverage import find_mismatches, stretch_length
 from archivist.model import Severity
 from archivist.project import load_project
-from coverage_builders import square_map
 
 A, B = box(0, 0, 5.1, 10), box(5, 0, 10, 10)  # A reaches 0.1 m into B: 1 m²
 C, D = box(20, 0, 25.1, 10), box(25, 0, 30, 10)  # the same defect 20 m away, not touching A or B

@@ -7,12 +7,12 @@ polygons the lines are drawn on).
 from __future__ import annotations
 
 import pytest
+from coverage_builders import FRAME, square_map
 from shapely.geometry import LineString
 
 from archivist.analysis.context import CheckContext
 from archivist.analysis.lines import build_line_network, kind_role, parse_kind
 from archivist.project import load_project
-from coverage_builders import FRAME, square_map
 
 
 def test_kind_vocabulary():

@@ -8,12 +8,12 @@ from __future__ import annotations
 
 import numpy as np
 import shapely
+from builders import copy_bundle
+from coverage_builders import square_map
 from shapely.geometry import LineString, Point, Polygon, box
 
 from archivist.analysis.polygons import polygonal, read_units, sliver_thresholds
 from archivist.project import load_project
-from builders import copy_bundle
-from coverage_builders import square_map
 
 
 def test_sliver_thresholds_follow_the_scale(tmp_path):

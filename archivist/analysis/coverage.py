@@ -39,7 +39,14 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..farcoords import far_out
-from .arrays import canonical, coord_hash, linear_parts, polygonal_parts, segment_lines, widths
+from .arrays import (
+    canonical,
+    coord_hash,
+    linear_parts,
+    polygonal_parts,
+    segment_lines,
+    widths,
+)
 from .guard import Failure, by_cluster, elementwise, reason_of
 from .halfedges import Edges
 from .messages import ABOVE

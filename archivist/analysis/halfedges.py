@@ -18,6 +18,7 @@ import shapely
 
 from .arrays import canonical, coord_hash, group_sorted, segment_lines
 
+
 def polygon_half_edges(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Directed boundary segments of polygons with the interior on the left.
 

@@ -28,7 +28,15 @@ import numpy as np
 import shapely
 
 from ..farcoords import far_out
-from .arrays import LINESTRING, MULTILINESTRING, canonical, coord_hash, collections_as, linear_parts, text_values
+from .arrays import (
+    LINESTRING,
+    MULTILINESTRING,
+    canonical,
+    collections_as,
+    coord_hash,
+    linear_parts,
+    text_values,
+)
 from .halfedges import Edges
 
 if TYPE_CHECKING:

@@ -12,6 +12,7 @@ import shapely
 
 from .polygons import Units
 
+
 def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
     """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
     out = np.full(len(targets), None, dtype=object)

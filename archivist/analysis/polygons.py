@@ -10,7 +10,14 @@ import numpy as np
 import shapely
 
 from ..farcoords import far_out
-from .arrays import COLLECTION, MULTIPOLYGON, POLYGON, collections_as, polygonal_parts, text_values
+from .arrays import (
+    COLLECTION,
+    MULTIPOLYGON,
+    POLYGON,
+    collections_as,
+    polygonal_parts,
+    text_values,
+)
 from .messages import join_words, metres_per_unit
 
 if TYPE_CHECKING:

@@ -14,12 +14,12 @@ import numpy as np
 import pyproj
 from shapely.geometry import box
 
-from .. import vectorio
 from ..analysis.messages import box_words, distance_words
 from ..analysis.placement import area_of_use, overshoot, suggest_projected, within
 from ..model import Hit
 from ..project import crs_label
 from ..registry import rule
+from ..vectorio import sidecar
 
 if TYPE_CHECKING:
     from ..analysis.context import CheckContext
@@ -67,7 +67,7 @@ def crs_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         assumed = f"; the checks assume the map CRS {_label(project.crs)}" if project.crs is not None else ""
         if layer.spec.get("x_field"):
             how = f': add crs = "EPSG:..." to [layers.{role}]'
-        elif layer.path.suffix.lower() == ".shp" and vectorio.sidecar(layer.path, ".prj") is not None:
+        elif layer.path.suffix.lower() == ".shp" and sidecar(layer.path, ".prj") is not None:
             how = " (its .prj is there but could not be read or understood: see layer-unreadable)"
         elif layer.path.suffix.lower() == ".shp":
             how = " (is the .prj file missing beside the .shp?)"

@@ -37,10 +37,23 @@ import numpy as np
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import MULTILINESTRING, coord_hash, group_sorted, linear_parts, merge_by_group, segment_lines, text_values
+from ..analysis.arrays import (
+    MULTILINESTRING,
+    coord_hash,
+    group_sorted,
+    linear_parts,
+    merge_by_group,
+    segment_lines,
+    text_values,
+)
 from ..analysis.lines import LineNetwork, norm_kind
 from ..analysis.messages import ABOVE, metres_per_unit, num
-from ..analysis.nearness import connected_pieces, off_unit_boundaries, uncovered, unit_at
+from ..analysis.nearness import (
+    connected_pieces,
+    off_unit_boundaries,
+    uncovered,
+    unit_at,
+)
 from ..analysis.polygons import Units
 from ..model import Hit
 from ..registry import rule
