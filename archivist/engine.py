@@ -2,51 +2,23 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from itertools import groupby
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Iterable
 
 import numpy as np
 import shapely
 from shapely.errors import GEOSException
 
-from . import registry
 from ._version import __version__
+from .analysis.context import CheckContext
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
-from .project import MapProject, crs_label, load_project
 from .progress import Progress
+from .project import MapProject, crs_label, load_project
+from .registry import RuleInfo, select
 
-
-@dataclass
-class CheckContext:
-    """What a rule may use besides the project: settings and a per-run cache.
-
-    Several rules of one family share one expensive analysis (e.g. the unit
-    adjacency graph); ``ctx.shared(key, compute)`` runs it once per check.
-    """
-
-    project: MapProject
-    notes: list[str] = field(default_factory=list)
-    _cache: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def config(self):
-        return self.project.config
-
-    @property
-    def tolerance(self) -> float:
-        return self.project.config.tolerance
-
-    def shared(self, key: str, compute: Callable[[], Any]) -> Any:
-        if key not in self._cache:
-            self._cache[key] = compute()
-        return self._cache[key]
-
-    def note(self, text: str) -> None:
-        if text not in self.notes:
-            self.notes.append(text)
+__all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
 
 
 def _round(v: float | None) -> float | None:
@@ -55,7 +27,7 @@ def _round(v: float | None) -> float | None:
     return float(round(v, 3))
 
 
-def to_finding(info: registry.RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
+def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
     """A hit as a finding; ``forced`` (a manifest override) wins over the hit's own severity."""
     x, y, wkt = hit.x, hit.y, None
     g = hit.geometry
@@ -83,7 +55,7 @@ def empty_layers(project: MapProject) -> set[str]:
     return {role for role, layer in project.layers.items() if len(layer.frame) == 0}
 
 
-def rule_failed(info: registry.RuleInfo, exc: GEOSException) -> Finding:
+def rule_failed(info: RuleInfo, exc: GEOSException) -> Finding:
     """The finding for a rule that GEOS stopped: the rule could not finish, and why."""
     reason = " ".join(str(exc).split()) or type(exc).__name__
     return Finding(
@@ -101,7 +73,7 @@ def rule_failed(info: registry.RuleInfo, exc: GEOSException) -> Finding:
     )
 
 
-def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progress: Progress | None = None) -> Report:
+def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
@@ -116,8 +88,8 @@ def run_rules(project: MapProject, selected: Iterable[registry.RuleInfo], progre
     findings: list[Finding] = []
     ran: list[str] = []
     empty = empty_layers(project)
-    for family, group in groupby(selected, key=lambda i: i.family):
-        group = list(group)
+    for family, members in groupby(selected, key=lambda i: i.family):
+        group = list(members)
         with progress.step(f"{family} rules", total=len(group)) as step:
             for info in group:
                 level = overrides.get(info.id, info.severity.value)
@@ -179,7 +151,7 @@ def check(
     if not isinstance(project, MapProject):
         project = load_project(project, progress=progress)
     try:
-        selected = registry.select(only, rules)
+        selected = select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
     return run_rules(project, selected, progress)

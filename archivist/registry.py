@@ -3,7 +3,7 @@
 A rule is a small function registered once with :func:`rule`::
 
     @rule("unit-overlap", family="topology", severity="error", needs=("units",))
-    def unit_overlap(project, ctx):
+    def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         \"\"\"Two unit polygons share area.
 
         Catches
@@ -21,7 +21,8 @@ A rule is a small function registered once with :func:`rule`::
         \"\"\"
         yield Hit(...)
 
-The docstring is the rule's documentation: a one-line title, then the four
+A rule has the type :class:`Rule`; mypy checks every decorated function
+against it. The docstring is the rule's documentation: a one-line title, then the four
 sections above (numpy-style underlined headings). `archivist rules` prints
 them and a test makes sure no rule lacks one.
 """
@@ -32,9 +33,26 @@ import importlib
 import inspect
 import re
 from dataclasses import dataclass
-from typing import Callable, Iterable
+from typing import TYPE_CHECKING, Callable, Iterable, Iterator, Protocol, TypeVar
 
 from .model import Hit, Severity
+
+if TYPE_CHECKING:
+    from .analysis.context import CheckContext
+    from .project import MapProject
+
+
+class Rule(Protocol):
+    """What a rule is: a function of the project and the check context yielding its hits."""
+
+    __name__: str
+    __qualname__: str
+    __doc__: str | None
+
+    def __call__(self, project: MapProject, ctx: CheckContext, /) -> Iterator[Hit]: ...
+
+
+R = TypeVar("R", bound=Rule)
 
 SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
 FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "archive")
@@ -58,7 +76,7 @@ class RuleInfo:
     id: str
     family: str
     severity: Severity
-    func: Callable[..., Iterable[Hit]]
+    func: Rule
     needs: tuple[str, ...]
     title: str
     sections: tuple[tuple[str, str], ...]
@@ -98,7 +116,7 @@ def parse_doc(doc: str | None) -> tuple[str, tuple[tuple[str, str], ...]]:
     return title, out
 
 
-def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()):
+def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()) -> Callable[[R], R]:
     """Register a rule function under `id`.
 
     Parameters
@@ -114,7 +132,7 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()):
         absent (the absence itself is reported by the metadata family).
     """
 
-    def register(func):
+    def register(func: R) -> R:
         if not _ID.match(id):
             raise ValueError(f"rule id {id!r} is not a kebab-case noun phrase")
         if id in _RULES and _RULES[id].func.__qualname__ != func.__qualname__:
@@ -123,7 +141,6 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()):
             raise ValueError(f"rule {id!r}: unknown family {family!r}")
         title, sections = parse_doc(func.__doc__)
         _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections)
-        func.rule_id = id
         return func
 
     return register

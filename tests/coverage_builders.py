@@ -100,7 +100,8 @@ def synthetic_map(
     origin: tuple[float, float] = ORIGIN,
 ) -> SyntheticMap:
     """A clean synthetic map of about ``n_polygons`` unit polygons (see the module doc)."""
-    from archivist.rules.topology import build_edges, merge_by_group
+    from archivist.analysis.arrays import merge_by_group
+    from archivist.analysis.halfedges import build_edges
 
     rng = np.random.default_rng(seed)
     side = math.sqrt(n_polygons) * spacing

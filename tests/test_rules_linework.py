@@ -18,7 +18,6 @@ from hypothesis import strategies as st
 from shapely.geometry import LineString, box
 
 import archivist
-from archivist.rules.linework import kind_role, parse_kind
 from builders import copy_bundle, edit_layer, read_layer
 from coverage_builders import FRAME, extend_line, square_map, synthetic_map, write_map
 
@@ -221,20 +220,6 @@ def test_junctions_are_not_duplicates(tmp_path):
     # a contact meeting another at 30 degrees shares nothing beyond the junction allowance
     rows = [("contact", CONTACT), ("map-boundary", FRAME), ("fault", LineString([(5, 5), (5 + 5 * np.cos(np.pi / 3), 5 + 5 * np.sin(np.pi / 3))]))]
     assert found(square_map(tmp_path, line_rows=rows), "line-duplicate") == []
-
-
-def test_kind_vocabulary():
-    kinds, certs = ("contact", "fault", "map-boundary"), ("certain", "approximate", "inferred", "concealed")
-    assert parse_kind("Contact", kinds, certs) == ("contact", None)
-    assert parse_kind("contact, inferred", kinds, certs) == ("contact", "inferred")
-    assert parse_kind("fault (concealed)", kinds, certs) == ("fault", "concealed")
-    assert parse_kind("inferred contact", kinds, certs) == ("contact", "inferred")
-    assert parse_kind("map_boundary", kinds, certs) == ("map-boundary", None)
-    assert parse_kind("contcat", kinds, certs) is None
-    assert parse_kind("contact, probable", kinds, certs) is None
-    assert parse_kind("", kinds, certs) is None
-    assert [kind_role(k) for k in ("contact", "fault", "map-boundary", "thrust", "intrusive contact", "unconformity", "fold axis")] == [
-        "contact", "fault", "boundary", "fault", "contact", "contact", "other"]
 
 
 def test_kind_and_certainty_messages(tmp_path):

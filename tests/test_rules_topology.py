@@ -21,7 +21,6 @@ from shapely.geometry import LineString, Polygon, box
 
 import archivist
 from archivist.project import load_project
-from archivist.rules.topology import coord_hash, sliver_thresholds, stretch_length
 from builders import copy_bundle, edit_layer, read_layer
 from coverage_builders import FRAME, enlarge, remove, shrink, square_map, synthetic_map, write_map
 
@@ -229,13 +228,6 @@ def test_same_code_is_case_and_space_blind_only_for_spaces(tmp_path):
     assert found(square_map(tmp_path, "sp", codes=["A", " A "]), "unit-same-neighbour")
 
 
-def test_sliver_thresholds_follow_the_scale(tmp_path):
-    # 1 mm² and 0.5 mm of map: at 1:1 000 that is 1 m² and 0.5 m; at 1:25 000, 25 m per mm: 625 m² and 12.5 m
-    assert sliver_thresholds(load_project(clean(tmp_path))) == (1.0, 0.5)
-    bundle = load_project(copy_bundle(tmp_path))
-    assert sliver_thresholds(bundle) == (625.0, 12.5)
-
-
 def test_thin_and_small_slivers(tmp_path):
     (f,) = found(thin_strip(tmp_path), "unit-sliver")
     assert f.features == ("3",) and f.measure == 4.0  # 0.4 m x 10 m
@@ -264,20 +256,6 @@ def test_thin_screen_keeps_every_thin_polygon():
 def test_code_missing(tmp_path):
     (f,) = found(blank_code(tmp_path), "unit-code-missing")
     assert f.features == ("2",) and "field 'unit'" in f.message and f.measure == 50.0
-
-
-def test_stretch_length_of_a_rectangle_is_its_long_side():
-    assert stretch_length(box(0, 0, 10, 0.1)) == pytest.approx(10.0)
-    assert stretch_length(box(0, 0, 0.5, 2)) == pytest.approx(2.0)
-
-
-def test_coordinate_hash_equal_rows_equal_hashes():
-    a = np.array([1.0, -0.0, 3.5])
-    b = np.array([2.0, 0.0, 3.5])
-    h1 = coord_hash(a, b)
-    h2 = coord_hash(a.copy(), np.array([2.0, -0.0, 3.5]))
-    assert (h1 == h2).all()
-    assert len(set(coord_hash(np.arange(1000.0), np.zeros(1000)).tolist())) == 1000
 
 
 def test_invalid_polygon_is_repaired_for_the_coverage(tmp_path):

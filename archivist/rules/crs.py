@@ -8,186 +8,32 @@ strings, and reported to people as "EPSG:code (name)".
 
 from __future__ import annotations
 
-import re
-from dataclasses import dataclass
+from typing import TYPE_CHECKING, Iterator
 
 import numpy as np
 import pyproj
-import shapely
-from pyproj.aoi import AreaOfInterest
-from pyproj.database import query_utm_crs_info
 from shapely.geometry import box
 
-from .. import vectorio
+from ..analysis.messages import box_words, distance_words
+from ..analysis.placement import area_of_use, overshoot, suggest_projected, within
 from ..model import Hit
 from ..project import crs_label
 from ..registry import rule
+from ..vectorio import sidecar
 
-WGS84 = pyproj.CRS("EPSG:4326")
-_GEOD = pyproj.Geod(ellps="WGS84")
-# Margin (degrees) around an area of use within which swapped coordinates are
-# taken to "fit": generous, since swapped values usually land thousands of km away.
-SWAP_MARGIN_DEG = 1.0
-# An area of use wider than this (degrees) says little about where a map is
-# (e.g. "World" for EPSG:4326); the swap check then uses the other layers' extent.
-WIDE_AREA_DEG = 20.0
+if TYPE_CHECKING:
+    from ..analysis.context import CheckContext
+    from ..project import MapProject
 
 
-def _label(crs) -> str:
+def _label(crs: pyproj.CRS | None) -> str:
     return crs_label(crs) or "no CRS"
-
-
-@dataclass
-class _Placed:
-    """A layer's features placed on the globe: longitude/latitude boxes as read and with x/y swapped."""
-
-    role: str
-    crs: pyproj.CRS
-    own_crs: bool  # False when the layer has no CRS and the map CRS is assumed
-    bounds: np.ndarray  # (n, 4) in the layer's CRS; NaN rows for empty geometries
-    lonlat: np.ndarray  # (n, 4) west, south, east, north; NaN where the transform fails
-    present: np.ndarray  # (n,) bool: the feature has a geometry
-
-    def swapped(self, rows: np.ndarray) -> np.ndarray:
-        """Lon/lat boxes of the selected rows with x and y exchanged before transforming.
-
-        Computed only for the rows asked for (those that do not fit as read),
-        since a clean layer needs none.
-        """
-        return _lonlat_boxes(self.crs, self.bounds[rows][:, [1, 0, 3, 2]])
-
-    def box(self, which: np.ndarray | None = None) -> np.ndarray | None:
-        """The lon/lat box of all (or the selected) transformable features, or None."""
-        b = self.lonlat if which is None else self.lonlat[which]
-        ok = np.isfinite(b).all(axis=1)
-        if not ok.any():
-            return None
-        b = b[ok]
-        return np.array([b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max()])
-
-
-def _to_lonlat(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
-    """Lon/lat boxes of projected boxes: a 3 x 3 grid of each box transformed, NaN where PROJ fails."""
-    n = len(bounds)
-    if n == 0:
-        return np.empty((0, 4))
-    xs = np.stack([bounds[:, 0], (bounds[:, 0] + bounds[:, 2]) / 2, bounds[:, 2]], axis=1)
-    ys = np.stack([bounds[:, 1], (bounds[:, 1] + bounds[:, 3]) / 2, bounds[:, 3]], axis=1)
-    gx = np.repeat(xs, 3, axis=1).ravel()
-    gy = np.tile(ys, (1, 3)).ravel()
-    transformer = pyproj.Transformer.from_crs(crs, WGS84, always_xy=True)
-    with np.errstate(invalid="ignore"):
-        lon, lat = transformer.transform(gx, gy, errcheck=False)
-    lon = np.asarray(lon, dtype=float).reshape(n, 9)
-    lat = np.asarray(lat, dtype=float).reshape(n, 9)
-    bad = ~(np.isfinite(lon) & np.isfinite(lat)).all(axis=1) | (np.abs(lat) > 90).any(axis=1)
-    out = np.stack([lon.min(axis=1), lat.min(axis=1), lon.max(axis=1), lat.max(axis=1)], axis=1)
-    out[bad] = np.nan
-    return out
-
-
-def _lonlat_boxes(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
-    """Lon/lat boxes; NaN where a geographic CRS holds coordinates it cannot (|lat| > 90, |lon| > 360)."""
-    out = _to_lonlat(crs, bounds)
-    if crs.is_geographic:
-        out[(np.abs(bounds[:, 1]) > 90) | (np.abs(bounds[:, 3]) > 90) | (np.abs(bounds[:, 0]) > 360) | (np.abs(bounds[:, 2]) > 360)] = np.nan
-    return out
-
-
-def placements(project, ctx) -> dict[str, _Placed]:
-    """Every layer with a usable CRS (its own, else the map's) placed on the globe; computed once per check."""
-
-    def compute():
-        out = {}
-        for role, layer in project.layers.items():
-            crs = layer.crs or project.crs
-            if crs is None:
-                continue
-            geoms = layer.geometry
-            present = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-            bounds = shapely.bounds(geoms)
-            bounds[~present] = np.nan
-            try:
-                lonlat = _lonlat_boxes(crs, bounds)
-            except (pyproj.exceptions.ProjError, pyproj.exceptions.CRSError):
-                continue  # a local or engineering CRS: not tied to the globe, nothing to place
-            out[role] = _Placed(role, crs, layer.crs is not None, bounds, lonlat, present)
-        return out
-
-    return ctx.shared("crs:placements", compute)
-
-
-def _area(crs: pyproj.CRS) -> tuple[float, float, float, float] | None:
-    aou = crs.area_of_use
-    if aou is None:
-        return None
-    return (aou.west, aou.south, aou.east, aou.north)
-
-
-def _unwrap(lon: np.ndarray, west: float, east: float) -> tuple[np.ndarray, float]:
-    """Longitudes and east bound shifted so an area of use crossing the antimeridian is one interval."""
-    if west <= east:
-        return lon, east
-    return np.where(lon < west, lon + 360.0, lon), east + 360.0
-
-
-def _within(boxes: np.ndarray, area, margin: float = 0.0) -> np.ndarray:
-    """Which lon/lat boxes lie inside ``area`` (west, south, east, north) widened by ``margin`` degrees."""
-    w, s, e, n = area
-    west, e2 = _unwrap(boxes[:, 0], w, e)
-    east, _ = _unwrap(boxes[:, 2], w, e)
-    ok = np.isfinite(boxes).all(axis=1)
-    with np.errstate(invalid="ignore"):
-        inside = (west >= w - margin) & (east <= e2 + margin) & (boxes[:, 1] >= s - margin) & (boxes[:, 3] <= n + margin)
-    return ok & inside
-
-
-def _fmt_lon(v: float) -> str:
-    v = (v + 180.0) % 360.0 - 180.0
-    return f"{abs(v):.2f}°{'E' if v >= 0 else 'W'}"
-
-
-def _fmt_lat(v: float) -> str:
-    return f"{abs(v):.2f}°{'N' if v >= 0 else 'S'}"
-
-
-def _fmt_box(b) -> str:
-    return f"{_fmt_lon(b[0])} to {_fmt_lon(b[2])}, {_fmt_lat(b[1])} to {_fmt_lat(b[3])}"
-
-
-def _overshoot(b: np.ndarray, area) -> tuple[float, float, str]:
-    """How far a lon/lat box reaches beyond an area of use: (metres, degrees, direction words)."""
-    w, s, e, n = area
-    lons, e2 = _unwrap(np.array([b[0], b[2]]), w, e)
-    corners = [(lons[0], b[1]), (lons[0], b[3]), (lons[1], b[1]), (lons[1], b[3])]
-    best_m, best_deg, words = 0.0, 0.0, []
-    for lon, lat in corners:
-        clon, clat = min(max(lon, w), e2), min(max(lat, s), n)
-        if (clon, clat) == (lon, lat):
-            continue
-        _, _, dist = _GEOD.inv(clon, clat, lon, lat)
-        deg = max(abs(lon - clon), abs(lat - clat))
-        if dist > best_m:
-            best_m, best_deg = float(dist), float(deg)
-    if b[1] < s:
-        words.append("south")
-    if b[3] > n:
-        words.append("north")
-    if lons[0] < w:
-        words.append("west")
-    if lons[1] > e2:
-        words.append("east")
-    return best_m, best_deg, "-".join(words) or "outside"
-
-
-def _distance_words(metres: float) -> str:
-    return f"{metres / 1000:.1f} km" if metres >= 1000 else f"{metres:.0f} m"
 
 
 # ---------------------------------------------------------------- rules
 
 @rule("crs-missing", family="crs", severity="error")
-def crs_missing(project, ctx):
+def crs_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer has no coordinate reference system.
 
     Catches
@@ -221,7 +67,7 @@ def crs_missing(project, ctx):
         assumed = f"; the checks assume the map CRS {_label(project.crs)}" if project.crs is not None else ""
         if layer.spec.get("x_field"):
             how = f': add crs = "EPSG:..." to [layers.{role}]'
-        elif layer.path.suffix.lower() == ".shp" and vectorio.sidecar(layer.path, ".prj") is not None:
+        elif layer.path.suffix.lower() == ".shp" and sidecar(layer.path, ".prj") is not None:
             how = " (its .prj is there but could not be read or understood: see layer-unreadable)"
         elif layer.path.suffix.lower() == ".shp":
             how = " (is the .prj file missing beside the .shp?)"
@@ -236,7 +82,7 @@ def crs_missing(project, ctx):
 
 
 @rule("crs-mismatch", family="crs", severity="error")
-def crs_mismatch(project, ctx):
+def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer's CRS differs from the map CRS declared in `[map] crs`.
 
     Catches
@@ -274,7 +120,7 @@ def crs_mismatch(project, ctx):
         if crs is None or crs.equals(target, ignore_axis_order=True):
             continue
         extra, measure = "", None
-        placed = placements(project, ctx).get(role)
+        placed = ctx.placements().get(role)
         if crs.is_projected and target.is_projected and placed is not None and placed.present.any():
             b = placed.bounds[placed.present]
             cx, cy = (np.nanmin(b[:, 0]) + np.nanmax(b[:, 2])) / 2, (np.nanmin(b[:, 1]) + np.nanmax(b[:, 3])) / 2
@@ -286,7 +132,7 @@ def crs_mismatch(project, ctx):
                 metres = float(np.hypot(tx - cx, ty - cy)) * (target.axis_info[0].unit_conversion_factor or 1.0)
                 measure = metres
                 extra = (
-                    f"; at the layer's centre the two place the same coordinates {_distance_words(metres)} apart"
+                    f"; at the layer's centre the two place the same coordinates {distance_words(metres)} apart"
                     if metres >= 1
                     else "; they place the layer's centre less than 1 m apart, but they are not the same CRS"
                 )
@@ -309,7 +155,7 @@ def crs_mismatch(project, ctx):
 
 
 @rule("crs-outside-area-of-use", family="crs", severity="warning")
-def crs_outside_area_of_use(project, ctx):
+def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer's extent lies outside the area of use of its CRS.
 
     Catches
@@ -347,23 +193,23 @@ def crs_outside_area_of_use(project, ctx):
     of the CRS's area of use (12.00°E to 18.00°E, 0.00°N to 84.00°N); ...".
     """
     groups: list[tuple[pyproj.CRS, list]] = []
-    for placed in placements(project, ctx).values():
+    for placed in ctx.placements().values():
         for crs, members in groups:
             if crs.equals(placed.crs, ignore_axis_order=True):
                 members.append(placed)
                 break
         else:
             groups.append((placed.crs, [placed]))
-    swaps = _swap_suspects(project, ctx)
+    swaps = ctx.swap_suspects()
     for crs, members in groups:
-        area = _area(crs)
+        area = area_of_use(crs)
         if area is None:
             continue
         names = ", ".join(p.role for p in members)
         layer = members[0].role if len(members) == 1 else None
         lonlat = np.concatenate([p.lonlat[p.present] for p in members])
         failed = int((~np.isfinite(lonlat).all(axis=1)).sum())
-        inside = _within(lonlat, area)
+        inside = within(lonlat, area)
         outside = ~inside & np.isfinite(lonlat).all(axis=1)
         hint = ""
         if any(p.role in swaps for p in members):
@@ -377,10 +223,10 @@ def crs_outside_area_of_use(project, ctx):
         if outside.any():
             b = lonlat[outside]
             full = np.array([b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max()])
-            metres, deg, direction = _overshoot(full, area)
+            metres, deg, direction = overshoot(full, area)
             yield Hit(
-                f"{where} ({_label(crs)}) reach {deg:.2f}° (about {_distance_words(metres)}) {direction} of the CRS's "
-                f"area of use ({_fmt_box(area)}); {int(outside.sum())} feature(s) lie outside it, spanning {_fmt_box(full)}{hint}.",
+                f"{where} ({_label(crs)}) reach {deg:.2f}° (about {distance_words(metres)}) {direction} of the CRS's "
+                f"area of use ({box_words(area)}); {int(outside.sum())} feature(s) lie outside it, spanning {box_words(full)}{hint}.",
                 layer=layer,
                 measure=metres,
                 geometry=geometry,
@@ -394,49 +240,8 @@ def crs_outside_area_of_use(project, ctx):
             )
 
 
-def _reference_area(project, ctx, role: str, placed: _Placed):
-    """Where the layer should lie, in lon/lat: its CRS's area of use, narrowed by the other layers when that is wide."""
-    area = _area(placed.crs) or (-180.0, -90.0, 180.0, 90.0)
-    wide = (area[2] - area[0]) % 360 > WIDE_AREA_DEG or area[3] - area[1] > WIDE_AREA_DEG or area[2] - area[0] == 360
-    if not wide:
-        return area, False
-    boxes = []
-    for other_role, other in placements(project, ctx).items():
-        if other_role == role:
-            continue
-        other_area = _area(other.crs) or (-180.0, -90.0, 180.0, 90.0)
-        fits = _within(other.lonlat, other_area) & other.present
-        b = other.box(fits)
-        if b is not None and fits.sum() >= max(1, 0.5 * other.present.sum()):
-            boxes.append(b)
-    if not boxes:
-        return area, False
-    b = np.array(boxes)
-    ref = np.array([b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max()])
-    pad = max(SWAP_MARGIN_DEG, ref[2] - ref[0], ref[3] - ref[1])
-    return (ref[0] - pad, max(-90.0, ref[1] - pad), ref[2] + pad, min(90.0, ref[3] + pad)), True
-
-
-def _swap_suspects(project, ctx) -> dict[str, tuple[np.ndarray, tuple, bool]]:
-    """Per layer: features that fit the reference area only with x and y swapped."""
-
-    def compute():
-        out = {}
-        for role, placed in placements(project, ctx).items():
-            ref, from_layers = _reference_area(project, ctx, role, placed)
-            rows = np.flatnonzero(placed.present & ~_within(placed.lonlat, ref, SWAP_MARGIN_DEG))
-            suspect = np.zeros(len(placed.present), dtype=bool)
-            if len(rows):
-                suspect[rows] = _within(placed.swapped(rows), ref, SWAP_MARGIN_DEG)
-            if suspect.any():
-                out[role] = (suspect, ref, from_layers)
-        return out
-
-    return ctx.shared("crs:swap-suspects", compute)
-
-
 @rule("crs-axis-swap-suspected", family="crs", severity="error")
-def crs_axis_swap_suspected(project, ctx):
+def crs_axis_swap_suspected(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Coordinates make sense only with x and y (or longitude and latitude) swapped.
 
     Catches
@@ -472,12 +277,12 @@ def crs_axis_swap_suspected(project, ctx):
     (map.gpkg:samples): all 33 features fit where the other layers are only
     with x and y swapped".
     """
-    placed_all = placements(project, ctx)
-    for role, (suspect, ref, from_layers) in _swap_suspects(project, ctx).items():
+    placed_all = ctx.placements()
+    for role, (suspect, ref, from_layers) in ctx.swap_suspects().items():
         placed = placed_all[role]
         layer = project.layers[role]
         n, total = int(suspect.sum()), int(placed.present.sum())
-        where = "where the other layers are" if from_layers else f"the area of use of {_label(placed.crs)} ({_fmt_box(ref)})"
+        where = "where the other layers are" if from_layers else f"the area of use of {_label(placed.crs)} ({box_words(ref)})"
         if n == total or n > 20:
             b = placed.bounds[suspect]
             geometry = box(np.nanmin(b[:, 0]), np.nanmin(b[:, 1]), np.nanmax(b[:, 2]), np.nanmax(b[:, 3]))
@@ -502,39 +307,8 @@ def crs_axis_swap_suspected(project, ctx):
             )
 
 
-def suggest_projected(lonlat_box, datum_crs: pyproj.CRS | None = None) -> tuple[pyproj.CRS | None, int]:
-    """A UTM CRS from the EPSG dataset for a lon/lat box, and how many UTM zones the box spans.
-
-    The zone whose area of use holds the box centre is chosen, on the datum
-    of ``datum_crs`` when the EPSG dataset has UTM CRSs for it (e.g. ETRS89),
-    else on WGS 84. Returns (None, 0) where no UTM zone applies (polar areas).
-    """
-    w, s, e, n = (float(v) for v in lonlat_box)
-    cx, cy = (w + e) / 2, (s + n) / 2
-    names = []
-    if datum_crs is not None:
-        names.append(datum_crs.geodetic_crs.name if datum_crs.geodetic_crs else datum_crs.name)
-    names.append("WGS 84")
-    for datum in names:
-        try:
-            infos = query_utm_crs_info(datum_name=datum, area_of_interest=AreaOfInterest(w, s, e, n))
-        except pyproj.exceptions.CRSError:
-            continue
-        infos = [i for i in infos if not i.deprecated and i.area_of_use is not None]
-        centre = [
-            i for i in infos
-            if i.area_of_use.west <= cx <= i.area_of_use.east and i.area_of_use.south <= cy <= i.area_of_use.north
-        ]
-        if not centre:
-            continue
-        centre.sort(key=lambda i: ("(" in i.name, int(i.code) if i.code.isdigit() else 0))
-        zones = {m.group(1) for i in infos if (m := re.search(r"zone (\d+)", i.name))}
-        return pyproj.CRS.from_authority(centre[0].auth_name, centre[0].code), max(1, len(zones))
-    return None, 0
-
-
 @rule("crs-geographic", family="crs", severity="warning")
-def crs_geographic(project, ctx):
+def crs_geographic(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The map CRS is geographic (degrees) where area and length checks need a projected one.
 
     Catches
@@ -568,7 +342,7 @@ def crs_geographic(project, ctx):
     crs = project.crs
     if crs is None or not crs.is_geographic:
         return
-    boxes = [p.box() for p in placements(project, ctx).values()]
+    boxes = [p.box() for p in ctx.placements().values()]
     boxes = [b for b in boxes if b is not None]
     text = f"map.crs {_label(crs)} is geographic (degrees): areas, lengths and tolerances need a projected CRS"
     if not boxes:
@@ -578,10 +352,10 @@ def crs_geographic(project, ctx):
     full = (b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max())
     suggestion, zones = suggest_projected(full, crs)
     if suggestion is None:
-        yield Hit(f"{text}; no UTM zone covers the map ({_fmt_box(full)}): use a polar or national projected CRS.", layer="manifest")
+        yield Hit(f"{text}; no UTM zone covers the map ({box_words(full)}): use a polar or national projected CRS.", layer="manifest")
         return
     span = f"; the map spans {zones} UTM zones" if zones > 1 else ""
     yield Hit(
-        f"{text}; for the map's extent ({_fmt_box(full)}) {_label(suggestion)} covers the map's centre{span}.",
+        f"{text}; for the map's extent ({box_words(full)}) {_label(suggestion)} covers the map's centre{span}.",
         layer="manifest",
     )

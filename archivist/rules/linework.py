@@ -19,7 +19,7 @@ and duplicates.
 How it scales
 -------------
 Each line segment is looked up by its two endpoints in the half-edge table
-of the unit polygons built by the topology family (one hash per segment,
+of the unit polygons (:mod:`archivist.analysis.halfedges`; one hash per segment,
 numpy ``searchsorted``). On a map whose lines and polygons were built from
 each other, nearly every segment is found there exactly, and the checks are
 pure array work. Only the rest, the segments with no exact twin, go through
@@ -30,333 +30,43 @@ the map.
 
 from __future__ import annotations
 
-import re
 from collections import Counter
-from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import shapely
 from shapely.ops import substring
 
-from ..farcoords import far_out
-from ..model import Hit
-from ..registry import rule
-from .topology import (
-    ABOVE,
-    LINESTRING,
+from ..analysis.arrays import (
     MULTILINESTRING,
-    collections_as,
-    canonical,
     coord_hash,
-    get_coverage,
-    get_edges,
-    get_units,
     group_sorted,
     linear_parts,
     merge_by_group,
-    metres_per_unit,
-    num,
     segment_lines,
     text_values,
 )
+from ..analysis.lines import LineNetwork, norm_kind
+from ..analysis.messages import ABOVE, metres_per_unit, num
+from ..analysis.nearness import (
+    connected_pieces,
+    off_unit_boundaries,
+    uncovered,
+    unit_at,
+)
+from ..analysis.polygons import Units
+from ..model import Hit
+from ..registry import rule
 
-ROLE_NAMES = {"contact": "Contact", "fault": "Fault", "boundary": "Map-boundary line", "other": "Line", "unknown": "Line"}
-
-
-# ---------------------------------------------------------------- kinds
-
-def _norm(text: str) -> str:
-    return re.sub(r"[\s_\-]+", " ", str(text).strip().lower()).strip()
-
-
-def parse_kind(text: Any, kinds, certainties) -> tuple[str, str | None] | None:
-    """The vocabulary kind (and certainty qualifier) a kind value names, or None.
-
-    Accepts the kind alone or with a qualifier: ``contact``, ``Contact``,
-    ``contact, inferred``, ``fault (concealed)``, ``inferred contact``,
-    ``map boundary``.
-    """
-    if text is None:
-        return None
-    t = _norm(text)
-    if not t:
-        return None
-    vocab = {_norm(k): k for k in kinds}
-    quals = {_norm(c): c for c in certainties}
-    if t in vocab:
-        return vocab[t], None
-    m = re.fullmatch(r"(.+?)\s*(?:,\s*(.+)|\(\s*(.+?)\s*\))", str(text).strip().lower())
-    if m:
-        base, qual = _norm(m.group(1)), _norm(m.group(2) or m.group(3))
-        if base in vocab and qual in quals:
-            return vocab[base], quals[qual]
-    for q in sorted(quals, key=len, reverse=True):
-        if t.startswith(q + " ") and t[len(q) + 1:] in vocab:
-            return vocab[t[len(q) + 1:]], quals[q]
-    return None
-
-
-def kind_role(kind: str) -> str:
-    """What the checks make of a vocabulary kind: contact, fault, boundary or other."""
-    n = _norm(kind)
-    if "fault" in n or "thrust" in n:
-        return "fault"
-    if n == "map boundary":
-        return "boundary"
-    if "contact" in n or "unconformity" in n:
-        return "contact"
-    return "other"
-
-
-# ---------------------------------------------------------------- the line network
-
-@dataclass
-class Lines:
-    """The lines layer as the linework checks see it: features, parts and segments."""
-
-    rows: np.ndarray
-    geoms: np.ndarray
-    ids: np.ndarray
-    kind_code: np.ndarray | None  # per feature: index into kind_texts (the last one, "", for nulls)
-    kind_texts: np.ndarray | None  # distinct kind values as written
-    kind_parsed: list  # per distinct value: (kind, qualifier) or None
-    roles: np.ndarray  # per feature: contact, fault, boundary, other, unknown
-    coords: np.ndarray
-    part_off: np.ndarray
-    part_feat: np.ndarray
-    seg_c0: np.ndarray  # coordinate index of each segment's start
-    seg_part: np.ndarray
-    h: np.ndarray
-    px: np.ndarray
-    py: np.ndarray
-    qx: np.ndarray
-    qy: np.ndarray
-    seg_edge: np.ndarray | None = None
-    _tree: Any = None
-
-    @property
-    def n_parts(self) -> int:
-        return len(self.part_off) - 1
-
-    @property
-    def part_roles(self) -> np.ndarray:
-        return self.roles[self.part_feat]
-
-    @property
-    def seg_roles(self) -> np.ndarray:
-        return self.roles[self.part_feat[self.seg_part]]
-
-    @property
-    def seg_length(self) -> np.ndarray:
-        return np.hypot(self.qx - self.px, self.qy - self.py)
-
-    def part(self, p: int):
-        """Part p as a LineString."""
-        return shapely.linestrings(self.coords[self.part_off[p]:self.part_off[p + 1]])
-
-    def part_ends(self, parts: np.ndarray) -> np.ndarray:
-        """Both end coordinates of each part: shape (n, 2, 2)."""
-        return np.stack([self.coords[self.part_off[parts]], self.coords[self.part_off[parts + 1] - 1]], axis=1)
-
-    @property
-    def tree(self) -> shapely.STRtree:
-        """Spatial index of the line features (built on first use)."""
-        if self._tree is None:
-            self._tree = shapely.STRtree(self.geoms)
-        return self._tree
-
-    def role_lines(self, role: str) -> np.ndarray:
-        return self.geoms[self.roles == role]
-
-    def label(self, f: int) -> str:
-        return f"{ROLE_NAMES.get(self.roles[f], 'Line')} {self.ids[f]}"
-
-    def kind(self, f: int):
-        """(kind, qualifier) of feature f, or None."""
-        if self.kind_code is None:
-            return None
-        return self.kind_parsed[self.kind_code[f]]
-
-    def kind_text(self, f: int) -> str:
-        k = self.kind(f)
-        return "unknown kind" if k is None else k[0]
-
-    def match(self, project, ctx) -> np.ndarray:
-        """For every segment, the unit edge with exactly its endpoints, or -1."""
-        if self.seg_edge is None:
-            edges = get_edges(project, ctx)
-            self.seg_edge = edges.find(self.h, self.px, self.py, self.qx, self.qy)
-        return self.seg_edge
-
-    def edges_drawn_by(self, project, ctx, roles=None) -> np.ndarray:
-        """A mask over the unit edges: True where a line segment (of the given roles) draws the edge exactly."""
-        se = self.match(project, ctx)
-        sel = se >= 0
-        if roles is not None:
-            sel &= np.isin(self.seg_roles, roles)
-        drawn = np.zeros(len(get_edges(project, ctx)), dtype=bool)
-        drawn[se[sel]] = True
-        return drawn
-
-    def runs(self, sel: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Maximal stretches of consecutive selected segments, as LineStrings, with their part."""
-        idx = np.flatnonzero(sel)
-        if not len(idx):
-            return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
-        c0 = self.seg_c0[idx]
-        part = self.seg_part[idx]
-        brk = np.ones(len(idx), dtype=bool)
-        brk[1:] = (np.diff(c0) != 1) | (np.diff(part) != 0)
-        run = np.cumsum(brk) - 1
-        last = np.r_[brk[1:], True]
-        cidx = np.concatenate([c0, c0[last] + 1])
-        rid = np.concatenate([run, run[last]])
-        order = np.lexsort((cidx, rid))
-        geoms = shapely.linestrings(self.coords[cidx[order]], indices=rid[order])
-        return geoms, part[brk]
-
-
-def _line_geoms(layer) -> np.ndarray:
-    g = collections_as(np.array(layer.geometry, dtype=object, copy=True), linear_parts, shapely.multilinestrings)
-    g[~np.isin(shapely.get_type_id(g), (LINESTRING, MULTILINESTRING))] = None
-    g[shapely.is_empty(g)] = None
-    g[far_out(layer.geometry, layer.crs)[0]] = None  # reported by coordinates-implausible
-    return g
-
-
-def build_lines(project) -> Lines:
-    layer = project.layers["lines"]
-    cfg = project.config
-    all_geoms = _line_geoms(layer)
-    rows = np.flatnonzero(~shapely.is_missing(all_geoms))
-    geoms = all_geoms[rows]
-    ids = np.asarray(layer.ids, dtype=object)[rows]
-    values = text_values(layer, "kind_field")
-    if values is not None:
-        code, texts = values
-        code = np.where(code < 0, len(texts) - 1, code)[rows]
-        parsed = [parse_kind(t, cfg.line_kinds, cfg.certainties) for t in texts]
-        roles = np.array(["unknown" if k is None else kind_role(k[0]) for k in parsed], dtype=object)[code]
-    else:
-        code, texts, parsed = None, None, []
-        roles = np.full(len(rows), "unknown", dtype=object)
-    if len(geoms):
-        gtype, coords, offsets = shapely.to_ragged_array(geoms, include_z=False)
-        if gtype == shapely.GeometryType.LINESTRING:
-            part_off = offsets[0].astype(np.int64)
-            part_feat = np.arange(len(part_off) - 1)
-        else:
-            part_off = offsets[0].astype(np.int64)
-            part_feat = np.repeat(np.arange(len(offsets[1]) - 1), np.diff(offsets[1]))
-    else:
-        coords, part_off, part_feat = np.empty((0, 2)), np.zeros(1, dtype=np.int64), np.empty(0, dtype=np.int64)
-    # drop empty parts: they have no coordinates and no segments
-    sizes = np.diff(part_off)
-    if (sizes == 0).any():
-        keep = sizes > 0
-        part_feat = part_feat[keep]
-        part_off = np.r_[0, np.cumsum(sizes[keep])]
-    start = np.ones(len(coords), dtype=bool)
-    start[part_off[1:] - 1] = False
-    c0 = np.flatnonzero(start)
-    seg_part = np.repeat(np.arange(len(part_off) - 1), np.maximum(np.diff(part_off) - 1, 0))
-    x, y = coords[:, 0], coords[:, 1]
-    nonzero = (x[c0] != x[c0 + 1]) | (y[c0] != y[c0 + 1])
-    c0, seg_part = c0[nonzero], seg_part[nonzero]
-    px, py, qx, qy, _ = canonical(x[c0], y[c0], x[c0 + 1], y[c0 + 1])
-    h = coord_hash(px, py, qx, qy)
-    return Lines(rows, geoms, ids, code, texts, parsed, roles, coords, part_off, part_feat, c0, seg_part, h, px, py, qx, qy)
-
-
-def get_lines(project, ctx) -> Lines:
-    return ctx.shared("linework.lines", lambda: build_lines(project))
-
-
-# ---------------------------------------------------------------- geometry within the tolerance
-
-def _near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
-    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
-    out = np.full(len(targets), None, dtype=object)
-    if not len(ti):
-        return out
-    b = shapely.bounds(targets[ti])
-    pad = 2.0 * tol + 1e-9
-    boxes = shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad)
-    clipped = shapely.intersection(refs, boxes)
-    parts, k = shapely.get_parts(clipped, return_index=True)
-    keep = ~shapely.is_empty(parts)
-    parts, k = parts[keep], ti[k[keep]]
-    if not len(parts):
-        return out
-    order = np.argsort(k, kind="stable")
-    shapely.geometrycollections(parts[order], indices=k[order], out=out)
-    have = ~shapely.is_missing(out)
-    # with a zero tolerance, "on" means within floating-point noise of the reference
-    dist = tol if tol > 0 else 1e-9 * max(float(np.abs(b).max()), 1.0)
-    out[have] = shapely.buffer(out[have], dist)
-    return out
-
-
-def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None) -> np.ndarray:
-    """The part of each target line farther than ``tol`` from every reference line."""
-    targets = np.asarray(targets, dtype=object)
-    if not len(targets) or not len(refs):
-        return targets.copy()
-    tree = tree if tree is not None else shapely.STRtree(refs)
-    ti, ri = tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
-    buf = _near_buffers(targets, ti, refs[ri], tol)
-    out = targets.copy()
-    have = ~shapely.is_missing(buf)
-    out[have] = shapely.difference(targets[have], buf[have])
-    return out
-
-
-def off_unit_boundaries(targets: np.ndarray, units, tol: float) -> np.ndarray:
-    """The part of each target line farther than ``tol`` from every unit polygon boundary."""
-    if not len(targets) or not len(units):
-        return np.asarray(targets, dtype=object).copy()
-    ti, ui = units.tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
-    buf = _near_buffers(targets, ti, shapely.boundary(units.geoms[ui]), tol)
-    out = np.asarray(targets, dtype=object).copy()
-    have = ~shapely.is_missing(buf)
-    out[have] = shapely.difference(targets[have], buf[have])
-    return out
-
-
-def connected_pieces(pieces: np.ndarray, groups: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Join the pieces of each group that touch (a stretch split where the line crosses itself)."""
-    out, out_groups = [], []
-    for g in np.unique(groups):
-        mine = list(pieces[groups == g])
-        while mine:
-            cluster = [mine.pop()]
-            grown = True
-            while grown:
-                grown = False
-                for other in list(mine):
-                    if any(shapely.intersects(other, c) for c in cluster):
-                        cluster.append(other)
-                        mine.remove(other)
-                        grown = True
-            out.append(cluster[0] if len(cluster) == 1 else shapely.line_merge(shapely.multilinestrings(cluster)))
-            out_groups.append(g)
-    return np.array(out, dtype=object), np.array(out_groups, dtype=np.int64)
-
-
-def unit_at(points: np.ndarray, units) -> np.ndarray:
-    """Index of the unit polygon each point lies inside, or -1."""
-    out = np.full(len(points), -1, dtype=np.int64)
-    if len(points) and len(units):
-        pi, ui = units.tree.query(points, predicate="within")
-        out[pi] = ui
-    return out
+if TYPE_CHECKING:
+    from ..analysis.context import CheckContext
+    from ..project import MapProject
 
 
 # ---------------------------------------------------------------- rules
 
 @rule("line-off-boundary", family="linework", severity="error", needs=("lines", "units"))
-def line_off_boundary(project, ctx):
+def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact, or a stretch of one, does not lie on a unit polygon boundary.
 
     Catches
@@ -390,17 +100,16 @@ def line_off_boundary(project, ctx):
     tolerance is 1 m: "Contact 1 runs 100.00 m off the unit boundaries,
     inside unit 2 (B)."
     """
-    net = get_lines(project, ctx)
-    units = get_units(project, ctx)
-    cov = get_coverage(project, ctx)
-    edges = get_edges(project, ctx)
+    net = ctx.line_network()
+    units = ctx.units()
+    cov = ctx.coverage()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
-    se = net.match(project, ctx)
+    se = ctx.segment_edges()
     roles = net.seg_roles
     on = se >= 0
     on_outline = on.copy()
-    on_outline[on] = edges.outline[se[on]]
+    on_outline[on] = cov.outline[se[on]]
     sel_poly = ~on & np.isin(roles, ("contact", "fault"))
     sel_edge = ~on_outline & (roles == "boundary")
     found = []
@@ -436,7 +145,7 @@ def line_off_boundary(project, ctx):
 
 
 @rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"))
-def boundary_without_line(project, ctx):
+def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A stretch of boundary between two units, or along the map edge, that no line draws.
 
     Catches
@@ -464,17 +173,17 @@ def boundary_without_line(project, ctx):
     Two units side by side with no line between them: "No line draws
     100.00 m of the boundary between units 1 (A) and 2 (B)."
     """
-    net = get_lines(project, ctx)
-    units = get_units(project, ctx)
-    edges = get_edges(project, ctx)
-    get_coverage(project, ctx)
+    net = ctx.line_network()
+    units = ctx.units()
+    edges = ctx.edges()
+    outline = ctx.coverage().outline
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
     twin = edges.twin.copy()
     if units.codes is not None and len(units):
         cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
         twin &= ~((cl == cr) & (cl != ""))
-    consider = (twin | edges.outline) & ~net.edges_drawn_by(project, ctx)
+    consider = (twin | outline) & ~ctx.edges_drawn()
     idx = np.flatnonzero(consider)
     if not len(idx):
         return
@@ -491,20 +200,20 @@ def boundary_without_line(project, ctx):
         length = float(shapely.length(piece) * m)
         if ub >= 0:
             text = f"No line draws {num(length)} m of the boundary between units {units.labels([ua, ub])}."
-            feats = (units.ids[ua], units.ids[ub])
+            feats: tuple[str, ...] = (units.ids[ua], units.ids[ub])
         else:
             text = f"No line draws {num(length)} m of the map edge along unit {units.label(ua)}."
             feats = (units.ids[ua],)
         yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
 
 
-def _endpoints(net: Lines, parts: np.ndarray):
+def _endpoints(net: LineNetwork, parts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Coordinate indices of the two ends of each part (start, end)."""
     return net.part_off[parts], net.part_off[parts + 1] - 1
 
 
 @rule("line-dangle", family="linework", severity="error", needs=("lines",))
-def line_dangle(project, ctx):
+def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact or map-boundary line ends without touching another line.
 
     Catches
@@ -537,7 +246,7 @@ def line_dangle(project, ctx):
     A contact that runs 5 m past the map boundary it should end on: "Contact
     1 ends free 5.00 m past the line it crosses (line 2)."
     """
-    net = get_lines(project, ctx)
+    net = ctx.line_network()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
     sel_parts = np.flatnonzero(np.isin(net.part_roles, ("contact", "boundary")) & (np.diff(net.part_off) >= 2))
@@ -572,7 +281,7 @@ def line_dangle(project, ctx):
     connected[pi[fj != end_feat[pi]]] = True
     edge = None
     if "units" in project.layers:
-        cov = get_coverage(project, ctx)
+        cov = ctx.coverage()
         if cov.extent is not None:
             edge = cov.extent_boundary
             connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
@@ -590,7 +299,7 @@ def line_dangle(project, ctx):
         yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, m)
 
 
-def _dangle_hit(net: Lines, f: int, part, pt, at_start: bool, edge, tol: float, m: float) -> Hit:
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, m: float) -> Hit:
     """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
     nearest, gap, name = None, np.inf, None
     xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
@@ -628,7 +337,7 @@ def _dangle_hit(net: Lines, f: int, part, pt, at_start: bool, edge, tol: float, 
 
 
 @rule("line-same-unit-contact", family="linework", severity="warning", needs=("lines", "units"))
-def line_same_unit_contact(project, ctx):
+def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact has the same unit on both sides.
 
     Catches
@@ -657,15 +366,15 @@ def line_same_unit_contact(project, ctx):
     A contact between two polygons both coded `A`: "Contact 1 has unit A on
     both sides over 100.00 m (units 1 and 2)."
     """
-    net = get_lines(project, ctx)
-    units = get_units(project, ctx)
+    net = ctx.line_network()
+    units = ctx.units()
     if units.codes is None or not len(units):
         return
-    edges = get_edges(project, ctx)
+    edges = ctx.edges()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
     codes = units.codes
-    se = net.match(project, ctx)
+    se = ctx.segment_edges()
     contact = net.seg_roles == "contact"
     left = np.full(len(se), -1, dtype=np.int64)
     right = np.full(len(se), -1, dtype=np.int64)
@@ -708,13 +417,13 @@ def line_same_unit_contact(project, ctx):
         )
 
 
-def join_ids(units, polys) -> str:
+def join_ids(units: Units, polys: list[int]) -> str:
     ids = [str(units.ids[u]) for u in polys]
     return ", ".join(ids[:-1]) + " and " + ids[-1] if len(ids) > 1 else "".join(ids)
 
 
 @rule("line-self-intersection", family="linework", severity="error", needs=("lines",))
-def line_self_intersection(project, ctx):
+def line_self_intersection(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A line crosses, touches or doubles back on itself.
 
     Catches
@@ -742,7 +451,7 @@ def line_self_intersection(project, ctx):
     A contact drawn (0 0, 10 0, 10 10, 5 -5): "Contact 1 crosses itself at 1
     point; the smallest loop it closes is 31.81 m long."
     """
-    net = get_lines(project, ctx)
+    net = ctx.line_network()
     m = metres_per_unit(project)
     if not len(net.geoms):
         return
@@ -752,7 +461,7 @@ def line_self_intersection(project, ctx):
         g = net.geoms[f]
         noded = shapely.node(g)
         pieces = shapely.get_parts(noded)
-        ends = Counter()
+        ends: Counter[tuple[float, ...]] = Counter()
         for piece in pieces:
             xy = shapely.get_coordinates(piece)
             ends[tuple(xy[0])] += 1
@@ -783,7 +492,7 @@ def line_self_intersection(project, ctx):
 
 
 @rule("line-duplicate", family="linework", severity="error", needs=("lines",))
-def line_duplicate(project, ctx):
+def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two lines share length: one trace drawn twice.
 
     Catches
@@ -813,7 +522,7 @@ def line_duplicate(project, ctx):
     A fault digitised over a contact along 100 m: "Lines 1 (contact) and 3
     (fault) share 100.00 m."
     """
-    net = get_lines(project, ctx)
+    net = ctx.line_network()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
     nseg = len(net.h)
@@ -821,7 +530,7 @@ def line_duplicate(project, ctx):
         return
     # exact: segments with identical endpoints in two features
     if "units" in project.layers:
-        se = net.match(project, ctx)
+        se = ctx.segment_edges()
         matched = se >= 0
         key = np.where(matched, se, -1)
     else:
@@ -851,8 +560,8 @@ def line_duplicate(project, ctx):
             for j in range(i + 1, len(feats)):
                 shared.setdefault((feats[i], feats[j]), []).append(seg)
     found: dict[tuple[int, int], tuple[Any, float]] = {}
-    for pair, segs in shared.items():
-        segs = np.array(segs)
+    for pair, seg_list in shared.items():
+        segs = np.array(seg_list)
         length = float(net.seg_length[segs].sum())
         geom = shapely.line_merge(shapely.multilinestrings(segment_lines(net.px[segs], net.py[segs], net.qx[segs], net.qy[segs])))
         found[pair] = (geom, length)
@@ -867,7 +576,7 @@ def line_duplicate(project, ctx):
             # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
             # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
             if "units" in project.layers:
-                close = shapely.length(off_unit_boundaries(runs, get_units(project, ctx), tol)) < shapely.length(runs) * (1 - 1e-12)
+                close = shapely.length(off_unit_boundaries(runs, ctx.units(), tol)) < shapely.length(runs) * (1 - 1e-12)
             else:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
@@ -909,7 +618,7 @@ def _near_shared(runs: np.ndarray, others: np.ndarray, own_ends: np.ndarray, tol
 
 
 @rule("line-kind-unknown", family="linework", severity="error", needs=("lines",))
-def line_kind_unknown(project, ctx):
+def line_kind_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A line's kind (or certainty) is not in the vocabulary.
 
     Catches
@@ -941,10 +650,10 @@ def line_kind_unknown(project, ctx):
     in the vocabulary (contact, fault, map-boundary)."
     """
     layer = project.layers["lines"]
-    net = get_lines(project, ctx)
+    net = ctx.line_network()
     cfg = project.config
     vocab = ", ".join(cfg.line_kinds)
-    if net.kind_code is not None:
+    if net.kind_code is not None and net.kind_texts is not None:
         unknown = np.array([k is None for k in net.kind_parsed], dtype=bool)
         for f in np.flatnonzero(unknown[net.kind_code]):
             raw = net.kind_texts[net.kind_code[f]]
@@ -956,8 +665,8 @@ def line_kind_unknown(project, ctx):
     values = text_values(layer, "certainty_field")
     if values is not None:
         code, texts = values
-        known = {_norm(c) for c in cfg.certainties}
-        bad = np.array([bool(t.strip()) and _norm(t) not in known for t in texts], dtype=bool)
+        known = {norm_kind(c) for c in cfg.certainties}
+        bad = np.array([bool(t.strip()) and norm_kind(t) not in known for t in texts], dtype=bool)
         code = np.where(code < 0, len(texts) - 1, code)[net.rows]
         for f in np.flatnonzero(bad[code]):
             yield Hit(

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import difflib
 import re
+from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import pandas as pd
@@ -28,6 +29,10 @@ import shapely
 
 from ..model import Hit
 from ..registry import rule
+
+if TYPE_CHECKING:
+    from ..analysis.context import CheckContext
+    from ..project import Layer, MapProject
 
 LINEAR_KINDS = ("lineation", "fold axis")
 CONVENTIONS = {
@@ -37,19 +42,19 @@ CONVENTIONS = {
 _QUADRANT = re.compile(r"^[NS]\s*\d{1,2}(?:\.\d+)?\s*[EW]$", re.IGNORECASE)
 
 
-def _fold(text: str) -> str:
+def _fold(text: Any) -> str:
     """A kind compared loosely: case, and spaces/underscores/hyphens between words."""
     return " ".join(re.split(r"[\s_\-]+", str(text).strip().casefold()))
 
 
-def _fold_all(values) -> np.ndarray:
+def _fold_all(values: Any) -> np.ndarray:
     """:func:`_fold` of a whole column in vectorised string operations."""
     s = pd.Series(np.asarray(values, dtype=object), dtype=object).fillna("").astype(str)
     s = s.str.strip().str.casefold().str.replace(r"[\s_\-]+", " ", regex=True).str.strip()
     return s.to_numpy(dtype=object)
 
 
-def convention_statement(project) -> str | None:
+def convention_statement(project: MapProject) -> str | None:
     """One sentence for package metadata: the convention of the structures layer, with trend/plunge for lines.
 
     Examples
@@ -70,7 +75,7 @@ def convention_statement(project) -> str | None:
     )
 
 
-def _numbers(layer, key):
+def _numbers(layer: Layer, key: str) -> tuple[str | None, Any, Any]:
     col = layer.field(key)
     if col is None:
         return None, None, None
@@ -81,7 +86,7 @@ def _numbers(layer, key):
 
 
 @rule("structure-out-of-range", family="structures", severity="error", needs=("structures",))
-def structure_out_of_range(project, ctx):
+def structure_out_of_range(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An azimuth is outside 0-360 or a dip outside 0-90 degrees, or one is not a number.
 
     Catches
@@ -111,7 +116,8 @@ def structure_out_of_range(project, ctx):
     """
     layer = project.layers["structures"]
     kind_col = layer.field("kind_field")
-    kinds = layer.text("kind_field") if kind_col else np.full(len(layer.frame), "", dtype=object)
+    text = layer.text("kind_field") if kind_col else None
+    kinds = text if text is not None else np.full(len(layer.frame), "", dtype=object)
     linear = np.isin(_fold_all(kinds), LINEAR_KINDS)
     geoms = layer.geometry
     problems: dict[int, list[str]] = {}
@@ -137,12 +143,12 @@ def structure_out_of_range(project, ctx):
             else:
                 why = f"{word} {values[i]:g} is outside {lo:g}-{hi:g}"
             problems.setdefault(int(i), []).append(why)
-    for i in sorted(problems):
-        fid = layer.ids[i]
-        kind = f" ({kinds[i]})" if kinds[i] else ""
-        g = geoms[i]
+    for row in sorted(problems):
+        fid = layer.ids[row]
+        kind = f" ({kinds[row]})" if kinds[row] else ""
+        g = geoms[row]
         yield Hit(
-            f"structures feature {fid}{kind}: {'; '.join(problems[i])}.",
+            f"structures feature {fid}{kind}: {'; '.join(problems[row])}.",
             layer="structures",
             features=(fid,),
             geometry=g if g is not None and not g.is_empty else None,
@@ -150,7 +156,7 @@ def structure_out_of_range(project, ctx):
 
 
 @rule("structure-kind-unknown", family="structures", severity="warning", needs=("structures",))
-def structure_kind_unknown(project, ctx):
+def structure_kind_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A structural measurement's kind is not in the vocabulary.
 
     Catches

@@ -1,0 +1,179 @@
+"""Whole-array helpers: coordinate hashing, grouping equal rows, parts of geometries, widths.
+
+Everything here works on numpy arrays of coordinates or of shapely
+geometries at once; nothing loops over features in Python.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Callable
+
+import numpy as np
+import pandas as pd
+import shapely
+
+from ..readers import as_text
+
+if TYPE_CHECKING:
+    from ..project import Layer
+
+POLYGON = shapely.GeometryType.POLYGON.value
+MULTIPOLYGON = shapely.GeometryType.MULTIPOLYGON.value
+LINESTRING = shapely.GeometryType.LINESTRING.value
+MULTILINESTRING = shapely.GeometryType.MULTILINESTRING.value
+COLLECTION = shapely.GeometryType.GEOMETRYCOLLECTION.value
+
+_SEEDS = [np.uint64(s) for s in (0x9E3779B97F4A7C15, 0xC2B2AE3D27D4EB4F, 0x165667B19E3779F9, 0x27D4EB2F165667C5)]
+_M1 = np.uint64(0xFF51AFD7ED558CCD)
+_M2 = np.uint64(0xC4CEB9FE1A85EC53)
+_S33 = np.uint64(33)
+
+
+def _fmix(h: np.ndarray) -> np.ndarray:
+    h ^= h >> _S33
+    h *= _M1
+    h ^= h >> _S33
+    h *= _M2
+    h ^= h >> _S33
+    return h
+
+
+def coord_hash(*columns: np.ndarray) -> np.ndarray:
+    """A 64-bit hash of rows of float coordinates (exact bit patterns; -0.0 counts as 0.0).
+
+    Equal rows always hash equal; different rows collide with probability
+    about 2^-64, and a collision only sends a segment down the slower exact
+    path, never to a wrong result.
+    """
+    n = len(columns[0])
+    h = np.zeros(n, dtype=np.uint64)
+    for k, col in enumerate(columns):
+        bits = (np.asarray(col, dtype=np.float64) + 0.0).view(np.uint64)
+        h ^= bits
+        h ^= _SEEDS[k % 4]
+        h = _fmix(h)
+    return h
+
+
+def canonical(
+    x0: np.ndarray, y0: np.ndarray, x1: np.ndarray, y1: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Undirected segment keys: endpoints in (x, y) order, and whether the segment ran that way."""
+    fwd = (x0 < x1) | ((x0 == x1) & (y0 <= y1))
+    px = np.where(fwd, x0, x1)
+    py = np.where(fwd, y0, y1)
+    qx = np.where(fwd, x1, x0)
+    qy = np.where(fwd, y1, y0)
+    return px, py, qx, qy, fwd
+
+
+def group_sorted(h: np.ndarray, *cols: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Sort rows by hash and split them into groups of identical rows.
+
+    Returns (order, group id of each sorted row, start of each group).
+    """
+    order = np.argsort(h)
+    n = len(order)
+    new = np.ones(n, dtype=bool)
+    if n > 1:
+        hs = h[order]
+        same = hs[1:] == hs[:-1]
+        for c in cols:
+            cs = c[order]
+            same &= cs[1:] == cs[:-1]
+        new[1:] = ~same
+    gid = np.cumsum(new) - 1
+    starts = np.flatnonzero(new)
+    return order, gid, starts
+
+
+def segment_lines(x0: np.ndarray, y0: np.ndarray, x1: np.ndarray, y1: np.ndarray) -> np.ndarray:
+    """Two-point LineStrings from segment coordinate arrays."""
+    pts = np.empty((len(x0), 2, 2))
+    pts[:, 0, 0], pts[:, 0, 1], pts[:, 1, 0], pts[:, 1, 1] = x0, y0, x1, y1
+    return shapely.linestrings(pts) if len(x0) else np.empty(0, dtype=object)
+
+
+def merge_by_group(lines: np.ndarray, groups: np.ndarray, n_groups: int) -> np.ndarray:
+    """One merged (Multi)LineString per group from line pieces labelled by group."""
+    out = np.full(n_groups, None, dtype=object)
+    if len(lines) == 0:
+        return out
+    order = np.argsort(groups, kind="stable")
+    shapely.multilinestrings(lines[order], indices=groups[order], out=out)
+    have = ~shapely.is_missing(out)
+    out[have] = shapely.line_merge(out[have])
+    return out
+
+
+def _parts_of_type(
+    geoms: np.ndarray, single: int, multi: int, measure: Callable[[np.ndarray], np.ndarray], minimum: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Parts of type ``single`` whose ``measure`` exceeds ``minimum``: (parts, index of the source geometry).
+
+    Overlay results can nest a multi-geometry inside a collection; those are opened too.
+    """
+    if len(geoms) == 0:
+        return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
+    parts, idx = shapely.get_parts(geoms, return_index=True)
+    nested = shapely.get_type_id(parts) == multi
+    if nested.any():
+        sub, k = shapely.get_parts(parts[nested], return_index=True)
+        parts = np.concatenate([parts[~nested], sub])
+        idx = np.concatenate([idx[~nested], idx[nested][k]])
+    keep = (shapely.get_type_id(parts) == single) & (measure(parts) > minimum)
+    return parts[keep], idx[keep]
+
+
+def polygonal_parts(geoms: np.ndarray, min_area: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """Polygon parts with area above ``min_area`` of each geometry: (parts, index of the source geometry)."""
+    return _parts_of_type(geoms, POLYGON, MULTIPOLYGON, shapely.area, min_area)
+
+
+def linear_parts(geoms: np.ndarray, min_length: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """LineString parts longer than ``min_length``: (parts, index of the source geometry)."""
+    return _parts_of_type(geoms, LINESTRING, MULTILINESTRING, shapely.length, min_length)
+
+
+def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
+    """Width of each polygon: the diameter of its largest inscribed circle (GEOS), to about tol/20."""
+    if len(pieces) == 0:
+        return np.empty(0)
+    size = np.sqrt(shapely.area(pieces))
+    precision = np.maximum(tol / 20.0, size * 1e-6) if tol > 0 else np.maximum(size * 1e-4, 1e-9)
+    return 2.0 * shapely.length(shapely.maximum_inscribed_circle(pieces, precision))
+
+
+def collections_as(
+    g: np.ndarray,
+    parts_of: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]],
+    build: Callable[..., np.ndarray],
+) -> np.ndarray:
+    """Replace, in place, each GeometryCollection of ``g`` by one multi-geometry of its parts.
+
+    ``parts_of`` is :func:`polygonal_parts` or :func:`linear_parts`, ``build``
+    the matching shapely constructor (``multipolygons``, ``multilinestrings``);
+    a collection without such parts becomes None.
+    """
+    coll = np.flatnonzero(shapely.get_type_id(g) == COLLECTION)
+    if len(coll):
+        parts, k = parts_of(g[coll])
+        out = np.full(len(coll), None, dtype=object)
+        if len(parts):
+            build(parts, indices=k, out=out)
+        g[coll] = out
+    return g
+
+
+def text_values(layer: Layer, key: str) -> tuple[np.ndarray, np.ndarray] | None:
+    """The column named by manifest key ``key`` as (codes, distinct texts), texts[-1] being "" for nulls.
+
+    Same text as ``Layer.text`` (identifiers stay text), but converted once per
+    distinct value instead of once per feature.
+    """
+    name = layer.field(key)
+    if name is None:
+        return None
+    codes, uniques = pd.factorize(layer.frame[name], use_na_sentinel=True)
+    texts = np.array([as_text(u) for u in uniques] + [""], dtype=object)
+    return codes, texts

@@ -1,0 +1,435 @@
+"""The coverage analysis: gaps, overlaps, misfits and the map extent of the unit polygons.
+
+How it scales
+-------------
+Only the polygons carrying a trace in the half-edge table (a half-edge
+without its twin; on a clean map, those along the map edge) and their
+neighbours go on to GEOS's own coverage validation
+(``shapely.coverage_invalid_edges``). When GEOS finds nothing there and no
+segment is drawn twice on one side, no two polygons can overlap; otherwise
+every pair of intersecting polygons in that region whose interiors meet is
+intersected exactly (GEOS alone can miss a polygon whose edge inside another
+one is matched exactly by a third). Gaps come from the map extent minus the
+union of the units. On a valid coverage the union is read off the table (the
+faces enclosed by the edges drawn once, covered when the units lie on their
+left); otherwise it is GEOS's coverage union of the polygons with no defect
+plus a plain union of the rest.
+
+A region covered twice or not at all is bounded by half-edges without a twin:
+crossing a twinned edge leaves one polygon and enters another, so the number of
+polygons over a point only changes across untwinned edges. Every overlap, gap
+or misfit therefore touches a polygon the table flags, which is why the
+narrowing-down loses nothing.
+
+When GEOS stops
+---------------
+A GEOS failure on some polygons (see :mod:`.guard`) is recorded as a
+:class:`~.guard.Failure` naming them, and the analysis goes on with the rest
+of the map; the rules report each failure on the polygons concerned.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import shapely
+from shapely.errors import GEOSException
+
+from ..farcoords import far_out
+from .arrays import (
+    canonical,
+    coord_hash,
+    linear_parts,
+    polygonal_parts,
+    segment_lines,
+    widths,
+)
+from .guard import Failure, by_cluster, elementwise, reason_of
+from .halfedges import Edges
+from .messages import ABOVE
+from .polygons import Units, polygonal
+
+if TYPE_CHECKING:
+    from ..project import MapProject
+
+OVERLAPS, MISFITS, GAPS, OUTSIDE = "overlaps", "misfits", "gaps", "outside"
+
+
+@dataclass(frozen=True)
+class Piece:
+    """A gap, an overlap or an outside part: where, how big, which polygons."""
+
+    geom: Any
+    area: float
+    width: float
+    units: tuple[int, ...]
+    at_extent: bool = False
+
+
+@dataclass(frozen=True)
+class Coverage:
+    """What the coverage analysis found, for the topology and linework rules.
+
+    ``overlaps``, ``gaps`` and ``outside`` are every piece found, of any width
+    (the rules decide what the tolerance lets pass); ``collinear`` are pairs
+    of polygons whose edges run together exactly but with different vertices;
+    ``outline`` marks the edges of the half-edge table drawn once and lying on
+    the map's outer edge; ``failures`` are the parts GEOS could not process.
+    """
+
+    tol: float
+    extent: Any  # polygonal, or None when there is neither an extent layer nor a unit
+    extent_declared: bool
+    extent_note: str
+    union: Any
+    implicated: np.ndarray
+    overlaps: tuple[Piece, ...]
+    gaps: tuple[Piece, ...]
+    outside: tuple[Piece, ...]
+    collinear: tuple[tuple[tuple[int, int], Any, float], ...]
+    outline: np.ndarray
+    failures: tuple[Failure, ...] = ()
+
+    @property
+    def extent_boundary(self) -> Any:
+        return shapely.boundary(self.extent) if self.extent is not None else None
+
+    def failures_of(self, aspect: str) -> tuple[Failure, ...]:
+        """The failures that leave ``aspect`` (overlaps, misfits, gaps, outside) incomplete."""
+        return tuple(f for f in self.failures if aspect in f.aspects)
+
+
+def extent_of(project: MapProject, union: Any) -> tuple[Any, bool]:
+    """The map extent: the extent layer when it has area, else the outer boundary of the units."""
+    layer = project.layers.get("extent")
+    if layer is not None:
+        geoms = polygonal(layer.geometry, layer.valid)
+        geoms = geoms[~shapely.is_missing(geoms) & ~far_out(layer.geometry, layer.crs)[0]]
+        if len(geoms):
+            return shapely.union_all(geoms), True
+    if union is None or shapely.is_empty(union):
+        return None, False
+    # everything the units' boundaries enclose, including holes closed by
+    # polygons that only touch at points
+    rings = shapely.union_all(shapely.boundary(shapely.get_parts(union)))
+    faces = shapely.get_parts(shapely.polygonize(shapely.get_parts(rings)))
+    return shapely.union_all(np.concatenate([faces, [union]])), False
+
+
+def extent_note(project: MapProject, declared: bool) -> str:
+    """The report note saying what the map extent is."""
+    if declared:
+        return f"Map extent: the extent layer ({project.layers['extent'].source})."
+    if "extent" in project.layers:
+        return "Map extent: the extent layer has no polygon, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."
+    return "Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."
+
+
+def union_from_edges(edges: Edges, geoms: np.ndarray) -> Any:
+    """The union of a valid coverage, from its outer edges alone.
+
+    In a valid coverage the boundary of the union is made of the edges drawn
+    once; polygonizing them gives every face they enclose, and a face is
+    covered by units exactly when the units lie on the left of the half-edges
+    along its counter-clockwise outer ring (read from the half-edge table, no
+    point-in-polygon test needed, so thin faces are classified as surely as
+    wide ones). Equal to GEOS's coverage union, at the cost of the outline.
+    """
+    single = np.flatnonzero(edges.count == 1)
+    if not len(single):
+        return shapely.coverage_union_all(geoms)
+    faces = shapely.get_parts(shapely.polygonize(edges.lines(single)))
+    if not len(faces):
+        return shapely.coverage_union_all(geoms)
+    ring = shapely.get_exterior_ring(shapely.orient_polygons(faces, exterior_cw=False))
+    a = shapely.get_coordinates(shapely.get_point(ring, 0))
+    b = shapely.get_coordinates(shapely.get_point(ring, 1))
+    px, py, qx, qy, fwd = canonical(a[:, 0], a[:, 1], b[:, 0], b[:, 1])
+    e = edges.find(coord_hash(px, py, qx, qy), px, py, qx, qy)
+    if (e < 0).any():  # a face ring not made of the input segments: let GEOS do it
+        return shapely.coverage_union_all(geoms)
+    covered = np.where(fwd, edges.left[e] >= 0, edges.right[e] >= 0)
+    return shapely.multipolygons(faces[covered]) if covered.any() else shapely.Polygon()
+
+
+def _scale_of(geom: Any) -> float:
+    x0, y0, x1, y1 = shapely.bounds(geom)
+    return max(abs(x0), abs(y0), abs(x1), abs(y1), 1.0)
+
+
+def _pair_failures(a: np.ndarray, b: np.ndarray, failed: np.ndarray, reasons: list[str], doing: str,
+                   aspects: frozenset[str]) -> list[Failure]:
+    """One failure per pair of polygons GEOS could not process."""
+    return [
+        Failure((int(p), int(q)), doing, aspects, why)
+        for p, q, why in zip(a[failed], b[failed], reasons)
+    ]
+
+
+def outline_of(edges: Edges, extent: Any, tol: float) -> np.ndarray:
+    """A mask over the edges: drawn once and lying (within ``tol``) on the boundary of ``extent``."""
+    single = np.flatnonzero(edges.count == 1)
+    outline = np.zeros(len(edges), dtype=bool)
+    if len(single) and extent is not None:
+        _, xy, off = shapely.to_ragged_array(shapely.get_parts(shapely.boundary(extent)), include_z=False)
+        ends = np.ones(len(xy), dtype=bool)
+        ends[off[0][1:] - 1] = False
+        k = np.flatnonzero(ends)
+        border = shapely.STRtree(segment_lines(xy[k, 0], xy[k, 1], xy[k + 1, 0], xy[k + 1, 1]))
+        near = max(tol, 0.0) + 1e-9 * _scale_of(extent)
+        on = np.ones(len(single), dtype=bool)
+        for t in (0.0, 0.25, 0.5, 0.75, 1.0):  # along the segment: both ends and three points between
+            x = edges.px[single] + t * (edges.qx[single] - edges.px[single])
+            y = edges.py[single] + t * (edges.qy[single] - edges.py[single])
+            hit = np.zeros(len(single), dtype=bool)
+            hit[border.query(shapely.points(x, y), predicate="dwithin", distance=near)[0]] = True
+            on &= hit
+        outline[single] = on
+    return outline
+
+
+def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float) -> Coverage:
+    """Overlaps, gaps, outside parts and misaligned edges of the unit polygons, and the map extent."""
+    geoms = units.geoms
+    tree = units.tree
+    failures: list[Failure] = []
+    # 1. polygons that may be part of a defect: those with an untwinned half-edge and their neighbours
+    region = edges.suspects
+    if len(region):
+        _, nb = tree.query(geoms[region], predicate="intersects")
+        region = np.union1d(region, nb)
+    # 2. GEOS's own validation, on that region only (cluster by cluster if GEOS stops)
+    implicated = np.zeros(0, dtype=np.int64)
+    invalid: dict[int, Any] = {}
+    unchecked = np.zeros(0, dtype=np.int64)
+
+    def region_pairs() -> tuple[np.ndarray, np.ndarray]:
+        """Pairs (a < b) of intersecting polygons of the region."""
+        a, b = tree.query(geoms[region], predicate="intersects")
+        a = region[a]
+        keep = (a < b) & np.isin(b, region)
+        return a[keep], b[keep]
+
+    def local_pairs() -> tuple[np.ndarray, np.ndarray]:
+        a, b = region_pairs()
+        return np.searchsorted(region, a), np.searchsorted(region, b)
+
+    if len(region):
+        inv, lost_clusters = by_cluster(shapely.coverage_invalid_edges, geoms[region], local_pairs)
+        for members, why in lost_clusters:
+            # their overlaps are still found: every intersecting pair of the region is intersected below
+            failures.append(Failure(tuple(int(u) for u in region[members]), "validating them as a coverage",
+                                    frozenset((MISFITS,)), why))
+            unchecked = np.union1d(unchecked, region[members])
+        bad = ~shapely.is_missing(inv) & ~shapely.is_empty(inv)
+        implicated = region[bad]
+        invalid = dict(zip(implicated.tolist(), inv[bad]))
+    # 3. overlaps. When GEOS finds nothing invalid and no segment is drawn twice on one side,
+    # the polygons cannot overlap. Otherwise every pair of intersecting polygons of the region
+    # whose interiors meet (DE-9IM T********) is intersected: GEOS alone can miss a polygon
+    # whose edge inside another one is matched exactly by a third.
+    irregular = (edges.count >= 3) | ((edges.count == 2) & ~edges.twin)
+    pieces: list[Piece] = []
+    pair_pieces: dict[tuple[int, int], list[Any]] = {}
+    if len(implicated) or irregular.any() or len(unchecked):
+        a, b = region_pairs()
+        # the union below takes these polygons whole, so gaps are still found around them
+        doing, aspects = "intersecting them", frozenset((OVERLAPS, MISFITS))
+        inner, failed, reasons = elementwise(lambda x, y: shapely.relate_pattern(x, y, "T********"), geoms[a], geoms[b], fill=False)
+        failures += _pair_failures(a, b, failed, reasons, doing, aspects)
+        unchecked = np.union1d(unchecked, np.r_[a[failed], b[failed]])
+        inner = inner.astype(bool)
+        a, b = a[inner], b[inner]
+        if len(a):
+            overlay, failed, reasons = elementwise(shapely.intersection, geoms[a], geoms[b])
+            failures += _pair_failures(a, b, failed, reasons, doing, aspects)
+            unchecked = np.union1d(unchecked, np.r_[a[failed], b[failed]])
+            a, b, overlay = a[~failed], b[~failed], overlay[~failed]
+            parts, k = polygonal_parts(overlay)
+            w, failed, reasons = elementwise(lambda p: widths(p, tol), parts, fill=np.nan)
+            failures += _pair_failures(a[k], b[k], failed, reasons, "measuring their overlap", frozenset((OVERLAPS, MISFITS)))
+            for part, kk, ww, lost in zip(parts, k, w.astype(float), failed):
+                if lost:
+                    continue
+                pair = (int(a[kk]), int(b[kk]))
+                pieces.append(Piece(part, float(shapely.area(part)), float(ww), pair))
+                pair_pieces.setdefault(pair, []).append(part)
+    # 4. the union of the units: GEOS coverage union on the part with no defect, plain union for the rest
+    involved = np.union1d(implicated, np.array([u for pair in pair_pieces for u in pair], dtype=np.int64))
+    involved = np.union1d(involved, unchecked).astype(np.int64)
+    union: Any = None
+    try:
+        if len(geoms) == 0:
+            union = shapely.Polygon()
+        elif len(involved) == 0:
+            union = union_from_edges(edges, geoms)
+        else:
+            rest = np.ones(len(geoms), dtype=bool)
+            rest[involved] = False
+            union = shapely.union_all(np.concatenate([[shapely.coverage_union_all(geoms[rest])], geoms[involved]]))
+    except GEOSException as exc:
+        failures.append(Failure(tuple(int(u) for u in involved), "joining them into one area",
+                                frozenset((GAPS, OUTSIDE)), reason_of(exc)))
+    try:
+        extent, declared = extent_of(project, union)
+    except GEOSException as exc:
+        failures.append(Failure((), "reading the map extent", frozenset((GAPS, OUTSIDE)), reason_of(exc)))
+        extent, declared = None, "extent" in project.layers
+    # 5. edges that run together exactly but with different vertices (GEOS "misaligned")
+    collinear: list[tuple[tuple[int, int], Any, float]] = []
+    if len(implicated) > 1:
+        a, b = tree.query(geoms[implicated], predicate="intersects")
+        a = implicated[a]
+        keep = (a < b) & np.isin(b, implicated)
+        unexplained = {f.units for f in failures if OVERLAPS in f.aspects}  # their overlap is not known
+        for pp, qq in zip(a[keep], b[keep]):  # pairs of polygons GEOS found invalid: one per defect
+            if (int(pp), int(qq)) in unexplained:
+                continue
+            try:
+                common = shapely.intersection(invalid[int(pp)], invalid[int(qq)])
+                lines, _ = linear_parts(np.array([common], dtype=object))
+                if not len(lines):
+                    continue
+                merged = shapely.line_merge(shapely.multilinestrings(lines))
+                explained = pair_pieces.get((int(pp), int(qq)))
+                if explained:
+                    merged = shapely.difference(merged, shapely.union_all(explained))
+            except GEOSException as exc:
+                failures.append(Failure((int(pp), int(qq)), "comparing their common edge", frozenset((MISFITS,)), reason_of(exc)))
+                continue
+            length = float(shapely.length(merged))
+            if length > 0:
+                collinear.append(((int(pp), int(qq)), merged, length))
+    # 6. gaps: the extent minus the union
+    gap_pieces: list[Piece] = []
+    outside: list[Piece] = []
+    if extent is not None and union is not None:
+        try:
+            gaps, _ = polygonal_parts(np.array([shapely.difference(extent, union)], dtype=object))
+        except GEOSException as exc:
+            failures.append(Failure(tuple(int(u) for u in involved), "taking them out of the map extent",
+                                    frozenset((GAPS,)), reason_of(exc)))
+            gaps = np.empty(0, dtype=object)
+        if len(gaps):
+            w, lost, reasons = elementwise(lambda g: widths(g, tol), gaps, fill=np.nan)
+            # the polygons along a gap: those sharing a stretch of edge with it, not just a point
+            gi, ui = tree.query(gaps, predicate="intersects")
+            shared, unshared, more = elementwise(
+                lambda g, u: shapely.intersection(shapely.boundary(g), shapely.boundary(u)), gaps[gi], geoms[ui])
+            along = shapely.length(shared.astype(object)) > 0
+            along[unshared] = True
+            lost = lost.copy()
+            lost[gi[unshared]] = True
+            reasons = reasons + more
+            gi, ui = gi[along], ui[along]
+            eb = shapely.boundary(extent)
+            at_edge = shapely.length(shapely.intersection(shapely.boundary(gaps), eb)) > 0
+            for gk, (g, ww) in enumerate(zip(gaps, w.astype(float))):
+                around = tuple(sorted(int(u) for u in ui[gi == gk]))
+                if lost[gk]:
+                    failures.append(Failure(around, "measuring the gap between them", frozenset((GAPS, MISFITS)),
+                                            reasons[0] if reasons else "GEOS failed"))
+                elif around or at_edge[gk] or not len(geoms):  # else a degenerate leftover of the overlay
+                    gap_pieces.append(Piece(g, float(shapely.area(g)), float(ww), around, bool(at_edge[gk])))
+        # 7. unit area outside a declared extent
+        if declared:
+            try:
+                out, _ = polygonal_parts(np.array([shapely.difference(union, extent)], dtype=object))
+            except GEOSException as exc:
+                failures.append(Failure(tuple(int(u) for u in involved), "comparing them with the map extent",
+                                        frozenset((OUTSIDE,)), reason_of(exc)))
+                out = np.empty(0, dtype=object)
+            if len(out):
+                oi, ui = tree.query(out, predicate="intersects")
+                inter, failed, reasons = elementwise(shapely.intersection, geoms[ui], out[oi])
+                failures += [Failure((int(u),), "comparing it with the map extent", frozenset((OUTSIDE,)), why)
+                             for u, why in zip(ui[failed], reasons)]
+                inter, ui = inter[~failed], ui[~failed]
+                parts, k = polygonal_parts(inter)
+                w, failed, reasons = elementwise(lambda p: widths(p, tol), parts, fill=np.nan)
+                failures += [Failure((int(u),), "measuring its area outside the map extent", frozenset((OUTSIDE,)), why)
+                             for u, why in zip(ui[k][failed], reasons)]
+                for part, kk, ww, lost_part in zip(parts, k, w.astype(float), failed):
+                    if not lost_part:
+                        outside.append(Piece(part, float(shapely.area(part)), float(ww), (int(ui[kk]),), True))
+    # the map's outer edge, for the linework family: single edges along the extent boundary
+    outline = outline_of(edges, extent, tol)
+    return Coverage(
+        tol=tol,
+        extent=extent,
+        extent_declared=declared,
+        extent_note=extent_note(project, declared),
+        union=union,
+        implicated=implicated,
+        overlaps=tuple(pieces),
+        gaps=tuple(gap_pieces),
+        outside=tuple(outside),
+        collinear=tuple(collinear),
+        outline=outline,
+        failures=tuple(failures),
+    )
+
+
+# ---------------------------------------------------------------- edge mismatches, grouped per pair
+
+def stretch_length(piece: Any) -> float:
+    """How long a thin piece runs along the edges.
+
+    The long side of the rectangle with the piece's area and perimeter (exact
+    for a strip, even a curved one), or the long side of its minimum rotated
+    rectangle (exact for a straight wedge), whichever is longer.
+    """
+    half = float(shapely.length(piece)) / 2.0
+    disc = half * half - 4.0 * float(shapely.area(piece))
+    strip = (half + math.sqrt(max(disc, 0.0))) / 2.0
+    xy = shapely.get_coordinates(shapely.oriented_envelope(piece))
+    sides = np.hypot(*np.diff(xy, axis=0).T) if len(xy) > 1 else np.zeros(1)
+    return max(strip, float(sides.max()))
+
+
+@dataclass(frozen=True)
+class Mismatch:
+    """Neighbours whose common edge nearly, but not exactly, coincides."""
+
+    units: tuple[int, ...]
+    geometry: Any  # the misfitting linework
+    length: float
+    apart: float | None  # the largest separation; None when the edges coincide but their vertices differ
+
+
+def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
+    """Thin overlaps, thin gaps and misaligned edges, grouped per pair (or group) of polygons."""
+    tol = cov.tol
+    groups: dict[tuple[int, ...], dict[str, Any]] = {}
+
+    def add(key: tuple[int, ...], geom: Any, length: float, apart: float | None) -> None:
+        g = groups.setdefault(key, {"geoms": [], "length": 0.0, "apart": None})
+        g["geoms"].append(geom)
+        g["length"] += length
+        if apart is not None:
+            g["apart"] = max(g["apart"] or 0.0, apart)
+
+    for piece in cov.overlaps:
+        if piece.width <= tol * ABOVE:
+            add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
+    for piece in cov.gaps:
+        # thin gaps along the extent edge mean the units lie on it within the tolerance
+        if piece.width <= tol * ABOVE and piece.units and not piece.at_extent:
+            add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
+    pieces = cov.overlaps + cov.gaps + cov.outside
+    for pair, geom, length in cov.collinear:
+        # vertices missing from one side at the corners of a gap or overlap between the
+        # same two polygons belong to that defect
+        if any(pair[0] in p.units and pair[1] in p.units and shapely.intersects(geom, p.geom) for p in pieces):
+            continue
+        add(pair, geom, length, None)
+    out = []
+    for us, g in groups.items():
+        parts, _ = linear_parts(np.array(g["geoms"], dtype=object))
+        geom = shapely.line_merge(shapely.multilinestrings(parts)) if len(parts) else shapely.union_all(g["geoms"])
+        out.append(Mismatch(us, geom, g["length"], g["apart"]))
+    out.sort(key=lambda m: m.units)
+    return tuple(out)

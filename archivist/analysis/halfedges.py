@@ -1,0 +1,131 @@
+"""The half-edge table: every distinct boundary segment of the unit polygons, and who draws it on which side.
+
+A clean coverage is one where every polygon edge inside the map is drawn
+twice, once by each neighbour, with the same two vertices and in opposite
+directions (interior on the left). The table is built for the whole layer
+with numpy (coordinates from ``shapely.to_ragged_array``, one 64-bit hash per
+segment, one sort), which is linear in the number of vertices. Every place
+where the coverage is not clean leaves a trace in it: a half-edge without
+its twin, or a segment drawn twice on the same side.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from .arrays import canonical, coord_hash, group_sorted, segment_lines
+
+
+def polygon_half_edges(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Directed boundary segments of polygons with the interior on the left.
+
+    Returns x0, y0, x1, y1 and the owner (index into ``geoms``) of every
+    segment of every ring, zero-length segments dropped.
+    """
+    empty = (np.empty(0),) * 4 + (np.empty(0, dtype=np.int64),)
+    if len(geoms) == 0:
+        return empty
+    gtype, coords, offsets = shapely.to_ragged_array(geoms, include_z=False)
+    if gtype == shapely.GeometryType.POLYGON:
+        ring_off, part_off = offsets
+        geom_of_part = np.arange(len(part_off) - 1)
+    else:
+        ring_off, part_off, geom_off = offsets
+        geom_of_part = np.repeat(np.arange(len(geom_off) - 1), np.diff(geom_off))
+    ring_off = ring_off.astype(np.int64)
+    n_rings = len(ring_off) - 1
+    if n_rings == 0:
+        return empty
+    part_of_ring = np.repeat(np.arange(len(part_off) - 1), np.diff(part_off))
+    is_ext = np.zeros(n_rings, dtype=bool)
+    is_ext[part_off[:-1][np.diff(part_off) > 0]] = True
+    owner_of_ring = geom_of_part[part_of_ring]
+    starts = np.ones(len(coords), dtype=bool)
+    starts[ring_off[1:] - 1] = False
+    s = np.flatnonzero(starts)
+    ring = np.repeat(np.arange(n_rings), np.diff(ring_off) - 1)
+    x, y = coords[:, 0], coords[:, 1]
+    ox, oy = x[ring_off[:-1]][ring], y[ring_off[:-1]][ring]
+    ax, ay, bx, by = x[s] - ox, y[s] - oy, x[s + 1] - ox, y[s + 1] - oy
+    twice_area = np.bincount(ring, ax * by - bx * ay, minlength=n_rings)
+    flip = (is_ext != (twice_area > 0))[ring]
+    del ax, ay, bx, by, ox, oy
+    x0 = np.where(flip, x[s + 1], x[s])
+    y0 = np.where(flip, y[s + 1], y[s])
+    x1 = np.where(flip, x[s], x[s + 1])
+    y1 = np.where(flip, y[s], y[s + 1])
+    owner = owner_of_ring[ring]
+    keep = (x0 != x1) | (y0 != y1)
+    if not keep.all():
+        x0, y0, x1, y1, owner = x0[keep], y0[keep], x1[keep], y1[keep], owner[keep]
+    return x0, y0, x1, y1, owner
+
+
+@dataclass(frozen=True)
+class Edges:
+    """Every distinct boundary segment of the units, with who draws it on which side.
+
+    ``left``/``right`` are the polygons with the segment's interior on their
+    left going from (px, py) to (qx, qy) and the reverse (-1: none).
+    ``twin`` marks the clean case: exactly one polygon on each side.
+    ``suspects`` are polygons owning any half-edge without its twin.
+    """
+
+    h: np.ndarray
+    px: np.ndarray
+    py: np.ndarray
+    qx: np.ndarray
+    qy: np.ndarray
+    count: np.ndarray
+    left: np.ndarray
+    right: np.ndarray
+    twin: np.ndarray
+    suspects: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.h)
+
+    @property
+    def length(self) -> np.ndarray:
+        return np.hypot(self.qx - self.px, self.qy - self.py)
+
+    def find(self, h: np.ndarray, px: np.ndarray, py: np.ndarray, qx: np.ndarray, qy: np.ndarray) -> np.ndarray:
+        """Index of the edge with exactly these (canonical) coordinates, or -1."""
+        if len(self.h) == 0:
+            return np.full(len(h), -1, dtype=np.int64)
+        order = np.argsort(h)  # sorted needles keep the binary searches in cache
+        pos = np.empty(len(h), dtype=np.int64)
+        pos[order] = np.searchsorted(self.h, h[order])
+        np.minimum(pos, len(self.h) - 1, out=pos)
+        ok = (self.h[pos] == h) & (self.px[pos] == px) & (self.py[pos] == py) & (self.qx[pos] == qx) & (self.qy[pos] == qy)
+        return np.where(ok, pos, -1)
+
+    def lines(self, idx: np.ndarray) -> np.ndarray:
+        """The selected edges as two-point LineStrings."""
+        return segment_lines(self.px[idx], self.py[idx], self.qx[idx], self.qy[idx])
+
+
+def build_edges(geoms: np.ndarray) -> Edges:
+    """The half-edge table of polygons (see :class:`Edges`)."""
+    x0, y0, x1, y1, owner = polygon_half_edges(geoms)
+    px, py, qx, qy, fwd = canonical(x0, y0, x1, y1)
+    del x0, y0, x1, y1
+    h = coord_hash(px, py, qx, qy)
+    order, gid, starts = group_sorted(h, px, py, qx, qy)
+    n = len(order)
+    counts = np.diff(np.r_[starts, n])
+    fwd_s = fwd[order]
+    own_s = owner[order]
+    n_fwd = np.bincount(gid, weights=fwd_s, minlength=len(starts)).astype(np.int64) if n else np.zeros(0, np.int64)
+    twin = (counts == 2) & (n_fwd == 1)
+    first = own_s[starts] if n else np.zeros(0, np.int64)
+    second = np.where(counts >= 2, own_s[np.minimum(starts + 1, max(n - 1, 0))], -1) if n else np.zeros(0, np.int64)
+    first_fwd = fwd_s[starts] if n else np.zeros(0, bool)
+    left = np.where(first_fwd, first, second)
+    right = np.where(first_fwd, second, first)
+    suspects = np.unique(own_s[~twin[gid]]) if n else np.zeros(0, np.int64)
+    sel = order[starts]
+    return Edges(h[sel], px[sel], py[sel], qx[sel], qy[sel], counts, left, right, twin, suspects)

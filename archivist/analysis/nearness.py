@@ -1,0 +1,91 @@
+"""Which part of a line lies farther than the tolerance from other geometry.
+
+Lines are compared with buffers of the tolerance around the geometry near
+them (clipped to the line's box first, so a long reference line costs only
+its nearby stretch).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from .polygons import Units
+
+
+def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
+    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
+    out = np.full(len(targets), None, dtype=object)
+    if not len(ti):
+        return out
+    b = shapely.bounds(targets[ti])
+    pad = 2.0 * tol + 1e-9
+    boxes = shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad)
+    clipped = shapely.intersection(refs, boxes)
+    parts, k = shapely.get_parts(clipped, return_index=True)
+    keep = ~shapely.is_empty(parts)
+    parts, k = parts[keep], ti[k[keep]]
+    if not len(parts):
+        return out
+    order = np.argsort(k, kind="stable")
+    shapely.geometrycollections(parts[order], indices=k[order], out=out)
+    have = ~shapely.is_missing(out)
+    # with a zero tolerance, "on" means within floating-point noise of the reference
+    dist = tol if tol > 0 else 1e-9 * max(float(np.abs(b).max()), 1.0)
+    out[have] = shapely.buffer(out[have], dist)
+    return out
+
+
+def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every reference line."""
+    targets = np.asarray(targets, dtype=object)
+    if not len(targets) or not len(refs):
+        return targets.copy()
+    tree = tree if tree is not None else shapely.STRtree(refs)
+    ti, ri = tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    buf = near_buffers(targets, ti, refs[ri], tol)
+    out = targets.copy()
+    have = ~shapely.is_missing(buf)
+    out[have] = shapely.difference(targets[have], buf[have])
+    return out
+
+
+def off_unit_boundaries(targets: np.ndarray, units: Units, tol: float) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every unit polygon boundary."""
+    if not len(targets) or not len(units):
+        return np.asarray(targets, dtype=object).copy()
+    ti, ui = units.tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    buf = near_buffers(targets, ti, shapely.boundary(units.geoms[ui]), tol)
+    out = np.asarray(targets, dtype=object).copy()
+    have = ~shapely.is_missing(buf)
+    out[have] = shapely.difference(targets[have], buf[have])
+    return out
+
+
+def connected_pieces(pieces: np.ndarray, groups: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Join the pieces of each group that touch (a stretch split where the line crosses itself)."""
+    out, out_groups = [], []
+    for g in np.unique(groups):
+        mine = list(pieces[groups == g])
+        while mine:
+            cluster = [mine.pop()]
+            grown = True
+            while grown:
+                grown = False
+                for other in list(mine):
+                    if any(shapely.intersects(other, c) for c in cluster):
+                        cluster.append(other)
+                        mine.remove(other)
+                        grown = True
+            out.append(cluster[0] if len(cluster) == 1 else shapely.line_merge(shapely.multilinestrings(cluster)))
+            out_groups.append(g)
+    return np.array(out, dtype=object), np.array(out_groups, dtype=np.int64)
+
+
+def unit_at(points: np.ndarray, units: Units) -> np.ndarray:
+    """Index of the unit polygon each point lies inside, or -1."""
+    out = np.full(len(points), -1, dtype=np.int64)
+    if len(points) and len(units):
+        pi, ui = units.tree.query(points, predicate="within")
+        out[pi] = ui
+    return out

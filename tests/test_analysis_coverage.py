@@ -1,0 +1,116 @@
+"""archivist.analysis.coverage: the coverage analysis as a value, and GEOS failures kept to their part of the map.
+
+Outside reference: GEOS through shapely (the overlap areas are
+``shapely.intersection`` areas; the failures are GEOS's own exception type,
+``shapely.errors.GEOSException``, raised on purpose for one cluster of
+polygons).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+import shapely
+from coverage_builders import square_map
+from shapely.errors import GEOSException
+from shapely.geometry import Polygon, box
+
+import archivist
+from archivist.analysis.context import CheckContext
+from archivist.analysis.coverage import find_mismatches, stretch_length
+from archivist.model import Severity
+from archivist.project import load_project
+
+A, B = box(0, 0, 5.1, 10), box(5, 0, 10, 10)  # A reaches 0.1 m into B: 1 m²
+C, D = box(20, 0, 25.1, 10), box(25, 0, 30, 10)  # the same defect 20 m away, not touching A or B
+
+
+def two_defects(tmp_path):
+    return square_map(tmp_path, "two", a=A, b=B, extra=[C, D], tolerance=0.01)
+
+
+def refuse(real, bad):
+    """``real`` (a shapely function), except that GEOS "stops" on any input holding a polygon equal to ``bad``."""
+
+    def fragile(geoms, *args, **kwargs):
+        flat = np.atleast_1d(np.asarray(geoms, dtype=object)).ravel()
+        if any(isinstance(g, Polygon) and g.equals(bad) for g in flat):
+            raise GEOSException("TopologyException: side location conflict at 25 5")
+        return real(geoms, *args, **kwargs)
+
+    return fragile
+
+
+def by_rule(report, rule):
+    return sorted((f for f in report.findings if f.rule == rule), key=lambda f: f.features)
+
+
+def test_stretch_length_of_a_rectangle_is_its_long_side():
+    assert stretch_length(box(0, 0, 10, 0.1)) == pytest.approx(10.0)
+    assert stretch_length(box(0, 0, 0.5, 2)) == pytest.approx(2.0)
+
+
+def test_coverage_is_a_frozen_value_with_the_outline(tmp_path):
+    ctx = CheckContext(load_project(square_map(tmp_path, "clean")))
+    cov = ctx.coverage()
+    assert ctx.coverage() is cov and ctx.edges() is ctx.edges()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        cov.outline = None  # type: ignore[misc]
+    assert not hasattr(ctx.edges(), "outline")
+    # the frame of the 10 m square: four sides of 10 m, each drawn by one unit, on the map's outer edge
+    edges = ctx.edges()
+    assert float(edges.length[cov.outline].sum()) == pytest.approx(40.0)
+    assert cov.failures == () and find_mismatches(cov) == ()
+    assert ctx.notes == ["Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."]
+
+
+def test_both_defects_found_without_failure(tmp_path):
+    report = archivist.check(two_defects(tmp_path), only=["topology"])
+    overlaps = by_rule(report, "unit-overlap")
+    assert [f.features for f in overlaps] == [("1", "2"), ("3", "4")]
+    assert [f.measure for f in overlaps] == [round(shapely.intersection(A, B).area, 3), round(shapely.intersection(C, D).area, 3)]
+
+
+def test_geos_stopping_on_one_pair_is_a_finding_on_that_pair(tmp_path, monkeypatch):
+    root = two_defects(tmp_path)
+    monkeypatch.setattr(shapely, "intersection", refuse(shapely.intersection, C))
+    report = archivist.check(root, only=["topology"])  # a report, not an error
+    overlaps = by_rule(report, "unit-overlap")
+    assert [f.features for f in overlaps] == [("1", "2"), ("3", "4")]
+    kept, lost = overlaps
+    assert kept.message == "Units 1 (A) and 2 (B) overlap by 1.00 m² (up to 0.10 m wide)."
+    assert lost.severity is Severity.ERROR
+    assert lost.message.startswith("Overlaps among units 3 (C) and 4 (D) could not be checked: GEOS stopped with "
+                                   "\"TopologyException: side location conflict at 25 5\" while intersecting them.")
+    assert lost.wkt is not None and shapely.from_wkt(lost.wkt).equals(box(20, 0, 30, 10))
+    misfits = by_rule(report, "unit-edge-mismatch")
+    assert [f.features for f in misfits] == [("3", "4")] and misfits[0].message.startswith("Misfitting edges among units 3 (C) and 4 (D)")
+    assert by_rule(report, "unit-gap") == []
+
+
+def test_geos_stopping_in_coverage_validation_loses_only_that_cluster(tmp_path, monkeypatch):
+    root = two_defects(tmp_path)
+    monkeypatch.setattr(shapely, "coverage_invalid_edges", refuse(shapely.coverage_invalid_edges, C))
+    report = archivist.check(root, only=["topology"])
+    # every intersecting pair is still intersected, so both overlaps are found
+    assert [f.features for f in by_rule(report, "unit-overlap")] == [("1", "2"), ("3", "4")]
+    assert all("overlap by 1.00 m²" in f.message for f in by_rule(report, "unit-overlap"))
+    (misfit,) = by_rule(report, "unit-edge-mismatch")
+    assert misfit.features == ("3", "4") and "while validating them as a coverage" in misfit.message
+
+
+def test_geos_stopping_on_the_union_leaves_the_other_checks(tmp_path, monkeypatch):
+    root = two_defects(tmp_path)
+    real = shapely.union_all
+
+    def stopped(geoms, *args, **kwargs):
+        raise GEOSException("TopologyException: found non-noded intersection")
+
+    monkeypatch.setattr(shapely, "union_all", stopped)
+    report = archivist.check(root, only=["topology"])
+    monkeypatch.setattr(shapely, "union_all", real)
+    (gap,) = by_rule(report, "unit-gap")
+    assert gap.features == ("1", "2", "3", "4") and "while joining them into one area" in gap.message
+    assert [f.features for f in by_rule(report, "unit-overlap")] == [("1", "2"), ("3", "4")]
