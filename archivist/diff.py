@@ -42,6 +42,7 @@ from ._version import __version__
 from .errors import ArchivistError
 from .project import Layer, MapProject, Table, crs_label
 from .readers import text_column
+from .vocab.legend import column as legend_column
 
 MOVE_SEARCH_MM = 5.0  # how far (map mm) a line or point may move and still be the same feature
 LAYER_ORDER = ("map", "legend", "units", "lines", "extent", "samples", "structures", "analyses")
@@ -655,8 +656,8 @@ class _Diff:
 
         def codes(table: Table | None, layer: Layer | None) -> tuple[dict[str, dict[str, str]], set[str]]:
             entries: dict[str, dict[str, str]] = {}
-            if table is not None and table.field("unit_field"):
-                col = table.field("unit_field")
+            col = legend_column(table, "unit") if table is not None else None
+            if table is not None and col is not None:
                 frame = table.frame
                 keys = text_column(frame[col])
                 others = [c for c in frame.columns if c != col]
@@ -671,6 +672,8 @@ class _Diff:
 
         oleg, omap = codes(to, lo)
         nleg, nmap = codes(tn, ln)
+        oname = (legend_column(to, "name") if to is not None else None) or "name"
+        nname = (legend_column(tn, "name") if tn is not None else None) or "name"
         old_codes, new_codes = set(oleg) | omap, set(nleg) | nmap
         added, removed = sorted(new_codes - old_codes), sorted(old_codes - new_codes)
         changes: list[Change] = []
@@ -702,7 +705,7 @@ class _Diff:
         for y in added:
             if y in pairs.values():
                 continue
-            name = nleg.get(y, {}).get("name", "")
+            name = nleg.get(y, {}).get(nname, "")
             n, area, geom = self._unit_stats(ln, y, "new")
             where = f"mapped in {n} polygon(s), {fmt_area(area)}" if n else "not mapped"
             legend = f"legend entry '{name}'" if y in nleg and name else ("legend entry" if y in nleg else "no legend entry")
@@ -712,7 +715,7 @@ class _Diff:
         for x in removed:
             if x in pairs:
                 continue
-            name = oleg.get(x, {}).get("name", "")
+            name = oleg.get(x, {}).get(oname, "")
             n, area, geom = self._unit_stats(lo, x, "old")
             where = f"was mapped in {n} polygon(s), {fmt_area(area)}" if n else "was not mapped"
             legend = f"legend entry '{name}'" if x in oleg and name else ("legend entry" if x in oleg else "no legend entry")

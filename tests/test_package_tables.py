@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from archivist.package.tables import column_text, header_unit, text_table
+from archivist.package.tables import column_text, text_table
+from archivist.vocab.analytes import column_unit
 
 
 @pytest.mark.parametrize(
@@ -64,7 +65,8 @@ def test_identifier_columns_stay_text():
     [("SiO2 (wt%)", "SiO2", "wt%"), ("Zr [ppm]", "Zr", "ppm"), ("Au (ppb) ", "Au", "ppb"), ("sample_id", "sample_id", None)],
 )
 def test_header_units(header, quantity, unit):
-    assert header_unit(header) == (quantity, unit)
+    read = column_unit(header)
+    assert (read.quantity, read.unit) == (quantity, unit)
 
 
 def test_units_and_descriptions_reach_the_schema():

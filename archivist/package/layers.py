@@ -26,7 +26,9 @@ import shapely
 
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
-from ..rules.metadata import measures_statement
+from ..vocab.legend import column as legend_column
+from ..vocab.legend import columns as legend_columns
+from ..vocab.statements import measures_statement
 from .determinism import gdal_date
 from .tables import TextTable, column_text, text_table
 
@@ -63,7 +65,8 @@ AZIMUTH = {
     "dip-direction": "Dip direction, in degrees clockwise from north.",
     "right-hand-rule": "Strike, in degrees clockwise from north; the dip is to the right looking along the strike (right-hand rule).",
 }
-LEGEND_COLUMNS = {
+LEGEND_COLUMNS = {  # key of archivist.vocab.legend -> (description, unit)
+    "unit": (FIELD_DESCRIPTIONS[("legend", "unit_field")], None),
     "name": ("Name of the unit.", None),
     "description": ("Description of the unit.", None),
     "age": ("Age, as named on the International Chronostratigraphic Chart.", None),
@@ -321,16 +324,21 @@ def project_table(project: MapProject, role: str) -> TextTable:
     identifiers = set()
     descriptions: dict[str, str] = {}
     units: dict[str, str] = {}
-    for key, col in spec.items():
+    for key, col in spec.items() if role != "legend" else ():
         if key.endswith("_field") and isinstance(col, str):
             identifiers.add(col)
             if (role, key) in FIELD_DESCRIPTIONS:
                 descriptions[col] = FIELD_DESCRIPTIONS[(role, key)]
-    if role == "legend":
-        for col, (desc, unit) in LEGEND_COLUMNS.items():
+    if role == "legend":  # its columns as the checks find them (archivist.vocab.legend)
+        for key, col in legend_columns(t).items():
+            if col is None:
+                continue
+            desc, unit = LEGEND_COLUMNS[key]
             descriptions.setdefault(col, desc)
             if unit:
                 units[col] = unit
+            if key == "unit":
+                identifiers.add(col)
     if role == "analyses":
         units.update({str(k): str(v) for k, v in (spec.get("units") or {}).items()})
     table = text_table(role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses")
@@ -349,7 +357,7 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
         if role in project.layers:
             table.primary_key = ["fid"]
     legend = tables.get("legend")
-    legend_unit = project.tables["legend"].spec.get("unit_field") if "legend" in project.tables else None
+    legend_unit = legend_column(project.tables["legend"], "unit") if "legend" in project.tables else None
     if legend is not None and legend.has(legend_unit):
         legend.primary_key = [legend_unit]
     samples = tables.get("samples")

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import re
-from functools import lru_cache
 
 import numpy as np
 import pandas as pd
@@ -13,9 +12,12 @@ from ..farcoords import coordinate_limit, far_out
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
 from ..model import Hit, Severity
 from ..project import EXPECTED_GEOMETRY
+from ..manifest import DEPOSIT_KEYS
 from ..registry import all_rules, rule
+from ..vocab.legend import unfound_unit
+from ..vocab.licences import licence_problem
+from ..vocab.statements import measures_statement
 
-DEPOSIT_KEYS = ("title", "version", "abstract", "licence", "authors")
 
 
 def _loading(project, rule_id):
@@ -165,6 +167,10 @@ def field_missing(project, ctx):
     Units with a `code` column and no `unit_field` key give
     "layers.units: field 'unit' (unit_field) is not in 'map.gpkg:units'".
     """
+    legend = project.tables.get("legend")
+    unfound = unfound_unit(legend) if legend is not None else None
+    if unfound is not None:
+        yield unfound
     yield from _loading(project, "field-missing")
 
 
@@ -200,27 +206,6 @@ def metadata_incomplete(project, ctx):
     for i, author in enumerate(m.get("authors") or []):
         if isinstance(author, dict) and not str(author.get("name", "")).strip():
             yield Hit(f"map.authors[{i}].name is empty.", layer="manifest")
-
-
-@lru_cache(maxsize=1)
-def _spdx():
-    from license_expression import get_spdx_licensing
-
-    return get_spdx_licensing()
-
-
-def licence_problem(expression: str) -> str | None:
-    """None when `expression` is a valid SPDX licence expression, else why not."""
-    try:
-        info = _spdx().validate(expression, strict=True)
-    except Exception:  # the parser raises on some free text instead of reporting it
-        return f"'{expression}' is not an SPDX licence identifier or expression"
-    if info.errors:
-        unknown = [s for s in info.invalid_symbols]
-        if unknown:
-            return f"'{', '.join(map(str, unknown))}' is not on the SPDX licence list"
-        return "; ".join(info.errors)
-    return None
 
 
 @rule("licence-unknown", family="metadata", severity="error")
@@ -680,17 +665,6 @@ def coordinates_implausible(project, ctx):
                 layer=role,
                 features=(fid,),
             )
-
-
-def measures_statement(layer) -> str:
-    """What happens to a layer's M values in a package, in one sentence (used by the rule and the package README)."""
-    n = layer.measured
-    role = layer.role
-    return (
-        f"{role} layer {layer.source}: {n} feature{'s' if n != 1 else ''} carr{'y' if n != 1 else 'ies'} M (measure) values, "
-        f"which archivist does not read; a package made from it holds them only in source/, which keeps the file byte "
-        f"for byte: map.gpkg and geojson/{role}.geojson hold the geometries without M"
-    )
 
 
 @rule("measures-source-only", family="metadata", severity="warning")

@@ -1,7 +1,6 @@
 """Licences: SPDX ids from an expression, with names and canonical URLs."""
 
-from archivist.package.licences import licences
-from archivist.rules.metadata import licence_problem
+from archivist.vocab.licences import licence_problem, licences
 
 
 def test_single_licence():
@@ -16,7 +15,7 @@ def test_expression_keeps_written_order():
 
 def test_every_named_licence_is_on_the_spdx_list():
     # The names table must only hold ids the license-expression package's SPDX list knows.
-    from archivist.package.licences import NAMES
+    from archivist.vocab.licences import NAMES
 
     for spdx in NAMES:
         assert licence_problem(spdx) is None, spdx
