@@ -19,3 +19,12 @@ def test_every_named_licence_is_on_the_spdx_list():
 
     for spdx in NAMES:
         assert licence_problem(spdx) is None, spdx
+
+
+def test_punctuation_the_parser_cannot_read_is_a_reason_not_an_exception():
+    # license-expression fails inside its tokenizer on some punctuation (IndexError, AttributeError)
+    from archivist.vocab.licences import recognise_licence
+
+    for text in ("()-", "\x00", " ,4", "MIT AND"):
+        assert licence_problem(text) is not None
+        assert recognise_licence(text) is None
