@@ -16,6 +16,7 @@ import datetime as dt
 import json
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -106,7 +107,7 @@ class PreparedLayer:
         if not present.any():
             return None
         b = shapely.total_bounds(geoms[present])
-        return tuple(float(v) for v in b)
+        return (float(b[0]), float(b[1]), float(b[2]), float(b[3]))
 
 
 def _fids(frame: gpd.GeoDataFrame) -> np.ndarray:
@@ -129,10 +130,17 @@ def _require_finite(geoms: np.ndarray, source: str, target: str) -> None:
         )
 
 
+def _map_crs(project: MapProject) -> pyproj.CRS:
+    """The declared map CRS (``read_deposit`` refuses a project without one before any layer is prepared)."""
+    if project.crs is None:
+        raise ArchivistError("map.crs is missing or not understood; a package needs the map CRS")
+    return project.crs
+
+
 def prepare_layers(project: MapProject) -> list[PreparedLayer]:
     """The project's layers in role order, each in the map CRS with a ``fid`` column."""
     out = []
-    target: pyproj.CRS = project.crs
+    target = _map_crs(project)
     for role in LAYER_ROLES:
         layer = project.layers.get(role)
         if layer is None:
@@ -261,7 +269,7 @@ def write_geojson(pl: PreparedLayer, path: Path) -> None:
     geojson = shapely.to_geojson(rounded).astype(object)
     geojson[shapely.is_missing(rounded)] = "null"
     features = _features_json(pl.frame, geojson)
-    head = {"type": "FeatureCollection", "name": pl.role}
+    head: dict[str, Any] = {"type": "FeatureCollection", "name": pl.role}
     if present.any():
         b = shapely.total_bounds(rounded[present])
         head["bbox"] = [round(float(v), 7) for v in b]
@@ -305,10 +313,10 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
         geoms = np.asarray(pl.frame.geometry.array, dtype=object)
         frame[xname] = shapely.get_x(geoms)
         frame[yname] = shapely.get_y(geoms)
-        label = project.crs.name
-        descriptions[xname] = f"Easting of the point in the map CRS ({label})."
-        descriptions[yname] = f"Northing of the point in the map CRS ({label})."
-        unit = _axis_unit(project.crs)
+        crs = _map_crs(project)
+        descriptions[xname] = f"Easting of the point in the map CRS ({crs.name})."
+        descriptions[yname] = f"Northing of the point in the map CRS ({crs.name})."
+        unit = _axis_unit(crs)
         if unit:
             units[xname] = units[yname] = unit
     table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
@@ -358,17 +366,17 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
             table.primary_key = ["fid"]
     legend = tables.get("legend")
     legend_unit = legend_column(project.tables["legend"], "unit") if "legend" in project.tables else None
-    if legend is not None and legend.has(legend_unit):
+    if legend is not None and legend_unit is not None and legend.has(legend_unit):
         legend.primary_key = [legend_unit]
     samples = tables.get("samples")
     sample_id = project.layers["samples"].spec.get("id_field") if "samples" in project.layers else None
-    if samples is not None and samples.has(sample_id):
+    if samples is not None and sample_id is not None and samples.has(sample_id):
         samples.primary_key = [sample_id]
     for role in ("units", "samples"):
-        table = tables.get(role)
+        linked = tables.get(role)
         unit = project.layers[role].spec.get("unit_field") if role in project.layers else None
-        if table is not None and legend is not None and table.has(unit) and legend.has(legend_unit):
-            table.foreign_keys.append({"fields": [unit], "reference": {"resource": "legend", "fields": [legend_unit]}})
+        if linked is not None and legend is not None and linked.has(unit) and legend.has(legend_unit):
+            linked.foreign_keys.append({"fields": [unit], "reference": {"resource": "legend", "fields": [legend_unit]}})
     analyses = tables.get("analyses")
     sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
     if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):

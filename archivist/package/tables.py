@@ -15,7 +15,7 @@ from __future__ import annotations
 import datetime as dt
 import re
 from dataclasses import dataclass, field
-from typing import Any
+from typing import AbstractSet, Any
 
 import numpy as np
 import pandas as pd
@@ -141,7 +141,7 @@ def text_table(
     name: str,
     frame: pd.DataFrame,
     *,
-    identifiers: set[str] = frozenset(),
+    identifiers: AbstractSet[str] = frozenset(),
     descriptions: dict[str, str] | None = None,
     units: dict[str, str] | None = None,
     header_units: bool = False,

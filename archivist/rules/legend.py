@@ -40,10 +40,10 @@ _HEX = re.compile(r"^#[0-9A-Fa-f]{6}$")
 
 # ---------------------------------------------------------------- reading the legend
 
-def row_ref(table: Table, i: int) -> str:
+def row_ref(table: Table, i: int | np.integer) -> str:
     """A data row as a mapper finds it: "legend.csv, row 5" or "legend.xlsx, sheet 'units', row 5"."""
     data = table.data
-    line = data.line(i)
+    line = data.line(int(i))
     return f"{data.file}, sheet '{data.sheet}', row {line}" if data.sheet else f"{data.file}, row {line}"
 
 
@@ -321,6 +321,8 @@ def legend_bad_colour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         return
     values = cells(legend, "colour")
     codes = cells(legend, "unit")
+    if values is None:
+        return
     for i, text in enumerate(values):
         why = colour_problem(text)
         if why:
@@ -375,11 +377,11 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     legend = project.tables["legend"]
     ages = cells(legend, "age")
     codes = cells(legend, "unit")
-    if ages is None:
+    age_col = column(legend, "age")
+    if ages is None or age_col is None:
         return
     lo_col, hi_col = column(legend, "min_age_ma"), column(legend, "max_age_ma")
     lo_txt, hi_txt = cells(legend, "min_age_ma"), cells(legend, "max_age_ma")
-    age_col = column(legend, "age")
     for i, text in enumerate(ages):
         unit = _unit_name(codes, i)
         feats = (codes[i],) if codes is not None and codes[i] else ()
@@ -391,7 +393,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
                 yield Hit(f"{legend.data.cell(i, age_col)} ({unit}): '{text}' {exc}.", layer="legend", features=feats)
         nums = {}
         for key, col, txt in (("min_age_ma", lo_col, lo_txt), ("max_age_ma", hi_col, hi_txt)):
-            if col is None or not txt[i]:
+            if col is None or txt is None or not txt[i]:
                 continue
             value = _number(txt[i])
             if value is None or value < 0:
@@ -511,7 +513,9 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     younger = (base[:, None] <= top[None, :]) & differ
     inverted = above & older
     concordant = above & younger
-    name = (lambda i: codes[i] if codes is not None and codes[i] else f"row {legend.data.line(i)}")
+    def name(i: int | np.integer) -> str:
+        return str(codes[i]) if codes is not None and codes[i] else f"row {legend.data.line(int(i))}"
+
     if inverted.sum() >= 2 and not concordant.any():
         yield Hit(
             f"{legend.source}: the legend is listed oldest first by {by}; archivist expects youngest first (order 1 = youngest).",

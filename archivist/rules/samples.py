@@ -25,6 +25,7 @@ import datetime as dt
 import re
 import unicodedata
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import pandas as pd
@@ -36,6 +37,10 @@ from ..readers import as_text, text_column
 from ..registry import rule
 from ..vocab.analytes import Analyte, Cells, analytes, classify, split_header  # noqa: F401  (split_header: part of this family's reading)
 from ..vocab.legend import cells as legend_cells
+
+if TYPE_CHECKING:
+    from ..engine import CheckContext
+    from ..project import MapProject, Table
 
 # ---------------------------------------------------------------- identifiers and their spreadsheet manglings
 
@@ -258,7 +263,7 @@ VOLATILES = ("LOI", "H2O", "CO2", "H2O+", "H2O-")
 
 @dataclass
 class Analyses:
-    table: object
+    table: Table
     sample_col: str | None
     sample_values: np.ndarray  # raw cell objects
     sample_text: np.ndarray  # as text (readers.text_column), not stripped
@@ -266,7 +271,7 @@ class Analyses:
     cells: dict[str, Cells]
 
 
-def read_analyses(project, ctx) -> Analyses:
+def read_analyses(project: MapProject, ctx: CheckContext) -> Analyses:
     def compute():
         table = project.tables["analyses"]
         col = table.field("sample_field")
@@ -278,7 +283,7 @@ def read_analyses(project, ctx) -> Analyses:
     return ctx.shared("samples:analyses", compute)
 
 
-def _sample_points(project, ctx):
+def _sample_points(project: MapProject, ctx: CheckContext) -> dict[str, Any]:
     """Sample id -> point (first one when ids repeat), for placing table findings on the map."""
 
     def compute():
@@ -311,7 +316,7 @@ def _fid(layer, i) -> str:
 
 
 @rule("sample-duplicate-id", family="samples", severity="error", needs=("samples",))
-def sample_duplicate_id(project, ctx):
+def sample_duplicate_id(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two samples share an id, or a sample has none.
 
     Catches
@@ -369,7 +374,7 @@ def sample_duplicate_id(project, ctx):
 
 
 @rule("sample-missing-location", family="samples", severity="error", needs=("samples",))
-def sample_missing_location(project, ctx):
+def sample_missing_location(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample has no usable location.
 
     Catches
@@ -422,7 +427,7 @@ def sample_missing_location(project, ctx):
         yield Hit(f"sample {sid} ({_fid(layer, i)} of {source}) {why}.", layer="samples", features=(layer.ids[i],) if layer.ids[i] else ())
 
 
-def _extent(project, ctx):
+def _extent(project: MapProject, ctx: CheckContext) -> Any:
     """The map's extent: the extent layer, else the union of the unit polygons; None when neither is there."""
 
     def compute():
@@ -442,14 +447,14 @@ def _extent(project, ctx):
     return None if found is None else found[0]
 
 
-def _extent_role(project, ctx) -> str | None:
+def _extent_role(project: MapProject, ctx: CheckContext) -> str | None:
     _extent(project, ctx)
     found = ctx.shared("samples:extent", lambda: None)
     return None if found is None else found[1]
 
 
 @rule("sample-outside-extent", family="samples", severity="warning", needs=("samples",))
-def sample_outside_extent(project, ctx):
+def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample lies outside the map's extent.
 
     Catches
@@ -499,7 +504,7 @@ def sample_outside_extent(project, ctx):
 
 
 @rule("sample-unit-mismatch", family="samples", severity="error", needs=("samples", "units"))
-def sample_unit_mismatch(project, ctx):
+def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The unit recorded for a sample differs from the unit polygon it falls in.
 
     Catches
@@ -543,8 +548,9 @@ def sample_unit_mismatch(project, ctx):
     pts, polys = samples.geometry, units.geometry
     usable = ~(shapely.is_missing(pts) | shapely.is_empty(pts)) & (recorded != "")
     poly_ok = ~(shapely.is_missing(polys) | shapely.is_empty(polys))
-    tree = shapely.STRtree(np.where(poly_ok, polys, None))
-    pi, ui = tree.query(np.where(usable, pts, None), predicate="intersects")
+    nothing = np.array(None, dtype=object)
+    tree = shapely.STRtree(np.where(poly_ok, polys, nothing))
+    pi, ui = tree.query(np.where(usable, pts, nothing), predicate="intersects")
     if len(pi) == 0:
         return
     pairs = pd.DataFrame({"p": pi, "u": ui, "code": codes[ui]})
@@ -604,7 +610,7 @@ def _superficial_units(project) -> set[str]:
 
 # ---------------------------------------------------------------- samples and analyses
 
-def _orphans(project, ctx):
+def _orphans(project: MapProject, ctx: CheckContext) -> list[tuple[int, Any, str, list[tuple[str, str]]]]:
     """Analysis rows whose sample id matches no sample exactly: (row, raw value, text, probable matches)."""
 
     def compute():
@@ -631,7 +637,7 @@ def _shown(raw, text) -> str:
 
 
 @rule("analysis-orphan", family="samples", severity="error", needs=("samples", "analyses"))
-def analysis_orphan(project, ctx):
+def analysis_orphan(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analysis names a sample id that matches no sample.
 
     Catches
@@ -664,6 +670,8 @@ def analysis_orphan(project, ctx):
     zeros lost)".
     """
     an = read_analyses(project, ctx)
+    if an.sample_col is None:  # no sample column: no orphans (see _orphans)
+        return
     for i, raw, text, probable in _orphans(project, ctx):
         where = an.table.data.cell(i, an.sample_col)
         if not text.strip() and not isinstance(raw, (dt.date, dt.datetime)):
@@ -686,7 +694,7 @@ def analysis_orphan(project, ctx):
 
 
 @rule("sample-unanalysed", family="samples", severity="notice", needs=("samples", "analyses"))
-def sample_unanalysed(project, ctx):
+def sample_unanalysed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample has no analysis.
 
     Catches
@@ -723,7 +731,7 @@ def sample_unanalysed(project, ctx):
         if len(probable) == 1:
             claimed.setdefault(probable[0][0], []).append(f"{an.table.data.cell(i, an.sample_col)} reads {_shown(raw, text)}")
     geoms = layer.geometry
-    for i in np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed))):
+    for i in map(int, np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed)))):
         sid = layer.ids[i]
         if not str(sid).strip():
             continue
@@ -738,7 +746,7 @@ def sample_unanalysed(project, ctx):
 
 
 @rule("analysis-unit-undeclared", family="samples", severity="error", needs=("analyses",))
-def analysis_unit_undeclared(project, ctx):
+def analysis_unit_undeclared(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte column has no unit, in its header or in the manifest.
 
     Catches
@@ -801,7 +809,7 @@ def _sample_of(an, r):
 
 
 @rule("analysis-value-unreadable", family="samples", severity="error", needs=("analyses",))
-def analysis_value_unreadable(project, ctx):
+def analysis_value_unreadable(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte cell holds an Excel error, a date or text that is not a value.
 
     Catches
@@ -851,7 +859,7 @@ def analysis_value_unreadable(project, ctx):
 
 
 @rule("analysis-negative-value", family="samples", severity="error", needs=("analyses",))
-def analysis_negative_value(project, ctx):
+def analysis_negative_value(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte value is negative.
 
     Catches
@@ -935,7 +943,7 @@ def major_totals(an) -> tuple[np.ndarray, str, str | None] | None:
 
 
 @rule("analysis-total-out-of-range", family="samples", severity="warning", needs=("analyses",))
-def analysis_total_out_of_range(project, ctx):
+def analysis_total_out_of_range(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A major-oxide analysis does not total 98.5-101.5 wt%.
 
     Catches
@@ -977,7 +985,7 @@ def analysis_total_out_of_range(project, ctx):
         rows = np.flatnonzero((totals < lo) | (totals > hi))
     for r in rows:
         v = totals[r]
-        where = an.table.data.cell(r, column) if column else f"{an.table.source}, row {an.table.data.line(r)}"
+        where = an.table.data.cell(int(r), column) if column else f"{an.table.source}, row {an.table.data.line(int(r))}"
         off, side = (lo - v, f"below {lo:g}") if v < lo else (v - hi, f"above {hi:g}")
         sid = _sample_of(an, r)
         via = "" if column else f" ({how})"
