@@ -21,11 +21,10 @@ import numpy as np
 import pandas as pd
 
 from ..readers import as_text
-from ..vocab.analytes import ColumnUnit, column_unit
+from ..vocab.analytes import BELOW_LIMIT, ColumnUnit, column_unit
 
 INTEGER = re.compile(r"^[+-]?(?:0|[1-9]\d*)$")
 NUMBER = re.compile(r"^[+-]?(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
-CENSORED = re.compile(r"^<\s*(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
 DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
 DATETIME = re.compile(r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(?:\.\d+)?(?:Z|[+-]\d{2}:\d{2})?$")
 
@@ -84,7 +83,7 @@ def _infer(texts: pd.Series) -> tuple[str, bool]:
         return "date", False
     if values.str.match(DATETIME).all():
         return "datetime", False
-    censored = values.str.match(CENSORED)
+    censored = values.str.match(BELOW_LIMIT)
     if (numeric | censored).all() and censored.any():
         return "string", True
     return "string", False

@@ -12,7 +12,8 @@ in `[tables.analyses.units]`. Its unit is read from the header ("SiO2
 (wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest. Cells are read as
 numbers, censored values ("<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.",
 ">10000"), not-analysed marks ("n.a.", "-"), or unreadable (Excel error
-cells such as "#N/A", text, dates).
+cells such as "#N/A", text, dates). Headers, units and cells are read by
+`archivist.vocab.analytes`, which the package's Table Schemas also use.
 
 These checks test the bookkeeping of samples and analyses, not the
 geochemistry: a total inside the accepted range does not make an analysis
@@ -35,7 +36,7 @@ from ..farcoords import far_out
 from ..model import Hit, Severity
 from ..readers import as_text, text_column
 from ..registry import rule
-from ..vocab.analytes import Analyte, Cells, analytes, classify, split_header  # noqa: F401  (split_header: part of this family's reading)
+from ..vocab.analytes import Analyte, Cells, analytes, classify
 from ..vocab.legend import cells as legend_cells
 
 if TYPE_CHECKING:

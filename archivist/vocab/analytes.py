@@ -58,6 +58,8 @@ _CENSORED = re.compile(
     r"^(?:[<>≤≥]\s*=?\s*(?:\d+(?:\.\d+)?|lod|lld|dl|d\.l\.|mdl|loq)|b\.?d\.?l\.?|n\.?d\.?|below detection(?: limit)?|not detected|<?\s*lod)$",
     re.IGNORECASE,
 )
+# "<0.01" alone, the form a Table Schema column keeps as text, as reported (package/tables.py).
+BELOW_LIMIT = re.compile(r"^<\s*(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
 _NOT_ANALYSED = frozenset({"n.a.", "na", "n/a", "n.a", "not analysed", "not analyzed", "-", "--", "---", "—", "–", "n.m.", "nm"})
 
 
