@@ -22,6 +22,8 @@ from .model import Hit
 from .safeparse import load_toml
 
 MANIFEST_NAME = "archivist.toml"
+# The [map] keys a repository deposit needs (metadata-incomplete; pack refuses without them).
+DEPOSIT_KEYS = ("title", "version", "abstract", "licence", "authors")
 
 # Field names each role reads, and their defaults.
 LAYER_DEFAULTS: dict[str, dict[str, str]] = {
@@ -39,8 +41,10 @@ REQUIRED_FIELDS: dict[str, tuple[str, ...]] = {
     "samples": ("id_field",),
     "structures": ("kind_field", "azimuth_field", "dip_field"),
 }
+# The legend has no default field names: without a `*_field` key its columns
+# are found by their usual spellings (archivist.vocab.legend).
 TABLE_DEFAULTS: dict[str, dict[str, str]] = {
-    "legend": {"unit_field": "unit"},
+    "legend": {},
     "analyses": {"sample_field": "sample_id"},
 }
 

@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from archivist.package.tables import column_text, header_unit, text_table
+from archivist.package.tables import column_text, text_table
+from archivist.vocab.analytes import column_unit
 
 
 @pytest.mark.parametrize(
@@ -64,7 +65,8 @@ def test_identifier_columns_stay_text():
     [("SiO2 (wt%)", "SiO2", "wt%"), ("Zr [ppm]", "Zr", "ppm"), ("Au (ppb) ", "Au", "ppb"), ("sample_id", "sample_id", None)],
 )
 def test_header_units(header, quantity, unit):
-    assert header_unit(header) == (quantity, unit)
+    read = column_unit(header)
+    assert (read.quantity, read.unit) == (quantity, unit)
 
 
 def test_units_and_descriptions_reach_the_schema():
@@ -72,3 +74,42 @@ def test_units_and_descriptions_reach_the_schema():
     table = text_table("analyses", frame, units={"LOI": "wt%"}, header_units=True)
     assert table.fields[0] == {"name": "SiO2 (wt%)", "type": "number", "description": "SiO2, in wt%.", "unit": "wt%"}
     assert table.fields[1]["unit"] == "wt%"
+
+
+# Total iron is written "Fe2O3T", "Fe2O3 (T)", "FeOt", "FeO(T)", "Fe2O3tot" (common practice): the "T" marks total
+# iron and is never a unit. The unit is what the header or [tables.analyses.units] says, as the checks read it.
+TOTAL_IRON_HEADERS = {
+    "Fe2O3 (T) (wt%)": ("wt%", "Fe2O3 (total iron), in wt%."),
+    "FeOt_wt%": ("wt%", "FeO (total iron), in wt%."),
+    "FeO(T) [ppm]": ("ppm", "FeO (total iron), in ppm."),
+    "Fe2O3 (T)": ("wt%", "Fe2O3 (total iron), in wt%."),  # declared in the manifest
+    "FeOt": ("wt%", "FeO (total iron), in wt%."),  # declared in the manifest
+    "Fe2O3tot": (None, "Fe2O3 (total iron)."),  # declared nowhere: no unit, and the check says so
+}
+
+
+def test_pack_records_total_iron_with_its_real_unit(tmp_path):
+    import json
+
+    import archivist
+    from builders import tiny_project
+
+    frame = pd.DataFrame({"sample_id": ["S1"], **{h: ["9.5"] for h in TOTAL_IRON_HEADERS}})
+    root = tiny_project(tmp_path, manifest={"tables": {"analyses": {"path": "analyses.csv", "units": {"Fe2O3 (T)": "wt%", "FeOt": "wt%"}}}})
+    frame.to_csv(root / "analyses.csv", index=False)
+    package = archivist.pack(root, tmp_path / "out", allow_errors=True).path
+    descriptor = json.loads((package / "data" / "datapackage.json").read_text(encoding="utf-8"))
+    schema = next(r["schema"] for r in descriptor["resources"] if r["name"] == "analyses")
+    fields = {f["name"]: f for f in schema["fields"]}
+    for header, (unit, description) in TOTAL_IRON_HEADERS.items():
+        assert (fields[header].get("unit"), fields[header].get("description")) == (unit, description), header
+    # the check reads the same headers the same way: only the column with no unit anywhere is reported
+    undeclared = [f.message for f in archivist.check(root).findings if f.rule == "analysis-unit-undeclared"]
+    assert len(undeclared) == 1 and "'Fe2O3tot' has no unit" in undeclared[0]
+
+
+def test_bracketed_text_that_is_not_a_unit_is_not_recorded_as_one():
+    frame = pd.DataFrame({"SiO2 (XRF)": ["70.1"], "Depth (m)": ["3.5"], "Fe2O3 (T)": ["9.1"]}, dtype=object)
+    fields = {f["name"]: f for f in text_table("analyses", frame, header_units=True).fields}
+    assert "unit" not in fields["SiO2 (XRF)"] and "unit" not in fields["Fe2O3 (T)"]
+    assert fields["Depth (m)"]["unit"] == "m"  # not an analyte: its bracket is taken as written

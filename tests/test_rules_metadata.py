@@ -7,7 +7,7 @@ from shapely.geometry import LineString, Point, Polygon, box
 
 import archivist
 from archivist.identifiers import orcid_check_digit, orcid_problem
-from archivist.rules.metadata import licence_problem
+from archivist.vocab.licences import licence_problem
 from builders import (
     CRS,
     MAJOR_HEADER,

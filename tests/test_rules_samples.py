@@ -9,7 +9,8 @@ import shapely
 from shapely.geometry import Point
 
 import archivist
-from archivist.rules.samples import SampleIndex, analytes, classify, probable_samples, split_header
+from archivist.rules.samples import SampleIndex, probable_samples
+from archivist.vocab.analytes import analytes, classify, split_header
 from builders import (
     BUNDLE,
     MAJOR_HEADER,

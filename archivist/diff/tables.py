@@ -19,6 +19,7 @@ import shapely
 
 from ..project import Layer, MapProject, Table
 from ..readers import text_column
+from ..vocab.legend import column as legend_column
 from .common import (
     Comparison,
     Found,
@@ -49,9 +50,9 @@ def legend_entries(table: Table | None) -> dict[str, dict[str, str]]:
     This is the one place ``diff`` reads legend columns.
     """
     entries: dict[str, dict[str, str]] = {}
-    if table is None or not table.field("unit_field"):
+    col = legend_column(table, "unit") if table is not None else None
+    if table is None or col is None:
         return entries
-    col = table.field("unit_field")
     frame = table.frame
     keys = text_column(frame[col])
     others = [c for c in frame.columns if c != col]
@@ -91,6 +92,8 @@ def match_units(cmp: Comparison, polygon_changes: list[Change]) -> UnitsFound:
     lo, ln = cmp.old.layers.get("units"), cmp.new.layers.get("units")
     oleg, omap = legend_entries(to), _mapped_codes(cmp, lo)
     nleg, nmap = legend_entries(tn), _mapped_codes(cmp, ln)
+    oname = (legend_column(to, "name") if to is not None else None) or "name"
+    nname = (legend_column(tn, "name") if tn is not None else None) or "name"
     old_codes, new_codes = set(oleg) | omap, set(nleg) | nmap
     added, removed = sorted(new_codes - old_codes), sorted(old_codes - new_codes)
     changes: list[Change] = []
@@ -123,7 +126,7 @@ def match_units(cmp: Comparison, polygon_changes: list[Change]) -> UnitsFound:
     for y in added:
         if y in pairs.values():
             continue
-        name = nleg.get(y, {}).get("name", "")
+        name = nleg.get(y, {}).get(nname, "")
         n, area, geom = _unit_stats(cmp, ln, y, "new")
         where = f"mapped in {n} polygon(s), {fmt_area(area)}" if n else "not mapped"
         legend = f"legend entry '{name}'" if y in nleg and name else ("legend entry" if y in nleg else "no legend entry")
@@ -133,7 +136,7 @@ def match_units(cmp: Comparison, polygon_changes: list[Change]) -> UnitsFound:
     for x in removed:
         if x in pairs:
             continue
-        name = oleg.get(x, {}).get("name", "")
+        name = oleg.get(x, {}).get(oname, "")
         n, area, geom = _unit_stats(cmp, lo, x, "old")
         where = f"was mapped in {n} polygon(s), {fmt_area(area)}" if n else "was not mapped"
         legend = f"legend entry '{name}'" if x in oleg and name else ("legend entry" if x in oleg else "no legend entry")

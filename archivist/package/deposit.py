@@ -12,10 +12,9 @@ import pyproj
 
 from ..errors import ArchivistError
 from ..identifiers import orcid_problem
-from ..manifest import MANIFEST_NAME
+from ..manifest import DEPOSIT_KEYS, MANIFEST_NAME
 from ..project import MapProject, crs_label
-from ..rules.metadata import DEPOSIT_KEYS, licence_problem
-from .licences import Licence, licences
+from ..vocab.licences import Licence, licence_problem, licences
 
 NAME_PATTERN = re.compile(r"^[a-z0-9][a-z0-9._-]*$")
 UNAVAILABLE = "(:unav)"  # DataCite's standard value for information not available (from memory)

@@ -16,6 +16,7 @@ import datetime as dt
 import json
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import geopandas as gpd
 import numpy as np
@@ -26,7 +27,9 @@ import shapely
 
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
-from ..rules.metadata import measures_statement
+from ..vocab.legend import column as legend_column
+from ..vocab.legend import columns as legend_columns
+from ..vocab.statements import measures_statement
 from .determinism import gdal_date
 from .tables import TextTable, column_text, text_table
 
@@ -63,7 +66,8 @@ AZIMUTH = {
     "dip-direction": "Dip direction, in degrees clockwise from north.",
     "right-hand-rule": "Strike, in degrees clockwise from north; the dip is to the right looking along the strike (right-hand rule).",
 }
-LEGEND_COLUMNS = {
+LEGEND_COLUMNS = {  # key of archivist.vocab.legend -> (description, unit)
+    "unit": (FIELD_DESCRIPTIONS[("legend", "unit_field")], None),
     "name": ("Name of the unit.", None),
     "description": ("Description of the unit.", None),
     "age": ("Age, as named on the International Chronostratigraphic Chart.", None),
@@ -103,7 +107,7 @@ class PreparedLayer:
         if not present.any():
             return None
         b = shapely.total_bounds(geoms[present])
-        return tuple(float(v) for v in b)
+        return (float(b[0]), float(b[1]), float(b[2]), float(b[3]))
 
 
 def _fids(frame: gpd.GeoDataFrame) -> np.ndarray:
@@ -126,10 +130,17 @@ def _require_finite(geoms: np.ndarray, source: str, target: str) -> None:
         )
 
 
+def _map_crs(project: MapProject) -> pyproj.CRS:
+    """The declared map CRS (``read_deposit`` refuses a project without one before any layer is prepared)."""
+    if project.crs is None:
+        raise ArchivistError("map.crs is missing or not understood; a package needs the map CRS")
+    return project.crs
+
+
 def prepare_layers(project: MapProject) -> list[PreparedLayer]:
     """The project's layers in role order, each in the map CRS with a ``fid`` column."""
     out = []
-    target: pyproj.CRS = project.crs
+    target = _map_crs(project)
     for role in LAYER_ROLES:
         layer = project.layers.get(role)
         if layer is None:
@@ -258,7 +269,7 @@ def write_geojson(pl: PreparedLayer, path: Path) -> None:
     geojson = shapely.to_geojson(rounded).astype(object)
     geojson[shapely.is_missing(rounded)] = "null"
     features = _features_json(pl.frame, geojson)
-    head = {"type": "FeatureCollection", "name": pl.role}
+    head: dict[str, Any] = {"type": "FeatureCollection", "name": pl.role}
     if present.any():
         b = shapely.total_bounds(rounded[present])
         head["bbox"] = [round(float(v), 7) for v in b]
@@ -302,10 +313,10 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
         geoms = np.asarray(pl.frame.geometry.array, dtype=object)
         frame[xname] = shapely.get_x(geoms)
         frame[yname] = shapely.get_y(geoms)
-        label = project.crs.name
-        descriptions[xname] = f"Easting of the point in the map CRS ({label})."
-        descriptions[yname] = f"Northing of the point in the map CRS ({label})."
-        unit = _axis_unit(project.crs)
+        crs = _map_crs(project)
+        descriptions[xname] = f"Easting of the point in the map CRS ({crs.name})."
+        descriptions[yname] = f"Northing of the point in the map CRS ({crs.name})."
+        unit = _axis_unit(crs)
         if unit:
             units[xname] = units[yname] = unit
     table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
@@ -321,16 +332,21 @@ def project_table(project: MapProject, role: str) -> TextTable:
     identifiers = set()
     descriptions: dict[str, str] = {}
     units: dict[str, str] = {}
-    for key, col in spec.items():
+    for key, col in spec.items() if role != "legend" else ():
         if key.endswith("_field") and isinstance(col, str):
             identifiers.add(col)
             if (role, key) in FIELD_DESCRIPTIONS:
                 descriptions[col] = FIELD_DESCRIPTIONS[(role, key)]
-    if role == "legend":
-        for col, (desc, unit) in LEGEND_COLUMNS.items():
+    if role == "legend":  # its columns as the checks find them (archivist.vocab.legend)
+        for key, col in legend_columns(t).items():
+            if col is None:
+                continue
+            desc, unit = LEGEND_COLUMNS[key]
             descriptions.setdefault(col, desc)
             if unit:
                 units[col] = unit
+            if key == "unit":
+                identifiers.add(col)
     if role == "analyses":
         units.update({str(k): str(v) for k, v in (spec.get("units") or {}).items()})
     table = text_table(role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses")
@@ -349,18 +365,18 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
         if role in project.layers:
             table.primary_key = ["fid"]
     legend = tables.get("legend")
-    legend_unit = project.tables["legend"].spec.get("unit_field") if "legend" in project.tables else None
-    if legend is not None and legend.has(legend_unit):
+    legend_unit = legend_column(project.tables["legend"], "unit") if "legend" in project.tables else None
+    if legend is not None and legend_unit is not None and legend.has(legend_unit):
         legend.primary_key = [legend_unit]
     samples = tables.get("samples")
     sample_id = project.layers["samples"].spec.get("id_field") if "samples" in project.layers else None
-    if samples is not None and samples.has(sample_id):
+    if samples is not None and sample_id is not None and samples.has(sample_id):
         samples.primary_key = [sample_id]
     for role in ("units", "samples"):
-        table = tables.get(role)
+        linked = tables.get(role)
         unit = project.layers[role].spec.get("unit_field") if role in project.layers else None
-        if table is not None and legend is not None and table.has(unit) and legend.has(legend_unit):
-            table.foreign_keys.append({"fields": [unit], "reference": {"resource": "legend", "fields": [legend_unit]}})
+        if linked is not None and legend is not None and linked.has(unit) and legend.has(legend_unit):
+            linked.foreign_keys.append({"fields": [unit], "reference": {"resource": "legend", "fields": [legend_unit]}})
     analyses = tables.get("analyses")
     sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
     if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):

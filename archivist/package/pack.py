@@ -535,7 +535,7 @@ def _write_payload(
             deposit,
             shared,
             [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source) for pl in layers],
-            legend_rows(legend.frame if legend else None, legend.spec.get("unit_field") if legend else None),
+            legend_rows(legend),
             [(t.name, t.title, len(t.frame)) for t in tables],
             bbox,
             bbox_wgs84,

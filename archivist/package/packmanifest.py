@@ -11,6 +11,7 @@ from typing import Any
 
 from ..project import MapProject
 from ..tomltext import dump_toml
+from ..vocab.legend import column as legend_column
 
 __all__ = ["packaged_manifest", "dump_toml"]
 LAYER_KEYS_DROPPED = ("path", "layer", "sheet", "x_field", "y_field", "crs")
@@ -26,6 +27,9 @@ def packaged_manifest(project: MapProject, layer_roles: list[str], table_paths: 
     tables = {}
     for role, path in table_paths.items():
         spec = {k: v for k, v in project.tables[role].spec.items() if k not in ("path", "sheet")}
+        if role == "legend" and "unit_field" not in spec:  # name the key column the checks found
+            found = legend_column(project.tables[role], "unit")
+            spec = {"unit_field": found, **spec} if found is not None else spec
         tables[role] = {"path": path, **spec}
     if tables:
         out["tables"] = tables

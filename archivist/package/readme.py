@@ -3,14 +3,17 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import pandas as pd
 import yaml
 
 from .._version import __version__
 from ..model import Finding, Report
+from ..vocab import legend as legend_vocab
 from .deposit import Deposit
+
+if TYPE_CHECKING:
+    from ..project import Table
 
 NOT_COVERED = (
     "archivist checks the form and consistency of the data: geometry, topology, the references between "
@@ -61,19 +64,17 @@ def _finding_line(f: Finding) -> str:
     return f"{f.rule}: {f.message}{where}"
 
 
-def legend_rows(legend: pd.DataFrame | None, unit_col: str | None) -> list[tuple[str, str, str, str]]:
-    """(code, name, age, age range in Ma) per legend row, in legend order."""
-    if legend is None or unit_col is None or unit_col not in legend.columns:
+def legend_rows(legend: Table | None) -> list[tuple[str, str, str, str]]:
+    """(code, name, age, age range in Ma) per legend row, in legend order (columns found by :mod:`archivist.vocab.legend`)."""
+    if legend is None or legend_vocab.column(legend, "unit") is None:
         return []
+    records = legend_vocab.records(legend)
     rows = []
-    frame = legend.copy()
-    if "order" in frame.columns:
-        order = pd.to_numeric(frame["order"], errors="coerce")
-        frame = frame.assign(_o=order).sort_values("_o", kind="stable")
-    for _, r in frame.iterrows():
+    for i in legend_vocab.display_order(legend):
+        r = records[i]
         lo, hi = r.get("min_age_ma", ""), r.get("max_age_ma", "")
         span = f"{lo}–{hi}" if str(lo) != "" and str(hi) != "" and str(lo) != str(hi) else str(lo or hi or "")
-        rows.append((str(r[unit_col]), str(r.get("name", "")), str(r.get("age", "")), span))
+        rows.append((str(r["unit"]), str(r.get("name", "")), str(r.get("age", "")), span))
     return rows
 
 

@@ -15,20 +15,18 @@ from __future__ import annotations
 import datetime as dt
 import re
 from dataclasses import dataclass, field
-from typing import Any
+from typing import AbstractSet, Any
 
 import numpy as np
 import pandas as pd
 
 from ..readers import as_text
+from ..vocab.analytes import BELOW_LIMIT, ColumnUnit, column_unit
 
 INTEGER = re.compile(r"^[+-]?(?:0|[1-9]\d*)$")
 NUMBER = re.compile(r"^[+-]?(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
-CENSORED = re.compile(r"^<\s*(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
 DATE = re.compile(r"^\d{4}-\d{2}-\d{2}$")
 DATETIME = re.compile(r"^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}(?:\.\d+)?(?:Z|[+-]\d{2}:\d{2})?$")
-# "SiO2 (wt%)", "Zr [ppm]": the unit in brackets at the end of a header.
-HEADER_UNIT = re.compile(r"^(?P<name>.*?\S)\s*[\(\[]\s*(?P<unit>[^\)\]]+?)\s*[\)\]]\s*$")
 
 
 @dataclass
@@ -85,7 +83,7 @@ def _infer(texts: pd.Series) -> tuple[str, bool]:
         return "date", False
     if values.str.match(DATETIME).all():
         return "datetime", False
-    censored = values.str.match(CENSORED)
+    censored = values.str.match(BELOW_LIMIT)
     if (numeric | censored).all() and censored.any():
         return "string", True
     return "string", False
@@ -138,19 +136,11 @@ def column_text(series: pd.Series, *, identifier: bool = False) -> tuple[pd.Seri
     return out, kind, censored
 
 
-def header_unit(name: str) -> tuple[str, str | None]:
-    """(quantity, unit) from a header such as ``SiO2 (wt%)``; (header, None) when it carries no unit."""
-    m = HEADER_UNIT.match(name)
-    if not m:
-        return name, None
-    return m.group("name"), m.group("unit")
-
-
 def text_table(
     name: str,
     frame: pd.DataFrame,
     *,
-    identifiers: set[str] = frozenset(),
+    identifiers: AbstractSet[str] = frozenset(),
     descriptions: dict[str, str] | None = None,
     units: dict[str, str] | None = None,
     header_units: bool = False,
@@ -158,8 +148,11 @@ def text_table(
     """Convert ``frame`` to text and describe each column as a Table Schema field.
 
     ``identifiers`` are columns kept as text; ``descriptions`` and ``units``
-    give a column's description and unit; with ``header_units`` a unit in
-    brackets at the end of a header (``SiO2 (wt%)``) is read as the unit.
+    give a column's description and unit; with ``header_units`` the unit a
+    header carries (``SiO2 (wt%)``, ``Cu [ppm]``, ``FeOt_wt%``) is read as the
+    checks read it (:func:`archivist.vocab.analytes.column_unit`): a total-iron
+    mark such as ``(T)`` is never a unit, and the column is described as total
+    iron.
     """
     descriptions = descriptions or {}
     units = units or {}
@@ -170,11 +163,14 @@ def text_table(
         text, kind, censored = column_text(frame[column], identifier=col in identifiers)
         cols[col] = text
         spec: dict[str, Any] = {"name": col, "type": kind}
-        quantity, unit = header_unit(col) if header_units else (col, None)
-        unit = units.get(col, unit)
+        read = column_unit(col) if header_units else ColumnUnit(col, None, False)
+        quantity = f"{read.quantity} (total iron)" if read.total_iron else read.quantity
+        unit = units.get(col, read.unit)
         desc = descriptions.get(col)
         if unit and not desc:
             desc = f"{quantity}, in {unit}."
+        elif read.total_iron and not desc:
+            desc = f"{quantity}."
         if censored:
             desc = (desc + " " if desc else "") + "Values below the detection limit are written '<limit', as reported."
         if desc:

@@ -12,8 +12,7 @@ import zlib
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-import numpy as np
-import pandas as pd
+from ..vocab import legend as legend_vocab
 
 if TYPE_CHECKING:
     from ..project import MapProject
@@ -49,18 +48,13 @@ def legend_rows(project: MapProject | None) -> list[dict[str, Any]]:
     table = p.tables.get("legend") if p is not None else None
     if table is None:
         return legend_rows
-    df = table.frame
-    ucol = table.spec.get("unit_field", "unit")
-    if ucol not in df.columns:
+    if legend_vocab.column(table, "unit") is None:
         return legend_rows
-    rows = df.to_dict("records")
-    if "order" in df.columns:
-        order = pd.to_numeric(df["order"], errors="coerce").to_numpy(dtype=float)
-        idx = sorted(range(len(rows)), key=lambda i: (np.isnan(order[i]), order[i] if not np.isnan(order[i]) else 0, i))
-        rows = [rows[i] for i in idx]
+    records = legend_vocab.records(table)  # keyed "unit", "name", "colour"... whatever the headers
+    rows = [records[i] for i in legend_vocab.display_order(table)]
     seen = set()
     for r in rows:
-        code = "" if r.get(ucol) is None else str(r.get(ucol)).strip()
+        code = "" if r.get("unit") is None else str(r.get("unit")).strip()
         if not code or code in seen:
             continue
         seen.add(code)

@@ -18,6 +18,7 @@ import numpy as np
 
 from ..model import Hit, Severity
 from ..registry import rule
+from ..vocab.legend import column as legend_column
 
 if TYPE_CHECKING:
     from ..engine import CheckContext
@@ -675,7 +676,7 @@ def archive_legend_incomplete(project: MapProject, ctx: CheckContext) -> Iterato
     layer = project.layers["units"]
     legend = project.tables["legend"]
     units = layer.text("unit_field")
-    code_col = legend.field("unit_field")
+    code_col = legend_column(legend, "unit")
     if units is None or code_col is None:
         return
     from ..readers import text_column
@@ -692,10 +693,9 @@ def archive_legend_incomplete(project: MapProject, ctx: CheckContext) -> Iterato
             layer="legend",
             features=tuple(c for c, _ in absent),
         )
-    columns = {c.lower(): c for c in map(str, legend.frame.columns)}
     lacking: dict[str, list[str]] = OrderedDict()
     for want in LEGEND_DETAIL:
-        col = columns.get(want)
+        col = legend_column(legend, want)
         values = text_column(legend.frame[col]) if col else np.full(len(codes), "", dtype=object)
         for code, v in zip(codes, values):
             if code and not str(v).strip():

@@ -1,8 +1,9 @@
 """Family `legend`: is every mapped unit explained, completely and consistently with the time scale?
 
 The legend is a table (`[tables.legend]`) with one row per unit. archivist
-reads these columns (names matched without regard to case; `color` is
-accepted for `colour`): `unit` (or the `unit_field` of the manifest entry),
+reads these columns (found by `archivist.vocab.legend`: the manifest's
+`*_field` keys, else the usual header spellings in any case, such as `Code`,
+`Unit name`, `Color`, `Min age (Ma)`): `unit`,
 `name`, `description`, `age` (a name of the International
 Chronostratigraphic Chart), `min_age_ma` and `max_age_ma` (numerical ages,
 youngest and oldest, in Ma), `order` (1 = top of the legend = youngest),
@@ -17,6 +18,7 @@ evidence decides the ages.
 from __future__ import annotations
 
 import re
+from typing import TYPE_CHECKING, Iterator
 
 import numpy as np
 import pandas as pd
@@ -26,37 +28,22 @@ from ..model import Hit
 from ..readers import as_text
 from ..reference import CHART_VERSION, AgeError, parse_age
 from ..registry import rule
+from ..vocab.legend import REQUIRED, cells, column, wanted
 
-REQUIRED = ("unit", "name", "description", "age")
-ALIASES = {"colour": ("colour", "color"), "min_age_ma": ("min_age_ma",), "max_age_ma": ("max_age_ma",)}
+if TYPE_CHECKING:
+    from ..engine import CheckContext
+    from ..project import MapProject, Table
+
 EXEMPT_KINDS = ("intrusive", "intrusion", "tectonic")
 _HEX = re.compile(r"^#[0-9A-Fa-f]{6}$")
 
 
 # ---------------------------------------------------------------- reading the legend
 
-def column(table, key: str) -> str | None:
-    """The legend column for ``key`` ("unit" follows the manifest's unit_field), matched without regard to case."""
-    names = (table.spec.get("unit_field", "unit"),) if key == "unit" else ALIASES.get(key, (key,))
-    folded = {str(c).strip().casefold(): c for c in table.frame.columns}
-    for name in names:
-        if str(name).strip().casefold() in folded:
-            return folded[str(name).strip().casefold()]
-    return None
-
-
-def cells(table, key: str) -> np.ndarray | None:
-    """A legend column as stripped text (None when the column is absent)."""
-    col = column(table, key)
-    if col is None:
-        return None
-    return np.array([as_text(v).strip() for v in table.frame[col].to_numpy(dtype=object)], dtype=object)
-
-
-def row_ref(table, i: int) -> str:
+def row_ref(table: Table, i: int | np.integer) -> str:
     """A data row as a mapper finds it: "legend.csv, row 5" or "legend.xlsx, sheet 'units', row 5"."""
     data = table.data
-    line = data.line(i)
+    line = data.line(int(i))
     return f"{data.file}, sheet '{data.sheet}', row {line}" if data.sheet else f"{data.file}, row {line}"
 
 
@@ -88,7 +75,7 @@ def _mapped(project):
 
 
 @rule("legend-missing-unit", family="legend", severity="error", needs=("units", "legend"))
-def legend_missing_unit(project, ctx):
+def legend_missing_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A unit code on the map has no entry in the legend.
 
     Catches
@@ -150,7 +137,7 @@ def legend_missing_unit(project, ctx):
 
 
 @rule("legend-unused-unit", family="legend", severity="notice", needs=("units", "legend"))
-def legend_unused_unit(project, ctx):
+def legend_unused_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A legend entry is never used on the map.
 
     Catches
@@ -187,7 +174,7 @@ def legend_unused_unit(project, ctx):
 
 
 @rule("legend-duplicate-unit", family="legend", severity="error", needs=("legend",))
-def legend_duplicate_unit(project, ctx):
+def legend_duplicate_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two legend rows carry the same unit code.
 
     Catches
@@ -231,7 +218,7 @@ def legend_duplicate_unit(project, ctx):
 
 
 @rule("legend-incomplete-entry", family="legend", severity="error", needs=("legend",))
-def legend_incomplete_entry(project, ctx):
+def legend_incomplete_entry(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A legend entry lacks a required column: unit, name, description or age.
 
     Catches
@@ -261,7 +248,7 @@ def legend_incomplete_entry(project, ctx):
     for key in REQUIRED:
         col = cells(legend, key)
         if col is None:
-            name = legend.spec.get("unit_field", "unit") if key == "unit" else key
+            name = wanted(legend, key)
             have = ", ".join(map(str, legend.frame.columns)) or "none"
             yield Hit(f"{legend.source} has no '{name}' column (columns: {have}).", layer="legend")
         else:
@@ -301,7 +288,7 @@ def colour_problem(text: str) -> str | None:
 
 
 @rule("legend-bad-colour", family="legend", severity="warning", needs=("legend",))
-def legend_bad_colour(project, ctx):
+def legend_bad_colour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A legend colour is not written as #RRGGBB.
 
     Catches
@@ -334,6 +321,8 @@ def legend_bad_colour(project, ctx):
         return
     values = cells(legend, "colour")
     codes = cells(legend, "unit")
+    if values is None:
+        return
     for i, text in enumerate(values):
         why = colour_problem(text)
         if why:
@@ -350,7 +339,7 @@ def _span_words(span) -> str:
 
 
 @rule("legend-age-unknown", family="legend", severity="warning", needs=("legend",))
-def legend_age_unknown(project, ctx):
+def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A legend age is not a unit of the International Chronostratigraphic Chart, or its numbers do not fit it.
 
     Catches
@@ -388,11 +377,11 @@ def legend_age_unknown(project, ctx):
     legend = project.tables["legend"]
     ages = cells(legend, "age")
     codes = cells(legend, "unit")
-    if ages is None:
+    age_col = column(legend, "age")
+    if ages is None or age_col is None:
         return
     lo_col, hi_col = column(legend, "min_age_ma"), column(legend, "max_age_ma")
     lo_txt, hi_txt = cells(legend, "min_age_ma"), cells(legend, "max_age_ma")
-    age_col = column(legend, "age")
     for i, text in enumerate(ages):
         unit = _unit_name(codes, i)
         feats = (codes[i],) if codes is not None and codes[i] else ()
@@ -404,7 +393,7 @@ def legend_age_unknown(project, ctx):
                 yield Hit(f"{legend.data.cell(i, age_col)} ({unit}): '{text}' {exc}.", layer="legend", features=feats)
         nums = {}
         for key, col, txt in (("min_age_ma", lo_col, lo_txt), ("max_age_ma", hi_col, hi_txt)):
-            if col is None or not txt[i]:
+            if col is None or txt is None or not txt[i]:
                 continue
             value = _number(txt[i])
             if value is None or value < 0:
@@ -469,7 +458,7 @@ def _intervals(legend):
 
 
 @rule("legend-age-order", family="legend", severity="warning", needs=("legend",))
-def legend_age_order(project, ctx):
+def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The legend's order (youngest first) contradicts the units' ages.
 
     Catches
@@ -524,7 +513,9 @@ def legend_age_order(project, ctx):
     younger = (base[:, None] <= top[None, :]) & differ
     inverted = above & older
     concordant = above & younger
-    name = (lambda i: codes[i] if codes is not None and codes[i] else f"row {legend.data.line(i)}")
+    def name(i: int | np.integer) -> str:
+        return str(codes[i]) if codes is not None and codes[i] else f"row {legend.data.line(int(i))}"
+
     if inverted.sum() >= 2 and not concordant.any():
         yield Hit(
             f"{legend.source}: the legend is listed oldest first by {by}; archivist expects youngest first (order 1 = youngest).",

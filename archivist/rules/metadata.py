@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import re
-from functools import lru_cache
+from typing import TYPE_CHECKING, Any, Callable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -12,10 +12,18 @@ import shapely
 from ..farcoords import coordinate_limit, far_out
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
 from ..model import Hit, Severity
+from ..manifest import DEPOSIT_KEYS
 from ..project import EXPECTED_GEOMETRY
 from ..registry import all_rules, rule
+from ..vocab.legend import unfound_unit
+from ..vocab.licences import licence_problem
+from ..vocab.statements import measures_statement
 
-DEPOSIT_KEYS = ("title", "version", "abstract", "licence", "authors")
+if TYPE_CHECKING:
+    from ..engine import CheckContext
+    from ..project import MapProject
+    from ..readers import TableData
+
 
 
 def _loading(project, rule_id):
@@ -23,7 +31,7 @@ def _loading(project, rule_id):
 
 
 @rule("manifest-invalid", family="metadata", severity="error")
-def manifest_invalid(project, ctx):
+def manifest_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The manifest breaks its schema: an unknown key, a missing required key, a value of the wrong type.
 
     Catches
@@ -57,7 +65,7 @@ def manifest_invalid(project, ctx):
 
 
 @rule("layer-missing", family="metadata", severity="error")
-def layer_missing(project, ctx):
+def layer_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A file, layer or sheet named in the manifest is not there.
 
     Catches
@@ -85,7 +93,7 @@ def layer_missing(project, ctx):
 
 
 @rule("layer-unreadable", family="metadata", severity="error")
-def layer_unreadable(project, ctx):
+def layer_unreadable(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A file named in the manifest exists but cannot be read as a layer or table.
 
     Catches
@@ -112,7 +120,7 @@ def layer_unreadable(project, ctx):
 
 
 @rule("table-not-utf8", family="metadata", severity="error")
-def table_not_utf8(project, ctx):
+def table_not_utf8(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A CSV table is not encoded as UTF-8.
 
     Catches
@@ -140,7 +148,7 @@ def table_not_utf8(project, ctx):
 
 
 @rule("field-missing", family="metadata", severity="error")
-def field_missing(project, ctx):
+def field_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A field the manifest names (or the default name for it) is not in the layer or table.
 
     Catches
@@ -165,11 +173,15 @@ def field_missing(project, ctx):
     Units with a `code` column and no `unit_field` key give
     "layers.units: field 'unit' (unit_field) is not in 'map.gpkg:units'".
     """
+    legend = project.tables.get("legend")
+    unfound = unfound_unit(legend) if legend is not None else None
+    if unfound is not None:
+        yield unfound
     yield from _loading(project, "field-missing")
 
 
 @rule("metadata-incomplete", family="metadata", severity="warning")
-def metadata_incomplete(project, ctx):
+def metadata_incomplete(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Metadata a deposit needs is missing from `[map]`.
 
     Catches
@@ -202,29 +214,8 @@ def metadata_incomplete(project, ctx):
             yield Hit(f"map.authors[{i}].name is empty.", layer="manifest")
 
 
-@lru_cache(maxsize=1)
-def _spdx():
-    from license_expression import get_spdx_licensing
-
-    return get_spdx_licensing()
-
-
-def licence_problem(expression: str) -> str | None:
-    """None when `expression` is a valid SPDX licence expression, else why not."""
-    try:
-        info = _spdx().validate(expression, strict=True)
-    except Exception:  # the parser raises on some free text instead of reporting it
-        return f"'{expression}' is not an SPDX licence identifier or expression"
-    if info.errors:
-        unknown = [s for s in info.invalid_symbols]
-        if unknown:
-            return f"'{', '.join(map(str, unknown))}' is not on the SPDX licence list"
-        return "; ".join(info.errors)
-    return None
-
-
 @rule("licence-unknown", family="metadata", severity="error")
-def licence_unknown(project, ctx):
+def licence_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The licence is not a recognised SPDX licence identifier or expression.
 
     Catches
@@ -255,7 +246,7 @@ def licence_unknown(project, ctx):
 
 
 @rule("identifier-invalid", family="metadata", severity="error")
-def identifier_invalid(project, ctx):
+def identifier_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A persistent identifier is malformed or fails its check digit.
 
     Catches
@@ -302,11 +293,11 @@ def identifier_invalid(project, ctx):
             yield Hit(f"map.doi '{m['doi']}' {why}.", layer="manifest")
     samples = project.layers.get("samples")
     values = samples.text("igsn_field") if samples is not None else None
-    if values is not None:
+    if samples is not None and values is not None:
         column = samples.field("igsn_field")
         present = np.array([bool(v.strip()) for v in values], dtype=bool)
         geoms = samples.geometry
-        for i in np.flatnonzero(present):
+        for i in map(int, np.flatnonzero(present)):
             why = igsn_problem(values[i])
             if why:
                 sid = samples.ids[i]
@@ -327,7 +318,7 @@ def _empty_mask(geoms: np.ndarray) -> np.ndarray:
 
 
 @rule("geometry-missing", family="metadata", severity="error")
-def geometry_missing(project, ctx):
+def geometry_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A feature has no geometry (null or empty).
 
     Catches
@@ -360,7 +351,7 @@ def geometry_missing(project, ctx):
 
 
 @rule("geometry-type-unexpected", family="metadata", severity="error")
-def geometry_type_unexpected(project, ctx):
+def geometry_type_unexpected(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer holds geometries of the wrong type for its role.
 
     Catches
@@ -404,7 +395,7 @@ def geometry_type_unexpected(project, ctx):
 
 
 @rule("geometry-invalid", family="metadata", severity="error")
-def geometry_invalid(project, ctx):
+def geometry_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A geometry is invalid by the OGC Simple Features rules, with GEOS's reason.
 
     Catches
@@ -454,7 +445,7 @@ def geometry_invalid(project, ctx):
 # ---------------------------------------------------------------- spreadsheets and published cells
 
 @rule("column-unnamed", family="metadata", severity="warning")
-def column_unnamed(project, ctx):
+def column_unnamed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A spreadsheet column holds data but has no header of its own.
 
     Catches
@@ -486,8 +477,16 @@ def column_unnamed(project, ctx):
     yield from _loading(project, "column-unnamed")
 
 
+def _feature_label(ids: np.ndarray) -> Callable[[int], str]:
+    return lambda i: f"feature {ids[i]}"
+
+
+def _row_label(data: TableData) -> Callable[[int], str]:
+    return lambda i: f"row {data.line(i)}"
+
+
 @rule("formula-value-missing", family="metadata", severity="error")
-def formula_value_missing(project, ctx):
+def formula_value_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Spreadsheet formula cells carry no stored value, so they read as empty.
 
     Catches
@@ -538,7 +537,7 @@ def _shown(value: str) -> str:
 
 
 @rule("formula-like-value", family="metadata", severity="warning")
-def formula_like_value(project, ctx):
+def formula_like_value(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A text cell begins with `=`, `+`, `-`, `@`, a tab or a carriage return, so a spreadsheet may run it as a formula.
 
     Catches
@@ -569,14 +568,14 @@ def formula_like_value(project, ctx):
     A legend name `=HYPERLINK("http://example.invalid","Alder")` gives
     "legend.csv, column 'name': 1 value begins like a formula (row 2) ...".
     """
-    sources = []
+    sources: list[tuple[str, str, pd.DataFrame, list[Any], Callable[[int], str], np.ndarray | None]] = []
     for role, layer in project.layers.items():
         frame = layer.frame
         columns = [c for c in frame.columns if c != frame.geometry.name]
-        sources.append((role, layer.source, frame, columns, lambda i, ids=layer.ids: f"feature {ids[i]}", layer.ids))
+        sources.append((role, layer.source, frame, columns, _feature_label(layer.ids), layer.ids))
     for role, table in project.tables.items():
         frame = table.frame
-        sources.append((role, table.source, frame, list(frame.columns), lambda i, d=table.data: f"row {d.line(i)}", None))
+        sources.append((role, table.source, frame, list(frame.columns), _row_label(table.data), None))
     for role, source, frame, columns, where, ids in sources:
         for column in columns:
             series = frame[column]
@@ -597,7 +596,7 @@ def formula_like_value(project, ctx):
 
 
 @rule("layer-empty", family="metadata", severity="warning")
-def layer_empty(project, ctx):
+def layer_empty(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer named in the manifest is there but holds no feature.
 
     Catches
@@ -637,7 +636,7 @@ def layer_empty(project, ctx):
 
 
 @rule("coordinates-implausible", family="metadata", severity="error")
-def coordinates_implausible(project, ctx):
+def coordinates_implausible(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A feature has a coordinate that is not a finite number, or lies far beyond any extent of its CRS.
 
     Catches
@@ -682,19 +681,8 @@ def coordinates_implausible(project, ctx):
             )
 
 
-def measures_statement(layer) -> str:
-    """What happens to a layer's M values in a package, in one sentence (used by the rule and the package README)."""
-    n = layer.measured
-    role = layer.role
-    return (
-        f"{role} layer {layer.source}: {n} feature{'s' if n != 1 else ''} carr{'y' if n != 1 else 'ies'} M (measure) values, "
-        f"which archivist does not read; a package made from it holds them only in source/, which keeps the file byte "
-        f"for byte: map.gpkg and geojson/{role}.geojson hold the geometries without M"
-    )
-
-
 @rule("measures-source-only", family="metadata", severity="warning")
-def measures_source_only(project, ctx):
+def measures_source_only(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer's geometries carry M (measure) values that the package's map files will not hold.
 
     Catches

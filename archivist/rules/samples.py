@@ -12,7 +12,8 @@ in `[tables.analyses.units]`. Its unit is read from the header ("SiO2
 (wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest. Cells are read as
 numbers, censored values ("<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.",
 ">10000"), not-analysed marks ("n.a.", "-"), or unreadable (Excel error
-cells such as "#N/A", text, dates).
+cells such as "#N/A", text, dates). Headers, units and cells are read by
+`archivist.vocab.analytes`, which the package's Table Schemas also use.
 
 These checks test the bookkeeping of samples and analyses, not the
 geochemistry: a total inside the accepted range does not make an analysis
@@ -25,6 +26,7 @@ import datetime as dt
 import re
 import unicodedata
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import pandas as pd
@@ -34,6 +36,12 @@ from ..farcoords import far_out
 from ..model import Hit, Severity
 from ..readers import as_text, text_column
 from ..registry import rule
+from ..vocab.analytes import Analyte, Cells, analytes, classify
+from ..vocab.legend import cells as legend_cells
+
+if TYPE_CHECKING:
+    from ..engine import CheckContext
+    from ..project import MapProject, Table
 
 # ---------------------------------------------------------------- identifiers and their spreadsheet manglings
 
@@ -248,167 +256,15 @@ def probable_samples(value, index: SampleIndex) -> list[tuple[str, str]]:
     return list(found.items())
 
 
-# ---------------------------------------------------------------- analyte columns
+# ---------------------------------------------------------------- analyses
 
-ELEMENTS = frozenset(
-    "H He Li Be B C N O F Ne Na Mg Al Si P S Cl Ar K Ca Sc Ti V Cr Mn Fe Co Ni Cu Zn Ga Ge As Se Br Kr "
-    "Rb Sr Y Zr Nb Mo Tc Ru Rh Pd Ag Cd In Sn Sb Te I Xe Cs Ba La Ce Pr Nd Pm Sm Eu Gd Tb Dy Ho Er Tm Yb "
-    "Lu Hf Ta W Re Os Ir Pt Au Hg Tl Pb Bi Po At Rn Fr Ra Ac Th Pa U Np Pu".split()
-)
-_TOKEN = re.compile(r"([A-Z][a-z]?)(\d*)")
-_TOTAL_IRON = re.compile(r"^(.*?)(?:\(\s*(?:t|tot|total)\s*\)|t|tot|total|\*)$", re.IGNORECASE)
-UNIT_WORDS = {
-    "wt%": "wt%", "wt.%": "wt%", "wt %": "wt%", "wt. %": "wt%", "%": "wt%", "weight%": "wt%", "weight percent": "wt%",
-    "mass%": "wt%", "% m/m": "wt%", "pct": "wt%",
-    "ppm": "ppm", "µg/g": "ppm", "μg/g": "ppm", "ug/g": "ppm", "mg/kg": "ppm", "g/t": "ppm",
-    "ppb": "ppb", "ng/g": "ppb", "µg/kg": "ppb", "μg/kg": "ppb", "ug/kg": "ppb", "mg/t": "ppb",
-    "ppt": "ppt", "pg/g": "ppt",
-    "‰": "permil", "permil": "permil", "per mil": "permil", "per mille": "permil",
-    "mol%": "mol%", "ratio": "ratio", "1": "ratio",
-}
-_UNIT_ALT = "|".join(sorted((re.escape(u) for u in UNIT_WORDS), key=len, reverse=True))
-_HEADER_BRACKET = re.compile(r"^(?P<name>.+?)\s*(?:\((?P<p>[^()]*)\)|\[(?P<b>[^\[\]]*)\])\s*$")
-_HEADER_SUFFIX = re.compile(rf"^(?P<name>.+?)[\s_]+(?P<u>{_UNIT_ALT})$", re.IGNORECASE)
 REQUIRED_MAJORS = ("SiO2", "Al2O3", "MgO", "CaO", "Na2O", "K2O")
 VOLATILES = ("LOI", "H2O", "CO2", "H2O+", "H2O-")
-EXCEL_ERRORS = frozenset({"#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#UNKNOWN!", "#CONNECT!", "#BUSY!"})
-_CENSORED = re.compile(
-    r"^(?:[<>≤≥]\s*=?\s*(?:\d+(?:\.\d+)?|lod|lld|dl|d\.l\.|mdl|loq)|b\.?d\.?l\.?|n\.?d\.?|below detection(?: limit)?|not detected|<?\s*lod)$",
-    re.IGNORECASE,
-)
-_NOT_ANALYSED = frozenset({"n.a.", "na", "n/a", "n.a", "not analysed", "not analyzed", "-", "--", "---", "—", "–", "n.m.", "nm"})
-
-
-def _formula(name: str) -> tuple[bool, bool]:
-    """(is a chemical species, is total iron) for a header name such as "SiO2", "Fe2O3T", "87Sr"."""
-    text = name.strip()
-    total = False
-    m = _TOTAL_IRON.match(text)
-    if m and m[1] and "Fe" in m[1]:
-        text, total = m[1].strip(), True
-    text = re.sub(r"^\d{1,3}", "", text)  # isotope mass number: "87Sr"
-    text = text.rstrip("+-")  # "H2O+", "H2O-"
-    if not text or not re.fullmatch(r"(?:[A-Z][a-z]?\d*)+", text):
-        return False, False
-    return all(sym in ELEMENTS for sym, _ in _TOKEN.findall(text)), total
-
-
-@dataclass(frozen=True)
-class Analyte:
-    """An analyte column: its header, species name, unit (canonical) and where the unit came from."""
-
-    column: str
-    name: str
-    unit: str | None
-    unit_text: str | None
-    source: str | None  # "header", "manifest" or None
-    is_ratio: bool
-    is_total: bool
-    total_iron: bool
-    problem: str | None = None  # a unit question to report (unknown unit word, conflict)
-
-    @property
-    def is_volatile(self) -> bool:
-        return self.name.upper().rstrip("+-") in ("LOI", "H2O", "CO2")
-
-    @property
-    def is_oxide(self) -> bool:
-        return not self.is_ratio and not self.is_total and "O" in re.findall(r"[A-Z][a-z]?", self.name) and self.name != "O"
-
-    @property
-    def may_be_negative(self) -> bool:
-        """LOI is negative when a rock gains mass on ignition; delta values in per mil are signed."""
-        return self.name.upper() == "LOI" or self.unit == "permil"
-
-
-def split_header(header: str) -> tuple[str, str | None, str | None]:
-    """(name, canonical unit or None, unit text as written or None) of a column header."""
-    h = " ".join(str(header).split())
-    m = _HEADER_BRACKET.match(h)
-    if m:
-        inner = (m["p"] if m["p"] is not None else m["b"]).strip()
-        canon = UNIT_WORDS.get(inner.casefold()) or UNIT_WORDS.get(inner)
-        if canon:
-            return m["name"].strip(), canon, inner
-        if re.fullmatch(r"(?:t|tot|total)", inner, re.IGNORECASE):
-            return h, None, None  # "Fe2O3 (T)": total iron, not a unit
-        return m["name"].strip(), None, inner
-    m = _HEADER_SUFFIX.match(h)
-    if m:
-        return m["name"].strip(" _"), UNIT_WORDS[m["u"].casefold()] if m["u"].casefold() in UNIT_WORDS else UNIT_WORDS.get(m["u"]), m["u"]
-    return h, None, None
-
-
-def analytes(table) -> list[Analyte]:
-    """The analyte columns of the analyses table, with their units from the header or the manifest."""
-    declared = {str(k): str(v) for k, v in (table.spec.get("units") or {}).items()}
-    sample_col = table.spec.get("sample_field")
-    out = []
-    for col in table.frame.columns:
-        col = str(col)
-        if col == sample_col:
-            continue
-        name, unit, unit_text = split_header(col)
-        is_ratio = "/" in name and all(_formula(p)[0] for p in name.split("/"))
-        species, total_iron = _formula(name)
-        is_total = name.strip().casefold() in ("total", "sum", "total oxides", "sum of oxides")
-        is_loi = name.strip().upper() in ("LOI", "L.O.I.", "LOI*")
-        if not (species or is_ratio or is_total or is_loi or col in declared):
-            continue
-        problem = None
-        source = "header" if unit else None
-        if unit is None and unit_text is not None:
-            problem = f"'({unit_text})' in the header is not a unit archivist knows"
-        if col in declared:
-            d = declared[col].strip()
-            canon = UNIT_WORDS.get(d.casefold()) or UNIT_WORDS.get(d) or d
-            if unit is not None and canon != unit:
-                problem = f"the header says {unit_text} but tables.analyses.units says {d}"
-            elif unit is None:
-                unit, unit_text, source, problem = canon, d, "manifest", None
-        if is_ratio and unit is None and problem is None:
-            unit, source = "ratio", "implied"
-        out.append(Analyte(col, "LOI" if is_loi else name.strip(), unit, unit_text, source, is_ratio, is_total, total_iron, problem))
-    return out
-
-
-# ---------------------------------------------------------------- reading cells
-
-@dataclass
-class Cells:
-    """One analyte column's cells, classified (all arrays aligned with the table rows)."""
-
-    value: np.ndarray  # float; NaN unless a plain number
-    blank: np.ndarray
-    censored: np.ndarray
-    not_analysed: np.ndarray
-    excel_error: np.ndarray
-    unreadable: np.ndarray  # neither number, censored, not-analysed nor blank (includes Excel errors)
-    text: np.ndarray
-
-
-def classify(series: pd.Series) -> Cells:
-    """Classify the cells of one column in whole-column operations."""
-    obj = series.astype(object)
-    is_date = obj.map(lambda v: isinstance(v, (dt.date, dt.datetime))).to_numpy(dtype=bool)
-    missing = obj.isna().to_numpy(dtype=bool)
-    text = obj.where(~obj.isna(), "").map(str).str.strip()
-    blank = missing | (text == "").to_numpy(dtype=bool)
-    numeric_text = text.where(~pd.Series(is_date, index=text.index), "")
-    value = pd.to_numeric(numeric_text.where(~numeric_text.str.contains(",", regex=False), ""), errors="coerce").to_numpy(dtype=float, copy=True)
-    value[~np.isfinite(value)] = np.nan
-    folded = text.str.casefold()
-    censored = text.str.match(_CENSORED).to_numpy(dtype=bool) & ~blank
-    not_analysed = folded.isin(_NOT_ANALYSED).to_numpy(dtype=bool) & ~censored
-    excel_error = text.str.upper().isin(EXCEL_ERRORS).to_numpy(dtype=bool)
-    unreadable = ~blank & np.isnan(value) & ~censored & ~not_analysed
-    value[is_date] = np.nan
-    return Cells(value, blank, censored, not_analysed, excel_error, unreadable, text.to_numpy(dtype=object))
 
 
 @dataclass
 class Analyses:
-    table: object
+    table: Table
     sample_col: str | None
     sample_values: np.ndarray  # raw cell objects
     sample_text: np.ndarray  # as text (readers.text_column), not stripped
@@ -416,7 +272,7 @@ class Analyses:
     cells: dict[str, Cells]
 
 
-def read_analyses(project, ctx) -> Analyses:
+def read_analyses(project: MapProject, ctx: CheckContext) -> Analyses:
     def compute():
         table = project.tables["analyses"]
         col = table.field("sample_field")
@@ -428,7 +284,7 @@ def read_analyses(project, ctx) -> Analyses:
     return ctx.shared("samples:analyses", compute)
 
 
-def _sample_points(project, ctx):
+def _sample_points(project: MapProject, ctx: CheckContext) -> dict[str, Any]:
     """Sample id -> point (first one when ids repeat), for placing table findings on the map."""
 
     def compute():
@@ -461,7 +317,7 @@ def _fid(layer, i) -> str:
 
 
 @rule("sample-duplicate-id", family="samples", severity="error", needs=("samples",))
-def sample_duplicate_id(project, ctx):
+def sample_duplicate_id(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two samples share an id, or a sample has none.
 
     Catches
@@ -519,7 +375,7 @@ def sample_duplicate_id(project, ctx):
 
 
 @rule("sample-missing-location", family="samples", severity="error", needs=("samples",))
-def sample_missing_location(project, ctx):
+def sample_missing_location(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample has no usable location.
 
     Catches
@@ -572,7 +428,7 @@ def sample_missing_location(project, ctx):
         yield Hit(f"sample {sid} ({_fid(layer, i)} of {source}) {why}.", layer="samples", features=(layer.ids[i],) if layer.ids[i] else ())
 
 
-def _extent(project, ctx):
+def _extent(project: MapProject, ctx: CheckContext) -> Any:
     """The map's extent: the extent layer, else the union of the unit polygons; None when neither is there."""
 
     def compute():
@@ -592,14 +448,14 @@ def _extent(project, ctx):
     return None if found is None else found[0]
 
 
-def _extent_role(project, ctx) -> str | None:
+def _extent_role(project: MapProject, ctx: CheckContext) -> str | None:
     _extent(project, ctx)
     found = ctx.shared("samples:extent", lambda: None)
     return None if found is None else found[1]
 
 
 @rule("sample-outside-extent", family="samples", severity="warning", needs=("samples",))
-def sample_outside_extent(project, ctx):
+def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample lies outside the map's extent.
 
     Catches
@@ -649,7 +505,7 @@ def sample_outside_extent(project, ctx):
 
 
 @rule("sample-unit-mismatch", family="samples", severity="error", needs=("samples", "units"))
-def sample_unit_mismatch(project, ctx):
+def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """The unit recorded for a sample differs from the unit polygon it falls in.
 
     Catches
@@ -693,8 +549,9 @@ def sample_unit_mismatch(project, ctx):
     pts, polys = samples.geometry, units.geometry
     usable = ~(shapely.is_missing(pts) | shapely.is_empty(pts)) & (recorded != "")
     poly_ok = ~(shapely.is_missing(polys) | shapely.is_empty(polys))
-    tree = shapely.STRtree(np.where(poly_ok, polys, None))
-    pi, ui = tree.query(np.where(usable, pts, None), predicate="intersects")
+    nothing = np.array(None, dtype=object)
+    tree = shapely.STRtree(np.where(poly_ok, polys, nothing))
+    pi, ui = tree.query(np.where(usable, pts, nothing), predicate="intersects")
     if len(pi) == 0:
         return
     pairs = pd.DataFrame({"p": pi, "u": ui, "code": codes[ui]})
@@ -746,9 +603,7 @@ def _superficial_units(project) -> set[str]:
     legend = project.tables.get("legend")
     if legend is None:
         return set()
-    from .legend import cells
-
-    codes, kinds = cells(legend, "unit"), cells(legend, "kind")
+    codes, kinds = legend_cells(legend, "unit"), legend_cells(legend, "kind")
     if codes is None or kinds is None:
         return set()
     return {c for c, k in zip(codes, kinds) if c and k.casefold().startswith("superficial")}
@@ -756,7 +611,7 @@ def _superficial_units(project) -> set[str]:
 
 # ---------------------------------------------------------------- samples and analyses
 
-def _orphans(project, ctx):
+def _orphans(project: MapProject, ctx: CheckContext) -> list[tuple[int, Any, str, list[tuple[str, str]]]]:
     """Analysis rows whose sample id matches no sample exactly: (row, raw value, text, probable matches)."""
 
     def compute():
@@ -783,7 +638,7 @@ def _shown(raw, text) -> str:
 
 
 @rule("analysis-orphan", family="samples", severity="error", needs=("samples", "analyses"))
-def analysis_orphan(project, ctx):
+def analysis_orphan(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analysis names a sample id that matches no sample.
 
     Catches
@@ -816,6 +671,8 @@ def analysis_orphan(project, ctx):
     zeros lost)".
     """
     an = read_analyses(project, ctx)
+    if an.sample_col is None:  # no sample column: no orphans (see _orphans)
+        return
     for i, raw, text, probable in _orphans(project, ctx):
         where = an.table.data.cell(i, an.sample_col)
         if not text.strip() and not isinstance(raw, (dt.date, dt.datetime)):
@@ -838,7 +695,7 @@ def analysis_orphan(project, ctx):
 
 
 @rule("sample-unanalysed", family="samples", severity="notice", needs=("samples", "analyses"))
-def sample_unanalysed(project, ctx):
+def sample_unanalysed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A sample has no analysis.
 
     Catches
@@ -875,7 +732,7 @@ def sample_unanalysed(project, ctx):
         if len(probable) == 1:
             claimed.setdefault(probable[0][0], []).append(f"{an.table.data.cell(i, an.sample_col)} reads {_shown(raw, text)}")
     geoms = layer.geometry
-    for i in np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed))):
+    for i in map(int, np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed)))):
         sid = layer.ids[i]
         if not str(sid).strip():
             continue
@@ -890,7 +747,7 @@ def sample_unanalysed(project, ctx):
 
 
 @rule("analysis-unit-undeclared", family="samples", severity="error", needs=("analyses",))
-def analysis_unit_undeclared(project, ctx):
+def analysis_unit_undeclared(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte column has no unit, in its header or in the manifest.
 
     Catches
@@ -953,7 +810,7 @@ def _sample_of(an, r):
 
 
 @rule("analysis-value-unreadable", family="samples", severity="error", needs=("analyses",))
-def analysis_value_unreadable(project, ctx):
+def analysis_value_unreadable(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte cell holds an Excel error, a date or text that is not a value.
 
     Catches
@@ -1003,7 +860,7 @@ def analysis_value_unreadable(project, ctx):
 
 
 @rule("analysis-negative-value", family="samples", severity="error", needs=("analyses",))
-def analysis_negative_value(project, ctx):
+def analysis_negative_value(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An analyte value is negative.
 
     Catches
@@ -1087,7 +944,7 @@ def major_totals(an) -> tuple[np.ndarray, str, str | None] | None:
 
 
 @rule("analysis-total-out-of-range", family="samples", severity="warning", needs=("analyses",))
-def analysis_total_out_of_range(project, ctx):
+def analysis_total_out_of_range(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A major-oxide analysis does not total 98.5-101.5 wt%.
 
     Catches
@@ -1129,7 +986,7 @@ def analysis_total_out_of_range(project, ctx):
         rows = np.flatnonzero((totals < lo) | (totals > hi))
     for r in rows:
         v = totals[r]
-        where = an.table.data.cell(r, column) if column else f"{an.table.source}, row {an.table.data.line(r)}"
+        where = an.table.data.cell(int(r), column) if column else f"{an.table.source}, row {an.table.data.line(int(r))}"
         off, side = (lo - v, f"below {lo:g}") if v < lo else (v - hi, f"above {hi:g}")
         sid = _sample_of(an, r)
         via = "" if column else f" ({how})"

@@ -11,6 +11,7 @@ import json
 import re
 from pathlib import Path
 
+from ...vocab.licences import recognise_licence
 from ...safeparse import LimitExceeded, load_yaml
 from ..source import OpenedMap
 from .facts import ArchiveFacts, Statement, archive_paths, read_text, texts
@@ -21,64 +22,7 @@ EMAIL = re.compile(r"[A-Za-z0-9._%+-]+@[A-Za-z0-9.-]+\.[A-Za-z]{2,}")
 PROVENANCE_HEADING = re.compile(r"^#+\s*(methods?|lineage|provenance|sources?|history|how (?:the|this) map was made|data sources?)\b", re.I | re.M)
 AUTHOR_HEADING = re.compile(r"^#+\s*(authors?|creators?|contributors?)\b", re.I | re.M)
 
-# ------------------------------------------------------------------ licences
-
-_CC = re.compile(r"creativecommons\.org/licenses/(by(?:-nc)?(?:-sa|-nd)?)/(\d\.\d)", re.I)
-_CC0 = re.compile(r"creativecommons\.org/publicdomain/zero/1\.0|\bCC0\b", re.I)
-_CC_NAME = re.compile(
-    r"Creative Commons (Attribution(?:[- ]Non[- ]?Commercial)?(?:[- ]Share[- ]?Alike|[- ]No[- ]?Derivatives|[- ]NoDerivs)?) (\d\.\d)", re.I
-)
-_SPDX_EXPRESSION = re.compile(r"^\(?[A-Za-z0-9.+-]+\)?(?:\s+(?:AND|OR|WITH)\s+\(?[A-Za-z0-9.+-]+\)?)*$")
-_SPDX_TAG = re.compile(r"SPDX-License-Identifier:\s*([^\r\n]+)", re.I)
-_SPDX_URL = re.compile(r"spdx\.org/licenses/([A-Za-z0-9.+-]+?)(?:\.html|\.json)?(?:[\s\"')#]|$)", re.I)
-_NAMED = [
-    (re.compile(r"opendatacommons\.org/licenses/odbl|Open Database Licen[cs]e", re.I), "ODbL-1.0"),
-    (re.compile(r"opendatacommons\.org/licenses/by/|Open Data Commons Attribution Licen[cs]e", re.I), "ODC-By-1.0"),
-    (re.compile(r"opendatacommons\.org/licenses/pddl|Public Domain Dedication and Licen[cs]e", re.I), "PDDL-1.0"),
-    (re.compile(r"Open Government Licen[cs]e,? v(?:ersion)?\s*3\.0", re.I), "OGL-UK-3.0"),
-]
-
-
-def recognise_licence(text: str) -> str | None:
-    """The SPDX expression a licence statement names, or None when it names none archivist knows.
-
-    Reads an ``SPDX-License-Identifier:`` line, an SPDX list URL, a Creative
-    Commons or Open Data Commons URL or full name, or a bare SPDX expression.
-    Every candidate is checked against the SPDX licence list.
-    """
-    from license_expression import ExpressionError
-
-    from ...rules.metadata import licence_problem
-
-    candidates: list[str] = []
-    m = _SPDX_TAG.search(text)
-    if m:
-        candidates.append(m.group(1).strip())
-    candidates += [u for u in _SPDX_URL.findall(text)]
-    for kind, version in _CC.findall(text):
-        candidates.append(f"CC-{kind.upper()}-{version}")
-    for name, version in _CC_NAME.findall(text):
-        low = name.lower().replace("-", " ")
-        code = "BY" + ("-NC" if "non" in low else "") + ("-SA" if "share" in low else "") + ("-ND" if "deriv" in low else "")
-        candidates.append(f"CC-{code}-{version}")
-    if _CC0.search(text):
-        candidates.append("CC0-1.0")
-    for pattern, spdx in _NAMED:
-        if pattern.search(text):
-            candidates.append(spdx)
-    first = text.strip().splitlines()[0].strip() if text.strip() else ""
-    if first and len(first) < 80:
-        candidates.append(first)
-    for c in candidates:
-        if not c or not _SPDX_EXPRESSION.match(c.strip()):
-            continue
-        try:
-            if licence_problem(c.strip()) is None:
-                return c.strip()
-        except ExpressionError:  # the licence-expression parser's own error on odd input: then it names no licence
-            continue
-    return None
-
+# ------------------------------------------------------------------ licences: archivist.vocab.licences
 
 def gather_statements(facts: ArchiveFacts, opened: OpenedMap) -> None:
     """Every statement the archive makes about its licence, authors, contact, lineage and description."""

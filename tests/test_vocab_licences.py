@@ -1,7 +1,6 @@
 """Licences: SPDX ids from an expression, with names and canonical URLs."""
 
-from archivist.package.licences import licences
-from archivist.rules.metadata import licence_problem
+from archivist.vocab.licences import licence_problem, licences
 
 
 def test_single_licence():
@@ -16,7 +15,16 @@ def test_expression_keeps_written_order():
 
 def test_every_named_licence_is_on_the_spdx_list():
     # The names table must only hold ids the license-expression package's SPDX list knows.
-    from archivist.package.licences import NAMES
+    from archivist.vocab.licences import NAMES
 
     for spdx in NAMES:
         assert licence_problem(spdx) is None, spdx
+
+
+def test_punctuation_the_parser_cannot_read_is_a_reason_not_an_exception():
+    # license-expression fails inside its tokenizer on some punctuation (IndexError, AttributeError)
+    from archivist.vocab.licences import recognise_licence
+
+    for text in ("()-", "\x00", " ,4", "MIT AND"):
+        assert licence_problem(text) is not None
+        assert recognise_licence(text) is None

@@ -1,0 +1,16 @@
+"""One reader per vocabulary that several parts of archivist read.
+
+Each module here decides, in one place, how a piece of the mapper's own
+wording is understood, so that the checks, the HTML report, the package
+and the audit cannot read the same thing two ways:
+
+* :mod:`.legend`: which legend column holds the unit code, name, ages,
+  colour... (header spellings, the manifest's ``*_field`` keys);
+* :mod:`.analytes`: analyte column headers, their units, total-iron
+  notations, censored and not-analysed cell values;
+* :mod:`.licences`: SPDX licence expressions, their names, and licences
+  recognised in free text;
+* :mod:`.statements`: sentences a check and a package file both say.
+
+No module here imports from ``archivist.rules`` or ``archivist.package``.
+"""
