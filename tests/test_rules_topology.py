@@ -329,7 +329,7 @@ def test_clean_synthetic_map_of_some_thousands_of_polygons(tmp_path):
 
 @SETTINGS
 @given(n=st.integers(12, 40), seed=st.integers(0, 10_000), pick=st.integers(0, 10_000), factor=st.floats(3, 15))
-# polygon 1 covers a wide piece (overlap) and a 0.59 m wide one (edge mismatch) of the same neighbour
+# the grown polygon covers a wide piece (an overlap) and a 0.59 m wide one (an edge mismatch) of one neighbour
 @example(n=13, seed=871, pick=4549, factor=10.149234128620673)
 def test_injected_overlap_found_where_geos_says(n, seed, pick, factor):
     smap = synthetic_map(n, seed=seed, splay_fraction=0)
