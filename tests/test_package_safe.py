@@ -546,6 +546,7 @@ def test_path_over_path_max_refused_in_folder(tmp_path, private_tmp):
 
 # ---------------------------------------------------------------- SIGTERM mid-audit
 
+@pytest.mark.slow
 def test_sigterm_mid_audit_removes_the_private_copy(tmp_path):
     """A scheduler's SIGTERM while the audit reads the copy: the copy is removed, one line, exit 143 (128 + 15)."""
     import signal
