@@ -440,6 +440,7 @@ main()
 """
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("how, code", [(signal.SIGTERM, 143), (signal.SIGINT, 130)])
 def test_a_stopped_check_leaves_no_partial_output_and_says_so_in_one_line(tmp_path, how, code):
     """SIGTERM (a scheduler's limit, kill) and Ctrl-C while the report is being written.

@@ -109,6 +109,7 @@ def two_edits(dest: Path) -> dict:
     }
 
 
+@pytest.mark.slow
 def test_two_known_edits_exactly_at_their_places(tmp_path):
     edited = two_edits(tmp_path / "remap")
     result = run("diff", BUNDLE, tmp_path / "remap", "--format", "json", "--gpkg", tmp_path / "changes.gpkg")
@@ -144,6 +145,7 @@ def test_two_known_edits_exactly_at_their_places(tmp_path):
     assert sorted(lines["side"]) == ["new", "old"]
 
 
+@pytest.mark.slow
 def test_two_known_edits_text(tmp_path, monkeypatch):
     monkeypatch.setenv("NO_COLOR", "1")
     edited = two_edits(tmp_path / "remap")
@@ -162,12 +164,14 @@ def test_unchanged_gives_an_empty_list(tmp_path):
     assert data["changes"] == []
 
 
+@pytest.mark.slow
 def test_package_against_its_project_is_unchanged(tmp_path):
     archive = package_zip(tmp_path, "bundle")
     report = archivist.diff(archive, BUNDLE)
     assert report.changes == (), [c.message for c in report.changes]
 
 
+@pytest.mark.slow
 def test_ids_are_not_what_matches(tmp_path):
     """An editor renumbered every feature: no change."""
     new = copy(BUNDLE, tmp_path / "renumbered")

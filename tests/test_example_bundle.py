@@ -101,11 +101,13 @@ def shared_edges(polys):
     return out
 
 
+@pytest.mark.slow
 def test_runs_are_byte_identical(runs):
     for name in FILES:
         assert sha256(runs[0] / name) == sha256(runs[1] / name), f"{name} differs between two runs"
 
 
+@pytest.mark.slow
 def test_committed_bundle_is_what_the_script_makes(runs):
     """Same content as a fresh run. Text files byte for byte; the GeoPackage and the
     spreadsheet by content, since their bytes also depend on GDAL/openpyxl versions

@@ -125,6 +125,7 @@ def test_igsn_scheme_without_code(tmp_path):
     assert "no code" in f.message
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(not (BUNDLE / "archivist.toml").exists(), reason="example bundle not generated")
 def test_bundle_variants(tmp_path):
     clean = copy_bundle(tmp_path, "clean")

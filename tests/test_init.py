@@ -92,6 +92,7 @@ def test_init_on_bundle_files_recognises_every_role(tmp_path):
     assert "units" in result.output and "Confirm the" in result.output
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("defects", ["clean", "broken"])
 def test_check_gives_the_same_findings_as_the_original(tmp_path, defects):
     files = bundle_files(tmp_path)

@@ -240,6 +240,7 @@ def _fresh(tmp_path_factory) -> Path:
     return tmp_path_factory.mktemp("sandbox")
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("container", CONTAINERS)
 @settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(manifest=st.booleans(), defect=st.sampled_from(DEFECTS), inside=st.booleans())
@@ -332,6 +333,7 @@ def make_archive(base: Path, kind: str, port: int) -> Path:
 ARCHIVE_KINDS = ["package", "package-zip", "package-flipped", "traversal-zip", "vrt-local", "vrt-url", "yaml-bomb", "deep-json"]
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("kind", ARCHIVE_KINDS)
 @settings(max_examples=3, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(fmt=st.sampled_from(["text", "json"]), force=st.booleans())

@@ -325,6 +325,7 @@ def test_each_network_option_alone_keeps_vsicurl_off_the_network(option):
         server.close()
 
 
+@pytest.mark.slow
 @pytest.mark.filterwarnings("ignore::RuntimeWarning")
 def test_fence_the_connection_is_really_possible_without_it():
     # The listening socket does see GDAL's connections when the fence is off (so the test above means something).
