@@ -43,33 +43,6 @@ TOP = "archivist"
 # when it needs them, so ``archivist --help`` starts fast.
 GEOSPATIAL = ("geopandas", "shapely", "pyogrio", "pyproj", "fiona")
 
-# Violations present when this test was written, each fixed in its own change.
-# The test subtracts them so that it can land before those changes; whoever merges
-# a fix removes its entries here (the set ends up empty), and
-# test_known_violations_still_occur fails on any entry that no longer occurs.
-# Entries: "importer -> imported" for an import edge (it is left out of the graph),
-# "import archivist -> <library>" for a library loaded at start-up.
-KNOWN_VIOLATIONS_TO_REMOVE: set[str] = {
-    # rule families importing each other (imports inside rules count)
-    "archivist.rules.linework -> archivist.rules.topology",
-    "archivist.rules.topology -> archivist.rules.linework",
-    "archivist.rules.samples -> archivist.rules.legend",
-    # the subcommands import handle_errors back from the package that imports them
-    "archivist.cli.audit -> archivist.cli",
-    "archivist.cli.check -> archivist.cli",
-    "archivist.cli.diff -> archivist.cli",
-    "archivist.cli.init -> archivist.cli",
-    "archivist.cli.pack -> archivist.cli",
-    "archivist.cli.unpack -> archivist.cli",
-    # reading layers loads archivist.package (whose __init__ loads pack -> engine -> project -> vectorio)
-    "archivist.vectorio -> archivist.package",
-    # the package loads the engine and with it the geospatial stack
-    "import archivist -> geopandas",
-    "import archivist -> pyogrio",
-    "import archivist -> pyproj",
-    "import archivist -> shapely",
-}
-
 
 # ---------------------------------------------------------------- the import graph
 
@@ -269,18 +242,14 @@ def edges() -> list[Edge]:
     return import_graph()
 
 
-def _known(edges: list[Edge]) -> list[Edge]:
-    return [e for e in edges if str(e) not in KNOWN_VIOLATIONS_TO_REMOVE]
-
-
 def test_no_import_cycle(edges):
-    runtime = [e for e in _known(edges) if not e.type_only]
+    runtime = [e for e in edges if not e.type_only]
     cycles = find_cycles(runtime)
     assert cycles == [], "import cycles:\n" + "\n".join(" -> ".join(c) for c in cycles)
 
 
 def test_rule_modules_import_no_other_rule_module_nor_package(edges):
-    bad = boundary_violations(_known(edges))
+    bad = boundary_violations(edges)
     assert bad == set(), "rule modules must not import other rule modules or archivist.package:\n" + "\n".join(sorted(bad))
 
 
@@ -290,17 +259,9 @@ def loaded_at_import() -> set[str]:
 
 
 def test_import_archivist_loads_no_geospatial_library(loaded_at_import):
-    loaded = loaded_at_import - KNOWN_VIOLATIONS_TO_REMOVE
+    loaded = loaded_at_import
     assert loaded == set(), "\n".join(sorted(loaded))
 
-
-def test_known_violations_still_occur(edges, loaded_at_import):
-    # an entry whose violation is gone must be removed, so the list only shrinks
-    present = {str(e) for e in edges} | loaded_at_import
-    assert KNOWN_VIOLATIONS_TO_REMOVE <= present, sorted(KNOWN_VIOLATIONS_TO_REMOVE - present)
-
-
-# ---------------------------------------------------------------- the graph builder itself, on hand-made modules
 
 def _graph_of(tmp_path, monkeypatch, files: dict[str, str]) -> list[Edge]:
     for rel, text in files.items():

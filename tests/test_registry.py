@@ -67,3 +67,16 @@ def test_report_schema_knows_every_family():
 
     enum = load_schema("report.schema.json")["$defs"]["finding"]["properties"]["family"]["enum"]
     assert enum == list(registry.FAMILIES)
+
+
+@pytest.mark.parametrize("info", RULES, ids=lambda r: r.id)
+def test_every_rule_is_typed(info):
+    """The rule interface is typed, so mypy checks every rule body: (project: MapProject, ctx: CheckContext) -> Iterator[Hit]."""
+    import inspect
+
+    func = inspect.unwrap(info.func)
+    hints = func.__annotations__
+    assert list(inspect.signature(func).parameters) == ["project", "ctx"], info.id
+    assert str(hints.get("project")).endswith("MapProject"), (info.id, hints)
+    assert str(hints.get("ctx")).endswith("CheckContext"), (info.id, hints)
+    assert str(hints.get("return")).replace("typing.", "") in ("Iterator[Hit]", "Iterable[Hit]"), (info.id, hints)

@@ -47,7 +47,7 @@ class CheckContext:
         """``compute()`` once per check under ``key``; the same value afterwards."""
         if key not in self._cache:
             self._cache[key] = compute()
-        return self._cache[key]  # type: ignore[no-any-return]
+        return self._cache[key]
 
     def note(self, text: str) -> None:
         """A note for the report (once, however many rules add it)."""

@@ -158,7 +158,8 @@ def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
 
 def input_names(project: MapProject) -> SourceNames:
     """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
-    paths = [p for _, p in _manifest_paths(project)] + [x.path for x in (*project.layers.values(), *project.tables.values())]
+    paths = [p for _, p in _manifest_paths(project)]
+    paths += [layer.path for layer in project.layers.values()] + [table.path for table in project.tables.values()]
     if project.manifest_path is not None:
         paths.append(project.manifest_path)
     return source_names(project, paths)
@@ -452,7 +453,7 @@ def _write_payload(
         for src, rel, _ in inputs:
             dest = data / "source" / stored_name(rel)
             dest.parent.mkdir(parents=True, exist_ok=True)
-            if own_manifest is not None and src == project.manifest_path.resolve():
+            if own_manifest is not None and project.manifest_path is not None and src == project.manifest_path.resolve():
                 write_text(dest, own_manifest[0])
                 rewritten[rel] = own_manifest[1]
                 continue
