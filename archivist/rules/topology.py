@@ -77,6 +77,10 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     (`shapely.coverage_invalid_edges`); the overlap pieces are exact GEOS
     intersections.
 
+    Where GEOS stops on a part of the map (a polygon it cannot process), that
+    part is one finding saying it could not be checked, naming its polygons;
+    every other part is still checked.
+
     Why it matters
     --------------
     A point of the map belongs to two units at once: the map contradicts
@@ -129,6 +133,10 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     reported once, by `unit-edge-mismatch`; gaps no wider than the tolerance
     between a unit and the extent edge count as the unit lying on the edge.
     The polygons named are those sharing a stretch of edge with the gap.
+
+    Where GEOS stops on a part of the map (a polygon it cannot process), that
+    part is one finding saying it could not be checked, naming its polygons;
+    every other part is still checked.
 
     Why it matters
     --------------
@@ -263,6 +271,10 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     clipping or reprojecting one polygon alone) is reported: the polygons are
     not a coverage until their shared vertices are the same.
 
+    Where GEOS stops on a part of the map (a polygon it cannot process), that
+    part is one finding saying it could not be checked, naming its polygons;
+    every other part is still checked.
+
     Why it matters
     --------------
     This is where slivers and micro-gaps come from after editing: invisible
@@ -389,6 +401,10 @@ def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     tolerance of a boundary do. Without an `extent` layer the rule does not
     run: the extent is then the units' own outline, which nothing can lie
     outside.
+
+    Where GEOS stops on a part of the map (a polygon it cannot process), that
+    part is one finding saying it could not be checked, naming its polygons;
+    every other part is still checked.
 
     Why it matters
     --------------
