@@ -21,7 +21,7 @@ import pyproj
 
 from . import vectorio
 from .fileset import SIDE_FILE_SUFFIXES
-from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table
+from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table, spreadsheet_errors
 
 # Field names, best first. Compared without case.
 UNIT_NAMES = (
@@ -239,13 +239,14 @@ def scan(root: Path, only: Path | None = None) -> tuple[list[Source], list[tuple
         elif suffix in TABLE_SUFFIXES:
             sheets: list[str | None] = [None]
             if suffix in (".xlsx", ".xlsm"):
+                unreadable: tuple[type[BaseException], ...] = (OSError, *spreadsheet_errors())
                 try:
                     import openpyxl
 
                     wb = openpyxl.load_workbook(path, read_only=True)
                     sheets = list(wb.sheetnames)
                     wb.close()
-                except Exception:  # noqa: BLE001
+                except unreadable:
                     other.append((rel, "not readable as a spreadsheet"))
                     continue
             for sheet in sheets:

@@ -209,6 +209,26 @@ def cell_ranges(column: str, rows: list[int], limit: int = 8) -> str:
     return ", ".join(parts)
 
 
+def spreadsheet_errors() -> tuple[type[BaseException], ...]:
+    """What openpyxl raises for a workbook it cannot read: a broken zip, a missing or malformed part.
+
+    From openpyxl's reader (``openpyxl/reader/excel.py``, ``openpyxl/xml``):
+    ``InvalidFileException`` and ``BadZipFile`` for the container, ``KeyError``
+    for a part the workbook lists but lacks, ``ParseError`` for XML that is
+    not well formed, and ``ValueError``/``TypeError``/``AttributeError``/
+    ``IndexError`` from parts whose content is not what the format says
+    (defusedxml's refusals are ValueErrors too).
+    """
+    import xml.etree.ElementTree as ET
+    import zipfile
+    import zlib
+
+    from openpyxl.utils.exceptions import InvalidFileException
+
+    return (InvalidFileException, zipfile.BadZipFile, zlib.error, EOFError, KeyError, ET.ParseError,
+            ValueError, TypeError, AttributeError, IndexError)
+
+
 def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
     """(rows as tuples, sheet title, sheet names) or (None, hits); refusals and OS errors raise ArchivistError."""
     import openpyxl
@@ -217,7 +237,7 @@ def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
         wb = openpyxl.load_workbook(path, read_only=True, data_only=data_only)
     except OSError as exc:
         raise _os_error(name, exc) from None
-    except Exception as exc:  # openpyxl raises many kinds for a broken file
+    except spreadsheet_errors() as exc:
         if _defused(exc) is not None:
             raise ArchivistError(f"{name}: {XML_REFUSAL}") from None
         return None, [Hit(f"{name} cannot be read as a spreadsheet: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
@@ -238,7 +258,7 @@ def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
             rows = [tuple(r) for r in ws.iter_rows(values_only=True)]
         except OSError as exc:
             raise _os_error(name, exc) from None
-        except Exception as exc:  # the sheet's XML is broken
+        except spreadsheet_errors() as exc:  # the sheet's XML is broken
             if _defused(exc) is not None:
                 raise ArchivistError(f"{name}: {XML_REFUSAL}") from None
             return None, [Hit(f"{name}, sheet '{ws.title}' cannot be read: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]

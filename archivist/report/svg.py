@@ -27,6 +27,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 import shapely
+from pyproj.exceptions import ProjError
 
 from ..model import Report
 from ..readers import as_text
@@ -218,7 +219,7 @@ def _display_crs(layer, project):
         try:
             frame = frame.to_crs(project.crs)
             note = f"{layer.source} is drawn after reprojection from {layer.frame.crs.name} to the map CRS."
-        except Exception:  # noqa: BLE001 - a CRS pyproj cannot convert: draw as stored
+        except (ProjError, ValueError):  # a CRS pyproj cannot convert: draw as stored
             note = f"{layer.source} could not be reprojected to the map CRS and is drawn as stored."
     return np.asarray(frame.geometry.array, dtype=object), note
 
