@@ -26,8 +26,9 @@ import shapely
 
 from ..model import Hit
 from ..readers import as_text
-from ..reference import CHART_VERSION, AgeError, parse_age
+from ..reference import CHART_VERSION
 from ..registry import rule
+from ..vocab.ages import AgeError, parse_age
 from ..vocab.legend import REQUIRED, cells, column, wanted
 
 if TYPE_CHECKING:
@@ -346,16 +347,32 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `age` cells that name no unit of the chart published by the
     International Commission on Stratigraphy (version v2023/09, shipped with
-    archivist). Accepted: chart names in any case, with or without accents
-    and with British spellings (Palaeogene); formal and informal
-    Lower/Middle/Upper and Early/Middle/Late forms; ranges such as
-    "Cenomanian-Turonian" or "Late Triassic to Early Jurassic"; a "?" of
-    doubt. Informal subdivisions (e.g. "Late Eocene") are checked against the
-    whole unit they qualify. Also: `min_age_ma`/`max_age_ma` that are not
-    numbers, are swapped, or lie outside the named interval by more than the
-    chart's stated uncertainty on that boundary. Regional stages (e.g.
-    Namurian) and obsolete names (Tertiary) are reported; whether they are
-    acceptable is for the mapper and local practice to decide.
+    archivist). Accepted (read by `archivist.vocab.ages`): chart names in
+    any case, with or without accents and with British spellings
+    (Palaeogene); formal Lower/Middle/Upper and their Early/Middle/Late
+    spellings; two names joined by a hyphen, "/", "to", "or" or "and"
+    ("Cenomanian-Turonian", "Late Triassic to Early Jurassic", "Permian or
+    Triassic"), spanning from the base of the older to the top of the
+    younger; the combining forms of the trade (Permo-Triassic,
+    Siluro-Devonian, Cambro-Ordovician, Plio-Pleistocene, Mio-Pliocene,
+    Permo-Carboniferous, Devono-Carboniferous...: common practice); numerical
+    ages with their unit ("250-260 Ma", "c. 255 Ma", "1.2-1.4 Ga"); a "?" of
+    doubt. An informal Early/Middle/Late of a unit without formal
+    subdivisions of that name ("Late Cambrian", "Late Eocene", and "Early
+    Late Cretaceous" inside the formal Upper Cretaceous) is read as the older,
+    middle or younger third of the unit, with half a third of leeway inside
+    the unit (common practice: such subdivisions have no agreed boundaries,
+    so only a clear contradiction is reported); of an eon or era it stands
+    for the whole unit. Early/Middle/Late Pleistocene and Holocene are their
+    formal subdivisions (from memory), Early/Middle/Late Proterozoic the
+    Paleo-, Meso- and Neoproterozoic (common practice). Also:
+    `min_age_ma`/`max_age_ma` that are not numbers, are swapped, or lie
+    outside the named interval by more than the chart's stated uncertainty
+    on that boundary. Regional stages (e.g. Namurian) and obsolete names
+    (Tertiary) are reported, with that hint (the list of such names is from
+    memory); whether they are acceptable is for the mapper and local practice
+    to decide. Not covered: the names of the chart in other languages, and
+    regional stages as a time scale of their own.
 
     Why it matters
     --------------
@@ -414,7 +431,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             continue
         if span is None:
             continue
-        informal = f"; '{text}' is informal, so the whole {'-'.join(dict.fromkeys(span.units))} is allowed" if span.informal else ""
+        informal = f"; {span.note}" if span.note else ""
         for key, (value, col) in nums.items():
             if span.contains(value):
                 continue
@@ -437,9 +454,17 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
 
 def _intervals(legend):
-    """Per legend row: (top_ma, base_ma) from the numerical ages if usable, else from the chart; NaN when unknown."""
+    """Per legend row: (top_ma, base_ma) from the numerical ages if usable, else from the chart; NaN when unknown.
+
+    An informal Early/Middle/Late is widened by its leeway (only a clear
+    contradiction counts); ``exact`` holds the unwidened thirds and
+    ``group`` the unit cut in thirds, so that two informal parts of the same
+    unit are ordered exactly.
+    """
     n = len(legend.frame)
     top, base = np.full(n, np.nan), np.full(n, np.nan)
+    exact_top, exact_base = np.full(n, np.nan), np.full(n, np.nan)
+    group = np.full(n, None, dtype=object)
     ages = cells(legend, "age")
     lo, hi = cells(legend, "min_age_ma"), cells(legend, "max_age_ma")
     for i in range(n):
@@ -453,8 +478,9 @@ def _intervals(legend):
                 span = parse_age(ages[i])
             except AgeError:
                 continue
-            top[i], base[i] = span.top_ma, span.base_ma
-    return top, base
+            top[i], base[i] = span.widest
+            exact_top[i], exact_base[i], group[i] = span.top_ma, span.base_ma, span.thirds_of
+    return top, base, exact_top, exact_base, group
 
 
 @rule("legend-age-order", family="legend", severity="warning", needs=("legend",))
@@ -465,7 +491,11 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     Units listed above a unit that is wholly younger than they are, using
     `min_age_ma`/`max_age_ma` where both are given, else the span of the
-    chart unit named in `age`. Order is the `order` column (1 = top) or,
+    chart unit named in `age` (read as in `legend-age-unknown`; an informal
+    Early/Middle/Late counts with its leeway, so only a clear contradiction
+    is reported, except that two informal parts of the same unit, such as
+    "Early Cambrian" and "Late Cambrian", are ordered exactly). Order is
+    the `order` column (1 = top) or,
     without one, the row order. Units whose `kind` is intrusive or tectonic
     are exempt: legends conventionally list intrusions and tectonic units
     apart from the stratigraphic column. Overlapping ages are never a
@@ -502,7 +532,7 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     else:
         order = np.arange(n, dtype=float)
         by = "row order"
-    top, base = _intervals(legend)
+    top, base, exact_top, exact_base, group = _intervals(legend)
     exempt = np.array([k.casefold().startswith(EXEMPT_KINDS) for k in kinds], dtype=bool) if kinds is not None else np.zeros(n, bool)
     ok = np.isfinite(order) & np.isfinite(top) & np.isfinite(base) & ~exempt
     # above[i, j]: i is listed above j; older[i, j]: all of i is older than all of j (touching
@@ -511,6 +541,13 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     differ = (base[:, None] != base[None, :]) | (top[:, None] != top[None, :])
     older = (top[:, None] >= base[None, :]) & differ
     younger = (base[:, None] <= top[None, :]) & differ
+    # Two informal parts of one unit ("Early Cambrian", "Late Cambrian"): their thirds, unwidened.
+    siblings = (group[:, None] == group[None, :]) & (group[:, None] != None)  # noqa: E711 (element-wise)
+    differ_exact = (exact_base[:, None] != exact_base[None, :]) | (exact_top[:, None] != exact_top[None, :])
+    older = np.where(siblings, (exact_top[:, None] >= exact_base[None, :]) & differ_exact, older)
+    younger = np.where(siblings, (exact_base[:, None] <= exact_top[None, :]) & differ_exact, younger)
+    top = np.where(np.isnan(exact_top), top, exact_top)  # the findings show the thirds themselves
+    base = np.where(np.isnan(exact_base), base, exact_base)
     inverted = above & older
     concordant = above & younger
     def name(i: int | np.integer) -> str:

@@ -1,0 +1,393 @@
+"""Ages as mappers write them in a legend, read against the chronostratigraphic chart.
+
+:func:`parse_age` turns the text of a legend's `age` cell into the span of
+time it covers (:class:`AgeSpan`). It reads:
+
+* chart names in any case, with or without accents, British spellings
+  ("Palaeogene"), formal Lower/Middle/Upper and their Early/Middle/Late
+  spellings ("Late Jurassic" is the Upper Jurassic);
+* two chart names joined by a hyphen or dash, "/", "to", "or" or "and"
+  ("Cenomanian-Turonian", "Silurian to Devonian", "Permian or Triassic"):
+  the span runs from the base of the older to the top of the younger;
+* the combining forms of the trade ("Permo-Triassic", "Siluro-Devonian",
+  "Cambro-Ordovician", "Plio-Pleistocene", "Mio-Pliocene",
+  "Permo-Carboniferous", "Devono-Carboniferous"...; the stems in
+  :data:`COMBINING_STEMS` are common practice, not chart names);
+* informal Early/Middle/Late of a unit that has no formal subdivision of
+  that name ("Early Cambrian", "Late Eocene") and informal subdivisions of
+  a formal one ("Early Late Cretaceous", "Lower Upper Cretaceous"): read as
+  the older, middle or younger third of the unit's span, with half a third
+  of leeway on the boundaries inside the unit (a convention, common
+  practice: informal subdivisions have no agreed boundaries, so only a clear
+  contradiction should be reported). Eons, eras and the Precambrian are
+  not cut in thirds: their informal parts stay the whole unit;
+* numerical ages with their unit: "250-260 Ma", "c. 255 Ma", "255 ± 5 Ma",
+  "1.2-1.4 Ga", "11-12 ka".
+
+What it does not do: it knows the global chart only. Regional stages and
+obsolete names (:data:`REGIONAL_OR_OBSOLETE`, from memory) are refused with
+the hint "(a regional or obsolete name?)"; whether they are acceptable on a
+given map is for the mapper and local practice to decide. Other unknown
+names are refused without that hint.
+
+The chart itself comes from :mod:`archivist.reference`; this module calls
+only ``lookup(name)`` and ``intervals()`` there, and reads the fields
+``name``, ``rank``, ``parent``, ``base_ma``, ``top_ma`` and
+``base_uncertainty_ma`` of the units they return.
+"""
+
+from __future__ import annotations
+
+import difflib
+import re
+import unicodedata
+from dataclasses import dataclass
+from typing import Any
+
+from .. import reference as chart
+
+# Early/Middle/Late and their formal spellings: position in the unit, 0 = oldest third.
+_POSITION = {
+    "lower": 0, "early": 0, "earliest": 0,
+    "middle": 1, "mid": 1,
+    "upper": 2, "late": 2, "latest": 2,
+}
+_FORMAL = ("Lower", "Middle", "Upper")
+_THIRD = ("older", "middle", "younger")
+
+#: Combining stems of the trade (common practice): "Permo-Triassic" is Permian to Triassic.
+COMBINING_STEMS = {
+    "cambro": "Cambrian",
+    "ordovico": "Ordovician",
+    "siluro": "Silurian",
+    "devono": "Devonian",
+    "carbo": "Carboniferous",
+    "carbonifero": "Carboniferous",
+    "permo": "Permian",
+    "triasso": "Triassic",
+    "triassico": "Triassic",
+    "juro": "Jurassic",
+    "jura": "Jurassic",
+    "cretaceo": "Cretaceous",
+    "eo": "Eocene",
+    "oligo": "Oligocene",
+    "mio": "Miocene",
+    "plio": "Pliocene",
+    "pleisto": "Pleistocene",
+}
+_DASH = "-\u2010\u2011\u2012\u2013\u2014\u2212"
+_STEM = re.compile(rf"(?i)\b({'|'.join(sorted(COMBINING_STEMS, key=len, reverse=True))})\s*[{_DASH}]\s*(?=\w)")
+_SPLIT = re.compile(rf"\s*(?:[{_DASH}/]|\bto\b|\bor\b|\band\b)\s*", re.IGNORECASE)
+
+# Informal Early/Middle/Late that stand for named units of the chart (used only when the chart
+# read has no unit of that name). Pleistocene and Holocene subseries: from memory of the chart
+# (Lower = Gelasian + Calabrian, Middle = Chibanian, Upper = the Upper Pleistocene stage; the
+# Holocene's three stages). Proterozoic: Early/Middle/Late = Paleo-/Meso-/Neoproterozoic,
+# common practice.
+_EQUIVALENT: dict[tuple[str, int], tuple[str, ...]] = {
+    ("pleistocene", 0): ("Gelasian", "Calabrian"),
+    ("pleistocene", 1): ("Chibanian",),
+    ("pleistocene", 2): ("Upper Pleistocene",),
+    ("holocene", 0): ("Greenlandian",),
+    ("holocene", 1): ("Northgrippian",),
+    ("holocene", 2): ("Meghalayan",),
+    ("proterozoic", 0): ("Paleoproterozoic",),
+    ("proterozoic", 1): ("Mesoproterozoic",),
+    ("proterozoic", 2): ("Neoproterozoic",),
+}
+# Ranks cut in thirds by an informal Early/Middle/Late; above these, the whole unit is meant.
+_THIRDS_RANKS = ("period", "subperiod", "epoch", "age")
+
+#: Names not on the chart but common in older or regional legends, with what to write instead.
+OBSOLETE = {
+    "tertiary": "it was dropped from the chart; write Paleogene and/or Neogene",
+    "recent": "write Holocene",
+    "pleistogene": "write Quaternary",
+    "eocambrian": "write Ediacaran or Cambrian",
+    "infracambrian": "write Ediacaran or Cambrian",
+}
+#: Regional stages and series and obsolete chart names (from memory: British, north-west European,
+#: Alpine, North American, Paratethyan, Russian and Chinese usage).
+REGIONAL_OR_OBSOLETE = frozenset(
+    """
+    namurian westphalian stephanian dinantian silesian autunian
+    arenig llanvirn caradoc ashgill tremadoc llandeilo
+    lias dogger malm neocomian senonian gallic
+    zechstein rotliegend rotliegendes buntsandstein muschelkalk keuper
+    devensian ipswichian wolstonian hoxnian anglian cromerian flandrian
+    weichselian eemian saalian holsteinian elsterian
+    wurm riss mindel gunz villafranchian
+    wisconsinan sangamonian illinoian kansan nebraskan
+    pannonian sarmatian badenian pontian
+    tatarian kazanian ufimian
+    vendian riphean sinian algonkian huronian hadrynian helikian aphebian
+    diluvium alluvium
+    """.split()
+)
+
+_NUMBER = r"(\d+(?:\.\d+)?)"
+_NUMERIC = re.compile(
+    rf"^(?:c\.?|ca\.?|about|~)?\s*{_NUMBER}\s*(?:(?:[{_DASH}]|to)\s*{_NUMBER}|(?:±|\+/-|\+-)\s*{_NUMBER})?\s*(ka|ma|ga)$",
+    re.IGNORECASE,
+)
+_SCALE = {"ka": 1e-3, "ma": 1.0, "ga": 1e3}
+
+
+@dataclass(frozen=True)
+class AgeSpan:
+    """The span of time an age text covers, with the chart units it was read from.
+
+    ``base_ma`` is the older end. ``base_slack_ma``/``top_slack_ma`` are the
+    chart's stated uncertainties on the two ends (0 when none).
+    ``informal`` is True when an Early/Middle/Late is not a formal unit of
+    the chart; ``base_leeway_ma``/``top_leeway_ma`` are then the leeway the
+    informal reading allows (half a third of the unit, 0 on a boundary of the
+    unit itself), ``thirds_of`` is the unit cut in thirds (so two informal
+    parts of the same unit can be ordered exactly) and ``note`` says how the
+    text was read. ``numeric`` is True for "250-260 Ma" and the like.
+    """
+
+    text: str
+    base_ma: float
+    top_ma: float
+    units: tuple[str, ...]
+    informal: bool = False
+    base_slack_ma: float = 0.0
+    top_slack_ma: float = 0.0
+    base_leeway_ma: float = 0.0
+    top_leeway_ma: float = 0.0
+    thirds_of: str | None = None
+    note: str = ""
+    numeric: bool = False
+
+    def contains(self, age_ma: float) -> bool:
+        """True when ``age_ma`` lies within the span, widened by the stated uncertainties and the informal leeway."""
+        low = self.top_ma - self.top_slack_ma - self.top_leeway_ma - 1e-9
+        high = self.base_ma + self.base_slack_ma + self.base_leeway_ma + 1e-9
+        return low <= age_ma <= high
+
+    @property
+    def widest(self) -> tuple[float, float]:
+        """(top_ma, base_ma) widened by the informal leeway only: what the span can mean at most."""
+        return self.top_ma - self.top_leeway_ma, self.base_ma + self.base_leeway_ma
+
+
+class AgeError(ValueError):
+    """An age text that names no unit of the chart; the message says why, with a suggestion."""
+
+
+@dataclass(frozen=True)
+class _Piece:
+    """One term of an age text: its span, and how it was read."""
+
+    label: str
+    base_ma: float
+    top_ma: float
+    units: tuple[str, ...]
+    base_leeway_ma: float = 0.0
+    top_leeway_ma: float = 0.0
+    thirds_of: str | None = None
+    informal: bool = False
+    note: str = ""
+
+
+def fold(text: str) -> str:
+    """Case, accents, spacing and British spellings folded: "Palaeogene" -> "paleogene", "Viséan" -> "visean"."""
+    s = unicodedata.normalize("NFKD", str(text))
+    s = "".join(ch for ch in s if not unicodedata.combining(ch))
+    s = s.casefold().replace("\u00a0", " ")
+    s = s.replace("palaeo", "paleo").replace("archaean", "archean")
+    return " ".join(s.split())
+
+
+def _formal(unit: Any, label: str) -> _Piece:
+    return _Piece(label=label, base_ma=float(unit.base_ma), top_ma=float(unit.top_ma), units=(str(unit.name),))
+
+
+def _ancestor_names(unit: Any) -> list[str]:
+    out: list[str] = []
+    while unit is not None and unit.parent:
+        out.append(str(unit.parent))
+        unit = chart.lookup(unit.parent)
+    return out
+
+
+def _third(inner: _Piece, position: int, word: str) -> _Piece:
+    """The older, middle or younger third of ``inner`` (an informal subdivision)."""
+    outer = chart.lookup(inner.thirds_of or inner.units[0])
+    outer_base = float(outer.base_ma) if outer is not None else inner.base_ma
+    outer_top = float(outer.top_ma) if outer is not None else inner.top_ma
+    third = (inner.base_ma - inner.top_ma) / 3
+    base = round(inner.base_ma - position * third, 6)
+    top = round(inner.base_ma - (position + 1) * third, 6)
+    half = round(third / 2, 6)
+    group = inner.thirds_of or inner.units[0]
+    return _Piece(
+        label=f"{word} {inner.label}",
+        base_ma=base,
+        top_ma=top,
+        units=inner.units,
+        base_leeway_ma=0.0 if abs(base - outer_base) < 1e-6 else half,
+        top_leeway_ma=0.0 if abs(top - outer_top) < 1e-6 else half,
+        thirds_of=group,
+        informal=True,
+        note=(
+            f"'{word} {inner.label}' is informal: read as the {_THIRD[position]} third of the {inner.label} "
+            f"(common practice), with {half:g} Myr of leeway inside the {group}"
+        ),
+    )
+
+
+def _term(text: str) -> _Piece:
+    """One age name (no range) -> its piece. Raises AgeError."""
+    norm = fold(text).strip(" ?()").replace("mid-", "middle ")
+    norm = " ".join(norm.replace("?", " ").split())
+    if not norm:
+        raise AgeError("is empty")
+    hit = chart.lookup(norm)
+    if hit is not None:
+        return _formal(hit, str(hit.name))
+    words = norm.split(" ")
+    if words[0] in _POSITION and len(words) > 1:
+        position, rest = _POSITION[words[0]], " ".join(words[1:])
+        formal = chart.lookup(f"{_FORMAL[position]} {rest}")
+        if formal is not None:
+            return _formal(formal, str(formal.name))
+        same = _EQUIVALENT.get((rest, position), ())
+        found = [u for u in (chart.lookup(n) for n in same) if u is not None]
+        whole = chart.lookup(rest)
+        if same and len(found) == len(same):
+            label = f"{_FORMAL[position]} {whole.name if whole is not None else rest}"
+            return _Piece(
+                label=label,
+                base_ma=max(float(u.base_ma) for u in found),
+                top_ma=min(float(u.top_ma) for u in found),
+                units=tuple(str(u.name) for u in found),
+            )
+        inner = _term(rest)
+        word = words[0].capitalize()
+        unit = chart.lookup(inner.units[0])
+        if inner.thirds_of is None and (unit is None or str(unit.rank) not in _THIRDS_RANKS or len(inner.units) > 1):
+            return _Piece(
+                label=f"{word} {inner.label}",
+                base_ma=inner.base_ma,
+                top_ma=inner.top_ma,
+                units=inner.units,
+                informal=True,
+                note=f"'{word} {inner.label}' is informal, so the whole {inner.label} is allowed",
+            )
+        return _third(inner, position, word)
+    for cut in range(1, len(words)):
+        o, i = chart.lookup(" ".join(words[:cut])), chart.lookup(" ".join(words[cut:]))
+        if o is not None and i is not None and o.name in _ancestor_names(i):
+            return _formal(i, str(i.name))
+    raise AgeError(why_unknown(norm))
+
+
+def why_unknown(text: str) -> str:
+    """Why ``text`` is not read as an age, with a suggestion where one is known."""
+    norm = fold(text)
+    words = norm.split(" ")
+    core = " ".join(w for w in words if w not in _POSITION) or norm
+    where = f"the {chart.CHART_TITLE} {chart.CHART_VERSION}"
+    if core in OBSOLETE:
+        return f"is not a unit of {where}: {OBSOLETE[core]}"
+    if core in REGIONAL_OR_OBSOLETE:
+        return f"is not a unit of {where} (a regional or obsolete name?)"
+    if core in COMBINING_STEMS:
+        return f"is a combining form of the {COMBINING_STEMS[core]}; join it with a hyphen to a second chart name"
+    if re.search(r"\d", norm) and not norm.startswith(("stage", "series")):
+        return (
+            f"is not a unit of the {chart.CHART_TITLE}; write a numerical age with its unit "
+            "('250-260 Ma') or put it in min_age_ma/max_age_ma"
+        )
+    names = {fold(i.name): str(i.name) for i in chart.intervals()}
+    close = difflib.get_close_matches(core, list(names), n=1, cutoff=0.85)
+    if close:
+        return f"is not a unit of {where}; did you mean {names[close[0]]}?"
+    return f"is not a unit of {where}"
+
+
+def _boundary_slack() -> dict[float, float]:
+    """Stated uncertainty of each boundary age (the largest given for any unit starting there)."""
+    out: dict[float, float] = {}
+    for i in chart.intervals():
+        if i.base_uncertainty_ma:
+            out[float(i.base_ma)] = max(out.get(float(i.base_ma), 0.0), float(i.base_uncertainty_ma))
+    return out
+
+
+def _numeric(raw: str) -> AgeSpan | None:
+    m = _NUMERIC.match(fold(raw))
+    if not m:
+        return None
+    a, b, pm, unit = m.groups()
+    scale = _SCALE[unit.casefold()]
+    x = float(a) * scale
+    if b is not None:
+        lo, hi = sorted((x, float(b) * scale))
+    elif pm is not None:
+        lo, hi = x - float(pm) * scale, x + float(pm) * scale
+    else:
+        lo = hi = x
+    return AgeSpan(text=raw, base_ma=hi, top_ma=max(lo, 0.0), units=(), numeric=True)
+
+
+def parse_age(text: str) -> AgeSpan:
+    """The span of time an age text names (see the module's documentation for every form read).
+
+    Raises
+    ------
+    AgeError
+        The text names no unit of the chart; the message says why.
+
+    Examples
+    --------
+    >>> s = parse_age("Permo-Triassic")
+    >>> (s.base_ma, s.top_ma) == (parse_age("Permian").base_ma, parse_age("Triassic").top_ma)
+    True
+    >>> parse_age("Late Jurassic").units
+    ('Upper Jurassic',)
+    """
+    raw = str(text).strip()
+    number = _numeric(raw)
+    if number is not None:
+        return number
+    if _numeric(f"{raw} Ma") is not None:
+        raise AgeError("is a number without its unit; write it as '250-260 Ma', or put it in min_age_ma/max_age_ma")
+    try:
+        pieces = [_term(raw)]
+    except AgeError:
+        expanded = _STEM.sub(lambda m: f"{COMBINING_STEMS[m.group(1).casefold()]}-", re.sub(r"(?i)\bmid-", "Middle ", raw))
+        parts = [p for p in _SPLIT.split(expanded) if p.strip()]
+        if len(parts) < 2:
+            raise
+        pieces = []
+        for k, part in enumerate(parts):
+            words = fold(part).split(" ")
+            if all(w in _POSITION for w in words) and k + 1 < len(parts):
+                # "Early-Middle Jurassic": the bare modifier borrows the unit named on its right.
+                right = [w for w in parts[k + 1].split() if fold(w) not in _POSITION]
+                part = f"{part} {' '.join(right)}"
+            try:
+                pieces.append(_term(part))
+            except AgeError as exc:
+                raise AgeError(f"part '{part}' {exc}") from None
+    base = max(pieces, key=lambda p: p.base_ma)
+    top = min(pieces, key=lambda p: p.top_ma)
+    slack = _boundary_slack()
+    groups = {p.thirds_of for p in pieces}
+    notes = [p.note for p in pieces if p.note]
+    return AgeSpan(
+        text=raw,
+        base_ma=base.base_ma,
+        top_ma=top.top_ma,
+        units=tuple(u for p in pieces for u in p.units),
+        informal=any(p.informal for p in pieces),
+        base_slack_ma=0.0 if base.base_leeway_ma else slack.get(base.base_ma, 0.0),
+        top_slack_ma=0.0 if top.top_leeway_ma else slack.get(top.top_ma, 0.0),
+        base_leeway_ma=base.base_leeway_ma,
+        top_leeway_ma=top.top_leeway_ma,
+        thirds_of=groups.pop() if len(groups) == 1 else None,
+        note="; ".join(dict.fromkeys(notes)),
+    )
