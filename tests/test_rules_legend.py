@@ -247,3 +247,90 @@ def test_row_numbers_count_the_blank_rows_of_a_workbook_legend(tmp_path):
     (f,) = found(root, "legend-unused-unit")
     # header in row 1, two entries in rows 2-3, a blank row 4: the unused unit is in row 5
     assert "legend.xlsx, sheet 'legend', row 5" in f.message
+
+
+# ---------------------------------------------------------------- ages as mappers write them
+
+def _ages_legend(rows):
+    """A legend for the two-unit tiny project: rows of (age, min_age_ma, max_age_ma), youngest first."""
+    legend = tiny_legend()
+    base = legend.iloc[0].to_dict()
+    out = []
+    for k, (age, lo, hi) in enumerate(rows):
+        code = "AB"[k] if k < 2 else f"U{k}"
+        out.append({**base, "unit": code, "name": f"Unit {code}", "age": age, "min_age_ma": lo, "max_age_ma": hi,
+                    "order": str(k + 1)})
+    return pd.DataFrame(out)
+
+
+def test_legend_written_as_mappers_write_it_gives_no_age_finding(tmp_path):
+    # Numbers chosen inside the spans of the ICS chart (official data 2023-09 and 2024-12):
+    # Pliocene base 5.333, Upper Cretaceous 100.5-66.0, Cambrian 538.8 to 485.4 (2023-09) / 486.85 (2024-12).
+    legend = _ages_legend([
+        ("Plio-Pleistocene", "0.5", "4"),
+        ("Mio-Pliocene", "", ""),
+        ("Late Eocene", "35", "38"),
+        ("Early Late Cretaceous", "92", "98"),
+        ("Lower Upper Cretaceous", "", ""),
+        ("Late Triassic to Early Jurassic", "", ""),
+        ("Permo-Triassic", "", ""),
+        ("250-260 Ma", "", ""),
+        ("Permian or Carboniferous", "", ""),
+        ("Permo-Carboniferous", "", ""),
+        ("Devono-Carboniferous", "", ""),
+        ("Siluro-Devonian", "", ""),
+        ("Cambro-Ordovician", "", ""),
+        ("Late Cambrian", "488", "495"),
+        ("Middle Cambrian", "", ""),
+        ("Early Cambrian", "525", "530"),
+    ])
+    root = tiny_project(tmp_path, legend=legend)
+    assert found(root, "legend-age-unknown") == []
+    assert found(root, "legend-age-order") == []
+
+
+@pytest.mark.parametrize(
+    "above, below",
+    [("Early Cambrian", "Late Cambrian"), ("Early Cambrian", "Middle Cambrian"), ("Middle Eocene", "Late Eocene"),
+     ("Early Late Cretaceous", "Late Late Cretaceous")],
+)
+def test_order_errors_among_informal_parts_are_found(tmp_path, above, below):
+    root = tiny_project(tmp_path, legend=_ages_legend([(above, "", ""), (below, "", "")]))
+    (f,) = found(root, "legend-age-order")
+    assert f.features == ("A", "B") and "listed above younger unit(s) B" in f.message
+
+
+def test_informal_parts_in_their_order_pass(tmp_path):
+    root = tiny_project(tmp_path, legend=_ages_legend([("Late Cambrian", "", ""), ("Early Cambrian", "", "")]))
+    assert found(root, "legend-age-order") == []
+
+
+def test_late_cambrian_with_525_to_530_ma_is_found(tmp_path):
+    root = tiny_project(tmp_path, legend=_ages_legend([("Late Cambrian", "525", "530"), ("Early Cambrian", "", "")]))
+    hits = found(root, "legend-age-unknown")
+    assert [f.features for f in hits] == [("A",), ("A",)]  # both numbers lie in the older third
+    # Cambrian base 538.8, top 485.4 (ICS official data 2023-09) or 486.85 (2024-12): the younger third starts
+    # two thirds of the way up.
+    cambrian = lookup("Cambrian")
+    start = cambrian.base_ma - 2 * (cambrian.base_ma - cambrian.top_ma) / 3
+    assert cambrian.base_ma == 538.8 and cambrian.top_ma in (485.4, 486.85)
+    assert sorted(f.measure for f in hits) == pytest.approx([525 - start, 530 - start])
+    assert all("younger third of the Cambrian" in f.message for f in hits)
+
+
+def test_informal_age_just_beyond_its_third_is_tolerated(tmp_path):
+    # 505 Ma is older than the strict younger third of the Cambrian (about 503 Ma) but within its leeway.
+    root = tiny_project(tmp_path, legend=_ages_legend([("Late Cambrian", "490", "505"), ("Early Cambrian", "", "")]))
+    assert found(root, "legend-age-unknown") == []
+
+
+def test_numeric_range_in_the_age_column_is_checked_against_the_numbers(tmp_path):
+    root = tiny_project(tmp_path, legend=_ages_legend([("250-260 Ma", "240", "255"), ("Permian", "", "")]))
+    (f,) = found(root, "legend-age-unknown")
+    assert "'min_age_ma'" in f.message and f.measure == pytest.approx(10)
+
+
+def test_regional_hint_only_for_regional_or_obsolete_names(tmp_path):
+    root = tiny_project(tmp_path, legend=_ages_legend([("Blorpian", "", ""), ("Namurian", "", "")]))
+    a, b = sorted(found(root, "legend-age-unknown"), key=lambda f: f.features)
+    assert "regional or obsolete" not in a.message and "regional or obsolete" in b.message
