@@ -389,7 +389,11 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `age = "Famennian"` with `max_age_ma = 380` gives "legend.csv, row 9,
     column 'max_age_ma' (unit 'AMB'): 380 Ma is older than the base of the
-    Famennian (372.2 Ma ...) by 7.8 Myr".
+    Famennian (372.2 Ma ...) by 7.8 Myr". With the v2023/09 chart, `age =
+    "Late Cambrian"` with `max_age_ma = 530` gives "... 530 Ma is older than
+    the base of Late Cambrian (503.2 Ma) by 26.8 Myr ...; 'Late Cambrian' is
+    informal: read as the younger third of the Cambrian (common practice),
+    with 8.9 Myr of leeway inside the Cambrian".
     """
     legend = project.tables["legend"]
     ages = cells(legend, "age")
@@ -446,7 +450,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             limit += f" ± {_fmt_ma(unc)})" if unc else ")"
             yield Hit(
                 f"{legend.data.cell(i, col)} ({unit}): {_fmt_ma(value)} Ma is {limit} by {off:.3g} Myr "
-                f"(ICS chart {CHART_VERSION}){informal}.",
+                f"({'as written in the age column' if span.numeric else f'ICS chart {CHART_VERSION}'}){informal}.",
                 layer="legend",
                 features=feats,
                 measure=off,
