@@ -6,6 +6,9 @@ and the audit cannot read the same thing two ways:
 
 * :mod:`.legend`: which legend column holds the unit code, name, ages,
   colour... (header spellings, the manifest's ``*_field`` keys);
+* :mod:`.ages`: legend ages as mappers write them (chart names, ranges,
+  combining forms such as Permo-Triassic, informal Early/Middle/Late,
+  numerical ages in Ma), read against the chart in ``archivist.reference``;
 * :mod:`.analytes`: analyte column headers, their units, total-iron
   notations, censored and not-analysed cell values;
 * :mod:`.licences`: SPDX licence expressions, their names, and licences
