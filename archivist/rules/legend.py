@@ -26,7 +26,7 @@ import shapely
 
 from ..model import Hit
 from ..readers import as_text
-from ..reference import CHART_VERSION, AgeError, parse_age
+from ..reference import AgeError, parse_age
 from ..registry import rule
 from ..vocab.legend import REQUIRED, cells, column, wanted
 
@@ -344,16 +344,22 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Catches
     -------
-    `age` cells that name no unit of the chart published by the
-    International Commission on Stratigraphy (version v2023/09, shipped with
-    archivist). Accepted: chart names in any case, with or without accents
-    and with British spellings (Palaeogene); formal and informal
-    Lower/Middle/Upper and Early/Middle/Late forms; ranges such as
+    `age` cells that name no unit of the International Chronostratigraphic
+    Chart (International Commission on Stratigraphy, CC BY 4.0; versions
+    2024-12, the default, and 2023-09, chosen with `[checks] chart`; built
+    from the ICS's own data, see `archivist/reference/`). Accepted: chart
+    names in any case, with or without accents, with British spellings
+    (Palaeogene) and in every language the chart gives (Jura, Kreide,
+    Jurassique, Cretácico); formal and informal Lower/Middle/Upper and
+    Early/Middle/Late forms, and the formal subseries of the Pleistocene and
+    Holocene; ranges such as
     "Cenomanian-Turonian" or "Late Triassic to Early Jurassic"; a "?" of
     doubt. Informal subdivisions (e.g. "Late Eocene") are checked against the
     whole unit they qualify. Also: `min_age_ma`/`max_age_ma` that are not
     numbers, are swapped, or lie outside the named interval by more than the
-    chart's stated uncertainty on that boundary. Regional stages (e.g.
+    chart's stated uncertainty (±) on that boundary: an age within it is
+    not reported. A boundary the chart marks approximate without a ± gets
+    no extra margin. Regional stages (e.g.
     Namurian) and obsolete names (Tertiary) are reported; whether they are
     acceptable is for the mapper and local practice to decide.
 
@@ -372,7 +378,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `age = "Famennian"` with `max_age_ma = 380` gives "legend.csv, row 9,
     column 'max_age_ma' (unit 'AMB'): 380 Ma is older than the base of the
-    Famennian (372.2 Ma ...) by 7.8 Myr".
+    Famennian (372.15 Ma ± 0.46) by 7.85 Myr (ICS chart 2024-12)".
     """
     legend = project.tables["legend"]
     ages = cells(legend, "age")
@@ -388,7 +394,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         span = None
         if text:
             try:
-                span = parse_age(text)
+                span = parse_age(text, project.config.chart)
             except AgeError as exc:
                 yield Hit(f"{legend.data.cell(i, age_col)} ({unit}): '{text}' {exc}.", layer="legend", features=feats)
         nums = {}
@@ -429,14 +435,14 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             limit += f" ± {_fmt_ma(unc)})" if unc else ")"
             yield Hit(
                 f"{legend.data.cell(i, col)} ({unit}): {_fmt_ma(value)} Ma is {limit} by {off:.3g} Myr "
-                f"(ICS chart {CHART_VERSION}){informal}.",
+                f"(ICS chart {span.chart}){informal}.",
                 layer="legend",
                 features=feats,
                 measure=off,
             )
 
 
-def _intervals(legend):
+def _intervals(legend, chart: str):
     """Per legend row: (top_ma, base_ma) from the numerical ages if usable, else from the chart; NaN when unknown."""
     n = len(legend.frame)
     top, base = np.full(n, np.nan), np.full(n, np.nan)
@@ -450,7 +456,7 @@ def _intervals(legend):
             continue
         if ages is not None and ages[i]:
             try:
-                span = parse_age(ages[i])
+                span = parse_age(ages[i], chart)
             except AgeError:
                 continue
             top[i], base[i] = span.top_ma, span.base_ma
@@ -502,7 +508,7 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     else:
         order = np.arange(n, dtype=float)
         by = "row order"
-    top, base = _intervals(legend)
+    top, base = _intervals(legend, project.config.chart)
     exempt = np.array([k.casefold().startswith(EXEMPT_KINDS) for k in kinds], dtype=bool) if kinds is not None else np.zeros(n, bool)
     ok = np.isfinite(order) & np.isfinite(top) & np.isfinite(base) & ~exempt
     # above[i, j]: i is listed above j; older[i, j]: all of i is older than all of j (touching
