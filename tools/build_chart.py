@@ -4,7 +4,7 @@ Usage::
 
     python tools/build_chart.py [SOURCE.ttl ...]
 
-With no argument it reads the two files kept in ``archivist/reference/source/``
+With no argument it reads the two files kept in ``tests/data/ics/``
 (copied unchanged from the data repository of the International Commission on
 Stratigraphy, CC BY 4.0) and writes ``archivist/reference/ics_chart_<version>.csv``
 for each. The installed package reads only those CSV tables; rdflib (a test
@@ -30,7 +30,9 @@ from pathlib import Path
 import rdflib
 from rdflib.namespace import OWL, RDF, SKOS
 
-HERE = Path(__file__).resolve().parent.parent / "archivist" / "reference"
+ROOT = Path(__file__).resolve().parent.parent
+HERE = ROOT / "archivist" / "reference"
+SOURCES = ROOT / "tests" / "data" / "ics"
 ISC = "http://resource.geosciml.org/classifier/ics/ischart/"
 GTS = rdflib.Namespace("http://resource.geosciml.org/ontology/timescale/gts#")
 TIME = rdflib.Namespace("http://www.w3.org/2006/time#")
@@ -226,7 +228,7 @@ def build(source: Path, out_dir: Path = HERE) -> Path:
 
 def main(argv: list[str]) -> int:
     """Build every table named on the command line (default: the shipped sources)."""
-    sources = [Path(a) for a in argv] or sorted((HERE / "source").glob("chart-*.ttl"))
+    sources = [Path(a) for a in argv] or sorted(SOURCES.glob("chart-*.ttl"))
     for s in sources:
         print(build(s))
     return 0

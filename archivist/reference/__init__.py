@@ -6,7 +6,7 @@ chart published by the International Commission on Stratigraphy (ICS): its
 broader unit, base and top in Ma with the chart's ± and "approximate" flag,
 the official colour and every name the chart gives in any language. The
 tables are built by ``tools/build_chart.py`` from the ICS's own
-machine-readable data (kept in ``source/``, CC BY 4.0); each header records
+machine-readable data (kept in ``tests/data/ics/`` of the source tree, CC BY 4.0); each header records
 the version, the SHA-256 of the source file and every transcription glitch
 repaired. Attribution: "International Chronostratigraphic Chart,
 International Commission on Stratigraphy, version <v>, CC BY 4.0" and
