@@ -201,9 +201,7 @@ def _read_chart(version: str) -> tuple[ChartInfo, tuple[Interval, ...]]:
     lines = [line for line in text.splitlines() if line.strip() and not line.startswith("#")]
     rows = []
     for rec in csv.DictReader(io.StringIO("\n".join(lines))):
-        labels = tuple(
-            tuple(item.split(":", 1)) for item in rec["labels"].split("|") if ":" in item
-        )
+        labels = tuple((lang, name) for lang, _, name in (item.partition(":") for item in rec["labels"].split("|")) if name)
         rows.append(
             Interval(
                 name=rec["name"].strip(),
@@ -217,7 +215,7 @@ def _read_chart(version: str) -> tuple[ChartInfo, tuple[Interval, ...]]:
                 top_estimated=rec["top_approximate"].strip() == "yes",
                 color=rec["color"].strip(),
                 id=rec["id"].strip(),
-                labels=labels,  # type: ignore[arg-type]
+                labels=labels,
             )
         )
     return info, tuple(rows)
