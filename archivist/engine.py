@@ -16,7 +16,11 @@ from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
 from .progress import Progress
 from .project import MapProject, crs_label, load_project
+from .reference import chart_credit
 from .registry import RuleInfo, select
+
+# The rules that read legend ages on the ICS chart: when one runs, the report names the chart version.
+CHART_RULES = {"legend-age-unknown", "legend-age-order"}
 
 __all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
 
@@ -105,13 +109,14 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                             findings.append(to_finding(info, hit, severity, forced))
                     except GEOSException as exc:
                         findings.append(rule_failed(info, exc))
+    chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
     return Report(
         tool="archivist",
         version=__version__,
         project=str(project.manifest_path or project.root),
         crs=crs_label(project.crs),
         findings=tuple(findings),
-        notes=tuple(project.notes + ctx.notes),
+        notes=tuple(project.notes + ctx.notes + chart),
         rules_run=tuple(ran),
     )
 

@@ -26,6 +26,7 @@ from . import vectorio
 from .model import Hit
 from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
+from .reference import CHART_VERSIONS, DEFAULT_CHART
 
 LAYER_ROLES = ("units", "lines", "extent", "samples", "structures")
 TABLE_ROLES = ("legend", "analyses")
@@ -114,6 +115,7 @@ class CheckConfig:
         "bedding", "foliation", "cleavage", "joint", "vein", "fault plane", "lineation", "fold axis",
     )
     severity: dict[str, str] = field(default_factory=dict)
+    chart: str = DEFAULT_CHART  # the ICS chart version legend ages are checked against
 
     @property
     def metres_per_map_mm(self) -> float:
@@ -195,6 +197,8 @@ def make_config(manifest: dict[str, Any], crs: pyproj.CRS | None) -> CheckConfig
         if key in checks:
             kw[key] = tuple(str(v) for v in checks[key])
     kw["severity"] = {str(k): str(v) for k, v in (checks.get("severity") or {}).items()}
+    if str(checks.get("chart")) in CHART_VERSIONS:  # another value is reported as manifest-invalid
+        kw["chart"] = str(checks["chart"])
     return CheckConfig(**kw)
 
 

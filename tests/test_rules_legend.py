@@ -165,15 +165,17 @@ def test_colour_forms(text, words):
 def test_numeric_age_outside_ics_interval(tmp_path):
     root = age_too_old(tmp_path)
     (f,) = found(root, "legend-age-unknown")
-    famennian = lookup("Famennian")  # ICS chart v2023/09: base 372.2 ± 1.6 Ma (recalled)
-    assert famennian.base_ma == 372.2
+    famennian = lookup("Famennian")
+    # ICS chart 2024-12 (chart-2024-12.ttl, ischart:Famennian time:hasBeginning): 372.15 ± 0.46 Ma
+    assert (famennian.base_ma, famennian.base_uncertainty_ma) == (372.15, 0.46)
     assert f.measure == pytest.approx(380 - famennian.base_ma)
     assert "column 'max_age_ma'" in f.message and f"ICS chart {CHART_VERSION}" in f.message
 
 
 def test_numeric_age_within_stated_uncertainty_passes(tmp_path):
-    # 373 Ma is older than 372.2 but inside the chart's ± 1.6 Ma on that boundary.
-    root = edit_table(copy_bundle(tmp_path), "legend.csv", _set("AMB", "max_age_ma", "373"))
+    # 372.5 Ma is older than the base of the Famennian, 372.15 Ma, but inside the chart's
+    # ± 0.46 Ma on that boundary (ICS chart 2024-12, chart-2024-12.ttl).
+    root = edit_table(copy_bundle(tmp_path), "legend.csv", _set("AMB", "max_age_ma", "372.5"))
     assert found(root, "legend-age-unknown") == []
 
 
@@ -231,7 +233,8 @@ def test_age_order_uses_chart_when_numbers_absent(tmp_path):
     legend["max_age_ma"] = ""
     legend["order"] = ["2", "1"]  # Carnian (older) listed above Norian
     (f,) = found(tiny_project(tmp_path, legend=legend), "legend-age-order")
-    assert "'B'" in f.message and "227-237" in f.message  # Carnian ~237 to ~227 Ma, ICS chart v2023/09
+    # Carnian ~237 to ~227.3 Ma: ICS chart 2024-12 (chart-2024-12.ttl, ischart:Carnian)
+    assert "'B'" in f.message and "227.3-237" in f.message
 
 
 def test_row_numbers_count_the_blank_rows_of_a_workbook_legend(tmp_path):
@@ -314,7 +317,7 @@ def test_late_cambrian_with_525_to_530_ma_is_found(tmp_path):
     cambrian = lookup("Cambrian")
     start = cambrian.base_ma - 2 * (cambrian.base_ma - cambrian.top_ma) / 3
     assert cambrian.base_ma == 538.8 and cambrian.top_ma in (485.4, 486.85)
-    assert sorted(f.measure for f in hits) == pytest.approx([525 - start, 530 - start])
+    assert sorted(f.measure for f in hits) == pytest.approx([525 - start, 530 - start], abs=5e-4)  # measures are reported to 0.001
     assert all("younger third of the Cambrian" in f.message for f in hits)
 
 

@@ -9,6 +9,7 @@ import yaml
 
 from .._version import __version__
 from ..model import Finding, Report
+from ..reference import CREDIT_PREFIX as CHART_CREDIT_PREFIX
 from ..vocab import legend as legend_vocab
 from .deposit import Deposit
 
@@ -123,6 +124,9 @@ def readme_text(
         out += ["## Units", "", "| code | name | age | age (Ma) |", "|---|---|---|---|"]
         out += [f"| {_md(c)} | {_md(n)} | {_md(a)} | {_md(r)} |" for c, n, a, r in legend]
         out.append("")
+        for note in report.notes:
+            if note.startswith(CHART_CREDIT_PREFIX):  # which chart the ages were checked on, with its credit
+                out += [f"{note}.", ""]
     out += ["## Contents", "", "| file | what it holds |", "|---|---|"]
     out.append("| `map.gpkg` | All layers in one GeoPackage, in the map CRS: the editable master. |")
     for lay in layers:

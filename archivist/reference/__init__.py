@@ -1,15 +1,21 @@
 """Reference data shipped inside the package: the International Chronostratigraphic Chart.
 
-``ics_chart.csv`` holds every eon, era, period, epoch and age of the chart
-published by the International Commission on Stratigraphy (ICS), version
-:data:`CHART_VERSION`, with the numerical ages of their boundaries in Ma. The
-file header says how the values were transcribed; read it before relying on
-a number.
+``ics_chart_<version>.csv`` holds, for each version in :data:`CHART_VERSIONS`
+(default :data:`DEFAULT_CHART`, the latest), every unit of every rank of the
+chart published by the International Commission on Stratigraphy (ICS): its
+broader unit, base and top in Ma with the chart's ± and "approximate" flag,
+the official colour and every name the chart gives in any language. The
+tables are built by ``tools/build_chart.py`` from the ICS's own
+machine-readable data (kept in ``tests/data/ics/`` of the source tree, CC BY 4.0); each header records
+the version, the SHA-256 of the source file and every transcription glitch
+repaired. Attribution: "International Chronostratigraphic Chart,
+International Commission on Stratigraphy, version <v>, CC BY 4.0" and
+:data:`CHART_CITATION`.
 
-:func:`parse_age` reads an age as mappers write it in a legend: a chart name
-("Visean"), a formal or informal subdivision ("Upper Jurassic", "Late
-Jurassic", "early Visean"), or a range ("Cenomanian-Turonian", "Late
-Triassic to Early Jurassic"), and returns the span of time it covers.
+:func:`lookup` finds a unit by any name the chart gives it; reading an age
+as mappers write it in a legend (combining forms, ranges, informal parts) is
+:mod:`archivist.vocab.ages`, which reads the chart only through
+:func:`lookup` and :func:`intervals`.
 
 What it does not do: it knows the global chart only. Regional stages
 (e.g. the British or North American ones), local zonations and obsolete names
@@ -20,7 +26,6 @@ acceptable on a given map is for the mapper and local practice to decide.
 from __future__ import annotations
 
 import csv
-import difflib
 import io
 import re
 import unicodedata
@@ -28,9 +33,16 @@ from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 
-CHART_VERSION = "v2023/09"
+CHART_VERSIONS = ("2023-09", "2024-12")
+DEFAULT_CHART = "2024-12"
+CHART_VERSION = DEFAULT_CHART
 CHART_PUBLISHER = "International Commission on Stratigraphy"
 CHART_TITLE = "International Chronostratigraphic Chart"
+CHART_LICENCE = "CC BY 4.0"
+CHART_CITATION = (
+    "Cohen, K.M., Finney, S.C., Gibbard, P.L. & Fan, J.-X. (2013; updated) "
+    "The ICS International Chronostratigraphic Chart. Episodes 36: 199-204."
+)
 RANKS = ("supereon", "eon", "era", "period", "subperiod", "epoch", "age")
 
 _MODIFIERS = {
@@ -38,20 +50,17 @@ _MODIFIERS = {
     "middle": "Middle", "mid": "Middle",
     "upper": "Upper", "late": "Upper", "latest": "Upper",
 }
-# Names that are not on the chart but common in older legends, with what to write instead.
-_OBSOLETE = {
-    "tertiary": "it was dropped from the chart; write Paleogene and/or Neogene",
-    "recent": "write Holocene",
-    "pleistogene": "write Quaternary",
-    "eocambrian": "write Ediacaran or Cambrian",
-    "infracambrian": "write Ediacaran or Cambrian",
-}
-_RANGE_SPLIT = re.compile(r"\s*(?:[-\u2010\u2011\u2012\u2013\u2014\u2212/]|\bto\b)\s*", re.IGNORECASE)
 
 
 @dataclass(frozen=True)
 class Interval:
-    """One unit of the chart. Ages in Ma; ``base_ma`` is the older boundary."""
+    """One unit of the chart. Ages in Ma; ``base_ma`` is the older boundary.
+
+    ``base_uncertainty_ma``/``top_uncertainty_ma`` are the chart's "±" (None
+    when it gives none); ``base_estimated``/``top_estimated`` are its
+    "approximate" flags. ``labels`` holds every name the chart gives, as
+    (language tag, name) pairs; ``color`` is the official ``#RRGGBB``.
+    """
 
     name: str
     rank: str
@@ -60,33 +69,46 @@ class Interval:
     top_ma: float
     base_uncertainty_ma: float | None
     base_estimated: bool
+    top_uncertainty_ma: float | None = None
+    top_estimated: bool = False
+    color: str = ""
+    id: str = ""
+    labels: tuple[tuple[str, str], ...] = ()
+
+    def label(self, language: str) -> str | None:
+        """The chart's name of this unit in ``language`` (a tag such as "de" or "fr"), or None."""
+        for lang, text in self.labels:
+            if lang.casefold() == language.casefold():
+                return text
+        return None
 
 
 @dataclass(frozen=True)
-class AgeSpan:
-    """The span of time an age text covers, with the chart units it was read from.
+class ChartInfo:
+    """Where one shipped chart table comes from, as its header records it."""
 
-    ``informal`` is True when a Lower/Middle/Upper or Early/Middle/Late
-    modifier is not a formal unit of the chart (e.g. "Late Eocene"): the span
-    is then the whole unit it qualifies. ``base_slack_ma``/``top_slack_ma``
-    are the chart's stated uncertainties on the two boundaries (0 when none).
-    """
+    version: str
+    source: str
+    sha256: str
+    repairs: tuple[str, ...]
 
-    text: str
-    base_ma: float
-    top_ma: float
-    units: tuple[str, ...]
-    informal: bool = False
-    base_slack_ma: float = 0.0
-    top_slack_ma: float = 0.0
-
-    def contains(self, age_ma: float) -> bool:
-        """True when ``age_ma`` lies within the span, widened by the boundaries' stated uncertainties."""
-        return self.top_ma - self.top_slack_ma - 1e-9 <= age_ma <= self.base_ma + self.base_slack_ma + 1e-9
+    @property
+    def attribution(self) -> str:
+        """The credit the chart's licence asks for."""
+        return f"{CHART_TITLE}, {CHART_PUBLISHER}, version {self.version}, {CHART_LICENCE}"
 
 
-class AgeError(ValueError):
-    """An age text that does not name a unit of the chart; the message says why, with a suggestion."""
+CREDIT_PREFIX = f"Legend ages checked against the {CHART_TITLE}"
+
+
+def chart_credit(version: str | None = None) -> str:
+    """One line saying which chart a check used, with the attribution and citation its licence asks for."""
+    info = chart_info(version)
+    return f"{CREDIT_PREFIX}, {CHART_PUBLISHER}, version {info.version}, {CHART_LICENCE} ({CHART_CITATION})"
+
+
+class ChartVersionError(ValueError):
+    """A chart version archivist does not ship."""
 
 
 def _normalise(text: str) -> str:
@@ -98,12 +120,49 @@ def _normalise(text: str) -> str:
     return " ".join(s.split())
 
 
-def _read_chart() -> tuple[Interval, ...]:
-    text = resources.files("archivist.reference").joinpath("ics_chart.csv").read_text(encoding="utf-8")
+def check_version(version: str | None) -> str:
+    """The chart version to use: ``version`` if archivist ships it, the latest when None.
+
+    Raises
+    ------
+    ChartVersionError
+        ``version`` is not one of :data:`CHART_VERSIONS`.
+    """
+    if version is None:
+        return DEFAULT_CHART
+    v = str(version).strip().lstrip("vV").replace("/", "-")
+    if v not in CHART_VERSIONS:
+        raise ChartVersionError(
+            f"chart version '{version}' is not shipped with archivist; use one of {', '.join(CHART_VERSIONS)}"
+        )
+    return v
+
+
+def _table_text(version: str) -> str:
+    return resources.files("archivist.reference").joinpath(f"ics_chart_{version}.csv").read_text(encoding="utf-8")
+
+
+def _opt(text: str) -> float | None:
+    text = text.strip()
+    return float(text) if text else None
+
+
+@lru_cache(maxsize=None)
+def _read_chart(version: str) -> tuple[ChartInfo, tuple[Interval, ...]]:
+    text = _table_text(version)
+    header = [line[1:].strip() for line in text.splitlines() if line.startswith("#")]
+    meta = dict(line.split(": ", 1) for line in header if line.startswith(("chart_version:", "source:")))
+    source, _, sha = meta["source"].partition(", sha256 ")
+    info = ChartInfo(
+        version=meta["chart_version"],
+        source=source,
+        sha256=sha,
+        repairs=tuple(line.removeprefix("repair: ") for line in header if line.startswith("repair: ")),
+    )
     lines = [line for line in text.splitlines() if line.strip() and not line.startswith("#")]
     rows = []
     for rec in csv.DictReader(io.StringIO("\n".join(lines))):
-        unc = rec["base_uncertainty_ma"].strip()
+        labels = tuple((lang, name) for lang, _, name in (item.partition(":") for item in rec["labels"].split("|")) if name)
         rows.append(
             Interval(
                 name=rec["name"].strip(),
@@ -111,144 +170,115 @@ def _read_chart() -> tuple[Interval, ...]:
                 parent=rec["parent"].strip() or None,
                 base_ma=float(rec["base_ma"]),
                 top_ma=float(rec["top_ma"]),
-                base_uncertainty_ma=float(unc) if unc else None,
-                base_estimated=rec["base_estimated"].strip().lower() == "yes",
+                base_uncertainty_ma=_opt(rec["base_uncertainty_ma"]),
+                base_estimated=rec["base_approximate"].strip() == "yes",
+                top_uncertainty_ma=_opt(rec["top_uncertainty_ma"]),
+                top_estimated=rec["top_approximate"].strip() == "yes",
+                color=rec["color"].strip(),
+                id=rec["id"].strip(),
+                labels=labels,
             )
         )
-    return tuple(rows)
+    return info, tuple(rows)
 
 
-@lru_cache(maxsize=1)
-def intervals() -> tuple[Interval, ...]:
-    """Every unit of the chart, in file order."""
-    return _read_chart()
+def chart_info(version: str | None = None) -> ChartInfo:
+    """Version, source file, SHA-256 and repairs of the shipped chart ``version`` (default: the latest)."""
+    return _read_chart(check_version(version))[0]
 
 
-@lru_cache(maxsize=1)
-def _by_name() -> dict[str, Interval]:
-    return {_normalise(i.name): i for i in intervals()}
+def intervals(version: str | None = None) -> tuple[Interval, ...]:
+    """Every unit of the chart ``version`` (default: the latest), youngest first, as the chart orders them."""
+    return _read_chart(check_version(version))[1]
 
 
-@lru_cache(maxsize=1)
-def _boundary_slack() -> dict[float, float]:
-    """Stated uncertainty of each boundary age (the largest given for any unit starting there)."""
-    out: dict[float, float] = {}
-    for i in intervals():
-        if i.base_uncertainty_ma:
-            out[i.base_ma] = max(out.get(i.base_ma, 0.0), i.base_uncertainty_ma)
+# The formal subseries of the Pleistocene and Holocene that the data gives as stages (or not at
+# all), from memory of the ICS ratifications: Lower Pleistocene = Gelasian + Calabrian, Middle
+# Pleistocene = Chibanian; Lower/Middle/Upper Holocene = Greenlandian/Northgrippian/Meghalayan.
+_SUBSERIES = {
+    "Lower Pleistocene": ("Gelasian", "Calabrian"),
+    "Middle Pleistocene": ("Chibanian",),
+    "Lower Holocene": ("Greenlandian",),
+    "Middle Holocene": ("Northgrippian",),
+    "Upper Holocene": ("Meghalayan",),
+}
+
+
+def _subseries(units: dict[str, Interval]) -> dict[str, Interval]:
+    out = {}
+    for name, parts in _SUBSERIES.items():
+        got = [units[p] for p in parts if p in units]
+        if len(got) != len(parts):
+            continue
+        old, young = max(got, key=lambda u: u.base_ma), min(got, key=lambda u: u.top_ma)
+        out[name] = Interval(
+            name=name, rank="subseries", parent=got[0].parent,
+            base_ma=old.base_ma, top_ma=young.top_ma,
+            base_uncertainty_ma=old.base_uncertainty_ma, base_estimated=old.base_estimated,
+            top_uncertainty_ma=young.top_uncertainty_ma, top_estimated=young.top_estimated,
+            color=got[0].color if len(got) == 1 else "",
+        )
     return out
 
 
-def lookup(name: str) -> Interval | None:
-    """The chart unit spelt ``name`` (case, accents and "palaeo"/"paleo" ignored), or None."""
-    return _by_name().get(_normalise(name))
+def _label_keys(text: str) -> list[str]:
+    """Index forms of one chart label: as written, without a bracketed gloss, with hyphens as spaces."""
+    base = _normalise(text)
+    keys = [base, _normalise(re.sub(r"\s*\(.*?\)\s*", " ", text)), base.replace("-", " ")]
+    return [k for k in dict.fromkeys(keys) if k and k not in _MODIFIERS]
 
 
-def children(name: str) -> list[Interval]:
+@lru_cache(maxsize=None)
+def _by_name(version: str = DEFAULT_CHART) -> dict[str, Interval]:
+    """Name index: the chart's names first, then its English labels, then every other language's."""
+    units = intervals(version)
+    out: dict[str, Interval] = {_normalise(i.name): i for i in units}
+    for name, unit in _subseries({i.name: i for i in units}).items():
+        out.setdefault(_normalise(name), unit)
+    # Then the labels the other shipped versions give for the same unit (same identifier): a
+    # version that leaves a unit unlabelled (2024-12 gives no label for "Lower Jurassic") still
+    # knows its names in other languages.
+    by_id = {i.id: i for i in units}
+    others = [u for v in CHART_VERSIONS if v != version for u in intervals(v) if u.id in by_id]
+    for english in (True, False):
+        for pool in (units, others):
+            for i in pool:
+                for lang, text in i.labels:
+                    if lang.startswith("en") == english:
+                        for key in _label_keys(text):
+                            out.setdefault(key, by_id.get(i.id, i))
+    return out
+
+
+@lru_cache(maxsize=None)
+def lookup(name: str, chart: str | None = None) -> Interval | None:
+    """The chart unit called ``name`` in any language the chart gives (case, accents and
+    "palaeo"/"paleo" ignored; Early/Late for Lower/Upper of formal series), or None."""
+    version = check_version(chart)
+    norm = _normalise(name)
+    hit = _by_name(version).get(norm)
+    if hit is None:
+        words = norm.split(" ")
+        if len(words) > 1 and words[0] in _MODIFIERS:
+            hit = _by_name(version).get(_normalise(f"{_MODIFIERS[words[0]]} {' '.join(words[1:])}"))
+    return hit
+
+
+def children(name: str, chart: str | None = None) -> list[Interval]:
     """The units one rank below ``name``, oldest first."""
-    unit = lookup(name)
+    version = check_version(chart)
+    unit = lookup(name, version)
     if unit is None:
         return []
-    return sorted((i for i in intervals() if i.parent == unit.name), key=lambda i: -i.base_ma)
+    return sorted((i for i in intervals(version) if i.parent == unit.name), key=lambda i: -i.base_ma)
 
 
-def ancestors(name: str) -> list[str]:
+def ancestors(name: str, chart: str | None = None) -> list[str]:
     """Names of the units containing ``name``, nearest first."""
+    version = check_version(chart)
     out = []
-    unit = lookup(name)
+    unit = lookup(name, version)
     while unit is not None and unit.parent:
         out.append(unit.parent)
-        unit = lookup(unit.parent)
+        unit = lookup(unit.parent, version)
     return out
-
-
-def _term(text: str) -> tuple[Interval, bool]:
-    """One age name (no range) -> (chart unit, informal?). Raises AgeError."""
-    norm = _normalise(text).strip(" ?()").replace("mid-", "middle ")
-    norm = " ".join(norm.replace("?", " ").split())
-    if not norm:
-        raise AgeError("is empty")
-    hit = _by_name().get(norm)
-    if hit is not None:
-        return hit, False
-    words = norm.split(" ")
-    if words[0] in _MODIFIERS and len(words) > 1:
-        rest = " ".join(words[1:])
-        formal = _by_name().get(_normalise(f"{_MODIFIERS[words[0]]} {rest}"))
-        if formal is not None:
-            return formal, False
-        base = _by_name().get(rest)
-        if base is not None:
-            return base, True
-    for cut in range(1, len(words)):
-        outer, inner = " ".join(words[:cut]), " ".join(words[cut:])
-        o, i = _by_name().get(outer), _by_name().get(inner)
-        if o is not None and i is not None and o.name in ancestors(i.name):
-            return i, False
-    raise AgeError(_why_unknown(norm))
-
-
-def _why_unknown(norm: str) -> str:
-    words = norm.split(" ")
-    core = " ".join(w for w in words if w not in _MODIFIERS) or norm
-    if core in _OBSOLETE:
-        return f"is not a unit of the {CHART_TITLE} {CHART_VERSION}: {_OBSOLETE[core]}"
-    if re.search(r"\d", norm) and not norm.startswith(("stage", "series")):
-        return f"is not a unit of the {CHART_TITLE}; put numerical ages in min_age_ma/max_age_ma"
-    names = [i.name for i in intervals()]
-    close = difflib.get_close_matches(core, [_normalise(n) for n in names], n=1, cutoff=0.85)
-    if close:
-        return f"is not a unit of the {CHART_TITLE} {CHART_VERSION}; did you mean {_by_name()[close[0]].name}?"
-    return f"is not a unit of the {CHART_TITLE} {CHART_VERSION} (a regional or obsolete name?)"
-
-
-def parse_age(text: str) -> AgeSpan:
-    """The span of time an age text names.
-
-    Accepts chart names in any case, with or without accents and with British
-    spellings ("Palaeogene"); formal and informal Lower/Middle/Upper and
-    Early/Middle/Late forms; ranges written with a hyphen, dash, slash or
-    "to"; a "?" of uncertainty is ignored.
-
-    Raises
-    ------
-    AgeError
-        The text names no unit of the chart; the message says why.
-
-    Examples
-    --------
-    >>> s = parse_age("Cenomanian-Turonian")
-    >>> (s.base_ma, s.top_ma)
-    (100.5, 89.8)
-    >>> parse_age("Late Jurassic").units
-    ('Upper Jurassic',)
-    """
-    raw = str(text).strip()
-    parts = [p for p in _RANGE_SPLIT.split(re.sub(r"(?i)\bmid-", "Middle ", raw)) if p.strip()]
-    if not parts:
-        raise AgeError("is empty")
-    found: list[tuple[Interval, bool]] = []
-    for k, part in enumerate(parts):
-        words = _normalise(part).split(" ")
-        if all(w in _MODIFIERS for w in words) and k + 1 < len(parts):
-            # "Early-Middle Jurassic": the bare modifier borrows the unit named on its right.
-            right = [w for w in parts[k + 1].split() if _normalise(w) not in _MODIFIERS]
-            part = f"{part} {' '.join(right)}"
-        try:
-            found.append(_term(part))
-        except AgeError as exc:
-            if len(parts) > 1:
-                raise AgeError(f"part '{part}' {exc}") from None
-            raise
-    base_unit = max(found, key=lambda f: f[0].base_ma)[0]
-    top_unit = min(found, key=lambda f: f[0].top_ma)[0]
-    slack = _boundary_slack()
-    return AgeSpan(
-        text=raw,
-        base_ma=base_unit.base_ma,
-        top_ma=top_unit.top_ma,
-        units=tuple(f[0].name for f in found),
-        informal=any(f[1] for f in found),
-        base_slack_ma=slack.get(base_unit.base_ma, 0.0),
-        top_slack_ma=slack.get(top_unit.top_ma, 0.0),
-    )

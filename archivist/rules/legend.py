@@ -26,7 +26,6 @@ import shapely
 
 from ..model import Hit
 from ..readers import as_text
-from ..reference import CHART_VERSION
 from ..registry import rule
 from ..vocab.ages import AgeError, parse_age
 from ..vocab.legend import REQUIRED, cells, column, wanted
@@ -345,12 +344,14 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Catches
     -------
-    `age` cells that name no unit of the chart published by the
-    International Commission on Stratigraphy (version v2023/09, shipped with
-    archivist). Accepted (read by `archivist.vocab.ages`): chart names in
-    any case, with or without accents and with British spellings
-    (Palaeogene); formal Lower/Middle/Upper and their Early/Middle/Late
-    spellings; two names joined by a hyphen, "/", "to", "or" or "and"
+    `age` cells that name no unit of the International Chronostratigraphic
+    Chart (International Commission on Stratigraphy, CC BY 4.0; versions
+    2024-12, the default, and 2023-09, chosen with `[checks] chart`; built
+    from the ICS's own data, see `archivist/reference/`). Accepted (read by
+    `archivist.vocab.ages`): chart names in any case, with or without accents,
+    with British spellings (Palaeogene) and in every language the chart gives
+    (Jura, Kreide, Jurassique, Cretácico); formal Lower/Middle/Upper and their
+    Early/Middle/Late spellings; two names joined by a hyphen, "/", "to", "or" or "and"
     ("Cenomanian-Turonian", "Late Triassic to Early Jurassic", "Permian or
     Triassic"), spanning from the base of the older to the top of the
     younger; the combining forms of the trade (Permo-Triassic,
@@ -371,8 +372,9 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     on that boundary. Regional stages (e.g. Namurian) and obsolete names
     (Tertiary) are reported, with that hint (the list of such names is from
     memory); whether they are acceptable is for the mapper and local practice
-    to decide. Not covered: the names of the chart in other languages, and
-    regional stages as a time scale of their own.
+    to decide. A boundary the chart marks approximate without a ± gets no
+    extra margin. Not covered: names combined across languages
+    ("Unterkreide"), and regional stages as a time scale of their own.
 
     Why it matters
     --------------
@@ -389,11 +391,11 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `age = "Famennian"` with `max_age_ma = 380` gives "legend.csv, row 9,
     column 'max_age_ma' (unit 'AMB'): 380 Ma is older than the base of the
-    Famennian (372.2 Ma ...) by 7.8 Myr". With the v2023/09 chart, `age =
+    Famennian (372.15 Ma ± 0.46) by 7.85 Myr (ICS chart 2024-12)". `age =
     "Late Cambrian"` with `max_age_ma = 530` gives "... 530 Ma is older than
-    the base of Late Cambrian (503.2 Ma) by 26.8 Myr ...; 'Late Cambrian' is
+    the base of Late Cambrian ... by ... Myr ...; 'Late Cambrian' is
     informal: read as the younger third of the Cambrian (common practice),
-    with 8.9 Myr of leeway inside the Cambrian".
+    with ... Myr of leeway inside the Cambrian".
     """
     legend = project.tables["legend"]
     ages = cells(legend, "age")
@@ -409,7 +411,7 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         span = None
         if text:
             try:
-                span = parse_age(text)
+                span = parse_age(text, project.config.chart)
             except AgeError as exc:
                 yield Hit(f"{legend.data.cell(i, age_col)} ({unit}): '{text}' {exc}.", layer="legend", features=feats)
         nums = {}
@@ -450,14 +452,14 @@ def legend_age_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             limit += f" ± {_fmt_ma(unc)})" if unc else ")"
             yield Hit(
                 f"{legend.data.cell(i, col)} ({unit}): {_fmt_ma(value)} Ma is {limit} by {off:.3g} Myr "
-                f"({'as written in the age column' if span.numeric else f'ICS chart {CHART_VERSION}'}){informal}.",
+                f"({'as written in the age column' if span.numeric else f'ICS chart {span.chart}'}){informal}.",
                 layer="legend",
                 features=feats,
                 measure=off,
             )
 
 
-def _intervals(legend):
+def _intervals(legend, chart: str):
     """Per legend row: (top_ma, base_ma) from the numerical ages if usable, else from the chart; NaN when unknown.
 
     An informal Early/Middle/Late is widened by its leeway (only a clear
@@ -479,7 +481,7 @@ def _intervals(legend):
             continue
         if ages is not None and ages[i]:
             try:
-                span = parse_age(ages[i])
+                span = parse_age(ages[i], chart)
             except AgeError:
                 continue
             top[i], base[i] = span.widest
@@ -536,7 +538,7 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     else:
         order = np.arange(n, dtype=float)
         by = "row order"
-    top, base, exact_top, exact_base, group = _intervals(legend)
+    top, base, exact_top, exact_base, group = _intervals(legend, project.config.chart)
     exempt = np.array([k.casefold().startswith(EXEMPT_KINDS) for k in kinds], dtype=bool) if kinds is not None else np.zeros(n, bool)
     ok = np.isfinite(order) & np.isfinite(top) & np.isfinite(base) & ~exempt
     # above[i, j]: i is listed above j; older[i, j]: all of i is older than all of j (touching

@@ -41,10 +41,25 @@ from __future__ import annotations
 import difflib
 import re
 import unicodedata
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
-from .. import reference as chart
+from .. import reference as _reference
+
+
+class _Chart:
+    """One version of the chart as this module reads it: ``lookup`` and ``intervals`` on that version."""
+
+    CHART_TITLE = _reference.CHART_TITLE
+
+    def __init__(self, version: str | None = None) -> None:
+        self.CHART_VERSION = _reference.check_version(version)
+
+    def lookup(self, name: str) -> Any:
+        return _reference.lookup(name, self.CHART_VERSION)
+
+    def intervals(self) -> Any:
+        return _reference.intervals(self.CHART_VERSION)
 
 # Early/Middle/Late and their formal spellings: position in the unit, 0 = oldest third.
 _POSITION = {
@@ -159,6 +174,7 @@ class AgeSpan:
     thirds_of: str | None = None
     note: str = ""
     numeric: bool = False
+    chart: str = ""  # the chart version the span was read from
 
     def contains(self, age_ma: float) -> bool:
         """True when ``age_ma`` lies within the span, widened by the stated uncertainties and the informal leeway."""
@@ -204,7 +220,7 @@ def _formal(unit: Any, label: str) -> _Piece:
     return _Piece(label=label, base_ma=float(unit.base_ma), top_ma=float(unit.top_ma), units=(str(unit.name),))
 
 
-def _ancestor_names(unit: Any) -> list[str]:
+def _ancestor_names(unit: Any, chart: _Chart) -> list[str]:
     out: list[str] = []
     while unit is not None and unit.parent:
         out.append(str(unit.parent))
@@ -212,7 +228,7 @@ def _ancestor_names(unit: Any) -> list[str]:
     return out
 
 
-def _third(inner: _Piece, position: int, word: str) -> _Piece:
+def _third(inner: _Piece, position: int, word: str, chart: _Chart) -> _Piece:
     """The older, middle or younger third of ``inner`` (an informal subdivision)."""
     outer = chart.lookup(inner.thirds_of or inner.units[0])
     outer_base = float(outer.base_ma) if outer is not None else inner.base_ma
@@ -238,7 +254,7 @@ def _third(inner: _Piece, position: int, word: str) -> _Piece:
     )
 
 
-def _term(text: str) -> _Piece:
+def _term(text: str, chart: _Chart) -> _Piece:
     """One age name (no range) -> its piece. Raises AgeError."""
     norm = fold(text).strip(" ?()").replace("mid-", "middle ")
     norm = " ".join(norm.replace("?", " ").split())
@@ -264,7 +280,7 @@ def _term(text: str) -> _Piece:
                 top_ma=min(float(u.top_ma) for u in found),
                 units=tuple(str(u.name) for u in found),
             )
-        inner = _term(rest)
+        inner = _term(rest, chart)
         word = words[0].capitalize()
         unit = chart.lookup(inner.units[0])
         if inner.thirds_of is None and (unit is None or str(unit.rank) not in _THIRDS_RANKS or len(inner.units) > 1):
@@ -276,16 +292,17 @@ def _term(text: str) -> _Piece:
                 informal=True,
                 note=f"'{word} {inner.label}' is informal, so the whole {inner.label} is allowed",
             )
-        return _third(inner, position, word)
+        return _third(inner, position, word, chart)
     for cut in range(1, len(words)):
         o, i = chart.lookup(" ".join(words[:cut])), chart.lookup(" ".join(words[cut:]))
-        if o is not None and i is not None and o.name in _ancestor_names(i):
+        if o is not None and i is not None and o.name in _ancestor_names(i, chart):
             return _formal(i, str(i.name))
-    raise AgeError(why_unknown(norm))
+    raise AgeError(why_unknown(norm, chart))
 
 
-def why_unknown(text: str) -> str:
+def why_unknown(text: str, chart: _Chart | None = None) -> str:
     """Why ``text`` is not read as an age, with a suggestion where one is known."""
+    chart = chart or _Chart()
     norm = fold(text)
     words = norm.split(" ")
     core = " ".join(w for w in words if w not in _POSITION) or norm
@@ -308,7 +325,7 @@ def why_unknown(text: str) -> str:
     return f"is not a unit of {where}"
 
 
-def _boundary_slack() -> dict[float, float]:
+def _boundary_slack(chart: _Chart) -> dict[float, float]:
     """Stated uncertainty of each boundary age (the largest given for any unit starting there)."""
     out: dict[float, float] = {}
     for i in chart.intervals():
@@ -333,7 +350,7 @@ def _numeric(raw: str) -> AgeSpan | None:
     return AgeSpan(text=raw, base_ma=hi, top_ma=max(lo, 0.0), units=(), numeric=True)
 
 
-def parse_age(text: str) -> AgeSpan:
+def parse_age(text: str, version: str | None = None) -> AgeSpan:
     """The span of time an age text names (see the module's documentation for every form read).
 
     Raises
@@ -350,13 +367,14 @@ def parse_age(text: str) -> AgeSpan:
     ('Upper Jurassic',)
     """
     raw = str(text).strip()
+    chart = _Chart(version)
     number = _numeric(raw)
     if number is not None:
-        return number
+        return replace(number, chart=chart.CHART_VERSION)
     if _numeric(f"{raw} Ma") is not None:
         raise AgeError("is a number without its unit; write it as '250-260 Ma', or put it in min_age_ma/max_age_ma")
     try:
-        pieces = [_term(raw)]
+        pieces = [_term(raw, chart)]
     except AgeError:
         expanded = _STEM.sub(lambda m: f"{COMBINING_STEMS[m.group(1).casefold()]}-", re.sub(r"(?i)\bmid-", "Middle ", raw))
         parts = [p for p in _SPLIT.split(expanded) if p.strip()]
@@ -370,12 +388,12 @@ def parse_age(text: str) -> AgeSpan:
                 right = [w for w in parts[k + 1].split() if fold(w) not in _POSITION]
                 part = f"{part} {' '.join(right)}"
             try:
-                pieces.append(_term(part))
+                pieces.append(_term(part, chart))
             except AgeError as exc:
                 raise AgeError(f"part '{part}' {exc}") from None
     base = max(pieces, key=lambda p: p.base_ma)
     top = min(pieces, key=lambda p: p.top_ma)
-    slack = _boundary_slack()
+    slack = _boundary_slack(chart)
     groups = {p.thirds_of for p in pieces}
     notes = [p.note for p in pieces if p.note]
     return AgeSpan(
@@ -390,4 +408,5 @@ def parse_age(text: str) -> AgeSpan:
         top_leeway_ma=top.top_leeway_ma,
         thirds_of=groups.pop() if len(groups) == 1 else None,
         note="; ".join(dict.fromkeys(notes)),
+        chart=chart.CHART_VERSION,
     )
