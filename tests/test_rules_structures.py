@@ -312,3 +312,23 @@ def test_north_reference_carried_into_the_package(tmp_path):
     (az,) = [f for f in res["schema"]["fields"] if f["name"] == "azimuth"]
     assert az["description"].startswith("Dip direction, in degrees clockwise from north.") and line in az["description"]
     assert "magnetic north" in res["description"]
+
+
+def test_rake_and_overturned_columns_described_in_the_package(tmp_path):
+    import json
+
+    def change(frame):
+        frame["overturned"] = "no"
+        frame["rake"] = None
+
+    root = edit_layer(copy_bundle(tmp_path), "map.gpkg", "structures", change)
+    _structures_spec(root, overturned_field="overturned", rake_field="rake")
+    data = archivist.pack(root, tmp_path / "pkg").path / "data"
+    package = json.loads((data / "datapackage.json").read_text(encoding="utf-8"))
+    (res,) = [r for r in package["resources"] if r["name"] == "structures"]
+    fields = {f["name"]: f for f in res["schema"]["fields"]}
+    assert fields["rake"]["description"].startswith("Rake (pitch) of a line in the plane, 0-180 degrees")
+    assert "right-hand rule" in fields["rake"]["description"]
+    assert fields["overturned"]["description"].startswith("Overturned bedding: yes")
+    readme = (data / "README.md").read_text(encoding="utf-8")
+    assert "Overturned bedding is marked yes in 'overturned'" in readme and "'rake': rake (pitch)" in readme
