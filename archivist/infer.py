@@ -430,6 +430,7 @@ def _infer(path: Path) -> Inference:
             confirm.append("azimuths read as strikes by the right-hand rule (the field is named 'strike')")
         else:
             confirm.append("azimuths read as dip directions; set convention = \"right-hand-rule\" if they are strikes")
+        confirm.append("the data do not say which north the azimuths are from: add north = \"true\", \"magnetic\" (with declination) or \"grid\"")
         if not kind:
             confirm.append(f"no field naming the kind of measurement was recognised (fields: {', '.join(s.fields)}); set kind_field")
         place("structures", s, spec, [f"points with azimuth '{az}' and dip '{dip}'" + (f", kind '{kind}'" if kind else "")], confirm)

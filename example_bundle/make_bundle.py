@@ -516,6 +516,7 @@ kind_field = "kind"
 azimuth_field = "azimuth"
 dip_field = "dip"
 convention = "dip-direction"
+north = "true"
 [tables.legend]
 path = "legend.csv"
 [tables.analyses]

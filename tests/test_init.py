@@ -23,6 +23,8 @@ from builders import BUNDLE, CRS, edit_layer, edit_table, tiny_legend, tree_dige
 DATA_FILES = ("map.gpkg", "legend.csv", "analyses.xlsx")
 # What only the mapper knows: init leaves these keys for them to fill in.
 MAPPER_KEYS = ("title", "version", "licence", "abstract", "keywords", "authors", "publisher", "contact", "doi")
+# The north the azimuths are measured from is not in the data either: init leaves it to the mapper.
+MAPPER_STRUCTURE_KEYS = ("north", "declination")
 
 
 def run(*args):
@@ -64,6 +66,12 @@ def confirm(init_root: Path, original: Path) -> None:
         for key in MAPPER_KEYS
         if key in theirs["map"] and key != "authors"
     ]
+    at = lines.index("[layers.structures]") + 1
+    lines[at:at] = [
+        f"{key} = {json.dumps(theirs['layers']['structures'][key])}"
+        for key in MAPPER_STRUCTURE_KEYS
+        if key in theirs["layers"]["structures"]
+    ]
     body = "\n".join(lines) + "\n"
     for a in theirs["map"].get("authors", []):
         body += "[[map.authors]]\n" + "".join(f"{k} = {json.dumps(v, ensure_ascii=False)}\n" for k, v in a.items())
@@ -78,7 +86,11 @@ def test_init_on_bundle_files_recognises_every_role(tmp_path):
     assert result.exit_code == 0, result.output
     written = tomllib.loads((root / "archivist.toml").read_text(encoding="utf-8"))
     original = tomllib.loads((BUNDLE / "archivist.toml").read_text(encoding="utf-8"))
-    # the same roles, files, layers, sheets and fields as the manifest written by hand
+    # the same roles, files, layers, sheets and fields as the manifest written by hand; the north
+    # reference is the mapper's declaration, which init does not guess
+    assert not set(MAPPER_STRUCTURE_KEYS) & set(written["layers"]["structures"])
+    for key in MAPPER_STRUCTURE_KEYS:
+        original["layers"]["structures"].pop(key, None)
     assert written["layers"] == original["layers"]
     assert written["tables"] == original["tables"]
     assert written["map"]["crs"] == original["map"]["crs"] == "EPSG:32633"
@@ -106,11 +118,11 @@ def test_check_gives_the_same_findings_as_the_original(tmp_path, defects):
     assert run("init", files).exit_code == 0
     before = findings(original)
     raw = findings(files)
-    # Unconfirmed, the manifest lacks only what the data cannot tell: the deposit metadata.
+    # Unconfirmed, the manifest lacks only what the data cannot tell: the deposit metadata and the north reference.
     extra = [f for f in raw if f not in before]
     assert [f for f in before if f not in raw] == []
-    assert extra and all(f["rule"] == "metadata-incomplete" for f in extra)
-    assert {f["message"].split(" ")[0] for f in extra} == {"map.abstract", "map.licence", "map.authors"}
+    assert [f["rule"] for f in extra if f["rule"] != "metadata-incomplete"] == ["north-undeclared"]
+    assert {f["message"].split(" ")[0] for f in extra if f["rule"] == "metadata-incomplete"} == {"map.abstract", "map.licence", "map.authors"}
     # Confirmed by the mapper, the findings are the original's, one for one.
     confirm(files, original)
     assert tomllib.loads((files / "archivist.toml").read_text(encoding="utf-8"))["map"] == tomllib.loads(

@@ -29,6 +29,7 @@ from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
 from ..vocab.legend import column as legend_column
 from ..vocab.legend import columns as legend_columns
+from ..vocab import structures as structure_vocab
 from ..vocab.statements import measures_statement
 from .determinism import gdal_date
 from .tables import TextTable, column_text, text_table
@@ -95,6 +96,7 @@ class PreparedLayer:
     source: str
     note: str | None
     geometry_type: str
+    conventions: str = ""  # structures: the orientation conventions and north reference, for the README
 
     @property
     def count(self) -> int:
@@ -169,7 +171,8 @@ def prepare_layers(project: MapProject) -> list[PreparedLayer]:
         prepared = gpd.GeoDataFrame(data, geometry=np.asarray(frame.geometry.array, dtype=object), crs=target)
         types = sorted(set(shapely.get_type_id(prepared.geometry.array).tolist()) - {-1})
         gtype = ", ".join(GEOMETRY_NAMES[t] for t in types) or "none"
-        out.append(PreparedLayer(role, prepared, layer.source, note, gtype))
+        conventions = structure_vocab.convention_statement(layer) if role == "structures" else ""
+        out.append(PreparedLayer(role, prepared, layer.source, note, gtype, conventions))
     return out
 
 
@@ -301,10 +304,16 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
         if key in ("id_field", "unit_field"):
             identifiers.add(col)
         if role == "structures" and key == "azimuth_field":
-            descriptions[col] = AZIMUTH.get(spec.get("convention", "dip-direction"), AZIMUTH["dip-direction"])
+            azimuth = AZIMUTH.get(spec.get("convention", "dip-direction"), AZIMUTH["dip-direction"])
+            descriptions[col] = f"{azimuth} {structure_vocab.north_statement(spec)}"
             units[col] = "degree"
         if role == "structures" and key == "dip_field":
             units[col] = "degree"
+        if role == "structures" and key == "rake_field":
+            descriptions[col] = structure_vocab.RAKE_TEXT[0].upper() + structure_vocab.RAKE_TEXT[1:]
+            units[col] = "degree"
+        if role == "structures" and key == "overturned_field":
+            descriptions[col] = "Overturned bedding: yes where the bed's top faces down (its dip stays 0-90)."
     if role in ("samples", "structures") and pl.geometry_type == "Point":
         xname = spec.get("x_field") or "x"
         yname = spec.get("y_field") or "y"
@@ -322,6 +331,8 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
     table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
     table.title = LAYER_TITLES[role] + " (attributes)"
     table.description = LAYER_DESCRIPTIONS[role] + " Attributes only; the geometries are in map.gpkg and the GeoJSON file."
+    if pl.conventions:
+        table.description += " " + pl.conventions
     return table
 
 

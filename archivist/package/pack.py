@@ -535,7 +535,7 @@ def _write_payload(
         readme_text(
             deposit,
             shared,
-            [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source) for pl in layers],
+            [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source, pl.conventions) for pl in layers],
             legend_rows(legend),
             [(t.name, t.title, len(t.frame)) for t in tables],
             bbox,

@@ -32,6 +32,7 @@ class LayerFact:
     count: int
     geometry_type: str
     source: str
+    conventions: str = ""  # how its values are to be read (structures: conventions and north reference)
 
 
 def _md(text: Any) -> str:
@@ -119,6 +120,9 @@ def readme_text(
     out.append(f"- Authors: {'; '.join(a.name + (f' ({a.affiliation})' if a.affiliation else '') + (f', ORCID {a.orcid_url}' if a.orcid else '') for a in deposit.authors)}")
     if deposit.keywords:
         out.append(f"- Keywords: {', '.join(deposit.keywords)}")
+    for lay in layers:
+        if lay.conventions:
+            out.append(f"- {_md(lay.title)}: {_md(lay.conventions)}")
     out.append("")
     if legend:
         out += ["## Units", "", "| code | name | age | age (Ma) |", "|---|---|---|---|"]

@@ -13,7 +13,9 @@ and the audit cannot read the same thing two ways:
   notations, censored and not-analysed cell values;
 * :mod:`.licences`: SPDX licence expressions, their names, and licences
   recognised in free text;
-* :mod:`.statements`: sentences a check and a package file both say.
+* :mod:`.statements`: sentences a check and a package file both say;
+* :mod:`.structures`: kinds of structural measurement, orientation
+  conventions, the north reference, overturned flags and rake.
 
 No module here imports from ``archivist.rules`` or ``archivist.package``.
 """
