@@ -10,9 +10,11 @@ An analyte column is a column whose header names a chemical species
 ("SiO2", "Fe2O3T", "Cu", "87Sr/86Sr"), "LOI" or "Total", or that has a unit
 in `[tables.analyses.units]`. Its unit is read from the header ("SiO2
 (wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest. Cells are read as
-numbers, censored values ("<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.",
-">10000"), not-analysed marks ("n.a.", "-"), or unreadable (Excel error
-cells such as "#N/A", text, dates). Headers, units and cells are read by
+numbers, censored values ("<0.5", "<.01", "< 5 ppm", "bdl", "b.d.l.",
+"trace", ">10000"), not-analysed marks ("n.a.", "-", empty), or unreadable
+(Excel error cells such as "#N/A", text, dates); "n.d." as
+`[tables.analyses] nd_means` says (not detected by default), and the
+report's notes say which was assumed. Headers, units and cells are read by
 `archivist.vocab.analytes`, which the package's Table Schemas also use.
 
 These checks test the bookkeeping of samples and analyses, not the
