@@ -131,6 +131,17 @@ def low_total(tmp_path):
     return edit_xlsx(root, "analyses.xlsx", "majors", lambda ws: setattr(xlsx_cell(ws, sid, "Total (wt%)"), "value", 96.2))
 
 
+def typo_behind_total(tmp_path):
+    root = copy_bundle(tmp_path)
+    sid = _samples(root).sample_id.iloc[4]
+
+    def change(ws):
+        cell = xlsx_cell(ws, sid, "SiO2 (wt%)")
+        cell.value = round(cell.value / 10, 2)  # a decimal point typed one place off; the Total is unchanged
+
+    return edit_xlsx(root, "analyses.xlsx", "majors", change)
+
+
 CASES = {
     "sample-duplicate-id": (duplicate_id, clean),
     "sample-missing-location": (no_location, clean),
@@ -142,6 +153,7 @@ CASES = {
     "analysis-value-unreadable": (excel_error, clean),
     "analysis-negative-value": (negative_value, clean),
     "analysis-total-out-of-range": (low_total, clean),
+    "analysis-total-disagrees": (typo_behind_total, clean),
 }
 
 
@@ -464,3 +476,172 @@ def test_ambiguous_date_offers_every_candidate():
     # 1 March could have been typed "3-1" or "MAR1": both samples are offered, neither is chosen.
     found_ = probable_samples(dt.datetime(2024, 3, 1), SampleIndex.of(["3-1", "MAR1", "HV24-0007"]))
     assert sorted(sid for sid, _ in found_) == ["3-1", "MAR1"]
+
+
+# ---------------------------------------------------------------- totals as laboratories report them
+
+# IUPAC standard atomic weights, abridged (IUPAC/CIAAW "Standard atomic weights of the elements 2021",
+# Pure Appl. Chem. 94 (2022); conventional values for S and Cl).
+IUPAC = {"O": 15.999, "F": 18.998, "S": 32.06, "Cl": 35.45, "Fe": 55.845}
+# MAJOR_ROW sums to 100.00 wt% (arithmetic on the invented row).
+ROW_SUM = round(sum(MAJOR_ROW), 2)
+NO_TOTAL = MAJOR_HEADER[:-1]
+
+
+def _disagrees(root):
+    return found(root, "analysis-total-disagrees")
+
+
+def test_major_row_sums_to_one_hundred():
+    assert ROW_SUM == pytest.approx(100.00)
+
+
+def test_a_typo_behind_a_lab_total_is_reported_with_both_values(tmp_path):
+    # SiO2 typed 7.25 for 72.50: the sum is 100.00 - 72.50 + 7.25 = 34.75 (arithmetic), the lab Total stays 100.00.
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][1] = 7.25
+    root = tiny_with_analyses(tmp_path, rows=rows)
+    (f,) = _disagrees(root)
+    assert "cell M3" in f.message and "says 100.00 wt%" in f.message and "sum to 34.75 wt%" in f.message
+    assert "65.25 wt% apart" in f.message and f.features == ("S-0002",)
+    assert f.measure == pytest.approx(65.25)
+    assert found(root, "analysis-total-out-of-range") == []  # the lab Total alone is in range
+
+
+def test_the_bundle_typo_case_names_the_total_cell(tmp_path):
+    root = typo_behind_total(tmp_path)
+    (f,) = _disagrees(root)
+    sid = _samples(root).sample_id.iloc[4]
+    assert f"cell M{_xlsx_row(root, sid)}" in f.message and f.features == (sid,)
+
+
+@pytest.mark.parametrize("total, reported", [(100.03, False), (99.95, False), (100.10, True), (99.90, True)])
+def test_rounding_is_not_a_disagreement(tmp_path, total, reported):
+    # Values reported to two decimals (common practice): each of 11 summands and the Total may be off by 0.005,
+    # so 12 x 0.005 = 0.06 wt% is rounding; 0.10 wt% is not.
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][-1] = total
+    assert bool(_disagrees(tiny_with_analyses(tmp_path, rows=rows))) is reported
+
+
+def test_censored_value_counts_as_zero_within_its_limit(tmp_path):
+    # MnO 0.05 reported as "<0.1": the sum is 99.95, and the limit 0.1 covers the difference (common practice).
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][5] = "<0.1"
+    assert _disagrees(tiny_with_analyses(tmp_path, rows=rows)) == []
+
+
+@pytest.mark.parametrize("loi", ["LOI (wt%)", "LOI 1000°C (wt%)", "LOI (1000 °C) (wt%)", "L.O.I. 950 (wt%)", "loss on ignition (wt%)"])
+def test_volatiles_are_loi_or_water_and_co2_never_both(tmp_path, loi):
+    # LOI 0.62 wt% = H2O+ 0.30 + H2O- 0.10 + CO2 0.22 (invented); a sum taking both would be 100.62 (common practice).
+    header = [*NO_TOTAL[:-1], loi, "H2O+ (wt%)", "H2O- (wt%)", "CO2 (wt%)", "Total (wt%)"]
+    rows = [[sid, *MAJOR_ROW, 0.30, 0.10, 0.22, ROW_SUM] for sid in ("S-0001", "S-0002")]
+    rows[1][11] = "n.a."  # no LOI in this row: the water and CO2 stand in for it
+    root = tiny_with_analyses(tmp_path, header=header, rows=rows)
+    assert found(root, "analysis-unit-undeclared") == []
+    assert _disagrees(root) == []
+    rows[1][12] = 0.50  # H2O+ now 0.20 too high for the row without LOI
+    (f,) = _disagrees(tiny_with_analyses(tmp_path / "off", header=header, rows=rows))
+    assert "sum to 100.20 wt%" in f.message and f.features == ("S-0002",)
+
+
+@pytest.mark.parametrize("iron", ["Fe2O3T (wt%)", "Fe2O3_T (wt%)", "Fe2O3(T) (wt%)", "ΣFe2O3 (wt%)", "Fe2O3 (T) (wt%)"])
+def test_iron_is_summed_once(tmp_path, iron):
+    # Total iron 2.30 wt% as Fe2O3 is also given as FeOT (x 2FeO/Fe2O3 from IUPAC atomic weights) and split into
+    # FeO + Fe2O3; the sum takes one form only (common practice).
+    fe, o = IUPAC["Fe"], IUPAC["O"]
+    feo_t = round(2.30 * 2 * (fe + o) / (2 * fe + 3 * o), 2)
+    header = [*NO_TOTAL[:4], iron, *NO_TOTAL[5:], "FeOT (wt%)", "FeO (wt%)", "Fe2O3 (wt%)", "Total (wt%)"]
+    rows = [[sid, *MAJOR_ROW, feo_t, 1.20, 0.97, ROW_SUM] for sid in ("S-0001", "S-0002")]
+    root = tiny_with_analyses(tmp_path, header=header, rows=rows)
+    assert found(root, "analysis-unit-undeclared") == []
+    assert _disagrees(root) == []
+
+
+def test_iron_falls_back_per_row_when_total_iron_is_missing(tmp_path):
+    # A row without Fe2O3T is summed with FeO + Fe2O3 instead (0.97 + 1.20 + 0.13 = 2.30; invented values).
+    header = [*NO_TOTAL, "FeO (wt%)", "Fe2O3 (wt%)", "Total (wt%)"]
+    rows = [[sid, *MAJOR_ROW, 1.20, 1.10, ROW_SUM] for sid in ("S-0001", "S-0002")]
+    rows[1][4] = ""
+    assert _disagrees(tiny_with_analyses(tmp_path, header=header, rows=rows)) == []
+
+
+def test_halogens_and_sulfur_are_summed_less_their_oxygen_equivalent(tmp_path):
+    # F 2.00 wt%, Cl 5000 ppm (= 0.50 wt%, 1 wt% = 10 000 ppm), sulfide S 1.00 wt%: each is summed less
+    # the oxygen it replaces, O/2F, O/2Cl and O/S from IUPAC atomic weights (common practice).
+    w = IUPAC
+    f_eq, cl_eq, s_eq = w["O"] / (2 * w["F"]), w["O"] / (2 * w["Cl"]), w["O"] / w["S"]
+    assert (round(f_eq, 3), round(cl_eq, 3), round(s_eq, 3)) == (0.421, 0.226, 0.499)  # values quoted in common practice
+    extra = 2.00 * (1 - f_eq) + 0.50 * (1 - cl_eq) + 1.00 * (1 - s_eq)
+    header = [*NO_TOTAL, "F (wt%)", "Cl (ppm)", "S (wt%)", "Total (wt%)"]
+    rows = [[sid, *MAJOR_ROW, 2.00, 5000, 1.00, round(ROW_SUM + extra, 2)] for sid in ("S-0001", "S-0002")]
+    rows[1][-1] = round(ROW_SUM + 3.50, 2)  # the elements added with no oxygen equivalent
+    (f,) = _disagrees(tiny_with_analyses(tmp_path, header=header, rows=rows))
+    assert f.features == ("S-0002",) and f"sum to {ROW_SUM + extra:.2f} wt%" in f.message
+    assert "less the oxygen equivalent of F, Cl, S" in f.message
+    assert f.measure == pytest.approx(2.00 * f_eq + 0.50 * cl_eq + 1.00 * s_eq, abs=0.006)
+
+
+def test_ppm_is_converted_and_trace_elements_are_not_summed(tmp_path):
+    # MnO given as 500 ppm (= 0.05 wt%; 1 wt% = 10 000 ppm); Cu 12 000 ppm is a trace element, never summed.
+    header = [*NO_TOTAL[:5], "MnO (ppm)", *NO_TOTAL[6:], "Cu (ppm)", "Total (wt%)"]
+    rows = [[sid, *MAJOR_ROW[:4], 500, *MAJOR_ROW[5:], 12000, ROW_SUM] for sid in ("S-0001", "S-0002")]
+    assert _disagrees(tiny_with_analyses(tmp_path, header=header, rows=rows)) == []
+    rows[1][5] = 5000  # 5000 ppm = 0.50 wt%: the sum is 100.00 - 0.05 + 0.50 = 100.45 (arithmetic)
+    (f,) = _disagrees(tiny_with_analyses(tmp_path / "more", header=header, rows=rows))
+    assert "sum to 100.45 wt%" in f.message
+
+
+def test_one_unreadable_cell_does_not_stop_the_row_being_totalled(tmp_path):
+    # Without a Total column, a row with MgO unreadable and SiO2 at 80.00 still sums to 107.50 - 0.55 = 106.95.
+    rows = [["S-0001", *MAJOR_ROW], ["S-0002", 80.00, *MAJOR_ROW[1:5], "#N/A", *MAJOR_ROW[6:]]]
+    (f,) = found(tiny_with_analyses(tmp_path, header=NO_TOTAL, rows=rows), "analysis-total-out-of-range")
+    assert "total 106.95 wt%" in f.message and "without MgO (wt%): unreadable" in f.message
+
+
+def test_a_blank_total_cell_falls_back_to_the_sum(tmp_path):
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][1] = 62.50
+    rows[1][-1] = None
+    (f,) = found(tiny_with_analyses(tmp_path, rows=rows), "analysis-total-out-of-range")
+    assert "total 90.00 wt% (the sum of 11 oxide and volatile columns)" in f.message
+
+
+@pytest.mark.parametrize("setting, meaning", [(None, "not detected"), ("not-detected", "not detected"), ("not-determined", "not determined")])
+def test_nd_is_read_as_the_manifest_says_and_the_report_says_which(tmp_path, setting, meaning):
+    # "n.d." is "not detected" in some laboratories and "not determined" in others (common practice).
+    rows = [["S-0001", *MAJOR_ROW], ["S-0002", *MAJOR_ROW[:4], "n.d.", *MAJOR_ROW[5:]]]
+    manifest = {"tables": {"analyses": {"nd_means": setting}}} if setting else None
+    root = tiny_with_analyses(tmp_path, header=NO_TOTAL, rows=rows, manifest=manifest)
+    report = archivist.check(root, only=["samples"])
+    (note,) = [n for n in report.notes if "'n.d.'" in n]
+    assert f"1 'n.d.' cell(s) read as {meaning}" in note
+    assert ("by default" in note) is (setting is None)
+    assert [f for f in report.findings if f.rule == "analysis-value-unreadable"] == []
+
+
+def test_nd_means_takes_only_its_two_values(tmp_path):
+    root = tiny_with_analyses(tmp_path, manifest={"tables": {"analyses": {"nd_means": "nil"}}})
+    (f,) = found(root, "manifest-invalid")
+    assert "tables.analyses.nd_means" in f.message
+
+
+def test_an_unreadable_or_unitless_summand_is_left_to_its_own_rule(tmp_path):
+    # One problem, one finding: the cell or header is reported by its own rule, not again as a disagreement.
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][6] = "#N/A"
+    root = tiny_with_analyses(tmp_path, rows=rows)
+    assert _disagrees(root) == [] and len(found(root, "analysis-value-unreadable")) == 1
+    header = [h if h != "MnO (wt%)" else "MnO" for h in MAJOR_HEADER]
+    root = tiny_with_analyses(tmp_path / "unit", header=header)
+    assert _disagrees(root) == [] and len(found(root, "analysis-unit-undeclared")) == 1
+
+
+def test_not_analysed_cell_counts_as_zero_and_is_named(tmp_path):
+    # P2O5 "n.a.": the laboratory's Total leaves it out too (100.00 - 0.10 = 99.90; arithmetic).
+    rows = major_rows(["S-0001", "S-0002"])
+    rows[1][10], rows[1][-1] = "n.a.", 99.90
+    assert _disagrees(tiny_with_analyses(tmp_path, rows=rows)) == []
+    rows[1][-1] = 100.00
+    (f,) = _disagrees(tiny_with_analyses(tmp_path / "lab", rows=rows))
+    assert "without P2O5 (wt%): not analysed" in f.message

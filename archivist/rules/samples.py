@@ -10,9 +10,11 @@ An analyte column is a column whose header names a chemical species
 ("SiO2", "Fe2O3T", "Cu", "87Sr/86Sr"), "LOI" or "Total", or that has a unit
 in `[tables.analyses.units]`. Its unit is read from the header ("SiO2
 (wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest. Cells are read as
-numbers, censored values ("<0.5", "< 0.01", "bdl", "b.d.l.", "n.d.",
-">10000"), not-analysed marks ("n.a.", "-"), or unreadable (Excel error
-cells such as "#N/A", text, dates). Headers, units and cells are read by
+numbers, censored values ("<0.5", "<.01", "< 5 ppm", "bdl", "b.d.l.",
+"trace", ">10000"), not-analysed marks ("n.a.", "-", empty), or unreadable
+(Excel error cells such as "#N/A", text, dates); "n.d." as
+`[tables.analyses] nd_means` says (not detected by default), and the
+report's notes say which was assumed. Headers, units and cells are read by
 `archivist.vocab.analytes`, which the package's Table Schemas also use.
 
 These checks test the bookkeeping of samples and analyses, not the
@@ -36,7 +38,7 @@ from ..farcoords import far_out
 from ..model import Hit, Severity
 from ..readers import as_text, text_column
 from ..registry import rule
-from ..vocab.analytes import Analyte, Cells, analytes, classify
+from ..vocab.analytes import IN_WT_PERCENT, O_EQUIVALENT, Analyte, Cells, analytes, classify
 from ..vocab.legend import cells as legend_cells
 
 if TYPE_CHECKING:
@@ -279,7 +281,16 @@ def read_analyses(project: MapProject, ctx: CheckContext) -> Analyses:
         raw = table.frame[col].to_numpy(dtype=object) if col else np.empty(0, dtype=object)
         text = text_column(table.frame[col]) if col else np.empty(0, dtype=object)
         found = analytes(table)
-        return Analyses(table, col, raw, text, found, {a.column: classify(table.frame[a.column]) for a in found})
+        nd_means = str(table.spec.get("nd_means") or "not-detected")
+        cells = {a.column: classify(table.frame[a.column], nd_means) for a in found}
+        nd = sum(int(c.nd.sum()) for c in cells.values())
+        if nd:
+            how = "as [tables.analyses] nd_means says" if table.spec.get("nd_means") else (
+                "by default; set [tables.analyses] nd_means = \"not-determined\" if the laboratory meant not determined"
+            )
+            meaning = "not detected (below the detection limit)" if nd_means == "not-detected" else "not determined (not analysed)"
+            ctx.note(f"{table.source}: {nd} 'n.d.' cell(s) read as {meaning}, {how}.")
+        return Analyses(table, col, raw, text, found, cells)
 
     return ctx.shared("samples:analyses", compute)
 
@@ -910,37 +921,126 @@ def analysis_negative_value(project: MapProject, ctx: CheckContext) -> Iterator[
             )
 
 
-def major_totals(an) -> tuple[np.ndarray, str, str | None] | None:
-    """Per row: the major-oxide total in wt%, how it was obtained, and the Total column (or None).
+# Iron, in the order a sum takes it: total iron as Fe2O3, total iron as FeO, then FeO + Fe2O3 (common practice).
+IRON_CHOICES = (("Fe2O3T",), ("FeOT",), ("FeO", "Fe2O3"))
+# Volatiles: LOI, or the water and carbon dioxide determined one by one; never both (common practice).
+VOLATILE_CHOICES = (("LOI",), ("H2O+", "H2O-", "H2O", "CO2"))
+HALOGENS_AND_SULFUR = ("F", "Cl", "S")
+ROUNDING = 0.005  # half the last place of a value reported to two decimals, per summand (common practice)
 
-    The "Total" column when there is one (in wt% or without a unit); else the
-    sum of the oxide and volatile (LOI, H2O, CO2) columns in wt%, censored
-    values counted as 0, total iron used instead of FeO + Fe2O3 when both are
-    given. Without a Total column the sum needs at least SiO2, Al2O3, an iron
-    oxide, MgO, CaO, Na2O and K2O; returns None otherwise. NaN where a row
-    cannot be totalled (a blank, unreadable or missing cell).
+
+@dataclass(frozen=True)
+class Totals:
+    """The major-element totals of an analyses table, per row.
+
+    ``lab`` is the table's Total column (NaN where its cell is not a number),
+    ``summed`` the sum archivist computes from the analyte columns (None when
+    the table lacks the usual major oxides), ``gone`` per row and summed
+    column whether its cell was blank, unreadable or not analysed (counted
+    as 0), ``allowance`` per row how far the two may differ by rounding alone.
     """
+
+    lab: np.ndarray | None
+    lab_column: str | None
+    summed: np.ndarray | None
+    gone: np.ndarray  # bool, rows x gone_columns
+    gone_columns: tuple[str, ...]
+    allowance: np.ndarray
+    columns: tuple[str, ...]
+    how: str
+    unreadable: np.ndarray  # bool per row: a summed cell is unreadable (reported by analysis-value-unreadable)
+    unitless: tuple[str, ...] = ()  # oxide and volatile columns left out of the sum for want of a unit
+
+    def missing(self, r: int) -> tuple[str, ...]:
+        """The summed columns of row ``r`` that had no reading."""
+        return tuple(dict.fromkeys(col for col, gone in zip(self.gone_columns, self.gone[r]) if gone))
+
+    def judged(self) -> np.ndarray:
+        """Per row the total a range check judges: the lab's Total where it is a number, else the sum."""
+        n = len(self.allowance)
+        lab = self.lab if self.lab is not None else np.full(n, np.nan)
+        summed = self.summed if self.summed is not None else np.full(n, np.nan)
+        return np.where(np.isnan(lab), summed, lab)
+
+
+def _pick(groups, by_name, n):
+    """Per row, the first group (of the columns the table has) whose every column has a reading; else the first group."""
+    present = [g for g in ([name for name in group if name in by_name] for group in groups) if g]
+    if not present:
+        return []
+    chosen = np.full(n, -1)
+    for k, g in enumerate(present):
+        ok = np.logical_and.reduce([~np.isnan(by_name[name][1]) | by_name[name][2] for name in g])
+        chosen[(chosen < 0) & ok] = k
+    chosen[chosen < 0] = 0
+    return [(name, chosen == k) for k, g in enumerate(present) for name in g]
+
+
+def major_totals(an: Analyses) -> Totals:
+    """The lab's Total column and the sum of the analyte columns, per row (see :class:`Totals`).
+
+    The sum takes the oxides in wt%, ppm or ppb (converted to wt%: 1 wt% =
+    10 000 ppm), one form of iron (:data:`IRON_CHOICES`), one form of the
+    volatiles (:data:`VOLATILE_CHOICES`), and F, Cl and S reported as
+    elements, each less its oxygen equivalent (S only when no SO3 column is
+    given). Censored values count as 0 and widen the rounding allowance by
+    their detection limit; blank, unreadable and not-analysed cells count as
+    0 and are listed in ``missing``. Without SiO2, Al2O3, an iron oxide, MgO,
+    CaO, Na2O and K2O there is no sum.
+    """
+    n = len(an.table.frame)
     wt = [a for a in an.analytes if a.unit in ("wt%", None)]
     total_col = next((a for a in wt if a.is_total), None)
-    if total_col is not None:
-        c = an.cells[total_col.column]
-        return c.value.copy(), f"'{total_col.column}'", total_col.column
-    oxides = [a for a in an.analytes if a.unit == "wt%" and (a.is_oxide or a.is_volatile)]
+    lab = an.cells[total_col.column].value.copy() if total_col is not None else None
+    usable = [a for a in an.analytes if a.unit in IN_WT_PERCENT and not a.is_ratio and not a.is_total]
+    oxides = [a for a in usable if a.is_oxide or a.is_volatile]
     names = {a.name for a in oxides}
-    has_iron = any(a.name.startswith("Fe") for a in oxides)
-    if not (set(REQUIRED_MAJORS) <= names and has_iron):
-        return None
-    if any(a.total_iron for a in oxides):
-        oxides = [a for a in oxides if a.total_iron or a.name not in ("FeO", "Fe2O3")]
-    n = len(an.table.frame)
+    if not (set(REQUIRED_MAJORS) <= names and any(a.iron for a in oxides)):
+        return Totals(lab, total_col.column if total_col else None, None, np.zeros((n, 0), dtype=bool), (), np.zeros(n), (), "", np.zeros(n, dtype=bool))
+    by_name: dict[str, tuple[Analyte, np.ndarray, np.ndarray]] = {}
+    for a in usable:  # the first column of each name
+        key = a.iron or a.name
+        if key not in by_name:
+            c = an.cells[a.column]
+            by_name[key] = (a, c.value * IN_WT_PERCENT[str(a.unit)], c.censored)
+    chosen = _pick(IRON_CHOICES, by_name, n) + _pick(VOLATILE_CHOICES, by_name, n)
+    grouped = {name for g in IRON_CHOICES + VOLATILE_CHOICES for name in g}
+    others = [key for key, (a, _, _) in by_name.items() if key not in grouped and (a.is_oxide or a.is_volatile)]
+    elements = [key for key in HALOGENS_AND_SULFUR if key in by_name and not (key == "S" and "SO3" in by_name)]
+    everyone = np.ones(n, dtype=bool)
+    parts = [(key, everyone) for key in others] + chosen + [(key, everyone) for key in elements]
     total = np.zeros(n)
-    bad = np.zeros(n, dtype=bool)
-    for a in oxides:  # one vectorised step per column
+    allowance = np.full(n, ROUNDING)  # the Total's own rounding
+    gone: list[tuple[str, np.ndarray]] = []
+    unreadable = np.zeros(n, dtype=bool)
+    for key, rows in parts:  # one vectorised step per column
+        a, value, censored = by_name[key]
         c = an.cells[a.column]
-        total += np.where(c.censored, 0.0, np.nan_to_num(c.value))
-        bad |= c.blank | c.unreadable | c.not_analysed
-    total[bad] = np.nan
-    return total, f"the sum of {len(oxides)} oxide and volatile columns", None
+        factor = 1.0 - O_EQUIVALENT[key] if key in O_EQUIVALENT else 1.0
+        total += np.where(rows & ~np.isnan(value), value * factor, 0.0)
+        limit = np.nan_to_num(c.limit) * IN_WT_PERCENT[str(a.unit)]
+        allowance += np.where(rows & ~np.isnan(value), ROUNDING, 0.0) + np.where(rows & censored, limit, 0.0)
+        gone.append((a.column, rows & np.isnan(value) & ~censored))
+        unreadable |= rows & c.unreadable
+    flags = np.column_stack([g for _, g in gone]) if gone else np.zeros((n, 0), dtype=bool)
+    used = tuple(dict.fromkeys(by_name[key][0].column for key, _ in parts))
+    how = f"the sum of {len(used)} oxide and volatile columns" if not elements else (
+        f"the sum of {len(used)} oxide, volatile, halogen and sulfur columns, less the oxygen equivalent of {', '.join(elements)}"
+    )
+    unitless = tuple(a.column for a in an.analytes if a.unit is None and (a.is_oxide or a.is_volatile))
+    return Totals(lab, total_col.column if total_col else None, total, flags, tuple(col for col, _ in gone), allowance, used, how,
+                  unreadable, unitless)
+
+
+def _missing_text(an: Analyses, r: int, missing: tuple[str, ...]) -> str:
+    if not missing:
+        return ""
+    what = []
+    for col in missing:
+        c = an.cells[col]
+        kind = "not analysed" if c.not_analysed[r] else "blank" if c.blank[r] else "unreadable"
+        what.append(f"{col}: {kind}")
+    return f", without {'; '.join(what)}"
 
 
 @rule("analysis-total-out-of-range", family="samples", severity="warning", needs=("analyses",))
@@ -949,15 +1049,18 @@ def analysis_total_out_of_range(project: MapProject, ctx: CheckContext) -> Itera
 
     Catches
     -------
-    Rows whose major-oxide total (the "Total" column, or the sum of the oxide
-    and LOI columns in wt% when there is no Total column; censored values
-    count as 0) lies outside `checks.total_min`..`checks.total_max`,
-    98.5-101.5 wt% by default: common practice for whole-rock XRF analyses
-    including LOI. Rows that cannot be totalled (blank or unreadable cells)
-    are left to the other rules. Tables without the usual major oxides are
-    not totalled. The range is a convention, not a law: sulphide-, graphite-
-    or fluorine-rich rocks and analyses reporting only some oxides total low
-    for good reasons; the mapper judges.
+    Rows whose major-oxide total lies outside
+    `checks.total_min`..`checks.total_max`, 98.5-101.5 wt% by default:
+    common practice for whole-rock XRF analyses including LOI. The total is
+    the "Total" column where its cell is a number; otherwise (no Total
+    column, or a blank or unreadable Total cell) the sum of the analyte
+    columns, taken as `analysis-total-disagrees` describes. A summed column
+    whose cell is blank, unreadable or not analysed counts as 0 and the
+    finding names it, so one bad cell never keeps a row from being judged.
+    Tables without the usual major oxides are not totalled. The range is a
+    convention, not a law: sulphide-, graphite- or fluorine-rich rocks and
+    analyses reporting only some oxides total low for good reasons; the
+    mapper judges.
 
     Why it matters
     --------------
@@ -977,23 +1080,88 @@ def analysis_total_out_of_range(project: MapProject, ctx: CheckContext) -> Itera
     M7: total 96.20 wt% for sample TM24-0015 is below 98.5 wt% by 2.30".
     """
     an = read_analyses(project, ctx)
-    found = major_totals(an)
-    if found is None:
-        return
-    totals, how, column = found
+    t = major_totals(an)
+    totals = t.judged()
     lo, hi = ctx.config.total_min, ctx.config.total_max
     with np.errstate(invalid="ignore"):
         rows = np.flatnonzero((totals < lo) | (totals > hi))
-    for r in rows:
+    for r in map(int, rows):
         v = totals[r]
-        where = an.table.data.cell(int(r), column) if column else f"{an.table.source}, row {an.table.data.line(int(r))}"
+        from_lab = t.lab is not None and t.lab_column is not None and not np.isnan(t.lab[r])
+        where = an.table.data.cell(r, str(t.lab_column)) if from_lab else f"{an.table.source}, row {an.table.data.line(r)}"
         off, side = (lo - v, f"below {lo:g}") if v < lo else (v - hi, f"above {hi:g}")
         sid = _sample_of(an, r)
-        via = "" if column else f" ({how})"
+        via = "" if from_lab else f" ({t.how}{_missing_text(an, r, t.missing(r))})"
         yield Hit(
             f"{where}: total {v:.2f} wt%{via} for sample {sid} is {side} wt% by {off:.2f}.",
             layer="analyses",
             features=(sid,) if sid else (),
             measure=float(off),
+            geometry=_sample_points(project, ctx).get(sid),
+        )
+
+
+@rule("analysis-total-disagrees", family="samples", severity="warning", needs=("analyses",))
+def analysis_total_disagrees(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
+    """The Total column and the sum of the analyte columns differ by more than rounding.
+
+    Catches
+    -------
+    Rows whose "Total" cell and the sum archivist computes from the analyte
+    columns differ by more than rounding explains: half of 0.01 wt% per
+    summed value and for the Total (values reported to two decimals, common
+    practice), plus the detection limit of each censored value, which counts
+    as 0. The sum takes, as laboratories do (common practice):
+    the oxides in wt%, or in ppm or ppb converted to wt% (1 wt% = 10 000
+    ppm); iron once, as Fe2O3T, else FeOT, else FeO + Fe2O3 (headers such
+    as "Fe2O3T", "Fe2O3_T", "Fe2O3(T)", "ΣFe2O3", "FeOt"); the volatiles
+    once, as LOI ("LOI", "LOI 1000°C"...), else H2O+, H2O- and CO2; and F,
+    Cl and S reported as elements, less their oxygen equivalents
+    (O ≡ F: F × O/2F = 0.421; O ≡ Cl: Cl × O/2Cl = 0.226; O ≡ S for sulfide
+    sulfur: S × O/S = 0.499; from IUPAC standard atomic weights), S only when
+    no SO3 column is given. Trace elements reported as elements (Cu, Zr...)
+    are never summed, and ppm is never added to wt% unconverted. Both values
+    are reported. Blank and not-analysed cells count as 0 and are named.
+    Rows with an unreadable summed cell, and tables with an oxide column
+    that has no unit, are left to `analysis-value-unreadable` and
+    `analysis-unit-undeclared`. Not covered: a laboratory Total that
+    includes oxides not given as columns (BaO, SrO from trace elements), or
+    volatiles measured both in LOI and on their own.
+
+    Why it matters
+    --------------
+    A value typed wrong ("7.25" for 72.50) hides behind a Total copied from
+    the certificate, and a Total that no longer matches its row shows that
+    one of them was edited after the laboratory sent them.
+
+    Fix
+    ---
+    Compare the row with the laboratory certificate and correct the value
+    that was mistyped; if the laboratory's Total includes oxides not in the
+    table, add them as columns.
+
+    Example
+    -------
+    SiO2 typed as 7.25 instead of 72.50 gives "analyses.xlsx, sheet
+    'majors', cell M3: the Total column says 100.00 wt% but the analyte
+    columns sum to 34.75 wt% (the sum of 11 oxide and volatile columns) for
+    sample TM24-0005, 65.25 wt% apart".
+    """
+    an = read_analyses(project, ctx)
+    t = major_totals(an)
+    if t.lab is None or t.summed is None or t.lab_column is None or t.unitless:
+        return
+    with np.errstate(invalid="ignore"):
+        diff = t.summed - t.lab
+        rows = np.flatnonzero((np.abs(diff) > t.allowance + 1e-9) & ~t.unreadable)
+    for r in map(int, rows):
+        sid = _sample_of(an, r)
+        yield Hit(
+            f"{an.table.data.cell(r, t.lab_column)}: the Total column says {t.lab[r]:.2f} wt% but the analyte columns "
+            f"sum to {t.summed[r]:.2f} wt% ({t.how}{_missing_text(an, r, t.missing(r))}) for sample {sid}, "
+            f"{abs(diff[r]):.2f} wt% apart.",
+            layer="analyses",
+            features=(sid,) if sid else (),
+            measure=float(abs(diff[r])),
             geometry=_sample_points(project, ctx).get(sid),
         )

@@ -7,13 +7,18 @@ header ("SiO2 (wt%)", "SiO2_wt%", "Cu [ppm]") or from the manifest, and
 given in a canonical form (wt%, ppm, ppb, ppt, permil, mol%, ratio).
 
 Total iron is written in many ways: "Fe2O3T", "Fe2O3t", "Fe2O3 (T)",
-"Fe2O3(tot)", "Fe2O3tot", "FeOt", "FeO(T)", "Fe2O3*" (common practice). The
-"T" marks total iron, never a unit: "Fe2O3 (T)" is total iron as Fe2O3 with
-no unit in its header, "Fe2O3 (T) (wt%)" the same in wt%.
+"Fe2O3(tot)", "Fe2O3tot", "Fe2O3_T", "ΣFe2O3", "FeOt", "FeO(T)", "Fe2O3*"
+(common practice). The "T" marks total iron, never a unit: "Fe2O3 (T)" is
+total iron as Fe2O3 with no unit in its header, "Fe2O3 (T) (wt%)" the same
+in wt%. Loss on ignition is "LOI", "L.O.I.", "loss on ignition", also with
+its ignition temperature ("LOI 1000°C", "LOI (950 °C)", "LOI@1000C").
 
-Cells are read as numbers, censored values ("<0.5", "< 0.01", "bdl",
-"b.d.l.", "n.d.", ">10000"), not-analysed marks ("n.a.", "-"), or unreadable
-(Excel error cells such as "#N/A", text, dates).
+Cells are read as numbers, censored values ("<0.5", "< 0.01", "<.01",
+"<1e-3", "< 5 ppm", "bdl", "b.d.l.", "tr", "trace", ">10000"), not-analysed
+marks ("n.a.", "-", empty), or unreadable (Excel error cells such as "#N/A",
+text, dates). "n.d." is "not detected" in some laboratories and "not
+determined" in others: :func:`classify` reads it as the caller says
+(`[tables.analyses] nd_means`), censored or not analysed.
 
 The checks (`archivist.rules.samples`) and the package's Table Schemas
 (`archivist.package.tables`) both read headers through this module.
@@ -38,7 +43,8 @@ ELEMENTS = frozenset(
     "Lu Hf Ta W Re Os Ir Pt Au Hg Tl Pb Bi Po At Rn Fr Ra Ac Th Pa U Np Pu".split()
 )
 _TOKEN = re.compile(r"([A-Z][a-z]?)(\d*)")
-_TOTAL_IRON = re.compile(r"^(.*?)(?:\(\s*(?:t|tot|total)\s*\)|t|tot|total|\*)$", re.IGNORECASE)
+_TOTAL_IRON = re.compile(r"^(.*?)[\s_]*(?:\(\s*(?:t|tot|total)\s*\)|t|tot|total|\*)$", re.IGNORECASE)
+_SIGMA_IRON = re.compile(r"^(?:Σ|∑)\s*(Fe2O3|FeO)$")  # "ΣFe2O3": total iron written with a summation sign
 UNIT_WORDS = {
     "wt%": "wt%", "wt.%": "wt%", "wt %": "wt%", "wt. %": "wt%", "%": "wt%", "weight%": "wt%", "weight percent": "wt%",
     "mass%": "wt%", "% m/m": "wt%", "pct": "wt%",
@@ -53,20 +59,52 @@ _HEADER_BRACKET = re.compile(r"^(?P<name>.+?)\s*(?:\((?P<p>[^()]*)\)|\[(?P<b>[^\
 _HEADER_SUFFIX = re.compile(rf"^(?P<name>.+?)[\s_]+(?P<u>{_UNIT_ALT})$", re.IGNORECASE)
 TOTAL_NAMES = ("total", "sum", "total oxides", "sum of oxides")
 LOI_NAMES = ("LOI", "L.O.I.", "LOI*")
-EXCEL_ERRORS = frozenset({"#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#UNKNOWN!", "#CONNECT!", "#BUSY!"})
-_CENSORED = re.compile(
-    r"^(?:[<>≤≥]\s*=?\s*(?:\d+(?:\.\d+)?|lod|lld|dl|d\.l\.|mdl|loq)|b\.?d\.?l\.?|n\.?d\.?|below detection(?: limit)?|not detected|<?\s*lod)$",
+# LOI with the ignition temperature in its header: "LOI 1000°C", "LOI (950 °C)", "LOI@1000C", "L.O.I. 1000".
+_LOI = re.compile(
+    r"^(?:loi|l\.o\.i\.?|loss on ignition)\*?(?:[\s_@]*\(?\s*(?:at\s*)?\d{3,4}\s*(?:°|º|deg\.?)?\s*c?\s*\)?)?$",
     re.IGNORECASE,
 )
+_TEMPERATURE = re.compile(r"^(?:at\s*)?\d{3,4}\s*(?:°|º|deg\.?)?\s*c?$", re.IGNORECASE)
+EXCEL_ERRORS = frozenset({"#N/A", "#VALUE!", "#DIV/0!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#SPILL!", "#CALC!", "#GETTING_DATA", "#FIELD!", "#BLOCKED!", "#UNKNOWN!", "#CONNECT!", "#BUSY!"})
+_LIMIT_NUMBER = r"(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
+_LIMIT_UNIT = r"(?:\s*(?:ppm|ppb|ppt|wt\s?\.?\s?%|%|µg/g|μg/g|ug/g|mg/kg|g/t|ng/g))?"
+_CENSORED = re.compile(
+    rf"^(?:[<>≤≥]\s*=?\s*(?:{_LIMIT_NUMBER}{_LIMIT_UNIT}|lod|lld|dl|d\.l\.|mdl|loq)|b\.?d\.?l\.?|below detection(?: limit)?"
+    r"|not detected|<?\s*lod|tr\.?|traces?)$",
+    re.IGNORECASE,
+)
+# The detection limit of "<0.01", "< 5 ppm", "<1e-3" (the number after "<").
+_BELOW = re.compile(rf"^[<≤]\s*=?\s*({_LIMIT_NUMBER}){_LIMIT_UNIT}$", re.IGNORECASE)
+# "n.d.", "nd", "n. d.": not detected, or not determined, as the laboratory uses it.
+_ND = re.compile(r"^n\.?\s?d\.?$", re.IGNORECASE)
+ND_MEANINGS = ("not-detected", "not-determined")
 # "<0.01" alone, the form a Table Schema column keeps as text, as reported (package/tables.py).
 BELOW_LIMIT = re.compile(r"^<\s*(?:(?:0|[1-9]\d*)(?:\.\d+)?|\.\d+)(?:[eE][+-]?\d+)?$")
 _NOT_ANALYSED = frozenset({"n.a.", "na", "n/a", "n.a", "not analysed", "not analyzed", "-", "--", "---", "—", "–", "n.m.", "nm"})
+
+
+# IUPAC standard atomic weights, abridged to five significant figures (IUPAC/CIAAW, "Standard atomic
+# weights of the elements 2021", Pure Appl. Chem. 2022; conventional values for S and Cl).
+ATOMIC_WEIGHT = {"O": 15.999, "F": 18.998, "S": 32.06, "Cl": 35.45, "Fe": 55.845}
+# Oxygen equivalent of a halogen or sulfide sulfur reported as the element (common practice: the
+# element is summed as if it replaced oxygen in the oxides, so the oxygen it stands for is taken off):
+# O = F: F x O/(2F) = 0.421; O = Cl: Cl x O/(2Cl) = 0.226; O = S (sulfide): S x O/S = 0.499.
+O_EQUIVALENT = {
+    "F": ATOMIC_WEIGHT["O"] / (2 * ATOMIC_WEIGHT["F"]),
+    "Cl": ATOMIC_WEIGHT["O"] / (2 * ATOMIC_WEIGHT["Cl"]),
+    "S": ATOMIC_WEIGHT["O"] / ATOMIC_WEIGHT["S"],
+}
+# Mass fraction units as a multiple of wt% (1 wt% = 10 000 ppm = 10^7 ppb = 10^10 ppt).
+IN_WT_PERCENT = {"wt%": 1.0, "ppm": 1e-4, "ppb": 1e-7, "ppt": 1e-10}
 
 
 def formula(name: str) -> tuple[bool, bool]:
     """(is a chemical species, is total iron) for a header name such as "SiO2", "Fe2O3T", "87Sr"."""
     text = name.strip()
     total = False
+    sigma = _SIGMA_IRON.match(text)
+    if sigma:
+        return True, True
     m = _TOTAL_IRON.match(text)
     if m and m[1] and "Fe" in m[1]:
         text, total = m[1].strip(), True
@@ -75,6 +113,24 @@ def formula(name: str) -> tuple[bool, bool]:
     if not text or not re.fullmatch(r"(?:[A-Z][a-z]?\d*)+", text):
         return False, False
     return all(sym in ELEMENTS for sym, _ in _TOKEN.findall(text)), total
+
+
+def loi_header(name: str) -> bool:
+    """True for a loss-on-ignition header name: "LOI", "L.O.I.", "LOI 1000°C", "LOI (950 °C)", "loss on ignition"."""
+    text = " ".join(str(name).split())
+    return text.upper() in LOI_NAMES or bool(_LOI.match(text))
+
+
+def iron_base(name: str) -> str | None:
+    """"Fe2O3" or "FeO" for a total-iron header name ("Fe2O3T", "Fe2O3_T", "ΣFe2O3", "FeO(T)"), else None."""
+    text = name.strip()
+    sigma = _SIGMA_IRON.match(text)
+    if sigma:
+        return sigma[1]
+    m = _TOTAL_IRON.match(text)
+    if m and m[1] and "Fe" in m[1] and formula(text)[1]:
+        return m[1].strip()
+    return None
 
 
 @dataclass(frozen=True)
@@ -94,6 +150,14 @@ class Analyte:
     @property
     def is_volatile(self) -> bool:
         return self.name.upper().rstrip("+-") in ("LOI", "H2O", "CO2")
+
+    @property
+    def iron(self) -> str | None:
+        """How the column gives iron: "FeO", "Fe2O3", "Fe2O3T" or "FeOT" (total iron), or None."""
+        if self.total_iron:
+            base = iron_base(self.name)
+            return f"{base}T" if base else None
+        return self.name if self.name in ("FeO", "Fe2O3") else None
 
     @property
     def is_oxide(self) -> bool:
@@ -116,6 +180,8 @@ def split_header(header: str) -> tuple[str, str | None, str | None]:
             return m["name"].strip(), canon, inner
         if re.fullmatch(r"(?:t|tot|total)", inner, re.IGNORECASE):
             return h, None, None  # "Fe2O3 (T)": total iron, not a unit
+        if _TEMPERATURE.match(inner) and loi_header(h):
+            return h, None, None  # "LOI (1000°C)": the ignition temperature, not a unit
         return m["name"].strip(), None, inner
     m = _HEADER_SUFFIX.match(h)
     if m:
@@ -136,7 +202,7 @@ def analytes(table: Table) -> list[Analyte]:
         is_ratio = "/" in name and all(formula(p)[0] for p in name.split("/"))
         species, total_iron = formula(name)
         is_total = name.strip().casefold() in TOTAL_NAMES
-        is_loi = name.strip().upper() in LOI_NAMES
+        is_loi = loi_header(name)
         if not (species or is_ratio or is_total or is_loi or col in declared):
             continue
         problem = None
@@ -177,10 +243,8 @@ def column_unit(header: str) -> ColumnUnit:
     species, total_iron = formula(name)
     is_ratio = "/" in name and all(formula(p)[0] for p in name.split("/"))
     is_total = name.strip().casefold() in TOTAL_NAMES
-    is_loi = name.strip().upper() in LOI_NAMES
-    if species or is_ratio or is_total or is_loi:
-        m = _TOTAL_IRON.match(name.strip()) if total_iron else None
-        return ColumnUnit(m[1].strip() if m else name, unit, total_iron)
+    if species or is_ratio or is_total or loi_header(name):
+        return ColumnUnit(iron_base(name) or name if total_iron else name, unit, total_iron)
     return ColumnUnit(name, unit or text, False)
 
 
@@ -197,10 +261,18 @@ class Cells:
     excel_error: np.ndarray
     unreadable: np.ndarray  # neither number, censored, not-analysed nor blank (includes Excel errors)
     text: np.ndarray
+    nd: np.ndarray  # "n.d." cells (censored or not analysed, as ``nd_means`` says)
+    limit: np.ndarray  # float; the detection limit of "<0.01", "< 5 ppm", "<1e-3"; NaN otherwise
 
 
-def classify(series: pd.Series) -> Cells:
-    """Classify the cells of one column in whole-column operations."""
+def classify(series: pd.Series, nd_means: str = "not-detected") -> Cells:
+    """Classify the cells of one column in whole-column operations.
+
+    ``nd_means`` says what "n.d." stands for: "not-detected" (a censored
+    reading) or "not-determined" (not analysed).
+    """
+    if nd_means not in ND_MEANINGS:
+        raise ValueError(f"nd_means must be one of {', '.join(ND_MEANINGS)}, not {nd_means!r}")
     obj = series.astype(object)
     is_date = obj.map(lambda v: isinstance(v, (dt.date, dt.datetime))).to_numpy(dtype=bool)
     missing = obj.isna().to_numpy(dtype=bool)
@@ -210,9 +282,12 @@ def classify(series: pd.Series) -> Cells:
     value = pd.to_numeric(numeric_text.where(~numeric_text.str.contains(",", regex=False), ""), errors="coerce").to_numpy(dtype=float, copy=True)
     value[~np.isfinite(value)] = np.nan
     folded = text.str.casefold()
-    censored = text.str.match(_CENSORED).to_numpy(dtype=bool) & ~blank
-    not_analysed = folded.isin(_NOT_ANALYSED).to_numpy(dtype=bool) & ~censored
+    nd = text.str.match(_ND).to_numpy(dtype=bool) & ~blank
+    censored = (text.str.match(_CENSORED).to_numpy(dtype=bool) & ~blank) | (nd if nd_means == "not-detected" else False)
+    not_analysed = (folded.isin(_NOT_ANALYSED).to_numpy(dtype=bool) & ~censored) | (nd if nd_means == "not-determined" else False)
     excel_error = text.str.upper().isin(EXCEL_ERRORS).to_numpy(dtype=bool)
     unreadable = ~blank & np.isnan(value) & ~censored & ~not_analysed
     value[is_date] = np.nan
-    return Cells(value, blank, censored, not_analysed, excel_error, unreadable, text.to_numpy(dtype=object))
+    limit = pd.to_numeric(text.str.extract(_BELOW, expand=False), errors="coerce").to_numpy(dtype=float, copy=True)
+    limit[~censored] = np.nan
+    return Cells(value, blank, censored, not_analysed, excel_error, unreadable, text.to_numpy(dtype=object), nd, limit)
