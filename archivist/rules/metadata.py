@@ -253,15 +253,26 @@ def identifier_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     Author ORCID iDs that are not 16 characters in four groups or whose last
     character is not the ISO 7064 MOD 11-2 check character of the other 15
-    digits (the usual sign of a typo or transposed digits); a `map.doi` that
-    is not a DOI by the DOI Handbook's syntax ("10." + registrant code, "/",
-    suffix; the `doi:` and `https://doi.org/` forms are accepted); and, when
+    digits (the usual sign of a typo or transposed digits); the bare iD, the
+    `https://orcid.org/`, `http://orcid.org/` and `orcid.org/` forms and a
+    lower-case `x` check character are accepted (ORCID, "Structure of the
+    ORCID Identifier"). A `map.doi` that is not a DOI by the DOI Handbook's
+    syntax ("10." + registrant code, "/", suffix); the `doi:`, `info:doi/`,
+    `https://doi.org/` and `http://dx.doi.org/` forms and percent-encoded
+    characters (`10.5555%2Fabc`, as DOIs appear in URLs) are accepted. When
     `[layers.samples]` names an `igsn_field`, sample identifiers in it that
-    are neither an IGSN (`IGSN:code`, `https://igsn.org/code`, a bare code)
-    nor a DOI (IGSN IDs are now registered as DOIs). Blank IGSN cells are
-    not reported: not every sample is registered. Only the syntax is checked:
-    a well-formed identifier may still be unregistered or belong to another
-    object, which only the registry can tell.
+    are not an IGSN. An IGSN is a DOI registered by an IGSN allocating agent
+    under its own prefix (DataCite IGSN FAQ; SESAR2 "IGSN changes"), written
+    `https://doi.org/10.58052/CODE`, `igsn:10.58052/CODE` or `igsn:CODE`
+    (DataCite, "Displaying IGSN IDs"), or a legacy IGSN (`IGSN:CODE`,
+    `https://igsn.org/CODE`, Handle `10273/CODE`, from memory). A DOI under
+    a prefix archivist does not know as an IGSN prefix is refused unless it
+    is tagged `igsn:`, and so is a code with no tag (a local sample number
+    looks the same). Blank IGSN cells are not reported: not every sample is
+    registered. Only the syntax is checked: a well-formed identifier may
+    still be unregistered or belong to another object, which only the
+    registry can tell; the list of IGSN prefixes is not complete (agents
+    receive new ones), hence the `igsn:` tag.
 
     Why it matters
     --------------
