@@ -16,7 +16,7 @@ from ..manifest import DEPOSIT_KEYS
 from ..project import EXPECTED_GEOMETRY
 from ..registry import all_rules, rule
 from ..vocab.legend import unfound_unit
-from ..vocab.licences import licence_problem
+from ..vocab.licences import licence_cautions, licence_problem
 from ..vocab.statements import measures_statement
 
 if TYPE_CHECKING:
@@ -222,27 +222,40 @@ def licence_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `map.licence` values that are not on the SPDX licence list (checked with
     the `license-expression` package's copy of the list), such as
-    `CC-BY` without a version, or free text like "open".
+    `CC-BY` without a version, or free text like "open" (errors). Two valid
+    forms are warnings: a `LicenseRef-...` id, the SPDX syntax for a licence
+    not on the list (SPDX specification, annex "SPDX License Expressions"),
+    since the id alone tells a reuser nothing; and a deprecated SPDX id such
+    as `GPL-2.0`, named with the id that replaced it (`GPL-2.0-only`), as the
+    `license-expression` package's licence index records it. Whether the
+    licence suits data, or matches the text shipped with it, is not checked.
 
     Why it matters
     --------------
     Repositories and harvesters read the SPDX id to tell users what they may do
-    with the data; an unrecognised licence makes the deposit legally unusable.
+    with the data; an unrecognised licence makes the deposit legally unusable,
+    and a licence of one's own or an outdated id leaves reusers guessing.
 
     Fix
     ---
     Use the exact SPDX id, e.g. `CC-BY-4.0`, `CC0-1.0` or `ODbL-1.0`
-    (see the SPDX licence list).
+    (see the SPDX licence list); replace a deprecated id by the one named; for
+    a `LicenseRef-` licence, ship its full text or choose a listed licence.
 
     Example
     -------
-    `licence = "CC-BY"` gives "map.licence: 'CC-BY' is not on the SPDX licence list".
+    `licence = "CC-BY"` gives "map.licence: 'CC-BY' is not on the SPDX licence list";
+    `licence = "LicenseRef-tarrowmere"` gives a warning that reusers cannot
+    tell what it allows.
     """
     value = project.manifest.get("map", {}).get("licence")
     if isinstance(value, str) and value.strip():
         why = licence_problem(value.strip())
         if why:
             yield Hit(f"map.licence: {why}.", layer="manifest")
+            return
+        for caution in licence_cautions(value.strip()):
+            yield Hit(f"map.licence: {caution}.", layer="manifest", severity=Severity.WARNING)
 
 
 @rule("identifier-invalid", family="metadata", severity="error")
