@@ -1,9 +1,11 @@
-"""DOI and IGSN syntax, and their place in the identifier-invalid rule."""
+"""ORCID, DOI and IGSN syntax, and their place in the identifier-invalid rule."""
 
 import pytest
 
 import archivist
-from archivist.identifiers import doi_problem, igsn_problem, normalise_doi
+from archivist.identifiers import (
+    doi_problem, doi_uri, igsn_problem, normalise_doi, normalise_orcid, orcid_check_digit, orcid_problem, orcid_uri,
+)
 from builders import BUNDLE, copy_bundle, edit_layer, edit_manifest, tiny_project, tiny_samples
 
 
@@ -23,6 +25,12 @@ from builders import BUNDLE, copy_bundle, edit_layer, edit_manifest, tiny_projec
         # The suffix may hold any printable characters, including "/" and brackets (DOI Handbook 2.2.3),
         # e.g. the SICI-style suffixes of older journals.
         ("10.1000/(SICI)0000-0000(202406)1:1<1::AID-TM1>3.0.CO;2-0", "10.1000/(SICI)0000-0000(202406)1:1<1::AID-TM1>3.0.CO;2-0"),
+        # In a URL the DOI is percent-encoded (DOI Handbook 2.5.2.4, URL encoding): "%2F" is the slash.
+        ("10.5555%2Ftarrowmere.1", "10.5555/tarrowmere.1"),
+        ("https://doi.org/10.5555%2Ftarrowmere.1", "10.5555/tarrowmere.1"),
+        ("http://dx.doi.org/10.5555/tarrowmere.1", "10.5555/tarrowmere.1"),
+        ("https://www.doi.org/10.5555/tarrowmere.1", "10.5555/tarrowmere.1"),
+        ("info:doi/10.5555/tarrowmere.1", "10.5555/tarrowmere.1"),
     ],
 )
 def test_dois_in_their_usual_forms(doi, bare):
@@ -47,7 +55,53 @@ def test_malformed_dois(doi, why):
     assert normalise_doi(doi) is None
 
 
-# ---------------------------------------------------------------- IGSN (forms from memory; see identifiers.py)
+def test_doi_uri_is_the_https_resolver_form():
+    # DOI Handbook 3.8.3 / DataCite display guidelines: https://doi.org/ + the DOI.
+    assert doi_uri("doi:10.5555%2Ftarrowmere.1") == "https://doi.org/10.5555/tarrowmere.1"
+    assert doi_uri("10.5555/tarrow mere") is None
+
+
+# ---------------------------------------------------------------- ORCID (ORCID "Structure of the ORCID Identifier", ISO 7064 MOD 11-2)
+
+@pytest.mark.parametrize(
+    "orcid, bare",
+    [
+        # 0000-0002-1825-0097: ORCID's documented example iD.
+        ("0000-0002-1825-0097", "0000-0002-1825-0097"),
+        ("https://orcid.org/0000-0002-1825-0097", "0000-0002-1825-0097"),
+        ("http://orcid.org/0000-0002-1825-0097", "0000-0002-1825-0097"),
+        ("orcid.org/0000-0002-1825-0097", "0000-0002-1825-0097"),
+        ("https://www.orcid.org/0000-0002-1825-0097/", "0000-0002-1825-0097"),
+        # 0000-0002-1694-233X: the example of an iD ending in X in ORCID's checksum documentation (from memory;
+        # its check character is recomputed below);
+        # written with a lower-case x it is the same iD.
+        ("0000-0002-1694-233x", "0000-0002-1694-233X"),
+        ("orcid.org/0000-0002-1694-233x", "0000-0002-1694-233X"),
+    ],
+)
+def test_orcid_forms_normalised(orcid, bare):
+    assert orcid_problem(orcid) is None
+    assert normalise_orcid(orcid) == bare
+    assert orcid_uri(orcid) == f"https://orcid.org/{bare}"
+
+
+def test_orcid_check_character_x():
+    # ISO 7064 MOD 11-2 over 000000021694233 gives 10, written "X" (ORCID checksum documentation).
+    assert orcid_check_digit("000000021694233") == "X"
+    assert "check digit 7" in orcid_problem("0000-0002-1694-2337")
+
+
+@pytest.mark.parametrize("orcid", ["0000-0002-1825-009", "orcid:0000-0002-1825-0097", "https://orcid.com/0000-0002-1825-0097", "0000000218250097"])
+def test_orcid_shapes_refused(orcid):
+    assert "is not of the form" in orcid_problem(orcid)
+    assert normalise_orcid(orcid) is None
+
+
+# ---------------------------------------------------------------- IGSN
+# Sources: DataCite "Displaying IGSN IDs" (https://doi.org/<prefix>/<code>, igsn:<prefix>/<code>,
+# igsn:<code>); DataCite IGSN FAQ ("IGSN IDs are functionally DataCite DOIs"; legacy IGSNs still
+# resolve); SESAR2 "IGSN changes" (each allocating agent its own prefix; shared prefix 10.58052);
+# the legacy "IGSN:" form and Handle 10273 from memory.
 
 @pytest.mark.parametrize(
     "igsn",
@@ -56,9 +110,12 @@ def test_malformed_dois(doi, why):
         "igsn: XXTM00002",
         "https://igsn.org/XXTM00002",
         "http://hdl.handle.net/10273/XXTM00002",
-        "XXTM00002",
-        "10.58052/XXTM00002",  # legacy IGSNs as DOIs (prefix from memory)
+        "10.58052/XXTM00002",  # SESAR2's shared IGSN prefix (geosamples.org, "IGSN changes")
         "https://doi.org/10.58052/XXTM00002",
+        "igsn:10.58052/XXTM00002",  # DataCite's preferred short display form
+        "igsn:https://doi.org/10.5555/XXTM00002",  # tagged: the writer says this DOI is an IGSN
+        "igsn:AU1234",  # DataCite's suffix-only short form, example code of "Displaying IGSN IDs"
+        "10.58030/kielbot0007007",  # the example of Kiel University's IGSN ID specification
     ],
 )
 def test_igsn_forms(igsn):
@@ -74,6 +131,12 @@ def test_igsn_forms(igsn):
         ("IGSN:XX#TM", "character"),
         ("10.58052", "written as a DOI"),
         ("", "empty"),
+        # Any DOI is not an IGSN: 10.5555 is the DOI Handbook's test prefix, no IGSN agent's.
+        ("10.5555/XXTM00002", "not a known IGSN prefix"),
+        ("https://doi.org/10.5555/XXTM00002", "igsn:10.5555/XXTM00002"),
+        # A local sample number cannot be told from an untagged code.
+        ("XXTM00002", "no igsn: tag"),
+        ("TM-2024-017", "no igsn: tag"),
     ],
 )
 def test_malformed_igsns(igsn, why):

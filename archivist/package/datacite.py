@@ -4,21 +4,114 @@ The property names and controlled values are those of the DataCite Metadata
 Schema 4.5 and its JSON Schema (``datacite-v4.5.json``, which the ``datacite``
 package ships and the tests validate against). A repository that mints the
 DOI fills in ``doi``, ``publisher`` when it was not given, and ``url``.
+
+A record without a DOI
+----------------------
+The JSON Schema does not require ``doi`` (its ``required`` list is creators,
+titles, publisher, publicationYear, types, schemaVersion), and a DataCite
+repository assigns the DOI when it registers the record. Until then the
+record names the package version by an ``alternateIdentifiers`` entry of type
+``URN`` holding a name-based UUID URN (``urn:uuid:...``, RFC 4122 section 4.3,
+SHA-1 of the package name, version, title, year and authors), so the record
+carries an identifier that the schema accepts, that is the same every time
+the same version is packed, and that no one has to register.
+
+Relation to an earlier package
+------------------------------
+``map.derived_from`` (written by ``archivist unpack``) names the package the
+map came from. When the project was made by ``unpack``, its mark
+(``.archivist-unpack.json``) lists the authors of that earlier package; the
+record then says ``IsNewVersionOf`` when every earlier author is still an
+author (matched by ORCID when both sides have one, otherwise by given and
+family name, ignoring case; new co-authors may be added), and
+``IsDerivedFrom`` otherwise: a remap of someone else's map. Without the
+earlier authors (no mark, or ``derived_from`` typed by hand) the record says
+``IsDerivedFrom``, which is true of both (DataCite 4.5, relationType:
+IsNewVersionOf "indicates A is a new edition of B"; IsDerivedFrom "indicates
+B is a source upon which A is based"; both from memory).
 """
 
 from __future__ import annotations
 
+import json
 import re
+import uuid
+from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
 
-from .deposit import Deposit
+from ..identifiers import normalise_orcid
+from ..vocab.licences import licence_choice
+from .deposit import Author, Deposit, split_name
 from .provenance import doi_of
+
+EARLIER_MARK = ".archivist-unpack.json"  # the mark archivist unpack leaves (archivist.package.unpack.MARKER)
+UUID_NAMESPACE = uuid.uuid5(uuid.NAMESPACE_URL, "urn:archivist:package")
 
 SCHEMA_VERSION = "http://datacite.org/schema/kernel-4"
 MAX_LISTED = 20  # open errors quoted in the record
 
 
-def creator(author) -> dict[str, Any]:
+def package_urn(deposit: Deposit) -> str:
+    """The name-based UUID URN of a package version (RFC 4122, version 5): the same inputs give the same URN."""
+    names = "; ".join(f"{a.name}|{a.orcid or ''}" for a in deposit.authors)
+    key = f"{deposit.name}\n{deposit.version}\n{deposit.title}\n{deposit.year}\n{names}"
+    return uuid.uuid5(UUID_NAMESPACE, key).urn
+
+
+EarlierAuthor = tuple[str, "str | None"]
+
+
+def earlier_authors(root: Path) -> tuple[EarlierAuthor, ...] | None:
+    """(name, ORCID or None) of the authors of the package ``root`` was unpacked from, or None when unknown."""
+    mark = Path(root) / EARLIER_MARK
+    try:
+        if not mark.is_file() or mark.stat().st_size > 1_000_000:
+            return None
+        data = json.loads(mark.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+    authors = data.get("authors") if isinstance(data, dict) else None
+    if not isinstance(authors, list):
+        return None
+    out = []
+    for a in authors:
+        if isinstance(a, dict) and isinstance(a.get("name"), str) and a["name"].strip():
+            orcid = a.get("orcid")
+            out.append((a["name"], normalise_orcid(orcid) if isinstance(orcid, str) else None))
+    return tuple(out)
+
+
+def _name_key(name: str) -> tuple[str, str]:
+    given, family = split_name(name)
+    return ((given or "").casefold(), (family or "").casefold())
+
+
+def same_authors(now: Sequence[Author], earlier: Sequence[EarlierAuthor]) -> bool:
+    """True when every earlier author is among ``now`` (by ORCID when both have one, else by given and family name)."""
+    if not earlier:
+        return False
+    for name, orcid in earlier:
+        found = False
+        for a in now:
+            if orcid and a.orcid:
+                found = orcid == a.orcid
+            else:
+                found = _name_key(name) == _name_key(a.name)
+            if found:
+                break
+        if not found:
+            return False
+    return True
+
+
+def relation_to_earlier(deposit: Deposit, earlier: Sequence[EarlierAuthor] | None) -> str:
+    """``IsNewVersionOf`` when the earlier package's authors are all still authors, else ``IsDerivedFrom``."""
+    return "IsNewVersionOf" if earlier is not None and same_authors(deposit.authors, earlier) else "IsDerivedFrom"
+
+
+def creator(author: Author) -> dict[str, Any]:
+    """A DataCite ``creators`` entry; the ORCID iD as its https URI."""
     out: dict[str, Any] = {"name": author.inverted, "nameType": "Personal"}
     if author.given:
         out["givenName"] = author.given
@@ -41,8 +134,13 @@ def datacite_record(
     sizes: list[str],
     technical: str,
     open_errors: list[str],
+    earlier: Sequence[EarlierAuthor] | None = None,
 ) -> dict[str, Any]:
-    """The record; ``open_errors`` (messages) are stated in a description when the package was made with errors."""
+    """The record; ``open_errors`` (messages) are stated in a description when the package was made with errors.
+
+    ``earlier``: the authors of the package named by ``map.derived_from``
+    (:func:`earlier_authors`), which decides the relation type.
+    """
     rec: dict[str, Any] = {
         "schemaVersion": SCHEMA_VERSION,
         "types": {"resourceTypeGeneral": "Dataset", "resourceType": "Geological map"},
@@ -61,6 +159,15 @@ def datacite_record(
             {"description": technical, "descriptionType": "TechnicalInfo"},
         ],
     }
+    choice = licence_choice(deposit.licence)
+    if choice:
+        rec["descriptions"].append({
+            "description": (
+                f"Licence: the SPDX expression '{deposit.licence}' offers a choice: the user may use the data under "
+                + " or under ".join(f"'{c}'" for c in choice) + ", whichever they choose; each is listed in rightsList."
+            ),
+            "descriptionType": "Other",
+        })
     if open_errors:
         shown = open_errors[:MAX_LISTED]
         more = f" ... and {len(open_errors) - len(shown)} more." if len(open_errors) > len(shown) else ""
@@ -78,13 +185,16 @@ def datacite_record(
         rec["doi"] = deposit.doi
         prefix, _, suffix = deposit.doi.partition("/")
         rec["prefix"], rec["suffix"] = prefix, suffix
+    else:
+        rec["alternateIdentifiers"] = [{"alternateIdentifier": package_urn(deposit), "alternateIdentifierType": "URN"}]
     contact = deposit.contact_name
     if contact:
         rec["contributors"] = [{"name": contact, "contributorType": "ContactPerson"}]
     if deposit.derived_from:
-        earlier = doi_of(deposit.derived_from)
-        if earlier:
-            rec["relatedIdentifiers"] = [{"relatedIdentifier": earlier, "relatedIdentifierType": "DOI", "relationType": "IsNewVersionOf"}]
+        relation = relation_to_earlier(deposit, earlier)
+        earlier_doi = doi_of(deposit.derived_from)
+        if earlier_doi:
+            rec["relatedIdentifiers"] = [{"relatedIdentifier": earlier_doi, "relatedIdentifierType": "DOI", "relationType": relation}]
         elif re.match(r"^https?://", deposit.derived_from):
-            rec["relatedIdentifiers"] = [{"relatedIdentifier": deposit.derived_from, "relatedIdentifierType": "URL", "relationType": "IsDerivedFrom"}]
+            rec["relatedIdentifiers"] = [{"relatedIdentifier": deposit.derived_from, "relatedIdentifierType": "URL", "relationType": relation}]
     return rec

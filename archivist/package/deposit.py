@@ -11,7 +11,7 @@ from pathlib import Path
 import pyproj
 
 from ..errors import ArchivistError
-from ..identifiers import orcid_problem
+from ..identifiers import normalise_doi, normalise_orcid
 from ..manifest import DEPOSIT_KEYS, MANIFEST_NAME
 from ..project import MapProject, crs_label
 from ..vocab.licences import Licence, licence_problem, licences
@@ -165,9 +165,7 @@ def read_deposit(project: MapProject, created: dt.datetime) -> Deposit:
     for a in m["authors"]:
         given, family = split_name(a["name"])
         raw_orcid = _text(a.get("orcid"))
-        orcid = None
-        if raw_orcid and orcid_problem(raw_orcid) is None:
-            orcid = raw_orcid.rsplit("/", 1)[-1]
+        orcid = normalise_orcid(raw_orcid) if raw_orcid else None
         authors.append(
             Author(
                 name=" ".join(a["name"].split()),
@@ -191,7 +189,7 @@ def read_deposit(project: MapProject, created: dt.datetime) -> Deposit:
         contact_email = next((a.email for a in authors if a.email), None)
     doi = _text(m.get("doi"))
     if doi:
-        doi = re.sub(r"^(?:https?://(?:dx\.)?doi\.org/|doi:)", "", doi, flags=re.I)
+        doi = normalise_doi(doi) or re.sub(r"^(?:https?://(?:dx\.)?doi\.org/|doi:)", "", doi, flags=re.I)
     return Deposit(
         name=name,
         title=" ".join(m["title"].split()),

@@ -504,9 +504,11 @@ def _write_payload(
             output_facts.append(FileFact(info.path, digest, size, info.name))
 
     pack_end = deposit.created if reproducible else max(_utcnow(), pack_start)
+    earlier = dc.earlier_authors(project.root) if deposit.derived_from else None
     write_json(
         data / "metadata" / "provenance.json",
-        provenance(deposit, source_facts, output_facts, REPORT_PATH, check_times, (pack_start, pack_end), report.summary.errors),
+        provenance(deposit, source_facts, output_facts, REPORT_PATH, check_times, (pack_start, pack_end), report.summary.errors,
+                   revision=dc.relation_to_earlier(deposit, earlier) == "IsNewVersionOf"),
     )
     resources.append(dp.ResourceInfo("metadata/provenance.json", "provenance", "Provenance (W3C PROV-JSON)", "Inputs with SHA-256, the check and pack runs, the authors."))
 
@@ -524,6 +526,7 @@ def _write_payload(
         sizes=[f"{pl.count} features in {pl.role}" for pl in layers] + [f"{len(t.frame)} rows in {t.name}" for t in tables if t.name in project.tables],
         technical=technical,
         open_errors=open_errors,
+        earlier=earlier,
     )
     write_json(data / "metadata" / "datacite.json", record)
     resources.append(dp.ResourceInfo("metadata/datacite.json", "datacite", "DataCite metadata", "DataCite Metadata Schema 4.5 record, JSON form."))

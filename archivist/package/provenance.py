@@ -5,7 +5,16 @@ files of the package and the package itself. Activities: the check and the
 pack runs with their times. Agents: archivist (a software agent with its
 version) and the authors (persons, by ORCID where there is one). The package
 is derived from the inputs, and from an earlier package when the manifest's
-``map.derived_from`` names one.
+``map.derived_from`` names one (a ``prov:Revision`` when it is a new version
+by the same authors, see :mod:`archivist.package.datacite`; a plain
+derivation for a remap of someone else's map).
+
+Namespaces: PROV-JSON names every record by a qualified name whose prefix
+stands for a namespace IRI. archivist's own terms (``archivist:sha256``,
+``archivist:Package``...) and its local names are URNs (RFC 8141 syntax),
+not addresses on a host archivist does not own: a URN names without
+promising that anything can be fetched from it. The ORCID namespace is
+ORCID's resolving URI and ``xsd`` the W3C XML Schema namespace.
 """
 
 from __future__ import annotations
@@ -17,10 +26,11 @@ from typing import Any
 from urllib.parse import quote
 
 from .._version import __version__
+from ..identifiers import normalise_doi
 from .deposit import Deposit, slug
 from .determinism import iso
 
-NAMESPACE = "https://archivist.invalid/ns/prov#"
+NAMESPACE = "urn:archivist:vocabulary:"
 
 
 @dataclass(frozen=True)
@@ -59,8 +69,14 @@ def provenance(
     check_times: tuple[dt.datetime, dt.datetime],
     pack_times: tuple[dt.datetime, dt.datetime],
     open_errors: int,
+    revision: bool = False,
 ) -> dict[str, Any]:
-    """The PROV-JSON document of one pack run."""
+    """The PROV-JSON document of one pack run.
+
+    ``revision``: the package is a new version, by the same authors, of the
+    one ``map.derived_from`` names (a ``prov:Revision``); otherwise a plain
+    derivation.
+    """
     pkg_ns = f"urn:archivist:package:{_local(deposit.stem)}/"
     p = _Doc()
     p.doc["prefix"] = {
@@ -152,16 +168,24 @@ def provenance(
                 "archivist:identifier": deposit.derived_from,
             },
         )
-        p.relate(
-            "wasDerivedFrom",
-            {"prov:generatedEntity": package, "prov:usedEntity": earlier, "prov:type": {"$": "prov:Revision", "type": "prov:QUALIFIED_NAME"}},
-        )
+        derivation: dict[str, Any] = {"prov:generatedEntity": package, "prov:usedEntity": earlier}
+        if revision:
+            derivation["prov:type"] = {"$": "prov:Revision", "type": "prov:QUALIFIED_NAME"}
+        p.relate("wasDerivedFrom", derivation)
     return p.doc
 
 
 def doi_of(text: str | None) -> str | None:
-    """The DOI in ``text`` (bare ``10.x/y``, ``doi:`` or a doi.org URL), or None."""
+    """The DOI at the end of ``text`` (bare ``10.x/y``, ``doi:``, a doi.org URL, percent-encoded or not), or None.
+
+    ``map.derived_from`` as ``unpack`` writes it ends with the DOI after the
+    last ``;``.
+    """
     if not text:
         return None
-    m = re.search(r"(10\.\d{4,9}/\S+)$", text.strip())
-    return m.group(1) if m else None
+    last = text.strip().rsplit(";", 1)[-1].strip()
+    bare = normalise_doi(last)
+    if bare is None:
+        m = re.search(r"(10\.\d{4,9}(?:/|%2[Ff])\S+)$", text.strip())
+        bare = normalise_doi(m.group(1)) if m else None
+    return bare

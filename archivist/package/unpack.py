@@ -35,8 +35,8 @@ metadata written from it differ.
 The mark of an unpacked folder
 ------------------------------
 The new folder holds one more file, ``.archivist-unpack.json`` (:data:`MARKER`):
-which package it came from and the SHA-256 of every file unpack wrote. It
-sits in the project folder itself so that it moves with the folder; it is
+which package it came from, the authors of that package, and the SHA-256 of
+every file unpack wrote. It sits in the project folder itself so that it moves with the folder; it is
 hidden (a leading dot), so role guessing never sees it, and ``check`` and
 ``pack`` read only the files the manifest names, so it never ends up in a
 package. ``unpack --force`` replaces an existing folder only when that
@@ -429,6 +429,12 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
         digest = sha256_file(root / "manifest-sha256.txt") if (root / "manifest-sha256.txt").is_file() else None
         derived = stem + (f"; bag manifest sha256:{digest}" if digest else "") + (f"; https://doi.org/{doi}" if doi else "")
         new_text = edit_map_keys(text, {"version": version, "derived_from": derived, "doi": None})
+        # the earlier package's authors, so that pack can tell a new version by them from a remap by others
+        authors = [
+            {"name": str(a["name"]), "orcid": a.get("orcid") if isinstance(a.get("orcid"), str) else None}
+            for a in (manifest.get("map", {}).get("authors") or [])
+            if isinstance(a, dict) and isinstance(a.get("name"), str)
+        ]
 
         # every file of every dataset the manifest names (a shapefile's parts, a .gdb folder's files)
         written: dict[str, str] = {}
@@ -441,6 +447,6 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
                 dest.parent.mkdir(parents=True, exist_ok=True)
                 written[part_rel] = _copy_file(part, dest)
         written[MANIFEST_NAME] = _write_new(tmp / MANIFEST_NAME, new_text.encode("utf-8"))
-    record = {"kind": MARKER_KIND, "archivist": __version__, "package": derived, "files": dict(sorted(written.items()))}
+    record = {"kind": MARKER_KIND, "archivist": __version__, "package": derived, "authors": authors, "files": dict(sorted(written.items()))}
     _write_new(tmp / MARKER, (json.dumps(record, indent=2, ensure_ascii=False) + "\n").encode("utf-8"))
     return tuple(sorted(written)), version, previous, derived, origin

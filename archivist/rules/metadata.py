@@ -16,7 +16,7 @@ from ..manifest import DEPOSIT_KEYS
 from ..project import EXPECTED_GEOMETRY
 from ..registry import all_rules, rule
 from ..vocab.legend import unfound_unit
-from ..vocab.licences import licence_problem
+from ..vocab.licences import licence_cautions, licence_problem
 from ..vocab.statements import measures_statement
 
 if TYPE_CHECKING:
@@ -222,27 +222,40 @@ def licence_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `map.licence` values that are not on the SPDX licence list (checked with
     the `license-expression` package's copy of the list), such as
-    `CC-BY` without a version, or free text like "open".
+    `CC-BY` without a version, or free text like "open" (errors). Two valid
+    forms are warnings: a `LicenseRef-...` id, the SPDX syntax for a licence
+    not on the list (SPDX specification, annex "SPDX License Expressions"),
+    since the id alone tells a reuser nothing; and a deprecated SPDX id such
+    as `GPL-2.0`, named with the id that replaced it (`GPL-2.0-only`), as the
+    `license-expression` package's licence index records it. Whether the
+    licence suits data, or matches the text shipped with it, is not checked.
 
     Why it matters
     --------------
     Repositories and harvesters read the SPDX id to tell users what they may do
-    with the data; an unrecognised licence makes the deposit legally unusable.
+    with the data; an unrecognised licence makes the deposit legally unusable,
+    and a licence of one's own or an outdated id leaves reusers guessing.
 
     Fix
     ---
     Use the exact SPDX id, e.g. `CC-BY-4.0`, `CC0-1.0` or `ODbL-1.0`
-    (see the SPDX licence list).
+    (see the SPDX licence list); replace a deprecated id by the one named; for
+    a `LicenseRef-` licence, ship its full text or choose a listed licence.
 
     Example
     -------
-    `licence = "CC-BY"` gives "map.licence: 'CC-BY' is not on the SPDX licence list".
+    `licence = "CC-BY"` gives "map.licence: 'CC-BY' is not on the SPDX licence list";
+    `licence = "LicenseRef-tarrowmere"` gives a warning that reusers cannot
+    tell what it allows.
     """
     value = project.manifest.get("map", {}).get("licence")
     if isinstance(value, str) and value.strip():
         why = licence_problem(value.strip())
         if why:
             yield Hit(f"map.licence: {why}.", layer="manifest")
+            return
+        for caution in licence_cautions(value.strip()):
+            yield Hit(f"map.licence: {caution}.", layer="manifest", severity=Severity.WARNING)
 
 
 @rule("identifier-invalid", family="metadata", severity="error")
@@ -253,15 +266,26 @@ def identifier_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     Author ORCID iDs that are not 16 characters in four groups or whose last
     character is not the ISO 7064 MOD 11-2 check character of the other 15
-    digits (the usual sign of a typo or transposed digits); a `map.doi` that
-    is not a DOI by the DOI Handbook's syntax ("10." + registrant code, "/",
-    suffix; the `doi:` and `https://doi.org/` forms are accepted); and, when
+    digits (the usual sign of a typo or transposed digits); the bare iD, the
+    `https://orcid.org/`, `http://orcid.org/` and `orcid.org/` forms and a
+    lower-case `x` check character are accepted (ORCID, "Structure of the
+    ORCID Identifier"). A `map.doi` that is not a DOI by the DOI Handbook's
+    syntax ("10." + registrant code, "/", suffix); the `doi:`, `info:doi/`,
+    `https://doi.org/` and `http://dx.doi.org/` forms and percent-encoded
+    characters (`10.5555%2Fabc`, as DOIs appear in URLs) are accepted. When
     `[layers.samples]` names an `igsn_field`, sample identifiers in it that
-    are neither an IGSN (`IGSN:code`, `https://igsn.org/code`, a bare code)
-    nor a DOI (IGSN IDs are now registered as DOIs). Blank IGSN cells are
-    not reported: not every sample is registered. Only the syntax is checked:
-    a well-formed identifier may still be unregistered or belong to another
-    object, which only the registry can tell.
+    are not an IGSN. An IGSN is a DOI registered by an IGSN allocating agent
+    under its own prefix (DataCite IGSN FAQ; SESAR2 "IGSN changes"), written
+    `https://doi.org/10.58052/CODE`, `igsn:10.58052/CODE` or `igsn:CODE`
+    (DataCite, "Displaying IGSN IDs"), or a legacy IGSN (`IGSN:CODE`,
+    `https://igsn.org/CODE`, Handle `10273/CODE`, from memory). A DOI under
+    a prefix archivist does not know as an IGSN prefix is refused unless it
+    is tagged `igsn:`, and so is a code with no tag (a local sample number
+    looks the same). Blank IGSN cells are not reported: not every sample is
+    registered. Only the syntax is checked: a well-formed identifier may
+    still be unregistered or belong to another object, which only the
+    registry can tell; the list of IGSN prefixes is not complete (agents
+    receive new ones), hence the `igsn:` tag.
 
     Why it matters
     --------------

@@ -7,6 +7,17 @@ package's copy of the list (:func:`licence_problem`, used by the metadata
 rule ``licence-unknown`` and by ``pack``); the full names below are those of
 the SPDX License List for the licences open data is usually released under
 (from memory). Any other valid identifier is named by its id.
+
+Two kinds of identifier are valid but earn a caution (:func:`licence_cautions`,
+the warnings of ``licence-unknown``): ``LicenseRef-<idstring>``, the SPDX
+form for a licence not on the list (SPDX specification, annex "SPDX License
+Expressions": ``[DocumentRef-<idstring>:]LicenseRef-<idstring>``), which tells
+a reuser nothing about what it allows; and deprecated SPDX ids such as
+``GPL-2.0``, which the SPDX list replaced (by ``GPL-2.0-only``). Which ids are
+deprecated and what replaces them is read from the ``license-expression``
+package's data: its licence index lists the current SPDX id of each licence
+with the older SPDX ids as ``other_spdx_license_keys``, and flags licences
+that are deprecated with no replacement (``is_deprecated``).
 :func:`recognise_licence` reads the licence statements of an archive
 (``audit``): SPDX tags and URLs, Creative Commons and Open Data Commons
 URLs and names, and bare expressions.
@@ -45,16 +56,34 @@ NAMES = {
 }
 
 
+LICENCE_REF = re.compile(r"^(?:DocumentRef-[A-Za-z0-9.-]+:)?LicenseRef-[A-Za-z0-9.-]+$")
+OWN_LICENCE_TITLE = "a licence of the authors' own, not on the SPDX licence list"
+
+
 @dataclass(frozen=True)
 class Licence:
+    """One licence of an expression: its SPDX id, full name and canonical URL ("" for a ``LicenseRef-``)."""
+
     spdx: str
     title: str
     url: str
 
+    @property
+    def listed(self) -> bool:
+        """True for an id of the SPDX licence list, False for a ``LicenseRef-`` of the authors' own."""
+        return LICENCE_REF.match(self.spdx) is None
+
     def to_datapackage(self) -> dict[str, str]:
-        return {"name": self.spdx, "title": self.title, "path": self.url}
+        """The Data Package ``licenses`` entry (no ``path`` for a licence that has no public page)."""
+        out = {"name": self.spdx, "title": self.title}
+        if self.url:
+            out["path"] = self.url
+        return out
 
     def to_datacite(self) -> dict[str, str]:
+        """The DataCite ``rightsList`` entry; the SPDX scheme only for ids on the SPDX list."""
+        if not self.listed:
+            return {"rights": f"{self.spdx} ({self.title})"}
         return {
             "rights": self.title,
             "rightsUri": self.url,
@@ -79,7 +108,84 @@ def licence_ids(expression: str) -> list[str]:
 
 def licences(expression: str) -> list[Licence]:
     """One :class:`Licence` per identifier in ``expression``."""
-    return [Licence(k, NAMES.get(k, k), f"{SPDX_LIST_URL}{k}.html") for k in licence_ids(expression)]
+    out = []
+    for k in licence_ids(expression):
+        if LICENCE_REF.match(k):
+            out.append(Licence(k, OWN_LICENCE_TITLE, ""))
+        else:
+            out.append(Licence(k, NAMES.get(k, k), f"{SPDX_LIST_URL}{k}.html"))
+    return out
+
+
+def licence_choice(expression: str) -> list[str] | None:
+    """The alternatives of an expression whose top level is ``OR`` (the user may choose one), else None.
+
+    Examples
+    --------
+    >>> licence_choice("CC-BY-4.0 OR ODbL-1.0")
+    ['CC-BY-4.0', 'ODbL-1.0']
+    >>> licence_choice("CC-BY-4.0") is None
+    True
+    """
+    try:
+        parsed = spdx_licensing().parse(expression, validate=False, strict=False)
+    except _parse_errors():
+        return None
+    if parsed is None or type(parsed).__name__ != "OR":
+        return None
+    return [str(arg) for arg in parsed.args]  # ids as licence_ids() gives them (current SPDX spelling)
+
+
+_TOKEN = re.compile(r"(?:DocumentRef-[A-Za-z0-9.-]+:)?[A-Za-z0-9.+-]+")
+_OPERATORS = {"and", "or", "with"}
+
+
+@lru_cache(maxsize=1)
+def _spdx_renames() -> tuple[dict[str, str], dict[str, str]]:
+    """(older SPDX id -> current id, lower-cased; current id of a deprecated licence -> itself), from license-expression's index."""
+    from license_expression import get_license_index
+
+    renamed: dict[str, str] = {}
+    deprecated: dict[str, str] = {}
+    for entry in get_license_index():
+        current = entry.get("spdx_license_key")
+        if not current or current.startswith("LicenseRef-"):
+            continue
+        if entry.get("is_deprecated"):
+            deprecated[current.lower()] = current
+        for old in entry.get("other_spdx_license_keys") or []:
+            # Older SPDX ids only: the index also holds spellings with spaces and LicenseRef- aliases.
+            if old and " " not in old and not old.startswith("LicenseRef-") and old.lower() != current.lower():
+                renamed[old.lower()] = current
+    return renamed, deprecated
+
+
+def licence_cautions(expression: str) -> list[str]:
+    """Why a valid expression may still mislead a reuser: ``LicenseRef-`` ids and deprecated SPDX ids.
+
+    Examples
+    --------
+    >>> licence_cautions("GPL-2.0")
+    ["'GPL-2.0' is a deprecated SPDX id; the SPDX licence list replaced it by 'GPL-2.0-only'"]
+    """
+    renamed, deprecated = _spdx_renames()
+    out: list[str] = []
+    seen: set[str] = set()
+    for token in _TOKEN.findall(expression):
+        low = token.lower()
+        if low in _OPERATORS or low in seen:
+            continue
+        seen.add(low)
+        if LICENCE_REF.match(token):
+            out.append(
+                f"'{token}' is a licence of the authors' own (LicenseRef-): reusers cannot tell from the identifier "
+                "what it allows; ship its full text in the package, or use a licence on the SPDX list"
+            )
+        elif low in renamed:
+            out.append(f"'{token}' is a deprecated SPDX id; the SPDX licence list replaced it by '{renamed[low]}'")
+        elif low in deprecated:
+            out.append(f"'{token}' is deprecated on the SPDX licence list")
+    return out
 
 
 # ---------------------------------------------------------------- validation
@@ -112,7 +218,9 @@ def licence_problem(expression: str) -> str | None:
     except _parse_errors():  # the parser raises on some free text instead of reporting it
         return f"'{expression}' is not an SPDX licence identifier or expression"
     if info.errors:
-        unknown = [s for s in info.invalid_symbols]
+        unknown = [s for s in info.invalid_symbols if not LICENCE_REF.match(str(s))]
+        if not unknown and all("Unknown license key" in e for e in info.errors):
+            return None  # only LicenseRef- ids: valid syntax (their caution is licence_cautions)
         if unknown:
             return f"'{', '.join(map(str, unknown))}' is not on the SPDX licence list"
         return "; ".join(info.errors)
