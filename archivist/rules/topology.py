@@ -159,7 +159,7 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     cov = ctx.coverage()
     m = metres_per_unit(project)
     for piece in cov.gaps:
-        if piece.width <= cov.tol * ABOVE and (piece.units or piece.at_extent):
+        if piece.width <= cov.tol * ABOVE and (len(piece.units) > 1 or piece.on_frame):
             continue
         area = piece.area * m * m
         where = f"between units {units.labels(piece.units)}" if len(piece.units) > 1 else (
