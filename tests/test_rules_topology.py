@@ -646,3 +646,39 @@ def test_units_on_the_frame_within_the_tolerance_are_no_gap(tmp_path):
     a, c, b = box(0.05, 0, 5, 5), box(0.05, 5, 5, 10), Polygon([(5, 0), (10, 0), (10, 10), (5, 10), (5, 5)])
     assert shapely.is_empty(shapely.coverage_invalid_edges([a, b, c], gap_width=TOL)).all()
     assert archivist.check(square_map(tmp_path, a=a, b=b, extra=[c], extent=box(0, 0, 10, 10)), only=TOPOLOGY).findings == ()
+
+
+def _no_double_reports(report) -> None:
+    """No edge-mismatch finding lies within a gap or overlap reported as such (GEOS covers)."""
+    pieces = [shapely.from_wkt(f.wkt) for f in report.findings if f.rule in ("unit-gap", "unit-overlap") and f.wkt]
+    for f in report.findings:
+        if f.rule == "unit-edge-mismatch" and f.wkt and pieces:
+            assert not shapely.covered_by(shapely.from_wkt(f.wkt), shapely.buffer(shapely.union_all(pieces), 0.002)), f.message
+
+
+@pytest.mark.slow
+@SETTINGS
+@given(n=st.integers(12, 40), seed=st.integers(0, 10_000), pick=st.integers(0, 10_000), e=st.floats(-3, 1), framed=st.booleans())
+def test_shrunk_polygon_of_any_gap_width_is_found_where_geos_says(n, seed, pick, e, framed):
+    # a gap ring 0.001 to 10 tolerances wide around one polygon of a random map, on the frame or inside
+    smap = synthetic_map(n, seed=seed, splay_fraction=0)
+    k = pick % len(smap.units)
+    bad = shrink(smap, k, smap.tolerance * 10 ** e)
+    with tempfile.TemporaryDirectory() as tmp:
+        root = write_map(bad, Path(tmp) / "m", extent=framed)
+        report = archivist.check(root, only=TOPOLOGY)
+    inv = shapely.coverage_invalid_edges(bad.units.geometry.values, gap_width=smap.tolerance)  # GEOS
+    geos = set(_ids(bad)[~shapely.is_empty(inv)])
+    assert geos <= _named_by_gap_rules(report)
+    assert all(str(k + 1) in f.features for f in report.findings if f.rule in ("unit-gap", "unit-edge-mismatch"))
+    assert not [f for f in report.findings if f.rule == "unit-overlap"]
+    _no_double_reports(report)
+
+
+def test_thin_strip_across_a_map_with_no_extent_layer(tmp_path):
+    # A and B 0.05 m apart along their whole contact, no extent layer: GEOS (gap_width=0.1) flags both
+    a, b = box(0, 0, 5, 10), box(5.05, 0, 10, 10)
+    assert not shapely.is_empty(shapely.coverage_invalid_edges([a, b], gap_width=TOL)).any()
+    (f,) = archivist.check(square_map(tmp_path, a=a, b=b), only=TOPOLOGY).findings
+    assert f.rule == "unit-edge-mismatch" and f.features == ("1", "2") and f.measure == 10.0
+    assert "up to 0.05 m apart" in f.message
