@@ -682,3 +682,18 @@ def test_thin_strip_across_a_map_with_no_extent_layer(tmp_path):
     (f,) = archivist.check(square_map(tmp_path, a=a, b=b), only=TOPOLOGY).findings
     assert f.rule == "unit-edge-mismatch" and f.features == ("1", "2") and f.measure == 10.0
     assert "up to 0.05 m apart" in f.message
+
+
+@pytest.mark.slow
+@SETTINGS
+@given(n=st.integers(12, 40), seed=st.integers(0, 10_000), pick=st.integers(0, 10_000), e=st.floats(-3, 1))
+def test_grown_polygon_of_any_overlap_width_is_reported_once(n, seed, pick, e):
+    # overlaps 0.001 to 10 tolerances wide: each is an overlap or an edge mismatch, never both
+    smap = synthetic_map(n, seed=seed, splay_fraction=0)
+    k = pick % len(smap.units)
+    bad = enlarge(smap, k, smap.tolerance * 10 ** e)
+    with tempfile.TemporaryDirectory() as tmp:
+        report = _check_map(bad, tmp)
+    inv = shapely.coverage_invalid_edges(bad.units.geometry.values, gap_width=smap.tolerance)  # GEOS
+    assert set(_ids(bad)[~shapely.is_empty(inv)]) <= _named_by_gap_rules(report)
+    _no_double_reports(report)

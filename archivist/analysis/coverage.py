@@ -129,7 +129,8 @@ def extent_of(project: MapProject, union: Any, tol: float = 0.0) -> tuple[Any, b
         closed = shapely.buffer(shapely.buffer(enclosed, r, join_style="mitre"), -r, join_style="mitre")
         # the offsets leave rounding noise (1e-17 m) beside the outline: vertices go back onto the units'
         closed = shapely.snap(closed, enclosed, 1e-9 * _scale_of(enclosed))
-        enclosed = shapely.union(enclosed, closed)
+        if shapely.area(shapely.difference(closed, enclosed)) > 0:  # else keep the outline as drawn
+            enclosed = shapely.union(enclosed, closed)
     return enclosed, False
 
 
