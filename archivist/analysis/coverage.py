@@ -5,7 +5,9 @@ How it scales
 Only the polygons carrying a trace in the half-edge table (a half-edge
 without its twin; on a clean map, those along the map edge) and their
 neighbours go on to GEOS's own coverage validation
-(``shapely.coverage_invalid_edges``). When GEOS finds nothing there and no
+(``shapely.coverage_invalid_edges`` with ``gap_width`` the tolerance, so that
+edges along a gap no wider than the tolerance are flagged whatever closes the
+gap: units, the map extent or nothing). When GEOS finds nothing there and no
 segment is drawn twice on one side, no two polygons can overlap; otherwise
 every pair of intersecting polygons in that region whose interiors meet is
 intersected exactly (GEOS alone can miss a polygon whose edge inside another
@@ -356,7 +358,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
                     for gk in thin[on_frame[thin]]:  # few: thin gaps at the frame
                         near = shapely.buffer(shapely.boundary(gaps[gk]), eps)
                         flagged = [invalid[u] for u in ui[gi == gk].tolist() if u in invalid]
-                        if flagged and float(shapely.length(shapely.intersection(shapely.union_all(flagged), near)).max()) > 4 * eps:
+                        if flagged and float(shapely.length(shapely.intersection(shapely.union_all(flagged), near))) > 4 * eps:
                             on_frame[gk] = False
                 except GEOSException as exc:
                     failures.append(Failure(tuple(int(u) for u in np.unique(ui[np.isin(gi, thin)])),
