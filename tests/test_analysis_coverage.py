@@ -63,7 +63,7 @@ def test_coverage_is_a_frozen_value_with_the_outline(tmp_path):
     edges = ctx.edges()
     assert float(edges.length[cov.outline].sum()) == pytest.approx(40.0)
     assert cov.failures == () and find_mismatches(cov) == ()
-    assert ctx.notes == ["Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."]
+    assert ctx.notes == ["Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge are found only where no wider than the tolerance."]
 
 
 def test_both_defects_found_without_failure(tmp_path):

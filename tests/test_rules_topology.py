@@ -549,3 +549,151 @@ def test_bundle_code_missing_variant(tmp_path):
     (f,) = report.findings
     assert f.rule == "unit-code-missing" and f.features == (str(frame.index[3]),)
     assert f.measure == pytest.approx(frame.geometry.values[3].area, abs=0.01)
+
+
+# ---------------------------------------------------------------- thin gaps, open or closed to the frame, against GEOS
+# Reference: GEOS through shapely, ``coverage_invalid_edges(geoms, gap_width=tol)``: the polygons with
+# an edge GEOS flags (a misfit, or a gap no wider than ``gap_width``) must each be named by a
+# finding of unit-gap, unit-overlap or unit-edge-mismatch; a map GEOS finds valid gives nothing.
+
+TOL = 0.1  # square_map: the default tolerance, 0.1 mm at 1:1 000
+
+
+def thin_gap_units(kind: str, w: float, depth: float) -> tuple[Polygon, Polygon]:
+    """A and B of the 10 m square with a gap ``w`` wide cut out of B along their contact at x = 5.
+
+    ``strip``: the whole 10 m, frame to frame; ``bay``: ``depth`` m from the north frame down;
+    ``slot``: ``depth`` m in the middle, closed; ``corner``: B stops ``w`` short of the north frame
+    for ``depth`` m, a bay between B and the frame touching A at its corner.
+    """
+    a = box(0, 0, 5, 10)
+    if kind == "strip":
+        return a, box(5 + w, 0, 10, 10)
+    if kind == "bay":
+        return a, Polygon([(5, 0), (10, 0), (10, 10), (5 + w, 10), (5 + w, 10 - depth), (5, 10 - depth)])
+    if kind == "slot":
+        y0, y1 = 5 - depth / 2, 5 + depth / 2
+        return a, Polygon([(5, 0), (10, 0), (10, 10), (5, 10), (5, y1), (5 + w, y1), (5 + w, y0), (5, y0)])
+    assert kind == "corner"
+    return a, Polygon([(5, 0), (10, 0), (10, 10), (5 + depth, 10), (5 + depth, 10 - w), (5, 10 - w)])
+
+
+def _named_by_gap_rules(report) -> set[str]:
+    return {u for f in report.findings if f.rule in ("unit-gap", "unit-overlap", "unit-edge-mismatch") for u in f.features}
+
+
+GAP_KINDS = st.sampled_from(["strip", "bay", "slot", "corner"])
+WIDTHS = st.floats(-3, 1).map(lambda e: TOL * 10 ** e)  # 0.001 to 10 times the tolerance
+
+
+def _compare_thin_gap_with_geos(root_dir, kind, w, depth, framed):
+    a, b = thin_gap_units(kind, w, depth)
+    geos = {str(k + 1) for k, g in enumerate(shapely.coverage_invalid_edges([a, b], gap_width=TOL)) if not g.is_empty}
+    root = square_map(root_dir, a=a, b=b, extent=box(0, 0, 10, 10) if framed else None)
+    report = archivist.check(root, only=TOPOLOGY)
+    assert geos <= _named_by_gap_rules(report)  # GEOS coverage_invalid_edges(gap_width=tol)
+    kinds = [f.rule for f in report.findings]
+    width = w if kind == "strip" else min(w, depth)  # the gap's width: the diameter of its largest inscribed circle
+    if width <= TOL * 0.999:
+        # a gap no wider than the tolerance between two units is a misfit of their common edge,
+        # reported once, whatever it touches (the frame or nothing)
+        assert kinds == ["unit-edge-mismatch"] and report.findings[0].features == ("1", "2")
+    elif width > TOL * 1.001 and (framed or kind == "slot"):
+        # a wider gap inside the extent is one gap of its area (GEOS difference), not also a misfit
+        (f,) = report.findings
+        assert f.rule == "unit-gap"
+        assert f.measure == pytest.approx(shapely.difference(box(0, 0, 10, 10), shapely.union(a, b)).area, abs=0.01)
+    elif width > TOL * 1.001:
+        # wider than the tolerance and open to a map edge nobody declared: not a gap; where B leaves
+        # the contact its vertex is not on A's edge, one misfit (GEOS flags it too, checked above)
+        assert kinds == ([] if kind == "strip" else ["unit-edge-mismatch"])
+
+
+GAP_SETTINGS = dict(deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+
+
+@settings(max_examples=4, **GAP_SETTINGS)
+@given(kind=GAP_KINDS, w=WIDTHS, depth=st.floats(0.05, 9), framed=st.booleans())
+@example(kind="strip", w=0.05, depth=1.0, framed=True)  # the thin strip across the map, once dropped
+@example(kind="bay", w=0.05, depth=3.0, framed=True)  # the thin bay open to the frame, once dropped
+@example(kind="strip", w=0.0001, depth=1.0, framed=False)
+@example(kind="corner", w=0.05, depth=2.0, framed=True)
+@example(kind="bay", w=1.0, depth=0.0625, framed=True)  # wide but shallow: thin, at the frame
+def test_every_gap_geos_flags_is_reported_open_or_closed(tmp_path_factory, kind, w, depth, framed):
+    _compare_thin_gap_with_geos(tmp_path_factory.mktemp("gap"), kind, w, depth, framed)
+
+
+@pytest.mark.slow
+@settings(max_examples=60, **GAP_SETTINGS)
+@given(kind=GAP_KINDS, w=WIDTHS, depth=st.floats(0.05, 9), framed=st.booleans())
+def test_every_gap_geos_flags_is_reported_many_shapes(tmp_path_factory, kind, w, depth, framed):
+    _compare_thin_gap_with_geos(tmp_path_factory.mktemp("gap"), kind, w, depth, framed)
+
+
+def test_a_thin_hole_inside_one_unit_is_a_gap_not_a_misfit(tmp_path):
+    # a 0.05 m x 4 m hole in A that no polygon fills: 0.2 m² of unmapped ground beside A alone
+    a = box(0, 0, 5, 10).difference(box(1, 1, 1.05, 5))
+    report = archivist.check(square_map(tmp_path, a=a), only=TOPOLOGY)
+    (f,) = report.findings
+    assert f.rule == "unit-gap" and f.features == ("1",) and f.measure == 0.2
+    # GEOS flags no edge (a hole of one polygon is not a coverage defect): the check goes further
+    assert shapely.is_empty(shapely.coverage_invalid_edges([a, box(5, 0, 10, 10)], gap_width=TOL)).all()
+
+
+def test_units_on_the_frame_within_the_tolerance_are_no_gap(tmp_path):
+    # A and C lie 0.05 m inside the west side of the extent and share their vertex at (0.05, 5):
+    # a valid coverage (GEOS), lying on the frame within the tolerance
+    a, c, b = box(0.05, 0, 5, 5), box(0.05, 5, 5, 10), Polygon([(5, 0), (10, 0), (10, 10), (5, 10), (5, 5)])
+    assert shapely.is_empty(shapely.coverage_invalid_edges([a, b, c], gap_width=TOL)).all()
+    assert archivist.check(square_map(tmp_path, a=a, b=b, extra=[c], extent=box(0, 0, 10, 10)), only=TOPOLOGY).findings == ()
+
+
+def _no_double_reports(report) -> None:
+    """No edge-mismatch finding lies within a gap or overlap reported as such (GEOS covers)."""
+    pieces = [shapely.from_wkt(f.wkt) for f in report.findings if f.rule in ("unit-gap", "unit-overlap") and f.wkt]
+    for f in report.findings:
+        if f.rule == "unit-edge-mismatch" and f.wkt and pieces:
+            assert not shapely.covered_by(shapely.from_wkt(f.wkt), shapely.buffer(shapely.union_all(pieces), 0.002)), f.message
+
+
+@pytest.mark.slow
+@SETTINGS
+@given(n=st.integers(12, 40), seed=st.integers(0, 10_000), pick=st.integers(0, 10_000), e=st.floats(-3, 1), framed=st.booleans())
+def test_shrunk_polygon_of_any_gap_width_is_found_where_geos_says(n, seed, pick, e, framed):
+    # a gap ring 0.001 to 10 tolerances wide around one polygon of a random map, on the frame or inside
+    smap = synthetic_map(n, seed=seed, splay_fraction=0)
+    k = pick % len(smap.units)
+    bad = shrink(smap, k, smap.tolerance * 10 ** e)
+    with tempfile.TemporaryDirectory() as tmp:
+        root = write_map(bad, Path(tmp) / "m", extent=framed)
+        report = archivist.check(root, only=TOPOLOGY)
+    inv = shapely.coverage_invalid_edges(bad.units.geometry.values, gap_width=smap.tolerance)  # GEOS
+    geos = set(_ids(bad)[~shapely.is_empty(inv)])
+    assert geos <= _named_by_gap_rules(report)
+    assert all(str(k + 1) in f.features for f in report.findings if f.rule in ("unit-gap", "unit-edge-mismatch"))
+    assert not [f for f in report.findings if f.rule == "unit-overlap"]
+    _no_double_reports(report)
+
+
+def test_thin_strip_across_a_map_with_no_extent_layer(tmp_path):
+    # A and B 0.05 m apart along their whole contact, no extent layer: GEOS (gap_width=0.1) flags both
+    a, b = box(0, 0, 5, 10), box(5.05, 0, 10, 10)
+    assert not shapely.is_empty(shapely.coverage_invalid_edges([a, b], gap_width=TOL)).any()
+    (f,) = archivist.check(square_map(tmp_path, a=a, b=b), only=TOPOLOGY).findings
+    assert f.rule == "unit-edge-mismatch" and f.features == ("1", "2") and f.measure == 10.0
+    assert "up to 0.05 m apart" in f.message
+
+
+@pytest.mark.slow
+@SETTINGS
+@given(n=st.integers(12, 40), seed=st.integers(0, 10_000), pick=st.integers(0, 10_000), e=st.floats(-3, 1))
+def test_grown_polygon_of_any_overlap_width_is_reported_once(n, seed, pick, e):
+    # overlaps 0.001 to 10 tolerances wide: each is an overlap or an edge mismatch, never both
+    smap = synthetic_map(n, seed=seed, splay_fraction=0)
+    k = pick % len(smap.units)
+    bad = enlarge(smap, k, smap.tolerance * 10 ** e)
+    with tempfile.TemporaryDirectory() as tmp:
+        report = _check_map(bad, tmp)
+    inv = shapely.coverage_invalid_edges(bad.units.geometry.values, gap_width=smap.tolerance)  # GEOS
+    assert set(_ids(bad)[~shapely.is_empty(inv)]) <= _named_by_gap_rules(report)
+    _no_double_reports(report)

@@ -5,7 +5,9 @@ How it scales
 Only the polygons carrying a trace in the half-edge table (a half-edge
 without its twin; on a clean map, those along the map edge) and their
 neighbours go on to GEOS's own coverage validation
-(``shapely.coverage_invalid_edges``). When GEOS finds nothing there and no
+(``shapely.coverage_invalid_edges`` with ``gap_width`` the tolerance, so that
+edges along a gap no wider than the tolerance are flagged whatever closes the
+gap: units, the map extent or nothing). When GEOS finds nothing there and no
 segment is drawn twice on one side, no two polygons can overlap; otherwise
 every pair of intersecting polygons in that region whose interiors meet is
 intersected exactly (GEOS alone can miss a polygon whose edge inside another
@@ -67,6 +69,7 @@ class Piece:
     width: float
     units: tuple[int, ...]
     at_extent: bool = False
+    on_frame: bool = False  # a thin gap lying within the tolerance of the extent edge, along no edge GEOS flags
 
 
 @dataclass(frozen=True)
@@ -102,8 +105,14 @@ class Coverage:
         return tuple(f for f in self.failures if aspect in f.aspects)
 
 
-def extent_of(project: MapProject, union: Any) -> tuple[Any, bool]:
-    """The map extent: the extent layer when it has area, else the outer boundary of the units."""
+def extent_of(project: MapProject, union: Any, tol: float = 0.0) -> tuple[Any, bool]:
+    """The map extent: the extent layer when it has area, else the outer boundary of the units.
+
+    The outer boundary of the units encloses every hole they close, and every
+    bay or strip open to the outside no wider than ``tol`` (a closing with
+    mitred offsets of half the tolerance, exact along straight edges): two
+    units a hair apart along their whole contact are a misfit, not two maps.
+    """
     layer = project.layers.get("extent")
     if layer is not None:
         geoms = polygonal(layer.geometry, layer.valid)
@@ -116,7 +125,15 @@ def extent_of(project: MapProject, union: Any) -> tuple[Any, bool]:
     # polygons that only touch at points
     rings = shapely.union_all(shapely.boundary(shapely.get_parts(union)))
     faces = shapely.get_parts(shapely.polygonize(shapely.get_parts(rings)))
-    return shapely.union_all(np.concatenate([faces, [union]])), False
+    enclosed = shapely.union_all(np.concatenate([faces, [union]]))
+    if tol > 0:
+        r = tol * ABOVE / 2.0
+        closed = shapely.buffer(shapely.buffer(enclosed, r, join_style="mitre"), -r, join_style="mitre")
+        # the offsets leave rounding noise (1e-17 m) beside the outline: vertices go back onto the units'
+        closed = shapely.snap(closed, enclosed, 1e-9 * _scale_of(enclosed))
+        if shapely.area(shapely.difference(closed, enclosed)) > 0:  # else keep the outline as drawn
+            enclosed = shapely.union(enclosed, closed)
+    return enclosed, False
 
 
 def extent_note(project: MapProject, declared: bool) -> str:
@@ -124,8 +141,8 @@ def extent_note(project: MapProject, declared: bool) -> str:
     if declared:
         return f"Map extent: the extent layer ({project.layers['extent'].source})."
     if "extent" in project.layers:
-        return "Map extent: the extent layer has no polygon, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."
-    return "Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge cannot be found."
+        return "Map extent: the extent layer has no polygon, so the outer boundary of the unit polygons was used; gaps open to the map edge are found only where no wider than the tolerance."
+    return "Map extent: no extent layer, so the outer boundary of the unit polygons was used; gaps open to the map edge are found only where no wider than the tolerance."
 
 
 def union_from_edges(edges: Edges, geoms: np.ndarray) -> Any:
@@ -218,7 +235,9 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         return np.searchsorted(region, a), np.searchsorted(region, b)
 
     if len(region):
-        inv, lost_clusters = by_cluster(shapely.coverage_invalid_edges, geoms[region], local_pairs)
+        # gap_width: edges along a gap no wider than the tolerance are invalid too, whatever closes the gap
+        inv, lost_clusters = by_cluster(lambda g: shapely.coverage_invalid_edges(g, gap_width=max(tol, 0.0)),
+                                        geoms[region], local_pairs)
         for members, why in lost_clusters:
             # their overlaps are still found: every intersecting pair of the region is intersected below
             failures.append(Failure(tuple(int(u) for u in region[members]), "validating them as a coverage",
@@ -274,7 +293,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         failures.append(Failure(tuple(int(u) for u in involved), "joining them into one area",
                                 frozenset((GAPS, OUTSIDE)), reason_of(exc)))
     try:
-        extent, declared = extent_of(project, union)
+        extent, declared = extent_of(project, union, tol)
     except GEOSException as exc:
         failures.append(Failure((), "reading the map extent", frozenset((GAPS, OUTSIDE)), reason_of(exc)))
         extent, declared = None, "extent" in project.layers
@@ -327,13 +346,30 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             gi, ui = gi[along], ui[along]
             eb = shapely.boundary(extent)
             at_edge = shapely.length(shapely.intersection(shapely.boundary(gaps), eb)) > 0
-            for gk, (g, ww) in enumerate(zip(gaps, w.astype(float))):
+            w = w.astype(float)
+            on_frame = np.zeros(len(gaps), dtype=bool)
+            thin = np.flatnonzero(at_edge & (w <= tol * ABOVE) & ~lost)
+            if len(thin):
+                # a thin gap all within the tolerance of the extent edge is a unit lying on the frame,
+                # unless GEOS flags an edge along it (a misfit between the units that meet there)
+                try:
+                    on_frame[thin] = shapely.covered_by(gaps[thin], shapely.buffer(eb, tol * ABOVE))
+                    eps = 1e-9 * _scale_of(extent)
+                    for gk in thin[on_frame[thin]]:  # few: thin gaps at the frame
+                        near = shapely.buffer(shapely.boundary(gaps[gk]), eps)
+                        flagged = [invalid[u] for u in ui[gi == gk].tolist() if u in invalid]
+                        if flagged and float(shapely.length(shapely.intersection(shapely.union_all(flagged), near))) > 4 * eps:
+                            on_frame[gk] = False
+                except GEOSException as exc:
+                    failures.append(Failure(tuple(int(u) for u in np.unique(ui[np.isin(gi, thin)])),
+                                            "comparing a gap with the map edge", frozenset((GAPS, MISFITS)), reason_of(exc)))
+            for gk, (g, ww) in enumerate(zip(gaps, w)):
                 around = tuple(sorted(int(u) for u in ui[gi == gk]))
                 if lost[gk]:
                     failures.append(Failure(around, "measuring the gap between them", frozenset((GAPS, MISFITS)),
                                             reasons[0] if reasons else "GEOS failed"))
                 elif around or at_edge[gk] or not len(geoms):  # else a degenerate leftover of the overlay
-                    gap_pieces.append(Piece(g, float(shapely.area(g)), float(ww), around, bool(at_edge[gk])))
+                    gap_pieces.append(Piece(g, float(shapely.area(g)), float(ww), around, bool(at_edge[gk]), bool(on_frame[gk])))
         # 7. unit area outside a declared extent
         if declared:
             try:
@@ -416,10 +452,11 @@ def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
         if piece.width <= tol * ABOVE:
             add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
     for piece in cov.gaps:
-        # thin gaps along the extent edge mean the units lie on it within the tolerance
-        if piece.width <= tol * ABOVE and piece.units and not piece.at_extent:
+        # a thin gap between two or more polygons, whatever else it touches (the frame, a hole);
+        # one along a single polygon is a gap (unit-gap), one lying on the frame is no defect
+        if piece.width <= tol * ABOVE and len(piece.units) > 1 and not piece.on_frame:
             add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
-    pieces = cov.overlaps + cov.gaps + cov.outside
+    pieces = cov.overlaps + tuple(p for p in cov.gaps if not p.on_frame) + cov.outside
     for pair, geom, length in cov.collinear:
         # vertices missing from one side at the corners of a gap or overlap between the
         # same two polygons belong to that defect

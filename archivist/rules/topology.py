@@ -123,16 +123,23 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Catches
     -------
-    Every piece of the map extent that no unit polygon covers and that is
-    wider than the tolerance: one finding per gap, with the gap polygon, its
-    area and the ids of the polygons around it. The extent is the `extent`
-    layer when the manifest names one; otherwise it is the outer boundary of
-    all units, and the report says so; then only holes enclosed by units can
-    be found, not bays open to the map edge. Gaps no wider than the tolerance
-    between two neighbours (whose shared edge was digitised twice, apart) are
-    reported once, by `unit-edge-mismatch`; gaps no wider than the tolerance
-    between a unit and the extent edge count as the unit lying on the edge.
-    The polygons named are those sharing a stretch of edge with the gap.
+    Every piece of the map extent that no unit polygon covers: one finding
+    per gap, with the gap polygon, its area and the ids of the polygons
+    around it (those sharing a stretch of edge with it, not just a point).
+    Reported here: every gap wider than the tolerance (`[checks] tolerance`),
+    whatever it touches (units, the map edge, another gap), and a gap of any
+    width along one unit only (an unfilled hole or a notch inside one unit).
+    Reported once elsewhere: a gap no wider than the tolerance between two or
+    more units (their shared edge digitised twice, apart) is a misfit of that
+    edge, `unit-edge-mismatch`, also where it runs to the map edge. Not
+    reported: a gap no wider than the tolerance that lies entirely within the
+    tolerance of the extent edge, along which GEOS flags no edge (a unit
+    lying on the frame, as lines within the tolerance of a boundary do).
+
+    The extent is the `extent` layer when the manifest names one; otherwise
+    it is the outer boundary of all units (with every hole they enclose and
+    every bay or strip no wider than the tolerance), and the report says so:
+    then wider bays open to the map edge cannot be found.
 
     Where GEOS stops on a part of the map (a polygon it cannot process), that
     part is one finding saying it could not be checked, naming its polygons;
@@ -159,7 +166,7 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     cov = ctx.coverage()
     m = metres_per_unit(project)
     for piece in cov.gaps:
-        if piece.width <= cov.tol * ABOVE and (piece.units or piece.at_extent):
+        if piece.width <= cov.tol * ABOVE and (len(piece.units) > 1 or piece.on_frame):
             continue
         area = piece.area * m * m
         where = f"between units {units.labels(piece.units)}" if len(piece.units) > 1 else (
@@ -264,9 +271,17 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     linework, the length of the stretch (for a thin piece: the long side of
     the rectangle with its area and perimeter, or of its minimum rotated
     rectangle, whichever is longer) and the largest separation (the width of
-    the thin piece). Wider overlaps and gaps are reported by `unit-overlap`
-    and `unit-gap`, so each defect is reported once. A unit edge within the
-    tolerance of the declared extent counts as lying on it, as lines do.
+    the thin piece). A thin gap is a misfit wherever it runs: enclosed by
+    units, open to the declared extent (a strip across the map between two
+    units, a bay open to the frame), or open to the units' outline when no
+    extent is declared; this is every gap GEOS flags with
+    `shapely.coverage_invalid_edges(gap_width=tolerance)`. Wider overlaps and
+    gaps are reported by `unit-overlap` and `unit-gap`, and a gap along one
+    unit only (an unfilled hole inside it) by `unit-gap`, so each defect is
+    reported once; misaligned vertices at the corners of such a gap or
+    overlap belong to it. A unit edge within the tolerance of the declared
+    extent counts as lying on it, as lines do, unless GEOS flags an edge
+    along the gap between them.
     Even a misfit far below the tolerance (floating-point noise after
     clipping or reprojecting one polygon alone) is reported: the polygons are
     not a coverage until their shared vertices are the same.
