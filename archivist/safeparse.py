@@ -49,7 +49,7 @@ from __future__ import annotations
 import json
 import tomllib
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 import yaml
 
@@ -134,18 +134,7 @@ def load_json(source: str | bytes | Path, label: str | None = None, *, max_bytes
     json.JSONDecodeError, UnicodeDecodeError, OSError
         Not JSON, not UTF-8, or not readable.
     """
-    label = _label(source, label)
-    text = _text(source, label, max_bytes, "JSON")
-    try:
-        value = json.loads(text)
-    except RecursionError:
-        raise _too_deep(label, max_depth) from None
-    except json.JSONDecodeError:
-        raise
-    except ValueError as exc:  # an integer over Python's digit limit
-        raise LimitExceeded(f"{label}: {exc}; not read") from None
-    _check_depth(value, label, max_depth)
-    return value
+    return _load(source, label, max_bytes, max_depth, "JSON", json.loads, json.JSONDecodeError)
 
 
 def load_toml(source: str | bytes | Path, label: str | None = None, *, max_bytes: int = TOML_MAX_BYTES, max_depth: int = MAX_DEPTH) -> dict[str, Any]:
@@ -158,13 +147,27 @@ def load_toml(source: str | bytes | Path, label: str | None = None, *, max_bytes
     tomllib.TOMLDecodeError, UnicodeDecodeError, OSError
         Not TOML, not UTF-8, or not readable.
     """
+    value: dict[str, Any] = _load(source, label, max_bytes, max_depth, "TOML", tomllib.loads, tomllib.TOMLDecodeError)
+    return value
+
+
+def _load(
+    source: str | bytes | Path,
+    label: str | None,
+    max_bytes: int,
+    max_depth: int,
+    kind: str,
+    parse: Callable[[str], Any],
+    syntax_error: type[ValueError],
+) -> Any:
+    """Read ``source`` within ``max_bytes``, parse it, and check its nesting against ``max_depth``."""
     label = _label(source, label)
-    text = _text(source, label, max_bytes, "TOML")
+    text = _text(source, label, max_bytes, kind)
     try:
-        value = tomllib.loads(text)
+        value = parse(text)
     except RecursionError:
         raise _too_deep(label, max_depth) from None
-    except tomllib.TOMLDecodeError:
+    except syntax_error:
         raise
     except ValueError as exc:  # an integer over Python's digit limit
         raise LimitExceeded(f"{label}: {exc}; not read") from None

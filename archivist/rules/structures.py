@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import difflib
 import re
-from typing import TYPE_CHECKING, Any, Iterator
+from typing import TYPE_CHECKING, Any, Callable, Iterable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -72,6 +72,19 @@ def _kinds(layer: Layer) -> np.ndarray:
 def _where(layer: Layer, rows: np.ndarray) -> Any:
     pts = [g for g in layer.geometry[rows] if g is not None and not g.is_empty]
     return pts[0] if len(pts) == 1 else (shapely.multipoints(pts) if pts else None)
+
+
+def _grouped_hits(layer: Layer, groups: Iterable[tuple[np.ndarray, Callable[[np.ndarray], str]]]) -> Iterator[Hit]:
+    """One hit per group of measurements a mask selects, worded by the group's ``words(rows)``."""
+    for mask, words in groups:
+        rows = np.flatnonzero(mask)
+        if rows.size:
+            yield Hit(
+                f"structures: {rows.size} measurement(s) {words(rows)}.",
+                layer="structures",
+                features=tuple(layer.ids[rows]),
+                geometry=_where(layer, rows),
+            )
 
 
 @rule("structure-out-of-range", family="structures", severity="error", needs=("structures",))
@@ -270,15 +283,7 @@ def overturned_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[
         (np.isin(folded, sv.OVERTURNED_KINDS) & said_no,
          lambda rows: f"of kind overturned bedding are marked not overturned in '{col}'"),
     )
-    for mask, words in groups:
-        rows = np.flatnonzero(mask)
-        if rows.size:
-            yield Hit(
-                f"structures: {rows.size} measurement(s) {words(rows)}.",
-                layer="structures",
-                features=tuple(layer.ids[rows]),
-                geometry=_where(layer, rows),
-            )
+    yield from _grouped_hits(layer, groups)
 
 
 @rule("rake-inconsistent", family="structures", severity="warning", needs=("structures",))
@@ -321,18 +326,10 @@ def rake_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     linear = np.isin(_fold_all(kinds), LINEAR_KINDS)
     _, dip, _ = _numbers(layer, "dip_field")
     flat = np.zeros(len(rake), dtype=bool) if dip is None else (dip == 0.0)
-    for mask, words in (
+    yield from _grouped_hits(layer, (
         (has_rake & linear, lambda rows: f"have a rake but are linear ({', '.join(sorted({str(k) for k in kinds[rows]}))}); a rake needs a plane"),
         (has_rake & ~linear & flat, lambda rows: "have a rake on a horizontal plane (dip 0), which has no strike to measure it from"),
-    ):
-        rows = np.flatnonzero(mask)
-        if rows.size:
-            yield Hit(
-                f"structures: {rows.size} measurement(s) {words(rows)}.",
-                layer="structures",
-                features=tuple(layer.ids[rows]),
-                geometry=_where(layer, rows),
-            )
+    ))
 
 
 @rule("north-undeclared", family="structures", severity="notice", needs=("structures",))
