@@ -26,9 +26,19 @@ __all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "e
 
 
 def _round(v: float | None) -> float | None:
+    """A location to 1e-3 map units; see :func:`_measure` for sizes."""
     if v is None or not np.isfinite(v):
         return None
     return float(round(v, 3))
+
+
+def _measure(v: float | None) -> float | None:
+    """A size to 1e-3 from 1 up, and to three significant digits below 1 (a 1e-6 m² overlap stays 1e-6)."""
+    if v is None or not np.isfinite(v):
+        return None
+    if v == 0.0 or abs(v) >= 0.9995:
+        return float(round(v, 3))
+    return float(f"{v:.3g}")
 
 
 def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
@@ -49,7 +59,7 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
         features=tuple(str(f) for f in hit.features),
         x=_round(x),
         y=_round(y),
-        measure=_round(hit.measure) if hit.measure is not None else None,
+        measure=_measure(hit.measure),
         wkt=wkt,
     )
 

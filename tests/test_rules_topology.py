@@ -13,6 +13,8 @@ from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
+import pyproj
+import re
 import pytest
 import shapely
 from hypothesis import HealthCheck, Phase, example, given, settings
@@ -697,3 +699,78 @@ def test_grown_polygon_of_any_overlap_width_is_reported_once(n, seed, pick, e):
     inv = shapely.coverage_invalid_edges(bad.units.geometry.values, gap_width=smap.tolerance)  # GEOS
     assert set(_ids(bad)[~shapely.is_empty(inv)]) <= _named_by_gap_rules(report)
     _no_double_reports(report)
+
+
+# ---------------------------------------------------------------- measures on the ground in a geographic CRS
+
+WGS84 = pyproj.Geod(ellps="WGS84")  # reference: pyproj's Geod (geodesics on the WGS 84 ellipsoid, GeographicLib)
+
+
+def geodesic_area(geom) -> float:
+    return abs(WGS84.geometry_area_perimeter(geom)[0])
+
+
+def geodesic_across(lon0: float, lon1: float, lat: float) -> float:
+    return WGS84.inv(lon0, lat, lon1, lat)[2]
+
+
+def metres_in(message: str, before: str) -> float:
+    m = re.search(r"([0-9.e+-]+) m" + re.escape(before), message)
+    assert m, message
+    return float(m.group(1))
+
+
+def map_at_60n(tmp_path, name, units, codes):
+    from coverage_builders import line_frame
+    from builders import tiny_project
+
+    frame = gpd.GeoDataFrame({"unit": codes}, geometry=units, crs="EPSG:4326")
+    outline = LineString(shapely.union_all(units).exterior.coords)
+    lines = line_frame(("map-boundary", outline)).set_crs("EPSG:4326", allow_override=True)
+    return tiny_project(tmp_path, name=name, units=frame, lines=lines, manifest={"map": {"scale": 25000, "crs": "EPSG:4326"}})
+
+
+def test_areas_and_widths_at_60n_match_the_geodesic_values(tmp_path):
+    # 1:25 000 in EPSG:4326 at 60°N: a degree of longitude is about half a degree of latitude on the
+    # ground, so one metres-per-degree factor doubles east-west widths and areas.
+    overlap = box(10.01, 60.0, 10.0102, 60.01)  # A reaches 0.0002° (about 11 m) into B
+    hole = box(10.014, 60.004, 10.015, 60.0045)  # unmapped hole inside B
+    sliver = box(10.02, 60.0, 10.02015, 60.01)  # C: about 8.4 m wide, under the 12.5 m legible at 1:25 000
+    units = [
+        box(10.0, 60.0, 10.0102, 60.01),
+        box(10.01, 60.0, 10.02, 60.01).difference(hole),
+        sliver,
+        box(10.02015, 60.0, 10.03, 60.01),
+    ]
+    root = map_at_60n(tmp_path, "geo60", units, ["A", "B", "C", "D"])
+    report = archivist.check(root, only=TOPOLOGY)
+    by_rule = {}
+    for f in report.findings:
+        by_rule.setdefault(f.rule, []).append(f)
+    assert sorted(by_rule) == ["unit-gap", "unit-overlap", "unit-sliver"], [f.message for f in report.findings]
+
+    (ov,) = by_rule["unit-overlap"]
+    expect_area = geodesic_area(overlap)  # reference: Geod.geometry_area_perimeter, WGS 84
+    assert ov.measure == pytest.approx(expect_area, rel=0.01)
+    assert metres_in(ov.message, "² (") == pytest.approx(expect_area, rel=0.01)
+    expect_width = geodesic_across(10.01, 10.0102, 60.005)  # reference: Geod.inv, WGS 84
+    assert metres_in(ov.message, " wide") == pytest.approx(expect_width, rel=0.01)
+
+    (gap,) = by_rule["unit-gap"]
+    assert gap.measure == pytest.approx(geodesic_area(hole), rel=0.01)  # reference: Geod.geometry_area_perimeter
+    # the hole is 0.001° x 0.0005°: its inscribed circle spans the north-south 0.0005° (about 56 m)
+    assert metres_in(gap.message, " wide") == pytest.approx(WGS84.inv(10.0145, 60.004, 10.0145, 60.0045)[2], rel=0.01)
+
+    (sl,) = by_rule["unit-sliver"]
+    assert sl.measure == pytest.approx(geodesic_area(sliver), rel=0.01)  # reference: Geod.geometry_area_perimeter
+    assert metres_in(sl.message, " wide") == pytest.approx(geodesic_across(10.02, 10.02015, 60.005), rel=0.01)  # Geod.inv
+
+
+def test_edge_misfit_at_60n_is_measured_on_the_ground(tmp_path):
+    # A reaches 0.00001° of longitude (about 0.56 m at 60°N, under the 2.5 m tolerance) into B along 0.01° of latitude
+    units = [box(10.0, 60.0, 10.01001, 60.01), box(10.01, 60.0, 10.02, 60.01)]
+    root = map_at_60n(tmp_path, "geo60mis", units, ["A", "B"])
+    (mm,) = found(root, "unit-edge-mismatch")
+    along = WGS84.inv(10.01, 60.0, 10.01, 60.01)[2]  # reference: Geod.inv, WGS 84 (a meridian arc)
+    assert mm.measure == pytest.approx(along, rel=0.01)
+    assert metres_in(mm.message, " apart") == pytest.approx(geodesic_across(10.01, 10.01001, 60.005), rel=0.01)  # Geod.inv

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Iterable, Sequence
+from typing import TYPE_CHECKING, Any, Iterable, Sequence
 
 if TYPE_CHECKING:
     import numpy as np
@@ -15,8 +15,15 @@ ABOVE = 1.0 + 1e-6
 
 
 def num(value: float) -> str:
-    """A size as printed in messages: two decimals."""
-    return f"{value:.2f}"
+    """A size as printed in messages: two decimals, or three significant digits below 0.1.
+
+    A small measure keeps its digits (``0.0512``, ``1e-06``) instead of
+    printing as ``0.05`` or ``0.00``; exactly zero prints as ``0.00``.
+    """
+    v = float(value)
+    if v == 0.0 or not (abs(v) < 0.0995):
+        return f"{v:.2f}"
+    return f"{v:.3g}"
 
 
 def join_words(words: Iterable[str]) -> str:
@@ -38,6 +45,87 @@ def metres_per_unit(project: MapProject) -> float:
         return 111_320.0
     factor = crs.axis_info[0].unit_conversion_factor if crs.axis_info else None
     return float(factor) if factor else 1.0
+
+
+class Ground:
+    """Ground measures (metres, square metres) of geometries in the project's CRS.
+
+    In a projected CRS a map unit is a fixed number of metres (``factor``).
+    In a geographic CRS degrees are not a length: geometries are projected to
+    a Lambert azimuthal equal-area projection centred on the map, on the
+    CRS's own ellipsoid (pyproj), where areas are true and lengths and widths
+    are within a few parts per million over a map tens of km across (the
+    scale error grows with the square of the distance from the centre).
+    """
+
+    def __init__(self, factor: float, to_local: Any = None) -> None:
+        self.factor = factor
+        self._to_local = to_local
+
+    @property
+    def geographic(self) -> bool:
+        return self._to_local is not None
+
+    def local(self, geoms: Any) -> Any:
+        """The geometries with metre coordinates (geographic CRS) or unchanged (projected)."""
+        if self._to_local is None:
+            return geoms
+        import numpy as np
+        import shapely
+
+        tr = self._to_local
+
+        def fwd(xy: np.ndarray) -> np.ndarray:
+            x, y = tr.transform(xy[:, 0], xy[:, 1])
+            return np.column_stack([x, y])
+
+        return shapely.transform(geoms, fwd)
+
+    def areas(self, geoms: Any) -> Any:
+        """Area in m² of each geometry."""
+        import shapely
+
+        f = self.factor
+        return shapely.area(self.local(geoms)) * (f * f)
+
+    def lengths(self, geoms: Any) -> Any:
+        """Length in m of each geometry."""
+        import shapely
+
+        return shapely.length(self.local(geoms)) * self.factor
+
+    def widths(self, geoms: Any, in_map_units: Any) -> Any:
+        """Width in m (largest inscribed circle) of each polygon; ``in_map_units`` its width already known in map units."""
+        import numpy as np
+
+        if self._to_local is None:
+            return np.asarray(in_map_units, dtype=float) * self.factor
+        from .arrays import widths
+
+        g = np.atleast_1d(np.asarray(self.local(geoms), dtype=object))
+        return widths(g, 0.0)
+
+
+def ground(project: MapProject, near: Any = None) -> Ground:
+    """How to measure the project's geometries on the ground; ``near`` (geometries) places the local projection."""
+    crs = project.crs
+    if crs is None and "units" in project.layers:
+        crs = project.layers["units"].crs
+    if crs is None or not crs.is_geographic:
+        return Ground(metres_per_unit(project))
+    import numpy as np
+    import pyproj
+    import shapely
+    from pyproj.crs import ProjectedCRS
+    from pyproj.crs.coordinate_operation import LambertAzimuthalEqualAreaConversion
+
+    if near is None and "units" in project.layers:
+        near = project.layers["units"].geometry
+    box = shapely.total_bounds(near) if near is not None else np.full(4, np.nan)
+    lon, lat = (0.0, 0.0) if not np.all(np.isfinite(box)) else ((box[0] + box[2]) / 2, (box[1] + box[3]) / 2)
+    lon, lat = (lon + 180.0) % 360.0 - 180.0, min(max(lat, -90.0), 90.0)
+    local = ProjectedCRS(LambertAzimuthalEqualAreaConversion(lat, lon), geodetic_crs=crs.geodetic_crs)
+    return Ground(1.0, pyproj.Transformer.from_crs(crs, local, always_xy=True))
 
 
 def lon_words(v: float) -> str:

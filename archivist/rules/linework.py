@@ -47,7 +47,7 @@ from ..analysis.arrays import (
     text_values,
 )
 from ..analysis.lines import LineNetwork, norm_kind
-from ..analysis.messages import ABOVE, metres_per_unit, num
+from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
 from ..analysis.nearness import (
     connected_pieces,
     off_unit_boundaries,
@@ -105,6 +105,7 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     cov = ctx.coverage()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
+    g = ground(project, units.geoms)
     se = ctx.segment_edges()
     roles = net.seg_roles
     on = se >= 0
@@ -134,7 +135,7 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             role = net.roles[f]
             if role == "fault" and u >= 0:
                 continue
-            length = float(shapely.length(piece) * m)
+            length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
             if what == "edge":
                 text = f"{net.label(f)} runs {num(length)} m off the map's outer edge."
             elif u >= 0:
@@ -192,12 +193,13 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     key = a * (len(units) + 1) + (b + 1)
     uk, inv = np.unique(key, return_inverse=True)
     stretches = merge_by_group(edges.lines(idx), inv, len(uk))
+    g = ground(project, units.geoms)
     if len(net.geoms):
         stretches = uncovered(stretches, net.geoms, tol, net.tree)
     pieces, k = linear_parts(stretches, tol * ABOVE)
     for piece, kk in zip(pieces, k):
         ua, ub = int(uk[kk] // (len(units) + 1)), int(uk[kk] % (len(units) + 1)) - 1
-        length = float(shapely.length(piece) * m)
+        length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
         if ub >= 0:
             text = f"No line draws {num(length)} m of the boundary between units {units.labels([ua, ub])}."
             feats: tuple[str, ...] = (units.ids[ua], units.ids[ub])
@@ -248,7 +250,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """
     net = ctx.line_network()
     tol = float(ctx.tolerance)
-    m = metres_per_unit(project)
+    g = ground(project, net.geoms)
     sel_parts = np.flatnonzero(np.isin(net.part_roles, ("contact", "boundary")) & (np.diff(net.part_off) >= 2))
     if not len(sel_parts):
         return
@@ -296,10 +298,10 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
         if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
             continue
-        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, m)
+        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g)
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, m: float) -> Hit:
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground) -> Hit:
     """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
     nearest, gap, name = None, np.inf, None
     xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
@@ -329,11 +331,13 @@ def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, ed
         free = float(along.min()) if at_start else float(length - along.max())
         if free < length - max(tol, 0.0):
             piece = substring(part, 0, free) if at_start else substring(part, length - free, length)
-            return Hit(f"{what} ends free {num(free * m)} m past the line it crosses ({name}).", layer="lines",
-                       features=(net.ids[f],), measure=free * m, geometry=piece, x=pt.x, y=pt.y)
+            free_m = float(g.lengths(piece)) if g.geographic else free * g.factor
+            return Hit(f"{what} ends free {num(free_m)} m past the line it crosses ({name}).", layer="lines",
+                       features=(net.ids[f],), measure=free_m, geometry=piece, x=pt.x, y=pt.y)
     link = shapely.shortest_line(pt, nearest)
-    return Hit(f"{what} ends free, {num(gap * m)} m short of the nearest line ({name}).", layer="lines",
-               features=(net.ids[f],), measure=gap * m, geometry=link, x=pt.x, y=pt.y)
+    gap_m = float(g.lengths(link)) if g.geographic else gap * g.factor
+    return Hit(f"{what} ends free, {num(gap_m)} m short of the nearest line ({name}).", layer="lines",
+               features=(net.ids[f],), measure=gap_m, geometry=link, x=pt.x, y=pt.y)
 
 
 @rule("line-same-unit-contact", family="linework", severity="warning", needs=("lines", "units"))

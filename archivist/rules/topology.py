@@ -17,7 +17,7 @@ import shapely
 
 from ..analysis.arrays import merge_by_group, text_values, widths
 from ..analysis.coverage import GAPS, MISFITS, OUTSIDE, OVERLAPS
-from ..analysis.messages import ABOVE, metres_per_unit, num
+from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
 from ..analysis.nearness import uncovered
 from ..analysis.polygons import sliver_thresholds
 from ..model import Hit, Severity
@@ -56,6 +56,39 @@ def not_processed(ctx: CheckContext, aspect: str) -> Iterator[Hit]:
             geometry=box,
             severity=Severity.ERROR,
         )
+
+
+def piece_measures(g: Ground, pieces: list[Any]) -> tuple[np.ndarray, np.ndarray]:
+    """Ground area (m²) and width (m) of each piece: on the ellipsoid's local projection in a geographic CRS."""
+    area = np.array([p.area for p in pieces], dtype=float)
+    width = np.array([p.width for p in pieces], dtype=float)
+    if not g.geographic or not pieces:
+        return area * (g.factor * g.factor), width * g.factor
+    geoms = np.array([p.geom for p in pieces], dtype=object)
+    return g.areas(geoms), g.widths(geoms, width)
+
+
+def mismatch_scales(g: Ground, mms: tuple[Any, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Metres per map unit along each misfit's linework, and across it.
+
+    Along: ground length over map length of the linework. Across: the local
+    area scale (a small square at the linework's centre) over the scale
+    along, which is the scale of the distance between two lines running that
+    way (the map from map units to metres is linear over so small a piece).
+    """
+    n = len(mms)
+    if not g.geographic or not n:
+        return np.full(n, g.factor), np.full(n, g.factor)
+    lines = np.array([mm.geometry for mm in mms], dtype=object)
+    flat = shapely.length(lines)
+    along = np.where(flat > 0, g.lengths(lines) / np.where(flat > 0, flat, 1.0), np.nan)
+    c = shapely.get_coordinates(shapely.centroid(lines))
+    d = 1e-4
+    squares = shapely.box(c[:, 0] - d, c[:, 1] - d, c[:, 0] + d, c[:, 1] + d)
+    area_scale = g.areas(squares) / (4 * d * d)
+    fallback = np.sqrt(area_scale)  # a misfit with no length: the mean scale
+    along = np.where(np.isfinite(along), along, fallback)
+    return along, area_scale / along
 
 
 # ---------------------------------------------------------------- rules
@@ -101,14 +134,12 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """
     units = ctx.units()
     cov = ctx.coverage()
-    m = metres_per_unit(project)
-    for piece in cov.overlaps:
-        if piece.width <= cov.tol * ABOVE:
-            continue
+    pieces = [p for p in cov.overlaps if not p.width <= cov.tol * ABOVE]
+    areas, wides = piece_measures(ground(project, units.geoms), pieces)
+    for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
         a, b = piece.units
-        area = piece.area * m * m
         yield Hit(
-            f"Units {units.labels([a, b])} overlap by {num(area)} m² (up to {num(piece.width * m)} m wide).",
+            f"Units {units.labels([a, b])} overlap by {num(area)} m² (up to {num(wide)} m wide).",
             layer="units",
             features=(units.ids[a], units.ids[b]),
             measure=area,
@@ -164,16 +195,14 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """
     units = ctx.units()
     cov = ctx.coverage()
-    m = metres_per_unit(project)
-    for piece in cov.gaps:
-        if piece.width <= cov.tol * ABOVE and (len(piece.units) > 1 or piece.on_frame):
-            continue
-        area = piece.area * m * m
+    pieces = [p for p in cov.gaps if not (p.width <= cov.tol * ABOVE and (len(p.units) > 1 or p.on_frame))]
+    areas, wides = piece_measures(ground(project, units.geoms), pieces)
+    for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
         where = f"between units {units.labels(piece.units)}" if len(piece.units) > 1 else (
             f"next to unit {units.label(piece.units[0])}" if piece.units else "with no unit around it")
         edge = " at the map edge" if piece.at_extent else ""
         yield Hit(
-            f"Gap of {num(area)} m² (up to {num(piece.width * m)} m wide) inside the map extent{edge}, {where}.",
+            f"Gap of {num(area)} m² (up to {num(wide)} m wide) inside the map extent{edge}, {where}.",
             layer="units",
             features=tuple(units.ids[k] for k in piece.units),
             measure=area,
@@ -201,6 +230,12 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     within r of an edge or a vertex, so its area is at most perimeter x r plus
     half a disc of radius r per vertex; a polygon with more area than that
     bound at r = half the width is wide enough and skipped.
+    In a geographic CRS the area and width are measured in metres, in a
+    Lambert azimuthal equal-area projection of the CRS's own ellipsoid
+    centred on the map (pyproj), never with one metres-per-degree factor: at
+    60°N a degree of longitude is half a degree of latitude on the ground.
+    Not covered there: the tolerance of the other topology rules is still
+    one length in degrees.
 
     Why it matters
     --------------
@@ -227,6 +262,11 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     amin, wmin = sliver_thresholds(project)
     m = metres_per_unit(project)
     geoms = units.geoms
+    g = ground(project, geoms)
+    if g.geographic:  # judged in real metres, on the ellipsoid's local projection
+        geoms = g.local(geoms)
+        amin, wmin = amin * m * m, wmin * m
+        m = 1.0
     area = shapely.area(geoms)
     small = area < amin
     perim = shapely.length(geoms)
@@ -252,7 +292,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             layer="units",
             features=(units.ids[k],),
             measure=float(area[k] * m * m),
-            geometry=geoms[k],
+            geometry=units.geoms[k],
         )
 
 
@@ -311,16 +351,18 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     misaligned, up to 0.02 m apart."
     """
     units = ctx.units()
-    m = metres_per_unit(project)
-    for mm in ctx.mismatches():
+    mms = ctx.mismatches()
+    along, across = mismatch_scales(ground(project, units.geoms), mms)
+    for mm, sa, sx in zip(mms, along.tolist(), across.tolist()):
         if mm.apart is None:
             how = "the edges coincide but their vertices are not shared"
-        elif mm.apart * m < 0.005:
+        elif mm.apart * sx < 0.005:
             how = "less than 0.01 m apart"
         else:
-            how = f"up to {num(mm.apart * m)} m apart"
-        text = f"Units {units.labels(mm.units)} do not share their common edge exactly: {num(mm.length * m)} m of it is misaligned, {how}."
-        yield Hit(text, layer="units", features=tuple(units.ids[k] for k in mm.units), measure=mm.length * m, geometry=mm.geometry)
+            how = f"up to {num(mm.apart * sx)} m apart"
+        length = mm.length * sa
+        text = f"Units {units.labels(mm.units)} do not share their common edge exactly: {num(length)} m of it is misaligned, {how}."
+        yield Hit(text, layer="units", features=tuple(units.ids[k] for k in mm.units), measure=length, geometry=mm.geometry)
     yield from not_processed(ctx, MISFITS)
 
 
@@ -359,7 +401,6 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     if units.codes is None or not len(units):
         return
     edges = ctx.edges()
-    m = metres_per_unit(project)
     tol = float(ctx.tolerance)
     codes = units.codes
     sel = np.flatnonzero(edges.twin)
@@ -391,14 +432,15 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     if faults is not None and len(faults):
         geoms = uncovered(geoms, faults, tol)
     lengths = shapely.length(geoms)
-    for (a, b), g, length in zip(keys, geoms, lengths):
+    metres = ground(project, units.geoms).lengths(geoms)
+    for (a, b), g, length, ground_length in zip(keys, geoms, lengths, metres):
         if length <= tol * ABOVE:
             continue
         yield Hit(
-            f"Units {units.ids[a]} and {units.ids[b]} are both {units.code(a)} and share {num(length * m)} m of boundary with no fault along it.",
+            f"Units {units.ids[a]} and {units.ids[b]} are both {units.code(a)} and share {num(ground_length)} m of boundary with no fault along it.",
             layer="units",
             features=(units.ids[a], units.ids[b]),
-            measure=float(length * m),
+            measure=float(ground_length),
             geometry=g,
         )
 
@@ -438,14 +480,12 @@ def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     """
     units = ctx.units()
     cov = ctx.coverage()
-    m = metres_per_unit(project)
-    for piece in cov.outside:
-        if piece.width <= cov.tol * ABOVE:
-            continue
+    pieces = [p for p in cov.outside if not p.width <= cov.tol * ABOVE]
+    areas, wides = piece_measures(ground(project, units.geoms), pieces)
+    for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
         (k,) = piece.units
-        area = piece.area * m * m
         yield Hit(
-            f"Unit {units.label(k)} has {num(area)} m² outside the map extent (up to {num(piece.width * m)} m wide).",
+            f"Unit {units.label(k)} has {num(area)} m² outside the map extent (up to {num(wide)} m wide).",
             layer="units",
             features=(units.ids[k],),
             measure=area,
@@ -487,15 +527,16 @@ def unit_code_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     geoms = layer.geometry
     blank = np.array([not t.strip() for t in texts], dtype=bool)[k]
     name = layer.field("unit_field")
-    m = metres_per_unit(project)
-    for row in np.flatnonzero(blank):
+    rows = np.flatnonzero(blank)
+    areas = ground(project, ctx.units().geoms).areas(geoms[rows])
+    for row, area in zip(rows, areas.tolist()):
         g = geoms[row]
         has = g is not None and not shapely.is_empty(g)
         yield Hit(
             f"Unit polygon {layer.ids[row]} has no unit code (field '{name}')"
-            + (f"; it covers {num(shapely.area(g) * m * m)} m²." if has else "."),
+            + (f"; it covers {num(area)} m²." if has else "."),
             layer="units",
             features=(str(layer.ids[row]),),
-            measure=float(shapely.area(g) * m * m) if has else None,
+            measure=float(area) if has else None,
             geometry=g if has else None,
         )
