@@ -225,19 +225,11 @@ def _quiet_remove(path: Path) -> None:
 
 
 @contextmanager
-def staging_dir(target: Path) -> Iterator[Path]:
-    """A fresh hidden sibling folder of ``target``; removed on any exit unless it was moved into place.
-
-    An OS error in making or filling it is an :class:`OutputError` naming ``target``.
-    """
-    target = Path(target)
-    tmp = target.parent / _staging_name(target.name, "part")
+def _staged(target: Path, tmp: Path) -> Iterator[None]:
+    """Around work on ``tmp``: an OS error about it becomes an :class:`OutputError` naming ``target``;
+    ``tmp`` is removed on any exit (after a successful move into place there is nothing left to remove)."""
     try:
-        tmp.mkdir()
-    except OSError as exc:
-        raise write_failed(target, exc) from None
-    try:
-        yield tmp
+        yield
     except OutputError:
         raise  # already one line naming its output
     except OSError as exc:
@@ -249,6 +241,22 @@ def staging_dir(target: Path) -> Iterator[Path]:
 
 
 @contextmanager
+def staging_dir(target: Path) -> Iterator[Path]:
+    """A fresh hidden sibling folder of ``target``; removed on any exit unless it was moved into place.
+
+    An OS error in making or filling it is an :class:`OutputError` naming ``target``.
+    """
+    target = Path(target)
+    tmp = target.parent / _staging_name(target.name, "part")
+    try:
+        tmp.mkdir()
+    except OSError as exc:
+        raise write_failed(target, exc) from None
+    with _staged(target, tmp):
+        yield tmp
+
+
+@contextmanager
 def staging_file(target: Path) -> Iterator[Path]:
     """A hidden sibling path for the file ``target``; removed on any exit unless it was moved into place.
 
@@ -257,16 +265,8 @@ def staging_file(target: Path) -> Iterator[Path]:
     """
     target = Path(target)
     tmp = target.parent / _staging_name(target.name, "part")
-    try:
+    with _staged(target, tmp):
         yield tmp
-    except OutputError:
-        raise  # already one line naming its output
-    except OSError as exc:
-        if not _own_failure(exc, tmp):
-            raise
-        raise write_failed(target, exc) from None
-    finally:
-        _quiet_remove(tmp)
 
 
 def move_into_place(tmp: Path, target: Path) -> None:

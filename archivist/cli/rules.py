@@ -7,7 +7,6 @@ import json
 import click
 
 from .. import registry
-from ..printable import printable
 from .errors import CommandFailed, handle_errors
 
 

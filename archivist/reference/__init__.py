@@ -111,7 +111,7 @@ class ChartVersionError(ValueError):
     """A chart version archivist does not ship."""
 
 
-def _normalise(text: str) -> str:
+def fold_name(text: str) -> str:
     """Case, accents and British spellings folded: "Palaeogene" -> "paleogene", "Viséan" -> "visean"."""
     s = unicodedata.normalize("NFKD", str(text))
     s = "".join(ch for ch in s if not unicodedata.combining(ch))
@@ -223,8 +223,8 @@ def _subseries(units: dict[str, Interval]) -> dict[str, Interval]:
 
 def _label_keys(text: str) -> list[str]:
     """Index forms of one chart label: as written, without a bracketed gloss, with hyphens as spaces."""
-    base = _normalise(text)
-    keys = [base, _normalise(re.sub(r"\s*\(.*?\)\s*", " ", text)), base.replace("-", " ")]
+    base = fold_name(text)
+    keys = [base, fold_name(re.sub(r"\s*\(.*?\)\s*", " ", text)), base.replace("-", " ")]
     return [k for k in dict.fromkeys(keys) if k and k not in _MODIFIERS]
 
 
@@ -232,9 +232,9 @@ def _label_keys(text: str) -> list[str]:
 def _by_name(version: str = DEFAULT_CHART) -> dict[str, Interval]:
     """Name index: the chart's names first, then its English labels, then every other language's."""
     units = intervals(version)
-    out: dict[str, Interval] = {_normalise(i.name): i for i in units}
+    out: dict[str, Interval] = {fold_name(i.name): i for i in units}
     for name, unit in _subseries({i.name: i for i in units}).items():
-        out.setdefault(_normalise(name), unit)
+        out.setdefault(fold_name(name), unit)
     # Then the labels the other shipped versions give for the same unit (same identifier): a
     # version that leaves a unit unlabelled (2024-12 gives no label for "Lower Jurassic") still
     # knows its names in other languages.
@@ -255,12 +255,12 @@ def lookup(name: str, chart: str | None = None) -> Interval | None:
     """The chart unit called ``name`` in any language the chart gives (case, accents and
     "palaeo"/"paleo" ignored; Early/Late for Lower/Upper of formal series), or None."""
     version = check_version(chart)
-    norm = _normalise(name)
+    norm = fold_name(name)
     hit = _by_name(version).get(norm)
     if hit is None:
         words = norm.split(" ")
         if len(words) > 1 and words[0] in _MODIFIERS:
-            hit = _by_name(version).get(_normalise(f"{_MODIFIERS[words[0]]} {' '.join(words[1:])}"))
+            hit = _by_name(version).get(fold_name(f"{_MODIFIERS[words[0]]} {' '.join(words[1:])}"))
     return hit
 
 

@@ -40,7 +40,6 @@ from __future__ import annotations
 
 import difflib
 import re
-import unicodedata
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -207,13 +206,7 @@ class _Piece:
     note: str = ""
 
 
-def fold(text: str) -> str:
-    """Case, accents, spacing and British spellings folded: "Palaeogene" -> "paleogene", "Viséan" -> "visean"."""
-    s = unicodedata.normalize("NFKD", str(text))
-    s = "".join(ch for ch in s if not unicodedata.combining(ch))
-    s = s.casefold().replace("\u00a0", " ")
-    s = s.replace("palaeo", "paleo").replace("archaean", "archean")
-    return " ".join(s.split())
+fold = _reference.fold_name  # the chart reader's own folding: one rule for both sides of a lookup
 
 
 def _formal(unit: Any, label: str) -> _Piece:
