@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import re
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 from typing import Any
@@ -82,13 +82,22 @@ class Layer:
 
 @dataclass
 class Table:
-    """A non-spatial table (legend, analyses) with its role and source."""
+    """A non-spatial table (legend, analyses) with its role and source.
+
+    For analyses, ``data`` holds the sample rows only: the rows under the
+    header that describe the columns (units, method, detection limits) and
+    the quality-control rows are kept aside (``row_units``, ``qc``), and
+    sample ids are restored as ``id_width``/``id_prefix`` say; the lab's
+    file itself is never changed.
+    """
 
     role: str
     path: Path
     source: str
     data: TableData
     spec: dict[str, Any]
+    row_units: dict[str, str] = field(default_factory=dict)  # column -> unit as written in the units row
+    qc: pd.DataFrame | None = None  # quality-control rows, indexed by their row in the file
 
     @property
     def frame(self) -> pd.DataFrame:
@@ -373,17 +382,40 @@ def _finish_layer(role, path, source, frame, spec, problems, *, attributes: bool
     return Layer(role, path, source, frame, ids, spec)
 
 
-def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit]) -> Table | None:
+def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit], notes: list[str] | None = None) -> Table | None:
+    """Read a legend or analyses table as the manifest describes it; what was found about its layout goes to ``notes``.
+
+    The header is the first non-empty row, the row ``header_row`` names, or
+    the one row near the top that holds the table's column names (legend
+    spellings, analyte names) when the first rows are notes. Analyses also
+    lose their units and other column-information rows, their
+    quality-control rows and sheets, and get their ids restored
+    (:func:`_analyses_rows`).
+    """
+    from .vocab import analytes as va
+    from .vocab import legend as vl
+
+    notes = notes if notes is not None else []
     rel = spec["path"]
     path = _resolve(root, rel)
     if not path.exists():
         problems.append(Hit(f"tables.{role}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
         return None
-    data, hits = read_table(path, rel, spec.get("sheet"))
+    header_row = spec.get("header_row") if isinstance(spec.get("header_row"), int) else None
+    test = va.analyses_header_test(spec.get("sample_field")) if role == "analyses" else vl.header_test(spec)
+    skip = va.qc_sheet if role == "analyses" and not spec.get("sheet") else None
+    data, hits = read_table(path, rel, spec.get("sheet"), header_row=header_row, looks_like_header=test, skip_sheet=skip)
     problems.extend(hits)
     if data is None:
         return None
     source = f"{rel}, sheet '{data.sheet}'" if data.sheet else rel
+    notes.extend(_header_notes(role, source, data))
+    if skip is not None and data.sheet is not None:
+        others = [n for n in data.sheets if n != data.sheet and va.qc_sheet(n)]
+        if others:
+            names = ", ".join(f"'{n}'" for n in others)
+            notes.append(f"{rel}: sheet{'s' if len(others) > 1 else ''} {names} (quality control) not read as samples; "
+                         f"the analyses are read from sheet '{data.sheet}' (name another with [tables.analyses] sheet).")
     for key, col in spec.items():
         if key.endswith("_field") and col not in data.frame.columns:
             problems.append(
@@ -393,7 +425,113 @@ def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
                     rule="field-missing",
                 )
             )
-    return Table(role, path, source, data, spec)
+    if role != "analyses":
+        return Table(role, path, source, data, spec)
+    return _analyses_rows(Table(role, path, source, data, spec), problems, notes)
+
+
+def _header_notes(role: str, source: str, data: TableData) -> list[str]:
+    """What the report says about where a table's header was taken from, when it was not plainly row 1."""
+    key = f"[tables.{role}] header_row"
+    if data.header_how == "manifest":
+        return [f"{source}: header read from row {data.header_row}, as {key} says; the rows above it are not read."]
+    if data.header_how == "found":
+        above = "the row above it is" if data.header_row == 2 else f"the {data.header_row - 1} rows above it are"
+        return [f"{source}: header read from row {data.header_row}, found by its column names; {above} not read "
+                f"(set {key} to choose another row)."]
+    if data.header_candidates:
+        rows = ", ".join(map(str, data.header_candidates))
+        return [f"{source}: rows {rows} each look like a header, so none was chosen and row {data.header_row} was read as "
+                f"the header; set {key} to the row of the header."]
+    return []
+
+
+def _rows_text(lines: list[int], limit: int = 10) -> str:
+    shown = ", ".join(map(str, lines[:limit]))
+    return shown + (f" and {len(lines) - limit} more" if len(lines) > limit else "")
+
+
+def _analyses_rows(table: Table, problems: list[Hit], notes: list[str]) -> Table:
+    """The analyses table with only its sample rows, and its ids restored as the manifest says.
+
+    - Column-information rows directly under the header (a units row, a
+      method row, a detection-limit row) are taken out; the units row gives
+      each analyte column its unit (:func:`archivist.vocab.analytes.info_rows`).
+    - Rows whose sample id matches ``qc_pattern`` (default
+      :data:`archivist.vocab.analytes.QC_PATTERN`, common practice) are kept
+      aside in ``table.qc``.
+    - With ``id_width``, an id made only of digits gets leading zeros up to
+      that width; with ``id_prefix``, that text goes before it. Only ids made
+      only of digits change, never silently: the report's notes count them.
+    """
+    from .vocab import analytes as va
+
+    spec, data = table.spec, table.data
+    frame = data.frame
+    lines = list(data.all_lines())
+    sample_col = spec.get("sample_field") if spec.get("sample_field") in frame.columns else None
+    found = [a.column for a in va.analytes(table)]
+    labels = ([sample_col] if sample_col else []) + [str(c) for c in frame.columns[:1]]
+    info = va.info_rows(frame, found, labels)
+    keep = np.ones(len(frame), dtype=bool)
+    keep[: info.count] = False
+    if info.count:
+        units = ", ".join(dict.fromkeys(info.units.values()))
+        kinds = [f"units ({units})" if k == "units" and units else k for k in dict.fromkeys(info.labels)]
+        what = ", ".join(kinds[:-1]) + " and " + kinds[-1] if len(kinds) > 1 else kinds[0]
+        rows = _rows_text(lines[: info.count])
+        notes.append(f"{table.source}: row{'s' if info.count > 1 else ''} {rows} under the header read as the {what} "
+                     "of the columns, not as samples.")
+    qc = np.zeros(len(frame), dtype=bool)
+    if sample_col is not None:
+        ids = text_column(frame[sample_col])
+        pattern = spec.get("qc_pattern")
+        given = isinstance(pattern, str)
+        try:
+            qc = va.qc_rows(ids, pattern if isinstance(pattern, str) else va.QC_PATTERN) & keep
+        except re.error as exc:
+            problems.append(Hit(f"tables.analyses.qc_pattern: '{pattern}' is not a regular expression ({exc}).",
+                                layer="analyses", rule="manifest-invalid"))
+        if qc.any():
+            picked = np.flatnonzero(qc)
+            examples = ", ".join(dict.fromkeys(str(ids[i]).strip() for i in picked))
+            how = "as [tables.analyses] qc_pattern says" if given else (
+                "by the default qc_pattern (blanks, duplicates, standards, reference materials); "
+                "set [tables.analyses] qc_pattern to change it")
+            notes.append(f"{table.source}: {len(picked)} quality-control row{'s' if len(picked) > 1 else ''} "
+                         f"({_trim(examples)}) in row{'s' if len(picked) > 1 else ''} {_rows_text([lines[i] for i in picked])} "
+                         f"not read as samples, {how}.")
+    taken = keep & ~qc
+    out = frame[taken].reset_index(drop=True)
+    width, prefix = spec.get("id_width"), spec.get("id_prefix")
+    if sample_col is not None and (isinstance(width, int) or isinstance(prefix, str)):
+        ids = text_column(out[sample_col])
+        stripped = np.array([i.strip() for i in ids], dtype=object)
+        digits = np.array([i.isdigit() and i.isascii() for i in stripped], dtype=bool)
+        fixed = stripped.copy()
+        if isinstance(width, int):
+            fixed[digits] = [i.zfill(width) for i in stripped[digits]]
+        if isinstance(prefix, str):
+            fixed[digits] = [prefix + i for i in fixed[digits]]
+        changed = digits & (fixed != ids)
+        if changed.any():
+            first = int(np.flatnonzero(changed)[0])
+            out[sample_col] = np.where(changed, fixed, out[sample_col].to_numpy(dtype=object))
+            setting = " and ".join(k for k, v in (("id_width", width), ("id_prefix", prefix)) if v is not None)
+            notes.append(f"{table.source}: {int(changed.sum())} sample id{'s' if changed.sum() > 1 else ''} made only of digits "
+                         f"restored as [tables.analyses] {setting} say{'s' if ' and ' not in setting else ''} "
+                         f"(e.g. '{ids[first]}' read as '{fixed[first]}').")
+    if taken.all() and out.equals(frame):
+        return table
+    table.data = replace(data, frame=out, lines=tuple(int(x) for x in np.asarray(lines)[taken]))
+    table.row_units = info.units
+    if qc.any():
+        table.qc = frame[qc].set_axis(pd.Index(np.asarray(lines)[qc], name="row"))
+    return table
+
+
+def _trim(text: str, limit: int = 80) -> str:
+    return text if len(text) <= limit else text[: limit - 1].rstrip(", ") + "…"
 
 
 def _label(spec: dict[str, Any]) -> str:
@@ -470,7 +608,7 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
         spec = manifest["tables"].get(role)
         if isinstance(spec, dict) and isinstance(spec.get("path"), str):
             with progress.step(f"reading {_label(spec)}"):
-                table = load_table(root, role, spec, problems)
+                table = load_table(root, role, spec, problems, notes)
             if table is not None:
                 tables[role] = table
     files = sorted({lay.path for lay in layers.values()} | {t.path for t in tables.values()})

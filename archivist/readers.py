@@ -13,7 +13,7 @@ import io
 import math
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -23,6 +23,12 @@ from .model import Hit
 
 VECTOR_SUFFIXES = {".gpkg", ".shp", ".geojson", ".json", ".fgb", ".gdb", ".gml", ".kml", ".sqlite"}
 TABLE_SUFFIXES = {".csv", ".tsv", ".txt", ".xlsx", ".xlsm"}
+# How far down a sheet a header row is looked for when the first rows are a block of
+# notes (a laboratory's name, job number, dates) above it.
+HEADER_SEARCH_ROWS = 60
+
+HeaderTest = Callable[[Sequence[Any]], bool]
+"""Says whether a row of cells is the table's header (e.g. it holds analyte names)."""
 
 
 @dataclass(frozen=True)
@@ -35,12 +41,19 @@ class TableData:
     header_row: int  # 1-based row number of the header in the file or sheet
     letters: dict[str, str]  # column name -> spreadsheet column letter (XLSX only)
     lines: tuple[int, ...] = ()  # 1-based row in the file of each data row, where blank rows were skipped
+    header_how: str = "first"  # "first" (first non-empty row), "manifest" (header_row) or "found" (by its names)
+    header_candidates: tuple[int, ...] = ()  # rows that looked like a header when more than one did
+    sheets: tuple[str, ...] = ()  # every sheet of the workbook (XLSX only)
 
     def line(self, row: int) -> int:
         """The 1-based row in the file or sheet of data row ``row`` (0-based)."""
         if 0 <= row < len(self.lines):
             return self.lines[row]
         return self.header_row + 1 + row
+
+    def all_lines(self) -> tuple[int, ...]:
+        """The 1-based row in the file of every data row."""
+        return tuple(self.line(i) for i in range(len(self.frame)))
 
     def cell(self, row: int, column: str) -> str:
         """Where the cell of data row ``row`` (0-based) and ``column`` lives, as a mapper would name it."""
@@ -91,8 +104,49 @@ def decode_utf8(raw: bytes, name: str) -> tuple[str | None, Hit | None]:
         )
 
 
-def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
+def _empty_cell(value: Any) -> bool:
+    return value is None or (isinstance(value, str) and not value.strip())
+
+
+def choose_header(
+    rows: Sequence[Sequence[Any]], name: str, *, header_row: int | None = None, looks_like_header: HeaderTest | None = None
+) -> tuple[int | None, str, tuple[int, ...], Hit | None]:
+    """Which row of ``rows`` is the header: (0-based index or None when all are empty, how, candidates, problem).
+
+    ``header_row`` (1-based, from the manifest) wins. Otherwise the first
+    non-empty row is the header, unless ``looks_like_header`` says it is not
+    and exactly one other row among the first :data:`HEADER_SEARCH_ROWS` says
+    it is ("found"); when several rows look like a header, the choice is not
+    made and their 1-based numbers come back as candidates.
+    """
+    if header_row is not None:
+        if header_row > len(rows):
+            return None, "manifest", (), Hit(
+                f"{name}: header_row = {header_row} is past the last row ({len(rows)}); "
+                "give the row number of the header as a spreadsheet program shows it.",
+                layer=name,
+                rule="layer-unreadable",
+            )
+        return header_row - 1, "manifest", (), None
+    filled = [i for i, r in enumerate(rows) if not all(_empty_cell(v) for v in r)]
+    if not filled:
+        return None, "first", (), None
+    first = filled[0]
+    if looks_like_header is None or looks_like_header(rows[first]):
+        return first, "first", (), None
+    candidates = [i for i in filled if i < HEADER_SEARCH_ROWS and looks_like_header(rows[i])]
+    if len(candidates) == 1:
+        return candidates[0], "found", (), None
+    return first, "first", tuple(i + 1 for i in candidates) if len(candidates) > 1 else (), None
+
+
+def read_csv(
+    path: Path, name: str, *, header_row: int | None = None, looks_like_header: HeaderTest | None = None
+) -> tuple[TableData | None, list[Hit]]:
     """Read a CSV/TSV as text cells; the delimiter is sniffed (``,``, ``;`` or tab).
+
+    The header is the first line, or the row :func:`choose_header` picks
+    (lines above it, such as a laboratory's notes, are skipped).
 
     Raises
     ------
@@ -115,13 +169,38 @@ def read_csv(path: Path, name: str) -> tuple[TableData | None, list[Hit]]:
             delimiter = ","
     if not text.strip():
         return TableData(pd.DataFrame(dtype=object), name, None, 1, {}), []
+    skip, how = 0, "first"
+    candidates: tuple[int, ...] = ()
+    if header_row is not None or looks_like_header is not None:
+        reader = csv.reader(io.StringIO(text), delimiter=delimiter)
+        rows: list[list[str]] = []
+        starts: list[int] = []  # lines read before each row
+        try:
+            while header_row is not None or len(rows) < HEADER_SEARCH_ROWS:
+                before = reader.line_num
+                row = next(reader, None)
+                if row is None:
+                    break
+                rows.append(row)
+                starts.append(before)
+                if header_row is not None and len(rows) >= header_row:
+                    break
+        except csv.Error as exc:
+            return None, [Hit(f"{name} cannot be read as a table: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
+        index, how, candidates, problem = choose_header(rows, name, header_row=header_row, looks_like_header=looks_like_header)
+        if problem is not None:
+            return None, [problem]
+        if index is not None and index > 0:
+            skip = starts[index]
     try:
-        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, sep=delimiter)
+        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False, sep=delimiter, skiprows=skip)
     except pd.errors.ParserError as exc:
         return None, [Hit(f"{name} cannot be read as a table: {' '.join(str(exc).split())}.", layer=name, rule="layer-unreadable")]
+    except pd.errors.EmptyDataError:
+        frame = pd.DataFrame(dtype=object)
     frame = frame.astype(object)
     frame.columns = [str(c).strip() for c in frame.columns]
-    return TableData(frame, name, None, 1, {}), []
+    return TableData(frame, name, None, skip + 1, {}, header_how=how, header_candidates=candidates), []
 
 
 def _one_line(exc: BaseException) -> str:
@@ -229,8 +308,11 @@ def spreadsheet_errors() -> tuple[type[BaseException], ...]:
             ValueError, TypeError, AttributeError, IndexError)
 
 
-def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
-    """(rows as tuples, sheet title, sheet names) or (None, hits); refusals and OS errors raise ArchivistError."""
+def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool, skip_sheet: Callable[[str], bool] | None = None):
+    """((rows as tuples, sheet title, sheet names), hits) or (None, hits); refusals and OS errors raise ArchivistError.
+
+    Without ``sheet``, the first sheet that ``skip_sheet`` does not refuse is read (the first sheet when it refuses all).
+    """
     import openpyxl
 
     try:
@@ -243,7 +325,8 @@ def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
         return None, [Hit(f"{name} cannot be read as a spreadsheet: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
     try:
         if sheet is None:
-            ws = wb.worksheets[0]
+            kept = [w for w in wb.worksheets if skip_sheet is None or not skip_sheet(w.title)]
+            ws = (kept or wb.worksheets)[0]
         elif sheet in wb.sheetnames:
             ws = wb[sheet]
         else:
@@ -262,7 +345,7 @@ def _load_rows(path: Path, name: str, sheet: str | None, data_only: bool):
             if _defused(exc) is not None:
                 raise ArchivistError(f"{name}: {XML_REFUSAL}") from None
             return None, [Hit(f"{name}, sheet '{ws.title}' cannot be read: {_one_line(exc)}.", layer=name, rule="layer-unreadable")]
-        return (rows, ws.title), []
+        return (rows, ws.title, tuple(wb.sheetnames)), []
     finally:
         wb.close()
 
@@ -290,8 +373,19 @@ def _merged_headers(path: Path, title: str, header_row: int) -> dict[int, tuple[
         wb.close()
 
 
-def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | None, list[Hit]]:
-    """Read one sheet: the first non-empty row is the header, every column with a header or data is kept.
+def read_xlsx(
+    path: Path,
+    name: str,
+    sheet: str | None,
+    *,
+    header_row: int | None = None,
+    looks_like_header: HeaderTest | None = None,
+    skip_sheet: Callable[[str], bool] | None = None,
+) -> tuple[TableData | None, list[Hit]]:
+    """Read one sheet: the header row is chosen by :func:`choose_header` (by default the first non-empty row);
+    every column with a header or data is kept, the rows above the header are not read.
+
+    Without ``sheet``, the first sheet ``skip_sheet`` does not refuse is read.
 
     Hits: ``column-unnamed`` for a column with data but no header text (it is
     named after its merged header or its letter), ``formula-value-missing``
@@ -307,16 +401,19 @@ def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | Non
     refusal = workbook_xml_problem(path) if path.is_file() else None
     if refusal:
         raise ArchivistError(f"{name}: {refusal}")
-    loaded, hits = _load_rows(path, name, sheet, data_only=True)
+    loaded, hits = _load_rows(path, name, sheet, data_only=True, skip_sheet=skip_sheet)
     if loaded is None:
         return None, hits
-    grid, title = loaded
+    grid, title, sheets = loaded
     width = max((len(r) for r in grid), default=0)
     rows = [tuple(r) + (None,) * (width - len(r)) for r in grid]
-    empty = lambda v: v is None or (isinstance(v, str) and not v.strip())  # noqa: E731
-    start = next((i for i, r in enumerate(rows) if not all(empty(v) for v in r)), None)
+    empty = _empty_cell
+    where = f"{name}, sheet '{title}'"
+    start, how, candidates, problem = choose_header(rows, where, header_row=header_row, looks_like_header=looks_like_header)
+    if problem is not None:
+        return None, [problem]
     if start is None:
-        return TableData(pd.DataFrame(), name, title, 1, {}), []
+        return TableData(pd.DataFrame(), name, title, 1, {}, sheets=sheets), []
     header_row = start + 1
     header, body = rows[start], rows[start + 1 :]
 
@@ -376,11 +473,23 @@ def read_xlsx(path: Path, name: str, sheet: str | None) -> tuple[TableData | Non
         lines.append(i)
     frame = pd.DataFrame(data, columns=columns, dtype=object)
     letters = {c: get_column_letter(j + 1) for c, j in zip(columns, keep)}
-    return TableData(frame, name, title, header_row, letters, tuple(lines)), problems
+    return TableData(frame, name, title, header_row, letters, tuple(lines), how, candidates, sheets), problems
 
 
-def read_table(path: Path, name: str, sheet: str | None = None) -> tuple[TableData | None, list[Hit]]:
+def read_table(
+    path: Path,
+    name: str,
+    sheet: str | None = None,
+    *,
+    header_row: int | None = None,
+    looks_like_header: HeaderTest | None = None,
+    skip_sheet: Callable[[str], bool] | None = None,
+) -> tuple[TableData | None, list[Hit]]:
     """Read a CSV/TSV or XLSX table. Returns (table or None, hits).
+
+    ``header_row`` (1-based) names the header row; else ``looks_like_header``
+    may find it below a block of notes (:func:`choose_header`). Without
+    ``sheet``, the first sheet ``skip_sheet`` does not refuse is read.
 
     Raises
     ------
@@ -391,9 +500,9 @@ def read_table(path: Path, name: str, sheet: str | None = None) -> tuple[TableDa
     suffix = path.suffix.lower()
     try:
         if suffix in (".xlsx", ".xlsm"):
-            return read_xlsx(path, name, sheet)
+            return read_xlsx(path, name, sheet, header_row=header_row, looks_like_header=looks_like_header, skip_sheet=skip_sheet)
         if suffix == ".xls":
             return None, [Hit(f"{name}: the old binary .xls format is not read; save it as .xlsx or CSV.", layer=name, rule="layer-unreadable")]
-        return read_csv(path, name)
+        return read_csv(path, name, header_row=header_row, looks_like_header=looks_like_header)
     except OSError as exc:
         raise _os_error(name, exc) from None

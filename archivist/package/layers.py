@@ -27,6 +27,7 @@ import shapely
 
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
+from ..vocab.analytes import analytes
 from ..vocab.legend import column as legend_column
 from ..vocab.legend import columns as legend_columns
 from ..vocab import structures as structure_vocab
@@ -358,7 +359,8 @@ def project_table(project: MapProject, role: str) -> TextTable:
                 units[col] = unit
             if key == "unit":
                 identifiers.add(col)
-    if role == "analyses":
+    if role == "analyses":  # units from a units row or [tables.analyses] unit, as the checks read them
+        units.update({a.column: a.unit_text for a in analytes(t) if a.source in ("units row", "manifest") and a.unit_text})
         units.update({str(k): str(v) for k, v in (spec.get("units") or {}).items()})
     table = text_table(role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses")
     table.title = LAYER_TITLES[role]

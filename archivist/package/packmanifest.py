@@ -11,6 +11,7 @@ from typing import Any
 
 from ..project import MapProject
 from ..tomltext import dump_toml
+from ..vocab.analytes import analytes
 from ..vocab.legend import column as legend_column
 
 __all__ = ["packaged_manifest", "dump_toml"]
@@ -26,7 +27,12 @@ def packaged_manifest(project: MapProject, layer_roles: list[str], table_paths: 
         out["layers"][role] = {"path": "map.gpkg", "layer": role, **spec}
     tables = {}
     for role, path in table_paths.items():
-        spec = {k: v for k, v in project.tables[role].spec.items() if k not in ("path", "sheet")}
+        table = project.tables[role]
+        # the packaged CSV has its header in row 1 and no units row: the units found there go to `units`
+        spec = {k: v for k, v in table.spec.items() if k not in ("path", "sheet", "header_row")}
+        if table.row_units:
+            found_units = {a.column: a.unit_text for a in analytes(table) if a.source == "units row" and a.unit_text}
+            spec["units"] = {**found_units, **(spec.get("units") or {})}
         if role == "legend" and "unit_field" not in spec:  # name the key column the checks found
             found = legend_column(project.tables[role], "unit")
             spec = {"unit_field": found, **spec} if found is not None else spec

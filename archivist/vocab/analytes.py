@@ -189,9 +189,167 @@ def split_header(header: str) -> tuple[str, str | None, str | None]:
     return h, None, None
 
 
+def canonical_unit(text: str) -> str | None:
+    """The canonical form of a unit as written ("wt %" -> "wt%", "mg/kg" -> "ppm", "µg/g" -> "ppm"), or None."""
+    t = " ".join(str(text).split()).strip()
+    if len(t) > 2 and t[0] + t[-1] in ("()", "[]"):
+        t = t[1:-1].strip()
+    return UNIT_WORDS.get(t.casefold()) or UNIT_WORDS.get(t)
+
+
+def is_analyte_header(header: object) -> bool:
+    """True for a header that names an analyte, LOI or a ratio of species ("SiO2 (wt%)", "Cu", "LOI 1000°C")."""
+    if not isinstance(header, str) or not header.strip():
+        return False
+    name = split_header(header)[0]
+    if "/" in name:
+        return all(formula(p)[0] for p in name.split("/"))
+    return formula(name)[0] or loi_header(name)
+
+
+def analyses_header_test(sample_field: str | None):
+    """A test for the header row of a laboratory's sheet: it holds three analyte names, or the sample
+    column's name and one analyte name. A laboratory's notes above the header (its name, a job number,
+    dates) and the data rows below it (numbers) pass neither."""
+    wanted = (sample_field or "").strip().casefold()
+
+    def test(cells) -> bool:
+        n = sum(is_analyte_header(c) for c in cells)
+        named = bool(wanted) and any(isinstance(c, str) and c.strip().casefold() == wanted for c in cells)
+        return n >= 3 or (named and n >= 1)
+
+    return test
+
+
+# Rows a laboratory puts between the header and the first sample, known by the word in their first
+# cells (common practice of laboratory certificates): the units, the method, the detection limits.
+_UNITS_LABELS = frozenset({"unit", "units", "uom", "unit of measure", "units of measure"})
+_INFO_LABELS = {
+    **dict.fromkeys(("method", "methods", "analytical method", "method code", "scheme", "technique"), "method"),
+    **dict.fromkeys(("detection limit", "detection limits", "lod", "lor", "dl", "mdl", "lld", "ldl", "limit of detection",
+                     "lower limit", "lower detection limit", "reporting limit"), "detection limits"),
+    **dict.fromkeys(("analyte", "analytes", "element", "elements"), "analyte names"),
+}
+
+
+@dataclass(frozen=True)
+class InfoRows:
+    """Rows under the header that describe the columns: how many, and the units row's units by column."""
+
+    count: int
+    units: dict[str, str]  # column -> unit as written in the units row
+    units_row: int | None  # 0-based data row of the units row
+    labels: tuple[str, ...]  # what each row is: "units", "method", "detection limits", "analyte names"
+
+
+def info_rows(frame: pd.DataFrame, analyte_columns: list[str], label_columns: list[str]) -> InfoRows:
+    """The rows at the top of ``frame`` that describe its columns rather than hold a sample.
+
+    A *units row* is one whose analyte cells hold no number and at least
+    half of whose filled analyte cells are unit words (``wt%``, ``%``,
+    ``ppm``, ``ppb``, ``mg/kg``, ``µg/g``...), or whose label cell reads
+    "Units"; other rows are known by their label cell (the first of
+    ``label_columns`` that is filled): "Method", "Detection limit", "LOD",
+    "LOR"... Only rows directly under the header, before the first other
+    row, are taken; a unit word is never a sample value, so a units row is
+    unambiguous.
+    """
+    units: dict[str, str] = {}
+    units_row = None
+    labels: list[str] = []
+    for r in range(min(len(frame), 6)):
+        row = frame.iloc[r]
+        label = ""
+        for c in label_columns:
+            if c in frame.columns and not _blank_cell(row[c]):
+                label = " ".join(str(row[c]).split()).strip(" :").casefold()
+                break
+        cells = {c: row[c] for c in analyte_columns if not _blank_cell(row[c])}
+        numbers = sum(_is_number(v) for v in cells.values())
+        known = {c: str(v).strip() for c, v in cells.items() if canonical_unit(str(v)) is not None}
+        by_content = bool(known) and not numbers and 2 * len(known) >= len(cells)
+        if units_row is None and (by_content or (label in _UNITS_LABELS and not numbers)):
+            units = {c: str(v).strip() for c, v in cells.items()}
+            units_row = r
+            labels.append("units")
+        elif label in _INFO_LABELS or label in _UNITS_LABELS:
+            labels.append(_INFO_LABELS.get(label, "units"))
+        else:
+            break
+    return InfoRows(len(labels), units, units_row, tuple(labels))
+
+
+def _blank_cell(value: object) -> bool:
+    if value is None:
+        return True
+    if isinstance(value, float) and np.isnan(value):
+        return True
+    return isinstance(value, str) and not value.strip()
+
+
+def _is_number(value: object) -> bool:
+    if isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool):
+        return True
+    try:
+        float(str(value).strip())
+    except ValueError:
+        return False
+    return True
+
+
+# ---------------------------------------------------------------- quality-control rows and sheets
+
+# Sample ids of quality-control rows (common practice of geochemistry laboratories): blanks ("BLANK",
+# "BLK", "Blank 2", "PREP BLANK"), duplicates and repeats ("DUP", "TM24-0012-DUP", "TM24-0012 DUP",
+# "REP"), standards and certified reference materials named as such ("STD", "STD-3", "CRM", "SRM",
+# "QC"), and the codes of some widely used reference materials (from memory: USGS rock powders such as
+# BCR-2, BHVO-2, AGV-2, GSP-2, BIR-1a; NIST SRM numbers; OREAS, AMIS and GBM series). Searched in the
+# id, case ignored, as whole words (a word ends at any character that is not a letter or digit; digits
+# may follow the word: "BLK1", "DUP2"). Set ``[tables.analyses] qc_pattern`` to a regular expression of
+# your own (also searched, case ignored), or to "" to read every row as a sample.
+QC_PATTERN = (
+    r"(?<![a-z0-9])(?:blank|blk|dup|dupl|duplicate|rep|repeat|replicate|std|standard|crm|srm|qc"
+    r"|bcr-?[12]|bhvo-?[12]|agv-?[12]|gsp-?[12]|bir-?1a?|nist|oreas|amis|gbm)\d*(?![a-z])"
+)
+# Sheet names of quality-control sheets in a laboratory's workbook (common practice): "QC", "QA-QC",
+# "QAQC", "QA/QC", "Standards", "Blanks", "Duplicates", "CRM", "Reference materials", "Control".
+QC_SHEET = re.compile(
+    r"^(?:qa\s*[-/_&]?\s*qc|qc(?:\s*data)?|quality\s*control|standards?|blanks?|duplicates?|repeats?|crms?"
+    r"|reference\s*materials?|controls?|std)$",
+    re.IGNORECASE,
+)
+
+
+def qc_sheet(name: str) -> bool:
+    """True for the name of a quality-control sheet ("QC", "QA/QC", "Standards", "Blanks"...)."""
+    return bool(QC_SHEET.match(" ".join(str(name).split())))
+
+
+def qc_rows(ids: np.ndarray, pattern: str) -> np.ndarray:
+    """Which sample ids (as text) name a quality-control row: ``pattern`` searched in each, case ignored.
+
+    Raises ``re.error`` for a pattern that is not a regular expression. An
+    empty pattern marks no row.
+    """
+    if not pattern:
+        return np.zeros(len(ids), dtype=bool)
+    compiled = re.compile(pattern, re.IGNORECASE)
+    series = pd.Series(np.asarray(ids, dtype=object), dtype=object).fillna("").astype(str)
+    return series.str.contains(compiled, regex=True).to_numpy(dtype=bool)
+
+
 def analytes(table: Table) -> list[Analyte]:
-    """The analyte columns of the analyses table, with their units from the header or the manifest."""
+    """The analyte columns of the analyses table, with their units.
+
+    A column's unit comes from its header ("SiO2 (wt%)"), else from the
+    units row under the header, else from ``[tables.analyses.units]``, else
+    from ``[tables.analyses] unit`` (one unit for every analyte column that
+    has none; never for ratios). A header, units row and ``units`` entry that
+    disagree are reported.
+    """
     declared = {str(k): str(v) for k, v in (table.spec.get("units") or {}).items()}
+    in_row = dict(getattr(table, "row_units", None) or {})
+    everyone = table.spec.get("unit")
     sample_col = table.spec.get("sample_field")
     out = []
     for col in table.frame.columns:
@@ -209,15 +367,28 @@ def analytes(table: Table) -> list[Analyte]:
         source = "header" if unit else None
         if unit is None and unit_text is not None:
             problem = f"'({unit_text})' in the header is not a unit archivist knows"
+        if col in in_row:
+            written = in_row[col]
+            canon = canonical_unit(written)
+            if canon is None:
+                problem = f"'{written}' in the units row is not a unit archivist knows"
+            elif unit is not None and canon != unit:
+                problem = f"the header says {unit_text} but the units row says {written}"
+            elif unit is None:
+                unit, unit_text, source, problem = canon, written, "units row", None
         if col in declared:
             d = declared[col].strip()
             canon = UNIT_WORDS.get(d.casefold()) or UNIT_WORDS.get(d) or d
             if unit is not None and canon != unit:
-                problem = f"the header says {unit_text} but tables.analyses.units says {d}"
+                said = "the header" if source == "header" else "the units row"
+                problem = f"{said} says {unit_text} but tables.analyses.units says {d}"
             elif unit is None:
                 unit, unit_text, source, problem = canon, d, "manifest", None
         if is_ratio and unit is None and problem is None:
             unit, source = "ratio", "implied"
+        if unit is None and problem is None and isinstance(everyone, str) and everyone.strip():
+            d = everyone.strip()
+            unit, unit_text, source = UNIT_WORDS.get(d.casefold()) or UNIT_WORDS.get(d) or d, d, "manifest"
         out.append(Analyte(col, "LOI" if is_loi else name.strip(), unit, unit_text, source, is_ratio, is_total, total_iron, problem))
     return out
 

@@ -11,7 +11,14 @@ this order:
    the key is absent (the loader reports the missing field);
 2. else the first header that, compared without regard to case, spaces,
    underscores, hyphens and brackets, is one of the spellings in
-   :data:`SPELLINGS` (``Code``, ``Unit name``, ``Color``, ``Min age (Ma)``...).
+   :data:`SPELLINGS` (``Code``, ``CODE``, ``Unit name``, ``Unit_Name``,
+   ``Colour``, ``Color``, ``Min age (Ma)``, ``Base age``...);
+3. else the first header that is one of them written without separators
+   (``UnitName``, ``MinAgeMa``).
+
+The header row is the first non-empty row, ``[tables.legend] header_row``,
+or the one row near the top whose cells name the unit code and another key
+(:func:`header_test`) when a title stands above the table.
 
 The spellings are those mappers commonly give legend columns (common
 practice); they are a convenience, the ``*_field`` keys are the contract.
@@ -33,16 +40,24 @@ if TYPE_CHECKING:
 
 # key -> header spellings, normalised by :func:`header_key` (common practice).
 SPELLINGS: dict[str, tuple[str, ...]] = {
-    "unit": ("unit", "code", "unit_code", "unitcode", "map_unit", "mapunit", "map_unit_code", "unit_symbol", "symbol", "unit_id"),
-    "name": ("name", "unit_name", "unitname", "title", "unit_title"),
-    "description": ("description", "unit_description", "descr", "desc"),
-    "age": ("age", "unit_age", "age_name", "geological_age", "geologic_age", "chronostratigraphic_age"),
-    "min_age_ma": ("min_age_ma", "min_age", "minimum_age_ma", "minimum_age", "age_min_ma", "age_min", "youngest_age_ma"),
-    "max_age_ma": ("max_age_ma", "max_age", "maximum_age_ma", "maximum_age", "age_max_ma", "age_max", "oldest_age_ma"),
-    "colour": ("colour", "color", "unit_colour", "unit_color", "colour_hex", "color_hex", "hex_colour", "hex_color", "fill_colour", "fill_color"),
-    "order": ("order", "legend_order", "sort_order", "sequence", "position"),
-    "lithology": ("lithology", "lith", "rock_type", "main_lithology"),
-    "kind": ("kind", "unit_kind", "unit_type", "kind_of_unit"),
+    "unit": ("unit", "code", "unit_code", "unitcode", "map_unit", "mapunit", "map_unit_code", "unit_symbol", "symbol", "unit_id",
+             "map_symbol", "map_code", "legend_code", "unit_abbreviation", "abbreviation"),
+    "name": ("name", "unit_name", "unitname", "title", "unit_title", "map_unit_name", "legend_name", "full_name", "long_name",
+             "formation", "formation_name"),
+    "description": ("description", "unit_description", "descr", "desc", "legend_description", "legend_text",
+                    "lithological_description", "lithology_description"),
+    "age": ("age", "unit_age", "age_name", "geological_age", "geologic_age", "chronostratigraphic_age", "stratigraphic_age",
+            "chronostratigraphy", "period", "epoch", "stage"),
+    "min_age_ma": ("min_age_ma", "min_age", "minimum_age_ma", "minimum_age", "age_min_ma", "age_min", "youngest_age_ma",
+                   "youngest_age", "min_ma", "top_age_ma", "top_age", "age_top_ma", "age_top"),
+    "max_age_ma": ("max_age_ma", "max_age", "maximum_age_ma", "maximum_age", "age_max_ma", "age_max", "oldest_age_ma",
+                   "oldest_age", "max_ma", "base_age_ma", "base_age", "age_base_ma", "age_base"),
+    "colour": ("colour", "color", "unit_colour", "unit_color", "colour_hex", "color_hex", "hex_colour", "hex_color", "fill_colour",
+               "fill_color", "colour_code", "color_code", "hex", "hex_code", "map_colour", "map_color", "legend_colour",
+               "legend_color"),
+    "order": ("order", "legend_order", "sort_order", "sequence", "position", "legend_position", "display_order", "legend_sequence"),
+    "lithology": ("lithology", "lith", "rock_type", "main_lithology", "dominant_lithology", "main_rock_type", "lithologies"),
+    "kind": ("kind", "unit_kind", "unit_type", "kind_of_unit", "unit_class", "unit_category", "type", "category"),
 }
 KEYS = tuple(SPELLINGS)
 # key -> the manifest entry under [tables.legend] that names its column.
@@ -77,12 +92,39 @@ def column(table: Table, key: str) -> str | None:
         folded = {str(c).strip().casefold(): c for c in columns}
         return named if named in columns else folded.get(named.strip().casefold())
     loose: dict[str, Any] = {}
+    compact: dict[str, Any] = {}  # without separators: "UnitName", "MinAgeMa"
     for c in columns:
         loose.setdefault(header_key(c), c)
+        compact.setdefault(header_key(c).replace("_", ""), c)
     for spelling in SPELLINGS[key]:
         if spelling in loose:
             return loose[spelling]
+    for spelling in SPELLINGS[key]:
+        if spelling.replace("_", "") in compact:
+            return compact[spelling.replace("_", "")]
     return None
+
+
+def header_test(spec: dict[str, Any]):
+    """A test for a legend's header row: two of its cells name legend keys (by a ``*_field`` of ``spec``
+    or a usual spelling), one of them the unit code. A title above the table passes it only when it is
+    made of such names."""
+    named = {str(v).strip().casefold(): k for k, v in spec.items() if k in FIELD_KEYS.values() and isinstance(v, str)}
+    by_key = {FIELD_KEYS[k]: k for k in KEYS}
+    spelled = {s: k for k, spellings in SPELLINGS.items() for s in spellings}
+
+    def test(cells) -> bool:
+        keys = set()
+        for c in cells:
+            if not isinstance(c, str) or not c.strip():
+                continue
+            field_key = named.get(c.strip().casefold())
+            key = by_key[field_key] if field_key else spelled.get(header_key(c))
+            if key:
+                keys.add(key)
+        return "unit" in keys and len(keys) >= 2
+
+    return test
 
 
 def columns(table: Table) -> dict[str, str | None]:
