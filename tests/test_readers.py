@@ -254,3 +254,48 @@ def test_audit_holds_a_workbook_with_entities_as_a_finding(tmp_path):
     report = archivist.audit(root)
     held = [f for f in report.findings if f.rule == "layer-unreadable"]
     assert any("legend.xlsx" in f.message and "DTD or entities" in f.message for f in held), [f.message for f in report.findings]
+
+
+# ---------------------------------------------------------------- the header row
+
+from archivist.readers import choose_header  # noqa: E402
+
+NOTES_THEN_HEADER = [("Lab report",), ("Job", "J-1"), (None, None), ("id", "SiO2"), ("S-1", 72.5)]
+
+
+def test_header_is_the_first_row_unless_a_test_finds_one_other():
+    is_header = lambda row: "SiO2" in row  # noqa: E731
+    assert choose_header(NOTES_THEN_HEADER, "t")[:2] == (0, "first")
+    assert choose_header(NOTES_THEN_HEADER, "t", looks_like_header=is_header)[:2] == (3, "found")
+    assert choose_header(NOTES_THEN_HEADER[3:], "t", looks_like_header=is_header)[:2] == (0, "first")
+    twice = NOTES_THEN_HEADER + [("id", "SiO2")]
+    assert choose_header(twice, "t", looks_like_header=is_header)[:3] == (0, "first", (4, 6))
+    assert choose_header(twice, "t", header_row=4, looks_like_header=is_header)[:2] == (3, "manifest")
+    index, _, _, problem = choose_header(twice, "t", header_row=9)
+    assert index is None and problem.rule == "layer-unreadable" and "header_row = 9 is past the last row (6)" in problem.message
+
+
+def test_csv_header_below_notes_keeps_row_numbers(tmp_path):
+    p = tmp_path / "lab.csv"
+    p.write_text('Lab report,,\n"Job, with a comma",J-1,\n,,\nid,SiO2,MgO\nS-1,72.5,<0.01\n', encoding="utf-8")
+    data, hits = read_table(p, "lab.csv", header_row=4)
+    assert hits == [] and list(data.frame.columns) == ["id", "SiO2", "MgO"] and data.header_row == 4
+    assert data.frame.loc[0, "MgO"] == "<0.01" and data.cell(0, "MgO") == "lab.csv, row 5, column 'MgO'"
+    found, _ = read_table(p, "lab.csv", looks_like_header=lambda row: "SiO2" in row)
+    assert found.header_how == "found" and found.frame.equals(data.frame)
+
+
+def test_xlsx_header_below_notes_keeps_cell_addresses(tmp_path):
+    p = tmp_path / "lab.xlsx"
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = "Results"
+    for row in (["Lab report"], ["Job", "J-1"], [], ["id", "SiO2"], ["S-1", "<0.01"]):
+        ws.append(row)
+    qc = wb.create_sheet("QC", 0)  # first in the workbook
+    qc.append(["id", "SiO2"])
+    wb.save(p)
+    data, hits = read_table(p, "lab.xlsx", header_row=4, skip_sheet=lambda name: name == "QC")
+    assert hits == [] and data.sheet == "Results" and data.sheets == ("QC", "Results")
+    assert data.cell(0, "SiO2") == "lab.xlsx, sheet 'Results', cell B5"
+    assert openpyxl.load_workbook(p)["Results"]["B5"].value == "<0.01"  # the address, as openpyxl reads it

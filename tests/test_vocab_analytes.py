@@ -137,3 +137,68 @@ def test_mass_fractions_in_wt_percent():
     # 1 wt% = 1 g/100 g = 10 000 µg/g (ppm) = 10^7 ng/g (ppb) (SI definitions of the mass fraction).
     assert 1 / IN_WT_PERCENT["ppm"] == pytest.approx(1e4)
     assert 1 / IN_WT_PERCENT["ppb"] == pytest.approx(1e7)
+
+
+# ---------------------------------------------------------------- laboratory sheets: units rows, QC rows
+
+from archivist.vocab.analytes import QC_PATTERN, analyses_header_test, canonical_unit, info_rows, qc_rows, qc_sheet  # noqa: E402
+
+
+@pytest.mark.parametrize("written, unit", [
+    # mass fractions: 1 mg/kg = 1 µg/g = 10^-6 (ppm), 1 µg/kg = 1 ng/g = 10^-9 (ppb) (SI mass fraction, from memory)
+    ("wt%", "wt%"), ("wt %", "wt%"), ("WT%", "wt%"), ("%", "wt%"), ("ppm", "ppm"), ("PPM", "ppm"), ("mg/kg", "ppm"),
+    ("µg/g", "ppm"), ("μg/g", "ppm"), ("(ppm)", "ppm"), ("[ppb]", "ppb"), ("ppb", "ppb"), ("ng/g", "ppb"), ("g/t", "ppm"),
+])
+def test_units_as_a_units_row_writes_them(written, unit):
+    assert canonical_unit(written) == unit
+
+
+@pytest.mark.parametrize("written", ["cps", "counts", "ICP-MS", "0.01", ""])
+def test_not_units(written):
+    assert canonical_unit(written) is None
+
+
+def test_header_test_needs_three_analytes_or_the_sample_column_and_one():
+    test = analyses_header_test("Sample ID")
+    assert test(["Sample ID", "SiO2", "Al2O3"]) and test(["Sample ID", "Cu (ppm)"]) and test(["x", "SiO2", "MgO", "LOI"])
+    # a laboratory's notes and a data row are not headers (a single symbol-like word is not enough)
+    assert not test(["Brackwater Analytical"]) and not test(["Job number:", "BW-24-118"]) and not test(["In", "No", None])
+    assert not test(["S-0001", 72.5, 0.28, "<0.01"]) and not test(["Sample ID", "Date"])
+
+
+def test_units_row_detection_takes_units_and_info_rows_only_at_the_top():
+    frame = pd.DataFrame({"id": ["", "LOD", "Method", "S-1", "Units"], "SiO2": ["wt%", 0.01, "XRF", 72.5, "wt%"],
+                          "Cu": ["mg/kg", 1, "ICP-MS", "<1", "ppm"]}, dtype=object)
+    info = info_rows(frame, ["SiO2", "Cu"], ["id"])
+    assert (info.count, info.units, info.units_row, info.labels) == (3, {"SiO2": "wt%", "Cu": "mg/kg"}, 0, ("units", "detection limits", "method"))
+    # a first row of numbers is a sample, whatever follows
+    assert info_rows(frame.iloc[3:].reset_index(drop=True), ["SiO2", "Cu"], ["id"]).count == 0
+    # a row labelled Units with a word archivist does not know is still the units row (the unit is then questioned)
+    labelled = pd.DataFrame({"id": ["Units"], "Cu": ["cps"]}, dtype=object)
+    assert info_rows(labelled, ["Cu"], ["id"]).units == {"Cu": "cps"}
+    # a row of unit words among numbers is not a units row
+    mixed = pd.DataFrame({"id": [""], "SiO2": [72.5], "Cu": ["ppm"]}, dtype=object)
+    assert info_rows(mixed, ["SiO2", "Cu"], ["id"]).count == 0
+
+
+# Quality-control ids as laboratories write them (common practice).
+QC_IDS = ["BLANK", "Blank 2", "BLK", "BLK1", "PREP BLANK", "DUP", "DUP2", "TM24-0012-DUP", "TM24-0012 DUP", "TM24-0012_dup",
+          "REP", "TM24-0012 Rep", "Repeat", "STD", "STD-3", "Std OREAS 45e", "CRM", "SRM", "QC", "BHVO-2", "BCR-2", "AGV-2",
+          "NIST 610", "Standard 1"]
+SAMPLE_IDS = ["TM24-0007", "00012", "12", "BLANKET-3", "DUPONT-1", "STANDING-4", "HV-REPT", "Crmx", "W-2", "RM-001", "S-BLK-A"]
+
+
+def test_default_qc_pattern_marks_quality_control_ids_only():
+    import numpy as np
+
+    assert qc_rows(np.array(QC_IDS, dtype=object), QC_PATTERN).all()
+    marked = qc_rows(np.array(SAMPLE_IDS, dtype=object), QC_PATTERN)
+    assert dict(zip(SAMPLE_IDS, marked)) == {i: i == "S-BLK-A" for i in SAMPLE_IDS}  # "BLK" as a word is a blank
+    assert not qc_rows(np.array(QC_IDS, dtype=object), "").any()
+
+
+@pytest.mark.parametrize("name, qc", [("QC", True), ("QA-QC", True), ("QA/QC", True), ("QAQC", True), ("Standards", True),
+                                      ("Blanks", True), ("Duplicates", True), ("CRM", True), ("Reference materials", True),
+                                      ("Results", False), ("Majors", False), ("Sheet1", False), ("QC notes 2", False)])
+def test_qc_sheet_names(name, qc):
+    assert qc_sheet(name) is qc

@@ -186,3 +186,24 @@ def test_diff_reads_the_legend_in_every_spelling(variant, projects, tmp_path):
     edit_table(new, "legend.csv", add_cedar)
     messages = [c.message for c in archivist.diff(projects[variant], new).changes]
     assert "Unit C added (legend entry 'Cedar Shale'; not mapped)." in messages
+
+
+# ---------------------------------------------------------------- more spellings, and the header row
+
+@pytest.mark.parametrize("key, header", [
+    ("unit", "CODE"), ("unit", "Map symbol"), ("unit", "UnitCode"), ("name", "Unit_Name"), ("name", "UnitName"),
+    ("name", "Formation"), ("description", "DESCRIPTION"), ("age", "Period"), ("age", "Stage"), ("colour", "Colour code"),
+    ("colour", "HEX"), ("min_age_ma", "Top age (Ma)"), ("min_age_ma", "MinAgeMa"), ("max_age_ma", "Base age"),
+    ("max_age_ma", "BaseAgeMa"), ("order", "Legend position"), ("lithology", "Rock type"), ("kind", "Type"),
+])
+def test_more_spellings_of_the_trade(key, header, tmp_path):
+    frame = tiny_legend().rename(columns={key: header})
+    table = load_project(tiny_project(tmp_path, legend=frame)).tables["legend"]
+    assert vocab.column(table, key) == header
+
+
+def test_header_test_wants_the_unit_and_one_more_key():
+    test = vocab.header_test({})
+    assert test(["CODE", "Unit name", "Colour"]) and test(["Symbol", "Age"])
+    assert not test(["Hollow Vale geological map: legend"]) and not test(["Name", "Age"]) and not test(["Code"])
+    assert vocab.header_test({"unit_field": "Key"})(["Key", "Label", "Period"])

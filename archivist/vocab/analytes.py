@@ -335,7 +335,7 @@ def qc_rows(ids: np.ndarray, pattern: str) -> np.ndarray:
         return np.zeros(len(ids), dtype=bool)
     compiled = re.compile(pattern, re.IGNORECASE)
     series = pd.Series(np.asarray(ids, dtype=object), dtype=object).fillna("").astype(str)
-    return series.str.contains(compiled, regex=True).to_numpy(dtype=bool)
+    return series.map(compiled.search).notna().to_numpy(dtype=bool)
 
 
 def analytes(table: Table) -> list[Analyte]:
