@@ -4,7 +4,11 @@ Samples are points (`[layers.samples]`, or a table with `x_field`/`y_field`)
 with an id (`id_field`) and, optionally, the unit the mapper recorded
 (`unit_field`). Analyses are a table (`[tables.analyses]`, CSV or XLSX)
 with one row per analysis, the sample id in `sample_field` and one column
-per analyte.
+per analyte. The loader (`archivist.project`) reads a laboratory's sheet as
+delivered: the header below a block of notes (`header_row`, or found by its
+analyte names), the units, method and detection-limit rows under it, and
+the quality-control rows (`qc_pattern`) and sheets are not read as samples;
+ids made only of digits are restored by `id_width`/`id_prefix`.
 
 An analyte column is a column whose header names a chemical species
 ("SiO2", "Fe2O3T", "Cu", "87Sr/86Sr"), "LOI" or "Total", or that has a unit
@@ -759,14 +763,17 @@ def sample_unanalysed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
 @rule("analysis-unit-undeclared", family="samples", severity="error", needs=("analyses",))
 def analysis_unit_undeclared(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
-    """An analyte column has no unit, in its header or in the manifest.
+    """An analyte column has no unit, in its header, its units row or the manifest.
 
     Catches
     -------
     Analyte columns (headers naming a chemical species, LOI or Total) whose
-    header carries no unit ("SiO2 (wt%)", "SiO2_wt%", "Cu [ppm]") and that
-    `[tables.analyses.units]` does not cover; headers whose bracketed text
-    is not a unit (e.g. "SiO2 (XRF)"); a header and the manifest that
+    header carries no unit ("SiO2 (wt%)", "SiO2_wt%", "Cu [ppm]"), that have
+    no unit in a units row under the header (a laboratory's row of "wt%",
+    "ppm", "mg/kg"...) and that neither `[tables.analyses.units]` nor
+    `[tables.analyses] unit` (one unit for all) covers; headers whose
+    bracketed text is not a unit (e.g. "SiO2 (XRF)") and words of a units
+    row that are not units; a header, a units row and the manifest that
     disagree; and manifest entries naming a column that is not in the table.
     Isotope ratios ("87Sr/86Sr") need no unit. Columns that do not look like
     analytes (dates, lab numbers, comments) are not checked.
@@ -780,7 +787,8 @@ def analysis_unit_undeclared(project: MapProject, ctx: CheckContext) -> Iterator
     Fix
     ---
     Put the unit in the header ("Cu (ppm)") or declare it in the manifest:
-    `[tables.analyses.units]` then `"Cu" = "ppm"`.
+    `[tables.analyses.units]` then `"Cu" = "ppm"`, or `unit = "ppm"` under
+    `[tables.analyses]` when every analyte of the sheet is in one unit.
 
     Example
     -------
