@@ -213,7 +213,7 @@ def usable(data: dict[str, Any]) -> dict[str, Any]:
 def with_defaults(data: dict[str, Any]) -> dict[str, Any]:
     """A copy of the manifest with the default field names filled in per role."""
     out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in data.items()}
-    layers = {}
+    layers: dict[str, Any] = {}
     for role, spec in (data.get("layers") or {}).items():
         if role in LINE_KEYS and isinstance(spec, list):
             layers[role] = [line_defaults(role, s) for s in spec if isinstance(s, dict)]

@@ -500,7 +500,8 @@ def combine_lines(parts: list[Layer], crs: pyproj.CRS | None, notes: list[str]) 
     kind_col = named.pop() if len(named) == 1 else "kind"
     certain = {str(p.spec["certainty_field"]) for p in parts if p.field("certainty_field")}
     cert_col = (certain.pop() if len(certain) == 1 else "certainty") if certain else None
-    frames, ids, kinds, certs = [], [], [], []
+    frames, ids, kinds = [], [], []
+    certs: list[np.ndarray] = []
     origin: dict[str, tuple[str, str]] = {}
     for part in parts:
         frame = part.frame
@@ -517,7 +518,8 @@ def combine_lines(parts: list[Layer], crs: pyproj.CRS | None, notes: list[str]) 
         origin.update(zip(combined.tolist(), ((part.role, str(i)) for i in own)))
         ids.append(combined)
         kinds.append(_kind_texts(part))
-        certs.append(part.text("certainty_field") if part.field("certainty_field") else np.full(len(own), None, dtype=object))
+        cert = part.text("certainty_field")
+        certs.append(cert if cert is not None else np.full(len(own), None, dtype=object))
     table = pd.concat([a for a, _ in frames], ignore_index=True) if frames else pd.DataFrame()
     table[kind_col] = np.concatenate(kinds)
     if cert_col is not None:

@@ -107,7 +107,7 @@ def manifest_text(inf: Inference, command_path: str) -> str:
     ]
     layer_roles = ("units", "lines", "extent", "samples", "structures")
     table_roles = ("legend", "analyses")
-    line_keys = [r for r in ("contacts", "faults", "frame") if r in inf.placed]
+    line_keys: list[str] = [r for r in ("contacts", "faults", "frame") if r in inf.placed]
     line_keys += [r for r in inf.placed if r.startswith("lines[")]
     if not any(r in inf.placed for r in layer_roles) and not line_keys:
         lines.append("[layers]")
