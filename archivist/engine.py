@@ -116,7 +116,7 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                 with step.item(info.id):
                     try:
                         for hit in info.func(project, ctx) or ():
-                            findings.append(to_finding(info, hit, severity, forced))
+                            findings.append(to_finding(info, project.own_names(hit), severity, forced))
                     except GEOSException as exc:
                         findings.append(rule_failed(info, exc))
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []

@@ -21,6 +21,7 @@ import pyproj
 
 from . import vectorio
 from .fileset import SIDE_FILE_SUFFIXES
+from .manifest import LINE_KEYS
 from .readers import TABLE_SUFFIXES, VECTOR_SUFFIXES, read_table, spreadsheet_errors
 
 # Field names, best first. Compared without case.
@@ -46,6 +47,7 @@ OXIDE = re.compile(r"^(SiO2|TiO2|Al2O3|Fe2O3T?|FeOT?|MnO|MgO|CaO|Na2O|K2O|P2O5)\
 KIND_VALUES = ("contact", "fault", "boundary", "thrust", "dyke", "dike", "unconformity", "shear", "axial")
 CERTAINTY_VALUES = ("certain", "approximate", "approx", "inferred", "concealed", "uncertain", "accurate", "queried")
 SKIP_DIRS = {"__pycache__", "node_modules"}
+LAYER_KEYS = ("units", "lines", "contacts", "faults", "frame", "extent", "samples", "structures")  # as written in [layers]
 MAX_DEPTH = 3
 SAMPLE_ROWS = 5000  # values looked at per field
 
@@ -313,6 +315,35 @@ def _legend(sources: list[Source]) -> tuple[Source | None, str | None]:
     return (best[1], best[2]) if best else (None, None)
 
 
+LINE_KEY_WORDS = (
+    ("contacts", re.compile(r"contact", re.I)),
+    ("faults", re.compile(r"fault|thrust", re.I)),
+    ("frame", re.compile(r"frame|boundary|border|neatline|outline", re.I)),
+)
+
+
+def _line_key(name: str) -> str | None:
+    """The [layers] key a line layer's name suggests (``contacts``, ``faults``, ``frame``); None for none or several."""
+    keys = [key for key, words in LINE_KEY_WORDS if words.search(name)]
+    return keys[0] if len(keys) == 1 else None
+
+
+def _entry_name(src: Source, taken: set[Any]) -> str:
+    """A name for a [[layers.lines]] entry: its layer or file name, made distinct."""
+    base = re.sub(r"[^A-Za-z0-9_.-]+", "_", src.layer or src.path.stem).strip("_.-") or "lines"
+    name, n = base, 2
+    while name in taken:
+        name, n = f"{base}_{n}", n + 1
+    return name
+
+
+def _certainty(src: Source, spec: dict[str, Any], reasons: list[str], kind: str | None) -> None:
+    cert, cwhy = _field_by_values(src, CERTAINTY_NAMES, CERTAINTY_VALUES)
+    if cert and cert != kind:
+        spec["certainty_field"] = cert
+        reasons.append(f"certainty field '{cert}': {cwhy}")
+
+
 def infer(path: Path) -> Inference:
     """Guess a manifest for the project folder ``path``, or for the GeoPackage ``path`` alone.
 
@@ -383,30 +414,44 @@ def _infer(path: Path) -> Inference:
         if EXTENT_WORDS.search(name) or (s.features is not None and s.features <= 2 and "units" in placed):
             place("extent", s, s.spec(), [f"polygons named '{name}'" if EXTENT_WORDS.search(name) else f"{s.features} polygon(s) besides the units"])
 
-    # lines
+    # lines: one layer with a kind field is `lines`; layers named for one kind (contacts, faults,
+    # the frame) get that key and its kind; any other line layers are entries of [[layers.lines]]
     lines = [s for s in sources if s.geometry == "LineString"]
     ranked_lines: list[tuple[tuple[bool, bool, int], Source, str | None, str]] = []
     for s in lines:
         kind, kwhy = _field_by_values(s, KIND_NAMES, KIND_VALUES)
         ranked_lines.append(((kind is not None, bool(LINE_WORDS.search(s.layer or s.path.stem)), s.features or 0), s, kind, kwhy))
     ranked_lines.sort(key=lambda r: r[0], reverse=True)
-    if ranked_lines:
-        _, s, kind, kwhy = ranked_lines[0]
+    general: list[tuple[Source, str | None, str, str | None]] = []  # (source, kind field, why, key its name suggests)
+    for _, s, kind, kwhy in ranked_lines:
+        key = _line_key(s.layer or s.path.stem)
+        if key is not None and key not in placed and not (len(lines) == 1 and kind):  # one layer with kinds stays `lines`
+            if kind is not None and kind.lower() not in KIND_NAMES:
+                kind = None  # in a layer of one kind, a field is its kind only by its name ("Hask Fault" is a fault's name)
+            spec = s.spec()
+            reasons = [f"lines named '{s.layer or s.path.stem}': every line is a {LINE_KEYS[key]}"]
+            if kind:
+                spec["kind_field"] = kind
+                reasons = [f"lines named '{s.layer or s.path.stem}'; kind field '{kind}': {kwhy} (lines with it empty are {LINE_KEYS[key]}s)"]
+            _certainty(s, spec, reasons, kind)
+            place(key, s, spec, ["; ".join(reasons)])
+        else:
+            general.append((s, kind, kwhy, key))
+    for i, (s, kind, kwhy, _) in enumerate(general):
         spec = s.spec()
         reasons, confirm = ["lines"], []
         if kind:
             spec["kind_field"] = kind
             reasons.append(f"kind field '{kind}': {kwhy}")
         else:
-            confirm.append(f"no field naming the kind of line (contact, fault…) was recognised (fields: {', '.join(s.fields) or 'none'}); set kind_field")
-        cert, cwhy = _field_by_values(s, CERTAINTY_NAMES, CERTAINTY_VALUES)
-        if cert and cert != kind:
-            spec["certainty_field"] = cert
-            reasons.append(f"certainty field '{cert}': {cwhy}")
-        place("lines", s, spec, ["; ".join(reasons)], confirm)
-        for _, other, _, _ in ranked[1:]:
-            unplaced.append((other.label, "another line layer: archivist reads one lines layer; merge contacts, faults and boundaries into it with a kind field"))
-            used.add(id(other))
+            confirm.append(f"no field naming the kind of line (contact, fault…) was recognised (fields: {', '.join(s.fields) or 'none'}); "
+                           "set kind_field, or kind for a layer of one kind")
+        _certainty(s, spec, reasons, kind)
+        if len(general) == 1:
+            place("lines", s, spec, ["; ".join(reasons)], confirm)
+        else:  # several: a list, each entry named after its layer or file
+            spec = {"name": _entry_name(s, {p.spec.get("name") for p in placed.values()} | set(LINE_KEYS)), **spec}
+            place(f"lines[{i}]", s, spec, ["; ".join(reasons)], confirm)
 
     # points: structures (azimuth and dip), samples (a sample id)
     points = [s for s in sources if s.geometry == "Point"]
@@ -498,7 +543,10 @@ def _infer(path: Path) -> Inference:
                 why = f"a table with columns {', '.join(s.fields[:12])}{'…' if len(s.fields) > 12 else ''}: no role recognised"
             unplaced.append((s.label, why))
 
-    layers = {r: placed[r].spec for r in ("units", "lines", "extent", "samples", "structures") if r in placed}
+    layers: dict[str, Any] = {r: placed[r].spec for r in LAYER_KEYS if r in placed}
+    listed = [placed[r].spec for r in placed if r.startswith("lines[")]
+    if listed:
+        layers["lines"] = listed
     tables = {r: placed[r].spec for r in ("legend", "analyses") if r in placed}
     manifest: dict[str, Any] = {"map": {"title": title, "version": "0.1.0", "scale": 25000}, "layers": layers}
     if tables:

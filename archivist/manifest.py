@@ -10,6 +10,7 @@ from __future__ import annotations
 import copy
 import json
 import tomllib
+from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -41,6 +42,56 @@ REQUIRED_FIELDS: dict[str, tuple[str, ...]] = {
     "samples": ("id_field",),
     "structures": ("kind_field", "azimuth_field", "dip_field"),
 }
+# Line layers: the keys of [layers] that hold lines, and the kind each key gives
+# its lines when the entry names neither `kind` nor `kind_field`. `lines` is the
+# general one: its lines carry their kind in a field (default `kind`), and it
+# may be a list of entries (`[[layers.lines]]`), one per file or layer.
+LINE_KEYS: dict[str, str | None] = {"lines": None, "contacts": "contact", "faults": "fault", "frame": "map-boundary"}
+
+
+@dataclass(frozen=True)
+class LineSource:
+    """One declared line layer: its name in findings, where the manifest declares it, and its entry."""
+
+    name: str  # "faults", or a list entry's `name`
+    key: str  # "layers.faults", "layers.lines[1]"
+    spec: dict[str, Any]
+
+
+def line_sources(layers: dict[str, Any]) -> list[LineSource]:
+    """The line layers of a manifest's ``[layers]`` (defaults filled in), in declaration order.
+
+    ``[layers.lines]`` (one entry, or a list), ``[layers.contacts]``,
+    ``[layers.faults]`` and ``[layers.frame]`` each name a file (and layer);
+    a list entry is named by its ``name`` key, else by its layer or file
+    name. Entries without a ``path`` are left out (the schema reports them).
+    """
+    out: list[LineSource] = []
+    for key in LINE_KEYS:
+        value = layers.get(key)
+        entries = list(enumerate(value)) if isinstance(value, list) else [(None, value)]
+        for i, spec in entries:
+            if not isinstance(spec, dict) or not isinstance(spec.get("path"), str):
+                continue
+            if i is None:
+                name, where = key, f"layers.{key}"
+            else:
+                name = str(spec.get("name") or spec.get("layer") or Path(spec["path"]).stem)
+                where = f"layers.{key}[{i}]"
+            out.append(LineSource(name, where, spec))
+    return out
+
+
+def line_defaults(key: str, spec: dict[str, Any]) -> dict[str, Any]:
+    """A line layer entry with its defaults: the kind its key gives, or ``kind_field = "kind"``."""
+    fixed = LINE_KEYS.get(key)
+    if "kind" in spec or "kind_field" in spec:
+        return dict(spec)
+    if fixed is not None:
+        return {"kind": fixed, **spec}
+    return {**LAYER_DEFAULTS["lines"], **spec}
+
+
 # The legend has no default field names: without a `*_field` key its columns
 # are found by their usual spellings (archivist.vocab.legend).
 TABLE_DEFAULTS: dict[str, dict[str, str]] = {
@@ -162,9 +213,13 @@ def usable(data: dict[str, Any]) -> dict[str, Any]:
 def with_defaults(data: dict[str, Any]) -> dict[str, Any]:
     """A copy of the manifest with the default field names filled in per role."""
     out = {k: (dict(v) if isinstance(v, dict) else v) for k, v in data.items()}
-    layers = {}
+    layers: dict[str, Any] = {}
     for role, spec in (data.get("layers") or {}).items():
-        if isinstance(spec, dict):
+        if role in LINE_KEYS and isinstance(spec, list):
+            layers[role] = [line_defaults(role, s) for s in spec if isinstance(s, dict)]
+        elif role in LINE_KEYS and isinstance(spec, dict):
+            layers[role] = line_defaults(role, spec)
+        elif isinstance(spec, dict):
             layers[role] = {**LAYER_DEFAULTS.get(role, {}), **spec}
     out["layers"] = layers
     tables = {}

@@ -54,6 +54,14 @@ class Layer:
     ids: np.ndarray
     spec: dict[str, Any]
     measured: int = 0  # features whose geometry carries M (measure) values in the file; GDAL's reader drops them
+    group: str = ""  # the role whose fields and geometry the layer has: "lines" for a layer of contacts; default its role
+    parts: tuple["Layer", ...] = ()  # the mapper's own layers this one combines (several line layers), else empty
+    origin: dict[str, tuple[str, str]] = field(default_factory=dict)  # combined id -> (own layer, own feature id)
+    key: str = ""  # where the manifest declares it: "layers.units", "layers.lines[1]"
+
+    def __post_init__(self) -> None:
+        self.group = self.group or self.role
+        self.key = self.key or f"layers.{self.role}"
 
     @property
     def crs(self) -> pyproj.CRS | None:
@@ -168,6 +176,33 @@ class MapProject:
     def name(self) -> str:
         return str(self.manifest.get("map", {}).get("title") or self.root.name)
 
+    @property
+    def sources(self) -> dict[str, Layer]:
+        """The layers as the mapper declared them: the combined lines replaced by its own line layers."""
+        out: dict[str, Layer] = {}
+        for role, layer in self.layers.items():
+            if layer.parts:
+                out.update((part.role, part) for part in layer.parts)
+            else:
+                out[role] = layer
+        return out
+
+    def own_names(self, hit: Hit) -> Hit:
+        """A hit on the combined lines, named by the mapper's own layer and feature ids.
+
+        A hit whose features all come from one line layer (``faults``) gets
+        that layer and the features' own ids; a hit spanning several keeps
+        ``lines`` and the combined ids (``faults:3``, ``contacts:12``).
+        """
+        lines = self.layers.get("lines")
+        if hit.layer != "lines" or lines is None or not lines.origin or not hit.features:
+            return hit
+        found = [lines.origin.get(str(f)) for f in hit.features]
+        if any(o is None for o in found) or len({o[0] for o in found if o is not None}) != 1:
+            return hit
+        own = [o for o in found if o is not None]
+        return replace(hit, layer=own[0][0], features=tuple(o[1] for o in own))
+
     def has(self, role: str) -> bool:
         if role == "archive":
             return self.archive is not None
@@ -215,26 +250,32 @@ def _resolve(root: Path, rel: str) -> Path:
     return (root / rel).resolve() if not Path(rel).is_absolute() else Path(rel)
 
 
-def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit]) -> Layer | None:
+def load_layer(
+    root: Path, role: str, spec: dict[str, Any], problems: list[Hit], *, key: str | None = None, group: str | None = None
+) -> Layer | None:
+    """One layer of the manifest; ``role`` names it in findings, ``key`` is its manifest key (default ``layers.<role>``),
+    ``group`` the role whose fields and geometry it has (a line layer's is ``lines``)."""
+    where = key or f"layers.{role}"
+    group = group or role
     rel = spec["path"]
     path = _resolve(root, rel)
     source = f"{rel}:{spec['layer']}" if spec.get("layer") else rel
     if not path.exists():
-        problems.append(Hit(f"layers.{role}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
+        problems.append(Hit(f"{where}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
         return None
     if path.suffix.lower() in TABLE_SUFFIXES and spec.get("x_field"):
-        return _layer_from_table(path, role, spec, rel, problems)
+        return _layer_from_table(path, role, spec, rel, problems, where, group)
     try:
         names = [n for n, _ in vectorio.list_layers(path, label=rel)]
     except vectorio.VectorReadError as exc:
-        problems.append(Hit(f"layers.{role}: {exc}.", layer=role, rule="layer-unreadable"))
+        problems.append(Hit(f"{where}: {exc}.", layer=role, rule="layer-unreadable"))
         return None
     name = spec.get("layer")
     if name is None:
         if len(names) != 1:
             problems.append(
                 Hit(
-                    f"layers.{role}: '{rel}' holds {len(names)} layers ({', '.join(names)}); name one with layers.{role}.layer.",
+                    f"{where}: '{rel}' holds {len(names)} layers ({', '.join(names)}); name one with {where}.layer.",
                     layer=role,
                     rule="layer-missing",
                 )
@@ -243,7 +284,7 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
         name = names[0]
     elif name not in names:
         problems.append(
-            Hit(f"layers.{role}: '{rel}' has no layer '{name}' (layers: {', '.join(names) or 'none'}).", layer=role, rule="layer-missing")
+            Hit(f"{where}: '{rel}' has no layer '{name}' (layers: {', '.join(names) or 'none'}).", layer=role, rule="layer-missing")
         )
         return None
     try:
@@ -251,15 +292,15 @@ def load_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit])
             warnings.simplefilter("always", UserWarning)
             frame = vectorio.read_dataframe(path, layer=name, label=rel, fid_as_index=True, on_invalid="ignore")
     except vectorio.VectorReadError as exc:
-        problems.append(Hit(f"layers.{role}: {exc}.", layer=role, rule="layer-unreadable"))
+        problems.append(Hit(f"{where}: {exc}.", layer=role, rule="layer-unreadable"))
         return None
     if not isinstance(frame, gpd.GeoDataFrame):
-        problems.append(Hit(f"layers.{role}: '{source}' has no geometry column.", layer=role, rule="layer-unreadable"))
+        problems.append(Hit(f"{where}: '{source}' has no geometry column.", layer=role, rule="layer-unreadable"))
         return None
     attributes = True
     if path.suffix.lower() == ".shp":
-        attributes = _shapefile_sidecars(role, path, rel, problems)
-    layer = _finish_layer(role, path, source, frame, spec, problems, attributes=attributes)
+        attributes = _shapefile_sidecars(role, path, rel, problems, where)
+    layer = _finish_layer(role, path, source, frame, spec, problems, attributes=attributes, where=where, group=group)
     declared = False
     for w in caught:  # the warnings of one read, not of every feature
         if MEASURED_WARNING in str(w.message):
@@ -309,16 +350,16 @@ def _measured_features(path: Path, layer: str, rel: str, frame: gpd.GeoDataFrame
         return present
 
 
-def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit]) -> bool:
+def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit], where: str) -> bool:
     """Report a missing ``.dbf`` or an unusable ``.prj`` beside a shapefile; False when there are no attributes."""
     prj = vectorio.prj_problem(path)
     if prj:
-        problems.append(Hit(f"layers.{role}: {prj}; save the layer again from the GIS with its CRS.", layer=role, rule="layer-unreadable"))
+        problems.append(Hit(f"{where}: {prj}; save the layer again from the GIS with its CRS.", layer=role, rule="layer-unreadable"))
     if vectorio.sidecar(path, ".dbf") is None:
         dbf = Path(rel).with_suffix(".dbf").as_posix()
         problems.append(
             Hit(
-                f"layers.{role}: '{dbf}' is missing beside '{rel}', so the attributes of its features (unit codes and every other field) "
+                f"{where}: '{dbf}' is missing beside '{rel}', so the attributes of its features (unit codes and every other field) "
                 "cannot be read; copy the .dbf from where the shapefile came from.",
                 layer=role,
                 rule="layer-unreadable",
@@ -328,7 +369,7 @@ def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit]) ->
     return True
 
 
-def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, problems: list[Hit]) -> Layer | None:
+def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, problems: list[Hit], where: str, group: str) -> Layer | None:
     data, hits = read_table(path, rel, spec.get("sheet"))
     problems.extend(hits)
     if data is None:
@@ -337,7 +378,7 @@ def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, pro
     xf, yf = spec.get("x_field"), spec.get("y_field")
     for key, col in (("x_field", xf), ("y_field", yf)):
         if col not in frame.columns:
-            problems.append(Hit(f"layers.{role}: field '{col}' ({key}) is not in '{rel}'.", layer=role, rule="field-missing"))
+            problems.append(Hit(f"{where}: field '{col}' ({key}) is not in '{rel}'.", layer=role, rule="field-missing"))
             return None
     x = pd.to_numeric(frame[xf], errors="coerce").to_numpy(dtype=float)
     y = pd.to_numeric(frame[yf], errors="coerce").to_numpy(dtype=float)
@@ -345,41 +386,43 @@ def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, pro
     geom[np.isnan(x) | np.isnan(y)] = None
     crs = None
     if spec.get("crs"):
-        crs, hit = parse_crs(spec["crs"], f"layers.{role}.crs")
+        crs, hit = parse_crs(spec["crs"], f"{where}.crs")
         if hit:
             problems.append(hit)
     gdf = gpd.GeoDataFrame(frame.drop(columns=[xf, yf]), geometry=geom, crs=crs)
     rows = np.asarray(data.lines, dtype=np.int64) if len(data.lines) == len(gdf) else np.arange(len(gdf)) + data.header_row + 1
     gdf.index = pd.Index(rows, name="row")  # the mapper's own row numbers, blank rows counted
-    return _finish_layer(role, path, rel, gdf, spec, problems)
+    return _finish_layer(role, path, rel, gdf, spec, problems, where=where, group=group)
 
 
-def _finish_layer(role, path, source, frame, spec, problems, *, attributes: bool = True) -> Layer:
+def _finish_layer(role, path, source, frame, spec, problems, *, attributes: bool = True, where: str = "", group: str = "") -> Layer:
     """A :class:`Layer` from a read frame; fields the manifest names but the data lacks become hits.
 
     ``attributes`` False (a shapefile without its .dbf) reports no missing field: the cause is reported once.
     """
-    for key in mf.REQUIRED_FIELDS.get(role, ()) if attributes else ():
+    where = where or f"layers.{role}"
+    group = group or role
+    for key in mf.REQUIRED_FIELDS.get(group, ()) if attributes else ():
         col = spec.get(key)
         if col is not None and col not in frame.columns:
             problems.append(
                 Hit(
-                    f"layers.{role}: field '{col}' ({key}) is not in '{source}' (fields: {', '.join(map(str, frame.columns.drop('geometry')))}).",
+                    f"{where}: field '{col}' ({key}) is not in '{source}' (fields: {', '.join(map(str, frame.columns.drop('geometry')))}).",
                     layer=role,
                     rule="field-missing",
                 )
             )
     for key, col in spec.items() if attributes else ():
-        if key.endswith("_field") and key not in mf.REQUIRED_FIELDS.get(role, ()) and key not in mf.LAYER_DEFAULTS.get(role, {}):
+        if key.endswith("_field") and key not in mf.REQUIRED_FIELDS.get(group, ()) and key not in mf.LAYER_DEFAULTS.get(group, {}):
             if col not in frame.columns and key not in ("x_field", "y_field"):
-                problems.append(Hit(f"layers.{role}: field '{col}' ({key}) is not in '{source}'.", layer=role, rule="field-missing"))
+                problems.append(Hit(f"{where}: field '{col}' ({key}) is not in '{source}'.", layer=role, rule="field-missing"))
     ids = None
     id_col = spec.get("id_field")
     if id_col and id_col in frame.columns:
         ids = text_column(frame[id_col])
     if ids is None:
         ids = np.asarray(frame.index.astype(str), dtype=object)
-    return Layer(role, path, source, frame, ids, spec)
+    return Layer(role, path, source, frame, ids, spec, group=group)
 
 
 def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit], notes: list[str] | None = None) -> Table | None:
@@ -534,6 +577,109 @@ def _trim(text: str, limit: int = 80) -> str:
     return text if len(text) <= limit else text[: limit - 1].rstrip(", ") + "…"
 
 
+def load_lines(
+    root: Path, layers: dict[str, Any], crs: pyproj.CRS | None, problems: list[Hit], notes: list[str], progress: Progress
+) -> Layer | None:
+    """The manifest's line layers as the one ``lines`` layer the checks read.
+
+    One ``[layers.lines]`` with a kind field is read as it is. Several line
+    layers (``[layers.contacts]``, ``[layers.faults]``, ``[layers.frame]``,
+    ``[[layers.lines]]``...) are read one by one and combined: each line's
+    kind is its layer's field or fixed ``kind``, its id is ``<layer>:<id>``
+    (``faults:3``), and the layer keeps its parts, so CRS and metadata checks
+    see each file and findings name the mapper's own layer and feature
+    (:meth:`MapProject.own_names`). A part in another CRS than the map's is
+    reprojected to the map CRS for the combined layer (crs-mismatch still
+    reports the part).
+    """
+    declared = mf.line_sources(layers)
+    if not declared:
+        return None
+    if len(declared) == 1 and declared[0].key == "layers.lines" and "kind" not in declared[0].spec:
+        with progress.step(f"reading {_label(declared[0].spec)}"):
+            return load_layer(root, "lines", declared[0].spec, problems)
+    taken = {r for r in LAYER_ROLES if r != "lines" and r in layers}
+    parts: list[Layer] = []
+    for src in declared:
+        if src.name in taken:
+            problems.append(
+                Hit(f"{src.key}: the name '{src.name}' is taken by another layer; give this one its own name = \"...\".",
+                    layer="manifest", rule="manifest-invalid")
+            )
+            continue
+        taken.add(src.name)
+        with progress.step(f"reading {_label(src.spec)}"):
+            part = load_layer(root, src.name, src.spec, problems, key=src.key, group="lines")
+        if part is not None:
+            part.key = src.key
+            parts.append(part)
+    if not parts:
+        return None
+    return combine_lines(parts, crs, notes)
+
+
+def _kind_texts(part: Layer) -> np.ndarray:
+    """Each line's kind as the part gives it: its kind field, empty cells filled by its fixed ``kind``."""
+    fixed = part.spec.get("kind")
+    values = part.text("kind_field")
+    if values is None:
+        if fixed is None:
+            return np.full(len(part.frame), None, dtype=object)  # the missing field is reported as field-missing
+        return np.full(len(part.frame), str(fixed), dtype=object)
+    if fixed is not None:
+        values = np.where(pd.Series(values, dtype=object).eq("").to_numpy(), str(fixed), values)
+    return np.asarray(values, dtype=object)
+
+
+def combine_lines(parts: list[Layer], crs: pyproj.CRS | None, notes: list[str]) -> Layer:
+    """One ``lines`` layer from the mapper's line layers ``parts`` (see :func:`load_lines`)."""
+    target = crs or next((p.crs for p in parts if p.crs is not None), None)
+    named = {str(p.spec["kind_field"]) for p in parts if p.spec.get("kind_field")}
+    kind_col = named.pop() if len(named) == 1 else "kind"
+    certain = {str(p.spec["certainty_field"]) for p in parts if p.field("certainty_field")}
+    cert_col = (certain.pop() if len(certain) == 1 else "certainty") if certain else None
+    frames, ids, kinds = [], [], []
+    certs: list[np.ndarray] = []
+    origin: dict[str, tuple[str, str]] = {}
+    for part in parts:
+        frame = part.frame
+        if part.crs is not None and target is not None and not part.crs.equals(target, ignore_axis_order=True):
+            with np.errstate(invalid="ignore", over="ignore"):
+                frame = frame.to_crs(target)
+            notes.append(f"Line layer {part.role} ({part.source}) is in {crs_label(part.crs)}: reprojected to "
+                         f"{crs_label(target)} to be checked with the other line layers.")
+        attrs = pd.DataFrame(frame.drop(columns=frame.geometry.name))
+        attrs.index = pd.RangeIndex(len(attrs))
+        frames.append((attrs, np.asarray(frame.geometry.array, dtype=object)))
+        own = np.asarray(part.ids, dtype=object)
+        combined = np.char.add(f"{part.role}:", own.astype(str)).astype(object)
+        origin.update(zip(combined.tolist(), ((part.role, str(i)) for i in own)))
+        ids.append(combined)
+        kinds.append(_kind_texts(part))
+        cert = part.text("certainty_field")
+        certs.append(cert if cert is not None else np.full(len(own), None, dtype=object))
+    table = pd.concat([a for a, _ in frames], ignore_index=True) if frames else pd.DataFrame()
+    table[kind_col] = np.concatenate(kinds)
+    if cert_col is not None:
+        table[cert_col] = np.concatenate(certs)
+    geoms = np.concatenate([g for _, g in frames])
+    gdf = gpd.GeoDataFrame(table, geometry=geoms, crs=target)
+    spec: dict[str, Any] = {"kind_field": kind_col}
+    if cert_col is not None:
+        spec["certainty_field"] = cert_col
+    return Layer(
+        "lines",
+        parts[0].path,
+        " + ".join(p.source for p in parts),
+        gdf,
+        np.concatenate(ids),
+        spec,
+        measured=sum(p.measured for p in parts),
+        parts=tuple(parts),
+        origin=origin,
+    )
+
+
 def _label(spec: dict[str, Any]) -> str:
     """A file (and layer or sheet) as the mapper wrote it in the manifest."""
     inner = spec.get("layer") or spec.get("sheet")
@@ -598,7 +744,11 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
     layers: dict[str, Layer] = {}
     for role in LAYER_ROLES:
         spec = manifest["layers"].get(role)
-        if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+        if role == "lines":
+            lines = load_lines(root, manifest["layers"], crs, problems, notes, progress)
+            if lines is not None:
+                layers[role] = lines
+        elif isinstance(spec, dict) and isinstance(spec.get("path"), str):
             with progress.step(f"reading {_label(spec)}"):
                 layer = load_layer(root, role, spec, problems)
             if layer is not None:
@@ -611,7 +761,7 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
                 table = load_table(root, role, spec, problems, notes)
             if table is not None:
                 tables[role] = table
-    files = sorted({lay.path for lay in layers.values()} | {t.path for t in tables.values()})
+    files = sorted({p.path for lay in layers.values() for p in (lay.parts or (lay,))} | {t.path for t in tables.values()})
     return MapProject(
         root=root,
         manifest=manifest,

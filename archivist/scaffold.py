@@ -20,6 +20,9 @@ from .tomltext import toml_value
 ROLE_TITLES = {
     "units": "Unit polygons",
     "lines": "Lines: contacts, faults, the map boundary",
+    "contacts": "Contacts (every line's kind is contact unless kind_field says otherwise)",
+    "faults": "Faults (every line's kind is fault unless kind_field says otherwise)",
+    "frame": "The map frame (every line's kind is map-boundary unless kind_field says otherwise)",
     "extent": "The map's outer boundary",
     "samples": "Sample locations",
     "structures": "Orientation measurements",
@@ -50,7 +53,8 @@ def _kv(key: str, value: Any, comment: str | None = None) -> str:
 
 
 def _block(inf: Inference, p: Placed, section: str) -> list[str]:
-    out = [f"# {ROLE_TITLES[p.role]}: {_one_line(p.source.described)}."]
+    role = p.role.split("[")[0]  # "lines[1]": an entry of [[layers.lines]]
+    out = [f"# {ROLE_TITLES[role]}: {_one_line(p.source.described)}."]
     for why in p.why:
         out.append(f"# Recognised by: {_one_line(why)}.")
     crs_note = dict(inf.crs_disagree).get(p.source.label)
@@ -61,7 +65,7 @@ def _block(inf: Inference, p: Placed, section: str) -> list[str]:
             out.append(f"# CONFIRM: this layer's CRS ({_one_line(crs_note)}) differs from the map's; `archivist check` will report it.")
     for c in p.confirm:
         out.append(f"# CONFIRM: {_one_line(c)}.")
-    out.append(f"[{section}.{p.role}]")
+    out.append(f"[[{section}.{role}]]" if role != p.role else f"[{section}.{role}]")
     for key, value in p.spec.items():
         out.append(_kv(key, value))
     return out
@@ -103,11 +107,19 @@ def manifest_text(inf: Inference, command_path: str) -> str:
     ]
     layer_roles = ("units", "lines", "extent", "samples", "structures")
     table_roles = ("legend", "analyses")
-    if not any(r in inf.placed for r in layer_roles):
+    line_keys: list[str] = [r for r in ("contacts", "faults", "frame") if r in inf.placed]
+    line_keys += [r for r in inf.placed if r.startswith("lines[")]
+    if not any(r in inf.placed for r in layer_roles) and not line_keys:
         lines.append("[layers]")
     for section, roles in (("layers", layer_roles), ("tables", table_roles)):
         for role in roles:
             p = inf.placed.get(role)
+            if role == "lines":  # line layers of their own ([layers.contacts]...), then [layers.lines] if any
+                for key in line_keys:
+                    lines += _block(inf, inf.placed[key], section)
+                    lines.append("")
+                if p is None and line_keys:
+                    continue
             if p is not None:
                 lines += _block(inf, p, section)
             else:
@@ -171,6 +183,10 @@ def write_manifest(path: str | Path) -> tuple[Path, Inference]:
     else:
         folder = p
     target = folder / MANIFEST_NAME
+    if not target.exists() and p.is_dir():
+        from .batch import refuse_folder_of_projects
+
+        refuse_folder_of_projects(p)
     if target.exists():
         raise ArchivistError(f"{target}: already exists; archivist init never replaces a manifest (edit it, or move it away first)")
     inf = infer(p)

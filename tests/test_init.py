@@ -271,3 +271,55 @@ def test_a_layer_declared_as_mixed_geometry_is_judged_by_its_features(tmp_path):
     archivist.init_project(root)
     m = tomllib.loads((root / "archivist.toml").read_text(encoding="utf-8"))
     assert m["layers"]["lines"] == {"path": "map.gpkg", "layer": "linework", "kind_field": "kind"}
+
+
+def test_contacts_and_faults_in_files_of_their_own_are_both_declared(tmp_path):
+    root = tmp_path / "field"
+    root.mkdir()
+    gpd.GeoDataFrame({"unit": ["A", "B"]}, geometry=[box(0, 0, 100, 100), box(100, 0, 200, 100)], crs=CRS).to_file(root / "units.shp")
+    gpd.GeoDataFrame({"certainty": ["certain"]}, geometry=[LineString([(100, 0), (100, 100)])], crs=CRS).to_file(root / "contacts.shp")
+    gpd.GeoDataFrame({"name": ["Hask Fault"]}, geometry=[LineString([(150, 0), (150, 100)])], crs=CRS).to_file(root / "faults.shp")
+    frame = LineString([(0, 0), (0, 100), (200, 100), (200, 0), (0, 0)])
+    gpd.GeoDataFrame({"id": [1]}, geometry=[frame], crs=CRS).to_file(root / "map_frame.shp")
+    result = run("init", root)
+    assert result.exit_code == 0, result.output
+    text = (root / "archivist.toml").read_text(encoding="utf-8")
+    m = tomllib.loads(text)
+    assert validate_manifest(m, "archivist.toml") == []
+    assert m["layers"]["contacts"] == {"path": "contacts.shp", "certainty_field": "certainty"}
+    assert m["layers"]["faults"] == {"path": "faults.shp"}
+    assert m["layers"]["frame"] == {"path": "map_frame.shp"}
+    assert "lines" not in m["layers"]
+    assert "every line is a fault" in text
+    project = archivist.load_project(root)
+    kinds = dict(zip(project.layers["lines"].ids, project.layers["lines"].frame["kind"]))
+    assert kinds == {"contacts:0": "contact", "faults:0": "fault", "frame:0": "map-boundary"}
+    assert [f.rule for f in archivist.check(root).findings if f.family == "linework"] == []
+
+
+def test_line_layers_of_no_one_kind_become_a_list(tmp_path):
+    root = tmp_path / "field"
+    root.mkdir()
+    gpd.GeoDataFrame({"unit": ["A"]}, geometry=[box(0, 0, 100, 100)], crs=CRS).to_file(root / "units.shp")
+    for name in ("dykes", "axial_traces"):
+        gpd.GeoDataFrame({"x": [1]}, geometry=[LineString([(10, 0), (10, 100)])], crs=CRS).to_file(root / f"{name}.shp")
+    assert run("init", root).exit_code == 0
+    text = (root / "archivist.toml").read_text(encoding="utf-8")
+    m = tomllib.loads(text)
+    assert [e["name"] for e in m["layers"]["lines"]] == ["axial_traces", "dykes"]
+    assert text.count("[[layers.lines]]") == 2 and "set kind_field, or kind" in text
+
+
+def test_init_on_a_folder_of_projects_says_so(tmp_path):
+    maps = tmp_path / "maps"
+    (maps / "north").mkdir(parents=True)
+    shutil.copytree(BUNDLE, maps / "south", ignore=shutil.ignore_patterns("*.py", "__pycache__"))
+    for f in DATA_FILES:
+        shutil.copy2(BUNDLE / f, maps / "north" / f)
+    shutil.copy2(BUNDLE / "archivist.toml", maps / "north" / "archivist.toml")
+    before = tree_digest(maps)
+    result = run("init", maps)
+    assert result.exit_code == 2
+    (line,) = result.output.strip().splitlines()
+    assert "a folder of map projects (north, south), each with its own archivist.toml" in line
+    assert tree_digest(maps) == before

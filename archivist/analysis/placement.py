@@ -93,7 +93,7 @@ def lonlat_boxes(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
 def place_layers(project: MapProject) -> dict[str, Placement]:
     """Every layer with a usable CRS (its own, else the map's) placed on the globe."""
     out: dict[str, Placement] = {}
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         crs = layer.crs or project.crs
         if crs is None:
             continue

@@ -31,10 +31,17 @@ from .options import emit_report, progress_for, progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
                   force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None) -> None:
-    """Check the map project at PATH (a folder or its archivist.toml).
+    """Check the map project at PATH (a folder or its archivist.toml), or each project in a folder of projects.
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
+    A folder of projects exits with the worst of its projects' codes.
     """
+    from ..batch import project_folders
+
+    if project_folders(path):  # a folder of projects, each with its own archivist.toml
+        from .folder import check_folder_run
+
+        sys.exit(check_folder_run(path, fmt, output, strict, only, rules, force, html_out, gpkg_out, quiet, verbose))
     from .. import engine
     from ..errors import ArchivistError
     from ..fsutil import guard_outputs

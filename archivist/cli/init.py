@@ -26,7 +26,8 @@ def init_command(path: Path) -> None:
 
     target, inf = write_manifest(path)
     click.echo(f"Wrote {printable(target)}")
-    order = ("units", "lines", "extent", "samples", "structures", "legend", "analyses")
+    listed = tuple(r for r in inf.placed if r.startswith("lines["))
+    order = ("units", "lines", "contacts", "faults", "frame", *listed, "extent", "samples", "structures", "legend", "analyses")
     for role in order:
         if role in inf.placed:
             click.echo(f"  {role:<10}  {printable(inf.placed[role].source.described)}")

@@ -38,6 +38,9 @@ from .tables import TextTable, column_text, text_table
 LAYER_TITLES = {
     "units": "Map units",
     "lines": "Contacts, faults and other map lines",
+    "contacts": "Contacts",
+    "faults": "Faults",
+    "frame": "Map frame",
     "extent": "Map extent",
     "samples": "Sample locations",
     "structures": "Structural measurements",
@@ -47,6 +50,9 @@ LAYER_TITLES = {
 LAYER_DESCRIPTIONS = {
     "units": "Polygons of the mapped units; together they tile the map.",
     "lines": "Geological lines: contacts, faults, the map boundary.",
+    "contacts": "Geological contacts between map units.",
+    "faults": "Faults.",
+    "frame": "The lines of the map frame (map boundary).",
     "extent": "The map's outer boundary.",
     "samples": "Where each sample was taken, with its attributes.",
     "structures": "Orientation measurements at stations.",
@@ -64,6 +70,17 @@ FIELD_DESCRIPTIONS = {
     ("legend", "unit_field"): "Map unit code (the key the layers refer to).",
     ("analyses", "sample_field"): "Sample identifier; a sample of the samples layer.",
 }
+
+
+def layer_title(role: str) -> str:
+    """A layer's title in the package; a line layer of the mapper's own name (``[[layers.lines]]``) is titled by it."""
+    return LAYER_TITLES.get(role) or f"Map lines: {role}"
+
+
+def layer_description(role: str) -> str:
+    return LAYER_DESCRIPTIONS.get(role) or f"Geological lines of the project's layer '{role}'."
+
+
 AZIMUTH = {
     "dip-direction": "Dip direction, in degrees clockwise from north.",
     "right-hand-rule": "Strike, in degrees clockwise from north; the dip is to the right looking along the strike (right-hand rule).",
@@ -98,6 +115,10 @@ class PreparedLayer:
     note: str | None
     geometry_type: str
     conventions: str = ""  # structures: the orientation conventions and north reference, for the README
+    group: str = ""  # the role whose fields the layer has ("lines" for a layer of contacts); default its role
+
+    def __post_init__(self) -> None:
+        self.group = self.group or self.role
 
     @property
     def count(self) -> int:
@@ -144,10 +165,9 @@ def prepare_layers(project: MapProject) -> list[PreparedLayer]:
     """The project's layers in role order, each in the map CRS with a ``fid`` column."""
     out = []
     target = _map_crs(project)
-    for role in LAYER_ROLES:
-        layer = project.layers.get(role)
-        if layer is None:
-            continue
+    sources = project.sources
+    for role in [r for g in LAYER_ROLES for r, lay in sources.items() if lay.group == g]:
+        layer = sources[role]
         frame = layer.frame
         note = None
         if frame.crs is None:
@@ -173,7 +193,7 @@ def prepare_layers(project: MapProject) -> list[PreparedLayer]:
         types = sorted(set(shapely.get_type_id(prepared.geometry.array).tolist()) - {-1})
         gtype = ", ".join(GEOMETRY_NAMES[t] for t in types) or "none"
         conventions = structure_vocab.convention_statement(layer) if role == "structures" else ""
-        out.append(PreparedLayer(role, prepared, layer.source, note, gtype, conventions))
+        out.append(PreparedLayer(role, prepared, layer.source, note, gtype, conventions, group=layer.group))
     return out
 
 
@@ -186,7 +206,7 @@ def write_geopackage(layers: list[PreparedLayer], path: Path, created: dt.dateti
                 path,
                 layer=pl.role,
                 driver="GPKG",
-                layer_options={"IDENTIFIER": LAYER_TITLES[pl.role], "DESCRIPTION": LAYER_DESCRIPTIONS[pl.role]},
+                layer_options={"IDENTIFIER": layer_title(pl.role), "DESCRIPTION": layer_description(pl.role)},
             )
 
 
@@ -291,8 +311,8 @@ def _axis_unit(crs: pyproj.CRS) -> str | None:
 
 def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
     """The attributes of a layer as a table (no geometry; points get their coordinates)."""
-    role = pl.role
-    spec = project.layers[role].spec
+    role, group = pl.role, pl.group
+    spec = project.sources[role].spec
     frame = pd.DataFrame(pl.frame.drop(columns=pl.frame.geometry.name))
     descriptions = {"fid": f"Feature id in map.gpkg (layer '{role}') and geojson/{role}.geojson."}
     units: dict[str, str] = {}
@@ -300,8 +320,8 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
     for key, col in spec.items():
         if not key.endswith("_field") or not isinstance(col, str):
             continue
-        if (role, key) in FIELD_DESCRIPTIONS:
-            descriptions[col] = FIELD_DESCRIPTIONS[(role, key)]
+        if (group, key) in FIELD_DESCRIPTIONS:
+            descriptions[col] = FIELD_DESCRIPTIONS[(group, key)]
         if key in ("id_field", "unit_field"):
             identifiers.add(col)
         if role == "structures" and key == "azimuth_field":
@@ -330,10 +350,13 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
         if unit:
             units[xname] = units[yname] = unit
     table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
-    table.title = LAYER_TITLES[role] + " (attributes)"
-    table.description = LAYER_DESCRIPTIONS[role] + " Attributes only; the geometries are in map.gpkg and the GeoJSON file."
+    table.title = layer_title(role) + " (attributes)"
+    table.description = layer_description(role) + " Attributes only; the geometries are in map.gpkg and the GeoJSON file."
     if pl.conventions:
         table.description += " " + pl.conventions
+    if group == "lines" and spec.get("kind"):
+        what = "Its lines are" if not spec.get("kind_field") else f"Lines with an empty '{spec['kind_field']}' are"
+        table.description += f" {what} of kind '{spec['kind']}', as declared in archivist.toml."
     return table
 
 
@@ -375,7 +398,7 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
         if role in project.tables:
             tables[role] = project_table(project, role)
     for role, table in tables.items():
-        if role in project.layers:
+        if role in project.sources:
             table.primary_key = ["fid"]
     legend = tables.get("legend")
     legend_unit = legend_column(project.tables["legend"], "unit") if "legend" in project.tables else None
@@ -394,5 +417,5 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
     sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
     if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):
         analyses.foreign_keys.append({"fields": [sample_field], "reference": {"resource": "samples", "fields": [sample_id]}})
-    order = list(LAYER_ROLES) + list(TABLE_ROLES)
+    order = [pl.role for pl in layers] + list(TABLE_ROLES)
     return [tables[r] for r in order if r in tables]

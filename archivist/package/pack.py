@@ -50,7 +50,7 @@ from . import datapackage as dp
 from .bagwrite import Hashes, write_bag
 from .deposit import Deposit, SourceNames, read_deposit, source_names
 from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
-from .layers import LAYER_TITLES, PreparedLayer, all_tables, prepare_layers, write_geojson, write_geopackage
+from .layers import PreparedLayer, layer_title, all_tables, prepare_layers, write_geojson, write_geopackage
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
@@ -121,7 +121,7 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     roles: dict[Path, list[str]] = {}
     if project.manifest_path is not None:
         roles.setdefault(project.manifest_path.resolve(), []).append("manifest")
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         roles.setdefault(layer.path.resolve(), []).append(role)
     for role, table in project.tables.items():
         roles.setdefault(table.path.resolve(), []).append(role)
@@ -148,8 +148,10 @@ def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
     """(path as the manifest wrote it, the file or folder it names) for every layer and table of the manifest."""
     out = []
     for group in ("layers", "tables"):
-        for spec in (project.manifest.get(group) or {}).values():
-            if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+        for value in (project.manifest.get(group) or {}).values():
+            for spec in value if isinstance(value, list) else [value]:  # [[layers.lines]] is a list of layers
+                if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
+                    continue
                 written = spec["path"]
                 path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
                 out.append((written, path))
@@ -159,7 +161,7 @@ def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
 def input_names(project: MapProject) -> SourceNames:
     """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
     paths = [p for _, p in _manifest_paths(project)]
-    paths += [layer.path for layer in project.layers.values()] + [table.path for table in project.tables.values()]
+    paths += [layer.path for layer in project.sources.values()] + [table.path for table in project.tables.values()]
     if project.manifest_path is not None:
         paths.append(project.manifest_path)
     return source_names(project, paths)
@@ -197,15 +199,17 @@ def source_manifest(project: MapProject, names: SourceNames) -> tuple[str, str] 
     raw = read_manifest(project.manifest_path)
     changed = []
     for group in ("layers", "tables"):
-        for role, spec in (raw.get(group) or {}).items():
-            if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
-                continue
-            written = spec["path"]
-            path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
-            inside = path == project.root.resolve() or project.root.resolve() in path.parents
-            if Path(written).is_absolute() or not inside:
-                spec["path"] = names.name(path)
-                changed.append(f"{group}.{role}.path")
+        for key, value in (raw.get(group) or {}).items():
+            entries = [(f"{key}[{i}]", v) for i, v in enumerate(value)] if isinstance(value, list) else [(key, value)]
+            for role, spec in entries:
+                if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
+                    continue
+                written = spec["path"]
+                path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+                inside = path == project.root.resolve() or project.root.resolve() in path.parents
+                if Path(written).is_absolute() or not inside:
+                    spec["path"] = names.name(path)
+                    changed.append(f"{group}.{role}.path")
     if not changed:
         return None
     why = f"{', '.join(changed)} rewritten to the copies in source/ (the project named them outside its folder)"
@@ -432,7 +436,7 @@ def _write_payload(
             rel = f"geojson/{pl.role}.geojson"
             write_geojson(pl, data / rel)
             resources.append(dp.ResourceInfo(
-                rel, f"{pl.role}-geojson", f"{LAYER_TITLES[pl.role]} (GeoJSON)",
+                rel, f"{pl.role}-geojson", f"{layer_title(pl.role)} (GeoJSON)",
                 f"{pl.count} features, RFC 7946 GeoJSON in WGS 84 longitude/latitude; from {pl.source}.",
             ))
 
@@ -538,7 +542,7 @@ def _write_payload(
         readme_text(
             deposit,
             shared,
-            [LayerFact(pl.role, LAYER_TITLES[pl.role], pl.count, pl.geometry_type, pl.source, pl.conventions) for pl in layers],
+            [LayerFact(pl.role, layer_title(pl.role), pl.count, pl.geometry_type, pl.source, pl.conventions) for pl in layers],
             legend_rows(legend),
             [(t.name, t.title, len(t.frame)) for t in tables],
             bbox,

@@ -22,9 +22,15 @@ def packaged_manifest(project: MapProject, layer_roles: list[str], table_paths: 
     """The manifest for the package: same ``[map]`` and ``[checks]``, paths to ``map.gpkg`` and ``tables/*.csv``."""
     m = dict(project.manifest.get("map", {}))
     out: dict[str, Any] = {"map": m, "layers": {}}
+    sources = project.sources
     for role in layer_roles:
-        spec = {k: v for k, v in project.layers[role].spec.items() if k not in LAYER_KEYS_DROPPED}
-        out["layers"][role] = {"path": "map.gpkg", "layer": role, **spec}
+        layer = sources[role]
+        spec = {"path": "map.gpkg", "layer": role, **{k: v for k, v in layer.spec.items() if k not in LAYER_KEYS_DROPPED}}
+        key = layer.key.removeprefix("layers.")
+        if "[" in key:  # an entry of [[layers.lines]]: stays a list entry, under its own name
+            out["layers"].setdefault(key.split("[")[0], []).append({**spec, "name": role})
+        else:
+            out["layers"][key] = spec
     tables = {}
     for role, path in table_paths.items():
         table = project.tables[role]

@@ -111,11 +111,11 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
         specs = out.get(group)
         if not isinstance(specs, dict):
             continue
-        kept = {}
-        for role, spec in specs.items():
+        kept: dict[str, Any] = {}
+
+        def admitted(group: str, role: str, spec: Any) -> bool:
             if not isinstance(spec, dict) or not isinstance(spec.get("path"), str):
-                kept[role] = spec
-                continue
+                return True
             rel = spec["path"]
             why = name_problem(rel)
             target = (base / rel).resolve()
@@ -129,8 +129,14 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
             if problem:
                 hits.append(Hit(f"{group}.{role}: '{rel}' was not opened: {problem}.", layer=role, rule="layer-unreadable"))
                 held.append(rel)
-                continue
-            kept[role] = spec
+                return False
+            return True
+
+        for role, spec in specs.items():
+            if isinstance(spec, list):  # a list of layers under one key ([[layers.lines]]): each entry screened
+                kept[role] = [entry for i, entry in enumerate(spec) if admitted(group, f"{role}[{i}]", entry)]
+            elif admitted(group, role, spec):
+                kept[role] = spec
         out[group] = kept
     return out, hits, held
 

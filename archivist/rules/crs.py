@@ -61,7 +61,7 @@ def crs_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     `samples.csv` with `x_field`/`y_field` and no `crs` gives
     "layers.samples (samples.csv) has no CRS: add crs = "EPSG:..." to [layers.samples]".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         if layer.crs is not None:
             continue
         assumed = f"; the checks assume the map CRS {_label(project.crs)}" if project.crs is not None else ""
@@ -115,7 +115,7 @@ def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     target = project.crs
     if target is None:
         return
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         crs = layer.crs
         if crs is None or crs.equals(target, ignore_axis_order=True):
             continue
@@ -280,7 +280,7 @@ def crs_axis_swap_suspected(project: MapProject, ctx: CheckContext) -> Iterator[
     placed_all = ctx.placements()
     for role, (suspect, ref, from_layers) in ctx.swap_suspects().items():
         placed = placed_all[role]
-        layer = project.layers[role]
+        layer = project.sources[role]
         n, total = int(suspect.sum()), int(placed.present.sum())
         where = "where the other layers are" if from_layers else f"the area of use of {_label(placed.crs)} ({box_words(ref)})"
         if n == total or n > 20:

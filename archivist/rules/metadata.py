@@ -365,7 +365,7 @@ def geometry_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     A unit row with a null geometry gives "units feature 12 has no geometry".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         if role == "samples":
             continue
         geoms = layer.geometry
@@ -399,8 +399,8 @@ def geometry_type_unexpected(project: MapProject, ctx: CheckContext) -> Iterator
     A line in the units layer gives "units: 1 feature is LineString where
     Polygon or MultiPolygon is expected".
     """
-    for role, layer in project.layers.items():
-        expected = EXPECTED_GEOMETRY.get(role)
+    for role, layer in project.sources.items():
+        expected = EXPECTED_GEOMETRY.get(layer.group)
         if not expected:
             continue
         geoms = layer.geometry
@@ -442,7 +442,7 @@ def geometry_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     A bow-tie unit polygon gives "units feature 7 is invalid: Self-intersection[5 5]".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         geoms = layer.geometry
         present = ~_empty_mask(geoms)
         valid = layer.valid
@@ -593,7 +593,7 @@ def formula_like_value(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     "legend.csv, column 'name': 1 value begins like a formula (row 2) ...".
     """
     sources: list[tuple[str, str, pd.DataFrame, list[Any], Callable[[int], str], np.ndarray | None]] = []
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         frame = layer.frame
         columns = [c for c in frame.columns if c != frame.geometry.name]
         sources.append((role, layer.source, frame, columns, _feature_label(layer.ids), layer.ids))
@@ -650,7 +650,7 @@ def layer_empty(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     A units layer `map.gpkg:units` with no rows gives "units layer
     map.gpkg:units has no features; the checks that need it were not run".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         if len(layer.frame) == 0:
             yield Hit(
                 f"{role} layer {layer.source} has no features; the checks that need it were not run.",
@@ -690,7 +690,7 @@ def coordinates_implausible(project: MapProject, ctx: CheckContext) -> Iterator[
     (map.gpkg:units) has a coordinate of 1e+300, far beyond ±1e+09 map units
     for its CRS".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         mask, largest = far_out(layer.geometry, layer.crs)
         limit = coordinate_limit(layer.crs)
         unit = "degrees" if layer.crs is not None and layer.crs.is_geographic else "map units"
@@ -744,6 +744,6 @@ def measures_source_only(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     features carry M (measure) values, which archivist does not read; a
     package made from it holds them only in source/ ...".
     """
-    for role, layer in project.layers.items():
+    for role, layer in project.sources.items():
         if layer.measured:
             yield Hit(measures_statement(layer) + ".", layer=role)

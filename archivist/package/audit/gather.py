@@ -68,7 +68,8 @@ def _manifest_layer_files(opened: OpenedMap) -> set[str]:
     layers = opened.project.manifest.get("layers")
     _, root, data = archive_paths(opened)
     prefix = data.relative_to(root).as_posix() + "/" if data != root else ""
-    specs = layers.values() if isinstance(layers, dict) else []
+    values = layers.values() if isinstance(layers, dict) else []
+    specs = [s for v in values for s in (v if isinstance(v, list) else [v])]  # [[layers.lines]] is a list
     return {prefix + str(spec["path"]).replace("\\", "/") for spec in specs if isinstance(spec, dict) and isinstance(spec.get("path"), str)}
 
 
