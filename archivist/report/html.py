@@ -154,11 +154,17 @@ class _Page:
                 f"<details><summary>{_e(_plural(len(could), 'rule'))} that could have run did not: "
                 f"they were switched off or the run was limited to some rules.</summary><ul>{listing(could)}</ul></details>"
             )
-        if cannot:
+        audit = [x for x in cannot if "archive" in self.rules[x].needs]
+        absent = [x for x in cannot if x not in set(audit)]
+        if absent:
             li.append(
-                f"<details><summary>{_e(_plural(len(cannot), 'rule'))} had nothing to check: a layer or table they need "
-                f"is absent or empty{', or they check archives (archivist audit)' if self.project is None or self.project.archive is None else ''}."
-                f"</summary><ul>{listing(cannot)}</ul></details>"
+                f"<details><summary>{_e(_plural(len(absent), 'rule'))} had nothing to check: a layer or table they need "
+                f"is absent or empty.</summary><ul>{listing(absent)}</ul></details>"
+            )
+        if audit:
+            li.append(
+                f"<details><summary>{_e(_plural(len(audit), 'rule'))} check archives and run in "
+                f"<code>archivist audit</code>.</summary><ul>{listing(audit)}</ul></details>"
             )
         unlocated = sum(1 for f in r.findings if f.x is None or f.y is None)
         if unlocated:
