@@ -201,11 +201,15 @@ def chart_colour(row: Mapping[str, Any], version: str) -> tuple[str, str] | None
     return None
 
 
-def unit_neighbours(codes: np.ndarray, geoms: np.ndarray, distance: float) -> dict[str, set[str]]:
+def unit_neighbours(
+    codes: np.ndarray, geoms: np.ndarray, distance: float, of: Iterable[str] | None = None
+) -> dict[str, set[str]]:
     """Which unit codes touch which: polygons of different codes within ``distance`` (map units) of each other.
 
-    One STRtree query over all polygons (GEOS ``dwithin``); a unit is never
-    its own neighbour.
+    One STRtree query (GEOS ``dwithin``); a unit is never its own
+    neighbour. ``of`` limits the query to the polygons of those codes (the
+    answer is then complete for them, and for the others only as far as they
+    touch them).
     """
     import shapely
 
@@ -218,8 +222,9 @@ def unit_neighbours(codes: np.ndarray, geoms: np.ndarray, distance: float) -> di
     if len(idx) < 2:
         return out
     tree = shapely.STRtree(geoms[idx])
-    a, b = tree.query(geoms[idx], predicate="dwithin", distance=max(float(distance), 0.0))
-    ca, cb = codes[idx[a]], codes[idx[b]]
+    ask = idx if of is None else idx[np.isin(codes[idx], list(of))]
+    q, b = tree.query(geoms[ask], predicate="dwithin", distance=max(float(distance), 0.0))
+    ca, cb = codes[ask[q]], codes[idx[b]]
     diff = ca != cb
     for x, y in set(zip(ca[diff].tolist(), cb[diff].tolist())):
         out[str(x)].add(str(y))
@@ -335,9 +340,10 @@ def project_fills(project: MapProject | None, legend_rows: list[dict[str, Any]],
     """:func:`unit_fills` for a project: its units layer's adjacency (within ``touch`` map units) and its chart."""
     neighbours: dict[str, set[str]] = {}
     layer = project.layers.get("units") if project is not None else None
-    if layer is not None and len(layer.frame):
+    uncoloured = [r["_code"] for r in legend_rows if _colour(r.get("colour")) is None]
+    if layer is not None and len(layer.frame) and uncoloured:  # only units without a legend colour need them
         codes = layer_labels(layer, "unit_field")
         if codes is not None:
-            neighbours = unit_neighbours(codes, np.asarray(layer.geometry, dtype=object), touch)
+            neighbours = unit_neighbours(codes, np.asarray(layer.geometry, dtype=object), touch, of=uncoloured)
     version = getattr(getattr(project, "config", None), "chart", None) or _default_chart()
     return unit_fills(legend_rows, neighbours, version)

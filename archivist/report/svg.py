@@ -48,7 +48,7 @@ LINEAR_KINDS = ("lineation", "fold axis", "fold-axis", "fold hinge", "trend")
 LABEL_PX = 12  # unit labels: font size in screen pixels at every zoom
 LABEL_CHAR = 0.9  # width of a label character, in font sizes: above the 0.69-0.85 of bold capitals measured in Chromium
 LABEL_LINE = 1.2  # height of a label's box, in font sizes (measured 1.17)
-LABELS_MAX = 5000  # polygons labelled, the largest first; smaller ones are named by clicking
+LABELS_MAX = 3000  # polygons labelled, the largest first; smaller ones are named by clicking
 
 
 
@@ -599,15 +599,26 @@ class _MapWriter:
         order = idx[np.argsort(-shapely.area(geoms[idx]), kind="stable")]
         self.labels_left = max(len(order) - LABELS_MAX, 0)
         order = order[:LABELS_MAX]
-        local = shapely.transform(geoms[order], lambda xy: np.c_[fr.local(xy[:, 0], xy[:, 1])])
+        if fr.kx == 1.0:  # local units are map units reflected and shifted: the circle is found in map units
+            local = geoms[order]
+        else:
+            local = shapely.transform(geoms[order], lambda xy: np.c_[fr.local(xy[:, 0], xy[:, 1])])
         try:
-            mic = shapely.maximum_inscribed_circle(local)
-            centre = shapely.get_coordinates(shapely.get_point(mic, 0))
+            # a coarse search (1/100 of each polygon's size) is enough to place a label: the radius
+            # returned is the true distance from the centre found to the boundary, so a label that
+            # fits that circle is inside the polygon whatever the tolerance
+            b = shapely.bounds(local)
+            mic = shapely.maximum_inscribed_circle(local, np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 100)
+            start = shapely.get_point(mic, 0)
+            centre = np.c_[shapely.get_x(start), shapely.get_y(start)]  # NaN where GEOS gave nothing
             radius = shapely.length(mic)
         except shapely.errors.GEOSException:  # an invalid polygon: a point inside it, and a quarter of its smaller side
-            centre = shapely.get_coordinates(shapely.point_on_surface(local))
+            inside = shapely.point_on_surface(local)
+            centre = np.c_[shapely.get_x(inside), shapely.get_y(inside)]
             b = shapely.bounds(local)
             radius = np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 4
+        if fr.kx == 1.0:
+            centre = np.c_[fr.local(centre[:, 0], centre[:, 1])]
         text = codes[order]
         chars = np.array([len(t) for t in text.tolist()], dtype=float)
         need = LABEL_PX * np.hypot(np.maximum(chars * LABEL_CHAR, 1.0), LABEL_LINE)  # the label's diagonal, in pixels
