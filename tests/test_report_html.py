@@ -30,7 +30,7 @@ from archivist.report.text import CAUTION
 from shapely.geometry import box
 
 from builders import BUNDLE as BUNDLE_DIR
-from builders import copy_bundle, edit_layer, edit_table, tiny_project, tree_digest
+from builders import copy_bundle, edit_layer, edit_manifest, edit_table, tiny_project, tree_digest
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARGS = [
@@ -993,3 +993,55 @@ def test_scale_bar_on_screen_matches_its_length(browser, handmade):
             page.settle()
     finally:
         page.close()
+
+
+def test_labels_and_bar_on_a_map_in_degrees_at_60n(browser, tmp_path):
+    import json
+
+    import geopandas as gpd
+    import pandas as pd
+    from pyproj import Geod
+    from shapely.geometry import box as shape_box
+
+    cells = [box(10 + i * 0.02, 60 + j * 0.01, 10 + (i + 1) * 0.02, 60 + (j + 1) * 0.01) for j in range(3) for i in range(3)]
+    units = gpd.GeoDataFrame({"unit": [f"G{k}" for k in range(9)]}, geometry=cells, crs="EPSG:4326")
+    legend = pd.DataFrame({"unit": units["unit"], "name": [f"Unit {k}" for k in range(9)]})
+    lines = gpd.GeoDataFrame({"kind": ["map-boundary"], "certainty": ["certain"]},
+                             geometry=[shapely.LineString([(10, 60), (10.06, 60), (10.06, 60.03), (10, 60.03), (10, 60)])], crs="EPSG:4326")
+    root = tiny_project(tmp_path, units=units, lines=lines, legend=legend, manifest={"map": {"crs": "EPSG:4326", "scale": 10000}})
+    project = archivist.load_project(root)
+    out = tmp_path / "r.html"
+    out.write_text(render_html(Report(tool="archivist", version="0", project=str(root), crs=None, findings=()), project), encoding="utf-8")
+    page = Page(browser, out)
+    try:
+        svg = page.page.locator("#geomap")
+        x0, y1, kx = (float(svg.get_attribute(a)) for a in ("data-x0", "data-y1", "data-kx"))
+        assert 0.49 < kx < 0.51  # squeezed by about cos 60°
+        page.page.click("#zin")
+        page.settle()
+        shown = _visible_labels(page)
+        assert len(shown) == 9
+        for code, px, bx, by, bw, bh in shown:
+            lab = shape_box(x0 + bx / kx, y1 - by - bh, x0 + (bx + bw) / kx, y1 - by)
+            assert units.geometry[units["unit"] == code].iloc[0].contains(lab), code
+        # the bar on screen, back in degrees at the map's centre latitude, against pyproj's Geod
+        bars = {label: length for length, label in json.loads(svg.get_attribute("data-bars"))}
+        label = page.page.eval_on_selector("#scalebar", "e => e.firstChild.textContent")
+        _, _, metres = Geod(ellps="WGS84").inv(10.03, 60.015, 10.03 + bars[label] / kx, 60.015)
+        assert metres == pytest.approx(_bar_metres(label), rel=1e-3)
+        assert page.errors == []
+    finally:
+        page.close()
+
+
+def test_summary_names_the_chart_the_legend_was_checked_against(tmp_path):
+    from archivist.reference import CREDIT_PREFIX, chart_credit
+
+    root = copy_bundle(tmp_path)
+    edit_manifest(root, lambda m: m.setdefault("checks", {}).__setitem__("chart", "2023-09"))
+    project = archivist.load_project(root)
+    report = archivist.check(project, only=["legend"])
+    note = chart_credit("2023-09")
+    assert note in report.notes  # the engine's note, as the text and JSON reports print it
+    summary = render_html(report, project).split('<section id="summary">', 1)[1].split("</section>", 1)[0]
+    assert "<dt>Chart</dt>" in summary and summary.count(CREDIT_PREFIX) == 1 and "version 2023-09, CC BY 4.0" in summary

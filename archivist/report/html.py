@@ -3,7 +3,8 @@
 The page needs no network: no web fonts, no scripts, styles or tiles from
 elsewhere (a Content-Security-Policy in the page forbids them). Its style
 sheet and script are the package's ``assets/report.css`` and
-``assets/report.js``, written into the page. The map is drawn by
+``assets/report.js``, written into the page. The map comes first, with the
+summary beside it on a wide screen and below it on a narrow one. The map is drawn by
 :mod:`archivist.report.svg`, the unit colours come from
 :mod:`archivist.report.legend`; this module writes the page's sections.
 Every value from the data is escaped (:mod:`archivist.report.markup`).

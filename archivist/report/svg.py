@@ -4,7 +4,16 @@
 * lines drawn by kind (contacts, faults, the map boundary) and certainty;
 * samples as dots and structural measurements as strike-and-dip symbols;
 * every finding with a location as a marker coloured by severity, and its
-  geometry (an overlap, a gap, a dangling line) drawn unsimplified on top.
+  geometry (an overlap, a gap, a dangling line) drawn unsimplified: notices
+  under the samples and structural measurements, warnings and errors over
+  them (errors on top);
+* unit codes as labels at each polygon's pole of inaccessibility, which the
+  page keeps at one screen size and shows only where they fit.
+
+The page's measures are computed here, not in its script: the ground length
+of a local unit and the direction of true north (:func:`ground_scale`, on
+the CRS's ellipsoid with pyproj), the scale bars (:func:`scale_bars`), the
+zoom box of each finding (:func:`zoom_boxes`) and where each label fits.
 
 Display geometry is simplified (``shapely.coverage_simplify`` keeps shared
 edges shared) to 1/20 000 of the map's width and written as integers on that
