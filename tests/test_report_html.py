@@ -30,7 +30,7 @@ from archivist.report.text import CAUTION
 from shapely.geometry import box
 
 from builders import BUNDLE as BUNDLE_DIR
-from builders import copy_bundle, edit_layer, edit_table, tiny_project, tree_digest
+from builders import copy_bundle, edit_layer, edit_manifest, edit_table, tiny_project, tree_digest
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARGS = [
@@ -608,3 +608,440 @@ def test_ci_installs_the_browser_and_playwright():
     assert "apt-get install" in ci and "chromium" in ci
     extras = tomllib.loads((root / "pyproject.toml").read_text(encoding="utf-8"))["project"]["optional-dependencies"]["test"]
     assert any(x.startswith("playwright") for x in extras) and any(x.startswith("pillow") for x in extras)
+
+
+# ------------------------------------------------------------------ scale bar, north arrow, zoom boxes (pure functions)
+
+
+def _frame_at(crs, bounds, scale=25000):
+    from types import SimpleNamespace
+
+    import pyproj
+
+    from archivist.report.svg import _frame
+
+    return _frame([np.asarray(bounds, dtype=float)], SimpleNamespace(crs=pyproj.CRS(crs), config=SimpleNamespace(scale=scale)))
+
+
+def _bar_metres(label: str) -> float:
+    value, unit = label.split()
+    return float(value) * (1000.0 if unit == "km" else 1.0)
+
+
+def test_scale_bar_in_degrees_at_60n_is_geodesic():
+    from pyproj import Geod
+
+    from archivist.report.svg import scale_bars
+
+    # a map in EPSG:4326 around 10°E 60°N
+    fr = _frame_at("EPSG:4326", (10.0, 59.9, 10.2, 60.1))
+    geod = Geod(ellps="WGS84")  # the outside reference: geodesics on the WGS 84 ellipsoid (pyproj, GeographicLib)
+    bars = scale_bars(fr)
+    assert [b[1] for b in bars][:3] == ["5 m", "10 m", "20 m"] and "1 km" in [b[1] for b in bars]
+    lat = fr.y1 - fr.height / 2  # the frame's centre
+    lon = fr.x0 + fr.width / 2 / fr.kx
+    for length, label in bars:
+        # the bar drawn east-west across the centre: from local units back to degrees of longitude
+        half = length / fr.kx / 2
+        _, _, metres = geod.inv(lon - half, lat, lon + half, lat)
+        assert metres == pytest.approx(_bar_metres(label), rel=1e-4), label
+    # the page is true to shape at its centre: one local unit north-south is as long on the ground
+    _, _, ns = geod.inv(lon, lat - 0.0005, lon, lat + 0.0005)
+    assert ns / 0.001 == pytest.approx(fr.metres_per_unit, rel=1e-4)
+    # one metres-per-degree factor for the whole globe (111 320 m) is 0.25 % wrong here
+    assert abs(fr.metres_per_unit - 111_320.0) / 111_320.0 > 5e-4
+
+
+def test_scale_bar_of_a_projected_map_is_ground_distance():
+    from pyproj import Geod, Transformer
+
+    from archivist.report.svg import scale_bars
+
+    geod = Geod(ellps="WGS84")
+    for crs in ("EPSG:3857", "EPSG:32633"):
+        fwd = Transformer.from_crs("EPSG:4326", crs, always_xy=True)
+        x, y = fwd.transform(12.0, 60.0)
+        fr = _frame_at(crs, (x - 5000, y - 5000, x + 5000, y + 5000))
+        inv = Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+        cx, cy = fr.x0 + fr.width / 2, fr.y1 - fr.height / 2
+        for length, label in scale_bars(fr):
+            lon, lat = inv.transform([cx - length / 2, cx + length / 2], [cy, cy])
+            _, _, metres = geod.inv(lon[0], lat[0], lon[1], lat[1])
+            # Web Mercator at 60°N: a grid metre is half a metre on the ground (scale factor sec 60° = 2)
+            assert metres == pytest.approx(_bar_metres(label), rel=1e-4), (crs, label)
+
+
+def test_north_arrow_is_the_meridian_convergence():
+    import math
+
+    from pyproj import CRS, Transformer
+
+    from archivist.report.svg import ground_scale
+
+    # UTM zone 33N (central meridian 15°E) at 17°E 60°N. Convergence of the transverse Mercator on the
+    # sphere, gamma = atan(tan(dlon) sin(lat)) (Snyder, Map Projections: A Working Manual, USGS PP 1395,
+    # 1987, from memory); the ellipsoid adds less than 0.001° this close to the central meridian.
+    # East of the central meridian, true north points west (anticlockwise) of grid north.
+    x, y = Transformer.from_crs("EPSG:4326", "EPSG:32633", always_xy=True).transform(17.0, 60.0)
+    g = ground_scale(CRS("EPSG:32633"), x, y, 100.0)
+    gamma = math.degrees(math.atan(math.tan(math.radians(2.0)) * math.sin(math.radians(60.0))))
+    assert g.north == pytest.approx(-gamma, abs=0.005)
+    # on the central meridian, and in a geographic CRS, true north is up
+    x, y = Transformer.from_crs("EPSG:4326", "EPSG:32633", always_xy=True).transform(15.0, 60.0)
+    assert ground_scale(CRS("EPSG:32633"), x, y, 100.0).north == pytest.approx(0.0, abs=1e-6)
+    assert ground_scale(CRS("EPSG:4326"), 10.0, 60.0, 0.01).north == 0.0
+    # no CRS: no north, map units read as metres
+    none = ground_scale(None, 0.0, 0.0, 1.0)
+    assert none.north is None and none.metres_per_unit == 1.0
+
+
+def test_north_arrow_and_bars_on_the_page(handmade):
+    _, _, page = handmade
+    text = page.read_text(encoding="utf-8")
+    svg = dict(next(a for t, a in tags_of(text) if t == "svg" and a.get("id") == "geomap"))
+    import json
+
+    bars = json.loads(svg["data-bars"])
+    assert bars and all(b[0] > 0 for b in bars) and [b[0] for b in bars] == sorted(b[0] for b in bars)
+    assert 'id="north"' in text and "rotate(" in text.split('id="north"', 1)[1][:400]
+    assert "measured on the WGS 84 ellipsoid at latitude" in text
+
+
+def test_zoom_boxes_keep_the_finding_in_context():
+    from archivist.report.svg import ZOOM_CONTEXT, ZOOM_MIN_MM, Frame, zoom_boxes
+
+    fr = Frame(x0=0.0, y1=10_000.0, kx=1.0, width=10_000.0, height=10_000.0, q=0.5, metres_per_unit=1.0, mm=25.0)
+    boxes = zoom_boxes(np.array([[500.0, 500.0, 500.0, 500.0], [100.0, 100.0, 110.0, 104.0], [0.0, 0.0, 2000.0, 400.0]]), fr)
+    side = boxes[:, 2] - boxes[:, 0]
+    assert np.allclose(side, boxes[:, 3] - boxes[:, 1])  # squares
+    # a point: the least view, 40 mm of the printed map (1 km at 1:25 000)
+    assert side[0] == pytest.approx(ZOOM_MIN_MM * 25.0) == pytest.approx(1000.0)
+    # a small finding still gets the least view; a large one is a fifth of the view
+    assert side[1] == pytest.approx(1000.0) and side[2] == pytest.approx(ZOOM_CONTEXT * 2000.0)
+    # centred on the finding
+    assert np.allclose((boxes[:, 0] + boxes[:, 2]) / 2, [500.0, 105.0, 1000.0])
+    assert np.allclose((boxes[:, 1] + boxes[:, 3]) / 2, [500.0, 102.0, 200.0])
+
+
+# ------------------------------------------------------------------ drawing order, rules not run
+
+
+def _report_with(project, findings) -> Report:
+    return Report(tool="archivist", version="0", project=str(project.root), crs=None, findings=tuple(findings),
+                  rules_run=tuple(r.id for r in all_rules()))
+
+
+def test_notices_are_drawn_below_the_samples_and_errors_on_top(tmp_path):
+    project = archivist.load_project(copy_bundle(tmp_path))
+    rule = all_rules()[0]
+    s = project.layers["samples"].geometry
+    findings = [
+        Finding(rule=rule.id, family=rule.family, severity=sev, message=f"{sev.value} at a sample.", layer="samples",
+                x=float(s[k].x), y=float(s[k].y), wkt=f"POINT ({s[k].x} {s[k].y})")
+        for k, sev in enumerate([Severity.ERROR, Severity.NOTICE, Severity.WARNING, Severity.NOTICE])
+    ]
+    report = _report_with(project, findings)
+    text = render_html(report, project)
+    svg = text.split('<svg id="geomap"', 1)[1].split("</svg>", 1)[0]
+    samples = svg.index('<g class="samples"')
+    pos: dict[str, list[int]] = {}
+    for k, f in enumerate(report.findings):
+        pos.setdefault(f.severity.value, []).append(svg.index(f'class="s-{f.severity.value}" data-k="{k}"'))
+    assert len(pos["notice"]) == 2 and max(pos["notice"]) < samples, "notices under the samples"
+    assert min(pos["warning"] + pos["error"]) > samples, "errors and warnings over them"
+    assert max(pos["warning"]) < min(pos["error"]), "errors painted last"
+
+
+def test_rules_that_did_not_run_count_only_those_that_could_have(tmp_path):
+    from archivist.registry import all_rules as every_rule
+    from archivist.report.html import rules_not_run
+
+    root = tiny_project(tmp_path)  # units, lines, legend: no samples, structures, analyses, extent
+    project = archivist.load_project(root)
+    report = archivist.check(project, only=["topology", "legend"])
+    rules = {r.id: r for r in every_rule()}
+    could, cannot = rules_not_run(report, rules, project)
+    ran = set(report.rules_run)
+    # the registry's own `needs` against the project's layers and tables
+    for rid, info in rules.items():
+        if rid in ran:
+            continue
+        if all(project.has(n) for n in info.needs):
+            assert rid in could, rid
+        else:
+            assert rid in cannot, rid
+    assert could and cannot and set(could).isdisjoint(cannot)
+    assert {rules[x].family for x in could} <= {"metadata", "linework", "crs", "samples", "structures"}
+    assert all(rules[x].family not in ("topology", "legend") for x in could)
+    assert any(rules[x].family == "archive" for x in cannot)
+    text = render_html(report, project)
+    part = text.split('<section id="not-covered">', 1)[1].split("</section>", 1)[0]
+    assert f"{len(could)} rules that could have run did not" in part
+    audit = [x for x in cannot if "archive" in rules[x].needs]
+    assert audit and f"{len(cannot) - len(audit)} rules had nothing to check" in part
+    assert f"{len(audit)} rules check archives and run in <code>archivist audit</code>" in part
+    # a full check of the example bundle leaves nothing out that could have run
+    bundle = archivist.load_project(BUNDLE_DIR)
+    full = archivist.check(bundle)
+    assert rules_not_run(full, rules, bundle)[0] == []
+    assert "could have run" not in render_html(full, bundle)
+
+
+# ------------------------------------------------------------------ unit colours
+
+
+def test_cielab_against_published_values():
+    from archivist.report.legend import delta_e, srgb_to_lab
+
+    # sRGB white is the D65 white point: L* 100, a* = b* = 0 (IEC 61966-2-1, CIE 15)
+    assert srgb_to_lab("#FFFFFF") == pytest.approx((100.0, 0.0, 0.0), abs=0.01)
+    # sRGB red in CIELAB D65: 53.24, 80.09, 67.20 (B. Lindbloom's colour calculator, from memory)
+    assert srgb_to_lab("#FF0000") == pytest.approx((53.24, 80.09, 67.20), abs=0.05)
+    # mid grey #777777: L* 50.03, neutral (CIE L* of Y = 0.1845, from memory)
+    assert srgb_to_lab("#777777") == pytest.approx((50.03, 0.0, 0.0), abs=0.02)
+    assert delta_e("#000000", "#FFFFFF") == pytest.approx(100.0, abs=0.01)
+
+
+def _chart_rows(version: str) -> dict[str, str]:
+    """name -> colour, read straight from the shipped chart table with the csv module."""
+    import csv
+    from importlib import resources
+
+    text = resources.files("archivist.reference").joinpath(f"ics_chart_{version}.csv").read_text(encoding="utf-8")
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.startswith("#")]
+    return {r["name"]: r["color"].upper() for r in csv.DictReader(lines)}
+
+
+def test_uncoloured_legend_takes_the_chart_colours_of_the_ages(tmp_path):
+    import colorsys
+
+    from archivist.report.legend import UnitStyles, legend_rows, project_fills
+
+    root = copy_bundle(tmp_path)
+    edit_table(root, "legend.csv", lambda df: df.drop(columns=["colour"]))
+    project = archivist.load_project(root)
+    rows = legend_rows(project)
+    fills = project_fills(project, rows, 25.0)
+    chart = _chart_rows("2024-12")
+    # age text -> the chart unit whose colour it takes (the bundle's ages; a span takes its smallest holder)
+    expected = {
+        "QAL": "Holocene", "SKG": "Cisuralian", "ORB": "Gzhelian", "KES": "Kasimovian", "MAR": "Pennsylvanian",
+        "DUN": "Visean", "TCG": "Tournaisian", "AMB": "Famennian", "PEL": "Ediacaran",
+    }
+    for code, unit in expected.items():
+        f = fills[code]
+        assert f.source == "chart" and f.chart_unit == unit, (code, f)
+        if not f.shaded:
+            assert f.colour == chart[unit], code
+        else:  # a lighter or darker shade of the same hue
+            h = [colorsys.rgb_to_hls(*(int(c[i:i + 2], 16) / 255 for i in (1, 3, 5)))[0] for c in (f.colour, chart[unit])]
+            assert abs(h[0] - h[1]) < 0.01, code
+    text = render_html(archivist.check(project), project)
+    legend = text.split('<section id="legend">', 1)[1].split("</section>", 1)[0]
+    assert "International Chronostratigraphic Chart, International Commission on Stratigraphy, version 2024-12, CC BY 4.0" in legend
+    # the map draws each unit in that fill
+    for code, f in fills.items():
+        assert f'data-unit="{code}"' in text and f"fill:{f.colour}" in text
+    # a legend's own colours are never replaced, and then no chart colour is credited
+    bundle = archivist.load_project(BUNDLE_DIR)
+    styles = UnitStyles(legend_rows(bundle), project_fills(bundle, legend_rows(bundle), 25.0))
+    assert all(styles.unit_for(r["_code"]).source == "legend" for r in legend_rows(bundle))
+    assert "the official colour of the unit" not in render_html(archivist.check(bundle), bundle)
+
+
+def test_chart_colours_follow_the_chart_setting(tmp_path):
+    from archivist.report.legend import chart_colour
+
+    old, new = _chart_rows("2023-09"), _chart_rows("2024-12")
+    # the two versions differ in the colour of some units: each version gives its own
+    differ = [n for n in old if n in new and old[n] and new[n] and old[n] != new[n]]
+    for name in differ[:5]:
+        assert chart_colour({"age": name}, "2023-09") == (old[name], name)
+        assert chart_colour({"age": name}, "2024-12") == (new[name], name)
+    # numbers only: the smallest chart unit holding the span
+    assert chart_colour({"min_age_ma": "287", "max_age_ma": "291"}, "2024-12") == (new["Cisuralian"], "Cisuralian")
+    # a span of named units never takes an era's colour: its oldest unit's
+    assert chart_colour({"age": "Permo-Triassic"}, "2024-12") == (new["Permian"], "Permian")
+    assert chart_colour({"age": "Late Jurassic"}, "2024-12") == (new["Upper Jurassic"], "Upper Jurassic")
+    assert chart_colour({"age": "no such age"}, "2024-12") is None and chart_colour({}, "2024-12") is None
+
+
+def _grid_units(n: int = 5, size: float = 100.0):
+    import geopandas as gpd
+
+    from builders import CRS
+
+    cells = [box(i * size, j * size, (i + 1) * size, (j + 1) * size) for j in range(n) for i in range(n)]
+    return gpd.GeoDataFrame({"unit": [f"U{k:02d}" for k in range(len(cells))]}, geometry=cells, crs=CRS)
+
+
+def test_palette_tells_touching_units_apart(tmp_path):
+    import itertools
+
+    import pandas as pd
+
+    from archivist.report.legend import PALETTE, delta_e, legend_rows, project_fills
+
+    units = _grid_units()
+    legend = pd.DataFrame({"unit": units["unit"], "name": [f"Unit {u}" for u in units["unit"]]})  # no colour, no age
+    root = tiny_project(tmp_path, units=units, legend=legend)
+    project = archivist.load_project(root)
+    fills = project_fills(project, legend_rows(project), 10.0)
+    assert {f.source for f in fills.values()} == {"palette"}
+    # touching pairs (sides and corners) found by GEOS, one pair at a time
+    geoms = list(units.geometry)
+    touching = [(a, b) for a, b in itertools.combinations(range(len(geoms)), 2) if geoms[a].intersects(geoms[b])]
+    assert len(touching) == 2 * 5 * 4 + 2 * 4 * 4  # 40 sides and 32 corners in a 5 x 5 grid
+    worst = min(delta_e(fills[units["unit"][a]].colour, fills[units["unit"][b]].colour) for a, b in touching)
+    # no two touching units share a colour: the least difference is the palette's own closest pair
+    closest_pair = min(delta_e(a, b) for a, b in itertools.combinations(PALETTE, 2))
+    assert worst >= closest_pair > 15.0
+    text = render_html(Report(tool="archivist", version="0", project="p", crs=None, findings=()), project)
+    assert "ColorBrewer Set3" in text
+
+
+def test_same_chart_colour_on_touching_units_is_shaded(tmp_path):
+    import pandas as pd
+
+    from archivist.report.legend import DISTINCT_DE, delta_e, legend_rows, project_fills
+
+    units = _grid_units(2)
+    legend = pd.DataFrame({"unit": units["unit"], "age": ["Visean", "Visean", "Famennian", "Visean"]})
+    project = archivist.load_project(tiny_project(tmp_path, units=units, legend=legend))
+    fills = project_fills(project, legend_rows(project), 10.0)
+    vis = [fills[c].colour for c in ("U00", "U01", "U03")]  # the three Visean cells touch each other
+    assert all(fills[c].chart_unit == "Visean" for c in ("U00", "U01", "U03"))
+    assert min(delta_e(a, b) for a, b in [(vis[0], vis[1]), (vis[0], vis[2]), (vis[1], vis[2])]) >= DISTINCT_DE
+    assert [fills[c].shaded for c in ("U00", "U01", "U03")] == [False, True, True]
+
+
+# ------------------------------------------------------------------ layout, labels and scale bar in the browser
+
+
+def test_map_comes_first_with_the_summary_beside_or_below(browser, handmade):
+    _, _, path = handmade
+    for width, beside in ((1400, True), (800, False)):
+        page = Page(browser, path, width=width, height=900)
+        try:
+            m = page.page.locator("#mapbox").bounding_box()
+            s = page.page.locator("#summary").bounding_box()
+            assert m["y"] < 160 and m["y"] + m["height"] <= 900, "the map is the first thing on screen"
+            if beside:
+                assert s["x"] >= m["x"] + m["width"] and s["y"] < m["y"] + m["height"] / 2, (m, s)
+            else:
+                assert s["y"] >= m["y"] + m["height"], (m, s)
+            assert page.errors == []
+        finally:
+            page.close()
+
+
+def _visible_labels(page):
+    return page.page.eval_on_selector_all(
+        "#geomap .labels text",
+        "els => els.filter(e => getComputedStyle(e).display !== 'none').map(e => {"
+        " const r = e.getBoundingClientRect(), b = e.getBBox();"
+        " return [e.textContent, r.height, b.x, b.y, b.width, b.height]; })",
+    )
+
+
+def test_unit_labels_stay_legible_and_inside_their_polygons(browser, handmade):
+    from shapely.geometry import box as shape_box
+
+    project, _, path = handmade
+    page = Page(browser, path)
+    try:
+        units = project.layers["units"].frame
+        assert page.page.locator("#geomap .labels text").count() == len(units)
+        svg = page.page.locator("#geomap")
+        x0, y1, kx = (float(svg.get_attribute(a)) for a in ("data-x0", "data-y1", "data-kx"))
+        seen = []
+        for _ in range(3):
+            shown = _visible_labels(page)
+            seen.append(len(shown))
+            for code, px, bx, by, bw, bh in shown:
+                # the same size on screen at every zoom (12 px text: a line box of about 12-17 px)
+                assert 10 <= px <= 18, (code, px)
+                # GEOS: the label's box, back in map units, lies inside a polygon of its unit
+                lab = shape_box(x0 + bx / kx, y1 - by - bh, x0 + (bx + bw) / kx, y1 - by)
+                assert units[units["unit"] == code].geometry.contains(lab).any(), code
+            page.page.click("#zin")
+            page.settle()
+        # zooming in shows more labels; at the whole map some are too small to hold theirs
+        assert seen[0] < len(units) and seen[0] <= seen[1] <= seen[2] and seen[2] > seen[0], seen
+        assert page.errors == []
+    finally:
+        page.close()
+
+
+def test_scale_bar_on_screen_matches_its_length(browser, handmade):
+    import json
+
+    _, _, path = handmade
+    page = Page(browser, path)
+    try:
+        bars = {label: length for length, label in json.loads(page.page.get_attribute("#geomap", "data-bars"))}
+        for _ in range(3):
+            label = page.page.eval_on_selector("#scalebar", "e => e.firstChild.textContent")
+            px = page.page.eval_on_selector("#scalebar span", "e => e.getBoundingClientRect().width")
+            # local units per pixel, as the browser lays out the viewBox (preserveAspectRatio meet)
+            u = page.page.evaluate(
+                "() => { const s = document.getElementById('geomap'), r = s.getBoundingClientRect(), v = s.viewBox.baseVal;"
+                " return Math.max(v.width / r.width, v.height / r.height); }"
+            )
+            assert label in bars and px <= 130.5 and px * u == pytest.approx(bars[label], rel=0.01), (label, px)
+            page.page.click("#zin")
+            page.settle()
+    finally:
+        page.close()
+
+
+def test_labels_and_bar_on_a_map_in_degrees_at_60n(browser, tmp_path):
+    import json
+
+    import geopandas as gpd
+    import pandas as pd
+    from pyproj import Geod
+    from shapely.geometry import box as shape_box
+
+    cells = [box(10 + i * 0.02, 60 + j * 0.01, 10 + (i + 1) * 0.02, 60 + (j + 1) * 0.01) for j in range(3) for i in range(3)]
+    units = gpd.GeoDataFrame({"unit": [f"G{k}" for k in range(9)]}, geometry=cells, crs="EPSG:4326")
+    legend = pd.DataFrame({"unit": units["unit"], "name": [f"Unit {k}" for k in range(9)]})
+    lines = gpd.GeoDataFrame({"kind": ["map-boundary"], "certainty": ["certain"]},
+                             geometry=[shapely.LineString([(10, 60), (10.06, 60), (10.06, 60.03), (10, 60.03), (10, 60)])], crs="EPSG:4326")
+    root = tiny_project(tmp_path, units=units, lines=lines, legend=legend, manifest={"map": {"crs": "EPSG:4326", "scale": 10000}})
+    project = archivist.load_project(root)
+    out = tmp_path / "r.html"
+    out.write_text(render_html(Report(tool="archivist", version="0", project=str(root), crs=None, findings=()), project), encoding="utf-8")
+    page = Page(browser, out)
+    try:
+        svg = page.page.locator("#geomap")
+        x0, y1, kx = (float(svg.get_attribute(a)) for a in ("data-x0", "data-y1", "data-kx"))
+        assert 0.49 < kx < 0.51  # squeezed by about cos 60°
+        page.page.click("#zin")
+        page.settle()
+        shown = _visible_labels(page)
+        assert len(shown) == 9
+        for code, px, bx, by, bw, bh in shown:
+            lab = shape_box(x0 + bx / kx, y1 - by - bh, x0 + (bx + bw) / kx, y1 - by)
+            assert units.geometry[units["unit"] == code].iloc[0].contains(lab), code
+        # the bar on screen, back in degrees at the map's centre latitude, against pyproj's Geod
+        bars = {label: length for length, label in json.loads(svg.get_attribute("data-bars"))}
+        label = page.page.eval_on_selector("#scalebar", "e => e.firstChild.textContent")
+        _, _, metres = Geod(ellps="WGS84").inv(10.03, 60.015, 10.03 + bars[label] / kx, 60.015)
+        assert metres == pytest.approx(_bar_metres(label), rel=1e-3)
+        assert page.errors == []
+    finally:
+        page.close()
+
+
+def test_summary_names_the_chart_the_legend_was_checked_against(tmp_path):
+    from archivist.reference import CREDIT_PREFIX, chart_credit
+
+    root = copy_bundle(tmp_path)
+    edit_manifest(root, lambda m: m.setdefault("checks", {}).__setitem__("chart", "2023-09"))
+    project = archivist.load_project(root)
+    report = archivist.check(project, only=["legend"])
+    note = chart_credit("2023-09")
+    assert note in report.notes  # the engine's note, as the text and JSON reports print it
+    summary = render_html(report, project).split('<section id="summary">', 1)[1].split("</section>", 1)[0]
+    assert "<dt>Chart</dt>" in summary and summary.count(CREDIT_PREFIX) == 1 and "version 2023-09, CC BY 4.0" in summary

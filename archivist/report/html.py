@@ -3,7 +3,8 @@
 The page needs no network: no web fonts, no scripts, styles or tiles from
 elsewhere (a Content-Security-Policy in the page forbids them). Its style
 sheet and script are the package's ``assets/report.css`` and
-``assets/report.js``, written into the page. The map is drawn by
+``assets/report.js``, written into the page. The map comes first, with the
+summary beside it on a wide screen and below it on a narrow one. The map is drawn by
 :mod:`archivist.report.svg`, the unit colours come from
 :mod:`archivist.report.legend`; this module writes the page's sections.
 Every value from the data is escaped (:mod:`archivist.report.markup`).
@@ -22,11 +23,11 @@ from typing import TYPE_CHECKING, Iterable
 
 import numpy as np
 
-from .. import registry
+from .. import reference, registry
 from .._version import __version__
 from ..fsutil import atomic_write_text
 from ..model import Report, Severity
-from .legend import UnitStyles, legend_rows
+from .legend import TOUCH_MM, UnitStyles, legend_rows, project_fills
 from .markup import code_text as _code
 from .markup import escape_text as _e
 from .markup import int_text as _int
@@ -55,7 +56,13 @@ class _Page:
         self.project = project
         self.rules = rules
         self.legend_rows = legend_rows(project)
-        self.styles = UnitStyles(self.legend_rows)
+        touch = 0.0
+        if project is not None and "units" in project.layers:
+            from .svg import map_units_per_mm
+
+            touch = TOUCH_MM * map_units_per_mm(project)
+        self.styles = UnitStyles(self.legend_rows, project_fills(project, self.legend_rows, touch))
+        self.chart = reference.chart_info(getattr(getattr(project, "config", None), "chart", None))
         # the first ROWS_PER_RULE findings of each rule are shown one by one; the rest are counted and dotted
         seen: Counter[str] = Counter()
         self.detailed = np.zeros(len(report.findings), dtype=bool)
@@ -94,6 +101,9 @@ class _Page:
             meta.append(("Licence", _e(m["licence"])))
         meta.append(("Project", f"<code>{_e(r.project)}</code>"))
         meta.append(("Checked with", f"archivist {_e(r.version)}: {_e(_plural(len(r.rules_run), 'rule'))} ran"))
+        chart_notes = [n for n in r.notes if n.startswith(reference.CREDIT_PREFIX)]
+        for n in chart_notes:
+            meta.append(("Chart", _e(n)))
         out.append('<dl class="meta">' + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in meta) + "</dl>")
         # counts by family and severity
         fams = [f for f in registry.FAMILIES]
@@ -121,27 +131,41 @@ class _Page:
             + "".join(rows)
             + "</tbody></table>"
         )
-        if r.notes:
-            out.append('<ul class="notes">' + "".join(f"<li>{_e(n)}</li>" for n in r.notes) + "</ul>")
+        other = [n for n in r.notes if n not in chart_notes]
+        if other:
+            out.append('<ul class="notes">' + "".join(f"<li>{_e(n)}</li>" for n in other) + "</ul>")
         return "".join(out)
 
     def not_covered(self) -> str:
         r = self.report
-        ran = set(r.rules_run)
-        notrun = [x for x in self.rules if x not in ran]
+        could, cannot = rules_not_run(r, self.rules, self.project)
         items = [f"<p>{_e(CAUTION)}</p>"]
         li = []
-        if notrun:
+
+        def listing(ids: list[str]) -> str:
             by_family: dict[str, list[str]] = {}
-            for x in notrun:
+            for x in ids:
                 by_family.setdefault(self.rules[x].family, []).append(x)
-            listing = "".join(
-                f"<li>{_e(fam)}: " + ", ".join(f"<code>{_e(x)}</code>" for x in ids) + "</li>" for fam, ids in by_family.items()
+            return "".join(
+                f"<li>{_e(fam)}: " + ", ".join(f"<code>{_e(x)}</code>" for x in group) + "</li>" for fam, group in by_family.items()
             )
+
+        if could:
             li.append(
-                f"<details><summary>{_e(_plural(len(notrun), 'rule'))} did not run: a layer or table they need is absent, "
-                f"they were switched off, the run was limited to some rules, or they belong to another command "
-                f"(such as an audit).</summary><ul>{listing}</ul></details>"
+                f"<details><summary>{_e(_plural(len(could), 'rule'))} that could have run did not: "
+                f"they were switched off or the run was limited to some rules.</summary><ul>{listing(could)}</ul></details>"
+            )
+        audit = [x for x in cannot if "archive" in self.rules[x].needs]
+        absent = [x for x in cannot if x not in set(audit)]
+        if absent:
+            li.append(
+                f"<details><summary>{_e(_plural(len(absent), 'rule'))} had nothing to check: a layer or table they need "
+                f"is absent or empty.</summary><ul>{listing(absent)}</ul></details>"
+            )
+        if audit:
+            li.append(
+                f"<details><summary>{_e(_plural(len(audit), 'rule'))} check archives and run in "
+                f"<code>archivist audit</code>.</summary><ul>{listing(audit)}</ul></details>"
             )
         unlocated = sum(1 for f in r.findings if f.x is None or f.y is None)
         if unlocated:
@@ -177,14 +201,30 @@ class _Page:
                 f"structural measurements ({_int(m.structures_n)})</span>"
             )
         step = f"{_num(fr.q * fr.metres_per_unit)} m (1/{_int(GRID_STEPS)} of the map's larger side)"
+        if fr.north is None:
+            north_text = "North is not known (no CRS with an ellipsoid): up is the map's y axis"
+            arrow = '<div id="north" title="grid north: the map\'s y axis"><svg width="28" height="40" viewBox="-14 -20 28 40"><path d="M0 -15L7 7L0 3L-7 7Z" fill="#fff" stroke="#111" stroke-width="1.4"/></svg><span>y</span></div>'
+        else:
+            off = abs(fr.north)
+            side = "east" if fr.north > 0 else "west"
+            north_text = "North up" if off < 0.05 else f"Grid north up; true north at the map's centre is {off:.2f}° {side} of it (arrow)"
+            arrow = (
+                f'<div id="north" title="true north at the map\'s centre{"" if off < 0.05 else f": {off:.2f}° {side} of grid north"}">'
+                f'<svg width="28" height="40" viewBox="-14 -20 28 40"><g transform="rotate({fr.north:.3f})">'
+                '<path d="M0 -15L7 7L0 3Z" fill="#111"/><path d="M0 -15L-7 7L0 3Z" fill="#fff" stroke="#111" stroke-width="1.2"/></g></svg><span>N</span></div>'
+            )
         how = {
             "coverage": f"simplified for display to {step}, shared edges kept shared",
             "polygon": f"simplified for display to {step} one by one (shared edges may part by that much when zoomed far in)",
         }.get(m.simplified or "", f"drawn on a display grid of {step}")
+        labels = ""
+        if m.labels_n:
+            labels = f" Unit codes are shown where they fit at the current zoom{f' (on the {_int(m.labels_n)} largest polygons)' if m.labels_left else ''}."
         caption = (
-            f"Grid north up. Unit polygons {how}; lines simplified to the same grid; "
+            f"{_e(north_text)}. Scale bar: ground length {_e(fr.ground)}. Unit polygons {how}; lines simplified to the same grid; "
             f"finding geometries drawn to {_num(fr.q / FINDING_GRID * fr.metres_per_unit)} m. "
             "Drag to pan, wheel or double-click to zoom, <kbd>0</kbd> to see everything; click a polygon to name it, a marker to find its row."
+            + labels
         )
         notes = "".join(f"<li>{_e(n)}</li>" for n in m.notes)
         unit_names = {
@@ -201,7 +241,7 @@ class _Page:
             + '<div class="tools noprint"><button id="zin" title="Zoom in" type="button">+</button>'
             '<button id="zout" title="Zoom out" type="button">−</button>'
             '<button id="zfull" title="Whole map" type="button">⤢</button></div>'
-            '<div id="scalebar"></div><div id="coords"></div></div>'
+            f'{arrow}<div id="scalebar"></div><div id="coords"></div></div>'
             '<p id="info" aria-live="polite"></p>'
             f'<div class="keyrow">{"".join(key)}</div>'
             f'<p class="caption">{caption}</p>'
@@ -282,7 +322,14 @@ class _Page:
             code = r["_code"]
             legend_codes.add(code)
             unit = self.styles.unit_for(code)
-            sw = f'<span class="sw" style="background:{unit.colour}"></span>' if unit.colour else f'<span class="sw" style="background:{unit.fill}" title="no colour in the legend: drawn in a generated colour"></span>'
+            if unit.source == "legend":
+                tip = "the legend's colour"
+            elif unit.source == "chart":
+                tip = (f"no colour in the legend: the chart colour of the {unit.chart_unit}"
+                       + (", in a lighter or darker shade to stand apart from a touching unit" if unit.shaded else ""))
+            else:
+                tip = "no colour or age in the legend: a palette colour, different from the touching units"
+            sw = f'<span class="sw" style="background:{unit.fill}" title="{_e(tip)}"></span>'
             ages = ""
             lo, hi = r.get("min_age_ma"), r.get("max_age_ma")
             if _present(lo) or _present(hi):
@@ -301,12 +348,26 @@ class _Page:
                 f'<td></td><td></td><td></td><td class="n">{_int(m.unit_counts[code])}</td></tr>'
             )
         total = sum(m.unit_counts.values())
+        credit = []
+        chart_units = self.styles.chart_units
+        if chart_units:
+            credit.append(
+                f'<p class="credit">Colours of {_e(", ".join(chart_units))} (no colour in the legend): the official colour of '
+                f"the unit's age on the {_e(self.chart.attribution)}; shades are marked in the swatch's tooltip.</p>"
+            )
+        palette = [r["_code"] for r in self.legend_rows if self.styles.unit_for(r["_code"]).source == "palette"]
+        if palette:
+            credit.append(
+                f'<p class="credit">Colours of {_e(", ".join(palette))} (neither a colour nor a readable age in the legend): '
+                "a qualitative palette (ColorBrewer Set3), touching units in colours far apart.</p>"
+            )
         return (
             '<table class="legend"><thead><tr><th></th><th>unit</th><th>name</th><th>age</th><th>Ma</th><th>lithology</th>'
             '<th class="n">polygons</th></tr></thead><tbody>'
             + "".join(rows)
             + f'<tr><td></td><th colspan="5">all units</th><td class="n"><b>{_int(total)}</b></td></tr>'
             + "</tbody></table>"
+            + "".join(credit)
         )
 
     def rules_section(self) -> str:
@@ -328,6 +389,29 @@ class _Page:
             )
         return "".join(out)
 
+
+
+def rules_not_run(
+    report: Report, rules: dict[str, registry.RuleInfo], project: MapProject | None
+) -> tuple[list[str], list[str]]:
+    """The registered rules that did not run, split in two: (could have run, had nothing to check).
+
+    A rule could have run when every layer or table it ``needs`` is in the
+    project and holds something (the engine's own test, ``engine.empty_layers``):
+    it did not because it was switched off or the run was limited to other
+    rules. The others had nothing to check (and the rules of archives need
+    an audit). Without the project, a rule that needs anything counts as
+    having had nothing to check.
+    """
+    ran = set(report.rules_run)
+    notrun = [x for x in rules if x not in ran]
+    if project is None:
+        return [x for x in notrun if not rules[x].needs], [x for x in notrun if rules[x].needs]
+    from ..engine import empty_layers
+
+    empty = empty_layers(project)
+    can = [x for x in notrun if all(project.has(role) and role not in empty for role in rules[x].needs)]
+    return can, [x for x in notrun if x not in set(can)]
 
 
 def _present(v) -> bool:
@@ -357,16 +441,21 @@ def render_html(report: Report, project: MapProject | None = None, *, rules: Ite
     page = _Page(report, project, {i.id: i for i in infos})
     drawing = page.draw_map()
     title = project.name if project is not None else report.project
+    # the map first on screen, the summary beside it (below it on a narrow screen)
+    first = [("map", "Map", page.map_section(drawing)), ("summary", "Summary", page.summary())]
     sections = [
-        ("summary", "Summary", page.summary()),
         ("not-covered", "What the checks do not cover", page.not_covered()),
-        ("map", "Map", page.map_section(drawing)),
         ("findings", "Findings", page.findings_section(drawing)),
         ("legend", "Legend", page.legend_section(drawing)),
         ("rules", "Rules", page.rules_section()),
     ]
-    nav = " · ".join(f'<a href="#{sid}">{_e(name)}</a>' for sid, name, _ in sections)
-    body = "".join(f'<section id="{sid}"><h2>{_e(name)}</h2>{content}</section>' for sid, name, content in sections)
+    nav = " · ".join(f'<a href="#{sid}">{_e(name)}</a>' for sid, name, _ in first + sections)
+    body = (
+        '<div class="overview">'
+        + "".join(f'<section id="{sid}"><h2>{_e(name)}</h2>{content}</section>' for sid, name, content in first)
+        + "</div>"
+        + "".join(f'<section id="{sid}"><h2>{_e(name)}</h2>{content}</section>' for sid, name, content in sections)
+    )
     csp = "default-src 'none'; style-src 'unsafe-inline'; script-src 'unsafe-inline'; img-src data:"
     return (
         "<!DOCTYPE html>\n"

@@ -4,7 +4,16 @@
 * lines drawn by kind (contacts, faults, the map boundary) and certainty;
 * samples as dots and structural measurements as strike-and-dip symbols;
 * every finding with a location as a marker coloured by severity, and its
-  geometry (an overlap, a gap, a dangling line) drawn unsimplified on top.
+  geometry (an overlap, a gap, a dangling line) drawn unsimplified: notices
+  under the samples and structural measurements, warnings and errors over
+  them (errors on top);
+* unit codes as labels at each polygon's pole of inaccessibility, which the
+  page keeps at one screen size and shows only where they fit.
+
+The page's measures are computed here, not in its script: the ground length
+of a local unit and the direction of true north (:func:`ground_scale`, on
+the CRS's ellipsoid with pyproj), the scale bars (:func:`scale_bars`), the
+zoom box of each finding (:func:`zoom_boxes`) and where each label fits.
 
 Display geometry is simplified (``shapely.coverage_simplify`` keeps shared
 edges shared) to 1/20 000 of the map's width and written as integers on that
@@ -32,8 +41,10 @@ from pyproj.exceptions import ProjError
 from ..model import Report
 from ..readers import as_text
 from .legend import UnitStyles
+from .legend import layer_labels as _labels
 from .markup import escape_text as _e
 from .markup import plural as _plural
+from .markup import script_json as _json
 
 if TYPE_CHECKING:
     from ..project import Layer, MapProject
@@ -43,6 +54,10 @@ FINDING_GRID = 100  # findings are drawn on a grid this many times finer
 SIMPLIFY_BELOW = 10  # simplify units only when their mean segment is shorter than this many grid steps
 COVERAGE_VERTICES = 500_000  # above this, polygons are simplified one by one (coverage simplification is slow)
 LINEAR_KINDS = ("lineation", "fold axis", "fold-axis", "fold hinge", "trend")
+LABEL_PX = 12  # unit labels: font size in screen pixels at every zoom
+LABEL_CHAR = 0.9  # width of a label character, in font sizes: above the 0.69-0.85 of bold capitals measured in Chromium
+LABEL_LINE = 1.2  # height of a label's box, in font sizes (measured 1.17)
+LABELS_MAX = 3000  # polygons labelled, the largest first; smaller ones are named by clicking
 
 
 
@@ -51,9 +66,11 @@ class Frame:
     """Map coordinates to the page's local SVG units.
 
     Local ``X = (x - x0) * kx``, ``Y = y1 - y``: map units with y pointing
-    down and an origin at the top left; ``kx`` squeezes longitude by the
-    cosine of the latitude for a geographic CRS (1 otherwise). Paths are
-    written as integers on a grid of ``q`` local units.
+    down and an origin at the top left; ``kx`` squeezes longitude for a
+    geographic CRS so that the map is true to shape at its centre (1
+    otherwise). Paths are written as integers on a grid of ``q`` local units.
+    ``metres_per_unit`` is the ground length of one local unit, measured
+    east-west at the map's centre (:func:`ground_scale`).
     """
 
     x0: float
@@ -64,6 +81,8 @@ class Frame:
     q: float
     metres_per_unit: float
     mm: float  # local units per millimetre of the printed map
+    north: float | None = None  # true north at the centre, degrees clockwise from the page's up
+    ground: str = ""  # how metres_per_unit was measured, for the caption
 
     def local(self, x, y):
         return (np.asarray(x, dtype=float) - self.x0) * self.kx, self.y1 - np.asarray(y, dtype=float)
@@ -71,6 +90,87 @@ class Frame:
     def grid(self, xy: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray]:
         X, Y = self.local(xy[:, 0], xy[:, 1])
         return np.rint(X / q).astype(np.int64), np.rint(Y / q).astype(np.int64)
+
+
+@dataclass(frozen=True)
+class GroundScale:
+    """What one map unit is on the ground at a point of the map.
+
+    ``metres_x``/``metres_y``: metres on the ground per map unit along x and
+    along y; ``kx``: the squeeze of x that makes the page true to shape there
+    (``metres_x / metres_y`` for a geographic CRS, 1 for a projected one,
+    which is drawn on its grid); ``north``: the direction of true north in
+    degrees clockwise from the map's y axis (the meridian convergence, None
+    when the CRS has no known ellipsoid); ``how``: one sentence for the
+    caption.
+    """
+
+    metres_x: float
+    metres_y: float
+    kx: float
+    north: float | None
+    how: str
+
+    @property
+    def metres_per_unit(self) -> float:
+        """Ground metres per local (page) unit, east-west: the length a scale bar is built from."""
+        return self.metres_x / self.kx
+
+
+def ground_scale(crs, x: float, y: float, step: float) -> GroundScale:
+    """Ground metres per map unit and the direction of true north at map point (``x``, ``y``).
+
+    Measured on the ellipsoid of the CRS with pyproj's ``Geod`` between two
+    points ``step`` map units apart (east-west, then north-south), after
+    converting them to longitude and latitude with pyproj; so a map in
+    degrees gets metres at its own latitude, and a projected map gets its
+    true ground distance (the projection's scale factor included, which is
+    up to 0.04 % in UTM and doubles at 60 degrees in Web Mercator). True
+    north is the direction of the meridian through the point. Without a CRS,
+    or with one pyproj cannot take to longitude and latitude, map units are
+    read by the CRS's axis unit (metres when there is none) and north is
+    unknown.
+    """
+    from pyproj import Transformer
+
+    def by_axis(why: str) -> GroundScale:
+        metres = 1.0
+        if crs is not None and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
+            metres = float(crs.axis_info[0].unit_conversion_factor)
+        return GroundScale(metres, metres, 1.0, None, why)
+
+    if crs is None:
+        return by_axis("the map has no CRS: its units are read as metres and up as north")
+    try:
+        geod = crs.get_geod()
+        base = crs.geodetic_crs
+        if geod is None or base is None:
+            return by_axis(f"{crs.name} has no ellipsoid: distances are read in its axis unit (grid distance) and north is not known")
+        to_ll = Transformer.from_crs(crs, base, always_xy=True)
+        h = step / 2
+        lon, lat = to_ll.transform(np.array([x - h, x + h, x, x, x]), np.array([y, y, y - h, y + h, y]))
+        if not (np.all(np.isfinite(lon)) and np.all(np.isfinite(lat))):
+            raise ValueError("point outside the CRS's domain")
+        _, _, dx = geod.inv(lon[0], lat[0], lon[1], lat[1])
+        _, _, dy = geod.inv(lon[2], lat[2], lon[3], lat[3])
+        mx, my = float(dx) / step, float(dy) / step
+        if not (mx > 0 and my > 0):
+            raise ValueError("zero length")
+        if crs.is_geographic:
+            kx, north = mx / my, 0.0
+        else:
+            kx = 1.0
+            # one step of latitude north of the centre, back in map units: its bearing on the grid
+            to_map = Transformer.from_crs(base, crs, always_xy=True)
+            dlat = max(abs(float(lat[3]) - float(lat[2])), 1e-7)  # as long as the north-south step; only its direction is used
+            nx, ny = to_map.transform(lon[4], min(lat[4] + dlat, 90.0))
+            north = math.degrees(math.atan2(float(nx) - x, float(ny) - y))
+        ns = "N" if lat[4] >= 0 else "S"
+        ellipsoid = crs.ellipsoid.name if crs.ellipsoid is not None else "CRS's"
+        how = f"measured on the {ellipsoid} ellipsoid at latitude {abs(float(lat[4])):.2f}°{ns}"
+        return GroundScale(mx, my, kx, north, how)
+    except (ProjError, ValueError, TypeError, ZeroDivisionError):
+        return by_axis(f"{crs.name} could not be measured on its ellipsoid: distances are read in its axis unit and north is not known")
 
 
 def _frame(bounds: list[np.ndarray], project) -> Frame | None:
@@ -81,14 +181,11 @@ def _frame(bounds: list[np.ndarray], project) -> Frame | None:
     minx, miny = arr[:, 0].min(), arr[:, 1].min()
     maxx, maxy = arr[:, 2].max(), arr[:, 3].max()
     crs = getattr(project, "crs", None)
-    kx, metres = 1.0, 1.0
-    if crs is not None and crs.is_geographic:
-        kx = max(math.cos(math.radians((miny + maxy) / 2)), 0.05)
-        metres = 111_320.0
-    elif crs is not None and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
-        metres = float(crs.axis_info[0].unit_conversion_factor)
+    step = max(maxx - minx, maxy - miny) / 100 or 1.0
+    g = ground_scale(crs, (minx + maxx) / 2, (miny + maxy) / 2, step)
+    kx, metres = g.kx, g.metres_per_unit
     scale = float(getattr(getattr(project, "config", None), "scale", 25000.0) or 25000.0)
-    mm = scale / 1000.0 / metres  # map units per printed millimetre
+    mm = scale / 1000.0 / metres  # local units per printed millimetre
     w, h = (maxx - minx) * kx, maxy - miny
     least = 20 * mm  # a frame at least 2 cm of the printed map across
     if w < least:
@@ -101,7 +198,68 @@ def _frame(bounds: list[np.ndarray], project) -> Frame | None:
     x0 = minx - pad / kx
     y1 = maxy + pad
     width, height = w + 2 * pad, h + 2 * pad
-    return Frame(x0, y1, kx, width, height, max(width, height) / GRID_STEPS, metres, mm)
+    return Frame(x0, y1, kx, width, height, max(width, height) / GRID_STEPS, metres, mm, g.north, g.how)
+
+
+def scale_bars(frame: Frame) -> list[tuple[float, str]]:
+    """The scale bars the page can show, as (length in local units, label), shortest first.
+
+    Round ground lengths (1, 2 and 5 times a power of ten metres) from a
+    fifth of a millimetre of the printed map (a bar for the closest zoom) to
+    three times the map's width (the farthest zoom out); each converted to
+    local units with the ground length of a local unit at the map's centre
+    (:attr:`Frame.metres_per_unit`). The page shows the longest bar that fits
+    its box at the current zoom.
+    """
+    mpu = frame.metres_per_unit
+    lo = 0.2 * frame.mm * mpu
+    hi = 3 * frame.width * mpu
+    out = []
+    for k in range(math.floor(math.log10(lo)), math.ceil(math.log10(hi)) + 1):
+        for m in (1, 2, 5):
+            metres = m * 10.0**k
+            if lo <= metres <= hi:
+                label = f"{metres / 1000:g} km" if metres >= 1000 else f"{metres:g} m"
+                out.append((metres / mpu, label))
+    return out
+
+
+def map_units_per_mm(project) -> float:
+    """Map units per millimetre of the printed map at the centre of the units layer (1 mm at 1:25 000 is 25 m).
+
+    In a geographic CRS the shorter of the east-west and north-south
+    lengths of a degree there decides, so the distance is at least 1 mm
+    of the map either way.
+    """
+    scale = float(getattr(getattr(project, "config", None), "scale", 25000.0) or 25000.0)
+    layer = project.layers.get("units") if project is not None else None
+    if layer is None or len(layer.frame) == 0:
+        return scale / 1000.0
+    b = np.asarray(layer.frame.total_bounds, dtype=float)
+    if not np.all(np.isfinite(b)):
+        return scale / 1000.0
+    step = max(b[2] - b[0], b[3] - b[1]) / 100 or 1.0
+    g = ground_scale(layer.crs or project.crs, (b[0] + b[2]) / 2, (b[1] + b[3]) / 2, step)
+    return scale / 1000.0 / min(g.metres_x, g.metres_y)
+
+
+ZOOM_CONTEXT = 5.0  # a finding zoomed to spans at most 1/5 of the view
+ZOOM_MIN_MM = 40.0  # and the view is at least 40 mm of the printed map across (1 km at 1:25 000)
+
+
+def zoom_boxes(bounds: np.ndarray, frame: Frame) -> np.ndarray:
+    """Zoom boxes (local units, ``x0 y0 x1 y1``) for findings with local bounds ``bounds`` (n x 4).
+
+    Each is a square centred on the finding, :data:`ZOOM_CONTEXT` times its
+    larger side and at least :data:`ZOOM_MIN_MM` millimetres of the printed
+    map across, so the view shows where the finding is as well as what it is.
+    The page fits the box to the shape of the map's window.
+    """
+    b = np.asarray(bounds, dtype=float).reshape(-1, 4)
+    cx, cy = (b[:, 0] + b[:, 2]) / 2, (b[:, 1] + b[:, 3]) / 2
+    size = np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1])
+    half = np.maximum(ZOOM_CONTEXT * size, ZOOM_MIN_MM * frame.mm) / 2
+    return np.c_[cx - half, cy - half, cx + half, cy + half]
 
 
 _LUT_N = 2 * GRID_STEPS + 16
@@ -288,6 +446,9 @@ class MapDrawing:
     samples_n: int = 0
     structures_n: int = 0
     boxes: dict[int, str] = field(default_factory=dict)
+    labels_n: int = 0
+    labels_left: int = 0
+    bars: tuple[tuple[float, str], ...] = ()
 
 
 def draw_map(report: Report, project: MapProject | None, units: UnitStyles, detailed: np.ndarray) -> MapDrawing:
@@ -326,17 +487,24 @@ def draw_map(report: Report, project: MapProject | None, units: UnitStyles, deta
         return MapDrawing("", None, tuple(notes))
     w = _MapWriter(fr, units, notes)
     parts = []
+    labels = ""
     if "units" in layers:
         parts.append(w.units_svg(*layers["units"]))
+        labels = w.labels_svg(*layers["units"])
     if "extent" in layers:
         parts.append(w.extent_svg(*layers["extent"]))
     if "lines" in layers:
         parts.append(w.lines_svg(*layers["lines"]))
+    parts.append(labels)
+    # notices under the field data, warnings and errors over it (errors on top)
+    below, above = w.findings_svg(report, detailed, fx, fy)
+    parts.append(below)
     if "structures" in layers:
         parts.append(w.structures_svg(*layers["structures"]))
     if "samples" in layers:
         parts.append(w.samples_svg(*layers["samples"]))
-    parts.append(w.findings_svg(report, detailed, fx, fy))
+    parts.append(above)
+    bars = scale_bars(fr)
     aspect = fr.width / fr.height
     defs = (
         '<defs><pattern id="nolegend" width="8" height="8" patternUnits="userSpaceOnUse" patternTransform="rotate(45)">'
@@ -352,14 +520,15 @@ def draw_map(report: Report, project: MapProject | None, units: UnitStyles, deta
         f'<svg id="geomap" role="img" aria-label="Map of the project with its findings" tabindex="0" '
         f'viewBox="{full}" preserveAspectRatio="xMidYMid meet" style="--aspect:{aspect:.5f}" '
         f'data-full="{full}" data-x0="{float(fr.x0)!r}" data-y1="{float(fr.y1)!r}" data-kx="{float(fr.kx)!r}" '
-        f'data-mpu="{float(fr.metres_per_unit)!r}" data-minw="{fr.mm * 2:.6g}">'
+        f'data-mpu="{float(fr.metres_per_unit)!r}" data-minw="{fr.mm * 2:.6g}" data-label-px="{LABEL_PX}" '
+        f'data-bars="{_e(_json([[float(f"{n:.9g}"), t] for n, t in bars]))}">'
         + defs
         + "".join(parts)
         + "</svg>"
     )
     return MapDrawing(
         svg, fr, tuple(w.notes), w.unit_counts, w.unit_ids, w.unit_rings, w.simplified,
-        tuple(w.line_key), w.samples_n, w.structures_n, w.boxes,
+        tuple(w.line_key), w.samples_n, w.structures_n, w.boxes, w.labels_n, w.labels_left, tuple(bars),
     )
 
 
@@ -378,6 +547,8 @@ class _MapWriter:
         self.samples_n = 0
         self.structures_n = 0
         self.boxes: dict[int, str] = {}
+        self.labels_n = 0
+        self.labels_left = 0
 
     def units_svg(self, lay: Layer, geoms: np.ndarray) -> str:
         fr = self.frame
@@ -413,6 +584,62 @@ class _MapWriter:
             )
         parts.append("</g>")
         return "".join(parts)
+
+    def labels_svg(self, lay: Layer, geoms: np.ndarray) -> str:
+        """The unit code of each polygon at its pole of inaccessibility, for the page to size and show.
+
+        Each ``<text>`` carries ``data-s``: the most local units per screen
+        pixel at which the label, :data:`LABEL_PX` pixels high, fits inside
+        the polygon's largest inscribed circle (GEOS). The page keeps the text
+        that size at every zoom and shows a label only while it fits; labels
+        are written largest circle first. Only the :data:`LABELS_MAX` largest
+        polygons are labelled.
+        """
+        fr = self.frame
+        codes = _labels(lay, "unit_field")
+        if codes is None:
+            return ""
+        ok = ~shapely.is_missing(geoms)
+        ok[ok] = ~shapely.is_empty(geoms[ok]) & np.isin(shapely.get_type_id(geoms[ok]), (3, 6))
+        ok &= codes != ""
+        idx = np.flatnonzero(ok)
+        if len(idx) == 0:
+            return ""
+        order = idx[np.argsort(-shapely.area(geoms[idx]), kind="stable")]
+        self.labels_left = max(len(order) - LABELS_MAX, 0)
+        order = order[:LABELS_MAX]
+        if fr.kx == 1.0:  # local units are map units reflected and shifted: the circle is found in map units
+            local = geoms[order]
+        else:
+            local = shapely.transform(geoms[order], lambda xy: np.c_[fr.local(xy[:, 0], xy[:, 1])])
+        try:
+            # a coarse search (1/100 of each polygon's size) is enough to place a label: the radius
+            # returned is the true distance from the centre found to the boundary, so a label that
+            # fits that circle is inside the polygon whatever the tolerance
+            b = shapely.bounds(local)
+            mic = shapely.maximum_inscribed_circle(local, np.maximum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 100)
+            start = shapely.get_point(mic, 0)
+            centre = np.c_[shapely.get_x(start), shapely.get_y(start)]  # NaN where GEOS gave nothing
+            radius = shapely.length(mic)
+        except shapely.errors.GEOSException:  # an invalid polygon: a point inside it, and a quarter of its smaller side
+            inside = shapely.point_on_surface(local)
+            centre = np.c_[shapely.get_x(inside), shapely.get_y(inside)]
+            b = shapely.bounds(local)
+            radius = np.minimum(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]) / 4
+        if fr.kx == 1.0:
+            centre = np.c_[fr.local(centre[:, 0], centre[:, 1])]
+        text = codes[order]
+        chars = np.array([len(t) for t in text.tolist()], dtype=float)
+        need = LABEL_PX * np.hypot(np.maximum(chars * LABEL_CHAR, 1.0), LABEL_LINE)  # the label's diagonal, in pixels
+        fits = 2 * radius / need
+        keep = np.isfinite(fits) & (fits > 0) & np.all(np.isfinite(centre), axis=1)
+        srt = np.flatnonzero(keep)[np.argsort(-fits[keep], kind="stable")]
+        self.labels_n = len(srt)
+        body = "".join(
+            f'<text x="{x:.7g}" y="{y:.7g}" data-s="{v:.4g}">{_e(t)}</text>'
+            for x, y, v, t in zip(centre[srt, 0].tolist(), centre[srt, 1].tolist(), fits[srt].tolist(), text[srt].tolist())
+        )
+        return f'<g class="labels" aria-hidden="true">{body}</g>'
 
     def extent_svg(self, lay: Layer, geoms: np.ndarray) -> str:
         q = self.frame.q
@@ -524,19 +751,21 @@ class _MapWriter:
             f'<path d="{body}"/></g>'
         )
 
-    def findings_svg(self, report: Report, detailed: np.ndarray, fx: np.ndarray, fy: np.ndarray) -> str:
-        """Markers and geometries of the findings.
+    def findings_svg(self, report: Report, detailed: np.ndarray, fx: np.ndarray, fy: np.ndarray) -> tuple[str, str]:
+        """Markers and geometries of the findings: (notices, warnings and errors).
 
-        The findings listed one by one (``detailed``) get their own marker
-        (clickable, linked to their row) and their geometry drawn; the others
-        are marked too, as dots merged into one path per rule and severity.
+        The page puts the notices under the samples and structural
+        measurements and the rest over them, errors on top. The findings
+        listed one by one (``detailed``) get their own marker (clickable,
+        linked to their row) and their geometry drawn; the others are marked
+        too, as dots merged into one path per rule and severity.
         """
         fr = self.frame
         qf = fr.q / FINDING_GRID
         findings = report.findings
         geoms = _finding_geoms(report, detailed)
         located = np.isfinite(fx) & np.isfinite(fy)
-        # zoom boxes in local units: the finding's geometry, else its point
+        # zoom boxes in local units: around the finding's geometry, else its point
         X, Y = fr.local(fx, fy)
         bx = np.c_[X, Y, X, Y]
         has_geom = ~shapely.is_missing(geoms)
@@ -547,10 +776,14 @@ class _MapWriter:
             gb = np.c_[lx0, ly0, lx1, ly1]
             good = np.all(np.isfinite(gb), axis=1)
             bx[np.flatnonzero(has_geom)[good]] = gb[good]
-        for i in np.flatnonzero(detailed & located & np.all(np.isfinite(bx), axis=1)).tolist():
-            self.boxes[i] = " ".join(f"{v:.3f}" for v in bx[i])
+        zb = zoom_boxes(bx, fr)
+        for i in np.flatnonzero(detailed & located & np.all(np.isfinite(zb), axis=1)).tolist():
+            self.boxes[i] = " ".join(f"{v:.3f}" for v in zb[i])
+        rank = np.array([f.severity.rank for f in findings], dtype=int)
+        # drawn notices first, errors last (on top): a stable sort on the severity
+        paint = np.argsort(-rank, kind="stable")
         # geometries other than points, drawn unsimplified on the fine grid
-        shapes = []
+        shapes: dict[int, str] = {}
         if has_geom.any():
             t = np.full(len(findings), -1)
             t[has_geom] = shapely.get_type_id(geoms[has_geom])
@@ -565,25 +798,34 @@ class _MapWriter:
                 dd = dpoly[i] if poly[i] else dline[i]
                 if dd:
                     cls = f"s-{findings[i].severity.value}" + ("" if poly[i] else " ln")
-                    shapes.append(f'<path class="{cls}" data-k="{i}" d="{dd}"/>')
+                    shapes[i] = f'<path class="{cls}" data-k="{i}" d="{dd}"/>'
         marker = dots(fx, fy, fr, qf)
-        marks = [
-            f'<path class="s-{findings[i].severity.value}" data-k="{i}" d="{marker[i]}"/>'
+        marks = {
+            i: f'<path class="s-{findings[i].severity.value}" data-k="{i}" d="{marker[i]}"/>'
             for i in np.flatnonzero(detailed & located).tolist()
-        ]
+        }
         bulk: dict[tuple[str, str], list[int]] = {}
-        for i in np.flatnonzero(~detailed & located).tolist():
-            bulk.setdefault((findings[i].rule, findings[i].severity.value), []).append(i)
+        for i in paint.tolist():
+            if located[i] and not detailed[i]:
+                bulk.setdefault((findings[i].rule, findings[i].severity.value), []).append(i)
+        bulk_marks: dict[int, str] = {}
         for (rule, sev), idx in bulk.items():
             f = findings[idx[0]]
-            marks.append(
+            bulk_marks[idx[0]] = (
                 f'<path class="s-{sev} bulk" data-rule="{_e(rule)}" data-family="{_e(f.family)}" data-severity="{sev}" '
                 f'data-n="{len(idx)}" d="{"".join(marker[i] for i in idx)}"/>'
             )
-        return (
-            f'<g class="fg" transform="scale({qf:.9g})">{"".join(shapes)}</g>'
-            f'<g class="fm" transform="scale({qf:.9g})">{"".join(marks)}</g>'
-        )
+        out = []
+        for low in (True, False):
+            order = [i for i in paint.tolist() if (rank[i] == 2) == low]
+            fg = "".join(shapes[i] for i in order if i in shapes)
+            fm = "".join(marks[i] for i in order if i in marks) + "".join(bulk_marks[i] for i in order if i in bulk_marks)
+            layer = "below" if low else "above"
+            out.append(
+                f'<g class="fg {layer}" transform="scale({qf:.9g})">{fg}</g><g class="fm {layer}" transform="scale({qf:.9g})">{fm}</g>'
+                if fg or fm or not low else ""
+            )
+        return out[0], out[1]
 
 
 
@@ -595,20 +837,6 @@ def _finding_geoms(report: Report, detailed: np.ndarray) -> np.ndarray:
         wkts = np.array([report.findings[i].wkt for i in idx], dtype=object)
         geoms[idx] = shapely.from_wkt(wkts, on_invalid="ignore")
     return geoms
-
-
-def _labels(layer, key: str) -> np.ndarray | None:
-    """A layer's column named by manifest key ``key`` as stripped text (codes, kinds), or None.
-
-    Read as the rules read identifiers (``7.0`` is ``7``), converting each
-    distinct value once.
-    """
-    col = layer.field(key)
-    if col is None:
-        return None
-    codes, uniques = pd.factorize(layer.frame[col], use_na_sentinel=True)
-    text = np.array([as_text(u).strip() for u in uniques] + [""], dtype=object)
-    return text[codes]
 
 
 def _kind_rank(kind: str) -> int:

@@ -8,7 +8,9 @@ var markers={},shapes={};
 function fmt(v,d){return v.toLocaleString("en-GB",{maximumFractionDigits:d,minimumFractionDigits:d}).replace(/,/g,"\u202f");}
 if(svg){
   var d=svg.dataset,full=d.full.split(" ").map(Number),vb=full.slice();
-  var x0=+d.x0,y1=+d.y1,kx=+d.kx,mpu=+d.mpu,minW=+d.minw;
+  var x0=+d.x0,y1=+d.y1,kx=+d.kx,minW=+d.minw,bars=JSON.parse(d.bars||"[]"),labelPx=+d.labelPx||12;
+  var labelG=svg.querySelector(".labels"),labels=labelG?Array.prototype.slice.call(labelG.querySelectorAll("text")):[];
+  var labelFit=labels.map(function(t){return +t.dataset.s;}),shownLabels=0;
   var info=document.getElementById("info"),coords=document.getElementById("coords"),bar=document.getElementById("scalebar");
   var unitNames=JSON.parse(document.getElementById("unit-names").textContent);
   var fids=JSON.parse(document.getElementById("unit-ids").textContent);
@@ -23,10 +25,23 @@ if(svg){
       svg.setAttribute("viewBox",vb.map(function(v){return +v.toFixed(4);}).join(" "));scale();});
   }
   function unitsPerPx(){var r=svg.getBoundingClientRect();return Math.max(vb[2]/Math.max(r.width,1),vb[3]/Math.max(r.height,1));}
+  // The scale bars and their lengths come with the page (ground lengths measured on the ellipsoid):
+  // show the longest that fits in 130 pixels at this zoom.
   function scale(){
-    var m=unitsPerPx()*mpu*110,p=Math.pow(10,Math.floor(Math.log10(m))),n=m/p,s=(n>=5?5:n>=2?2:1)*p;
-    var px=s/(unitsPerPx()*mpu);
-    bar.innerHTML=(s>=1000?fmt(s/1000,s%1000?1:0)+" km":fmt(s,s<1?2:0)+" m")+'<span style="width:'+px.toFixed(0)+'px"></span>';
+    var u=unitsPerPx(),pick=null;
+    for(var i=0;i<bars.length;i++){if(bars[i][0]/u<=130||pick===null)pick=bars[i];}
+    if(pick){bar.textContent=pick[1];var sp=document.createElement("span");sp.style.width=(pick[0]/u).toFixed(1)+"px";bar.appendChild(sp);bar.dataset.len=pick[0];}
+    showLabels(u);
+  }
+  // Unit labels stay labelPx pixels high; each shows while it fits in its polygon (data-s: the most
+  // local units per pixel at which it does). They come sorted by data-s, largest first.
+  function showLabels(u){
+    if(!labelG)return;
+    labelG.style.fontSize=(labelPx*u)+"px";
+    var lo=0,hi=labelFit.length;
+    while(lo<hi){var mid=(lo+hi)>>1;if(labelFit[mid]>=u)lo=mid+1;else hi=mid;}
+    for(var k=Math.min(lo,shownLabels);k<Math.max(lo,shownLabels);k++)labels[k].classList.toggle("on",k<lo);
+    shownLabels=lo;
   }
   function toLocal(e){var pt=svg.createSVGPoint();pt.x=e.clientX;pt.y=e.clientY;return pt.matrixTransform(svg.getScreenCTM().inverse());}
   function zoomAt(cx,cy,f){
@@ -36,7 +51,7 @@ if(svg){
   function zoomTo(b){
     var r=svg.getBoundingClientRect(),asp=r.height/Math.max(r.width,1);
     var cx=(b[0]+b[2])/2,cy=(b[1]+b[3])/2;
-    var w=Math.max((b[2]-b[0])*2.5,(b[3]-b[1])*2.5/asp,minW*4);
+    var w=Math.max(b[2]-b[0],(b[3]-b[1])/asp,minW);  // the box (with its context) comes with the page
     vb=[cx-w/2,cy-w*asp/2,w,w*asp];apply();
   }
   window.archivistZoomTo=zoomTo;
