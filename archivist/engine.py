@@ -12,12 +12,17 @@ from shapely.errors import GEOSException
 
 from ._version import __version__
 from .analysis.context import CheckContext
+from .analysis.localframe import LocalFrame, frame_for, in_frame
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
 from .progress import Progress
-from .project import MapProject, crs_label, load_project
+from .project import LINEAR_DIGITS, MapProject, crs_label, load_project, location_digits
 from .reference import chart_credit
 from .registry import RuleInfo, select
+
+# The families that judge the files, the manifest, the CRS and the coordinates as written: on a map in
+# longitude/latitude they run on the project as read; the others run in its local metric frame.
+AS_READ_FAMILIES = {"metadata", "crs", "archive"}
 
 # The rules that read legend ages on the ICS chart: when one runs, the report names the chart version.
 CHART_RULES = {"legend-age-unknown", "legend-age-order"}
@@ -25,11 +30,11 @@ CHART_RULES = {"legend-age-unknown", "legend-age-order"}
 __all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
 
 
-def _round(v: float | None) -> float | None:
-    """A location to 1e-3 map units; see :func:`_measure` for sizes."""
+def _round(v: float | None, digits: int = LINEAR_DIGITS) -> float | None:
+    """A location to ``digits`` decimals of map units (:func:`archivist.project.location_digits`); see :func:`_measure` for sizes."""
     if v is None or not np.isfinite(v):
         return None
-    return float(round(v, 3))
+    return float(round(v, digits))
 
 
 def _measure(v: float | None) -> float | None:
@@ -41,12 +46,16 @@ def _measure(v: float | None) -> float | None:
     return float(f"{v:.3g}")
 
 
-def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = False) -> Finding:
-    """A hit as a finding; ``forced`` (a manifest override) wins over the hit's own severity."""
+def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = False, digits: int = LINEAR_DIGITS) -> Finding:
+    """A hit as a finding; ``forced`` (a manifest override) wins over the hit's own severity.
+
+    ``digits``: the decimals its location and WKT keep, from the map CRS
+    (:func:`archivist.project.location_digits`: 8 in degrees, 3 in metres).
+    """
     x, y, wkt = hit.x, hit.y, None
     g = hit.geometry
     if g is not None and not shapely.is_empty(g):
-        wkt = shapely.to_wkt(g, rounding_precision=3, trim=True)
+        wkt = shapely.to_wkt(g, rounding_precision=digits, trim=True)
         if x is None or y is None:
             p = g if g.geom_type == "Point" else shapely.point_on_surface(g)
             x, y = p.x, p.y
@@ -57,8 +66,8 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
         message=hit.message,
         layer=hit.layer,
         features=tuple(str(f) for f in hit.features),
-        x=_round(x),
-        y=_round(y),
+        x=_round(x, digits),
+        y=_round(y, digits),
         measure=_measure(hit.measure),
         wkt=wkt,
     )
@@ -95,13 +104,23 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
     says so once). A rule that GEOS stops (``GEOSException``) keeps the
     findings it had made and adds one error finding saying it could not finish;
     the other rules run as usual.
+
+    On a map whose CRS is geographic, the rules outside
+    ``AS_READ_FAMILIES`` run on the project projected to its local metric
+    frame (:mod:`archivist.analysis.localframe`), so that tolerances, widths,
+    distances and areas are judged in metres alike in every direction; their
+    findings are carried back to the map CRS.
     """
     ctx = CheckContext(project)
+    frame: LocalFrame | None = frame_for(project)
+    local = CheckContext(in_frame(project, frame)) if frame is not None else ctx
     progress = progress or Progress()
     overrides = project.config.severity
     findings: list[Finding] = []
     ran: list[str] = []
     empty = empty_layers(project)
+    framed = False  # a rule ran in the local frame
+    digits = location_digits(frame.map_crs if frame is not None else project.crs)
     for family, members in groupby(selected, key=lambda i: i.family):
         group = list(members)
         with progress.step(f"{family} rules", total=len(group)) as step:
@@ -113,20 +132,30 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                 severity = Severity.parse(level)
                 ran.append(info.id)
                 forced = info.id in overrides
+                as_read = frame is None or info.family in AS_READ_FAMILIES
+                framed = framed or not as_read
                 with step.item(info.id):
                     try:
-                        for hit in info.func(project, ctx) or ():
-                            findings.append(to_finding(info, project.own_names(hit), severity, forced))
+                        run_on, run_ctx = (project, ctx) if as_read else (local.project, local)
+                        for hit in info.func(run_on, run_ctx) or ():
+                            if not as_read:
+                                assert frame is not None
+                                hit = frame.hit_to_map(hit)
+                            findings.append(to_finding(info, project.own_names(hit), severity, forced, digits))
                     except GEOSException as exc:
                         findings.append(rule_failed(info, exc))
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
+    notes = list(ctx.notes)
+    if framed:
+        assert frame is not None
+        notes += [frame.note] + [n for n in local.notes if n not in notes]
     return Report(
         tool="archivist",
         version=__version__,
         project=str(project.manifest_path or project.root),
         crs=crs_label(project.crs),
         findings=tuple(findings),
-        notes=tuple(project.notes + ctx.notes + chart),
+        notes=tuple(project.notes + notes + chart),
         rules_run=tuple(ran),
     )
 

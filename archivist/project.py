@@ -118,7 +118,12 @@ class Table:
 
 @dataclass
 class CheckConfig:
-    """Settings from ``[checks]`` with defaults derived from the map scale."""
+    """Settings from ``[checks]`` with defaults derived from the map scale.
+
+    ``tolerance`` is in map units in a projected CRS, and in metres when the
+    map CRS is geographic (degrees are not a length; the checks of such a map
+    run in a local metric frame, see :mod:`archivist.analysis.localframe`).
+    """
 
     scale: float
     tolerance: float
@@ -171,6 +176,7 @@ class MapProject:
     notes: list[str] = field(default_factory=list)
     files: list[Path] = field(default_factory=list)
     archive: Any = None  # set by ``archivist audit``: what it found about the archive (rules of family ``archive`` read it)
+    local: Any = None  # the LocalFrame of the engine's working copy of a map in longitude/latitude (analysis/localframe.py)
 
     @property
     def name(self) -> str:
@@ -217,6 +223,17 @@ def crs_label(crs: pyproj.CRS | None) -> str | None:
     return f"EPSG:{epsg} ({crs.name})" if epsg else crs.name
 
 
+# Decimals a location keeps: 1e-8 degree is about 1.1 mm of latitude on the ground (WGS 84: 111.3 km per
+# degree, pyproj Geod), as fine as 1e-3 (a millimetre) in a projected CRS in metres.
+DEGREE_DIGITS = 8
+LINEAR_DIGITS = 3
+
+
+def location_digits(crs: pyproj.CRS | None) -> int:
+    """Decimals kept in a location in ``crs``: 8 in degrees (about a millimetre), 3 in metres, feet and other linear units."""
+    return DEGREE_DIGITS if crs is not None and crs.is_geographic else LINEAR_DIGITS
+
+
 def parse_crs(text: str, where: str) -> tuple[pyproj.CRS | None, Hit | None]:
     try:
         return pyproj.CRS.from_user_input(text), None
@@ -229,9 +246,9 @@ def make_config(manifest: dict[str, Any], crs: pyproj.CRS | None) -> CheckConfig
     checks = manifest.get("checks", {})
     scale = m.get("scale") if isinstance(m.get("scale"), (int, float)) and m.get("scale") > 0 else 25000.0
     metres = scale * 1e-4  # 0.1 mm at map scale
-    if crs is not None and crs.is_geographic:
-        metres /= 111_320.0  # metres to degrees near the equator; crs-geographic warns
-    elif crs is not None and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
+    # In a geographic CRS the tolerance stays in metres: the checks run in a local metric frame
+    # (analysis/localframe.py), since no one factor turns metres into degrees in every direction.
+    if crs is not None and not crs.is_geographic and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
         metres /= crs.axis_info[0].unit_conversion_factor
     kw: dict[str, Any] = {"scale": float(scale), "tolerance": float(checks.get("tolerance", metres))}
     for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max"):

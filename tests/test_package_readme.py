@@ -49,3 +49,14 @@ def test_citation_cff(tmp_path):
     assert cff["doi"] == "10.5555/tiny.1" and cff["keywords"] == ["a: b", "c"]
     assert cff["authors"] == [{"family-names": "Mapper", "given-names": "Test", "orcid": "https://orcid.org/0000-0002-1825-0097"}]
     assert cff["date-released"] == "2026-01-01"
+
+
+def test_own_licence_prints_no_empty_address(tmp_path):
+    # a LicenseRef- id (SPDX specification, annex "SPDX License Expressions") has no page on the SPDX licence list
+    d = deposit(tmp_path, licence="LicenseRef-Tarrow-Survey-Terms")
+    text = licence_text(d)
+    assert "Full text: with no public text at a standard address" in text
+    assert "Full text: \n" not in text and not text.rstrip().endswith("Full text:")
+    readme = readme_text(d, report(0), [], [], [], None, None, [])
+    line = next(ln for ln in readme.splitlines() if "LicenseRef-Tarrow-Survey-Terms" in ln)
+    assert not line.rstrip().endswith(",") and "no public text" in line

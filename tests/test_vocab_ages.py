@@ -7,6 +7,8 @@ versions, and the test uses the version the shipped chart reader names. Only bou
 that the shipped table already carries as published are used here.
 """
 
+import dataclasses
+
 import pytest
 
 from archivist.reference import CHART_VERSION, lookup
@@ -40,6 +42,16 @@ OFFICIAL = {
     ("Chibanian", "top"): (0.129, 0.129),
     ("Paleoproterozoic", "base"): (2500.0, 2500.0),
     ("Paleoproterozoic", "top"): (1600.0, 1600.0),
+    ("Lower Cretaceous", "base"): (145.0, 143.1),
+    ("Lower Cretaceous", "top"): (100.5, 100.5),
+    ("Upper Jurassic", "base"): (161.5, 161.5),
+    ("Upper Jurassic", "top"): (145.0, 143.1),
+    ("Middle Devonian", "base"): (393.3, 393.47),
+    ("Middle Devonian", "top"): (382.7, 382.31),
+    ("Upper Devonian", "base"): (382.7, 382.31),
+    ("Upper Devonian", "top"): (358.9, 358.86),
+    ("Upper Triassic", "base"): (237.0, 237.0),
+    ("Upper Triassic", "top"): (201.4, 201.4),
 }
 
 
@@ -163,3 +175,48 @@ def test_unknown_names_and_the_regional_hint(text, words, hint):
         parse_age(text)
     assert words in str(err.value)
     assert ("(a regional or obsolete name?)" in str(err.value)) is hint
+
+
+# Lower/Middle/Upper written the German, French or Spanish way around a chart name. The names of the
+# periods are the chart's own in those languages (ICS official data, chart-2024-12.ttl: "Kreide"@de,
+# "Jura"@de, "Devon"@de, "Karbon"@de, "Trias"@de, "Crétacé"@fr, "Cretácico"@es); the chart itself gives
+# "Mitteldevon", "Frühe Kreide", "Crétacé précoce" and "Cretácico temprano" (chart-2023-09.ttl) but not the
+# other forms, which are the usual ones of those languages (from memory).
+@pytest.mark.parametrize(
+    "text, unit",
+    [
+        ("Unterkreide", "Lower Cretaceous"),
+        ("Unter-Kreide", "Lower Cretaceous"),
+        ("Untere Kreide", "Lower Cretaceous"),
+        ("Frühe Kreide", "Lower Cretaceous"),
+        ("Oberjura", "Upper Jurassic"),
+        ("Spätjura", "Upper Jurassic"),
+        ("Mitteldevon", "Middle Devonian"),
+        ("Oberes Devon", "Upper Devonian"),
+        ("Obertrias", "Upper Triassic"),
+        ("Crétacé inférieur", "Lower Cretaceous"),
+        ("Crétacé précoce", "Lower Cretaceous"),
+        ("Cretácico Inferior", "Lower Cretaceous"),
+        ("cretacico inferior", "Lower Cretaceous"),
+    ],
+)
+def test_lower_middle_upper_in_german_french_and_spanish(text, unit):
+    span = parse_age(text)
+    assert span.units == (unit,) and not span.informal
+    assert (span.base_ma, span.top_ma) == (official(unit, "base"), official(unit, "top"))
+
+
+def test_upper_of_a_period_without_formal_subdivisions_reads_as_in_english():
+    # the chart has no Upper Carboniferous (its subperiods are Mississippian and Pennsylvanian) nor a
+    # formal Lower Cambrian: "Oberkarbon" and "Unterkambrium" are informal, read as "Upper Carboniferous"
+    # and "Lower Cambrian" are
+    assert parse_age("Oberkarbon") == dataclasses.replace(parse_age("Upper Carboniferous"), text="Oberkarbon")
+    assert parse_age("Unterkambrium") == dataclasses.replace(parse_age("Lower Cambrian"), text="Unterkambrium")
+    assert parse_age("Oberkarbon").informal
+
+
+def test_a_prefix_on_a_name_the_chart_does_not_know_stays_unknown():
+    with pytest.raises(AgeError):
+        parse_age("Oberlias")  # a regional name after the prefix
+    with pytest.raises(AgeError):
+        parse_age("Unterholz")

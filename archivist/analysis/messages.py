@@ -35,14 +35,20 @@ def join_words(words: Iterable[str]) -> str:
 
 
 def metres_per_unit(project: MapProject) -> float:
-    """Ground metres per map unit of the project's CRS (1 for metres; near-equator degrees for geographic CRSs)."""
+    """Ground metres per map unit of the project's projected CRS (1 for metres, 0.3048 for feet...).
+
+    A geographic CRS has no such factor (a degree of longitude is half a degree
+    of latitude on the ground at 60°N): the engine checks such a map in a
+    local metric frame (:mod:`.localframe`), so the rules never see one;
+    asked for one, this raises ``ValueError``.
+    """
     crs = project.crs
     if crs is None and "units" in project.layers:
         crs = project.layers["units"].crs
     if crs is None:
         return 1.0
     if crs.is_geographic:
-        return 111_320.0
+        raise ValueError(f"{crs.name} is geographic: no one factor turns its degrees into metres; measure in a local frame")
     factor = crs.axis_info[0].unit_conversion_factor if crs.axis_info else None
     return float(factor) if factor else 1.0
 
@@ -52,10 +58,13 @@ class Ground:
 
     In a projected CRS a map unit is a fixed number of metres (``factor``).
     In a geographic CRS degrees are not a length: geometries are projected to
-    a Lambert azimuthal equal-area projection centred on the map, on the
-    CRS's own ellipsoid (pyproj), where areas are true and lengths and widths
-    are within a few parts per million over a map tens of km across (the
-    scale error grows with the square of the distance from the centre).
+    a conformal oblique stereographic projection centred on the map, on the
+    CRS's own ellipsoid (:func:`.localframe.local_crs`), where lengths, widths
+    and areas are within a few parts per million over a map tens of km
+    across (the scale error grows with the square of the distance from the
+    centre). The engine runs the geometric rules on a map in longitude/latitude
+    in its local frame (:mod:`.localframe`); their measures go from that frame
+    to the same projection.
     """
 
     def __init__(self, factor: float, to_local: Any = None) -> None:
@@ -108,24 +117,16 @@ class Ground:
 
 def ground(project: MapProject, near: Any = None) -> Ground:
     """How to measure the project's geometries on the ground; ``near`` (geometries) places the local projection."""
-    crs = project.crs
-    if crs is None and "units" in project.layers:
-        crs = project.layers["units"].crs
+    from .localframe import LocalFrame, map_crs
+
+    if getattr(project, "local", None) is not None:  # the engine's working copy of a map in longitude/latitude
+        return Ground(1.0, project.local)
+    crs = map_crs(project)
     if crs is None or not crs.is_geographic:
         return Ground(metres_per_unit(project))
-    import numpy as np
-    import pyproj
-    import shapely
-    from pyproj.crs import ProjectedCRS
-    from pyproj.crs.coordinate_operation import LambertAzimuthalEqualAreaConversion
-
     if near is None and "units" in project.layers:
         near = project.layers["units"].geometry
-    box = shapely.total_bounds(near) if near is not None else np.full(4, np.nan)
-    lon, lat = (0.0, 0.0) if not np.all(np.isfinite(box)) else ((box[0] + box[2]) / 2, (box[1] + box[3]) / 2)
-    lon, lat = (lon + 180.0) % 360.0 - 180.0, min(max(lat, -90.0), 90.0)
-    local = ProjectedCRS(LambertAzimuthalEqualAreaConversion(lat, lon), geodetic_crs=crs.geodetic_crs)
-    return Ground(1.0, pyproj.Transformer.from_crs(crs, local, always_xy=True))
+    return Ground(1.0, LocalFrame.around(crs, *([] if near is None else [near])).measure)
 
 
 def lon_words(v: float) -> str:

@@ -8,6 +8,7 @@ behind.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 from typing import Any, Iterable
 
@@ -16,12 +17,12 @@ import pandas as pd
 import pyproj
 import shapely
 
+from ..analysis.localframe import LocalFrame, frame_for
 from ..project import Layer, MapProject, crs_label
 from ..readers import text_column
 from .result import Change
 
 MOVE_SEARCH_MM = 5.0  # how far (map mm) a line or point may move and still be the same feature
-METRES_PER_DEGREE = 111_320.0  # near the equator: metres to degrees, as for the tolerance
 
 FieldChanges = dict[int, dict[str, dict[str, str]]]
 
@@ -47,8 +48,12 @@ class Comparison:
 
     ``tol`` is the old map's tolerance ("same place"), ``search`` how far a
     line or point may move and still be the same feature, both in the old
-    map's CRS units. ``transform`` is NEW's CRS when it differs from OLD's
-    (NEW is then reprojected to OLD's CRS to compare).
+    map's CRS units, or in metres when OLD's CRS is geographic: both maps are
+    then compared in OLD's local metric frame (``frame``,
+    :mod:`archivist.analysis.localframe`), so distances and areas are metres
+    in every direction, and :func:`to_map` carries the changes back to OLD's
+    CRS. ``transform`` is NEW's CRS when it differs from OLD's (NEW is then
+    reprojected to OLD's CRS to compare).
     """
 
     old: MapProject
@@ -56,6 +61,7 @@ class Comparison:
     tol: float
     search: float
     transform: pyproj.CRS | None = None
+    frame: LocalFrame | None = None
     _texts: dict[tuple[int, str], np.ndarray] = field(default_factory=dict, compare=False, repr=False)  # memo of text()
 
     def text(self, layer: Layer | None, key: str, n: int = 0) -> np.ndarray:
@@ -69,27 +75,42 @@ class Comparison:
         return self._texts[memo]
 
     def geoms(self, layer: Layer, side: str) -> np.ndarray:
-        """The layer's geometries, made valid, in OLD's CRS (``side`` is "old" or "new")."""
+        """The layer's geometries, made valid, in OLD's CRS or its local frame (``side`` is "old" or "new")."""
         g = layer.geometry
         if side == "new" and self.transform is not None and layer.frame.crs is not None:
             g = np.asarray(layer.frame.to_crs(self.old.crs).geometry.array, dtype=object)
+        if self.frame is not None:
+            g = np.asarray(self.frame.to_local(g), dtype=object)
         return valid(g)
 
 
 def start(old: MapProject, new: MapProject) -> tuple[Comparison, Found]:
     """The comparison of ``old`` with ``new``, and what their CRSs alone say (a change or a note)."""
     cfg = old.config
-    tol = float(cfg.tolerance)
-    metres = MOVE_SEARCH_MM * cfg.metres_per_map_mm
-    if old.crs is not None and old.crs.is_geographic:
-        metres /= METRES_PER_DEGREE
-    search = max(metres, 10 * tol)
+    tol = float(cfg.tolerance)  # metres when OLD's CRS is geographic (see CheckConfig)
+    search = max(MOVE_SEARCH_MM * cfg.metres_per_map_mm, 10 * tol)
+    frame = frame_for(old)
     oc, nc = old.crs, new.crs
+    notes = [frame.note] if frame is not None else []
     if oc is not None and nc is not None and not oc.equals(nc):
         change = Change("crs-changed", "map", (), f"Map CRS changed from {crs_label(oc)} to {crs_label(nc)}; NEW was reprojected to compare.")
-        return Comparison(old, new, tol, search, transform=nc), Found(layer_changes=[change])
-    notes = ["One side declares no map CRS: both were compared as if in the same CRS."] if (oc is None) != (nc is None) else []
-    return Comparison(old, new, tol, search), Found(notes=notes)
+        return Comparison(old, new, tol, search, transform=nc, frame=frame), Found(layer_changes=[change], notes=notes)
+    if (oc is None) != (nc is None):
+        notes.append("One side declares no map CRS: both were compared as if in the same CRS.")
+    return Comparison(old, new, tol, search, frame=frame), Found(notes=notes)
+
+
+def to_map(changes: list[Change], frame: LocalFrame | None) -> list[Change]:
+    """The changes with their locations and geometries carried from ``frame`` back to the map CRS."""
+    if frame is None:
+        return changes
+    out = []
+    for c in changes:  # a loop over changes, not features
+        x, y = frame.point_to_map(c.x, c.y)
+        back = {k: frame.to_map(getattr(c, k)) for k in ("geometry", "old_geometry", "new_geometry") if getattr(c, k) is not None}
+        pieces = [(frame.to_map(g) if g is not None else g, o, n) for g, o, n in c.pieces]
+        out.append(dataclasses.replace(c, x=x, y=y, pieces=pieces, **back))
+    return out
 
 
 def layer_pair(cmp: Comparison, role: str) -> tuple[tuple[Layer, Layer] | None, list[Change]]:

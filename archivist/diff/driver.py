@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import ArchivistError
 from ..project import MapProject, crs_label
-from .common import Found, start
+from .common import Found, start, to_map
 from .lines import match_lines
 from .points import match_points
 from .polygons import compare_extent, match_polygons
@@ -43,6 +43,7 @@ def compare(old: MapProject, new: MapProject) -> tuple[list[Change], list[str]]:
     out = [c for s in steps for c in s.layer_changes]
     out += units.found.changes + units.polygons + folded.reshaped + folded.lines
     out += extent.changes + samples.changes + structures.changes + analyses.changes
+    out = to_map(out, cmp.frame)
     for c in out:
         if not c.message.endswith("."):
             c.message += "."

@@ -13,6 +13,7 @@ import numpy as np
 import shapely
 
 from .._version import __version__
+from ..project import location_digits
 
 LAYER_ORDER = ("map", "legend", "units", "lines", "extent", "samples", "structures", "analyses")
 
@@ -24,7 +25,8 @@ class Change:
     ``features`` are the ids in NEW (in OLD for a removal); ``old_features`` and
     ``new_features`` give both sides. ``fields`` maps each changed attribute to
     ``{"old": text, "new": text}``. Areas are in m², ``distance`` in map units
-    (metres in a projected CRS). ``x``/``y`` are a point of the change in the
+    (metres in a projected CRS; metres too when the old map is in
+    longitude/latitude, compared in its local metric frame). ``x``/``y`` are a point of the change in the
     old map's CRS; ``geometry`` is the changed area (or the feature), in the
     same CRS.
     """
@@ -49,18 +51,23 @@ class Change:
     old_unit: str = field(default="", repr=False)  # a recoded polygon's codes, for the unit-level changes
     new_unit: str = field(default="", repr=False)
 
-    def to_dict(self) -> dict[str, Any]:
-        """The change as the JSON object of ``schemas/diff.schema.json`` (numbers rounded to 1 mm or 0.001 m²)."""
+    def to_dict(self, digits: int = 3) -> dict[str, Any]:
+        """The change as the JSON object of ``schemas/diff.schema.json``.
+
+        Locations and WKT keep ``digits`` decimals (the old map CRS's:
+        :func:`archivist.project.location_digits`, 8 in degrees, 3 in
+        metres); areas and distances are rounded to 0.001 m² and 1 mm.
+        """
         wkt = None
         if self.geometry is not None and not shapely.is_empty(self.geometry):
-            wkt = shapely.to_wkt(self.geometry, rounding_precision=3, trim=True)
+            wkt = shapely.to_wkt(self.geometry, rounding_precision=digits, trim=True)
         return {
             "change": self.change,
             "layer": self.layer,
             "features": list(self.features),
             "message": self.message,
-            "x": _r(self.x),
-            "y": _r(self.y),
+            "x": _r(self.x, digits),
+            "y": _r(self.y, digits),
             "old_features": list(self.old_features),
             "new_features": list(self.new_features),
             "fields": self.fields,
@@ -72,10 +79,10 @@ class Change:
         }
 
 
-def _r(v: float | None) -> float | None:
+def _r(v: float | None, digits: int = 3) -> float | None:
     if v is None or not np.isfinite(v):
         return None
-    return float(round(float(v), 3))
+    return float(round(float(v), digits))
 
 
 @dataclass(frozen=True)
@@ -109,5 +116,5 @@ class DiffReport:
             "crs": self.crs,
             "notes": list(self.notes),
             "counts": self.counts,
-            "changes": [c.to_dict() for c in self.changes],
+            "changes": [c.to_dict(location_digits(self.crs_object)) for c in self.changes],
         }

@@ -42,7 +42,7 @@ from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_di
 from ..interrupt import Interrupted, terminate_as_exception
 from ..manifest import MANIFEST_NAME, read_manifest
 from ..model import Report
-from ..project import MapProject, load_project
+from ..project import MapProject, load_project, location_digits
 from ..progress import Progress
 from ..report.html import render_html
 from . import datacite as dc
@@ -561,7 +561,7 @@ def _write_payload(
     descriptors = [r.descriptor(*hashes.get(data / r.path)) for r in resources]
     spatial: dict[str, Any] = {"crs": _crs_id(deposit.crs), "crs_name": deposit.crs.name, "crs_wkt": "metadata/crs.wkt", "scale": deposit.scale}
     if bbox:
-        spatial["bbox"] = [round(v, 3) for v in bbox]
+        spatial["bbox"] = [round(v, location_digits(deposit.crs)) for v in bbox]  # 1e-8 in degrees, 1e-3 in metres
     if bbox_wgs84:
         spatial["bbox_wgs84"] = list(bbox_wgs84)
     write_json(

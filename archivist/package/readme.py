@@ -35,6 +35,11 @@ class LayerFact:
     conventions: str = ""  # how its values are to be read (structures: conventions and north reference)
 
 
+# A LicenseRef- licence (the authors' own, SPDX specification annex "SPDX License Expressions") has no page on
+# the SPDX licence list: say so rather than print an empty address.
+NO_PUBLIC_TEXT = "with no public text at a standard address: ask the authors for its terms before reuse"
+
+
 def _md(text: Any) -> str:
     """A table cell: no pipes or line breaks."""
     return " ".join(str(text).replace("|", "\\|").split())
@@ -160,7 +165,7 @@ def readme_text(
         "",
     ]
     for lic in deposit.licences:
-        out.append(f"{lic.title} (SPDX `{lic.spdx}`), {lic.url}")
+        out.append(f"{lic.title} (SPDX `{lic.spdx}`), {lic.url or NO_PUBLIC_TEXT}")
     if len(deposit.licences) > 1:
         out.append(f"Licence expression: `{deposit.licence}`.")
     out += ["", "## Validation", ""]
@@ -201,7 +206,7 @@ def licence_text(deposit: Deposit) -> str:
     if len(deposit.licences) > 1:
         lines += [f"SPDX-License-Identifier: {deposit.licence}", ""]
     for lic in deposit.licences:
-        lines += [f"SPDX identifier: {lic.spdx}", f"Name: {lic.title}", f"Full text: {lic.url}", ""]
+        lines += [f"SPDX identifier: {lic.spdx}", f"Name: {lic.title}", f"Full text: {lic.url or NO_PUBLIC_TEXT}", ""]
     return "\n".join(lines)
 
 

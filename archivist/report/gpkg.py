@@ -14,7 +14,7 @@ Each feature is one finding, with the attributes ``rule``, ``severity``,
 ``family``, ``message``, ``map_layer`` (the project layer or table it is
 about), ``features`` (the feature ids, comma-joined), ``measure`` (m², m or a
 distance, as the rule says), ``x`` and ``y``. Geometries are the findings'
-own (rounded to the millimetre, like the JSON report), in the map's CRS. A
+own (rounded like the JSON report: 1e-3 in metres, 1e-8 in degrees), in the map's CRS. A
 finding whose geometry mixes dimensions is written with its highest-dimension
 parts. The three geometry layers are always written, empty when nothing was
 found, so a GIS project can keep pointing at them.

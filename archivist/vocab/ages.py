@@ -21,6 +21,10 @@ time it covers (:class:`AgeSpan`). It reads:
   practice: informal subdivisions have no agreed boundaries, so only a clear
   contradiction should be reported). Eons, eras and the Precambrian are
   not cut in thirds: their informal parts stay the whole unit;
+* Lower/Middle/Upper in German, French and Spanish around a chart name in
+  any language ("Unterkreide", "Untere Kreide", "Oberjura", "Mitteldevon",
+  "Crétacé inférieur", "Cretácico Superior"): read as the formal unit when
+  the chart has one, else as the English words are read;
 * numerical ages with their unit: "250-260 Ma", "c. 255 Ma", "255 ± 5 Ma",
   "1.2-1.4 Ga", "11-12 ka".
 
@@ -109,6 +113,24 @@ _EQUIVALENT: dict[tuple[str, int], tuple[str, ...]] = {
     ("proterozoic", 1): ("Mesoproterozoic",),
     ("proterozoic", 2): ("Neoproterozoic",),
 }
+# Lower/Middle/Upper in German (a prefix, "Unterkreide", or an adjective, "Untere Kreide"; Früh/Spät
+# likewise), French and Spanish (an adjective after the name, "Crétacé inférieur", "Cretácico Superior"),
+# folded as fold() leaves them. The chart names them so only for a few units ("Mitteldevon", "Frühe
+# Kreide", "Crétacé précoce", "Cretácico temprano": ICS chart 2023-09, German, French and Spanish labels);
+# the other forms are the usual ones of those languages (from memory).
+_FOREIGN_POSITION = {
+    "unter": 0, "untere": 0, "unterer": 0, "unteres": 0, "fruh": 0, "fruhe": 0, "fruher": 0, "fruhes": 0,
+    "mittel": 1, "mittlere": 1, "mittlerer": 1, "mittleres": 1,
+    "ober": 2, "obere": 2, "oberer": 2, "oberes": 2, "spat": 2, "spate": 2, "spater": 2, "spates": 2,
+    "inferieur": 0, "inferieure": 0, "precoce": 0, "inferior": 0, "temprano": 0, "temprana": 0,
+    "moyen": 1, "moyenne": 1, "medio": 1, "media": 1,
+    "superieur": 2, "superieure": 2, "tardif": 2, "tardive": 2, "superior": 2, "tardio": 2, "tardia": 2,
+}
+_GERMAN_COMPOUND = re.compile(r"^(?P<pos>unter|mittel|ober|fruh|spat)-?(?P<name>[a-z]\S*)$")
+_GERMAN_BEFORE = re.compile(r"^(?P<pos>(?:unter|mittler|ober|fruh|spat)e[rs]?)[ -](?P<name>\S.*)$")
+_ROMANCE_AFTER = re.compile(r"^(?P<name>\S.*?) (?P<pos>inferieure?|precoce|inferior|tempran[oa]|moyenne?|medi[oa]"
+                            r"|superieure?|tardi(?:f|ve)|superior|tardi[oa])$")
+
 # Ranks cut in thirds by an informal Early/Middle/Late; above these, the whole unit is meant.
 _THIRDS_RANKS = ("period", "subperiod", "epoch", "age")
 
@@ -247,6 +269,21 @@ def _third(inner: _Piece, position: int, word: str, chart: _Chart) -> _Piece:
     )
 
 
+def _in_english(norm: str, chart: _Chart) -> str:
+    """A German, French or Spanish Lower/Middle/Upper of a chart name rewritten as "lower|middle|upper NAME".
+
+    "Unterkreide", "Untere Kreide", "Mitteldevon", "Oberjura", "Oberkarbon",
+    "Crétacé inférieur", "Cretácico Superior" (folded: no case, no accents).
+    The name itself must be one the chart knows in some language ("Kreide",
+    "Jura", "Devon", "Karbon" are the chart's own German names); other texts
+    are returned unchanged.
+    """
+    m = _GERMAN_COMPOUND.match(norm) or _GERMAN_BEFORE.match(norm) or _ROMANCE_AFTER.match(norm)
+    if m is None or chart.lookup(m.group("name")) is None:
+        return norm
+    return f"{_FORMAL[_FOREIGN_POSITION[m.group('pos')]].lower()} {m.group('name')}"
+
+
 def _term(text: str, chart: _Chart) -> _Piece:
     """One age name (no range) -> its piece. Raises AgeError."""
     norm = fold(text).strip(" ?()").replace("mid-", "middle ")
@@ -256,10 +293,14 @@ def _term(text: str, chart: _Chart) -> _Piece:
     hit = chart.lookup(norm)
     if hit is not None:
         return _formal(hit, str(hit.name))
+    norm = _in_english(norm, chart)
     words = norm.split(" ")
     if words[0] in _POSITION and len(words) > 1:
         position, rest = _POSITION[words[0]], " ".join(words[1:])
         formal = chart.lookup(f"{_FORMAL[position]} {rest}")
+        named = chart.lookup(rest) if formal is None else None
+        if named is not None:  # the unit named in another language ("lower kreide"): its formal Lower, if any
+            formal = chart.lookup(f"{_FORMAL[position]} {named.name}")
         if formal is not None:
             return _formal(formal, str(formal.name))
         same = _EQUIVALENT.get((rest, position), ())
