@@ -299,7 +299,7 @@ def _sample_points(project: MapProject, ctx: CheckContext) -> dict[str, Any]:
     """Sample id -> point (first one when ids repeat), for placing table findings on the map."""
 
     def compute():
-        layer = project.layers.get("samples")
+        layer = ctx.layer("samples")  # placed in the map CRS
         if layer is None:
             return {}
         geoms = layer.geometry
@@ -444,7 +444,7 @@ def _extent(project: MapProject, ctx: CheckContext) -> Any:
 
     def compute():
         for role in ("extent", "units"):
-            layer = project.layers.get(role)
+            layer = ctx.layer(role)  # in the map CRS, as the samples are read for this check
             if layer is None:
                 continue
             geoms = layer.geometry
@@ -493,9 +493,9 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     A sample with a dropped digit in its northing gives "sample TM24-0044
     lies 612034.2 m outside the map extent".
     """
-    layer = project.layers["samples"]
+    layer = ctx.layer("samples")  # in the map CRS, swapped axes put right: crs-* report those once
     extent = _extent(project, ctx)
-    if extent is None:
+    if extent is None or layer is None:
         return
     role = _extent_role(project, ctx)
     geoms = layer.geometry
@@ -549,8 +549,9 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     KES but lies in a MAR polygon (feature 12), 35.2 m inside its edge; the
     nearest KES polygon is 35.4 m away".
     """
-    samples = project.layers["samples"]
-    units = project.layers["units"]
+    samples, units = ctx.layer("samples"), ctx.layer("units")  # in the map CRS: crs-* report a CRS fault once
+    if samples is None or units is None:
+        return
     recorded = samples.text("unit_field")
     codes = units.text("unit_field")
     if recorded is None or codes is None:
