@@ -16,14 +16,18 @@ from typing import Callable
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
+import pyproj
 import pytest
 import shapely
 from shapely.affinity import translate
 from shapely.geometry import LineString, Point, box
 
 import archivist
-from builders import copy_bundle, edit_layer, edit_table, edit_xlsx, read_layer
+from builders import copy_bundle, edit_layer, edit_table, edit_xlsx, read_layer, tiny_project
+from archivist.analysis.context import CheckContext
 from archivist.model import Severity
+from archivist.project import load_project
 
 MAP = "map.gpkg"
 
@@ -47,6 +51,11 @@ def _midpoint(line) -> Point:
 def crs_other(root: Path) -> None:
     """The samples saved in the neighbouring UTM zone (a real transformation: they still lie on the map)."""
     edit_layer(root, MAP, "samples", lambda f: f.to_crs("EPSG:32632"))
+
+
+def crs_mislabelled(root: Path) -> None:
+    """The samples labelled with the neighbouring zone, their coordinates left in the map's zone."""
+    edit_layer(root, MAP, "samples", lambda f: f.set_crs("EPSG:32632", allow_override=True))
 
 
 def axes_swapped(root: Path) -> None:
@@ -101,7 +110,7 @@ def sliver(root: Path) -> None:
         row["unit"] = other
         row.geometry = [strip]
         row.index = [int(f.index.max()) + 1]
-        return gpd.GeoDataFrame(__import__("pandas").concat([f, row]), crs=f.crs)
+        return gpd.GeoDataFrame(pd.concat([f, row]), crs=f.crs)
 
     edit_layer(root, MAP, "units", change)
 
@@ -109,7 +118,7 @@ def sliver(root: Path) -> None:
         row = f[f.kind == "contact"].iloc[[0]].copy()
         row.geometry = [strip.exterior]
         row.index = [int(f.index.max()) + 1]
-        return gpd.GeoDataFrame(__import__("pandas").concat([f, row]), crs=f.crs)
+        return gpd.GeoDataFrame(pd.concat([f, row]), crs=f.crs)
 
     edit_layer(root, MAP, "lines", add_line)
 
@@ -191,6 +200,7 @@ def frame_undrawn(root: Path) -> None:
 # defect -> (injection, the rule that reports the defect itself)
 DEFECTS: dict[str, tuple[Callable[[Path], None], str]] = {
     "layer in another CRS": (crs_other, "crs-mismatch"),
+    "CRS label wrong": (crs_mislabelled, "crs-mismatch"),
     "swapped axes": (axes_swapped, "crs-axis-swap-suspected"),
     "gap": (gap, "unit-gap"),
     "overlap": (overlap, "unit-overlap"),
@@ -229,3 +239,81 @@ def test_one_defect_one_finding(tmp_path, defect):
     shown = "\n".join(f"{f.rule}: {f.message}" for f in found[:12])
     assert own in counts, f"{defect}: {own} missing; found {dict(counts)}\n{shown}"
     assert len(found) <= 2, f"{defect}: {len(found)} errors and warnings {dict(counts)}\n{shown}"
+
+
+# ---------------------------------------------------------------- how a CRS fault is taken into account
+
+
+def test_a_layer_in_another_crs_is_read_transformed_for_the_other_checks(tmp_path):
+    root = copy_bundle(tmp_path)
+    crs_other(root)
+    project = load_project(root)
+    ctx = CheckContext(project)
+    seen = ctx.layer("samples")
+    assert seen is not None and seen.crs.equals(project.crs)
+    # the reference: pyproj's own transformation of the coordinates as stored (EPSG:32632 -> EPSG:32633)
+    raw = shapely.get_coordinates(project.layers["samples"].geometry)
+    x, y = pyproj.Transformer.from_crs("EPSG:32632", "EPSG:32633", always_xy=True).transform(raw[:, 0], raw[:, 1])
+    assert np.allclose(shapely.get_coordinates(seen.geometry), np.c_[x, y], atol=1e-6)
+    assert ctx.alignment().reprojected == ("samples",)
+    assert any("layers.samples" in n and "transformed to the map CRS" in n for n in ctx.notes)
+    # the layer as the CRS rules read it is untouched
+    assert project.layers["samples"].crs.to_epsg() == 32632
+
+
+def test_swapped_features_are_read_swapped_back(tmp_path):
+    root = copy_bundle(tmp_path)
+    before = shapely.get_coordinates(read_layer(root, MAP, "samples").geometry.values)
+    axes_swapped(root)
+    ctx = CheckContext(load_project(root))
+    assert np.array_equal(shapely.get_coordinates(ctx.layer("samples").geometry), before)
+    assert ctx.alignment().swapped == (("samples", 33),)
+
+
+def test_a_layer_that_cannot_be_placed_is_left_out_with_one_note(tmp_path):
+    root = copy_bundle(tmp_path)
+    # neither as labelled (zone 32) nor as stored do the points come near the map
+    edit_layer(root, MAP, "samples", lambda f: f.set_geometry(f.geometry.translate(2_000_000, 0)).set_crs("EPSG:32632", allow_override=True))
+    report = archivist.check(root)
+    assert not [f for f in report.findings if f.family == "samples"]
+    assert {f.rule for f in report.findings} <= {"crs-mismatch", "crs-outside-area-of-use", "crs-axis-swap-suspected"}
+    (note,) = [n for n in report.notes if n.startswith("layers.samples")]
+    assert "left out of the checks that compare it with other layers" in note
+
+
+def test_a_map_with_no_contacts_gives_one_finding_per_layer(tmp_path):
+    root = copy_bundle(tmp_path)
+    no_contacts(root)
+    (f,) = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
+    assert f.layer == "lines" and "no line of kind 'contact'" in f.message and "66 stretches" in f.message
+
+
+def test_missing_linework_that_is_the_exception_is_listed_one_by_one(tmp_path):
+    root = copy_bundle(tmp_path)
+    contact_deleted(root)
+    (f,) = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
+    assert f.message.startswith("No line draws 4309.46 m of the boundary between units")
+
+
+def test_a_frame_without_lines_names_the_frame_and_the_kind_it_needs(tmp_path):
+    # the tiny map: two units, a contact, no map-boundary line; its frame is the outline of the units
+    lines = gpd.GeoDataFrame({"kind": ["contact"], "certainty": ["certain"]}, geometry=[LineString([(100, 0), (100, 100)])], crs="EPSG:32633")
+    root = tiny_project(tmp_path, lines=lines)
+    (f,) = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
+    assert "the outer boundary of the unit polygons" in f.message and "kind 'map-boundary'" in f.message
+    # the 2 x 3 outer sides of the two 100 m squares, less the tolerance (1 m) where each meets the contact's two ends
+    assert f.measure == pytest.approx(596.0)
+
+
+def test_one_stretch_of_frame_missing_names_the_kind(tmp_path):
+    lines = gpd.GeoDataFrame(
+        {"kind": ["contact", "map-boundary"], "certainty": ["certain", "certain"]},
+        geometry=[LineString([(100, 0), (100, 100)]), LineString([(100, 0), (0, 0), (0, 100), (100, 100), (200, 100)])],
+        crs="EPSG:32633",
+    )
+    root = tiny_project(tmp_path, lines=lines)
+    found = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
+    # undrawn: the east and south sides of the east square, 200 m, less the tolerance (1 m) at each end of the drawn frame
+    assert [f.message for f in found] == [
+        "No line draws 198.00 m of the map edge along unit 2 (B); the frame needs a line of kind 'map-boundary' there."
+    ]

@@ -112,7 +112,7 @@ def align_layers(project: MapProject, swaps: dict[str, SwapSuspects]) -> Alignme
                 moved = None
             geoms_moved = None if moved is None else np.asarray(moved.geometry.array, dtype=object)
             ok = geoms_moved is not None and bool(np.isfinite(shapely.get_coordinates(geoms_moved)).all())
-            if ok and _fits(_box(geoms_moved), ref):
+            if ok and geoms_moved is not None and _fits(_box(geoms_moved), ref):
                 frame = moved
                 reprojected.append(role)
                 notes.append(
