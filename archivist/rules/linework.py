@@ -359,7 +359,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     connected = np.zeros(len(ends), dtype=bool)
     connected[pi[fj != end_feat[pi]]] = True
     edge = None
-    if "units" in project.layers:
+    if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
         cov = ctx.coverage()
         if cov.extent is not None:
             edge = cov.extent_boundary
@@ -610,7 +610,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     if not nseg:
         return
     # exact: segments with identical endpoints in two features
-    if "units" in project.layers:
+    if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
         se = ctx.segment_edges()
         matched = se >= 0
         key = np.where(matched, se, -1)
@@ -656,7 +656,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             fj = rfeat[rj]
             # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
             # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
-            if "units" in project.layers:
+            if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
                 close = shapely.length(off_unit_boundaries(runs, ctx.units(), tol)) < shapely.length(runs) * (1 - 1e-12)
             else:
                 close = np.ones(len(runs), dtype=bool)

@@ -409,7 +409,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     same = codes[edges.left[sel]] == codes[edges.right[sel]]
     sel = sel[same & (codes[edges.left[sel]] != "")]
     faults = None
-    if "lines" in project.layers:
+    if ctx.layer("lines") is not None:  # lines placed with the map (see CheckContext.alignment)
         net = ctx.line_network()
         if sel.size:
             sel = sel[~ctx.edges_drawn(("fault",))[sel]]
