@@ -23,6 +23,10 @@ from .registry import RuleInfo, select
 # The families that judge the files, the manifest, the CRS and the coordinates as written: on a map in
 # longitude/latitude they run on the project as read; the others run in its local metric frame.
 AS_READ_FAMILIES = {"metadata", "crs", "archive"}
+# Families whose every rule compares layers through the shared analyses (the unit polygons, the line
+# network): they do not run on a layer that cannot be placed with the map (CheckContext.left_out), whose
+# own CRS finding is the one finding about it. Other rules that compare layers read CheckContext.layer.
+ACROSS_LAYER_FAMILIES = {"topology", "linework"}
 
 # The rules that read legend ages on the ICS chart: when one runs, the report names the chart version.
 CHART_RULES = {"legend-age-unknown", "legend-age-order"}
@@ -101,7 +105,9 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
 
     ``progress`` gets one step per rule family and one item per rule run.
     A rule that needs a layer with no features is not run (``layer-empty``
-    says so once). A rule that GEOS stops (``GEOSException``) keeps the
+    says so once), nor a topology or linework rule that needs a layer that
+    cannot be placed with the map (``crs-mismatch`` says so once; see
+    :meth:`CheckContext.alignment`). A rule that GEOS stops (``GEOSException``) keeps the
     findings it had made and adds one error finding saying it could not finish;
     the other rules run as usual.
 
@@ -126,7 +132,9 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         with progress.step(f"{family} rules", total=len(group)) as step:
             for info in group:
                 level = overrides.get(info.id, info.severity.value)
-                if level == "off" or any(not project.has(role) or role in empty for role in info.needs):
+                if level == "off" or any(not project.has(role) or role in empty for role in info.needs) or (
+                    info.family in ACROSS_LAYER_FAMILIES and set(info.needs) & set(ctx.left_out())
+                ):
                     step.advance()
                     continue
                 severity = Severity.parse(level)

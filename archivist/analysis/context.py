@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any, Callable, TypeVar
 
 import numpy as np
 
+from .alignment import Alignment, align_layers
 from .coverage import Coverage, Mismatch, analyse_coverage, find_mismatches
 from .halfedges import Edges, build_edges
 from .lines import LineNetwork, build_line_network
@@ -14,7 +15,7 @@ from .placement import Placement, SwapSuspects, place_layers, swap_suspects
 from .polygons import Units, read_units
 
 if TYPE_CHECKING:
-    from ..project import CheckConfig, MapProject
+    from ..project import CheckConfig, Layer, MapProject
 
 T = TypeVar("T")
 
@@ -54,11 +55,49 @@ class CheckContext:
         if text not in self.notes:
             self.notes.append(text)
 
+    # ------------------------------------------------------------ the layers across layers
+
+    def alignment(self) -> Alignment:
+        """The layers as the checks across layers see them: in the map CRS, swapped axes put right.
+
+        A layer in another CRS is transformed to the map CRS, features whose
+        x and y are swapped are exchanged back, and a layer that cannot be
+        placed with the map is left out; each of these is one note in the
+        report. The CRS family reads the layers as they are; every other
+        check that compares a layer with another reads them from here, so a
+        CRS fault is reported once, by its own rule.
+        """
+
+        def compute() -> Alignment:
+            found = align_layers(self.project, self.swap_suspects())
+            for text in found.notes:
+                self.note(text)
+            return found
+
+        return self.shared("analysis.alignment", compute)
+
+    def layer(self, role: str) -> Layer | None:
+        """The layer of ``role`` as the checks across layers see it (see :meth:`alignment`); None when absent or left out."""
+        return self.alignment().layers.get(role)
+
+    def left_out(self) -> tuple[str, ...]:
+        """Roles whose layer cannot be placed with the map and is left out of the checks across layers."""
+        return self.alignment().left_out
+
+    def view(self) -> MapProject:
+        """The project with its layers as the checks across layers see them (the same project when nothing changed)."""
+
+        def compute() -> MapProject:
+            found = self.alignment()
+            return replace(self.project, layers=found.layers) if found.changed else self.project
+
+        return self.shared("analysis.view", compute)
+
     # ------------------------------------------------------------ the unit polygons
 
     def units(self) -> Units:
         """The unit polygons as the topology and linework checks see them (needs a units layer)."""
-        return self.shared("analysis.units", lambda: read_units(self.project))
+        return self.shared("analysis.units", lambda: read_units(self.view()))
 
     def edges(self) -> Edges:
         """The half-edge table of :meth:`units`."""
@@ -68,7 +107,7 @@ class CheckContext:
         """Gaps, overlaps, misfits and the map extent of :meth:`units`; notes what the extent is."""
 
         def compute() -> Coverage:
-            cov = analyse_coverage(self.project, self.units(), self.edges(), self.tolerance)
+            cov = analyse_coverage(self.view(), self.units(), self.edges(), self.tolerance)
             self.note(cov.extent_note)
             return cov
 
@@ -82,7 +121,7 @@ class CheckContext:
 
     def line_network(self) -> LineNetwork:
         """The lines layer as a network of parts and segments (needs a lines layer)."""
-        return self.shared("analysis.lines", lambda: build_line_network(self.project))
+        return self.shared("analysis.lines", lambda: build_line_network(self.view()))
 
     def segment_edges(self) -> np.ndarray:
         """For every segment of :meth:`line_network`, the edge of :meth:`edges` with exactly its endpoints, or -1."""

@@ -436,6 +436,35 @@ class Mismatch:
     apart: float | None  # the largest separation; None when the edges coincide but their vertices differ
 
 
+def _reported_pieces(cov: Coverage) -> list[Piece]:
+    """The gaps, overlaps and outside parts the topology rules report as such (wider than the tolerance, or a gap along one unit)."""
+    tol = cov.tol * ABOVE
+    return ([p for p in cov.overlaps if p.width > tol] + [p for p in cov.outside if p.width > tol]
+            + [p for p in cov.gaps if not p.on_frame and (p.width > tol or len(p.units) <= 1)])
+
+
+def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ...]], tol: float) -> list[bool]:
+    """For each thin misfit: does it lie within the tolerance of a reported gap or overlap of the same polygons?
+
+    "The same polygons": the misfit's polygons are among the defect's, or the
+    defect's among the misfit's (a gap GEOS finds along one polygon only,
+    whose far side is floating-point noise against the neighbour it was cut
+    from). Such a misfit is left over from the same edit and belongs to that
+    defect. A thin misfit with another neighbour of a polygon that also has a
+    wide overlap is a defect of its own and stays.
+    """
+    out = [False] * len(geoms)
+    if not wide or not geoms:
+        return out
+    tree = shapely.STRtree(np.array([p.geom for p in wide], dtype=object))
+    gi, wi = tree.query(np.array(geoms, dtype=object), predicate="dwithin", distance=max(tol, 0.0))
+    for g, w in zip(gi.tolist(), wi.tolist()):  # few: thin misfits next to a reported defect
+        mine, theirs = set(units[g]), set(wide[w].units)
+        if theirs and (mine <= theirs or theirs <= mine):
+            out[g] = True
+    return out
+
+
 def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
     """Thin overlaps, thin gaps and misaligned edges, grouped per pair (or group) of polygons."""
     tol = cov.tol
@@ -448,19 +477,21 @@ def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
         if apart is not None:
             g["apart"] = max(g["apart"] or 0.0, apart)
 
-    for piece in cov.overlaps:
-        if piece.width <= tol * ABOVE:
-            add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
-    for piece in cov.gaps:
-        # a thin gap between two or more polygons, whatever else it touches (the frame, a hole);
-        # one along a single polygon is a gap (unit-gap), one lying on the frame is no defect
-        if piece.width <= tol * ABOVE and len(piece.units) > 1 and not piece.on_frame:
+    thin_overlaps = [p for p in cov.overlaps if p.width <= tol * ABOVE]
+    # a thin gap between two or more polygons, whatever else it touches (the frame, a hole);
+    # one along a single polygon is a gap (unit-gap), one lying on the frame is no defect
+    thin_gaps = [p for p in cov.gaps if p.width <= tol * ABOVE and len(p.units) > 1 and not p.on_frame]
+    wide = _reported_pieces(cov)
+    part_of = _part_of_wide(wide, [p.geom for p in thin_overlaps + thin_gaps] + [c[1] for c in cov.collinear],
+                            [p.units for p in thin_overlaps + thin_gaps] + [c[0] for c in cov.collinear], tol)
+    for piece, inside in zip(thin_overlaps + thin_gaps, part_of):
+        if not inside:
             add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
     pieces = cov.overlaps + tuple(p for p in cov.gaps if not p.on_frame) + cov.outside
-    for pair, geom, length in cov.collinear:
+    for (pair, geom, length), inside in zip(cov.collinear, part_of[len(thin_overlaps) + len(thin_gaps):]):
         # vertices missing from one side at the corners of a gap or overlap between the
         # same two polygons belong to that defect
-        if any(pair[0] in p.units and pair[1] in p.units and shapely.intersects(geom, p.geom) for p in pieces):
+        if inside or any(pair[0] in p.units and pair[1] in p.units and shapely.intersects(geom, p.geom) for p in pieces):
             continue
         add(pair, geom, length, None)
     out = []

@@ -46,7 +46,7 @@ from ..analysis.arrays import (
     segment_lines,
     text_values,
 )
-from ..analysis.lines import LineNetwork, norm_kind
+from ..analysis.lines import LineNetwork, kind_role, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
 from ..analysis.nearness import (
     connected_pieces,
@@ -145,6 +145,25 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
 
 
+# When missing linework is systematic rather than the exception (our own choice, not a published
+# standard): more than half of the length of a kind of boundary has no line, over more than
+# SYSTEMATIC_STRETCHES stretches between units, or more than one stretch of the map edge (a frame
+# is one line, drawn in one go). Then one finding per kind of boundary says how much and where.
+SYSTEMATIC_SHARE = 0.5
+SYSTEMATIC_STRETCHES = 10
+
+
+def _kind_for(project: MapProject, role: str, fallback: str) -> str:
+    """The first kind of `[checks] line_kinds` the checks read as ``role`` (a frame kind, a contact kind)."""
+    return next((k for k in project.config.line_kinds if kind_role(k) == role), fallback)
+
+
+def _span(b: np.ndarray, geographic: bool) -> str:
+    """A box in map coordinates as words: x and y ranges, to the metre (or 1e-5 degree)."""
+    f = (lambda v: f"{v:.5f}") if geographic else (lambda v: f"{v:.0f}")
+    return f"x {f(b[0])} to {f(b[2])}, y {f(b[1])} to {f(b[3])}"
+
+
 @rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"))
 def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A stretch of boundary between two units, or along the map edge, that no line draws.
@@ -158,6 +177,19 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     unit are left to `unit-same-neighbour`; edges of gaps and overlaps are
     left to the topology family.
 
+    Missing linework is listed stretch by stretch only when it is the
+    exception. When it is systematic (our own choice of threshold, not a
+    published standard: more than half of the length of the boundaries
+    between units over more than 10 stretches, or more than half of the map
+    edge over more than one stretch), one finding per kind of boundary gives
+    the number of stretches, their length and share, the box they span and
+    the longest one, and names the line kind to draw: a map of polygons and
+    faults with no contact drawn (common in compilations) gets one finding,
+    not one per boundary. The map edge is the extent layer when there is one,
+    else the outer boundary of the unit polygons; a frame with no line gets
+    one finding naming the kind its line needs (`map-boundary` by default,
+    the frame kind of `[checks] line_kinds`).
+
     Why it matters
     --------------
     The printed map shows a boundary with no line symbol (so no certainty can
@@ -167,7 +199,8 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     Fix
     ---
     Draw the contact (or fault, or map boundary) along the stretch, snapped
-    to the polygon edge, with its kind and certainty.
+    to the polygon edge, with its kind and certainty. A map whose linework
+    is kept elsewhere can turn the rule off in `[checks.severity]`.
 
     Example
     -------
@@ -177,9 +210,9 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     net = ctx.line_network()
     units = ctx.units()
     edges = ctx.edges()
-    outline = ctx.coverage().outline
+    cov = ctx.coverage()
+    outline = cov.outline
     tol = float(ctx.tolerance)
-    m = metres_per_unit(project)
     twin = edges.twin.copy()
     if units.codes is not None and len(units):
         cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
@@ -197,16 +230,60 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     if len(net.geoms):
         stretches = uncovered(stretches, net.geoms, tol, net.tree)
     pieces, k = linear_parts(stretches, tol * ABOVE)
-    for piece, kk in zip(pieces, k):
-        ua, ub = int(uk[kk] // (len(units) + 1)), int(uk[kk] % (len(units) + 1)) - 1
-        length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
-        if ub >= 0:
-            text = f"No line draws {num(length)} m of the boundary between units {units.labels([ua, ub])}."
-            feats: tuple[str, ...] = (units.ids[ua], units.ids[ub])
-        else:
-            text = f"No line draws {num(length)} m of the map edge along unit {units.label(ua)}."
-            feats = (units.ids[ua],)
-        yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+    if not len(pieces):
+        return
+    ua = (uk[k] // (len(units) + 1)).astype(np.int64)
+    ub = (uk[k] % (len(units) + 1)).astype(np.int64) - 1
+    lengths = np.asarray(g.lengths(pieces), dtype=float)
+    between = ub >= 0
+    totals = {
+        True: float(np.sum(g.lengths(edges.lines(np.flatnonzero(twin))))),
+        False: float(np.sum(g.lengths(edges.lines(np.flatnonzero(outline & ~twin))))),
+    }
+    for inner in (True, False):
+        sel = np.flatnonzero(between == inner)
+        if not len(sel):
+            continue
+        missing = float(lengths[sel].sum())
+        systematic = missing > SYSTEMATIC_SHARE * totals[inner] and len(sel) > (SYSTEMATIC_STRETCHES if inner else 1)
+        if systematic:
+            yield _missing_summary(project, ctx, units, pieces[sel], lengths[sel], ua[sel], ub[sel], totals[inner], inner, g.geographic)
+            continue
+        for piece, length, u, v in zip(pieces[sel], lengths[sel].tolist(), ua[sel].tolist(), ub[sel].tolist()):
+            if inner:
+                text = f"No line draws {num(length)} m of the boundary between units {units.labels([u, v])}."
+                feats: tuple[str, ...] = (units.ids[u], units.ids[v])
+            else:
+                text = (f"No line draws {num(length)} m of the map edge along unit {units.label(u)}; "
+                        f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
+                feats = (units.ids[u],)
+            yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+
+
+def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, pieces: np.ndarray, lengths: np.ndarray,
+                     ua: np.ndarray, ub: np.ndarray, total: float, inner: bool, geographic: bool) -> Hit:
+    """One finding for systematically missing linework of one kind of boundary: how much, where, what to draw."""
+    missing = float(lengths.sum())
+    share = 100.0 * missing / total if total > 0 else 100.0
+    where = _span(shapely.total_bounds(pieces), geographic)
+    w = int(np.argmax(lengths))
+    longest = float(lengths[w])
+    geom = shapely.multilinestrings(shapely.get_parts(pieces))
+    if inner:
+        kind = _kind_for(project, "contact", "contact")
+        net = ctx.line_network()
+        none = "" if (net.part_roles == "contact").any() else f"; the lines layer holds no line of kind '{kind}'"
+        text = (f"No line draws {len(pieces)} stretches of the boundaries between units: {num(missing)} m of {num(total)} m "
+                f"({share:.0f} %), spanning {where}; the longest, {num(longest)} m, is between units "
+                f"{units.labels([int(ua[w]), int(ub[w])])}{none}. Draw them as lines of kind '{kind}' "
+                "(or a fault kind where a fault runs), snapped to the polygon edges.")
+    else:
+        kind = _kind_for(project, "boundary", "map-boundary")
+        frame = (f"the extent layer ({project.layers['extent'].source})" if ctx.coverage().extent_declared
+                 else "the outer boundary of the unit polygons (no extent layer)")
+        text = (f"No line draws {len(pieces)} stretches of the map edge: {num(missing)} m of {num(total)} m ({share:.0f} %), "
+                f"spanning {where}; the frame is {frame}. Draw it as lines of kind '{kind}'.")
+    return Hit(text, layer="lines", measure=missing, geometry=geom)
 
 
 def _endpoints(net: LineNetwork, parts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -282,7 +359,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     connected = np.zeros(len(ends), dtype=bool)
     connected[pi[fj != end_feat[pi]]] = True
     edge = None
-    if "units" in project.layers:
+    if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
         cov = ctx.coverage()
         if cov.extent is not None:
             edge = cov.extent_boundary
@@ -533,7 +610,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     if not nseg:
         return
     # exact: segments with identical endpoints in two features
-    if "units" in project.layers:
+    if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
         se = ctx.segment_edges()
         matched = se >= 0
         key = np.where(matched, se, -1)
@@ -579,7 +656,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             fj = rfeat[rj]
             # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
             # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
-            if "units" in project.layers:
+            if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
                 close = shapely.length(off_unit_boundaries(runs, ctx.units(), tol)) < shapely.length(runs) * (1 - 1e-12)
             else:
                 close = np.ones(len(runs), dtype=bool)

@@ -303,7 +303,7 @@ def _sample_points(project: MapProject, ctx: CheckContext) -> dict[str, Any]:
     """Sample id -> point (first one when ids repeat), for placing table findings on the map."""
 
     def compute():
-        layer = project.layers.get("samples")
+        layer = ctx.layer("samples")  # placed in the map CRS
         if layer is None:
             return {}
         geoms = layer.geometry
@@ -448,7 +448,7 @@ def _extent(project: MapProject, ctx: CheckContext) -> Any:
 
     def compute():
         for role in ("extent", "units"):
-            layer = project.layers.get(role)
+            layer = ctx.layer(role)  # in the map CRS, as the samples are read for this check
             if layer is None:
                 continue
             geoms = layer.geometry
@@ -497,9 +497,9 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     A sample with a dropped digit in its northing gives "sample TM24-0044
     lies 612034.2 m outside the map extent".
     """
-    layer = project.layers["samples"]
+    layer = ctx.layer("samples")  # in the map CRS, swapped axes put right: crs-* report those once
     extent = _extent(project, ctx)
-    if extent is None:
+    if extent is None or layer is None:
         return
     role = _extent_role(project, ctx)
     geoms = layer.geometry
@@ -553,8 +553,9 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     KES but lies in a MAR polygon (feature 12), 35.2 m inside its edge; the
     nearest KES polygon is 35.4 m away".
     """
-    samples = project.layers["samples"]
-    units = project.layers["units"]
+    samples, units = ctx.layer("samples"), ctx.layer("units")  # in the map CRS: crs-* report a CRS fault once
+    if samples is None or units is None:
+        return
     recorded = samples.text("unit_field")
     codes = units.text("unit_field")
     if recorded is None or codes is None:
@@ -717,8 +718,10 @@ def sample_unanalysed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     Samples whose id appears in no row of the analyses table. A notice: many
     samples are taken for thin sections, fossils or reference and are never
-    analysed. When an unmatched analysis row probably meant the sample, the
-    finding says so.
+    analysed. A sample that an unmatched analysis row probably meant (one
+    sample named by `analysis-orphan`, its id mangled by a spreadsheet) is
+    not reported here: it has its analysis, under the mangled id, and the
+    orphan finding names it.
 
     Why it matters
     --------------
@@ -733,28 +736,29 @@ def sample_unanalysed(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Example
     -------
-    A sample TM24-0007 whose analysis row reads `TM24-7` gives "sample
-    TM24-0007 has no analysis (analyses.xlsx, sheet 'majors', cell A4 reads
-    'TM24-7', probably meant for it)".
+    A sample TM24-0003 that appears in no row of the analyses table gives
+    "sample TM24-0003 has no analysis"; a sample TM24-0007 whose analysis
+    row reads `TM24-7` is named by `analysis-orphan` instead.
     """
     an = read_analyses(project, ctx)
     if an.sample_col is None:
         return
     layer = project.layers["samples"]
     analysed = set(an.sample_text.astype(str))
-    claimed: dict[str, list[str]] = {}
+    claimed: set[str] = set()
     for i, raw, text, probable in _orphans(project, ctx):
         if len(probable) == 1:
-            claimed.setdefault(probable[0][0], []).append(f"{an.table.data.cell(i, an.sample_col)} reads {_shown(raw, text)}")
+            claimed.add(probable[0][0])
     geoms = layer.geometry
     for i in map(int, np.flatnonzero(~np.isin(layer.ids.astype(str), list(analysed)))):
         sid = layer.ids[i]
         if not str(sid).strip():
             continue
-        extra = f" ({'; '.join(claimed[sid])}, probably meant for it)" if sid in claimed else ""
+        if sid in claimed:  # analysis-orphan names it: one finding for one mangled id
+            continue
         g = geoms[i]
         yield Hit(
-            f"sample {sid} has no analysis{extra}.",
+            f"sample {sid} has no analysis.",
             layer="samples",
             features=(sid,),
             geometry=g if g is not None and not shapely.is_empty(g) else None,

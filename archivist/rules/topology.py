@@ -319,7 +319,9 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     gaps are reported by `unit-overlap` and `unit-gap`, and a gap along one
     unit only (an unfilled hole inside it) by `unit-gap`, so each defect is
     reported once; misaligned vertices at the corners of such a gap or
-    overlap belong to it. A unit edge within the tolerance of the declared
+    overlap belong to it, as does a thin misfit of the same polygons within
+    the tolerance of it (the floating-point far side of a bite cut out of one
+    polygon). A unit edge within the tolerance of the declared
     extent counts as lying on it, as lines do, unless GEOS flags an edge
     along the gap between them.
     Even a misfit far below the tolerance (floating-point noise after
@@ -407,7 +409,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     same = codes[edges.left[sel]] == codes[edges.right[sel]]
     sel = sel[same & (codes[edges.left[sel]] != "")]
     faults = None
-    if "lines" in project.layers:
+    if ctx.layer("lines") is not None:  # lines placed with the map (see CheckContext.alignment)
         net = ctx.line_network()
         if sel.size:
             sel = sel[~ctx.edges_drawn(("fault",))[sel]]
