@@ -328,7 +328,7 @@ def test_neighbouring_zone_named_from_lonlat_columns(tmp_path):
     _, _, d = pyproj.Geod(ellps="WGS84").inv(s.lon.values, s.lat.values, qlon, qlat)
     assert f.measure == pytest.approx(float(np.median(d)), rel=1e-6)
     assert f.measure > 250_000  # zones are 6° apart: about 320 km at 61°N
-    assert f"a median {f.measure / 1000:.1f} km away under EPSG:32632" in f.message
+    assert f"a median {f.measure / 1000:.1f} km away from their positions under EPSG:32632" in f.message
 
 
 def test_wrong_hemisphere_named_from_lonlat_columns(tmp_path):
@@ -531,3 +531,23 @@ def test_lonlat_columns_on_another_datum(tmp_path):
     assert "written on another datum, name it with lonlat_crs in [layers.samples]" in f.message
     edit_manifest(root, lambda m: m["layers"]["samples"].update(lonlat_crs="EPSG:4230"))
     assert found(root, "crs-zone-evidence") == []
+
+
+def test_coordinate_table_with_lonlat_columns(tmp_path):
+    # A sample table kept as a spreadsheet export: easting/northing computed by pyproj in zone 33N from the
+    # GPS longitude/latitude, declared as zone 32N in the manifest; the map itself is right (zone 33N).
+    import numpy as np
+
+    root = zone_33_labelled_33(tmp_path)
+    s = read_layer(root, "map.gpkg", "samples")
+    table = s.drop(columns="geometry").assign(easting=np.round(s.geometry.x, 2), northing=np.round(s.geometry.y, 2))
+    table = table.rename(columns={"lon": "Longitude", "lat": "Latitude"})
+    table.to_csv(root / "samples.csv", index=False)
+    edit_manifest(root, lambda m: m["layers"].update(samples={"path": "samples.csv", "x_field": "easting", "y_field": "northing",
+                                                               "crs": "EPSG:32632", "id_field": "sample_id"}))
+    (f,) = found(root, "crs-zone-evidence")
+    assert f.layer == "samples" and "layers.samples (samples.csv) is labelled EPSG:32632" in f.message
+    assert "are in EPSG:32633 (WGS 84 / UTM zone 33N)" in f.message and "(Longitude, Latitude)" in f.message
+    assert "Assign EPSG:32633, the map CRS, to the layer" in f.message  # the rest of the map is right
+    # One cause, one finding: the label differs from map.crs only because it is wrong.
+    assert [g.rule for g in archivist.check(root, only=["crs"]).findings] == ["crs-zone-evidence"]

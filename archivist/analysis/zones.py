@@ -427,16 +427,28 @@ def _lines_up(cluster: Cluster, placements: dict[str, Placement], ref: np.ndarra
     return None
 
 
-def compare_layers(found: list[Cluster], placements: dict[str, Placement], map_crs: pyproj.CRS | None) -> dict[int, LayersEvidence]:
+def compare_layers(
+    found: list[Cluster],
+    placements: dict[str, Placement],
+    map_crs: pyproj.CRS | None,
+    confirmed: set[int] | None = None,
+    strong: dict[int, pyproj.CRS] | None = None,
+) -> dict[int, LayersEvidence]:
     """Clusters that overlap the rest of the map only when read in a candidate CRS, by index in ``found``.
 
     With two clusters, both readings may line them up (zone 32 read as 33,
-    or zone 33 read as 32); then one finding names both, on the cluster
-    thought the likelier to be mislabelled: of two clusters in different
-    CRSs, the one with more layers (the rest of the map, labelled by hand,
-    against one layer exported with its CRS); of two in the same CRS, the
-    one with fewer layers (the odd one out).
+    or zone 33 read as 32). Other evidence decides when there is some: a
+    cluster whose label is ``confirmed`` (its longitude/latitude columns
+    agree, or it lies inside the declared extent) is not the one to blame,
+    and a cluster whose ``strong`` evidence (columns, declared extent) names
+    the same CRS as its reading is. Without such evidence one finding names
+    both readings, on the cluster thought the likelier to be mislabelled: of
+    two clusters in different CRSs, the one with more layers (the rest of the
+    map, labelled by hand, against one layer exported with its CRS); of two
+    in the same CRS, the one with fewer layers (the odd one out).
     """
+    confirmed = confirmed or set()
+    strong = strong or {}
     out: dict[int, LayersEvidence] = {}
     if len(found) < 2:
         return out
@@ -447,18 +459,22 @@ def compare_layers(found: list[Cluster], placements: dict[str, Placement], map_c
         if ref is None or _intersects(np.asarray(padded(c.box)), padded(ref)):
             continue
         cand = _lines_up(c, placements, ref)
-        if cand is not None:
+        if cand is not None and i not in confirmed:
             fits[i] = (cand, ref, tuple(r for o in rest for r in o.roles))
     if len(found) == 2 and len(fits) == 2:
-        a, b = found
-        if a.crs.equals(b.crs, ignore_axis_order=True):
-            key = lambda i: (len(found[i].roles), found[i].features)  # noqa: E731
+        shown = [i for i in (0, 1) if i in strong and strong[i].equals(fits[i][0].crs)]
+        if len(shown) == 1:
+            main, alternative = shown[0], None
         else:
-            key = lambda i: (-len(found[i].roles), not (map_crs is not None and found[i].crs.equals(map_crs, ignore_axis_order=True)))  # noqa: E731
-        main = min((0, 1), key=key)
-        other = 1 - main
+            a, b = found
+            if a.crs.equals(b.crs, ignore_axis_order=True):
+                key = lambda i: (len(found[i].roles), found[i].features)  # noqa: E731
+            else:
+                key = lambda i: (-len(found[i].roles), not (map_crs is not None and found[i].crs.equals(map_crs, ignore_axis_order=True)))  # noqa: E731
+            main = min((0, 1), key=key)
+            alternative = (found[1 - main].roles, fits[1 - main][0])
         cand, ref, others = fits[main]
-        out[main] = LayersEvidence(others, _centre_distance(found[main].box, ref), cand, (found[other].roles, fits[other][0]))
+        out[main] = LayersEvidence(others, _centre_distance(found[main].box, ref), cand, alternative)
         return out
     for i, (cand, ref, others) in fits.items():
         out[i] = LayersEvidence(others, _centre_distance(found[i].box, ref), cand, None)
@@ -518,21 +534,32 @@ def zone_evidence(project: MapProject, placements: dict[str, Placement], swaps: 
     """Compare every layer's positions with the project's independent evidence (see the module docstring)."""
     found = clusters(placements)
     declared = declared_extent(project)
-    layers_ev = compare_layers(found, placements, project.crs)
     columns: dict[str, ColumnEvidence] = {}
     for role, placed in placements.items():
         swap = swaps[role].suspect if role in swaps else None
         ev = compare_columns(project, placed, swap)
-        if ev is not None and ev.disagree.any():
+        if ev is not None and len(ev.rows):
             columns[role] = ev
-    out = []
+    own: list[ClusterEvidence] = []
+    confirmed: set[int] = set()
+    strong: dict[int, pyproj.CRS] = {}
     for i, c in enumerate(found):
-        whole = tuple(columns[r] for r in c.roles if r in columns and columns[r].whole)
+        here = [columns[r] for r in c.roles if r in columns]
+        whole = tuple(ev for ev in here if ev.whole)
         extent = compare_extent(c, placements, declared) if declared is not None else None
-        if whole or extent is not None or i in layers_ev:
-            out.append(ClusterEvidence(c, whole, extent, layers_ev.get(i)))
+        ce = ClusterEvidence(c, whole, extent, None)
+        own.append(ce)
+        if any(not ev.whole for ev in here) or (declared is not None and extent is None):
+            confirmed.add(i)
+        if ce.fit is not None:
+            strong[i] = ce.fit.crs
+    layers_ev = compare_layers(found, placements, project.crs, confirmed, strong)
+    out = []
+    for i, ce in enumerate(own):
+        if ce.columns or ce.extent is not None or i in layers_ev:
+            out.append(ClusterEvidence(ce.cluster, ce.columns, ce.extent, layers_ev.get(i)))
     in_clusters = {ev.role for ce in out for ev in ce.columns}
-    partial = tuple(ev for role, ev in columns.items() if role not in in_clusters)
+    partial = tuple(ev for role, ev in columns.items() if role not in in_clusters and ev.disagree.any())
     return ZoneEvidence(tuple(out), partial)
 
 

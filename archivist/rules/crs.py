@@ -101,7 +101,9 @@ def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     `CRS.equals` (axis order ignored, as GIS files store easting/longitude
     first): the same CRS written two ways (an EPSG code and an ESRI `.prj`,
     say) is not reported. When both CRSs are projected, the finding says how
-    far apart the two put the same coordinate pair at the layer's centre.
+    far apart the two put the same coordinate pair at the layer's centre. A
+    layer whose coordinates the project's own evidence shows to be in the map
+    CRS already (only its label differs) is left to `crs-zone-evidence`.
 
     Why it matters
     --------------
@@ -125,10 +127,13 @@ def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     target = project.crs
     if target is None:
         return
+    true = ctx.zone_evidence().true_crs()
     for role, layer in project.layers.items():
         crs = layer.crs
         if crs is None or crs.equals(target, ignore_axis_order=True):
             continue
+        if role in true and true[role].equals(target, ignore_axis_order=True):
+            continue  # only the label differs: crs-zone-evidence says so, once
         extra, measure = "", None
         placed = ctx.placements().get(role)
         if crs.is_projected and target.is_projected and placed is not None and placed.present.any():
@@ -367,7 +372,9 @@ def _cluster_hit(project: MapProject, ctx: CheckContext, ce: ClusterEvidence) ->
         verb = "are" if len(c.roles) > 1 else "is"
         them = "these layers" if len(c.roles) > 1 else "the layer"
         labelled_alike = {r for r, p in ctx.placements().items() if p.crs.equals(c.crs, ignore_axis_order=True)}
-        if set(c.roles) >= labelled_alike and (project.crs is None or project.crs.equals(c.crs, ignore_axis_order=True)):
+        if project.crs is not None and fit.crs.equals(project.crs, ignore_axis_order=True):
+            fix = f"Assign {_short(fit.crs)}, the map CRS, to {them} (assign the CRS, do not reproject: the numbers are right, the label is wrong)."
+        elif set(c.roles) >= labelled_alike and (project.crs is None or project.crs.equals(c.crs, ignore_axis_order=True)):
             fix = f"Assign {_short(fit.crs)} to {them} and set map.crs to it (assign the CRS, do not reproject: the numbers are right, the label is wrong)."
         else:
             fix = f"Assign {_short(fit.crs)} to {them} (assign the CRS, do not reproject), then reproject {'them' if len(c.roles) > 1 else 'it'} to the map CRS."
