@@ -175,6 +175,31 @@ def validate_manifest(data: dict[str, Any], source: str) -> list[Hit]:
                 hits.append(Hit(f"{source}: required key '{full}' is missing.", layer=source, rule="manifest-invalid"))
             continue
         hits.append(Hit(f"{source}: key '{where or '(top)'}': {err.message}.", layer=source, rule="manifest-invalid"))
+    return hits + _meaning(data, source)
+
+
+def _meaning(data: dict[str, Any], source: str) -> list[Hit]:
+    """What the schema cannot say: a geographic extent whose south is not below its north, a lonlat_crs that is not geographic."""
+    hits = []
+    m = data.get("map")
+    box = m.get("geographic_extent") if isinstance(m, dict) else None
+    if isinstance(box, list) and len(box) == 4 and all(isinstance(v, (int, float)) for v in box) and not box[1] < box[3]:
+        hits.append(Hit(f"{source}: key 'map.geographic_extent': south ({box[1]}) must be less than north ({box[3]}); "
+                        "the order is [west, south, east, north].", layer=source, rule="manifest-invalid"))
+    layers = data.get("layers")
+    for role, spec in (layers.items() if isinstance(layers, dict) else ()):
+        text = spec.get("lonlat_crs") if isinstance(spec, dict) else None
+        if not isinstance(text, str):
+            continue
+        import pyproj  # only for a manifest that names a lonlat_crs
+
+        try:
+            ok = pyproj.CRS.from_user_input(text).is_geographic
+        except pyproj.exceptions.CRSError:
+            ok = False
+        if not ok:
+            hits.append(Hit(f"{source}: key 'layers.{role}.lonlat_crs': '{text}' is not a geographic CRS pyproj understands "
+                            "(longitude/latitude columns are in degrees: EPSG:4326, EPSG:4258...).", layer=source, rule="manifest-invalid"))
     return hits
 
 

@@ -13,6 +13,7 @@ from .halfedges import Edges, build_edges
 from .lines import LineNetwork, build_line_network
 from .placement import Placement, SwapSuspects, place_layers, swap_suspects
 from .polygons import Units, read_units
+from .zones import ZoneEvidence, zone_evidence
 
 if TYPE_CHECKING:
     from ..project import CheckConfig, Layer, MapProject
@@ -140,3 +141,8 @@ class CheckContext:
     def swap_suspects(self) -> dict[str, SwapSuspects]:
         """Per layer, the features that fit where the map can be only with x and y swapped."""
         return self.shared("analysis.swap-suspects", lambda: swap_suspects(self.placements()))
+
+    def zone_evidence(self) -> ZoneEvidence:
+        """What the project holds besides the CRS labels (longitude/latitude columns, a declared extent, layers in
+        other CRSs) about the CRS each layer's coordinates are really in."""
+        return self.shared("analysis.zone-evidence", lambda: zone_evidence(self.project, self.placements(), self.swap_suspects()))

@@ -4,25 +4,35 @@ The reference for "where a CRS is meant to be used" is the area of use
 recorded for it in the EPSG dataset, as pyproj reads it from PROJ's database
 (`CRS.area_of_use`). CRSs are compared as CRSs (`CRS.equals`), never as
 strings, and reported to people as "EPSG:code (name)".
+
+A wrong UTM zone, hemisphere or datum is caught only where something tells:
+coordinates that leave the labelled CRS's area of use
+(`crs-outside-area-of-use`), or evidence inside the project independent of
+the label: longitude/latitude columns, a declared geographic extent, layers
+in another CRS (`crs-zone-evidence`). A map labelled consistently with a
+neighbouring zone, still inside that zone's area of use, with nothing else
+to compare with, is consistent with itself and cannot be told from a right one.
 """
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import TYPE_CHECKING, Iterator
 
 import numpy as np
 import pyproj
 from shapely.geometry import box
 
-from ..analysis.messages import box_words, distance_words
+from ..analysis.messages import box_words, distance_words, join_words
 from ..analysis.placement import area_of_use, overshoot, suggest_projected, within
-from ..model import Hit
+from ..model import Hit, Severity
 from ..project import crs_label
 from ..registry import rule
 from ..vectorio import sidecar
 
 if TYPE_CHECKING:
     from ..analysis.context import CheckContext
+    from ..analysis.zones import Candidate, ClusterEvidence, ColumnEvidence
     from ..project import MapProject
 
 
@@ -91,7 +101,9 @@ def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     `CRS.equals` (axis order ignored, as GIS files store easting/longitude
     first): the same CRS written two ways (an EPSG code and an ESRI `.prj`,
     say) is not reported. When both CRSs are projected, the finding says how
-    far apart the two put the same coordinate pair at the layer's centre.
+    far apart the two put the same coordinate pair at the layer's centre. A
+    layer whose coordinates the project's own evidence shows to be in the map
+    CRS already (only its label differs) is left to `crs-zone-evidence`.
 
     Why it matters
     --------------
@@ -115,10 +127,13 @@ def crs_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     target = project.crs
     if target is None:
         return
+    true = ctx.zone_evidence().true_crs()
     for role, layer in project.sources.items():
         crs = layer.crs
         if crs is None or crs.equals(target, ignore_axis_order=True):
             continue
+        if role in true and true[role].equals(target, ignore_axis_order=True):
+            continue  # only the label differs: crs-zone-evidence says so, once
         extra, measure = "", None
         placed = ctx.placements().get(role)
         if crs.is_projected and target.is_projected and placed is not None and placed.present.any():
@@ -168,7 +183,9 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
     finding says by how far (geodesic distance on the WGS 84 ellipsoid) and in
     which direction; features whose coordinates the CRS cannot place on the
     globe at all are counted. It does not know where the map should be: a map
-    inside the area of use but in the wrong place is not caught.
+    inside the area of use but in the wrong place is not caught here (see
+    `crs-zone-evidence`, which also reports, alone, the layers whose true CRS
+    the project's own evidence shows; they are left out here).
 
     Why it matters
     --------------
@@ -201,10 +218,14 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
         else:
             groups.append((placed.crs, [placed]))
     swaps = ctx.swap_suspects()
-    for crs, members in groups:
+    explained = ctx.zone_evidence().true_crs()  # layers whose true CRS the project shows: reported once, by crs-zone-evidence
+    for crs, every in groups:
+        members = [p for p in every if p.role not in explained]
         area = area_of_use(crs)
-        if area is None:
+        if area is None or not members:
             continue
+        known = ctx.zone_evidence().known_rows()  # features shown to be in another CRS: reported by crs-zone-evidence
+        members = [p if p.role not in known else replace(p, present=p.present & ~known[p.role]) for p in members]
         names = ", ".join(p.role for p in members)
         layer = members[0].role if len(members) == 1 else None
         lonlat = np.concatenate([p.lonlat[p.present] for p in members])
@@ -238,6 +259,251 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
                 layer=layer,
                 geometry=geometry,
             )
+
+
+def _short(crs: pyproj.CRS) -> str:
+    epsg = crs.to_epsg(min_confidence=70)
+    return f"EPSG:{epsg}" if epsg else crs.name
+
+
+_HOW = {
+    "zone": "a neighbouring zone",
+    "hemisphere": "the other hemisphere",
+    "zone and hemisphere": "a neighbouring zone in the other hemisphere",
+    "datum": "the same zone on another datum",
+}
+
+
+def _within(metres: float) -> str:
+    """How close readings agree: decimetres below 10 m, never "0 m"."""
+    if metres < 0.1:
+        return "0.1 m"
+    return f"{metres:.1f} m" if metres < 10 else distance_words(metres)
+
+
+def _layers_words(roles: tuple[str, ...]) -> str:
+    return f"layers.{roles[0]}" if len(roles) == 1 else f"layers {', '.join(roles)}"
+
+
+def _columns_words(ev: ColumnEvidence) -> str:
+    return f"the longitude/latitude columns of layers.{ev.role} ({ev.columns.lon}, {ev.columns.lat})"
+
+
+def _left_out(ev: ColumnEvidence) -> str:
+    return f"; {ev.left_out} row(s) without a usable reading were left out" if ev.left_out else ""
+
+
+# Datum shifts between the geodetic datums in use are metres to about a kilometre (from memory): a
+# disagreement that small may be columns written on another datum than they are read in.
+DATUM_SHIFT_M = 2000.0
+
+
+def _datum_hint(ev: ColumnEvidence, fit: Candidate | None, median: float | None = None) -> str:
+    if (fit is None or fit.how != "datum") and not (fit is None and median is not None and median < DATUM_SHIFT_M):
+        return ""
+    return (f" (the columns are read as {_label(ev.lonlat_crs)}; if they were written on another datum, "
+            f"name it with lonlat_crs in [layers.{ev.role}])")
+
+
+def _guessed(ev: ColumnEvidence) -> str:
+    if ev.columns.named:
+        return ""
+    return f" (the columns were found by their headers: if they hold something else, name the right ones with lon_field/lat_field in [layers.{ev.role}])"
+
+
+def _column_clue(ev: ColumnEvidence, fit: Candidate | None) -> str:
+    n, m = int(ev.disagree.sum()), len(ev.rows)
+    median = float(np.nanmedian(ev.offsets[ev.disagree])) if np.isfinite(ev.offsets[ev.disagree]).any() else None
+    away = f"a median {distance_words(median)} away" if median is not None else "where the CRS cannot place them"
+    share = f"all {m}" if n == m else f"{n} of {m}"
+    if ev.swapped_columns:
+        k = int(ev.explained.sum())
+        return (f"{_columns_words(ev)} put {share} features {away} from their positions, and agree with {'all' if k == n else k} of them to within "
+                f"{_within(float(ev.fit_offsets.max()))} with longitude and latitude exchanged: the two columns look swapped{_left_out(ev)}")
+    if ev.fit is not None and fit is not None and ev.fit.crs.equals(fit.crs):
+        k = int(ev.explained.sum())
+        return (f"{_columns_words(ev)} agree with {'all ' + str(k) if k == m else f'{k} of {m}'} positions to within "
+                f"{_within(float(ev.fit_offsets.max()))} under {_short(fit.crs)}, and put {share} features {away} from "
+                f"their positions under {_short(ev.crs)}{_datum_hint(ev, fit)}{_left_out(ev)}")
+    return (f"{_columns_words(ev)} put {share} features {away} from their positions under {_short(ev.crs)}, and no neighbouring "
+            f"zone, the other hemisphere or the same zone on another datum explains it{_datum_hint(ev, None, median)}{_guessed(ev)}{_left_out(ev)}")
+
+
+def _cluster_geometry(project: MapProject, ctx: CheckContext, roles: tuple[str, ...], crs: pyproj.CRS):
+    if project.crs is not None and not crs.equals(project.crs, ignore_axis_order=True):
+        return None
+    placed = ctx.placements()
+    b = np.concatenate([placed[r].bounds[placed[r].present] for r in roles])
+    if not len(b) or not np.isfinite(b).any():
+        return None
+    return box(np.nanmin(b[:, 0]), np.nanmin(b[:, 1]), np.nanmax(b[:, 2]), np.nanmax(b[:, 3]))
+
+
+def _cluster_hit(project: MapProject, ctx: CheckContext, ce: ClusterEvidence) -> Hit:
+    c = ce.cluster
+    label = _label(c.crs)
+    names = ", ".join(c.roles)
+    where = f"layers {names}" if len(c.roles) > 1 else f"layers.{names} ({project.sources[names].source})"
+    fit = ce.fit
+    clues: list[str] = [_column_clue(ev, fit) for ev in ce.columns]
+    measure: float | None = None
+    for ev in ce.columns:
+        if measure is None and np.isfinite(ev.offsets[ev.disagree]).any():
+            measure = float(np.nanmedian(ev.offsets[ev.disagree]))
+    if ce.extent is not None:
+        x = ce.extent
+        declared = f"the declared geographic extent (map.geographic_extent: {box_words(x.declared)})"
+        if x.fit is not None and fit is not None and x.fit.crs.equals(fit.crs):
+            clues.append(f"{declared} holds them under {_short(fit.crs)}, while under {_short(c.crs)} they lie {distance_words(x.metres)} {x.direction} of it")
+        else:
+            clues.append(f"they lie {distance_words(x.metres)} {x.direction} of {declared}, and no neighbouring zone or the other hemisphere puts them inside it")
+        measure = x.metres if measure is None else measure
+    if ce.layers is not None:
+        lv = ce.layers
+        text = f"they line up with {_layers_words(lv.others)} only when read in {_short(lv.fit.crs)} (as labelled they lie {distance_words(lv.metres)} apart)"
+        if lv.alternative is not None:
+            roles, alt = lv.alternative
+            text += (f"; reading {_layers_words(roles)} in {_short(alt.crs)} would line them up too, and the layers alone cannot "
+                     "tell which label is wrong")
+        clues.append(text)
+        measure = lv.metres if measure is None else measure
+    geometry = _cluster_geometry(project, ctx, c.roles, c.crs)
+    if fit is not None:
+        verb = "are" if len(c.roles) > 1 else "is"
+        them = "these layers" if len(c.roles) > 1 else "the layer"
+        labelled_alike = {r for r, p in ctx.placements().items() if p.crs.equals(c.crs, ignore_axis_order=True)}
+        if project.crs is not None and fit.crs.equals(project.crs, ignore_axis_order=True):
+            fix = f"Assign {_short(fit.crs)}, the map CRS, to {them} (assign the CRS, do not reproject: the numbers are right, the label is wrong)."
+        elif set(c.roles) >= labelled_alike and (project.crs is None or project.crs.equals(c.crs, ignore_axis_order=True)):
+            fix = f"Assign {_short(fit.crs)} to {them} and set map.crs to it (assign the CRS, do not reproject: the numbers are right, the label is wrong)."
+        else:
+            fix = f"Assign {_short(fit.crs)} to {them} (assign the CRS, do not reproject), then reproject {'them' if len(c.roles) > 1 else 'it'} to the map CRS."
+        return Hit(
+            f"{where} {verb} labelled {label} but the coordinates are in {_label(fit.crs)}, {_HOW[fit.how]}: {'; '.join(clues)}. {fix}",
+            layer=c.roles[0] if len(c.roles) == 1 else None,
+            measure=measure,
+            geometry=geometry,
+        )
+    return Hit(
+        f"{where} ({label}): {'; '.join(clues)}.",
+        layer=c.roles[0] if len(c.roles) == 1 else None,
+        measure=measure,
+        geometry=geometry,
+        severity=Severity.WARNING,
+    )
+
+
+def _partial_hit(project: MapProject, ev: ColumnEvidence) -> Hit:
+    layer = project.sources[ev.role]
+    bad = ev.rows[ev.disagree]
+    n, m = len(bad), len(ev.rows)
+    offs = ev.offsets[ev.disagree]
+    median = f"median {distance_words(float(np.nanmedian(offs)))}" if np.isfinite(offs).any() else "the CRS cannot place them"
+    ids = tuple(str(i) for i in layer.ids[bad][:20])
+    shown = ", ".join(ids) + (f" and {n - len(ids)} more" if n > len(ids) else "")
+    text = (f"layers.{ev.role} ({layer.source}): the longitude/latitude columns ({ev.columns.lon}, {ev.columns.lat}) of {n} of {m} "
+            f"features disagree with their positions by more than {distance_words(ev.agree_m)} ({median}): {shown}")
+    severity = Severity.WARNING
+    if ev.fit is not None and ev.explained.any():
+        k = int(ev.explained.sum())
+        text += (f"; {'all' if k == n else f'{k}'} of them agree to within {_within(float(ev.fit_offsets.max()))} under "
+                 f"{_label(ev.fit.crs)}, {_HOW[ev.fit.how]}: that part of the layer was captured in that CRS; reproject those features "
+                 f"from {_short(ev.fit.crs)} to {_short(ev.crs)}")
+        severity = Severity.ERROR
+    elif ev.swapped_columns:
+        text += f"; {int(ev.explained.sum())} of them agree with longitude and latitude exchanged: those cells look swapped"
+    else:
+        text += _guessed(ev)
+    b = layer.frame.geometry.values[bad].total_bounds if n else None
+    same = project.crs is None or layer.crs is None or layer.crs.equals(project.crs, ignore_axis_order=True)
+    geometry = box(*b) if same and b is not None and np.isfinite(b).all() else None
+    return Hit(text + _left_out(ev) + ".", layer=ev.role, features=ids, measure=float(np.nanmedian(offs)) if np.isfinite(offs).any() else None,
+               geometry=geometry, severity=severity)
+
+
+@rule("crs-zone-evidence", family="crs", severity="error")
+def crs_zone_evidence(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
+    """The project's own evidence puts the coordinates in another zone, hemisphere or datum than the CRS label says.
+
+    Catches
+    -------
+    A map labelled throughout with a neighbouring UTM zone (EPSG:32632 on
+    coordinates captured in zone 33), the other hemisphere (326xx for 327xx),
+    or another datum's grid, wherever the project holds evidence independent
+    of the label:
+
+    - *longitude/latitude columns* beside a layer's coordinates (sample,
+      station or structure tables: headers such as `lon`, `long`,
+      `longitude`, `lng`, `x_wgs84`, `lat`, `latitude`, or the columns
+      named by `lon_field`/`lat_field`; read as WGS 84 unless `lonlat_crs`
+      says otherwise; decimal degrees or degrees-minutes-seconds). Each
+      reading is transformed into the layer's CRS with pyproj and compared
+      with the feature's position (geodesic metres on the WGS 84 ellipsoid).
+      When they disagree, the neighbouring zones (two either side), the
+      other hemisphere and the same zone on every other datum of the EPSG
+      dataset whose area of use holds the features are tried, and the one
+      under which they agree is named;
+    - a *declared geographic extent* (`[map] geographic_extent = [west,
+      south, east, north]`, degrees): the layers' extent in
+      longitude/latitude must fall inside it;
+    - *layers in another CRS* (one layer in EPSG:4326 or another zone): when
+      the layers line up only if one group of them is read in a neighbouring
+      zone or the other hemisphere, that reading is named (both readings,
+      when either lines them up).
+
+    One finding per group of layers that share a CRS and lie together,
+    giving the count of features and the median offset. Readings agree
+    within 20 m (common practice: handheld GNSS is good to 5-10 m, four
+    decimals of a degree to about 11 m), or 1 mm at the map scale (common
+    practice for plotting), or the rounding step of the columns, whichever is
+    more. When only some rows of a layer disagree, one finding lists them
+    (an error when they fit a neighbouring zone: a map straddling two zones;
+    a warning otherwise). A disagreement that no candidate explains is a
+    warning: the columns or the declared extent may be what is wrong. A group
+    explained here is not also reported by `crs-outside-area-of-use`.
+
+    Not caught: a map labelled consistently with the wrong zone and nothing
+    else to compare with is internally consistent and cannot be told apart
+    from a right one (unless its coordinates leave the zone's area of use:
+    `crs-outside-area-of-use`); a declared place *name* is not looked up (no
+    gazetteer is consulted); datum errors are found only from
+    longitude/latitude columns (a few hundred metres do not show against an
+    extent); rows suspected of swapped x and y are left to
+    `crs-axis-swap-suspected`; longitude/latitude kept only in the analyses
+    table, not in a layer, are not compared.
+
+    Why it matters
+    --------------
+    A wrong zone puts the map hundreds of kilometres away, the wrong
+    hemisphere thousands, yet the map looks right on its own: every layer
+    lines up with the others and the checks of the map itself pass. The
+    next user overlays it on other data and nothing fits.
+
+    Fix
+    ---
+    Assign the CRS the evidence names to the layers (set the CRS, do not
+    reproject: the numbers are right, the label is wrong) and set `map.crs`
+    to it. If the evidence itself is wrong (longitude/latitude columns that
+    hold something else, a declared extent copied from another project),
+    correct it or name the right columns with `lon_field`/`lat_field`.
+
+    Example
+    -------
+    Samples with `lon`/`lat` columns around 14.7°E 61.3°N, digitised in UTM
+    zone 33N, on a map whose layers and `map.crs` say EPSG:32632, give
+    "layers units, lines, samples are labelled EPSG:32632 (WGS 84 / UTM zone
+    32N) but the coordinates are in EPSG:32633 (WGS 84 / UTM zone 33N), a
+    neighbouring zone: the longitude/latitude columns of layers.samples (lon,
+    lat) agree with all 8 positions to within 0.1 m under EPSG:32633, and put
+    all 8 features a median 321.4 km away from their positions under
+    EPSG:32632. Assign EPSG:32633 to these layers and set map.crs to it
+    (assign the CRS, do not reproject: ...)".
+    """
+    evidence = ctx.zone_evidence()
+    for ce in evidence.clusters:
+        yield _cluster_hit(project, ctx, ce)
+    for ev in evidence.partial:
+        yield _partial_hit(project, ev)
 
 
 @rule("crs-axis-swap-suspected", family="crs", severity="error")

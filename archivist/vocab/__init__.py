@@ -16,6 +16,9 @@ and the audit cannot read the same thing two ways:
 * :mod:`.statements`: sentences a check and a package file both say;
 * :mod:`.structures`: kinds of structural measurement, orientation
   conventions, the north reference, overturned flags and rake.
+* :mod:`.coordinates`: longitude/latitude columns beside a layer's own
+  coordinates (header spellings, ``lon_field``/``lat_field``, decimal
+  degrees and degrees-minutes-seconds).
 
 No module here imports from ``archivist.rules`` or ``archivist.package``.
 """
