@@ -133,7 +133,7 @@ def manifest_text(inf: Inference, command_path: str) -> str:
     lines += [
         "# Check settings; the defaults follow from the scale.",
         "# [checks]",
-        "# " + _kv("tolerance", scale / 10000, f"in map units; the default is 0.1 mm at map scale ({scale / 10000:g} m at 1:{scale:,.0f})".replace(",", " ")),
+        "# " + _kv("tolerance", scale / 10000, f"in map units (metres for a map in degrees); the default is 0.1 mm at map scale ({scale / 10000:g} m at 1:{scale:,.0f})".replace(",", " ")),
         "# [checks.severity]" + " " * (COMMENT_COLUMN + 2 - 19) + "# per rule: \"error\", \"warning\", \"notice\" or \"off\"",
         "",
     ]
