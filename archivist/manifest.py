@@ -98,8 +98,11 @@ def load_schema(name: str) -> dict[str, Any]:
 
 
 def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
-    """Return (project folder, manifest path or None) for a folder or a manifest file.
+    """Return (project folder, manifest path or None) for a folder, a manifest file or one map file.
 
+    A vector file given alone (a GeoPackage, a shapefile, GeoJSON...) has no
+    manifest: its folder is returned with None, and :func:`map_file` tells
+    the loader to guess the roles of that file's layers only.
     Raises ArchivistError when the path does not exist.
     """
     p = Path(path)
@@ -110,7 +113,17 @@ def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
         return p, (m if m.is_file() else None)
     if p.suffix.lower() == ".toml":
         return p.parent, p
-    raise ArchivistError(f"{p}: expected a project folder or its {MANIFEST_NAME}")
+    if map_file(p) is not None:
+        return p.parent, None
+    raise ArchivistError(f"{p}: expected a project folder, its {MANIFEST_NAME} or a map file (GeoPackage, shapefile, GeoJSON...)")
+
+
+def map_file(path: str | Path) -> Path | None:
+    """``path`` when it is one vector file to check without a manifest, else None."""
+    from .readers import VECTOR_SUFFIXES
+
+    p = Path(path)
+    return p if p.is_file() and p.suffix.lower() in VECTOR_SUFFIXES else None
 
 
 def read_manifest(path: Path) -> dict[str, Any]:

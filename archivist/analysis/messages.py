@@ -26,6 +26,16 @@ def num(value: float) -> str:
     return f"{v:.3g}"
 
 
+def plural(n: int, word: str, many: str | None = None) -> str:
+    """``1 notice``, ``2 notices``, ``0 notices``; ``many`` for an irregular plural (``analysis``/``analyses``)."""
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def verb(n: int, one: str, many: str) -> str:
+    """The verb agreeing with a count: ``verb(1, "has", "have")`` is ``has``."""
+    return one if n == 1 else many
+
+
 def join_words(words: Iterable[str]) -> str:
     """``a``, ``a and b``, ``a, b and c``."""
     words = list(words)
