@@ -205,19 +205,31 @@ def offset(crs: Any, x0: float, y0: float, x1: float, y1: float, factor: float =
     return math.hypot(dx, dy) * factor, compass(grid_azimuth(dx, dy))
 
 
-def feature_name(noun: str, number: object, own: object = None, *details: str) -> str:
+def feature_name(noun: str, number: object, own: object = None, *details: str, number_word: str = "feature") -> str:
     """How a message names one feature: the mapper's own id first, the feature number second.
 
     ``feature_name("sample", 12, "KV-023")`` is ``sample KV-023 (feature 12)``;
     ``feature_name("polygon", 1, None, "Lst")`` is ``polygon 1 (Lst)``;
     ``feature_name("polygon", 1, "P-7", "Lst")`` is ``polygon P-7 (feature 1, Lst)``.
     Without an own id (or when it is the feature number), the number names it.
+    ``number_word`` is ``row`` for a table's row number (``sample KV-023 (row 14)``).
     """
     own_text = "" if own is None else str(own).strip()
-    inside = [f"feature {number}"] if own_text and own_text != str(number) else []
+    inside = [f"{number_word} {number}"] if own_text and own_text != str(number) else []
     inside += [d for d in details if d]
     name = own_text or str(number)
     return f"{noun} {name}" + (f" ({', '.join(inside)})" if inside else "")
+
+
+def layer_feature(layer: Any, i: int, noun: str, *details: str) -> str:
+    """:func:`feature_name` of row ``i`` of a loaded layer: its ``id_field`` value first when the manifest names one.
+
+    The number is the file's feature id, or the row number of a coordinate table.
+    """
+    index = layer.frame.index
+    own = layer.ids[i] if layer.field("id_field") is not None else None
+    word = "row" if index.name == "row" else "feature"
+    return feature_name(noun, index[i], own, *details, number_word=word)
 
 
 def capital(text: str) -> str:
