@@ -160,7 +160,7 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
     return Report(
         tool="archivist",
         version=__version__,
-        project=str(project.manifest_path or project.root),
+        project=str(project.manifest_path or project.map_file or project.root),
         crs=crs_label(project.crs),
         findings=tuple(findings),
         notes=tuple(project.notes + notes + chart),

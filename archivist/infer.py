@@ -560,6 +560,6 @@ def _infer(path: Path) -> Inference:
 
 
 def infer_manifest(root: Path) -> tuple[dict[str, Any], list[str]]:
-    """A manifest guessed from the folder's data, and notes on what was guessed."""
+    """A manifest guessed from the folder's data (or from the one map file ``root``), and notes on what was guessed."""
     inf = infer(Path(root))
     return inf.manifest, inf.notes

@@ -8,7 +8,9 @@ path, and loading carries on with what is usable.
 from __future__ import annotations
 
 import copy
+import difflib
 import json
+import re
 import tomllib
 from dataclasses import dataclass
 from functools import lru_cache
@@ -100,6 +102,38 @@ TABLE_DEFAULTS: dict[str, dict[str, str]] = {
 }
 
 
+# A publication scale as mappers write it: 25000, "1:25000", "1:25 000", "1/25,000".
+# Digits may be grouped in threes by a space (also no-break or narrow no-break),
+# a comma, a dot or an apostrophe; the schema holds the same pattern.
+SCALE_PATTERN = re.compile(r"^\s*(?:1\s*[:/]\s*)?([1-9][0-9]{0,2}(?:[ \u00a0\u202f,.'][0-9]{3})+|0*[1-9][0-9]*)\s*$")
+
+
+def parse_scale(value: Any) -> float | None:
+    """The scale denominator of ``value`` (a number or a text such as ``"1:10 000"``), or None if it is not one.
+
+    >>> parse_scale("1:10 000"), parse_scale("1/10000"), parse_scale(25000)
+    (10000.0, 10000.0, 25000.0)
+    """
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, (int, float)):
+        return float(value) if value > 0 else None
+    if isinstance(value, str):
+        m = SCALE_PATTERN.match(value)
+        if m:
+            n = float(re.sub(r"\D", "", m.group(1)))
+            return n if n > 0 else None
+    return None
+
+
+def did_you_mean(key: str, known: Any) -> str:
+    """`` (did you mean 'licence'?)`` for a near miss among ``known`` keys, else an empty string."""
+    close = difflib.get_close_matches(str(key), sorted(map(str, known)), n=1, cutoff=0.75)
+    if not close:
+        close = [k for k in sorted(map(str, known)) if k.casefold() == str(key).casefold()][:1]
+    return f"; did you mean '{close[0]}'?" if close else ""
+
+
 def schema_dir() -> Path:
     """The folder of JSON Schemas: inside the installed package, else the source tree's ``schemas/``."""
     packaged = resources.files("archivist").joinpath("schemas")
@@ -115,8 +149,11 @@ def load_schema(name: str) -> dict[str, Any]:
 
 
 def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
-    """Return (project folder, manifest path or None) for a folder or a manifest file.
+    """Return (project folder, manifest path or None) for a folder, a manifest file or one map file.
 
+    A vector file given alone (a GeoPackage, a shapefile, GeoJSON...) has no
+    manifest: its folder is returned with None, and :func:`map_file` tells
+    the loader to guess the roles of that file's layers only.
     Raises ArchivistError when the path does not exist.
     """
     p = Path(path)
@@ -127,7 +164,17 @@ def find_manifest(path: str | Path) -> tuple[Path, Path | None]:
         return p, (m if m.is_file() else None)
     if p.suffix.lower() == ".toml":
         return p.parent, p
-    raise ArchivistError(f"{p}: expected a project folder or its {MANIFEST_NAME}")
+    if map_file(p) is not None:
+        return p.parent, None
+    raise ArchivistError(f"{p}: expected a project folder, its {MANIFEST_NAME} or a map file (GeoPackage, shapefile, GeoJSON...)")
+
+
+def map_file(path: str | Path) -> Path | None:
+    """``path`` when it is one vector file to check without a manifest, else None."""
+    from .readers import VECTOR_SUFFIXES
+
+    p = Path(path)
+    return p if p.is_file() and p.suffix.lower() in VECTOR_SUFFIXES else None
 
 
 def read_manifest(path: Path) -> dict[str, Any]:
@@ -163,16 +210,22 @@ def validate_manifest(data: dict[str, Any], source: str) -> list[Hit]:
     for err in sorted(validator.iter_errors(data), key=lambda e: (list(map(str, e.absolute_path)), e.message)):
         where = key_path(err.absolute_path)
         if err.validator == "additionalProperties":
-            extra = sorted(set(err.instance) - set(err.schema.get("properties", {})))
+            known = err.schema.get("properties", {})
+            extra = sorted(set(err.instance) - set(known))
             for key in extra:
                 full = f"{where}.{key}" if where else key
-                hits.append(Hit(f"{source}: unknown key '{full}'.", layer=source, rule="manifest-invalid"))
+                hint = did_you_mean(key, known)
+                hits.append(Hit(f"{source}: unknown key '{full}'{hint or '.'}", layer=source, rule="manifest-invalid"))
             continue
         if err.validator == "required":
             missing = [k for k in err.validator_value if k not in err.instance]
             for key in missing:
                 full = f"{where}.{key}" if where else key
                 hits.append(Hit(f"{source}: required key '{full}' is missing.", layer=source, rule="manifest-invalid"))
+            continue
+        if where == "map.scale":
+            hits.append(Hit(f"{source}: key 'map.scale': {err.instance!r} is not a scale; write the denominator "
+                            "(25000) or a ratio (\"1:25000\", \"1:25 000\").", layer=source, rule="manifest-invalid"))
             continue
         hits.append(Hit(f"{source}: key '{where or '(top)'}': {err.message}.", layer=source, rule="manifest-invalid"))
     return hits + _meaning(data, source)
@@ -253,5 +306,8 @@ def with_defaults(data: dict[str, Any]) -> dict[str, Any]:
             tables[role] = {**TABLE_DEFAULTS.get(role, {}), **spec}
     out["tables"] = tables
     out.setdefault("map", {})
+    if isinstance(out["map"], dict) and isinstance(out["map"].get("scale"), str):
+        scale = parse_scale(out["map"]["scale"])
+        out["map"] = {**out["map"], "scale": scale} if scale is not None else {k: v for k, v in out["map"].items() if k != "scale"}
     out.setdefault("checks", {})
     return out

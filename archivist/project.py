@@ -175,6 +175,7 @@ class MapProject:
     problems: list[Hit] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     files: list[Path] = field(default_factory=list)
+    map_file: Path | None = None  # the one vector file checked without a manifest, if that is what was given
     archive: Any = None  # set by ``archivist audit``: what it found about the archive (rules of family ``archive`` read it)
     local: Any = None  # the LocalFrame of the engine's working copy of a map in longitude/latitude (analysis/localframe.py)
 
@@ -724,11 +725,13 @@ def load_project(path: str | Path, *, progress: Progress | None = None, manifest
     ['extent', 'lines', 'samples', 'structures', 'units']
     """
     root, manifest_path = mf.find_manifest(path)
+    alone = mf.map_file(path) if manifest is None else None
     with vectorio.reading():  # private copies of changing SQLite inputs live until the load ends
-        return _load(root, manifest_path, progress or Progress(), manifest)
+        return _load(root, manifest_path, progress or Progress(), manifest, alone)
 
 
-def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dict[str, Any] | None) -> MapProject:
+def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dict[str, Any] | None,
+          alone: Path | None = None) -> MapProject:
     problems: list[Hit] = []
     notes: list[str] = []
     if given is not None:  # read, screened and validated by the caller (an audited archive's manifest)
@@ -739,8 +742,12 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
     else:
         from .infer import infer_manifest
 
-        raw, infer_notes = infer_manifest(root)
-        notes.append(f"No {mf.MANIFEST_NAME} in {root}: the roles of its files were inferred from the data; confirm them with 'archivist init'.")
+        raw, infer_notes = infer_manifest(alone or root)
+        if alone is not None:
+            notes.append(f"{alone} checked without a manifest: the roles of its layers were guessed from the data; "
+                         f"'archivist init {alone}' writes them into an {mf.MANIFEST_NAME} to confirm.")
+        else:
+            notes.append(f"No {mf.MANIFEST_NAME} in {root}: the roles of its files were inferred from the data; confirm them with 'archivist init'.")
         notes.extend(infer_notes)
         if "units" not in (raw.get("layers") or {}):
             problems.append(
@@ -790,4 +797,5 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
         problems=problems,
         notes=notes,
         files=files,
+        map_file=alone,
     )

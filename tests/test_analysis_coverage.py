@@ -80,13 +80,13 @@ def test_geos_stopping_on_one_pair_is_a_finding_on_that_pair(tmp_path, monkeypat
     overlaps = by_rule(report, "unit-overlap")
     assert [f.features for f in overlaps] == [("1", "2"), ("3", "4")]
     kept, lost = overlaps
-    assert kept.message == "Units 1 (A) and 2 (B) overlap by 1.00 m² (up to 0.10 m wide)."
+    assert kept.message == "Polygons 1 (A) and 2 (B) overlap by 1.00 m² (up to 0.10 m wide)."
     assert lost.severity is Severity.ERROR
-    assert lost.message.startswith("Overlaps among units 3 (C) and 4 (D) could not be checked: GEOS stopped with "
+    assert lost.message.startswith("Overlaps among polygons 3 (C) and 4 (D) could not be checked: GEOS stopped with "
                                    "\"TopologyException: side location conflict at 25 5\" while intersecting them.")
     assert lost.wkt is not None and shapely.from_wkt(lost.wkt).equals(box(20, 0, 30, 10))
     misfits = by_rule(report, "unit-edge-mismatch")
-    assert [f.features for f in misfits] == [("3", "4")] and misfits[0].message.startswith("Misfitting edges among units 3 (C) and 4 (D)")
+    assert [f.features for f in misfits] == [("3", "4")] and misfits[0].message.startswith("Misfitting edges among polygons 3 (C) and 4 (D) could not be checked")
     assert by_rule(report, "unit-gap") == []
 
 

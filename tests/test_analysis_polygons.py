@@ -35,5 +35,8 @@ def test_polygonal_keeps_area_and_drops_the_rest():
 def test_units_read_with_ids_and_codes(tmp_path):
     units = read_units(load_project(square_map(tmp_path, "codes", codes=["A", " B "])))
     assert units.ids.tolist() == ["1", "2"] and units.codes.tolist() == ["A", "B"]
-    assert units.labels([0, 1]) == "1 (A) and 2 (B)"
+    assert units.labels([0, 1]) == "polygons 1 (A) and 2 (B)"
+    assert units.label(1) == "polygon 2 (B)" and units.labels([1]) == "polygon 2 (B)"
+    assert units.labels([0, 1], code=False) == "polygons 1 and 2"
+    assert units.numbers is None  # no id_field: the feature number is the name
     assert units.tree.query(Point(7, 5), predicate="within").tolist() == [1]

@@ -470,3 +470,118 @@ def test_a_stopped_check_leaves_no_partial_output_and_says_so_in_one_line(tmp_pa
     (line,) = stderr.strip().splitlines()
     assert line.startswith("archivist: ") and "not written" in line
     assert list(out.iterdir()) == []  # neither the report nor its temporary sibling
+
+
+# ---------------------------------------------------------------- help that reads whole
+
+def test_every_command_summary_is_shown_whole_in_the_command_list():
+    """click cuts a short help that is too long for the list (``...``): every summary is a whole sentence that fits."""
+    listing = run("--help").output
+    for name, command in cli.commands.items():
+        summary = command.get_short_help_str(limit=1000)
+        assert summary.endswith(".") and "..." not in summary, (name, summary)
+        assert re.search(rf"^  {name}\s+{re.escape(summary)}$", listing, re.M), (name, summary)
+
+
+@pytest.mark.parametrize("command", COMMANDS)
+def test_every_command_help_shows_its_first_sentence_whole(command):
+    out = run(command, "--help").output
+    first = " ".join(cli.commands[command].help.split("\n\n")[0].split())
+    assert first in " ".join(out.split()), (command, first)
+
+
+@pytest.mark.parametrize("command, families", [
+    ("check", "metadata, topology, linework, crs, legend, samples, structures."),
+    ("audit", "metadata, topology, linework, crs, legend, samples, structures, archive."),
+])
+def test_only_help_names_the_families(command, families):
+    from archivist.registry import FAMILIES
+
+    out = " ".join(run(command, "--help").output.split())
+    assert f"--only FAMILY Run only this rule family (repeatable): {families}" in out
+    assert all(f in families for f in FAMILIES if f != "archive")
+
+
+# ---------------------------------------------------------------- a summary that fits a terminal
+
+def misfit_grid(tmp_path, n=12):
+    """An n x n grid of 10 m squares, A and B alternating; every other column's east edge drawn 0.3 m too far.
+
+    Each misdrawn edge overlaps its neighbour by a strip 0.3 m wide, under the 1 m tolerance of 1:10 000:
+    hundreds of findings, most of them of two rules on one layer.
+    """
+    import geopandas as gpd
+    from shapely.geometry import LineString, box
+
+    cells, codes = [], []
+    for i in range(n):
+        for j in range(n):
+            x0, y0 = i * 10.0, j * 10.0
+            cells.append(box(x0, y0, x0 + 10.3 if (i % 2 == 0 and i < n - 1) else x0 + 10, y0 + 10))
+            codes.append("A" if (i + j) % 2 else "B")
+    units = gpd.GeoDataFrame({"unit": codes}, geometry=cells, crs="EPSG:32633")
+    lines = gpd.GeoDataFrame({"kind": ["map-boundary"], "certainty": ["certain"]},
+                             geometry=[LineString(box(0, 0, n * 10.0, n * 10.0).exterior.coords)], crs="EPSG:32633")
+    return tiny_project(tmp_path, units=units, lines=lines)
+
+
+def test_summary_fits_a_terminal_and_details_list_everything(tmp_path, monkeypatch):
+    monkeypatch.setenv("NO_COLOR", "1")
+    root = misfit_grid(tmp_path)
+    findings = json.loads(run("check", root, "--format", "json").output)["findings"]
+    assert len(findings) > 100
+    short = run("check", root)
+    assert short.exit_code == 1
+    lines = short.output.splitlines()
+    assert len(lines) <= 25, short.output
+    assert short.output.rstrip().endswith("under local rules.")
+    assert f"Every finding: --details (text) or --format json ({len(findings)} findings)." in lines
+    # one line per rule and layer, with the number of places and the largest of them
+    mismatches = [f for f in findings if f["rule"] == "unit-edge-mismatch"]
+    largest = max(mismatches, key=lambda f: f["measure"])
+    line = (f"  error   unit-edge-mismatch on units: {len(mismatches)} places, "
+            f"largest {largest['measure']:.2f} m at {largest['x']:.1f}, {largest['y']:.1f}")
+    assert line in lines, short.output
+    full = run("check", root, "--details").output
+    assert full.startswith(short.output.rsplit("Every finding:", 1)[0])  # the same summary first
+    for f in findings:
+        assert f["message"] in full
+    assert full.rstrip().endswith("under local rules.")
+
+
+def test_counts_are_in_the_singular_for_one(tmp_path, monkeypatch):
+    monkeypatch.setenv("NO_COLOR", "1")
+    root = tiny_project(tmp_path, manifest={"map": {"licence": "CC-BY"}})
+    out = run("check", root, "--only", "metadata").output
+    assert "1 error, 0 warnings, 0 notices from " in out
+    assert re.search(r"^  error   licence-unknown: ", out, re.M)
+
+
+# ---------------------------------------------------------------- one map file, no manifest
+
+def test_check_one_geopackage_guesses_roles_and_writes_nothing(tmp_path):
+    """``check map.gpkg`` reads that file as ``init map.gpkg`` does: the same findings as its folder without a manifest."""
+    root = tiny_project(tmp_path)
+    (root / "archivist.toml").unlink()
+    (root / "legend.csv").unlink()
+    before = tree_digest(root)
+    alone = run("check", root / "map.gpkg", "--format", "json")
+    assert alone.exit_code in (0, 1), alone.output
+    data = json.loads(alone.output)
+    jsonschema.validate(data, load_schema("report.schema.json"))
+    assert data["project"] == str(root / "map.gpkg")
+    assert data["notes"][0] == (f"{root / 'map.gpkg'} checked without a manifest: the roles of its layers were guessed "
+                                f"from the data; 'archivist init {root / 'map.gpkg'}' writes them into an archivist.toml to confirm.")
+    folder = json.loads(run("check", root, "--format", "json").output)
+    assert data["findings"] == folder["findings"] and data["rules_run"] == folder["rules_run"]
+    assert tree_digest(root) == before
+    text = run("check", root / "map.gpkg").output
+    assert text.startswith(f"Note: {root / 'map.gpkg'} checked without a manifest")
+
+
+def test_check_a_file_that_is_not_a_map_is_one_line_exit_2(tmp_path):
+    (tmp_path / "notes.txt").write_text("field notes\n", encoding="utf-8")
+    result = CliRunner().invoke(cli, ["check", str(tmp_path / "notes.txt")])
+    assert result.exit_code == 2
+    (line,) = result.stderr.strip().splitlines()
+    assert line.endswith("notes.txt: expected a project folder, its archivist.toml or a map file (GeoPackage, shapefile, GeoJSON...)")

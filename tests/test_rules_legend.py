@@ -300,7 +300,7 @@ def test_legend_written_as_mappers_write_it_gives_no_age_finding(tmp_path):
 def test_order_errors_among_informal_parts_are_found(tmp_path, above, below):
     root = tiny_project(tmp_path, legend=_ages_legend([(above, "", ""), (below, "", "")]))
     (f,) = found(root, "legend-age-order")
-    assert f.features == ("A", "B") and "listed above younger unit(s) B" in f.message
+    assert f.features == ("A", "B") and "listed above younger unit B (order 2, " in f.message
 
 
 def test_informal_parts_in_their_order_pass(tmp_path):

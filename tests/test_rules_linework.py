@@ -115,18 +115,21 @@ def test_overshoot_is_a_dangle_of_known_length(tmp_path):
     (f,) = found(root, "line-dangle")
     assert f.features == ("1",) and f.measure == 0.5  # 10.5 - 10
     assert (f.x, f.y) == (5.0, 10.5)  # the free end
-    assert "past the line it crosses (line 2)" in f.message
+    assert f.message == "Contact 1 ends free 0.50 m past the line it crosses (map-boundary line 2); trim it back to that line."
     assert shapely.equals(shapely.from_wkt(f.wkt), LineString([(5, 10), (5, 10.5)]))  # the piece to trim
     # the part beyond the 0.1 m tolerance of the unit boundaries: from y = 10.1 to 10.5
     (g,) = found(root, "line-off-boundary")
-    assert g.measure == 0.4 and "outside every unit polygon" in g.message
+    assert g.measure == 0.4
+    assert g.message == "Contact 1 runs 0.40 m outside every unit polygon, up to 0.50 m north of the nearest, polygon 1 (A)."
 
 
 def test_undershoot_is_a_dangle_of_known_gap(tmp_path):
     # the contact stops 0.3 m short of the north frame line
     root = square_map(tmp_path, line_rows=[("contact", LineString([(5, 0), (5, 9.7)])), ("map-boundary", FRAME)])
     (f,) = found(root, "line-dangle")
-    assert f.measure == 0.3 and "0.30 m short of the nearest line (line 2)" in f.message
+    assert f.measure == 0.3
+    assert f.message == ("Contact 1 ends free, 0.30 m short of the nearest line (map-boundary line 2); "
+                         "extend it 0.30 m north to meet it.")
     assert (f.x, f.y) == (5.0, 9.7)
     # the boundary left undrawn: y from 9.8 to 9.9, beyond 0.1 m of both lines, is 0.1 m: not more than the tolerance
     assert found(root, "boundary-without-line") == []
@@ -153,7 +156,10 @@ def test_contact_off_the_boundary_by_half_a_metre(tmp_path):
     (f,) = found(contact_off(tmp_path), "line-off-boundary")
     # the whole 10 m line is 0.5 m from the edge x = 5, but within 0.1 m of the frame at both ends
     assert f.measure == pytest.approx(9.8)
-    assert "inside unit 2 (B)" in f.message and f.features == ("1",)
+    assert f.features == ("1",)
+    # the contact at x = 5.5 lies 0.5 m east of the edge x = 5 between A (west) and B (east)
+    assert f.message == ("Contact 1 runs 9.80 m off the unit boundaries, up to 0.50 m east of the boundary between B and A, "
+                         "inside polygon 2 (B).")
     (g,) = found(contact_off(tmp_path / "again"), "boundary-without-line")
     assert g.measure == pytest.approx(9.8) and g.features == ("1", "2")
 
@@ -168,19 +174,21 @@ def test_map_boundary_line_held_to_the_outer_edge(tmp_path):
     # a map-boundary line drawn along the contact instead of the frame
     root = square_map(tmp_path, line_rows=[("contact", CONTACT), ("map-boundary", FRAME), ("map-boundary", LineString([(5, 2), (5, 8)]))])
     (f,) = found(root, "line-off-boundary")
-    assert f.features == ("3",) and f.measure == 6.0 and "outer edge" in f.message
+    assert f.features == ("3",) and f.measure == 6.0
+    # its middle (5, 5) is 5 m from all four sides of the 10 m square: the size is sure, the direction any of four
+    assert f.message.startswith("Map-boundary line 3 runs 6.00 m off the map's outer edge, up to 5.00 m ")
 
 
 def test_fault_leaving_the_map_is_reported_inside_a_unit_is_not(tmp_path):
     rows = [("contact", CONTACT), ("map-boundary", FRAME), ("fault", LineString([(2, 5), (2, 12)]))]
     (f,) = found(square_map(tmp_path, line_rows=rows), "line-off-boundary")
     assert f.features == ("3",) and f.measure == pytest.approx(1.9)  # y from 10.1 to 12
-    assert "outside every unit polygon" in f.message
+    assert f.message == "Fault 3 runs 1.90 m outside every unit polygon, up to 2.00 m north of the nearest, polygon 1 (A)."
 
 
 def test_same_unit_contact_length(tmp_path):
     (f,) = found(contact_same_unit(tmp_path), "line-same-unit-contact")
-    assert f.measure == 10.0 and "unit A on both sides" in f.message and "units 1 and 2" in f.message
+    assert f.measure == 10.0 and f.message == "Contact 1 has unit A on both sides over 10.00 m (polygons 1 and 2)."
 
 
 def test_same_unit_contact_not_on_the_exact_edge(tmp_path):

@@ -2,6 +2,8 @@
 
 import datetime as dt
 
+import math
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -225,12 +227,14 @@ def test_outside_extent_with_distance(tmp_path):
     p = _samples(root).geometry.iloc[0]
     assert f.measure == pytest.approx(extent.distance(p), abs=1e-3) and f.measure == pytest.approx(500, abs=1e-3)
     assert (f.x, f.y) == (round(p.x, 3), round(p.y, 3))
+    samples = _samples(root)
+    assert f.message == f"sample {samples.sample_id.iloc[0]} (feature {samples.index[0]}) lies 500.0 m north of the map extent."
 
 
 def test_unit_mismatch_is_an_error_away_from_contacts(tmp_path):
     root = wrong_unit(tmp_path)
     (f,) = found(root, "sample-unit-mismatch")
-    assert f.severity.value == "error" and "recorded as KES but lies in a DUN polygon" in f.message
+    assert f.severity.value == "error"
     original = _samples(clean(tmp_path / "clean"))
     i = int(np.flatnonzero(original.unit.to_numpy() == "DUN")[0])  # the sample wrong_unit relabels
     assert f.features[0] == original.sample_id.iloc[i]
@@ -238,9 +242,22 @@ def test_unit_mismatch_is_an_error_away_from_contacts(tmp_path):
     p = original.geometry.iloc[i]
     # Reference distances from GEOS through shapely: to the nearest KES polygon and to the DUN polygon's edge.
     kes = units[units.unit == "KES"].geometry
-    assert f"nearest KES polygon is {kes.distance(p).min():.1f} m away" in f.message
-    dun = units[units.geometry.contains(p)].geometry.iloc[0]
+    near_fid = kes.distance(p).idxmin()
+    dun_fid = units.index[units.geometry.contains(p)][0]
+    dun = units.geometry.loc[dun_fid]
     assert f.measure == pytest.approx(dun.boundary.distance(p), abs=1e-3)
+    # the direction of the nearest KES polygon seen from the sample, to the nearest of eight 45° sectors
+    from shapely.ops import nearest_points
+
+    q = nearest_points(p, kes.loc[near_fid])[1]
+    sector = round(math.degrees(math.atan2(q.x - p.x, q.y - p.y)) % 360 / 45) % 8
+    towards = ["north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west"][sector]
+    sample_fid = _samples(root).index[i]
+    assert f.message == (
+        f"sample {f.features[0]} (feature {sample_fid}) is recorded as KES but lies in polygon {dun_fid} (DUN), "
+        f"{dun.boundary.distance(p):.1f} m inside its edge; the nearest KES polygon, polygon {near_fid}, is "
+        f"{kes.distance(p).min():.1f} m {towards}."
+    )
 
 
 @pytest.mark.parametrize(
@@ -615,7 +632,7 @@ def test_nd_is_read_as_the_manifest_says_and_the_report_says_which(tmp_path, set
     root = tiny_with_analyses(tmp_path, header=NO_TOTAL, rows=rows, manifest=manifest)
     report = archivist.check(root, only=["samples"])
     (note,) = [n for n in report.notes if "'n.d.'" in n]
-    assert f"1 'n.d.' cell(s) read as {meaning}" in note
+    assert f"1 'n.d.' cell read as {meaning}" in note
     assert ("by default" in note) is (setting is None)
     assert [f for f in report.findings if f.rule == "analysis-value-unreadable"] == []
 

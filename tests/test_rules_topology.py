@@ -774,3 +774,21 @@ def test_edge_misfit_at_60n_is_measured_on_the_ground(tmp_path):
     along = WGS84.inv(10.01, 60.0, 10.01, 60.01)[2]  # reference: Geod.inv, WGS 84 (a meridian arc)
     assert mm.measure == pytest.approx(along, rel=0.01)
     assert metres_in(mm.message, " apart") == pytest.approx(geodesic_across(10.01, 10.01001, 60.005), rel=0.01)  # Geod.inv
+
+
+def test_polygons_are_named_by_the_mappers_id_then_the_feature_number(tmp_path):
+    """With `id_field` on the units layer, messages name a polygon by that id, then its feature number and code."""
+    import archivist
+    from builders import tiny_project
+    from shapely.geometry import box
+
+    units = gpd.GeoDataFrame({"unit": ["A", "B"], "poly_id": ["P-10", "P-20"]},
+                             geometry=[box(0, 0, 102, 100), box(100, 0, 200, 100)], crs="EPSG:32633")
+    root = tiny_project(tmp_path, units=units, manifest={"layers": {"units": {"id_field": "poly_id"}}})
+    (f,) = [f for f in archivist.check(root, rules=["unit-overlap"]).findings]
+    # the 2 m x 100 m strip both squares cover (GEOS intersection: 200 m², 2 m wide)
+    assert f.message == "Polygons P-10 (feature 1, A) and P-20 (feature 2, B) overlap by 200.00 m² (up to 2.00 m wide)."
+    assert f.features == ("P-10", "P-20")
+    plain = tiny_project(tmp_path, units=units.drop(columns="poly_id"), name="plain")
+    (g,) = [f for f in archivist.check(plain, rules=["unit-overlap"]).findings]
+    assert g.message == "Polygons 1 (A) and 2 (B) overlap by 200.00 m² (up to 2.00 m wide)."

@@ -38,6 +38,7 @@ from .arrays import (
     text_values,
 )
 from .halfedges import Edges
+from .messages import feature_name
 
 if TYPE_CHECKING:
     from ..project import Layer, MapProject
@@ -112,6 +113,7 @@ class LineNetwork:
     py: np.ndarray
     qx: np.ndarray
     qy: np.ndarray
+    numbers: np.ndarray | None = None  # feature numbers as text, when ``ids`` are the mapper's own (id_field)
 
     @property
     def n_parts(self) -> int:
@@ -146,7 +148,11 @@ class LineNetwork:
         return self.geoms[self.roles == role]
 
     def label(self, f: int) -> str:
-        return f"{ROLE_NAMES.get(self.roles[f], 'Line')} {self.ids[f]}"
+        """``Contact 3``; with the mapper's own ids ``Contact C-12 (feature 3)``."""
+        noun = ROLE_NAMES.get(self.roles[f], "Line")
+        if self.numbers is None:
+            return feature_name(noun, self.ids[f])
+        return feature_name(noun, self.numbers[f], self.ids[f])
 
     def kind(self, f: int) -> tuple[str, str | None] | None:
         """(kind, qualifier) of feature f, or None."""
@@ -242,4 +248,8 @@ def build_line_network(project: MapProject) -> LineNetwork:
     c0, seg_part = c0[nonzero], seg_part[nonzero]
     px, py, qx, qy, _ = canonical(x[c0], y[c0], x[c0 + 1], y[c0 + 1])
     h = coord_hash(px, py, qx, qy)
-    return LineNetwork(rows, geoms, ids, code, texts, parsed, roles, coords, part_off, part_feat, c0, seg_part, h, px, py, qx, qy)
+    numbers = None
+    if layer.field("id_field") is not None:  # ids are the mapper's own: the feature number is named second
+        numbers = np.asarray(layer.frame.index.astype(str), dtype=object)[rows]
+    return LineNetwork(rows, geoms, ids, code, texts, parsed, roles, coords, part_off, part_feat, c0, seg_part, h, px, py, qx, qy,
+                       numbers)

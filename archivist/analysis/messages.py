@@ -26,6 +26,16 @@ def num(value: float) -> str:
     return f"{v:.3g}"
 
 
+def plural(n: int, word: str, many: str | None = None) -> str:
+    """``1 notice``, ``2 notices``, ``0 notices``; ``many`` for an irregular plural (``analysis``/``analyses``)."""
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
+def verb(n: int, one: str, many: str) -> str:
+    """The verb agreeing with a count: ``verb(1, "has", "have")`` is ``has``."""
+    return one if n == 1 else many
+
+
 def join_words(words: Iterable[str]) -> str:
     """``a``, ``a and b``, ``a, b and c``."""
     words = list(words)
@@ -148,3 +158,81 @@ def box_words(b: Sequence[float] | np.ndarray) -> str:
 def distance_words(metres: float) -> str:
     """A ground distance in km from 1 km up, else in m."""
     return f"{metres / 1000:.1f} km" if metres >= 1000 else f"{metres:.0f} m"
+
+
+# ---------------------------------------------------------------- names and directions in messages
+# Kept apart from the ground measures above: these only word what a rule found.
+
+COMPASS = ("north", "north-east", "east", "south-east", "south", "south-west", "west", "north-west")
+
+
+def compass(azimuth: float) -> str:
+    """The nearest of the eight compass points to ``azimuth`` (degrees clockwise from north).
+
+    Each point covers 45°, centred on it: 22.5° is already north-east.
+    """
+    a = float(azimuth) % 360.0
+    return COMPASS[int((a + 22.5) // 45.0) % 8]
+
+
+def grid_azimuth(dx: float, dy: float) -> float:
+    """Azimuth in degrees clockwise from grid north (+y) of the displacement (``dx`` east, ``dy`` north)."""
+    import math
+
+    return math.degrees(math.atan2(dx, dy)) % 360.0
+
+
+def offset(crs: Any, x0: float, y0: float, x1: float, y1: float, factor: float = 1.0) -> tuple[float, str]:
+    """Ground distance (m) and compass direction of (x1, y1) seen from (x0, y0).
+
+    In a geographic CRS both come from the geodesic between the two points
+    on the CRS's own ellipsoid (pyproj ``Geod.inv``): true north. In a
+    projected CRS the distance is the map distance times ``factor`` (metres
+    per map unit) and the direction is from grid north, which departs from
+    true north by the meridian convergence (under 3° within a UTM zone
+    below 60° latitude; from memory), much less than the 22.5° either side
+    of a compass point.
+    """
+    import math
+
+    if crs is not None and getattr(crs, "is_geographic", False):
+        import pyproj
+
+        ellipsoid = crs.ellipsoid
+        geod = pyproj.Geod(a=ellipsoid.semi_major_metre, b=ellipsoid.semi_minor_metre) if ellipsoid else pyproj.Geod(ellps="WGS84")
+        az, _, dist = geod.inv(x0, y0, x1, y1)
+        return float(dist), compass(az)
+    dx, dy = x1 - x0, y1 - y0
+    return math.hypot(dx, dy) * factor, compass(grid_azimuth(dx, dy))
+
+
+def feature_name(noun: str, number: object, own: object = None, *details: str, number_word: str = "feature") -> str:
+    """How a message names one feature: the mapper's own id first, the feature number second.
+
+    ``feature_name("sample", 12, "KV-023")`` is ``sample KV-023 (feature 12)``;
+    ``feature_name("polygon", 1, None, "Lst")`` is ``polygon 1 (Lst)``;
+    ``feature_name("polygon", 1, "P-7", "Lst")`` is ``polygon P-7 (feature 1, Lst)``.
+    Without an own id (or when it is the feature number), the number names it.
+    ``number_word`` is ``row`` for a table's row number (``sample KV-023 (row 14)``).
+    """
+    own_text = "" if own is None else str(own).strip()
+    inside = [f"{number_word} {number}"] if own_text and own_text != str(number) else []
+    inside += [d for d in details if d]
+    name = own_text or str(number)
+    return f"{noun} {name}" + (f" ({', '.join(inside)})" if inside else "")
+
+
+def layer_feature(layer: Any, i: int, noun: str, *details: str) -> str:
+    """:func:`feature_name` of row ``i`` of a loaded layer: its ``id_field`` value first when the manifest names one.
+
+    The number is the file's feature id, or the row number of a coordinate table.
+    """
+    index = layer.frame.index
+    own = layer.ids[i] if layer.field("id_field") is not None else None
+    word = "row" if index.name == "row" else "feature"
+    return feature_name(noun, index[i], own, *details, number_word=word)
+
+
+def capital(text: str) -> str:
+    """``text`` with its first letter in capitals (a name opening a sentence)."""
+    return text[:1].upper() + text[1:]

@@ -18,7 +18,7 @@ from .arrays import (
     polygonal_parts,
     text_values,
 )
-from .messages import join_words, metres_per_unit
+from .messages import feature_name, join_words, metres_per_unit
 
 if TYPE_CHECKING:
     from ..project import MapProject
@@ -55,6 +55,7 @@ class Units:
     ids: np.ndarray  # feature ids as text
     codes: np.ndarray | None  # unit codes as text ('' when empty); None when the layer has no unit field
     source: str
+    numbers: np.ndarray | None = None  # feature numbers as text, when ``ids`` are the mapper's own (id_field)
 
     def __len__(self) -> int:
         return len(self.geoms)
@@ -69,11 +70,20 @@ class Units:
             return "?"
         return str(self.codes[k] or "no code")
 
-    def label(self, k: SupportsIndex) -> str:
-        return f"{self.ids[k]} ({self.code(k)})"
+    def label(self, k: SupportsIndex, *, code: bool = True) -> str:
+        """``polygon 1 (Lst)``; with the mapper's own ids ``polygon P-7 (feature 1, Lst)``."""
+        return "polygon " + self._name(k, code)
 
-    def labels(self, ks: Iterable[SupportsIndex]) -> str:
-        return join_words([self.label(k) for k in ks])
+    def labels(self, ks: Iterable[SupportsIndex], *, code: bool = True) -> str:
+        """``polygons 1 (Lst) and 2 (Sst)`` (``polygon 1 (Lst)`` for one)."""
+        names = [self._name(k, code) for k in ks]
+        return f"polygon{'' if len(names) == 1 else 's'} {join_words(names)}"
+
+    def _name(self, k: SupportsIndex, code: bool) -> str:
+        extra = (self.code(k),) if code else ()
+        if self.numbers is None:
+            return feature_name("", self.ids[k], None, *extra).strip()
+        return feature_name("", self.numbers[k], self.ids[k], *extra).strip()
 
 
 def read_units(project: MapProject) -> Units:
@@ -86,7 +96,10 @@ def read_units(project: MapProject) -> Units:
     if values is not None:
         k, texts = values
         codes = np.array([t.strip() for t in texts], dtype=object)[k[rows]]
-    return Units(rows, geoms[rows], np.asarray(layer.ids, dtype=object)[rows], codes, layer.source)
+    numbers = None
+    if layer.field("id_field") is not None:  # ids are the mapper's own: the feature number is named second
+        numbers = np.asarray(layer.frame.index.astype(str), dtype=object)[rows]
+    return Units(rows, geoms[rows], np.asarray(layer.ids, dtype=object)[rows], codes, layer.source, numbers)
 
 
 def sliver_thresholds(project: MapProject) -> tuple[float, float]:

@@ -10,8 +10,9 @@ from typing import TYPE_CHECKING, Any, Callable, TypeVar
 import click
 
 from ..errors import ArchivistError
+from ..registry import FAMILIES
 from .errors import handle_errors
-from .options import emit_report, progress_for, progress_options
+from .options import details_option, emit_report, only_help, progress_for, progress_options
 
 if TYPE_CHECKING:
     from ..package.safe import Limits
@@ -76,20 +77,21 @@ def make_limits(max_members: int | None, max_size: str | None, max_ratio: float 
     return replace(DEFAULT_LIMITS, **changes)
 
 
-@click.command("audit")
+@click.command("audit", short_help="Audit ARCHIVE (a zip or a folder) before reusing it.")
 @click.argument("archive", type=click.Path(path_type=Path))
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True, help="Report format.")
 @click.option("--output", "-o", type=click.Path(path_type=Path), help="Write the report to FILE instead of stdout.")
 @click.option("--strict", is_flag=True, help="Warnings fail the run too (exit 1).")
-@click.option("--only", "only", multiple=True, metavar="FAMILY", help="Run only this rule family (repeatable).")
+@click.option("--only", "only", multiple=True, metavar="FAMILY", help=only_help(FAMILIES))
 @click.option("--rule", "rules", multiple=True, metavar="RULE", help="Run only this rule (repeatable).")
 @click.option("--force", is_flag=True, help="Replace an existing output file.")
 @limit_options
+@details_option
 @progress_options
 @handle_errors
 def audit_command(archive: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
                   force: bool, max_members: int | None, max_size: str | None, max_ratio: float | None,
-                  quiet: bool, verbose: bool) -> None:
+                  quiet: bool, verbose: bool, details: bool = False) -> None:
     """Audit ARCHIVE (a zip or a folder) before reusing it.
 
     The archive is inspected before anything is extracted: absolute paths,
@@ -110,5 +112,5 @@ def audit_command(archive: Path, fmt: str, output: Path | None, strict: bool, on
         guard_output(output, force=force, project_root=archive if Path(archive).is_dir() else None)
     with progress_for(quiet, verbose) as progress:
         report = audit(archive, limits=limits, only=only, rules=rules, progress=progress)
-    emit_report(report, fmt, output)
+    emit_report(report, fmt, output, details)
     sys.exit(1 if report.failed(strict) else 0)

@@ -8,15 +8,19 @@ from pathlib import Path
 import click
 
 from .errors import handle_errors
-from .options import emit_report, progress_for, progress_options
+from ..registry import FAMILIES
+from .options import details_option, emit_report, only_help, progress_for, progress_options
+
+# `archive` rules need an archive: they run under `archivist audit`.
+CHECK_FAMILIES = tuple(f for f in FAMILIES if f != "archive")
 
 
-@click.command("check")
+@click.command("check", short_help="Check a map project, its archivist.toml or one map file.")
 @click.argument("path", type=click.Path(path_type=Path))
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True, help="Report format.")
 @click.option("--output", "-o", type=click.Path(path_type=Path), help="Write the report to FILE instead of stdout.")
 @click.option("--strict", is_flag=True, help="Warnings fail the run too (exit 1).")
-@click.option("--only", "only", multiple=True, metavar="FAMILY", help="Run only this rule family (repeatable).")
+@click.option("--only", "only", multiple=True, metavar="FAMILY", help=only_help(CHECK_FAMILIES))
 @click.option("--rule", "rules", multiple=True, metavar="RULE", help="Run only this rule (repeatable).")
 @click.option("--force", is_flag=True, help="Replace existing output files.")
 @click.option("--html", "html_out", type=click.Path(path_type=Path), metavar="FILE", help="Also write the report as one self-contained HTML page with a map.")
@@ -27,11 +31,19 @@ from .options import emit_report, progress_for, progress_options
     metavar="FILE",
     help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
 )
+@details_option
 @progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
-                  force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None) -> None:
-    """Check the map project at PATH (a folder or its archivist.toml), or each project in a folder of projects.
+                  force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None,
+                  details: bool = False) -> None:
+    """Check the map project at PATH (a folder or its archivist.toml), one map file, or each project in a folder of projects.
+
+    A GeoPackage or other vector file given alone is checked without a
+    manifest: the role of each layer is guessed from the data, as
+    'archivist init' guesses it, and the report says so; nothing is written
+    next to the file. The text report is a summary that fits a terminal
+    (counts per rule, the worst places first); --details lists every finding.
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
     A folder of projects exits with the worst of its projects' codes.
@@ -65,5 +77,5 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
 
             with progress.step(f"writing {gpkg_out}"):
                 write_findings_gpkg(report, gpkg_out, crs=project.crs)
-    emit_report(report, fmt, output)
+    emit_report(report, fmt, output, details)
     sys.exit(1 if report.failed(strict) else 0)

@@ -20,7 +20,7 @@ def _inside_of(path: Path) -> Path | None:
     return None
 
 
-@click.command("diff")
+@click.command("diff", short_help="List what changed between two versions of a map.")
 @click.argument("old", type=click.Path(path_type=Path))
 @click.argument("new", type=click.Path(path_type=Path))
 @click.option("--format", "fmt", type=click.Choice(["text", "json"]), default="text", show_default=True, help="Output format.")

@@ -10,7 +10,7 @@ from ..printable import printable
 from .errors import handle_errors
 
 
-@click.command("init")
+@click.command("init", short_help="Write an archivist.toml guessed from the data in PATH.")
 @click.argument("path", type=click.Path(path_type=Path))
 @handle_errors
 def init_command(path: Path) -> None:

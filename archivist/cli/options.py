@@ -26,21 +26,35 @@ def progress_options(func: F) -> F:
     return func
 
 
+def details_option(func: F) -> F:
+    """Add ``--details``: the text report lists every finding after its summary (the command receives ``details``)."""
+    return click.option(
+        "--details",
+        is_flag=True,
+        help="List every finding after the summary (text format; the JSON report always has them all).",
+    )(func)
+
+
+def only_help(families: tuple[str, ...]) -> str:
+    """The help of ``--only``, naming the families it takes."""
+    return f"Run only this rule family (repeatable): {', '.join(families)}."
+
+
 def progress_for(quiet: bool, verbose: bool) -> Progress:
     """The progress hook for a command run (bars on a terminal, timings with -v)."""
     return make_progress(quiet=quiet, verbose=verbose)
 
 
-def emit_report(report: Report, fmt: str, output: Path | None) -> None:
-    """Write a report as text or JSON to ``output`` (atomically) or to stdout."""
+def emit_report(report: Report, fmt: str, output: Path | None, details: bool = False) -> None:
+    """Write a report as text (every finding with ``details``) or JSON to ``output`` (atomically) or to stdout."""
     import sys
 
     from ..fsutil import atomic_write_text
     from ..report import render_json, render_text, write_text
 
     if output is not None:
-        atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report))
+        atomic_write_text(output, render_json(report) if fmt == "json" else render_text(report, details=details))
     elif fmt == "json":
         sys.stdout.write(render_json(report))
     else:
-        write_text(report, sys.stdout)
+        write_text(report, sys.stdout, details=details)

@@ -22,7 +22,7 @@ def interrupted_message(placed: tuple[Path, ...], make_zip: bool) -> str:
     return f"pack interrupted after the package was written: {', '.join(map(str, placed))} in place and whole"
 
 
-@click.command("pack")
+@click.command("pack", short_help="Check PROJECT and write it as an open data package.")
 @click.argument("project", type=click.Path(path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path), metavar="DIR", help="Folder to write <name>-<version>/ into.")
 @click.option("--zip", "make_zip", is_flag=True, help="Also write <name>-<version>.zip.")

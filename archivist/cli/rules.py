@@ -63,7 +63,7 @@ def rules_reference() -> str:
     return "\n".join(out) + "\n"
 
 
-@click.command("rules")
+@click.command("rules", short_help="List the rules, or print one RULE's documentation.")
 @click.argument("rule", required=False)
 @click.option("--format", "fmt", type=click.Choice(["text", "markdown", "json"]), default="text", show_default=True)
 @handle_errors

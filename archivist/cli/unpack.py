@@ -10,7 +10,7 @@ from .audit import limit_options, make_limits
 from .errors import CommandFailed, handle_errors
 
 
-@click.command("unpack")
+@click.command("unpack", short_help="Turn a package ARCHIVE into an editable project in DIR.")
 @click.argument("archive", type=click.Path(path_type=Path))
 @click.argument("directory", metavar="DIR", type=click.Path(path_type=Path))
 @click.option(

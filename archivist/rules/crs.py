@@ -23,7 +23,7 @@ import numpy as np
 import pyproj
 from shapely.geometry import box
 
-from ..analysis.messages import box_words, distance_words, join_words
+from ..analysis.messages import box_words, distance_words, join_words, plural, verb
 from ..analysis.placement import area_of_use, overshoot, suggest_projected, within
 from ..model import Hit, Severity
 from ..project import crs_label
@@ -247,14 +247,14 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
             metres, deg, direction = overshoot(full, area)
             yield Hit(
                 f"{where} ({_label(crs)}) reach {deg:.2f}° (about {distance_words(metres)}) {direction} of the CRS's "
-                f"area of use ({box_words(area)}); {int(outside.sum())} feature(s) lie outside it, spanning {box_words(full)}{hint}.",
+                f"area of use ({box_words(area)}); {plural(int(outside.sum()), 'feature')} {verb(int(outside.sum()), 'lies', 'lie')} outside it, spanning {box_words(full)}{hint}.",
                 layer=layer,
                 measure=metres,
                 geometry=geometry,
             )
         if failed:
             yield Hit(
-                f"{where} ({_label(crs)}): {failed} feature(s) have coordinates the CRS cannot place on the globe "
+                f"{where} ({_label(crs)}): {plural(failed, 'feature')} {verb(failed, 'has', 'have')} coordinates the CRS cannot place on the globe "
                 f"(outside the projection's domain){hint}.",
                 layer=layer,
                 geometry=geometry,

@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..analysis.messages import plural, verb
 from ..model import Hit
 from ..readers import as_text
 from ..registry import rule
@@ -99,7 +100,7 @@ def legend_missing_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     Example
     -------
     A polygon coded `KSE` with `KES` in the legend gives "unit code 'KSE'
-    (1 polygon(s), 14928.4 m²) has no legend entry", located at the polygon.
+    (1 polygon, 14928.4 m²) has no legend entry", located at the polygon.
     """
     units, codes, raw = _mapped(project)
     legend = project.tables["legend"]
@@ -115,7 +116,7 @@ def legend_missing_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     if len(blank):
         k = blank[np.argmax(areas[blank])]
         yield Hit(
-            f"{len(blank)} unit polygon(s) have no unit code in {units.field('unit_field')} (total {np.nansum(areas[blank]):.1f} m²).",
+            f"{plural(len(blank), 'unit polygon')} {verb(len(blank), 'has', 'have')} no unit code in {units.field('unit_field')} (total {np.nansum(areas[blank]):.1f} m²).",
             layer="units",
             features=tuple(units.ids[blank]),
             measure=float(np.nansum(areas[blank])),
@@ -128,7 +129,7 @@ def legend_missing_unit(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
         hint = f"; the legend has '{folded[code.casefold()]}'" if code.casefold() in folded else ""
         spaced = f" (written '{raw[idx[0]]}')" if raw[idx[0]] != code else ""
         yield Hit(
-            f"unit code '{code}'{spaced} ({len(idx)} polygon(s), {area:.1f} m²) has no legend entry{hint}.",
+            f"unit code '{code}'{spaced} ({plural(len(idx), 'polygon')}, {area:.1f} m²) has no legend entry{hint}.",
             layer="units",
             features=tuple(units.ids[idx]),
             measure=area,
@@ -522,7 +523,7 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     `DUN` (Visean) and `KES` (Kasimovian) with their orders swapped give
     "legend.csv, row 7: unit 'DUN' (order 4, 333-344 Ma) is listed above
-    younger unit(s) MAR (order 5, 309-320 Ma), KES (order 6, 304-306.5 Ma)",
+    younger units MAR (order 5, 309-320 Ma), KES (order 6, 304-306.5 Ma)",
     and a second finding for MAR, now above KES.
     """
     legend = project.tables["legend"]
@@ -573,7 +574,7 @@ def legend_age_order(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
         yield Hit(
             f"{row_ref(legend, i)}: unit '{name(i)}' ({by} {order[i]:g}, {_fmt_ma(top[i])}-{_fmt_ma(base[i])} Ma) "
-            f"is listed above younger unit(s) {items}.",
+            f"is listed above younger {'unit' if len(below) == 1 else 'units'} {items}.",
             layer="legend",
             features=(name(i), *(name(j) for j in below)),
         )

@@ -47,7 +47,7 @@ from ..analysis.arrays import (
     text_values,
 )
 from ..analysis.lines import LineNetwork, kind_role, norm_kind
-from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
+from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
     connected_pieces,
     off_unit_boundaries,
@@ -97,8 +97,13 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Example
     -------
     A contact drawn 3 m east of the edge between two units, on a map whose
-    tolerance is 1 m: "Contact 1 runs 100.00 m off the unit boundaries,
-    inside unit 2 (B)."
+    tolerance is 1 m: "Contact 1 runs 100.00 m off the unit boundaries, up
+    to 3.00 m east of the boundary between B and A, inside polygon 2 (B)."
+    The size and direction are those of the stretch's point farthest from
+    the boundary (its vertices and midpoint), seen from the nearest point of
+    the boundary: the line is to be moved that far the opposite way. The
+    direction is one of eight compass points, from grid north in a
+    projected CRS and from true north (pyproj `Geod`) in a geographic one.
     """
     net = ctx.line_network()
     units = ctx.units()
@@ -136,12 +141,18 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             if role == "fault" and u >= 0:
                 continue
             length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
+            crs = project.crs or project.layers["units"].crs
             if what == "edge":
-                text = f"{net.label(f)} runs {num(length)} m off the map's outer edge."
+                away = _away(piece, cov.extent_boundary, crs, m)
+                text = f"{net.label(f)} runs {num(length)} m off the map's outer edge, up to {away} of it."
             elif u >= 0:
-                text = f"{net.label(f)} runs {num(length)} m off the unit boundaries, inside unit {units.label(u)}."
+                edge, between = _boundary_near(piece, u, units, tol)
+                text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {_away(piece, edge, crs, m)} "
+                        f"of the boundary {between}, inside {units.label(u)}.")
             else:
-                text = f"{net.label(f)} runs {num(length)} m outside every unit polygon."
+                near = int(units.tree.query_nearest(shapely.line_interpolate_point(piece, 0.5, normalized=True))[0])
+                text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
+                        f"{_away(piece, shapely.boundary(units.geoms[near]), crs, m)} of the nearest, {units.label(near)}.")
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
 
 
@@ -205,7 +216,7 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     Example
     -------
     Two units side by side with no line between them: "No line draws
-    100.00 m of the boundary between units 1 (A) and 2 (B)."
+    100.00 m of the boundary between polygons 1 (A) and 2 (B)."
     """
     net = ctx.line_network()
     units = ctx.units()
@@ -251,10 +262,10 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
             continue
         for piece, length, u, v in zip(pieces[sel], lengths[sel].tolist(), ua[sel].tolist(), ub[sel].tolist()):
             if inner:
-                text = f"No line draws {num(length)} m of the boundary between units {units.labels([u, v])}."
+                text = f"No line draws {num(length)} m of the boundary between {units.labels([u, v])}."
                 feats: tuple[str, ...] = (units.ids[u], units.ids[v])
             else:
-                text = (f"No line draws {num(length)} m of the map edge along unit {units.label(u)}; "
+                text = (f"No line draws {num(length)} m of the map edge along {units.label(u)}; "
                         f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
                 feats = (units.ids[u],)
             yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
@@ -274,7 +285,7 @@ def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, piece
         net = ctx.line_network()
         none = "" if (net.part_roles == "contact").any() else f"; the lines layer holds no line of kind '{kind}'"
         text = (f"No line draws {len(pieces)} stretches of the boundaries between units: {num(missing)} m of {num(total)} m "
-                f"({share:.0f} %), spanning {where}; the longest, {num(longest)} m, is between units "
+                f"({share:.0f} %), spanning {where}; the longest, {num(longest)} m, is between "
                 f"{units.labels([int(ua[w]), int(ub[w])])}{none}. Draw them as lines of kind '{kind}' "
                 "(or a fault kind where a fault runs), snapped to the polygon edges.")
     else:
@@ -323,7 +334,12 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Example
     -------
     A contact that runs 5 m past the map boundary it should end on: "Contact
-    1 ends free 5.00 m past the line it crosses (line 2)."
+    1 ends free 5.00 m past the line it crosses (map-boundary line 2); trim
+    it back to that line." One that stops 2 m west of it: "Contact 1 ends
+    free, 2.00 m short of the nearest line (map-boundary line 2); extend it
+    2.00 m east to meet it." The direction is one of eight compass points,
+    from grid north in a projected CRS and from true north (pyproj `Geod`)
+    in a geographic one.
     """
     net = ctx.line_network()
     tol = float(ctx.tolerance)
@@ -375,10 +391,11 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
         if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
             continue
-        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g)
+        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g, project.crs or project.layers["lines"].crs)
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground) -> Hit:
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground,
+                crs: Any = None) -> Hit:
     """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
     nearest, gap, name = None, np.inf, None
     xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
@@ -391,7 +408,7 @@ def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, ed
             d = shapely.distance(pt, net.geoms[cand])
             j = int(np.argmin(d))
             if d[j] <= radius:
-                nearest, gap, name = net.geoms[cand[j]], float(d[j]), f"line {net.ids[cand[j]]}"
+                nearest, gap, name = net.geoms[cand[j]], float(d[j]), _lower(net.label(int(cand[j])))
                 break
         radius *= 4.0
     if edge is not None:
@@ -409,11 +426,13 @@ def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, ed
         if free < length - max(tol, 0.0):
             piece = substring(part, 0, free) if at_start else substring(part, length - free, length)
             free_m = float(g.lengths(piece)) if g.geographic else free * g.factor
-            return Hit(f"{what} ends free {num(free_m)} m past the line it crosses ({name}).", layer="lines",
+            return Hit(f"{what} ends free {num(free_m)} m past the line it crosses ({name}); trim it back to that line.", layer="lines",
                        features=(net.ids[f],), measure=free_m, geometry=piece, x=pt.x, y=pt.y)
     link = shapely.shortest_line(pt, nearest)
     gap_m = float(g.lengths(link)) if g.geographic else gap * g.factor
-    return Hit(f"{what} ends free, {num(gap_m)} m short of the nearest line ({name}).", layer="lines",
+    (x0, y0), (x1, y1) = shapely.get_coordinates(link)
+    towards = offset(crs, x0, y0, x1, y1)[1]
+    return Hit(f"{what} ends free, {num(gap_m)} m short of the nearest line ({name}); extend it {num(gap_m)} m {towards} to meet it.", layer="lines",
                features=(net.ids[f],), measure=gap_m, geometry=link, x=pt.x, y=pt.y)
 
 
@@ -490,7 +509,7 @@ def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[H
         pairs = sorted({tuple(sorted((int(a), int(b)))) for a, b in zip(left[mine], right[mine])})
         polys = sorted({u for pair in pairs for u in pair})
         yield Hit(
-            f"{net.label(f)} has unit {units.code(polys[0])} on both sides over {num(length * m)} m (units {join_ids(units, polys)}).",
+            f"{net.label(f)} has unit {units.code(polys[0])} on both sides over {num(length * m)} m ({join_ids(units, polys)}).",
             layer="lines",
             features=(net.ids[f],),
             measure=float(length * m),
@@ -499,8 +518,42 @@ def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[H
 
 
 def join_ids(units: Units, polys: list[int]) -> str:
-    ids = [str(units.ids[u]) for u in polys]
-    return ", ".join(ids[:-1]) + " and " + ids[-1] if len(ids) > 1 else "".join(ids)
+    """``polygons 1 and 2`` (the codes are the same: not repeated)."""
+    return units.labels(polys, code=False)
+
+
+def _lower(name: str) -> str:
+    """A line's name inside a sentence: ``contact 3``."""
+    return name[:1].lower() + name[1:]
+
+
+def _boundary_near(piece: Any, u: int, units: Units, tol: float) -> tuple[Any, str]:
+    """The boundary of polygon ``u`` and its words: ``between A and B`` for the neighbour across its nearest point."""
+    edge = shapely.boundary(units.geoms[u])
+    far = _far_point(piece, edge)
+    at = shapely.shortest_line(edge, far)
+    foot = shapely.get_point(at, 0)
+    near = units.tree.query(foot, predicate="dwithin", distance=max(tol, 0.0))
+    near = near[near != u]
+    if len(near):
+        v = int(near[np.argmin(shapely.distance(foot, units.geoms[near]))])
+        return edge, f"between {units.code(u)} and {units.code(v)}"
+    return edge, f"of {units.label(u)} along the map edge"
+
+
+def _far_point(piece: Any, target: Any) -> Any:
+    """The point of ``piece`` (its vertices and its midpoint) farthest from ``target``."""
+    pts = shapely.points(np.vstack([shapely.get_coordinates(piece),
+                                    shapely.get_coordinates(shapely.line_interpolate_point(piece, 0.5, normalized=True))]))
+    return pts[int(np.argmax(shapely.distance(pts, target)))]
+
+
+def _away(piece: Any, target: Any, crs: Any, factor: float) -> str:
+    """``3.00 m east``: how far, and which way, the point of ``piece`` farthest from ``target`` lies from it."""
+    link = shapely.shortest_line(target, _far_point(piece, target))
+    (x0, y0), (x1, y1) = shapely.get_coordinates(link)
+    metres, towards = offset(crs, x0, y0, x1, y1, factor)
+    return f"{num(metres)} m {towards}"
 
 
 @rule("line-self-intersection", family="linework", severity="error", needs=("lines",))

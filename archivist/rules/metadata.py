@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..analysis.messages import plural, verb
 from ..farcoords import coordinate_limit, far_out
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
 from ..model import Hit, Severity
@@ -411,7 +412,7 @@ def geometry_type_unexpected(project: MapProject, ctx: CheckContext) -> Iterator
             names = ", ".join(sorted({geoms[i].geom_type for i in bad[:1000]}))
             ids = tuple(layer.ids[bad[:20]])
             yield Hit(
-                f"{role}: {len(bad)} feature(s) are {names} where {' or '.join(expected)} is expected.",
+                f"{role}: {plural(len(bad), 'feature')} {verb(len(bad), 'is', 'are')} {names} where {' or '.join(expected)} is expected.",
                 layer=role,
                 features=ids,
                 geometry=geoms[bad[0]],

@@ -38,6 +38,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..analysis.messages import layer_feature, offset, plural, verb
 from ..farcoords import far_out
 from ..model import Hit, Severity
 from ..readers import as_text, text_column
@@ -293,7 +294,8 @@ def read_analyses(project: MapProject, ctx: CheckContext) -> Analyses:
                 "by default; set [tables.analyses] nd_means = \"not-determined\" if the laboratory meant not determined"
             )
             meaning = "not detected (below the detection limit)" if nd_means == "not-detected" else "not determined (not analysed)"
-            ctx.note(f"{table.source}: {nd} 'n.d.' cell(s) read as {meaning}, {how}.")
+            cells_word = plural(nd, "'n.d.' cell")
+            ctx.note(f"{table.source}: {cells_word} read as {meaning}, {how}.")
         return Analyses(table, col, raw, text, found, cells)
 
     return ctx.shared("samples:analyses", compute)
@@ -366,7 +368,7 @@ def sample_duplicate_id(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     blank = np.flatnonzero(keys.to_numpy() == "")
     if len(blank):
         yield Hit(
-            f"{len(blank)} sample(s) have no id in {layer.spec.get('id_field')}: {', '.join(_fid(layer, i) for i in blank[:20])}.",
+            f"{plural(len(blank), 'sample')} {verb(len(blank), 'has', 'have')} no id in {layer.spec.get('id_field')}: {', '.join(_fid(layer, i) for i in blank[:20])}.",
             layer="samples",
             geometry=shapely.multipoints([g for g in geoms[blank] if g is not None and not g.is_empty]) if len(blank) else None,
         )
@@ -495,7 +497,10 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     Example
     -------
     A sample with a dropped digit in its northing gives "sample TM24-0044
-    lies 612034.2 m outside the map extent".
+    (feature 44) lies 612034.2 m south of the map extent". The direction
+    (one of eight compass points) is that of the sample seen from the
+    nearest point of the extent: grid north in a projected CRS, true north
+    (pyproj `Geod`) in a geographic one.
     """
     layer = ctx.layer("samples")  # in the map CRS, swapped axes put right: crs-* report those once
     extent = _extent(project, ctx)
@@ -508,10 +513,13 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     dist = shapely.distance(extent, geoms[idx])
     far = dist > ctx.tolerance
     what = "the map extent" if role == "extent" else "the unit polygons (no extent layer)"
+    crs = project.crs or layer.crs
     for k in np.flatnonzero(far):
         i = idx[k]
+        (x0, y0), (x1, y1) = shapely.get_coordinates(shapely.shortest_line(extent, geoms[i]))
+        towards = offset(crs, x0, y0, x1, y1)[1]
         yield Hit(
-            f"sample {layer.ids[i]} lies {dist[k]:.1f} m outside {what}.",
+            f"{layer_feature(layer, i, 'sample')} lies {dist[k]:.1f} m {towards} of {what}.",
             layer="samples",
             features=(layer.ids[i],),
             measure=float(dist[k]),
@@ -549,9 +557,12 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
 
     Example
     -------
-    A KES sample inside a MAR polygon gives "sample TM24-0007 is recorded as
-    KES but lies in a MAR polygon (feature 12), 35.2 m inside its edge; the
-    nearest KES polygon is 35.4 m away".
+    A KES sample inside a MAR polygon gives "sample TM24-0007 (feature 7) is
+    recorded as KES but lies in polygon 12 (MAR), 35.2 m inside its edge; the
+    nearest KES polygon, polygon 9, is 35.4 m east". The direction (one of
+    eight compass points) is that of the nearest polygon seen from the
+    sample: grid north in a projected CRS, true north (pyproj `Geod`) in a
+    geographic one.
     """
     samples, units = ctx.layer("samples"), ctx.layer("units")  # in the map CRS: crs-* report a CRS fault once
     if samples is None or units is None:
@@ -581,21 +592,25 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     edge = shapely.distance(pts[bad], shapely.boundary(polys[poly_idx]))
     superficial = _superficial_units(project)
     nearest = np.full(len(bad), np.nan)
+    nearest_poly = np.full(len(bad), -1)
     for code in np.unique(recorded[bad]):  # one query per recorded unit code: a handful
         mask = recorded[bad] == code
         same = np.flatnonzero((codes == code) & poly_ok)
         if len(same):
             t = shapely.STRtree(polys[same])
-            _, d = t.query_nearest(pts[bad[mask]], return_distance=True, all_matches=False)
-            nearest[mask] = d
+            (src, hit), d = t.query_nearest(pts[bad[mask]], return_distance=True, all_matches=False)
+            nearest[np.flatnonzero(mask)[src]] = d
+            nearest_poly[np.flatnonzero(mask)[src]] = same[hit]
+    crs = project.crs or samples.crs
     for k, i in enumerate(bad):
         u = poly_idx[k]
         sid = samples.ids[i]
-        near = (
-            f"; the nearest {recorded[i]} polygon is {nearest[k]:.1f} m away"
-            if np.isfinite(nearest[k])
-            else f"; no polygon on the map is {recorded[i]}"
-        )
+        if np.isfinite(nearest[k]) and nearest_poly[k] >= 0:
+            (x0, y0), (x1, y1) = shapely.get_coordinates(shapely.shortest_line(pts[i], polys[nearest_poly[k]]))
+            near = (f"; the nearest {recorded[i]} polygon, {layer_feature(units, int(nearest_poly[k]), 'polygon')}, "
+                    f"is {nearest[k]:.1f} m {offset(crs, x0, y0, x1, y1)[1]}")
+        else:
+            near = f"; no polygon on the map is {recorded[i]}"
         case = " (the codes differ only in case)" if recorded[i].casefold() == codes[u].casefold() else ""
         severity = None
         note = ""
@@ -606,7 +621,8 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
         else:
             note = f", {edge[k]:.1f} m inside its edge"
         yield Hit(
-            f"sample {sid} is recorded as {recorded[i]} but lies in a {codes[u]} polygon (feature {units.ids[u]}){note}{near}{case}.",
+            f"{layer_feature(samples, i, 'sample')} is recorded as {recorded[i]} but lies in "
+            f"{layer_feature(units, u, 'polygon', codes[u])}{note}{near}{case}.",
             layer="samples",
             features=(sid, str(units.ids[u])),
             measure=float(edge[k]),

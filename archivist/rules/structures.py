@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..analysis.messages import plural, verb
 from ..model import Hit
 from ..registry import rule
 from ..vocab import structures as sv
@@ -80,7 +81,7 @@ def _grouped_hits(layer: Layer, groups: Iterable[tuple[np.ndarray, Callable[[np.
         rows = np.flatnonzero(mask)
         if rows.size:
             yield Hit(
-                f"structures: {rows.size} measurement(s) {words(rows)}.",
+                f"structures: {plural(rows.size, 'measurement')} {words(rows)}.",
                 layer="structures",
                 features=tuple(layer.ids[rows]),
                 geometry=_where(layer, rows),
@@ -219,10 +220,10 @@ def structure_kind_unknown(project: MapProject, ctx: CheckContext) -> Iterator[H
     for kind, group in frame.groupby("kind", sort=True):
         idx = group.i.to_numpy()
         if not str(kind).strip():
-            label = f"{len(idx)} measurement(s) have no kind"
+            label = f"{plural(len(idx), 'measurement')} {verb(len(idx), 'has', 'have')} no kind"
             close = []
         else:
-            label = f"kind '{kind}' ({len(idx)} measurement(s)) is not in the structure kinds"
+            label = f"kind '{kind}' ({plural(len(idx), 'measurement')}) is not in the structure kinds"
             close = difflib.get_close_matches(_fold(kind), list(vocab), n=1, cutoff=0.6)
         hint = f"; closest: {vocab[close[0]]}" if close else f"; known: {', '.join(ctx.config.structure_kinds)}"
         pts = [g for g in geoms[idx] if g is not None and not g.is_empty]
@@ -263,7 +264,7 @@ def overturned_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[
 
     Example
     -------
-    A joint marked yes gives "structures: 1 measurement(s) marked overturned
+    A joint marked yes gives "structures: 1 measurement marked overturned
     are not bedding (kinds: joint); only bedding has a younging direction".
     """
     layer = project.layers["structures"]
@@ -277,11 +278,11 @@ def overturned_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[
     folded = _fold_all(kinds)
     said_no = ~flagged & ~unreadable & (shown != "")
     groups = (
-        (unreadable, lambda rows: f"'{col}' holds values that are neither yes nor no ({', '.join(sorted({repr(v) for v in shown[rows]})[:5])})"),
+        (unreadable, lambda rows: f"{verb(rows.size, 'has', 'have')} a value in '{col}' that is neither yes nor no ({', '.join(sorted({repr(v) for v in shown[rows]})[:5])})"),
         (flagged & ~np.isin(folded, sv.FACING_KINDS),
-         lambda rows: f"marked overturned are not bedding (kinds: {', '.join(sorted({str(k) or '(blank)' for k in kinds[rows]}))}); only bedding has a younging direction"),
+         lambda rows: f"marked overturned {verb(rows.size, 'is', 'are')} not bedding (kinds: {', '.join(sorted({str(k) or '(blank)' for k in kinds[rows]}))}); only bedding has a younging direction"),
         (np.isin(folded, sv.OVERTURNED_KINDS) & said_no,
-         lambda rows: f"of kind overturned bedding are marked not overturned in '{col}'"),
+         lambda rows: f"of kind overturned bedding {verb(rows.size, 'is', 'are')} marked not overturned in '{col}'"),
     )
     yield from _grouped_hits(layer, groups)
 
@@ -314,7 +315,7 @@ def rake_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Example
     -------
-    A lineation with rake 40 gives "structures: 1 measurement(s) have a rake
+    A lineation with rake 40 gives "structures: 1 measurement has a rake
     but are linear (lineation); a rake needs a plane".
     """
     layer = project.layers["structures"]
@@ -327,8 +328,8 @@ def rake_inconsistent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     _, dip, _ = _numbers(layer, "dip_field")
     flat = np.zeros(len(rake), dtype=bool) if dip is None else (dip == 0.0)
     yield from _grouped_hits(layer, (
-        (has_rake & linear, lambda rows: f"have a rake but are linear ({', '.join(sorted({str(k) for k in kinds[rows]}))}); a rake needs a plane"),
-        (has_rake & ~linear & flat, lambda rows: "have a rake on a horizontal plane (dip 0), which has no strike to measure it from"),
+        (has_rake & linear, lambda rows: f"{verb(rows.size, 'has', 'have')} a rake but {verb(rows.size, 'is', 'are')} linear ({', '.join(sorted({str(k) for k in kinds[rows]}))}); a rake needs a plane"),
+        (has_rake & ~linear & flat, lambda rows: f"{verb(rows.size, 'has', 'have')} a rake on a horizontal plane (dip 0), which has no strike to measure it from"),
     ))
 
 

@@ -17,7 +17,7 @@ import shapely
 
 from ..analysis.arrays import merge_by_group, text_values, widths
 from ..analysis.coverage import GAPS, MISFITS, OUTSIDE, OVERLAPS
-from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
+from ..analysis.messages import ABOVE, Ground, capital, feature_name, ground, metres_per_unit, num
 from ..analysis.nearness import uncovered
 from ..analysis.polygons import sliver_thresholds
 from ..model import Hit, Severity
@@ -41,8 +41,8 @@ def not_processed(ctx: CheckContext, aspect: str) -> Iterator[Hit]:
     for failure in ctx.coverage().failures_of(aspect):
         ks = list(failure.units)
         shown = ks[:10]
-        where = f"among units {units.labels(shown)}" if len(ks) > 1 else (
-            f"at unit {units.label(ks[0])}" if ks else "on this map")
+        where = f"among {units.labels(shown)}" if len(ks) > 1 else (
+            f"at {units.label(ks[0])}" if ks else "on this map")
         more = f" and {len(ks) - len(shown)} more" if len(ks) > len(shown) else ""
         box = None
         if ks:
@@ -129,7 +129,7 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Example
     -------
     Two 10 m x 10 m squares whose shared edge was drawn 0.1 m too far into the
-    second one, on a map whose tolerance is 0.05 m: "Units 1 (A) and 2 (B)
+    second one, on a map whose tolerance is 0.05 m: "Polygons 1 (A) and 2 (B)
     overlap by 1.00 m² (up to 0.10 m wide)."
     """
     units = ctx.units()
@@ -139,7 +139,7 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
         a, b = piece.units
         yield Hit(
-            f"Units {units.labels([a, b])} overlap by {num(area)} m² (up to {num(wide)} m wide).",
+            f"{capital(units.labels([a, b]))} overlap by {num(area)} m² (up to {num(wide)} m wide).",
             layer="units",
             features=(units.ids[a], units.ids[b]),
             measure=area,
@@ -191,15 +191,15 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Example
     -------
     A 2 m x 0.5 m slot left between two units: "Gap of 1.00 m² (up to 0.50 m
-    wide) inside the map extent, between units 1 (A) and 2 (B)."
+    wide) inside the map extent, between polygons 1 (A) and 2 (B)."
     """
     units = ctx.units()
     cov = ctx.coverage()
     pieces = [p for p in cov.gaps if not (p.width <= cov.tol * ABOVE and (len(p.units) > 1 or p.on_frame))]
     areas, wides = piece_measures(ground(project, units.geoms), pieces)
     for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
-        where = f"between units {units.labels(piece.units)}" if len(piece.units) > 1 else (
-            f"next to unit {units.label(piece.units[0])}" if piece.units else "with no unit around it")
+        where = f"between {units.labels(piece.units)}" if len(piece.units) > 1 else (
+            f"next to {units.label(piece.units[0])}" if piece.units else "with no unit around it")
         edge = " at the map edge" if piece.at_extent else ""
         yield Hit(
             f"Gap of {num(area)} m² (up to {num(wide)} m wide) inside the map extent{edge}, {where}.",
@@ -252,7 +252,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Example
     -------
-    At 1:10 000 (100 m², 5 m) a 40 m x 2 m strip gives "Unit 3 (B) is a sliver
+    At 1:10 000 (100 m², 5 m) a 40 m x 2 m strip gives "Polygon 3 (B) is a sliver
     at 1:10,000: 80.00 m² (smallest legible 100.00 m²), at most 2.00 m wide
     (narrowest legible 5.00 m)."
     """
@@ -288,7 +288,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         elif np.isfinite(wid[k]):
             parts.append(f"{num(wid[k] * m)} m wide")
         yield Hit(
-            f"Unit {units.label(k)} is a sliver at {scale}: {', '.join(parts)}.",
+            f"{capital(units.label(k))} is a sliver at {scale}: {', '.join(parts)}.",
             layer="units",
             features=(units.ids[k],),
             measure=float(area[k] * m * m),
@@ -348,7 +348,7 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Example
     -------
     Two squares sharing the edge x = 10, where the second one's edge has an
-    extra vertex at (10.02, 5), on a 1:10 000 map (tolerance 1 m): "Units 1 (A)
+    extra vertex at (10.02, 5), on a 1:10 000 map (tolerance 1 m): "Polygons 1 (A)
     and 2 (B) do not share their common edge exactly: 10.00 m of it is
     misaligned, up to 0.02 m apart."
     """
@@ -363,7 +363,7 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         else:
             how = f"up to {num(mm.apart * sx)} m apart"
         length = mm.length * sa
-        text = f"Units {units.labels(mm.units)} do not share their common edge exactly: {num(length)} m of it is misaligned, {how}."
+        text = f"{capital(units.labels(mm.units))} do not share their common edge exactly: {num(length)} m of it is misaligned, {how}."
         yield Hit(text, layer="units", features=tuple(units.ids[k] for k in mm.units), measure=length, geometry=mm.geometry)
     yield from not_processed(ctx, MISFITS)
 
@@ -396,7 +396,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     Example
     -------
     Two adjacent polygons both coded `A` sharing a 100 m edge with no line on
-    it: "Units 1 and 2 are both A and share 100.00 m of boundary with no
+    it: "Polygons 1 and 2 are both A and share 100.00 m of boundary with no
     fault along it."
     """
     units = ctx.units()
@@ -439,7 +439,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
         if length <= tol * ABOVE:
             continue
         yield Hit(
-            f"Units {units.ids[a]} and {units.ids[b]} are both {units.code(a)} and share {num(ground_length)} m of boundary with no fault along it.",
+            f"{capital(units.labels([a, b], code=False))} are both {units.code(a)} and share {num(ground_length)} m of boundary with no fault along it.",
             layer="units",
             features=(units.ids[a], units.ids[b]),
             measure=float(ground_length),
@@ -477,7 +477,7 @@ def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
 
     Example
     -------
-    A unit drawn 2 m past a 100 m side of the frame: "Unit 2 (B) has 200.00 m²
+    A unit drawn 2 m past a 100 m side of the frame: "Polygon 2 (B) has 200.00 m²
     outside the map extent (up to 2.00 m wide)."
     """
     units = ctx.units()
@@ -487,7 +487,7 @@ def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     for piece, area, wide in zip(pieces, areas.tolist(), wides.tolist()):
         (k,) = piece.units
         yield Hit(
-            f"Unit {units.label(k)} has {num(area)} m² outside the map extent (up to {num(wide)} m wide).",
+            f"{capital(units.label(k))} has {num(area)} m² outside the map extent (up to {num(wide)} m wide).",
             layer="units",
             features=(units.ids[k],),
             measure=area,
@@ -518,7 +518,7 @@ def unit_code_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
     Example
     -------
-    A polygon with `unit = ""` gives "Unit polygon 3 has no unit code
+    A polygon with `unit = ""` gives "Polygon 3 has no unit code
     (field 'unit')."
     """
     layer = project.layers["units"]
@@ -530,12 +530,14 @@ def unit_code_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     blank = np.array([not t.strip() for t in texts], dtype=bool)[k]
     name = layer.field("unit_field")
     rows = np.flatnonzero(blank)
+    own = layer.text("id_field")
+    numbers = np.asarray(layer.frame.index.astype(str), dtype=object)
     areas = ground(project, ctx.units().geoms).areas(geoms[rows])
     for row, area in zip(rows, areas.tolist()):
         g = geoms[row]
         has = g is not None and not shapely.is_empty(g)
         yield Hit(
-            f"Unit polygon {layer.ids[row]} has no unit code (field '{name}')"
+            f"{capital(feature_name('polygon', numbers[row], own[row] if own is not None else None))} has no unit code (field '{name}')"
             + (f"; it covers {num(area)} m²." if has else "."),
             layer="units",
             features=(str(layer.ids[row]),),
