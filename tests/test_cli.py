@@ -527,7 +527,7 @@ def misfit_grid(tmp_path, n=12):
 
 def test_summary_fits_a_terminal_and_details_list_everything(tmp_path, monkeypatch):
     monkeypatch.setenv("NO_COLOR", "1")
-    root = misfit_grid(tmp_path)
+    root = misfit_grid(tmp_path, n=16)  # 8 misdrawn columns of 16 edges: over 100 findings
     findings = json.loads(run("check", root, "--format", "json").output)["findings"]
     assert len(findings) > 100
     short = run("check", root)

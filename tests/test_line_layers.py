@@ -136,9 +136,9 @@ def test_schema_knows_line_layer_keys_and_names_typos():
     good = {**base, "layers": {**base["layers"], "faults": {"path": "f.shp"}, "lines": [{"path": "a.shp", "kind": "dyke"}]}}
     assert validate_manifest(good, "archivist.toml") == []
     bad = {**base, "layers": {**base["layers"], "faults": {"path": "f.shp", "kind_feild": "type"}}}
-    assert [h.message for h in validate_manifest(bad, "archivist.toml")] == ["archivist.toml: unknown key 'layers.faults.kind_feild'."]
+    assert [h.message for h in validate_manifest(bad, "archivist.toml")] == ["archivist.toml: unknown key 'layers.faults.kind_feild'; did you mean 'kind_field'?"]
     listed = {**base, "layers": {**base["layers"], "lines": [{"path": "a.shp", "knd": "x"}]}}
-    assert [h.message for h in validate_manifest(listed, "archivist.toml")] == ["archivist.toml: unknown key 'layers.lines[0].knd'."]
+    assert [h.message for h in validate_manifest(listed, "archivist.toml")] == ["archivist.toml: unknown key 'layers.lines[0].knd'; did you mean 'kind'?"]
 
 
 def test_pack_keeps_each_line_layer_and_unpack_restores_them(tmp_path):

@@ -292,7 +292,7 @@ def test_missing_linework_that_is_the_exception_is_listed_one_by_one(tmp_path):
     root = copy_bundle(tmp_path)
     contact_deleted(root)
     (f,) = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
-    assert f.message.startswith("No line draws 4309.46 m of the boundary between units")
+    assert f.message.startswith("No line draws 4309.46 m of the boundary between polygons ")
 
 
 def test_a_frame_without_lines_names_the_frame_and_the_kind_it_needs(tmp_path):
@@ -315,5 +315,5 @@ def test_one_stretch_of_frame_missing_names_the_kind(tmp_path):
     found = [f for f in archivist.check(root).findings if f.rule == "boundary-without-line"]
     # undrawn: the east and south sides of the east square, 200 m, less the tolerance (1 m) at each end of the drawn frame
     assert [f.message for f in found] == [
-        "No line draws 198.00 m of the map edge along unit 2 (B); the frame needs a line of kind 'map-boundary' there."
+        "No line draws 198.00 m of the map edge along polygon 2 (B); the frame needs a line of kind 'map-boundary' there."
     ]
