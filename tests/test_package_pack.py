@@ -272,8 +272,12 @@ def test_analyte_units_read_from_headers(packed):
     fields = {f["name"]: f for r in descriptor(packed)["resources"] if r["name"] == "analyses" for f in r["schema"]["fields"]}
     assert fields["SiO2 (wt%)"]["unit"] == "wt%" and fields["SiO2 (wt%)"]["type"] == "number"
     assert fields["sample_id"]["type"] == "string"
-    # MnO holds '<0.01' (below detection limit): kept as written, so the column is text and says why
-    assert fields["MnO (wt%)"]["type"] == "string" and "detection limit" in fields["MnO (wt%)"]["description"]
+    # MnO holds '<0.01' (below detection limit): kept as written, the column stays a number and its own
+    # missingValues (Frictionless Table Schema v2) says what the reading means
+    mno = fields["MnO (wt%)"]
+    assert mno["type"] == "number" and "laboratory wrote them" in mno["description"]
+    assert {"value": "<0.01", "label": "below the detection limit of 0.01 (written '<0.01')"} in mno["missingValues"]
+    assert {"value": "<0.01", "kind": "below-detection-limit", "limit": 0.01} in mno["censoring"]
     text = (data_of(packed) / "tables" / "analyses.csv").read_text(encoding="utf-8")
     assert "<0.01" in text and "\r" not in text
 

@@ -27,7 +27,7 @@ import shapely
 
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
-from ..vocab.analytes import analytes
+from ..vocab.analytes import analytes, is_analyte_header
 from ..vocab.legend import column as legend_column
 from ..vocab.legend import columns as legend_columns
 from ..vocab import structures as structure_vocab
@@ -349,11 +349,22 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
         unit = _axis_unit(crs)
         if unit:
             units[xname] = units[yname] = unit
-    table = text_table(role, frame, identifiers=identifiers, descriptions=descriptions, units=units)
+    # Assay columns of a sample layer ("Au_ppb", "Cu (ppm)") hold laboratory readings as the analyses table does.
+    analyte_columns = set()
+    if group == "samples":
+        taken = identifiers | {str(c) for k, c in spec.items() if k.endswith("_field") and isinstance(c, str)} | set(descriptions)
+        analyte_columns = {str(c) for c in frame.columns if str(c) not in taken and is_analyte_header(str(c))}
+    nd_means, nd_declared = _nd_setting(project)
+    table = text_table(
+        role, frame, identifiers=identifiers, descriptions=descriptions, units=units,
+        analyte_columns=analyte_columns, nd_means=nd_means, nd_declared=nd_declared,
+    )
     table.title = layer_title(role) + " (attributes)"
     table.description = layer_description(role) + " Attributes only; the geometries are in map.gpkg and the GeoJSON file."
     if pl.conventions:
         table.description += " " + pl.conventions
+    if table.readings:
+        table.description += " " + table.readings_statement()
     if group == "lines" and spec.get("kind"):
         what = "Its lines are" if not spec.get("kind_field") else f"Lines with an empty '{spec['kind_field']}' are"
         table.description += f" {what} of kind '{spec['kind']}', as declared in archivist.toml."
@@ -382,13 +393,29 @@ def project_table(project: MapProject, role: str) -> TextTable:
                 units[col] = unit
             if key == "unit":
                 identifiers.add(col)
+    analyte_columns: set[str] = set()
     if role == "analyses":  # units from a units row or [tables.analyses] unit, as the checks read them
-        units.update({a.column: a.unit_text for a in analytes(t) if a.source in ("units row", "manifest") and a.unit_text})
+        found = analytes(t)
+        units.update({a.column: a.unit_text for a in found if a.source in ("units row", "manifest") and a.unit_text})
         units.update({str(k): str(v) for k, v in (spec.get("units") or {}).items()})
-    table = text_table(role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses")
+        analyte_columns = {a.column for a in found}
+    nd_means, nd_declared = _nd_setting(project)
+    table = text_table(
+        role, t.frame, identifiers=identifiers, descriptions=descriptions, units=units, header_units=role == "analyses",
+        analyte_columns=analyte_columns, nd_means=nd_means, nd_declared=nd_declared,
+    )
     table.title = LAYER_TITLES[role]
     table.description = f"{LAYER_DESCRIPTIONS[role]} From {t.source}."
+    if table.readings:
+        table.description += " " + table.readings_statement()
     return table
+
+
+def _nd_setting(project: MapProject) -> tuple[str, bool]:
+    """What "n.d." means in the laboratory's cells (``[tables.analyses] nd_means``), and whether the manifest said it."""
+    spec = project.tables["analyses"].spec if "analyses" in project.tables else {}
+    declared = spec.get("nd_means")
+    return (str(declared), True) if isinstance(declared, str) and declared else ("not-detected", False)
 
 
 def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTable]:

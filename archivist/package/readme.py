@@ -25,6 +25,16 @@ NOT_COVERED = (
 )
 
 
+# How laboratory readings are written and read (archivist.package.tables.analyte_readings).
+READINGS_SENTENCE = (
+    "Laboratory readings that are not plain numbers (`<0.01`, `< 5 ppm`, `bdl`, `tr`, `n.d.`, `-`) are kept in the CSV "
+    "exactly as the laboratory wrote them; where an analyte column holds nothing else, its Table Schema lists them under "
+    "`missingValues` with their meaning (and under `censoring` with their kind and detection limit), so a Table Schema "
+    "reader such as frictionless reads them as missing and every other cell as a number.",
+    "",
+)
+
+
 @dataclass(frozen=True)
 class LayerFact:
     role: str
@@ -155,6 +165,7 @@ def readme_text(
         "| `source/` | The input files exactly as handed in, byte for byte. |",
         "| `LICENSE.txt`, `CITATION.cff` | The licence, and the citation in Citation File Format. |",
         "",
+        *(READINGS_SENTENCE if any(name == "analyses" for name, _, _ in tables) else ()),
         "The folder around `data/` is a BagIt bag (RFC 8493): `manifest-sha256.txt` lists the SHA-256 of every file.",
         "",
         "## How to cite",
