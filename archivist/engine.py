@@ -165,6 +165,7 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         findings=tuple(findings),
         notes=tuple(project.notes + notes + chart),
         rules_run=tuple(ran),
+        place_decimals=6 if digits > LINEAR_DIGITS else 1,
     )
 
 

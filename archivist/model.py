@@ -124,6 +124,9 @@ class Report:
     findings: tuple[Finding, ...]
     notes: tuple[str, ...] = ()
     rules_run: tuple[str, ...] = ()
+    # Decimals of a location in the text, HTML and README listings: 1 in metres (0.1 m), 6 in degrees
+    # (about 0.1 m); the JSON report keeps x and y as the engine rounded them.
+    place_decimals: int = 1
     summary: Summary = field(init=False)
 
     def __post_init__(self) -> None:
@@ -136,6 +139,12 @@ class Report:
     @property
     def ok(self) -> bool:
         return self.summary.errors == 0
+
+    def place(self, f: Finding) -> str:
+        """``x, y`` of a finding to the decimals its CRS needs, or ``""`` when it has no place."""
+        if f.x is None or f.y is None:
+            return ""
+        return f"{f.x:.{self.place_decimals}f}, {f.y:.{self.place_decimals}f}"
 
     def failed(self, strict: bool = False) -> bool:
         """True when the run should exit 1: errors, or warnings under ``strict``."""

@@ -121,12 +121,25 @@ def test_locations_keep_the_precision_of_the_crs(tmp_path):
     assert (f.x, f.y) == (10.12345679, 60.12345679)
     assert f.wkt == "POINT (10.12345679 60.12345679)"
 
+    # the listings (text, HTML, package README) print degrees to 6 decimals (about 0.1 m at 60°N; 1 decimal
+    # would be about 11 km in latitude), metres to 1 decimal
+    from archivist.report.html import render_html
+    from archivist.report.text import render_text
+
+    report = archivist.check(root, rules=["sample-outside-extent"])
+    assert report.place_decimals == 6
+    assert "10.123457, 60.123457" in render_text(report, details=True)
+    assert "10.123457, 60.123457" in render_html(report)
+
     q = Point(500_123.456789, 6_650_987.654321)
     utm = gpd.GeoDataFrame({"sample_id": ["Q"], "unit": ["B"]}, geometry=[q], crs="EPSG:32633")
     root = tiny_project(tmp_path, name="utm", samples=utm)
     (f,) = archivist.check(root, rules=["sample-outside-extent"]).findings
     assert (f.x, f.y) == (500_123.457, 6_650_987.654)
     assert f.wkt == "POINT (500123.457 6650987.654)"
+    report = archivist.check(root, rules=["sample-outside-extent"])
+    assert report.place_decimals == 1
+    assert "500123.5, 6650987.7" in render_text(report, details=True)
 
 
 def test_a_tiny_overlap_prints_its_digits_in_the_text_report(tmp_path):

@@ -73,11 +73,11 @@ def errors_by_rule(report: Report) -> dict[str, int]:
 def open_error_lines(report: Report, limit: int | None = None) -> list[str]:
     errors = [f for f in report.findings if f.severity.value == "error"]
     shown = errors if limit is None else errors[:limit]
-    return [_finding_line(f) for f in shown]
+    return [_finding_line(f, report) for f in shown]
 
 
-def _finding_line(f: Finding) -> str:
-    where = f" [at {f.x:.1f}, {f.y:.1f}]" if f.x is not None and f.y is not None else ""
+def _finding_line(f: Finding, report: Report) -> str:
+    where = f" [at {report.place(f)}]" if report.place(f) else ""
     return f"{f.rule}: {f.message}{where}"
 
 
@@ -188,7 +188,7 @@ def readme_text(
     if s.warnings or s.notices:
         out += ["", "Warnings and notices:", ""]
         others = [f for f in report.findings if f.severity.value != "error"]
-        out += [f"- {f.severity.value}: {_md(_finding_line(f))}" for f in others[:MAX_LISTED]]
+        out += [f"- {f.severity.value}: {_md(_finding_line(f, report))}" for f in others[:MAX_LISTED]]
         if len(others) > MAX_LISTED:
             out.append(f"- ... and {len(others) - MAX_LISTED} more in `metadata/validation-report.json`.")
     for note in notes:

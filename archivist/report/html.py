@@ -298,7 +298,7 @@ class _Page:
             if f.features:
                 shown = ", ".join(f.features[:8]) + (f" … (+{len(f.features) - 8})" if len(f.features) > 8 else "")
                 where.append(f"feature{'s' if len(f.features) > 1 else ''} {_e(shown)}")
-            xy = f"{f.x:.1f}, {f.y:.1f}" if f.x is not None and f.y is not None else ""
+            xy = r.place(f)
             body.append(
                 f"<tr{attrs}><td><span class=\"sev {f.severity.value}\">{f.severity.value}</span></td>"
                 f"<td>{_e(f.family)}</td><td>{rule}</td><td class=\"msg\">{_e(f.message)}</td>"

@@ -43,8 +43,8 @@ SUMMARY_GROUPS = 12
 SUMMARY_PLACES = 4
 
 
-def _at(f: Finding) -> str:
-    return f" at {f.x:.1f}, {f.y:.1f}" if f.x is not None and f.y is not None else ""
+def _at(f: Finding, decimals: int = 1) -> str:
+    return f" at {f.x:.{decimals}f}, {f.y:.{decimals}f}" if f.x is not None and f.y is not None else ""
 
 
 def _counts(errors: int, warnings: int, notices: int) -> str:
@@ -52,15 +52,15 @@ def _counts(errors: int, warnings: int, notices: int) -> str:
     return ", ".join(plural(n, w) for n, w in parts if n) or "no findings"
 
 
-def _group_line(g: Group) -> Text:
+def _group_line(g: Group, decimals: int = 1) -> Text:
     line = Text("  ")
     line.append(f"{g.severity.value:<7}", style=STYLE[g.severity])
     if g.count == 1:
         f = g.largest
         line.append(f" {printable(g.rule)}: ", style="bold")
         line.append(printable(f.message))
-        if _at(f):
-            line.append(f"  [{_at(f).strip()}]", style="dim")
+        if _at(f, decimals):
+            line.append(f"  [{_at(f, decimals).strip()}]", style="dim")
         return line
     where = f" on {printable(g.layer)}" if g.layer else ""
     line.append(f" {printable(g.rule)}{where}: ", style="bold")
@@ -68,9 +68,9 @@ def _group_line(g: Group) -> Text:
     line.append(plural(g.count, "place" if located else "finding"))
     size = measure_text(g.largest)
     if size is not None:
-        line.append(f", largest {printable(size)}{_at(g.largest)}")
-    elif _at(g.largest):
-        line.append(f", the first{_at(g.largest)}")
+        line.append(f", largest {printable(size)}{_at(g.largest, decimals)}")
+    elif _at(g.largest, decimals):
+        line.append(f", the first{_at(g.largest, decimals)}")
     return line
 
 
@@ -91,7 +91,7 @@ def _write_summary(report: Report, console: Console) -> None:
     groups = group_findings(report)
     console.print(Text("By rule, worst first:"))
     for g in groups[:SUMMARY_GROUPS]:
-        console.print(_group_line(g))
+        console.print(_group_line(g, report.place_decimals))
     rest = groups[SUMMARY_GROUPS:]
     if rest:
         n = sum(g.count for g in rest)
@@ -145,8 +145,8 @@ def _write_details(report: Report, console: Console) -> None:
             line.append(f"{f.severity.value:<7}", style=STYLE[f.severity])
             line.append(f" {printable(f.rule)}: ", style="bold")
             line.append(printable(f.message))
-            if f.x is not None and f.y is not None:
-                line.append(f"  [at {f.x:.1f}, {f.y:.1f}]", style="dim")
+            if report.place(f):
+                line.append(f"  [at {report.place(f)}]", style="dim")
             console.print(line)
     s = report.summary
     console.print()
