@@ -364,7 +364,8 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         if cov.extent is not None:
             edge = cov.extent_boundary
             connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
-    for k in np.flatnonzero(~connected):
+    free = []
+    for k in np.flatnonzero(~connected):  # few: ends with no other line near
         p, f = int(end_part[k]), int(end_feat[k])
         part = net.part(p)
         length = part.length
@@ -375,29 +376,59 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
         if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
             continue
-        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g)
+        free.append((k, part))
+    if not free:
+        return
+    k_free = np.array([k for k, _ in free], dtype=np.int64)
+    near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
+    edge_gaps = shapely.distance(pts[k_free], edge) if edge is not None else np.full(len(k_free), np.inf)
+    for (k, part), j, gap, edge_gap in zip(free, near.tolist(), gaps.tolist(), edge_gaps.tolist()):
+        yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), j, gap, edge, edge_gap, tol, g)
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground) -> Hit:
-    """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
-    nearest, gap, name = None, np.inf, None
+def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
+    """For each point, the nearest line feature other than its own (index, distance), or (-1, inf).
+
+    Searched in widening circles (from ten tolerances or a thousandth of the
+    map, four times wider each round, up to four map sizes), all points of a
+    round in one bulk query; among lines at the same distance the first the
+    spatial index returns wins.
+    """
+    n = len(pts)
+    nearest = np.full(n, -1, dtype=np.int64)
+    gap = np.full(n, np.inf)
     xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
     size = max(xmax - xmin, ymax - ymin, 1.0)
     radius = max(10.0 * tol, 1e-3 * size)
-    while radius <= 4.0 * size:
-        cand = net.tree.query(shapely.buffer(pt, radius))
-        cand = cand[cand != f]
-        if len(cand):
-            d = shapely.distance(pt, net.geoms[cand])
-            j = int(np.argmin(d))
-            if d[j] <= radius:
-                nearest, gap, name = net.geoms[cand[j]], float(d[j]), f"line {net.ids[cand[j]]}"
-                break
+    todo = np.arange(n)
+    while radius <= 4.0 * size and len(todo):
+        pi, cand = net.tree.query(shapely.buffer(pts[todo], radius))
+        keep = cand != feats[todo][pi]
+        pi, cand = pi[keep], cand[keep]
+        found = np.zeros(len(todo), dtype=bool)
+        if len(pi):
+            d = shapely.distance(pts[todo][pi], net.geoms[cand])
+            order = np.lexsort((np.arange(len(pi)), d, pi))  # per point: smallest distance, first returned
+            first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
+            ok = d[first] <= radius
+            hit = pi[first][ok]
+            nearest[todo[hit]] = cand[first][ok]
+            gap[todo[hit]] = d[first][ok]
+            found[hit] = True
+        todo = todo[~found]
         radius *= 4.0
-    if edge is not None:
-        d = float(shapely.distance(pt, edge))
-        if d < gap:
-            nearest, gap, name = edge, d, "the map edge"
+    return nearest, gap
+
+
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, j: int, gap: float, edge: Any,
+                edge_gap: float, tol: float, g: Ground) -> Hit:
+    """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line.
+
+    ``j`` and ``gap`` are the nearest other line and its distance (-1, inf: none); ``edge_gap`` the distance to the map edge.
+    """
+    nearest, name = (net.geoms[j], f"line {net.ids[j]}") if j >= 0 else (None, None)
+    if edge is not None and edge_gap < gap:
+        nearest, gap, name = edge, edge_gap, "the map edge"
     what = net.label(f)
     if nearest is None:
         return Hit(f"{what} ends free, with no other line on the map.", layer="lines", features=(net.ids[f],), geometry=pt)
