@@ -208,6 +208,13 @@ def outline_of(edges: Edges, extent: Any, tol: float) -> np.ndarray:
     return outline
 
 
+def _blank(values: np.ndarray, failed: np.ndarray) -> np.ndarray:
+    """The geometries with None where GEOS failed."""
+    out = np.array(values, dtype=object, copy=True)
+    out[failed] = None
+    return out
+
+
 def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray, invalid: dict[int, Any],
                pair_pieces: dict[tuple[int, int], list[Any]], unexplained: set[tuple[int, ...]],
                ) -> tuple[list[tuple[tuple[int, int], Any, float]], list[Failure]]:
@@ -238,14 +245,14 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
     rows = np.arange(len(a))
     common, failed, reasons = elementwise(shapely.intersection, inv_a, inv_b)
     mark(rows, failed, reasons)
-    lines, k = linear_parts(np.where(failed, None, common).astype(object))
+    lines, k = linear_parts(_blank(common, failed))
     merged = np.full(len(a), None, dtype=object)
     if len(lines):
         shapely.multilinestrings(lines, indices=k, out=merged)
         have = np.flatnonzero(~shapely.is_missing(merged))
         out, failed, reasons = elementwise(shapely.line_merge, merged[have])
         mark(have, failed, reasons)
-        merged[have] = np.where(failed, None, out)
+        merged[have] = _blank(out, failed)
     # less the overlap pieces of the same pair
     pieces = [(r, piece) for r, (p, q) in enumerate(zip(a.tolist(), b.tolist())) if not shapely.is_missing(merged[r])
               for piece in pair_pieces.get((p, q), ())]
@@ -261,7 +268,7 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
         ok = ex[~failed]
         out, failed, reasons = elementwise(shapely.difference, merged[ok], union[~failed])
         mark(ok, failed, reasons)
-        merged[ok] = np.where(failed, None, out)
+        merged[ok] = _blank(out, failed)
     length = shapely.length(merged)
     found = [((int(p), int(q)), g, float(n)) for p, q, g, n, x in zip(a, b, merged, length, lost) if not x and n > 0]
     failures = [Failure((int(a[r]), int(b[r])), doing, aspects, reason[r]) for r in sorted(reason)]

@@ -111,14 +111,13 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     on = se >= 0
     on_outline = on.copy()
     on_outline[on] = cov.outline[se[on]]
-    sel_poly = ~on & np.isin(roles, ("contact", "fault"))
     sel_edge = ~on_outline & (roles == "boundary")
     found = []
-    runs, part = net.runs(sel_poly)
-    if len(runs):
-        off = off_unit_boundaries(runs, units, tol)
-        pieces, k = linear_parts(off, tol * ABOVE)
-        found.append((pieces, part[k], "boundaries"))
+    runs, part, off = _off_boundaries(ctx)
+    poly = np.isin(net.part_roles[part], ("contact", "fault"))
+    if poly.any():
+        pieces, k = linear_parts(off[poly], tol * ABOVE)
+        found.append((pieces, part[poly][k], "boundaries"))
     runs, part = net.runs(sel_edge)
     if len(runs) and cov.extent is not None:
         off = uncovered(runs, np.array([cov.extent_boundary], dtype=object), tol)
@@ -143,6 +142,19 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             else:
                 text = f"{net.label(f)} runs {num(length)} m outside every unit polygon."
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+
+
+def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The stretches of line with no exact unit edge (runs of segments, any kind), their part, and what of each
+    lies farther than the tolerance from every unit boundary; once per check (line-off-boundary and
+    line-duplicate both ask)."""
+
+    def compute() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        runs, part = ctx.line_network().runs(ctx.segment_edges() < 0)
+        off = off_unit_boundaries(runs, ctx.units(), float(ctx.tolerance)) if len(runs) else runs
+        return runs, part, off
+
+    return ctx.shared("linework.off-unit-boundaries", compute)
 
 
 # When missing linework is systematic rather than the exception (our own choice, not a published
@@ -688,7 +700,8 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
             # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
             if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
-                close = shapely.length(off_unit_boundaries(runs, ctx.units(), tol)) < shapely.length(runs) * (1 - 1e-12)
+                off = _off_boundaries(ctx)[2]  # the same stretches: those with no exact unit edge
+                close = shapely.length(off) < shapely.length(runs) * (1 - 1e-12)
             else:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
