@@ -394,8 +394,16 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     k_free = np.array([k for k, _ in free], dtype=np.int64)
     near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
     edge_gaps = shapely.distance(pts[k_free], edge) if edge is not None else np.full(len(k_free), np.inf)
-    for (k, part), j, gap, edge_gap in zip(free, near.tolist(), gaps.tolist(), edge_gaps.tolist()):
-        yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), j, gap, edge, edge_gap, tol, g)
+    # what each free end is measured against: the nearest other line, or the map edge when nearer
+    to_edge = edge_gaps < gaps
+    target = np.full(len(near), None, dtype=object)
+    target[near >= 0] = net.geoms[near[near >= 0]]
+    target[to_edge] = edge
+    gaps = np.where(to_edge, edge_gaps, gaps)
+    crossings = shapely.intersection(np.array([part for _, part in free], dtype=object), target)
+    for (k, part), j, gap, across, onto, crossing in zip(free, near.tolist(), gaps.tolist(), to_edge.tolist(), target, crossings):
+        name = "the map edge" if across else (f"line {net.ids[j]}" if j >= 0 else None)
+        yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), onto, gap, name, crossing, tol, g)
 
 
 def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
@@ -432,19 +440,16 @@ def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, to
     return nearest, gap
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, j: int, gap: float, edge: Any,
-                edge_gap: float, tol: float, g: Ground) -> Hit:
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, nearest: Any, gap: float, name: str | None,
+                crossing: Any, tol: float, g: Ground) -> Hit:
     """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line.
 
-    ``j`` and ``gap`` are the nearest other line and its distance (-1, inf: none); ``edge_gap`` the distance to the map edge.
+    ``nearest`` is the nearest other line or the map edge (None: neither), ``gap`` the distance to it, ``name``
+    how the message names it and ``crossing`` where the end's part meets it.
     """
-    nearest, name = (net.geoms[j], f"line {net.ids[j]}") if j >= 0 else (None, None)
-    if edge is not None and edge_gap < gap:
-        nearest, gap, name = edge, edge_gap, "the map edge"
     what = net.label(f)
     if nearest is None:
         return Hit(f"{what} ends free, with no other line on the map.", layer="lines", features=(net.ids[f],), geometry=pt)
-    crossing = shapely.intersection(part, nearest)
     length = part.length
     if not shapely.is_empty(crossing):
         along = shapely.line_locate_point(part, shapely.points(shapely.get_coordinates(crossing)))
