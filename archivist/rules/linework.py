@@ -46,6 +46,7 @@ from ..analysis.arrays import (
     segment_lines,
     text_values,
 )
+from ..analysis.halfedges import Edges
 from ..analysis.lines import LineNetwork, kind_role, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num
 from ..analysis.nearness import (
@@ -249,8 +250,8 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     lengths = np.asarray(g.lengths(pieces), dtype=float)
     between = ub >= 0
     totals = {
-        True: float(np.sum(g.lengths(edges.lines(np.flatnonzero(twin))))),
-        False: float(np.sum(g.lengths(edges.lines(np.flatnonzero(outline & ~twin))))),
+        True: _edges_length(edges, np.flatnonzero(twin), g),
+        False: _edges_length(edges, np.flatnonzero(outline & ~twin), g),
     }
     for inner in (True, False):
         sel = np.flatnonzero(between == inner)
@@ -270,6 +271,20 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
                         f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
                 feats = (units.ids[u],)
             yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+
+
+def _edges_length(edges: Edges, idx: np.ndarray, g: Ground) -> float:
+    """Total ground length (m) of the selected unit edges.
+
+    In a projected CRS straight from the coordinates, as GEOS measures a
+    two-point line (the square root of dx² + dy², not ``hypot``), so the
+    total is the same as measuring the edges drawn as lines, without drawing them.
+    """
+    if g.geographic:
+        return float(np.sum(g.lengths(edges.lines(idx))))
+    dx = edges.qx[idx] - edges.px[idx]
+    dy = edges.qy[idx] - edges.py[idx]
+    return float(np.sum(np.sqrt(dx * dx + dy * dy) * g.factor))
 
 
 def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, pieces: np.ndarray, lengths: np.ndarray,
@@ -717,7 +732,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             both = np.unique(np.c_[ri[keep], fj[keep]], axis=0)
             ri, fj = both[:, 0], both[:, 1]
             if len(ri):
-                near = _near_shared(runs[ri], net.geoms[fj], net.part_ends(rpart[ri]), tol)
+                near = _near_shared(runs[ri], net.geoms, fj, net.part_ends(rpart[ri]), tol)
                 lengths = shapely.length(near)
                 for r, b, g, length in zip(ri, fj, near, lengths):
                     if length <= tol * ABOVE:
@@ -738,9 +753,14 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
 
 
-def _near_shared(runs: np.ndarray, others: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
-    """The part of each run within ``tol`` of the other line, away from where the two lines meet or end."""
-    close = shapely.intersection(runs, shapely.buffer(others, tol))
+def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
+    """The part of each run within ``tol`` of the other line (``lines[other]``), away from where the two lines meet or end.
+
+    Each line is buffered once, however many runs it is compared with.
+    """
+    used, back = np.unique(other, return_inverse=True)
+    others = lines[other]
+    close = shapely.intersection(runs, shapely.buffer(lines[used], tol)[back])
     meet = shapely.intersection(runs, others)
     ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends))
     junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
