@@ -12,7 +12,8 @@ on a clean map lines and polygons agree exactly.
 
 Defect injection returns changed copies: ``enlarge`` (overlaps), ``shrink``
 and ``remove`` (gaps), ``nudge_vertex`` (an edge misfit), ``extend_line``
-(a dangle).
+(a dangle); ``with_defect_density`` gives a fraction of the features each
+kind of editing defect at once.
 
 All content is invented; unit codes are ``U01``, ``U02``...
 """
@@ -25,6 +26,7 @@ from pathlib import Path
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import pyogrio
 import shapely
 from shapely.geometry import LineString, box
@@ -249,6 +251,103 @@ def extend_line(smap: SyntheticMap, j: int, length: float) -> SyntheticMap:
     u = (b - a) / np.hypot(*(b - a))
     lines.loc[lines.index[j], "geometry"] = LineString(np.vstack([xy, b + u * length]))
     return replace(smap, lines=lines)
+
+
+def _pick(rng: np.random.Generator, pool: np.ndarray, counts: list[int]) -> list[np.ndarray]:
+    """Disjoint random draws of the given sizes from ``pool`` (sorted within each draw)."""
+    take = rng.choice(pool, min(sum(counts), len(pool)), replace=False)
+    out, at = [], 0
+    for c in counts:
+        out.append(np.sort(take[at:at + c]))
+        at += c
+    return out
+
+
+def _translate(geoms: np.ndarray, dx: np.ndarray, dy: np.ndarray) -> np.ndarray:
+    """Each geometry moved by its own (dx, dy), all at once."""
+    xy, k = shapely.get_coordinates(geoms, return_index=True)
+    xy = xy + np.c_[dx[k], dy[k]]
+    return shapely.set_coordinates(np.array(geoms, dtype=object, copy=True), xy)
+
+
+def with_defect_density(smap: SyntheticMap, density: float, seed: int) -> tuple[SyntheticMap, list[dict]]:
+    """A fraction ``density`` of the features given each kind of defect a mapper's editing leaves, all at once.
+
+    Each kind on its own features, drawn at random (at least one of each when
+    density > 0): contacts moved 1 m sideways (perpendicular to their chord),
+    contacts and faults deleted, polygons deleted (gaps), polygons grown 2 m
+    mitred into their neighbours (overlaps, clipped to the extent), polygons
+    with one outer-ring vertex moved 1 cm (misfits), and contacts crossed at
+    their middle by a new straight 60 m fault. Returns the changed map and
+    the list of what was changed (feature numbers as written: position + 1,
+    before deletion).
+    """
+    rng = np.random.default_rng(seed + 1)
+    units = smap.units.geometry.values.copy()
+    lines = smap.lines.geometry.values.copy()
+    kind = smap.lines["kind"].to_numpy()
+    n_poly = len(units)
+    contacts = np.flatnonzero(kind == "contact")
+    faults = np.flatnonzero(kind == "fault")
+
+    def count(n: int) -> int:
+        return max(1, int(round(density * n))) if n else 0
+
+    # polygons: buffered, vertex moved, deleted (disjoint)
+    simple = np.flatnonzero(shapely.get_type_id(units) == shapely.GeometryType.POLYGON.value)
+    grow, moved = _pick(rng, simple, [count(n_poly), count(n_poly)])
+    rest = np.setdiff1d(np.arange(n_poly), np.r_[grow, moved])
+    (drop,) = _pick(rng, rest, [count(n_poly)])
+    units[grow] = shapely.intersection(shapely.buffer(units[grow], 2.0, join_style="mitre"), smap.extent)
+    ring_n = shapely.get_num_coordinates(shapely.get_exterior_ring(units[moved]))
+    vertex = 1 + (rng.random(len(moved)) * np.maximum(ring_n - 2, 1)).astype(np.int64)  # never the closing vertex
+    xy, k = shapely.get_coordinates(units[moved], return_index=True)
+    start = np.searchsorted(k, np.arange(len(moved)))
+    ang = rng.uniform(0, 2 * np.pi, len(moved))
+    xy[start + vertex] += np.c_[np.cos(ang), np.sin(ang)] * 0.01
+    units[moved] = shapely.set_coordinates(units[moved].copy(), xy)
+    # lines: contacts shifted, contacts crossed by a fault, lines (contacts and faults) deleted
+    shifted, crossed = _pick(rng, contacts, [count(len(contacts)), count(len(contacts))])
+    pool = np.setdiff1d(np.r_[contacts, faults], np.r_[shifted, crossed])
+    (deleted,) = _pick(rng, pool, [count(len(contacts) + len(faults))])
+    a = shapely.get_coordinates(shapely.get_point(lines[shifted], 0))
+    b = shapely.get_coordinates(shapely.get_point(lines[shifted], -1))
+    d = b - a
+    norm = np.hypot(d[:, 0], d[:, 1])
+    loop = norm == 0  # a closed contact: moved east
+    nx = np.where(loop, 1.0, -d[:, 1] / np.where(loop, 1.0, norm))
+    ny = np.where(loop, 0.0, d[:, 0] / np.where(loop, 1.0, norm))
+    lines[shifted] = _translate(lines[shifted], nx, ny)
+    mid = shapely.line_interpolate_point(lines[crossed], 0.5, normalized=True)
+    ahead = shapely.line_interpolate_point(lines[crossed], np.minimum(shapely.length(lines[crossed]) / 2 + 0.5,
+                                                                        shapely.length(lines[crossed])))
+    m, q = shapely.get_coordinates(mid), shapely.get_coordinates(ahead)
+    t = q - m
+    tn = np.hypot(t[:, 0], t[:, 1])
+    tn[tn == 0] = 1.0
+    across = np.c_[-t[:, 1], t[:, 0]] / tn[:, None] * 30.0
+    new_faults = shapely.linestrings(np.stack([m - across, m + across], axis=1).round(2))
+    keep = np.ones(len(lines), dtype=bool)
+    keep[deleted] = False
+    frame = smap.lines.copy()
+    frame["geometry"] = lines
+    frame = frame[keep]
+    extra = gpd.GeoDataFrame({"kind": ["fault"] * len(new_faults), "certainty": ["inferred"] * len(new_faults)},
+                             geometry=list(new_faults), crs=smap.lines.crs)
+    frame = gpd.GeoDataFrame(pd.concat([frame, extra], ignore_index=True), geometry="geometry", crs=smap.lines.crs)
+    uframe = smap.units.copy()
+    uframe["geometry"] = units
+    ukeep = np.ones(n_poly, dtype=bool)
+    ukeep[drop] = False
+    uframe = gpd.GeoDataFrame(uframe[ukeep], geometry="geometry", crs=smap.units.crs)
+    # feature numbers as written (fid = position + 1), before deletion for the changed features
+    made = ([{"kind": "buffered", "polygon": int(i) + 1} for i in grow]
+            + [{"kind": "vertex-moved", "polygon": int(i) + 1} for i in moved]
+            + [{"kind": "polygon-deleted", "polygon": int(i) + 1} for i in drop]
+            + [{"kind": "contact-shifted", "line": int(i) + 1} for i in shifted]
+            + [{"kind": "fault-crossing", "line": int(i) + 1} for i in crossed]
+            + [{"kind": "line-deleted", "line": int(i) + 1} for i in deleted])
+    return replace(smap, units=uframe, lines=frame), made
 
 
 # ---------------------------------------------------------------- a 10 m square map at 1:1 000

@@ -208,6 +208,73 @@ def outline_of(edges: Edges, extent: Any, tol: float) -> np.ndarray:
     return outline
 
 
+def _blank(values: np.ndarray, failed: np.ndarray) -> np.ndarray:
+    """The geometries with None where GEOS failed."""
+    out = np.array(values, dtype=object, copy=True)
+    out[failed] = None
+    return out
+
+
+def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray, invalid: dict[int, Any],
+               pair_pieces: dict[tuple[int, int], list[Any]], unexplained: set[tuple[int, ...]],
+               ) -> tuple[list[tuple[tuple[int, int], Any, float]], list[Failure]]:
+    """Edges of two polygons GEOS found invalid that run together, less what an overlap of the pair explains.
+
+    For every pair of intersecting implicated polygons (one per defect): the
+    common part of their invalid edges, merged, minus their overlap pieces;
+    all pairs at once. A pair GEOS cannot process is one failure.
+    """
+    a, b = tree.query(geoms[implicated], predicate="intersects")
+    a = implicated[a]
+    keep = (a < b) & np.isin(b, implicated)
+    a, b = a[keep], b[keep]
+    if unexplained:
+        known = np.array([(int(p), int(q)) not in unexplained for p, q in zip(a.tolist(), b.tolist())], dtype=bool)
+        a, b = a[known], b[known]
+    doing, aspects = "comparing their common edge", frozenset((MISFITS,))
+    lost = np.zeros(len(a), dtype=bool)
+    reason: dict[int, str] = {}
+
+    def mark(rows: np.ndarray, failed: np.ndarray, reasons: list[str]) -> None:
+        for r, why in zip(rows[failed].tolist(), reasons):
+            lost[r] = True
+            reason.setdefault(r, why)
+
+    inv_a = np.array([invalid[int(u)] for u in a], dtype=object)
+    inv_b = np.array([invalid[int(u)] for u in b], dtype=object)
+    rows = np.arange(len(a))
+    common, failed, reasons = elementwise(shapely.intersection, inv_a, inv_b)
+    mark(rows, failed, reasons)
+    lines, k = linear_parts(_blank(common, failed))
+    merged = np.full(len(a), None, dtype=object)
+    if len(lines):
+        shapely.multilinestrings(lines, indices=k, out=merged)
+        have = np.flatnonzero(~shapely.is_missing(merged))
+        out, failed, reasons = elementwise(shapely.line_merge, merged[have])
+        mark(have, failed, reasons)
+        merged[have] = _blank(out, failed)
+    # less the overlap pieces of the same pair
+    pieces = [(r, piece) for r, (p, q) in enumerate(zip(a.tolist(), b.tolist())) if not shapely.is_missing(merged[r])
+              for piece in pair_pieces.get((p, q), ())]
+    if pieces:
+        r_of = np.array([r for r, _ in pieces], dtype=np.int64)
+        width = int(np.bincount(r_of).max())
+        table = np.full((len(a), width), None, dtype=object)
+        rank = np.arange(len(r_of)) - np.searchsorted(r_of, r_of)
+        table[r_of, rank] = [piece for _, piece in pieces]
+        ex = np.unique(r_of)
+        union, failed, reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table[ex])
+        mark(ex, failed, reasons)
+        ok = ex[~failed]
+        out, failed, reasons = elementwise(shapely.difference, merged[ok], union[~failed])
+        mark(ok, failed, reasons)
+        merged[ok] = _blank(out, failed)
+    length = shapely.length(merged)
+    found = [((int(p), int(q)), g, float(n)) for p, q, g, n, x in zip(a, b, merged, length, lost) if not x and n > 0]
+    failures = [Failure((int(a[r]), int(b[r])), doing, aspects, reason[r]) for r in sorted(reason)]
+    return found, failures
+
+
 def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float) -> Coverage:
     """Overlaps, gaps, outside parts and misaligned edges of the unit polygons, and the map extent."""
     geoms = units.geoms
@@ -300,28 +367,9 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     # 5. edges that run together exactly but with different vertices (GEOS "misaligned")
     collinear: list[tuple[tuple[int, int], Any, float]] = []
     if len(implicated) > 1:
-        a, b = tree.query(geoms[implicated], predicate="intersects")
-        a = implicated[a]
-        keep = (a < b) & np.isin(b, implicated)
-        unexplained = {f.units for f in failures if OVERLAPS in f.aspects}  # their overlap is not known
-        for pp, qq in zip(a[keep], b[keep]):  # pairs of polygons GEOS found invalid: one per defect
-            if (int(pp), int(qq)) in unexplained:
-                continue
-            try:
-                common = shapely.intersection(invalid[int(pp)], invalid[int(qq)])
-                lines, _ = linear_parts(np.array([common], dtype=object))
-                if not len(lines):
-                    continue
-                merged = shapely.line_merge(shapely.multilinestrings(lines))
-                explained = pair_pieces.get((int(pp), int(qq)))
-                if explained:
-                    merged = shapely.difference(merged, shapely.union_all(explained))
-            except GEOSException as exc:
-                failures.append(Failure((int(pp), int(qq)), "comparing their common edge", frozenset((MISFITS,)), reason_of(exc)))
-                continue
-            length = float(shapely.length(merged))
-            if length > 0:
-                collinear.append(((int(pp), int(qq)), merged, length))
+        collinear, lost = _collinear(tree, geoms, implicated, invalid, pair_pieces,
+                                     {f.units for f in failures if OVERLAPS in f.aspects})  # their overlap is not known
+        failures += lost
     # 6. gaps: the extent minus the union
     gap_pieces: list[Piece] = []
     outside: list[Piece] = []
@@ -363,8 +411,10 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
                 except GEOSException as exc:
                     failures.append(Failure(tuple(int(u) for u in np.unique(ui[np.isin(gi, thin)])),
                                             "comparing a gap with the map edge", frozenset((GAPS, MISFITS)), reason_of(exc)))
+            by_gap = np.argsort(gi, kind="stable")
+            cuts = np.searchsorted(gi[by_gap], np.arange(len(gaps) + 1))
             for gk, (g, ww) in enumerate(zip(gaps, w)):
-                around = tuple(sorted(int(u) for u in ui[gi == gk]))
+                around = tuple(sorted(int(u) for u in ui[by_gap[cuts[gk]:cuts[gk + 1]]]))
                 if lost[gk]:
                     failures.append(Failure(around, "measuring the gap between them", frozenset((GAPS, MISFITS)),
                                             reasons[0] if reasons else "GEOS failed"))
@@ -488,10 +538,18 @@ def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
         if not inside:
             add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
     pieces = cov.overlaps + tuple(p for p in cov.gaps if not p.on_frame) + cov.outside
-    for (pair, geom, length), inside in zip(cov.collinear, part_of[len(thin_overlaps) + len(thin_gaps):]):
-        # vertices missing from one side at the corners of a gap or overlap between the
-        # same two polygons belong to that defect
-        if inside or any(pair[0] in p.units and pair[1] in p.units and shapely.intersects(geom, p.geom) for p in pieces):
+    # vertices missing from one side at the corners of a gap or overlap between the
+    # same two polygons belong to that defect
+    at_corner = np.zeros(len(cov.collinear), dtype=bool)
+    if pieces and cov.collinear:
+        ci, pj = shapely.STRtree(np.array([p.geom for p in pieces], dtype=object)).query(
+            np.array([c[1] for c in cov.collinear], dtype=object), predicate="intersects")
+        for c, q in zip(ci.tolist(), pj.tolist()):  # few: misaligned edges touching a defect
+            pair = cov.collinear[c][0]
+            if pair[0] in pieces[q].units and pair[1] in pieces[q].units:
+                at_corner[c] = True
+    for (pair, geom, length), inside, corner in zip(cov.collinear, part_of[len(thin_overlaps) + len(thin_gaps):], at_corner):
+        if inside or corner:
             continue
         add(pair, geom, length, None)
     out = []

@@ -46,6 +46,7 @@ from ..analysis.arrays import (
     segment_lines,
     text_values,
 )
+from ..analysis.halfedges import Edges
 from ..analysis.lines import LineNetwork, kind_role, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
@@ -116,14 +117,13 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     on = se >= 0
     on_outline = on.copy()
     on_outline[on] = cov.outline[se[on]]
-    sel_poly = ~on & np.isin(roles, ("contact", "fault"))
     sel_edge = ~on_outline & (roles == "boundary")
     found = []
-    runs, part = net.runs(sel_poly)
-    if len(runs):
-        off = off_unit_boundaries(runs, units, tol)
-        pieces, k = linear_parts(off, tol * ABOVE)
-        found.append((pieces, part[k], "boundaries"))
+    runs, part, off = _off_boundaries(ctx)
+    poly = np.isin(net.part_roles[part], ("contact", "fault"))
+    if poly.any():
+        pieces, k = linear_parts(off[poly], tol * ABOVE)
+        found.append((pieces, part[poly][k], "boundaries"))
     runs, part = net.runs(sel_edge)
     if len(runs) and cov.extent is not None:
         off = uncovered(runs, np.array([cov.extent_boundary], dtype=object), tol)
@@ -154,6 +154,19 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
                 text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
                         f"{_away(piece, shapely.boundary(units.geoms[near]), crs, m)} of the nearest, {units.label(near)}.")
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+
+
+def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The stretches of line with no exact unit edge (runs of segments, any kind), their part, and what of each
+    lies farther than the tolerance from every unit boundary; once per check (line-off-boundary and
+    line-duplicate both ask)."""
+
+    def compute() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        runs, part = ctx.line_network().runs(ctx.segment_edges() < 0)
+        off = off_unit_boundaries(runs, ctx.units(), float(ctx.tolerance)) if len(runs) else runs
+        return runs, part, off
+
+    return ctx.shared("linework.off-unit-boundaries", compute)
 
 
 # When missing linework is systematic rather than the exception (our own choice, not a published
@@ -248,8 +261,8 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     lengths = np.asarray(g.lengths(pieces), dtype=float)
     between = ub >= 0
     totals = {
-        True: float(np.sum(g.lengths(edges.lines(np.flatnonzero(twin))))),
-        False: float(np.sum(g.lengths(edges.lines(np.flatnonzero(outline & ~twin))))),
+        True: _edges_length(edges, np.flatnonzero(twin), g),
+        False: _edges_length(edges, np.flatnonzero(outline & ~twin), g),
     }
     for inner in (True, False):
         sel = np.flatnonzero(between == inner)
@@ -269,6 +282,20 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
                         f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
                 feats = (units.ids[u],)
             yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+
+
+def _edges_length(edges: Edges, idx: np.ndarray, g: Ground) -> float:
+    """Total ground length (m) of the selected unit edges.
+
+    In a projected CRS straight from the coordinates, as GEOS measures a
+    two-point line (the square root of dx² + dy², not ``hypot``), so the
+    total is the same as measuring the edges drawn as lines, without drawing them.
+    """
+    if g.geographic:
+        return float(np.sum(g.lengths(edges.lines(idx))))
+    dx = edges.qx[idx] - edges.px[idx]
+    dy = edges.qy[idx] - edges.py[idx]
+    return float(np.sum(np.sqrt(dx * dx + dy * dy) * g.factor))
 
 
 def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, pieces: np.ndarray, lengths: np.ndarray,
@@ -380,7 +407,8 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         if cov.extent is not None:
             edge = cov.extent_boundary
             connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
-    for k in np.flatnonzero(~connected):
+    free = []
+    for k in np.flatnonzero(~connected):  # few: ends with no other line near
         p, f = int(end_part[k]), int(end_feat[k])
         part = net.part(p)
         length = part.length
@@ -391,34 +419,69 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
         if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
             continue
-        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g, project.crs or project.layers["lines"].crs)
+        free.append((k, part))
+    if not free:
+        return
+    k_free = np.array([k for k, _ in free], dtype=np.int64)
+    near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
+    edge_gaps = shapely.distance(pts[k_free], edge) if edge is not None else np.full(len(k_free), np.inf)
+    # what each free end is measured against: the nearest other line, or the map edge when nearer
+    to_edge = edge_gaps < gaps
+    target = np.full(len(near), None, dtype=object)
+    target[near >= 0] = net.geoms[near[near >= 0]]
+    target[to_edge] = edge
+    gaps = np.where(to_edge, edge_gaps, gaps)
+    crossings = shapely.intersection(np.array([part for _, part in free], dtype=object), target)
+    for (k, part), j, gap, across, onto, crossing in zip(free, near.tolist(), gaps.tolist(), to_edge.tolist(), target, crossings):
+        name = "the map edge" if across else (_lower(net.label(j)) if j >= 0 else None)
+        yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), onto, gap, name, crossing, tol, g,
+                          project.crs or project.layers["lines"].crs)
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground,
-                crs: Any = None) -> Hit:
-    """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
-    nearest, gap, name = None, np.inf, None
+def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
+    """For each point, the nearest line feature other than its own (index, distance), or (-1, inf).
+
+    Searched in widening circles (from ten tolerances or a thousandth of the
+    map, four times wider each round, up to four map sizes), all points of a
+    round in one bulk query; among lines at the same distance the first the
+    spatial index returns wins.
+    """
+    n = len(pts)
+    nearest = np.full(n, -1, dtype=np.int64)
+    gap = np.full(n, np.inf)
     xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
     size = max(xmax - xmin, ymax - ymin, 1.0)
     radius = max(10.0 * tol, 1e-3 * size)
-    while radius <= 4.0 * size:
-        cand = net.tree.query(shapely.buffer(pt, radius))
-        cand = cand[cand != f]
-        if len(cand):
-            d = shapely.distance(pt, net.geoms[cand])
-            j = int(np.argmin(d))
-            if d[j] <= radius:
-                nearest, gap, name = net.geoms[cand[j]], float(d[j]), _lower(net.label(int(cand[j])))
-                break
+    todo = np.arange(n)
+    while radius <= 4.0 * size and len(todo):
+        pi, cand = net.tree.query(shapely.buffer(pts[todo], radius))
+        keep = cand != feats[todo][pi]
+        pi, cand = pi[keep], cand[keep]
+        found = np.zeros(len(todo), dtype=bool)
+        if len(pi):
+            d = shapely.distance(pts[todo][pi], net.geoms[cand])
+            order = np.lexsort((np.arange(len(pi)), d, pi))  # per point: smallest distance, first returned
+            first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
+            ok = d[first] <= radius
+            hit = pi[first][ok]
+            nearest[todo[hit]] = cand[first][ok]
+            gap[todo[hit]] = d[first][ok]
+            found[hit] = True
+        todo = todo[~found]
         radius *= 4.0
-    if edge is not None:
-        d = float(shapely.distance(pt, edge))
-        if d < gap:
-            nearest, gap, name = edge, d, "the map edge"
+    return nearest, gap
+
+
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, nearest: Any, gap: float, name: str | None,
+                crossing: Any, tol: float, g: Ground, crs: Any = None) -> Hit:
+    """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line.
+
+    ``nearest`` is the nearest other line or the map edge (None: neither), ``gap`` the distance to it, ``name``
+    how the message names it and ``crossing`` where the end's part meets it.
+    """
     what = net.label(f)
     if nearest is None:
         return Hit(f"{what} ends free, with no other line on the map.", layer="lines", features=(net.ids[f],), geometry=pt)
-    crossing = shapely.intersection(part, nearest)
     length = part.length
     if not shapely.is_empty(crossing):
         along = shapely.line_locate_point(part, shapely.points(shapely.get_coordinates(crossing)))
@@ -710,7 +773,8 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             # ... and, for stretches that come within the tolerance of a unit boundary, the lines drawn on it
             # (a line drawn exactly on the boundary can only be near a stretch that is near the boundary)
             if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
-                close = shapely.length(off_unit_boundaries(runs, ctx.units(), tol)) < shapely.length(runs) * (1 - 1e-12)
+                off = _off_boundaries(ctx)[2]  # the same stretches: those with no exact unit edge
+                close = shapely.length(off) < shapely.length(runs) * (1 - 1e-12)
             else:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
@@ -721,7 +785,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             both = np.unique(np.c_[ri[keep], fj[keep]], axis=0)
             ri, fj = both[:, 0], both[:, 1]
             if len(ri):
-                near = _near_shared(runs[ri], net.geoms[fj], net.part_ends(rpart[ri]), tol)
+                near = _near_shared(runs[ri], net.geoms, fj, net.part_ends(rpart[ri]), tol)
                 lengths = shapely.length(near)
                 for r, b, g, length in zip(ri, fj, near, lengths):
                     if length <= tol * ABOVE:
@@ -742,9 +806,14 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
 
 
-def _near_shared(runs: np.ndarray, others: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
-    """The part of each run within ``tol`` of the other line, away from where the two lines meet or end."""
-    close = shapely.intersection(runs, shapely.buffer(others, tol))
+def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
+    """The part of each run within ``tol`` of the other line (``lines[other]``), away from where the two lines meet or end.
+
+    Each line is buffered once, however many runs it is compared with.
+    """
+    used, back = np.unique(other, return_inverse=True)
+    others = lines[other]
+    close = shapely.intersection(runs, shapely.buffer(lines[used], tol)[back])
     meet = shapely.intersection(runs, others)
     ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends))
     junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)

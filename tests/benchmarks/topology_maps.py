@@ -1,6 +1,6 @@
 """Synthetic maps for the topology benchmark, written as a project folder.
 
-    python tests/benchmarks/topology_maps.py DIR N_POLYGONS [--seed S] [--defects K]
+    python tests/benchmarks/topology_maps.py DIR N_POLYGONS [--seed S] [--defects K | --density D [--scale S]]
 
 The map comes from ``tests/coverage_builders.py``: a GEOS Voronoi coverage of
 jittered points dissolved into about N unit polygons, with faults between
@@ -10,6 +10,26 @@ clean map must give no topology or linework finding. ``--defects K`` then
 injects K of each of: an overlap (a polygon grown by 5 tolerances), a gap (a
 polygon removed) and a dangle (a contact prolonged by 5 tolerances), at
 random places, and lists them in ``defects.json`` beside the map.
+
+``--density D`` instead gives a fraction D of the features each kind of
+defect a mapper's editing leaves, all at once (every kind on its own
+features, drawn at random):
+
+* contacts redigitised 1 m off: a fraction D of the contacts moved 1 m
+  sideways (perpendicular to the line from their first to their last vertex);
+* lines deleted: a fraction D of the contacts and faults removed;
+* polygons deleted: a fraction D of the unit polygons removed (gaps);
+* polygons buffered: a fraction D of the polygons grown 2 m (mitred) into
+  their neighbours (overlaps), clipped to the map extent;
+* vertices moved: a fraction D of the polygons with one vertex of their
+  outer ring moved 1 cm (misfits with the neighbours sharing it);
+* faults crossing contacts: a fraction D of the contacts crossed at their
+  middle by a new straight fault 60 m long (faults may end inside units).
+
+At least one feature of each kind is changed when D > 0. The benchmark
+draws its density maps (D = 0 included) at ``--scale 5000``, whose
+tolerance (0.1 mm, 0.5 m) is below the 1 m shift, so the redigitised
+contacts are real defects; the default scale is 1:10 000.
 Everything in the map is invented.
 """
 
@@ -25,13 +45,16 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
-from coverage_builders import enlarge, extend_line, remove, synthetic_map, write_map  # noqa: E402
+from coverage_builders import enlarge, extend_line, remove, synthetic_map, with_defect_density, write_map  # noqa: E402
 
 
-def make(folder: Path, n: int, seed: int = 0, defects: int = 0) -> dict:
+def make(folder: Path, n: int, seed: int = 0, defects: int = 0, density: float = 0.0, scale: int | None = None) -> dict:
     """Write the map into ``folder`` (which must not exist) and return what was made."""
-    smap = synthetic_map(n, seed=seed)
+    smap = synthetic_map(n, seed=seed, **({"scale": scale} if scale else {}))
     made = {"polygons": len(smap.units), "lines": len(smap.lines), "defects": []}
+    if density > 0:
+        smap, made["defects"] = with_defect_density(smap, density, seed)
+        made["polygons"], made["lines"] = len(smap.units), len(smap.lines)
     if defects:
         rng = np.random.default_rng(seed + 1)
         d = 5 * smap.tolerance
@@ -59,9 +82,16 @@ def main(argv=None) -> int:
     ap.add_argument("n", type=int)
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--defects", type=int, default=0)
+    ap.add_argument("--density", type=float, default=0.0, help="fraction of features carrying each kind of defect")
+    ap.add_argument("--scale", type=int, default=None, help="map scale (default 10 000)")
     args = ap.parse_args(argv)
-    made = make(args.folder, args.n, args.seed, args.defects)
-    print(json.dumps(made))
+    if args.density and args.defects:
+        ap.error("--defects and --density do not go together")
+    made = make(args.folder, args.n, args.seed, args.defects, args.density, args.scale)
+    kinds: dict[str, int] = {}
+    for d in made["defects"]:
+        kinds[d["kind"]] = kinds.get(d["kind"], 0) + 1
+    print(json.dumps({"polygons": made["polygons"], "lines": made["lines"], "defects": kinds}))
     return 0
 
 

@@ -1,0 +1,157 @@
+"""Whole-array versions of the per-defect steps agree with plain per-item loops, on a map full of defects.
+
+The map is the synthetic coverage of ``coverage_builders`` (about 2 000
+polygons at 1:5 000, tolerance 0.5 m) with 5 % of its features carrying each
+kind of editing defect (``with_defect_density``: contacts 1 m off, lines and
+polygons deleted, polygons grown 2 m, vertices moved 1 cm, faults across
+contacts), and 2 % of the polygons with extra vertices along their edges. Each whole-array step is compared with the loop it stands for,
+written out plainly here: one GEOS call per pair, per free line end, per
+stretch. The reference loops use GEOS (through shapely) for every
+geometric answer, so both sides rest on the same outside library; the test
+is that the bulk formulation changes nothing, not how fast it is.
+"""
+
+from __future__ import annotations
+
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+import shapely
+from hypothesis import given
+from hypothesis import strategies as st
+
+from archivist.analysis.arrays import linear_parts
+from archivist.analysis.context import CheckContext
+from archivist.analysis.coverage import _collinear
+from archivist.analysis.nearness import off_unit_boundaries
+from archivist.project import load_project
+from archivist.rules.linework import _nearest_other_line, _off_boundaries
+from coverage_builders import synthetic_map, with_defect_density, with_units, write_map
+
+
+@pytest.fixture(scope="module")
+def dense(tmp_path_factory):
+    smap, made = with_defect_density(synthetic_map(2000, seed=3, scale=5000), 0.05, seed=3)
+    # and 2 % of the polygons with extra vertices on their edges, which their neighbours lack (misaligned edges)
+    geoms = smap.units.geometry.values.copy()
+    extra = np.random.default_rng(3).choice(len(geoms), len(geoms) // 50, replace=False)
+    geoms[extra] = shapely.segmentize(geoms[extra], 15.0)
+    smap = with_units(smap, geoms)
+    folder = write_map(smap, tmp_path_factory.mktemp("dense") / "map")
+    kinds = {d["kind"] for d in made}
+    assert kinds == {"buffered", "vertex-moved", "polygon-deleted", "contact-shifted", "fault-crossing", "line-deleted"}
+    return CheckContext(load_project(folder))
+
+
+# ---------------------------------------------------------------- nearest other line (line-dangle)
+
+def nearest_by_loop(geoms, tree, pt, own, tol):
+    """One point at a time: widening circles, first smallest distance among the lines the index returns."""
+    xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
+    size = max(xmax - xmin, ymax - ymin, 1.0)
+    radius = max(10.0 * tol, 1e-3 * size)
+    while radius <= 4.0 * size:
+        cand = tree.query(shapely.buffer(pt, radius))
+        cand = cand[cand != own]
+        if len(cand):
+            d = shapely.distance(pt, geoms[cand])
+            j = int(np.argmin(d))
+            if d[j] <= radius:
+                return int(cand[j]), float(d[j])
+        radius *= 4.0
+    return -1, np.inf
+
+
+def assert_nearest_agrees(geoms, pts, own, tol):
+    net = SimpleNamespace(geoms=geoms, tree=shapely.STRtree(geoms))
+    got_j, got_d = _nearest_other_line(net, pts, own, tol)
+    for k, pt in enumerate(pts):
+        j, d = nearest_by_loop(geoms, net.tree, pt, own[k], tol)
+        assert (int(got_j[k]), float(got_d[k])) == (j, d), k
+
+
+def test_nearest_other_line_matches_the_loop_at_every_line_end(dense):
+    net = dense.line_network()
+    ends = np.r_[net.part_off[:-1], net.part_off[1:] - 1]
+    own = np.r_[net.part_feat, net.part_feat]
+    pick = np.random.default_rng(0).choice(len(ends), 600, replace=False)
+    assert_nearest_agrees(net.geoms, shapely.points(net.coords[ends[pick]]), own[pick], dense.tolerance)
+
+
+coordinate = st.integers(0, 40).map(float)  # whole numbers: many lines at exactly the same distance
+segment = st.tuples(coordinate, coordinate, coordinate, coordinate).filter(lambda s: s[:2] != s[2:])
+
+
+@given(st.lists(segment, min_size=1, max_size=8), st.lists(st.tuples(coordinate, coordinate, st.integers(0, 7)), min_size=1, max_size=6),
+       st.sampled_from([0.0, 0.5, 3.0]))
+def test_nearest_other_line_matches_the_loop_on_small_maps(segments, points, tol):
+    geoms = shapely.linestrings(np.array(segments).reshape(-1, 2, 2))
+    pts = shapely.points([(x, y) for x, y, _ in points])
+    own = np.array([f % len(geoms) for _, _, f in points], dtype=np.int64)
+    assert_nearest_agrees(geoms, pts, own, tol)
+
+
+# ---------------------------------------------------------------- misaligned common edges (unit-edge-mismatch)
+
+def collinear_by_loop(tree, geoms, implicated, invalid, pair_pieces, unexplained):
+    """One pair at a time: common invalid edges, merged, less the pair's overlap pieces."""
+    a, b = tree.query(geoms[implicated], predicate="intersects")
+    a = implicated[a]
+    keep = (a < b) & np.isin(b, implicated)
+    out = []
+    for p, q in zip(a[keep], b[keep]):
+        if (int(p), int(q)) in unexplained:
+            continue
+        common = shapely.intersection(invalid[int(p)], invalid[int(q)])
+        lines, _ = linear_parts(np.array([common], dtype=object))
+        if not len(lines):
+            continue
+        merged = shapely.line_merge(shapely.multilinestrings(lines))
+        explained = pair_pieces.get((int(p), int(q)))
+        if explained:
+            merged = shapely.difference(merged, shapely.union_all(explained))
+        length = float(shapely.length(merged))
+        if length > 0:
+            out.append(((int(p), int(q)), merged, length))
+    return out
+
+
+def test_collinear_edges_match_the_pairwise_loop(dense):
+    units, edges, cov = dense.units(), dense.edges(), dense.coverage()
+    geoms = units.geoms
+    region = edges.suspects
+    region = np.union1d(region, units.tree.query(geoms[region], predicate="intersects")[1])
+    inv = shapely.coverage_invalid_edges(geoms[region], gap_width=dense.tolerance)
+    bad = ~shapely.is_missing(inv) & ~shapely.is_empty(inv)
+    implicated = region[bad]
+    invalid = dict(zip(implicated.tolist(), inv[bad]))
+    pair_pieces: dict[tuple[int, int], list] = {}
+    for piece in cov.overlaps:
+        pair_pieces.setdefault(piece.units, []).append(piece.geom)
+    assert len(implicated) > 100 and len(pair_pieces) > 100
+    for unexplained in (set(), set(list(pair_pieces)[:5])):
+        got, failures = _collinear(units.tree, geoms, implicated, invalid, pair_pieces, unexplained)
+        want = collinear_by_loop(units.tree, geoms, implicated, invalid, pair_pieces, unexplained)
+        assert not failures
+        assert [(p, shapely.to_wkt(g), n) for p, g, n in got] == [(p, shapely.to_wkt(g), n) for p, g, n in want]
+    # and the analysis itself found exactly these
+    got, _ = _collinear(units.tree, geoms, implicated, invalid, pair_pieces, set())
+    assert [(p, shapely.to_wkt(g)) for p, g, _ in cov.collinear] == [(p, shapely.to_wkt(g)) for p, g, _ in got]
+    assert len(cov.collinear) > 10
+    assert any(p in pair_pieces for p, _, _ in got)  # some with an overlap of the same pair taken out
+
+
+# ---------------------------------------------------------------- stretches off the unit boundaries, computed once
+
+def test_off_boundaries_shared_by_two_rules_equal_their_own_computation(dense):
+    net, units = dense.line_network(), dense.units()
+    se = dense.segment_edges()
+    runs, part = net.runs((se < 0) & np.isin(net.seg_roles, ("contact", "fault")))
+    own = off_unit_boundaries(runs, units, dense.tolerance)
+    shared_runs, shared_part, shared_off = _off_boundaries(dense)
+    poly = np.isin(net.part_roles[shared_part], ("contact", "fault"))
+    assert len(runs) > 100
+    assert shapely.to_wkt(shared_runs[poly]).tolist() == shapely.to_wkt(runs).tolist()
+    assert shared_part[poly].tolist() == part.tolist()
+    assert shapely.to_wkt(shared_off[poly]).tolist() == shapely.to_wkt(own).tolist()
