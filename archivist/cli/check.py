@@ -8,7 +8,7 @@ from pathlib import Path
 import click
 
 from .errors import handle_errors
-from .options import emit_report, progress_for, progress_options
+from .options import emit_report, jobs_option, progress_for, progress_options
 
 
 @click.command("check")
@@ -27,10 +27,12 @@ from .options import emit_report, progress_for, progress_options
     metavar="FILE",
     help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
 )
+@jobs_option
 @progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
-                  force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None) -> None:
+                  force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None,
+                  jobs: int = 0) -> None:
     """Check the map project at PATH (a folder or its archivist.toml), or each project in a folder of projects.
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
@@ -54,7 +56,7 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
     guard_outputs([(output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")], force=force, project_roots=[root])
     with progress_for(quiet, verbose) as progress:
         project = load_project(path, progress=progress)
-        report = engine.check(project, only=only, rules=rules, progress=progress)
+        report = engine.check(project, only=only, rules=rules, progress=progress, jobs=jobs)
         if html_out is not None:
             from ..report.html import write_html
 
