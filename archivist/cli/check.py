@@ -9,7 +9,7 @@ import click
 
 from .errors import handle_errors
 from ..registry import FAMILIES
-from .options import details_option, emit_report, only_help, progress_for, progress_options
+from .options import details_option, emit_report, jobs_option, only_help, progress_for, progress_options
 
 # `archive` rules need an archive: they run under `archivist audit`.
 CHECK_FAMILIES = tuple(f for f in FAMILIES if f != "archive")
@@ -32,11 +32,12 @@ CHECK_FAMILIES = tuple(f for f in FAMILIES if f != "archive")
     help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
 )
 @details_option
+@jobs_option
 @progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
                   force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None,
-                  details: bool = False) -> None:
+                  details: bool = False, jobs: int = 1) -> None:
     """Check the map project at PATH (a folder or its archivist.toml), one map file, or each project in a folder of projects.
 
     A GeoPackage or other vector file given alone is checked without a
@@ -66,7 +67,7 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
     guard_outputs([(output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")], force=force, project_roots=[root])
     with progress_for(quiet, verbose) as progress:
         project = load_project(path, progress=progress)
-        report = engine.check(project, only=only, rules=rules, progress=progress)
+        report = engine.check(project, only=only, rules=rules, progress=progress, jobs=jobs)
         if html_out is not None:
             from ..report.html import write_html
 

@@ -40,6 +40,20 @@ def only_help(families: tuple[str, ...]) -> str:
     return f"Run only this rule family (repeatable): {', '.join(families)}."
 
 
+def jobs_option(func: F) -> F:
+    """Add ``--jobs N``: worker processes for the rules run on spatial partitions of the map (default 1).
+
+    The default stays one process until a whole family runs on partitions
+    faster than in one process (measured with tests/benchmarks/bench_jobs.py);
+    ``--jobs 0`` uses every core.
+    """
+    return click.option(
+        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=1, show_default=True,
+        help="Worker processes for the topology and linework checks, run on parts of the map (0: every core). "
+             "The findings are the same whatever the number.",
+    )(func)
+
+
 def progress_for(quiet: bool, verbose: bool) -> Progress:
     """The progress hook for a command run (bars on a terminal, timings with -v)."""
     return make_progress(quiet=quiet, verbose=verbose)

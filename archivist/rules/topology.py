@@ -211,7 +211,7 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, GAPS)
 
 
-@rule("unit-sliver", family="topology", severity="warning", needs=("units",))
+@rule("unit-sliver", family="topology", severity="warning", needs=("units",), partitioned=True)
 def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A unit polygon is too small or too thin to be seen at publication scale.
 

@@ -1,0 +1,654 @@
+"""The expensive rules on spatial partitions of the map, run side by side and merged into one answer.
+
+What is partitioned
+-------------------
+A rule registered with ``partitioned=True`` (:func:`archivist.registry.rule`)
+judges every place of the map from what lies near it: the polygons, lines
+and samples within a known reach. Such a rule can run on a piece of the map
+with a margin around it and give, for the places in the piece, the findings
+it gives on the whole map. A rule whose answer depends on the whole map (a
+count over a layer, a summary of a systematic fault, the legend, the
+metadata, the CRS labels) runs once on the whole project, in the calling
+process.
+
+Which rules are partitioned, and why
+------------------------------------
+Partitioned: ``unit-sliver`` (each polygon alone), ``line-self-intersection``
+(each line alone), ``line-duplicate`` and ``line-same-unit-contact`` (a line,
+the lines within the tolerance of it and the polygon edges it runs along),
+``line-dangle`` (a free end, the lines and the map edge around it, and the
+nearest line, whose link is the finding's geometry), ``line-off-boundary``
+(a line and the polygon edges and map edge within the tolerance).
+
+Whole map, and why:
+
+- the metadata, crs, legend, structures and samples families: they judge
+  files, labels, tables and attributes (counts over a layer, a CRS for the
+  whole map, the n.d. note of a table); ``crs-axis-swap-suspected`` counts
+  the features of a layer that fit only swapped; ``sample-unit-mismatch``
+  names the nearest polygon of the recorded unit anywhere on the map.
+- ``boundary-without-line``: whether missing linework is reported stretch by
+  stretch or as one summary depends on its share of the whole map.
+- ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
+  ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
+  (:mod:`archivist.analysis.coverage`), whose union of the unit polygons is
+  not the same to the last bit on a part of the map as on the whole: where
+  polygons overlap, GEOS's overlay leaves slivers of 1e-9 m² that depend on
+  every polygon joined, and those slivers are gaps and misfits in the
+  report. ``unit-overlap`` alone would be local (exact pairwise
+  intersections), but it needs the whole analysis, which the other four
+  compute on the whole map anyway.
+- ``line-kind-unknown``, ``unit-code-missing``: attribute checks of each
+  feature, faster than sending the layer to a worker.
+
+How the map is cut
+------------------
+A grid of square cells, at least half the halo width ``h`` wide
+(:func:`halo_width`), spans the partitioned layers (every layer of the
+project but the extent, which every partition gets whole, cut to its cells;
+tables go whole). The cells are put in the order of the Hilbert distance of
+their centres over those bounds (:meth:`geopandas.GeoSeries.hilbert_distance`)
+and the order is cut into ``parts`` contiguous runs holding about the same
+number of features (counted by the centre of their bounds). A partition's
+*core* is its run of cells; its *marked* cells are those within ``h`` of the
+core (grown by ``ceil(h / cell) + 1`` cells); it holds every feature whose
+bounds touch a marked cell: its core features and its *halo*. Rows keep
+their original order, so every index-ordered step of a rule sees the same
+order as on the whole map. Features with no geometry go to the first
+partition.
+
+How findings are merged
+-----------------------
+A finding's place is its representative point, the ``x``, ``y`` the report
+gives (the hit's own point, else its geometry's point, else a point on its
+surface; :func:`archivist.engine.to_finding`). It is *owned* by the
+partition whose core holds that point's cell, so each finding is reported
+once, by one partition.
+
+A partition *trusts* a finding when the bounds of its geometry and place,
+grown by the rules' ``reach`` (:func:`rule_reach`: the farthest a partitioned
+rule looks from a place it judges), lie on its marked cells. Every feature
+over a marked cell is in the partition (its bounds touch that cell), so the
+rule saw there exactly what it sees on the whole map, and gives the same
+hit. A finding whose place lies in the core is trusted when it is no larger
+than the halo less the reach (the halo is three times the larger features,
+see :func:`halo_width`). The merge keeps each partition's owned findings,
+and runs a rule on the whole map instead (its answer replaces the
+partitions') when:
+
+- a finding owned by a partition is not trusted by it (a finding larger than
+  the halo allows: a gap as wide as a quarter of the map), or has no place;
+- a trusted finding of one partition is missing from its owner's findings
+  (a cross-check: the two saw different maps where both should see all);
+- GEOS stopped the rule in a partition.
+
+So the merged findings are the whole map's findings; the fallback costs time,
+never a finding. Findings of a rule are then put in one total order
+(:func:`archivist.engine.finding_order`), the same in one process.
+
+The interface
+-------------
+``run_partitioned(project, rules, executor, parts, step=None, left_out=())``
+takes the project *as the partitioned rules read it* (the aligned view,
+:meth:`archivist.analysis.context.CheckContext.view`, in the local frame when
+the map is in longitude/latitude), the :class:`~archivist.registry.RuleInfo`
+of the rules to run, any :class:`concurrent.futures.Executor` (a
+``ThreadPoolExecutor``: shapely 2 releases the GIL; a ``ProcessPoolExecutor``;
+a ``dask.distributed`` client's ``get_executor()``), the number of partitions,
+and optionally a progress step advanced once per partition done. It returns a
+:class:`Merged`: per rule id the owned hits (in the project's coordinates, as
+the rule yielded them, in partition order; the engine turns them into
+findings and orders them), the rule ids to run on the whole map instead, and
+the report notes the partitions made. The work of one partition is
+:func:`run_partition`, a top-level function of one picklable
+:class:`PartitionTask` (the partition's project, rule ids, the grid, its
+marked cells and the reach) returning a picklable
+:class:`PartitionResult`; it imports the rule modules itself, so it runs in
+a thread, a process or a remote worker alike. On ``KeyboardInterrupt`` (or
+any error) pending partitions are cancelled before the exception goes on.
+
+What this does not cover: a rule must be registered ``partitioned=True``
+only if its findings are decided from what lies within :func:`rule_reach`
+of them (or of their own geometry), to the last bit; the trust test cannot
+see a rule that reads farther. ``line-dangle`` names the nearest line at any
+distance: the link to it is the finding's geometry, so a far one is not
+trusted; but an end with no other line within four times the partition's
+size reads "no other line on the map" on the partition, a case only a map
+with a lone line far from all others can meet. A family runs on partitions
+only when every rule of it that runs is partitioned (the engine, see
+:func:`archivist.engine.run_rules`): its rules share analyses that a rule
+left in the calling process would build again for the whole map.
+"""
+
+from __future__ import annotations
+
+import os
+from concurrent.futures import Executor, Future, as_completed
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any, Sequence
+
+import numpy as np
+
+from .model import Hit
+
+if TYPE_CHECKING:
+    from .progress import Step
+    from .project import MapProject
+    from .registry import RuleInfo
+
+__all__ = [
+    "Merged",
+    "PartitionResult",
+    "PartitionTask",
+    "default_jobs",
+    "halo_width",
+    "make_executor",
+    "plan_partitions",
+    "rule_reach",
+    "run_partition",
+    "run_partitioned",
+    "stop_executor",
+    "worth_partitioning",
+]
+
+# Layers every partition gets whole: the extent is one frame for the whole map.
+WHOLE_LAYERS = ("extent",)
+# The halo width over the largest feature: a finding as large as the larger features (a polygon left out,
+# an overlap along a whole edge) is trusted by its owner whatever its place in the core.
+HALO_FEATURES = 3.0
+# The quantile of feature sizes taken as "the larger features" (a few huge polygons do not widen every halo;
+# a finding larger than the halo allows makes its rule run on the whole map, see the module docstring).
+SIZE_QUANTILE = 0.99
+
+
+def default_jobs() -> int:
+    """The cores this process may use (``os.sched_getaffinity`` where the system has it, else ``os.cpu_count()``)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+# Features per partition below which starting workers costs more than it saves (measured with
+# tests/benchmarks/bench_jobs.py: a 10^4-polygon map checks in about a second in one process).
+MIN_FEATURES_PER_PART = 5000
+
+
+def worth_partitioning(project: MapProject, parts: int) -> bool:
+    """Whether ``project`` is large enough to check on ``parts`` partitions (see ``MIN_FEATURES_PER_PART``)."""
+    n = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
+    return n >= MIN_FEATURES_PER_PART * parts
+
+
+def make_executor(jobs: int, kind: str = "process") -> Executor:
+    """An executor of ``jobs`` workers: ``"process"`` (separate processes, the default) or ``"thread"``."""
+    from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
+
+    if kind == "thread":
+        return ThreadPoolExecutor(max_workers=jobs, thread_name_prefix="archivist")
+    if kind == "process":
+        import multiprocessing
+
+        # fork where the system has it: the workers start with the rule modules already imported
+        methods = multiprocessing.get_all_start_methods()
+        context = multiprocessing.get_context("fork" if "fork" in methods else None)
+        return ProcessPoolExecutor(max_workers=jobs, mp_context=context, initializer=_quiet_worker)
+    raise ValueError(f"unknown executor kind {kind!r}")
+
+
+def stop_executor(executor: Executor) -> None:
+    """Stop an executor now: cancel what has not started and end the worker processes (a Ctrl-C, an error)."""
+    executor.shutdown(wait=False, cancel_futures=True)
+    terminate = getattr(executor, "terminate_workers", None)  # Python 3.14
+    if terminate is not None:
+        terminate()
+        return
+    for proc in list((getattr(executor, "_processes", None) or {}).values()):
+        if proc.is_alive():
+            proc.terminate()
+    for proc in list((getattr(executor, "_processes", None) or {}).values()):
+        proc.join(timeout=5)
+
+
+def _quiet_worker() -> None:
+    """A worker process leaves Ctrl-C to its parent, which cancels the work and stops it."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+# ---------------------------------------------------------------- the halo
+
+
+def rule_reach(project: MapProject) -> float:
+    """The farthest, in the project's units, a partitioned rule looks from a place it judges.
+
+    The tolerance sets every search of the topology and linework rules; the
+    farthest is the first radius of the search for the line nearest a free end
+    (10 tolerances, ``line-dangle``), ahead of the junction zones of
+    ``line-duplicate`` (5 tolerances) and the closing of the map extent (1).
+    A sliver is judged by its own width (``sliver_width_mm`` on the ground),
+    a sample by the polygon it falls in. Twice the largest, for margin.
+    """
+    from .analysis.polygons import sliver_thresholds
+
+    reach = 10.0 * max(float(project.config.tolerance), 0.0)
+    try:
+        reach = max(reach, float(sliver_thresholds(project)[1]))
+    except Exception:  # a scale or unit the sliver width cannot be read from: the tolerance alone  # noqa: BLE001
+        pass
+    return 2.0 * reach
+
+
+def _present(geoms: np.ndarray) -> np.ndarray:
+    import shapely
+
+    return ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+
+
+def halo_width(project: MapProject, reach: float | None = None) -> float:
+    """The halo width: the reach of the rules plus ``HALO_FEATURES`` times the size of the larger features.
+
+    The size of a feature is the diagonal of its bounds; "the larger
+    features" is the ``SIZE_QUANTILE`` quantile over every partitioned layer.
+    A finding whose place lies in a partition's core is trusted there (see
+    the module docstring) when it reaches no farther than the halo less the
+    rules' reach from that place: up to three such features, which covers a
+    polygon left out (a gap the size of the polygon), an overlap along a
+    whole edge, a line's free end and the line it fails to reach. Larger
+    findings make their rule run on the whole map.
+    """
+    import shapely
+
+    reach = rule_reach(project) if reach is None else reach
+    sizes = []
+    for role, layer in project.layers.items():
+        if role in WHOLE_LAYERS or not len(layer.frame):
+            continue
+        g = layer.geometry
+        g = g[_present(g)]
+        if len(g):
+            b = shapely.bounds(g)
+            sizes.append(np.hypot(b[:, 2] - b[:, 0], b[:, 3] - b[:, 1]))
+    size = float(np.quantile(np.concatenate(sizes), SIZE_QUANTILE)) if sizes else 0.0
+    return reach + HALO_FEATURES * size
+
+
+# ---------------------------------------------------------------- the partitions
+
+
+@dataclass(frozen=True)
+class Grid:
+    """Square cells over the partitioned layers: the unit of ownership and of the halo.
+
+    Cells are at least half the halo wide and at most 1024 to a side of the
+    map; ``reach`` is the halo in whole cells, rounded up, plus one.
+    """
+
+    x0: float
+    y0: float
+    cell: float
+    nx: int
+    ny: int
+    reach: int
+
+    @classmethod
+    def over(cls, bounds: np.ndarray, halo: float) -> Grid:
+        x0, y0, x1, y1 = (float(v) for v in bounds)
+        span = max(x1 - x0, y1 - y0, 1e-9)
+        cell = max(halo / 2.0, span / 1024.0, 1e-9)
+        return cls(x0, y0, cell, int((x1 - x0) // cell) + 1, int((y1 - y0) // cell) + 1, int(np.ceil(halo / cell)) + 1)
+
+    def ij(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The cell column and row of each point (points off the grid go to its edge cells)."""
+        i = np.clip(np.floor((np.asarray(x, dtype=float) - self.x0) / self.cell), 0, self.nx - 1).astype(np.int64)
+        j = np.clip(np.floor((np.asarray(y, dtype=float) - self.y0) / self.cell), 0, self.ny - 1).astype(np.int64)
+        return i, j
+
+    def boxes(self, bounds: np.ndarray) -> np.ndarray:
+        """The cell range (i0, j0, i1, j1, inclusive) of each box (xmin, ymin, xmax, ymax)."""
+        i0, j0 = self.ij(bounds[:, 0], bounds[:, 1])
+        i1, j1 = self.ij(bounds[:, 2], bounds[:, 3])
+        return np.c_[i0, j0, i1, j1]
+
+
+def _table(mask: np.ndarray) -> np.ndarray:
+    """A summed-area table of a cell mask (rows j, columns i), one row and column of zeros ahead."""
+    sat = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=np.int64)
+    sat[1:, 1:] = mask.astype(np.int64).cumsum(0).cumsum(1)
+    return sat
+
+
+def _marked_in(sat: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """How many marked cells each cell range (i0, j0, i1, j1) holds."""
+    return sat[r[:, 3] + 1, r[:, 2] + 1] - sat[r[:, 1], r[:, 2] + 1] - sat[r[:, 3] + 1, r[:, 0]] + sat[r[:, 1], r[:, 0]]
+
+
+@dataclass(frozen=True)
+class Partition:
+    """One partition: its cells (``core``), the cells within its halo (``marked``), and per layer the rows it holds."""
+
+    index: int
+    core: np.ndarray  # bool (ny, nx): the cells it owns
+    marked: np.ndarray  # bool (ny, nx): the cells within the halo of its core; every feature over them is in ``rows``
+    rows: dict[str, np.ndarray]  # per partitioned layer, sorted rows: the features whose bounds touch a marked cell
+    region: Any = None  # the marked cells as one polygon
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The partitions of a project and the owner of every cell."""
+
+    grid: Grid
+    owner: np.ndarray  # int (ny, nx): the partition owning each cell
+    partitions: tuple[Partition, ...]
+    halo: float
+    reach: float
+
+    def owners(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """The partition owning each place: the owner of its cell (the first partition for a place with no coordinates)."""
+        x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+        out = np.zeros(len(x), dtype=np.int64)
+        ok = np.isfinite(x) & np.isfinite(y)
+        if ok.any():
+            i, j = self.grid.ij(x[ok], y[ok])
+            out[ok] = self.owner[j, i]
+        return out
+
+
+def _partitioned_layers(project: MapProject) -> list[str]:
+    return [role for role, layer in project.layers.items() if role not in WHOLE_LAYERS and len(layer.frame)]
+
+
+def plan_partitions(project: MapProject, parts: int, halo: float | None = None, reach: float | None = None) -> Plan:
+    """Cut ``project`` into ``parts`` partitions by Hilbert distance, each with its halo (see the module docstring)."""
+    import geopandas as gpd
+    import shapely
+
+    reach = rule_reach(project) if reach is None else reach
+    halo = halo_width(project, reach) if halo is None else halo
+    roles = _partitioned_layers(project)
+    bounds = {role: shapely.bounds(project.layers[role].geometry) for role in roles}
+    present = {role: _present(project.layers[role].geometry) for role in roles}
+    every = np.concatenate([bounds[r][present[r]] for r in roles] or [np.zeros((0, 4))])
+    # the grid spans the whole layers too (an extent reaching past the features)
+    spans = [every] + [shapely.bounds(layer.geometry)[_present(layer.geometry)] for role, layer in project.layers.items()
+                       if role in WHOLE_LAYERS]
+    allb = np.concatenate(spans)
+    total = ((allb[:, 0].min(), allb[:, 1].min(), allb[:, 2].max(), allb[:, 3].max()) if len(allb) else (0.0, 0.0, 1.0, 1.0))
+    grid = Grid.over(np.array(total), halo)
+    # features per cell, by the centre of their bounds
+    weight = np.zeros((grid.ny, grid.nx), dtype=np.int64)
+    if len(every):
+        ci, cj = grid.ij((every[:, 0] + every[:, 2]) / 2.0, (every[:, 1] + every[:, 3]) / 2.0)
+        np.add.at(weight, (cj, ci), 1)
+    # every cell in Hilbert order over the total bounds; contiguous runs of about equal feature count
+    jj, ii = np.mgrid[0:grid.ny, 0:grid.nx]
+    centres = gpd.GeoSeries(shapely.points(grid.x0 + (ii.ravel() + 0.5) * grid.cell, grid.y0 + (jj.ravel() + 0.5) * grid.cell))
+    order = np.argsort(np.asarray(centres.hilbert_distance(total_bounds=total)), kind="stable")
+    parts = max(1, min(int(parts), int(weight.sum()) or 1))
+    before = np.cumsum(weight.ravel()[order]) - weight.ravel()[order]  # features ahead of each cell along the curve
+    flat = np.empty(grid.nx * grid.ny, dtype=np.int64)
+    flat[order] = np.minimum((before * parts) // max(int(weight.sum()), 1), parts - 1)
+    owner = flat.reshape(grid.ny, grid.nx)
+    ranges = {role: grid.boxes(bounds[role][present[role]]) for role in roles}
+    partitions = []
+    r = grid.reach
+    # the cells within r cells of each cell, for growing a core by the halo through a summed-area table
+    around = np.c_[np.maximum(ii.ravel() - r, 0), np.maximum(jj.ravel() - r, 0),
+                   np.minimum(ii.ravel() + r, grid.nx - 1), np.minimum(jj.ravel() + r, grid.ny - 1)]
+    for k in range(parts):
+        core = owner == k
+        marked = (_marked_in(_table(core), around) > 0).reshape(grid.ny, grid.nx)
+        sat = _table(marked)
+        rows: dict[str, np.ndarray] = {}
+        for role in roles:
+            here = np.flatnonzero(present[role])[_marked_in(sat, ranges[role]) > 0]
+            if k == 0:  # features with no geometry: the first partition's
+                here = np.union1d(here, np.flatnonzero(~present[role]))
+            rows[role] = np.sort(here)
+        partitions.append(Partition(k, core, marked, rows, _cells_polygon(grid, marked)))
+    return Plan(grid, owner, tuple(partitions), float(halo), float(reach))
+
+
+def _cells_polygon(grid: Grid, marked: np.ndarray) -> Any:
+    """Marked cells as one polygon: a rectangle per run of marked cells along a row, joined."""
+    import shapely
+
+    padded = np.zeros((grid.ny, grid.nx + 2), dtype=np.int8)
+    padded[:, 1:-1] = marked
+    step = np.diff(padded, axis=1)
+    rs, cs = np.nonzero(step == 1)
+    re, ce = np.nonzero(step == -1)
+    order_s, order_e = np.lexsort((cs, rs)), np.lexsort((ce, re))
+    rows, c0, c1 = rs[order_s], cs[order_s], ce[order_e]
+    boxes = shapely.box(grid.x0 + c0 * grid.cell, grid.y0 + rows * grid.cell,
+                        grid.x0 + c1 * grid.cell, grid.y0 + (rows + 1) * grid.cell)
+    return shapely.union_all(boxes) if len(boxes) else None
+
+
+def _sub_layer(layer: Any, rows: np.ndarray) -> Any:
+    frame = layer.frame.iloc[rows]
+    sub = replace(layer, frame=frame, ids=np.asarray(layer.ids)[rows], parts=())
+    return sub
+
+
+def sub_project(project: MapProject, partition: Partition) -> MapProject:
+    """The project of one partition: its core and halo rows of each partitioned layer; other layers and tables whole."""
+    layers = {role: (_sub_layer(layer, partition.rows[role]) if role in partition.rows else layer)
+              for role, layer in project.layers.items()}
+    if "extent" in layers and partition.region is not None:
+        layers["extent"] = _clipped(layers["extent"], partition.region)
+    return replace(project, layers=layers, problems=[], notes=[])
+
+
+def _clipped(layer: Any, region: Any) -> Any:
+    """The extent layer cut to a partition's region, so that the partition's gaps are the map's gaps there.
+
+    Over the region every unit of the map is in the partition, so the extent
+    minus the units is, over the region, exactly the map's gaps; outside it,
+    the units not in the partition would leave one vast false gap.
+    """
+    import shapely
+
+    geoms = layer.geometry
+    keep = _present(geoms)
+    cut = geoms.copy()
+    cut[keep] = shapely.intersection(geoms[keep], region)
+    frame = layer.frame.copy()
+    frame[frame.geometry.name] = cut
+    return replace(layer, frame=frame)
+
+
+# ---------------------------------------------------------------- the work of one partition
+
+
+@dataclass(frozen=True)
+class PartitionTask:
+    """Everything one partition's work needs; picklable."""
+
+    index: int
+    project: MapProject
+    rules: tuple[str, ...]
+    grid: Grid
+    marked: np.ndarray  # the cells within the halo of the partition's core (see Partition)
+    reach: float
+    left_out: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class PartitionResult:
+    """What one partition found; picklable.
+
+    ``hits``: (rule id, hit, x, y, trusted) for every hit, ``x``/``y`` its
+    representative point (NaN when it has none). ``failed``: rules GEOS
+    stopped here. ``notes``: the notes the partition's analyses made.
+    """
+
+    index: int
+    hits: tuple[tuple[str, Hit, float, float, bool], ...]
+    failed: tuple[str, ...]
+    notes: tuple[str, ...]
+
+
+def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] | None]:
+    """A hit's representative point (as :func:`archivist.engine.to_finding` takes it) and the bounds of its geometry and point."""
+    import shapely
+
+    x, y = hit.x, hit.y
+    g = hit.geometry
+    box = None
+    if g is not None and not shapely.is_empty(g):
+        b = shapely.bounds(g)
+        box = (float(b[0]), float(b[1]), float(b[2]), float(b[3]))
+        if x is None or y is None:
+            p = g if g.geom_type == "Point" else shapely.point_on_surface(g)
+            x, y = p.x, p.y
+    if x is None or y is None:
+        return np.nan, np.nan, box
+    x, y = float(x), float(y)
+    box = (x, y, x, y) if box is None else (min(box[0], x), min(box[1], y), max(box[2], x), max(box[3], y))
+    return x, y, box
+
+
+def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> np.ndarray:
+    """Whether each box (xmin, ymin, xmax, ymax; NaN for none), grown by ``reach``, lies on the grid and on marked cells only."""
+    ok = np.isfinite(boxes).all(axis=1)
+    if not ok.any():
+        return ok
+    b = boxes[ok] + np.array([-reach, -reach, reach, reach])
+    x1, y1 = grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell
+    inside = (b[:, 0] >= grid.x0) & (b[:, 1] >= grid.y0) & (b[:, 2] < x1) & (b[:, 3] < y1)
+    r = grid.boxes(b)
+    cells = (r[:, 2] - r[:, 0] + 1) * (r[:, 3] - r[:, 1] + 1)
+    out = ok.copy()
+    out[ok] = inside & (_marked_in(_table(marked), r) == cells)
+    return out
+
+
+def run_partition(task: PartitionTask) -> PartitionResult:
+    """Run ``task.rules`` on one partition's project; every hit with its place and whether the partition can trust it."""
+    from shapely.errors import GEOSException
+
+    from .analysis.alignment import Alignment
+    from .analysis.context import CheckContext
+    from .registry import get_rule
+
+    project = task.project
+    ctx = CheckContext(project)
+    # the layers are already as the checks across layers see them (the caller's aligned view)
+    ctx._cache["analysis.alignment"] = Alignment(layers=dict(project.layers), left_out=task.left_out)
+    ctx._cache["analysis.view"] = project
+    found: list[tuple[str, Hit]] = []
+    failed: list[str] = []
+    for rid in task.rules:
+        info = get_rule(rid)
+        try:
+            found.extend((rid, hit) for hit in (info.func(project, ctx) or ()))
+        except GEOSException:
+            failed.append(rid)
+            found = [(r, h) for r, h in found if r != rid]
+    places = [place_of(h) for _, h in found]
+    boxes = np.array([b if b is not None else (np.nan,) * 4 for _, _, b in places], dtype=float).reshape(-1, 4)
+    trust = trusted(task.grid, task.marked, boxes, task.reach)
+    hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
+                 for (rid, hit), (x, y, _), t in zip(found, places, trust))
+    return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes))
+
+
+# ---------------------------------------------------------------- the merge
+
+
+@dataclass(frozen=True)
+class Merged:
+    """The partitions' answer: per rule the owned hits; the rules to run on the whole map instead; the notes."""
+
+    hits: dict[str, list[Hit]] = field(default_factory=dict)
+    whole: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+
+def _key(hit: Hit) -> tuple:
+    import shapely
+
+    g = None if hit.geometry is None else shapely.to_wkt(hit.geometry, rounding_precision=-1)
+    return (hit.message, hit.layer, tuple(str(f) for f in hit.features), hit.measure, g, hit.x, hit.y,
+            None if hit.severity is None else hit.severity.value)
+
+
+def merge(plan: Plan, rules: Sequence[str], results: Sequence[PartitionResult]) -> Merged:
+    """Each hit once, from the partition owning its place; rules whose partitions disagree or cannot judge go whole."""
+    results = sorted(results, key=lambda r: r.index)
+    whole: set[str] = set()
+    for res in results:
+        whole.update(res.failed)
+    owned: dict[int, dict[str, list[tuple[Hit, bool]]]] = {}
+    elsewhere: list[tuple[int, str, Hit]] = []  # trusted hits a partition does not own: its owner must have them
+    for res in results:
+        if not res.hits:
+            continue
+        xy = np.array([(h[2], h[3]) for h in res.hits], dtype=float)
+        owner = plan.owners(xy[:, 0], xy[:, 1])
+        mine = owned.setdefault(res.index, {})
+        for (rid, hit, x, y, trusted), o in zip(res.hits, owner.tolist()):
+            if o == res.index:
+                mine.setdefault(rid, []).append((hit, trusted and bool(np.isfinite(x))))
+            elif trusted:
+                elsewhere.append((o, rid, hit))
+    for per in owned.values():
+        for rid, hits in per.items():
+            if not all(t for _, t in hits):
+                whole.add(rid)
+    keys: dict[tuple[int, str], set] = {}
+    for o, rid, hit in elsewhere:
+        if rid in whole:
+            continue
+        have = keys.get((o, rid))
+        if have is None:
+            have = keys[(o, rid)] = {_key(h) for h, _ in owned.get(o, {}).get(rid, [])}
+        if _key(hit) not in have:
+            whole.add(rid)
+    out: dict[str, list[Hit]] = {rid: [] for rid in rules if rid not in whole}
+    for res in results:
+        for rid, hits in owned.get(res.index, {}).items():
+            if rid in out:
+                out[rid].extend(h for h, _ in hits)
+    notes: list[str] = []
+    for res in results:
+        notes += [n for n in res.notes if n not in notes]
+    return Merged(out, tuple(r for r in rules if r in whole), tuple(notes))
+
+
+def run_partitioned(
+    project: MapProject,
+    rules: Sequence[RuleInfo],
+    executor: Executor,
+    parts: int,
+    step: Step | None = None,
+    left_out: tuple[str, ...] = (),
+    plan: Plan | None = None,
+) -> Merged:
+    """Run ``rules`` on ``parts`` partitions of ``project`` through ``executor`` and merge (see the module docstring).
+
+    ``project`` is the project as the rules read it (the aligned view, in the
+    local frame for a map in longitude/latitude); ``left_out`` the roles the
+    alignment left out. ``step`` advances once per partition done.
+    """
+    ids = tuple(info.id for info in rules)
+    if not ids:
+        return Merged()
+    plan = plan or plan_partitions(project, parts)
+    tasks = [PartitionTask(part.index, sub_project(project, part), ids, plan.grid, part.marked, plan.reach, left_out)
+             for part in plan.partitions]
+    futures: list[Future] = [executor.submit(run_partition, t) for t in tasks]
+    results: list[PartitionResult] = []
+    try:
+        for fut in as_completed(futures):
+            results.append(fut.result())
+            if step is not None:
+                step.advance()
+    except BaseException:
+        for fut in futures:
+            fut.cancel()
+        raise
+    return merge(plan, ids, results)
