@@ -59,13 +59,15 @@ import shutil
 import signal
 import tempfile
 import threading
-from concurrent.futures import Executor
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Any, Iterator
+from typing import TYPE_CHECKING, Any, Iterator
 
 from .errors import ArchivistError
 from .progress import Progress
+
+if TYPE_CHECKING:
+    from .partread import ReadingExecutor
 
 __all__ = ["DASK_EXTRA", "LOCAL", "open_executor", "require_dask", "usable_cores", "worker_facts"]
 
@@ -156,7 +158,7 @@ def open_executor(
     workers: int | None = None,
     memory_limit: str | None = None,
     root: Path | None = None,
-) -> Iterator[Executor]:
+) -> Iterator[ReadingExecutor]:
     """An executor whose tasks run on Dask workers; everything is stopped on leaving.
 
     Parameters
@@ -224,7 +226,10 @@ def open_executor(
                     raise ArchivistError(f"--scheduler: the Dask scheduler at {address} has no worker after "
                                          f"{CONNECT_TIMEOUT:g} s; start some with 'dask worker {address}'") from None
                 _check_workers(client, address, root)
-        executor = client.get_executor(pure=False)  # partitions are never the same task twice: no hashing of their arguments
+        from .partread import ReadingExecutor
+
+        # pure=False: partitions are never the same task twice, so their arguments are not hashed
+        executor = ReadingExecutor(client.get_executor(pure=False))
         yield executor
     finally:
         with _no_sigint():
@@ -237,7 +242,7 @@ def _close(executor: Any, client: Any, cluster: Any) -> None:
     """Cancel what is still queued or running, close the client, stop a local cluster; each step whatever the last did."""
     steps = []
     if executor is not None:
-        steps.append(lambda: executor.shutdown(wait=False))  # cancels the executor's futures on the scheduler
+        steps.append(lambda: executor.shutdown(wait=False, cancel_futures=True))  # cancels its futures on the scheduler
     if client is not None:
         steps.append(client.close)
     if cluster is not None:

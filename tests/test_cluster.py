@@ -108,9 +108,9 @@ def test_local_cluster_runs_tasks_in_worker_processes_and_stops_them(distributed
 
     progress = Progress()
     with open_executor("local", progress, workers=2, memory_limit="1.5GiB") as executor:
-        pids = set(executor._client.run(os.getpid).values())
+        pids = set(executor.inner._client.run(os.getpid).values())
         ran = {executor.submit(os.getpid).result() for _ in range(4)}
-        limits = executor._client.run(lambda dask_worker: dask_worker.memory_manager.memory_limit)
+        limits = executor.inner._client.run(lambda dask_worker: dask_worker.memory_manager.memory_limit)
     assert len(pids) == 2 and os.getpid() not in pids and ran <= pids
     assert set(limits.values()) == {3 * 2**29}  # 1.5 GiB, dask.utils.parse_bytes
     assert [t.label for t in progress.timings] == ["starting a local Dask cluster of 2 workers"]
@@ -142,7 +142,7 @@ def test_leaving_on_ctrl_c_stops_the_workers_at_once(distributed, monkeypatch):
     monkeypatch.setattr(cluster.tempfile, "mkdtemp", mkdtemp)
     with pytest.raises(KeyboardInterrupt):
         with cluster.open_executor("local", workers=2) as executor:
-            pids = set(executor._client.run(os.getpid).values())
+            pids = set(executor.inner._client.run(os.getpid).values())
             futures = [executor.submit(nap, 600) for _ in range(4)]
             time.sleep(0.5)
             raise KeyboardInterrupt
@@ -228,7 +228,7 @@ if __name__ == "__main__":
     with terminate_as_exception():
         try:
             with open_executor("local", workers=2) as executor:
-                pids = executor._client.run(os.getpid)
+                pids = executor.inner._client.run(os.getpid)
                 print(json.dumps(sorted(pids.values())), flush=True)
                 futures = [executor.submit(nap, 600) for _ in range(4)]
                 for f in futures:

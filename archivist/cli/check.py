@@ -80,6 +80,8 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
 
             executor = stack.enter_context(open_executor(scheduler, progress, memory_limit=worker_memory, root=root))
         project = load_project(path, progress=progress)
+        if executor is not None:
+            executor.reading(project)  # the workers read their partitions' features from the project's files
         if executor is None:
             report = engine.check(project, only=only, rules=rules, progress=progress)
         else:
