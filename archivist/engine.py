@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+from concurrent.futures import Executor
 from itertools import groupby
 from pathlib import Path
-from typing import Iterable
+from typing import Any, Iterable
 
 import numpy as np
 import shapely
@@ -31,7 +32,7 @@ ACROSS_LAYER_FAMILIES = {"topology", "linework"}
 # The rules that read legend ages on the ICS chart: when one runs, the report names the chart version.
 CHART_RULES = {"legend-age-unknown", "legend-age-order"}
 
-__all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers"]
+__all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "empty_layers", "finding_order"]
 
 
 def _round(v: float | None, digits: int = LINEAR_DIGITS) -> float | None:
@@ -100,7 +101,20 @@ def rule_failed(info: RuleInfo, exc: GEOSException) -> Finding:
     )
 
 
-def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None) -> Report:
+def finding_order(f: Finding) -> tuple[Any, ...]:
+    """The order of one rule's findings: by layer, features, place (y, then x), measure, message and geometry.
+
+    The report orders findings by severity, family, rule, layer and features
+    (:class:`archivist.model.Report`); this key also orders the findings
+    those leave tied, so a run on partitions of the map, whose findings come
+    in another order, gives them in the same order as a run in one process.
+    """
+    return (f.layer or "", f.features, f.y is None, f.y or 0.0, f.x is None, f.x or 0.0,
+            f.measure is None, f.measure or 0.0, f.message, f.wkt or "", f.severity.rank)
+
+
+def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None, *,
+              executor: Executor | None = None, parts: int = 1) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
@@ -127,31 +141,52 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
     empty = empty_layers(project)
     framed = False  # a rule ran in the local frame
     digits = location_digits(frame.map_crs if frame is not None else project.crs)
+    partition = executor is not None and parts > 1
+
+    def skipped(info: RuleInfo) -> bool:
+        return overrides.get(info.id, info.severity.value) == "off" or any(
+            not project.has(role) or role in empty for role in info.needs) or (
+            info.family in ACROSS_LAYER_FAMILIES and bool(set(info.needs) & set(ctx.left_out())))
+
     for family, members in groupby(selected, key=lambda i: i.family):
         group = list(members)
-        with progress.step(f"{family} rules", total=len(group)) as step:
+        batch = [info for info in group if info.partitioned and not skipped(info)] if partition else []
+        merged: Any = None
+        with progress.step(f"{family} rules", total=len(group) + (parts if batch else 0)) as step:
             for info in group:
-                level = overrides.get(info.id, info.severity.value)
-                if level == "off" or any(not project.has(role) or role in empty for role in info.needs) or (
-                    info.family in ACROSS_LAYER_FAMILIES and set(info.needs) & set(ctx.left_out())
-                ):
+                if skipped(info):
                     step.advance()
                     continue
+                level = overrides.get(info.id, info.severity.value)
                 severity = Severity.parse(level)
                 ran.append(info.id)
                 forced = info.id in overrides
                 as_read = frame is None or info.family in AS_READ_FAMILIES
                 framed = framed or not as_read
+                run_on, run_ctx = (project, ctx) if as_read else (local.project, local)
+                mine: list[Finding] = []
+                if info in batch and merged is None:  # the family's partitioned rules, all at once
+                    from .parallel import run_partitioned
+
+                    assert executor is not None
+                    view = run_ctx.view()
+                    merged = run_partitioned(view, batch, executor, parts, step, run_ctx.left_out())
+                    for text in merged.notes:
+                        run_ctx.note(text)
                 with step.item(info.id):
                     try:
-                        run_on, run_ctx = (project, ctx) if as_read else (local.project, local)
-                        for hit in info.func(run_on, run_ctx) or ():
+                        if info in batch and info.id in merged.hits:
+                            hits: Iterable[Hit] = merged.hits[info.id]
+                        else:
+                            hits = info.func(run_on, run_ctx) or ()
+                        for hit in hits:
                             if not as_read:
                                 assert frame is not None
                                 hit = frame.hit_to_map(hit)
-                            findings.append(to_finding(info, project.own_names(hit), severity, forced, digits))
+                            mine.append(to_finding(info, project.own_names(hit), severity, forced, digits))
                     except GEOSException as exc:
-                        findings.append(rule_failed(info, exc))
+                        mine.append(rule_failed(info, exc))
+                findings += sorted(mine, key=finding_order)
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
     notes = list(ctx.notes)
     if framed:
@@ -174,6 +209,9 @@ def check(
     only: Iterable[str] = (),
     rules: Iterable[str] = (),
     progress: Progress | None = None,
+    jobs: int = 1,
+    executor: Executor | None = None,
+    parts: int | None = None,
 ) -> Report:
     """Check a map project and return its report.
 
@@ -188,6 +226,17 @@ def check(
     progress
         A :class:`archivist.progress.Progress` told about each step (loading,
         each rule family); silent when None.
+    jobs
+        Worker processes for the rules that run on spatial partitions of the
+        map (:mod:`archivist.parallel`); 1 (the default) runs everything in
+        this process, 0 means every core this process may use. The findings
+        are the same whatever the number.
+    executor
+        Run the partitions through this :class:`concurrent.futures.Executor`
+        instead (threads, processes, a ``dask.distributed`` client's
+        executor); the caller shuts it down.
+    parts
+        Partitions of the map (default: ``jobs``, or 2 with an executor).
 
     Raises
     ------
@@ -206,4 +255,22 @@ def check(
         selected = select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
-    return run_rules(project, selected, progress)
+    if executor is not None:
+        return run_rules(project, selected, progress, executor=executor, parts=parts or 2)
+    from .parallel import default_jobs
+
+    jobs = default_jobs() if jobs == 0 else jobs
+    if jobs < 1:
+        raise ArchivistError(f"jobs must be 0 (every core) or a positive number of workers, not {jobs}")
+    if jobs == 1 and (parts is None or parts <= 1):
+        return run_rules(project, selected, progress)
+    from .parallel import make_executor, stop_executor
+
+    pool = make_executor(jobs)
+    try:
+        report = run_rules(project, selected, progress, executor=pool, parts=parts or jobs)
+    except BaseException:
+        stop_executor(pool)
+        raise
+    pool.shutdown()
+    return report

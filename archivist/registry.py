@@ -80,6 +80,7 @@ class RuleInfo:
     needs: tuple[str, ...]
     title: str
     sections: tuple[tuple[str, str], ...]
+    partitioned: bool = False  # may run on spatial partitions of the map (archivist.parallel)
 
     @property
     def doc(self) -> dict[str, str]:
@@ -116,7 +117,7 @@ def parse_doc(doc: str | None) -> tuple[str, tuple[tuple[str, str], ...]]:
     return title, out
 
 
-def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()) -> Callable[[R], R]:
+def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), partitioned: bool = False) -> Callable[[R], R]:
     """Register a rule function under `id`.
 
     Parameters
@@ -130,6 +131,12 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()) ->
     needs
         Layer or table roles the rule reads; the rule is skipped when one is
         absent (the absence itself is reported by the metadata family).
+    partitioned
+        The rule decides each finding from what lies near it (within
+        :func:`archivist.parallel.rule_reach` of the finding and its
+        geometry), never from the whole map (no count over a layer, no
+        summary): ``check --jobs N`` may run it on spatial partitions of the
+        map and merge their findings (:mod:`archivist.parallel`).
     """
 
     def register(func: R) -> R:
@@ -140,7 +147,7 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = ()) ->
         if family not in FAMILIES:
             raise ValueError(f"rule {id!r}: unknown family {family!r}")
         title, sections = parse_doc(func.__doc__)
-        _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections)
+        _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections, partitioned)
         return func
 
     return register

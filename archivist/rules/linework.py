@@ -65,7 +65,7 @@ if TYPE_CHECKING:
 
 # ---------------------------------------------------------------- rules
 
-@rule("line-off-boundary", family="linework", severity="error", needs=("lines", "units"))
+@rule("line-off-boundary", family="linework", severity="error", needs=("lines", "units"), partitioned=True)
 def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact, or a stretch of one, does not lie on a unit polygon boundary.
 
@@ -291,7 +291,7 @@ def _endpoints(net: LineNetwork, parts: np.ndarray) -> tuple[np.ndarray, np.ndar
     return net.part_off[parts], net.part_off[parts + 1] - 1
 
 
-@rule("line-dangle", family="linework", severity="error", needs=("lines",))
+@rule("line-dangle", family="linework", severity="error", needs=("lines",), partitioned=True)
 def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact or map-boundary line ends without touching another line.
 
@@ -417,7 +417,7 @@ def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, ed
                features=(net.ids[f],), measure=gap_m, geometry=link, x=pt.x, y=pt.y)
 
 
-@rule("line-same-unit-contact", family="linework", severity="warning", needs=("lines", "units"))
+@rule("line-same-unit-contact", family="linework", severity="warning", needs=("lines", "units"), partitioned=True)
 def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact has the same unit on both sides.
 
@@ -503,7 +503,7 @@ def join_ids(units: Units, polys: list[int]) -> str:
     return ", ".join(ids[:-1]) + " and " + ids[-1] if len(ids) > 1 else "".join(ids)
 
 
-@rule("line-self-intersection", family="linework", severity="error", needs=("lines",))
+@rule("line-self-intersection", family="linework", severity="error", needs=("lines",), partitioned=True)
 def line_self_intersection(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A line crosses, touches or doubles back on itself.
 
@@ -572,7 +572,7 @@ def line_self_intersection(project: MapProject, ctx: CheckContext) -> Iterator[H
         yield Hit(text, layer="lines", features=(net.ids[f],), measure=measure, geometry=geom)
 
 
-@rule("line-duplicate", family="linework", severity="error", needs=("lines",))
+@rule("line-duplicate", family="linework", severity="error", needs=("lines",), partitioned=True)
 def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two lines share length: one trace drawn twice.
 

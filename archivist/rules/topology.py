@@ -93,7 +93,7 @@ def mismatch_scales(g: Ground, mms: tuple[Any, ...]) -> tuple[np.ndarray, np.nda
 
 # ---------------------------------------------------------------- rules
 
-@rule("unit-overlap", family="topology", severity="error", needs=("units",))
+@rule("unit-overlap", family="topology", severity="error", needs=("units",), partitioned=True)
 def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two unit polygons share area.
 
@@ -148,7 +148,7 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, OVERLAPS)
 
 
-@rule("unit-gap", family="topology", severity="error", needs=("units",))
+@rule("unit-gap", family="topology", severity="error", needs=("units",), partitioned=True)
 def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An unmapped hole inside the map extent.
 
@@ -211,7 +211,7 @@ def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, GAPS)
 
 
-@rule("unit-sliver", family="topology", severity="warning", needs=("units",))
+@rule("unit-sliver", family="topology", severity="warning", needs=("units",), partitioned=True)
 def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A unit polygon is too small or too thin to be seen at publication scale.
 
@@ -296,7 +296,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
 
 
-@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",))
+@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",), partitioned=True)
 def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Neighbouring polygons whose common edge nearly, but not exactly, coincides.
 
@@ -368,7 +368,7 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, MISFITS)
 
 
-@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",))
+@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",), partitioned=True)
 def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two adjacent polygons carry the same unit code and no fault separates them.
 
@@ -447,7 +447,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
         )
 
 
-@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"))
+@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"), partitioned=True)
 def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Unit area lies outside the declared map extent.
 
