@@ -68,8 +68,9 @@ from .progress import Progress
 
 if TYPE_CHECKING:
     from .partread import ReadingExecutor
+    from .project import MapProject
 
-__all__ = ["DASK_EXTRA", "LOCAL", "open_executor", "require_dask", "usable_cores", "worker_facts"]
+__all__ = ["DASK_EXTRA", "LOCAL", "PARTITION_FEATURES", "open_executor", "partitions", "require_dask", "usable_cores", "worker_facts"]
 
 DASK_EXTRA = "pip install 'archivist[dask]'"
 """The install command that brings Dask (named in the error when it is missing)."""
@@ -79,6 +80,19 @@ LOCAL = "local"
 
 CONNECT_TIMEOUT = 30.0
 """Seconds to reach a scheduler, and to wait for its first worker (common practice: long enough for a busy network)."""
+
+
+PARTITION_FEATURES = 50_000
+"""Features (of every partitioned layer) per partition on a cluster, at most: a design choice keeping one
+partition's analyses to a few hundred MB, and the halo a small part of each partition at 10^6 features and more."""
+
+
+def partitions(project: MapProject, workers: int) -> int:
+    """How many partitions to cut ``project`` into for ``workers`` workers: a multiple of ``workers`` (every worker has
+    work until the end), each of at most about :data:`PARTITION_FEATURES` features."""
+    n = sum(len(layer.frame) for role, layer in project.layers.items() if role != "extent")
+    workers = max(1, workers)
+    return workers * max(1, -(-n // (workers * PARTITION_FEATURES)))
 
 
 def usable_cores() -> int:
@@ -230,6 +244,7 @@ def open_executor(
 
         # pure=False: partitions are never the same task twice, so their arguments are not hashed
         executor = ReadingExecutor(client.get_executor(pure=False))
+        executor.workers = max(1, sum(client.nthreads().values()))  # threads across the workers: tasks at once
         yield executor
     finally:
         with _no_sigint():

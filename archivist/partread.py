@@ -256,6 +256,7 @@ class ReadingExecutor(Executor):
     def __init__(self, inner: Executor) -> None:
         self.inner = inner
         self.loaded: MapProject | None = None
+        self.workers = 1  # how many tasks ``inner`` runs at once (set by whoever made it)
         self.sent_slim = 0
         self.fell_back = 0
 

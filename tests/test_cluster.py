@@ -22,6 +22,7 @@ import pytest
 
 import archivist
 from archivist.errors import ArchivistError
+from archivist.progress import Progress
 from builders import tiny_project
 
 REPO = Path(archivist.__file__).resolve().parent.parent
@@ -273,3 +274,102 @@ def test_stopping_a_local_cluster_run_leaves_no_worker(distributed, tmp_path, si
         time.sleep(0.2)
     left = [p for p in family if psutil.pid_exists(p) and psutil.Process(p).status() != psutil.STATUS_ZOMBIE]
     assert left == []
+
+
+# ---------------------------------------------------------------- the findings of a check on a local cluster
+
+
+@pytest.fixture(scope="module")
+def synthetic_maps(tmp_path_factory):
+    """A clean and a defect-laden synthetic map of about 10^4 polygons (tests/benchmarks/topology_maps.py)."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent / "benchmarks"))
+    from topology_maps import make
+
+    base = tmp_path_factory.mktemp("cluster-maps")
+    make(base / "clean", 10_000, seed=0)
+    made = make(base / "defects", 10_000, seed=1, defects=25)
+    assert len(made["defects"]) == 75
+    return {"clean": base / "clean", "defects": base / "defects"}
+
+
+class Recorder(Progress):
+    """A progress hook that records, per step, its total and how often it advanced."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.steps: dict[str, list[int]] = {}
+
+    def _begin(self, step) -> None:
+        self.steps[step.label] = [step.total or 0, 0]
+
+    def _advance(self, step, n: int) -> None:
+        self.steps[step.label][1] += n
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["clean", "defects"])
+def test_a_local_cluster_finds_what_one_process_finds(distributed, synthetic_maps, name):
+    """Same rules, features, places, measures and notes, in the same order; the workers read their partitions."""
+    from archivist import engine
+    from archivist.cluster import open_executor
+    from archivist.project import load_project
+
+    project = load_project(synthetic_maps[name])
+    one = engine.check(project, jobs=1)
+    progress = Recorder()
+    with open_executor("local", workers=2) as executor:
+        executor.reading(project)
+        many = engine.check(project, executor=executor, parts=4, progress=progress)
+        assert executor.sent_slim > 0 and executor.fell_back == 0
+    assert many.findings == one.findings
+    assert (many.notes, many.rules_run) == (one.notes, one.rules_run)
+    if name == "defects":
+        rules = {f.rule for f in one.findings}
+        assert {"unit-overlap", "unit-gap", "line-dangle"} <= rules
+    else:
+        assert not [f for f in one.findings if f.family in ("topology", "linework")]
+    # the bars of the partitioned families advance once per rule and once per partition done, to their total
+    for family in ("topology", "linework"):
+        total, done = progress.steps[f"{family} rules"]
+        assert total == done and total > 4
+
+
+@pytest.mark.slow
+def test_the_command_line_with_a_local_cluster_writes_the_single_process_report(distributed, synthetic_maps, tmp_path):
+    code = "from archivist.cli import main; import sys; sys.argv = ['archivist', *sys.argv[1:]]; main()"
+    one = run_python(code, "check", str(synthetic_maps["defects"]), "--format", "json", "-o", str(tmp_path / "one.json"))
+    many = run_python(code, "check", str(synthetic_maps["defects"]), "--format", "json", "-o", str(tmp_path / "many.json"),
+                      "--scheduler", "local", "--worker-memory", "1GiB")
+    assert one.returncode == many.returncode == 1, many.stderr
+    assert many.stderr == ""
+    assert (tmp_path / "many.json").read_bytes() == (tmp_path / "one.json").read_bytes()
+
+
+@pytest.mark.slow
+def test_ctrl_c_during_a_check_on_a_local_cluster_leaves_no_worker(distributed, synthetic_maps):
+    """Ctrl-C from the terminal (to the whole process group) once the cluster is up: exit 130, one line, no worker left."""
+    import psutil
+
+    code = "from archivist.cli import main; import sys; sys.argv = ['archivist', *sys.argv[1:]]; main()"
+    env = {**os.environ, "PYTHONPATH": str(REPO)}
+    proc = subprocess.Popen([sys.executable, "-c", code, "check", str(synthetic_maps["defects"]), "--scheduler", "local", "-v"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env, start_new_session=True)
+    try:
+        assert proc.stderr is not None
+        for line in proc.stderr:  # -v prints a timing line as each step ends
+            if "starting a local Dask cluster" in line:
+                break
+        family = [c.pid for c in psutil.Process(proc.pid).children(recursive=True)]
+        assert family
+        os.killpg(proc.pid, signal.SIGINT)
+        assert proc.wait(timeout=120) == 130
+        rest = proc.stderr.read()
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+    assert "archivist: interrupted (Ctrl-C); an output not yet complete was not written" in rest.splitlines()
+    deadline = time.monotonic() + 30
+    while any(psutil.pid_exists(p) and psutil.Process(p).status() != psutil.STATUS_ZOMBIE for p in family) and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert [p for p in family if psutil.pid_exists(p) and psutil.Process(p).status() != psutil.STATUS_ZOMBIE] == []

@@ -85,7 +85,10 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
         if executor is None:
             report = engine.check(project, only=only, rules=rules, progress=progress)
         else:
-            report = engine.check(project, only=only, rules=rules, progress=progress, executor=executor)
+            from ..cluster import partitions
+
+            report = engine.check(project, only=only, rules=rules, progress=progress, executor=executor,
+                                  parts=partitions(project, executor.workers))
         stack.close()  # the cluster is stopped before the outputs are written
         if html_out is not None:
             from ..report.html import write_html
