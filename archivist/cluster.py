@@ -22,22 +22,28 @@ the executor that sends them to Dask workers:
   worker sees, such as a shared file system); a worker that does not is
   named in a one-line error.
 
-What each task carries: the rules to run, the partition's box and halo and
-the settings, never the map itself when the workers can read it. A
-partition task reads its features straight from the project's files with
-GDAL's spatial filter (pyogrio's ``bbox``), so the whole map never travels
-through the client's network link and a worker reads only its part
-(:func:`archivist.parallel` decides when this is exact: every partitioned
-layer must be in the map CRS, a projected one, with no features that need
-their axes swapped; otherwise the client ships each partition's features).
-The client still loads the project once, as a single-process run does: the
-families that are not partitioned (metadata, legend, samples, structures)
-read the whole attribute tables, and the partitions are cut from the
-features' boxes.
+What each task carries: the rules to run, the partition's cells and reach,
+the settings and the tables, but not the features of the layers a worker
+can read itself (:mod:`archivist.partread`): for those, the file, the box
+of the partition's features (GDAL's spatial filter, pyogrio's ``bbox``), the
+feature ids to keep in order, and a fingerprint of what the client holds.
+The worker reads its partition from the project's files and checks the
+fingerprint; on any difference the client sends that task with its features
+instead. So the map's features never travel through the client's network
+link nor wait, pickled, in the scheduler, and a worker reads only its part.
+The client still loads the project once, as a one-process run does: it cuts
+the partitions from the features' boxes, runs the families that are not
+partitioned (metadata, legend, samples, structures, the CRS labels), and
+merges the partitions' findings; what a national compilation adds on the
+workers is the analyses (half-edges, coverage, line network), which are
+several times the size of the features they are built from.
 
-Findings are identical to a single-process run: the same partition tasks
-run, whatever runs them, and the findings are merged once per
-representative point, by the partition that owns it (:mod:`archivist.parallel`).
+How the map is cut and the findings merged is :mod:`archivist.parallel`'s
+(Hilbert order of the features' boxes, a halo around each partition, each
+finding reported by the partition owning its representative point); here
+only the number of partitions is chosen, :func:`partitions`: a multiple of
+the workers, each of at most about :data:`PARTITION_FEATURES` features.
+Findings are identical to a one-process run, in the same order.
 
 Stopping: leaving :func:`open_executor` (normally, on an error, on Ctrl-C
 or on SIGTERM, which the command line turns into an exception) cancels

@@ -67,8 +67,8 @@ class FileRows:
 
 @dataclass(frozen=True)
 class SlimTask:
-    """A partition task whose readable layers are :class:`FileRows`; ``core`` is per role a mask over its rows, or None
-    when the task keeps its own core geometries."""
+    """A partition task whose readable layers are :class:`FileRows`; ``core`` (for a task that lists its core
+    geometries) is per role a mask over its rows, or None when the task keeps what it has."""
 
     task: PartitionTask
     reads: dict[str, FileRows]
@@ -170,15 +170,17 @@ def slim_task(task: PartitionTask, loaded: MapProject) -> SlimTask | None:
             reads[role] = rows
     if not reads:
         return None
-    core = _core_masks(task, reads)
+    core = _core_masks(task, reads) if hasattr(task, "core") else None
     layers = {role: (replace(layer, frame=reads[role].template) if role in reads else layer) for role, layer in project.layers.items()}
-    slim = replace(task, project=replace(project, layers=layers), core=np.zeros(0, dtype=object) if core is not None else task.core)
+    slim = replace(task, project=replace(project, layers=layers))
+    if core is not None:
+        slim = replace(slim, core=np.zeros(0, dtype=object))  # type: ignore[call-arg]
     return SlimTask(slim, reads, core)
 
 
 def _core_masks(task: PartitionTask, reads: dict[str, FileRows]) -> tuple[tuple[str, np.ndarray], ...] | None:
     """The core geometries as masks over each layer's rows, in the task's order; None when they are not exactly that."""
-    wanted = _object_ids(np.asarray(task.core, dtype=object))
+    wanted = _object_ids(np.asarray(getattr(task, "core"), dtype=object))
     masks: list[tuple[str, np.ndarray]] = []
     got: list[np.ndarray] = []
     for role, layer in task.project.layers.items():
@@ -229,11 +231,11 @@ def read_task(slim: SlimTask) -> PartitionTask:
     layers = dict(task.project.layers)
     for role, rows in slim.reads.items():
         layers[role] = replace(layers[role], frame=_read_layer(rows))
-    core = task.core
+    task = replace(task, project=replace(task.project, layers=layers))
     if slim.core is not None:
         parts = [layers[role].geometry[mask] for role, mask in slim.core]
-        core = np.concatenate(parts) if parts else np.zeros(0, dtype=object)
-    return replace(task, project=replace(task.project, layers=layers), core=core)
+        task = replace(task, core=np.concatenate(parts) if parts else np.zeros(0, dtype=object))  # type: ignore[call-arg]
+    return task
 
 
 def run_slim_partition(slim: SlimTask) -> PartitionResult:
