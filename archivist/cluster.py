@@ -229,6 +229,8 @@ def open_executor(
                 )
                 client = distributed.Client(cluster, set_as_default=False)
         else:
+            if workers is not None:
+                raise ArchivistError("--jobs sizes the workers of --scheduler local; a running cluster has its own workers")
             if memory_limit is not None:
                 raise ArchivistError("--worker-memory applies to --scheduler local; a running cluster's workers set their own "
                                      "(dask worker --memory-limit)")

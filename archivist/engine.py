@@ -257,11 +257,13 @@ def check(
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
     if executor is not None:
         return run_rules(project, selected, progress, executor=executor, parts=parts or 2)
-    from .parallel import default_jobs
+    from .parallel import default_jobs, worth_partitioning
 
-    jobs = default_jobs() if jobs == 0 else jobs
-    if jobs < 1:
+    if jobs < 0:
         raise ArchivistError(f"jobs must be 0 (every core) or a positive number of workers, not {jobs}")
+    jobs = default_jobs() if jobs == 0 else jobs
+    if parts is None and jobs > 1 and not worth_partitioning(project, jobs):
+        jobs = 1  # a small map: starting workers would cost more than they save (the findings are the same)
     if jobs == 1 and (parts is None or parts <= 1):
         return run_rules(project, selected, progress)
     from .parallel import make_executor, stop_executor

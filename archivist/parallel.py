@@ -11,6 +11,36 @@ count over a layer, a summary of a systematic fault, the legend, the
 metadata, the CRS labels) runs once on the whole project, in the calling
 process.
 
+Which rules are partitioned, and why
+------------------------------------
+Partitioned: ``unit-sliver`` (each polygon alone), ``line-self-intersection``
+(each line alone), ``line-duplicate`` and ``line-same-unit-contact`` (a line,
+the lines within the tolerance of it and the polygon edges it runs along),
+``line-dangle`` (a free end, the lines and the map edge around it, and the
+nearest line, whose link is the finding's geometry), ``line-off-boundary``
+(a line and the polygon edges and map edge within the tolerance).
+
+Whole map, and why:
+
+- the metadata, crs, legend, structures and samples families: they judge
+  files, labels, tables and attributes (counts over a layer, a CRS for the
+  whole map, the n.d. note of a table); ``crs-axis-swap-suspected`` counts
+  the features of a layer that fit only swapped; ``sample-unit-mismatch``
+  names the nearest polygon of the recorded unit anywhere on the map.
+- ``boundary-without-line``: whether missing linework is reported stretch by
+  stretch or as one summary depends on its share of the whole map.
+- ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
+  ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
+  (:mod:`archivist.analysis.coverage`), whose union of the unit polygons is
+  not the same to the last bit on a part of the map as on the whole: where
+  polygons overlap, GEOS's overlay leaves slivers of 1e-9 m² that depend on
+  every polygon joined, and those slivers are gaps and misfits in the
+  report. ``unit-overlap`` alone would be local (exact pairwise
+  intersections), but it needs the whole analysis, which the other four
+  compute on the whole map anyway.
+- ``line-kind-unknown``, ``unit-code-missing``: attribute checks of each
+  feature, faster than sending the layer to a worker.
+
 How the map is cut
 ------------------
 The features of every partitioned layer (every layer of the project but the
@@ -110,6 +140,7 @@ __all__ = [
     "run_partition",
     "run_partitioned",
     "stop_executor",
+    "worth_partitioning",
 ]
 
 # Layers every partition gets whole: the extent is one frame for the whole map.
@@ -128,6 +159,17 @@ def default_jobs() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
         return max(1, os.cpu_count() or 1)
+
+
+# Features per partition below which starting workers costs more than it saves (measured with
+# tests/benchmarks/bench_jobs.py: a 10^4-polygon map checks in about a second in one process).
+MIN_FEATURES_PER_PART = 5000
+
+
+def worth_partitioning(project: MapProject, parts: int) -> bool:
+    """Whether ``project`` is large enough to check on ``parts`` partitions (see ``MIN_FEATURES_PER_PART``)."""
+    n = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
+    return n >= MIN_FEATURES_PER_PART * parts
 
 
 def make_executor(jobs: int, kind: str = "process") -> Executor:
@@ -227,34 +269,81 @@ def halo_width(project: MapProject, reach: float | None = None) -> float:
 
 
 @dataclass(frozen=True)
+class Grid:
+    """Square cells over the partitioned layers: the unit of ownership and of the halo.
+
+    Cells are at least half the halo wide and at most 1024 to a side of the
+    map; ``reach`` is the halo in whole cells, rounded up, plus one.
+    """
+
+    x0: float
+    y0: float
+    cell: float
+    nx: int
+    ny: int
+    reach: int
+
+    @classmethod
+    def over(cls, bounds: np.ndarray, halo: float) -> Grid:
+        x0, y0, x1, y1 = (float(v) for v in bounds)
+        span = max(x1 - x0, y1 - y0, 1e-9)
+        cell = max(halo / 2.0, span / 1024.0, 1e-9)
+        return cls(x0, y0, cell, int((x1 - x0) // cell) + 1, int((y1 - y0) // cell) + 1, int(np.ceil(halo / cell)) + 1)
+
+    def ij(self, x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The cell column and row of each point (points off the grid go to its edge cells)."""
+        i = np.clip(np.floor((np.asarray(x, dtype=float) - self.x0) / self.cell), 0, self.nx - 1).astype(np.int64)
+        j = np.clip(np.floor((np.asarray(y, dtype=float) - self.y0) / self.cell), 0, self.ny - 1).astype(np.int64)
+        return i, j
+
+    def boxes(self, bounds: np.ndarray) -> np.ndarray:
+        """The cell range (i0, j0, i1, j1, inclusive) of each box (xmin, ymin, xmax, ymax)."""
+        i0, j0 = self.ij(bounds[:, 0], bounds[:, 1])
+        i1, j1 = self.ij(bounds[:, 2], bounds[:, 3])
+        return np.c_[i0, j0, i1, j1]
+
+
+def _table(mask: np.ndarray) -> np.ndarray:
+    """A summed-area table of a cell mask (rows j, columns i), one row and column of zeros ahead."""
+    sat = np.zeros((mask.shape[0] + 1, mask.shape[1] + 1), dtype=np.int64)
+    sat[1:, 1:] = mask.astype(np.int64).cumsum(0).cumsum(1)
+    return sat
+
+
+def _marked_in(sat: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """How many marked cells each cell range (i0, j0, i1, j1) holds."""
+    return sat[r[:, 3] + 1, r[:, 2] + 1] - sat[r[:, 1], r[:, 2] + 1] - sat[r[:, 3] + 1, r[:, 0]] + sat[r[:, 1], r[:, 0]]
+
+
+@dataclass(frozen=True)
 class Partition:
-    """One partition: per partitioned layer the rows of its core and the rows it holds (core and halo), sorted."""
+    """One partition: its cells (``core``), the cells within its halo (``marked``), and per layer the rows it holds."""
 
     index: int
-    core: dict[str, np.ndarray]
-    rows: dict[str, np.ndarray]
+    core: np.ndarray  # bool (ny, nx): the cells it owns
+    marked: np.ndarray  # bool (ny, nx): the cells within the halo of its core; every feature over them is in ``rows``
+    rows: dict[str, np.ndarray]  # per partitioned layer, sorted rows: the features whose bounds touch a marked cell
+    region: Any = None  # the marked cells as one polygon
 
 
 @dataclass(frozen=True)
 class Plan:
-    """The partitions of a project, and the owner of every place (the partition of the nearest feature)."""
+    """The partitions of a project and the owner of every cell."""
 
+    grid: Grid
+    owner: np.ndarray  # int (ny, nx): the partition owning each cell
     partitions: tuple[Partition, ...]
     halo: float
     reach: float
-    tree: Any  # shapely.STRtree over every present feature of the partitioned layers
-    owner_of_feature: np.ndarray  # partition of each geometry in ``tree``
 
     def owners(self, x: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """The partition owning each place (-1 for a place with no coordinates: the first partition's)."""
-        import shapely
-
+        """The partition owning each place: the owner of its cell (the first partition for a place with no coordinates)."""
+        x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
         out = np.zeros(len(x), dtype=np.int64)
         ok = np.isfinite(x) & np.isfinite(y)
-        if ok.any() and len(self.owner_of_feature):
-            pts = shapely.points(x[ok], y[ok])
-            _, near = self.tree.query_nearest(pts, all_matches=False)
-            out[ok] = self.owner_of_feature[near]
+        if ok.any():
+            i, j = self.grid.ij(x[ok], y[ok])
+            out[ok] = self.owner[j, i]
         return out
 
 
@@ -270,38 +359,63 @@ def plan_partitions(project: MapProject, parts: int, halo: float | None = None, 
     reach = rule_reach(project) if reach is None else reach
     halo = halo_width(project, reach) if halo is None else halo
     roles = _partitioned_layers(project)
-    geoms = {role: project.layers[role].geometry for role in roles}
-    present = {role: _present(g) for role, g in geoms.items()}
-    # one order over every present feature of every partitioned layer
-    role_of = np.concatenate([np.full(int(present[r].sum()), i, dtype=np.int64) for i, r in enumerate(roles)] or [np.zeros(0, np.int64)])
-    row_of = np.concatenate([np.flatnonzero(present[r]) for r in roles] or [np.zeros(0, np.int64)])
-    allg = np.concatenate([geoms[r][present[r]] for r in roles] or [np.zeros(0, dtype=object)])
-    parts = max(1, min(int(parts), len(allg)))
-    part_of = np.zeros(len(allg), dtype=np.int64)
-    if len(allg):
-        bounds = shapely.total_bounds(allg)
-        hd = gpd.GeoSeries(allg).hilbert_distance(total_bounds=bounds)
-        order = np.argsort(np.asarray(hd), kind="stable")
-        part_of[order] = (np.arange(len(allg)) * parts) // len(allg)
-    tree = shapely.STRtree(allg)
+    bounds = {role: shapely.bounds(project.layers[role].geometry) for role in roles}
+    present = {role: _present(project.layers[role].geometry) for role in roles}
+    every = np.concatenate([bounds[r][present[r]] for r in roles] or [np.zeros((0, 4))])
+    # the grid spans the whole layers too (an extent reaching past the features)
+    spans = [every] + [shapely.bounds(layer.geometry)[_present(layer.geometry)] for role, layer in project.layers.items()
+                       if role in WHOLE_LAYERS]
+    allb = np.concatenate(spans)
+    total = ((allb[:, 0].min(), allb[:, 1].min(), allb[:, 2].max(), allb[:, 3].max()) if len(allb) else (0.0, 0.0, 1.0, 1.0))
+    grid = Grid.over(np.array(total), halo)
+    # features per cell, by the centre of their bounds
+    weight = np.zeros((grid.ny, grid.nx), dtype=np.int64)
+    if len(every):
+        ci, cj = grid.ij((every[:, 0] + every[:, 2]) / 2.0, (every[:, 1] + every[:, 3]) / 2.0)
+        np.add.at(weight, (cj, ci), 1)
+    # every cell in Hilbert order over the total bounds; contiguous runs of about equal feature count
+    jj, ii = np.mgrid[0:grid.ny, 0:grid.nx]
+    centres = gpd.GeoSeries(shapely.points(grid.x0 + (ii.ravel() + 0.5) * grid.cell, grid.y0 + (jj.ravel() + 0.5) * grid.cell))
+    order = np.argsort(np.asarray(centres.hilbert_distance(total_bounds=total)), kind="stable")
+    parts = max(1, min(int(parts), int(weight.sum()) or 1))
+    before = np.cumsum(weight.ravel()[order]) - weight.ravel()[order]  # features ahead of each cell along the curve
+    flat = np.empty(grid.nx * grid.ny, dtype=np.int64)
+    flat[order] = np.minimum((before * parts) // max(int(weight.sum()), 1), parts - 1)
+    owner = flat.reshape(grid.ny, grid.nx)
+    ranges = {role: grid.boxes(bounds[role][present[role]]) for role in roles}
     partitions = []
-    for i in range(parts):
-        mine = np.flatnonzero(part_of == i)
-        core: dict[str, np.ndarray] = {}
+    r = grid.reach
+    # the cells within r cells of each cell, for growing a core by the halo through a summed-area table
+    around = np.c_[np.maximum(ii.ravel() - r, 0), np.maximum(jj.ravel() - r, 0),
+                   np.minimum(ii.ravel() + r, grid.nx - 1), np.minimum(jj.ravel() + r, grid.ny - 1)]
+    for k in range(parts):
+        core = owner == k
+        marked = (_marked_in(_table(core), around) > 0).reshape(grid.ny, grid.nx)
+        sat = _table(marked)
         rows: dict[str, np.ndarray] = {}
-        for k, role in enumerate(roles):
-            own = row_of[mine[role_of[mine] == k]]
-            if i == 0:  # features with no geometry: the first partition's
-                own = np.union1d(own, np.flatnonzero(~present[role]))
-            core[role] = np.sort(own)
-            rows[role] = core[role]
-        if len(mine):
-            _, near = tree.query(allg[mine], predicate="dwithin", distance=halo)
-            near = np.unique(near)
-            for k, role in enumerate(roles):
-                rows[role] = np.union1d(rows[role], row_of[near[role_of[near] == k]])
-        partitions.append(Partition(i, core, rows))
-    return Plan(tuple(partitions), float(halo), float(reach), tree, part_of)
+        for role in roles:
+            here = np.flatnonzero(present[role])[_marked_in(sat, ranges[role]) > 0]
+            if k == 0:  # features with no geometry: the first partition's
+                here = np.union1d(here, np.flatnonzero(~present[role]))
+            rows[role] = np.sort(here)
+        partitions.append(Partition(k, core, marked, rows, _cells_polygon(grid, marked)))
+    return Plan(grid, owner, tuple(partitions), float(halo), float(reach))
+
+
+def _cells_polygon(grid: Grid, marked: np.ndarray) -> Any:
+    """Marked cells as one polygon: a rectangle per run of marked cells along a row, joined."""
+    import shapely
+
+    padded = np.zeros((grid.ny, grid.nx + 2), dtype=np.int8)
+    padded[:, 1:-1] = marked
+    step = np.diff(padded, axis=1)
+    rs, cs = np.nonzero(step == 1)
+    re, ce = np.nonzero(step == -1)
+    order_s, order_e = np.lexsort((cs, rs)), np.lexsort((ce, re))
+    rows, c0, c1 = rs[order_s], cs[order_s], ce[order_e]
+    boxes = shapely.box(grid.x0 + c0 * grid.cell, grid.y0 + rows * grid.cell,
+                        grid.x0 + c1 * grid.cell, grid.y0 + (rows + 1) * grid.cell)
+    return shapely.union_all(boxes) if len(boxes) else None
 
 
 def _sub_layer(layer: Any, rows: np.ndarray) -> Any:
@@ -314,7 +428,27 @@ def sub_project(project: MapProject, partition: Partition) -> MapProject:
     """The project of one partition: its core and halo rows of each partitioned layer; other layers and tables whole."""
     layers = {role: (_sub_layer(layer, partition.rows[role]) if role in partition.rows else layer)
               for role, layer in project.layers.items()}
+    if "extent" in layers and partition.region is not None:
+        layers["extent"] = _clipped(layers["extent"], partition.region)
     return replace(project, layers=layers, problems=[], notes=[])
+
+
+def _clipped(layer: Any, region: Any) -> Any:
+    """The extent layer cut to a partition's region, so that the partition's gaps are the map's gaps there.
+
+    Over the region every unit of the map is in the partition, so the extent
+    minus the units is, over the region, exactly the map's gaps; outside it,
+    the units not in the partition would leave one vast false gap.
+    """
+    import shapely
+
+    geoms = layer.geometry
+    keep = _present(geoms)
+    cut = geoms.copy()
+    cut[keep] = shapely.intersection(geoms[keep], region)
+    frame = layer.frame.copy()
+    frame[frame.geometry.name] = cut
+    return replace(layer, frame=frame)
 
 
 # ---------------------------------------------------------------- the work of one partition
@@ -327,8 +461,8 @@ class PartitionTask:
     index: int
     project: MapProject
     rules: tuple[str, ...]
-    core: np.ndarray  # the geometries of the core features (the trust distances are measured to them)
-    halo: float
+    grid: Grid
+    marked: np.ndarray  # the cells within the halo of the partition's core (see Partition)
     reach: float
     left_out: tuple[str, ...] = ()
 
@@ -348,27 +482,43 @@ class PartitionResult:
     notes: tuple[str, ...]
 
 
-def place_of(hit: Hit) -> tuple[float, float, float]:
-    """A hit's representative point (as :func:`archivist.engine.to_finding` takes it) and its geometry's diagonal."""
+def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] | None]:
+    """A hit's representative point (as :func:`archivist.engine.to_finding` takes it) and the bounds of its geometry and point."""
     import shapely
 
     x, y = hit.x, hit.y
     g = hit.geometry
-    diag = 0.0
+    box = None
     if g is not None and not shapely.is_empty(g):
         b = shapely.bounds(g)
-        diag = float(np.hypot(b[2] - b[0], b[3] - b[1]))
+        box = (float(b[0]), float(b[1]), float(b[2]), float(b[3]))
         if x is None or y is None:
             p = g if g.geom_type == "Point" else shapely.point_on_surface(g)
             x, y = p.x, p.y
     if x is None or y is None:
-        return np.nan, np.nan, diag
-    return float(x), float(y), diag
+        return np.nan, np.nan, box
+    x, y = float(x), float(y)
+    box = (x, y, x, y) if box is None else (min(box[0], x), min(box[1], y), max(box[2], x), max(box[3], y))
+    return x, y, box
+
+
+def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> np.ndarray:
+    """Whether each box (xmin, ymin, xmax, ymax; NaN for none), grown by ``reach``, lies on the grid and on marked cells only."""
+    ok = np.isfinite(boxes).all(axis=1)
+    if not ok.any():
+        return ok
+    b = boxes[ok] + np.array([-reach, -reach, reach, reach])
+    x1, y1 = grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell
+    inside = (b[:, 0] >= grid.x0) & (b[:, 1] >= grid.y0) & (b[:, 2] < x1) & (b[:, 3] < y1)
+    r = grid.boxes(b)
+    cells = (r[:, 2] - r[:, 0] + 1) * (r[:, 3] - r[:, 1] + 1)
+    out = ok.copy()
+    out[ok] = inside & (_marked_in(_table(marked), r) == cells)
+    return out
 
 
 def run_partition(task: PartitionTask) -> PartitionResult:
     """Run ``task.rules`` on one partition's project; every hit with its place and whether the partition can trust it."""
-    import shapely
     from shapely.errors import GEOSException
 
     from .analysis.alignment import Alignment
@@ -389,14 +539,11 @@ def run_partition(task: PartitionTask) -> PartitionResult:
         except GEOSException:
             failed.append(rid)
             found = [(r, h) for r, h in found if r != rid]
-    places = np.array([place_of(h) for _, h in found], dtype=float).reshape(-1, 3)
-    x, y, diag = places[:, 0], places[:, 1], places[:, 2]
-    trusted = np.zeros(len(found), dtype=bool)
-    ok = np.isfinite(x) & np.isfinite(y)
-    if ok.any() and len(task.core):
-        _, d0 = shapely.STRtree(task.core).query_nearest(shapely.points(x[ok], y[ok]), all_matches=False, return_distance=True)
-        trusted[ok] = d0 + diag[ok] + task.reach <= task.halo
-    hits = tuple((rid, hit, float(x[k]), float(y[k]), bool(trusted[k])) for k, (rid, hit) in enumerate(found))
+    places = [place_of(h) for _, h in found]
+    boxes = np.array([b if b is not None else (np.nan,) * 4 for _, _, b in places], dtype=float).reshape(-1, 4)
+    trust = trusted(task.grid, task.marked, boxes, task.reach)
+    hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
+                 for (rid, hit), (x, y, _), t in zip(found, places, trust))
     return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes))
 
 
@@ -482,11 +629,8 @@ def run_partitioned(
     if not ids:
         return Merged()
     plan = plan or plan_partitions(project, parts)
-    tasks = []
-    for part in plan.partitions:
-        core = np.concatenate([project.layers[r].geometry[part.core[r]] for r in part.core] or [np.zeros(0, dtype=object)])
-        core = core[_present(core)]
-        tasks.append(PartitionTask(part.index, sub_project(project, part), ids, core, plan.halo, plan.reach, left_out))
+    tasks = [PartitionTask(part.index, sub_project(project, part), ids, plan.grid, part.marked, plan.reach, left_out)
+             for part in plan.partitions]
     futures: list[Future] = [executor.submit(run_partition, t) for t in tasks]
     results: list[PartitionResult] = []
     try:

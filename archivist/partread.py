@@ -9,9 +9,8 @@ itself with a :class:`FileRows`: the file and GDAL layer, the box of the
 partition's features in it (GDAL's spatial filter, pyogrio's ``bbox``), the
 feature ids (fids) to keep in their order, the layer's empty frame (its
 columns, their types, its CRS), and a fingerprint of what the client holds
-(SHA-256 of the features' WKB, their attribute hashes and fids). The core
-features, which the partition measures its trust distances to, become masks
-over those rows. A task so slimmed weighs a few bytes per feature.
+(SHA-256 of the features' WKB, their attribute hashes and fids). A task so
+slimmed weighs a few bytes per feature (its fids and feature ids).
 
 On the worker, :func:`read_task` reads each such layer with the box, keeps
 the listed fids in the listed order, casts the columns to the client's types
@@ -67,12 +66,10 @@ class FileRows:
 
 @dataclass(frozen=True)
 class SlimTask:
-    """A partition task whose readable layers are :class:`FileRows`; ``core`` (for a task that lists its core
-    geometries) is per role a mask over its rows, or None when the task keeps what it has."""
+    """A partition task whose readable layers have no rows, and where the worker reads them (:class:`FileRows`)."""
 
     task: PartitionTask
     reads: dict[str, FileRows]
-    core: tuple[tuple[str, np.ndarray], ...] | None
 
 
 def fingerprint(frame: Any) -> str:
@@ -90,11 +87,6 @@ def fingerprint(frame: Any) -> str:
     if len(attrs.columns):
         h.update(pd.util.hash_pandas_object(attrs, index=False).to_numpy().tobytes())
     return h.hexdigest()
-
-
-def _object_ids(geoms: np.ndarray) -> np.ndarray:
-    """The identity of each geometry object (which features the client's arrays share)."""
-    return np.fromiter(map(id, geoms), dtype=np.int64, count=len(geoms))
 
 
 def _readable(layer: Layer) -> tuple[str, str] | None:
@@ -170,31 +162,8 @@ def slim_task(task: PartitionTask, loaded: MapProject) -> SlimTask | None:
             reads[role] = rows
     if not reads:
         return None
-    core = _core_masks(task, reads) if hasattr(task, "core") else None
     layers = {role: (replace(layer, frame=reads[role].template) if role in reads else layer) for role, layer in project.layers.items()}
-    slim = replace(task, project=replace(project, layers=layers))
-    if core is not None:
-        slim = replace(slim, core=np.zeros(0, dtype=object))  # type: ignore[call-arg]
-    return SlimTask(slim, reads, core)
-
-
-def _core_masks(task: PartitionTask, reads: dict[str, FileRows]) -> tuple[tuple[str, np.ndarray], ...] | None:
-    """The core geometries as masks over each layer's rows, in the task's order; None when they are not exactly that."""
-    wanted = _object_ids(np.asarray(getattr(task, "core"), dtype=object))
-    masks: list[tuple[str, np.ndarray]] = []
-    got: list[np.ndarray] = []
-    for role, layer in task.project.layers.items():
-        ids = _object_ids(layer.geometry)
-        mask = np.isin(ids, wanted)
-        if mask.any():
-            masks.append((role, mask))
-            got.append(ids[mask])
-    found = np.concatenate(got) if got else np.zeros(0, dtype=np.int64)
-    if not np.array_equal(found, wanted):
-        return None
-    if not any(role in reads for role, _ in masks):
-        return None
-    return tuple(masks)
+    return SlimTask(replace(task, project=replace(project, layers=layers)), reads)
 
 
 def _read_layer(rows: FileRows) -> Any:
@@ -231,11 +200,7 @@ def read_task(slim: SlimTask) -> PartitionTask:
     layers = dict(task.project.layers)
     for role, rows in slim.reads.items():
         layers[role] = replace(layers[role], frame=_read_layer(rows))
-    task = replace(task, project=replace(task.project, layers=layers))
-    if slim.core is not None:
-        parts = [layers[role].geometry[mask] for role, mask in slim.core]
-        task = replace(task, core=np.concatenate(parts) if parts else np.zeros(0, dtype=object))  # type: ignore[call-arg]
-    return task
+    return replace(task, project=replace(task.project, layers=layers))
 
 
 def run_slim_partition(slim: SlimTask) -> PartitionResult:

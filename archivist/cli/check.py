@@ -9,7 +9,7 @@ from pathlib import Path
 import click
 
 from .errors import handle_errors
-from .options import emit_report, progress_for, progress_options
+from .options import emit_report, jobs_option, progress_for, progress_options
 
 
 @click.command("check")
@@ -39,11 +39,12 @@ from .options import emit_report, progress_for, progress_options
     metavar="SIZE",
     help="With --scheduler local: each worker's memory limit (4GB, 500MiB; default: the machine's memory shared out).",
 )
+@jobs_option
 @progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
                   force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None,
-                  scheduler: str | None = None, worker_memory: str | None = None) -> None:
+                  jobs: int = 0, scheduler: str | None = None, worker_memory: str | None = None) -> None:
     """Check the map project at PATH (a folder or its archivist.toml), or each project in a folder of projects.
 
     Exit 0: no errors. 1: errors (or warnings with --strict). 2: could not run.
@@ -78,13 +79,12 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
         if scheduler is not None:  # reached (or started) first: a wrong address fails before a long read
             from ..cluster import open_executor
 
-            executor = stack.enter_context(open_executor(scheduler, progress, memory_limit=worker_memory, root=root))
+            executor = stack.enter_context(open_executor(scheduler, progress, workers=jobs or None, memory_limit=worker_memory, root=root))
         project = load_project(path, progress=progress)
-        if executor is not None:
-            executor.reading(project)  # the workers read their partitions' features from the project's files
         if executor is None:
-            report = engine.check(project, only=only, rules=rules, progress=progress)
+            report = engine.check(project, only=only, rules=rules, progress=progress, jobs=jobs)
         else:
+            executor.reading(project)  # the workers read their partitions' features from the project's files
             from ..cluster import partitions
 
             report = engine.check(project, only=only, rules=rules, progress=progress, executor=executor,

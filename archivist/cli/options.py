@@ -26,6 +26,15 @@ def progress_options(func: F) -> F:
     return func
 
 
+def jobs_option(func: F) -> F:
+    """Add ``--jobs N``: worker processes for the rules run on spatial partitions of the map (default: every core)."""
+    return click.option(
+        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=0, show_default="every core",
+        help="Worker processes for the topology and linework checks, run on parts of the map (1: one process; "
+             "0: every core). The findings are the same whatever the number.",
+    )(func)
+
+
 def progress_for(quiet: bool, verbose: bool) -> Progress:
     """The progress hook for a command run (bars on a terminal, timings with -v)."""
     return make_progress(quiet=quiet, verbose=verbose)

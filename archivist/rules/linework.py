@@ -364,6 +364,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         if cov.extent is not None:
             edge = cov.extent_boundary
             connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
+    size: float | None = None
     for k in np.flatnonzero(~connected):
         p, f = int(end_part[k]), int(end_feat[k])
         part = net.part(p)
@@ -375,14 +376,15 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
         if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
             continue
-        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g)
+        if size is None:  # the network's size, once: it sets the first radius of the search for the nearest line
+            xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
+            size = max(xmax - xmin, ymax - ymin, 1.0)
+        yield _dangle_hit(net, f, part, pts[k], bool(at_start[k]), edge, tol, g, size)
 
 
-def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground) -> Hit:
+def _dangle_hit(net: LineNetwork, f: int, part: Any, pt: Any, at_start: bool, edge: Any, tol: float, g: Ground, size: float) -> Hit:
     """Describe a free end: overshoot past the nearest line it crosses, or undershoot short of the nearest line."""
     nearest, gap, name = None, np.inf, None
-    xmin, ymin, xmax, ymax = shapely.total_bounds(net.geoms)
-    size = max(xmax - xmin, ymax - ymin, 1.0)
     radius = max(10.0 * tol, 1e-3 * size)
     while radius <= 4.0 * size:
         cand = net.tree.query(shapely.buffer(pt, radius))

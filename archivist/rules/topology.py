@@ -93,7 +93,7 @@ def mismatch_scales(g: Ground, mms: tuple[Any, ...]) -> tuple[np.ndarray, np.nda
 
 # ---------------------------------------------------------------- rules
 
-@rule("unit-overlap", family="topology", severity="error", needs=("units",), partitioned=True)
+@rule("unit-overlap", family="topology", severity="error", needs=("units",))
 def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two unit polygons share area.
 
@@ -148,7 +148,7 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, OVERLAPS)
 
 
-@rule("unit-gap", family="topology", severity="error", needs=("units",), partitioned=True)
+@rule("unit-gap", family="topology", severity="error", needs=("units",))
 def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An unmapped hole inside the map extent.
 
@@ -296,7 +296,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
 
 
-@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",), partitioned=True)
+@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",))
 def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Neighbouring polygons whose common edge nearly, but not exactly, coincides.
 
@@ -368,7 +368,7 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, MISFITS)
 
 
-@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",), partitioned=True)
+@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",))
 def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two adjacent polygons carry the same unit code and no fault separates them.
 
@@ -447,7 +447,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
         )
 
 
-@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"), partitioned=True)
+@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"))
 def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Unit area lies outside the declared map extent.
 

@@ -1,0 +1,227 @@
+"""Checks on spatial partitions (archivist/parallel.py) give the findings of the check in one process.
+
+The reference is the check in one process (``jobs=1``): same findings (rule,
+severity, layer, features, message, place, measure, geometry), same order,
+same notes, whatever the number of partitions and however the partition
+borders cut the defects.
+"""
+
+from __future__ import annotations
+
+import pickle
+import sys
+from concurrent.futures import Future, ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pytest
+import shapely
+
+import archivist
+from archivist import engine, parallel
+from archivist.model import Hit
+from archivist.project import load_project
+from archivist.registry import all_rules, select
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE / "benchmarks"))
+
+from rule_cases import all_cases  # noqa: E402
+from topology_maps import make  # noqa: E402
+
+PARTITIONED_FAMILIES = {r.family for r in all_rules() if r.partitioned}
+
+
+def same_report(a: archivist.Report, b: archivist.Report) -> None:
+    assert [f.to_dict() for f in b.findings] == [f.to_dict() for f in a.findings]
+    assert b.notes == a.notes
+    assert b.rules_run == a.rules_run
+
+
+# ---------------------------------------------------------------- the registry
+
+
+def test_partitioned_rules_are_the_local_topology_and_linework_rules():
+    # the rules deciding each finding from its surroundings; every other rule needs the whole map (see the registry)
+    assert {r.id for r in all_rules() if r.partitioned} == {
+        "unit-sliver",
+        "line-off-boundary", "line-dangle", "line-same-unit-contact", "line-self-intersection", "line-duplicate",
+    }
+
+
+# ---------------------------------------------------------------- the partitions
+
+
+def _grid_project(tmp_path: Path, n: int = 12):
+    import geopandas as gpd
+
+    boxes = [shapely.box(i * 10.0, j * 10.0, i * 10.0 + 10.0, j * 10.0 + 10.0) for i in range(n) for j in range(n)]
+    folder = tmp_path / "grid"
+    folder.mkdir()
+    gpd.GeoDataFrame({"unit": ["A"] * len(boxes)}, geometry=boxes, crs="EPSG:32633").to_file(folder / "map.gpkg", layer="units")
+    (folder / "archivist.toml").write_text(
+        '[map]\ntitle = "Grid"\ncrs = "EPSG:32633"\nscale = 10000\n[layers.units]\npath = "map.gpkg"\nlayer = "units"\n',
+        encoding="utf-8")
+    return load_project(folder)
+
+
+def test_cells_have_one_owner_and_the_halo_holds_every_feature_near_a_core(tmp_path):
+    project = _grid_project(tmp_path)
+    geoms = project.layers["units"].geometry
+    centres = shapely.get_coordinates(shapely.centroid(geoms))
+    tree = shapely.STRtree(geoms)
+    for parts in (2, 3, 5):
+        plan = parallel.plan_partitions(project, parts, halo=15.0, reach=1.0)
+        cores = np.sum([p.core for p in plan.partitions], axis=0)
+        assert (cores == 1).all()  # every cell owned once
+        owner = plan.owners(centres[:, 0], centres[:, 1])
+        assert set(owner.tolist()) == set(range(parts))
+        for p in plan.partitions:
+            assert np.all(np.diff(p.rows["units"]) > 0)  # rows kept in their order
+            mine = np.flatnonzero(owner == p.index)
+            assert set(mine.tolist()) <= set(p.rows["units"].tolist())
+            _, near = tree.query(geoms[mine], predicate="dwithin", distance=15.0)
+            assert set(near.tolist()) <= set(p.rows["units"].tolist())  # GEOS distances: the halo misses none
+            # every unit over a marked cell is in the partition
+            over = tree.query(p.region, predicate="intersects")
+            assert set(over.tolist()) <= set(p.rows["units"].tolist())
+
+
+def test_a_place_is_owned_by_the_partition_of_its_cell(tmp_path):
+    project = _grid_project(tmp_path)
+    plan = parallel.plan_partitions(project, 4, halo=15.0, reach=1.0)
+    g = plan.grid
+    x, y = g.x0 + 2.5 * g.cell, g.y0 + 1.5 * g.cell
+    assert plan.owners(np.array([x]), np.array([y])).tolist() == [plan.owner[1, 2]]
+    assert plan.owners(np.array([np.nan]), np.array([np.nan])).tolist() == [0]
+
+
+def test_a_finding_is_trusted_only_over_marked_cells():
+    grid = parallel.Grid(0.0, 0.0, 10.0, 4, 4, 1)
+    marked = np.zeros((4, 4), dtype=bool)
+    marked[:2, :2] = True  # x and y from 0 to 20
+    boxes = np.array([[5, 5, 12, 12], [5, 5, 25, 12], [np.nan] * 4, [-5, 5, 5, 5]], dtype=float)
+    assert parallel.trusted(grid, marked, boxes, 1.0).tolist() == [True, False, False, False]
+    assert parallel.trusted(grid, marked, boxes[:1], 9.0).tolist() == [False]  # its reach runs off the marked cells
+
+
+def test_a_task_and_its_result_cross_process_boundaries(tmp_path):
+    project = _grid_project(tmp_path)
+    plan = parallel.plan_partitions(project, 2)
+    part = plan.partitions[1]
+    task = parallel.PartitionTask(1, parallel.sub_project(project, part), ("unit-sliver",), plan.grid, part.marked, plan.reach)
+    result = parallel.run_partition(pickle.loads(pickle.dumps(task)))
+    assert pickle.loads(pickle.dumps(result)).index == 1
+
+
+def _plan_of_two() -> parallel.Plan:
+    # two cells side by side, x 0-10 owned by partition 0, x 10-20 by partition 1
+    grid = parallel.Grid(0.0, 0.0, 10.0, 2, 1, 1)
+    owner = np.array([[0, 1]])
+    parts = tuple(parallel.Partition(i, owner == i, np.ones((1, 2), bool), {}) for i in range(2))
+    return parallel.Plan(grid, owner, parts, 5.0, 1.0)
+
+
+def test_merge_keeps_owned_hits_and_sends_a_rule_the_partitions_cannot_judge_to_the_whole_map():
+    plan = _plan_of_two()
+    near0, near1 = Hit("at 0", x=0.5, y=0.5), Hit("at 1", x=10.5, y=0.5)
+    results = [
+        parallel.PartitionResult(0, (("r", near0, 0.5, 0.5, True), ("r", near1, 10.5, 0.5, False)), (), ("note",)),
+        parallel.PartitionResult(1, (("r", near1, 10.5, 0.5, True),), (), ("note",)),
+    ]
+    merged = parallel.merge(plan, ["r"], results)
+    assert merged.hits == {"r": [near0, near1]} and merged.whole == () and merged.notes == ("note",)
+    # owned but not trusted: the whole map decides
+    untrusted = [results[0], parallel.PartitionResult(1, (("r", near1, 10.5, 0.5, False),), (), ())]
+    assert parallel.merge(plan, ["r"], untrusted).whole == ("r",)
+    # trusted by one partition, missing from its owner: the whole map decides
+    missing = [results[0], parallel.PartitionResult(1, (), (), ())]
+    missing[0] = parallel.PartitionResult(0, (("r", near0, 0.5, 0.5, True), ("r", near1, 10.5, 0.5, True)), (), ())
+    assert parallel.merge(plan, ["r"], missing).whole == ("r",)
+    # GEOS stopped the rule in a partition
+    assert parallel.merge(plan, ["r"], [results[0], parallel.PartitionResult(1, (), ("r",), ())]).whole == ("r",)
+
+
+def test_an_interrupt_cancels_the_partitions_not_started(tmp_path):
+    project = _grid_project(tmp_path)
+    submitted: list[Future] = []
+
+    class Interrupting(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            fut: Future = Future()
+            submitted.append(fut)
+            if len(submitted) == 1:
+                fut.set_exception(KeyboardInterrupt())
+            return fut
+
+    with pytest.raises(KeyboardInterrupt):
+        parallel.run_partitioned(project, select(rules=["unit-sliver"]), Interrupting(1), 3)
+    assert len(submitted) == 3 and all(f.cancelled() for f in submitted[1:])
+
+
+def test_default_jobs_are_the_cores_this_process_may_use(monkeypatch):
+    monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 3, 5}, raising=False)
+    assert parallel.default_jobs() == 3
+
+
+def test_jobs_must_not_be_negative(tmp_path):
+    with pytest.raises(archivist.ArchivistError, match="jobs"):
+        archivist.check(_grid_project(tmp_path), jobs=-1)
+
+
+# ---------------------------------------------------------------- the rule cases, cut into partitions
+
+CASES = {rid: pair for rid, pair in all_cases().items() if any(r.id == rid and r.family in PARTITIONED_FAMILIES for r in all_rules())}
+
+
+@pytest.mark.parametrize("tight", [False, True], ids=["halo", "tight-halo"])
+@pytest.mark.parametrize("rid", sorted(CASES))
+def test_rule_cases_on_partitions_give_the_findings_of_one_process(rid, tight, tmp_path, monkeypatch):
+    # the cases are a few features each: 2, 3 and 5 partitions put partition borders through every defect;
+    # with a halo narrower than a feature ("tight"), the partitions cannot judge most findings and the merge
+    # must notice it
+    if tight:
+        monkeypatch.setattr(parallel, "HALO_FEATURES", 0.3)
+    with ThreadPoolExecutor(2) as pool:
+        for k, make_case in enumerate(CASES[rid]):
+            folder = make_case(tmp_path / f"case{k}")
+            project = load_project(folder)
+            reference = engine.check(project)
+            for parts in (2, 3, 5):
+                same_report(reference, engine.check(project, executor=pool, parts=parts))
+
+
+# ---------------------------------------------------------------- synthetic maps of 10^4 polygons
+
+
+@pytest.fixture(scope="module")
+def maps(tmp_path_factory):
+    root = tmp_path_factory.mktemp("maps")
+    make(root / "clean", 10_000, seed=3)
+    make(root / "defects", 10_000, seed=4, defects=40)
+    return root
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", ["clean", "defects"])
+def test_jobs_1_2_and_4_give_the_same_findings_on_a_map_of_ten_thousand_polygons(maps, name):
+    project = load_project(maps / name)
+    reference = archivist.check(project, jobs=1)
+    assert name == "clean" or len(reference.findings) > 100
+    for jobs in (2, 4):
+        same_report(reference, archivist.check(project, jobs=jobs, parts=jobs))
+
+
+@pytest.mark.slow
+def test_the_command_line_gives_the_same_report_with_jobs(maps, tmp_path):
+    from click.testing import CliRunner
+
+    from archivist.cli import cli as main
+
+    outs = []
+    for jobs in ("1", "2"):
+        out = tmp_path / f"jobs{jobs}.json"
+        result = CliRunner().invoke(main, ["check", str(maps / "defects"), "--jobs", jobs, "-q", "--format", "json", "-o", str(out)])
+        assert result.exit_code == 1, result.output
+        outs.append(out.read_bytes())
+    assert outs[0] == outs[1]
