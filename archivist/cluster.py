@@ -9,11 +9,10 @@ the executor that sends them to Dask workers:
   machine: one worker process per usable core (or ``--jobs N``), one thread
   each, each with its own memory limit (``--worker-memory``; by default the
   machine's memory shared out equally). Each worker holds only the
-  partitions it is working on and their analyses (the half-edge table, the
-  coverage analysis, the line network: several times the size of the
-  features they are built from), so a map whose analyses one process could
-  not hold is checked across several processes; a worker that grows past
-  its limit is restarted by its nanny and its task run again.
+  partition it is working on and its analyses, so a map whose analyses
+  one process could not hold is checked across several processes; a
+  worker that grows past its limit is restarted by its nanny and its task
+  run again.
 * ``--scheduler tcp://HOST:PORT`` connects to a running scheduler (started
   with ``dask scheduler``, workers with ``dask worker tcp://HOST:PORT``).
   Before any task is sent, every worker is asked whether it runs the same
@@ -23,20 +22,23 @@ the executor that sends them to Dask workers:
   named in a one-line error.
 
 What each task carries: the rules to run, the partition's cells and reach,
-the settings and the tables, but not the features of the layers a worker
-can read itself (:mod:`archivist.partread`): for those, the file, the box
-of the partition's features (GDAL's spatial filter, pyogrio's ``bbox``), the
-feature ids to keep in order, and a fingerprint of what the client holds.
-The worker reads its partition from the project's files and checks the
-fingerprint; on any difference the client sends that task with its features
-instead. So the map's features never travel through the client's network
-link nor wait, pickled, in the scheduler, and a worker reads only its part.
-The client still loads the project once, as a one-process run does: it cuts
-the partitions from the features' boxes, runs the families that are not
-partitioned (metadata, legend, samples, structures, the CRS labels), and
-merges the partitions' findings; what a national compilation adds on the
-workers is the analyses (half-edges, coverage, line network), which are
-several times the size of the features they are built from.
+the settings and the tables, and the partition's features. On a running
+cluster, the features of the layers a worker can read itself are not sent
+(:mod:`archivist.partread`): for those the task names the file, the
+feature ids in order and a fingerprint of what the client holds; the worker
+reads them by fid from the project's files and checks the fingerprint, and
+on any difference the client sends that task with its features instead. So
+the map's features do not travel through the client's network link nor
+wait, pickled, in the scheduler. With ``local`` the features are sent: on
+one machine that costs less time than reading them by fid (measured with
+tests/benchmarks/bench_cluster.py).
+
+The client loads the project once, as a one-process run does: it cuts the
+partitions, runs the families that are not partitioned (metadata, legend,
+samples, structures, the CRS labels) and merges the partitions' findings.
+What the workers hold is each partition and its analyses (half-edges,
+coverage, line network), several times the size of the features they are
+built from.
 
 How the map is cut and the findings merged is :mod:`archivist.parallel`'s
 (Hilbert order of the features' boxes, a halo around each partition, each
@@ -178,6 +180,7 @@ def open_executor(
     workers: int | None = None,
     memory_limit: str | None = None,
     root: Path | None = None,
+    read_on_workers: bool | None = None,
 ) -> Iterator[ReadingExecutor]:
     """An executor whose tasks run on Dask workers; everything is stopped on leaving.
 
@@ -196,6 +199,12 @@ def open_executor(
     root
         The project folder: every worker of a remote cluster must see it at
         this path (checked before any task is sent).
+    read_on_workers
+        Whether the workers read their partitions' features from the
+        project's files (:mod:`archivist.partread`) rather than receive them
+        with each task; default: for a running cluster yes, for ``local``
+        no (on one machine, sending them costs less time; see
+        tests/benchmarks/bench_cluster.py).
 
     Raises
     ------
@@ -251,7 +260,8 @@ def open_executor(
         from .partread import ReadingExecutor
 
         # pure=False: partitions are never the same task twice, so their arguments are not hashed
-        executor = ReadingExecutor(client.get_executor(pure=False))
+        local = cluster is not None
+        executor = ReadingExecutor(client.get_executor(pure=False), read=not local if read_on_workers is None else read_on_workers)
         executor.workers = max(1, sum(client.nthreads().values()))  # threads across the workers: tasks at once
         yield executor
     finally:

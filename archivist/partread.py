@@ -5,15 +5,16 @@ partition's project: the features of its core and halo. Sent as it is, every
 feature of the map travels from the client to the workers (pickled: their
 WKB and attributes), and while the tasks wait, the client and the scheduler
 hold those copies. :func:`slim_task` replaces each layer a worker can read
-itself with a :class:`FileRows`: the file and GDAL layer, the box of the
-partition's features in it (GDAL's spatial filter, pyogrio's ``bbox``), the
-feature ids (fids) to keep in their order, the layer's empty frame (its
-columns, their types, its CRS), and a fingerprint of what the client holds
+itself with a :class:`FileRows`: the file and GDAL layer, the feature ids
+(fids) of the partition's features in their order (read one by one by fid,
+pyogrio's ``fids``: a partition's box is no filter, since a map-boundary line
+or a long fault spans the whole map), the layer's empty frame (its columns,
+their types, its CRS), and a fingerprint of what the client holds
 (SHA-256 of the features' WKB, their attribute hashes and fids). A task so
 slimmed weighs a few bytes per feature (its fids and feature ids).
 
-On the worker, :func:`read_task` reads each such layer with the box, keeps
-the listed fids in the listed order, casts the columns to the client's types
+On the worker, :func:`read_task` reads each such layer's listed fids in
+their order, casts the columns to the client's types
 and checks the fingerprint: the partition's project is then the very one
 the client would have sent, and the partition's findings are the same. If
 anything differs (the file changed since the client read it, the worker
@@ -25,9 +26,15 @@ finding.
 A layer is read by the worker only when it was read from one layer of one
 vector file as it is: not a table of coordinates, not line layers combined
 from several files, not moved by the alignment (another CRS, swapped axes)
-or into the local frame of a map in longitude/latitude, every feature with a
-geometry (GDAL's box filter cannot return a feature without one). The
-fingerprint finds any other change; such a layer is sent with its features.
+or into the local frame of a map in longitude/latitude, every feature of the
+partition with a geometry. The fingerprint finds any other change; such a
+layer is sent with its features.
+
+What it costs: reading by fid is slower per feature than reading a whole
+layer in file order, and both sides compute the fingerprint; on one machine
+(``--scheduler local``) sending the features costs less time, so the
+cluster module turns this on for remote clusters only
+(:func:`archivist.cluster.open_executor`); see tests/benchmarks/bench_cluster.py.
 """
 
 from __future__ import annotations
@@ -58,8 +65,7 @@ class FileRows:
 
     path: str
     layer: str
-    bbox: tuple[float, float, float, float]
-    fids: np.ndarray  # the features to keep, in the partition's order
+    fids: np.ndarray  # the features to read, in the partition's order
     template: Any  # the layer's frame with no rows: columns, dtypes, index name, CRS
     digest: str  # fingerprint() of the client's rows
 
@@ -124,15 +130,11 @@ def _file_rows(sub: Layer, loaded: Layer | None, where: tuple[str, str]) -> File
     pos = loaded.frame.index.get_indexer(frame.index)
     if (pos < 0).any() or not all(map(operator.is_, geoms, loaded.geometry[pos])):  # moved by the alignment: a new object
         return None
-    b = shapely.total_bounds(geoms)
-    if not np.isfinite(b).all():
-        return None
     try:
         digest = fingerprint(frame)
     except TypeError:  # an attribute pandas cannot hash
         return None
-    return FileRows(where[0], where[1], (float(b[0]), float(b[1]), float(b[2]), float(b[3])),
-                    np.asarray(frame.index, dtype=np.int64), frame.iloc[:0].copy(), digest)
+    return FileRows(where[0], where[1], np.asarray(frame.index, dtype=np.int64), frame.iloc[:0].copy(), digest)
 
 
 def _fid_index(frame: Any) -> bool:
@@ -171,15 +173,14 @@ def _read_layer(rows: FileRows) -> Any:
     from . import vectorio
 
     try:
-        frame = vectorio.read_dataframe(rows.path, layer=rows.layer, bbox=rows.bbox, fid_as_index=True, on_invalid="ignore")
+        frame = vectorio.read_dataframe(rows.path, layer=rows.layer, fids=rows.fids, fid_as_index=True, on_invalid="ignore")
     except (vectorio.VectorReadError, OSError) as exc:
         raise ReadMismatch(f"{rows.path}: {exc}") from None
     template = rows.template
-    if not frame.index.is_unique or not set(rows.fids.tolist()) <= set(frame.index.tolist()):
-        raise ReadMismatch(f"{rows.path}:{rows.layer}: features of the partition are not in the file's box")
+    if not np.array_equal(np.asarray(frame.index, dtype=np.int64), rows.fids):
+        raise ReadMismatch(f"{rows.path}:{rows.layer}: the features of the partition are not all in the file")
     if list(frame.columns) != list(template.columns):
         raise ReadMismatch(f"{rows.path}:{rows.layer}: the fields differ")
-    frame = frame.loc[rows.fids]
     types = {c: t for c, t in template.dtypes.items() if c != template.geometry.name}
     try:
         frame = frame.astype(types)
@@ -220,16 +221,17 @@ class ReadingExecutor(Executor):
     loaded) is given with :meth:`reading` once the project is read.
     """
 
-    def __init__(self, inner: Executor) -> None:
+    def __init__(self, inner: Executor, *, read: bool = True) -> None:
         self.inner = inner
+        self.read = read  # False: every task is sent as it is
         self.loaded: MapProject | None = None
         self.workers = 1  # how many tasks ``inner`` runs at once (set by whoever made it)
         self.sent_slim = 0
         self.fell_back = 0
 
     def reading(self, loaded: MapProject) -> None:
-        """The project as loaded: partition layers that are its own rows are read by the workers."""
-        self.loaded = loaded
+        """The project as loaded: partition layers that are its own rows are read by the workers (when ``read``)."""
+        self.loaded = loaded if self.read else None
 
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Future:
         from .parallel import PartitionTask, run_partition

@@ -191,6 +191,7 @@ def test_a_running_scheduler_runs_the_tasks(running_scheduler, tmp_path):
 
     with open_executor(running_scheduler, root=tmp_path) as executor:
         assert executor.submit(sum, [1, 2, 3]).result() == 6
+        assert executor.read and executor.workers == 1  # a running cluster's workers read their partitions
 
 
 def test_workers_that_cannot_see_the_project_are_named(running_scheduler, tmp_path):
@@ -205,11 +206,13 @@ def test_workers_that_cannot_see_the_project_are_named(running_scheduler, tmp_pa
     assert "\n" not in message
 
 
-def test_worker_memory_is_refused_for_a_running_scheduler(running_scheduler, tmp_path):
+@pytest.mark.parametrize("option, message", [({"memory_limit": "1GB"}, "--worker-memory applies to --scheduler local"),
+                                             ({"workers": 3}, "--jobs sizes the workers of --scheduler local")])
+def test_local_sizes_are_refused_for_a_running_scheduler(running_scheduler, tmp_path, option, message):
     from archivist.cluster import open_executor
 
-    with pytest.raises(ArchivistError, match=r"^--worker-memory applies to --scheduler local"):
-        with open_executor(running_scheduler, memory_limit="1GB", root=tmp_path):
+    with pytest.raises(ArchivistError, match=f"^{message}"):
+        with open_executor(running_scheduler, root=tmp_path, **option):
             pass
 
 
@@ -307,9 +310,11 @@ class Recorder(Progress):
 
 
 @pytest.mark.slow
+@pytest.mark.parametrize("read", [False, True], ids=["sent", "read-by-workers"])
 @pytest.mark.parametrize("name", ["clean", "defects"])
-def test_a_local_cluster_finds_what_one_process_finds(distributed, synthetic_maps, name):
-    """Same rules, features, places, measures and notes, in the same order; the workers read their partitions."""
+def test_a_local_cluster_finds_what_one_process_finds(distributed, synthetic_maps, name, read):
+    """Same rules, features, places, measures and notes, in the same order, whether the partitions' features are sent
+    with the tasks (the default of a local cluster) or read by the workers from the files (of a running cluster)."""
     from archivist import engine
     from archivist.cluster import open_executor
     from archivist.project import load_project
@@ -317,10 +322,10 @@ def test_a_local_cluster_finds_what_one_process_finds(distributed, synthetic_map
     project = load_project(synthetic_maps[name])
     one = engine.check(project, jobs=1)
     progress = Recorder()
-    with open_executor("local", workers=2) as executor:
+    with open_executor("local", workers=2, read_on_workers=read) as executor:
         executor.reading(project)
         many = engine.check(project, executor=executor, parts=4, progress=progress)
-        assert executor.sent_slim > 0 and executor.fell_back == 0
+        assert (executor.sent_slim > 0) == read and executor.fell_back == 0
     assert many.findings == one.findings
     assert (many.notes, many.rules_run) == (one.notes, one.rules_run)
     if name == "defects":

@@ -13,7 +13,10 @@ fresh child processes, one after the other:
 * cluster: a local cluster of ``--workers`` worker processes
   (``archivist.cluster.open_executor``; default: every usable core), then the
   same load and ``check`` with the partitioned families on the cluster, cut
-  as the command line cuts them (``archivist.cluster.partitions``). Printed:
+  as the command line cuts them (``archivist.cluster.partitions``), once
+  with the features sent with each task (what ``--scheduler local`` does)
+  and once read by the workers from the files by fid (what a running
+  cluster does, :mod:`archivist.partread`). Printed for each:
   the times (cluster start apart), the client's peak memory (it also runs the
   scheduler), each worker's peak memory (``resource.getrusage`` in the
   worker process, asked just before the cluster stops), how many partition
@@ -71,14 +74,14 @@ def one_process(folder: Path, out: Path) -> dict:
             "polygons": len(project.layers["units"].frame), "lines": len(project.layers["lines"].frame)}
 
 
-def on_cluster(folder: Path, reference: Path, workers: int | None, memory: str | None) -> dict:
+def on_cluster(folder: Path, reference: Path, workers: int | None, memory: str | None, read: bool) -> dict:
     from archivist import engine
     from archivist.cluster import open_executor, partitions
     from archivist.project import load_project
     from archivist.report import render_json
 
     t = time.perf_counter()
-    with open_executor("local", workers=workers, memory_limit=memory) as executor:
+    with open_executor("local", workers=workers, memory_limit=memory, read_on_workers=read) as executor:
         t_start = time.perf_counter() - t
         t = time.perf_counter()
         project = load_project(folder)
@@ -114,12 +117,13 @@ def main(argv=None) -> int:
     ap.add_argument("--keep", type=Path, help="write the map here and keep it (default: a temporary folder)")
     ap.add_argument("--_one", nargs=2, type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--_cluster", nargs=2, type=Path, help=argparse.SUPPRESS)
+    ap.add_argument("--_read", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args._one:
         print(json.dumps(one_process(*args._one)))
         return 0
     if args._cluster:
-        print(json.dumps(on_cluster(*args._cluster, args.workers, args.worker_memory)))
+        print(json.dumps(on_cluster(*args._cluster, args.workers, args.worker_memory, args._read)))
         return 0
     work = args.keep or Path(tempfile.mkdtemp(prefix="archivist-bench-"))
     work.mkdir(parents=True, exist_ok=True)
@@ -136,19 +140,25 @@ def main(argv=None) -> int:
     one = json.loads(out.stdout.strip().splitlines()[-1])
     print(f"  {one['polygons']} polygons, {one['lines']} lines: load {one['load']:.1f} s, check {one['check']:.1f} s, "
           f"peak {one['peak_mb']:.0f} MB, {one['findings']} findings", flush=True)
-    print(f"local cluster ({load()})", flush=True)
-    out = subprocess.run([sys.executable, __file__, "--_cluster", str(folder), str(reference), *extra], check=True, capture_output=True, text=True)
-    many = json.loads(out.stdout.strip().splitlines()[-1])
-    peaks = ", ".join(f"{p:.0f}" for p in many["worker_peaks_mb"])
-    print(f"  {len(many['worker_peaks_mb'])} workers (limit {', '.join(f'{m:.0f}' for m in many['memory_limit_mb'])} MB each), "
-          f"{many['parts']} partitions: start {many['start']:.1f} s, load {many['load']:.1f} s, check {many['check']:.1f} s "
-          f"(x{one['check'] / many['check']:.2f} of one process)", flush=True)
-    print(f"  peak memory: client and scheduler {many['client_peak_mb']:.0f} MB; workers {peaks} MB", flush=True)
-    print(f"  partition tasks read by the workers: {many['slim']}, fell back to carrying their features: {many['fell_back']}", flush=True)
-    print(f"  report identical to one process: {'yes' if many['same'] else 'NO'} ({load()})", flush=True)
+    same = True
+    for read in (False, True):
+        how = "features read by the workers from the files" if read else "features sent with the tasks (as --scheduler local does)"
+        print(f"local cluster, {how} ({load()})", flush=True)
+        out = subprocess.run([sys.executable, __file__, "--_cluster", str(folder), str(reference), *extra, *(["--_read"] if read else [])],
+                             check=True, capture_output=True, text=True)
+        many = json.loads(out.stdout.strip().splitlines()[-1])
+        peaks = ", ".join(f"{p:.0f}" for p in many["worker_peaks_mb"])
+        print(f"  {len(many['worker_peaks_mb'])} workers (limit {', '.join(f'{m:.0f}' for m in many['memory_limit_mb'])} MB each), "
+              f"{many['parts']} partitions: start {many['start']:.1f} s, load {many['load']:.1f} s, check {many['check']:.1f} s "
+              f"(one process / cluster: x{one['check'] / many['check']:.2f})", flush=True)
+        print(f"  peak memory: client and scheduler {many['client_peak_mb']:.0f} MB; workers {peaks} MB", flush=True)
+        if read:
+            print(f"  partition tasks read by the workers: {many['slim']}, fell back to carrying their features: {many['fell_back']}", flush=True)
+        print(f"  report identical to one process: {'yes' if many['same'] else 'NO'} ({load()})", flush=True)
+        same = same and many["same"]
     if not args.keep:
         shutil.rmtree(work, ignore_errors=True)
-    return 0 if many["same"] else 1
+    return 0 if same else 1
 
 
 if __name__ == "__main__":
