@@ -150,7 +150,10 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
 
     for family, members in groupby(selected, key=lambda i: i.family):
         group = list(members)
-        batch = [info for info in group if info.partitioned and not skipped(info)] if partition else []
+        # a family goes to the partitions only when every rule of it that runs can: the rules of a family share
+        # analyses (the half-edge table, the coverage, the line network) that one rule left here would build again
+        runnable = [info for info in group if not skipped(info)] if partition else []
+        batch = runnable if runnable and all(info.partitioned for info in runnable) else []
         merged: Any = None
         with progress.step(f"{family} rules", total=len(group) + (parts if batch else 0)) as step:
             for info in group:

@@ -43,38 +43,38 @@ Whole map, and why:
 
 How the map is cut
 ------------------
-The features of every partitioned layer (every layer of the project but the
-extent, which every partition gets whole; tables go whole too) are put in one
-order by the Hilbert distance of the centre of their bounds over the total
-bounds of those layers (:meth:`geopandas.GeoSeries.hilbert_distance`), and the
-order is cut into ``parts`` contiguous ranges of about equal feature count.
-A partition's *core* is the features of its range; its *halo* is every
-feature of another range within the halo width ``h`` of a core feature
-(:func:`halo_width`). A partition's project holds its core and its halo,
-rows in their original order, so every index-ordered step of a rule sees the
-same order as on the whole map. Features with no geometry go to the core of
-the first partition.
+A grid of square cells, at least half the halo width ``h`` wide
+(:func:`halo_width`), spans the partitioned layers (every layer of the
+project but the extent, which every partition gets whole, cut to its cells;
+tables go whole). The cells are put in the order of the Hilbert distance of
+their centres over those bounds (:meth:`geopandas.GeoSeries.hilbert_distance`)
+and the order is cut into ``parts`` contiguous runs holding about the same
+number of features (counted by the centre of their bounds). A partition's
+*core* is its run of cells; its *marked* cells are those within ``h`` of the
+core (grown by ``ceil(h / cell) + 1`` cells); it holds every feature whose
+bounds touch a marked cell: its core features and its *halo*. Rows keep
+their original order, so every index-ordered step of a rule sees the same
+order as on the whole map. Features with no geometry go to the first
+partition.
 
 How findings are merged
 -----------------------
 A finding's place is its representative point, the ``x``, ``y`` the report
 gives (the hit's own point, else its geometry's point, else a point on its
-surface; :func:`archivist.engine.to_finding`). It is *owned* by the partition
-holding the feature nearest to that point (one spatial index over every
-feature of the partitioned layers, in the calling process), so each finding
-is reported once, by one partition.
+surface; :func:`archivist.engine.to_finding`). It is *owned* by the
+partition whose core holds that point's cell, so each finding is reported
+once, by one partition.
 
-A finding is *trusted* by a partition when everything it rests on lies within
-``h`` of that partition's core: with ``d0`` the distance from its point to
-the nearest core feature, ``diag`` the diagonal of its geometry's bounds and
-``reach`` the farthest a partitioned rule looks from a place it judges
-(:func:`rule_reach`), ``d0 + diag + reach <= h``. Every point of such a
-finding's geometry, and every point a rule looked at to decide it, is then
-within ``h`` of a core feature, so every feature touching those points is in
-the partition (the halo holds every feature within ``h`` of the core): the
-rule sees there exactly what it sees on the whole map, and gives the same
-hit. The merge keeps each partition's owned findings, and runs a rule on the
-whole map instead (its answer replaces the partitions') when:
+A partition *trusts* a finding when the bounds of its geometry and place,
+grown by the rules' ``reach`` (:func:`rule_reach`: the farthest a partitioned
+rule looks from a place it judges), lie on its marked cells. Every feature
+over a marked cell is in the partition (its bounds touch that cell), so the
+rule saw there exactly what it sees on the whole map, and gives the same
+hit. A finding whose place lies in the core is trusted when it is no larger
+than the halo less the reach (the halo is three times the larger features,
+see :func:`halo_width`). The merge keeps each partition's owned findings,
+and runs a rule on the whole map instead (its answer replaces the
+partitions') when:
 
 - a finding owned by a partition is not trusted by it (a finding larger than
   the halo allows: a gap as wide as a quarter of the map), or has no place;
@@ -83,7 +83,8 @@ whole map instead (its answer replaces the partitions') when:
 - GEOS stopped the rule in a partition.
 
 So the merged findings are the whole map's findings; the fallback costs time,
-never a finding.
+never a finding. Findings of a rule are then put in one total order
+(:func:`archivist.engine.finding_order`), the same in one process.
 
 The interface
 -------------
@@ -100,16 +101,23 @@ the rule yielded them, in partition order; the engine turns them into
 findings and orders them), the rule ids to run on the whole map instead, and
 the report notes the partitions made. The work of one partition is
 :func:`run_partition`, a top-level function of one picklable
-:class:`PartitionTask` (the partition's project, rule ids, its core
-geometries, the halo width and reach) returning a picklable
+:class:`PartitionTask` (the partition's project, rule ids, the grid, its
+marked cells and the reach) returning a picklable
 :class:`PartitionResult`; it imports the rule modules itself, so it runs in
 a thread, a process or a remote worker alike. On ``KeyboardInterrupt`` (or
 any error) pending partitions are cancelled before the exception goes on.
 
 What this does not cover: a rule must be registered ``partitioned=True``
 only if its findings are decided from what lies within :func:`rule_reach`
-of them (or of their own geometry); the trust test cannot see a rule that
-reads farther.
+of them (or of their own geometry), to the last bit; the trust test cannot
+see a rule that reads farther. ``line-dangle`` names the nearest line at any
+distance: the link to it is the finding's geometry, so a far one is not
+trusted; but an end with no other line within four times the partition's
+size reads "no other line on the map" on the partition, a case only a map
+with a lone line far from all others can meet. A family runs on partitions
+only when every rule of it that runs is partitioned (the engine, see
+:func:`archivist.engine.run_rules`): its rules share analyses that a rule
+left in the calling process would build again for the whole map.
 """
 
 from __future__ import annotations
@@ -243,11 +251,12 @@ def halo_width(project: MapProject, reach: float | None = None) -> float:
 
     The size of a feature is the diagonal of its bounds; "the larger
     features" is the ``SIZE_QUANTILE`` quantile over every partitioned layer.
-    A finding trusted with this halo (see the module docstring) can be as
-    large as ``HALO_FEATURES - 1`` such features, with its place up to one
-    feature from the nearest core feature: a polygon left out (a gap the size
-    of the polygon), an overlap along a whole edge, a line's free end and the
-    line it fails to reach.
+    A finding whose place lies in a partition's core is trusted there (see
+    the module docstring) when it reaches no farther than the halo less the
+    rules' reach from that place: up to three such features, which covers a
+    polygon left out (a gap the size of the polygon), an overlap along a
+    whole edge, a line's free end and the line it fails to reach. Larger
+    findings make their rule run on the whole map.
     """
     import shapely
 

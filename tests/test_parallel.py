@@ -29,6 +29,7 @@ sys.path.insert(0, str(HERE / "benchmarks"))
 from rule_cases import all_cases  # noqa: E402
 from topology_maps import make  # noqa: E402
 
+PARTITIONED = [r.id for r in all_rules() if r.partitioned]
 PARTITIONED_FAMILIES = {r.family for r in all_rules() if r.partitioned}
 
 
@@ -159,6 +160,24 @@ def test_an_interrupt_cancels_the_partitions_not_started(tmp_path):
     assert len(submitted) == 3 and all(f.cancelled() for f in submitted[1:])
 
 
+def test_a_family_runs_on_partitions_only_when_each_of_its_rules_can(tmp_path):
+    project = _grid_project(tmp_path)
+    sent = []
+
+    class Counting(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            sent.append(args[0].rules)
+            return super().submit(fn, *args, **kwargs)
+
+    with Counting(2) as pool:
+        engine.check(project, rules=["unit-sliver"], executor=pool, parts=3)
+        assert sent == [("unit-sliver",)] * 3
+        sent.clear()
+        # unit-gap needs the whole map; unit-sliver stays with it (they share the unit polygons)
+        engine.check(project, rules=["unit-sliver", "unit-gap"], executor=pool, parts=3)
+        assert sent == []
+
+
 def test_default_jobs_are_the_cores_this_process_may_use(monkeypatch):
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 3, 5}, raising=False)
     assert parallel.default_jobs() == 3
@@ -171,7 +190,7 @@ def test_jobs_must_not_be_negative(tmp_path):
 
 # ---------------------------------------------------------------- the rule cases, cut into partitions
 
-CASES = {rid: pair for rid, pair in all_cases().items() if any(r.id == rid and r.family in PARTITIONED_FAMILIES for r in all_rules())}
+CASES = {rid: pair for rid, pair in all_cases().items() if rid in PARTITIONED}
 
 
 @pytest.mark.parametrize("tight", [False, True], ids=["halo", "tight-halo"])
@@ -186,9 +205,10 @@ def test_rule_cases_on_partitions_give_the_findings_of_one_process(rid, tight, t
         for k, make_case in enumerate(CASES[rid]):
             folder = make_case(tmp_path / f"case{k}")
             project = load_project(folder)
-            reference = engine.check(project)
+            # the rule alone: its family then runs on the partitions
+            reference = engine.check(project, rules=[rid])
             for parts in (2, 3, 5):
-                same_report(reference, engine.check(project, executor=pool, parts=parts))
+                same_report(reference, engine.check(project, rules=[rid], executor=pool, parts=parts))
 
 
 # ---------------------------------------------------------------- synthetic maps of 10^4 polygons
@@ -210,6 +230,11 @@ def test_jobs_1_2_and_4_give_the_same_findings_on_a_map_of_ten_thousand_polygons
     assert name == "clean" or len(reference.findings) > 100
     for jobs in (2, 4):
         same_report(reference, archivist.check(project, jobs=jobs, parts=jobs))
+    # the partitioned rules alone: topology and linework run on the partitions
+    reference = archivist.check(project, rules=PARTITIONED, jobs=1)
+    assert name == "clean" or {f.rule for f in reference.findings} >= {"line-dangle"}
+    for jobs in (2, 4):
+        same_report(reference, archivist.check(project, rules=PARTITIONED, jobs=jobs, parts=jobs))
 
 
 @pytest.mark.slow

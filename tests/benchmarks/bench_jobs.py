@@ -8,7 +8,9 @@ dissolved into units, its contacts, faults and map boundary; with
 one process, side by side, the project is loaded once and checked with
 ``archivist.check(project, jobs=1)`` and with ``jobs=N`` for each N asked
 (default: 2 and every core when there are more), ``--repeat`` times each; the
-best time of each is kept. Printed per size and N: the times, the speed-up
+best time of each is kept. With ``--partitioned`` only the rules registered
+``partitioned`` run (the whole check sends a family to the partitions only
+when every rule of it can go; see ``archivist/engine.py``). Printed per size and N: the times, the speed-up
 (jobs 1 / jobs N), whether the findings and notes are identical (rule,
 severity, layer, features, message, place, measure, geometry, in order), and
 which partitioned rules the partitions handed back to the whole map (their
@@ -58,6 +60,7 @@ def handed_back(project, jobs: int) -> list[str]:
 def main(argv=None) -> int:
     from archivist import check, load_project
     from archivist.parallel import default_jobs, make_executor
+    from archivist.registry import all_rules
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
@@ -66,8 +69,10 @@ def main(argv=None) -> int:
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--threads", action="store_true", help="threads instead of worker processes")
     ap.add_argument("--explain", action="store_true", help="list the rules handed back to the whole map")
+    ap.add_argument("--partitioned", action="store_true", help="run only the rules registered partitioned")
     args = ap.parse_args(argv)
     jobs_list = args.jobs or sorted({2, default_jobs()} - {1})
+    rules = [r.id for r in all_rules() if r.partitioned] if args.partitioned else []
     differ = False
     print(f"cores {default_jobs()}, {load()}", flush=True)
     with tempfile.TemporaryDirectory(prefix="archivist-bench-jobs-") as work:
@@ -83,9 +88,9 @@ def main(argv=None) -> int:
                 for _ in range(args.repeat):
                     t = time.perf_counter()
                     if pool is None:
-                        reports[jobs] = check(project, jobs=1)
+                        reports[jobs] = check(project, rules=rules, jobs=1)
                     else:
-                        reports[jobs] = check(project, executor=pool, parts=jobs)
+                        reports[jobs] = check(project, rules=rules, executor=pool, parts=jobs)
                     best = min(best, time.perf_counter() - t)
                 if pool is not None:
                     pool.shutdown()
