@@ -226,6 +226,7 @@ class ReadingExecutor(Executor):
         self.read = read  # False: every task is sent as it is
         self.loaded: MapProject | None = None
         self.workers = 1  # how many tasks ``inner`` runs at once (set by whoever made it)
+        self.partitions = 0  # partition tasks submitted
         self.sent_slim = 0
         self.fell_back = 0
 
@@ -236,6 +237,8 @@ class ReadingExecutor(Executor):
     def submit(self, fn: Callable[..., Any], /, *args: Any, **kwargs: Any) -> Future:
         from .parallel import PartitionTask, run_partition
 
+        if fn is run_partition:
+            self.partitions += 1
         if fn is run_partition and len(args) == 1 and not kwargs and isinstance(args[0], PartitionTask) and self.loaded is not None:
             slim = slim_task(args[0], self.loaded)
             if slim is not None:
