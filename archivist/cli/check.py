@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from contextlib import ExitStack
 from pathlib import Path
 
 import click
@@ -32,12 +33,24 @@ CHECK_FAMILIES = tuple(f for f in FAMILIES if f != "archive")
     help="Also write the findings as a GeoPackage (.gpkg; one layer per geometry type) to open over the map in a GIS.",
 )
 @details_option
+@click.option(
+    "--scheduler",
+    metavar="ADDRESS",
+    help="Run the partitioned checks on a Dask cluster: 'local' starts one on this machine, or give a running "
+    "scheduler's address (tcp://host:8786). Needs the dask extra: pip install 'archivist[dask]'.",
+)
+@click.option(
+    "--worker-memory",
+    metavar="SIZE",
+    help="With --scheduler local: each worker's memory limit (4GB, 500MiB; default: the machine's memory shared out).",
+)
 @jobs_option
 @progress_options
 @handle_errors
 def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
                   force: bool, html_out: Path | None, quiet: bool, verbose: bool, gpkg_out: Path | None = None,
-                  details: bool = False, jobs: int = 1) -> None:
+                  details: bool = False, jobs: int | None = None, scheduler: str | None = None,
+                  worker_memory: str | None = None) -> None:
     """Check the map project at PATH (a folder or its archivist.toml), one map file, or each project in a folder of projects.
 
     A GeoPackage or other vector file given alone is checked without a
@@ -50,13 +63,21 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
     A folder of projects exits with the worst of its projects' codes.
     """
     from ..batch import project_folders
+    from ..errors import ArchivistError
 
+    if scheduler is not None:
+        from ..cluster import require_dask
+
+        require_dask()  # before anything is read: without the extra, one line naming the install command
+    elif worker_memory is not None:
+        raise ArchivistError("--worker-memory sizes the workers of --scheduler local; give both")
     if project_folders(path):  # a folder of projects, each with its own archivist.toml
+        if scheduler is not None:
+            raise ArchivistError(f"{path}: a folder of map projects; --scheduler checks one project: give its folder")
         from .folder import check_folder_run
 
         sys.exit(check_folder_run(path, fmt, output, strict, only, rules, force, html_out, gpkg_out, quiet, verbose))
     from .. import engine
-    from ..errors import ArchivistError
     from ..fsutil import guard_outputs
     from ..manifest import find_manifest
     from ..project import load_project
@@ -65,9 +86,22 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
     if gpkg_out is not None and Path(gpkg_out).suffix.lower() != ".gpkg":
         raise ArchivistError(f"{gpkg_out}: a findings GeoPackage must end in .gpkg")
     guard_outputs([(output, "--output"), (html_out, "--html"), (gpkg_out, "--findings-gpkg")], force=force, project_roots=[root])
-    with progress_for(quiet, verbose) as progress:
+    with progress_for(quiet, verbose) as progress, ExitStack() as stack:
+        executor = None
+        if scheduler is not None:  # reached (or started) first: a wrong address fails before a long read
+            from ..cluster import open_executor
+
+            executor = stack.enter_context(open_executor(scheduler, progress, workers=jobs or None, memory_limit=worker_memory, root=root))
         project = load_project(path, progress=progress)
-        report = engine.check(project, only=only, rules=rules, progress=progress, jobs=jobs)
+        if executor is None:
+            report = engine.check(project, only=only, rules=rules, progress=progress, jobs=1 if jobs is None else jobs)
+        else:
+            executor.reading(project)  # the workers read their partitions' features from the project's files
+            from ..cluster import partitions
+
+            report = engine.check(project, only=only, rules=rules, progress=progress, executor=executor,
+                                  parts=partitions(project, executor.workers))
+        stack.close()  # the cluster is stopped before the outputs are written
         if html_out is not None:
             from ..report.html import write_html
 

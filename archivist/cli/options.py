@@ -48,7 +48,7 @@ def jobs_option(func: F) -> F:
     ``--jobs 0`` uses every core.
     """
     return click.option(
-        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=1, show_default=True,
+        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=None, show_default="1; with --scheduler local, every core",
         help="Worker processes for the topology and linework checks, run on parts of the map (0: every core). "
              "The findings are the same whatever the number.",
     )(func)
