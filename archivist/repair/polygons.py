@@ -365,7 +365,8 @@ def _components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: str, geoms: np.ndarray) -> list[Change]:
     """Merge each group's polygons into its key polygon (coverage union); the others are removed."""
-    ids = np.asarray(state.units[FEATURE_ID], dtype=object)  # type: ignore[index]
+    assert state.units is not None
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
     codes = _codes(state)
     new = geoms.copy()
     keep = np.ones(len(geoms), dtype=bool)

@@ -30,6 +30,7 @@ class Repair(Protocol):
     """What a repair is: a function of the working state and the settings, returning its changes and what it left."""
 
     __name__: str
+    __qualname__: str
     __doc__: str | None
 
     def __call__(self, state: RepairState, settings: RepairSettings, /) -> tuple[list[Change], list[Left]]: ...
