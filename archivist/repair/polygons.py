@@ -79,7 +79,7 @@ def _eps(geoms: np.ndarray) -> float:
     if not len(geoms):
         return 1e-9
     b = shapely.total_bounds(geoms[~shapely.is_missing(geoms)])
-    return 1e-9 * max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
+    return 1e-12 * max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
 
 
 def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
@@ -235,24 +235,55 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     if not fill:
         return [], left
     eps = _eps(geoms)
-    gi = np.repeat(np.arange(len(fill)), [len(p.units) for p in fill])
-    ui = units.rows[np.concatenate([np.array(p.units, dtype=np.int64) for p in fill])]
     gaps = np.array([p.geom for p in fill], dtype=object)
+    # the polygons along each gap, found again with a little slack: the overlay that cut the gap out of the
+    # extent may leave its edge a rounding error off a polygon's own, and that polygon is then missed
+    live = units.rows
+    gi, k = units.tree.query(gaps, predicate="dwithin", distance=eps)
+    ui = live[k]
     shared = _border(gaps[gi], geoms[ui], eps)
-    # per gap, the neighbour with the longest shared border (ties: the first in the file)
+    along = shared > 4 * eps
+    gi, ui, shared = gi[along], ui[along], shared[along]
+    lone = np.setdiff1d(np.arange(len(fill)), gi)
+    left += [Left("fill-gaps", "units", (), "a gap with no polygon along it", fill[g].geom, fill[g].area) for g in lone]
+    if not len(gi):
+        return [], left
+    # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
+    # the part of the gap within the gap width of it, the next the part of the rest within the gap width of
+    # it, and so on, so no polygon's boundary moves further than the gap width; what no neighbour reaches
+    # (a part along the map edge) goes to the first. A gap along one polygon goes to it whole.
     order = np.lexsort((ui, -shared, gi))
-    first = order[np.r_[0, np.flatnonzero(np.diff(gi[order])) + 1]]
-    target = ui[first]
+    gi, ui = gi[order], ui[order]
+    reach = settings.gap_width * ABOVE
+    pieces: list[tuple[int, Any, int]] = []  # (polygon, piece, gap)
+    for g in np.unique(gi):  # one per gap filled
+        nbrs = ui[gi == g]
+        rest = gaps[g]
+        for n in nbrs.tolist():
+            if len(nbrs) == 1:
+                part, rest = rest, None
+            else:
+                part = shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4))
+                rest = shapely.difference(rest, part)
+            if part is not None and shapely.area(part) > 0:
+                pieces.append((n, part, int(g)))
+            if rest is None or shapely.area(rest) <= 0:
+                break
+        else:
+            if rest is not None and shapely.area(rest) > 0:
+                pieces.append((int(nbrs[0]), rest, int(g)))
+    target = np.array([t for t, _, _ in pieces], dtype=np.int64)
+    parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
     tidx = np.argsort(target, kind="stable")
     targets, starts = np.unique(target[tidx], return_index=True)
     for t, group in zip(targets, np.split(tidx, starts[1:])):  # one per polygon gaining area
-        new[t] = shapely.union_all(np.r_[[new[t]], gaps[group]])
+        new[t] = shapely.union_all(np.r_[[new[t]], parts[group]])
     _set(state, new)
     moved = _shift(geoms[target], new[target])
-    changes = [Change("fill-gaps", "units", (str(ids[t]),), (str(ids[t]),), (str(codes[t]),), float(shapely.area(g)), float(mv),
-                      None, g, "gap given to the neighbour with the longest shared border")
-               for t, g, mv in zip(target, gaps, moved)]
+    changes = [Change("fill-gaps", "units", (str(ids[t]),), (str(ids[t]),), (str(codes[t]),), float(shapely.area(p)), float(mv),
+                      None, p, f"gap {g + 1} of this run given to the neighbour with the longest shared border within the gap width")
+               for t, p, mv, g in zip(target, parts, moved, (g for _, _, g in pieces))]
     return changes, left
 
 
