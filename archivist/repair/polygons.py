@@ -23,6 +23,7 @@ from typing import Any
 import geopandas as gpd
 import numpy as np
 import shapely
+from shapely.errors import GEOSException
 
 from ..analysis.arrays import widths
 from ..analysis.context import CheckContext
@@ -183,8 +184,15 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     order = np.argsort(loser, kind="stable")
     new = geoms.copy()
     losers, starts = np.unique(loser[order], return_index=True)
+    failed = np.zeros(len(loser), dtype=bool)
     for lo, group in zip(losers, np.split(order, starts[1:])):  # one per polygon losing area
-        new[lo] = shapely.difference(new[lo], shapely.union_all(pieces[group]))
+        try:
+            new[lo] = shapely.difference(new[lo], shapely.union_all(pieces[group]))
+        except GEOSException as exc:  # left as it is, and said so; snapping may still resolve a thin one
+            failed[group] = True
+            left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
+                             shapely.union_all(pieces[group]), float(area[group].sum())))
+    winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
     empty = shapely.is_empty(new)
     _set(state, new, ~empty)
     moved = _shift(geoms[loser], new[loser])
@@ -277,8 +285,16 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     new = geoms.copy()
     tidx = np.argsort(target, kind="stable")
     targets, starts = np.unique(target[tidx], return_index=True)
+    failed = np.zeros(len(target), dtype=bool)
     for t, group in zip(targets, np.split(tidx, starts[1:])):  # one per polygon gaining area
-        new[t] = shapely.union_all(np.r_[[new[t]], parts[group]])
+        try:
+            new[t] = shapely.union_all(np.r_[[new[t]], parts[group]])
+        except GEOSException as exc:
+            failed[group] = True
+            left.append(Left("fill-gaps", "units", (str(ids[t]),), f"GEOS could not join the gap to it ({exc})",
+                             shapely.union_all(parts[group]), float(shapely.area(parts[group]).sum())))
+    pieces = [x for x, f in zip(pieces, failed) if not f]
+    target, parts = target[~failed], parts[~failed]
     _set(state, new)
     moved = _shift(geoms[target], new[target])
     changes = [Change("fill-gaps", "units", (str(ids[t]),), (str(ids[t]),), (str(codes[t]),), float(shapely.area(p)), float(mv),
@@ -298,7 +314,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     gap merging: vertices within the distance of each other or of an edge
     are snapped together, edges are noded against each other, and every
     shared edge is then drawn with the same vertices on both sides; what is
-    left of a thin overlap goes to a neighour by ``[repair] overlap``
+    left of a thin overlap goes to a neighbour by ``[repair] overlap``
     (``longest-border``: GEOS's longest common border; ``larger``: larger
     area; ``younger``/``older``: the polygons are given to GEOS youngest or
     oldest first, first one keeps it).
@@ -404,7 +420,13 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
     changes = []
     for target, members in groups.items():  # one per merge
         parts = np.array([geoms[target]] + [geoms[m] for m in members], dtype=object)
-        new[target] = shapely.coverage_union_all(parts)
+        try:
+            new[target] = shapely.coverage_union_all(parts)
+        except GEOSException:
+            try:
+                new[target] = shapely.union_all(parts)
+            except GEOSException:
+                continue  # left as it is; the check of the copy reports it
         keep[members] = False
         moved = float(_shift(np.array([geoms[target]], dtype=object), np.array([new[target]], dtype=object))[0])
         changes.append(Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
