@@ -28,7 +28,7 @@ from shapely.errors import GEOSException
 from ..analysis.arrays import widths
 from ..analysis.context import CheckContext
 from ..analysis.messages import ABOVE
-from ..analysis.polygons import sliver_thresholds
+from ..analysis.polygons import polygonal
 from ..project import Layer
 from .model import FEATURE_ID, Change, Left, RepairSettings, RepairState
 from .registry import repair
@@ -61,6 +61,12 @@ def _set(state: RepairState, geoms: np.ndarray, keep: np.ndarray | None = None) 
     assert state.units is not None
     frame = state.units
     col = frame.geometry.name
+    # an overlay can leave a line or point beside the area (a GeometryCollection): only the area is kept
+    odd = np.flatnonzero(~shapely.is_missing(geoms) & ~np.isin(shapely.get_type_id(geoms), (3, 6)))
+    if len(odd):
+        geoms = geoms.copy()
+        fixed = polygonal(geoms[odd])
+        geoms[odd] = np.where(shapely.is_missing(fixed), shapely.Polygon(), fixed)
     frame = frame.copy()
     frame[col] = gpd.GeoSeries(geoms, index=frame.index, crs=frame.crs)
     if keep is not None:
@@ -345,7 +351,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     for p in cov.overlaps:  # overlaps still there were left for the geologist (or their repair was skipped)
         if p.width > cov.tol * ABOVE:
             hold[units.rows[list(p.units)]] = True
-    sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & np.isin(np.arange(len(geoms)), units.rows))
+    sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
     work = geoms[sel]
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
     order = np.arange(len(work))
