@@ -52,7 +52,7 @@ from .deposit import Deposit, SourceNames, read_deposit, source_names
 from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
 from .layers import PreparedLayer, layer_title, all_tables, prepare_layers, write_geojson, write_geopackage
 from .packmanifest import dump_toml, packaged_manifest
-from .provenance import FileFact, provenance
+from .provenance import FileFact, provenance, repair_record
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
 from .tables import write_csv
 
@@ -512,7 +512,8 @@ def _write_payload(
     write_json(
         data / "metadata" / "provenance.json",
         provenance(deposit, source_facts, output_facts, REPORT_PATH, check_times, (pack_start, pack_end), report.summary.errors,
-                   revision=dc.relation_to_earlier(deposit, earlier) == "IsNewVersionOf"),
+                   revision=dc.relation_to_earlier(deposit, earlier) == "IsNewVersionOf",
+                   repair=repair_record(project.root, project.manifest)),
     )
     resources.append(dp.ResourceInfo("metadata/provenance.json", "provenance", "Provenance (W3C PROV-JSON)", "Inputs with SHA-256, the check and pack runs, the authors."))
 

@@ -20,7 +20,9 @@ ORCID's resolving URI and ``xsd`` the W3C XML Schema namespace.
 from __future__ import annotations
 
 import datetime as dt
+import json
 import re
+from pathlib import Path
 from dataclasses import dataclass
 from typing import Any
 from urllib.parse import quote
@@ -70,12 +72,17 @@ def provenance(
     pack_times: tuple[dt.datetime, dt.datetime],
     open_errors: int,
     revision: bool = False,
+    repair: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
     """The PROV-JSON document of one pack run.
 
     ``revision``: the package is a new version, by the same authors, of the
     one ``map.derived_from`` names (a ``prov:Revision``); otherwise a plain
-    derivation.
+    derivation. ``repair``: the change log of the ``archivist repair`` run
+    that made the project (a repaired copy; see :func:`repair_record`): the
+    run is an activity (which repairs, their thresholds, the archivist
+    version, the number of changes and of defects left) that generated the
+    input files and informed the check.
     """
     pkg_ns = f"urn:archivist:package:{_local(deposit.stem)}/"
     p = _Doc()
@@ -158,6 +165,30 @@ def provenance(
         p.relate("wasAttributedTo", {"prov:entity": package, "prov:agent": person})
         for ent in input_ids:
             p.relate("wasAttributedTo", {"prov:entity": ent, "prov:agent": person})
+    if repair is not None:
+        version = str(repair.get("version", ""))
+        tool = p.add(
+            "agent",
+            f"archivist:archivist-{_local(version)}",
+            {"prov:type": {"$": "prov:SoftwareAgent", "type": "prov:QUALIFIED_NAME"}, "prov:label": f"archivist {version}", "archivist:version": version},
+        )
+        changes = repair.get("changes") or []
+        run = p.add(
+            "activity",
+            "pkg:run/repair",
+            {
+                "prov:label": "archivist repair",
+                "archivist:repairs": ", ".join(map(str, repair.get("repairs") or [])),
+                "archivist:settings": json.dumps(repair.get("settings") or {}, sort_keys=True),
+                "archivist:changes": {"$": str(len(changes)), "type": "xsd:int"},
+                "archivist:left": {"$": str(len(repair.get("left") or [])), "type": "xsd:int"},
+                "archivist:version": version,
+            },
+        )
+        p.relate("wasAssociatedWith", {"prov:activity": run, "prov:agent": tool})
+        for ent in input_ids:
+            p.relate("wasGeneratedBy", {"prov:entity": ent, "prov:activity": run})
+        p.relate("wasInformedBy", {"prov:informed": check, "prov:informant": run})
     if deposit.derived_from:
         earlier = p.add(
             "entity",
@@ -173,6 +204,24 @@ def provenance(
             derivation["prov:type"] = {"$": "prov:Revision", "type": "prov:QUALIFIED_NAME"}
         p.relate("wasDerivedFrom", derivation)
     return p.doc
+
+
+def repair_record(root: Path, manifest: dict[str, Any]) -> dict[str, Any] | None:
+    """The change log named by ``[repair] record`` in a repaired copy's manifest, or None (not a repaired copy, or no readable log)."""
+    from ..errors import ArchivistError
+    from ..safeparse import load_json
+
+    rel = (manifest.get("repair") or {}).get("record")
+    if not isinstance(rel, str):
+        return None
+    path = (Path(root) / rel).resolve()
+    if Path(root).resolve() not in path.parents or not path.is_file():
+        return None
+    try:
+        data = load_json(path, str(path))
+    except (OSError, ValueError, ArchivistError):
+        return None
+    return data if isinstance(data, dict) and data.get("tool") == "archivist" else None
 
 
 def doi_of(text: str | None) -> str | None:

@@ -1,0 +1,152 @@
+"""The repair run as a whole: the copy, the log against `diff`, the example bundle, the CLI, provenance."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import jsonschema
+import pyogrio
+import pytest
+import shapely
+from click.testing import CliRunner
+from shapely.geometry import box
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from builders import copy_bundle, edit_layer, edit_manifest, tree_digest  # noqa: E402
+from test_repair_worked import TOPOLOGY, square  # noqa: E402
+
+from archivist.cli import cli  # noqa: E402
+from archivist.diff import diff  # noqa: E402
+from archivist.engine import check  # noqa: E402
+from archivist.manifest import load_schema  # noqa: E402
+from archivist.repair.api import repair  # noqa: E402
+
+# tolerance 0.05 m so that the overlap (0.1 m wide) and the sliver are beyond what diff lets pass
+FIVE = [box(0, 0, 5.1, 5), box(5, 0, 10, 5), box(0, 5, 5, 10), box(5.3, 5, 10, 10), box(5, 5, 5.3, 10)]
+
+
+def five(tmp_path: Path, name: str = "five") -> Path:
+    return square(tmp_path, FIVE, ["A", "B", "C", "D", "E"], checks={"tolerance": 0.05}, name=name)
+
+
+def test_diff_lists_exactly_the_changes_of_the_log(tmp_path):
+    project = five(tmp_path)
+    result = repair(project, tmp_path / "out")
+    tol = 0.05
+    # what diff can see: changes that remove a feature, or move a boundary further than the tolerance
+    removed = {f: c for c in result.changes for f in c.features_before if f not in c.features_after}
+    reshaped = {c.features_before[-1] if c.repair == "resolve-overlaps" else c.features_after[0]: c
+                for c in result.changes if c.repair in ("resolve-overlaps", "fill-gaps") and c.max_shift > tol}
+    assert set(removed) == {"5"} and set(reshaped) == {"2"}
+    report = diff(project, tmp_path / "out")
+    polygons = [c for c in report.changes if c.layer == "units" and c.change.startswith("polygon-")]
+    assert sorted(c.old_features[0] for c in polygons) == sorted(set(removed) | set(reshaped))
+    for c in polygons:
+        fid = c.old_features[0]
+        if fid in removed:
+            assert c.change in ("polygon-removed", "polygon-merged")
+            assert sum(c.area_lost.values()) == pytest.approx(removed[fid].area_moved)  # 0.3 m x 5 m = 1.5 m²
+            assert sum(c.area_gained.values()) == pytest.approx(removed[fid].area_moved)
+        else:
+            assert c.change == "polygon-reshaped"
+            assert sum(c.area_lost.values()) == pytest.approx(reshaped[fid].area_moved)  # 0.1 m x 5 m = 0.5 m²
+    # the only other change diff names is the unit no longer mapped: E, merged away by a logged merge
+    others = [c for c in report.changes if c not in polygons]
+    assert [(c.change, c.features) for c in others] == [("unit-removed", ("E",))]
+    # every change diff does not see moved no vertex further than the tolerance
+    seen = set(removed) | set(reshaped)
+    assert all(c.max_shift <= tol for c in result.changes if not set(c.features_before) & seen)
+
+
+def test_the_log_follows_its_schema_and_the_gpkg_holds_every_change(tmp_path):
+    project = five(tmp_path)
+    repair(project, tmp_path / "out")
+    log = json.loads((tmp_path / "out" / "repair-log.json").read_text(encoding="utf-8"))
+    jsonschema.Draft202012Validator(load_schema("repair-log.schema.json")).validate(log)
+    before = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer="before")
+    after = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer="after")
+    numbers = [c["change"] for c in log["changes"]]
+    assert sorted(set(before.change) | set(after.change)) == numbers
+    manifest = (tmp_path / "out" / "archivist.toml").read_text(encoding="utf-8")
+    assert 'record = "repair-log.json"' in manifest
+
+
+def test_example_bundle_is_unchanged_by_repair(tmp_path):
+    bundle = copy_bundle(tmp_path)
+    digest = tree_digest(bundle)
+    result = repair(bundle, tmp_path / "out")
+    assert result.changes == () and result.left == ()
+    assert tree_digest(bundle) == digest
+    assert result.after == result.before == {}
+
+
+def test_broken_bundle_is_repaired_back_to_a_clean_check(tmp_path):
+    bundle = copy_bundle(tmp_path)
+
+    def nudge(frame):
+        # three defects of the repairable kinds, each below the tolerance (0.5 m at 1:25 000):
+        # a polygon grown 0.3 m over its neighbours, one shrunk 0.2 m away from them (round joins: no corner moves
+        # further), a vertex moved 0.3 m
+        g = frame.geometry.values.copy()
+        g[2] = shapely.intersection(shapely.buffer(g[2], 0.3, quad_segs=2), shapely.union_all(frame.geometry.values))
+        g[5] = shapely.buffer(g[5], -0.2, quad_segs=2)
+        xy = shapely.get_coordinates(g[8])
+        xy[3] += 0.3
+        g[8] = shapely.set_coordinates(g[8], xy)
+        frame = frame.copy()
+        frame["geometry"] = g
+        return frame
+
+    edit_layer(bundle, "map.gpkg", "units", nudge)
+    edit_manifest(bundle, lambda d: d.setdefault("repair", {}).update({"overlap_max_area_mm2": 10}))
+    found = {f.rule for f in check(bundle).findings}
+    assert found & TOPOLOGY
+    result = repair(bundle, tmp_path / "out")
+    assert result.changes
+    assert {f.rule for f in check(tmp_path / "out").findings} == set()
+    units = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="units")
+    assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
+
+
+def test_cli_dry_run_prints_the_log_and_writes_nothing(tmp_path):
+    project = five(tmp_path)
+    digest = tree_digest(tmp_path)
+    res = CliRunner().invoke(cli, ["repair", str(project), "--dry-run"])
+    assert res.exit_code == 0, res.output
+    assert "resolve-overlaps" in res.output and "merge-slivers" in res.output and "Dry run" in res.output
+    assert "unit-sliver" in res.output  # the counts before -> after
+    assert tree_digest(tmp_path) == digest
+
+
+def test_cli_refuses_an_output_inside_the_project_or_existing(tmp_path):
+    project = five(tmp_path)
+    res = CliRunner().invoke(cli, ["repair", str(project), "--out", str(project / "fixed")])
+    assert res.exit_code == 2 and "inside the project" in res.output
+    (tmp_path / "taken").mkdir()
+    res = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "taken")])
+    assert res.exit_code == 2 and "--force" in res.output
+    res = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "taken"), "--force", "--only", "merge-slivers"])
+    assert res.exit_code == 0, res.output
+    assert "merge-slivers" in res.output and "resolve-overlaps" not in res.output.split("Changes by repair:")[1]
+    res = CliRunner().invoke(cli, ["repair", str(project), "--dry-run", "--skip", "no-such-repair"])
+    assert res.exit_code == 2 and "unknown repair 'no-such-repair'" in res.output
+
+
+def test_package_of_a_repaired_copy_records_the_run(tmp_path):
+    from archivist.package import pack
+
+    project = five(tmp_path)
+    repair(project, tmp_path / "out")
+    result = pack(tmp_path / "out", tmp_path / "pkg", allow_errors=True)
+    prov = json.loads((result.path / "data" / "metadata" / "provenance.json").read_text(encoding="utf-8"))
+    run = prov["activity"]["pkg:run/repair"]
+    assert run["prov:label"] == "archivist repair"
+    assert run["archivist:repairs"].startswith("resolve-overlaps")
+    assert json.loads(run["archivist:settings"])["tolerance"] == 0.05
+    assert any(r.get("prov:activity") == "pkg:run/repair" for r in prov["wasGeneratedBy"].values())
+    # a package of the project itself records no repair
+    plain = pack(project, tmp_path / "pkg2", allow_errors=True)
+    assert "pkg:run/repair" not in json.loads((plain.path / "data" / "metadata" / "provenance.json").read_text(encoding="utf-8"))["activity"]
