@@ -1,0 +1,167 @@
+"""What a repair works on and what it reports: :class:`RepairState`, :class:`RepairSettings`, :class:`Change`, :class:`Left`.
+
+A repair is a function ``(state, settings) -> (changes, left)`` registered
+with :func:`archivist.repair.registry.repair`. It edits the working copies
+held by the :class:`RepairState` in place (never the project's own frames)
+and returns one :class:`Change` per change it made and one :class:`Left` per
+defect it saw and deliberately left for the geologist.
+
+Feature identity: every working frame carries the column :data:`FEATURE_ID`
+(the feature's id as text, as in findings: the ``id_field`` value, else the
+file's feature id; for the combined lines, the combined id such as
+``faults:3`` when several line layers are declared). A repair that creates a
+feature takes a fresh id from :meth:`RepairState.new_id`; a repair that
+merges features keeps the id of the feature that absorbs the others and
+lists all of them in ``features_before``. Line frames also carry
+:data:`SOURCE_LAYER` (the mapper's own line layer each line is written back
+to, ``lines``, ``faults``...).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+    from ..project import CheckConfig, MapProject
+    from ..vocab.ages import AgeSpan
+
+FEATURE_ID = "_repair_id"  # column of every working frame: the feature id as text
+SOURCE_LAYER = "_repair_layer"  # column of the line frame: the mapper's own line layer of each line
+GENERATED_FIELD = "generated"  # field written on lines a repair creates (true), false on the others when the field is added
+
+OVERLAP_RULES = ("longest-border", "larger", "younger", "older")
+
+
+@dataclass(frozen=True)
+class Change:
+    """One change a repair made to the working copy.
+
+    ``features_before`` are the ids of the features the change read (a
+    merge lists every feature merged, the survivor first), ``features_after``
+    the ids they have afterwards (empty when a feature is removed, a fresh id
+    for a created one). ``units`` are the unit codes involved, in the same
+    order as ``features_before`` where there is one per feature.
+    ``area_moved`` is the area (m², map units squared) that changed hands,
+    0 for lines; ``max_shift`` the largest distance any vertex moved (map
+    units; the Hausdorff distance between before and after where vertices are
+    added or removed). ``before``/``after`` are the changed area or line
+    before and after (None when there is none, e.g. ``before`` of a created
+    line).
+    """
+
+    repair: str
+    layer: str
+    features_before: tuple[str, ...]
+    features_after: tuple[str, ...]
+    units: tuple[str, ...]
+    area_moved: float
+    max_shift: float
+    before: Any = None  # shapely geometry or None
+    after: Any = None  # shapely geometry or None
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class Left:
+    """A defect seen and deliberately left as it is: only the geologist can decide it.
+
+    ``reason`` is one sentence saying why (too wide, too large, two labels...).
+    """
+
+    repair: str
+    layer: str
+    features: tuple[str, ...]
+    reason: str
+    geometry: Any = None  # shapely geometry or None
+    measure: float = 0.0  # its size: m² for areas, m for lengths
+
+
+@dataclass(frozen=True)
+class RepairSettings:
+    """Thresholds of one run, in map units (metres in a projected CRS), read from ``[checks]`` and ``[repair]``.
+
+    ``tolerance``: the snapping distance, ``[checks] tolerance`` (no vertex
+    moves further except where a polygon is merged or dissolved).
+    ``gap_width``: gaps no wider than this are filled; the width at which
+    ``check`` reports a thin gap as a misfit rather than a gap, i.e. the
+    tolerance, unless ``[repair] gap_width_mm`` sets it at map scale.
+    ``overlap``: who gets an overlap (``[repair] overlap``).
+    ``overlap_max_area``: overlaps larger than this (m²) are left
+    (``[repair] overlap_max_area_mm2`` at map scale).
+    ``sliver_area``/``sliver_width``: the sliver thresholds of ``[checks]``
+    at map scale, as ``check`` uses them.
+    ``generated_certainty``: the certainty written on generated contact
+    lines (``[repair] generated_certainty``).
+    """
+
+    tolerance: float
+    gap_width: float
+    overlap: str = "longest-border"
+    overlap_max_area: float = 0.0
+    sliver_area: float = 0.0
+    sliver_width: float = 0.0
+    generated_certainty: str = "inferred"
+    build_polygons: bool = False
+
+    def record(self) -> dict[str, Any]:
+        """The settings as plain values, for the change log and the provenance record."""
+        return {
+            "tolerance": self.tolerance,
+            "gap_width": self.gap_width,
+            "overlap": self.overlap,
+            "overlap_max_area": self.overlap_max_area,
+            "sliver_area": self.sliver_area,
+            "sliver_width": self.sliver_width,
+            "generated_certainty": self.generated_certainty,
+            "build_polygons": self.build_polygons,
+        }
+
+
+@dataclass
+class RepairState:
+    """The working copies a run edits, and what repairs need to know about the project.
+
+    ``units``/``lines`` are copies of the project's layers (``None`` when
+    the project has none) with the columns :data:`FEATURE_ID` (and
+    :data:`SOURCE_LAYER` on lines); ``points`` the point layers by role
+    (samples, structures), never changed by the polygon and line repairs but
+    read by ``build-polygons`` (label points are a units-role point layer,
+    ``points["labels"]`` when declared). ``unit_field``/``kind_field``/
+    ``certainty_field`` are the column names the manifest gives (None when the
+    layer has no such column). ``ages`` maps a unit code to its age span read
+    from the legend (codes without a readable age are absent). ``extent`` is
+    the declared map extent (one polygon), or None.
+    """
+
+    project: MapProject
+    config: CheckConfig
+    units: gpd.GeoDataFrame | None = None
+    lines: gpd.GeoDataFrame | None = None
+    points: dict[str, gpd.GeoDataFrame] = field(default_factory=dict)
+    unit_field: str | None = None
+    kind_field: str | None = None
+    certainty_field: str | None = None
+    ages: dict[str, AgeSpan] = field(default_factory=dict)
+    extent: Any = None  # shapely polygon or None
+    _counter: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def tolerance(self) -> float:
+        return float(self.config.tolerance)
+
+    def new_id(self, layer: str) -> str:
+        """A fresh feature id for ``layer`` ("units" or "lines"): one past the largest numeric id, else ``new-N``."""
+        frame = self.units if layer == "units" else self.lines
+        if layer not in self._counter:
+            top = 0
+            if frame is not None and len(frame):
+                import pandas as pd
+
+                nums = pd.to_numeric(frame[FEATURE_ID].astype(str).str.rsplit(":", n=1).str[-1], errors="coerce")
+                top = int(nums.max()) if nums.notna().any() else 0
+            self._counter[layer] = top
+        self._counter[layer] += 1
+        return str(self._counter[layer])
