@@ -20,6 +20,7 @@ from . import check as _check
 from . import diff as _diff
 from . import init as _init
 from . import pack as _pack
+from . import repair as _repair
 from . import rules as _rules
 from . import unpack as _unpack
 from .errors import TRACEBACK_VARIABLE, CommandFailed, handle_errors, os_error_line
@@ -40,6 +41,7 @@ cli.add_command(_init.init_command)
 cli.add_command(_audit.audit_command)
 cli.add_command(_unpack.unpack_command)
 cli.add_command(_diff.diff_command)
+cli.add_command(_repair.repair_command)
 
 
 def main() -> None:

@@ -1,0 +1,332 @@
+"""``repair()``: a repaired copy of a map project, every change logged, the copy checked.
+
+The run: load the project, check it, copy its unit polygons and lines into a
+:class:`~.model.RepairState`, apply the selected repairs in order, write the
+copy (every file the manifest names, the changed layers rewritten in their
+own format where GDAL writes it, else as GeoPackage; a manifest of its own
+whose paths point into the copy and whose ``[repair] record`` names the
+change log), then check the copy. The project folder is only read. The copy
+is staged in a hidden sibling of ``out`` and moved into place at the end.
+
+What it does not cover: maps in a geographic CRS (longitude/latitude) and
+projects without a manifest are refused; repairs work in map units.
+"""
+
+from __future__ import annotations
+
+import shutil
+from collections import Counter
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterable
+
+from .._version import __version__
+from ..errors import ArchivistError
+from .model import FEATURE_ID, OVERLAP_RULES, SOURCE_LAYER, Change, Left, RepairSettings, RepairState
+
+RECORD_KEY = "record"  # [repair] record = "repair-log.json" in the copy's manifest
+
+
+@dataclass(frozen=True)
+class RepairResult:
+    """What a run did: the repairs applied, the changes and what was left, findings per rule before and after."""
+
+    project: str
+    out: Path | None
+    repairs: tuple[str, ...]
+    settings: RepairSettings
+    changes: tuple[Change, ...]
+    left: tuple[Left, ...]
+    before: dict[str, int]
+    after: dict[str, int]
+    log: dict[str, Any]
+
+    def per_repair(self) -> dict[str, int]:
+        """Number of changes of each repair applied (0 included)."""
+        counts = Counter(c.repair for c in self.changes)
+        return {name: counts.get(name, 0) for name in self.repairs}
+
+
+def settings_for(project: Any, build_polygons: bool = False) -> RepairSettings:
+    """The thresholds of a run from ``[checks]`` and ``[repair]`` (see ``schemas/manifest.schema.json``)."""
+    from ..analysis.polygons import sliver_thresholds
+
+    cfg = project.config
+    rep = project.manifest.get("repair") or {}
+    area, width = sliver_thresholds(project)
+    unit_mm = cfg.scale / 1000.0  # ground metres per map millimetre (map units are metres: projected maps only)
+    overlap = str(rep.get("overlap", "longest-border"))
+    if overlap not in OVERLAP_RULES:
+        overlap = "longest-border"  # the schema reports the bad value
+    gap = float(rep["gap_width_mm"]) * unit_mm if isinstance(rep.get("gap_width_mm"), (int, float)) else float(cfg.tolerance)
+    omax = rep.get("overlap_max_area_mm2", cfg.sliver_area_mm2)
+    return RepairSettings(
+        tolerance=float(cfg.tolerance),
+        gap_width=gap,
+        overlap=overlap,
+        overlap_max_area=float(omax) * unit_mm * unit_mm,
+        sliver_area=float(area),
+        sliver_width=float(width),
+        generated_certainty=str(rep.get("generated_certainty", "inferred")),
+        build_polygons=build_polygons,
+    )
+
+
+def _ages(project: Any) -> dict[str, Any]:
+    """Unit code -> age span from the legend (codes whose age cannot be read are left out)."""
+    table = project.tables.get("legend")
+    if table is None:
+        return {}
+    from ..vocab import legend as vl
+    from ..vocab.ages import AgeError, parse_age
+
+    codes, ages = vl.cells(table, "unit"), vl.cells(table, "age")
+    if codes is None or ages is None:
+        return {}
+    out = {}
+    for code, text in zip(codes.tolist(), ages.tolist()):  # one per legend row
+        try:
+            out[str(code)] = parse_age(str(text), project.config.chart)
+        except (AgeError, ValueError):
+            continue
+    return out
+
+
+def make_state(project: Any) -> RepairState:
+    """Working copies of the project's units and lines, with their feature ids in column FEATURE_ID."""
+    import numpy as np
+
+    state = RepairState(project=project, config=project.config, ages=_ages(project))
+    units = project.layers.get("units")
+    if units is not None:
+        frame = units.frame.copy()
+        frame[FEATURE_ID] = np.asarray(units.ids, dtype=object)
+        state.units = frame
+        state.unit_field = units.field("unit_field")
+    lines = project.layers.get("lines")
+    if lines is not None:
+        frame = lines.frame.copy()
+        frame[FEATURE_ID] = np.asarray(lines.ids, dtype=object)
+        frame[SOURCE_LAYER] = [lines.origin[i][0] if i in lines.origin else "lines" for i in frame[FEATURE_ID]]
+        state.lines = frame
+        state.kind_field = lines.field("kind_field")
+        state.certainty_field = lines.field("certainty_field")
+    for role in ("samples", "structures"):
+        if role in project.layers:
+            state.points[role] = project.layers[role].frame
+    extent = project.layers.get("extent")
+    if extent is not None and len(extent.frame):
+        import shapely
+
+        state.extent = shapely.union_all(extent.geometry)
+    return state
+
+
+def _counts(report: Any) -> dict[str, int]:
+    return dict(Counter(f.rule for f in report.findings))
+
+
+def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] = (), skip: Iterable[str] = (),
+           dry_run: bool = False, force: bool = False, build_polygons: bool = False, progress: Any = None) -> RepairResult:
+    """Repair a copy of ``project`` into the folder ``out`` and check it.
+
+    ``only``/``skip`` select repairs by name (:func:`archivist.repair.registry.select`);
+    ``dry_run`` computes the changes without writing anything (``out`` may be None);
+    ``force`` replaces an existing ``out``. Raises ArchivistError (exit 2) when
+    the project cannot be repaired or ``out`` is refused.
+    """
+    from ..engine import check
+    from ..fsutil import guard_output
+    from ..manifest import find_manifest
+    from ..progress import Progress
+    from ..project import load_project
+    from .registry import select
+
+    progress = progress or Progress()
+    root, manifest_path = find_manifest(project)
+    if manifest_path is None:
+        raise ArchivistError(f"{project}: repair needs a project with an archivist.toml ('archivist init' writes one)")
+    chosen = select(only, skip, build_polygons)
+    target = None
+    if not dry_run:
+        if out is None:
+            raise ArchivistError("repair: --out is required (or use --dry-run)")
+        target = guard_output(Path(out), force=force, project_root=root, kind="folder", refuse_ancestor=True,
+                              hint="choose a folder outside it")
+    proj = load_project(manifest_path, progress=progress)
+    if proj.crs is not None and proj.crs.is_geographic:
+        raise ArchivistError(f"{manifest_path}: map.crs is geographic (longitude/latitude); repair works in a projected CRS only")
+    if "units" not in proj.layers and not build_polygons:
+        raise ArchivistError(f"{manifest_path}: no units layer could be read; nothing to repair")
+    before = _counts(check(proj, progress=progress))
+    settings = settings_for(proj, build_polygons)
+    state = make_state(proj)
+    changes: list[Change] = []
+    left: list[Left] = []
+    for r in chosen:
+        with progress.step(f"repair {r.name}"):
+            c, lft = r.func(state, settings)
+        changes += c
+        left += lft
+    names = tuple(r.name for r in chosen)
+    from .log import dump_log, log_document
+
+    if dry_run:
+        after = _counts(check(_in_memory(proj, state), progress=progress))
+        doc = log_document(str(project), names, settings, changes, left, before, after)
+        return RepairResult(str(project), None, names, settings, tuple(changes), tuple(left), before, after, doc)
+    assert target is not None
+    from ..fsutil import move_into_place, staging_dir
+
+    with staging_dir(target) as tmp:
+        manifest = write_copy(proj, state, changes, tmp)
+        copy = load_project(manifest, progress=progress)
+        after = _counts(check(copy, progress=progress))
+        doc = log_document(str(project), names, settings, changes, left, before, after)
+        (tmp / _log_name()).write_text(dump_log(doc), encoding="utf-8")
+        from .log import GPKG_NAME, write_changes_gpkg
+
+        write_changes_gpkg(changes, left, tmp / GPKG_NAME, proj.crs)
+        move_into_place(tmp, target)
+    return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
+
+
+def _log_name() -> str:
+    from .log import LOG_NAME
+
+    return LOG_NAME
+
+
+def _frames(state: RepairState) -> dict[str, Any]:
+    return {"units": state.units, "lines": state.lines}
+
+
+def _in_memory(project: Any, state: RepairState) -> Any:
+    """The project with its units and lines replaced by the working copies (for a dry run's check)."""
+    from dataclasses import replace
+
+    import numpy as np
+
+    layers = dict(project.layers)
+    if state.units is not None and "units" in layers:
+        frame = state.units.drop(columns=[FEATURE_ID])
+        layers["units"] = replace(layers["units"], frame=frame, ids=np.asarray(state.units[FEATURE_ID], dtype=object))
+    if state.lines is not None and "lines" in layers:
+        frame = state.lines.drop(columns=[FEATURE_ID, SOURCE_LAYER])
+        layers["lines"] = replace(layers["lines"], frame=frame, ids=np.asarray(state.lines[FEATURE_ID], dtype=object))
+    return replace(project, layers=layers, problems=list(project.problems))
+
+
+# ---------------------------------------------------------------- writing the copy
+
+WRITABLE = {".gpkg": "GPKG", ".shp": "ESRI Shapefile", ".geojson": "GeoJSON", ".json": "GeoJSON", ".fgb": "FlatGeobuf"}
+
+
+def _place(root: Path, rel: str, tmp: Path, taken: dict[Path, str]) -> str:
+    """Copy the dataset ``rel`` (all its files) into the copy; its path in the copy's manifest."""
+    from ..fileset import dataset_files
+
+    src = (root / rel).resolve() if not Path(rel).is_absolute() else Path(rel)
+    try:
+        inside = src.relative_to(root.resolve())
+        new_rel = inside.as_posix()
+    except ValueError:  # a file outside the project folder: copied in under external/
+        new_rel = f"external/{src.name}"
+    if src in taken:
+        return taken[src]
+    taken[src] = new_rel
+    dest = tmp / new_rel
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    if src.is_dir():
+        shutil.copytree(src, dest)
+    else:
+        for part in dataset_files(src) if src.exists() else []:  # a shapefile's .shx, .dbf, .prj... too
+            shutil.copy2(part, dest.parent / part.name)
+    return new_rel
+
+
+def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spec: dict[str, Any], crs: Any) -> None:
+    """Write ``frame`` over the copied layer at ``dest`` in its own format, else as a GeoPackage beside it."""
+    import pyogrio
+
+    driver = WRITABLE.get(dest.suffix.lower())
+    if frame.crs is None and crs is not None:
+        frame = frame.set_crs(crs, allow_override=True)
+    if driver is None:
+        new = dest.with_suffix(".gpkg")
+        pyogrio.write_dataframe(frame, new, layer=str(spec.get("layer") or dest.stem), driver="GPKG", promote_to_multi=True)
+        raw_spec["path"] = str(Path(raw_spec["path"]).with_suffix(".gpkg").as_posix())
+        raw_spec["layer"] = str(spec.get("layer") or dest.stem)
+        return
+    kw: dict[str, Any] = {}
+    if driver == "GPKG":
+        kw["layer"] = spec.get("layer") or dest.stem
+    elif dest.exists():
+        from ..fileset import dataset_files
+
+        for part in dataset_files(dest):
+            part.unlink()
+    pyogrio.write_dataframe(frame, dest, driver=driver, promote_to_multi=True, **kw)
+
+
+def _file_frame(frame: Any, layer: Any) -> Any:
+    """The working frame as it goes to the file: the feature ids back in the file's FID where they came from it."""
+    import pandas as pd
+
+    out = frame.drop(columns=[c for c in (FEATURE_ID, SOURCE_LAYER) if c in frame.columns])
+    if not layer.field("id_field"):
+        ids = pd.to_numeric(frame[FEATURE_ID].astype(str).str.rsplit(":", n=1).str[-1], errors="coerce")
+        if ids.notna().all() and layer.path.suffix.lower() == ".gpkg":
+            out = out.copy()
+            out.insert(0, "fid", ids.astype("int64").to_numpy())
+    return out
+
+
+def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Path) -> Path:
+    """Write the repaired copy into the folder ``tmp``; return the path of its manifest."""
+    import copy
+
+    from ..manifest import MANIFEST_NAME, read_manifest
+    from ..tomltext import dump_toml
+
+    assert project.manifest_path is not None
+    raw = read_manifest(project.manifest_path)
+    root = project.root
+    taken: dict[Path, str] = {}
+    out = copy.deepcopy(raw)
+    for group in ("layers", "tables"):
+        for key, spec in (out.get(group) or {}).items():
+            for entry in spec if isinstance(spec, list) else [spec]:
+                if isinstance(entry, dict) and isinstance(entry.get("path"), str):
+                    entry["path"] = _place(root, entry["path"], tmp, taken)
+    changed = {c.layer for c in changes}
+    layers_out = out.get("layers") or {}
+    if "units" in changed and state.units is not None and "units" in layers_out:
+        layer = project.layers["units"]
+        spec = layers_out["units"]
+        _write_layer(_file_frame(state.units, layer), tmp / spec["path"], spec, "units", spec, project.crs)
+    if state.lines is not None and "lines" in project.layers and changed - {"units"}:
+        combined = project.layers["lines"]
+        parts = combined.parts or (combined,)
+        from ..manifest import line_sources
+
+        sources = {s.name: s for s in line_sources(out.get("layers") or {})}
+        for part in parts:
+            rows = state.lines[state.lines[SOURCE_LAYER] == part.role] if combined.parts else state.lines
+            keep = [c for c in rows.columns if c in part.frame.columns or c in (FEATURE_ID, "generated")]
+            frame = rows[keep].copy()
+            if combined.parts:
+                frame[FEATURE_ID] = frame[FEATURE_ID].astype(str).str.split(":", n=1).str[-1]
+            src = sources.get(part.role)
+            spec = src.spec if src is not None else layers_out.get("lines", {})
+            _write_layer(_file_frame(frame, part), tmp / spec["path"], spec, part.role, spec, project.crs)
+    rec = dict(out.get("repair") or {})
+    from .log import LOG_NAME
+
+    rec[RECORD_KEY] = LOG_NAME
+    out["repair"] = rec
+    text = dump_toml(out, header=f"Repaired copy of {project.root.name} written by archivist repair {__version__}; "
+                                 f"every change is in {LOG_NAME}.\n")
+    target = tmp / MANIFEST_NAME
+    target.write_text(text, encoding="utf-8")
+    return target

@@ -1,0 +1,105 @@
+"""The change log of a repair run: JSON (``schemas/repair-log.schema.json``) and a GeoPackage of the changed areas.
+
+One JSON entry per change (repair, layer, features before and after, unit
+codes, area moved in m², largest vertex shift in map units, WKT of the area
+before and after) and one per defect left for the geologist, with the
+settings and the archivist version of the run. The GeoPackage has a layer
+``before`` and a layer ``after`` (one row per change, joined by ``change``,
+the entry's number in the JSON) and a layer ``left``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any, Sequence
+
+from .._version import __version__
+from .model import Change, Left, RepairSettings
+
+LOG_NAME = "repair-log.json"
+GPKG_NAME = "repair-changes.gpkg"
+
+
+def _wkt(geom: Any) -> str | None:
+    import shapely
+
+    if geom is None or shapely.is_empty(geom):
+        return None
+    return shapely.to_wkt(geom, rounding_precision=6, trim=True)
+
+
+def change_entry(n: int, c: Change) -> dict[str, Any]:
+    return {
+        "change": n,
+        "repair": c.repair,
+        "layer": c.layer,
+        "features_before": list(c.features_before),
+        "features_after": list(c.features_after),
+        "units": list(c.units),
+        "area_moved": round(float(c.area_moved), 6),
+        "max_shift": round(float(c.max_shift), 6),
+        "note": c.note,
+        "before_wkt": _wkt(c.before),
+        "after_wkt": _wkt(c.after),
+    }
+
+
+def left_entry(x: Left) -> dict[str, Any]:
+    return {"repair": x.repair, "layer": x.layer, "features": list(x.features), "reason": x.reason,
+            "measure": round(float(x.measure), 6), "wkt": _wkt(x.geometry)}
+
+
+def log_document(project: str, repairs: Sequence[str], settings: RepairSettings, changes: Sequence[Change],
+                 left: Sequence[Left], before: dict[str, int], after: dict[str, int] | None) -> dict[str, Any]:
+    """The change log as a JSON-ready dict."""
+    return {
+        "tool": "archivist",
+        "version": __version__,
+        "project": project,
+        "repairs": list(repairs),
+        "settings": settings.record(),
+        "findings_before": dict(sorted(before.items())),
+        "findings_after": None if after is None else dict(sorted(after.items())),
+        "changes": [change_entry(i + 1, c) for i, c in enumerate(changes)],
+        "left": [left_entry(x) for x in left],
+    }
+
+
+def dump_log(doc: dict[str, Any]) -> str:
+    return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
+
+
+def write_changes_gpkg(changes: Sequence[Change], left: Sequence[Left], path: Path, crs: Any) -> None:
+    """The changed areas before and after, and the defects left, as three layers of a new GeoPackage at ``path``."""
+    import geopandas as gpd
+    import pyogrio
+
+    rows = [(i + 1, c) for i, c in enumerate(changes)]
+    for name, pick in (("before", lambda c: c.before), ("after", lambda c: c.after)):
+        kept = [(i, c) for i, c in rows if pick(c) is not None]
+        frame = gpd.GeoDataFrame(
+            {"change": [i for i, _ in kept], "repair": [c.repair for _, c in kept],
+             "features": [", ".join(c.features_before if name == "before" else c.features_after) for _, c in kept],
+             "units": [", ".join(c.units) for _, c in kept], "area_moved": [float(c.area_moved) for _, c in kept],
+             "max_shift": [float(c.max_shift) for _, c in kept]},
+            geometry=[pick(c) for _, c in kept], crs=crs)
+        pyogrio.write_dataframe(frame, path, layer=name, driver="GPKG", promote_to_multi=True,
+                                geometry_type="Unknown")
+    frame = gpd.GeoDataFrame({"repair": [x.repair for x in left], "features": [", ".join(x.features) for x in left],
+                              "reason": [x.reason for x in left], "measure": [float(x.measure) for x in left]},
+                             geometry=[x.geometry for x in left], crs=crs)
+    pyogrio.write_dataframe(frame, path, layer="left", driver="GPKG", geometry_type="Unknown")
+
+
+def render_log_text(doc: dict[str, Any]) -> str:
+    """The change log as lines of text: one per change, then one per defect left."""
+    out = []
+    for c in doc["changes"]:
+        before, after = ", ".join(c["features_before"]), ", ".join(c["features_after"]) or "(removed)"
+        units = ", ".join(u or "?" for u in c["units"])
+        out.append(f"{c['change']:>5}  {c['repair']:<19} {c['layer']}: {before} -> {after} [{units}] "
+                   f"{c['area_moved']:.3f} m² moved, vertices moved up to {c['max_shift']:.3f} m")
+    for x in doc["left"]:
+        out.append(f"   --  {x['repair']:<19} left: {x['layer']} {', '.join(x['features']) or '(none)'}: {x['reason']}")
+    return "\n".join(out) + ("\n" if out else "")

@@ -1,0 +1,478 @@
+"""The polygon repairs: overlaps, thin gaps, near-coincident edges, slivers, same-unit neighbours.
+
+Each repair finds its defects with the check's own analyses (the coverage
+analysis of :mod:`archivist.analysis.coverage`, the sliver thresholds, the
+same-neighbour rule) run on the working copy, so what it repairs is what
+``archivist check`` reports, and works on whole arrays (shapely 2, numpy,
+STRtree); the Python loops run over defects, never over every polygon.
+
+Bounds every repair keeps (tests hold them against GEOS):
+
+* a polygon changes only by the area logged for it (an overlap piece it lost,
+  a gap piece it gained, a sliver or neighbour merged into it) and by vertex
+  moves no longer than the snapping distance (``[checks] tolerance``);
+* a unit code changes only where a polygon is merged into another (logged);
+* running a repair on its own output changes nothing.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from typing import Any
+
+import geopandas as gpd
+import numpy as np
+import shapely
+
+from ..analysis.arrays import widths
+from ..analysis.context import CheckContext
+from ..analysis.messages import ABOVE
+from ..analysis.polygons import sliver_thresholds
+from ..project import Layer
+from .model import FEATURE_ID, Change, Left, RepairSettings, RepairState
+from .registry import repair
+
+MERGE_STRATEGY = {"longest-border": "longest_border", "larger": "max_area"}
+
+
+# ---------------------------------------------------------------- the working copy as the check sees it
+
+def _context(state: RepairState) -> CheckContext:
+    """A check context over the working copy (its units and lines in place of the project's)."""
+    project = state.project
+    layers = dict(project.layers)
+    assert state.units is not None
+    old = project.layers["units"]
+    layers["units"] = Layer("units", old.path, old.source, state.units, np.asarray(state.units[FEATURE_ID], dtype=object), old.spec)
+    if state.lines is not None and "lines" in project.layers:
+        old_lines = project.layers["lines"]
+        layers["lines"] = replace(old_lines, frame=state.lines, ids=np.asarray(state.lines[FEATURE_ID], dtype=object), parts=())
+    return CheckContext(replace(project, layers=layers, problems=[], notes=[]))
+
+
+def _geoms(state: RepairState) -> np.ndarray:
+    assert state.units is not None
+    return np.array(state.units.geometry.array, dtype=object)
+
+
+def _set(state: RepairState, geoms: np.ndarray, keep: np.ndarray | None = None) -> None:
+    """Put ``geoms`` (one per row) back into the working units; drop the rows where ``keep`` is False."""
+    assert state.units is not None
+    frame = state.units
+    col = frame.geometry.name
+    frame = frame.copy()
+    frame[col] = gpd.GeoSeries(geoms, index=frame.index, crs=frame.crs)
+    if keep is not None:
+        frame = frame.iloc[np.flatnonzero(keep)]
+    state.units = frame
+
+
+def _codes(state: RepairState) -> np.ndarray:
+    assert state.units is not None
+    if state.unit_field is None or state.unit_field not in state.units.columns:
+        return np.full(len(state.units), "", dtype=object)
+    col = state.units[state.unit_field]
+    return np.array(["" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip() for v in col], dtype=object)
+
+
+def _eps(geoms: np.ndarray) -> float:
+    if not len(geoms):
+        return 1e-9
+    b = shapely.total_bounds(geoms[~shapely.is_missing(geoms)])
+    return 1e-9 * max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
+
+
+def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
+    """Largest vertex displacement between two versions of each polygon: the Hausdorff distance of their boundaries."""
+    out = np.zeros(len(before))
+    ok = ~shapely.is_missing(before) & ~shapely.is_missing(after)
+    ok &= ~shapely.is_empty(before) & ~shapely.is_empty(after)
+    if ok.any():
+        out[ok] = shapely.hausdorff_distance(shapely.boundary(before[ok]), shapely.boundary(after[ok]))
+    return out
+
+
+def _border(piece: np.ndarray, other: np.ndarray, eps: float) -> np.ndarray:
+    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``)."""
+    if not len(piece):
+        return np.zeros(0)
+    near = shapely.buffer(shapely.boundary(other), eps, cap_style="flat")
+    return shapely.length(shapely.intersection(shapely.boundary(piece), near))
+
+
+def _age_rank(state: RepairState, codes: np.ndarray) -> np.ndarray:
+    """The middle of each unit's age span (Ma; NaN when the legend gives no readable age)."""
+    out = np.full(len(codes), np.nan)
+    for i, c in enumerate(codes.tolist()):  # one lookup per polygon named in a defect
+        span = state.ages.get(c)
+        if span is not None:
+            out[i] = (span.base_ma + span.top_ma) / 2.0
+    return out
+
+
+def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.ndarray, pieces: np.ndarray,
+            geoms: np.ndarray, codes: np.ndarray, eps: float) -> tuple[np.ndarray, list[str]]:
+    """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why."""
+    # the piece's border with what is left of a runs along b's boundary, and the reverse
+    with_a = _border(pieces, geoms[b], eps)
+    with_b = _border(pieces, geoms[a], eps)
+    longest = with_a >= with_b
+    notes = ["longest border"] * len(a)
+    if settings.overlap == "larger":
+        area_a, area_b = shapely.area(geoms[a]), shapely.area(geoms[b])
+        choice = np.where(area_a == area_b, longest, area_a > area_b)
+        return choice, ["larger polygon"] * len(a)
+    if settings.overlap in ("younger", "older"):
+        age_a, age_b = _age_rank(state, codes[a]), _age_rank(state, codes[b])
+        known = np.isfinite(age_a) & np.isfinite(age_b) & (age_a != age_b)
+        pick = age_a < age_b if settings.overlap == "younger" else age_a > age_b
+        choice = np.where(known, pick, longest)
+        notes = [f"{settings.overlap} unit" if k else "longest border (ages not known or equal in the legend)" for k in known]
+        return choice, notes
+    return longest, notes
+
+
+# ---------------------------------------------------------------- overlaps
+
+@repair("resolve-overlaps", order=10)
+def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Overlaps given to one of the two polygons by the declared rule.
+
+    Every piece of ground covered by two unit polygons (GEOS intersections,
+    as ``unit-overlap`` and ``unit-edge-mismatch`` find them) is cut out of
+    one of the two. Who keeps it is ``[repair] overlap``: ``longest-border``
+    (the polygon whose remaining part shares the longer border with the
+    piece; the convention of GEOS's coverage cleaning), ``larger`` (the
+    larger polygon), ``younger`` or ``older`` (by the legend's ages, read by
+    :mod:`archivist.vocab.ages`: a younger intrusion or superficial deposit
+    usually overprints, common practice); where the ages are unknown or
+    equal, the longest border decides and the log says so.
+
+    Threshold: pieces larger than ``[repair] overlap_max_area_mm2`` at map
+    scale (default 1 mm², the sliver area of ``[checks]``: our own choice)
+    are left and listed, as is a polygon lying wholly inside another.
+    Never: it does not decide which unit a large overlap belongs to; that is
+    the geologist's judgement.
+    """
+    if state.units is None or not len(state.units):
+        return [], []
+    ctx = _context(state)
+    units = ctx.units()
+    cov = ctx.coverage()
+    if not cov.overlaps:
+        return [], []
+    geoms = _geoms(state)
+    codes = _codes(state)
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
+    eps = _eps(geoms)
+    pieces = np.array([p.geom for p in cov.overlaps], dtype=object)
+    a = units.rows[np.array([p.units[0] for p in cov.overlaps])]
+    b = units.rows[np.array([p.units[1] for p in cov.overlaps])]
+    area = shapely.area(pieces)
+    whole = shapely.equals(pieces, geoms[a]) | shapely.equals(pieces, geoms[b])
+    small = (area <= settings.overlap_max_area) & ~whole
+    left = [Left("resolve-overlaps", "units", (str(ids[i]), str(ids[j])),
+                 (f"an overlap of {ar:.2f} m², larger than the {settings.overlap_max_area:.2f} m² a repair may give away"
+                  if not w else "one polygon lies wholly inside the other"), p, float(ar))
+            for i, j, p, ar, w in zip(a[~small], b[~small], pieces[~small], area[~small], whole[~small])]
+    a, b, pieces, area = a[small], b[small], pieces[small], area[small]
+    if not len(a):
+        return [], left
+    keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps)
+    winner, loser = np.where(keep_a, a, b), np.where(keep_a, b, a)
+    order = np.argsort(loser, kind="stable")
+    new = geoms.copy()
+    losers, starts = np.unique(loser[order], return_index=True)
+    for lo, group in zip(losers, np.split(order, starts[1:])):  # one per polygon losing area
+        new[lo] = shapely.difference(new[lo], shapely.union_all(pieces[group]))
+    empty = shapely.is_empty(new)
+    _set(state, new, ~empty)
+    moved = _shift(geoms[loser], new[loser])
+    changes = [Change("resolve-overlaps", "units", (str(ids[w]), str(ids[lo])), (str(ids[w]),) + (() if empty[lo] else (str(ids[lo]),)),
+                      (str(codes[w]), str(codes[lo])), float(ar), float(mv), geoms[lo], p, f"overlap kept by {ids[w]} ({note})")
+               for w, lo, p, ar, mv, note in zip(winner, loser, pieces, area, moved, why)]
+    return changes, left
+
+
+# ---------------------------------------------------------------- gaps
+
+@repair("fill-gaps", order=20)
+def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Thin gaps given to the neighbour with the longest shared border.
+
+    A gap (ground inside the map extent no unit covers, as ``unit-gap`` and
+    ``unit-edge-mismatch`` find it) no wider than the gap width (the width of
+    its largest inscribed circle, GEOS) is added to the polygon around it
+    that shares the longest stretch of its boundary. The gap width is
+    ``[checks] tolerance`` (the width below which ``check`` calls a gap a
+    misfit of the edge), or ``[repair] gap_width_mm`` at map scale.
+    Never: a wider gap is left and listed (only a geologist can say what
+    is there), as is a gap with no polygon along it; a thin gap lying on the
+    map frame within the tolerance (no defect for ``check``) is not touched.
+    """
+    if state.units is None or not len(state.units):
+        return [], []
+    ctx = _context(state)
+    units = ctx.units()
+    cov = ctx.coverage()
+    todo = [p for p in cov.gaps if not (p.on_frame and p.width <= cov.tol * ABOVE)]
+    if not todo:
+        return [], []
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
+    codes = _codes(state)
+    geoms = _geoms(state)
+    left: list[Left] = []
+    fill = []
+    for p in todo:  # one per gap
+        around = tuple(str(ids[units.rows[k]]) for k in p.units)
+        if p.width > settings.gap_width * ABOVE:
+            left.append(Left("fill-gaps", "units", around, f"a gap up to {p.width:.2f} m wide, wider than the gap width "
+                             f"{settings.gap_width:.2f} m", p.geom, p.area))
+        elif not p.units:
+            left.append(Left("fill-gaps", "units", (), "a gap with no polygon along it", p.geom, p.area))
+        else:
+            fill.append(p)
+    if not fill:
+        return [], left
+    eps = _eps(geoms)
+    gi = np.repeat(np.arange(len(fill)), [len(p.units) for p in fill])
+    ui = units.rows[np.concatenate([np.array(p.units, dtype=np.int64) for p in fill])]
+    gaps = np.array([p.geom for p in fill], dtype=object)
+    shared = _border(gaps[gi], geoms[ui], eps)
+    # per gap, the neighbour with the longest shared border (ties: the first in the file)
+    order = np.lexsort((ui, -shared, gi))
+    first = order[np.r_[0, np.flatnonzero(np.diff(gi[order])) + 1]]
+    target = ui[first]
+    new = geoms.copy()
+    tidx = np.argsort(target, kind="stable")
+    targets, starts = np.unique(target[tidx], return_index=True)
+    for t, group in zip(targets, np.split(tidx, starts[1:])):  # one per polygon gaining area
+        new[t] = shapely.union_all(np.r_[[new[t]], gaps[group]])
+    _set(state, new)
+    moved = _shift(geoms[target], new[target])
+    changes = [Change("fill-gaps", "units", (str(ids[t]),), (str(ids[t]),), (str(codes[t]),), float(shapely.area(g)), float(mv),
+                      None, g, "gap given to the neighbour with the longest shared border")
+               for t, g, mv in zip(target, gaps, moved)]
+    return changes, left
+
+
+# ---------------------------------------------------------------- snapping
+
+@repair("snap-edges", order=30)
+def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Near-coincident edges and vertices snapped so neighbours share them exactly.
+
+    GEOS's coverage cleaning (``shapely.coverage_clean``, GEOS 3.14
+    CoverageCleaner) with the snapping distance ``[checks] tolerance`` and no
+    gap merging: vertices within the distance of each other or of an edge
+    are snapped together, edges are noded against each other, and every
+    shared edge is then drawn with the same vertices on both sides; what is
+    left of a thin overlap goes to a neighour by ``[repair] overlap``
+    (``longest-border``: GEOS's longest common border; ``larger``: larger
+    area; ``younger``/``older``: the polygons are given to GEOS youngest or
+    oldest first, first one keeps it).
+
+    What GEOS does not promise, and this repair holds itself: the snapping
+    distance is a step of its noding, not a bound on any vertex's move, so
+    every polygon is compared with its input (Hausdorff distance of the
+    boundaries) and one that would move further than the distance keeps its
+    input geometry and is listed; polygons in an overlap left for the
+    geologist are kept out of the cleaning (GEOS would give the overlap
+    away); a polygon whose only difference is where its rings start or
+    their orientation is not a change.
+    Never: it does not move a vertex further than the snapping distance.
+    """
+    if state.units is None or not len(state.units):
+        return [], []
+    ctx = _context(state)
+    units = ctx.units()
+    geoms = _geoms(state)
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
+    codes = _codes(state)
+    hold = np.zeros(len(geoms), dtype=bool)
+    if len(ctx.edges().suspects) == 0:
+        return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
+    if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
+        return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
+    cov = ctx.coverage()
+    for p in cov.overlaps:  # overlaps still there were left for the geologist (or their repair was skipped)
+        if p.width > cov.tol * ABOVE:
+            hold[units.rows[list(p.units)]] = True
+    sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & np.isin(np.arange(len(geoms)), units.rows))
+    work = geoms[sel]
+    strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
+    order = np.arange(len(work))
+    if strategy == "min_index":
+        age = _age_rank(state, codes[sel])
+        key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
+        order = np.argsort(key, kind="stable")
+    cleaned = np.empty(len(work), dtype=object)
+    cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
+                                            merge_strategy=strategy)
+    same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+    moved = _shift(work, cleaned)
+    too_far = moved > settings.tolerance * ABOVE
+    lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+    take = ~same & ~too_far & ~lost
+    new = geoms.copy()
+    new[sel[take]] = cleaned[take]
+    _set(state, new)
+    left = [Left("snap-edges", "units", (str(ids[k]),), f"snapping would move it by {m:.3f} m, more than the snapping distance",
+                 geoms[k], float(m)) for k, m in zip(sel[(too_far | lost) & ~same], moved[(too_far | lost) & ~same])]
+    area_change = np.abs(shapely.area(cleaned[take]) - shapely.area(work[take]))
+    changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
+                      geoms[k], new[k], "vertices snapped to the neighbours'")
+               for k, ar, m in zip(sel[take], area_change, moved[take])]
+    return changes, left
+
+
+def _single(geoms: np.ndarray) -> np.ndarray:
+    """One-part multipolygons as polygons (a file's MULTIPOLYGON and GEOS's POLYGON of the same ring are no change)."""
+    out = geoms.copy()
+    one = (shapely.get_type_id(out) == 6) & (shapely.get_num_geometries(out) == 1)
+    out[one] = shapely.get_geometry(out[one], 0)
+    return out
+
+
+# ---------------------------------------------------------------- merges
+
+def _shared_lengths(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pairs (a, b) of polygons sharing edges (a clean coverage's twinned half-edges) and the length they share."""
+    from ..analysis.halfedges import build_edges
+
+    edges = build_edges(geoms)
+    sel = np.flatnonzero(edges.twin)
+    a, b = np.minimum(edges.left[sel], edges.right[sel]), np.maximum(edges.left[sel], edges.right[sel])
+    n = max(len(geoms), 1)
+    key, inv = np.unique(a * n + b, return_inverse=True)
+    length = np.bincount(inv, weights=edges.length[sel], minlength=len(key))
+    return key // n, key % n, length
+
+
+def _components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Connected component label of each of n nodes joined by edges (a, b): union-find on arrays."""
+    parent = np.arange(n)
+    while True:
+        ra, rb = parent[a], parent[b]
+        lo = np.minimum(ra, rb)
+        np.minimum.at(parent, ra, lo)
+        np.minimum.at(parent, rb, lo)
+        nxt = parent[parent]
+        if np.array_equal(nxt, parent) and np.array_equal(parent[a], parent[b]):
+            return parent
+        parent = nxt
+
+
+def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: str, geoms: np.ndarray) -> list[Change]:
+    """Merge each group's polygons into its key polygon (coverage union); the others are removed."""
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)  # type: ignore[index]
+    codes = _codes(state)
+    new = geoms.copy()
+    keep = np.ones(len(geoms), dtype=bool)
+    changes = []
+    for target, members in groups.items():  # one per merge
+        parts = np.array([geoms[target]] + [geoms[m] for m in members], dtype=object)
+        new[target] = shapely.coverage_union_all(parts)
+        keep[members] = False
+        moved = float(_shift(np.array([geoms[target]], dtype=object), np.array([new[target]], dtype=object))[0])
+        changes.append(Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
+                              (str(codes[target]),) + tuple(str(codes[m]) for m in members),
+                              float(shapely.area(shapely.union_all(geoms[members]))), moved,
+                              shapely.union_all(geoms[[target] + members]), new[target], note))
+    _set(state, new, keep)
+    return changes
+
+
+@repair("merge-slivers", order=40)
+def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Slivers merged into the neighbour of the same unit, else the one with the longest shared edge.
+
+    A sliver is what ``unit-sliver`` reports: a polygon under the sliver
+    area (``[checks] sliver_area_mm2``) or narrower everywhere than the
+    sliver width (``sliver_width_mm``), both at map scale (rules of thumb of
+    the trade, common practice). It is merged into a neighbour sharing an
+    edge with it: one with the same unit code if any (the longest shared edge
+    among them), else the one with the longest shared edge; the merged
+    polygon keeps the neighbour's id, code and attributes. Sliver chains
+    merge into the first polygon that is not a sliver.
+    Never: a sliver with no neighbour sharing an edge (an island) is left
+    and listed; a real small body (a dyke, a thin bed) is for the geologist
+    to keep and exaggerate, so skip this repair (``--skip merge-slivers``)
+    where the map has them.
+    """
+    if state.units is None or not len(state.units):
+        return [], []
+    geoms = _geoms(state)
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
+    codes = _codes(state)
+    amin, wmin = settings.sliver_area, settings.sliver_width
+    area = shapely.area(geoms)
+    r = wmin / 2.0
+    maybe = (area < amin) | (area <= shapely.length(geoms) * r + shapely.get_num_coordinates(geoms) * (np.pi / 2) * r * r)
+    cand = np.flatnonzero(maybe & ~shapely.is_missing(geoms))
+    wid = np.full(len(geoms), np.inf)
+    if len(cand):
+        wid[cand] = widths(geoms[cand], wmin / 10.0)
+    sliver = (area < amin) | (wid < wmin)
+    if not sliver.any():
+        return [], []
+    a, b, length = _shared_lengths(geoms)
+    # directed: sliver s -> neighbour t, preferring the same code, then the longest edge, then a non-sliver
+    s = np.r_[a, b]
+    t = np.r_[b, a]
+    ln = np.r_[length, length]
+    m = sliver[s]
+    s, t, ln = s[m], t[m], ln[m]
+    samecode = (codes[s] == codes[t]) & (codes[s] != "")
+    order = np.lexsort((t, -ln, ~samecode, s))
+    s, t = s[order], t[order]
+    first = np.r_[0, np.flatnonzero(np.diff(s)) + 1] if len(s) else np.zeros(0, dtype=np.int64)
+    target = np.full(len(geoms), -1)
+    target[s[first]] = t[first]
+    lonely = np.flatnonzero(sliver & (target < 0))
+    left = [Left("merge-slivers", "units", (str(ids[k]),), "a sliver sharing no edge with another polygon", geoms[k], float(area[k]))
+            for k in lonely]
+    # follow chains to a non-sliver (or to the largest sliver of a group of slivers only)
+    src = np.flatnonzero(target >= 0)
+    comp = _components(len(geoms), src, target[src])
+    groups: dict[int, list[int]] = {}
+    members = np.flatnonzero(target >= 0)
+    for c in np.unique(comp[members]):  # one per group of merged polygons: slivers around one non-sliver
+        inside = np.flatnonzero(comp == c)
+        big = inside[~sliver[inside]]
+        root = int(big[0]) if len(big) else int(inside[np.argmax(area[inside])])
+        groups[root] = [int(k) for k in inside if k != root]
+    return _merge(state, "merge-slivers", groups, "sliver merged into its neighbour", geoms), left
+
+
+@repair("dissolve-same-unit", order=50)
+def dissolve_same_unit(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Neighbouring polygons of the same unit with no fault between them dissolved into one.
+
+    The pairs are those ``unit-same-neighbour`` reports (the same code, a
+    shared boundary longer than the tolerance, no line of a fault kind along
+    it within the tolerance); every group of polygons joined by such pairs
+    becomes one polygon (GEOS coverage union), keeping the id and attributes
+    of the first of them in the file.
+    Never: polygons separated by a fault stay apart, and two polygons whose
+    codes differ are never joined (a wrong code is the geologist's to fix).
+    """
+    if state.units is None or not len(state.units) or state.unit_field is None:
+        return [], []
+    from ..rules.topology import unit_same_neighbour
+
+    ctx = _context(state)
+    hits = list(unit_same_neighbour(ctx.project, ctx))
+    if not hits:
+        return [], []
+    ids = np.asarray(state.units[FEATURE_ID], dtype=object)
+    pos = {str(v): i for i, v in enumerate(ids.tolist())}
+    a = np.array([pos[h.features[0]] for h in hits])
+    b = np.array([pos[h.features[1]] for h in hits])
+    comp = _components(len(ids), a, b)
+    involved = np.unique(np.r_[a, b])
+    groups: dict[int, list[int]] = {}
+    for c in np.unique(comp[involved]):  # one per group dissolved
+        inside = [int(k) for k in np.flatnonzero(comp == c)]
+        groups[inside[0]] = inside[1:]
+    return _merge(state, "dissolve-same-unit", groups, "same unit, no fault between them: dissolved", _geoms(state)), []

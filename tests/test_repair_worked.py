@@ -1,0 +1,180 @@
+"""Worked examples of the polygon repairs, with the values worked by hand beside them.
+
+Every map is a 10 m x 10 m square at 1:1 000 (one map millimetre is 1 m of
+ground): the default tolerance (0.1 mm) is 0.1 m, the sliver thresholds of
+``[checks]`` are 1 m² and 0.5 m (1 mm², 0.5 mm), and the default largest
+overlap a repair gives away is 1 mm² = 1 m². The legend of tests/builders.py
+makes A Norian (younger) and B Carnian (older) (ICS chart).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import geopandas as gpd
+import pyogrio
+import pytest
+import shapely
+from shapely.geometry import LineString, box
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from builders import tiny_project, tree_digest  # noqa: E402
+from coverage_builders import FRAME, line_frame  # noqa: E402
+
+from archivist.engine import check  # noqa: E402
+from archivist.repair.api import repair  # noqa: E402
+
+TOPOLOGY = {"unit-overlap", "unit-gap", "unit-sliver", "unit-edge-mismatch", "unit-same-neighbour"}
+
+
+def square(tmp_path: Path, geoms, codes, *, repair_keys=None, checks=None, name="square", lines=None) -> Path:
+    manifest: dict = {"map": {"scale": 1000}}
+    if repair_keys:
+        manifest["repair"] = repair_keys
+    if checks:
+        manifest["checks"] = checks
+    units = gpd.GeoDataFrame({"unit": codes}, geometry=list(geoms), crs="EPSG:32633")
+    rows = lines if lines is not None else [("contact", LineString([(5, 0), (5, 10)])), ("map-boundary", FRAME)]
+    return tiny_project(tmp_path, name=name, units=units, lines=line_frame(*rows), extent=box(0, 0, 10, 10), manifest=manifest)
+
+
+def copy_units(out: Path) -> gpd.GeoDataFrame:
+    return pyogrio.read_dataframe(out / "map.gpkg", layer="units", fid_as_index=True)
+
+
+def topology_rules(project: Path) -> dict[str, int]:
+    found: dict[str, int] = {}
+    for f in check(project).findings:
+        if f.rule in TOPOLOGY:
+            found[f.rule] = found.get(f.rule, 0) + 1
+    return found
+
+
+def test_overlap_of_one_square_metre_goes_to_the_larger_polygon(tmp_path):
+    # A = [0, 5.1] x [0, 10] (51 m²) overlaps B = [5, 10] x [0, 10] (50 m²) by 0.1 m x 10 m = 1.00 m² (by hand).
+    # overlap = "larger": A keeps it; B becomes [5.1, 10] x [0, 10] = 49.00 m².
+    # The limit is 1 mm² at 1:1 000 = 1 m², so an overlap of exactly 1 m² is given away.
+    project = square(tmp_path, [box(0, 0, 5.1, 10), box(5, 0, 10, 10)], ["A", "B"], repair_keys={"overlap": "larger"})
+    result = repair(project, tmp_path / "out")
+    overlaps = [c for c in result.changes if c.repair == "resolve-overlaps"]
+    assert len(overlaps) == 1
+    c = overlaps[0]
+    assert c.features_before == ("1", "2") and c.units == ("A", "B")
+    assert c.area_moved == pytest.approx(1.0)
+    assert c.max_shift == pytest.approx(0.1)
+    units = copy_units(tmp_path / "out")
+    assert units.geometry.area.tolist() == pytest.approx([51.0, 49.0])
+    assert shapely.equals(units.geometry.iloc[1], box(5.1, 0, 10, 10))
+    assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
+    assert topology_rules(tmp_path / "out") == {}
+
+
+def test_overlap_by_age_goes_to_the_younger_unit(tmp_path):
+    # the same overlap under overlap = "younger": B is Carnian (older), A Norian (younger), so A keeps it;
+    # under "older" B keeps it and A becomes [0, 5] x [0, 10] = 50 m² (by hand).
+    project = square(tmp_path, [box(0, 0, 5.1, 10), box(5, 0, 10, 10)], ["A", "B"], repair_keys={"overlap": "older"})
+    result = repair(project, tmp_path / "out")
+    c = [c for c in result.changes if c.repair == "resolve-overlaps"][0]
+    assert c.features_before == ("2", "1") and "older" in c.note
+    assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.0, 50.0])
+
+
+def test_overlap_above_the_limit_is_left(tmp_path):
+    # A = [0, 5.3] x [0, 10] overlaps B by 0.3 m x 10 m = 3 m² > 1 m²: left and listed, both polygons unchanged.
+    project = square(tmp_path, [box(0, 0, 5.3, 10), box(5, 0, 10, 10)], ["A", "B"])
+    result = repair(project, tmp_path / "out")
+    assert [c for c in result.changes if c.repair == "resolve-overlaps"] == []
+    left = [x for x in result.left if x.repair == "resolve-overlaps"]
+    assert len(left) == 1 and left[0].measure == pytest.approx(3.0) and left[0].features == ("1", "2")
+    assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([53.0, 50.0])
+    assert result.after.get("unit-overlap") == 1
+
+
+def test_gap_strip_of_20_cm_goes_to_a_neighbour(tmp_path):
+    # A = [0, 4.8] x [0, 10], B = [5, 10] x [0, 10]: a strip 0.2 m x 10 m = 2.00 m² (by hand), 0.2 m wide.
+    # gap_width_mm = 0.3 (0.3 m at 1:1 000) lets it be filled; it borders A and B along 10 m each,
+    # so the first in the file (A) takes it: A = [0, 5] x [0, 10] = 50 m².
+    project = square(tmp_path, [box(0, 0, 4.8, 10), box(5, 0, 10, 10)], ["A", "B"], repair_keys={"gap_width_mm": 0.3})
+    result = repair(project, tmp_path / "out")
+    gaps = [c for c in result.changes if c.repair == "fill-gaps"]
+    assert len(gaps) == 1 and gaps[0].features_after == ("1",) and gaps[0].area_moved == pytest.approx(2.0)
+    units = copy_units(tmp_path / "out")
+    assert units.geometry.area.tolist() == pytest.approx([50.0, 50.0])
+    assert shapely.coverage_is_valid(units.geometry.values)
+    assert topology_rules(tmp_path / "out") == {}
+
+
+def test_gap_wider_than_the_gap_width_is_left(tmp_path):
+    # the same strip with the default gap width (the tolerance, 0.1 m): 0.2 m is wider, left and listed
+    project = square(tmp_path, [box(0, 0, 4.8, 10), box(5, 0, 10, 10)], ["A", "B"])
+    result = repair(project, tmp_path / "out")
+    left = [x for x in result.left if x.repair == "fill-gaps"]
+    assert len(left) == 1 and left[0].measure == pytest.approx(2.0)
+    assert [c for c in result.changes if c.repair == "fill-gaps"] == []
+
+
+def test_sliver_of_3_square_metres_merges_into_the_longest_neighbour(tmp_path):
+    # C = [5, 5.3] x [0, 10]: 3.00 m² (by hand) but 0.3 m wide < 0.5 m: a sliver. It shares 10 m with A
+    # and 5 m with each of B1 = [5.3, 10] x [0, 5] and B2 = [5.3, 10] x [5, 10], so A takes it: 50 + 3 = 53 m².
+    geoms = [box(0, 0, 5, 10), box(5.3, 0, 10, 5), box(5.3, 5, 10, 10), box(5, 0, 5.3, 10)]
+    project = square(tmp_path, geoms, ["A", "B", "C", "D"])
+    result = repair(project, tmp_path / "out")
+    merged = [c for c in result.changes if c.repair == "merge-slivers"]
+    assert len(merged) == 1
+    assert merged[0].features_before == ("1", "4") and merged[0].features_after == ("1",)
+    assert merged[0].units == ("A", "D") and merged[0].area_moved == pytest.approx(3.0)
+    units = copy_units(tmp_path / "out")
+    assert units.index.tolist() == [1, 2, 3]
+    assert units.geometry.area.tolist() == pytest.approx([53.0, 23.5, 23.5])
+    assert units.unit.tolist() == ["A", "B", "C"]
+
+
+def test_sliver_merges_into_a_neighbour_of_its_own_unit(tmp_path):
+    # the same sliver coded B: B1 (also B) touches it, so it goes there although A shares more: 23.5 + 3 = 26.5 m²
+    geoms = [box(0, 0, 5, 10), box(5.3, 0, 10, 5), box(5.3, 5, 10, 10), box(5, 0, 5.3, 10)]
+    project = square(tmp_path, geoms, ["A", "B", "C", "B"])
+    result = repair(project, tmp_path / "out")
+    merged = [c for c in result.changes if c.repair == "merge-slivers"]
+    assert merged[0].features_before == ("2", "4")
+    assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.0, 26.5, 23.5])
+
+
+def test_same_unit_neighbours_dissolve_unless_a_fault_runs_between(tmp_path):
+    geoms = [box(0, 0, 5, 10), box(5, 0, 10, 10)]
+    project = square(tmp_path, geoms, ["A", "A"])
+    result = repair(project, tmp_path / "out")
+    d = [c for c in result.changes if c.repair == "dissolve-same-unit"]
+    assert len(d) == 1 and d[0].features_before == ("1", "2") and d[0].area_moved == pytest.approx(50.0)
+    units = copy_units(tmp_path / "out")
+    assert len(units) == 1 and shapely.equals(units.geometry.iloc[0], box(0, 0, 10, 10))
+    faulted = square(tmp_path, geoms, ["A", "A"], name="faulted",
+                     lines=[("fault", LineString([(5, 0), (5, 10)])), ("map-boundary", FRAME)])
+    assert [c for c in repair(faulted, tmp_path / "out2").changes if c.repair == "dissolve-same-unit"] == []
+
+
+def test_misaligned_vertices_snap_within_the_tolerance(tmp_path):
+    # B's west edge has an extra vertex 0.04 m off the shared edge x = 5: snapped (moves <= 0.1 m)
+    b = shapely.Polygon([(5, 0), (10, 0), (10, 10), (5, 10), (5.04, 5)])
+    project = square(tmp_path, [box(0, 0, 5, 10), b], ["A", "B"])
+    assert topology_rules(project)
+    result = repair(project, tmp_path / "out")
+    assert {c.repair for c in result.changes} == {"resolve-overlaps", "snap-edges"} or {c.repair for c in result.changes} <= {
+        "resolve-overlaps", "fill-gaps", "snap-edges"}
+    assert all(c.max_shift <= 0.1 + 1e-9 for c in result.changes)
+    units = copy_units(tmp_path / "out")
+    assert shapely.coverage_is_valid(units.geometry.values)
+    assert topology_rules(tmp_path / "out") == {}
+
+
+def test_project_is_byte_identical_and_the_run_is_idempotent(tmp_path):
+    project = square(tmp_path, [box(0, 0, 5.1, 10), box(5, 0, 10, 10)], ["A", "B"])
+    digest = tree_digest(project)
+    repair(project, tmp_path / "out")
+    assert tree_digest(project) == digest
+    again = repair(tmp_path / "out", tmp_path / "out2")
+    assert again.changes == () and again.left == ()
+    log = json.loads((tmp_path / "out" / "repair-log.json").read_text(encoding="utf-8"))
+    assert len(log["changes"]) >= 1
