@@ -65,15 +65,23 @@ class Snapped:
 def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Snapped:
     """Lines with every vertex within ``tol`` of the ``targets`` (lineal geometries) moved onto them.
 
-    A vertex farther than ``tol`` from every target, or already on one
-    (within floating-point noise), never moves. A vertex within ``tol`` goes to
-    the nearest target vertex within ``tol`` (so the line shares it exactly,
-    as GEOS ``snap`` does), else to the nearest point of the nearest target.
-    Target vertices within ``tol`` of a line segment, whose nearest point on
-    the line is inside a segment, are then inserted into it, so a line that
-    follows a boundary follows its bends too. A line whose result would lie
-    farther than ``tol`` from its original trace (GEOS Hausdorff distance) is
-    held back unchanged. Works on whole arrays: one STRtree query per step.
+    A vertex farther than ``tol`` from every target never moves. A vertex
+    within ``tol`` of a target vertex goes to the nearest one (so the line
+    shares it exactly, as GEOS ``snap`` does); another vertex within ``tol``
+    of a target goes to the nearest point of the nearest target, unless that
+    point lies within ``tol`` of a target vertex (then it stays: moving on to
+    the vertex would take it farther than ``tol``, and stopping short would
+    not be stable under a second run).
+    No vertex is added: where the boundary bends between two vertices of
+    the line, the line keeps its chord (``check`` counts it on the boundary
+    while it stays within the tolerance). Adding the boundary's vertices
+    within ``tol`` of the line was tried and left out: each one added can
+    bring the next within reach, so a second run would change the line again,
+    and a chain of them can walk away from the drawn line. A line whose result
+    would lie farther than ``tol`` from where it was drawn (GEOS Hausdorff
+    distance) is held back unchanged. The step is repeated until nothing
+    moves, so the result snapped again is the same. Works on whole arrays
+    (STRtree queries), no loop per line.
     """
     lines = np.asarray(lines, dtype=object)
     n = len(lines)
@@ -89,55 +97,19 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Sn
     eps = noise(np.concatenate([lines[have], targets]))
     parts, owner = shapely.get_parts(lines[have], return_index=True)
     owner = have[owner]
-    coords, vpart = shapely.get_coordinates(parts, return_index=True)
-    coords = coords.copy()
-    # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
     ttree = shapely.STRtree(targets)
-    pts = shapely.points(coords)
-    vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
-    d = shapely.distance(pts[vi], targets[ti])
-    is_end = np.zeros(len(coords), dtype=bool)
-    if len(coords):
-        is_end[np.r_[0, np.flatnonzero(np.diff(vpart)) + 1]] = True
-        is_end[np.r_[np.flatnonzero(np.diff(vpart)), len(coords) - 1]] = True
-    off = d > eps
-    cand = off | is_end[vi]  # an end already on a boundary still goes to the boundary's vertex within tol (a junction)
-    vi, ti, off = vi[cand], ti[cand], off[cand]
     tv = np.unique(shapely.get_coordinates(targets), axis=0)
-    if len(vi):
-        feet = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[vi], targets[ti]), 1))
-        vtree = shapely.STRtree(shapely.points(tv))
-        wi, kv = vtree.query_nearest(pts[vi], max_distance=tol, all_matches=False)
-        feet[wi] = tv[kv]
-        go = off.copy()
-        go[wi] = np.hypot(*(tv[kv] - coords[vi[wi]]).T) > eps
-        coords[vi[go]] = feet[go]
-    moved = shapely.linestrings(coords, indices=vpart) if len(coords) else parts
-    # 2. target vertices within tol of a segment of a moved part, off its vertices: inserted in order along the part
-    tpts = shapely.points(tv)
-    pi, bi = shapely.STRtree(moved).query(tpts, predicate="dwithin", distance=tol)
-    if len(pi):
-        b, p = tpts[pi], moved[bi]
-        verts = shapely.multipoints(coords, indices=vpart)
-        loc = shapely.line_locate_point(p, b)
-        length = shapely.length(p)
-        on = shapely.distance(b, p)
-        ok = (loc > eps) & (loc < length - eps) & (shapely.distance(b, verts[bi]) > on + eps)
-        ok &= shapely.dwithin(b, parts[bi], tol)  # within tol of the original trace as well
-        pi, bi, loc = pi[ok], bi[ok], loc[ok]
-        if len(pi):
-            seglen = np.hypot(*np.diff(coords, axis=0).T)
-            seglen[np.diff(vpart) != 0] = 0.0
-            along = np.r_[0.0, np.cumsum(seglen)]
-            start = np.r_[0, np.flatnonzero(np.diff(vpart)) + 1]
-            along -= np.repeat(along[start], np.diff(np.r_[start, len(vpart)]))
-            all_xy = np.vstack([coords, tv[pi]])
-            all_part = np.r_[vpart, bi]
-            all_at = np.r_[along, loc]
-            order = np.lexsort((all_at, all_part))
-            all_xy, all_part = all_xy[order], all_part[order]
-            moved = shapely.linestrings(all_xy, indices=all_part)
-    moved = shapely.remove_repeated_points(moved, 0.0)
+    vtree = shapely.STRtree(shapely.points(tv))
+    # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
+    moved = parts.copy()
+    active = np.arange(len(parts))
+    for _ in range(MAX_ROUNDS):
+        if not len(active):
+            break
+        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree)
+        diff = ~shapely.equals_exact(moved[active], again, tolerance=eps)
+        moved[active] = again
+        active = active[diff]
     # 3. back to features; unchanged lines keep their own geometry (no rewrite within noise)
     order = np.argsort(owner, kind="stable")
     feats = np.unique(owner)
@@ -157,6 +129,49 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Sn
         shift[ok_f] = h[~too_far]
         changed[ok_f] = True
     return Snapped(out, shift, changed, held)
+
+
+MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
+
+
+def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
+                vtree: shapely.STRtree) -> np.ndarray:
+    """One round of :func:`snap_to_boundaries` on LineString parts."""
+    coords, vpart = shapely.get_coordinates(parts, return_index=True)
+    coords = coords.copy()
+    # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
+    pts = shapely.points(coords)
+    vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
+    d = shapely.distance(pts[vi], targets[ti])
+    if len(vi):
+        # onto the nearest target vertex within tol (even from a point already on a target: a junction) ...
+        wi, kv = vtree.query_nearest(pts[vi], max_distance=tol, all_matches=False)
+        at_vertex = np.zeros(len(vi), dtype=bool)
+        at_vertex[wi] = True
+        go = np.zeros(len(vi), dtype=bool)
+        go[wi] = np.hypot(*(tv[kv] - coords[vi[wi]]).T) > eps
+        feet = np.zeros((len(vi), 2))
+        feet[wi] = tv[kv]
+        # ... else onto the nearest point of the target, unless that point lies within tol of a target vertex (the
+        # vertex is farther than tol from the original, and moving there later would break the bound): left as it is
+        rest = np.flatnonzero(~at_vertex & (d > eps))
+        if len(rest):
+            foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[vi[rest]], targets[ti[rest]]), 1))
+            near_v = np.zeros(len(rest), dtype=bool)
+            near_v[np.unique(vtree.query(shapely.points(foot), predicate="dwithin", distance=tol)[0])] = True
+            feet[rest] = foot
+            go[rest[~near_v]] = True
+        original = coords.copy()
+        coords[vi[go]] = feet[go]
+        # a part whose vertices would all fall on one point (shorter than tol) keeps its own
+        first = np.r_[0, np.flatnonzero(np.diff(vpart)) + 1]
+        same = (coords == coords[np.repeat(first, np.diff(np.r_[first, len(vpart)]))]).all(axis=1)
+        collapsed = np.bincount(vpart, weights=~same, minlength=len(parts)) == 0
+        if collapsed.any():
+            back = collapsed[vpart]
+            coords[back] = original[back]
+    moved = shapely.linestrings(coords, indices=vpart) if len(coords) else parts
+    return shapely.remove_repeated_points(moved, 0.0)
 
 
 # ---------------------------------------------------------------- near-miss ends
@@ -242,10 +257,15 @@ def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact"
         crossing = shapely.intersection(line, other[k])
         how, dist, new = "", 0.0, None
         if not shapely.is_empty(crossing):
-            along = shapely.line_locate_point(line, shapely.points(shapely.get_coordinates(crossing)))
-            free = float(along.min()) if at_start[k] else float(length - along.max())
+            cross_xy = shapely.get_coordinates(crossing)
+            along = shapely.line_locate_point(line, shapely.points(cross_xy))
+            j = int(np.argmin(along)) if at_start[k] else int(np.argmax(along))
+            free = float(along[j]) if at_start[k] else float(length - along[j])
             if eps < free <= tol * ABOVE and free < length - eps:
                 new = substring(line, free, length) if at_start[k] else substring(line, 0, length - free)
+                xy = shapely.get_coordinates(new).copy()
+                xy[0 if at_start[k] else -1] = cross_xy[j]  # exactly the crossing GEOS computed
+                new = shapely.linestrings(xy)
                 how, dist = "trimmed", free
         if new is None:
             xy = shapely.get_coordinates(line).copy()
@@ -276,9 +296,9 @@ def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarr
     (:func:`archivist.analysis.nearness.undrawn_boundaries`): each stops
     about ``tol`` short of the line drawn next to it, where the tolerance
     buffer around that line begins. An end within ``tol`` of a drawn line is
-    joined to the nearest point of that line (an extra vertex, at most
-    ``tol`` away), so the new line and the old one meet; the other vertices
-    are those of the boundary itself.
+    moved onto the nearest point of that line (at most ``tol``), so the new
+    line and the old one meet; the other vertices are those of the boundary
+    itself.
     """
     pieces = np.asarray(pieces, dtype=object)
     if not len(pieces):
@@ -296,15 +316,9 @@ def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarr
     pts = shapely.points(xy[ends])
     ei, li = tree.query_nearest(pts, max_distance=tol * 1.01 + eps, all_matches=False)
     foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[ei], lines[li]), 1))
-    far = np.hypot(*(foot - xy[ends[ei]]).T) > eps
-    ei, foot = ei[far], foot[far]
-    head = ei < len(start)
-    add_xy = np.vstack([xy, foot[head], foot[~head]])
-    add_idx = np.r_[idx, idx[ends[ei[head]]], idx[ends[ei[~head]]]]
-    # order: a joined start before the piece's vertices, a joined end after them
-    rank = np.r_[np.arange(len(idx)) + 1, np.zeros(int(head.sum())), np.full(int((~head).sum()), len(idx) + 1)]
-    o = np.lexsort((rank, add_idx))
-    return shapely.linestrings(add_xy[o], indices=add_idx[o])
+    xy = xy.copy()
+    xy[ends[ei]] = foot
+    return shapely.remove_repeated_points(shapely.linestrings(xy, indices=idx), 0.0)
 
 
 # ---------------------------------------------------------------- the working state as the analyses read it
@@ -362,8 +376,8 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     Every vertex of a contact within the snapping distance of a unit polygon
     boundary goes onto it: onto the boundary's nearest vertex within that
     distance (so line and polygon share it exactly), else onto the nearest
-    point of the boundary; boundary vertices within that distance of the
-    contact are added to it, so it follows the boundary's bends. Map-boundary
+    point of the boundary (no vertex is added: see
+    :func:`snap_to_boundaries`). Map-boundary
     lines are snapped the same way onto the map edge (the extent layer's
     outline, else the outer boundary of the units). The snapping distance is
     ``[checks] tolerance`` (our own choice: the distance ``check`` already
@@ -554,7 +568,8 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
         add[state.certainty_field] = certainty
     import geopandas as gpd
 
-    added = gpd.GeoDataFrame(add, geometry=new, crs=frame.crs).rename_geometry(frame.geometry.name)
+    add[frame.geometry.name] = new
+    added = gpd.GeoDataFrame(add, geometry=frame.geometry.name, crs=frame.crs)
     state.lines = _append(frame, added)
     return changes, []
 
