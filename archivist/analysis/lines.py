@@ -34,6 +34,7 @@ from .arrays import (
     canonical,
     collections_as,
     coord_hash,
+    group_sorted,
     linear_parts,
     text_values,
 )
@@ -78,6 +79,11 @@ def parse_kind(text: Any, kinds: Iterable[str], certainties: Iterable[str]) -> t
         if t.startswith(q + " ") and t[len(q) + 1:] in vocab:
             return vocab[t[len(q) + 1:]], quals[q]
     return None
+
+
+def kind_for(kinds: Iterable[str], role: str, fallback: str) -> str:
+    """The first of ``kinds`` the checks read as ``role`` (a frame kind, a contact kind), else ``fallback``."""
+    return next((k for k in kinds if kind_role(k) == role), fallback)
 
 
 def kind_role(kind: str) -> str:
@@ -253,3 +259,63 @@ def build_line_network(project: MapProject) -> LineNetwork:
         numbers = np.asarray(layer.frame.index.astype(str), dtype=object)[rows]
     return LineNetwork(rows, geoms, ids, code, texts, parsed, roles, coords, part_off, part_feat, c0, seg_part, h, px, py, qx, qy,
                        numbers)
+
+
+@dataclass(frozen=True)
+class LooseEnds:
+    """Ends of lines that share no vertex with any other line, and whether another line is within the tolerance.
+
+    Arrays run over the ends: ``coord`` (index into ``LineNetwork.coords``),
+    ``part``, ``feat`` (its part and feature), ``at_start`` (the start of its
+    part, else its end), ``points`` (the end as a Point) and ``near_line``
+    (another feature of the network lies within the tolerance of it).
+    """
+
+    coord: np.ndarray
+    part: np.ndarray
+    feat: np.ndarray
+    at_start: np.ndarray
+    points: np.ndarray
+    near_line: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.coord)
+
+
+def loose_ends(net: LineNetwork, roles: tuple[str, ...], tol: float) -> LooseEnds:
+    """The ends of the parts of ``roles`` whose coordinates occur at no other vertex of any line.
+
+    An end that shares its coordinates exactly with another vertex (of any
+    line, its own included: a closed loop) is connected without further test;
+    for the others, ``near_line`` says whether another feature lies within
+    ``tol`` (GEOS ``dwithin`` through the network's STRtree).
+    """
+    empty = np.empty(0, dtype=np.int64)
+    sel_parts = np.flatnonzero(np.isin(net.part_roles, roles) & (np.diff(net.part_off) >= 2))
+    if not len(sel_parts):
+        return LooseEnds(empty, empty, empty, np.empty(0, dtype=bool), np.empty(0, dtype=object), np.empty(0, dtype=bool))
+    c = net.coords
+    n = len(c)
+    keep = np.ones(n, dtype=bool)
+    if n > 1:
+        keep[1:] = (c[1:, 0] != c[:-1, 0]) | (c[1:, 1] != c[:-1, 1])
+        keep[net.part_off[:-1][np.diff(net.part_off) > 0]] = True
+    kept = np.flatnonzero(keep)
+    order, gid, starts = group_sorted(coord_hash(c[kept, 0], c[kept, 1]), c[kept, 0], c[kept, 1])
+    counts = np.diff(np.r_[starts, len(order)])
+    gid_of_kept = np.empty(len(kept), dtype=np.int64)
+    gid_of_kept[order] = gid
+    pos = np.cumsum(keep) - 1
+    s, e = net.part_off[sel_parts], net.part_off[sel_parts + 1] - 1
+    ends = np.concatenate([s, e])
+    end_part = np.concatenate([sel_parts, sel_parts])
+    at_start = np.r_[np.ones(len(s), bool), np.zeros(len(e), bool)]
+    loose = counts[gid_of_kept[pos[ends]]] < 2
+    ends, end_part, at_start = ends[loose], end_part[loose], at_start[loose]
+    pts = shapely.points(c[ends]) if len(ends) else np.empty(0, dtype=object)
+    end_feat = net.part_feat[end_part]
+    near = np.zeros(len(ends), dtype=bool)
+    if len(ends):
+        pi, fj = net.tree.query(pts, predicate="dwithin", distance=max(tol, 0.0))
+        near[pi[fj != end_feat[pi]]] = True
+    return LooseEnds(ends, end_part, end_feat, at_start, pts, near)

@@ -7,10 +7,19 @@ its nearby stretch).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
 import numpy as np
 import shapely
 
+from .arrays import linear_parts, merge_by_group
+from .messages import ABOVE
 from .polygons import Units
+
+if TYPE_CHECKING:
+    from .halfedges import Edges
+    from .lines import LineNetwork
 
 
 def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
@@ -89,3 +98,57 @@ def unit_at(points: np.ndarray, units: Units) -> np.ndarray:
         pi, ui = units.tree.query(points, predicate="within")
         out[pi] = ui
     return out
+
+
+@dataclass(frozen=True)
+class Undrawn:
+    """Stretches of unit boundary that no line draws within the tolerance.
+
+    ``pieces`` are the stretches (LineStrings longer than the tolerance),
+    ``ua``/``ub`` the polygons (indices into the units) on either side
+    (``ub`` -1 along the map edge), ``stretch`` the index of each piece's
+    whole boundary in ``stretches`` (the boundary between one pair of polygons,
+    or of one polygon along the map edge, merged, before the lines were taken
+    out), and ``twin`` the mask over the edges counted as boundaries between
+    units (edges between polygons of the same unit are not).
+    """
+
+    pieces: np.ndarray
+    ua: np.ndarray
+    ub: np.ndarray
+    stretch: np.ndarray
+    stretches: np.ndarray
+    twin: np.ndarray
+
+
+def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: np.ndarray, net: LineNetwork,
+                       tol: float) -> Undrawn | None:
+    """The boundaries between units of different codes, and the map edge, that no line covers within ``tol``; None if none.
+
+    Edges drawn exactly by a line segment (``drawn``, from the network's
+    hashed segments) are out at once; the rest are merged per pair of
+    polygons and the lines within ``tol`` (GEOS buffers, :func:`uncovered`)
+    taken out of them.
+    """
+    twin = edges.twin.copy()
+    if units.codes is not None and len(units):
+        cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
+        twin &= ~((cl == cr) & (cl != ""))
+    consider = (twin | outline) & ~drawn
+    idx = np.flatnonzero(consider)
+    if not len(idx):
+        return None
+    a = np.where(edges.twin[idx], np.minimum(edges.left[idx], edges.right[idx]), np.maximum(edges.left[idx], edges.right[idx]))
+    b = np.where(edges.twin[idx], np.maximum(edges.left[idx], edges.right[idx]), -1)
+    key = a * (len(units) + 1) + (b + 1)
+    uk, inv = np.unique(key, return_inverse=True)
+    whole = merge_by_group(edges.lines(idx), inv, len(uk))
+    stretches = whole
+    if len(net.geoms):
+        stretches = uncovered(whole, net.geoms, tol, net.tree)
+    pieces, k = linear_parts(stretches, tol * ABOVE)
+    if not len(pieces):
+        return None
+    ua = (uk[k] // (len(units) + 1)).astype(np.int64)
+    ub = (uk[k] % (len(units) + 1)).astype(np.int64) - 1
+    return Undrawn(pieces, ua, ub, k, whole, twin)

@@ -282,6 +282,21 @@ def _file_frame(frame: Any, layer: Any) -> Any:
     return out
 
 
+def _write_built_units(state: RepairState, tmp: Path, manifest: dict[str, Any], crs: Any) -> None:
+    """Write the unit polygons built from the linework as a new GeoPackage layer and name it in ``[layers.units]``."""
+    import pyogrio
+
+    from .build import BUILT_UNITS
+
+    assert state.units is not None
+    frame = state.units.drop(columns=[FEATURE_ID])
+    frame.insert(0, "fid", state.units[FEATURE_ID].astype("int64").to_numpy())
+    if frame.crs is None and crs is not None:
+        frame = frame.set_crs(crs)
+    pyogrio.write_dataframe(frame, tmp / BUILT_UNITS, layer="units", driver="GPKG", promote_to_multi=True)
+    manifest.setdefault("layers", {})["units"] = {"path": BUILT_UNITS, "layer": "units", "unit_field": state.unit_field or "unit"}
+
+
 def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Path) -> Path:
     """Write the repaired copy into the folder ``tmp``; return the path of its manifest."""
     import copy
@@ -305,6 +320,8 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
         layer = project.layers["units"]
         spec = layers_out["units"]
         _write_layer(_file_frame(state.units, layer), tmp / spec["path"], spec, "units", spec, project.crs)
+    if "units" in changed and state.units is not None and "units" not in layers_out:  # built from the linework
+        _write_built_units(state, tmp, out, project.crs)
     if state.lines is not None and "lines" in project.layers and changed - {"units"}:
         combined = project.layers["lines"]
         parts = combined.parts or (combined,)

@@ -39,7 +39,6 @@ from shapely.ops import substring
 
 from ..analysis.arrays import (
     MULTILINESTRING,
-    coord_hash,
     group_sorted,
     linear_parts,
     merge_by_group,
@@ -47,12 +46,13 @@ from ..analysis.arrays import (
     text_values,
 )
 from ..analysis.halfedges import Edges
-from ..analysis.lines import LineNetwork, kind_role, norm_kind
+from ..analysis.lines import LineNetwork, kind_for, loose_ends, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
     connected_pieces,
     off_unit_boundaries,
     uncovered,
+    undrawn_boundaries,
     unit_at,
 )
 from ..analysis.polygons import Units
@@ -179,7 +179,7 @@ SYSTEMATIC_STRETCHES = 10
 
 def _kind_for(project: MapProject, role: str, fallback: str) -> str:
     """The first kind of `[checks] line_kinds` the checks read as ``role`` (a frame kind, a contact kind)."""
-    return next((k for k in project.config.line_kinds if kind_role(k) == role), fallback)
+    return kind_for(project.config.line_kinds, role, fallback)
 
 
 def _span(b: np.ndarray, geographic: bool) -> str:
@@ -237,27 +237,11 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     cov = ctx.coverage()
     outline = cov.outline
     tol = float(ctx.tolerance)
-    twin = edges.twin.copy()
-    if units.codes is not None and len(units):
-        cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
-        twin &= ~((cl == cr) & (cl != ""))
-    consider = (twin | outline) & ~ctx.edges_drawn()
-    idx = np.flatnonzero(consider)
-    if not len(idx):
+    found = undrawn_boundaries(units, edges, outline, ctx.edges_drawn(), net, tol)
+    if found is None:
         return
-    a = np.where(edges.twin[idx], np.minimum(edges.left[idx], edges.right[idx]), np.maximum(edges.left[idx], edges.right[idx]))
-    b = np.where(edges.twin[idx], np.maximum(edges.left[idx], edges.right[idx]), -1)
-    key = a * (len(units) + 1) + (b + 1)
-    uk, inv = np.unique(key, return_inverse=True)
-    stretches = merge_by_group(edges.lines(idx), inv, len(uk))
+    pieces, ua, ub, twin = found.pieces, found.ua, found.ub, found.twin
     g = ground(project, units.geoms)
-    if len(net.geoms):
-        stretches = uncovered(stretches, net.geoms, tol, net.tree)
-    pieces, k = linear_parts(stretches, tol * ABOVE)
-    if not len(pieces):
-        return
-    ua = (uk[k] // (len(units) + 1)).astype(np.int64)
-    ub = (uk[k] % (len(units) + 1)).astype(np.int64) - 1
     lengths = np.asarray(g.lengths(pieces), dtype=float)
     between = ub >= 0
     totals = {
@@ -324,11 +308,6 @@ def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, piece
     return Hit(text, layer="lines", measure=missing, geometry=geom)
 
 
-def _endpoints(net: LineNetwork, parts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Coordinate indices of the two ends of each part (start, end)."""
-    return net.part_off[parts], net.part_off[parts + 1] - 1
-
-
 @rule("line-dangle", family="linework", severity="error", needs=("lines",), partitioned=True)
 def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A contact or map-boundary line ends without touching another line.
@@ -371,36 +350,13 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     net = ctx.line_network()
     tol = float(ctx.tolerance)
     g = ground(project, net.geoms)
-    sel_parts = np.flatnonzero(np.isin(net.part_roles, ("contact", "boundary")) & (np.diff(net.part_off) >= 2))
-    if not len(sel_parts):
+    found = loose_ends(net, ("contact", "boundary"), tol)
+    if not len(found):
         return
-    # exact: an end is connected when its coordinates occur at another vertex of any line
     c = net.coords
-    n = len(c)
-    keep = np.ones(n, dtype=bool)
-    if n > 1:
-        keep[1:] = (c[1:, 0] != c[:-1, 0]) | (c[1:, 1] != c[:-1, 1])
-        keep[net.part_off[:-1][np.diff(net.part_off) > 0]] = True
-    kept = np.flatnonzero(keep)
-    order, gid, starts = group_sorted(coord_hash(c[kept, 0], c[kept, 1]), c[kept, 0], c[kept, 1])
-    counts = np.diff(np.r_[starts, len(order)])
-    gid_of_kept = np.empty(len(kept), dtype=np.int64)
-    gid_of_kept[order] = gid
-    pos = np.cumsum(keep) - 1
-    s, e = _endpoints(net, sel_parts)
-    ends = np.concatenate([s, e])
-    end_part = np.concatenate([sel_parts, sel_parts])
-    at_start = np.r_[np.ones(len(s), bool), np.zeros(len(e), bool)]
-    loose = counts[gid_of_kept[pos[ends]]] < 2
-    ends, end_part, at_start = ends[loose], end_part[loose], at_start[loose]
-    if not len(ends):
-        return
+    ends, end_part, at_start, pts, end_feat = found.coord, found.part, found.at_start, found.points, found.feat
     # within the tolerance of another line, of another part of the same line, or of the map edge
-    pts = shapely.points(c[ends])
-    end_feat = net.part_feat[end_part]
-    pi, fj = net.tree.query(pts, predicate="dwithin", distance=max(tol, 0.0))
-    connected = np.zeros(len(ends), dtype=bool)
-    connected[pi[fj != end_feat[pi]]] = True
+    connected = found.near_line.copy()
     edge = None
     if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
         cov = ctx.coverage()

@@ -1,0 +1,584 @@
+"""Repairs of the linework: lines snapped onto the unit boundaries, near-miss ends closed, undrawn boundaries drawn.
+
+Each repair reads the working copy through the same analyses ``check`` uses
+(:mod:`archivist.analysis.lines`, :mod:`archivist.analysis.nearness`) and is
+bounded by the snapping distance, ``[checks] tolerance``: no vertex moves
+farther, no line grows or shrinks by more, and whatever lies beyond it is
+left for the geologist. The geometric work is done by the pure functions
+:func:`snap_to_boundaries`, :func:`close_ends` and :func:`undrawn_lines` on
+arrays of shapely geometries; the registered repairs wrap them around the
+working state.
+
+What the line repairs do not cover: a map whose CRS is geographic (the
+tolerance is in metres there and the coordinates in degrees; the repairs
+work in map units), lines of kinds the checks read as "other" (fold traces,
+dykes: drawn freely, never moved), faults (they may cut through a unit, so
+nothing says they belong on a boundary), and line ends the checks already
+count as connected exactly (a shared vertex).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+import shapely
+from shapely.ops import substring
+
+from ..analysis.coverage import analyse_coverage
+from ..analysis.halfedges import build_edges
+from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
+from ..analysis.messages import ABOVE
+from ..analysis.nearness import undrawn_boundaries
+from ..analysis.polygons import read_units
+from .model import FEATURE_ID, GENERATED_FIELD, SOURCE_LAYER, Change, Left
+from .registry import repair
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+    from ..project import MapProject
+    from .model import RepairSettings, RepairState
+
+
+def noise(geoms: Any) -> float:
+    """Floating-point noise of coordinates as large as those of ``geoms``: closer than this is "on" (our own choice)."""
+    b = shapely.total_bounds(np.asarray(geoms, dtype=object)) if len(np.atleast_1d(geoms)) else np.zeros(4)
+    b = np.nan_to_num(b)
+    return 1e-9 * max(float(np.abs(b).max()), 1.0)
+
+
+# ---------------------------------------------------------------- snapping onto the boundaries
+
+@dataclass(frozen=True)
+class Snapped:
+    """What :func:`snap_to_boundaries` did: the lines after, how far each moved, which changed, which were held back."""
+
+    geoms: np.ndarray
+    shift: np.ndarray  # per line: Hausdorff distance between before and after (0 when unchanged)
+    changed: np.ndarray  # per line: bool
+    held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
+
+
+def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Snapped:
+    """Lines with every vertex within ``tol`` of the ``targets`` (lineal geometries) moved onto them.
+
+    A vertex farther than ``tol`` from every target never moves. A vertex
+    within ``tol`` of a target vertex goes to the nearest one (so the line
+    shares it exactly, as GEOS ``snap`` does); another vertex within ``tol``
+    of a target goes to the nearest point of the nearest target, unless that
+    point lies within ``tol`` of a target vertex (then it stays: moving on to
+    the vertex would take it farther than ``tol``, and stopping short would
+    not be stable under a second run).
+    No vertex is added: where the boundary bends between two vertices of
+    the line, the line keeps its chord (``check`` counts it on the boundary
+    while it stays within the tolerance). Adding the boundary's vertices
+    within ``tol`` of the line was tried and left out: each one added can
+    bring the next within reach, so a second run would change the line again,
+    and a chain of them can walk away from the drawn line. A line whose result
+    would lie farther than ``tol`` from where it was drawn (GEOS Hausdorff
+    distance) is held back unchanged. The step is repeated until nothing
+    moves, so the result snapped again is the same. Works on whole arrays
+    (STRtree queries), no loop per line.
+    """
+    lines = np.asarray(lines, dtype=object)
+    n = len(lines)
+    out = lines.copy()
+    shift = np.zeros(n)
+    changed = np.zeros(n, dtype=bool)
+    held = np.zeros(n, dtype=bool)
+    targets = np.asarray(targets, dtype=object)
+    targets = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
+    have = np.flatnonzero(~shapely.is_missing(lines) & ~shapely.is_empty(lines))
+    if not len(have) or not len(targets) or tol <= 0:
+        return Snapped(out, shift, changed, held)
+    eps = noise(np.concatenate([lines[have], targets]))
+    parts, owner = shapely.get_parts(lines[have], return_index=True)
+    owner = have[owner]
+    ttree = shapely.STRtree(targets)
+    tv = np.unique(shapely.get_coordinates(targets), axis=0)
+    vtree = shapely.STRtree(shapely.points(tv))
+    # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
+    moved = parts.copy()
+    active = np.arange(len(parts))
+    for _ in range(MAX_ROUNDS):
+        if not len(active):
+            break
+        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree)
+        diff = ~shapely.equals_exact(moved[active], again, tolerance=eps)
+        moved[active] = again
+        active = active[diff]
+    # 3. back to features; unchanged lines keep their own geometry (no rewrite within noise)
+    order = np.argsort(owner, kind="stable")
+    feats = np.unique(owner)
+    single = shapely.get_type_id(lines[feats]) == shapely.GeometryType.LINESTRING.value
+    rebuilt = np.full(len(feats), None, dtype=object)
+    shapely.multilinestrings(moved[order], indices=np.searchsorted(feats, owner[order]), out=rebuilt)
+    rebuilt[single] = shapely.get_geometry(rebuilt[single], 0)
+    before = lines[feats]
+    same = shapely.equals_exact(before, rebuilt, tolerance=eps)
+    feats, rebuilt, before = feats[~same], rebuilt[~same], before[~same]
+    if len(feats):
+        h = shapely.hausdorff_distance(before, rebuilt)
+        too_far = h > tol * ABOVE
+        held[feats[too_far]] = True
+        ok_f = feats[~too_far]
+        out[ok_f] = rebuilt[~too_far]
+        shift[ok_f] = h[~too_far]
+        changed[ok_f] = True
+    return Snapped(out, shift, changed, held)
+
+
+MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
+
+
+def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
+                vtree: shapely.STRtree) -> np.ndarray:
+    """One round of :func:`snap_to_boundaries` on LineString parts."""
+    coords, vpart = shapely.get_coordinates(parts, return_index=True)
+    coords = coords.copy()
+    # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
+    pts = shapely.points(coords)
+    vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
+    d = shapely.distance(pts[vi], targets[ti])
+    if len(vi):
+        # onto the nearest target vertex within tol (even from a point already on a target: a junction) ...
+        wi, kv = vtree.query_nearest(pts[vi], max_distance=tol, all_matches=False)
+        at_vertex = np.zeros(len(vi), dtype=bool)
+        at_vertex[wi] = True
+        go = np.zeros(len(vi), dtype=bool)
+        go[wi] = np.hypot(*(tv[kv] - coords[vi[wi]]).T) > eps
+        feet = np.zeros((len(vi), 2))
+        feet[wi] = tv[kv]
+        # ... else onto the nearest point of the target, unless that point lies within tol of a target vertex (the
+        # vertex is farther than tol from the original, and moving there later would break the bound): left as it is
+        rest = np.flatnonzero(~at_vertex & (d > eps))
+        if len(rest):
+            foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[vi[rest]], targets[ti[rest]]), 1))
+            near_v = np.zeros(len(rest), dtype=bool)
+            near_v[np.unique(vtree.query(shapely.points(foot), predicate="dwithin", distance=tol)[0])] = True
+            feet[rest] = foot
+            go[rest[~near_v]] = True
+        original = coords.copy()
+        coords[vi[go]] = feet[go]
+        # a part whose vertices would all fall on one point (shorter than tol) keeps its own
+        first = np.r_[0, np.flatnonzero(np.diff(vpart)) + 1]
+        same = (coords == coords[np.repeat(first, np.diff(np.r_[first, len(vpart)]))]).all(axis=1)
+        collapsed = np.bincount(vpart, weights=~same, minlength=len(parts)) == 0
+        if collapsed.any():
+            back = collapsed[vpart]
+            coords[back] = original[back]
+    moved = shapely.linestrings(coords, indices=vpart) if len(coords) else parts
+    return shapely.remove_repeated_points(moved, 0.0)
+
+
+# ---------------------------------------------------------------- near-miss ends
+
+@dataclass(frozen=True)
+class EndFix:
+    """One line end closed onto the line it nearly meets."""
+
+    feat: int  # feature index in the network
+    other: int  # the feature it now meets
+    how: str  # "extended", "moved" or "trimmed"
+    distance: float  # how far the end moved (extended or trimmed length, or the move)
+
+
+def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact", "boundary")) -> tuple[np.ndarray, list[EndFix]]:
+    """The network's features with the loose ends within ``tol`` of another line closed onto it.
+
+    The ends are those ``line-dangle`` reads (:func:`archivist.analysis.lines.loose_ends`):
+    ends of contacts and map-boundary lines that share no vertex with another
+    line. An end within ``tol`` of another feature (and not already on it,
+    within floating-point noise) is closed onto the nearest such feature:
+
+    - overshoot: the line crosses or touches that feature no farther than
+      ``tol`` from the end: it is trimmed back to the crossing point;
+    - undershoot: its last segment, extended by at most ``tol``, meets that
+      feature: the end is moved along the segment to the meeting point;
+    - otherwise the end vertex is moved onto the nearest point of that
+      feature (at most ``tol`` away).
+
+    Returns the features' geometries (the network's ``geoms`` with the
+    closed ones replaced) and one :class:`EndFix` per end closed. Ends
+    farther than ``tol`` from every line are never touched.
+    """
+    out = np.array(net.geoms, dtype=object, copy=True)
+    ends = loose_ends(net, roles, tol)
+    cand = np.flatnonzero(ends.near_line)
+    if not len(cand) or tol <= 0:
+        return out, []
+    eps = noise(net.geoms)
+    pts = ends.points[cand]
+    pi, fj = net.tree.query(pts, predicate="dwithin", distance=tol)
+    keep = fj != ends.feat[cand][pi]
+    pi, fj = pi[keep], fj[keep]
+    d = shapely.distance(pts[pi], net.geoms[fj])
+    o = np.lexsort((fj, d, pi))
+    pi, fj, d = pi[o], fj[o], d[o]
+    first = np.r_[True, pi[1:] != pi[:-1]]
+    pi, fj, d = pi[first], fj[first], d[first]
+    sel = d > eps
+    pi, fj, d = pi[sel], fj[sel], d[sel]
+    if not len(pi):
+        return out, []
+    e = cand[pi]
+    coord, part, at_start = ends.coord[e], ends.part[e], ends.at_start[e]
+    c = net.coords
+    other = net.geoms[fj]
+    # undershoot: the ray along the last segment, at most tol long
+    inner = np.where(at_start, coord + 1, coord - 1)
+    tip, back = c[coord], c[inner]
+    v = tip - back
+    vlen = np.hypot(v[:, 0], v[:, 1])
+    unit = v / np.where(vlen > 0, vlen, 1.0)[:, None]
+    reach = tip + unit * (tol * ABOVE)
+    rays = shapely.linestrings(np.stack([tip, reach], axis=1))
+    hit_geom = shapely.intersection(rays, other)
+    hit_pts, hk = shapely.get_parts(shapely.extract_unique_points(hit_geom), return_index=True)
+    hit_xy = np.full((len(pi), 2), np.nan)
+    if len(hk):
+        hd = shapely.distance(hit_pts, shapely.points(tip[hk]))
+        o = np.lexsort((hd, hk))
+        hk, hit_pts, hd = hk[o], hit_pts[o], hd[o]
+        f1 = np.r_[True, hk[1:] != hk[:-1]]
+        good = f1 & (hd > eps) & (vlen[hk] > 0)
+        hit_xy[hk[good]] = shapely.get_coordinates(hit_pts[good])
+    foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(shapely.points(tip), other), 1))
+    fixes: list[EndFix] = []
+    parts: dict[int, Any] = {}
+    # per end closed (defects, not features): trim, extend or move
+    for k in range(len(pi)):
+        p = int(part[k])
+        line = parts.get(p) or net.part(p)
+        length = float(line.length)
+        crossing = shapely.intersection(line, other[k])
+        how, dist, new = "", 0.0, None
+        if not shapely.is_empty(crossing):
+            cross_xy = shapely.get_coordinates(crossing)
+            along = shapely.line_locate_point(line, shapely.points(cross_xy))
+            j = int(np.argmin(along)) if at_start[k] else int(np.argmax(along))
+            free = float(along[j]) if at_start[k] else float(length - along[j])
+            if eps < free <= tol * ABOVE and free < length - eps:
+                new = substring(line, free, length) if at_start[k] else substring(line, 0, length - free)
+                xy = shapely.get_coordinates(new).copy()
+                xy[0 if at_start[k] else -1] = cross_xy[j]  # exactly the crossing GEOS computed
+                new = shapely.linestrings(xy)
+                how, dist = "trimmed", free
+        if new is None:
+            xy = shapely.get_coordinates(line).copy()
+            i = 0 if at_start[k] else len(xy) - 1
+            target = hit_xy[k] if not np.isnan(hit_xy[k, 0]) else foot[k]
+            how = "extended" if not np.isnan(hit_xy[k, 0]) else "moved"
+            dist = float(np.hypot(*(target - xy[i])))
+            if dist > tol * ABOVE:
+                continue
+            xy[i] = target
+            new = shapely.linestrings(xy)
+        parts[p] = new
+        fixes.append(EndFix(int(net.part_feat[p]), int(fj[k]), how, dist))
+    for f in sorted({fx.feat for fx in fixes}):
+        first_p, last_p = np.searchsorted(net.part_feat, [f, f + 1])
+        own = [parts.get(q) or net.part(q) for q in range(first_p, last_p)]
+        multi = shapely.get_type_id(net.geoms[f]) == shapely.GeometryType.MULTILINESTRING.value
+        out[f] = shapely.multilinestrings(own) if multi or len(own) > 1 else own[0]
+    return out, fixes
+
+
+# ---------------------------------------------------------------- boundaries with no line
+
+def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarray:
+    """Stretches of boundary no line draws, as lines that meet the drawn lines exactly.
+
+    ``pieces`` are the stretches ``boundary-without-line`` reports
+    (:func:`archivist.analysis.nearness.undrawn_boundaries`): each stops
+    about ``tol`` short of the line drawn next to it, where the tolerance
+    buffer around that line begins. An end within ``tol`` of a drawn line is
+    moved onto the nearest point of that line (at most ``tol``), so the new
+    line and the old one meet; the other vertices are those of the boundary
+    itself.
+    """
+    pieces = np.asarray(pieces, dtype=object)
+    if not len(pieces):
+        return pieces.copy()
+    lines = np.asarray(lines, dtype=object)
+    lines = lines[~shapely.is_missing(lines)]
+    xy, idx = shapely.get_coordinates(pieces, return_index=True)
+    if not len(lines):
+        return pieces.copy()
+    eps = noise(np.concatenate([pieces, lines]))
+    tree = shapely.STRtree(lines)
+    start = np.r_[0, np.flatnonzero(np.diff(idx)) + 1]
+    stop = np.r_[start[1:], len(idx)] - 1
+    ends = np.r_[start, stop]
+    pts = shapely.points(xy[ends])
+    ei, li = tree.query_nearest(pts, max_distance=tol * 1.01 + eps, all_matches=False)
+    foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[ei], lines[li]), 1))
+    xy = xy.copy()
+    xy[ends[ei]] = foot
+    return shapely.remove_repeated_points(shapely.linestrings(xy, indices=idx), 0.0)
+
+
+# ---------------------------------------------------------------- the working state as the analyses read it
+
+def working_project(state: RepairState) -> MapProject:
+    """The project with its units and lines replaced by the working copies (ids from ``FEATURE_ID``)."""
+    project = state.project
+    layers = dict(project.layers)
+    if state.units is not None and "units" in layers:
+        u = layers["units"]
+        layers["units"] = replace(u, frame=state.units, ids=state.units[FEATURE_ID].astype(str).to_numpy(dtype=object),
+                                  spec={**u.spec, "unit_field": state.unit_field, "id_field": None})
+    if state.lines is not None and "lines" in layers:
+        ln = layers["lines"]
+        spec = {"kind_field": state.kind_field}
+        if state.certainty_field:
+            spec["certainty_field"] = state.certainty_field
+        layers["lines"] = replace(ln, frame=state.lines, ids=state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object),
+                                  spec=spec, parts=(), origin={})
+    return replace(project, layers=layers)
+
+
+def _line_change(repair_name: str, state: RepairState, rows: np.ndarray, before: np.ndarray, after: np.ndarray,
+                 shifts: np.ndarray, notes: list[str]) -> list[Change]:
+    ids = state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object) if state.lines is not None else np.empty(0, dtype=object)
+    layers = _source_layers(state)
+    return [
+        Change(repair_name, str(layers[r]), (str(ids[r]),), (str(ids[r]),), (), 0.0, float(s), b, a, note)
+        for r, b, a, s, note in zip(rows.tolist(), before, after, shifts.tolist(), notes)
+    ]
+
+
+def _source_layers(state: RepairState) -> np.ndarray:
+    frame = state.lines
+    if frame is None:
+        return np.empty(0, dtype=object)
+    if SOURCE_LAYER in frame.columns:
+        return frame[SOURCE_LAYER].astype(str).to_numpy(dtype=object)
+    return np.full(len(frame), "lines", dtype=object)
+
+
+def _set_geoms(state: RepairState, rows: np.ndarray, geoms: np.ndarray) -> None:
+    assert state.lines is not None
+    col = state.lines.geometry.name
+    values = np.asarray(state.lines.geometry.array, dtype=object).copy()
+    values[rows] = geoms
+    state.lines[col] = values
+    state.lines.set_geometry(col, inplace=True)
+
+
+@repair("snap-lines", order=60, default=True, layer="lines")
+def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Contacts snapped onto the unit boundaries, map-boundary lines onto the map edge.
+
+    Every vertex of a contact within the snapping distance of a unit polygon
+    boundary goes onto it: onto the boundary's nearest vertex within that
+    distance (so line and polygon share it exactly), else onto the nearest
+    point of the boundary (no vertex is added: see
+    :func:`snap_to_boundaries`). Map-boundary
+    lines are snapped the same way onto the map edge (the extent layer's
+    outline, else the outer boundary of the units). The snapping distance is
+    ``[checks] tolerance`` (our own choice: the distance ``check`` already
+    counts as "on the boundary"). A vertex farther than that never moves; a
+    line that would end up farther than that from where it was drawn is left
+    and listed. Never moves faults or other kinds, never moves a polygon, and
+    never decides which of line and polygon is right beyond the tolerance:
+    ``line-off-boundary`` still reports those.
+    """
+    if state.lines is None or state.units is None or not len(state.lines) or not len(state.units):
+        return [], []
+    tol = float(settings.tolerance)
+    project = working_project(state)
+    net = build_line_network(project)
+    units = read_units(project)
+    if not len(net.geoms) or not len(units):
+        return [], []
+    boundaries = shapely.boundary(units.geoms)
+    changes: list[Change] = []
+    left: list[Left] = []
+    edges = build_edges(units.geoms)
+    cov = analyse_coverage(project, units, edges, tol)
+    for role, targets in (("contact", boundaries),
+                          ("boundary", np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object))):
+        feats = np.flatnonzero(net.roles == role)
+        if not len(feats) or not len(targets):
+            continue
+        found = snap_to_boundaries(net.geoms[feats], targets, tol)
+        done = np.flatnonzero(found.changed)
+        rows = net.rows[feats[done]]
+        if len(done):
+            before = net.geoms[feats[done]]
+            _set_geoms(state, rows, found.geoms[done])
+            onto = "unit boundaries" if role == "contact" else "map edge"
+            notes = [f"vertices within {tol:g} of the {onto} moved onto it"] * len(done)
+            changes += _line_change("snap-lines", state, rows, before, found.geoms[done], found.shift[done], notes)
+        ids = _ids(state)
+        layers = _source_layers(state)
+        for f in feats[np.flatnonzero(found.held)]:
+            r = int(net.rows[f])
+            left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
+                             f"snapping it onto the boundary would move it more than the tolerance ({tol:g}) from where it was drawn",
+                             net.geoms[f], 0.0))
+    return changes, left
+
+
+def _ids(state: RepairState) -> np.ndarray:
+    return state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object) if state.lines is not None else np.empty(0, dtype=object)
+
+
+@repair("close-dangles", order=70, default=True, layer="lines")
+def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Ends of contacts and map-boundary lines that nearly meet another line closed onto it.
+
+    An end that shares no vertex with another line but lies within the
+    snapping distance (``[checks] tolerance``) of one is closed: an
+    overshoot is trimmed back to the line it crosses, an undershoot is
+    extended along its last segment to the line it nearly meets, or, when
+    that segment points past it, its end vertex is moved onto the nearest
+    point of that line. Ends are found as ``line-dangle`` finds them. The
+    distance is our own choice: what ``check`` already counts as connected,
+    now made exact, so that polygons can be built from the lines. Ends
+    farther than that are left and listed (``line-dangle`` reports them):
+    whether a line stops short, runs on, or is a fault dying out is the
+    geologist's call. Faults and other kinds are never changed.
+    """
+    if state.lines is None or not len(state.lines):
+        return [], []
+    tol = float(settings.tolerance)
+    project = working_project(state)
+    net = build_line_network(project)
+    if not len(net.geoms):
+        return [], []
+    geoms, fixes = close_ends(net, tol)
+    changes: list[Change] = []
+    if fixes:
+        feats = np.array(sorted({fx.feat for fx in fixes}), dtype=np.int64)
+        rows = net.rows[feats]
+        before = net.geoms[feats]
+        after = geoms[feats]
+        _set_geoms(state, rows, after)
+        ids = _ids(state)
+        notes = []
+        shifts = np.zeros(len(feats))
+        for k, f in enumerate(feats.tolist()):
+            mine = [fx for fx in fixes if fx.feat == f]
+            shifts[k] = max(fx.distance for fx in mine)
+            notes.append("; ".join(f"end {fx.how} {fx.distance:.3g} to meet line {ids[net.rows[fx.other]]}" for fx in mine))
+        changes = _line_change("close-dangles", state, rows, before, after, shifts, notes)
+    # the free ends beyond the tolerance: listed, not guessed
+    after_net = build_line_network(working_project(state))
+    rest = loose_ends(after_net, ("contact", "boundary"), tol)
+    left: list[Left] = []
+    far = ~rest.near_line
+    units = read_units(project) if state.units is not None and len(state.units) else None
+    if units is not None and len(units) and far.any():
+        cov = analyse_coverage(project, units, build_edges(units.geoms), tol)
+        if cov.extent is not None:  # an end at the map edge is connected (line-dangle reads it so)
+            far &= ~shapely.dwithin(rest.points, cov.extent_boundary, tol)
+    if far.any():
+        ids, layers = _ids(state), _source_layers(state)
+        for k in np.flatnonzero(far).tolist():
+            r = int(after_net.rows[int(rest.feat[k])])
+            left.append(Left("close-dangles", str(layers[r]), (str(ids[r]),),
+                             f"an end of it touches no line within the tolerance ({tol:g}); extending, trimming or leaving it is "
+                             "the geologist's call", rest.points[k], 0.0))
+    return changes, left
+
+
+def _line_target(state: RepairState, role: str) -> str:
+    """The mapper's own line layer a generated line of ``role`` is written to."""
+    lines = state.project.layers.get("lines")
+    if lines is None or not lines.parts:
+        return "lines"
+    fixed = [p.role for p in lines.parts if p.spec.get("kind") is not None and kind_role(str(p.spec["kind"])) == role]
+    if fixed:
+        return fixed[0]
+    free = [p.role for p in lines.parts if p.spec.get("kind_field")]
+    return free[0] if free else lines.parts[0].role
+
+
+@repair("draw-missing-lines", order=80, default=True, layer="lines")
+def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
+    """Boundaries that no line draws given a line: a contact between units, the frame kind along the map edge.
+
+    The stretches are those ``boundary-without-line`` reports (boundaries
+    between polygons of different units, and the units' edge along the map
+    edge, with no line within the tolerance), each drawn as a new line
+    through the boundary's own vertices, joined to the lines drawn next to it
+    (an extra vertex at most the tolerance away). A line between units gets
+    the first contact kind of ``[checks] line_kinds``, one along the map edge
+    the first map-boundary kind; its certainty is ``[repair]
+    generated_certainty`` (default "inferred": nobody saw the contact, it was
+    drawn from the polygons), written in the certainty field, or into the
+    kind as "contact, inferred" when the lines have no certainty field; and
+    the field ``generated`` is true on it (false on every other line). Never
+    decides that a boundary is a fault rather than a contact: a mapper who
+    knows it is changes the kind.
+    """
+    if state.lines is None or state.units is None or not len(state.units):
+        return [], []
+    tol = float(settings.tolerance)
+    project = working_project(state)
+    net = build_line_network(project)
+    units = read_units(project)
+    if not len(units):
+        return [], []
+    edges = build_edges(units.geoms)
+    cov = analyse_coverage(project, units, edges, tol)
+    drawn = net.edges_drawn(net.match(edges), len(edges))
+    found = undrawn_boundaries(units, edges, cov.outline, drawn, net, tol)
+    if found is None:
+        return [], []
+    new = undrawn_lines(found.pieces, net.geoms, tol)
+    inner = found.ub >= 0
+    kinds = project.config.line_kinds
+    kind = np.where(inner, kind_for(kinds, "contact", "contact"), kind_for(kinds, "boundary", "map-boundary")).astype(object)
+    certainty = settings.generated_certainty
+    known = {str(c).strip().lower() for c in project.config.certainties}
+    frame = state.lines
+    if GENERATED_FIELD not in frame.columns:
+        frame[GENERATED_FIELD] = False
+    rows: dict[str, Any] = {FEATURE_ID: [], SOURCE_LAYER: []}
+    texts = kind.copy()
+    if not state.certainty_field and certainty and certainty.strip().lower() in known:
+        texts = np.array([f"{k}, {certainty}" if parse_kind(f"{k}, {certainty}", kinds, project.config.certainties) else k
+                          for k in kind], dtype=object)
+    changes: list[Change] = []
+    for k in range(len(new)):
+        role = "contact" if inner[k] else "boundary"
+        src = _line_target(state, role)
+        n = state.new_id("lines")
+        fid = f"{src}:{n}" if state.project.layers.get("lines") is not None and state.project.layers["lines"].parts else n
+        rows[FEATURE_ID].append(fid)
+        rows[SOURCE_LAYER].append(src)
+        u, v = int(found.ua[k]), int(found.ub[k])
+        feats = (str(units.ids[u]),) + ((str(units.ids[v]),) if v >= 0 else ())
+        codes = () if units.codes is None else (str(units.codes[u]),) + ((str(units.codes[v]),) if v >= 0 else ())
+        where = f"between polygons {' and '.join(feats)}" if v >= 0 else f"along the map edge of polygon {feats[0]}"
+        changes.append(Change("draw-missing-lines", src, (), (fid,), codes, 0.0, 0.0, None, new[k],
+                              f"{texts[k]} drawn {where}, {float(shapely.length(new[k])):.3g} long, generated"))
+    add = pd.DataFrame({FEATURE_ID: rows[FEATURE_ID], GENERATED_FIELD: True})
+    if SOURCE_LAYER in frame.columns:
+        add[SOURCE_LAYER] = rows[SOURCE_LAYER]
+    if state.kind_field:
+        add[state.kind_field] = texts
+    if state.certainty_field:
+        add[state.certainty_field] = certainty
+    import geopandas as gpd
+
+    add[frame.geometry.name] = new
+    added = gpd.GeoDataFrame(add, geometry=frame.geometry.name, crs=frame.crs)
+    state.lines = _append(frame, added)
+    return changes, []
+
+
+def _append(frame: gpd.GeoDataFrame, added: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
+    """``frame`` with the rows of ``added`` after its own (new index values past the largest)."""
+    import geopandas as gpd
+
+    start = int(pd.to_numeric(pd.Series(frame.index), errors="coerce").max()) + 1 if len(frame) else 0
+    added.index = pd.RangeIndex(start, start + len(added), name=frame.index.name)
+    out = pd.concat([frame, added], axis=0)
+    return gpd.GeoDataFrame(out, geometry=frame.geometry.name, crs=frame.crs)

@@ -1,0 +1,264 @@
+"""The line repairs: snapping onto boundaries, closing near-miss ends, drawing undrawn boundaries.
+
+Worked examples use the tiny map of tests/builders.py: two 100 m squares,
+A west of x = 100 and B east of it, at 1:10 000, where the default
+tolerance (0.1 mm at map scale) is 1 m; ``[checks] tolerance`` sets another
+where a case needs it. Distances are worked by hand beside each assertion;
+GEOS (through shapely) is the outside reference for distances, Hausdorff
+distances and intersections.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pyogrio
+import pytest
+import shapely
+from shapely.geometry import LineString, Point, box
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from builders import CRS, tiny_project  # noqa: E402
+from coverage_builders import line_frame  # noqa: E402
+
+from archivist.analysis.lines import build_line_network  # noqa: E402
+from archivist.engine import check  # noqa: E402
+from archivist.project import load_project  # noqa: E402
+from archivist.repair.api import repair  # noqa: E402
+from archivist.repair.lines import close_ends, snap_to_boundaries, undrawn_lines  # noqa: E402
+
+FRAME = LineString([(100, 0), (0, 0), (0, 100), (200, 100), (200, 0), (100, 0)])
+REPAIRED = {"line-off-boundary", "line-dangle", "boundary-without-line"}
+
+
+def project_with(tmp_path: Path, *rows, tolerance: float | None = None, units=None, name: str = "tiny", repair_keys=None) -> Path:
+    manifest: dict = {}
+    if tolerance is not None:
+        manifest["checks"] = {"tolerance": tolerance}
+    if repair_keys:
+        manifest["repair"] = repair_keys
+    return tiny_project(tmp_path, name=name, lines=line_frame(*rows), units=units, manifest=manifest or None)
+
+
+def copy_lines(out: Path) -> gpd.GeoDataFrame:
+    return pyogrio.read_dataframe(out / "map.gpkg", layer="lines", fid_as_index=True)
+
+
+def rules(project: Path) -> dict[str, int]:
+    found: dict[str, int] = {}
+    for f in check(project).findings:
+        found[f.rule] = found.get(f.rule, 0) + 1
+    return found
+
+
+def single(g):
+    """The one LineString of a (Multi)LineString as written by the repair."""
+    parts = shapely.get_parts(g)
+    assert len(parts) == 1
+    return parts[0]
+
+
+# ---------------------------------------------------------------- snapping
+
+def test_contact_0_3_m_off_its_boundary_is_snapped_onto_it(tmp_path):
+    # The contact is drawn at x = 100.3, 0.3 m east of the boundary x = 100, its ends on the frame.
+    # Tolerance 1 m: every vertex is within it. By hand: (100.3, 0) goes to the boundary vertex (100, 0),
+    # 0.3 m; (100.3, 50) to the nearest point of the boundary, (100, 50), 0.3 m; (100.3, 100) to (100, 100).
+    project = project_with(tmp_path, ("contact", LineString([(100.3, 0), (100.3, 50), (100.3, 100)])), ("map-boundary", FRAME))
+    out = tmp_path / "out"
+    result = repair(project, out, only=["snap-lines"])
+    contact = single(copy_lines(out).geometry.iloc[0])
+    assert shapely.get_coordinates(contact).tolist() == [[100, 0], [100, 50], [100, 100]]
+    (change,) = [c for c in result.changes if c.repair == "snap-lines" and c.features_before == ("1",)]
+    assert change.max_shift == pytest.approx(0.3, abs=1e-9)  # by hand: every vertex moved 0.3 m west
+    assert change.max_shift <= 1.0  # the tolerance
+    assert float(shapely.hausdorff_distance(change.before, change.after)) == pytest.approx(0.3, abs=1e-9)  # GEOS
+    # the contact now lies exactly on the polygons' common edge (GEOS): no line-off-boundary, no undrawn boundary
+    assert shapely.covers(shapely.intersection(box(0, 0, 100, 100).boundary, box(100, 0, 200, 100).boundary), contact)
+    assert not REPAIRED & set(rules(out))
+
+
+def test_vertex_farther_than_the_tolerance_never_moves():
+    # Boundary x = 100 (two squares); tolerance 1 m. (101.5, 50) is 1.5 m off: it stays.
+    # (100.6, 20) and (100.4, 80) are 0.6 m and 0.4 m off: they go onto x = 100.
+    targets = shapely.boundary(np.array([box(0, 0, 100, 100), box(100, 0, 200, 100)], dtype=object))
+    line = LineString([(100.6, 20), (101.5, 50), (100.4, 80)])
+    done = snap_to_boundaries(np.array([line], dtype=object), targets, 1.0)
+    xy = shapely.get_coordinates(done.geoms[0]).tolist()
+    assert xy == [[100, 20], [101.5, 50], [100, 80]]
+    assert done.shift[0] == pytest.approx(0.6)  # GEOS Hausdorff distance: the farthest vertex moved 0.6 m
+    assert not done.held[0]
+
+
+def test_no_vertex_moves_more_than_the_tolerance():
+    # A wavy boundary and a noisy copy of it (deterministic noise up to 0.9 m, and a stretch 2.5 m off;
+    # tolerance 1 m). Each vertex of the drawn line has one of the result within the tolerance (GEOS distance);
+    # those farther than the tolerance from the boundary are there unmoved; all others now lie on the boundary.
+    tol = 1.0
+    x = np.linspace(0, 500, 101)
+    boundary = LineString(np.c_[x, 20 * np.sin(x / 40)])
+    for seed in range(5):
+        rng = np.random.default_rng(seed)
+        xs = np.sort(rng.uniform(1, 499, 60))
+        off = rng.uniform(-0.9, 0.9, len(xs))
+        off[20:24] = 2.5
+        drawn = np.c_[xs, 20 * np.sin(xs / 40) + off]
+        line = LineString(drawn)
+        done = snap_to_boundaries(np.array([line], dtype=object), np.array([boundary], dtype=object), tol)
+        assert done.changed[0] and not done.held[0]
+        after = shapely.get_coordinates(done.geoms[0])
+        assert len(after) <= len(drawn)  # no vertex added (two snapped onto one boundary vertex become one)
+        nearest = shapely.distance(shapely.points(drawn), shapely.multipoints(after))
+        d = shapely.distance(shapely.points(drawn), boundary)
+        assert (nearest <= tol).all()
+        assert (nearest[d > tol] == 0).all() and (d > tol).sum() >= 4
+        # the others are on the boundary, or (where the nearest point of the boundary lies within the tolerance of a
+        # boundary vertex that is itself farther than the tolerance) left where they were
+        kept = np.array([tuple(p) in set(map(tuple, drawn)) for p in after])
+        on = shapely.distance(shapely.points(after), boundary) < 1e-9
+        assert (on | kept).all() and on.sum() > len(after) / 2
+        assert done.shift[0] == pytest.approx(float(shapely.hausdorff_distance(line, done.geoms[0])))  # GEOS
+        assert done.shift[0] <= tol
+        # idempotent: the result snapped again is the same
+        again = snap_to_boundaries(np.array([done.geoms[0]], dtype=object), np.array([boundary], dtype=object), tol)
+        assert not again.changed[0]
+
+
+# ---------------------------------------------------------------- near-miss ends
+
+def test_dangle_0_4_m_short_is_closed_exactly_on_the_other_line(tmp_path):
+    # Tolerance 0.5 m. The contact stops at (100, 99.6), 0.4 m short of the frame's top edge y = 100, which
+    # has no vertex at x = 100 here. By hand: extended along its last segment (due north) by 0.4 m to (100, 100).
+    frame = LineString([(0, 0), (0, 100), (200, 100), (200, 0), (0, 0)])
+    project = project_with(tmp_path, ("contact", LineString([(100, 0), (100, 99.6)])), ("map-boundary", frame), tolerance=0.5)
+    net = build_line_network(load_project(project))
+    geoms, fixes = close_ends(net, 0.5)
+    (fix,) = fixes
+    assert (fix.how, fix.feat, fix.other) == ("extended", 0, 1)
+    assert fix.distance == pytest.approx(0.4)
+    end = Point(shapely.get_coordinates(geoms[0])[-1])
+    assert (end.x, end.y) == (100.0, 100.0)
+    assert shapely.intersects(end, frame)  # GEOS: the new end lies on the frame line itself
+    # the whole run: no line-dangle, nothing moved more than the tolerance
+    out = tmp_path / "out"
+    result = repair(project, out, only=["close-dangles"])
+    (change,) = result.changes
+    assert change.max_shift == pytest.approx(0.4)
+    contact = single(copy_lines(out).geometry.iloc[0])
+    assert shapely.get_coordinates(contact).tolist() == [[100, 0], [100, 100]]
+    assert "line-dangle" not in rules(out)
+
+
+def test_overshoot_within_the_tolerance_is_trimmed_back():
+    # The contact runs 0.4 m past the frame's top edge: trimmed back to (100, 100), 0.4 m removed.
+    frame = LineString([(0, 0), (0, 100), (200, 100), (200, 0), (0, 0)])
+
+    def net_of(tmp):
+        return build_line_network(load_project(project_with(tmp, ("contact", LineString([(100, 0), (100, 100.4)])),
+                                                            ("map-boundary", frame), tolerance=0.5)))
+
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        geoms, fixes = close_ends(net_of(Path(tmp)), 0.5)
+    (fix,) = fixes
+    assert fix.how == "trimmed"
+    assert fix.distance == pytest.approx(0.4)
+    assert shapely.get_coordinates(geoms[0]).tolist() == [[100, 0], [100, 100]]
+
+
+def test_dangle_beyond_the_tolerance_is_left_and_listed(tmp_path):
+    # Tolerance 0.3 m: the end 0.4 m short is a line-dangle finding, and the repair leaves it for the geologist.
+    frame = LineString([(0, 0), (0, 100), (200, 100), (200, 0), (0, 0)])
+    line = LineString([(100, 0), (100, 99.6)])
+    project = project_with(tmp_path, ("contact", line), ("map-boundary", frame), tolerance=0.3)
+    assert rules(project).get("line-dangle") == 1
+    result = repair(project, tmp_path / "out", only=["close-dangles"])
+    assert result.changes == ()
+    (left,) = result.left
+    assert (left.repair, left.features) == ("close-dangles", ("1",))
+    assert shapely.equals(single(copy_lines(tmp_path / "out").geometry.iloc[0]), line)
+    assert rules(tmp_path / "out").get("line-dangle") == 1
+
+
+def test_faults_are_never_moved(tmp_path):
+    # A fault 0.3 m off the boundary and ending 0.4 m short of the frame: left as drawn.
+    fault = LineString([(100.3, 0), (100.3, 99.6)])
+    project = project_with(tmp_path, ("fault", fault), ("map-boundary", FRAME))
+    result = repair(project, tmp_path / "out", only=["snap-lines", "close-dangles"])
+    assert not [c for c in result.changes if c.features_before == ("1",)]
+    assert shapely.equals(single(copy_lines(tmp_path / "out").geometry.iloc[0]), fault)
+
+
+# ---------------------------------------------------------------- boundaries with no line
+
+def test_boundary_without_line_gets_a_generated_contact(tmp_path):
+    # No contact between A and B: the boundary x = 100 from (100, 0) to (100, 100) is drawn as a contact,
+    # certainty [repair] generated_certainty, generated = true; the frame keeps generated = false.
+    project = project_with(tmp_path, ("map-boundary", FRAME), repair_keys={"generated_certainty": "approximate"})
+    assert rules(project).get("boundary-without-line") == 1
+    out = tmp_path / "out"
+    result = repair(project, out)
+    (change,) = [c for c in result.changes if c.repair == "draw-missing-lines"]
+    assert change.features_before == () and change.units == ("A", "B")
+    lines = copy_lines(out)
+    assert lines["generated"].tolist() == [False, True]
+    new = lines.iloc[1]
+    assert (new["kind"], new["certainty"]) == ("contact", "approximate")
+    assert shapely.equals(single(new.geometry), LineString([(100, 0), (100, 100)]))  # GEOS: exactly the common edge
+    assert not REPAIRED & set(rules(out))
+    # idempotent: the repaired copy repaired again changes nothing
+    assert repair(out, tmp_path / "again").changes == ()
+
+
+def test_generated_stretch_meets_the_drawn_part_of_its_boundary():
+    # The boundary x = 100 is drawn from y = 0 to 60 only. The undrawn stretch, as boundary-without-line finds
+    # it, starts where the 1 m buffer of that line ends (y = 61); the generated line starts on the drawn line.
+    piece = LineString([(100, 61), (100, 100)])
+    done = undrawn_lines(np.array([piece], dtype=object), np.array([LineString([(100, 0), (100, 60)])], dtype=object), 1.0)
+    assert shapely.get_coordinates(done[0]).tolist() == [[100, 60], [100, 100]]
+
+
+def test_combined_line_layers_get_the_generated_contact_in_the_contacts_layer(tmp_path):
+    # Contacts, faults and frame in three layers: the generated contact goes to the contacts layer.
+    project = tiny_project(tmp_path, lines=line_frame(("map-boundary", FRAME)))
+    gpkg = project / "map.gpkg"
+    from builders import edit_manifest, write_layer
+
+    write_layer(gpkg, "contacts", gpd.GeoDataFrame({"certainty": ["certain"]}, geometry=[LineString([(100, 0), (100, 40)])], crs=CRS))
+    write_layer(gpkg, "frame", gpd.GeoDataFrame({"certainty": ["certain"]}, geometry=[FRAME], crs=CRS))
+
+    def change(d):
+        del d["layers"]["lines"]
+        d["layers"]["contacts"] = {"path": "map.gpkg", "layer": "contacts", "certainty_field": "certainty"}
+        d["layers"]["frame"] = {"path": "map.gpkg", "layer": "frame", "certainty_field": "certainty"}
+
+    edit_manifest(project, change)
+    out = tmp_path / "out"
+    result = repair(project, out)
+    (change_,) = [c for c in result.changes if c.repair == "draw-missing-lines"]
+    assert change_.layer == "contacts"
+    contacts = pyogrio.read_dataframe(out / "map.gpkg", layer="contacts")
+    assert contacts["generated"].tolist() == [False, True]
+    assert contacts["certainty"].tolist() == ["certain", "inferred"]  # the default generated certainty
+    assert not REPAIRED & set(rules(out))
+
+
+def test_repaired_copy_has_no_linework_finding_of_the_repaired_kinds(tmp_path):
+    # Three defects at once (tolerance 1 m): a contact 0.3 m off, an end 0.4 m short, a boundary with no line.
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "C"]},
+                             geometry=[box(0, 0, 100, 100), box(100, 0, 200, 50), box(100, 50, 200, 100)], crs=CRS)
+    project = project_with(tmp_path, ("contact", LineString([(100.3, 0), (100.3, 50), (100.3, 99.6)])),
+                           ("map-boundary", FRAME), units=units)
+    before = rules(project)
+    assert before.get("boundary-without-line") == 1
+    out = tmp_path / "out"
+    result = repair(project, out)
+    assert {c.repair for c in result.changes} >= {"snap-lines", "draw-missing-lines"}
+    assert all(c.max_shift <= 1.0 for c in result.changes if c.layer != "units")
+    assert not REPAIRED & set(rules(out))
+    assert repair(out, tmp_path / "again").changes == ()  # idempotent
