@@ -478,7 +478,9 @@ def _hand_in_table(root: Path, role: str, spec: dict[str, Any], problems: list[H
     if not parts:
         return None
     column = _source_column([t.frame for _, t in parts])
-    frames, lines, which = [], [], []
+    frames: list[pd.DataFrame] = []
+    lines: list[int] = []
+    which: list[int] = []
     for k, (rel, part) in enumerate(parts):
         frame = part.frame.copy()
         frame[column] = rel

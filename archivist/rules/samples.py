@@ -36,13 +36,26 @@ from typing import TYPE_CHECKING, Any, Iterator
 import numpy as np
 import shapely
 
-from ..analysis.messages import layer_feature, plural, verb
 from ..analysis.idmatch import SampleIndex, probable_samples, space_keys
-from ..analysis.points import map_extent, points_outside, unit_mismatch_hit, unit_mismatches
+from ..analysis.messages import layer_feature, plural, verb
+from ..analysis.points import (
+    map_extent,
+    points_outside,
+    unit_mismatch_hit,
+    unit_mismatches,
+)
+from ..analysis.stations import repeated_across_files
 from ..model import Hit
 from ..readers import text_column
 from ..registry import rule
-from ..vocab.analytes import IN_WT_PERCENT, O_EQUIVALENT, Analyte, Cells, analytes, classify
+from ..vocab.analytes import (
+    IN_WT_PERCENT,
+    O_EQUIVALENT,
+    Analyte,
+    Cells,
+    analytes,
+    classify,
+)
 
 if TYPE_CHECKING:
     from ..engine import CheckContext
@@ -158,8 +171,13 @@ def sample_duplicate_id(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
             geometry=shapely.multipoints([g for g in geoms[blank] if g is not None and not g.is_empty]) if len(blank) else None,
         )
     counts = keys[keys != ""].value_counts()
+    # rows handed in twice, identical, in two files of a list of files: hand-in-row-repeated reports them
+    repeated = ([set(r.tolist()) for r in repeated_across_files(layer.frame, layer.source_column, geoms)]
+                if layer.row_files is not None else [])
     for key in sorted(counts[counts > 1].index):
         idx = np.flatnonzero(keys.to_numpy() == key)
+        if any(set(idx.tolist()) <= rows for rows in repeated):
+            continue
         written = list(dict.fromkeys(ids[idx]))
         pts = [g for g in geoms[idx] if g is not None and not g.is_empty]
         spread = None

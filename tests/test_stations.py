@@ -1,0 +1,102 @@
+"""Stations as a role, files handed in together (a list of paths), and ground distances to stations."""
+
+from __future__ import annotations
+
+import numpy as np
+import pyproj
+import pytest
+from shapely.geometry import Point
+
+import archivist
+from archivist.project import load_project
+from builders import tiny_project, tiny_samples, two_units, two_units_lines
+from test_rules_stations import ST1, ST2, station_project, write_csv
+
+
+def test_stations_load_as_a_layer(tmp_path):
+    project = load_project(station_project(tmp_path))
+    st = project.layers["stations"]
+    assert list(st.ids) == ["ST-1", "ST-2"]
+    assert st.frame.index.name == "row" and list(st.frame.index) == [2, 3]
+    assert st.row_files is None
+
+
+def test_list_of_files_is_one_table_with_the_source_column(tmp_path):
+    root = station_project(tmp_path, {"stations_anna.csv": [ST1], "stations_ben.csv": [ST2]})
+    project = load_project(root)
+    st = project.layers["stations"]
+    assert list(st.ids) == ["ST-1", "ST-2"]
+    assert list(st.frame["source_file"]) == ["stations_anna.csv", "stations_ben.csv"]
+    assert list(st.frame.index) == ["2 of stations_anna.csv", "2 of stations_ben.csv"]
+    assert {p.name for p in project.files} >= {"stations_anna.csv", "stations_ben.csv"}
+
+
+def test_missing_file_of_a_list_is_named_by_its_place(tmp_path):
+    root = station_project(tmp_path, {"stations_anna.csv": [ST1, ST2], "stations_ben.csv": [ST2]})
+    (root / "stations_ben.csv").unlink()
+    report = archivist.check(root, rules=["layer-missing"])
+    assert any("layers.stations.path[1]: file 'stations_ben.csv' does not exist." in f.message for f in report.findings)
+
+
+def test_user_column_named_source_file_is_kept(tmp_path):
+    head = ["station_id", "easting", "northing", "source_file"]
+    root = station_project(tmp_path, {"a.csv": [ST1], "b.csv": [ST2]})
+    write_csv(root / "a.csv", [ST1[:3] + ["tablet 1"]], head)
+    write_csv(root / "b.csv", [ST2[:3] + ["tablet 2"]], head)
+    st = load_project(root).layers["stations"]
+    assert list(st.frame["source_file"]) == ["tablet 1", "tablet 2"]
+    assert st.source_column == "source_file_" and list(st.row_files) == ["a.csv", "b.csv"]
+
+
+def test_analyses_list_names_each_cell_in_its_own_file(tmp_path):
+    from builders import major_rows, write_xlsx, MAJOR_HEADER
+
+    root = station_project(tmp_path)
+    write_xlsx(root / "an_a.xlsx", "majors", MAJOR_HEADER, major_rows(["S-0001"]))
+    write_xlsx(root / "an_b.xlsx", "majors", MAJOR_HEADER, major_rows(["S-0002", "S-0009"]))
+    import tomllib
+
+    from builders import write_manifest
+
+    data = tomllib.loads((root / "archivist.toml").read_text(encoding="utf-8"))
+    data["tables"]["analyses"] = {"path": ["an_a.xlsx", "an_b.xlsx"], "sheet": "majors", "sample_field": "sample_id"}
+    write_manifest(root, data)
+    report = archivist.check(root, rules=["analysis-orphan"])
+    (f,) = report.findings
+    assert f.message.startswith("an_b.xlsx, sheet 'majors', cell A3: sample id 'S-0009' matches no sample")
+
+
+def _geographic(tmp_path, offset_m: float):
+    """The tiny map in longitude/latitude near 60°N, a station, and a sample ``offset_m`` metres north-east of it."""
+    units = two_units().to_crs("EPSG:4326")
+    lines = two_units_lines().to_crs("EPSG:4326")
+    geod = pyproj.Geod(ellps="WGS84")
+    c = units.geometry.iloc[0].centroid
+    lon, lat, _ = geod.fwd(c.x, c.y, 45.0, offset_m)
+    samples = tiny_samples().to_crs("EPSG:4326")
+    samples = samples.set_geometry([Point(lon, lat), samples.geometry.iloc[1]], crs="EPSG:4326")
+    samples = samples.assign(station=["ST-1", ""])
+    root = tiny_project(tmp_path, units=units, lines=lines, samples=samples,
+                        manifest={"map": {"crs": "EPSG:4326"}, "checks": {"station_distance_m": 5},
+                                  "layers": {"stations": {"path": "stations.csv", "x_field": "lon", "y_field": "lat",
+                                                          "crs": "EPSG:4326"}}})
+    write_csv(root / "stations.csv", [["ST-1", repr(c.x), repr(c.y)]], ["station_id", "lon", "lat"])
+    return root, (c.x, c.y, lon, lat)
+
+
+@pytest.mark.parametrize("metres", [7.5, 42.0])
+def test_distance_in_a_geographic_crs_is_the_geodesic(tmp_path, metres):
+    """Reference: pyproj ``Geod`` on the WGS 84 ellipsoid (GeographicLib's inverse problem)."""
+    root, (x0, y0, x1, y1) = _geographic(tmp_path, metres)
+    (f,) = [x for x in archivist.check(root, rules=["station-link-distant"]).findings]
+    _, _, expected = pyproj.Geod(ellps="WGS84").inv(x0, y0, x1, y1)
+    assert expected == pytest.approx(metres, abs=1e-6)
+    assert f.measure == pytest.approx(expected, abs=1e-6)
+
+
+def test_ground_distances_projected_use_metres_per_unit(tmp_path):
+    from archivist.analysis.stations import ground_distances
+
+    project = load_project(station_project(tmp_path))
+    d = ground_distances(project, np.array([Point(0, 0), None], dtype=object), np.array([Point(3, 4), Point(1, 1)], dtype=object))
+    assert d[0] == 5.0 and np.isnan(d[1])
