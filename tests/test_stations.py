@@ -100,3 +100,36 @@ def test_ground_distances_projected_use_metres_per_unit(tmp_path):
     project = load_project(station_project(tmp_path))
     d = ground_distances(project, np.array([Point(0, 0), None], dtype=object), np.array([Point(3, 4), Point(1, 1)], dtype=object))
     assert d[0] == 5.0 and np.isnan(d[1])
+
+
+# ---------------------------------------------------------------- in the package
+
+def test_stations_handed_in_pack_audit_and_unpack(tmp_path):
+    import json
+
+    import frictionless
+
+    root = station_project(tmp_path, {"stations_anna.csv": [ST1], "stations_ben.csv": [ST2]})
+    result = archivist.pack(root, tmp_path / "out")
+    bag = result.path
+    data = bag / "data"
+    dp = json.loads((data / "datapackage.json").read_text(encoding="utf-8"))
+    res = {r["name"]: r for r in dp["resources"]}
+    stations = res["stations"]
+    fields = {f["name"]: f for f in stations["schema"]["fields"]}
+    assert {"station_id", "date", "observer", "observation", "source_file"} <= set(fields)
+    assert fields["source_file"]["description"].startswith("The file this row was handed in in")
+    assert stations["schema"]["primaryKey"] == ["station_id"]
+    fks = res["samples"]["schema"]["foreignKeys"]
+    assert {"fields": ["station"], "reference": {"resource": "stations", "fields": ["station_id"]}} in fks
+    # frictionless (the Data Package reference implementation) finds the package valid, keys included
+    report = frictionless.validate(data / "datapackage.json")
+    assert report.valid, report.flatten(["rowNumber", "fieldName", "type", "note"])[:5]
+    for name in ("stations_anna.csv", "stations_ben.csv"):
+        assert (data / "source" / name).read_bytes() == (root / name).read_bytes()
+    audited = archivist.audit(bag)
+    assert not [f for f in audited.findings if f.severity.value == "error"], [f.message for f in audited.findings]
+    work = archivist.unpack(bag, tmp_path / "work")
+    assert {"stations_anna.csv", "stations_ben.csv"} <= set(work.files)
+    again = load_project(tmp_path / "work")
+    assert list(again.layers["stations"].frame["source_file"]) == ["stations_anna.csv", "stations_ben.csv"]
