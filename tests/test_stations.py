@@ -133,3 +133,45 @@ def test_stations_handed_in_pack_audit_and_unpack(tmp_path):
     assert {"stations_anna.csv", "stations_ben.csv"} <= set(work.files)
     again = load_project(tmp_path / "work")
     assert list(again.layers["stations"].frame["source_file"]) == ["stations_anna.csv", "stations_ben.csv"]
+
+
+def test_audit_refuses_a_list_path_leading_outside(tmp_path):
+    import tomllib
+
+    from archivist.errors import ArchivistError
+    from builders import write_manifest
+
+    root = station_project(tmp_path / "arc", {"stations_anna.csv": [ST1], "stations_ben.csv": [ST2]})
+    (tmp_path / "arc" / "secret.csv").write_text("station_id,easting,northing\nX,1,1\n", encoding="utf-8")
+    data = tomllib.loads((root / "archivist.toml").read_text(encoding="utf-8"))
+    data["layers"]["stations"]["path"] = ["stations_anna.csv", "../secret.csv"]
+    write_manifest(root, data)
+    with pytest.raises(ArchivistError, match=r"layers.stations.path '../secret.csv' leads outside the archive"):
+        archivist.audit(root)
+
+
+# ---------------------------------------------------------------- init
+
+def test_init_places_stations_handed_in_as_a_list(tmp_path):
+    import tomllib
+
+    from click.testing import CliRunner
+
+    from archivist.cli import cli
+    from archivist.manifest import validate_manifest
+
+    root = station_project(tmp_path, {"stations_anna.csv": [ST1], "stations_ben.csv": [ST2]})
+    (root / "archivist.toml").unlink()
+    result = CliRunner().invoke(cli, ["init", str(root)])
+    assert result.exit_code == 0, result.output
+    text = (root / "archivist.toml").read_text(encoding="utf-8")
+    data = tomllib.loads(text)
+    st = data["layers"]["stations"]
+    assert st["path"] == ["stations_anna.csv", "stations_ben.csv"]
+    assert (st["id_field"], st["x_field"], st["y_field"]) == ("station_id", "easting", "northing")
+    assert (st["date_field"], st["observer_field"], st["observation_field"], st["unit_field"]) == ("date", "observer", "observation", "unit")
+    assert st["crs"] == "EPSG:32633"
+    assert "# Field stations and observations:" in text and "2 files with the same columns" in text
+    assert not validate_manifest(data, "archivist.toml")
+    assert "samples" in data["layers"] and data["layers"]["samples"]["path"] == "map.gpkg"
+    assert archivist.check(root, rules=["station-unknown", "station-duplicate-id"]).findings == ()
