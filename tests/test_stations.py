@@ -175,3 +175,80 @@ def test_init_places_stations_handed_in_as_a_list(tmp_path):
     assert not validate_manifest(data, "archivist.toml")
     assert "samples" in data["layers"] and data["layers"]["samples"]["path"] == "map.gpkg"
     assert archivist.check(root, rules=["station-unknown", "station-duplicate-id"]).findings == ()
+
+
+# ---------------------------------------------------------------- the example bundle: clean, and broken at one place each
+
+from builders import BUNDLE, copy_bundle, edit_layer, edit_table  # noqa: E402
+
+STATION_RULES = ["station-duplicate-id", "station-unknown", "station-outside-extent", "station-unit-mismatch",
+                 "station-link-distant", "hand-in-row-repeated"]
+
+
+def _bundle_found(root, rule):
+    return [f for f in archivist.check(root, rules=[rule]).findings if f.rule == rule]
+
+
+def test_bundle_has_stations_handed_in_by_three_mappers_and_checks_clean():
+    project = load_project(BUNDLE)
+    st = project.layers["stations"]
+    assert len(st.frame) == 20 and len(set(st.ids)) == 20
+    assert sorted(set(st.row_files)) == ["stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv"]
+    linked = {role: int(project.layers[role].frame["station"].notna().sum()) for role in ("samples", "structures")}
+    assert linked == {"samples": 14, "structures": 6}
+    assert not archivist.check(BUNDLE, rules=STATION_RULES).findings
+
+
+def test_bundle_sample_naming_a_mangled_station(tmp_path):
+    def mangle(frame):
+        i = frame.index[frame.station == "ST24-007"][0]
+        frame.loc[i, "station"] = "ST24-7"
+
+    root = edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", mangle)
+    (f,) = _bundle_found(root, "station-unknown")
+    assert "names station 'ST24-7'" in f.message and "probably ST24-007 (leading zeros lost)" in f.message
+
+
+def test_bundle_conflicting_station_in_two_mappers_files(tmp_path):
+    root = copy_bundle(tmp_path)
+    other = (root / "stations_tollivast.csv").read_text(encoding="utf-8").splitlines()[1].split(",")
+    sid, x, y = other[0], float(other[1]), float(other[2])
+    with open(root / "stations_oakeshaw.csv", "a", encoding="utf-8") as fh:
+        fh.write(f"{sid},{x + 30:.2f},{y + 40:.2f},2024-08-30,Sunniva Oakeshaw,Another stop.,{other[-1]}\n")
+    (f,) = _bundle_found(root, "station-duplicate-id")
+    assert f.severity.value == "error"
+    assert f"station {sid} is in stations_tollivast.csv row 2 and stations_oakeshaw.csv row 6 with different positions (50.0 m apart)" in f.message
+
+
+def test_bundle_station_row_handed_in_twice(tmp_path):
+    root = copy_bundle(tmp_path)
+    row = (root / "stations_tollivast.csv").read_text(encoding="utf-8").splitlines()[1]
+    with open(root / "stations_calderwyn.csv", "a", encoding="utf-8") as fh:
+        fh.write(row + "\n")
+    (f,) = _bundle_found(root, "station-duplicate-id")
+    assert f.severity.value == "notice" and "handed in twice, identical" in f.message
+    assert "stations_tollivast.csv row 2 and stations_calderwyn.csv row 7" in f.message
+
+
+def test_bundle_station_off_the_map_and_with_a_wrong_unit(tmp_path):
+    def move(frame):
+        frame.loc[0, "northing"] = "6799000.00"  # 1 km north of the sheet's top edge (6798000)
+        frame.loc[1, "unit"] = "SKG" if frame.loc[1, "unit"] != "SKG" else "PEL"
+
+    root = edit_table(copy_bundle(tmp_path), "stations_tollivast.csv", move)
+    (out,) = _bundle_found(root, "station-outside-extent")
+    assert out.message.startswith("station ST24-001 (row 2 of stations_tollivast.csv) lies ")
+    assert "north of the map extent" in out.message
+    (wrong,) = _bundle_found(root, "station-unit-mismatch")
+    assert wrong.message.startswith("station ST24-005 (row 3 of stations_tollivast.csv) is recorded as SKG but lies in polygon")
+
+
+def test_bundle_sample_far_from_its_station(tmp_path):
+    def relink(frame):
+        i = frame.index[frame.station == "ST24-003"][0]
+        frame.loc[i, "station"] = "ST24-020"  # a station at the other end of the map
+
+    root = edit_layer(copy_bundle(tmp_path), "map.gpkg", "samples", relink)
+    (f,) = _bundle_found(root, "station-link-distant")
+    assert "from its station ST24-020 (stations_oakeshaw.csv row 5); more than station_distance_m (100 m)" in f.message
+    assert f.measure > 1000
