@@ -594,6 +594,12 @@ def _infer(path: Path) -> Inference:
             disagree.append((label, "no CRS"))
         elif crs_label and crs_text(c)[0] != crs_label:
             disagree.append((label, crs_text(c)[0] or str(c)))
+    if "stations" in placed:  # what names its station: a field called station or station_id, written out to confirm
+        for role in ("samples", "structures"):
+            found = _pick(placed[role].source.fields, STATION_ID_NAMES[:3]) if role in placed else None
+            if found:
+                placed[role].spec["station_field"] = found
+                placed[role].why.append(f"station field '{found}'")
     for role in ("samples", "stations"):
         if role in placed and "x_field" in placed[role].spec and "crs" not in placed[role].spec and crs_label:
             placed[role].spec["crs"] = crs_label

@@ -401,7 +401,7 @@ def make_analyses(rng, samples):
 
 # Field stations: invented stops of the 2024 season, each mapper's handed in as a file of their own.
 STATION_SEED = SEED + 16  # a generator of their own: the map, samples and structures above stay as they were
-STATION_FILES = {name: f"stations_{name.split()[-1].lower()}.csv" for name, _ in AUTHORS}
+STATION_FILES = dict(sorted(((name, f"stations_{name.split()[-1].lower()}.csv") for name, _ in AUTHORS), key=lambda nf: nf[1]))
 OBSERVATIONS = {
     "QAL": "Sand and gravel in the river bank; rounded granite and basalt pebbles.",
     "SKG": "Pink coarse granite with K-feldspar megacrysts up to 3 cm; jointed.",

@@ -217,7 +217,7 @@ def test_bundle_conflicting_station_in_two_mappers_files(tmp_path):
         fh.write(f"{sid},{x + 30:.2f},{y + 40:.2f},2024-08-30,Sunniva Oakeshaw,Another stop.,{other[-1]}\n")
     (f,) = _bundle_found(root, "station-duplicate-id")
     assert f.severity.value == "error"
-    assert f"station {sid} is in stations_tollivast.csv row 2 and stations_oakeshaw.csv row 6 with different positions (50.0 m apart)" in f.message
+    assert f"station {sid} is in stations_oakeshaw.csv row 6 and stations_tollivast.csv row 2 with different positions (50.0 m apart)" in f.message
 
 
 def test_bundle_station_row_handed_in_twice(tmp_path):
@@ -227,7 +227,7 @@ def test_bundle_station_row_handed_in_twice(tmp_path):
         fh.write(row + "\n")
     (f,) = _bundle_found(root, "station-duplicate-id")
     assert f.severity.value == "notice" and "handed in twice, identical" in f.message
-    assert "stations_tollivast.csv row 2 and stations_calderwyn.csv row 7" in f.message
+    assert "stations_calderwyn.csv row 7 and stations_tollivast.csv row 2" in f.message
 
 
 def test_bundle_station_off_the_map_and_with_a_wrong_unit(tmp_path):
