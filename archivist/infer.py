@@ -35,6 +35,11 @@ SAMPLE_ID_NAMES = ("sample_id", "sampleid", "sample", "sample_no", "sample_numbe
 AZIMUTH_NAMES = ("azimuth", "dip_direction", "dipdirection", "dip_dir", "dipdir", "dip_azimuth", "dipazimuth", "trend", "strike")
 DIP_NAMES = ("dip", "dip_angle", "plunge", "inclination")
 STRUCT_KIND_NAMES = ("kind", "type", "structure", "structure_type", "feature", "measurement", "class")
+STATION_ID_NAMES = ("station_id", "stationid", "station", "station_no", "station_number", "stn", "stn_id", "site_id", "stop_id")
+STATION_WORDS = re.compile(r"station|stn|stop|outcrop|observ|locality|localities", re.I)
+DATE_NAMES = ("date", "visit_date", "visited", "observed", "obs_date", "day")
+OBSERVER_NAMES = ("observer", "mapper", "geologist", "recorded_by", "recorder", "by")
+OBSERVATION_NAMES = ("observation", "observations", "notes", "note", "description", "remarks", "remark", "comment", "comments")
 X_NAMES = ("x", "easting", "east", "e", "lon", "long", "longitude")
 Y_NAMES = ("y", "northing", "north", "n", "lat", "latitude")
 LEGEND_EXTRA = ("name", "description", "age", "colour", "color", "min_age_ma", "max_age_ma", "order", "lithology")
@@ -47,7 +52,7 @@ OXIDE = re.compile(r"^(SiO2|TiO2|Al2O3|Fe2O3T?|FeOT?|MnO|MgO|CaO|Na2O|K2O|P2O5)\
 KIND_VALUES = ("contact", "fault", "boundary", "thrust", "dyke", "dike", "unconformity", "shear", "axial")
 CERTAINTY_VALUES = ("certain", "approximate", "approx", "inferred", "concealed", "uncertain", "accurate", "queried")
 SKIP_DIRS = {"__pycache__", "node_modules"}
-LAYER_KEYS = ("units", "lines", "contacts", "faults", "frame", "extent", "samples", "structures")  # as written in [layers]
+LAYER_KEYS = ("units", "lines", "contacts", "faults", "frame", "extent", "samples", "structures", "stations")  # as written in [layers]
 MAX_DEPTH = 3
 SAMPLE_ROWS = 5000  # values looked at per field
 
@@ -344,6 +349,62 @@ def _certainty(src: Source, spec: dict[str, Any], reasons: list[str], kind: str 
         reasons.append(f"certainty field '{cert}': {cwhy}")
 
 
+def _station_fields(s: Source) -> dict[str, str] | None:
+    """The station fields of a point layer or coordinate table that looks like field stations, else None.
+
+    A station id column (``station_id``, ``stn``...), no sample id column (a
+    sample layer names its station, it is not one), and a name or an
+    observation column that says stations (``stations.csv``, ``notes``).
+    """
+    sid = _pick(s.fields, STATION_ID_NAMES)
+    if sid is None or (_pick(s.fields, SAMPLE_ID_NAMES) not in (None, "id") and _pick(s.fields, SAMPLE_ID_NAMES) != sid):
+        return None
+    observation = _pick(s.fields, OBSERVATION_NAMES)
+    if not (STATION_WORDS.search(s.layer or s.sheet or s.path.stem) or observation):
+        return None
+    out = {"id_field": sid}
+    for key, names in (("date_field", DATE_NAMES), ("observer_field", OBSERVER_NAMES), ("unit_field", UNIT_NAMES)):
+        found = _pick(s.fields, names)
+        if found:
+            out[key] = found
+    if observation:
+        out["observation_field"] = observation
+    if s.geometry is None:
+        x, y = _pick(s.fields, X_NAMES), _pick(s.fields, Y_NAMES)
+        if not (x and y):
+            return None
+        out.update(x_field=x, y_field=y)
+    return out
+
+
+def _stations(sources: list[Source], place: Any, used: set[int]) -> None:
+    """Place field stations: one point layer, or coordinate tables with the same columns (one per mapper) as a list."""
+    found = [(s, f) for s in sources if id(s) not in used and s.geometry in (None, "Point") and not s.columns_only
+             for f in [_station_fields(s)] if f is not None]
+    if not found:
+        return
+    found.sort(key=lambda sf: (sf[0].geometry is None, sf[0].rel))  # a point layer first
+    first, fields = found[0]
+    group = [first] if first.geometry is not None else [s for s, f in found if s.geometry is None and f == fields
+                                                            and s.sheet == first.sheet]
+    spec = first.spec()
+    if len(group) > 1:
+        spec["path"] = [s.rel for s in group]
+    spec.update(fields)
+    what = "points" if first.geometry is not None else "a table with coordinates '{x_field}', '{y_field}'".format(**fields)
+    why = [f"{what} with a station id '{fields['id_field']}'"
+           + (f" and observations '{fields['observation_field']}'" if "observation_field" in fields else "")]
+    confirm = []
+    if len(group) > 1:
+        why.append(f"{len(group)} files with the same columns, read as one table (a file per mapper)")
+    if first.geometry is None and fields["x_field"].lower() in ("lon", "long", "longitude"):
+        spec["crs"] = "EPSG:4326"
+    elif first.geometry is None:
+        confirm.append("the CRS of the coordinates: taken to be the map's")
+    place("stations", first, spec, why, confirm)
+    used.update(id(s) for s in group)
+
+
 def infer(path: Path) -> Inference:
     """Guess a manifest for the project folder ``path``, or for the GeoPackage ``path`` alone.
 
@@ -479,6 +540,7 @@ def _infer(path: Path) -> Inference:
         if not kind:
             confirm.append(f"no field naming the kind of measurement was recognised (fields: {', '.join(s.fields)}); set kind_field")
         place("structures", s, spec, [f"points with azimuth '{az}' and dip '{dip}'" + (f", kind '{kind}'" if kind else "")], confirm)
+    _stations(sources, place, used)
     ranked_p = []
     for s in points:
         if id(s) in used:
@@ -532,8 +594,15 @@ def _infer(path: Path) -> Inference:
             disagree.append((label, "no CRS"))
         elif crs_label and crs_text(c)[0] != crs_label:
             disagree.append((label, crs_text(c)[0] or str(c)))
-    if "samples" in placed and "x_field" in placed["samples"].spec and "crs" not in placed["samples"].spec and crs_label:
-        placed["samples"].spec["crs"] = crs_label
+    if "stations" in placed:  # what names its station: a field called station or station_id, written out to confirm
+        for role in ("samples", "structures"):
+            found = _pick(placed[role].source.fields, STATION_ID_NAMES[:3]) if role in placed else None
+            if found:
+                placed[role].spec["station_field"] = found
+                placed[role].why.append(f"station field '{found}'")
+    for role in ("samples", "stations"):
+        if role in placed and "x_field" in placed[role].spec and "crs" not in placed[role].spec and crs_label:
+            placed[role].spec["crs"] = crs_label
 
     for s in sources:
         if id(s) not in used:

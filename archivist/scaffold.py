@@ -26,6 +26,7 @@ ROLE_TITLES = {
     "extent": "The map's outer boundary",
     "samples": "Sample locations",
     "structures": "Orientation measurements",
+    "stations": "Field stations and observations",
     "legend": "The legend",
     "analyses": "Analyses of the samples",
 }
@@ -35,6 +36,8 @@ ROLE_HINTS = {
     "extent": ("one polygon: the edge of the mapped area", ["path = \"…\""]),
     "samples": ("points, or a table with coordinates, with a sample id", ["path = \"…\"", "id_field = \"…\""]),
     "structures": ("points with azimuth and dip fields", ["path = \"…\"", "kind_field = \"…\"", "azimuth_field = \"…\"", "dip_field = \"…\""]),
+    "stations": ("points, or tables with coordinates (a list of files: one per mapper), with a station id",
+                 ["path = \"…\"", "id_field = \"…\""]),
     "legend": ("a CSV or XLSX table: unit, name, description, age, min_age_ma, max_age_ma, order, colour", ["path = \"…\""]),
     "analyses": ("a CSV or XLSX table of analyses with a sample id column", ["path = \"…\"", "sample_field = \"…\""]),
 }
@@ -105,7 +108,7 @@ def manifest_text(inf: Inference, command_path: str) -> str:
         "# " + _kv("affiliation", "…"),
         "",
     ]
-    layer_roles = ("units", "lines", "extent", "samples", "structures")
+    layer_roles = ("units", "lines", "extent", "samples", "structures", "stations")
     table_roles = ("legend", "analyses")
     line_keys: list[str] = [r for r in ("contacts", "faults", "frame") if r in inf.placed]
     line_keys += [r for r in inf.placed if r.startswith("lines[")]

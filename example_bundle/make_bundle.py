@@ -399,6 +399,67 @@ def make_analyses(rng, samples):
     return rows
 
 
+# Field stations: invented stops of the 2024 season, each mapper's handed in as a file of their own.
+STATION_SEED = SEED + 16  # a generator of their own: the map, samples and structures above stay as they were
+STATION_FILES = dict(sorted(((name, f"stations_{name.split()[-1].lower()}.csv") for name, _ in AUTHORS), key=lambda nf: nf[1]))
+OBSERVATIONS = {
+    "QAL": "Sand and gravel in the river bank; rounded granite and basalt pebbles.",
+    "SKG": "Pink coarse granite with K-feldspar megacrysts up to 3 cm; jointed.",
+    "ORB": "Amygdaloidal basalt, red-weathered flow top below a massive flow base.",
+    "KES": "Cross-bedded quartz sandstone in sets 0.3-0.5 m thick; thin coal streak.",
+    "MAR": "Laminated grey mudstone with ironstone nodules; slaty cleavage.",
+    "DUN": "Pale bioclastic limestone, crinoid debris; small karst hollows.",
+    "TCG": "Clast-supported conglomerate, quartzite and schist pebbles, fining up.",
+    "AMB": "Red-brown arkosic sandstone with desiccation-cracked silt partings.",
+    "PEL": "Garnet-mica schist, NE-striking foliation, quartz segregations.",
+}
+
+
+def make_stations(polys, units, tree, samples, structures):
+    """About 20 field stations: 14 where samples were taken, 6 where structures were measured.
+
+    Each station lies a few metres from what was taken there (within its unit
+    polygon) and records that unit; the linked samples and structures get the
+    station's id in their `station` field. Returns the stations' rows.
+    """
+    rng = np.random.default_rng(STATION_SEED)
+    for row in samples + structures:
+        row["station"] = None
+    picks = [("sample", samples[i]) for i in np.linspace(0, len(samples) - 1, 14).round().astype(int)]
+    picks += [("structure", structures[i]) for i in np.linspace(0, len(structures) - 1, 6).round().astype(int)]
+    stops = []
+    for what, row in picks:
+        p = row["geometry"]
+        (i,) = tree.query(p, predicate="within")
+        for _ in range(100):  # a stop a few metres away, still well inside the same polygon
+            a, r = rng.uniform(0, 2 * math.pi), rng.uniform(2.0, 8.0 if what == "structure" else 12.0)
+            q = Point(round(p.x + r * math.sin(a), 2), round(p.y + r * math.cos(a), 2))
+            if polys[i].contains(q) and polys[i].exterior.distance(q) > 5.0:
+                break
+        day = row.get("collected") or (dt.date(2024, 6, 10) + dt.timedelta(days=int(rng.integers(0, 75)))).isoformat()
+        observer = row.get("collector") or AUTHORS[int(rng.integers(0, 3))][0]
+        stops.append((day, q, units[i], observer, row))
+    stops.sort(key=lambda s: (s[0], -s[1].y))
+    out = []
+    for k, (day, q, unit, observer, row) in enumerate(stops, start=1):
+        sid = f"ST24-{k:03d}"
+        row["station"] = sid
+        out.append({"station_id": sid, "easting": f"{q.x:.2f}", "northing": f"{q.y:.2f}", "date": day,
+                    "observer": observer, "observation": OBSERVATIONS[unit], "unit": unit})
+    return out
+
+
+def stations_bytes(stations, observer):
+    """One mapper's stations CSV: UTF-8, no BOM, \n line ends."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["station_id", "easting", "northing", "date", "observer", "observation", "unit"])
+    for row in stations:
+        if row["observer"] == observer:
+            w.writerow(row.values())
+    return buf.getvalue().encode("utf-8")
+
+
 def write_atomic(path: Path, data: bytes):
     """Write bytes to a temp file next to path, then move it into place."""
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
@@ -509,6 +570,7 @@ path = "map.gpkg"
 layer = "samples"
 id_field = "sample_id"
 unit_field = "unit"
+station_field = "station"
 [layers.structures]
 path = "map.gpkg"
 layer = "structures"
@@ -517,6 +579,18 @@ azimuth_field = "azimuth"
 dip_field = "dip"
 convention = "dip-direction"
 north = "true"
+station_field = "station"
+# The field stations of the 2024 season, as the three mappers handed them in: one file each, read as one table.
+[layers.stations]
+path = [{", ".join(f'"{f}"' for f in STATION_FILES.values())}]
+x_field = "easting"
+y_field = "northing"
+crs = "{CRS}"
+id_field = "station_id"
+date_field = "date"
+observer_field = "observer"
+observation_field = "observation"
+unit_field = "unit"
 [tables.legend]
 path = "legend.csv"
 [tables.analyses]
@@ -561,6 +635,7 @@ def main(outdir: Path):
     samples = make_samples(rng, polys, units, tree)
     structures = make_structures(rng, polys, units, tree, blocks, faults)
     analyses = make_analyses(rng, samples)
+    stations = make_stations(polys, units, tree, samples, structures)
     write_gpkg(outdir / "map.gpkg", [
         ("units", [{"unit": u, "geometry": p} for u, p in zip(units, polys)]),
         ("lines", [{"kind": k, "certainty": c, "geometry": g} for k, c, g in lines]),
@@ -570,9 +645,11 @@ def main(outdir: Path):
     ])
     write_atomic(outdir / "legend.csv", legend_bytes())
     write_atomic(outdir / "analyses.xlsx", xlsx_bytes(analyses))
+    for observer, name in STATION_FILES.items():
+        write_atomic(outdir / name, stations_bytes(stations, observer))
     write_atomic(outdir / "archivist.toml", manifest_bytes())
     print(f"{outdir}: {len(polys)} polygons in {len(set(units))} units, {len(lines)} lines, "
-          f"{len(samples)} samples, {len(structures)} structures")
+          f"{len(samples)} samples, {len(structures)} structures, {len(stations)} stations")
 
 
 if __name__ == "__main__":

@@ -293,7 +293,8 @@ def test_manifest():
     assert 2 <= len(m["map"]["authors"]) <= 3
     for a in m["map"]["authors"]:
         assert a["name"] and "orcid" not in a  # invented people carry no identifier that could be someone's
-    assert set(m["layers"]) == set(LAYERS) and set(m["tables"]) == {"legend", "analyses"}
+    assert set(m["layers"]) == {*LAYERS, "stations"} and set(m["tables"]) == {"legend", "analyses"}
     for section in (*m["layers"].values(), *m["tables"].values()):
-        assert (BUNDLE / section["path"]).is_file()
+        paths = section["path"] if isinstance(section["path"], list) else [section["path"]]  # stations: one file per mapper
+        assert all((BUNDLE / p).is_file() for p in paths)
     assert np.isclose(m["checks"]["tolerance"], 0.5)

@@ -413,6 +413,7 @@ def test_part_of_a_layer_in_the_neighbouring_zone(tmp_path):
 def _bundle_labelled(root, crs):
     for layer in LAYERS:
         edit_layer(root, "map.gpkg", layer, lambda f: f.set_crs(crs, allow_override=True))
+    edit_manifest(root, lambda m: m["layers"]["stations"].update(crs=crs))  # the stations table declares its own CRS
     return edit_manifest(root, lambda m: m["map"].update(crs=crs))
 
 
@@ -449,6 +450,7 @@ def test_layer_in_another_crs_shows_the_zone(tmp_path):
     for layer in ("units", "lines", "extent", "structures"):
         edit_layer(root, "map.gpkg", layer, lambda f: f.set_crs("EPSG:32632", allow_override=True))
     edit_manifest(root, lambda m: m["map"].update(crs="EPSG:32632"))
+    edit_manifest(root, lambda m: m["layers"].pop("stations"))
     (f,) = found(root, "crs-zone-evidence")
     assert "layers units, lines, extent, structures are labelled EPSG:32632" in f.message
     assert "are in EPSG:32633 (WGS 84 / UTM zone 33N)" in f.message and "line up with layers.samples only when read in EPSG:32633" in f.message

@@ -25,6 +25,7 @@ import pyogrio
 import pyproj
 import shapely
 
+from ..analysis.stations import station_field
 from ..errors import ArchivistError
 from ..project import LAYER_ROLES, TABLE_ROLES, MapProject
 from ..vocab.analytes import analytes, is_analyte_header
@@ -44,6 +45,7 @@ LAYER_TITLES = {
     "extent": "Map extent",
     "samples": "Sample locations",
     "structures": "Structural measurements",
+    "stations": "Field stations and observations",
     "legend": "Legend",
     "analyses": "Analyses",
 }
@@ -56,6 +58,7 @@ LAYER_DESCRIPTIONS = {
     "extent": "The map's outer boundary.",
     "samples": "Where each sample was taken, with its attributes.",
     "structures": "Orientation measurements at stations.",
+    "stations": "Where the mappers stopped and observed: one point per station, with the observation made there.",
     "legend": "One row per map unit: code, name, description, age.",
     "analyses": "Laboratory analyses, one row per analysed sample.",
 }
@@ -66,6 +69,13 @@ FIELD_DESCRIPTIONS = {
     ("samples", "id_field"): "Sample identifier, unique in the map; the analyses refer to it.",
     ("samples", "unit_field"): "Map unit the sample was taken from; a unit of the legend.",
     ("structures", "kind_field"): "Kind of measurement (bedding, foliation, joint, lineation...).",
+    ("stations", "id_field"): "Station identifier, unique in the map; samples and measurements refer to it.",
+    ("stations", "date_field"): "Date of the visit.",
+    ("stations", "observer_field"): "Who made the observation.",
+    ("stations", "observation_field"): "The observation, as written in the field.",
+    ("stations", "unit_field"): "Map unit recorded at the station; a unit of the legend.",
+    ("samples", "station_field"): "The station the sample was taken at; a station of the stations layer.",
+    ("structures", "station_field"): "The station the measurement was made at; a station of the stations layer.",
     ("structures", "dip_field"): "Dip, in degrees below the horizontal.",
     ("legend", "unit_field"): "Map unit code (the key the layers refer to).",
     ("analyses", "sample_field"): "Sample identifier; a sample of the samples layer.",
@@ -335,7 +345,15 @@ def layer_table(project: MapProject, pl: PreparedLayer) -> TextTable:
             units[col] = "degree"
         if role == "structures" and key == "overturned_field":
             descriptions[col] = "Overturned bedding: yes where the bed's top faces down (its dip stays 0-90)."
-    if role in ("samples", "structures") and pl.geometry_type == "Point":
+    hand_in = project.sources[role].source_column
+    if hand_in and hand_in in frame.columns:
+        descriptions[hand_in] = "The file this row was handed in in (the layer was read from several files, one per mapper)."
+    for key in ("station_field",) if group in ("samples", "structures") else ():
+        column = station_field(project.sources[role])
+        if column is not None:
+            descriptions.setdefault(column, FIELD_DESCRIPTIONS[(group, key)])
+            identifiers.add(column)
+    if role in ("samples", "structures", "stations") and pl.geometry_type == "Point":
         xname = spec.get("x_field") or "x"
         yname = spec.get("y_field") or "y"
         if xname in frame.columns or yname in frame.columns:
@@ -435,7 +453,16 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
     sample_id = project.layers["samples"].spec.get("id_field") if "samples" in project.layers else None
     if samples is not None and sample_id is not None and samples.has(sample_id):
         samples.primary_key = [sample_id]
-    for role in ("units", "samples"):
+    stations = tables.get("stations")
+    station_id = project.layers["stations"].spec.get("id_field") if "stations" in project.layers else None
+    if stations is not None and station_id is not None and stations.has(station_id):
+        stations.primary_key = [station_id]
+        for role in ("samples", "structures"):
+            linked = tables.get(role)
+            column = station_field(project.layers[role]) if role in project.layers else None
+            if linked is not None and column is not None and linked.has(column):
+                linked.foreign_keys.append({"fields": [column], "reference": {"resource": "stations", "fields": [station_id]}})
+    for role in ("units", "samples", "stations"):
         linked = tables.get(role)
         unit = project.layers[role].spec.get("unit_field") if role in project.layers else None
         if linked is not None and legend is not None and linked.has(unit) and legend.has(legend_unit):

@@ -40,7 +40,7 @@ from ..errors import ArchivistError
 from ..fileset import dataset_files
 from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir, staging_file
 from ..interrupt import Interrupted, terminate_as_exception
-from ..manifest import MANIFEST_NAME, read_manifest
+from ..manifest import MANIFEST_NAME, read_manifest, spec_paths
 from ..model import Report
 from ..project import MapProject, load_project, location_digits
 from ..progress import Progress
@@ -122,9 +122,11 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     if project.manifest_path is not None:
         roles.setdefault(project.manifest_path.resolve(), []).append("manifest")
     for role, layer in project.sources.items():
-        roles.setdefault(layer.path.resolve(), []).append(role)
+        for path in layer.paths:  # several for a list of files handed in together
+            roles.setdefault(path.resolve(), []).append(role)
     for role, table in project.tables.items():
-        roles.setdefault(table.path.resolve(), []).append(role)
+        for path in table.paths:
+            roles.setdefault(path.resolve(), []).append(role)
     names = source_names(project, roles)
     out: dict[Path, tuple[str, str]] = {}
     for path, rs in roles.items():
@@ -150,18 +152,16 @@ def _manifest_paths(project: MapProject) -> list[tuple[str, Path]]:
     for group in ("layers", "tables"):
         for value in (project.manifest.get(group) or {}).values():
             for spec in value if isinstance(value, list) else [value]:  # [[layers.lines]] is a list of layers
-                if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
-                    continue
-                written = spec["path"]
-                path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
-                out.append((written, path))
+                for written in spec_paths(spec):  # a path, or a list of files handed in together
+                    path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+                    out.append((written, path))
     return out
 
 
 def input_names(project: MapProject) -> SourceNames:
     """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
     paths = [p for _, p in _manifest_paths(project)]
-    paths += [layer.path for layer in project.sources.values()] + [table.path for table in project.tables.values()]
+    paths += [p for layer in project.sources.values() for p in layer.paths] + [p for table in project.tables.values() for p in table.paths]
     if project.manifest_path is not None:
         paths.append(project.manifest_path)
     return source_names(project, paths)
@@ -202,14 +202,18 @@ def source_manifest(project: MapProject, names: SourceNames) -> tuple[str, str] 
         for key, value in (raw.get(group) or {}).items():
             entries = [(f"{key}[{i}]", v) for i, v in enumerate(value)] if isinstance(value, list) else [(key, value)]
             for role, spec in entries:
-                if not (isinstance(spec, dict) and isinstance(spec.get("path"), str)):
-                    continue
-                written = spec["path"]
-                path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
-                inside = path == project.root.resolve() or project.root.resolve() in path.parents
-                if Path(written).is_absolute() or not inside:
-                    spec["path"] = names.name(path)
-                    changed.append(f"{group}.{role}.path")
+                written_all = spec_paths(spec)
+                listed = isinstance(spec.get("path"), list) if isinstance(spec, dict) else False
+                for k, written in enumerate(written_all):  # a list of files handed in together: each one
+                    path = Path(written) if Path(written).is_absolute() else (project.root / written).resolve()
+                    inside = path == project.root.resolve() or project.root.resolve() in path.parents
+                    if Path(written).is_absolute() or not inside:
+                        if listed:
+                            spec["path"][k] = names.name(path)
+                            changed.append(f"{group}.{role}.path[{k}]")
+                        else:
+                            spec["path"] = names.name(path)
+                            changed.append(f"{group}.{role}.path")
     if not changed:
         return None
     why = f"{', '.join(changed)} rewritten to the copies in source/ (the project named them outside its folder)"

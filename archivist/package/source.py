@@ -114,6 +114,11 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
         kept: dict[str, Any] = {}
 
         def admitted(group: str, role: str, spec: Any) -> bool:
+            if isinstance(spec, dict) and isinstance(spec.get("path"), list):  # files handed in together: each screened
+                rels = [r for r in spec["path"] if isinstance(r, str)]
+                kept_paths = [r for r in rels if admitted(group, role, {**spec, "path": r})]
+                spec["path"] = kept_paths
+                return bool(kept_paths)
             if not isinstance(spec, dict) or not isinstance(spec.get("path"), str):
                 return True
             rel = spec["path"]
@@ -133,6 +138,7 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
             return True
 
         for role, spec in specs.items():
+            spec = dict(spec) if isinstance(spec, dict) else spec  # a list of paths is narrowed on the copy, never on raw
             if isinstance(spec, list):  # a list of layers under one key ([[layers.lines]]): each entry screened
                 kept[role] = [entry for i, entry in enumerate(spec) if admitted(group, f"{role}[{i}]", entry)]
             elif admitted(group, role, spec):

@@ -65,7 +65,7 @@ from ..filebytes import copy_new_file, sha256_bytes, sha256_file
 from ..fileset import dataset_files
 from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir
 from ..interrupt import Interrupted, terminate_as_exception
-from ..manifest import MANIFEST_NAME
+from ..manifest import MANIFEST_NAME, spec_paths
 from ..tomltext import dump_toml
 from .bagcheck import verify_bag
 from .safe import Limits, open_archive
@@ -136,8 +136,7 @@ def _manifest_paths(data: dict[str, Any]) -> list[str]:
     out = []
     for group in ("layers", "tables"):
         for spec in (data.get(group) or {}).values():
-            if isinstance(spec, dict) and isinstance(spec.get("path"), str):
-                out.append(spec["path"])
+            out.extend(spec_paths(spec))  # a path, or a list of files handed in together
     return out
 
 

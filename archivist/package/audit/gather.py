@@ -10,6 +10,7 @@ import pyproj
 
 from ... import vectorio
 from ...project import crs_label
+from ...manifest import spec_paths
 from ..bagcheck import file_digest, read_manifest_lines, verify_bag
 from ..safe import sniff_vector
 from ..source import OpenedMap, is_bag
@@ -70,7 +71,7 @@ def _manifest_layer_files(opened: OpenedMap) -> set[str]:
     prefix = data.relative_to(root).as_posix() + "/" if data != root else ""
     values = layers.values() if isinstance(layers, dict) else []
     specs = [s for v in values for s in (v if isinstance(v, list) else [v])]  # [[layers.lines]] is a list
-    return {prefix + str(spec["path"]).replace("\\", "/") for spec in specs if isinstance(spec, dict) and isinstance(spec.get("path"), str)}
+    return {prefix + str(p).replace("\\", "/") for spec in specs for p in spec_paths(spec)}  # a list of files: each
 
 
 def _gather_layers(facts: ArchiveFacts, opened: OpenedMap) -> None:
