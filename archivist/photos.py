@@ -135,11 +135,12 @@ class MediaSet:
     @property
     def linked_by(self) -> str:
         """How files are tied to stations, in words."""
+        ways = []
         if self.link_source:
-            return f"by the table {self.link_source}"
+            ways.append(f"by the table {self.link_source}")
         if self.spec.get("name_pattern"):
-            return f"by their names ({self.spec['name_pattern']})"
-        return "not tied to stations"
+            ways.append(f"by their names ({self.spec['name_pattern']})")
+        return ", else ".join(ways) if ways else "not tied to stations"
 
     def geotags(self) -> list[Geotag]:
         """The EXIF location and time of every file, aligned with ``files``; read once, on first call."""

@@ -170,7 +170,9 @@ def photo_unlinked(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     -------
     Each photo of `[files.photos]` that neither the `link_table` nor the
     `name_pattern` ties to a station, and each photo tied to a station id
-    that is not in `[layers.stations]` (when that layer is declared). When
+    that is not in `[layers.stations]` (when that layer is declared; in an
+    audit, a link table's rows naming such a station are left to
+    `archive-fieldwork-missing`). When
     the manifest declares neither a link table nor a naming pattern, one
     finding says so for all the photos. Field-book scans are not judged:
     a page often covers many stations.
@@ -206,7 +208,7 @@ def photo_unlinked(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     for i, f in enumerate(media.files):
         if f.station is None:
             yield Hit(f"{_where(media, i)} is tied to no station (files.photos: {media.linked_by}).", layer="photos", features=(f.rel,))
-        elif known is not None and f.station not in known:
+        elif known is not None and f.station not in known and not (project.archive is not None and f.link == "table"):
             how = f"{media.link_source} row {f.row}" if f.link == "table" else "its name"
             yield Hit(
                 f"{_where(media, i)} is tied by {how} to station {f.station}, which is not in layers.stations.",
