@@ -35,6 +35,7 @@ LAYER_DEFAULTS: dict[str, dict[str, str]] = {
     "extent": {},
     "samples": {"id_field": "sample_id", "unit_field": "unit"},
     "structures": {"kind_field": "kind", "azimuth_field": "azimuth", "dip_field": "dip", "convention": "dip-direction"},
+    "stations": {"id_field": "station_id", "unit_field": "unit"},
 }
 # Fields a role cannot do without; the others are read when present.
 REQUIRED_FIELDS: dict[str, tuple[str, ...]] = {
@@ -43,7 +44,26 @@ REQUIRED_FIELDS: dict[str, tuple[str, ...]] = {
     "extent": (),
     "samples": ("id_field",),
     "structures": ("kind_field", "azimuth_field", "dip_field"),
+    "stations": ("id_field",),
 }
+# Roles whose `path` may be a list of files read as one table (several mappers' files of one kind).
+HAND_IN_ROLES = ("stations", "samples", "structures", "analyses")
+# The column a table read from a list of files gains: the file (as the manifest writes it) each row came from.
+SOURCE_COLUMN = "source_file"
+# The fields that name a sample's or a measurement's station when station_field is not given, in this order.
+STATION_FIELDS = ("station", "station_id")
+
+
+def spec_paths(spec: Any) -> list[str]:
+    """The file(s) a layer or table entry names: ``path`` as one text or a list of texts; [] when it names none."""
+    if not isinstance(spec, dict):
+        return []
+    value = spec.get("path")
+    if isinstance(value, str):
+        return [value]
+    if isinstance(value, list) and value and all(isinstance(v, str) for v in value):
+        return list(value)
+    return []
 # Line layers: the keys of [layers] that hold lines, and the kind each key gives
 # its lines when the entry names neither `kind` nor `kind_field`. `lines` is the
 # general one: its lines carry their kind in a field (default `kind`), and it

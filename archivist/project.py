@@ -28,7 +28,7 @@ from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
 from .reference import CHART_VERSIONS, DEFAULT_CHART
 
-LAYER_ROLES = ("units", "lines", "extent", "samples", "structures")
+LAYER_ROLES = ("units", "lines", "extent", "samples", "structures", "stations")
 TABLE_ROLES = ("legend", "analyses")
 EXPECTED_GEOMETRY = {
     "units": ("Polygon", "MultiPolygon"),
@@ -36,6 +36,7 @@ EXPECTED_GEOMETRY = {
     "lines": ("LineString", "MultiLineString"),
     "samples": ("Point", "MultiPoint"),
     "structures": ("Point", "MultiPoint"),
+    "stations": ("Point", "MultiPoint"),
 }
 
 
@@ -58,6 +59,8 @@ class Layer:
     parts: tuple["Layer", ...] = ()  # the mapper's own layers this one combines (several line layers), else empty
     origin: dict[str, tuple[str, str]] = field(default_factory=dict)  # combined id -> (own layer, own feature id)
     key: str = ""  # where the manifest declares it: "layers.units", "layers.lines[1]"
+    files: tuple[Path, ...] = ()  # a layer read from a list of files (the season's hand-in): every file, in order
+    source_column: str = ""  # with files: the column holding each row's file as the manifest writes it
 
     def __post_init__(self) -> None:
         self.group = self.group or self.role
@@ -66,6 +69,18 @@ class Layer:
     @property
     def crs(self) -> pyproj.CRS | None:
         return self.frame.crs
+
+    @property
+    def paths(self) -> tuple[Path, ...]:
+        """The file(s) the layer was read from: several for a list of files, else its one path."""
+        return self.files or (self.path,)
+
+    @property
+    def row_files(self) -> np.ndarray | None:
+        """Each row's file as the manifest writes it, for a layer read from a list of files; else None."""
+        if not self.source_column or self.source_column not in self.frame.columns:
+            return None
+        return self.frame[self.source_column].to_numpy(dtype=object)
 
     @property
     def geometry(self) -> np.ndarray:
@@ -106,6 +121,13 @@ class Table:
     spec: dict[str, Any]
     row_units: dict[str, str] = field(default_factory=dict)  # column -> unit as written in the units row
     qc: pd.DataFrame | None = None  # quality-control rows, indexed by their row in the file
+    files: tuple[Path, ...] = ()  # a table read from a list of files (the season's hand-in): every file, in order
+    source_column: str = ""  # with files: the column holding each row's file as the manifest writes it
+
+    @property
+    def paths(self) -> tuple[Path, ...]:
+        """The file(s) the table was read from."""
+        return self.files or (self.path,)
 
     @property
     def frame(self) -> pd.DataFrame:
@@ -136,6 +158,9 @@ class CheckConfig:
     structure_kinds: tuple[str, ...] = (
         "bedding", "foliation", "cleavage", "joint", "vein", "fault plane", "lineation", "fold axis",
     )
+    # Ground distance beyond which a sample or measurement is far from the station it names: our choice, about
+    # the size of one outcrop area a mapper describes at one stop, several times a handheld GPS's error.
+    station_distance_m: float = 100.0
     severity: dict[str, str] = field(default_factory=dict)
     chart: str = DEFAULT_CHART  # the ICS chart version legend ages are checked against
     photo_distance_m: float = 100.0  # farthest a geotagged photo may be from its station (common practice)
@@ -254,7 +279,7 @@ def make_config(manifest: dict[str, Any], crs: pyproj.CRS | None) -> CheckConfig
     if crs is not None and not crs.is_geographic and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
         metres /= crs.axis_info[0].unit_conversion_factor
     kw: dict[str, Any] = {"scale": float(scale), "tolerance": float(checks.get("tolerance", metres))}
-    for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max", "photo_distance_m"):
+    for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max", "station_distance_m", "photo_distance_m"):
         if key in checks:
             kw[key] = float(checks[key])
     for key in ("line_kinds", "certainties", "structure_kinds"):
@@ -277,6 +302,8 @@ def load_layer(
     ``group`` the role whose fields and geometry it has (a line layer's is ``lines``)."""
     where = key or f"layers.{role}"
     group = group or role
+    if isinstance(spec.get("path"), list):
+        return _hand_in_layer(root, role, spec, problems, where, group)
     rel = spec["path"]
     path = _resolve(root, rel)
     source = f"{rel}:{spec['layer']}" if spec.get("layer") else rel
@@ -389,6 +416,96 @@ def _shapefile_sidecars(role: str, path: Path, rel: str, problems: list[Hit], wh
     return True
 
 
+def _source_column(frames: list[pd.DataFrame]) -> str:
+    """The name of the column recording each row's file: ``source_file``, followed by ``_`` while a file already has it."""
+    name = mf.SOURCE_COLUMN
+    while any(name in f.columns for f in frames):
+        name += "_"
+    return name
+
+
+def _hand_in_layer(root: Path, role: str, spec: dict[str, Any], problems: list[Hit], where: str, group: str) -> Layer | None:
+    """A layer read from a list of files (several mappers' files of one kind) as one layer.
+
+    Each file is read as if it were declared alone (its problems name it as
+    ``layers.<role>.path[i]``); the rows are put one after the other, each
+    with its file, as the manifest writes it, in the column ``source_file``
+    (:data:`archivist.manifest.SOURCE_COLUMN`). A row is named by its own
+    row (or feature) number and its file: ``row 4 of stations_anna.csv``.
+    Files in another CRS than the first file's are transformed to it.
+    """
+    parts: list[tuple[str, Layer]] = []
+    for i, rel in enumerate(mf.spec_paths(spec)):
+        part = load_layer(root, role, {**spec, "path": rel}, problems, key=f"{where}.path[{i}]", group=group)
+        if part is not None:
+            parts.append((rel, part))
+    if not parts:
+        return None
+    target = next((p.crs for _, p in parts if p.crs is not None), None)
+    column = _source_column([p.frame for _, p in parts])
+    frames, ids, index = [], [], []
+    for rel, part in parts:
+        frame = part.frame
+        if frame.crs is not None and target is not None and not frame.crs.equals(target, ignore_axis_order=True):
+            with np.errstate(invalid="ignore", over="ignore"):
+                frame = frame.to_crs(target)
+        elif frame.crs is None and target is not None:
+            frame = frame.set_crs(target)
+        frame = frame.copy()
+        frame[column] = rel
+        index.append(np.char.add(frame.index.astype(str).to_numpy(dtype=str), f" of {rel}").astype(object))
+        frames.append(frame.reset_index(drop=True))
+        ids.append(np.asarray(part.ids, dtype=object))
+    combined = gpd.GeoDataFrame(pd.concat(frames, ignore_index=True), geometry=frames[0].geometry.name, crs=target)
+    tables = all(p.frame.index.name == "row" for _, p in parts)
+    combined.index = pd.Index(np.concatenate(index), name="row" if tables else "feature")
+    first = parts[0][1]
+    return Layer(role, first.path, " + ".join(rel for rel, _ in parts), combined, np.concatenate(ids), spec,
+                 measured=sum(p.measured for _, p in parts), group=group, key=where,
+                 files=tuple(p.path for _, p in parts), source_column=column)
+
+
+def _hand_in_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit], notes: list[str]) -> Table | None:
+    """A table read from a list of files as one table; see :func:`_hand_in_layer`.
+
+    Each file is read as if declared alone (header, units row and
+    quality-control rows found in each); every cell keeps its own file,
+    sheet and row for the findings (:meth:`archivist.readers.TableData.cell`).
+    """
+    parts: list[tuple[str, Table]] = []
+    for rel in mf.spec_paths(spec):
+        part = load_table(root, role, {**spec, "path": rel}, problems, notes)
+        if part is not None:
+            parts.append((rel, part))
+    if not parts:
+        return None
+    column = _source_column([t.frame for _, t in parts])
+    frames, lines, which = [], [], []
+    for k, (rel, part) in enumerate(parts):
+        frame = part.frame.copy()
+        frame[column] = rel
+        frames.append(frame)
+        lines.extend(part.data.all_lines())
+        which.extend([k] * len(frame))
+    first = parts[0][1]
+    sheets = {t.data.sheet for _, t in parts}
+    data = replace(
+        first.data,
+        frame=pd.concat(frames, ignore_index=True),
+        file=" + ".join(t.data.file for _, t in parts),
+        sheet=first.data.sheet if len(sheets) == 1 else None,
+        lines=tuple(lines),
+        parts=tuple(t.data for _, t in parts),
+        row_part=tuple(which),
+    )
+    qcs = [t.qc.assign(**{column: rel}) for rel, t in parts if t.qc is not None]
+    units: dict[str, str] = {}
+    for _, t in parts:
+        units = {**t.row_units, **units}
+    return Table(role, first.path, " + ".join(t.source for _, t in parts), data, spec, row_units=units,
+                 qc=pd.concat(qcs) if qcs else None, files=tuple(t.path for _, t in parts), source_column=column)
+
+
 def _layer_from_table(path: Path, role: str, spec: dict[str, Any], rel: str, problems: list[Hit], where: str, group: str) -> Layer | None:
     data, hits = read_table(path, rel, spec.get("sheet"))
     problems.extend(hits)
@@ -459,6 +576,8 @@ def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit],
     from .vocab import legend as vl
 
     notes = notes if notes is not None else []
+    if isinstance(spec.get("path"), list):
+        return _hand_in_table(root, role, spec, problems, notes)
     rel = spec["path"]
     path = _resolve(root, rel)
     if not path.exists():
@@ -701,9 +820,10 @@ def combine_lines(parts: list[Layer], crs: pyproj.CRS | None, notes: list[str]) 
 
 
 def _label(spec: dict[str, Any]) -> str:
-    """A file (and layer or sheet) as the mapper wrote it in the manifest."""
+    """A file (and layer or sheet) as the mapper wrote it in the manifest; the files of a list joined by " + "."""
     inner = spec.get("layer") or spec.get("sheet")
-    return f"{spec['path']}:{inner}" if inner else str(spec["path"])
+    path = " + ".join(mf.spec_paths(spec)) or str(spec.get("path"))
+    return f"{path}:{inner}" if inner else path
 
 
 def load_project(path: str | Path, *, progress: Progress | None = None, manifest: dict[str, Any] | None = None) -> MapProject:
@@ -774,7 +894,7 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
             lines = load_lines(root, manifest["layers"], crs, problems, notes, progress)
             if lines is not None:
                 layers[role] = lines
-        elif isinstance(spec, dict) and isinstance(spec.get("path"), str):
+        elif mf.spec_paths(spec):
             with progress.step(f"reading {_label(spec)}"):
                 layer = load_layer(root, role, spec, problems)
             if layer is not None:
@@ -782,7 +902,7 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
     tables: dict[str, Table] = {}
     for role in TABLE_ROLES:
         spec = manifest["tables"].get(role)
-        if isinstance(spec, dict) and isinstance(spec.get("path"), str):
+        if mf.spec_paths(spec):
             with progress.step(f"reading {_label(spec)}"):
                 table = load_table(root, role, spec, problems, notes)
             if table is not None:
@@ -793,7 +913,8 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
 
         with progress.step("listing photos and scans"):
             media = load_media(root, manifest, problems)
-    files = sorted({p.path for lay in layers.values() for p in (lay.parts or (lay,))} | {t.path for t in tables.values()})
+    files = sorted({f for lay in layers.values() for p in (lay.parts or (lay,)) for f in p.paths}
+                   | {f for t in tables.values() for f in t.paths})
     return MapProject(
         root=root,
         manifest=manifest,

@@ -44,6 +44,8 @@ class TableData:
     header_how: str = "first"  # "first" (first non-empty row), "manifest" (header_row) or "found" (by its names)
     header_candidates: tuple[int, ...] = ()  # rows that looked like a header when more than one did
     sheets: tuple[str, ...] = ()  # every sheet of the workbook (XLSX only)
+    parts: tuple["TableData", ...] = ()  # a table read from several files: each file as read
+    row_part: tuple[int, ...] = ()  # with parts: the index in ``parts`` of each data row's file
 
     def line(self, row: int) -> int:
         """The 1-based row in the file or sheet of data row ``row`` (0-based)."""
@@ -58,9 +60,10 @@ class TableData:
     def cell(self, row: int, column: str) -> str:
         """Where the cell of data row ``row`` (0-based) and ``column`` lives, as a mapper would name it."""
         line = self.line(row)
-        if self.sheet is not None:
-            return f"{self.file}, sheet '{self.sheet}', cell {self.letters.get(column, '?')}{line}"
-        return f"{self.file}, row {line}, column '{column}'"
+        src = self.parts[self.row_part[row]] if self.parts and 0 <= row < len(self.row_part) else self
+        if src.sheet is not None:
+            return f"{src.file}, sheet '{src.sheet}', cell {src.letters.get(column, '?')}{line}"
+        return f"{src.file}, row {line}, column '{column}'"
 
 
 def as_text(value: Any) -> str:

@@ -30,238 +30,23 @@ from __future__ import annotations
 
 import datetime as dt
 import re
-import unicodedata
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
-import pandas as pd
 import shapely
 
-from ..analysis.messages import layer_feature, offset, plural, verb
-from ..farcoords import far_out
-from ..model import Hit, Severity
-from ..readers import as_text, text_column
+from ..analysis.messages import layer_feature, plural, verb
+from ..analysis.idmatch import SampleIndex, probable_samples, space_keys
+from ..analysis.points import map_extent, points_outside, unit_mismatch_hit, unit_mismatches
+from ..model import Hit
+from ..readers import text_column
 from ..registry import rule
 from ..vocab.analytes import IN_WT_PERCENT, O_EQUIVALENT, Analyte, Cells, analytes, classify
-from ..vocab.legend import cells as legend_cells
 
 if TYPE_CHECKING:
     from ..engine import CheckContext
     from ..project import MapProject, Table
-
-# ---------------------------------------------------------------- identifiers and their spreadsheet manglings
-
-_SPACES = re.compile(r"[\s\u00a0\u2007\u202f\u200b\u2060\ufeff]+")
-_DASHES = re.compile(r"[\u2010\u2011\u2012\u2013\u2014\u2015\u2212]")
-_LEAD_ZEROS = re.compile(r"(?<!\d)0+(?=\d)")
-_TRAILING_ZERO_DECIMAL = re.compile(r"(?<=\d)\.0+$")
-_SCI = re.compile(r"^([+-]?)(\d+)(?:[.,](\d+))?[eE]([+-]?\d+)$")
-MONTHS = ("jan", "feb", "mar", "apr", "may", "jun", "jul", "aug", "sep", "oct", "nov", "dec")
-MONTH_NAMES = ("january", "february", "march", "april", "may", "june", "july", "august", "september", "october", "november", "december")
-_MON = "|".join(MONTHS + MONTH_NAMES + ("sept",))
-_DATE_PATTERNS = (
-    (re.compile(r"^(\d{4})-(\d{1,2})-(\d{1,2})(?:[ t]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?$"), "ymd"),
-    (re.compile(rf"^(\d{{1,2}})[- ]({_MON})\.?(?:[- ](\d{{2}}|\d{{4}}))?$"), "d-mon-y"),
-    (re.compile(rf"^({_MON})\.?[- ](\d{{1,4}})$"), "mon-n"),
-    (re.compile(r"^(\d{1,2})[/.](\d{1,2})[/.](\d{2}|\d{4})$"), "a/b/y"),
-)
-
-
-def space_key(text: str) -> str:
-    """An id with spaces (also non-breaking and zero-width), a leading apostrophe and typographic dashes removed."""
-    s = unicodedata.normalize("NFKC", str(text))
-    s = _DASHES.sub("-", s)
-    s = _SPACES.sub("", s)
-    return s[1:] if s.startswith("'") else s
-
-
-def space_keys(values) -> pd.Series:
-    """:func:`space_key` of a whole column, case folded, in vectorised string operations."""
-    s = pd.Series(np.asarray(values, dtype=object), dtype=object).fillna("").astype(str)
-    s = s.str.normalize("NFKC").str.replace(_DASHES, "-", regex=True).str.replace(_SPACES, "", regex=True)
-    return s.str.replace(r"^'", "", regex=True).str.casefold()
-
-
-def loose_key(text: str) -> str:
-    """The loosest comparison key: :func:`space_key`, case folded, no trailing ".0", no leading zeros in digit runs."""
-    s = space_key(text).casefold()
-    s = _TRAILING_ZERO_DECIMAL.sub("", s)
-    return _LEAD_ZEROS.sub("", s)
-
-
-def _month(text: str) -> int:
-    t = text.casefold().rstrip(".")
-    if t == "sept":
-        return 9
-    return (MONTHS.index(t[:3]) + 1) if t[:3] in MONTHS else 0
-
-
-def as_date(value) -> tuple[dt.date, bool] | None:
-    """The date a spreadsheet made of an id and whether it has a year, or None.
-
-    A date cell, or text such as "2024-03-01", "1-Mar", "Mar-24". Without a
-    year in the text ("1-Mar") the date is in 2000 and the flag is False.
-    """
-    if isinstance(value, dt.datetime):
-        return value.date(), True
-    if isinstance(value, dt.date):
-        return value, True
-    text = str(value).strip().casefold()
-    for pattern, kind in _DATE_PATTERNS:
-        m = pattern.match(text)
-        if not m:
-            continue
-        try:
-            if kind == "ymd":
-                return dt.date(int(m[1]), int(m[2]), int(m[3])), True
-            if kind == "d-mon-y":
-                year = int(m[3]) if m[3] else 2000
-                year = year + 2000 if year < 100 else year
-                return dt.date(year, _month(m[2]), int(m[1])), bool(m[3])
-            if kind == "mon-n":
-                n = int(m[2])
-                if 1 <= n <= 28 and len(m[2]) <= 2:
-                    return dt.date(2000, _month(m[1]), n), False
-                year = n + 1900 if 29 <= n < 100 else n
-                return dt.date(year, _month(m[1]), 1), True
-            if kind == "a/b/y":
-                a, b = int(m[1]), int(m[2])
-                year = int(m[3]) + (2000 if len(m[3]) == 2 else 0)
-                return (dt.date(year, a, b) if a <= 12 else dt.date(year, b, a)), True
-        except ValueError:
-            return None
-    return None
-
-
-def _date_originals(d: dt.date) -> list[str]:
-    """Texts a spreadsheet turns into date ``d``: "3-1", "1-3", "3/1", "MAR1", "1-Mar", "Mar-24"..."""
-    m, day, y = d.month, d.day, d.year
-    mons = [MONTHS[m - 1], MONTH_NAMES[m - 1]] + (["sept"] if m == 9 else [])
-    out = [f"{m}-{day}", f"{day}-{m}", f"{m}/{day}", f"{day}/{m}", f"{m}.{day}", f"{day}.{m}"]
-    for mon in mons:
-        out += [f"{mon}{day}", f"{mon}-{day}", f"{day}-{mon}", f"{day}{mon}"]
-    if day == 1:
-        yy = f"{y % 100:02d}"
-        out += [f"{m}-{yy}", f"{m}/{yy}", f"{m}-{y}", f"{m}/{y}"]
-        for mon in mons:
-            out += [f"{mon}{yy}", f"{mon}-{yy}", f"{mon}{y}", f"{mon}-{y}"]
-    out += [f"{m}-{day}-{y % 100:02d}", f"{day}-{m}-{y % 100:02d}", f"{m}/{day}/{y}", f"{day}/{m}/{y}"]
-    return out
-
-
-def _sci_candidates(text: str, numeric_ids: dict[int, list[str]]) -> list[str]:
-    """Ids a number in scientific notation may stand for: the exact value, and ids that round to it."""
-    m = _SCI.match(space_key(text))
-    if not m:
-        return []
-    sign, whole, frac, exp = m[1], m[2], m[3] or "", int(m[4])
-    digits = (whole + frac).lstrip("0") or "0"
-    value = float(f"{sign}{whole}.{frac or '0'}e{exp}")
-    out = []
-    if value.is_integer():
-        out.append(str(int(value)))
-    # Excel shows 1.23457E+11 for 123456789012: match ids that round to the shown digits.
-    shown = len(digits)
-    magnitude = int(np.floor(np.log10(abs(value)))) if value else 0
-    step = 10 ** max(0, magnitude - shown + 1)
-    for n, ids in numeric_ids.items():
-        if round(n / step) * step == round(value / step) * step:
-            out.extend(ids)
-    return out
-
-
-@dataclass
-class SampleIndex:
-    """Sample ids ready for matching: exact, and by the loosest key."""
-
-    ids: np.ndarray
-    exact: set[str] = field(default_factory=set)
-    by_loose: dict[str, list[str]] = field(default_factory=dict)
-    numeric: dict[int, list[str]] = field(default_factory=dict)
-
-    @classmethod
-    def of(cls, ids) -> "SampleIndex":
-        ids = np.asarray([str(i) for i in ids], dtype=object)
-        index = cls(ids, set(ids))
-        for sid in dict.fromkeys(ids):
-            if not sid.strip():
-                continue
-            index.by_loose.setdefault(loose_key(sid), []).append(sid)
-            digits = space_key(sid)
-            if digits.isdigit():
-                index.numeric.setdefault(int(digits), []).append(sid)
-        return index
-
-
-def _why(orphan: str, target: str) -> list[str]:
-    """The manglings that turn ``target`` into ``orphan`` (both as text)."""
-    reasons = []
-    raw = str(orphan)
-    if raw.strip().startswith("'"):
-        reasons.append("a leading apostrophe")
-    if _DASHES.search(raw) and not _DASHES.search(target):
-        reasons.append("a typographic dash")
-    if _SPACES.sub("", raw) != raw:
-        reasons.append("a non-breaking space" if re.search(r"[\u00a0\u2007\u202f]", raw) else "stray spaces")
-    a, b = space_key(orphan), space_key(target)
-    if a.casefold() == b.casefold() and a != b:
-        reasons.append("different case")
-    a, b = a.casefold(), b.casefold()
-    if _TRAILING_ZERO_DECIMAL.search(a) and not _TRAILING_ZERO_DECIMAL.search(b):
-        reasons.append("a trailing '.0'")
-        a = _TRAILING_ZERO_DECIMAL.sub("", a)
-    if a != b and _LEAD_ZEROS.sub("", a) == _LEAD_ZEROS.sub("", b):
-        reasons.append("leading zeros lost" if len(a) < len(b) else "extra leading zeros")
-    return reasons
-
-
-def probable_samples(value, index: SampleIndex) -> list[tuple[str, str]]:
-    """The samples an unmatched analysis id probably meant, each with how it was mangled.
-
-    Tries, in order: the id itself compared loosely (spaces, non-breaking
-    spaces, typographic dashes, a leading apostrophe, case, a trailing
-    ".0", leading zeros); scientific notation ("1.2E+04" for "12000", or a
-    rounded "1.23457E+11"); a date a spreadsheet made of the id (a date
-    cell, "2024-03-01", "1-Mar", an Excel day number) and the texts that
-    become that date ("3-1", "MAR1"...).
-
-    Examples
-    --------
-    >>> idx = SampleIndex.of(["HV24-0007", "HV24-0012"])
-    >>> probable_samples("HV24-7", idx)
-    [('HV24-0007', 'leading zeros lost')]
-    """
-    text = as_text(value) if not isinstance(value, (dt.date, dt.datetime)) else ""
-    found: dict[str, str] = {}
-
-    def take(candidates, how):
-        for cand in candidates:
-            for sid in index.by_loose.get(loose_key(cand), ()):
-                if sid not in found:
-                    found[sid] = how(sid) if callable(how) else how
-
-    if text:
-        take([text], lambda sid: ", ".join(_why(text, sid)) or "a different spelling")
-    if not found and text:
-        sci = _sci_candidates(text, index.numeric)
-        for sid in sci:
-            if sid in index.exact and sid not in found:
-                found[sid] = "written in scientific notation"
-        take(sci, "written in scientific notation")
-    if not found:
-        got = as_date(value) if not text or not _SCI.match(space_key(text)) else None
-        how = "turned into the date {} by a spreadsheet"
-        if got is None and text.isdigit() and 20000 <= int(text) <= 80000:
-            # An Excel day number (1900 date system): a date cell later formatted as a number.
-            got = (dt.date(1899, 12, 30) + dt.timedelta(days=int(text)), True)
-            how = "turned into a date by a spreadsheet, then into its day number ({})"
-        if got is not None:
-            d, has_year = got
-            shown = d.isoformat() if has_year else f"{d.day} {MONTH_NAMES[d.month - 1].capitalize()}"
-            take(_date_originals(d), how.format(shown))
-    return list(found.items())
-
 
 # ---------------------------------------------------------------- analyses
 
@@ -430,8 +215,8 @@ def sample_missing_location(project: MapProject, ctx: CheckContext) -> Iterator[
     nonfinite = ~missing & ~np.isfinite(xy).all(axis=1)
     origin = ~missing & (xy[:, 0] == 0) & (xy[:, 1] == 0)
     if origin.any():
-        extent = _extent(project, ctx)
-        if extent is not None and extent.covers(shapely.Point(0, 0)):
+        extent = map_extent(ctx)
+        if extent is not None and extent.geometry.covers(shapely.Point(0, 0)):
             origin[:] = False
     source = layer.source
     for i in np.flatnonzero(missing | nonfinite | origin):
@@ -443,32 +228,6 @@ def sample_missing_location(project: MapProject, ctx: CheckContext) -> Iterator[
         else:
             why = "is at (0, 0), the usual placeholder for a blank coordinate"
         yield Hit(f"sample {sid} ({_fid(layer, i)} of {source}) {why}.", layer="samples", features=(layer.ids[i],) if layer.ids[i] else ())
-
-
-def _extent(project: MapProject, ctx: CheckContext) -> Any:
-    """The map's extent: the extent layer, else the union of the unit polygons; None when neither is there."""
-
-    def compute():
-        for role in ("extent", "units"):
-            layer = ctx.layer(role)  # in the map CRS, as the samples are read for this check
-            if layer is None:
-                continue
-            geoms = layer.geometry
-            ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & shapely.is_valid(geoms)
-            if ok.any():
-                geom = shapely.union_all(geoms[ok])
-                shapely.prepare(geom)
-                return geom, role
-        return None
-
-    found = ctx.shared("samples:extent", compute)
-    return None if found is None else found[0]
-
-
-def _extent_role(project: MapProject, ctx: CheckContext) -> str | None:
-    _extent(project, ctx)
-    found = ctx.shared("samples:extent", lambda: None)
-    return None if found is None else found[1]
 
 
 @rule("sample-outside-extent", family="samples", severity="warning", needs=("samples",))
@@ -503,26 +262,18 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     (pyproj `Geod`) in a geographic one.
     """
     layer = ctx.layer("samples")  # in the map CRS, swapped axes put right: crs-* report those once
-    extent = _extent(project, ctx)
+    extent = map_extent(ctx)
     if extent is None or layer is None:
         return
-    role = _extent_role(project, ctx)
+    what = "the map extent" if extent.role == "extent" else "the unit polygons (no extent layer)"
     geoms = layer.geometry
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & ~far_out(geoms, layer.crs)[0]  # coordinates-implausible
-    idx = np.flatnonzero(ok)
-    dist = shapely.distance(extent, geoms[idx])
-    far = dist > ctx.tolerance
-    what = "the map extent" if role == "extent" else "the unit polygons (no extent layer)"
-    crs = project.crs or layer.crs
-    for k in np.flatnonzero(far):
-        i = idx[k]
-        (x0, y0), (x1, y1) = shapely.get_coordinates(shapely.shortest_line(extent, geoms[i]))
-        towards = offset(crs, x0, y0, x1, y1)[1]
+    for out in points_outside(project, ctx, "samples"):
+        i = out.index
         yield Hit(
-            f"{layer_feature(layer, i, 'sample')} lies {dist[k]:.1f} m {towards} of {what}.",
+            f"{layer_feature(layer, i, 'sample')} lies {out.distance:.1f} m {out.towards} of {what}.",
             layer="samples",
             features=(layer.ids[i],),
-            measure=float(dist[k]),
+            measure=out.distance,
             geometry=geoms[i],
         )
 
@@ -567,78 +318,9 @@ def sample_unit_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     samples, units = ctx.layer("samples"), ctx.layer("units")  # in the map CRS: crs-* report a CRS fault once
     if samples is None or units is None:
         return
-    recorded = samples.text("unit_field")
-    codes = units.text("unit_field")
-    if recorded is None or codes is None:
-        return
-    recorded = np.array([r.strip() for r in recorded], dtype=object)
-    codes = np.array([c.strip() for c in codes], dtype=object)
-    pts, polys = samples.geometry, units.geometry
-    usable = ~(shapely.is_missing(pts) | shapely.is_empty(pts)) & (recorded != "")
-    poly_ok = ~(shapely.is_missing(polys) | shapely.is_empty(polys))
-    nothing = np.array(None, dtype=object)
-    tree = shapely.STRtree(np.where(poly_ok, polys, nothing))
-    pi, ui = tree.query(np.where(usable, pts, nothing), predicate="intersects")
-    if len(pi) == 0:
-        return
-    pairs = pd.DataFrame({"p": pi, "u": ui, "code": codes[ui]})
-    pairs["match"] = pairs.code.to_numpy() == recorded[pairs.p.to_numpy()]
-    has_match = pairs.groupby("p").match.any()
-    bad = has_match[~has_match].index.to_numpy()
-    if len(bad) == 0:
-        return
-    first = pairs[pairs.p.isin(bad)].drop_duplicates("p").set_index("p").loc[bad]
-    poly_idx = first.u.to_numpy()
-    edge = shapely.distance(pts[bad], shapely.boundary(polys[poly_idx]))
-    superficial = _superficial_units(project)
-    nearest = np.full(len(bad), np.nan)
-    nearest_poly = np.full(len(bad), -1)
-    for code in np.unique(recorded[bad]):  # one query per recorded unit code: a handful
-        mask = recorded[bad] == code
-        same = np.flatnonzero((codes == code) & poly_ok)
-        if len(same):
-            t = shapely.STRtree(polys[same])
-            (src, hit), d = t.query_nearest(pts[bad[mask]], return_distance=True, all_matches=False)
-            nearest[np.flatnonzero(mask)[src]] = d
-            nearest_poly[np.flatnonzero(mask)[src]] = same[hit]
-    crs = project.crs or samples.crs
-    for k, i in enumerate(bad):
-        u = poly_idx[k]
-        sid = samples.ids[i]
-        if np.isfinite(nearest[k]) and nearest_poly[k] >= 0:
-            (x0, y0), (x1, y1) = shapely.get_coordinates(shapely.shortest_line(pts[i], polys[nearest_poly[k]]))
-            near = (f"; the nearest {recorded[i]} polygon, {layer_feature(units, int(nearest_poly[k]), 'polygon')}, "
-                    f"is {nearest[k]:.1f} m {offset(crs, x0, y0, x1, y1)[1]}")
-        else:
-            near = f"; no polygon on the map is {recorded[i]}"
-        case = " (the codes differ only in case)" if recorded[i].casefold() == codes[u].casefold() else ""
-        severity = None
-        note = ""
-        if edge[k] <= ctx.tolerance:
-            severity, note = Severity.NOTICE, f", within the tolerance ({ctx.tolerance:g}) of its edge: the sample sits on the contact"
-        elif codes[u] in superficial and recorded[i] not in superficial:
-            severity, note = Severity.NOTICE, f" ({codes[u]} is superficial: the sample may come from an exposure beneath it), {edge[k]:.1f} m inside its edge"
-        else:
-            note = f", {edge[k]:.1f} m inside its edge"
-        yield Hit(
-            f"{layer_feature(samples, i, 'sample')} is recorded as {recorded[i]} but lies in "
-            f"{layer_feature(units, u, 'polygon', codes[u])}{note}{near}{case}.",
-            layer="samples",
-            features=(sid, str(units.ids[u])),
-            measure=float(edge[k]),
-            geometry=pts[i],
-            severity=severity,
-        )
-
-
-def _superficial_units(project) -> set[str]:
-    legend = project.tables.get("legend")
-    if legend is None:
-        return set()
-    codes, kinds = legend_cells(legend, "unit"), legend_cells(legend, "kind")
-    if codes is None or kinds is None:
-        return set()
-    return {c for c, k in zip(codes, kinds) if c and k.casefold().startswith("superficial")}
+    pts = samples.geometry
+    for m in unit_mismatches(project, ctx, "samples"):
+        yield unit_mismatch_hit(samples, units, m, ctx.tolerance, "sample", "samples", pts[m.index])
 
 
 # ---------------------------------------------------------------- samples and analyses
