@@ -167,3 +167,33 @@ def test_distance_threshold_from_checks(tmp_path):
     root = photo_project(tmp_path, photos={"ST02_1.jpg": (STATIONS["ST02"][0] + 600, STATIONS["ST02"][1])},
                          extra={"checks": {"photo_distance_m": 1000}})
     assert not _findings(root, "photo-far-from-station")
+
+
+# ---------------------------------------------------------------- the archive family: what the map cites, the archive holds
+
+def _packed(tmp_path: Path) -> Path:
+    root = photo_project(tmp_path, links=[("ST01_1.jpg", "ST01")], extra=STATIONS_SPEC)
+    return archivist.pack(root, tmp_path / "out").path
+
+
+def _archive_bad(tmp_path: Path) -> Path:
+    from archives import rebag
+
+    bag = _packed(tmp_path)
+    (bag / "data" / "photos" / "ST03_1.jpg").unlink()
+    return rebag(bag)  # the bag is whole again: only the photos table still cites the photo
+
+
+def _archive_good(tmp_path: Path) -> Path:
+    return _packed(tmp_path)
+
+
+CASES["archive-fieldwork-missing"] = (_archive_bad, _archive_good)
+
+
+def test_archive_missing_photo_named_with_its_row(tmp_path):
+    report = archivist.audit(_archive_bad(tmp_path))
+    found = [f for f in report.findings if f.rule == "archive-fieldwork-missing"]
+    assert [f.features for f in found] == [("photos/ST03_1.jpg",)]
+    assert "tables/photos.csv row 6 (station ST03)" in found[0].message
+    assert not [f for f in report.findings if f.rule == "photo-missing"]  # one cause, one finding
