@@ -68,7 +68,7 @@ def _map_box(project: MapProject, ctx: CheckContext) -> tuple[Any, Any, tuple[fl
                 t = pyproj.Transformer.from_crs(layer.crs, WGS84, always_xy=True)
                 minx, miny, maxx, maxy = geom.bounds
                 box = t.transform_bounds(minx, miny, maxx, maxy, densify_pts=21)
-            except pyproj.exceptions.ProjError:
+            except (pyproj.exceptions.ProjError, ValueError):
                 return geom, layer.crs, None
             return geom, layer.crs, (box if all(np.isfinite(box)) else None)
         return None, None, None
@@ -77,9 +77,14 @@ def _map_box(project: MapProject, ctx: CheckContext) -> tuple[Any, Any, tuple[fl
 
 
 def _to_crs(lon: np.ndarray, lat: np.ndarray, crs: Any) -> tuple[np.ndarray, np.ndarray]:
+    """Longitudes and latitudes (WGS 84) in ``crs``; NaN everywhere when PROJ has no way between them
+    (an engineering CRS, say: crs-* rules report such a map)."""
     import pyproj
 
-    t = pyproj.Transformer.from_crs(WGS84, crs, always_xy=True)
+    try:
+        t = pyproj.Transformer.from_crs(WGS84, crs, always_xy=True)
+    except pyproj.exceptions.ProjError:
+        return np.full(len(lon), np.nan), np.full(len(lat), np.nan)
     with np.errstate(invalid="ignore"):
         x, y = t.transform(lon, lat, errcheck=False)
     return np.asarray(x, dtype=float), np.asarray(y, dtype=float)
@@ -388,7 +393,10 @@ def photo_far_from_station(project: MapProject, ctx: CheckContext) -> Iterator[H
         return
     sj = np.array([pos[str(media.files[i].station)] for i in idx], dtype=int)
     xy = shapely.get_coordinates(shapely.centroid(geoms[sj]))
-    t = pyproj.Transformer.from_crs(stations.crs, WGS84, always_xy=True)
+    try:
+        t = pyproj.Transformer.from_crs(stations.crs, WGS84, always_xy=True)
+    except pyproj.exceptions.ProjError:
+        return  # no way from the stations' CRS to longitude/latitude: crs-* rules report the CRS
     slon, slat = t.transform(xy[:, 0], xy[:, 1], errcheck=False)
     _, _, dist = pyproj.Geod(ellps="WGS84").inv(np.asarray(slon), np.asarray(slat), lon[idx], lat[idx])
     dist = np.asarray(dist, dtype=float)
