@@ -66,7 +66,8 @@ def test_unpacked_project_is_the_input_with_new_version_and_origin(tmp_path):
     archive = package_zip(tmp_path, "bundle")
     result = archivist.unpack(archive, tmp_path / "work")
     assert result.origin == "source"
-    assert result.files == ("analyses.xlsx", "archivist.toml", "legend.csv", "map.gpkg")
+    media = tuple(sorted(f"{d}/{p.name}" for d in ("fieldbook", "photos") for p in (BUNDLE / d).iterdir()))
+    assert result.files == ("analyses.xlsx", "archivist.toml", *media[:1], "legend.csv", "map.gpkg", *media[1:])
     for name in ("analyses.xlsx", "legend.csv", "map.gpkg"):
         assert (tmp_path / "work" / name).read_bytes() == (BUNDLE / name).read_bytes()
     before = tomllib.loads((BUNDLE / "archivist.toml").read_text())

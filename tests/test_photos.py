@@ -197,3 +197,25 @@ def test_broken_bundle_variant_photo_far_from_station(tmp_path):
     found = [f for f in archivist.check(root).findings if f.rule.startswith("photo-")]
     assert [(f.rule, f.features) for f in found] == [("photo-far-from-station", ("photos/TM-ST03_detail.jpg", "TM-ST03"))]
     assert found[0].measure == pytest.approx(400, rel=0.01)
+
+
+def test_init_places_photo_folders_and_scans(tmp_path):
+    """init puts folders named for photos or field books into [files], and the manifest it writes parses to its guess."""
+    import tomllib
+
+    from archivist.scaffold import write_manifest
+
+    root = tmp_path / "field"
+    root.mkdir()
+    for name in ("map.gpkg", "legend.csv"):
+        shutil.copy2(BUNDLE / name, root / name)
+    shutil.copytree(BUNDLE / "photos", root / "Field Photos")
+    shutil.copytree(BUNDLE / "fieldbook", root / "notebooks")
+    (root / "notebooks" / "page2.pdf").write_bytes(b"%PDF-1.4\n%%EOF\n")
+    (root / "notes.txt").write_text("not a scan")
+    path, inf = write_manifest(root)
+    written = tomllib.loads(path.read_text(encoding="utf-8"))
+    assert written["files"] == {"photos": {"paths": ["Field Photos"]}, "fieldbooks": {"paths": ["notebooks"]}} == inf.manifest["files"]
+    assert not any(u.startswith(("Field Photos/", "notebooks/")) for u, _ in inf.unplaced)
+    project = load_project(root)
+    assert len(project.media["photos"].files) == 12 and len(project.media["fieldbooks"].files) == 2
