@@ -612,6 +612,7 @@ def _infer(path: Path) -> Inference:
                 why = f"a table with columns {', '.join(s.fields[:12])}{'…' if len(s.fields) > 12 else ''}: no role recognised"
             unplaced.append((s.label, why))
 
+    files, unplaced, media_notes = place_media(unplaced)
     layers: dict[str, Any] = {r: placed[r].spec for r in LAYER_KEYS if r in placed}
     listed = [placed[r].spec for r in placed if r.startswith("lines[")]
     if listed:
@@ -620,12 +621,59 @@ def _infer(path: Path) -> Inference:
     manifest: dict[str, Any] = {"map": {"title": title, "version": "0.1.0", "scale": 25000}, "layers": layers}
     if tables:
         manifest["tables"] = tables
+    if files:
+        manifest["files"] = files
     if crs_label:
         manifest["map"]["crs"] = crs_label
-    notes = ["Publication scale unknown: 1:25 000 assumed for tolerances; set map.scale in archivist.toml."]
+    notes = ["Publication scale unknown: 1:25 000 assumed for tolerances; set map.scale in archivist.toml."] + media_notes
     if unplaced:
         notes.append(f"Not placed in any role: {', '.join(u for u, _ in unplaced)}.")
     return Inference(root, manifest, placed, unplaced, crs_label, crs_name, crs_from, disagree, notes)
+
+
+# Folder names that hold photos or field-book scans, compared in lower case with spaces and dashes as "_".
+MEDIA_FOLDERS = {
+    "photos": {"photos", "photo", "fotos", "foto", "images", "image", "pictures", "pics", "img", "field_photos"},
+    "fieldbooks": {"fieldbook", "fieldbooks", "field_book", "field_books", "notebooks", "notebook", "scans", "scan",
+                   "fieldnotes", "field_notes", "notes"},
+}
+
+
+def place_media(unplaced: list[tuple[str, str]]) -> tuple[dict[str, Any], list[tuple[str, str]], list[str]]:
+    """``[files]`` entries for folders of photos and field-book scans among the files not placed, the files left, notes.
+
+    A file goes to a kind when a folder on its path bears one of
+    :data:`MEDIA_FOLDERS`' names and its suffix is one of the kind's
+    (JPEG, PNG, TIFF... for photos; PDF, JPEG, PNG, TIFF for scans); the
+    entry names that folder.
+    """
+    from .photos import SUFFIXES
+
+    found: dict[str, dict[str, int]] = {}
+    left = []
+    for rel, why in unplaced:
+        parts = rel.split("/")
+        kind = folder = None
+        for i, part in enumerate(parts[:-1]):
+            word = re.sub(r"[\s-]+", "_", part.lower())
+            kind = next((k for k, names in MEDIA_FOLDERS.items() if word in names and Path(rel).suffix.lower() in SUFFIXES[k]), None)
+            if kind:
+                folder = "/".join(parts[: i + 1])
+                break
+        if kind and folder:
+            found.setdefault(kind, {}).setdefault(folder, 0)
+            found[kind][folder] += 1
+        else:
+            left.append((rel, why))
+    files: dict[str, Any] = {}
+    notes = []
+    for kind, folders in found.items():
+        files[kind] = {"paths": sorted(folders)}
+        n = sum(folders.values())
+        what = "photo" if kind == "photos" else "field-book scan"
+        notes.append(f"{n} {what}{'s' if n != 1 else ''} in {', '.join(f + '/' for f in sorted(folders))} placed as [files.{kind}]; "
+                     "tie them to stations with a link_table or a name_pattern.")
+    return files, left, notes
 
 
 def infer_manifest(root: Path) -> tuple[dict[str, Any], list[str]]:

@@ -163,6 +163,7 @@ class CheckConfig:
     station_distance_m: float = 100.0
     severity: dict[str, str] = field(default_factory=dict)
     chart: str = DEFAULT_CHART  # the ICS chart version legend ages are checked against
+    photo_distance_m: float = 100.0  # farthest a geotagged photo may be from its station (common practice)
 
     @property
     def metres_per_map_mm(self) -> float:
@@ -203,6 +204,7 @@ class MapProject:
     map_file: Path | None = None  # the one vector file checked without a manifest, if that is what was given
     archive: Any = None  # set by ``archivist audit``: what it found about the archive (rules of family ``archive`` read it)
     local: Any = None  # the LocalFrame of the engine's working copy of a map in longitude/latitude (analysis/localframe.py)
+    media: dict[str, Any] = field(default_factory=dict)  # "photos", "fieldbooks" -> archivist.photos.MediaSet ([files])
 
     @property
     def name(self) -> str:
@@ -238,7 +240,7 @@ class MapProject:
     def has(self, role: str) -> bool:
         if role == "archive":
             return self.archive is not None
-        return role in self.layers or role in self.tables
+        return role in self.layers or role in self.tables or role in self.media
 
 
 def crs_label(crs: pyproj.CRS | None) -> str | None:
@@ -277,7 +279,7 @@ def make_config(manifest: dict[str, Any], crs: pyproj.CRS | None) -> CheckConfig
     if crs is not None and not crs.is_geographic and crs.axis_info and crs.axis_info[0].unit_conversion_factor:
         metres /= crs.axis_info[0].unit_conversion_factor
     kw: dict[str, Any] = {"scale": float(scale), "tolerance": float(checks.get("tolerance", metres))}
-    for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max", "station_distance_m"):
+    for key in ("sliver_area_mm2", "sliver_width_mm", "total_min", "total_max", "station_distance_m", "photo_distance_m"):
         if key in checks:
             kw[key] = float(checks[key])
     for key in ("line_kinds", "certainties", "structure_kinds"):
@@ -907,6 +909,12 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
                 table = load_table(root, role, spec, problems, notes)
             if table is not None:
                 tables[role] = table
+    media = {}
+    if isinstance(manifest.get("files"), dict) and manifest["files"]:
+        from .photos import load_media
+
+        with progress.step("listing photos and scans"):
+            media = load_media(root, manifest, problems)
     files = sorted({f for lay in layers.values() for p in (lay.parts or (lay,)) for f in p.paths}
                    | {f for t in tables.values() for f in t.paths})
     return MapProject(
@@ -921,4 +929,5 @@ def _load(root: Path, manifest_path: Path | None, progress: Progress, given: dic
         notes=notes,
         files=files,
         map_file=alone,
+        media=media,
     )

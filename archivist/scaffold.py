@@ -132,6 +132,15 @@ def manifest_text(inf: Inference, command_path: str) -> str:
                 lines.append(f"# [{section}.{role}]")
                 lines += [f"# {k}" for k in keys]
             lines.append("")
+    for kind, spec in (inf.manifest.get("files") or {}).items():
+        what = "photos" if kind == "photos" else "field-book scans"
+        lines += [
+            f"[files.{kind}]",
+            _kv("paths", spec["paths"], f"CONFIRM: the folders of {what} (found by their names); glob patterns work too"),
+            "# " + _kv("name_pattern", "{station}_*.jpg", "how a file's name carries its station id, or:"),
+            "# " + _kv("link_table", "photo_links.csv", "a table with a file column and a station_id column"),
+            "",
+        ]
     scale = m["scale"]
     lines += [
         "# Check settings; the defaults follow from the scale.",

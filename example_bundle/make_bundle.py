@@ -597,10 +597,86 @@ path = "legend.csv"
 path = "analyses.xlsx"
 sheet = "majors"
 sample_field = "sample_id"
-[checks]
+{PHOTOS_TOML}[checks]
 tolerance = 0.5
 '''
     return text.encode("utf-8")
+
+
+# ---------------------------------------------------------------- photos and a field-book scan
+
+PHOTO_STATIONS = 6  # stations photographed: at the first samples' sites, two photos each
+PHOTOS_TOML = '''[files.photos]
+paths = ["photos"]
+name_pattern = "{station}_*.jpg"
+[files.fieldbooks]
+paths = ["fieldbook"]
+'''
+
+
+def photo_stations(stations):
+    """Station ids and positions for the photos: the first field stations of the season (ST24-001...)."""
+    return {row["station_id"]: (float(row["easting"]), float(row["northing"])) for row in stations[:PHOTO_STATIONS]}
+
+
+def _exif_dms(value):
+    from fractions import Fraction
+
+    value = abs(value)
+    d = int(value)
+    m = int((value - d) * 60)
+    sec = round((value - d - m / 60) * 3600 * 10000)
+    return (Fraction(d), Fraction(m), Fraction(sec, 10000))
+
+
+def photo_bytes(lon, lat, taken, shade):
+    """A small invented photo (a gradient, no real scene) with EXIF GPS and DateTimeOriginal written by Pillow."""
+    from PIL import Image
+
+    im = Image.linear_gradient("L").resize((64, 48)).convert("RGB")
+    tint = Image.new("RGB", im.size, shade)
+    im = Image.blend(im, tint, 0.5)
+    exif = Image.Exif()
+    exif[0x010F] = "Invented camera"  # Make
+    exif.get_ifd(0x8769)[0x9003] = taken  # DateTimeOriginal
+    gps = exif.get_ifd(0x8825)
+    gps[1], gps[2] = ("N" if lat >= 0 else "S"), _exif_dms(lat)
+    gps[3], gps[4] = ("E" if lon >= 0 else "W"), _exif_dms(lon)
+    buf = io.BytesIO()
+    im.save(buf, "JPEG", quality=60, exif=exif)
+    return buf.getvalue()
+
+
+def fieldbook_png():
+    """One scanned page of an invented field book: ruled lines and a few blocks for writing."""
+    from PIL import Image, ImageDraw
+
+    im = Image.new("L", (120, 160), 238)
+    draw = ImageDraw.Draw(im)
+    for y in range(16, 156, 9):
+        draw.line([(8, y), (112, y)], fill=175)
+    for k, y in enumerate(range(20, 120, 9)):
+        draw.rectangle([(12, y), (20 + (k * 29) % 80, y + 3)], fill=60)
+    buf = io.BytesIO()
+    im.save(buf, "PNG", optimize=False)
+    return buf.getvalue()
+
+
+def make_photos(outdir, stations):
+    """Write photos/<station>_<view>.jpg (two per station, EXIF at the station) and fieldbook/ (one scanned page)."""
+    import pyproj
+
+    to_lonlat = pyproj.Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+    (outdir / "photos").mkdir(exist_ok=True)
+    (outdir / "fieldbook").mkdir(exist_ok=True)
+    shades = [(150, 120, 90), (110, 130, 100), (160, 150, 130), (90, 100, 120), (140, 110, 110), (120, 140, 150)]
+    for k, (sid, (x, y)) in enumerate(sorted(stations.items())):
+        for v, view in enumerate(("outcrop", "detail")):
+            lon, lat = to_lonlat.transform(x + 3.0 * v, y + 2.0 * v)  # the detail a few metres on
+            taken = f"2024:06:{11 + k // 3:02d} {9 + k:02d}:{15 + 7 * v:02d}:00"
+            write_atomic(outdir / "photos" / f"{sid}_{view}.jpg", photo_bytes(lon, lat, taken, shades[k % len(shades)]))
+    write_atomic(outdir / "fieldbook" / "tollivast_book1_p014.png", fieldbook_png())
+    return 2 * len(stations)
 
 
 def check_polygons(polys, extent):
@@ -648,8 +724,9 @@ def main(outdir: Path):
     for observer, name in STATION_FILES.items():
         write_atomic(outdir / name, stations_bytes(stations, observer))
     write_atomic(outdir / "archivist.toml", manifest_bytes())
+    photos = make_photos(outdir, photo_stations(stations))
     print(f"{outdir}: {len(polys)} polygons in {len(set(units))} units, {len(lines)} lines, "
-          f"{len(samples)} samples, {len(structures)} structures, {len(stations)} stations")
+          f"{len(samples)} samples, {len(structures)} structures, {len(stations)} stations, {photos} photos")
 
 
 if __name__ == "__main__":

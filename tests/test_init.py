@@ -45,6 +45,8 @@ def with_manifest(tmp_path: Path, files: Path, name: str = "original") -> Path:
     root = tmp_path / name
     shutil.copytree(files, root)
     shutil.copy2(BUNDLE / "archivist.toml", root / "archivist.toml")
+    for folder in ("photos", "fieldbook"):  # the manifest's [files] (init placing them: tests/test_photos.py)
+        shutil.copytree(BUNDLE / folder, root / folder)
     return root
 
 

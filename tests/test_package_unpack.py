@@ -67,7 +67,8 @@ def test_unpacked_project_is_the_input_with_new_version_and_origin(tmp_path):
     result = archivist.unpack(archive, tmp_path / "work")
     assert result.origin == "source"
     stations = ("stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv")
-    assert result.files == ("analyses.xlsx", "archivist.toml", "legend.csv", "map.gpkg", *stations)
+    media = tuple(sorted(f"{d}/{p.name}" for d in ("fieldbook", "photos") for p in (BUNDLE / d).iterdir()))
+    assert result.files == ("analyses.xlsx", "archivist.toml", *media[:1], "legend.csv", "map.gpkg", *media[1:], *stations)
     for name in ("analyses.xlsx", "legend.csv", "map.gpkg", *stations):
         assert (tmp_path / "work" / name).read_bytes() == (BUNDLE / name).read_bytes()
     before = tomllib.loads((BUNDLE / "archivist.toml").read_text())

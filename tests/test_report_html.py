@@ -771,7 +771,7 @@ def test_rules_that_did_not_run_count_only_those_that_could_have(tmp_path):
         else:
             assert rid in cannot, rid
     assert could and cannot and set(could).isdisjoint(cannot)
-    assert {rules[x].family for x in could} <= {"metadata", "linework", "crs", "samples", "structures", "stations"}
+    assert {rules[x].family for x in could} <= {"metadata", "linework", "crs", "samples", "structures", "stations", "photos"}
     assert all(rules[x].family not in ("topology", "legend") for x in could)
     assert any(rules[x].family == "archive" for x in cannot)
     text = render_html(report, project)

@@ -33,6 +33,10 @@ class Hashes:
             for p, digest in zip(todo, pool.map(sha256_file, todo)):
                 self._known[p] = (digest, p.stat().st_size)
 
+    def record(self, path: Path, digest: str, size: int) -> None:
+        """Take the SHA-256 and size of ``path`` as computed while it was written (a streamed copy), not read again."""
+        self._known[path] = (digest, size)
+
     def get(self, path: Path) -> tuple[str, int]:
         if path not in self._known:
             self.add([path])

@@ -50,6 +50,7 @@ from . import datapackage as dp
 from .bagwrite import Hashes, write_bag
 from .deposit import Deposit, SourceNames, read_deposit, source_names
 from .determinism import fix_modes, json_text, pack_time, write_json, write_text, zip_tree
+from .media import pack_media
 from .layers import PreparedLayer, layer_title, all_tables, prepare_layers, write_geojson, write_geopackage
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance, repair_record
@@ -127,6 +128,8 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
     for role, table in project.tables.items():
         for path in table.paths:
             roles.setdefault(path.resolve(), []).append(role)
+    for path, role in _link_tables(project):
+        roles.setdefault(path, []).append(role)
     names = source_names(project, roles)
     out: dict[Path, tuple[str, str]] = {}
     for path, rs in roles.items():
@@ -134,6 +137,18 @@ def input_files(project: MapProject) -> list[tuple[Path, str, str]]:
         for p in dataset_files(path) or [path]:
             out[p] = (names.name(p), label)
     return sorted(((p, rel, label) for p, (rel, label) in out.items()), key=lambda t: t[1])
+
+
+def _link_tables(project: MapProject) -> list[tuple[Path, str]]:
+    """(file, role) of the link tables of ``[files]`` that exist: inputs like the layers and tables."""
+    out = []
+    for kind, media in project.media.items():
+        rel = getattr(media, "link_source", None)
+        if isinstance(rel, str):
+            path = Path(rel) if Path(rel).is_absolute() else (project.root / rel).resolve()
+            if path.is_file():
+                out.append((path, f"{kind} link table"))
+    return out
 
 
 def stored_name(rel: str) -> str:
@@ -162,6 +177,7 @@ def input_names(project: MapProject) -> SourceNames:
     """The names :func:`input_files` gives the inputs, for labelling them elsewhere in the package."""
     paths = [p for _, p in _manifest_paths(project)]
     paths += [p for layer in project.sources.values() for p in layer.paths] + [p for table in project.tables.values() for p in table.paths]
+    paths += [p for p, _ in _link_tables(project)]
     if project.manifest_path is not None:
         paths.append(project.manifest_path)
     return source_names(project, paths)
@@ -367,7 +383,8 @@ def pack(
             zip_tmp = stack.enter_context(staging_file(zip_target)) if zip_target else None
             hashes = Hashes()
             with progress.step("writing the package"):
-                _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible)
+                _write_payload(project, deposit, report, bag / "data", hashes, (check_start, check_end), pack_start, reproducible,
+                               progress)
                 write_bag(bag, deposit, hashes, open_errors=errors)
             fix_modes(bag)
             files = tuple(sorted(p.relative_to(bag).as_posix() for p in bag.rglob("*") if p.is_file()))
@@ -415,6 +432,7 @@ def _write_payload(
     check_times: tuple[dt.datetime, dt.datetime],
     pack_start: dt.datetime,
     reproducible: bool,
+    progress: Progress | None = None,
 ) -> None:
     data.mkdir()
     resources: list[dp.ResourceInfo] = []
@@ -466,12 +484,27 @@ def _write_payload(
                 rewritten[rel] = own_manifest[1]
                 continue
             shutil.copyfile(src, dest)
+
+        # Photos and field-book scans: streamed into folders of their own, hashed on the way, with their link tables.
+        packed_media = [pack_media(m, data, hashes, progress or Progress()) for m in project.media.values() if m.files]
         gpkg_job.result()
+    taken = {r.name for r in resources}
+    for pm in packed_media:
+        for info in pm.files:
+            info.name = _unique_name(f"{pm.kind}-{info.path.split('/', 1)[1]}", taken)
+        resources += pm.files
+        if pm.table is not None:
+            pm.table.description = scrub(pm.table.description)
+            resources.append(pm.table)
+    packaged = packaged_manifest(project, [pl.role for pl in layers], {r: p for r, p in table_paths.items() if r in project.tables})
+    if packed_media:
+        packaged = {**{k: v for k, v in packaged.items() if k != "checks"}, "files": {pm.kind: pm.manifest for pm in packed_media},
+                    **({"checks": packaged["checks"]} if "checks" in packaged else {})}
 
     write_text(
         data / MANIFEST_NAME,
         dump_toml(
-            packaged_manifest(project, [pl.role for pl in layers], {r: p for r, p in table_paths.items() if r in project.tables}),
+            packaged,
             header=f"Written by archivist pack: the manifest of {deposit.stem}, pointing at the files of this package.\n"
             "'archivist check' runs on this folder as it is.",
         ),
@@ -532,7 +565,8 @@ def _write_payload(
         deposit,
         bbox_wgs84=bbox_wgs84,
         formats=[dp.media_type(r.path)[1] for r in resources],
-        sizes=[f"{pl.count} features in {pl.role}" for pl in layers] + [f"{len(t.frame)} rows in {t.name}" for t in tables if t.name in project.tables],
+        sizes=[f"{pl.count} features in {pl.role}" for pl in layers] + [f"{len(t.frame)} rows in {t.name}" for t in tables if t.name in project.tables]
+        + [f"{pm.count} files in {pm.kind}" for pm in packed_media],
         technical=technical,
         open_errors=open_errors,
         earlier=earlier,
@@ -553,6 +587,7 @@ def _write_payload(
             bbox,
             bbox_wgs84,
             notes + list(shared.notes),
+            media=[scrub(pm.readme) for pm in packed_media],
         ),
     )
     write_text(data / "LICENSE.txt", licence_text(deposit))
@@ -584,6 +619,16 @@ def _write_payload(
 def _crs_id(crs: pyproj.CRS) -> str:
     auth = crs.to_authority(min_confidence=70)
     return f"{auth[0]}:{auth[1]}" if auth else crs.name
+
+
+def _unique_name(wanted: str, taken: set[str]) -> str:
+    """A resource name made of ``wanted`` (lower case, a-z 0-9 . _ -) that is not in ``taken``; added to it."""
+    base = re.sub(r"[^a-z0-9._-]+", "-", wanted.lower()).strip("-")
+    name, i = base, 2
+    while name in taken:
+        name, i = f"{base}-{i}", i + 1
+    taken.add(name)
+    return name
 
 
 def _resource_name(wanted: str, resources: list[dp.ResourceInfo]) -> str:

@@ -104,6 +104,7 @@ def readme_text(
     bbox: tuple[float, float, float, float] | None,
     bbox_wgs84: tuple[float, float, float, float] | None,
     notes: list[str],
+    media: list[str] | tuple[str, ...] = (),
 ) -> str:
     """The package README: what the map is, how to use and cite it, and what was and was not checked."""
     s = report.summary
@@ -155,6 +156,9 @@ def readme_text(
         )
     for name, title, rows in tables:
         out.append(f"| `tables/{name}.csv` | {_md(title)}: {_plural(rows, 'row')}, UTF-8 CSV. |")
+    for line in media:  # photos and field-book scans: how many, how tied to stations, where the links are
+        folder = line.split("`", 2)[1] if line.count("`") >= 2 else ""
+        out.append(f"| `{folder}` | {line.replace('|', '&#124;')} |")
     out += [
         "| `datapackage.json` | Frictionless Data Package descriptor: every file with its size and SHA-256, a Table Schema for every table with types, units and the keys that link the tables. |",
         "| `metadata/datacite.json` | DataCite Metadata Schema 4.5 record for the repository. |",

@@ -144,6 +144,33 @@ def screen_manifest(raw: dict[str, Any], base: Path, label: str, where: str) -> 
             elif admitted(group, role, spec):
                 kept[role] = spec
         out[group] = kept
+    files = out.get("files")
+    if isinstance(files, dict):
+        kept_files: dict[str, Any] = {}
+        for kind, spec in files.items():
+            if not isinstance(spec, dict):
+                continue
+            spec = dict(spec)
+            entries = spec.get("paths")
+            for rel in [entries] if isinstance(entries, str) else (entries if isinstance(entries, list) else []):
+                if not isinstance(rel, str):
+                    continue
+                why = name_problem(rel.replace("*", "x").replace("?", "x").replace("[", "x").replace("]", "x"))
+                if why or rel.startswith("/") or ".." in rel.split("/"):
+                    raise ArchivistError(f"{label}: {where}: files.{kind}.paths '{rel}' leads outside the archive; refusing the archive")
+            rel = spec.get("link_table")
+            if isinstance(rel, str):
+                why = name_problem(rel)
+                target = (base / rel).resolve()
+                if why or (target != base and base not in target.parents):
+                    raise ArchivistError(f"{label}: {where}: files.{kind}.link_table '{rel}' leads outside the archive; refusing the archive")
+                problem = open_problem(target)
+                if problem:
+                    hits.append(Hit(f"files.{kind}.link_table: '{rel}' was not opened: {problem}.", layer=kind, rule="layer-unreadable"))
+                    held.append(rel)
+                    spec.pop("link_table")
+            kept_files[kind] = spec
+        out["files"] = kept_files
     return out, hits, held
 
 
@@ -190,6 +217,10 @@ def _load_archive_project(arc: OpenedArchive) -> OpenedMap:
             project = load_project(data)
             # archive-map-missing says this for an archive, with what to ask the authors for
             project.problems = [h for h in project.problems if not (h.rule == "layer-missing" and h.layer == "units")]
+    from ..photos import UNTRUSTED_EXIF_BYTES
+
+    for media in project.media.values():  # EXIF of the archive's photos is read only under the cap
+        media.max_exif_bytes = UNTRUSTED_EXIF_BYTES
     named = {h.rstrip("/") for h in held}
     unopened = [(rel, why) for rel, why in unsafe if rel.rstrip("/") not in named]  # the others have a layer-unreadable hit
     for rel, why in unopened:

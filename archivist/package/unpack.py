@@ -12,6 +12,10 @@ What the new project holds:
   ``archivist.toml``, comments included), when every file that manifest names
   is there; otherwise the package's own files (``map.gpkg``, ``tables/*.csv``)
   with the manifest the packager wrote for them (``data/archivist.toml``);
+* the photos and field-book scans (``data/photos/``, ``data/fieldbooks/``),
+  put back where the project's ``[files]`` paths found them (the
+  ``original`` column of the package's ``tables/photos.csv``), or left where
+  the package holds them when the package's own manifest is used;
 * that manifest with two changes: ``map.version`` is bumped, and
   ``map.derived_from`` names the package it came from (its name and version,
   the SHA-256 of its payload manifest, and its DOI when it has one). A
@@ -68,7 +72,7 @@ from ..interrupt import Interrupted, terminate_as_exception
 from ..manifest import MANIFEST_NAME, spec_paths
 from ..tomltext import dump_toml
 from .bagcheck import verify_bag
-from .safe import Limits, open_archive
+from .safe import Limits, name_problem, open_archive
 from ..safeparse import LimitExceeded, load_json, load_toml
 from .source import is_bag
 
@@ -137,6 +141,37 @@ def _manifest_paths(data: dict[str, Any]) -> list[str]:
     for group in ("layers", "tables"):
         for spec in (data.get(group) or {}).values():
             out.extend(spec_paths(spec))  # a path, or a list of files handed in together
+    for spec in (data.get("files") or {}).values():  # the link tables of photos and field-book scans
+        if isinstance(spec, dict) and isinstance(spec.get("link_table"), str):
+            out.append(spec["link_table"])
+    return out
+
+
+def _media_files(data: Path, packaged: dict[str, Any], original: bool) -> list[tuple[Path, str]]:
+    """(file in the package, where it goes in the new project) for every photo and scan the package's link tables list.
+
+    The package's ``tables/<kind>.csv`` names each file's place in the package
+    (``photo``) and in the project it was packed from (``original``); with
+    ``original`` the files go back to those places (the inputs' own manifest
+    names them there), else they keep their places in the package.
+    """
+    import csv
+
+    out: list[tuple[Path, str]] = []
+    for spec in (packaged.get("files") or {}).values():
+        rel = spec.get("link_table") if isinstance(spec, dict) else None
+        table = _inside(data, rel) if isinstance(rel, str) else None
+        if table is None or not table.is_file():
+            continue
+        with open(table, encoding="utf-8", newline="") as fh:
+            for row in csv.DictReader(fh):
+                src = _inside(data, str(row.get("photo") or ""))
+                if src is None or not src.is_file():
+                    continue
+                dest = str(row.get("original") or "") if original else ""
+                if not dest or name_problem(dest) is not None:
+                    dest = src.relative_to(data).as_posix()
+                out.append((src, dest))
     return out
 
 
@@ -445,6 +480,13 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
                 dest = tmp / part_rel
                 dest.parent.mkdir(parents=True, exist_ok=True)
                 written[part_rel] = _copy_file(part, dest)
+        # photos and field-book scans, at the places the manifest's [files] paths look for them
+        for src_file, dest_rel in _media_files(data, packaged, origin == "source"):
+            if dest_rel in written or dest_rel in (MANIFEST_NAME, MARKER):
+                continue
+            dest = tmp / dest_rel
+            dest.parent.mkdir(parents=True, exist_ok=True)
+            written[dest_rel] = _copy_file(src_file, dest)
         written[MANIFEST_NAME] = _write_new(tmp / MANIFEST_NAME, new_text.encode("utf-8"))
     record = {"kind": MARKER_KIND, "archivist": __version__, "package": derived, "authors": authors, "files": dict(sorted(written.items()))}
     _write_new(tmp / MARKER, (json.dumps(record, indent=2, ensure_ascii=False) + "\n").encode("utf-8"))

@@ -954,3 +954,56 @@ def archive_map_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
             f"unit-code field.{held}",
             layer=facts.label,
         )
+
+
+@rule("archive-fieldwork-missing", family="archive", severity="error", needs=NEEDS)
+def archive_fieldwork_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
+    """The archive's map cites photos, field-book scans or stations that the archive does not hold.
+
+    Catches
+    -------
+    Each row of a `[files.photos]` or `[files.fieldbooks]` link table of the
+    archive's manifest (in an archivist package, `tables/photos.csv` and
+    `tables/fieldbooks.csv`) whose file is not in the archive, and each row
+    that ties a file to a station missing from the archive's stations layer
+    (when the archive has one). Files the checksums list but the archive
+    lacks are `archive-file-missing`; this rule is about what the map's own
+    tables cite.
+
+    Why it matters
+    --------------
+    Photos and field notes are the evidence under the map; an archive that
+    lists them without holding them, or ties them to stations it does not
+    hold, cannot be re-examined, and the originals are often lost once the
+    project ends.
+
+    Fix
+    ---
+    Ask the authors for the missing photos, scans or stations (the finding
+    names each with its row); a package made again with `archivist pack`
+    from the complete project holds them.
+
+    Example
+    -------
+    A package whose `tables/photos.csv` row 4 names `photos/ST03_1.jpg`,
+    which was left out of the zip: "photo photos/ST03_1.jpg is cited by
+    tables/photos.csv row 4 (station ST03) but is not in the archive".
+    """
+    from ..photos import KIND_WORDS, MediaSet
+
+    stations = project.layers.get("stations")
+    known = {str(i).strip() for i in stations.ids} if stations is not None else None
+    for kind, media in project.media.items():
+        if not isinstance(media, MediaSet):
+            continue
+        word = KIND_WORDS[kind][0]
+        for m in media.missing:
+            at = f" (station {m.station})" if m.station else ""
+            yield Hit(f"{word} {m.name} is cited by {media.link_source} row {m.row}{at} but is not in the archive.",
+                      layer=kind, features=(m.name,))
+        if known is None:
+            continue
+        for f in media.files:
+            if f.station and f.link == "table" and f.station not in known:
+                yield Hit(f"{word} {f.rel} is tied by {media.link_source} row {f.row} to station {f.station}, "
+                          "which is not in the archive's stations.", layer=kind, features=(f.rel, f.station))
