@@ -55,7 +55,7 @@ class Rule(Protocol):
 R = TypeVar("R", bound=Rule)
 
 SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
-FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "archive")
+FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "literature", "archive")
 FAMILY_MODULES = {
     "metadata": "archivist.rules.metadata",
     "topology": "archivist.rules.topology",
@@ -64,6 +64,7 @@ FAMILY_MODULES = {
     "legend": "archivist.rules.legend",
     "samples": "archivist.rules.samples",
     "structures": "archivist.rules.structures",
+    "literature": "archivist.rules.literature",
     "archive": "archivist.rules.archive",  # run by `archivist audit` only: its rules need the archive facts
 }
 _ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)+$")

@@ -135,11 +135,14 @@ def datacite_record(
     technical: str,
     open_errors: list[str],
     earlier: Sequence[EarlierAuthor] | None = None,
+    references: tuple[list[dict[str, Any]], list[dict[str, Any]]] = ([], []),
 ) -> dict[str, Any]:
     """The record; ``open_errors`` (messages) are stated in a description when the package was made with errors.
 
     ``earlier``: the authors of the package named by ``map.derived_from``
     (:func:`earlier_authors`), which decides the relation type.
+    ``references``: (relatedIdentifiers, relatedItems) entries of the works
+    the compiled analyses cite (:func:`archivist.package.literature.related`).
     """
     rec: dict[str, Any] = {
         "schemaVersion": SCHEMA_VERSION,
@@ -197,4 +200,9 @@ def datacite_record(
             rec["relatedIdentifiers"] = [{"relatedIdentifier": earlier_doi, "relatedIdentifierType": "DOI", "relationType": relation}]
         elif re.match(r"^https?://", deposit.derived_from):
             rec["relatedIdentifiers"] = [{"relatedIdentifier": deposit.derived_from, "relatedIdentifierType": "URL", "relationType": relation}]
+    cited, items = references
+    if cited:
+        rec["relatedIdentifiers"] = rec.get("relatedIdentifiers", []) + list(cited)
+    if items:
+        rec["relatedItems"] = list(items)
     return rec

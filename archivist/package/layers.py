@@ -46,6 +46,7 @@ LAYER_TITLES = {
     "structures": "Structural measurements",
     "legend": "Legend",
     "analyses": "Analyses",
+    "references": "References",
 }
 LAYER_DESCRIPTIONS = {
     "units": "Polygons of the mapped units; together they tile the map.",
@@ -58,6 +59,7 @@ LAYER_DESCRIPTIONS = {
     "structures": "Orientation measurements at stations.",
     "legend": "One row per map unit: code, name, description, age.",
     "analyses": "Laboratory analyses, one row per analysed sample.",
+    "references": "The works that analyses compiled from publications cite: one row per work, with its key, DOI and citation.",
 }
 FIELD_DESCRIPTIONS = {
     ("units", "unit_field"): "Map unit code; every code is a unit of the legend.",
@@ -393,6 +395,10 @@ def project_table(project: MapProject, role: str) -> TextTable:
                 units[col] = unit
             if key == "unit":
                 identifiers.add(col)
+    if role == "references":  # the key and DOI columns as the checks find them stay text
+        from ..vocab.literature import column as reference_column
+
+        identifiers |= {c for c in (reference_column(t, "key"), reference_column(t, "doi")) if c is not None}
     analyte_columns: set[str] = set()
     if role == "analyses":  # units from a units row or [tables.analyses] unit, as the checks read them
         found = analytes(t)
@@ -444,5 +450,8 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
     sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
     if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):
         analyses.foreign_keys.append({"fields": [sample_field], "reference": {"resource": "samples", "fields": [sample_id]}})
+    from .literature import link
+
+    link(project, tables)  # compiled analyses: the references table and its keys
     order = [pl.role for pl in layers] + list(TABLE_ROLES)
     return [tables[r] for r in order if r in tables]
