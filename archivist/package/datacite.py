@@ -29,6 +29,17 @@ earlier authors (no mark, or ``derived_from`` typed by hand) the record says
 ``IsDerivedFrom``, which is true of both (DataCite 4.5, relationType:
 IsNewVersionOf "indicates A is a new edition of B"; IsDerivedFrom "indicates
 B is a source upon which A is based"; both from memory).
+
+Works cited by compiled analyses
+--------------------------------
+Analyses compiled from publications cite works (``[tables.analyses]
+source_field``, ``[tables.references]``). A work with a DOI is a
+``relatedIdentifiers`` entry with ``relationType`` ``References`` and
+``relatedIdentifierType`` ``DOI``; a work without one is a ``relatedItems``
+entry (a related item described by its titles, creators and year when it
+has no identifier; added in DataCite 4.4, from memory, and present in the
+shipped 4.5 JSON Schema, which requires its ``titles``), ``relatedItemType``
+``Text`` (:mod:`archivist.package.literature`).
 """
 
 from __future__ import annotations

@@ -454,4 +454,5 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
 
     link(project, tables)  # compiled analyses: the references table and its keys
     order = [pl.role for pl in layers] + list(TABLE_ROLES)
+    order += [r for r in tables if r not in order]  # tables the packager adds (archivist.package.literature)
     return [tables[r] for r in order if r in tables]

@@ -14,16 +14,16 @@ Package:
   references table, keyed by the DOI as the analyses write it, so that the
   key resolves and the work is listed with the others;
 * compiled rows are not the team's samples, so the key from the analyses to
-  the samples table is carried by an added column, ``own_sample_id``: the
-  sample id of the team's own rows, empty for compiled rows. The source
-  column and every other column stay as written.
+  the samples table is carried by a table of its own, ``analysis-samples``
+  (the data row of each of the team's own analyses and its sample id, with
+  a foreign key to the samples). The analyses table's cells stay as written.
 
 The DataCite record lists the works (:func:`related`): a work with a DOI as
 a ``relatedIdentifiers`` entry (``relationType`` ``References``,
 ``relatedIdentifierType`` ``DOI``), a work without one as a ``relatedItems``
-entry (DataCite 4.5, property 20: a related item described by its title,
-creators and year when it has no identifier; ``relatedItemType`` ``Text``,
-``relationType`` ``References``). A work with neither DOI nor any text to
+entry (a related item described by its title, creators and year when it
+has no identifier, as the shipped DataCite 4.5 JSON Schema defines it;
+``relatedItemType`` ``Text``, ``relationType`` ``References``). A work with neither DOI nor any text to
 title it cannot be described under DataCite 4.5 (``titles`` is required)
 and is left out; the README of the package lists every work anyway.
 """
@@ -37,9 +37,9 @@ import pandas as pd
 from ..project import MapProject
 from ..readers import text_column
 from ..vocab import literature as vl
-from .tables import TextTable
+from .tables import TextTable, text_table
 
-OWN_SAMPLE_COLUMN = "own_sample_id"
+LINK_TABLE = "analysis-samples"
 ADDED_ROW_NOTE = "cited by DOI in the analyses; row added by archivist pack"
 
 
@@ -56,23 +56,26 @@ def link(project: MapProject, tables: dict[str, TextTable]) -> None:
     comp = vl.compilation(analyses_t)
     if not comp.any:
         return
-    # the team's own samples: the key column added, the one from sample_field dropped
+    # the team's own samples: their key lives in a table of its own, the analyses table stays as written
     sample_field = analyses_t.spec.get("sample_field")
     samples = tables.get("samples")
     analyses.foreign_keys = [fk for fk in analyses.foreign_keys if fk.get("reference", {}).get("resource") != "samples"]
     if samples is not None and samples.primary_key and analyses.has(sample_field):
-        name = OWN_SAMPLE_COLUMN
-        while name in analyses.frame.columns:
-            name = "_" + name
-        ids = analyses.frame[sample_field].astype(object)
-        analyses.frame[name] = ids.where(~pd.Series(comp.literature, index=analyses.frame.index), "")
-        analyses.fields.append({
-            "name": name,
-            "type": "string",
-            "description": f"Added by archivist pack: the sample id ({sample_field}) of the team's own analyses, empty for "
-                           "analyses compiled from publications, which are not samples of this map; the key to the samples table.",
+        own = ~pd.Series(comp.literature, index=analyses.frame.index)
+        frame = pd.DataFrame({
+            "row": [int(i) + 1 for i in range(len(analyses.frame)) if own.iloc[i]],
+            str(sample_field): analyses.frame[sample_field][own].astype(object).to_list(),
         })
-        analyses.foreign_keys.append({"fields": [name], "reference": {"resource": "samples", "fields": list(samples.primary_key)}})
+        link_table = text_table(LINK_TABLE, frame, identifiers={str(sample_field)}, descriptions={
+            "row": "Data row of the analyses table (tables/analyses.csv; 1 is the first row under the header).",
+            str(sample_field): "Sample id of the team's own analysis in that row; a sample of the samples table.",
+        })
+        link_table.title = "Analyses of the team's own samples"
+        link_table.description = (
+            "Written by archivist pack: which rows of the analyses table are the team's own analyses, and of which sample. "
+            "Rows compiled from publications are not samples of this map and are not listed; the analyses table stays as written.")
+        link_table.foreign_keys.append({"fields": [str(sample_field)], "reference": {"resource": "samples", "fields": list(samples.primary_key)}})
+        tables[LINK_TABLE] = link_table
     # the works cited
     source = comp.source_col
     if refs is None or key_col is None or source is None or not analyses.has(source) or not refs.has(key_col):
