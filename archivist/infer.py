@@ -316,6 +316,7 @@ def _legend(sources: list[Source]) -> tuple[Source | None, str | None]:
 
 
 REFERENCE_WORDS = re.compile(r"reference|bibliograph|sources|literature|citation", re.I)
+METHOD_NAMES = ("method", "analytical_method", "technique", "analysis_method")
 SOURCE_NAMES = ("source", "reference", "ref", "ref_key", "reference_key", "citation", "doi")  # an analyses column
 
 
@@ -422,8 +423,18 @@ def _infer(path: Path) -> Inference:
     if "analyses" in placed:
         cited = _pick(placed["analyses"].source.fields, SOURCE_NAMES)
         if cited:
-            placed["analyses"].spec["source_field"] = cited
+            fields = placed["analyses"].source.fields
+            spec = placed["analyses"].spec
+            spec["source_field"] = cited
             placed["analyses"].why.append(f"a column '{cited}' naming the source of rows compiled from publications")
+            method = _pick(fields, METHOD_NAMES)
+            if method:
+                spec["method_field"] = method
+            from .vocab.coordinates import lonlat_columns
+
+            where = lonlat_columns(fields, {})
+            if where is not None:
+                spec["lon_field"], spec["lat_field"] = where.lon, where.lat
 
     # polygons: the unit layer, then the extent
     polys = [s for s in sources if s.geometry == "Polygon"]

@@ -66,8 +66,8 @@ def test_unpacked_project_is_the_input_with_new_version_and_origin(tmp_path):
     archive = package_zip(tmp_path, "bundle")
     result = archivist.unpack(archive, tmp_path / "work")
     assert result.origin == "source"
-    assert result.files == ("analyses.xlsx", "archivist.toml", "legend.csv", "map.gpkg")
-    for name in ("analyses.xlsx", "legend.csv", "map.gpkg"):
+    assert result.files == ("analyses.xlsx", "archivist.toml", "legend.csv", "map.gpkg", "references.csv")
+    for name in ("analyses.xlsx", "legend.csv", "map.gpkg", "references.csv"):
         assert (tmp_path / "work" / name).read_bytes() == (BUNDLE / name).read_bytes()
     before = tomllib.loads((BUNDLE / "archivist.toml").read_text())
     after = tomllib.loads((tmp_path / "work" / "archivist.toml").read_text())
