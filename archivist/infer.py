@@ -320,6 +320,33 @@ def _legend(sources: list[Source]) -> tuple[Source | None, str | None]:
     return (best[1], best[2]) if best else (None, None)
 
 
+REFERENCE_WORDS = re.compile(r"reference|bibliograph|sources|literature|citation", re.I)
+METHOD_NAMES = ("method", "analytical_method", "technique", "analysis_method")
+SOURCE_NAMES = ("source", "reference", "ref", "ref_key", "reference_key", "citation", "doi")  # an analyses column
+
+
+def _references(sources: list[Source], used: set[int]) -> tuple[Source, dict[str, Any], str] | None:
+    """A references table: a DOI column beside a citation, authors or title column, or a key column in a file named
+    like a bibliography (references.csv, bibliography.xlsx, sources.csv); columns as archivist.vocab.literature reads them."""
+    from .vocab.literature import SPELLINGS, header_key
+
+    for s in sources:
+        if s.geometry is not None or id(s) in used:
+            continue
+        keys = {header_key(f): f for f in s.fields}
+        found = {k: next((keys[n] for n in names if n in keys), None) for k, names in SPELLINGS.items()}
+        text = [k for k in ("citation", "authors", "title") if found[k]]
+        named = bool(REFERENCE_WORDS.search(s.sheet or s.path.stem))
+        if found["doi"] and text or named and found["key"] and (found["doi"] or text):
+            spec = s.spec()
+            for k in ("key", "doi", "citation"):
+                if found[k]:
+                    spec[f"{k}_field"] = found[k]
+            cols = ", ".join(f"'{found[k]}'" for k in ("key", "doi", *text) if found[k])
+            return s, spec, f"columns {cols} of a table of cited works" + (" named like one" if named else "")
+    return None
+
+
 LINE_KEY_WORDS = (
     ("contacts", re.compile(r"contact", re.I)),
     ("faults", re.compile(r"fault|thrust", re.I)),
@@ -449,6 +476,26 @@ def _infer(path: Path) -> Inference:
             spec = s.spec()
             spec["sample_field"] = sid
             place("analyses", s, spec, [f"{len(oxides)} oxide columns ({', '.join(oxides[:4])}…) and a sample column '{sid}'"])
+
+    refs = _references(sources, used)
+    if refs is not None:
+        src, spec, why = refs
+        place("references", src, spec, [why])
+    if "analyses" in placed:
+        cited = _pick(placed["analyses"].source.fields, SOURCE_NAMES)
+        if cited:
+            fields = placed["analyses"].source.fields
+            spec = placed["analyses"].spec
+            spec["source_field"] = cited
+            placed["analyses"].why.append(f"a column '{cited}' naming the source of rows compiled from publications")
+            method = _pick(fields, METHOD_NAMES)
+            if method:
+                spec["method_field"] = method
+            from .vocab.coordinates import lonlat_columns
+
+            where = lonlat_columns(fields, {})
+            if where is not None:
+                spec["lon_field"], spec["lat_field"] = where.lon, where.lat
 
     # polygons: the unit layer, then the extent
     polys = [s for s in sources if s.geometry == "Polygon"]
@@ -617,7 +664,7 @@ def _infer(path: Path) -> Inference:
     listed = [placed[r].spec for r in placed if r.startswith("lines[")]
     if listed:
         layers["lines"] = listed
-    tables = {r: placed[r].spec for r in ("legend", "analyses") if r in placed}
+    tables = {r: placed[r].spec for r in ("legend", "analyses", "references") if r in placed}
     manifest: dict[str, Any] = {"map": {"title": title, "version": "0.1.0", "scale": 25000}, "layers": layers}
     if tables:
         manifest["tables"] = tables

@@ -119,6 +119,7 @@ def line_defaults(key: str, spec: dict[str, Any]) -> dict[str, Any]:
 TABLE_DEFAULTS: dict[str, dict[str, str]] = {
     "legend": {},
     "analyses": {"sample_field": "sample_id"},
+    "references": {},  # columns found by their usual headers (archivist.vocab.literature)
 }
 
 

@@ -29,7 +29,7 @@ from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
 from .reference import CHART_VERSIONS, DEFAULT_CHART
 
 LAYER_ROLES = ("units", "lines", "extent", "samples", "structures", "stations")
-TABLE_ROLES = ("legend", "analyses")
+TABLE_ROLES = ("legend", "analyses", "references")
 EXPECTED_GEOMETRY = {
     "units": ("Polygon", "MultiPolygon"),
     "extent": ("Polygon", "MultiPolygon"),
@@ -586,7 +586,7 @@ def load_table(root: Path, role: str, spec: dict[str, Any], problems: list[Hit],
         problems.append(Hit(f"tables.{role}: file '{rel}' does not exist.", layer=role, rule="layer-missing"))
         return None
     header_row = spec.get("header_row") if isinstance(spec.get("header_row"), int) else None
-    test = va.analyses_header_test(spec.get("sample_field")) if role == "analyses" else vl.header_test(spec)
+    test = va.analyses_header_test(spec.get("sample_field")) if role == "analyses" else vl.header_test(spec) if role == "legend" else None
     skip = va.qc_sheet if role == "analyses" and not spec.get("sheet") else None
     data, hits = read_table(path, rel, spec.get("sheet"), header_row=header_row, looks_like_header=test, skip_sheet=skip)
     problems.extend(hits)

@@ -55,7 +55,7 @@ class Rule(Protocol):
 R = TypeVar("R", bound=Rule)
 
 SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
-FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "stations", "photos", "archive")
+FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "stations", "photos", "literature", "archive")
 FAMILY_MODULES = {
     "metadata": "archivist.rules.metadata",
     "topology": "archivist.rules.topology",
@@ -66,6 +66,7 @@ FAMILY_MODULES = {
     "structures": "archivist.rules.structures",
     "stations": "archivist.rules.stations",  # field stations, the links to them, and files handed in together
     "photos": "archivist.rules.photos",
+    "literature": "archivist.rules.literature",
     "archive": "archivist.rules.archive",  # run by `archivist audit` only: its rules need the archive facts
 }
 _ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)+$")

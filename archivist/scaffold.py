@@ -29,6 +29,7 @@ ROLE_TITLES = {
     "stations": "Field stations and observations",
     "legend": "The legend",
     "analyses": "Analyses of the samples",
+    "references": "Works cited by analyses compiled from publications",
 }
 ROLE_HINTS = {
     "units": ("polygons with a field of unit codes", ["path = \"…\"", "layer = \"…\"", "unit_field = \"…\""]),
@@ -40,6 +41,7 @@ ROLE_HINTS = {
                  ["path = \"…\"", "id_field = \"…\""]),
     "legend": ("a CSV or XLSX table: unit, name, description, age, min_age_ma, max_age_ma, order, colour", ["path = \"…\""]),
     "analyses": ("a CSV or XLSX table of analyses with a sample id column", ["path = \"…\"", "sample_field = \"…\""]),
+    "references": ("a CSV or XLSX table of cited works: key, doi, citation", ["path = \"…\"", "key_field = \"…\"", "doi_field = \"…\""]),
 }
 COMMENT_COLUMN = 40
 
@@ -109,7 +111,7 @@ def manifest_text(inf: Inference, command_path: str) -> str:
         "",
     ]
     layer_roles = ("units", "lines", "extent", "samples", "structures", "stations")
-    table_roles = ("legend", "analyses")
+    table_roles = ("legend", "analyses", "references")
     line_keys: list[str] = [r for r in ("contacts", "faults", "frame") if r in inf.placed]
     line_keys += [r for r in inf.placed if r.startswith("lines[")]
     if not any(r in inf.placed for r in layer_roles) and not line_keys:

@@ -458,6 +458,64 @@ def stations_bytes(stations, observer):
         if row["observer"] == observer:
             w.writerow(row.values())
     return buf.getvalue().encode("utf-8")
+# Compiled analyses from invented publications. The DOIs use the prefix 10.5555, which Crossref uses in its
+# documentation as an example prefix and keeps for testing (no real work can be registered under it).
+LITERATURE_PREFIX = "10.5555"
+REFERENCES = [  # key, authors, year, title, citation, doi
+    ("Fennick2009", "Fennick, Aldous; Horrowby, Tamsin", "2009",
+     "Geochemistry of the Orrimby lavas, Tarrowmere district",
+     "Fennick, A. & Horrowby, T. (2009). Geochemistry of the Orrimby lavas, Tarrowmere district. "
+     "Journal of the Lower Tarrow Geological Society 41, 113-129.", f"{LITERATURE_PREFIX}/ltgs.2009.041.113"),
+    ("Quillon1932", "Quillon, Edric", "1932",
+     "The geology of the country around Tarrowmere",
+     "Quillon, E. (1932). The geology of the country around Tarrowmere. Memoir of the Tarrowmere Geological "
+     "Survey, sheet 7.", ""),
+]
+# One row cites its work by a key of the references table, the other by its DOI alone (an invented
+# bulletin of the invented survey); the references table also lists an old memoir that has no DOI.
+LITERATURE = [  # sample id in the publication, unit it was taken from, source cell, method
+    ("F09-14", "ORB", "Fennick2009", "XRF on fused beads"),
+    ("A14-3", "SKG", f"https://doi.org/{LITERATURE_PREFIX}/tgs.bull.2014.12", "ICP-OES after lithium borate fusion"),
+]
+OWN_METHOD = "WD-XRF"  # the team's own laboratory (the workbook's method sheet)
+
+
+def literature_analyses(polys, units):
+    """Two analyses compiled from invented publications, each at a point of its unit, and the references table.
+
+    Returns (rows for the analyses sheet, references.csv bytes, manifest keys of [tables.analyses] and
+    the [tables.references] block). Each row: sample id, oxides, Total, source, method, longitude,
+    latitude (WGS 84, 5 decimals, about 1 m).
+    """
+    import pyproj
+
+    to_lonlat = pyproj.Transformer.from_crs(CRS, "EPSG:4326", always_xy=True)
+    rows = []
+    for sid, unit, source, method in LITERATURE:
+        poly = max((p for p, u in zip(polys, units) if u == unit), key=lambda p: p.area)
+        inner = poly.buffer(-50)  # well inside, so that rounding the degrees keeps it in its unit
+        pt = inner.point_on_surface()
+        lon, lat = to_lonlat.transform(pt.x, pt.y)
+        mean = np.array(COMPOSITION[unit])
+        vals = [round(float(x), 2) for x in mean * 100.0 / mean.sum()]
+        total = round(sum(vals), 2)
+        rows.append([sid, *vals, total, source, method, round(lon, 5), round(lat, 5)])
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["key", "authors", "year", "title", "citation", "doi"])
+    w.writerows(REFERENCES)
+    manifest = (
+        'source_field = "source"\n'
+        'method_field = "method"\n'
+        'lon_field = "longitude"\n'
+        'lat_field = "latitude"\n'
+        "[tables.references]\n"
+        'path = "references.csv"\n'
+        'key_field = "key"\n'
+        'doi_field = "doi"\n'
+        'citation_field = "citation"\n'
+    )
+    return rows, buf.getvalue().encode("utf-8"), manifest
 
 
 def write_atomic(path: Path, data: bytes):
@@ -480,16 +538,20 @@ def write_gpkg(path: Path, layers):
         os.replace(tmp_path, path)
 
 
-def xlsx_bytes(analyses):
-    """The analyses workbook, with fixed document times and zip entry dates."""
+def xlsx_bytes(analyses, compiled=()):
+    """The analyses workbook, with fixed document times and zip entry dates; ``compiled`` rows (from the
+    literature) follow the team's own, which cite "this study"."""
     assert not openpyxl.xml.LXML, "openpyxl was imported before OPENPYXL_LXML=False was set"
     wb = openpyxl.Workbook()
     ws = wb.active
     ws.title = "majors"
-    ws.append(["sample_id", *[f"{ox} (wt%)" for ox in OXIDES], "Total (wt%)"])
+    extra = ["source", "method", "longitude", "latitude"] if compiled else []
+    ws.append(["sample_id", *[f"{ox} (wt%)" for ox in OXIDES], "Total (wt%)", *extra])
     for row in analyses:
+        ws.append(row + (["this study", OWN_METHOD, None, None] if compiled else []))
+    for row in compiled:
         ws.append(row)
-    for r in ws.iter_rows(min_row=2, min_col=2):
+    for r in ws.iter_rows(min_row=2, min_col=2, max_col=len(OXIDES) + 2):
         for cell in r:
             if not isinstance(cell.value, str):
                 cell.number_format = "0.00"
@@ -534,8 +596,8 @@ def legend_bytes():
     return buf.getvalue().encode("utf-8")
 
 
-def manifest_bytes():
-    """archivist.toml, the project manifest."""
+def manifest_bytes(literature_keys=""):
+    """archivist.toml, the project manifest; ``literature_keys`` follow [tables.analyses]."""
     authors = "".join(
         f'\n[[map.authors]]\nname = "{n}"\naffiliation = "{a}"\n' for n, a in AUTHORS)
     text = f'''# Example bundle written by example_bundle/make_bundle.py - do not edit by hand.
@@ -597,7 +659,7 @@ path = "legend.csv"
 path = "analyses.xlsx"
 sheet = "majors"
 sample_field = "sample_id"
-{PHOTOS_TOML}[checks]
+{literature_keys}{PHOTOS_TOML}[checks]
 tolerance = 0.5
 '''
     return text.encode("utf-8")
@@ -712,6 +774,7 @@ def main(outdir: Path):
     structures = make_structures(rng, polys, units, tree, blocks, faults)
     analyses = make_analyses(rng, samples)
     stations = make_stations(polys, units, tree, samples, structures)
+    compiled, references, literature_keys = literature_analyses(polys, units)
     write_gpkg(outdir / "map.gpkg", [
         ("units", [{"unit": u, "geometry": p} for u, p in zip(units, polys)]),
         ("lines", [{"kind": k, "certainty": c, "geometry": g} for k, c, g in lines]),
@@ -720,10 +783,11 @@ def main(outdir: Path):
         ("structures", structures),
     ])
     write_atomic(outdir / "legend.csv", legend_bytes())
-    write_atomic(outdir / "analyses.xlsx", xlsx_bytes(analyses))
+    write_atomic(outdir / "analyses.xlsx", xlsx_bytes(analyses, compiled))
+    write_atomic(outdir / "references.csv", references)
     for observer, name in STATION_FILES.items():
         write_atomic(outdir / name, stations_bytes(stations, observer))
-    write_atomic(outdir / "archivist.toml", manifest_bytes())
+    write_atomic(outdir / "archivist.toml", manifest_bytes(literature_keys))
     photos = make_photos(outdir, photo_stations(stations))
     print(f"{outdir}: {len(polys)} polygons in {len(set(units))} units, {len(lines)} lines, "
           f"{len(samples)} samples, {len(structures)} structures, {len(stations)} stations, {photos} photos")

@@ -491,8 +491,8 @@ def test_every_command_help_shows_its_first_sentence_whole(command):
 
 
 @pytest.mark.parametrize("command, families", [
-    ("check", "metadata, topology, linework, crs, legend, samples, structures, stations, photos."),
-    ("audit", "metadata, topology, linework, crs, legend, samples, structures, stations, photos, archive."),
+    ("check", "metadata, topology, linework, crs, legend, samples, structures, stations, photos, literature."),
+    ("audit", "metadata, topology, linework, crs, legend, samples, structures, stations, photos, literature, archive."),
 ])
 def test_only_help_names_the_families(command, families):
     from archivist.registry import FAMILIES

@@ -29,7 +29,7 @@ import shapely
 ROOT = Path(__file__).resolve().parents[1]
 BUNDLE = ROOT / "example_bundle"
 SCRIPT = BUNDLE / "make_bundle.py"
-FILES = ("map.gpkg", "legend.csv", "analyses.xlsx", "archivist.toml")
+FILES = ("map.gpkg", "legend.csv", "analyses.xlsx", "references.csv", "archivist.toml")
 LAYERS = ("units", "lines", "extent", "samples", "structures")
 LEGEND_COLUMNS = ["unit", "name", "description", "age", "min_age_ma", "max_age_ma", "order", "colour", "lithology", "kind"]
 OXIDE_HEADERS = ["SiO2", "TiO2", "Al2O3", "Fe2O3T", "MnO", "MgO", "CaO", "Na2O", "K2O", "P2O5", "LOI", "Total"]
@@ -39,6 +39,8 @@ ICS = {
     "Kasimovian": (303.7, 307.0), "Bashkirian-Moscovian": (307.0, 323.2), "Visean": (330.9, 346.7),
     "Tournaisian": (346.7, 358.9), "Famennian": (358.9, 372.2), "Ediacaran": (538.8, 635.0),
 }
+LITERATURE_COLUMNS = ["source", "method", "longitude", "latitude"]  # compiled analyses (tests/test_literature.py)
+COMPILED = 2  # rows taken from invented publications
 TOL = 1e-3  # metres, for "covered by" tests on 1 cm-grid data
 
 
@@ -112,7 +114,7 @@ def test_committed_bundle_is_what_the_script_makes(runs):
     """Same content as a fresh run. Text files byte for byte; the GeoPackage and the
     spreadsheet by content, since their bytes also depend on GDAL/openpyxl versions
     (regenerate with `python example_bundle/make_bundle.py` when those change)."""
-    for name in ("archivist.toml", "legend.csv"):
+    for name in ("archivist.toml", "legend.csv", "references.csv"):
         assert sha256(runs[0] / name) == sha256(BUNDLE / name), name
     for layer in LAYERS:
         fresh = pyogrio.read_dataframe(runs[0] / "map.gpkg", layer=layer, fid_as_index=True)
@@ -144,7 +146,7 @@ def test_counts(layers, units, lines, extent, splay):
     crossing = [f for f in merged if frame.distance(shapely.Point(f.coords[0])) < TOL and frame.distance(shapely.Point(f.coords[-1])) < TOL]
     assert len(crossing) >= 2
     wb = openpyxl.load_workbook(BUNDLE / "analyses.xlsx")
-    assert wb["majors"].max_row - 1 == len(layers["samples"])
+    assert wb["majors"].max_row - 1 == len(layers["samples"]) + COMPILED
 
 
 def test_units_are_an_exact_coverage_of_the_extent(units, extent):
@@ -248,12 +250,20 @@ def test_analyses(layers):
     assert wb.sheetnames == ["majors", "method"] and wb["method"].max_row >= 3
     ws = wb["majors"]
     header = [c.value for c in ws[1]]
-    assert header == ["sample_id"] + [f"{h} (wt%)" for h in OXIDE_HEADERS]
+    assert header == ["sample_id"] + [f"{h} (wt%)" for h in OXIDE_HEADERS] + LITERATURE_COLUMNS
     censored = 0
     ids = []
-    for row in ws.iter_rows(min_row=2):
+    compiled = []
+    for full in ws.iter_rows(min_row=2):
+        row, (source, method, lon, lat) = full[: -len(LITERATURE_COLUMNS)], [c.value for c in full[-len(LITERATURE_COLUMNS):]]
         assert row[0].data_type == "s" and isinstance(row[0].value, str)
-        ids.append(row[0].value)
+        assert method
+        if source == "this study":
+            ids.append(row[0].value)
+            assert lon is None and lat is None  # the team's own rows are placed by their sample
+        else:
+            compiled.append(row[0].value)
+            assert isinstance(lon, float) and isinstance(lat, float)
         values = []
         for cell in row[1:-1]:
             if isinstance(cell.value, str):
@@ -266,6 +276,7 @@ def test_analyses(layers):
         assert abs(total - round(sum(values), 2)) < 0.006
     assert 1 <= censored <= 2
     assert sorted(ids) == sorted(layers["samples"]["sample_id"])
+    assert len(compiled) == COMPILED and not set(compiled) & set(ids)
 
 
 def test_legend(units):
@@ -293,7 +304,7 @@ def test_manifest():
     assert 2 <= len(m["map"]["authors"]) <= 3
     for a in m["map"]["authors"]:
         assert a["name"] and "orcid" not in a  # invented people carry no identifier that could be someone's
-    assert set(m["layers"]) == {*LAYERS, "stations"} and set(m["tables"]) == {"legend", "analyses"}
+    assert set(m["layers"]) == {*LAYERS, "stations"} and set(m["tables"]) == {"legend", "analyses", "references"}
     for section in (*m["layers"].values(), *m["tables"].values()):
         paths = section["path"] if isinstance(section["path"], list) else [section["path"]]  # stations: one file per mapper
         assert all((BUNDLE / p).is_file() for p in paths)

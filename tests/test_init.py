@@ -20,7 +20,7 @@ from archivist.infer import infer_manifest
 from archivist.manifest import validate_manifest
 from builders import BUNDLE, CRS, edit_layer, edit_table, tiny_legend, tree_digest, write_layer
 
-DATA_FILES = ("map.gpkg", "legend.csv", "analyses.xlsx", "stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv")
+DATA_FILES = ("map.gpkg", "legend.csv", "analyses.xlsx", "references.csv", "stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv")
 # What only the mapper knows: init leaves these keys for them to fill in.
 MAPPER_KEYS = ("title", "version", "licence", "abstract", "keywords", "authors", "publisher", "contact", "doi")
 # The north the azimuths are measured from is not in the data either: init leaves it to the mapper.

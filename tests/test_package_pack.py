@@ -90,7 +90,9 @@ def test_frictionless_validates_package_with_foreign_keys(packed):
     report = frictionless.validate(str(data_of(packed) / "datapackage.json"))
     assert report.valid, report.flatten(["resourceName", "type", "message"])[:10]
     resources = {r["name"]: r for r in descriptor(packed)["resources"]}
-    assert {"fields": ["sample_id"], "reference": {"resource": "samples", "fields": ["sample_id"]}} in resources["analyses"]["schema"]["foreignKeys"]
+    # the bundle's analyses include rows compiled from publications: the team's own rows are tied to their
+    # samples by the analysis-samples table (archivist.package.literature)
+    assert {"fields": ["sample_id"], "reference": {"resource": "samples", "fields": ["sample_id"]}} in resources["analysis-samples"]["schema"]["foreignKeys"]
     assert {"fields": ["unit"], "reference": {"resource": "legend", "fields": ["unit"]}} in resources["units"]["schema"]["foreignKeys"]
     assert {"fields": ["unit"], "reference": {"resource": "legend", "fields": ["unit"]}} in resources["samples"]["schema"]["foreignKeys"]
     assert resources["legend"]["schema"]["primaryKey"] == ["unit"]
@@ -105,17 +107,18 @@ def test_frictionless_command_line_validates(packed):
 
 def test_frictionless_fails_when_a_link_is_broken(packed, tmp_path):
     # Break one analysis's sample link in a copy and refresh its hash and size, so only the foreign key fails.
+    # (The bundle's analyses include compiled rows: the link to the samples is in tables/analysis-samples.csv.)
     copy = tmp_path / "copy"
     shutil.copytree(packed.path, copy)
-    csv = copy / "data" / "tables" / "analyses.csv"
+    csv = copy / "data" / "tables" / "analysis-samples.csv"
     lines = csv.read_text(encoding="utf-8").split("\n")
     first = lines[1].split(",")
-    first[0] = "NO-SUCH-SAMPLE"
+    first[1] = "NO-SUCH-SAMPLE"
     lines[1] = ",".join(first)
     csv.write_text("\n".join(lines), encoding="utf-8")
     dp = json.loads((copy / "data" / "datapackage.json").read_text(encoding="utf-8"))
     for r in dp["resources"]:
-        if r["name"] == "analyses":
+        if r["name"] == "analysis-samples":
             r["hash"] = "sha256:" + hashlib.sha256(csv.read_bytes()).hexdigest()
             r["bytes"] = csv.stat().st_size
     (copy / "data" / "datapackage.json").write_text(json.dumps(dp), encoding="utf-8")
@@ -195,7 +198,7 @@ def test_prov_library_reads_provenance(packed):
         if str(values.get("prov:type")).endswith("InputFile"):
             digests[str(values["prov:label"])] = str(values[next(k for k in values if k.endswith("sha256"))])
     stations = {"stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv"}  # the mappers' files, each
-    assert set(digests) == {"archivist.toml", "analyses.xlsx", "legend.csv", "map.gpkg", *stations}
+    assert set(digests) == {"archivist.toml", "analyses.xlsx", "legend.csv", "map.gpkg", "references.csv", *stations}
     for name, digest in digests.items():
         assert digest == hashlib.sha256((BUNDLE / name).read_bytes()).hexdigest()
     labels = sorted(str(dict((str(k), v) for k, v in a.attributes).get("prov:label")) for a in agents)

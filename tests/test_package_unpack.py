@@ -68,8 +68,8 @@ def test_unpacked_project_is_the_input_with_new_version_and_origin(tmp_path):
     assert result.origin == "source"
     stations = ("stations_calderwyn.csv", "stations_oakeshaw.csv", "stations_tollivast.csv")
     media = tuple(sorted(f"{d}/{p.name}" for d in ("fieldbook", "photos") for p in (BUNDLE / d).iterdir()))
-    assert result.files == ("analyses.xlsx", "archivist.toml", *media[:1], "legend.csv", "map.gpkg", *media[1:], *stations)
-    for name in ("analyses.xlsx", "legend.csv", "map.gpkg", *stations):
+    assert result.files == ("analyses.xlsx", "archivist.toml", *media[:1], "legend.csv", "map.gpkg", *media[1:], "references.csv", *stations)
+    for name in ("analyses.xlsx", "legend.csv", "map.gpkg", "references.csv", *stations):
         assert (tmp_path / "work" / name).read_bytes() == (BUNDLE / name).read_bytes()
     before = tomllib.loads((BUNDLE / "archivist.toml").read_text())
     after = tomllib.loads((tmp_path / "work" / "archivist.toml").read_text())

@@ -29,6 +29,17 @@ earlier authors (no mark, or ``derived_from`` typed by hand) the record says
 ``IsDerivedFrom``, which is true of both (DataCite 4.5, relationType:
 IsNewVersionOf "indicates A is a new edition of B"; IsDerivedFrom "indicates
 B is a source upon which A is based"; both from memory).
+
+Works cited by compiled analyses
+--------------------------------
+Analyses compiled from publications cite works (``[tables.analyses]
+source_field``, ``[tables.references]``). A work with a DOI is a
+``relatedIdentifiers`` entry with ``relationType`` ``References`` and
+``relatedIdentifierType`` ``DOI``; a work without one is a ``relatedItems``
+entry (a related item described by its titles, creators and year when it
+has no identifier; added in DataCite 4.4, from memory, and present in the
+shipped 4.5 JSON Schema, which requires its ``titles``), ``relatedItemType``
+``Text`` (:mod:`archivist.package.literature`).
 """
 
 from __future__ import annotations
@@ -135,11 +146,14 @@ def datacite_record(
     technical: str,
     open_errors: list[str],
     earlier: Sequence[EarlierAuthor] | None = None,
+    references: tuple[list[dict[str, Any]], list[dict[str, Any]]] = ([], []),
 ) -> dict[str, Any]:
     """The record; ``open_errors`` (messages) are stated in a description when the package was made with errors.
 
     ``earlier``: the authors of the package named by ``map.derived_from``
     (:func:`earlier_authors`), which decides the relation type.
+    ``references``: (relatedIdentifiers, relatedItems) entries of the works
+    the compiled analyses cite (:func:`archivist.package.literature.related`).
     """
     rec: dict[str, Any] = {
         "schemaVersion": SCHEMA_VERSION,
@@ -197,4 +211,9 @@ def datacite_record(
             rec["relatedIdentifiers"] = [{"relatedIdentifier": earlier_doi, "relatedIdentifierType": "DOI", "relationType": relation}]
         elif re.match(r"^https?://", deposit.derived_from):
             rec["relatedIdentifiers"] = [{"relatedIdentifier": deposit.derived_from, "relatedIdentifierType": "URL", "relationType": relation}]
+    cited, items = references
+    if cited:
+        rec["relatedIdentifiers"] = rec.get("relatedIdentifiers", []) + list(cited)
+    if items:
+        rec["relatedItems"] = list(items)
     return rec

@@ -48,6 +48,7 @@ LAYER_TITLES = {
     "stations": "Field stations and observations",
     "legend": "Legend",
     "analyses": "Analyses",
+    "references": "References",
 }
 LAYER_DESCRIPTIONS = {
     "units": "Polygons of the mapped units; together they tile the map.",
@@ -61,6 +62,7 @@ LAYER_DESCRIPTIONS = {
     "stations": "Where the mappers stopped and observed: one point per station, with the observation made there.",
     "legend": "One row per map unit: code, name, description, age.",
     "analyses": "Laboratory analyses, one row per analysed sample.",
+    "references": "The works that analyses compiled from publications cite: one row per work, with its key, DOI and citation.",
 }
 FIELD_DESCRIPTIONS = {
     ("units", "unit_field"): "Map unit code; every code is a unit of the legend.",
@@ -411,6 +413,10 @@ def project_table(project: MapProject, role: str) -> TextTable:
                 units[col] = unit
             if key == "unit":
                 identifiers.add(col)
+    if role == "references":  # the key and DOI columns as the checks find them stay text
+        from ..vocab.literature import column as reference_column
+
+        identifiers |= {c for c in (reference_column(t, "key"), reference_column(t, "doi")) if c is not None}
     analyte_columns: set[str] = set()
     if role == "analyses":  # units from a units row or [tables.analyses] unit, as the checks read them
         found = analytes(t)
@@ -471,5 +477,9 @@ def all_tables(project: MapProject, layers: list[PreparedLayer]) -> list[TextTab
     sample_field = project.tables["analyses"].spec.get("sample_field") if "analyses" in project.tables else None
     if analyses is not None and samples is not None and analyses.has(sample_field) and samples.has(sample_id):
         analyses.foreign_keys.append({"fields": [sample_field], "reference": {"resource": "samples", "fields": [sample_id]}})
+    from .literature import link
+
+    link(project, tables)  # compiled analyses: the references table and its keys
     order = [pl.role for pl in layers] + list(TABLE_ROLES)
+    order += [r for r in tables if r not in order]  # tables the packager adds (archivist.package.literature)
     return [tables[r] for r in order if r in tables]

@@ -55,6 +55,7 @@ from .layers import PreparedLayer, layer_title, all_tables, prepare_layers, writ
 from .packmanifest import dump_toml, packaged_manifest
 from .provenance import FileFact, provenance, repair_record
 from .readme import LayerFact, citation_cff, legend_rows, licence_text, open_error_lines, readme_text
+from .literature import related as related_works
 from .tables import write_csv
 
 REPORT_PATH = "metadata/validation-report.json"
@@ -570,6 +571,7 @@ def _write_payload(
         technical=technical,
         open_errors=open_errors,
         earlier=earlier,
+        references=related_works(project),
     )
     write_json(data / "metadata" / "datacite.json", record)
     resources.append(dp.ResourceInfo("metadata/datacite.json", "datacite", "DataCite metadata", "DataCite Metadata Schema 4.5 record, JSON form."))

@@ -19,6 +19,7 @@ import numpy as np
 from ..model import Hit, Severity
 from ..registry import rule
 from ..vocab.legend import column as legend_column
+from ..vocab.literature import compilation, reference_keys
 
 if TYPE_CHECKING:
     from ..engine import CheckContext
@@ -708,6 +709,52 @@ def archive_legend_incomplete(project: MapProject, ctx: CheckContext) -> Iterato
             features=tuple(lacking),
             severity=Severity.WARNING,
         )
+
+
+@rule("archive-references-incomplete", family="archive", severity="error", needs=("archive", "analyses"))
+def archive_references_incomplete(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
+    """The archive's analyses cite reference keys that its references table does not hold.
+
+    Catches
+    -------
+    Archives whose analyses table has rows compiled from publications
+    (a source column other than the team's own marker, as
+    `archivist.vocab.literature` reads it) citing keys that are not in the
+    archive's references table, or citing keys while the archive has no
+    references table at all. One finding lists the keys and how many rows
+    cite each. Rows citing a DOI are not concerned: a DOI names its work by
+    itself.
+
+    Why it matters
+    --------------
+    A key such as "Fennick2009" means nothing without the table that says
+    which work it is: the compiled values cannot be traced to their
+    publications, checked or credited.
+
+    Fix
+    ---
+    Ask the authors for the references table, or for the entries of the
+    keys listed.
+
+    Example
+    -------
+    An archive whose analyses cite `Vell2011` with no such row gives
+    "The analyses cite reference keys missing from tables/references.csv:
+    Vell2011 (1 row): ask the authors for the works they stand for".
+    """
+    comp = compilation(project.tables["analyses"])
+    refs = project.tables.get("references")
+    keys = reference_keys(refs) if refs is not None else set()
+    missing: dict[str, int] = OrderedDict()
+    for key in comp.source[comp.keyed]:
+        if str(key) not in keys:
+            missing[str(key)] = missing.get(str(key), 0) + 1
+    if not missing:
+        return
+    text = _first([f"{k} ({n} row{'s' if n != 1 else ''})" for k, n in missing.items()])
+    where = f"missing from {refs.source}" if refs is not None else "but the archive has no references table"
+    yield Hit(f"The analyses cite reference keys {where}: {text}: ask the authors for the works they stand for.",
+              layer="analyses", features=tuple(missing))
 
 
 @rule("archive-authors-missing", family="archive", severity="error", needs=NEEDS)

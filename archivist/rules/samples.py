@@ -48,14 +48,9 @@ from ..analysis.stations import repeated_across_files
 from ..model import Hit
 from ..readers import text_column
 from ..registry import rule
-from ..vocab.analytes import (
-    IN_WT_PERCENT,
-    O_EQUIVALENT,
-    Analyte,
-    Cells,
-    analytes,
-    classify,
-)
+from ..vocab.analytes import IN_WT_PERCENT, O_EQUIVALENT, Analyte, Cells, analytes, classify
+from ..vocab.legend import cells as legend_cells
+from ..vocab.literature import literature_rows
 
 if TYPE_CHECKING:
     from ..engine import CheckContext
@@ -352,7 +347,8 @@ def _orphans(project: MapProject, ctx: CheckContext) -> list[tuple[int, Any, str
         out = []
         if an.sample_col is None:
             return out
-        unmatched = ~np.isin(an.sample_text.astype(str), list(index.exact))
+        # rows compiled from publications are not the team's samples (archivist.vocab.literature): the literature family checks them
+        unmatched = ~np.isin(an.sample_text.astype(str), list(index.exact)) & ~literature_rows(an.table)
         for i in np.flatnonzero(unmatched):
             raw, text = an.sample_values[i], an.sample_text[i]
             blank = isinstance(raw, str) and not raw.strip() or raw is None
@@ -376,7 +372,10 @@ def analysis_orphan(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     Catches
     -------
     Rows of the analyses table whose `sample_field` value is not exactly the
-    id of a sample, including blank ids. When the id looks mangled by a
+    id of a sample, including blank ids. Rows compiled from publications
+    (a `source_field` other than the team's own marker, or `origin_field`;
+    see the `literature` family) are not the team's samples and are left
+    out. When the id looks mangled by a
     spreadsheet, the sample it probably meant is named, with the mangling:
     leading zeros lost ("7" for "0007", "HV24-7" for "HV24-0007"), a trailing
     ".0", scientific notation ("1.2E+04" for "12000"), an id turned into a

@@ -19,6 +19,9 @@ and the audit cannot read the same thing two ways:
 * :mod:`.coordinates`: longitude/latitude columns beside a layer's own
   coordinates (header spellings, ``lon_field``/``lat_field``, decimal
   degrees and degrees-minutes-seconds).
+* :mod:`.literature`: which analyses are compiled from publications
+  (``source_field``, ``own_source``, ``origin_field``), DOI or reference
+  key, and the references table's columns.
 
 No module here imports from ``archivist.rules`` or ``archivist.package``.
 """
