@@ -237,6 +237,12 @@ def open_executor(
                     local_directory=scratch,
                 )
                 client = distributed.Client(cluster, set_as_default=False)
+                # The local scheduler runs in this process and turns on distributed's GC diagnosis, a gc
+                # callback: a Ctrl-C that lands while it runs is raised inside the callback, where Python
+                # only prints "Exception ignored" and the run carries on. Off, Ctrl-C always stops the run.
+                from distributed.gc import disable_gc_diagnosis
+
+                disable_gc_diagnosis(force=True)
         else:
             if workers is not None:
                 raise ArchivistError("--jobs sizes the workers of --scheduler local; a running cluster has its own workers")

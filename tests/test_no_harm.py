@@ -1,6 +1,6 @@
 """Do no harm, as a property over generated projects and archives.
 
-Every command (check, pack, diff, init, audit, unpack) is run in-process
+Every command (check, pack, diff, init, audit, unpack, repair) is run in-process
 through click on projects and archives drawn by hypothesis, in a sandbox
 folder of its own, and every run must:
 
@@ -257,12 +257,15 @@ def test_project_commands_do_no_harm(container, manifest, defect, inside, tmp_pa
         (["pack", str(project), "--out", str(out), "--zip", "--allow-errors"], [out], None),
         (["diff", str(other), str(project), "--output", str(out / "d.txt"), "--force"], [out], None),
         (["audit", str(project), "--output", str(out / "a.txt"), "--force"], [out], None),
+        (["repair", str(project), "--out", str(out / "repaired"), "--force"], [out], None),
+        (["repair", str(project), "--out", str(out / "dry"), "--dry-run"], [out], None),
     ]
     if inside:  # an output named inside the project is refused (exit 2), and nothing is written there
         runs += [
             (["check", str(project), "--output", str(project / "report.txt")], [], 2),
             (["pack", str(project), "--out", str(project)], [], 2),
             (["diff", str(other), str(project), "--gpkg", str(project / "changes.gpkg")], [], 2),
+            (["repair", str(project), "--out", str(project / "repaired")], [], 2),
         ]
     for args, allowed, expected in runs:
         code, output = run_in_sandbox(sandbox, args, [project, other], allowed, monkeypatch)
