@@ -18,7 +18,7 @@ from PIL import Image
 from shapely import affinity
 from shapely.geometry import Point
 
-from builders import CRS, tiny_project, two_units, two_units_lines, write_layer
+from builders import CRS, _merge, tiny_project, two_units, two_units_lines, write_layer
 
 X0, Y0 = 480000.0, 6792000.0  # the tiny map's south-west corner, EPSG:32633
 SCALE = 10.0  # the tiny map's 200 m x 100 m squares grown to 2 km x 1 km
@@ -118,13 +118,6 @@ def photo_project(tmp_path: Path, *, photos: dict[str, tuple[float, float] | Non
         scan_png(root / "fieldbook" / "book1_p001.png")
     return root
 
-
-def _merge(base: dict, extra: dict) -> None:
-    for k, v in extra.items():
-        if isinstance(v, dict) and isinstance(base.get(k), dict):
-            _merge(base[k], v)
-        else:
-            base[k] = v
 
 
 def with_stations(project):

@@ -21,12 +21,13 @@ that keys resolve in the references table. They do not look the DOIs up
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any, Iterator
+from typing import TYPE_CHECKING, Iterator
 
 import numpy as np
 import shapely
 
 from ..analysis.messages import offset, plural
+from ..analysis.points import map_extent
 from ..farcoords import far_out
 from ..identifiers import doi_problem
 from ..model import Hit
@@ -141,25 +142,6 @@ def _has_coordinates(project: MapProject) -> tuple[np.ndarray, str | None]:
     lon = degrees(table.frame[cols.lon].to_numpy(dtype=object), "lon")
     lat = degrees(table.frame[cols.lat].to_numpy(dtype=object), "lat")
     return np.isfinite(lon) & np.isfinite(lat), f"'{cols.lon}'/'{cols.lat}'"
-
-
-def _extent(project: MapProject, ctx: CheckContext) -> tuple[Any, str] | None:
-    """The map's extent (the extent layer, else the union of the unit polygons) and which one it is."""
-
-    def compute():
-        for role in ("extent", "units"):
-            layer = ctx.layer(role)
-            if layer is None:
-                continue
-            geoms = layer.geometry
-            ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & shapely.is_valid(geoms)
-            if ok.any():
-                geom = shapely.union_all(geoms[ok])
-                shapely.prepare(geom)
-                return geom, role
-        return None
-
-    return ctx.shared("literature:extent", compute)
 
 
 # ---------------------------------------------------------------- rules
@@ -394,10 +376,10 @@ def literature_outside_extent(project: MapProject, ctx: CheckContext) -> Iterato
     comp = _comp(project, ctx)
     if not comp.any:
         return
-    found = _extent(project, ctx)
+    found = map_extent(ctx)
     if found is None:
         return
-    extent, role = found
+    extent, role = found.geometry, found.role
     table = project.tables["analyses"]
     points, _ = _locations(project, ctx)
     idx = np.flatnonzero(np.array([p is not None for p in points], dtype=bool))
