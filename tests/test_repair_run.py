@@ -32,9 +32,14 @@ def five(tmp_path: Path, name: str = "five") -> Path:
     return square(tmp_path, FIVE, ["A", "B", "C", "D", "E"], checks={"tolerance": 0.05}, name=name)
 
 
+POLYGON_REPAIRS = ("resolve-overlaps", "fill-gaps", "snap-edges", "merge-slivers", "dissolve-same-unit")
+
+
 def test_diff_lists_exactly_the_changes_of_the_log(tmp_path):
+    # the polygon repairs alone: a contact that draw-missing-lines adds takes the reshaped polygon into its own
+    # diff entry ("Contact 3 (5 m) added; B lost 0.5 m²"), so the polygon's change is no longer listed by itself
     project = five(tmp_path)
-    result = repair(project, tmp_path / "out")
+    result = repair(project, tmp_path / "out", only=POLYGON_REPAIRS)
     tol = 0.05
     # what diff can see: changes that remove a feature, or move a boundary further than the tolerance
     removed = {f: c for c in result.changes for f in c.features_before if f not in c.features_after}

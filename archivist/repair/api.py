@@ -314,6 +314,23 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
             for entry in spec if isinstance(spec, list) else [spec]:
                 if isinstance(entry, dict) and isinstance(entry.get("path"), str):
                     entry["path"] = _place(root, entry["path"], tmp, taken)
+                elif isinstance(entry, dict) and isinstance(entry.get("path"), list):  # a hand-in of several files
+                    entry["path"] = [_place(root, p, tmp, taken) if isinstance(p, str) else p for p in entry["path"]]
+    for spec in (out.get("files") or {}).values():  # photos and scans: folders, files or glob patterns
+        if not isinstance(spec, dict):
+            continue
+        pats = spec.get("paths")
+        for pat in [pats] if isinstance(pats, str) else (pats if isinstance(pats, list) else []):
+            if not isinstance(pat, str):
+                continue
+            if any(ch in pat for ch in "*?["):  # the pattern stays as written; the files it matches keep their places
+                for f in sorted(root.glob(pat)):
+                    if f.is_file() and f.resolve().is_relative_to(root.resolve()):
+                        _place(root, f.relative_to(root).as_posix(), tmp, taken)
+            else:
+                _place(root, pat, tmp, taken)
+        if isinstance(spec.get("link_table"), str):
+            spec["link_table"] = _place(root, spec["link_table"], tmp, taken)
     changed = {c.layer for c in changes}
     layers_out = out.get("layers") or {}
     if "units" in changed and state.units is not None and "units" in layers_out:
