@@ -9,7 +9,7 @@ right), so a CRS fault is reported once, by the crs family.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import pandas as pd
@@ -103,6 +103,20 @@ class UnitMismatch:
     nearest_polygon: int
     towards: str
     superficial: bool
+
+
+def outside_hits(project: MapProject, ctx: CheckContext, role: str, noun: str) -> Iterator[Hit]:
+    """One hit per point of ``role`` outside the map: how far, which way, and from what (the extent or the units)."""
+    layer = ctx.layer(role)
+    extent = map_extent(ctx)
+    if extent is None or layer is None:
+        return
+    what = "the map extent" if extent.role == "extent" else "the unit polygons (no extent layer)"
+    geoms = layer.geometry
+    for out in points_outside(project, ctx, role):
+        i = out.index
+        yield Hit(f"{layer_feature(layer, i, noun)} lies {out.distance:.1f} m {out.towards} of {what}.",
+                  layer=role, features=(str(layer.ids[i]),), measure=out.distance, geometry=geoms[i])
 
 
 def unit_mismatches(project: MapProject, ctx: CheckContext, role: str) -> tuple[UnitMismatch, ...]:

@@ -37,10 +37,10 @@ import numpy as np
 import shapely
 
 from ..analysis.idmatch import SampleIndex, probable_samples, space_keys
-from ..analysis.messages import layer_feature, plural, verb
+from ..analysis.messages import plural, verb
 from ..analysis.points import (
     map_extent,
-    points_outside,
+    outside_hits,
     unit_mismatch_hit,
     unit_mismatches,
 )
@@ -49,7 +49,6 @@ from ..model import Hit
 from ..readers import text_column
 from ..registry import rule
 from ..vocab.analytes import IN_WT_PERCENT, O_EQUIVALENT, Analyte, Cells, analytes, classify
-from ..vocab.legend import cells as legend_cells
 from ..vocab.literature import literature_rows
 
 if TYPE_CHECKING:
@@ -274,21 +273,8 @@ def sample_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     nearest point of the extent: grid north in a projected CRS, true north
     (pyproj `Geod`) in a geographic one.
     """
-    layer = ctx.layer("samples")  # in the map CRS, swapped axes put right: crs-* report those once
-    extent = map_extent(ctx)
-    if extent is None or layer is None:
-        return
-    what = "the map extent" if extent.role == "extent" else "the unit polygons (no extent layer)"
-    geoms = layer.geometry
-    for out in points_outside(project, ctx, "samples"):
-        i = out.index
-        yield Hit(
-            f"{layer_feature(layer, i, 'sample')} lies {out.distance:.1f} m {out.towards} of {what}.",
-            layer="samples",
-            features=(layer.ids[i],),
-            measure=out.distance,
-            geometry=geoms[i],
-        )
+    # the samples layer in the map CRS, swapped axes put right: crs-* report those once
+    yield from outside_hits(project, ctx, "samples", "sample")
 
 
 @rule("sample-unit-mismatch", family="samples", severity="error", needs=("samples", "units"))

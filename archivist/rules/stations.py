@@ -24,8 +24,7 @@ import shapely
 from ..analysis.idmatch import SampleIndex, probable_samples, space_keys
 from ..analysis.messages import join_words, layer_feature, plural
 from ..analysis.points import (
-    map_extent,
-    points_outside,
+    outside_hits,
     unit_mismatch_hit,
     unit_mismatches,
 )
@@ -223,16 +222,7 @@ def station_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[H
     A station with a dropped digit in its northing gives "station ST24-031
     (row 32 of stations_ben.csv) lies 540012.3 m south of the map extent".
     """
-    layer = ctx.layer("stations")
-    extent = map_extent(ctx)
-    if extent is None or layer is None:
-        return
-    what = "the map extent" if extent.role == "extent" else "the unit polygons (no extent layer)"
-    geoms = layer.geometry
-    for out in points_outside(project, ctx, "stations"):
-        i = out.index
-        yield Hit(f"{layer_feature(layer, i, 'station')} lies {out.distance:.1f} m {out.towards} of {what}.",
-                  layer="stations", features=(str(layer.ids[i]),), measure=out.distance, geometry=geoms[i])
+    yield from outside_hits(project, ctx, "stations", "station")
 
 
 @rule("station-unit-mismatch", family="stations", severity="error", needs=("stations", "units"))
