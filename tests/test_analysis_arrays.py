@@ -61,3 +61,89 @@ def test_merge_by_group_joins_pieces_of_each_group():
     merged = merge_by_group(pieces, np.array([0, 0, 1]), 3)
     assert merged[0].equals(LineString([(0, 0), (2, 0)]))
     assert merged[1].equals(pieces[2]) and merged[2] is None
+
+
+# ---------------------------------------------------------------- widths (largest inscribed circle)
+
+def _fine_width(piece, r_guess: float) -> float:
+    """GEOS's MaximumInscribedCircle (via shapely) at a precision of 1e-5 of the radius: the reference."""
+    return 2.0 * float(shapely.length(shapely.maximum_inscribed_circle(piece, max(r_guess * 1e-5, 1e-9))))
+
+
+def _assert_within_precision(pieces, tol: float) -> np.ndarray:
+    """widths() against GEOS at fine precision: never wider, and at most 2 x min(tol/20, 2 % of r) narrower."""
+    from archivist.analysis.arrays import widths
+
+    got = widths(np.array(pieces, dtype=object), tol)
+    for piece, w in zip(pieces, got.tolist()):
+        ref = _fine_width(piece, w / 2.0)
+        slack = 2.0 * max(ref * 1e-5, 1e-9) + 1e-9 * ref  # the reference's own precision
+        assert w <= ref + slack, (w, ref)
+        allowed = 2.0 * min(tol / 20.0, 0.02 * ref / 2.0)
+        assert w >= ref - allowed - slack, (w, ref, allowed)
+    return got
+
+
+def test_widths_of_strips_match_geos_without_its_grid_search(monkeypatch):
+    # strips with parallel edges, as left by a polygon shifted into its neighbour: straight, bent,
+    # zigzag, far from the origin (UTM-sized coordinates) and on a slant
+    import archivist.analysis.arrays as arrays
+
+    x0, y0 = 419_000.0, 6_501_000.0
+    path = LineString([(x0, y0), (x0 + 80, y0 + 5), (x0 + 120, y0 + 60), (x0 + 200, y0 + 62)])
+    zigzag = LineString([(x0 + 10 * i, y0 + (7 if i % 2 else 0)) for i in range(25)])
+    strips = [
+        box(x0, y0, x0 + 300, y0 + 2),  # width exactly 2 (geometry)
+        shapely.buffer(path, 1.0, cap_style="flat", join_style="mitre"),
+        shapely.buffer(path, 1.0, cap_style="round"),
+        shapely.buffer(zigzag, 0.8, cap_style="flat", join_style="round"),
+        shapely.affinity.rotate(box(0, 0, 250, 2.4), 33.0, origin=(0, 0)),
+    ]
+    calls = []
+    real = arrays.shapely.maximum_inscribed_circle
+
+    def counting(geoms, tolerance):
+        calls.append(len(np.atleast_1d(geoms)))
+        return real(geoms, tolerance)
+
+    monkeypatch.setattr(arrays.shapely, "maximum_inscribed_circle", counting)
+    got = arrays.widths(np.array(strips, dtype=object), 0.5)
+    monkeypatch.undo()
+    assert sum(calls) == 0  # all settled by erosion
+    assert abs(got[0] - 2.0) <= 2 * 0.02  # exact width 2 within 2 % of the radius
+    _assert_within_precision(strips, 0.5)
+
+
+def test_widths_of_assorted_polygons_within_the_stated_precision():
+    rng = np.random.default_rng(7)
+    pieces = []
+    for _ in range(40):  # star-shaped polygons: reflex corners, thin spikes
+        n = int(rng.integers(5, 14))
+        ang = np.sort(rng.uniform(0, 2 * np.pi, n))
+        rad = rng.uniform(2.0, 30.0, n)
+        pieces.append(shapely.Polygon(np.c_[500_000 + rad * np.cos(ang), 6_000_000 + rad * np.sin(ang)]))
+    for _ in range(20):  # thin slivers, a few mm to a few cm wide
+        w = float(rng.uniform(0.003, 0.05))
+        pieces.append(shapely.affinity.rotate(box(0, 0, float(rng.uniform(20, 200)), w), float(rng.uniform(0, 180))))
+    pieces.append(Point(0, 0).buffer(10.0))  # a disk: radius 10 (less the chords of its 32-gon)
+    pieces.append(box(0, 0, 10, 10).difference(box(4, 4, 6, 6)))  # a square with a hole
+    pieces = [p for p in pieces if p.is_valid and p.area > 0]
+    for tol in (0.5, 0.01, 0.0):
+        if tol == 0.0:  # no tolerance: 1e-4 of sqrt(area), the precision of a measure in a geographic map
+            from archivist.analysis.arrays import widths
+
+            got = widths(np.array(pieces, dtype=object), 0.0)
+            ref = np.array([_fine_width(p, w / 2) for p, w in zip(pieces, got)])
+            size = np.sqrt(shapely.area(np.array(pieces, dtype=object)))
+            assert (got <= ref * (1 + 1e-5) + 1e-9).all()
+            assert (got >= ref - 2 * np.minimum(size * 1e-4, 0.02 * ref / 2) - 1e-6 * ref).all()
+        else:
+            _assert_within_precision(pieces, tol)
+
+
+def test_widths_of_nothing_and_of_a_multipolygon():
+    from archivist.analysis.arrays import widths
+
+    assert widths(np.empty(0, dtype=object), 0.5).shape == (0,)
+    two = shapely.MultiPolygon([box(0, 0, 10, 1), box(20, 0, 30, 4)])
+    assert abs(widths(np.array([two], dtype=object), 0.5)[0] - 4.0) <= 2 * 0.02 * 2.0

@@ -281,9 +281,11 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     tree = units.tree
     failures: list[Failure] = []
     # 1. polygons that may be part of a defect: those with an untwinned half-edge and their neighbours
-    region = edges.suspects
+    suspects = region = edges.suspects
+    near = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
     if len(region):
-        _, nb = tree.query(geoms[region], predicate="intersects")
+        sa, nb = tree.query(geoms[region], predicate="intersects")
+        near = (suspects[sa], nb)
         region = np.union1d(region, nb)
     # 2. GEOS's own validation, on that region only (cluster by cluster if GEOS stops)
     implicated = np.zeros(0, dtype=np.int64)
@@ -291,9 +293,14 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     unchecked = np.zeros(0, dtype=np.int64)
 
     def region_pairs() -> tuple[np.ndarray, np.ndarray]:
-        """Pairs (a < b) of intersecting polygons of the region."""
-        a, b = tree.query(geoms[region], predicate="intersects")
-        a = region[a]
+        """Pairs (a < b) of intersecting polygons of the region (those of the suspects already known)."""
+        others = np.setdiff1d(region, suspects)
+        oa, ob = tree.query(geoms[others], predicate="intersects")
+        a = np.concatenate([near[0], others[oa]])
+        b = np.concatenate([near[1], ob])
+        # by polygon, each one's neighbours in the order a query of the whole region gives them
+        order = np.argsort(a, kind="stable")
+        a, b = a[order], b[order]
         keep = (a < b) & np.isin(b, region)
         return a[keep], b[keep]
 
