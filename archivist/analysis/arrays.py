@@ -183,16 +183,22 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     """The radius of a circle inside each polygon, and whether it is within the precision of the largest.
 
     Bounds on the largest radius r, for all polygons at once. Upper: r <=
-    sqrt(area / pi); and where ``shapely.buffer(piece, -t)`` is empty, r <=
-    t x (1 + BUFFER_ACCURACY) (the offsets are exact along edges, the arcs
-    at reflex corners are chords that leave more standing, and GEOS
-    simplifies its input by 1 % of t). Lower: the true distance to the
-    boundary (``shapely.distance``) of a point inside the polygon
-    (``point_on_surface``) and of a point of each non-empty erosion. The
-    first round tries t around ``guess``, the next ones across the bracket.
-    Rings are cut to nine vertices at least, since GEOS discards the
-    erosion of a smaller ring whose offset lies within 0.99 t of it, taking
-    it for an inverted curve (BufferCurveSetBuilder::isRingCurveInverted).
+    sqrt(area / pi); r <= 2 x area / perimeter of the convex hull (for a
+    convex polygon, area = 1/2 x sum of side x distance from the centre of
+    the circle to that side's line >= 1/2 x r x perimeter, and the hull
+    holds every circle the polygon holds); and where ``shapely.buffer(piece,
+    -t)`` is empty, r <= t x (1 + BUFFER_ACCURACY) (the offsets are exact
+    along edges, the arcs at reflex corners are chords that leave more
+    standing, and GEOS simplifies its input by 1 % of t). Lower: the true
+    distance to the boundary (``shapely.distance``) of a point inside the
+    polygon (``point_on_surface``) and of a point of each non-empty erosion.
+    Each round tries t just above the lower bound (to settle it), halfway
+    across the bracket, and where the deepest erosion so far says r is
+    (its area over its perimeter, once for a strip, twice for a blob).
+    Rings are cut to nine vertices at least: GEOS drops the erosion of a
+    smaller ring whose offset lies within 0.99 t of it as an inverted curve
+    (from memory: BufferCurveSetBuilder::isRingCurveInverted; seen here as a
+    hexagon 2 m across emptied by 0.95 of its inscribed radius).
     """
     n = len(pieces)
     area = shapely.area(pieces)
@@ -202,7 +208,10 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     shapely.prepare(pieces)
     edge = shapely.boundary(pieces)
     lo = _inside_distance(pieces, edge, np.arange(n), shapely.point_on_surface(pieces))
-    hi = np.sqrt(area / np.pi)
+    hull = shapely.convex_hull(pieces)
+    hull_length = shapely.length(hull)
+    hi = np.minimum(np.sqrt(area / np.pi),
+                    np.where(hull_length > 0, 2.0 * shapely.area(hull) / np.where(hull_length > 0, hull_length, 1.0), np.inf))
 
     def precision(rows: np.ndarray) -> np.ndarray:
         return np.maximum(np.minimum(coarse[rows], WIDTH_RELATIVE * lo[rows]), noise[rows])
@@ -211,8 +220,9 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
         rows = np.arange(n)
         return rows[(hi * (1.0 + BUFFER_ACCURACY) - lo > precision(rows)) & (lo <= hi)]
 
-    # the next try: for a strip eroded by t into a thinner strip E, r is about t + area(E) / perimeter(E)
-    estimate = guess * 1.07
+    # the next tries: r is about t + area(E) / perimeter(E) when the erosion E by t is a strip,
+    # t + 2 x area(E) / perimeter(E) when it is a convex blob
+    estimate = np.c_[guess * 1.07, guess * 1.07]
     for round_ in range(8):
         todo = open_rows()
         if len(todo) == 0:
@@ -220,10 +230,11 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
         span = (hi - lo)[todo, None]
         step = precision(todo)[:, None]
         if round_ == 0:
-            t = guess[todo, None] * np.array([1.02, 1.08, 1.2])
+            t = np.concatenate([lo[todo, None] + step * np.array([0.3, 0.6]),
+                                guess[todo, None] * np.array([1.02, 1.08, 1.2])], axis=1)
         else:
             t = np.concatenate([lo[todo, None] + step * np.array([0.3, 0.6]), lo[todo, None] + span * 0.5,
-                                estimate[todo, None] * np.array([0.995, 1.002])], axis=1)
+                                estimate[todo] * 0.998], axis=1)
         k = np.repeat(todo, t.shape[1])
         t = t.ravel()
         useful = (t > lo[k]) & (t < hi[k])
@@ -243,7 +254,7 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
             last = order[np.r_[k[full][order][1:] != k[full][order][:-1], True]]
             deep = eroded[full][last]
             rest = shapely.area(deep) / np.maximum(shapely.length(deep), noise[k[full][last]])
-            estimate[k[full][last]] = t[full][last] + rest
+            estimate[k[full][last]] = t[full][last, None] + rest[:, None] * np.array([1.0, 2.0])
     settled = np.ones(n, dtype=bool)
     settled[open_rows()] = False
     settled &= lo <= hi * (1.0 + BUFFER_ACCURACY)
