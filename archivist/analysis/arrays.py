@@ -204,7 +204,11 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     area = shapely.area(pieces)
     scale = np.max(np.abs(np.nan_to_num(shapely.bounds(pieces))), axis=1)
     noise = 1e-14 * np.maximum(scale, 1.0)  # some 50 units in the last place of the coordinates
-    rings = shapely.segmentize(pieces, np.maximum(shapely.length(pieces) / 16.0, noise))
+    # outer rings of fewer than nine points cut into eight segments or more (holes only grow when eroded)
+    outer = shapely.get_exterior_ring(pieces)
+    few = np.flatnonzero(shapely.is_missing(outer) | (shapely.get_num_coordinates(outer) < 9))
+    rings = np.array(pieces, dtype=object, copy=True)
+    rings[few] = shapely.segmentize(pieces[few], np.maximum(np.nan_to_num(shapely.length(outer[few])) / 8.5, noise[few]))
     shapely.prepare(pieces)
     edge = shapely.boundary(pieces)
     lo = _inside_distance(pieces, edge, np.arange(n), shapely.point_on_surface(pieces))
