@@ -143,12 +143,13 @@ WIDTH_RELATIVE = 0.02  # widths by erosion are settled to 2 % of the radius (or 
 
 
 def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
-    """Width of each polygon: the diameter of its largest inscribed circle, to tol/20 of the radius or 2 % of it.
+    """Width of each polygon: the diameter of its largest inscribed circle, to tol/20 of the radius or finer.
 
     The width returned is that of a circle which fits in the polygon (twice
-    the distance from a point inside it to its boundary), at most ``p`` below
-    the largest one in radius, where ``p`` is tol/20 (1e-4 of sqrt(area)
-    when tol is 0) or 2 % of the radius, whichever is smaller.
+    the distance from a point inside it to its boundary), at most ``p``
+    below the largest one in radius: ``p`` is tol/20 (1e-4 of sqrt(area)
+    when tol is 0), and 2 % of the radius where that is smaller and the
+    polygon is settled by erosion (below).
 
     GEOS's grid search (``shapely.maximum_inscribed_circle``) costs about the
     piece's length over ``p`` when the piece is a strip with parallel edges
@@ -157,8 +158,8 @@ def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
     part of a check. So the radius is first bracketed by erosion, for all
     pieces at once (:func:`_eroded_radius`), at a cost that grows with the
     log of size over precision; pieces the bracket does not settle within
-    ``p`` (wide ones, where 1 % of the radius is more than tol/20) are
-    measured by GEOS at tol/20 as before.
+    ``p`` (wide ones, where 1 % of the radius is more than tol/20;
+    multipolygons) are measured by GEOS at tol/20 as before.
     """
     if len(pieces) == 0:
         return np.empty(0)
@@ -168,8 +169,8 @@ def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
     radius = np.full(len(pieces), np.nan)
     perimeter = shapely.length(pieces)
     guess = np.where(perimeter > 0, area / np.where(perimeter > 0, perimeter, 1.0), 0.0)  # about the radius of a strip
-    polygonal = np.isin(shapely.get_type_id(pieces), (POLYGON, MULTIPOLYGON))
-    tried = np.flatnonzero(polygonal & (guess > 0) & (BUFFER_ACCURACY * guess < coarse))
+    single = shapely.get_type_id(pieces) == POLYGON  # multipolygons (a unit in parts) go to GEOS
+    tried = np.flatnonzero(single & (guess > 0) & (BUFFER_ACCURACY * guess < coarse))
     if len(tried):
         lo, settled = _eroded_radius(pieces[tried], guess[tried], coarse[tried])
         radius[tried[settled]] = lo[settled]
@@ -206,9 +207,9 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     noise = 1e-14 * np.maximum(scale, 1.0)  # some 50 units in the last place of the coordinates
     # outer rings of fewer than nine points cut into eight segments or more (holes only grow when eroded)
     outer = shapely.get_exterior_ring(pieces)
-    few = np.flatnonzero(shapely.is_missing(outer) | (shapely.get_num_coordinates(outer) < 9))
+    few = np.flatnonzero(shapely.get_num_coordinates(outer) < 9)
     rings = np.array(pieces, dtype=object, copy=True)
-    rings[few] = shapely.segmentize(pieces[few], np.maximum(np.nan_to_num(shapely.length(outer[few])) / 8.5, noise[few]))
+    rings[few] = shapely.segmentize(pieces[few], np.maximum(shapely.length(outer[few]) / 8.5, noise[few]))
     shapely.prepare(pieces)
     edge = shapely.boundary(pieces)
     lo = _inside_distance(pieces, edge, np.arange(n), shapely.point_on_surface(pieces))
