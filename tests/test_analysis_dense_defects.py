@@ -24,7 +24,7 @@ from hypothesis import strategies as st
 from archivist.analysis.arrays import linear_parts
 from archivist.analysis.context import CheckContext
 from archivist.analysis.coverage import _collinear
-from archivist.analysis.nearness import off_unit_boundaries
+from archivist.analysis.nearness import off_unit_boundaries, unit_at
 from archivist.project import load_project
 from archivist.rules.linework import _nearest_other_line, _off_boundaries
 from coverage_builders import synthetic_map, with_defect_density, with_units, write_map
@@ -155,3 +155,46 @@ def test_off_boundaries_shared_by_two_rules_equal_their_own_computation(dense):
     assert shapely.to_wkt(shared_runs[poly]).tolist() == shapely.to_wkt(runs).tolist()
     assert shared_part[poly].tolist() == part.tolist()
     assert shapely.to_wkt(shared_off[poly]).tolist() == shapely.to_wkt(own).tolist()
+
+
+# ---------------------------------------------------------------- where a stretch off the boundaries lies (line-off-boundary)
+
+def far_point_by_loop(piece, target):
+    """One stretch at a time: its vertices and midpoint, the first farthest from ``target``."""
+    pts = shapely.points(np.vstack([shapely.get_coordinates(piece),
+                                    shapely.get_coordinates(shapely.line_interpolate_point(piece, 0.5, normalized=True))]))
+    return pts[int(np.argmax(shapely.distance(pts, target)))]
+
+
+def across_by_loop(units, u, foot, tol):
+    """One foot at a time: the nearest other polygon within ``tol`` (first returned among equals), or None."""
+    near = units.tree.query(foot, predicate="dwithin", distance=tol)
+    near = near[near != u]
+    if not len(near):
+        return None
+    return int(near[np.argmin(shapely.distance(foot, units.geoms[near]))])
+
+
+def test_off_boundary_places_match_the_stretch_by_stretch_loop(dense):
+    from archivist.rules.linework import _across, _far_points, _first_nearest
+
+    units, tol = dense.units(), dense.tolerance
+    off = _off_boundaries(dense)[2]
+    pieces, _ = linear_parts(off, tol)
+    mid = shapely.line_interpolate_point(pieces, 0.5, normalized=True)
+    inside = unit_at(mid, units)
+    assert len(pieces) > 100 and (inside >= 0).sum() > 50
+    nearest = _first_nearest(units, mid)
+    assert nearest.tolist() == [int(units.tree.query_nearest(p)[0]) for p in mid]
+    targets = shapely.boundary(units.geoms[np.where(inside >= 0, inside, nearest)])
+    far = _far_points(pieces, targets)
+    assert shapely.to_wkt(far).tolist() == [shapely.to_wkt(far_point_by_loop(p, t)) for p, t in zip(pieces, targets)]
+    feet = shapely.get_point(shapely.shortest_line(targets, far), 0)
+    words = _across(units, inside, feet, tol)
+    for u, foot, said in zip(inside.tolist(), feet, words):
+        if u < 0:
+            assert said == ""
+            continue
+        v = across_by_loop(units, u, foot, tol)
+        assert said == (f"between {units.code(u)} and {units.code(v)}" if v is not None else f"of {units.label(u)} along the map edge")
+    assert any(w.startswith("between") for w in words)

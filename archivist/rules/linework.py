@@ -129,31 +129,93 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         off = uncovered(runs, np.array([cov.extent_boundary], dtype=object), tol)
         pieces, k = linear_parts(off, tol * ABOVE)
         found.append((pieces, part[k], "edge"))
+    crs = project.crs or project.layers["units"].crs
     for pieces, parts, what in found:
         if not len(pieces):
             continue
         pieces, parts = connected_pieces(pieces, parts)
         mid = shapely.line_interpolate_point(pieces, 0.5, normalized=True)
         inside = unit_at(mid, units)
-        for piece, p, u in zip(pieces, parts, inside):
-            f = net.part_feat[p]
-            role = net.roles[f]
-            if role == "fault" and u >= 0:
-                continue
-            length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
-            crs = project.crs or project.layers["units"].crs
+        feats = net.part_feat[parts]
+        keep = ~((net.roles[feats] == "fault") & (inside >= 0))  # faults may run inside a unit
+        pieces, feats, inside, mid = pieces[keep], feats[keep], inside[keep], mid[keep]
+        if not len(pieces):
+            continue
+        lengths = np.asarray(g.lengths(pieces), dtype=float) if g.geographic else shapely.length(pieces) * m
+        # what each piece is measured against: the map edge, the boundary of the polygon it lies in, or that of
+        # the nearest polygon; all pieces at once
+        nearest = np.full(len(pieces), -1, dtype=np.int64)
+        if what == "edge":
+            targets = np.full(len(pieces), cov.extent_boundary, dtype=object)
+        else:
+            outside = np.flatnonzero(inside < 0)
+            if len(outside):
+                nearest[outside] = _first_nearest(units, mid[outside])
+            targets = shapely.boundary(units.geoms[np.where(inside >= 0, inside, nearest)])
+        links = shapely.shortest_line(targets, _far_points(pieces, targets))
+        xy = shapely.get_coordinates(links).reshape(-1, 4)
+        between = _across(units, inside, shapely.get_point(links, 0), tol) if what != "edge" else None
+        for k, (piece, f, u, length) in enumerate(zip(pieces, feats.tolist(), inside.tolist(), lengths.tolist())):
+            metres, towards = offset(crs, *xy[k].tolist(), m)
+            away = f"{num(metres)} m {towards}"
             if what == "edge":
-                away = _away(piece, cov.extent_boundary, crs, m)
                 text = f"{net.label(f)} runs {num(length)} m off the map's outer edge, up to {away} of it."
             elif u >= 0:
-                edge, between = _boundary_near(piece, u, units, tol)
-                text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {_away(piece, edge, crs, m)} "
-                        f"of the boundary {between}, inside {units.label(u)}.")
+                assert between is not None
+                text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {away} "
+                        f"of the boundary {between[k]}, inside {units.label(u)}.")
             else:
-                near = int(units.tree.query_nearest(shapely.line_interpolate_point(piece, 0.5, normalized=True))[0])
                 text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
-                        f"{_away(piece, shapely.boundary(units.geoms[near]), crs, m)} of the nearest, {units.label(near)}.")
+                        f"{away} of the nearest, {units.label(int(nearest[k]))}.")
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+
+
+def _first_nearest(units: Units, points: np.ndarray) -> np.ndarray:
+    """For each point, the unit polygon the spatial index returns first among the nearest."""
+    pi, ui = units.tree.query_nearest(points)
+    first = np.r_[True, pi[1:] != pi[:-1]]
+    out = np.full(len(points), -1, dtype=np.int64)
+    out[pi[first]] = ui[first]
+    return out
+
+
+def _far_points(pieces: np.ndarray, targets: np.ndarray) -> np.ndarray:
+    """For each piece, its point (among its vertices and its midpoint) farthest from its target; the first on ties."""
+    xy, k = shapely.get_coordinates(pieces, return_index=True)
+    mids = shapely.get_coordinates(shapely.line_interpolate_point(pieces, 0.5, normalized=True))
+    n = len(pieces)
+    # each piece's vertices, then its midpoint
+    pos = np.r_[np.arange(len(k)) + k, np.cumsum(np.bincount(k, minlength=n)) + np.arange(n)]
+    pts = np.empty((len(k) + n, 2))
+    pts[pos] = np.r_[xy, mids]
+    group = np.empty(len(k) + n, dtype=np.int64)
+    group[pos] = np.r_[k, np.arange(n)]
+    d = shapely.distance(shapely.points(pts), targets[group])
+    order = np.lexsort((np.arange(len(d)), -d, group))
+    first = order[np.r_[True, group[order][1:] != group[order][:-1]]]
+    return shapely.points(pts[first])
+
+
+def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> list[str]:
+    """For each foot on the boundary of polygon ``inside``: ``between A and B`` for the nearest other polygon within
+    ``tol`` of it (the first the spatial index returns among equals), else ``of polygon 2 (A) along the map edge``."""
+    out = ["" for _ in range(len(inside))]
+    sel = np.flatnonzero(inside >= 0)
+    if not len(sel):
+        return out
+    pi, ui = units.tree.query(feet[sel], predicate="dwithin", distance=max(tol, 0.0))
+    other = ui != inside[sel][pi]
+    pi, ui = pi[other], ui[other]
+    best = np.full(len(sel), -1, dtype=np.int64)
+    if len(pi):
+        d = shapely.distance(feet[sel][pi], units.geoms[ui])
+        order = np.lexsort((np.arange(len(pi)), d, pi))
+        first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
+        best[pi[first]] = ui[first]
+    for j, s in enumerate(sel.tolist()):
+        u = int(inside[s])
+        out[s] = f"between {units.code(u)} and {units.code(int(best[j]))}" if best[j] >= 0 else f"of {units.label(u)} along the map edge"
+    return out
 
 
 def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -544,35 +606,6 @@ def join_ids(units: Units, polys: list[int]) -> str:
 def _lower(name: str) -> str:
     """A line's name inside a sentence: ``contact 3``."""
     return name[:1].lower() + name[1:]
-
-
-def _boundary_near(piece: Any, u: int, units: Units, tol: float) -> tuple[Any, str]:
-    """The boundary of polygon ``u`` and its words: ``between A and B`` for the neighbour across its nearest point."""
-    edge = shapely.boundary(units.geoms[u])
-    far = _far_point(piece, edge)
-    at = shapely.shortest_line(edge, far)
-    foot = shapely.get_point(at, 0)
-    near = units.tree.query(foot, predicate="dwithin", distance=max(tol, 0.0))
-    near = near[near != u]
-    if len(near):
-        v = int(near[np.argmin(shapely.distance(foot, units.geoms[near]))])
-        return edge, f"between {units.code(u)} and {units.code(v)}"
-    return edge, f"of {units.label(u)} along the map edge"
-
-
-def _far_point(piece: Any, target: Any) -> Any:
-    """The point of ``piece`` (its vertices and its midpoint) farthest from ``target``."""
-    pts = shapely.points(np.vstack([shapely.get_coordinates(piece),
-                                    shapely.get_coordinates(shapely.line_interpolate_point(piece, 0.5, normalized=True))]))
-    return pts[int(np.argmax(shapely.distance(pts, target)))]
-
-
-def _away(piece: Any, target: Any, crs: Any, factor: float) -> str:
-    """``3.00 m east``: how far, and which way, the point of ``piece`` farthest from ``target`` lies from it."""
-    link = shapely.shortest_line(target, _far_point(piece, target))
-    (x0, y0), (x1, y1) = shapely.get_coordinates(link)
-    metres, towards = offset(crs, x0, y0, x1, y1, factor)
-    return f"{num(metres)} m {towards}"
 
 
 @rule("line-self-intersection", family="linework", severity="error", needs=("lines",), partitioned=True)
