@@ -198,3 +198,35 @@ def test_off_boundary_places_match_the_stretch_by_stretch_loop(dense):
         v = across_by_loop(units, u, foot, tol)
         assert said == (f"between {units.code(u)} and {units.code(v)}" if v is not None else f"of {units.label(u)} along the map edge")
     assert any(w.startswith("between") for w in words)
+
+
+# ---------------------------------------------------------------- stretches two lines share (line-duplicate)
+
+def near_shared_by_loop(run, line, own_ends, tol):
+    """One pair at a time: the run within ``tol`` of the line, less ``5 tol`` around where they meet or end."""
+    close = shapely.intersection(run, shapely.buffer(line, tol))
+    ends = shapely.union(shapely.boundary(line), shapely.multipoints(own_ends))
+    return shapely.difference(close, shapely.buffer(shapely.union(shapely.intersection(run, line), ends), 5.0 * tol))
+
+
+def test_near_shared_matches_the_pair_by_pair_loop_wherever_it_can_be_reported(dense):
+    from archivist.analysis.messages import ABOVE
+    from archivist.rules.linework import _near_shared
+
+    net, tol = dense.line_network(), dense.tolerance
+    runs, rpart = net.runs(dense.segment_edges() < 0)
+    ri, fj = net.tree.query(runs, predicate="dwithin", distance=tol)
+    keep = fj != net.part_feat[rpart[ri]]
+    ri, fj = ri[keep], fj[keep]
+    # and every run against a copy of its own line moved a quarter of the tolerance east: a trace drawn twice
+    copies = shapely.transform(net.geoms, lambda xy: xy + [tol / 4, 0.0])
+    lines = np.concatenate([net.geoms, copies])
+    r_all = np.arange(len(runs))
+    ri, fj = np.r_[ri, r_all], np.r_[fj, len(net.geoms) + net.part_feat[rpart[r_all]]]
+    assert len(ri) > 100
+    got = _near_shared(runs[ri], lines, fj, net.part_ends(rpart[ri]), tol)
+    expected = [near_shared_by_loop(runs[r], lines[f], net.part_ends(rpart[[r]])[0], tol) for r, f in zip(ri, fj)]
+    reported = shapely.length(expected) > tol * ABOVE
+    assert reported.any() and (~reported).any()
+    assert shapely.to_wkt(got[reported]).tolist() == shapely.to_wkt(np.array(expected, dtype=object)[reported]).tolist()
+    assert np.array_equal(shapely.length(got) > tol * ABOVE, reported)

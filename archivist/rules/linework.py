@@ -776,9 +776,8 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             if len(ri):
                 near = _near_shared(runs[ri], net.geoms, fj, net.part_ends(rpart[ri]), tol)
                 lengths = shapely.length(near)
-                for r, b, g, length in zip(ri, fj, near, lengths):
-                    if length <= tol * ABOVE:
-                        continue
+                long = lengths > tol * ABOVE
+                for r, b, g, length in zip(ri[long], fj[long], near[long], lengths[long]):
                     a = net.part_feat[rpart[r]]
                     pair = (min(a, b), max(a, b))
                     if pair not in found or found[pair][1] < length:
@@ -798,15 +797,22 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
     """The part of each run within ``tol`` of the other line (``lines[other]``), away from where the two lines meet or end.
 
-    Each line is buffered once, however many runs it is compared with.
+    Each line is buffered once, however many runs it is compared with. Where the part within ``tol`` is itself
+    no longer than the tolerance (``tol * ABOVE``), it is returned as it is: too short to report either way.
     """
     used, back = np.unique(other, return_inverse=True)
-    others = lines[other]
     close = shapely.intersection(runs, shapely.buffer(lines[used], tol)[back])
-    meet = shapely.intersection(runs, others)
-    ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends))
-    junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
-    return shapely.difference(close, junctions)
+    # taking the junctions out only shortens: a run whose close part is already no longer than the tolerance
+    # is kept as it is (the caller drops it), and the junctions are built for the others only
+    out = close.copy()
+    long = np.flatnonzero(shapely.length(close) > tol * ABOVE)
+    if len(long):
+        others = lines[other[long]]
+        meet = shapely.intersection(runs[long], others)
+        ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends[long]))
+        junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
+        out[long] = shapely.difference(close[long], junctions)
+    return out
 
 
 @rule("line-kind-unknown", family="linework", severity="error", needs=("lines",))
