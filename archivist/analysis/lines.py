@@ -40,6 +40,7 @@ from .arrays import (
 )
 from .halfedges import Edges
 from .messages import feature_name
+from .nearness import dwithin_pairs
 
 if TYPE_CHECKING:
     from ..project import Layer, MapProject
@@ -288,7 +289,7 @@ def loose_ends(net: LineNetwork, roles: tuple[str, ...], tol: float) -> LooseEnd
     An end that shares its coordinates exactly with another vertex (of any
     line, its own included: a closed loop) is connected without further test;
     for the others, ``near_line`` says whether another feature lies within
-    ``tol`` (GEOS ``dwithin`` through the network's STRtree).
+    ``tol`` (GEOS ``dwithin`` through the network's STRtree, :func:`.nearness.dwithin_pairs`).
     """
     empty = np.empty(0, dtype=np.int64)
     sel_parts = np.flatnonzero(np.isin(net.part_roles, roles) & (np.diff(net.part_off) >= 2))
@@ -316,6 +317,6 @@ def loose_ends(net: LineNetwork, roles: tuple[str, ...], tol: float) -> LooseEnd
     end_feat = net.part_feat[end_part]
     near = np.zeros(len(ends), dtype=bool)
     if len(ends):
-        pi, fj = net.tree.query(pts, predicate="dwithin", distance=max(tol, 0.0))
+        pi, fj = dwithin_pairs(net.tree, net.geoms, pts, tol)
         near[pi[fj != end_feat[pi]]] = True
     return LooseEnds(ends, end_part, end_feat, at_start, pts, near)

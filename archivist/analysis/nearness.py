@@ -22,6 +22,39 @@ if TYPE_CHECKING:
     from .lines import LineNetwork
 
 
+# Reference geometries with more vertices than this are tested through a prepared copy (GEOS's indexed facet
+# distance) rather than segment by segment: a frame line of thousands of vertices spans the whole map, so
+# every query meets it (our own choice; the answers are the same either way, only the time differs).
+BIG = 256
+
+
+def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, distance: float) -> tuple[np.ndarray, np.ndarray]:
+    """The pairs (index into ``geoms``, index into ``refs``) within ``distance``, as ``tree.query(geoms,
+    predicate="dwithin", distance=distance)`` gives them and in its order (``tree`` indexes ``refs``).
+
+    The index is asked for the boxes of ``geoms`` widened by ``distance`` (the candidates that query
+    tests, in its order); the candidates are then tested in bulk, each large reference (over :data:`BIG`
+    vertices) once through a prepared copy against all its candidates.
+    """
+    geoms = np.asarray(geoms, dtype=object)
+    d = max(distance, 0.0)
+    if not len(geoms) or not len(refs):
+        return np.empty(0, dtype=np.int64), np.empty(0, dtype=np.int64)
+    b = shapely.bounds(geoms)
+    gi, rj = tree.query(shapely.box(b[:, 0] - d, b[:, 1] - d, b[:, 2] + d, b[:, 3] + d))
+    ok = np.zeros(len(gi), dtype=bool)
+    big = shapely.get_num_coordinates(refs[rj]) > BIG
+    small = ~big
+    ok[small] = shapely.dwithin(geoms[gi[small]], refs[rj[small]], d)
+    if big.any():
+        for j in np.unique(rj[big]).tolist():
+            sel = np.flatnonzero(rj == j)
+            ref = shapely.from_wkb(shapely.to_wkb(refs[j]))  # a private copy to prepare: the caller's stays as it was
+            shapely.prepare(ref)
+            ok[sel] = shapely.dwithin(ref, geoms[gi[sel]], d)
+    return gi[ok], rj[ok]
+
+
 def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
     """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
     out = np.full(len(targets), None, dtype=object)
@@ -51,7 +84,7 @@ def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.S
     if not len(targets) or not len(refs):
         return targets.copy()
     tree = tree if tree is not None else shapely.STRtree(refs)
-    ti, ri = tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    ti, ri = dwithin_pairs(tree, refs, targets, tol)
     buf = near_buffers(targets, ti, refs[ri], tol)
     out = targets.copy()
     have = ~shapely.is_missing(buf)

@@ -50,6 +50,7 @@ from ..analysis.lines import LineNetwork, kind_for, loose_ends, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
     connected_pieces,
+    dwithin_pairs,
     off_unit_boundaries,
     uncovered,
     undrawn_boundaries,
@@ -768,7 +769,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
                 near = np.flatnonzero(close)
-                qi, qf = net.tree.query(runs[near], predicate="dwithin", distance=tol)
+                qi, qf = dwithin_pairs(net.tree, net.geoms, runs[near], tol)
                 ri, fj = np.concatenate([ri, near[qi]]), np.concatenate([fj, qf])
             keep = fj != rfeat[ri]
             both = np.unique(np.c_[ri[keep], fj[keep]], axis=0)
