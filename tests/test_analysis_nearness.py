@@ -27,3 +27,21 @@ def test_dwithin_pairs_equal_the_strtree_query_with_a_frame_line_of_many_vertice
     assert not shapely.is_prepared(refs[-2])  # the caller's geometry is left as it was
     stretches = np.array(lines[:50], dtype=object)
     assert np.array_equal(np.stack(dwithin_pairs(tree, refs, stretches, 2.0)), tree.query(stretches, predicate="dwithin", distance=2.0))
+
+
+def test_one_reference_within_and_distances_equal_geos_pair_by_pair():
+    from archivist.analysis.nearness import point_distances, within_of
+
+    rng = np.random.default_rng(8)
+    frame = shapely.segmentize(shapely.boundary(shapely.box(0, 0, 1000, 1000)), 1.0)
+    parts = shapely.multilinestrings([shapely.segmentize(shapely.linestrings([[0, 10], [1000, 30]]), 2.0),
+                                      shapely.linestrings([[5, 5], [6, 900]])])
+    pts = shapely.points(np.r_[rng.uniform(-5, 1005, size=(500, 2)), [[0.0, 0.0], [1000.0, 500.0], [0.3, 0.3]]])
+    for ref in (frame, parts, shapely.linestrings([[0, 0], [3, 4]])):
+        for d in (0.0, 0.5, 4.0):
+            assert np.array_equal(within_of(ref, pts, d), shapely.dwithin(pts, ref, d))
+        refs = np.full(len(pts), ref, dtype=object)
+        assert np.array_equal(point_distances(pts, refs), shapely.distance(pts, refs))
+    mixed = np.array([frame, parts] * (len(pts) // 2) + [frame], dtype=object)
+    assert np.array_equal(point_distances(pts, mixed), shapely.distance(pts, mixed))
+    assert not shapely.is_prepared(frame)

@@ -49,10 +49,60 @@ def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, di
     if big.any():
         for j in np.unique(rj[big]).tolist():
             sel = np.flatnonzero(rj == j)
-            ref = shapely.from_wkb(shapely.to_wkb(refs[j]))  # a private copy to prepare: the caller's stays as it was
-            shapely.prepare(ref)
-            ok[sel] = shapely.dwithin(ref, geoms[gi[sel]], d)
+            ok[sel] = shapely.dwithin(_prepared(refs[j]), geoms[gi[sel]], d)
     return gi[ok], rj[ok]
+
+
+def _prepared(ref: object) -> object:
+    """A private prepared copy of ``ref`` (the caller's geometry stays as it was)."""
+    copy = shapely.from_wkb(shapely.to_wkb(ref))
+    shapely.prepare(copy)
+    return copy
+
+
+def within_of(ref: object, geoms: np.ndarray, distance: float) -> np.ndarray:
+    """``shapely.dwithin(geoms, ref, distance)`` for one reference; a large one (over :data:`BIG` vertices) is
+    prepared once for all ``geoms``."""
+    geoms = np.asarray(geoms, dtype=object)
+    d = max(distance, 0.0)
+    if len(geoms) and shapely.get_num_coordinates(ref) > BIG:
+        return np.asarray(shapely.dwithin(_prepared(ref), geoms, d), dtype=bool)
+    return np.asarray(shapely.dwithin(geoms, ref, d), dtype=bool)
+
+
+def point_distances(points: np.ndarray, refs: np.ndarray) -> np.ndarray:
+    """``shapely.distance(points, refs)``, pair by pair, for points and linear references.
+
+    A reference of over :data:`BIG` vertices is measured through a spatial index of its segments: GEOS
+    measures a point against a line segment by segment and keeps the smallest, and the index finds that
+    smallest segment distance without measuring every segment; the value is the same.
+    """
+    points = np.asarray(points, dtype=object)
+    refs = np.asarray(refs, dtype=object)
+    out = np.empty(len(points))
+    if not len(points):
+        return out
+    big = shapely.get_num_coordinates(refs) > BIG
+    out[~big] = shapely.distance(points[~big], refs[~big])
+    if big.any():
+        at = np.flatnonzero(big)
+        which = np.array([id(g) for g in refs[at]])
+        for key in np.unique(which).tolist():
+            sel = at[which == key]
+            out[sel] = _segment_distances(refs[sel[0]], points[sel])
+    return out
+
+
+def _segment_distances(line: object, points: np.ndarray) -> np.ndarray:
+    """Distance from each point to ``line`` (a LineString or MultiLineString) through an index of its segments."""
+    xy, k = shapely.get_coordinates(shapely.get_parts(line), return_index=True)
+    same = k[1:] == k[:-1]  # consecutive coordinates of one part make a segment
+    a, b = xy[:-1][same], xy[1:][same]
+    if not len(a):  # no segment at all: GEOS's own answer
+        return np.asarray(shapely.distance(points, line), dtype=float)
+    segs = shapely.linestrings(np.stack([a, b], axis=1))
+    _, dist = shapely.STRtree(segs).query_nearest(points, return_distance=True, all_matches=False)
+    return np.asarray(dist, dtype=float)
 
 
 def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:

@@ -51,10 +51,12 @@ from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, off
 from ..analysis.nearness import (
     connected_pieces,
     dwithin_pairs,
+    point_distances,
     off_unit_boundaries,
     uncovered,
     undrawn_boundaries,
     unit_at,
+    within_of,
 )
 from ..analysis.polygons import Units
 from ..model import Hit
@@ -425,7 +427,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         cov = ctx.coverage()
         if cov.extent is not None:
             edge = cov.extent_boundary
-            connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
+            connected |= within_of(edge, pts, tol)
     free = []
     for k in np.flatnonzero(~connected):  # few: ends with no other line near
         p, f = int(end_part[k]), int(end_feat[k])
@@ -443,7 +445,7 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         return
     k_free = np.array([k for k, _ in free], dtype=np.int64)
     near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
-    edge_gaps = shapely.distance(pts[k_free], edge) if edge is not None else np.full(len(k_free), np.inf)
+    edge_gaps = point_distances(pts[k_free], np.full(len(k_free), edge, dtype=object)) if edge is not None else np.full(len(k_free), np.inf)
     # what each free end is measured against: the nearest other line, or the map edge when nearer
     to_edge = edge_gaps < gaps
     target = np.full(len(near), None, dtype=object)
@@ -478,7 +480,7 @@ def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, to
         pi, cand = pi[keep], cand[keep]
         found = np.zeros(len(todo), dtype=bool)
         if len(pi):
-            d = shapely.distance(pts[todo][pi], net.geoms[cand])
+            d = point_distances(pts[todo][pi], net.geoms[cand])
             order = np.lexsort((np.arange(len(pi)), d, pi))  # per point: smallest distance, first returned
             first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
             ok = d[first] <= radius
