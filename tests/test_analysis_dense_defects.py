@@ -230,3 +230,55 @@ def test_near_shared_matches_the_pair_by_pair_loop_wherever_it_can_be_reported(d
     assert reported.any() and (~reported).any()
     assert shapely.to_wkt(got[reported]).tolist() == shapely.to_wkt(np.array(expected, dtype=object)[reported]).tolist()
     assert np.array_equal(shapely.length(got) > tol * ABOVE, reported)
+
+
+# ---------------------------------------------------------------- a free end near its own line (line-dangle)
+
+def near_own_by_loop(net, p, at_start, away, pt, tol):
+    """One end at a time: the other parts of its line and its own part cut by ``shapely.ops.substring``."""
+    from shapely.ops import substring
+
+    part = net.part(p)
+    length = part.length
+    f = net.part_feat[p]
+    first, last = np.searchsorted(net.part_feat, [f, f + 1])
+    rest = [net.part(q) for q in range(first, last) if q != p]
+    if length > away:
+        rest.append(substring(part, away, length) if at_start else substring(part, 0, length - away))
+    return bool(rest) and bool(shapely.dwithin(pt, shapely.geometrycollections(rest), tol))
+
+
+def assert_near_own_agrees(net, tol):
+    from archivist.analysis.lines import loose_ends
+    from archivist.rules.linework import _near_own_line
+
+    found = loose_ends(net, ("contact", "boundary", "fault", "other", "unknown"), tol)
+    away = 2.0 * tol + 1e-9 * np.maximum(np.abs(net.coords[found.coord]).max(axis=1), 1.0)
+    got = _near_own_line(net, found.part, found.at_start, away, found.points, tol)
+    expected = [near_own_by_loop(net, int(p), bool(s), float(a), pt, tol)
+                for p, s, a, pt in zip(found.part, found.at_start, away, found.points)]
+    assert got.tolist() == expected
+    return got
+
+
+def test_ends_near_their_own_line_match_the_substring_loop(dense):
+    got = assert_near_own_agrees(dense.line_network(), dense.tolerance)
+    assert len(got) > 50
+
+
+def test_ends_near_their_own_line_on_hooks_loops_and_parts(tmp_path):
+    from coverage_builders import square_map
+
+    from archivist.analysis.lines import build_line_network
+
+    lines = [
+        shapely.linestrings([[0, 0], [10, 0], [10, 10], [0.3, 0.2]]),  # ends 0.36 from its own start: a near-closed loop
+        shapely.linestrings([[20, 0], [30, 0], [30, 5], [20.2, 0.6], [25, 8]]),  # passes its own start, then leaves
+        shapely.multilinestrings([[[40, 0], [50, 0]], [[50.3, 0.1], [60, 0]]]),  # two parts, a gap of 0.32
+        shapely.linestrings([[70, 0], [70.5, 0], [71, 0]]),  # shorter than the cut
+        shapely.segmentize(shapely.linestrings([[80, 0], [90, 0], [90, 10], [80, 0.4]]), 0.7),  # many vertices
+    ]
+    rows = [("contact", g) for g in lines]
+    net = build_line_network(load_project(square_map(tmp_path, "own", line_rows=rows)))
+    got = assert_near_own_agrees(net, 0.5)
+    assert got.any() and not got.all()

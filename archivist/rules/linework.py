@@ -428,22 +428,17 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         if cov.extent is not None:
             edge = cov.extent_boundary
             connected |= within_of(edge, pts, tol)
-    free = []
-    for k in np.flatnonzero(~connected):  # few: ends with no other line near
-        p, f = int(end_part[k]), int(end_feat[k])
-        part = net.part(p)
-        length = part.length
-        first, last = np.searchsorted(net.part_feat, [f, f + 1])
-        rest = [net.part(q) for q in range(first, last) if q != p]
-        away = 2.0 * tol + 1e-9 * max(abs(c[ends[k]]).max(), 1.0)
-        if length > away:
-            rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
-        if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
-            continue
-        free.append((k, part))
-    if not free:
+    cand = np.flatnonzero(~connected)  # few: ends with no other line near
+    if not len(cand):
         return
-    k_free = np.array([k for k, _ in free], dtype=np.int64)
+    # ... nor near their own line: its other parts, or its own part beyond 2 tolerances from the end
+    away = 2.0 * tol + 1e-9 * np.maximum(np.abs(c[ends[cand]]).max(axis=1), 1.0)
+    own = _near_own_line(net, end_part[cand], at_start[cand], away, pts[cand], tol)
+    k_free = cand[~own]
+    if not len(k_free):
+        return
+    parts = _part_lines(net, end_part[k_free])
+    free = list(zip(k_free.tolist(), parts))
     near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
     edge_gaps = point_distances(pts[k_free], np.full(len(k_free), edge, dtype=object)) if edge is not None else np.full(len(k_free), np.inf)
     # what each free end is measured against: the nearest other line, or the map edge when nearer
@@ -457,6 +452,80 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         name = "the map edge" if across else (_lower(net.label(j)) if j >= 0 else None)
         yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), onto, gap, name, crossing, tol, g,
                           project.crs or project.layers["lines"].crs)
+
+
+def _part_lines(net: LineNetwork, parts: np.ndarray) -> np.ndarray:
+    """The given parts as LineStrings (as :meth:`LineNetwork.part` builds each)."""
+    sizes = net.part_off[parts + 1] - net.part_off[parts]
+    idx = np.repeat(net.part_off[parts], sizes) + (np.arange(sizes.sum()) - np.repeat(np.cumsum(sizes) - sizes, sizes))
+    out = np.empty(len(parts), dtype=object)
+    shapely.linestrings(net.coords[idx], indices=np.repeat(np.arange(len(parts)), sizes), out=out)
+    return out
+
+
+def _near_own_line(net: LineNetwork, parts: np.ndarray, at_start: np.ndarray, away: np.ndarray, pts: np.ndarray,
+                   tol: float) -> np.ndarray:
+    """For each line end: within ``tol`` of another part of its own line, or of its own part from ``away`` along
+    it onwards (the part less its first or last ``away``: a line closing on itself).
+
+    The stretch of the part is the one :func:`shapely.ops.substring` cuts (its cut point from GEOS, its
+    vertices by the distance along the part summed segment by segment), built for all ends at once.
+    """
+    d = max(tol, 0.0)
+    near = np.zeros(len(parts), dtype=bool)
+    feats = net.part_feat[parts]
+    first = np.searchsorted(net.part_feat, feats)
+    last = np.searchsorted(net.part_feat, feats + 1)
+    # other parts of the same feature
+    count = last - first
+    multi = np.flatnonzero(count > 1)
+    if len(multi):
+        k = np.repeat(multi, count[multi])
+        q = np.repeat(first[multi], count[multi]) + (np.arange(count[multi].sum()) - np.repeat(np.cumsum(count[multi]) - count[multi], count[multi]))
+        other = q != parts[k]
+        k, q = k[other], q[other]
+        hit = shapely.dwithin(pts[k], _part_lines(net, q), d)
+        near[k[hit]] = True
+    # the own part beyond ``away``
+    lines = _part_lines(net, parts)
+    length = shapely.length(lines)
+    cut = np.flatnonzero(~near & (length > away))
+    if not len(cut):
+        return near
+    start = np.where(at_start[cut], away[cut], 0.0)
+    end = np.where(at_start[cut], length[cut], length[cut] - away[cut])
+    a = shapely.get_coordinates(shapely.line_interpolate_point(lines[cut], start))
+    b = shapely.get_coordinates(shapely.line_interpolate_point(lines[cut], end))
+    # vertices strictly between the two distances: each vertex but the last, at the length before it, summed
+    # segment by segment from the start of the part (in the order substring sums them)
+    off0, off1 = net.part_off[parts[cut]], net.part_off[parts[cut] + 1]
+    sizes = off1 - off0 - 1  # the vertices that start a segment
+    head = np.cumsum(sizes) - sizes
+    pos = np.arange(sizes.sum()) - np.repeat(head, sizes)
+    grp = np.repeat(np.arange(len(cut)), sizes)
+    vi = np.repeat(off0, sizes) + pos
+    dx = net.coords[vi + 1, 0] - net.coords[vi, 0]
+    dy = net.coords[vi + 1, 1] - net.coords[vi, 1]
+    seg = np.sqrt(dx * dx + dy * dy)
+    before = np.zeros(len(vi))
+    for j in range(1, int(sizes.max()) if len(sizes) else 0):  # one step per vertex position, all ends at once
+        at = np.flatnonzero(pos == j)
+        before[at] = before[at - 1] + seg[at - 1]
+    inner = (start[grp] < before) & (before < end[grp])
+    # each stretch: the cut point, its inner vertices in order, the end point
+    total = np.bincount(grp[inner], minlength=len(cut)) + 2
+    first_row = np.cumsum(total) - total
+    xy = np.empty((int(total.sum()), 2))
+    xy[first_row] = a
+    xy[first_row + total - 1] = b
+    mid = np.ones(len(xy), dtype=bool)
+    mid[first_row] = False
+    mid[first_row + total - 1] = False
+    xy[mid] = net.coords[vi[inner]]
+    rows = np.repeat(np.arange(len(cut)), total)
+    stretch = shapely.linestrings(xy, indices=rows)
+    near[cut] = shapely.dwithin(pts[cut], stretch, d)
+    return near
 
 
 def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
