@@ -74,7 +74,7 @@ def to_lonlat(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
     gy = np.concatenate([ys[j] for _ in range(3) for j in range(3)])
     transformer = pyproj.Transformer.from_crs(crs, WGS84, always_xy=True)
     with np.errstate(invalid="ignore"):
-        lon, lat = transformer.transform(gx, gy, errcheck=False)
+        lon, lat = transformer.transform(gx, gy, errcheck=False, inplace=True)  # gx, gy are ours: no copy
     lon = np.asarray(lon, dtype=float).reshape(9, n)
     lat = np.asarray(lat, dtype=float).reshape(9, n)
     with np.errstate(invalid="ignore"):
