@@ -508,8 +508,10 @@ def _near_own_line(net: LineNetwork, parts: np.ndarray, at_start: np.ndarray, aw
     dy = net.coords[vi + 1, 1] - net.coords[vi, 1]
     seg = np.sqrt(dx * dx + dy * dy)
     before = np.zeros(len(vi))
-    for j in range(1, int(sizes.max()) if len(sizes) else 0):  # one step per vertex position, all ends at once
-        at = np.flatnonzero(pos == j)
+    by_pos = np.argsort(pos, kind="stable")  # the vertices at position 1 of every part, then at 2, ...
+    bounds = np.searchsorted(pos[by_pos], np.arange(1, int(sizes.max()) + 1)) if len(sizes) else np.zeros(1, dtype=np.int64)
+    for lo, hi in zip(bounds[:-1].tolist(), bounds[1:].tolist()):  # one step per position: every vertex summed once
+        at = by_pos[lo:hi]
         before[at] = before[at - 1] + seg[at - 1]
     inner = (start[grp] < before) & (before < end[grp])
     # each stretch: the cut point, its inner vertices in order, the end point
