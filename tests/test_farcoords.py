@@ -37,3 +37,16 @@ def test_largest_coordinate_matches_the_loop_with_missing_empty_and_broken_geome
     expected = largest_by_loop(arr)
     assert np.array_equal(largest, expected, equal_nan=True)
     assert np.flatnonzero(mask).tolist() == [11, 13, 17]
+
+
+def test_a_layer_finds_its_far_coordinates_once_and_as_far_out_does(tmp_path):
+    from builders import tiny_project
+
+    from archivist.project import load_project
+
+    layer = load_project(tiny_project(tmp_path)).layers["units"]
+    mask, largest = layer.far
+    assert layer.far is layer.far  # computed once per load, shared by every check that asks
+    expected_mask, expected_largest = far_out(layer.geometry, layer.crs)
+    assert mask.tolist() == expected_mask.tolist() and np.array_equal(largest, expected_largest)
+    assert not mask.any() and (largest > 0).all()

@@ -27,7 +27,6 @@ from typing import TYPE_CHECKING, Any, Iterable
 import numpy as np
 import shapely
 
-from ..farcoords import far_out
 from .arrays import (
     LINESTRING,
     MULTILINESTRING,
@@ -209,7 +208,7 @@ def _line_geoms(layer: Layer) -> np.ndarray:
     g = collections_as(np.array(layer.geometry, dtype=object, copy=True), linear_parts, shapely.multilinestrings)
     g[~np.isin(shapely.get_type_id(g), (LINESTRING, MULTILINESTRING))] = None
     g[shapely.is_empty(g)] = None
-    g[far_out(layer.geometry, layer.crs)[0]] = None  # reported by coordinates-implausible
+    g[layer.far[0]] = None  # reported by coordinates-implausible
     return g
 
 

@@ -158,18 +158,19 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         links = shapely.shortest_line(targets, _far_points(pieces, targets))
         xy = shapely.get_coordinates(links).reshape(-1, 4)
         between = _across(units, inside, shapely.get_point(links, 0), tol) if what != "edge" else None
-        for k, (piece, f, u, length) in enumerate(zip(pieces, feats.tolist(), inside.tolist(), lengths.tolist())):
-            metres, towards = offset(crs, *xy[k].tolist(), m)
+        for i, (piece, f, u, length) in enumerate(zip(pieces, feats.tolist(), inside.tolist(), lengths.tolist())):
+            x0, y0, x1, y1 = xy[i].tolist()
+            metres, towards = offset(crs, x0, y0, x1, y1, m)
             away = f"{num(metres)} m {towards}"
             if what == "edge":
                 text = f"{net.label(f)} runs {num(length)} m off the map's outer edge, up to {away} of it."
             elif u >= 0:
                 assert between is not None
                 text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {away} "
-                        f"of the boundary {between[k]}, inside {units.label(u)}.")
+                        f"of the boundary {between[i]}, inside {units.label(u)}.")
             else:
                 text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
-                        f"{away} of the nearest, {units.label(int(nearest[k]))}.")
+                        f"{away} of the nearest, {units.label(int(nearest[i]))}.")
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
 
 

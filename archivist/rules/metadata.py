@@ -10,7 +10,7 @@ import pandas as pd
 import shapely
 
 from ..analysis.messages import plural, verb
-from ..farcoords import coordinate_limit, far_out
+from ..farcoords import coordinate_limit
 from ..identifiers import doi_problem, igsn_problem, orcid_problem
 from ..model import Hit, Severity
 from ..manifest import DEPOSIT_KEYS
@@ -700,7 +700,7 @@ def coordinates_implausible(project: MapProject, ctx: CheckContext) -> Iterator[
     for its CRS".
     """
     for role, layer in project.sources.items():
-        mask, largest = far_out(layer.geometry, layer.crs)
+        mask, largest = layer.far
         limit = coordinate_limit(layer.crs)
         unit = "degrees" if layer.crs is not None and layer.crs.is_geographic else "map units"
         for i in np.flatnonzero(mask):
