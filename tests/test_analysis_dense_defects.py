@@ -154,7 +154,16 @@ def test_off_boundaries_shared_by_two_rules_equal_their_own_computation(dense):
     assert len(runs) > 100
     assert shapely.to_wkt(shared_runs[poly]).tolist() == shapely.to_wkt(runs).tolist()
     assert shared_part[poly].tolist() == part.tolist()
-    assert shapely.to_wkt(shared_off[poly]).tolist() == shapely.to_wkt(own).tolist()
+    done = ~shapely.is_missing(shared_off[poly])
+    assert shapely.to_wkt(shared_off[poly][done]).tolist() == shapely.to_wkt(own[done]).tolist()
+    # left out: runs of faults lying wholly inside the units, whose every stretch off the boundaries lies inside a
+    # unit (where line-off-boundary lets a fault run), as the full computation shows
+    skipped = ~done
+    assert skipped.sum() > 10
+    assert (net.part_roles[part[skipped]] == "fault").all()
+    pieces, _ = linear_parts(own[skipped], dense.tolerance)
+    assert len(pieces) > 10
+    assert (unit_at(shapely.line_interpolate_point(pieces, 0.5, normalized=True), units) >= 0).all()
 
 
 # ---------------------------------------------------------------- where a stretch off the boundaries lies (line-off-boundary)

@@ -49,11 +49,11 @@ def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, di
     if big.any():
         for j in np.unique(rj[big]).tolist():
             sel = np.flatnonzero(rj == j)
-            ok[sel] = shapely.dwithin(_prepared(refs[j]), geoms[gi[sel]], d)
+            ok[sel] = shapely.dwithin(prepared_copy(refs[j]), geoms[gi[sel]], d)
     return gi[ok], rj[ok]
 
 
-def _prepared(ref: object) -> object:
+def prepared_copy(ref: object) -> object:
     """A private prepared copy of ``ref`` (the caller's geometry stays as it was)."""
     copy = shapely.from_wkb(shapely.to_wkb(ref))
     shapely.prepare(copy)
@@ -66,7 +66,7 @@ def within_of(ref: object, geoms: np.ndarray, distance: float) -> np.ndarray:
     geoms = np.asarray(geoms, dtype=object)
     d = max(distance, 0.0)
     if len(geoms) and shapely.get_num_coordinates(ref) > BIG:
-        return np.asarray(shapely.dwithin(_prepared(ref), geoms, d), dtype=bool)
+        return np.asarray(shapely.dwithin(prepared_copy(ref), geoms, d), dtype=bool)
     return np.asarray(shapely.dwithin(geoms, ref, d), dtype=bool)
 
 

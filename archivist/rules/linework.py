@@ -52,6 +52,7 @@ from ..analysis.nearness import (
     connected_pieces,
     dwithin_pairs,
     point_distances,
+    prepared_copy,
     off_unit_boundaries,
     uncovered,
     undrawn_boundaries,
@@ -225,11 +226,28 @@ def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> l
 def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The stretches of line with no exact unit edge (runs of segments, any kind), their part, and what of each
     lies farther than the tolerance from every unit boundary; once per check (line-off-boundary and
-    line-duplicate both ask)."""
+    line-duplicate both ask).
+
+    What lies off is left out (None) for the runs of a fault part that lies wholly inside the unit polygons
+    (every run of the part covered by their union): whatever of it lies off the boundaries lies inside a unit,
+    where a fault may run, so line-off-boundary reports none of it; line-duplicate takes such a run as near
+    the boundaries. Their buffers are most of the work on a map whose faults cut across the units.
+    """
 
     def compute() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         runs, part = ctx.line_network().runs(ctx.segment_edges() < 0)
-        off = off_unit_boundaries(runs, ctx.units(), float(ctx.tolerance)) if len(runs) else runs
+        if not len(runs):
+            return runs, part, runs
+        tol = float(ctx.tolerance)
+        todo = np.ones(len(runs), dtype=bool)
+        fault = np.flatnonzero(ctx.line_network().part_roles[part] == "fault")
+        cov = ctx.coverage()
+        if len(fault) and tol > 0 and not cov.failures and cov.union is not None and not shapely.is_empty(cov.union):
+            inside = np.asarray(shapely.covers(prepared_copy(cov.union), runs[fault]), dtype=bool)
+            leaves = np.unique(part[fault[~inside]])  # a part with any run leaving the units is measured whole
+            todo[fault[inside & ~np.isin(part[fault], leaves)]] = False
+        off = np.full(len(runs), None, dtype=object)
+        off[todo] = off_unit_boundaries(runs[todo], ctx.units(), tol)
         return runs, part, off
 
     return ctx.shared("linework.off-unit-boundaries", compute)
@@ -839,6 +857,7 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
                 off = _off_boundaries(ctx)[2]  # the same stretches: those with no exact unit edge
                 close = shapely.length(off) < shapely.length(runs) * (1 - 1e-12)
+                close |= shapely.is_missing(off)  # faults inside the units: their lines are asked for all the same
             else:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
