@@ -46,10 +46,15 @@ def far_out(geoms: np.ndarray, crs: pyproj.CRS | None) -> tuple[np.ndarray, np.n
     geoms = np.asarray(geoms, dtype=object)
     n = len(geoms)
     coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
-    magnitude = np.abs(coords).max(axis=1) if len(coords) else np.zeros(0)
-    broken = ~np.isfinite(coords).all(axis=1) | (magnitude > coordinate_limit(crs))
+    x, y = coords[:, 0], coords[:, 1]  # column by column: numpy reduces a short axis slowly
+    magnitude = np.maximum(np.abs(x), np.abs(y))  # NaN where either is NaN
+    finite = np.isfinite(x) & np.isfinite(y)
+    broken = ~finite | (magnitude > coordinate_limit(crs))
     mask = np.bincount(index, weights=broken, minlength=n) > 0
     largest = np.zeros(n)
-    np.fmax.at(largest, index, np.where(np.isfinite(magnitude), magnitude, np.inf))
-    largest[np.bincount(index, weights=np.isnan(coords).any(axis=1), minlength=n) > 0] = np.nan
+    if len(index):
+        # ``index`` runs in order (one geometry's coordinates after another's): the largest per run, in one pass
+        starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
+        largest[index[starts]] = np.maximum.reduceat(np.where(finite, magnitude, np.inf), starts)
+    largest[np.bincount(index, weights=np.isnan(x) | np.isnan(y), minlength=n) > 0] = np.nan
     return mask, largest

@@ -23,6 +23,7 @@ import shapely
 
 from . import manifest as mf
 from . import vectorio
+from .farcoords import far_out
 from .model import Hit
 from .progress import Progress
 from .readers import TABLE_SUFFIXES, TableData, read_table, text_column
@@ -91,6 +92,12 @@ class Layer:
     def valid(self) -> np.ndarray:
         """GEOS validity of every geometry (False where there is none), computed once per load."""
         return shapely.is_valid(self.geometry)
+
+    @cached_property
+    def far(self) -> tuple[np.ndarray, np.ndarray]:
+        """:func:`archivist.farcoords.far_out` of the geometries (which have coordinates no map can have, and the
+        largest of each), computed once per load: the metadata rule and every analysis that leaves them out ask."""
+        return far_out(self.geometry, self.crs)
 
     def field(self, key: str) -> str | None:
         """The attribute column named by manifest key ``key`` (e.g. ``unit_field``), if it is in the data."""

@@ -24,7 +24,7 @@ from hypothesis import strategies as st
 from archivist.analysis.arrays import linear_parts
 from archivist.analysis.context import CheckContext
 from archivist.analysis.coverage import _collinear
-from archivist.analysis.nearness import off_unit_boundaries
+from archivist.analysis.nearness import off_unit_boundaries, unit_at
 from archivist.project import load_project
 from archivist.rules.linework import _nearest_other_line, _off_boundaries
 from coverage_builders import synthetic_map, with_defect_density, with_units, write_map
@@ -154,4 +154,140 @@ def test_off_boundaries_shared_by_two_rules_equal_their_own_computation(dense):
     assert len(runs) > 100
     assert shapely.to_wkt(shared_runs[poly]).tolist() == shapely.to_wkt(runs).tolist()
     assert shared_part[poly].tolist() == part.tolist()
-    assert shapely.to_wkt(shared_off[poly]).tolist() == shapely.to_wkt(own).tolist()
+    done = ~shapely.is_missing(shared_off[poly])
+    assert shapely.to_wkt(shared_off[poly][done]).tolist() == shapely.to_wkt(own[done]).tolist()
+    # left out: runs of faults lying wholly inside the units, whose every stretch off the boundaries lies inside a
+    # unit (where line-off-boundary lets a fault run), as the full computation shows
+    skipped = ~done
+    assert skipped.sum() > 10
+    assert (net.part_roles[part[skipped]] == "fault").all()
+    pieces, _ = linear_parts(own[skipped], dense.tolerance)
+    assert len(pieces) > 10
+    assert (unit_at(shapely.line_interpolate_point(pieces, 0.5, normalized=True), units) >= 0).all()
+
+
+# ---------------------------------------------------------------- where a stretch off the boundaries lies (line-off-boundary)
+
+def far_point_by_loop(piece, target):
+    """One stretch at a time: its vertices and midpoint, the first farthest from ``target``."""
+    pts = shapely.points(np.vstack([shapely.get_coordinates(piece),
+                                    shapely.get_coordinates(shapely.line_interpolate_point(piece, 0.5, normalized=True))]))
+    return pts[int(np.argmax(shapely.distance(pts, target)))]
+
+
+def across_by_loop(units, u, foot, tol):
+    """One foot at a time: the nearest other polygon within ``tol`` (first returned among equals), or None."""
+    near = units.tree.query(foot, predicate="dwithin", distance=tol)
+    near = near[near != u]
+    if not len(near):
+        return None
+    return int(near[np.argmin(shapely.distance(foot, units.geoms[near]))])
+
+
+def test_off_boundary_places_match_the_stretch_by_stretch_loop(dense):
+    from archivist.rules.linework import _across, _far_points, _first_nearest
+
+    units, tol = dense.units(), dense.tolerance
+    off = _off_boundaries(dense)[2]
+    pieces, _ = linear_parts(off, tol)
+    mid = shapely.line_interpolate_point(pieces, 0.5, normalized=True)
+    inside = unit_at(mid, units)
+    assert len(pieces) > 100 and (inside >= 0).sum() > 50
+    nearest = _first_nearest(units, mid)
+    assert nearest.tolist() == [int(units.tree.query_nearest(p)[0]) for p in mid]
+    targets = shapely.boundary(units.geoms[np.where(inside >= 0, inside, nearest)])
+    far = _far_points(pieces, targets)
+    assert shapely.to_wkt(far).tolist() == [shapely.to_wkt(far_point_by_loop(p, t)) for p, t in zip(pieces, targets)]
+    feet = shapely.get_point(shapely.shortest_line(targets, far), 0)
+    words = _across(units, inside, feet, tol)
+    for u, foot, said in zip(inside.tolist(), feet, words):
+        if u < 0:
+            assert said == ""
+            continue
+        v = across_by_loop(units, u, foot, tol)
+        assert said == (f"between {units.code(u)} and {units.code(v)}" if v is not None else f"of {units.label(u)} along the map edge")
+    assert any(w.startswith("between") for w in words)
+
+
+# ---------------------------------------------------------------- stretches two lines share (line-duplicate)
+
+def near_shared_by_loop(run, line, own_ends, tol):
+    """One pair at a time: the run within ``tol`` of the line, less ``5 tol`` around where they meet or end."""
+    close = shapely.intersection(run, shapely.buffer(line, tol))
+    ends = shapely.union(shapely.boundary(line), shapely.multipoints(own_ends))
+    return shapely.difference(close, shapely.buffer(shapely.union(shapely.intersection(run, line), ends), 5.0 * tol))
+
+
+def test_near_shared_matches_the_pair_by_pair_loop_wherever_it_can_be_reported(dense):
+    from archivist.analysis.messages import ABOVE
+    from archivist.rules.linework import _near_shared
+
+    net, tol = dense.line_network(), dense.tolerance
+    runs, rpart = net.runs(dense.segment_edges() < 0)
+    ri, fj = net.tree.query(runs, predicate="dwithin", distance=tol)
+    keep = fj != net.part_feat[rpart[ri]]
+    ri, fj = ri[keep], fj[keep]
+    # and every run against a copy of its own line moved a quarter of the tolerance east: a trace drawn twice
+    copies = shapely.transform(net.geoms, lambda xy: xy + [tol / 4, 0.0])
+    lines = np.concatenate([net.geoms, copies])
+    r_all = np.arange(len(runs))
+    ri, fj = np.r_[ri, r_all], np.r_[fj, len(net.geoms) + net.part_feat[rpart[r_all]]]
+    assert len(ri) > 100
+    got = _near_shared(runs[ri], lines, fj, net.part_ends(rpart[ri]), tol)
+    expected = [near_shared_by_loop(runs[r], lines[f], net.part_ends(rpart[[r]])[0], tol) for r, f in zip(ri, fj)]
+    reported = shapely.length(expected) > tol * ABOVE
+    assert reported.any() and (~reported).any()
+    assert shapely.to_wkt(got[reported]).tolist() == shapely.to_wkt(np.array(expected, dtype=object)[reported]).tolist()
+    assert np.array_equal(shapely.length(got) > tol * ABOVE, reported)
+
+
+# ---------------------------------------------------------------- a free end near its own line (line-dangle)
+
+def near_own_by_loop(net, p, at_start, away, pt, tol):
+    """One end at a time: the other parts of its line and its own part cut by ``shapely.ops.substring``."""
+    from shapely.ops import substring
+
+    part = net.part(p)
+    length = part.length
+    f = net.part_feat[p]
+    first, last = np.searchsorted(net.part_feat, [f, f + 1])
+    rest = [net.part(q) for q in range(first, last) if q != p]
+    if length > away:
+        rest.append(substring(part, away, length) if at_start else substring(part, 0, length - away))
+    return bool(rest) and bool(shapely.dwithin(pt, shapely.geometrycollections(rest), tol))
+
+
+def assert_near_own_agrees(net, tol):
+    from archivist.analysis.lines import loose_ends
+    from archivist.rules.linework import _near_own_line
+
+    found = loose_ends(net, ("contact", "boundary", "fault", "other", "unknown"), tol)
+    away = 2.0 * tol + 1e-9 * np.maximum(np.abs(net.coords[found.coord]).max(axis=1), 1.0)
+    got = _near_own_line(net, found.part, found.at_start, away, found.points, tol)
+    expected = [near_own_by_loop(net, int(p), bool(s), float(a), pt, tol)
+                for p, s, a, pt in zip(found.part, found.at_start, away, found.points)]
+    assert got.tolist() == expected
+    return got
+
+
+def test_ends_near_their_own_line_match_the_substring_loop(dense):
+    got = assert_near_own_agrees(dense.line_network(), dense.tolerance)
+    assert len(got) > 50
+
+
+def test_ends_near_their_own_line_on_hooks_loops_and_parts(tmp_path):
+    from coverage_builders import square_map
+
+    from archivist.analysis.lines import build_line_network
+
+    lines = [
+        shapely.linestrings([[0, 0], [10, 0], [10, 10], [0.3, 0.2]]),  # ends 0.36 from its own start: a near-closed loop
+        shapely.linestrings([[20, 0], [30, 0], [30, 5], [20.2, 0.6], [25, 8]]),  # passes its own start, then leaves
+        shapely.multilinestrings([[[40, 0], [50, 0]], [[50.3, 0.1], [60, 0]]]),  # two parts, a gap of 0.32
+        shapely.linestrings([[70, 0], [70.5, 0], [71, 0]]),  # shorter than the cut
+        shapely.segmentize(shapely.linestrings([[80, 0], [90, 0], [90, 10], [80, 0.4]]), 0.7),  # many vertices
+    ]
+    rows = [("contact", g) for g in lines]
+    net = build_line_network(load_project(square_map(tmp_path, "own", line_rows=rows)))
+    got = assert_near_own_agrees(net, 0.5)
+    assert got.any() and not got.all()

@@ -371,3 +371,18 @@ def test_non_finite_coordinates_are_one_finding(x, tmp_path):
     report = archivist.check(root)
     far = [f for f in report.findings if f.rule == "coordinates-implausible"]
     assert [f.features for f in far] == [("S-0002",)] and "not a finite number" in far[0].message
+
+
+def test_formula_like_cells_read_once_per_value_match_the_cell_by_cell_reading():
+    import re
+
+    import pandas as pd
+
+    from archivist.rules.metadata import FORMULA_LEAD, PLAIN_NUMBER, _formula_like
+
+    cells = ["=SUM(A1)", "+12", "-3.5", "Ka", None, float("nan"), 7, "=SUM(A1)", "@x", "-", "+49 30 1234", b"=b", True, "Ka", "", 1.0, "1"]
+    series = pd.Series(cells * 50, dtype=object)
+    # the plain reading: cell by cell, text only
+    expected = [isinstance(c, str) and re.match(FORMULA_LEAD, c) is not None and re.match(PLAIN_NUMBER, c) is None for c in series]
+    assert _formula_like(series).tolist() == expected
+    assert any(expected) and not all(expected)

@@ -27,7 +27,6 @@ from typing import TYPE_CHECKING, Any, Iterable
 import numpy as np
 import shapely
 
-from ..farcoords import far_out
 from .arrays import (
     LINESTRING,
     MULTILINESTRING,
@@ -40,6 +39,7 @@ from .arrays import (
 )
 from .halfedges import Edges
 from .messages import feature_name
+from .nearness import dwithin_pairs
 
 if TYPE_CHECKING:
     from ..project import Layer, MapProject
@@ -208,7 +208,7 @@ def _line_geoms(layer: Layer) -> np.ndarray:
     g = collections_as(np.array(layer.geometry, dtype=object, copy=True), linear_parts, shapely.multilinestrings)
     g[~np.isin(shapely.get_type_id(g), (LINESTRING, MULTILINESTRING))] = None
     g[shapely.is_empty(g)] = None
-    g[far_out(layer.geometry, layer.crs)[0]] = None  # reported by coordinates-implausible
+    g[layer.far[0]] = None  # reported by coordinates-implausible
     return g
 
 
@@ -288,7 +288,7 @@ def loose_ends(net: LineNetwork, roles: tuple[str, ...], tol: float) -> LooseEnd
     An end that shares its coordinates exactly with another vertex (of any
     line, its own included: a closed loop) is connected without further test;
     for the others, ``near_line`` says whether another feature lies within
-    ``tol`` (GEOS ``dwithin`` through the network's STRtree).
+    ``tol`` (GEOS ``dwithin`` through the network's STRtree, :func:`.nearness.dwithin_pairs`).
     """
     empty = np.empty(0, dtype=np.int64)
     sel_parts = np.flatnonzero(np.isin(net.part_roles, roles) & (np.diff(net.part_off) >= 2))
@@ -316,6 +316,6 @@ def loose_ends(net: LineNetwork, roles: tuple[str, ...], tol: float) -> LooseEnd
     end_feat = net.part_feat[end_part]
     near = np.zeros(len(ends), dtype=bool)
     if len(ends):
-        pi, fj = net.tree.query(pts, predicate="dwithin", distance=max(tol, 0.0))
+        pi, fj = dwithin_pairs(net.tree, net.geoms, pts, tol)
         near[pi[fj != end_feat[pi]]] = True
     return LooseEnds(ends, end_part, end_feat, at_start, pts, near)

@@ -22,6 +22,89 @@ if TYPE_CHECKING:
     from .lines import LineNetwork
 
 
+# Reference geometries with more vertices than this are tested through a prepared copy (GEOS's indexed facet
+# distance) rather than segment by segment: a frame line of thousands of vertices spans the whole map, so
+# every query meets it (our own choice; the answers are the same either way, only the time differs).
+BIG = 256
+
+
+def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, distance: float) -> tuple[np.ndarray, np.ndarray]:
+    """The pairs (index into ``geoms``, index into ``refs``) within ``distance``, as ``tree.query(geoms,
+    predicate="dwithin", distance=distance)`` gives them and in its order (``tree`` indexes ``refs``).
+
+    The index is asked for the boxes of ``geoms`` widened by ``distance`` (the candidates that query
+    tests, in its order); the candidates are then tested in bulk, each large reference (over :data:`BIG`
+    vertices) once through a prepared copy against all its candidates.
+    """
+    geoms = np.asarray(geoms, dtype=object)
+    d = max(distance, 0.0)
+    if not len(geoms) or not len(refs):
+        return np.empty(0, dtype=np.int64), np.empty(0, dtype=np.int64)
+    b = shapely.bounds(geoms)
+    gi, rj = tree.query(shapely.box(b[:, 0] - d, b[:, 1] - d, b[:, 2] + d, b[:, 3] + d))
+    ok = np.zeros(len(gi), dtype=bool)
+    big = shapely.get_num_coordinates(refs[rj]) > BIG
+    small = ~big
+    ok[small] = shapely.dwithin(geoms[gi[small]], refs[rj[small]], d)
+    if big.any():
+        for j in np.unique(rj[big]).tolist():
+            sel = np.flatnonzero(rj == j)
+            ok[sel] = shapely.dwithin(prepared_copy(refs[j]), geoms[gi[sel]], d)
+    return gi[ok], rj[ok]
+
+
+def prepared_copy(ref: object) -> object:
+    """A private prepared copy of ``ref`` (the caller's geometry stays as it was)."""
+    copy = shapely.from_wkb(shapely.to_wkb(ref))
+    shapely.prepare(copy)
+    return copy
+
+
+def within_of(ref: object, geoms: np.ndarray, distance: float) -> np.ndarray:
+    """``shapely.dwithin(geoms, ref, distance)`` for one reference; a large one (over :data:`BIG` vertices) is
+    prepared once for all ``geoms``."""
+    geoms = np.asarray(geoms, dtype=object)
+    d = max(distance, 0.0)
+    if len(geoms) and shapely.get_num_coordinates(ref) > BIG:
+        return np.asarray(shapely.dwithin(prepared_copy(ref), geoms, d), dtype=bool)
+    return np.asarray(shapely.dwithin(geoms, ref, d), dtype=bool)
+
+
+def point_distances(points: np.ndarray, refs: np.ndarray) -> np.ndarray:
+    """``shapely.distance(points, refs)``, pair by pair, for points and linear references.
+
+    A reference of over :data:`BIG` vertices is measured through a spatial index of its segments: GEOS
+    measures a point against a line segment by segment and keeps the smallest, and the index finds that
+    smallest segment distance without measuring every segment; the value is the same.
+    """
+    points = np.asarray(points, dtype=object)
+    refs = np.asarray(refs, dtype=object)
+    out = np.empty(len(points))
+    if not len(points):
+        return out
+    big = shapely.get_num_coordinates(refs) > BIG
+    out[~big] = shapely.distance(points[~big], refs[~big])
+    if big.any():
+        at = np.flatnonzero(big)
+        which = np.array([id(g) for g in refs[at]])
+        for key in np.unique(which).tolist():
+            sel = at[which == key]
+            out[sel] = _segment_distances(refs[sel[0]], points[sel])
+    return out
+
+
+def _segment_distances(line: object, points: np.ndarray) -> np.ndarray:
+    """Distance from each point to ``line`` (a LineString or MultiLineString) through an index of its segments."""
+    xy, k = shapely.get_coordinates(shapely.get_parts(line), return_index=True)
+    same = k[1:] == k[:-1]  # consecutive coordinates of one part make a segment
+    a, b = xy[:-1][same], xy[1:][same]
+    if not len(a):  # no segment at all: GEOS's own answer
+        return np.asarray(shapely.distance(points, line), dtype=float)
+    segs = shapely.linestrings(np.stack([a, b], axis=1))
+    _, dist = shapely.STRtree(segs).query_nearest(points, return_distance=True, all_matches=False)
+    return np.asarray(dist, dtype=float)
+
+
 def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
     """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
     out = np.full(len(targets), None, dtype=object)
@@ -51,7 +134,7 @@ def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.S
     if not len(targets) or not len(refs):
         return targets.copy()
     tree = tree if tree is not None else shapely.STRtree(refs)
-    ti, ri = tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
+    ti, ri = dwithin_pairs(tree, refs, targets, tol)
     buf = near_buffers(targets, ti, refs[ri], tol)
     out = targets.copy()
     have = ~shapely.is_missing(buf)

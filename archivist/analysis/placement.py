@@ -67,17 +67,19 @@ def to_lonlat(crs: pyproj.CRS, bounds: np.ndarray) -> np.ndarray:
     n = len(bounds)
     if n == 0:
         return np.empty((0, 4))
-    xs = np.stack([bounds[:, 0], (bounds[:, 0] + bounds[:, 2]) / 2, bounds[:, 2]], axis=1)
-    ys = np.stack([bounds[:, 1], (bounds[:, 1] + bounds[:, 3]) / 2, bounds[:, 3]], axis=1)
-    gx = np.repeat(xs, 3, axis=1).ravel()
-    gy = np.tile(ys, (1, 3)).ravel()
+    # the nine points in nine rows of n (row 3i + j: x column i, y column j), so every reduction runs along rows
+    xs = (bounds[:, 0], (bounds[:, 0] + bounds[:, 2]) / 2, bounds[:, 2])
+    ys = (bounds[:, 1], (bounds[:, 1] + bounds[:, 3]) / 2, bounds[:, 3])
+    gx = np.concatenate([xs[i] for i in range(3) for _ in range(3)])
+    gy = np.concatenate([ys[j] for _ in range(3) for j in range(3)])
     transformer = pyproj.Transformer.from_crs(crs, WGS84, always_xy=True)
     with np.errstate(invalid="ignore"):
-        lon, lat = transformer.transform(gx, gy, errcheck=False)
-    lon = np.asarray(lon, dtype=float).reshape(n, 9)
-    lat = np.asarray(lat, dtype=float).reshape(n, 9)
-    bad = ~(np.isfinite(lon) & np.isfinite(lat)).all(axis=1) | (np.abs(lat) > 90).any(axis=1)
-    out = np.stack([lon.min(axis=1), lat.min(axis=1), lon.max(axis=1), lat.max(axis=1)], axis=1)
+        lon, lat = transformer.transform(gx, gy, errcheck=False, inplace=True)  # gx, gy are ours: no copy
+    lon = np.asarray(lon, dtype=float).reshape(9, n)
+    lat = np.asarray(lat, dtype=float).reshape(9, n)
+    with np.errstate(invalid="ignore"):
+        bad = ~np.logical_and.reduce(np.isfinite(lon) & np.isfinite(lat) & ~(np.abs(lat) > 90), axis=0)
+    out = np.stack([lon.min(axis=0), lat.min(axis=0), lon.max(axis=0), lat.max(axis=0)], axis=1)
     out[bad] = np.nan
     return out
 

@@ -9,7 +9,6 @@ from typing import TYPE_CHECKING, Iterable, SupportsIndex
 import numpy as np
 import shapely
 
-from ..farcoords import far_out
 from .arrays import (
     COLLECTION,
     MULTIPOLYGON,
@@ -90,7 +89,7 @@ def read_units(project: MapProject) -> Units:
     """The project's unit polygons; features far outside any map are left to coordinates-implausible."""
     layer = project.layers["units"]
     geoms = polygonal(layer.geometry, layer.valid)
-    rows = np.flatnonzero(~shapely.is_missing(geoms) & ~far_out(layer.geometry, layer.crs)[0])
+    rows = np.flatnonzero(~shapely.is_missing(geoms) & ~layer.far[0])
     codes = None
     values = text_values(layer, "unit_field")
     if values is not None:

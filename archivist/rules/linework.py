@@ -50,10 +50,14 @@ from ..analysis.lines import LineNetwork, kind_for, loose_ends, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
     connected_pieces,
+    dwithin_pairs,
+    point_distances,
+    prepared_copy,
     off_unit_boundaries,
     uncovered,
     undrawn_boundaries,
     unit_at,
+    within_of,
 )
 from ..analysis.polygons import Units
 from ..model import Hit
@@ -129,41 +133,121 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         off = uncovered(runs, np.array([cov.extent_boundary], dtype=object), tol)
         pieces, k = linear_parts(off, tol * ABOVE)
         found.append((pieces, part[k], "edge"))
+    crs = project.crs or project.layers["units"].crs
     for pieces, parts, what in found:
         if not len(pieces):
             continue
         pieces, parts = connected_pieces(pieces, parts)
         mid = shapely.line_interpolate_point(pieces, 0.5, normalized=True)
         inside = unit_at(mid, units)
-        for piece, p, u in zip(pieces, parts, inside):
-            f = net.part_feat[p]
-            role = net.roles[f]
-            if role == "fault" and u >= 0:
-                continue
-            length = float(g.lengths(piece)) if g.geographic else float(shapely.length(piece) * m)
-            crs = project.crs or project.layers["units"].crs
+        feats = net.part_feat[parts]
+        keep = ~((net.roles[feats] == "fault") & (inside >= 0))  # faults may run inside a unit
+        pieces, feats, inside, mid = pieces[keep], feats[keep], inside[keep], mid[keep]
+        if not len(pieces):
+            continue
+        lengths = np.asarray(g.lengths(pieces), dtype=float) if g.geographic else shapely.length(pieces) * m
+        # what each piece is measured against: the map edge, the boundary of the polygon it lies in, or that of
+        # the nearest polygon; all pieces at once
+        nearest = np.full(len(pieces), -1, dtype=np.int64)
+        if what == "edge":
+            targets = np.full(len(pieces), cov.extent_boundary, dtype=object)
+        else:
+            outside = np.flatnonzero(inside < 0)
+            if len(outside):
+                nearest[outside] = _first_nearest(units, mid[outside])
+            targets = shapely.boundary(units.geoms[np.where(inside >= 0, inside, nearest)])
+        links = shapely.shortest_line(targets, _far_points(pieces, targets))
+        xy = shapely.get_coordinates(links).reshape(-1, 4)
+        between = _across(units, inside, shapely.get_point(links, 0), tol) if what != "edge" else None
+        for i, (piece, f, u, length) in enumerate(zip(pieces, feats.tolist(), inside.tolist(), lengths.tolist())):
+            x0, y0, x1, y1 = xy[i].tolist()
+            metres, towards = offset(crs, x0, y0, x1, y1, m)
+            away = f"{num(metres)} m {towards}"
             if what == "edge":
-                away = _away(piece, cov.extent_boundary, crs, m)
                 text = f"{net.label(f)} runs {num(length)} m off the map's outer edge, up to {away} of it."
             elif u >= 0:
-                edge, between = _boundary_near(piece, u, units, tol)
-                text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {_away(piece, edge, crs, m)} "
-                        f"of the boundary {between}, inside {units.label(u)}.")
+                assert between is not None
+                text = (f"{net.label(f)} runs {num(length)} m off the unit boundaries, up to {away} "
+                        f"of the boundary {between[i]}, inside {units.label(u)}.")
             else:
-                near = int(units.tree.query_nearest(shapely.line_interpolate_point(piece, 0.5, normalized=True))[0])
                 text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
-                        f"{_away(piece, shapely.boundary(units.geoms[near]), crs, m)} of the nearest, {units.label(near)}.")
+                        f"{away} of the nearest, {units.label(int(nearest[i]))}.")
             yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+
+
+def _first_nearest(units: Units, points: np.ndarray) -> np.ndarray:
+    """For each point, the unit polygon the spatial index returns first among the nearest."""
+    pi, ui = units.tree.query_nearest(points)
+    first = np.r_[True, pi[1:] != pi[:-1]]
+    out = np.full(len(points), -1, dtype=np.int64)
+    out[pi[first]] = ui[first]
+    return out
+
+
+def _far_points(pieces: np.ndarray, targets: np.ndarray) -> np.ndarray:
+    """For each piece, its point (among its vertices and its midpoint) farthest from its target; the first on ties."""
+    xy, k = shapely.get_coordinates(pieces, return_index=True)
+    mids = shapely.get_coordinates(shapely.line_interpolate_point(pieces, 0.5, normalized=True))
+    n = len(pieces)
+    # each piece's vertices, then its midpoint
+    pos = np.r_[np.arange(len(k)) + k, np.cumsum(np.bincount(k, minlength=n)) + np.arange(n)]
+    pts = np.empty((len(k) + n, 2))
+    pts[pos] = np.r_[xy, mids]
+    group = np.empty(len(k) + n, dtype=np.int64)
+    group[pos] = np.r_[k, np.arange(n)]
+    d = shapely.distance(shapely.points(pts), targets[group])
+    order = np.lexsort((np.arange(len(d)), -d, group))
+    first = order[np.r_[True, group[order][1:] != group[order][:-1]]]
+    return shapely.points(pts[first])
+
+
+def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> list[str]:
+    """For each foot on the boundary of polygon ``inside``: ``between A and B`` for the nearest other polygon within
+    ``tol`` of it (the first the spatial index returns among equals), else ``of polygon 2 (A) along the map edge``."""
+    out = ["" for _ in range(len(inside))]
+    sel = np.flatnonzero(inside >= 0)
+    if not len(sel):
+        return out
+    pi, ui = units.tree.query(feet[sel], predicate="dwithin", distance=max(tol, 0.0))
+    other = ui != inside[sel][pi]
+    pi, ui = pi[other], ui[other]
+    best = np.full(len(sel), -1, dtype=np.int64)
+    if len(pi):
+        d = shapely.distance(feet[sel][pi], units.geoms[ui])
+        order = np.lexsort((np.arange(len(pi)), d, pi))
+        first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
+        best[pi[first]] = ui[first]
+    for j, s in enumerate(sel.tolist()):
+        u = int(inside[s])
+        out[s] = f"between {units.code(u)} and {units.code(int(best[j]))}" if best[j] >= 0 else f"of {units.label(u)} along the map edge"
+    return out
 
 
 def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The stretches of line with no exact unit edge (runs of segments, any kind), their part, and what of each
     lies farther than the tolerance from every unit boundary; once per check (line-off-boundary and
-    line-duplicate both ask)."""
+    line-duplicate both ask).
+
+    What lies off is left out (None) for the runs of a fault part that lies wholly inside the unit polygons
+    (every run of the part covered by their union): whatever of it lies off the boundaries lies inside a unit,
+    where a fault may run, so line-off-boundary reports none of it; line-duplicate takes such a run as near
+    the boundaries. Their buffers are most of the work on a map whose faults cut across the units.
+    """
 
     def compute() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         runs, part = ctx.line_network().runs(ctx.segment_edges() < 0)
-        off = off_unit_boundaries(runs, ctx.units(), float(ctx.tolerance)) if len(runs) else runs
+        if not len(runs):
+            return runs, part, runs
+        tol = float(ctx.tolerance)
+        todo = np.ones(len(runs), dtype=bool)
+        fault = np.flatnonzero(ctx.line_network().part_roles[part] == "fault")
+        cov = ctx.coverage()
+        if len(fault) and tol > 0 and not cov.failures and cov.union is not None and not shapely.is_empty(cov.union):
+            inside = np.asarray(shapely.covers(prepared_copy(cov.union), runs[fault]), dtype=bool)
+            leaves = np.unique(part[fault[~inside]])  # a part with any run leaving the units is measured whole
+            todo[fault[inside & ~np.isin(part[fault], leaves)]] = False
+        off = np.full(len(runs), None, dtype=object)
+        off[todo] = off_unit_boundaries(runs[todo], ctx.units(), tol)
         return runs, part, off
 
     return ctx.shared("linework.off-unit-boundaries", compute)
@@ -362,25 +446,20 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         cov = ctx.coverage()
         if cov.extent is not None:
             edge = cov.extent_boundary
-            connected |= shapely.dwithin(pts, edge, max(tol, 0.0))
-    free = []
-    for k in np.flatnonzero(~connected):  # few: ends with no other line near
-        p, f = int(end_part[k]), int(end_feat[k])
-        part = net.part(p)
-        length = part.length
-        first, last = np.searchsorted(net.part_feat, [f, f + 1])
-        rest = [net.part(q) for q in range(first, last) if q != p]
-        away = 2.0 * tol + 1e-9 * max(abs(c[ends[k]]).max(), 1.0)
-        if length > away:
-            rest.append(substring(part, away, length) if at_start[k] else substring(part, 0, length - away))
-        if rest and shapely.dwithin(pts[k], shapely.geometrycollections(rest), max(tol, 0.0)):
-            continue
-        free.append((k, part))
-    if not free:
+            connected |= within_of(edge, pts, tol)
+    cand = np.flatnonzero(~connected)  # few: ends with no other line near
+    if not len(cand):
         return
-    k_free = np.array([k for k, _ in free], dtype=np.int64)
+    # ... nor near their own line: its other parts, or its own part beyond 2 tolerances from the end
+    away = 2.0 * tol + 1e-9 * np.maximum(np.abs(c[ends[cand]]).max(axis=1), 1.0)
+    own = _near_own_line(net, end_part[cand], at_start[cand], away, pts[cand], tol)
+    k_free = cand[~own]
+    if not len(k_free):
+        return
+    parts = _part_lines(net, end_part[k_free])
+    free = list(zip(k_free.tolist(), parts))
     near, gaps = _nearest_other_line(net, pts[k_free], end_feat[k_free], tol)
-    edge_gaps = shapely.distance(pts[k_free], edge) if edge is not None else np.full(len(k_free), np.inf)
+    edge_gaps = point_distances(pts[k_free], np.full(len(k_free), edge, dtype=object)) if edge is not None else np.full(len(k_free), np.inf)
     # what each free end is measured against: the nearest other line, or the map edge when nearer
     to_edge = edge_gaps < gaps
     target = np.full(len(near), None, dtype=object)
@@ -392,6 +471,82 @@ def line_dangle(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         name = "the map edge" if across else (_lower(net.label(j)) if j >= 0 else None)
         yield _dangle_hit(net, int(end_feat[k]), part, pts[k], bool(at_start[k]), onto, gap, name, crossing, tol, g,
                           project.crs or project.layers["lines"].crs)
+
+
+def _part_lines(net: LineNetwork, parts: np.ndarray) -> np.ndarray:
+    """The given parts as LineStrings (as :meth:`LineNetwork.part` builds each)."""
+    sizes = net.part_off[parts + 1] - net.part_off[parts]
+    idx = np.repeat(net.part_off[parts], sizes) + (np.arange(sizes.sum()) - np.repeat(np.cumsum(sizes) - sizes, sizes))
+    out = np.empty(len(parts), dtype=object)
+    shapely.linestrings(net.coords[idx], indices=np.repeat(np.arange(len(parts)), sizes), out=out)
+    return out
+
+
+def _near_own_line(net: LineNetwork, parts: np.ndarray, at_start: np.ndarray, away: np.ndarray, pts: np.ndarray,
+                   tol: float) -> np.ndarray:
+    """For each line end: within ``tol`` of another part of its own line, or of its own part from ``away`` along
+    it onwards (the part less its first or last ``away``: a line closing on itself).
+
+    The stretch of the part is the one :func:`shapely.ops.substring` cuts (its cut point from GEOS, its
+    vertices by the distance along the part summed segment by segment), built for all ends at once.
+    """
+    d = max(tol, 0.0)
+    near = np.zeros(len(parts), dtype=bool)
+    feats = net.part_feat[parts]
+    first = np.searchsorted(net.part_feat, feats)
+    last = np.searchsorted(net.part_feat, feats + 1)
+    # other parts of the same feature
+    count = last - first
+    multi = np.flatnonzero(count > 1)
+    if len(multi):
+        k = np.repeat(multi, count[multi])
+        q = np.repeat(first[multi], count[multi]) + (np.arange(count[multi].sum()) - np.repeat(np.cumsum(count[multi]) - count[multi], count[multi]))
+        other = q != parts[k]
+        k, q = k[other], q[other]
+        hit = shapely.dwithin(pts[k], _part_lines(net, q), d)
+        near[k[hit]] = True
+    # the own part beyond ``away``
+    lines = _part_lines(net, parts)
+    length = shapely.length(lines)
+    cut = np.flatnonzero(~near & (length > away))
+    if not len(cut):
+        return near
+    start = np.where(at_start[cut], away[cut], 0.0)
+    end = np.where(at_start[cut], length[cut], length[cut] - away[cut])
+    a = shapely.get_coordinates(shapely.line_interpolate_point(lines[cut], start))
+    b = shapely.get_coordinates(shapely.line_interpolate_point(lines[cut], end))
+    # vertices strictly between the two distances: each vertex but the last, at the length before it, summed
+    # segment by segment from the start of the part (in the order substring sums them)
+    off0, off1 = net.part_off[parts[cut]], net.part_off[parts[cut] + 1]
+    sizes = off1 - off0 - 1  # the vertices that start a segment
+    head = np.cumsum(sizes) - sizes
+    pos = np.arange(sizes.sum()) - np.repeat(head, sizes)
+    grp = np.repeat(np.arange(len(cut)), sizes)
+    vi = np.repeat(off0, sizes) + pos
+    dx = net.coords[vi + 1, 0] - net.coords[vi, 0]
+    dy = net.coords[vi + 1, 1] - net.coords[vi, 1]
+    seg = np.sqrt(dx * dx + dy * dy)
+    before = np.zeros(len(vi))
+    by_pos = np.argsort(pos, kind="stable")  # the vertices at position 1 of every part, then at 2, ...
+    bounds = np.searchsorted(pos[by_pos], np.arange(1, int(sizes.max()) + 1)) if len(sizes) else np.zeros(1, dtype=np.int64)
+    for lo, hi in zip(bounds[:-1].tolist(), bounds[1:].tolist()):  # one step per position: every vertex summed once
+        at = by_pos[lo:hi]
+        before[at] = before[at - 1] + seg[at - 1]
+    inner = (start[grp] < before) & (before < end[grp])
+    # each stretch: the cut point, its inner vertices in order, the end point
+    total = np.bincount(grp[inner], minlength=len(cut)) + 2
+    first_row = np.cumsum(total) - total
+    xy = np.empty((int(total.sum()), 2))
+    xy[first_row] = a
+    xy[first_row + total - 1] = b
+    mid = np.ones(len(xy), dtype=bool)
+    mid[first_row] = False
+    mid[first_row + total - 1] = False
+    xy[mid] = net.coords[vi[inner]]
+    rows = np.repeat(np.arange(len(cut)), total)
+    stretch = shapely.linestrings(xy, indices=rows)
+    near[cut] = shapely.dwithin(pts[cut], stretch, d)
+    return near
 
 
 def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
@@ -415,7 +570,7 @@ def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, to
         pi, cand = pi[keep], cand[keep]
         found = np.zeros(len(todo), dtype=bool)
         if len(pi):
-            d = shapely.distance(pts[todo][pi], net.geoms[cand])
+            d = point_distances(pts[todo][pi], net.geoms[cand])
             order = np.lexsort((np.arange(len(pi)), d, pi))  # per point: smallest distance, first returned
             first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
             ok = d[first] <= radius
@@ -544,35 +699,6 @@ def join_ids(units: Units, polys: list[int]) -> str:
 def _lower(name: str) -> str:
     """A line's name inside a sentence: ``contact 3``."""
     return name[:1].lower() + name[1:]
-
-
-def _boundary_near(piece: Any, u: int, units: Units, tol: float) -> tuple[Any, str]:
-    """The boundary of polygon ``u`` and its words: ``between A and B`` for the neighbour across its nearest point."""
-    edge = shapely.boundary(units.geoms[u])
-    far = _far_point(piece, edge)
-    at = shapely.shortest_line(edge, far)
-    foot = shapely.get_point(at, 0)
-    near = units.tree.query(foot, predicate="dwithin", distance=max(tol, 0.0))
-    near = near[near != u]
-    if len(near):
-        v = int(near[np.argmin(shapely.distance(foot, units.geoms[near]))])
-        return edge, f"between {units.code(u)} and {units.code(v)}"
-    return edge, f"of {units.label(u)} along the map edge"
-
-
-def _far_point(piece: Any, target: Any) -> Any:
-    """The point of ``piece`` (its vertices and its midpoint) farthest from ``target``."""
-    pts = shapely.points(np.vstack([shapely.get_coordinates(piece),
-                                    shapely.get_coordinates(shapely.line_interpolate_point(piece, 0.5, normalized=True))]))
-    return pts[int(np.argmax(shapely.distance(pts, target)))]
-
-
-def _away(piece: Any, target: Any, crs: Any, factor: float) -> str:
-    """``3.00 m east``: how far, and which way, the point of ``piece`` farthest from ``target`` lies from it."""
-    link = shapely.shortest_line(target, _far_point(piece, target))
-    (x0, y0), (x1, y1) = shapely.get_coordinates(link)
-    metres, towards = offset(crs, x0, y0, x1, y1, factor)
-    return f"{num(metres)} m {towards}"
 
 
 @rule("line-self-intersection", family="linework", severity="error", needs=("lines",), partitioned=True)
@@ -731,11 +857,12 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             if ctx.layer("units") is not None:  # units placed with the map (see CheckContext.alignment)
                 off = _off_boundaries(ctx)[2]  # the same stretches: those with no exact unit edge
                 close = shapely.length(off) < shapely.length(runs) * (1 - 1e-12)
+                close |= shapely.is_missing(off)  # faults inside the units: their lines are asked for all the same
             else:
                 close = np.ones(len(runs), dtype=bool)
             if close.any():
                 near = np.flatnonzero(close)
-                qi, qf = net.tree.query(runs[near], predicate="dwithin", distance=tol)
+                qi, qf = dwithin_pairs(net.tree, net.geoms, runs[near], tol)
                 ri, fj = np.concatenate([ri, near[qi]]), np.concatenate([fj, qf])
             keep = fj != rfeat[ri]
             both = np.unique(np.c_[ri[keep], fj[keep]], axis=0)
@@ -743,9 +870,8 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             if len(ri):
                 near = _near_shared(runs[ri], net.geoms, fj, net.part_ends(rpart[ri]), tol)
                 lengths = shapely.length(near)
-                for r, b, g, length in zip(ri, fj, near, lengths):
-                    if length <= tol * ABOVE:
-                        continue
+                long = lengths > tol * ABOVE
+                for r, b, g, length in zip(ri[long], fj[long], near[long], lengths[long]):
                     a = net.part_feat[rpart[r]]
                     pair = (min(a, b), max(a, b))
                     if pair not in found or found[pair][1] < length:
@@ -765,15 +891,22 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
     """The part of each run within ``tol`` of the other line (``lines[other]``), away from where the two lines meet or end.
 
-    Each line is buffered once, however many runs it is compared with.
+    Each line is buffered once, however many runs it is compared with. Where the part within ``tol`` is itself
+    no longer than the tolerance (``tol * ABOVE``), it is returned as it is: too short to report either way.
     """
     used, back = np.unique(other, return_inverse=True)
-    others = lines[other]
     close = shapely.intersection(runs, shapely.buffer(lines[used], tol)[back])
-    meet = shapely.intersection(runs, others)
-    ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends))
-    junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
-    return shapely.difference(close, junctions)
+    # taking the junctions out only shortens: a run whose close part is already no longer than the tolerance
+    # is kept as it is (the caller drops it), and the junctions are built for the others only
+    out = close.copy()
+    long = np.flatnonzero(shapely.length(close) > tol * ABOVE)
+    if len(long):
+        others = lines[other[long]]
+        meet = shapely.intersection(runs[long], others)
+        ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends[long]))
+        junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
+        out[long] = shapely.difference(close[long], junctions)
+    return out
 
 
 @rule("line-kind-unknown", family="linework", severity="error", needs=("lines",))

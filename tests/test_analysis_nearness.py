@@ -1,0 +1,47 @@
+"""Pairs within a distance (``dwithin_pairs``) are exactly those GEOS's STRtree query gives, in its order."""
+
+from __future__ import annotations
+
+import numpy as np
+import shapely
+
+from archivist.analysis.nearness import BIG, dwithin_pairs
+
+
+def test_dwithin_pairs_equal_the_strtree_query_with_a_frame_line_of_many_vertices():
+    rng = np.random.default_rng(7)
+    starts = rng.uniform(0, 1000, size=(400, 2))
+    lines = [shapely.linestrings([p, p + rng.uniform(-20, 20, 2)]) for p in starts]
+    frame = shapely.segmentize(shapely.boundary(shapely.box(0, 0, 1000, 1000)), 1.0)  # 4 000 vertices around the map
+    wiggle = shapely.linestrings(np.c_[np.linspace(0, 1000, 3 * BIG), 500 + 5 * np.sin(np.arange(3 * BIG))])
+    refs = np.array(lines + [frame, wiggle], dtype=object)
+    assert shapely.get_num_coordinates(frame) > BIG
+    tree = shapely.STRtree(refs)
+    pts = shapely.points(np.r_[rng.uniform(-2, 1002, size=(300, 2)), [[0.5, 300.0], [999.7, 10.0], [40.0, 502.0]]])
+    for d in (0.0, 0.5, 3.0):
+        expected = tree.query(pts, predicate="dwithin", distance=d)
+        got = dwithin_pairs(tree, refs, pts, d)
+        assert np.array_equal(np.stack(got), expected)
+    got = dwithin_pairs(tree, refs, pts, 3.0)
+    assert len(refs) - 2 in got[1] and len(refs) - 1 in got[1]  # the frame and the wiggle were met
+    assert not shapely.is_prepared(refs[-2])  # the caller's geometry is left as it was
+    stretches = np.array(lines[:50], dtype=object)
+    assert np.array_equal(np.stack(dwithin_pairs(tree, refs, stretches, 2.0)), tree.query(stretches, predicate="dwithin", distance=2.0))
+
+
+def test_one_reference_within_and_distances_equal_geos_pair_by_pair():
+    from archivist.analysis.nearness import point_distances, within_of
+
+    rng = np.random.default_rng(8)
+    frame = shapely.segmentize(shapely.boundary(shapely.box(0, 0, 1000, 1000)), 1.0)
+    parts = shapely.multilinestrings([shapely.segmentize(shapely.linestrings([[0, 10], [1000, 30]]), 2.0),
+                                      shapely.linestrings([[5, 5], [6, 900]])])
+    pts = shapely.points(np.r_[rng.uniform(-5, 1005, size=(500, 2)), [[0.0, 0.0], [1000.0, 500.0], [0.3, 0.3]]])
+    for ref in (frame, parts, shapely.linestrings([[0, 0], [3, 4]])):
+        for d in (0.0, 0.5, 4.0):
+            assert np.array_equal(within_of(ref, pts, d), shapely.dwithin(pts, ref, d))
+        refs = np.full(len(pts), ref, dtype=object)
+        assert np.array_equal(point_distances(pts, refs), shapely.distance(pts, refs))
+    mixed = np.array([frame, parts] * (len(pts) // 2) + [frame], dtype=object)
+    assert np.array_equal(point_distances(pts, mixed), shapely.distance(pts, mixed))
+    assert not shapely.is_prepared(frame)
