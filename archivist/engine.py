@@ -248,6 +248,10 @@ def _run_side_by_side(
     findings in their place, the notes in the order each was first made
     (:meth:`CheckContext.ordered_notes`).
 
+    Inside a family, an analysis may cut its element-wise GEOS work into runs
+    that the same number of threads compute side by side
+    (:mod:`archivist.threads`).
+
     Threads are daemons and a stop flag is checked before every rule: on
     Ctrl-C (or any error) the calling thread raises at once, no further rule
     starts, and a rule already running ends its current GEOS call unseen.
@@ -273,6 +277,10 @@ def _run_side_by_side(
     finished = [0]
     display = threading.Lock()  # a progress display starts and ends its bars one at a time
 
+    from .threads import Pool, spreading
+
+    pool = Pool(threads)  # element-wise runs of one analysis side by side (archivist.threads)
+
     def family_task(k: int) -> None:
         family, group, runnable = plan[k]
         with display:
@@ -293,6 +301,10 @@ def _run_side_by_side(
                 stepper.__exit__(None, None, None)
 
     def worker() -> None:
+        with spreading(pool):
+            serve()
+
+    def serve() -> None:
         while not stop.is_set():
             with done:
                 if not pending:
@@ -318,6 +330,8 @@ def _run_side_by_side(
     except BaseException:
         stop.set()
         raise
+    finally:
+        pool.close()
     if failures:
         raise failures[0]
     findings: list[Finding] = []
