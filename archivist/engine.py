@@ -277,7 +277,7 @@ def _run_side_by_side(
     finished = [0]
     display = threading.Lock()  # a progress display starts and ends its bars one at a time
 
-    from .threads import Pool, spreading
+    from .threads import Pool, busy, spreading
 
     pool = Pool(threads)  # element-wise runs of one analysis side by side (archivist.threads)
 
@@ -311,7 +311,8 @@ def _run_side_by_side(
                     return
                 k = pending.pop(0)
             try:
-                family_task(k)
+                with busy():
+                    family_task(k)
             except BaseException as exc:  # noqa: BLE001 - handed to the calling thread
                 failures.append(exc)
                 stop.set()

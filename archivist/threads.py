@@ -15,7 +15,12 @@ thread always works through the runs itself, so a pool busy with another
 family's runs never stalls it, and a run never waits on another run.
 
 The pool's threads are daemons: on Ctrl-C the check stops at once and no new
-run starts; a run already started ends its GEOS call unseen.
+run starts; a run already started ends its GEOS call unseen. A thread of
+archivist's still inside a GEOS call when the interpreter shuts down would
+crash it (the objects it reads are torn down under it): :func:`busy` marks
+such work, an exit handler waits for it to end (a library caller that goes on
+after Ctrl-C), and the command line, which has nothing left to write,
+leaves at once instead (:func:`settled`, ``os._exit``).
 
 What this does not cover: only functions that compute each element alone
 may go through :func:`map_runs` (element-wise shapely functions, and
@@ -25,6 +30,7 @@ STRtree built over the whole array is not split.
 
 from __future__ import annotations
 
+import atexit
 import queue
 import threading
 from contextlib import contextmanager
@@ -33,12 +39,38 @@ from typing import Any, Callable, Iterator, TypeVar
 
 R = TypeVar("R")
 
-__all__ = ["Pool", "map_runs", "spreading", "splits"]
+__all__ = ["Pool", "busy", "map_runs", "settled", "spreading", "splits"]
 
 # Fewest elements in one run: below it, handing a run to another thread costs more than it saves.
 MIN_RUN = 32
 # Runs per thread: more runs than threads, so that a thread done early takes another (costs per element vary).
 RUNS_PER_THREAD = 4
+
+
+_busy = [0]  # threads of archivist's at work (a family's rules, a run)
+_idle = threading.Condition()
+
+
+@contextmanager
+def busy() -> Iterator[None]:
+    """Mark the work inside as a thread of archivist's at work (see :func:`settled`)."""
+    with _idle:
+        _busy[0] += 1
+    try:
+        yield
+    finally:
+        with _idle:
+            _busy[0] -= 1
+            _idle.notify_all()
+
+
+def settled(timeout: float | None = None) -> bool:
+    """Wait until no thread of archivist's is at work (at most ``timeout`` seconds); whether none is."""
+    with _idle:
+        return _idle.wait_for(lambda: _busy[0] == 0, timeout)
+
+
+atexit.register(settled)  # a library caller leaving after Ctrl-C: its threads end their GEOS call first
 
 
 class Pool:
@@ -57,7 +89,8 @@ class Pool:
             task = self._tasks.get()
             if task is None:
                 return
-            task()
+            with busy():
+                task()
 
     def submit(self, task: Callable[[], None]) -> None:
         self._tasks.put(task)

@@ -379,3 +379,46 @@ def test_an_error_in_a_family_on_a_thread_reaches_the_caller(tmp_path):
 
     with pytest.raises(RuntimeError, match="broken rule"):
         engine.run_rules(_grid_project(tmp_path), [replace(get_rule("unit-gap"), func=broken)], threads=2)
+
+
+DRIVER = """
+import sys
+from dataclasses import replace
+
+import numpy as np
+import shapely
+
+from archivist import registry
+from archivist.cli import main
+
+
+def busy_in_geos(project, ctx):
+    polys = shapely.buffer(shapely.points(np.random.default_rng(0).random((20000, 2))), 0.01, quad_segs=64)
+    print("inside", flush=True)
+    while True:  # GEOS work (the GIL released) until the process ends
+        shapely.union_all(shapely.buffer(polys, 0.001))
+
+
+registry._RULES["unit-gap"] = replace(registry.get_rule("unit-gap"), func=busy_in_geos)
+sys.argv = ["archivist", "check", sys.argv[1], "-q", "--jobs", "2"]
+main()
+"""
+
+
+@pytest.mark.slow
+def test_ctrl_c_while_a_thread_is_inside_geos_leaves_the_command_line_with_130(tmp_path):
+    # the interpreter must not shut down under a thread still inside a GEOS call (it crashed with SIGSEGV)
+    import signal
+    import subprocess
+
+    project = _grid_project(tmp_path)
+    for attempt in range(3):
+        proc = subprocess.Popen([sys.executable, "-c", DRIVER, str(project.root)], stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, text=True)
+        assert proc.stdout is not None
+        assert proc.stdout.readline().strip() == "inside"
+        time.sleep(0.3 * attempt)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+        assert proc.returncode == 130, err
+        assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
