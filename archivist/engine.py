@@ -258,17 +258,8 @@ def _run_side_by_side(
     """
     import threading
 
-    plan: list[tuple[str, list[RuleInfo], list[RuleInfo]]] = []
-    logs: dict[str, tuple[list[Any], list[Any]]] = {}
-    for family, group in groups:
-        runnable = []
-        for info in group:
-            logs[info.id] = ([], [])
-            with ctx.recording(logs[info.id][0]):  # skipping reads the alignment: its notes come at this rule
-                if skipped(info):
-                    continue
-            runnable.append(info)
-        plan.append((family, group, runnable))
+    plan = groups
+    logs: dict[str, tuple[list[Any], list[Any]]] = {info.id: ([], []) for _, group in groups for info in group}
     results: dict[str, list[Finding]] = {}
     failures: list[BaseException] = []
     stop = threading.Event()
@@ -282,16 +273,18 @@ def _run_side_by_side(
     pool = Pool(threads)  # element-wise runs of one analysis side by side (archivist.threads)
 
     def family_task(k: int) -> None:
-        family, group, runnable = plan[k]
+        family, group = plan[k]
         with display:
             stepper = progress.step(f"{family} rules", total=len(group))
             step = stepper.__enter__()
         try:
-            if len(group) > len(runnable):
-                step.advance(len(group) - len(runnable))
-            for info in runnable:
+            for info in group:
                 if stop.is_set():
                     return
+                with ctx.recording(logs[info.id][0]):  # skipping reads the alignment: its notes come at this rule
+                    if skipped(info):
+                        step.advance()
+                        continue
                 _, _, run_ctx = contexts(info)
                 log = logs[info.id][0] if run_ctx is ctx else logs[info.id][1]
                 with run_ctx.recording(log):
@@ -337,11 +330,12 @@ def _run_side_by_side(
         raise failures[0]
     findings: list[Finding] = []
     ran: list[str] = []
-    for _, _, runnable in plan:
-        for info in runnable:
-            ran.append(info.id)
-            findings += results[info.id]
-    order = [info.id for _, group, _ in plan for info in group]
+    for _, group in plan:
+        for info in group:
+            if info.id in results:
+                ran.append(info.id)
+                findings += results[info.id]
+    order = [info.id for _, group in plan for info in group]
     notes = ctx.ordered_notes(logs[rid][0] for rid in order)
     local_notes = local.ordered_notes(logs[rid][1] for rid in order) if local is not ctx else notes
     return findings, ran, notes, local_notes
