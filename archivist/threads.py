@@ -33,13 +33,14 @@ from __future__ import annotations
 import atexit
 import queue
 import threading
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from contextvars import ContextVar
-from typing import Any, Callable, Iterator, TypeVar
+from typing import Any, TypeVar
 
 R = TypeVar("R")
 
-__all__ = ["Pool", "busy", "map_runs", "settled", "spreading", "splits"]
+__all__ = ["Pool", "busy", "map_runs", "settled", "splits", "spreading"]
 
 # Fewest elements in one run: below it, handing a run to another thread costs more than it saves.
 MIN_RUN = 32
