@@ -5,7 +5,7 @@ from __future__ import annotations
 from concurrent.futures import Executor
 from itertools import groupby
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 import numpy as np
 import shapely
@@ -16,7 +16,7 @@ from .analysis.context import CheckContext
 from .analysis.localframe import LocalFrame, frame_for, in_frame
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
-from .progress import Progress
+from .progress import Progress, Step
 from .project import LINEAR_DIGITS, MapProject, crs_label, load_project, location_digits
 from .reference import chart_credit
 from .registry import RuleInfo, select
@@ -114,7 +114,7 @@ def finding_order(f: Finding) -> tuple[Any, ...]:
 
 
 def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None, *,
-              executor: Executor | None = None, parts: int = 1) -> Report:
+              executor: Executor | None = None, parts: int = 1, threads: int = 1) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
@@ -130,16 +130,19 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
     frame (:mod:`archivist.analysis.localframe`), so that tolerances, widths,
     distances and areas are judged in metres alike in every direction; their
     findings are carried back to the map CRS.
+
+    ``threads`` > 1 runs the families side by side on that many threads
+    (:func:`_run_side_by_side`; shapely 2 releases the GIL in its GEOS
+    calls); ``executor`` and ``parts`` > 1 send the families whose every rule
+    is partitioned to spatial partitions (:mod:`archivist.parallel`). The
+    report is the same either way: findings, their order, the notes.
     """
     ctx = CheckContext(project)
     frame: LocalFrame | None = frame_for(project)
     local = CheckContext(in_frame(project, frame)) if frame is not None else ctx
     progress = progress or Progress()
     overrides = project.config.severity
-    findings: list[Finding] = []
-    ran: list[str] = []
     empty = empty_layers(project)
-    framed = False  # a rule ran in the local frame
     digits = location_digits(frame.map_crs if frame is not None else project.crs)
     partition = executor is not None and parts > 1
 
@@ -148,53 +151,64 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
             not project.has(role) or role in empty for role in info.needs) or (
             info.family in ACROSS_LAYER_FAMILIES and bool(set(info.needs) & set(ctx.left_out())))
 
-    for family, members in groupby(selected, key=lambda i: i.family):
-        group = list(members)
-        # a family goes to the partitions only when every rule of it that runs can: the rules of a family share
-        # analyses (the half-edge table, the coverage, the line network) that one rule left here would build again
-        runnable = [info for info in group if not skipped(info)] if partition else []
-        batch = runnable if runnable and all(info.partitioned for info in runnable) else []
-        merged: Any = None
-        with progress.step(f"{family} rules", total=len(group) + (parts if batch else 0)) as step:
-            for info in group:
-                if skipped(info):
-                    step.advance()
-                    continue
-                level = overrides.get(info.id, info.severity.value)
-                severity = Severity.parse(level)
-                ran.append(info.id)
-                forced = info.id in overrides
-                as_read = frame is None or info.family in AS_READ_FAMILIES
-                framed = framed or not as_read
-                run_on, run_ctx = (project, ctx) if as_read else (local.project, local)
-                mine: list[Finding] = []
-                if info in batch and merged is None:  # the family's partitioned rules, all at once
-                    from .parallel import run_partitioned
+    def contexts(info: RuleInfo) -> tuple[bool, MapProject, CheckContext]:
+        as_read = frame is None or info.family in AS_READ_FAMILIES
+        return as_read, *((project, ctx) if as_read else (local.project, local))
 
-                    assert executor is not None
-                    view = run_ctx.view()
-                    merged = run_partitioned(view, batch, executor, parts, step, run_ctx.left_out())
-                    for text in merged.notes:
-                        run_ctx.note(text)
-                with step.item(info.id):
-                    try:
-                        if info in batch and info.id in merged.hits:
-                            hits: Iterable[Hit] = merged.hits[info.id]
-                        else:
-                            hits = info.func(run_on, run_ctx) or ()
-                        for hit in hits:
-                            if not as_read:
-                                assert frame is not None
-                                hit = frame.hit_to_map(hit)
-                            mine.append(to_finding(info, project.own_names(hit), severity, forced, digits))
-                    except GEOSException as exc:
-                        mine.append(rule_failed(info, exc))
-                findings += sorted(mine, key=finding_order)
+    def run_one(info: RuleInfo, step: Step, hits_from: Iterable[Hit] | None = None) -> list[Finding]:
+        """One rule's findings, in their total order (see :func:`finding_order`)."""
+        level = overrides.get(info.id, info.severity.value)
+        severity = Severity.parse(level)
+        forced = info.id in overrides
+        as_read, run_on, run_ctx = contexts(info)
+        mine: list[Finding] = []
+        with step.item(info.id):
+            try:
+                hits = hits_from if hits_from is not None else (info.func(run_on, run_ctx) or ())
+                for hit in hits:
+                    if not as_read:
+                        assert frame is not None
+                        hit = frame.hit_to_map(hit)
+                    mine.append(to_finding(info, project.own_names(hit), severity, forced, digits))
+            except GEOSException as exc:
+                mine.append(rule_failed(info, exc))
+        return sorted(mine, key=finding_order)
+
+    groups = [(family, list(members)) for family, members in groupby(selected, key=lambda i: i.family)]
+    if threads > 1 and not partition:
+        findings, ran, notes, local_notes = _run_side_by_side(groups, skipped, contexts, run_one, ctx, local,
+                                                              progress, threads)
+    else:
+        findings, ran = [], []
+        for family, group in groups:
+            # a family goes to the partitions only when every rule of it that runs can: the rules of a family share
+            # analyses (the half-edge table, the coverage, the line network) that one rule left here would build again
+            runnable = [info for info in group if not skipped(info)] if partition else []
+            batch = runnable if runnable and all(info.partitioned for info in runnable) else []
+            merged: Any = None
+            with progress.step(f"{family} rules", total=len(group) + (parts if batch else 0)) as step:
+                for info in group:
+                    if skipped(info):
+                        step.advance()
+                        continue
+                    ran.append(info.id)
+                    _, _, run_ctx = contexts(info)
+                    if info in batch and merged is None:  # the family's partitioned rules, all at once
+                        from .parallel import run_partitioned
+
+                        assert executor is not None
+                        view = run_ctx.view()
+                        merged = run_partitioned(view, batch, executor, parts, step, run_ctx.left_out())
+                        for text in merged.notes:
+                            run_ctx.note(text)
+                    given = merged.hits[info.id] if info in batch and info.id in merged.hits else None
+                    findings += run_one(info, step, given)
+        notes, local_notes = list(ctx.notes), list(local.notes)
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
-    notes = list(ctx.notes)
+    framed = frame is not None and any(not contexts(info)[0] for info in _infos(groups, ran))  # a rule ran in the local frame
     if framed:
         assert frame is not None
-        notes += [frame.note] + [n for n in local.notes if n not in notes]
+        notes += [frame.note] + [n for n in local_notes if n not in notes]
     return Report(
         tool="archivist",
         version=__version__,
@@ -205,6 +219,126 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         rules_run=tuple(ran),
         place_decimals=6 if digits > LINEAR_DIGITS else 1,
     )
+
+
+def _infos(groups: list[tuple[str, list[RuleInfo]]], ran: list[str]) -> list[RuleInfo]:
+    """The rules that ran, in order."""
+    done = set(ran)
+    return [info for _, group in groups for info in group if info.id in done]
+
+
+def _run_side_by_side(
+    groups: list[tuple[str, list[RuleInfo]]],
+    skipped: Callable[[RuleInfo], bool],
+    contexts: Callable[[RuleInfo], tuple[bool, MapProject, CheckContext]],
+    run_one: Callable[[RuleInfo, Step], list[Finding]],
+    ctx: CheckContext,
+    local: CheckContext,
+    progress: Progress,
+    threads: int,
+) -> tuple[list[Finding], list[str], list[str], list[str]]:
+    """Run the rule families side by side on ``threads`` threads; the findings, rules run and notes of one thread.
+
+    Each family runs its rules in their order on one thread (its rules share
+    analyses); the families are taken in their order by the first free
+    thread. The analyses two families share (the unit polygons and their
+    half-edges for topology and linework) are computed once: the second
+    family to ask waits for the first's value (:meth:`CheckContext.shared`).
+    The report is then put together in the order of one thread: each rule's
+    findings in their place, the notes in the order each was first made
+    (:meth:`CheckContext.ordered_notes`).
+
+    Inside a family, an analysis may cut its element-wise GEOS work into runs
+    that the same number of threads compute side by side
+    (:mod:`archivist.threads`).
+
+    Threads are daemons and a stop flag is checked before every rule: on
+    Ctrl-C (or any error) the calling thread raises at once, no further rule
+    starts, and a rule already running ends its current GEOS call unseen.
+    """
+    import threading
+
+    plan = groups
+    logs: dict[str, tuple[list[Any], list[Any]]] = {info.id: ([], []) for _, group in groups for info in group}
+    results: dict[str, list[Finding]] = {}
+    failures: list[BaseException] = []
+    stop = threading.Event()
+    done = threading.Condition()
+    pending = list(range(len(plan)))
+    finished = [0]
+    display = threading.Lock()  # a progress display starts and ends its bars one at a time
+
+    from .threads import Pool, busy, spreading
+
+    pool = Pool(threads)  # element-wise runs of one analysis side by side (archivist.threads)
+
+    def family_task(k: int) -> None:
+        family, group = plan[k]
+        with display:
+            stepper = progress.step(f"{family} rules", total=len(group))
+            step = stepper.__enter__()
+        try:
+            for info in group:
+                if stop.is_set():
+                    return
+                with ctx.recording(logs[info.id][0]):  # skipping reads the alignment: its notes come at this rule
+                    if skipped(info):
+                        step.advance()
+                        continue
+                _, _, run_ctx = contexts(info)
+                log = logs[info.id][0] if run_ctx is ctx else logs[info.id][1]
+                with run_ctx.recording(log):
+                    results[info.id] = run_one(info, step)
+        finally:
+            with display:
+                stepper.__exit__(None, None, None)
+
+    def worker() -> None:
+        with spreading(pool):
+            serve()
+
+    def serve() -> None:
+        while not stop.is_set():
+            with done:
+                if not pending:
+                    return
+                k = pending.pop(0)
+            try:
+                with busy():
+                    family_task(k)
+            except BaseException as exc:  # noqa: BLE001 - handed to the calling thread
+                failures.append(exc)
+                stop.set()
+            with done:
+                finished[0] += 1
+                done.notify_all()
+
+    workers = [threading.Thread(target=worker, name=f"archivist-check-{i}", daemon=True)
+               for i in range(min(threads, len(plan)))]
+    try:
+        for t in workers:
+            t.start()
+        with done:
+            while finished[0] < len(plan) and not stop.is_set():
+                done.wait(0.1)  # a timed wait: Ctrl-C reaches this thread at once
+    except BaseException:
+        stop.set()
+        raise
+    finally:
+        pool.close()
+    if failures:
+        raise failures[0]
+    findings: list[Finding] = []
+    ran: list[str] = []
+    for _, group in plan:
+        for info in group:
+            if info.id in results:
+                ran.append(info.id)
+                findings += results[info.id]
+    order = [info.id for _, group in plan for info in group]
+    notes = ctx.ordered_notes(logs[rid][0] for rid in order)
+    local_notes = local.ordered_notes(logs[rid][1] for rid in order) if local is not ctx else notes
+    return findings, ran, notes, local_notes
 
 
 def check(
@@ -231,16 +365,19 @@ def check(
         A :class:`archivist.progress.Progress` told about each step (loading,
         each rule family); silent when None.
     jobs
-        Worker processes for the rules that run on spatial partitions of the
-        map (:mod:`archivist.parallel`); 1 (the default) runs everything in
-        this process, 0 means every core this process may use. The findings
-        are the same whatever the number.
+        Threads that run the rule families side by side (shapely 2 releases
+        the GIL in its GEOS calls); 1 (the default) runs everything in this
+        thread, 0 means every core this process may use. The report is the
+        same whatever the number.
     executor
-        Run the partitions through this :class:`concurrent.futures.Executor`
-        instead (threads, processes, a ``dask.distributed`` client's
-        executor); the caller shuts it down.
+        Run the rules that can on spatial partitions of the map
+        (:mod:`archivist.parallel`) through this
+        :class:`concurrent.futures.Executor` (threads, processes, a
+        ``dask.distributed`` client's executor); the caller shuts it down.
     parts
-        Partitions of the map (default: ``jobs``, or 2 with an executor).
+        With ``jobs`` > 1: run the partitioned rules on this many partitions
+        in ``jobs`` worker processes instead of threads (default: threads,
+        no partitions); with an executor, the number of partitions (default 2).
 
     Raises
     ------
@@ -261,14 +398,14 @@ def check(
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
     if executor is not None:
         return run_rules(project, selected, progress, executor=executor, parts=parts or 2)
-    from .parallel import default_jobs, worth_partitioning
+    from .parallel import default_jobs
 
     if jobs < 0:
         raise ArchivistError(f"jobs must be 0 (every core) or a positive number of workers, not {jobs}")
     jobs = default_jobs() if jobs == 0 else jobs
-    if parts is None and jobs > 1 and not worth_partitioning(project, jobs):
-        jobs = 1  # a small map: starting workers would cost more than they save (the findings are the same)
-    if jobs == 1 and (parts is None or parts <= 1):
+    if parts is None:
+        return run_rules(project, selected, progress, threads=jobs)
+    if jobs == 1 and parts <= 1:
         return run_rules(project, selected, progress)
     from .parallel import make_executor, stop_executor
 

@@ -1,5 +1,12 @@
 """The expensive rules on spatial partitions of the map, run side by side and merged into one answer.
 
+Where this is used: ``check --scheduler`` (Dask workers, :mod:`archivist.cluster`)
+and ``archivist.check(project, jobs=N, parts=P)`` (worker processes). ``check
+--jobs N`` on one machine uses threads instead, without partitions: the rule
+families side by side and the element-wise work of an analysis cut into runs
+(:func:`archivist.engine.run_rules`, :mod:`archivist.threads`), which share one
+copy of the map and its analyses.
+
 What is partitioned
 -------------------
 A rule registered with ``partitioned=True`` (:func:`archivist.registry.rule`)

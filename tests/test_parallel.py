@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import pickle
 import sys
+import threading
+import time
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
@@ -21,7 +23,7 @@ import archivist
 from archivist import engine, parallel
 from archivist.model import Hit
 from archivist.project import load_project
-from archivist.registry import all_rules, select
+from archivist.registry import all_rules, get_rule, select
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE / "benchmarks"))
@@ -229,7 +231,8 @@ def test_jobs_1_2_and_4_give_the_same_findings_on_a_map_of_ten_thousand_polygons
     reference = archivist.check(project, jobs=1)
     assert name == "clean" or len(reference.findings) > 100
     for jobs in (2, 4):
-        same_report(reference, archivist.check(project, jobs=jobs, parts=jobs))
+        same_report(reference, archivist.check(project, jobs=jobs))  # threads, families side by side
+        same_report(reference, archivist.check(project, jobs=jobs, parts=jobs))  # processes, partitions
     # the partitioned rules alone: topology and linework run on the partitions
     reference = archivist.check(project, rules=PARTITIONED, jobs=1)
     assert name == "clean" or {f.rule for f in reference.findings} >= {"line-dangle"}
@@ -250,3 +253,172 @@ def test_the_command_line_gives_the_same_report_with_jobs(maps, tmp_path):
         assert result.exit_code == 1, result.output
         outs.append(out.read_bytes())
     assert outs[0] == outs[1]
+
+
+# ---------------------------------------------------------------- families side by side on threads
+
+
+def test_a_shared_analysis_asked_by_many_threads_at_once_is_computed_once(tmp_path):
+    from archivist.analysis.context import CheckContext
+
+    ctx = CheckContext(_grid_project(tmp_path, 3))
+    calls = []
+    start = threading.Barrier(8)
+
+    def compute():
+        calls.append(1)
+        time.sleep(0.05)
+        ctx.note("computed")
+        return object()
+
+    got = []
+
+    def ask():
+        start.wait()
+        got.append(ctx.shared("k", compute))
+
+    workers = [threading.Thread(target=ask) for _ in range(8)]
+    for t in workers:
+        t.start()
+    for t in workers:
+        t.join()
+    assert len(calls) == 1 and len({id(v) for v in got}) == 1 and ctx.notes == ["computed"]
+
+
+def test_notes_come_in_the_order_of_one_thread_whichever_rule_computed_the_analysis(tmp_path):
+    from archivist.analysis.context import CheckContext
+
+    ctx = CheckContext(_grid_project(tmp_path, 3))
+
+    def analysis():
+        ctx.note("analysis")
+        return 1
+
+    first, second = [], []
+    with ctx.recording(second):  # the later rule happens to compute it
+        ctx.note("second's own")
+        ctx.shared("k", analysis)
+    with ctx.recording(first):  # the earlier rule reads the value already there
+        ctx.note("first's own")
+        ctx.shared("k", analysis)
+    assert ctx.ordered_notes([first, second]) == ["first's own", "analysis", "second's own"]
+
+
+@pytest.mark.slow
+def test_every_rule_case_on_threads_gives_the_report_of_one_thread(tmp_path):
+    # every rule's failing and passing case (geographic maps, left-out layers, empty layers, notes of the
+    # shared analyses) checked whole with three threads and with one
+    for rid, pair in sorted(all_cases().items()):
+        if get_rule(rid).family == "archive":
+            continue
+        for k, make_case in enumerate(pair):
+            folder = make_case(tmp_path / f"{rid}-{k}")
+            project = load_project(folder)
+            same_report(archivist.check(project, jobs=1), archivist.check(project, jobs=3))
+
+
+def test_progress_shows_each_family_once_with_its_rules_on_threads(tmp_path):
+    from archivist.progress import Progress
+
+    class Recording(Progress):
+        def __init__(self):
+            super().__init__()
+            self.begun, self.ended, self.advanced = [], [], {}
+
+        def _begin(self, step):
+            self.begun.append((step.label, step.total))
+
+        def _advance(self, step, n):
+            self.advanced[step.label] = self.advanced.get(step.label, 0) + n
+
+        def _end(self, step):
+            self.ended.append(step.label)
+
+    project = _grid_project(tmp_path)
+    one, many = Recording(), Recording()
+    archivist.check(project, jobs=1, progress=one)
+    archivist.check(project, jobs=2, progress=many)
+    assert sorted(many.begun) == sorted(one.begun) and sorted(many.ended) == sorted(one.ended)
+    assert many.advanced == one.advanced == {label: total for label, total in one.begun if total}
+
+
+def test_ctrl_c_on_threads_stops_the_check_at_once_and_no_further_rule_starts(tmp_path):
+    import _thread
+    from dataclasses import replace
+
+    project = _grid_project(tmp_path)
+    started = threading.Event()
+    release = threading.Event()
+    ran = []
+
+    def blocking(project, ctx):
+        started.set()
+        release.wait(10)
+        return iter(())
+
+    def later(project, ctx):
+        ran.append("later")
+        return iter(())
+
+    rules = [replace(get_rule("unit-gap"), func=blocking), replace(get_rule("unit-overlap"), func=later)]
+    threading.Timer(0.2, lambda: started.wait(5) and _thread.interrupt_main()).start()
+    t0 = time.perf_counter()
+    with pytest.raises(KeyboardInterrupt):
+        engine.run_rules(project, rules, threads=2)
+    assert time.perf_counter() - t0 < 5  # the rule still blocks: the check did not wait for it
+    release.set()
+    time.sleep(0.2)
+    assert ran == []  # the family's next rule never started
+
+
+def test_an_error_in_a_family_on_a_thread_reaches_the_caller(tmp_path):
+    from dataclasses import replace
+
+    def broken(project, ctx):
+        raise RuntimeError("broken rule")
+
+    with pytest.raises(RuntimeError, match="broken rule"):
+        engine.run_rules(_grid_project(tmp_path), [replace(get_rule("unit-gap"), func=broken)], threads=2)
+
+
+DRIVER = """
+import sys
+from dataclasses import replace
+
+import numpy as np
+import shapely
+
+from archivist import registry
+from archivist.cli import main
+
+
+def busy_in_geos(project, ctx):
+    polys = shapely.buffer(shapely.points(np.random.default_rng(0).random((20000, 2))), 0.01, quad_segs=64)
+    print("inside", flush=True)
+    while True:  # GEOS work (the GIL released) until the process ends
+        shapely.union_all(shapely.buffer(polys, 0.001))
+
+
+registry._RULES["unit-gap"] = replace(registry.get_rule("unit-gap"), func=busy_in_geos)
+sys.argv = ["archivist", "check", sys.argv[1], "-q", "--jobs", "2"]
+main()
+"""
+
+
+@pytest.mark.slow
+def test_ctrl_c_while_a_thread_is_inside_geos_leaves_the_command_line_with_130(tmp_path):
+    # the interpreter must not shut down under a thread still inside a GEOS call (it crashed with SIGSEGV)
+    import signal
+    import subprocess
+
+    project = _grid_project(tmp_path)
+    for attempt in range(3):
+        proc = subprocess.Popen([sys.executable, "-c", DRIVER, str(project.root)], stdout=subprocess.PIPE,
+                                stderr=subprocess.PIPE, text=True)
+        assert proc.stdout is not None
+        assert proc.stdout.readline().strip() == "inside"
+        time.sleep(0.3 * attempt)
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+        assert proc.returncode == 130, err
+        assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import threading
+from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Any, Callable, TypeVar
+from typing import TYPE_CHECKING, Any, Callable, Iterable, Iterator, TypeVar
 
 import numpy as np
 
@@ -20,6 +22,11 @@ if TYPE_CHECKING:
 
 T = TypeVar("T")
 
+# What one rule (or one analysis) said, in the order it said it: a note (text), or an analysis it read (the log
+# of that analysis's computation). Flattened over the rules in their order, these logs give the notes in the
+# order a run in one thread gives them, however the rules ran side by side (see CheckContext.ordered_notes).
+Log = list[Any]
+
 
 @dataclass
 class CheckContext:
@@ -31,11 +38,20 @@ class CheckContext:
     value to every later rule of the check. The values are frozen: a rule
     reads them, it never changes them. ``shared(key, compute)`` caches any
     other value a family computes for several of its rules.
+
+    Rules may run side by side on threads (``check --jobs N``): each shared
+    value is computed exactly once, under a lock of its own key (a rule
+    asking for it while another computes it waits for that value), and
+    :meth:`ordered_notes` gives the notes in the order one thread gives them.
     """
 
     project: MapProject
     notes: list[str] = field(default_factory=list)
     _cache: dict[str, Any] = field(default_factory=dict)
+    _logs: dict[str, Log] = field(default_factory=dict, repr=False)
+    _locks: dict[str, threading.Lock] = field(default_factory=dict, repr=False)
+    _guard: threading.Lock = field(default_factory=threading.Lock, repr=False)
+    _local: threading.local = field(default_factory=threading.local, repr=False)
 
     @property
     def config(self) -> CheckConfig:
@@ -46,15 +62,82 @@ class CheckContext:
         return float(self.project.config.tolerance)
 
     def shared(self, key: str, compute: Callable[[], T]) -> T:
-        """``compute()`` once per check under ``key``; the same value afterwards."""
-        if key not in self._cache:
-            self._cache[key] = compute()
-        return self._cache[key]
+        """``compute()`` once per check under ``key``; the same value afterwards (thread-safe: computed once).
+
+        A computation that raises is not kept: the next rule asking computes again, as in one thread.
+        """
+        log = self._log()
+        if key in self._cache:
+            log.append(self._logs.get(key, []))
+            return self._cache[key]
+        with self._guard:
+            lock = self._locks.setdefault(key, threading.Lock())
+        with lock:
+            if key in self._cache:
+                log.append(self._logs.get(key, []))
+                return self._cache[key]
+            mine: Log = []
+            log.append(mine)  # what this computation notes, at the place of the rule that asked
+            with self.recording(mine):
+                value = compute()
+            self._logs[key] = mine
+            self._cache[key] = value
+            return value
 
     def note(self, text: str) -> None:
         """A note for the report (once, however many rules add it)."""
-        if text not in self.notes:
-            self.notes.append(text)
+        self._log().append(text)
+        with self._guard:
+            if text not in self.notes:
+                self.notes.append(text)
+
+    # ------------------------------------------------------------ rules side by side
+
+    def _log(self) -> Log:
+        stack = getattr(self._local, "logs", None)
+        if not stack:
+            stack = self._local.logs = [[]]  # outside any recording: a log of this thread's own
+        return stack[-1]
+
+    @contextmanager
+    def recording(self, log: Log) -> Iterator[Log]:
+        """While inside, what this thread notes and reads through the context is written to ``log`` (one rule's run)."""
+        stack = getattr(self._local, "logs", None)
+        if stack is None:
+            stack = self._local.logs = [[]]
+        stack.append(log)
+        try:
+            yield log
+        finally:
+            stack.pop()
+
+    @staticmethod
+    def ordered_notes(logs: Iterable[Log]) -> list[str]:
+        """The notes of the rules' logs (:meth:`recording`), taken in the rules' order: the order of one thread.
+
+        In one thread, an analysis notes when the first rule that reads it
+        computes it; a later rule reads the value and notes nothing. Here each
+        rule's log holds the log of every analysis it read, computed by it or
+        by another rule at the same time, so the first rule in order that read
+        it gives its notes their place, whichever rule computed it.
+        """
+        out: list[str] = []
+        seen: set[str] = set()
+        done: set[int] = set()
+
+        def walk(log: Log) -> None:
+            for item in log:
+                if isinstance(item, str):
+                    if item not in seen:
+                        seen.add(item)
+                        out.append(item)
+                elif id(item) not in done:
+                    done.add(id(item))
+                    walk(item)
+
+        for log in logs:
+            walk(log)
+        return out
 
     # ------------------------------------------------------------ the layers across layers
 

@@ -16,6 +16,8 @@ from typing import Any, Callable
 import numpy as np
 from shapely.errors import GEOSException
 
+from ..threads import map_runs, splits
+
 
 @dataclass(frozen=True)
 class Failure:
@@ -48,6 +50,12 @@ def elementwise(func: Callable[..., np.ndarray], *arrays: np.ndarray, fill: Any 
     failing element stands alone, so the cost grows with the failures only.
     """
     n = len(arrays[0])
+    if splits(n):  # on the threads of a check: runs of elements side by side, joined in order (archivist.threads)
+        runs = map_runs(lambda s: elementwise(func, *(a[s] for a in arrays), fill=fill), n)
+        rs = [r for r, _, _ in runs]
+        if len({r.dtype for r in rs}) > 1:
+            rs = [r.astype(object) for r in rs]
+        return np.concatenate(rs), np.concatenate([f for _, f, _ in runs]), [m for _, _, ms in runs for m in ms]
     try:
         return np.asarray(func(*arrays)), np.zeros(n, dtype=bool), []
     except GEOSException as exc:

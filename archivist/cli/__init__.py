@@ -9,6 +9,8 @@ modules import the rest of archivist only when their command runs, so
 
 from __future__ import annotations
 
+import os
+import sys
 import warnings
 
 import click
@@ -53,5 +55,15 @@ def main() -> None:
     warnings.simplefilter("ignore", UserWarning)
     # SIGTERM raises Interrupted: temporary siblings and private copies are removed,
     # and handle_errors prints one line (exit 143, 128 + the signal number).
-    with terminate_as_exception():
-        cli(prog_name="archivist")
+    try:
+        with terminate_as_exception():
+            cli(prog_name="archivist")
+    except SystemExit as exc:
+        from ..threads import settled
+
+        if not settled(0.5):  # stopped (Ctrl-C) while a check's threads are inside GEOS: nothing is left to write
+            code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+            sys.stdout.flush()
+            sys.stderr.flush()
+            os._exit(code)
+        raise

@@ -94,7 +94,7 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
             executor = stack.enter_context(open_executor(scheduler, progress, workers=jobs or None, memory_limit=worker_memory, root=root))
         project = load_project(path, progress=progress)
         if executor is None:
-            report = engine.check(project, only=only, rules=rules, progress=progress, jobs=1 if jobs is None else jobs)
+            report = engine.check(project, only=only, rules=rules, progress=progress, jobs=0 if jobs is None else jobs)
         else:
             executor.reading(project)  # the workers read their partitions' features from the project's files
             from ..cluster import partitions

@@ -41,16 +41,16 @@ def only_help(families: tuple[str, ...]) -> str:
 
 
 def jobs_option(func: F) -> F:
-    """Add ``--jobs N``: worker processes for the rules run on spatial partitions of the map (default 1).
+    """Add ``--jobs N``: threads that run the rule families side by side (default: every core).
 
-    The default stays one process until a whole family runs on partitions
-    faster than in one process (measured with tests/benchmarks/bench_jobs.py);
-    ``--jobs 0`` uses every core.
+    ``--jobs 1`` runs every rule in one thread, one after another; the report
+    is the same whatever the number (see :func:`archivist.engine.run_rules`).
+    With ``--scheduler``, the number of workers of a local cluster.
     """
     return click.option(
-        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=None, show_default="1; with --scheduler local, every core",
-        help="Worker processes for the topology and linework checks, run on parts of the map (0: every core). "
-             "The findings are the same whatever the number.",
+        "--jobs", "-j", "jobs", type=click.IntRange(min=0), default=None, show_default="every core",
+        help="Threads that run the check families side by side (0: every core; 1: one after another). "
+             "With --scheduler local, its workers. The findings are the same whatever the number.",
     )(func)
 
 

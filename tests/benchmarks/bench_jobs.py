@@ -1,22 +1,26 @@
-"""Benchmark: ``check --jobs N`` against ``--jobs 1`` on synthetic maps, and the findings of both compared.
+"""Benchmark: ``check --jobs N`` against ``--jobs 1`` on synthetic maps, and the reports of both compared.
 
-    python tests/benchmarks/bench_jobs.py --sizes 10000 100000 [--defects K] [--jobs 2 4] [--repeat R] [--threads]
+    python tests/benchmarks/bench_jobs.py --sizes 10000 100000 [--defects K] [--jobs 2 4] [--repeat R]
+    python tests/benchmarks/bench_jobs.py --map FOLDER [--jobs 2]       # a map already written
+    ... [--processes]                                                 # partitions in worker processes instead
 
 For each size a map is written by ``topology_maps.py`` (a Voronoi coverage
 dissolved into units, its contacts, faults and map boundary; with
-``--defects K``, K overlaps, gaps and dangles) into a temporary folder. In
-one process, side by side, the project is loaded once and checked with
-``archivist.check(project, jobs=1)`` and with ``jobs=N`` for each N asked
-(default: 2 and every core when there are more), ``--repeat`` times each; the
-best time of each is kept. With ``--partitioned`` only the rules registered
-``partitioned`` run (the whole check sends a family to the partitions only
-when every rule of it can go; see ``archivist/engine.py``). Printed per size and N: the times, the speed-up
-(jobs 1 / jobs N), whether the findings and notes are identical (rule,
-severity, layer, features, message, place, measure, geometry, in order), and
-which partitioned rules the partitions handed back to the whole map (their
-findings could not be judged on a partition; see ``archivist/parallel.py``).
+``--defects K``, K overlaps, gaps and dangles) into a temporary folder, or
+``--map`` names one. Side by side in one process, the whole check as a user
+runs it (``load_project`` then ``archivist.check``) is timed with ``jobs=1``
+and with ``jobs=N`` for each N asked (default: 2 and every core when there
+are more), ``--repeat`` times each, the best time kept; the load and the
+check are also timed apart. ``jobs=N`` runs the rule families side by side on
+N threads (:func:`archivist.engine.run_rules`); with ``--processes``, the
+partitioned families on N spatial partitions in N worker processes
+(``parts=N``; :mod:`archivist.parallel`), and with ``--partitioned`` only the
+rules registered ``partitioned``. Printed per size and N: the times, the
+process's CPU time (user + system: all threads), the speed-up (jobs 1 / jobs
+N), and whether the reports are identical (findings: rule, severity, layer,
+features, message, place, measure, geometry, in order; notes; rules run).
 The machine's load (``os.getloadavg``) is printed beside each figure: the
-speed-up needs the cores to be free. Exits 1 when findings differ.
+speed-up needs the cores to be free. Exits 1 when reports differ.
 Target: speed-up >= 1.6 with 2 jobs on 2 cores at 10^5 polygons.
 """
 
@@ -57,54 +61,71 @@ def handed_back(project, jobs: int) -> list[str]:
     return list(parallel.merge(plan, [r.id for r in rules], results).whole)
 
 
+def cpu() -> float:
+    import resource
+
+    r = resource.getrusage(resource.RUSAGE_SELF)
+    return r.ru_utime + r.ru_stime
+
+
 def main(argv=None) -> int:
     from archivist import check, load_project
-    from archivist.parallel import default_jobs, make_executor
+    from archivist.parallel import default_jobs
     from archivist.registry import all_rules
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
+    ap.add_argument("--map", type=Path, help="check this map folder instead of writing synthetic ones")
     ap.add_argument("--defects", type=int, default=0)
     ap.add_argument("--jobs", type=int, nargs="+", default=None)
     ap.add_argument("--repeat", type=int, default=2)
-    ap.add_argument("--threads", action="store_true", help="threads instead of worker processes")
-    ap.add_argument("--explain", action="store_true", help="list the rules handed back to the whole map")
+    ap.add_argument("--processes", action="store_true", help="partitions in worker processes instead of threads")
+    ap.add_argument("--explain", action="store_true", help="with --processes: the rules handed back to the whole map")
     ap.add_argument("--partitioned", action="store_true", help="run only the rules registered partitioned")
     args = ap.parse_args(argv)
     jobs_list = args.jobs or sorted({2, default_jobs()} - {1})
     rules = [r.id for r in all_rules() if r.partitioned] if args.partitioned else []
     differ = False
-    print(f"cores {default_jobs()}, {load()}", flush=True)
+    print(f"cores {default_jobs()}, {load()}, {'processes on partitions' if args.processes else 'threads'}", flush=True)
     with tempfile.TemporaryDirectory(prefix="archivist-bench-jobs-") as work:
-        for n in args.sizes:
-            folder = Path(work) / f"map{n}"
-            made = make(folder, n, seed=1, defects=args.defects)
-            project = load_project(folder)
-            times: dict[int, float] = {}
+        for n in ([0] if args.map else args.sizes):
+            if args.map:
+                folder, label = args.map, str(args.map)
+            else:
+                folder = Path(work) / f"map{n}"
+                made = make(folder, n, seed=1, defects=args.defects)
+                label = f"{made['polygons']} polygons, {made['lines']} lines"
+            best: dict[int, tuple[float, float, float, float]] = {}  # whole, load, check, cpu
             reports = {}
             for jobs in [1, *jobs_list]:
-                pool = make_executor(jobs, "thread" if args.threads else "process") if jobs > 1 else None
-                best = float("inf")
                 for _ in range(args.repeat):
-                    t = time.perf_counter()
-                    if pool is None:
+                    t0, c0 = time.perf_counter(), cpu()
+                    project = load_project(folder)
+                    t1 = time.perf_counter()
+                    if jobs == 1:
                         reports[jobs] = check(project, rules=rules, jobs=1)
+                    elif args.processes:
+                        reports[jobs] = check(project, rules=rules, jobs=jobs, parts=jobs)
                     else:
-                        reports[jobs] = check(project, rules=rules, executor=pool, parts=jobs)
-                    best = min(best, time.perf_counter() - t)
-                if pool is not None:
-                    pool.shutdown()
-                times[jobs] = best
+                        reports[jobs] = check(project, rules=rules, jobs=jobs)
+                    t2 = time.perf_counter()
+                    got = (t2 - t0, t1 - t0, t2 - t1, cpu() - c0)
+                    if jobs not in best or got[0] < best[jobs][0]:
+                        best[jobs] = got
             ref = reports[1]
-            print(f"{made['polygons']} polygons, {made['lines']} lines, {len(ref.findings)} findings: "
-                  f"jobs 1 {times[1]:.2f} s ({load()})", flush=True)
+            w1, l1, k1, c1 = best[1]
+            print(f"{label}, {len(ref.findings)} findings: jobs 1 {w1:.2f} s (load {l1:.2f} + check {k1:.2f}; "
+                  f"cpu {c1:.2f} s) ({load()})", flush=True)
             for jobs in jobs_list:
                 same = ([f.to_dict() for f in reports[jobs].findings] == [f.to_dict() for f in ref.findings]
-                        and reports[jobs].notes == ref.notes)
+                        and reports[jobs].notes == ref.notes and reports[jobs].rules_run == ref.rules_run)
                 differ |= not same
-                extra = f", handed back to the whole map: {handed_back(project, jobs) or 'none'}" if args.explain else ""
-                print(f"  jobs {jobs}: {times[jobs]:.2f} s, speed-up {times[1] / times[jobs]:.2f}x, "
-                      f"findings {'identical' if same else 'DIFFER'} ({load()}){extra}", flush=True)
+                w, ld, k, c = best[jobs]
+                extra = (f", handed back to the whole map: {handed_back(load_project(folder), jobs) or 'none'}"
+                         if args.explain and args.processes else "")
+                print(f"  jobs {jobs}: {w:.2f} s (load {ld:.2f} + check {k:.2f}; cpu {c:.2f} s), speed-up "
+                      f"{w1 / w:.2f}x whole, {k1 / k:.2f}x check, reports {'identical' if same else 'DIFFER'} "
+                      f"({load()}){extra}", flush=True)
     return 1 if differ else 0
 
 
