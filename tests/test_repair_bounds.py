@@ -54,11 +54,6 @@ def broken(n: int, seed: int, grow: float, shrink: float, nudge: float):
     return with_units(smap, g)
 
 
-# Known failure, recorded and left open with the repair issue: this property held on the repair branch, and
-# fails on main since the merges that followed (the overlap accounting, coverage validity, a remaining
-# unit-edge-mismatch and a second run that still changes lines, on the first generated maps). strict: the
-# marker must go as soon as the property holds again.
-@pytest.mark.xfail(strict=True, reason="repair bounds regressed after merging with the faster coverage analysis; open")
 @settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(n=st.integers(12, 40), seed=st.integers(0, 10_000), grow=st.floats(0.05, 0.9), shrink=st.floats(0.05, 0.9),
        nudge=st.floats(0.01, 0.6))

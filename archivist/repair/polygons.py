@@ -186,6 +186,23 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     if not len(a):
         return [], left
     keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps)
+    # the snapping distance bounds every move: where cutting the piece out of the polygon the rule chose would move
+    # its boundary further (a piece reaching into a corner where three polygons meet), the other one gives it up;
+    # where both would, it is left
+    reach = settings.tolerance * ABOVE
+    far_a = _shift(geoms[a], shapely.difference(geoms[a], pieces)) > reach
+    far_b = _shift(geoms[b], shapely.difference(geoms[b], pieces)) > reach
+    flip = np.where(keep_a, far_b & ~far_a, far_a & ~far_b)
+    keep_a = keep_a ^ flip
+    why = [f"{w}; the other would move more than the snapping distance" if f else w for w, f in zip(why, flip)]
+    both = far_a & far_b
+    left += [Left("resolve-overlaps", "units", (str(ids[i]), str(ids[j])),
+                  "cutting it out of either polygon would move a boundary further than the snapping distance", p, float(ar))
+             for i, j, p, ar in zip(a[both], b[both], pieces[both], area[both])]
+    a, b, pieces, area, keep_a = a[~both], b[~both], pieces[~both], area[~both], keep_a[~both]
+    why = [w for w, x in zip(why, both) if not x]
+    if not len(a):
+        return [], left
     winner, loser = np.where(keep_a, a, b), np.where(keep_a, b, a)
     order = np.argsort(loser, kind="stable")
     new = geoms.copy()
@@ -193,11 +210,18 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     failed = np.zeros(len(loser), dtype=bool)
     for lo, group in zip(losers, np.split(order, starts[1:])):  # one per polygon losing area
         try:
-            new[lo] = shapely.difference(new[lo], shapely.union_all(pieces[group]))
+            cut = shapely.difference(new[lo], shapely.union_all(pieces[group]))
         except GEOSException as exc:  # left as it is, and said so; snapping may still resolve a thin one
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
+            continue
+        if len(group) > 1 and _shift(np.array([new[lo]], dtype=object), np.array([cut], dtype=object))[0] > reach:
+            failed[group] = True  # each piece alone stays within the distance, together they do not
+            left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), "cutting its overlaps out together would move its "
+                             "boundary further than the snapping distance", shapely.union_all(pieces[group]), float(area[group].sum())))
+            continue
+        new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
     empty = shapely.is_empty(new)
     _set(state, new, ~empty)
@@ -268,24 +292,35 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     # (a part along the map edge) goes to the first. A gap along one polygon goes to it whole.
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
-    reach = settings.gap_width * ABOVE
+    reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
     pieces: list[tuple[int, Any, int]] = []  # (polygon, piece, gap)
     for g in np.unique(gi):  # one per gap filled
         nbrs = ui[gi == g]
+        if len(nbrs) == 1:
+            pieces.append((int(nbrs[0]), gaps[g], int(g)))
+            continue
         rest = gaps[g]
         for n in nbrs.tolist():
-            if len(nbrs) == 1:
-                part, rest = rest, None
-            else:
-                part = shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4))
-                rest = shapely.difference(rest, part)
-            if part is not None and shapely.area(part) > 0:
+            near = shapely.get_parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
+            near = near[shapely.area(near) > 0]
+            # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
+            # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
+            near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
+            if len(near):
+                part = shapely.union_all(near)
                 pieces.append((n, part, int(g)))
-            if rest is None or shapely.area(rest) <= 0:
+                rest = shapely.difference(rest, part)
+            if shapely.area(rest) <= 0:
                 break
         else:
-            if rest is not None and shapely.area(rest) > 0:
-                pieces.append((int(nbrs[0]), rest, int(g)))
+            # what no neighbour reached within the gap width: each part to the neighbour it runs along longest
+            parts = shapely.get_parts(rest)
+            parts = parts[shapely.area(parts) > 0]
+            if len(parts):
+                pi, ni = np.meshgrid(np.arange(len(parts)), np.arange(len(nbrs)), indexing="ij")
+                run = _border(parts[pi.ravel()], geoms[nbrs[ni.ravel()]], eps).reshape(pi.shape)
+                for k, part in enumerate(parts):
+                    pieces.append((int(nbrs[int(np.argmax(run[k]))]), part, int(g)))
     target = np.array([t for t, _, _ in pieces], dtype=np.int64)
     parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
