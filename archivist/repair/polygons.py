@@ -153,7 +153,10 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     larger polygon), ``younger`` or ``older`` (by the legend's ages, read by
     :mod:`archivist.vocab.ages`: a younger intrusion or superficial deposit
     usually overprints, common practice); where the ages are unknown or
-    equal, the longest border decides and the log says so.
+    equal, the longest border decides and the log says so. Where cutting
+    the piece out of the chosen polygon would move its boundary further than
+    the snapping distance (``[checks] tolerance``) and cutting it out of the
+    other would not, the other gives it up (the log says so).
 
     Threshold: pieces larger than ``[repair] overlap_max_area_mm2`` at map
     scale (default 1 mm², the sliver area of ``[checks]``: our own choice)
@@ -186,23 +189,15 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     if not len(a):
         return [], left
     keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps)
-    # the snapping distance bounds every move: where cutting the piece out of the polygon the rule chose would move
-    # its boundary further (a piece reaching into a corner where three polygons meet), the other one gives it up;
-    # where both would, it is left
+    # where cutting the piece out of the polygon the rule chose would move its boundary further than the snapping
+    # distance (a piece reaching into a corner where three polygons meet) and cutting it out of the other would
+    # not, the other gives it up: the move stays within the snapping distance wherever one of the two can
     reach = settings.tolerance * ABOVE
     far_a = _shift(geoms[a], shapely.difference(geoms[a], pieces)) > reach
     far_b = _shift(geoms[b], shapely.difference(geoms[b], pieces)) > reach
     flip = np.where(keep_a, far_b & ~far_a, far_a & ~far_b)
     keep_a = keep_a ^ flip
-    why = [f"{w}; the other would move more than the snapping distance" if f else w for w, f in zip(why, flip)]
-    both = far_a & far_b
-    left += [Left("resolve-overlaps", "units", (str(ids[i]), str(ids[j])),
-                  "cutting it out of either polygon would move a boundary further than the snapping distance", p, float(ar))
-             for i, j, p, ar in zip(a[both], b[both], pieces[both], area[both])]
-    a, b, pieces, area, keep_a = a[~both], b[~both], pieces[~both], area[~both], keep_a[~both]
-    why = [w for w, x in zip(why, both) if not x]
-    if not len(a):
-        return [], left
+    why = [f"{w}; the other would move further than the snapping distance" if f else w for w, f in zip(why, flip)]
     winner, loser = np.where(keep_a, a, b), np.where(keep_a, b, a)
     order = np.argsort(loser, kind="stable")
     new = geoms.copy()
@@ -215,11 +210,6 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
-            continue
-        if len(group) > 1 and _shift(np.array([new[lo]], dtype=object), np.array([cut], dtype=object))[0] > reach:
-            failed[group] = True  # each piece alone stays within the distance, together they do not
-            left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), "cutting its overlaps out together would move its "
-                             "boundary further than the snapping distance", shapely.union_all(pieces[group]), float(area[group].sum())))
             continue
         new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
@@ -289,7 +279,7 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
     # the part of the gap within the gap width of it, the next the part of the rest within the gap width of
     # it, and so on, so no polygon's boundary moves further than the gap width; what no neighbour reaches
-    # (a part along the map edge) goes to the first. A gap along one polygon goes to it whole.
+    # (a corner along the map edge) is left and listed. A gap along one polygon goes to it whole.
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
     reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
@@ -313,14 +303,14 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
             if shapely.area(rest) <= 0:
                 break
         else:
-            # what no neighbour reached within the gap width: each part to the neighbour it runs along longest
+            # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
+            # and not a polygon bounds it) stays: giving it to one would move that polygon further
             parts = shapely.get_parts(rest)
             parts = parts[shapely.area(parts) > 0]
             if len(parts):
-                pi, ni = np.meshgrid(np.arange(len(parts)), np.arange(len(nbrs)), indexing="ij")
-                run = _border(parts[pi.ravel()], geoms[nbrs[ni.ravel()]], eps).reshape(pi.shape)
-                for k, part in enumerate(parts):
-                    pieces.append((int(nbrs[int(np.argmax(run[k]))]), part, int(g)))
+                around = tuple(str(ids[k]) for k in nbrs)
+                left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
+                                 "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
     target = np.array([t for t, _, _ in pieces], dtype=np.int64)
     parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
@@ -383,35 +373,49 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
         return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
     cov = ctx.coverage()
+    refused: dict[int, float] = {}
     for p in cov.overlaps:  # overlaps still there were left for the geologist (or their repair was skipped)
         if p.width > cov.tol * ABOVE:
             hold[units.rows[list(p.units)]] = True
-    sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
-    work = geoms[sel]
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
-    order = np.arange(len(work))
-    if strategy == "min_index":
-        age = _age_rank(state, codes[sel])
-        key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
-        order = np.argsort(key, kind="stable")
-    cleaned = np.empty(len(work), dtype=object)
-    cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
-                                            merge_strategy=strategy)
-    same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
-    moved = _shift(work, cleaned)
-    too_far = moved > settings.tolerance * ABOVE
-    lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+    # a polygon GEOS would move too far keeps its input and is cleaned no more: the cleaning is run again without
+    # it, so that its neighbours are not left fitted to a version of it that is not kept
+    for _ in range(MAX_CLEAN_ROUNDS):
+        sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
+        work = geoms[sel]
+        order = np.arange(len(work))
+        if strategy == "min_index":
+            age = _age_rank(state, codes[sel])
+            key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
+            order = np.argsort(key, kind="stable")
+        cleaned = np.empty(len(work), dtype=object)
+        cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
+                                                merge_strategy=strategy)
+        same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+        moved = _shift(work, cleaned)
+        too_far = moved > settings.tolerance * ABOVE
+        lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        bad = (too_far | lost) & ~same
+        if not bad.any():
+            break
+        hold[sel[bad]] = True
+        refused.update({int(k): float(m) for k, m in zip(sel[bad], moved[bad])})
+    else:
+        same = np.ones(len(work), dtype=bool)  # still moving too far after every round: nothing is cleaned
     take = ~same & ~too_far & ~lost
     new = geoms.copy()
     new[sel[take]] = cleaned[take]
     _set(state, new)
     left = [Left("snap-edges", "units", (str(ids[k]),), f"snapping would move it by {m:.3f} m, more than the snapping distance",
-                 geoms[k], float(m)) for k, m in zip(sel[(too_far | lost) & ~same], moved[(too_far | lost) & ~same])]
+                 geoms[k], float(m)) for k, m in refused.items()]
     area_change = np.abs(shapely.area(cleaned[take]) - shapely.area(work[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'")
                for k, ar, m in zip(sel[take], area_change, moved[take])]
     return changes, left
+
+
+MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
 def _single(geoms: np.ndarray) -> np.ndarray:
