@@ -331,6 +331,17 @@ def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarr
 
 # ---------------------------------------------------------------- the working state as the analyses read it
 
+def unit_analyses(state: RepairState, project: MapProject, tol: float) -> tuple[Any, Any, Any]:
+    """The working units as the checks read them, their half-edges and coverage analysis (computed once while they stay)."""
+
+    def compute() -> tuple[Any, Any, Any]:
+        units = read_units(project)
+        edges = build_edges(units.geoms)
+        return units, edges, analyse_coverage(project, units, edges, tol)
+
+    return state.analysis(f"units-edges-coverage:{tol!r}", compute)
+
+
 def working_project(state: RepairState) -> MapProject:
     """The project with its units and lines replaced by the working copies (ids from ``FEATURE_ID``)."""
     project = state.project
@@ -400,14 +411,12 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     tol = float(settings.tolerance)
     project = working_project(state)
     net = build_line_network(project)
-    units = read_units(project)
+    units, edges, cov = unit_analyses(state, project, tol)
     if not len(net.geoms) or not len(units):
         return [], []
     boundaries = shapely.boundary(units.geoms)
     changes: list[Change] = []
     left: list[Left] = []
-    edges = build_edges(units.geoms)
-    cov = analyse_coverage(project, units, edges, tol)
     frame_edge = np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object)
     plan = [(role, np.flatnonzero(net.roles == role), targets) for role, targets in (("contact", boundaries), ("boundary", frame_edge))]
     plan = [(role, feats, targets) for role, feats, targets in plan if len(feats) and len(targets)]
@@ -596,10 +605,9 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     rest = loose_ends(after_net, ("contact", "boundary"), tol)
     left: list[Left] = []
     far = ~rest.near_line
-    units = read_units(project) if state.units is not None and len(state.units) else None
-    if units is not None and len(units) and far.any():
-        cov = analyse_coverage(project, units, build_edges(units.geoms), tol)
-        if cov.extent is not None:  # an end at the map edge is connected (line-dangle reads it so)
+    if state.units is not None and len(state.units) and far.any():
+        units, _, cov = unit_analyses(state, project, tol)
+        if len(units) and cov.extent is not None:  # an end at the map edge is connected (line-dangle reads it so)
             far &= ~shapely.dwithin(rest.points, cov.extent_boundary, tol)
     if far.any():
         ids, layers = _ids(state), _source_layers(state)
@@ -646,11 +654,9 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     tol = float(settings.tolerance)
     project = working_project(state)
     net = build_line_network(project)
-    units = read_units(project)
+    units, edges, cov = unit_analyses(state, project, tol)
     if not len(units):
         return [], []
-    edges = build_edges(units.geoms)
-    cov = analyse_coverage(project, units, edges, tol)
     drawn = net.edges_drawn(net.match(edges), len(edges))
     found = undrawn_boundaries(units, edges, cov.outline, drawn, net, tol)
     if found is None:
