@@ -486,11 +486,12 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     ki, g = ki[other], g[other]
     pinned = np.zeros(len(ends), dtype=bool)
     frozen = np.zeros(n, dtype=bool)
+    todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
     for _ in range(MAX_JOIN_ROUNDS):
-        final = np.array(net.geoms, dtype=object, copy=True)
-        shift[:], changed[:], held[:], worse[:] = 0.0, False, False, False
+        final[todo] = net.geoms[todo]
+        shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
         for feats, targets in plan:
-            f = feats[~frozen[feats]]
+            f = feats[todo[feats] & ~frozen[feats]]
             if not len(f):
                 continue
             found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned])
@@ -517,6 +518,13 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
         gone = bad_g[again]
         frozen[gone[snapped[gone]]] = True
         pinned[bad_k] = True
+        todo = np.zeros(n, dtype=bool)
+        todo[owner[bad_k]] = True
+        todo[bad_g] = True
+        # every line with a vertex on a newly pinned point is snapped again with it held
+        hit = net.tree.query(shapely.points(old[bad_k]), predicate="dwithin", distance=eps)[1]
+        todo[hit] = True
+        todo &= snapped
     return final, shift, changed, held, worse
 
 
@@ -537,24 +545,30 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     """Per line: True when the snapped line strays farther from ``targets`` than the line as drawn.
 
     The farthest any point of a line lies from the targets, measured on the
-    line densified to a quarter of the tolerance (GEOS distances, whole arrays);
-    a snap that makes it larger would trade a line along the boundary for one
-    that cuts across a bend, so it is not made.
+    line densified to a quarter of the tolerance (GEOS distances to the
+    nearest target through an STRtree, whole arrays); a snap that makes it
+    larger would trade a line along the boundary for one that cuts across a
+    bend, so it is not made. Lines equal before and after are not measured.
     """
-    if not len(before):
-        return np.zeros(0, dtype=bool)
-    net = shapely.union_all(targets)
-    shapely.prepare(net)
+    out = np.zeros(len(before), dtype=bool)
+    if not len(before) or not len(targets):
+        return out
+    moved = np.flatnonzero(~shapely.equals_exact(before, after, tolerance=0.0))
+    if not len(moved):
+        return out
+    tree = shapely.STRtree(targets)
     step = max(tol / 4.0, 1e-9)
 
     def reach(lines: np.ndarray) -> np.ndarray:
         xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
-        d = shapely.distance(shapely.points(xy), net)
-        out = np.zeros(len(lines))
-        np.maximum.at(out, idx, d)
-        return out
+        far = np.zeros(len(lines))
+        if len(xy):
+            (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+            np.maximum.at(far, idx[who], d)
+        return far
 
-    return reach(after) > reach(before) + 1e-9
+    out[moved] = reach(after[moved]) > reach(before[moved]) + 1e-9
+    return out
 
 
 def _ids(state: RepairState) -> np.ndarray:
