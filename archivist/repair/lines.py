@@ -556,7 +556,11 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     moved = np.flatnonzero(~shapely.equals_exact(before, after, tolerance=0.0))
     if not len(moved):
         return out
-    tree = shapely.STRtree(targets)
+    # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
+    xy, part = shapely.get_coordinates(shapely.get_parts(targets), return_index=True)
+    same = part[1:] == part[:-1]
+    segs = shapely.linestrings(np.stack([xy[:-1][same], xy[1:][same]], axis=1)) if same.any() else targets
+    tree = shapely.STRtree(segs)
     step = max(tol / 4.0, 1e-9)
 
     def reach(lines: np.ndarray) -> np.ndarray:
