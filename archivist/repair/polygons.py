@@ -169,6 +169,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     ctx = _context(state)
     units = ctx.units()
     cov = ctx.coverage()
+    state.overlaps_left = []
     if not cov.overlaps:
         return [], []
     geoms = _geoms(state)
@@ -185,6 +186,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
                  (f"an overlap of {ar:.2f} m², larger than the {settings.overlap_max_area:.2f} m² a repair may give away"
                   if not w else "one polygon lies wholly inside the other"), p, float(ar))
             for i, j, p, ar, w in zip(a[~small], b[~small], pieces[~small], area[~small], whole[~small])]
+    state.overlaps_left += [(str(ids[i]), str(ids[j]), p) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
     a, b, pieces, area = a[small], b[small], pieces[small], area[small]
     if not len(a):
         return [], left
@@ -210,6 +212,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
+            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k]) for k in group.tolist()]
             continue
         new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
@@ -372,11 +375,21 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
     if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
         return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
-    cov = ctx.coverage()
     refused: dict[int, float] = {}
-    for p in cov.overlaps:  # overlaps still there were left for the geologist (or their repair was skipped)
-        if p.width > cov.tol * ABOVE:
-            hold[units.rows[list(p.units)]] = True
+    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away
+    if state.overlaps_left is not None:  # resolve-overlaps ran: the wide ones still there are those it left
+        if state.overlaps_left:
+            pos = {str(v): k for k, v in enumerate(ids.tolist())}
+            pieces = np.array([p for _, _, p in state.overlaps_left], dtype=object)
+            wide = widths(pieces, settings.tolerance) > settings.tolerance * ABOVE
+            for (i, j, _), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
+                if w:
+                    hold[[pos[f] for f in (i, j) if f in pos]] = True
+    else:
+        cov = ctx.coverage()
+        for p in cov.overlaps:
+            if p.width > cov.tol * ABOVE:
+                hold[units.rows[list(p.units)]] = True
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the cleaning is run again without
     # it, so that its neighbours are not left fitted to a version of it that is not kept
