@@ -403,3 +403,34 @@ def test_folding_reshapes_leaves_the_changes_given_untouched(tiny, tmp_path):
     assert done.area_gained == {"A": pytest.approx(500.0)} and done.area_lost == {"B": pytest.approx(500.0)}
     again = fold_reshapes(polygons.reshapes, polygons.found.changes, lines.changes, cmp.tol)
     assert [c.message for c in again.lines] == [done.message]
+
+
+@pytest.mark.parametrize("generated", [False, True])
+def test_line_drawn_from_the_polygons_explains_no_reshape(tiny, tmp_path, generated):
+    # The boundary between A and B moves 3 m west (A loses the strip 97 <= x <= 100, 300 m², to B), and a contact
+    # is added along x = 97 (the one at x = 100 stays as drawn). Drawn by a mapper, the new contact explains the
+    # strip (within twice the tolerance of it: 104 m of the strip's 206 m outline, by hand). Drawn from the polygons
+    # (field generated true, as archivist repair marks the contacts it draws), it explains nothing: the reshape is a
+    # change of its own.
+    new = variant(tiny, tmp_path)
+
+    def units(f):
+        f.loc[f["unit"] == "A", "geometry"] = box(0, 0, 97, 100)
+        f.loc[f["unit"] == "B", "geometry"] = box(97, 0, 200, 100)
+
+    def lines(f):
+        f.loc[99] = {"kind": "contact", "certainty": "inferred", "geometry": LineString([(97, 0), (97, 100)])}
+        if generated:
+            f["generated"] = [False] * (len(f) - 1) + [True]
+
+    edit_layer(new, "map.gpkg", "units", units)
+    edit_layer(new, "map.gpkg", "lines", lines)
+    report = archivist.diff(tiny, new)
+    (added,) = [c for c in report.changes if c.change == "line-added"]
+    reshaped = [c for c in report.changes if c.change == "polygon-reshaped"]
+    if generated:
+        assert not added.area_gained and not added.area_lost
+        assert sum(sum(c.area_lost.values()) for c in reshaped) == pytest.approx(300.0)  # 3 m x 100 m, by hand
+    else:
+        assert added.area_lost == {"A": pytest.approx(300.0)} and added.area_gained == {"B": pytest.approx(300.0)}
+        assert not reshaped

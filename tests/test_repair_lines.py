@@ -194,6 +194,26 @@ def test_faults_are_never_moved(tmp_path):
     assert shapely.equals(single(copy_lines(tmp_path / "out").geometry.iloc[0]), fault)
 
 
+def test_contact_ending_on_a_fault_keeps_meeting_it_and_a_second_run_changes_nothing(tmp_path):
+    # The contact runs 0.3 m east of the boundary x = 100 and ends at (100.3, 60), where a fault that is never
+    # moved starts. Snapping that end onto the boundary, (100, 60), would part it from the fault, and closing the
+    # end would put it back on the fault on the next run, for ever. By hand: the end stays at (100.3, 60), the
+    # other end goes to the boundary vertex (100, 0), 0.3 m; the line then lies within 0.3 m of the boundary.
+    contact = LineString([(100.3, 0), (100.3, 60)])
+    fault = LineString([(100.3, 60), (150, 80)])
+    project = project_with(tmp_path, ("contact", contact), ("fault", fault), ("map-boundary", FRAME))
+    only = ["snap-lines", "close-dangles"]
+    result = repair(project, tmp_path / "out", only=only)
+    lines = copy_lines(tmp_path / "out")
+    snapped, kept = single(lines.geometry.iloc[0]), single(lines.geometry.iloc[1])
+    assert shapely.get_coordinates(snapped).tolist() == [[100, 0], [100.3, 60]]
+    assert shapely.equals(kept, fault)
+    assert shapely.distance(shapely.Point(100.3, 60), kept) == 0.0  # GEOS: still meets the fault
+    assert max(c.max_shift for c in result.changes) <= 0.3 + 1e-9
+    again = repair(tmp_path / "out", tmp_path / "again", only=only)
+    assert again.changes == ()
+
+
 # ---------------------------------------------------------------- boundaries with no line
 
 def test_boundary_without_line_gets_a_generated_contact(tmp_path):

@@ -32,20 +32,19 @@ def five(tmp_path: Path, name: str = "five") -> Path:
     return square(tmp_path, FIVE, ["A", "B", "C", "D", "E"], checks={"tolerance": 0.05}, name=name)
 
 
-POLYGON_REPAIRS = ("resolve-overlaps", "fill-gaps", "snap-edges", "merge-slivers", "dissolve-same-unit")
-
-
 def test_diff_lists_exactly_the_changes_of_the_log(tmp_path):
-    # the polygon repairs alone: a contact that draw-missing-lines adds takes the reshaped polygon into its own
-    # diff entry ("Contact 3 (5 m) added; B lost 0.5 m²"), so the polygon's change is no longer listed by itself
+    # every repair on: the contacts draw-missing-lines adds along reshaped boundaries are their own entries in
+    # diff (lines marked generated explain no polygon change), as they are in the log
     project = five(tmp_path)
-    result = repair(project, tmp_path / "out", only=POLYGON_REPAIRS)
+    result = repair(project, tmp_path / "out")
     tol = 0.05
+    assert {c.repair for c in result.changes} >= {"resolve-overlaps", "merge-slivers", "draw-missing-lines"}
     # what diff can see: changes that remove a feature, or move a boundary further than the tolerance
-    removed = {f: c for c in result.changes for f in c.features_before if f not in c.features_after}
+    removed = {f: c for c in result.changes if c.layer == "units" for f in c.features_before if f not in c.features_after}
     reshaped = {c.features_before[-1] if c.repair == "resolve-overlaps" else c.features_after[0]: c
                 for c in result.changes if c.repair in ("resolve-overlaps", "fill-gaps") and c.max_shift > tol}
-    assert set(removed) == {"5"} and set(reshaped) == {"2"}
+    added = {c.features_after[0]: c for c in result.changes if c.repair == "draw-missing-lines"}
+    assert set(removed) == {"5"} and set(reshaped) == {"2"} and added
     report = diff(project, tmp_path / "out")
     polygons = [c for c in report.changes if c.layer == "units" and c.change.startswith("polygon-")]
     assert sorted(c.old_features[0] for c in polygons) == sorted(set(removed) | set(reshaped))
@@ -58,12 +57,22 @@ def test_diff_lists_exactly_the_changes_of_the_log(tmp_path):
         else:
             assert c.change == "polygon-reshaped"
             assert sum(c.area_lost.values()) == pytest.approx(reshaped[fid].area_moved)  # 0.1 m x 5 m = 0.5 m²
-    # the only other change diff names is the unit no longer mapped: E, merged away by a logged merge
-    others = [c for c in report.changes if c not in polygons]
-    assert [(c.change, c.features) for c in others] == [("unit-removed", ("E",))]
+    # each line the log adds is one line-added of diff, the same line, with no polygon area folded into it
+    lines = [c for c in report.changes if c.layer == "lines" and c.change.startswith("line-")]
+    assert sorted(c.new_features[0] for c in lines if c.change == "line-added") == sorted(added)
+    for c in lines:
+        assert c.change == "line-added" and not c.area_gained and not c.area_lost
+        assert shapely.equals(c.new_geometry, shapely.get_parts(added[c.new_features[0]].after)[0]) or shapely.equals(
+            c.new_geometry, added[c.new_features[0]].after)
+    # the only other changes diff names: the field that marks the generated lines, new with them, and the unit no
+    # longer mapped, E, merged away by a logged merge
+    others = [c for c in report.changes if c not in polygons and c not in lines]
+    assert sorted((c.layer, c.change, c.features, c.message) for c in others) == [
+        ("legend", "unit-removed", ("E",), "Unit E removed (no legend entry; was mapped in 1 polygon(s), 1.5 m²)."),
+        ("lines", "column-added", (), "lines: column 'generated' added.")]
     # every change diff does not see moved no vertex further than the tolerance
-    seen = set(removed) | set(reshaped)
-    assert all(c.max_shift <= tol for c in result.changes if not set(c.features_before) & seen)
+    seen = set(removed) | set(reshaped) | set(added)
+    assert all(c.max_shift <= tol for c in result.changes if not (set(c.features_before) | set(c.features_after)) & seen)
 
 
 def test_the_log_follows_its_schema_and_the_gpkg_holds_every_change(tmp_path):

@@ -88,18 +88,29 @@ def match_lines(cmp: Comparison) -> Found:
         x, y = point_of(shapely.line_interpolate_point(a, 0.5, normalized=True))
         changes.append(Change("line-removed", "lines", (oid,), f"{str(okind[oi] or 'line').capitalize()} {oid} ({a.length:.0f} m) removed", x, y, (oid,), (),
                               geometry=a, old_geometry=a))
+    drawn_from_polygons = generated_lines(ln.frame)
     for nj in un_n:
         if nj in renoded_n:
             continue
         b, nid = ng[nj], str(ln.ids[nj])
         x, y = point_of(shapely.line_interpolate_point(b, 0.5, normalized=True))
         changes.append(Change("line-added", "lines", (nid,), f"{str(nkind[nj] or 'line').capitalize()} {nid} ({b.length:.0f} m) added", x, y, (), (nid,),
-                              geometry=b, new_geometry=b))
+                              geometry=b, new_geometry=b, generated=bool(drawn_from_polygons[nj])))
     for oi in np.flatnonzero(~present(og)):
         changes.append(Change("line-removed", "lines", (str(lo.ids[oi]),), f"Line {lo.ids[oi]} (no geometry) removed", old_features=(str(lo.ids[oi]),)))
     for nj in np.flatnonzero(~present(ng)):
         changes.append(Change("line-added", "lines", (str(ln.ids[nj]),), f"Line {ln.ids[nj]} (no geometry) added", new_features=(str(ln.ids[nj]),)))
     return Found(changes, layer_changes)
+
+
+def generated_lines(frame: Any) -> np.ndarray:
+    """Per line: True where the field ``generated`` marks it as drawn from the polygon boundaries (by ``archivist repair``)."""
+    from ..repair.model import GENERATED_FIELD
+
+    if GENERATED_FIELD not in frame.columns:
+        return np.zeros(len(frame), dtype=bool)
+    text = frame[GENERATED_FIELD].astype(str).str.strip().str.lower()  # booleans, 0/1 or text, as the format stores them
+    return text.isin(("true", "1", "yes")).to_numpy(dtype=bool)
 
 
 def farthest_point(line: Any, other: Any) -> tuple[float | None, float | None]:

@@ -5,7 +5,10 @@ was carved from, are reshaped by that one edit. Each piece of area a reshaped
 polygon gained or lost is attached to the line change (moved, added, removed)
 or polygon change (added, removed) whose linework runs along at least half of
 the piece's boundary; that change then carries the area gained and lost per
-unit. Pieces no change explains stay as a ``polygon-reshaped`` change.
+unit. Pieces no change explains stay as a ``polygon-reshaped`` change. A
+line added with the field ``generated`` true (drawn from the polygon
+boundaries by ``archivist repair``) explains nothing: the polygons came
+first, so their reshape stays a change of its own, as the repair log lists it.
 """
 
 from __future__ import annotations
@@ -47,7 +50,8 @@ def fold_reshapes(reshapes: list[Reshape], polygon_changes: list[Change], line_c
     lines = [_copy(c) if c.change in CAUSE_LINES else c for c in line_changes]
     causes: list[tuple[Change, Any]] = []
     for c in lines:
-        if c.change in CAUSE_LINES:
+        # a line drawn from the polygon boundaries follows them: it explains no change of theirs
+        if c.change in CAUSE_LINES and not c.generated:
             parts = [g for g in (c.old_geometry, c.new_geometry) if g is not None]
             causes.append((c, shapely.union_all(parts)))
     for c in polygons:

@@ -50,6 +50,7 @@ class Change:
     new_geometry: Any = None
     old_unit: str = field(default="", repr=False)  # a recoded polygon's codes, for the unit-level changes
     new_unit: str = field(default="", repr=False)
+    generated: bool = field(default=False, repr=False)  # an added line marked as drawn from the polygons (field "generated")
 
     def to_dict(self, digits: int = 3) -> dict[str, Any]:
         """The change as the JSON object of ``schemas/diff.schema.json``.

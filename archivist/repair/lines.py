@@ -62,7 +62,7 @@ class Snapped:
     held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
 
 
-def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Snapped:
+def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None) -> Snapped:
     """Lines with every vertex within ``tol`` of the ``targets`` (lineal geometries) moved onto them.
 
     A vertex farther than ``tol`` from every target never moves. A vertex
@@ -80,8 +80,10 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Sn
     and a chain of them can walk away from the drawn line. A line whose result
     would lie farther than ``tol`` from where it was drawn (GEOS Hausdorff
     distance) is held back unchanged. The step is repeated until nothing
-    moves, so the result snapped again is the same. Works on whole arrays
-    (STRtree queries), no loop per line.
+    moves, so the result snapped again is the same. A vertex within
+    floating-point noise of a point of ``pinned`` (an (n, 2) array of
+    coordinates) never moves. Works on whole arrays (STRtree queries), no
+    loop per line.
     """
     lines = np.asarray(lines, dtype=object)
     n = len(lines)
@@ -100,13 +102,14 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float) -> Sn
     ttree = shapely.STRtree(targets)
     tv = np.unique(shapely.get_coordinates(targets), axis=0)
     vtree = shapely.STRtree(shapely.points(tv))
+    ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
     active = np.arange(len(parts))
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
-        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree)
+        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree, ptree)
         diff = ~shapely.equals_exact(moved[active], again, tolerance=eps)
         moved[active] = again
         active = active[diff]
@@ -135,13 +138,18 @@ MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one 
 
 
 def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
-                vtree: shapely.STRtree) -> np.ndarray:
-    """One round of :func:`snap_to_boundaries` on LineString parts."""
+                vtree: shapely.STRtree, ptree: shapely.STRtree | None = None) -> np.ndarray:
+    """One round of :func:`snap_to_boundaries` on LineString parts (vertices on a point of ``ptree`` stay)."""
     coords, vpart = shapely.get_coordinates(parts, return_index=True)
     coords = coords.copy()
     # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
     pts = shapely.points(coords)
     vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
+    if ptree is not None and len(vi):
+        stay = np.unique(ptree.query(pts[vi], predicate="dwithin", distance=eps)[0])
+        free = np.ones(len(vi), dtype=bool)
+        free[stay] = False
+        vi, ti = vi[free], ti[free]
     d = shapely.distance(pts[vi], targets[ti])
     if len(vi):
         # onto the nearest target vertex within tol (even from a point already on a target: a junction) ...
@@ -323,6 +331,17 @@ def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarr
 
 # ---------------------------------------------------------------- the working state as the analyses read it
 
+def unit_analyses(state: RepairState, project: MapProject, tol: float) -> tuple[Any, Any, Any]:
+    """The working units as the checks read them, their half-edges and coverage analysis (computed once while they stay)."""
+
+    def compute() -> tuple[Any, Any, Any]:
+        units = read_units(project)
+        edges = build_edges(units.geoms)
+        return units, edges, analyse_coverage(project, units, edges, tol)
+
+    return state.analysis(f"units-edges-coverage:{tol!r}", compute)
+
+
 def working_project(state: RepairState) -> MapProject:
     """The project with its units and lines replaced by the working copies (ids from ``FEATURE_ID``)."""
     project = state.project
@@ -392,38 +411,32 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     tol = float(settings.tolerance)
     project = working_project(state)
     net = build_line_network(project)
-    units = read_units(project)
+    units, edges, cov = unit_analyses(state, project, tol)
     if not len(net.geoms) or not len(units):
         return [], []
     boundaries = shapely.boundary(units.geoms)
     changes: list[Change] = []
     left: list[Left] = []
-    edges = build_edges(units.geoms)
-    cov = analyse_coverage(project, units, edges, tol)
-    for role, targets in (("contact", boundaries),
-                          ("boundary", np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object))):
-        feats = np.flatnonzero(net.roles == role)
-        if not len(feats) or not len(targets):
-            continue
-        found = snap_to_boundaries(net.geoms[feats], targets, tol)
-        worse = _farther(net.geoms[feats], found.geoms, targets, tol) & found.changed
-        found.changed[worse] = False
-        done = np.flatnonzero(found.changed)
-        rows = net.rows[feats[done]]
+    frame_edge = np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object)
+    plan = [(role, np.flatnonzero(net.roles == role), targets) for role, targets in (("contact", boundaries), ("boundary", frame_edge))]
+    plan = [(role, feats, targets) for role, feats, targets in plan if len(feats) and len(targets)]
+    final, shift, changed, held, worse = snap_network(net, [(feats, targets) for _, feats, targets in plan], tol)
+    ids = _ids(state)
+    layers = _source_layers(state)
+    for role, feats, _ in plan:
+        done = feats[changed[feats]]
+        rows = net.rows[done]
         if len(done):
-            before = net.geoms[feats[done]]
-            _set_geoms(state, rows, found.geoms[done])
+            _set_geoms(state, rows, final[done])
             onto = "unit boundaries" if role == "contact" else "map edge"
             notes = [f"vertices within {tol:g} of the {onto} moved onto it"] * len(done)
-            changes += _line_change("snap-lines", state, rows, before, found.geoms[done], found.shift[done], notes)
-        ids = _ids(state)
-        layers = _source_layers(state)
-        for f in feats[np.flatnonzero(found.held)]:
+            changes += _line_change("snap-lines", state, rows, net.geoms[done], final[done], shift[done], notes)
+        for f in feats[held[feats]]:
             r = int(net.rows[f])
             left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
                              f"snapping it onto the boundary would move it more than the tolerance ({tol:g}) from where it was drawn",
                              net.geoms[f], 0.0))
-        for f in feats[np.flatnonzero(worse)]:
+        for f in feats[worse[feats]]:
             r = int(net.rows[f])
             left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
                              "snapping its vertices would leave part of it farther from the unit boundaries than it was drawn",
@@ -431,28 +444,135 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     return changes, left
 
 
+MAX_JOIN_ROUNDS = 8  # rounds of holding line ends where lines meet; each round only adds to what is held
+
+
+def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], tol: float
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The network's features of each ``(features, targets)`` of ``plan`` snapped, lines that meet kept meeting.
+
+    Each group of features is snapped onto its targets by
+    :func:`snap_to_boundaries`; a snap that would leave part of a line
+    farther from its targets than drawn (:func:`_farther`) is not made. Where
+    the end of a snapped line touches another line (within floating-point
+    noise: a shared vertex, or an end closed onto it), the snapped end must
+    still touch that line as snapped (or as drawn, when it does not move: a
+    fault, a line held back): otherwise the end stays where it is (pinned),
+    and if it still comes apart (the other line's segment moves under it)
+    both lines keep their drawn geometry. Without this, snapping would open
+    the junction and ``close-dangles`` would close it again, on every run.
+
+    Returns per network feature: its geometry after, the distance it moved,
+    whether it changed, whether it was held back (too far) and whether the
+    snap was refused as farther from the targets.
+    """
+    n = len(net.geoms)
+    final = np.array(net.geoms, dtype=object, copy=True)
+    shift, changed = np.zeros(n), np.zeros(n, dtype=bool)
+    held, worse = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
+    snapped = np.zeros(n, dtype=bool)
+    for feats, _ in plan:
+        snapped[feats] = True
+    if not snapped.any():
+        return final, shift, changed, held, worse
+    eps = noise(net.geoms)
+    # the ends of the snapped lines that touch another line: (end k, other feature g)
+    parts = np.flatnonzero(snapped[net.part_feat])
+    ends = np.r_[net.part_off[parts], net.part_off[parts + 1] - 1]
+    owner = np.r_[net.part_feat[parts], net.part_feat[parts]]
+    old = net.coords[ends]
+    ki, g = net.tree.query(shapely.points(old), predicate="dwithin", distance=eps) if len(ends) else (np.empty(0, dtype=np.int64),) * 2
+    other = g != owner[ki]
+    ki, g = ki[other], g[other]
+    pinned = np.zeros(len(ends), dtype=bool)
+    frozen = np.zeros(n, dtype=bool)
+    todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
+    for _ in range(MAX_JOIN_ROUNDS):
+        final[todo] = net.geoms[todo]
+        shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
+        for feats, targets in plan:
+            f = feats[todo[feats] & ~frozen[feats]]
+            if not len(f):
+                continue
+            found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned])
+            w = _farther(net.geoms[f], found.geoms, targets, tol) & found.changed
+            ok = found.changed & ~w
+            final[f[ok]] = found.geoms[ok]
+            shift[f[ok]] = found.shift[ok]
+            changed[f[ok]] = True
+            held[f[found.held]] = True
+            worse[f[w]] = True
+        if not len(ki):
+            break
+        moved = changed[owner[ki]] | changed[g]
+        if not moved.any():
+            break
+        sel = np.flatnonzero(moved)
+        new_end = _nearest_ends(final, owner[ki[sel]], old[ki[sel]])
+        apart = shapely.distance(shapely.points(new_end), final[g[sel]]) > eps
+        if not apart.any():
+            break
+        bad_k, bad_g = ki[sel[apart]], g[sel[apart]]
+        again = pinned[bad_k]
+        frozen[owner[bad_k[again]]] = True  # pinned and still apart: the other line moves under it
+        gone = bad_g[again]
+        frozen[gone[snapped[gone]]] = True
+        pinned[bad_k] = True
+        todo = np.zeros(n, dtype=bool)
+        todo[owner[bad_k]] = True
+        todo[bad_g] = True
+        # every line with a vertex on a newly pinned point is snapped again with it held
+        hit = net.tree.query(shapely.points(old[bad_k]), predicate="dwithin", distance=eps)[1]
+        todo[hit] = True
+        todo &= snapped
+    return final, shift, changed, held, worse
+
+
+def _nearest_ends(geoms: np.ndarray, feat: np.ndarray, near: np.ndarray) -> np.ndarray:
+    """For each i, the end point of a part of ``geoms[feat[i]]`` nearest to ``near[i]`` (coordinates)."""
+    parts, owner = shapely.get_parts(geoms[feat], return_index=True)
+    ends = np.concatenate([shapely.get_coordinates(shapely.get_point(parts, 0)), shapely.get_coordinates(shapely.get_point(parts, -1))])
+    who = np.r_[owner, owner]
+    d = np.hypot(*(ends - near[who]).T)
+    o = np.lexsort((d, who))
+    first = o[np.r_[True, who[o][1:] != who[o][:-1]]]
+    out = np.array(near, dtype=float, copy=True)
+    out[who[first]] = ends[first]
+    return out
+
+
 def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
     """Per line: True when the snapped line strays farther from ``targets`` than the line as drawn.
 
     The farthest any point of a line lies from the targets, measured on the
-    line densified to a quarter of the tolerance (GEOS distances, whole arrays);
-    a snap that makes it larger would trade a line along the boundary for one
-    that cuts across a bend, so it is not made.
+    line densified to a quarter of the tolerance (GEOS distances to the
+    nearest target through an STRtree, whole arrays); a snap that makes it
+    larger would trade a line along the boundary for one that cuts across a
+    bend, so it is not made. Lines equal before and after are not measured.
     """
-    if not len(before):
-        return np.zeros(0, dtype=bool)
-    net = shapely.union_all(targets)
-    shapely.prepare(net)
+    out = np.zeros(len(before), dtype=bool)
+    if not len(before) or not len(targets):
+        return out
+    moved = np.flatnonzero(~shapely.equals_exact(before, after, tolerance=0.0))
+    if not len(moved):
+        return out
+    # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
+    xy, part = shapely.get_coordinates(shapely.get_parts(targets), return_index=True)
+    same = part[1:] == part[:-1]
+    segs = shapely.linestrings(np.stack([xy[:-1][same], xy[1:][same]], axis=1)) if same.any() else targets
+    tree = shapely.STRtree(segs)
     step = max(tol / 4.0, 1e-9)
 
     def reach(lines: np.ndarray) -> np.ndarray:
         xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
-        d = shapely.distance(shapely.points(xy), net)
-        out = np.zeros(len(lines))
-        np.maximum.at(out, idx, d)
-        return out
+        far = np.zeros(len(lines))
+        if len(xy):
+            (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+            np.maximum.at(far, idx[who], d)
+        return far
 
-    return reach(after) > reach(before) + 1e-9
+    out[moved] = reach(after[moved]) > reach(before[moved]) + 1e-9
+    return out
 
 
 def _ids(state: RepairState) -> np.ndarray:
@@ -503,10 +623,9 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     rest = loose_ends(after_net, ("contact", "boundary"), tol)
     left: list[Left] = []
     far = ~rest.near_line
-    units = read_units(project) if state.units is not None and len(state.units) else None
-    if units is not None and len(units) and far.any():
-        cov = analyse_coverage(project, units, build_edges(units.geoms), tol)
-        if cov.extent is not None:  # an end at the map edge is connected (line-dangle reads it so)
+    if state.units is not None and len(state.units) and far.any():
+        units, _, cov = unit_analyses(state, project, tol)
+        if len(units) and cov.extent is not None:  # an end at the map edge is connected (line-dangle reads it so)
             far &= ~shapely.dwithin(rest.points, cov.extent_boundary, tol)
     if far.any():
         ids, layers = _ids(state), _source_layers(state)
@@ -553,11 +672,9 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     tol = float(settings.tolerance)
     project = working_project(state)
     net = build_line_network(project)
-    units = read_units(project)
+    units, edges, cov = unit_analyses(state, project, tol)
     if not len(units):
         return [], []
-    edges = build_edges(units.geoms)
-    cov = analyse_coverage(project, units, edges, tol)
     drawn = net.edges_drawn(net.match(edges), len(edges))
     found = undrawn_boundaries(units, edges, cov.outline, drawn, net, tol)
     if found is None:

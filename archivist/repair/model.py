@@ -20,13 +20,15 @@ to, ``lines``, ``faults``...).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Callable, TypeVar, cast
 
 if TYPE_CHECKING:
     import geopandas as gpd
 
     from ..project import CheckConfig, MapProject
     from ..vocab.ages import AgeSpan
+
+T = TypeVar("T")
 
 FEATURE_ID = "_repair_id"  # column of every working frame: the feature id as text
 SOURCE_LAYER = "_repair_layer"  # column of the line frame: the mapper's own line layer of each line
@@ -147,6 +149,20 @@ class RepairState:
     ages: dict[str, AgeSpan] = field(default_factory=dict)
     extent: Any = None  # shapely polygon or None
     _counter: dict[str, int] = field(default_factory=dict)
+    # analyses of the working units, each kept with the units frame it was computed from (a repair that changes
+    # the units puts a new frame in place, so a later repair recomputes what it needs; the line repairs share one)
+    analyses: dict[str, tuple[Any, Any]] = field(default_factory=dict)
+    # the overlaps resolve-overlaps saw and left (ids of the two polygons, the piece); None when it did not run
+    overlaps_left: list[tuple[str, str, Any]] | None = None
+
+    def analysis(self, key: str, compute: Callable[[], T]) -> T:
+        """``compute()`` once for the current working units; the same value until a repair replaces them."""
+        hit = self.analyses.get(key)
+        if hit is not None and hit[0] is self.units:
+            return cast(T, hit[1])
+        value = compute()
+        self.analyses[key] = (self.units, value)
+        return value
 
     @property
     def tolerance(self) -> float:

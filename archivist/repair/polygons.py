@@ -153,7 +153,10 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     larger polygon), ``younger`` or ``older`` (by the legend's ages, read by
     :mod:`archivist.vocab.ages`: a younger intrusion or superficial deposit
     usually overprints, common practice); where the ages are unknown or
-    equal, the longest border decides and the log says so.
+    equal, the longest border decides and the log says so. Where cutting
+    the piece out of the chosen polygon would move its boundary further than
+    the snapping distance (``[checks] tolerance``) and cutting it out of the
+    other would not, the other gives it up (the log says so).
 
     Threshold: pieces larger than ``[repair] overlap_max_area_mm2`` at map
     scale (default 1 mm², the sliver area of ``[checks]``: our own choice)
@@ -166,6 +169,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     ctx = _context(state)
     units = ctx.units()
     cov = ctx.coverage()
+    state.overlaps_left = []
     if not cov.overlaps:
         return [], []
     geoms = _geoms(state)
@@ -182,10 +186,20 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
                  (f"an overlap of {ar:.2f} m², larger than the {settings.overlap_max_area:.2f} m² a repair may give away"
                   if not w else "one polygon lies wholly inside the other"), p, float(ar))
             for i, j, p, ar, w in zip(a[~small], b[~small], pieces[~small], area[~small], whole[~small])]
+    state.overlaps_left += [(str(ids[i]), str(ids[j]), p) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
     a, b, pieces, area = a[small], b[small], pieces[small], area[small]
     if not len(a):
         return [], left
     keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps)
+    # where cutting the piece out of the polygon the rule chose would move its boundary further than the snapping
+    # distance (a piece reaching into a corner where three polygons meet) and cutting it out of the other would
+    # not, the other gives it up: the move stays within the snapping distance wherever one of the two can
+    reach = settings.tolerance * ABOVE
+    far_a = _shift(geoms[a], shapely.difference(geoms[a], pieces)) > reach
+    far_b = _shift(geoms[b], shapely.difference(geoms[b], pieces)) > reach
+    flip = np.where(keep_a, far_b & ~far_a, far_a & ~far_b)
+    keep_a = keep_a ^ flip
+    why = [f"{w}; the other would move further than the snapping distance" if f else w for w, f in zip(why, flip)]
     winner, loser = np.where(keep_a, a, b), np.where(keep_a, b, a)
     order = np.argsort(loser, kind="stable")
     new = geoms.copy()
@@ -193,11 +207,14 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     failed = np.zeros(len(loser), dtype=bool)
     for lo, group in zip(losers, np.split(order, starts[1:])):  # one per polygon losing area
         try:
-            new[lo] = shapely.difference(new[lo], shapely.union_all(pieces[group]))
+            cut = shapely.difference(new[lo], shapely.union_all(pieces[group]))
         except GEOSException as exc:  # left as it is, and said so; snapping may still resolve a thin one
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
+            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k]) for k in group.tolist()]
+            continue
+        new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
     empty = shapely.is_empty(new)
     _set(state, new, ~empty)
@@ -265,27 +282,38 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
     # the part of the gap within the gap width of it, the next the part of the rest within the gap width of
     # it, and so on, so no polygon's boundary moves further than the gap width; what no neighbour reaches
-    # (a part along the map edge) goes to the first. A gap along one polygon goes to it whole.
+    # (a corner along the map edge) is left and listed. A gap along one polygon goes to it whole.
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
-    reach = settings.gap_width * ABOVE
+    reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
     pieces: list[tuple[int, Any, int]] = []  # (polygon, piece, gap)
     for g in np.unique(gi):  # one per gap filled
         nbrs = ui[gi == g]
+        if len(nbrs) == 1:
+            pieces.append((int(nbrs[0]), gaps[g], int(g)))
+            continue
         rest = gaps[g]
         for n in nbrs.tolist():
-            if len(nbrs) == 1:
-                part, rest = rest, None
-            else:
-                part = shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4))
-                rest = shapely.difference(rest, part)
-            if part is not None and shapely.area(part) > 0:
+            near = shapely.get_parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
+            near = near[shapely.area(near) > 0]
+            # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
+            # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
+            near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
+            if len(near):
+                part = shapely.union_all(near)
                 pieces.append((n, part, int(g)))
-            if rest is None or shapely.area(rest) <= 0:
+                rest = shapely.difference(rest, part)
+            if shapely.area(rest) <= 0:
                 break
         else:
-            if rest is not None and shapely.area(rest) > 0:
-                pieces.append((int(nbrs[0]), rest, int(g)))
+            # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
+            # and not a polygon bounds it) stays: giving it to one would move that polygon further
+            parts = shapely.get_parts(rest)
+            parts = parts[shapely.area(parts) > 0]
+            if len(parts):
+                around = tuple(str(ids[k]) for k in nbrs)
+                left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
+                                 "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
     target = np.array([t for t, _, _ in pieces], dtype=np.int64)
     parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
@@ -347,36 +375,60 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
     if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
         return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
-    cov = ctx.coverage()
-    for p in cov.overlaps:  # overlaps still there were left for the geologist (or their repair was skipped)
-        if p.width > cov.tol * ABOVE:
-            hold[units.rows[list(p.units)]] = True
-    sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
-    work = geoms[sel]
+    refused: dict[int, float] = {}
+    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away
+    if state.overlaps_left is not None:  # resolve-overlaps ran: the wide ones still there are those it left
+        if state.overlaps_left:
+            pos = {str(v): k for k, v in enumerate(ids.tolist())}
+            pieces = np.array([p for _, _, p in state.overlaps_left], dtype=object)
+            wide = widths(pieces, settings.tolerance) > settings.tolerance * ABOVE
+            for (i, j, _), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
+                if w:
+                    hold[[pos[f] for f in (i, j) if f in pos]] = True
+    else:
+        cov = ctx.coverage()
+        for p in cov.overlaps:
+            if p.width > cov.tol * ABOVE:
+                hold[units.rows[list(p.units)]] = True
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
-    order = np.arange(len(work))
-    if strategy == "min_index":
-        age = _age_rank(state, codes[sel])
-        key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
-        order = np.argsort(key, kind="stable")
-    cleaned = np.empty(len(work), dtype=object)
-    cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
-                                            merge_strategy=strategy)
-    same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
-    moved = _shift(work, cleaned)
-    too_far = moved > settings.tolerance * ABOVE
-    lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+    # a polygon GEOS would move too far keeps its input and is cleaned no more: the cleaning is run again without
+    # it, so that its neighbours are not left fitted to a version of it that is not kept
+    for _ in range(MAX_CLEAN_ROUNDS):
+        sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
+        work = geoms[sel]
+        order = np.arange(len(work))
+        if strategy == "min_index":
+            age = _age_rank(state, codes[sel])
+            key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
+            order = np.argsort(key, kind="stable")
+        cleaned = np.empty(len(work), dtype=object)
+        cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
+                                                merge_strategy=strategy)
+        same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+        moved = _shift(work, cleaned)
+        too_far = moved > settings.tolerance * ABOVE
+        lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        bad = (too_far | lost) & ~same
+        if not bad.any():
+            break
+        hold[sel[bad]] = True
+        refused.update({int(k): float(m) for k, m in zip(sel[bad], moved[bad])})
+    else:
+        same = np.ones(len(work), dtype=bool)  # still moving too far after every round: nothing is cleaned
     take = ~same & ~too_far & ~lost
     new = geoms.copy()
     new[sel[take]] = cleaned[take]
     _set(state, new)
     left = [Left("snap-edges", "units", (str(ids[k]),), f"snapping would move it by {m:.3f} m, more than the snapping distance",
-                 geoms[k], float(m)) for k, m in zip(sel[(too_far | lost) & ~same], moved[(too_far | lost) & ~same])]
+                 geoms[k], float(m)) for k, m in refused.items()]
     area_change = np.abs(shapely.area(cleaned[take]) - shapely.area(work[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'")
                for k, ar, m in zip(sel[take], area_change, moved[take])]
     return changes, left
+
+
+MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
 def _single(geoms: np.ndarray) -> np.ndarray:
