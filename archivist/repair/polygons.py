@@ -27,6 +27,7 @@ from shapely.errors import GEOSException
 
 from ..analysis.arrays import widths
 from ..analysis.context import CheckContext
+from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
 from ..analysis.polygons import polygonal
 from ..project import Layer
@@ -87,6 +88,20 @@ def _eps(geoms: np.ndarray) -> float:
         return 1e-9
     b = shapely.total_bounds(geoms[~shapely.is_missing(geoms)])
     return 1e-12 * max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
+
+
+def _far_if_cut(polys: np.ndarray, pieces: np.ndarray, reach: float) -> np.ndarray:
+    """Whether cutting each piece out of its polygon would move the boundary further than ``reach``.
+
+    A cut GEOS cannot make (a robustness failure on degenerate input) counts
+    as too far, so the piece goes to the other polygon where that one can be
+    cut; where neither can, the cut below fails and the overlap is listed.
+    """
+    cut, failed, _ = elementwise(shapely.difference, polys, pieces)
+    far = np.ones(len(polys), dtype=bool)
+    ok = ~failed
+    far[ok] = _shift(polys[ok], cut[ok]) > reach
+    return far
 
 
 def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
@@ -195,8 +210,8 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     # distance (a piece reaching into a corner where three polygons meet) and cutting it out of the other would
     # not, the other gives it up: the move stays within the snapping distance wherever one of the two can
     reach = settings.tolerance * ABOVE
-    far_a = _shift(geoms[a], shapely.difference(geoms[a], pieces)) > reach
-    far_b = _shift(geoms[b], shapely.difference(geoms[b], pieces)) > reach
+    far_a = _far_if_cut(geoms[a], pieces, reach)
+    far_b = _far_if_cut(geoms[b], pieces, reach)
     flip = np.where(keep_a, far_b & ~far_a, far_a & ~far_b)
     keep_a = keep_a ^ flip
     why = [f"{w}; the other would move further than the snapping distance" if f else w for w, f in zip(why, flip)]
