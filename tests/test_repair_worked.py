@@ -185,8 +185,9 @@ def test_overlap_whose_cut_geos_cannot_make_on_one_side_goes_to_the_other(tmp_pa
     # GEOS may stop on one polygon of an overlap ("TopologyException: found non-noded intersection", met on a
     # generated 10^5-polygon map). Simulated here: cutting anything out of A = [0, 5.1] x [0, 10] fails. The
     # overlap of 1.00 m² (by hand) must still be resolved from B's side, as "larger" says, and the run go on.
-    import archivist.repair.polygons as repair_polygons
     from shapely.errors import GEOSException
+
+    import archivist.repair.polygons as repair_polygons
 
     a_square = box(0, 0, 5.1, 10)
     real = shapely.difference
