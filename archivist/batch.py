@@ -115,6 +115,7 @@ def check_folder(
     rules: Iterable[str] = (),
     strict: bool = False,
     progress: Progress | None = None,
+    jobs: int = 1,
 ) -> FolderReport:
     """Check every project below the folder ``path``, each on its own.
 
@@ -127,6 +128,9 @@ def check_folder(
     ------
     ArchivistError
         ``path`` holds no project, or ``only``/``rules`` name an unknown family or rule.
+
+    ``jobs`` is :func:`archivist.engine.check`'s: threads for each project's
+    check in turn (0: every core).
     """
     from . import engine
     from .project import load_project
@@ -148,7 +152,7 @@ def check_folder(
         try:
             with progress.step(f"project {name}"):
                 project = load_project(folder, progress=progress)
-                report = engine.check(project, only=only, rules=rules, progress=progress)
+                report = engine.check(project, only=only, rules=rules, progress=progress, jobs=jobs)
         except ArchivistError as exc:
             runs.append(ProjectRun(name, folder, None, str(exc), exc.exit_code if exc.exit_code else 2))
             continue

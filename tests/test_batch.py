@@ -109,3 +109,22 @@ def test_one_project_folder_is_not_a_folder_of_projects(tmp_path):
     maps = two_projects(tmp_path)
     assert project_folders(maps / "north") == []
     assert project_folders(maps / "north" / "archivist.toml") == []
+
+
+def test_jobs_reach_each_project_of_a_folder(tmp_path, monkeypatch):
+    # --jobs is passed to each project's check in turn (it was dropped for a folder of projects)
+    import archivist.engine as engine
+
+    maps = two_projects(tmp_path)
+    seen: list[int] = []
+    real = engine.check
+
+    def check(project, **kwargs):
+        seen.append(kwargs.get("jobs", 1))
+        return real(project, **kwargs)
+
+    monkeypatch.setattr(engine, "check", check)
+    one = run("check", maps, "--jobs", "1")
+    two = run("check", maps, "--jobs", "2")
+    assert seen == [1, 1, 2, 2]
+    assert one.exit_code == two.exit_code == 1 and one.output == two.output  # the same reports whatever the threads

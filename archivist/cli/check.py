@@ -76,7 +76,8 @@ def check_command(path: Path, fmt: str, output: Path | None, strict: bool, only:
             raise ArchivistError(f"{path}: a folder of map projects; --scheduler checks one project: give its folder")
         from .folder import check_folder_run
 
-        sys.exit(check_folder_run(path, fmt, output, strict, only, rules, force, html_out, gpkg_out, quiet, verbose))
+        sys.exit(check_folder_run(path, fmt, output, strict, only, rules, force, html_out, gpkg_out, quiet, verbose,
+                                     0 if jobs is None else jobs))
     from .. import engine
     from ..fsutil import guard_outputs
     from ..manifest import find_manifest

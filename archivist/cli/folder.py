@@ -8,7 +8,8 @@ import click
 
 
 def check_folder_run(path: Path, fmt: str, output: Path | None, strict: bool, only: tuple[str, ...], rules: tuple[str, ...],
-                     force: bool, html_out: Path | None, gpkg_out: Path | None, quiet: bool, verbose: bool) -> int:
+                     force: bool, html_out: Path | None, gpkg_out: Path | None, quiet: bool, verbose: bool,
+                     jobs: int = 0) -> int:
     """Check every project below ``path``, print (or write to ``output``) their reports and the summary; the exit code."""
     from ..batch import check_folder, project_folders, render_folder_json, render_folder_text
     from ..errors import ArchivistError
@@ -20,7 +21,7 @@ def check_folder_run(path: Path, fmt: str, output: Path | None, strict: bool, on
             raise ArchivistError(f"{path}: a folder of map projects; {flag} draws one project's map: give it one project folder")
     guard_outputs([(output, "--output")], force=force, project_roots=[*project_folders(path)])
     with progress_for(quiet, verbose) as progress:
-        result = check_folder(path, only=only, rules=rules, strict=strict, progress=progress)
+        result = check_folder(path, only=only, rules=rules, strict=strict, progress=progress, jobs=jobs)
     text = render_folder_json(result) if fmt == "json" else render_folder_text(result)
     if output is not None:
         atomic_write_text(output, text)
