@@ -30,7 +30,7 @@ import numpy as np
 import pyogrio
 import shapely
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
@@ -110,6 +110,9 @@ def broken(n: int, seed: int, grow: float, shrink: float, nudge: float):
 @settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(n=st.integers(12, 40), seed=st.integers(0, 10_000), grow=st.floats(0.05, 0.9), shrink=st.floats(0.05, 0.9),
        nudge=st.floats(0.01, 0.6))
+# a thin leftover of a gap, past the reach of the shrunk polygon, lying along one neighbour and touching another
+# at its end: it must go to the one it lies along, or snapping folds the spike away by more than the tolerance
+@example(n=12, seed=1, grow=0.5, shrink=0.8087160013133655, nudge=0.5)
 def test_repair_bounds_on_generated_maps(tmp_path_factory, n, seed, grow, shrink, nudge):
     tmp = tmp_path_factory.mktemp("bounds")
     smap = broken(n, seed, grow, shrink, nudge)

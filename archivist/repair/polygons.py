@@ -280,9 +280,10 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     if not len(gi):
         return [], left
     # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
-    # the part of the gap within the gap width of it, the next the part of the rest within the gap width of
-    # it, and so on, so no polygon's boundary moves further than the gap width; what no neighbour reaches
-    # (a corner along the map edge) is left and listed. A gap along one polygon goes to it whole.
+    # the part of the gap within the gap width of it, and each part of the rest goes the same way among the
+    # others (ranked by their border with that part), so no polygon's boundary moves further than the gap width;
+    # what no neighbour reaches (a corner along the map edge) is left and listed. A gap along one polygon goes
+    # to it whole.
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
     reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
@@ -292,28 +293,39 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
         if len(nbrs) == 1:
             pieces.append((int(nbrs[0]), gaps[g], int(g)))
             continue
-        rest = gaps[g]
-        for n in nbrs.tolist():
-            near = shapely.get_parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
-            near = near[shapely.area(near) > 0]
-            # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
-            # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
-            near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
-            if len(near):
-                part = shapely.union_all(near)
-                pieces.append((n, part, int(g)))
-                rest = shapely.difference(rest, part)
-            if shapely.area(rest) <= 0:
-                break
-        else:
-            # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
-            # and not a polygon bounds it) stays: giving it to one would move that polygon further
-            parts = shapely.get_parts(rest)
-            parts = parts[shapely.area(parts) > 0]
-            if len(parts):
-                around = tuple(str(ids[k]) for k in nbrs)
-                left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
-                                 "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
+        # the neighbour with the longest border along the whole gap takes what is within reach of it; each part of
+        # the rest then goes by the same rule on its own (the neighbour with the longest border along that part):
+        # ranked by the whole gap instead, a neighbour the part merely touches at its end would take a thin part
+        # lying along another one, a spike that snapping then folds away further than the snapping distance
+        first = int(nbrs[0])
+        rest = _take(gaps[g], first, geoms, reach, eps, pieces, int(g))
+        unreached = []
+        others = nbrs[1:]
+        for part in _parts(rest).tolist():  # one per piece of a gap the first neighbour does not reach
+            if not len(others):
+                unreached.append(part)
+                continue
+            ranked = others[np.lexsort((others, -_border(np.full(len(others), part, dtype=object), geoms[others], eps)))]
+            for n in ranked.tolist():
+                part = _take(part, n, geoms, reach, eps, pieces, int(g))
+                if shapely.area(part) <= 0:
+                    break
+            else:
+                unreached.append(part)
+        # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
+        # and not a polygon bounds it) stays: giving it to one would move that polygon further
+        parts = _parts(shapely.union_all(unreached)) if unreached else np.zeros(0, dtype=object)
+        if len(parts):
+            around = tuple(str(ids[k]) for k in nbrs)
+            left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
+                             "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
+    if not pieces:
+        return [], left
+    # one piece per polygon and gap (the parts of one gap a polygon took, joined)
+    joined: dict[tuple[int, int], list[Any]] = {}
+    for t, p, g in pieces:
+        joined.setdefault((t, g), []).append(p)
+    pieces = [(t, ps[0] if len(ps) == 1 else shapely.union_all(ps), g) for (t, g), ps in joined.items()]
     target = np.array([t for t, _, _ in pieces], dtype=np.int64)
     parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
@@ -335,6 +347,25 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
                       None, p, f"gap {g + 1} of this run given to the neighbour with the longest shared border within the gap width")
                for t, p, mv, g in zip(target, parts, moved, (g for _, _, g in pieces))]
     return changes, left
+
+
+def _parts(geom: Any) -> np.ndarray:
+    """The parts of ``geom`` with some area."""
+    parts = shapely.get_parts(geom)
+    return parts[shapely.area(parts) > 0]
+
+
+def _take(rest: Any, n: int, geoms: np.ndarray, reach: float, eps: float, pieces: list[tuple[int, Any, int]], g: int) -> Any:
+    """Give polygon ``n`` the parts of ``rest`` within ``reach`` of it that run along it (appended to ``pieces``); what remains."""
+    near = _parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
+    # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
+    # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
+    near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
+    if not len(near):
+        return rest
+    part = shapely.union_all(near)
+    pieces.append((n, part, g))
+    return shapely.difference(rest, part)
 
 
 # ---------------------------------------------------------------- snapping
