@@ -186,7 +186,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
                  (f"an overlap of {ar:.2f} m², larger than the {settings.overlap_max_area:.2f} m² a repair may give away"
                   if not w else "one polygon lies wholly inside the other"), p, float(ar))
             for i, j, p, ar, w in zip(a[~small], b[~small], pieces[~small], area[~small], whole[~small])]
-    state.overlaps_left += [(str(ids[i]), str(ids[j]), p) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
+    state.overlaps_left += [(str(ids[i]), str(ids[j]), p, True) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
     a, b, pieces, area = a[small], b[small], pieces[small], area[small]
     if not len(a):
         return [], left
@@ -212,7 +212,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
-            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k]) for k in group.tolist()]
+            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k], False) for k in group.tolist()]
             continue
         new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
@@ -407,15 +407,41 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
         return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
     refused: dict[int, float] = {}
-    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away
-    if state.overlaps_left is not None:  # resolve-overlaps ran: the wide ones still there are those it left
+    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
+    # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
+    # for the cleaning and given back to it afterwards, however thin it is: the overlap stays as it was listed and
+    # every other edge of both polygons is still cleaned. One that cannot be cut out that way (a polygon wholly
+    # inside the other, a GEOS failure) holds both polygons out of the cleaning, as does a wide one GEOS failed to
+    # cut (snapping may still resolve a thin one).
+    base = geoms.copy()
+    put_back: dict[int, Any] = {}
+    if state.overlaps_left is not None:  # resolve-overlaps ran: the overlaps still there are those it left
         if state.overlaps_left:
             pos = {str(v): k for k, v in enumerate(ids.tolist())}
-            pieces = np.array([p for _, _, p in state.overlaps_left], dtype=object)
-            wide = widths(pieces, settings.tolerance) > settings.tolerance * ABOVE
-            for (i, j, _), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
-                if w:
-                    hold[[pos[f] for f in (i, j) if f in pos]] = True
+            pieces = np.array([p for _, _, p, _ in state.overlaps_left], dtype=object)
+            firm = np.array([f for _, _, _, f in state.overlaps_left], dtype=bool)
+            wide = np.zeros(len(firm), dtype=bool)
+            if (~firm).any():
+                wide[~firm] = widths(pieces[~firm], settings.tolerance) > settings.tolerance * ABOVE
+            cut: dict[int, list[Any]] = {}
+            for (i, j, piece, f), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
+                both = [pos[x] for x in (i, j) if x in pos]
+                if f and len(both) == 2:
+                    cut.setdefault(both[1], []).append(piece)
+                elif w or f:
+                    hold[both] = True
+            for k, ps in cut.items():  # one per polygon with an overlap left for the geologist
+                try:
+                    back = shapely.union_all(ps)
+                    rest = shapely.difference(geoms[k], back)
+                except GEOSException:
+                    rest = None
+                if rest is None or shapely.is_empty(rest) or shapely.area(rest) <= 0:
+                    hold[k] = True
+                    hold[[pos[x] for i, j, _, f in state.overlaps_left if f and pos.get(j) == k for x in (i, j) if x in pos]] = True
+                    continue
+                base[k] = rest
+                put_back[k] = back
     else:
         cov = ctx.coverage()
         for p in cov.overlaps:
@@ -428,13 +454,22 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
         work = geoms[sel]
         order = np.arange(len(work))
+        back = [(n, put_back[k]) for n, k in enumerate(sel.tolist()) if k in put_back]
         if strategy == "min_index":
             age = _age_rank(state, codes[sel])
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
             order = np.argsort(key, kind="stable")
         cleaned = np.empty(len(work), dtype=object)
-        cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
+        cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
                                                 merge_strategy=strategy)
+        for n, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+            try:
+                cleaned[n] = shapely.union(cleaned[n], piece)
+                if shapely.equals(cleaned[n], work[n]):  # nothing else changed: the input as it was (its vertices)
+                    cleaned[n] = work[n]
+            except GEOSException:
+                cleaned[n] = work[n]
+        cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
         moved = _shift(work, cleaned)
         too_far = moved > settings.tolerance * ABOVE
