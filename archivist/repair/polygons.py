@@ -388,10 +388,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     distance is a step of its noding, not a bound on any vertex's move, so
     every polygon is compared with its input (Hausdorff distance of the
     boundaries) and one that would move further than the distance keeps its
-    input geometry and is listed; polygons in an overlap left for the
-    geologist are kept out of the cleaning (GEOS would give the overlap
-    away); a polygon whose only difference is where its rings start or
-    their orientation is not a change.
+    input geometry and is listed; an overlap left for the geologist is
+    kept as it is (GEOS would give it away): it is cut out of one of its
+    two polygons for the cleaning and given back afterwards, or, where that
+    cannot be done (one polygon wholly inside the other), both polygons are
+    kept out of the cleaning; a polygon whose only difference is where its
+    rings start or their orientation is not a change.
     Never: it does not move a vertex further than the snapping distance.
     """
     if state.units is None or not len(state.units):
