@@ -106,6 +106,7 @@ def test_thin_overlap_above_the_limit_is_left_by_every_repair(tmp_path):
     assert len(left) == 1 and left[0].measure == pytest.approx(0.5) and left[0].features == ("1", "2")
     assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.5, 50.0])
     assert result.after.get("unit-overlap", 0) + result.after.get("unit-edge-mismatch", 0) >= 1
+    assert repair(tmp_path / "out", tmp_path / "again").changes == ()
 
 def test_gap_strip_of_20_cm_goes_to_a_neighbour(tmp_path):
     # A = [0, 4.8] x [0, 10], B = [5, 10] x [0, 10]: a strip 0.2 m x 10 m = 2.00 m² (by hand), 0.2 m wide.
