@@ -282,3 +282,53 @@ def test_repaired_copy_has_no_linework_finding_of_the_repaired_kinds(tmp_path):
     assert all(c.max_shift <= 1.0 for c in result.changes if c.layer != "units")
     assert not REPAIRED & set(rules(out))
     assert repair(out, tmp_path / "again").changes == ()  # idempotent
+
+
+def _farthest_whole_lines(before, after, targets, tol):
+    """The farther-than-drawn test measured on every densified point of the whole lines (GEOS segmentize and
+    nearest-segment distances), the measurement ``_farther`` must agree with."""
+    out = np.zeros(len(before), dtype=bool)
+    moved = np.flatnonzero(~shapely.equals_exact(before, after, tolerance=0.0))
+    xy, part = shapely.get_coordinates(shapely.get_parts(targets), return_index=True)
+    same = part[1:] == part[:-1]
+    tree = shapely.STRtree(shapely.linestrings(np.stack([xy[:-1][same], xy[1:][same]], axis=1)))
+
+    def reach(lines):
+        xy, idx = shapely.get_coordinates(shapely.segmentize(lines, tol / 4), return_index=True)
+        far = np.zeros(len(lines))
+        (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+        np.maximum.at(far, idx[who], d)
+        return far
+
+    out[moved] = reach(after[moved]) > reach(before[moved]) + 1e-9
+    return out
+
+
+def test_farther_than_drawn_agrees_with_the_whole_lines_densified():
+    # lines snapped part-way onto GEOS Voronoi cell boundaries (some vertices onto the nearest boundary point, some
+    # moved at random, a few lines redrawn with other vertices): measuring only the segments that moved, and the
+    # ends where they decide, gives the answer of every densified point of the whole lines
+    from archivist.repair.lines import _farther
+
+    rng = np.random.default_rng(7)
+    cells = shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 100, (40, 2))), extend_to=box(0, 0, 100, 100))
+    targets = np.array(shapely.get_parts(shapely.boundary(shapely.get_parts(cells))), dtype=object)
+    edge = shapely.union_all(targets)
+    farther = 0
+    for trial in range(8):
+        before = np.array([shapely.linestrings(rng.uniform(0, 100, (int(rng.integers(2, 7)), 2))) for _ in range(40)], dtype=object)
+        before[:5] = [shapely.multilinestrings([shapely.linestrings(rng.uniform(0, 100, (3, 2))),
+                                                shapely.linestrings(rng.uniform(0, 100, (2, 2)))]) for _ in range(5)]
+        after = before.copy()
+        for i in range(len(before)):
+            xy = shapely.get_coordinates(before[i])
+            pick = rng.random(len(xy))
+            onto = shapely.get_coordinates(shapely.shortest_line(shapely.points(xy), edge))[1::2]
+            xy = np.where((pick < 0.4)[:, None], onto, xy + np.where((pick > 0.8)[:, None], rng.normal(0, 0.5, xy.shape), 0.0))
+            after[i] = shapely.set_coordinates(before[i], xy)
+        after[-1] = shapely.linestrings(rng.uniform(0, 100, (4, 2)))  # a different shape: measured whole
+        tol = float(rng.choice([0.5, 1.0, 2.0]))
+        expected = _farthest_whole_lines(before, after, targets, tol)
+        assert np.array_equal(_farther(before, after, targets, tol), expected), trial
+        farther += int(expected.sum())
+    assert 0 < farther < 8 * 40  # both answers occur

@@ -94,6 +94,21 @@ def test_overlap_above_the_limit_is_left(tmp_path):
     assert result.after.get("unit-overlap") == 1
 
 
+
+def test_thin_overlap_above_the_limit_is_left_by_every_repair(tmp_path):
+    # A = [0, 5.05] x [0, 10] overlaps B by 0.05 m x 10 m = 0.5 m², above a limit of 0.4 mm² at 1:1 000 = 0.4 m²
+    # (by hand), and thinner than the snapping distance (0.1 m): left and listed, so snapping must not give it
+    # away either; both polygons unchanged (50.5 m² and 50 m²).
+    project = square(tmp_path, [box(0, 0, 5.05, 10), box(5, 0, 10, 10)], ["A", "B"],
+                     repair_keys={"overlap_max_area_mm2": 0.4})
+    result = repair(project, tmp_path / "out")
+    assert [c for c in result.changes if c.features_before[0] in ("1", "2")] == []
+    left = [x for x in result.left if x.repair == "resolve-overlaps"]
+    assert len(left) == 1 and left[0].measure == pytest.approx(0.5) and left[0].features == ("1", "2")
+    assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.5, 50.0])
+    assert result.after.get("unit-overlap", 0) + result.after.get("unit-edge-mismatch", 0) >= 1
+    assert repair(tmp_path / "out", tmp_path / "again").changes == ()
+
 def test_gap_strip_of_20_cm_goes_to_a_neighbour(tmp_path):
     # A = [0, 4.8] x [0, 10], B = [5, 10] x [0, 10]: a strip 0.2 m x 10 m = 2.00 m² (by hand), 0.2 m wide.
     # gap_width_mm = 0.3 (0.3 m at 1:1 000) lets it be filled; it borders A and B along 10 m each,

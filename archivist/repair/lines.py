@@ -549,6 +549,13 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     nearest target through an STRtree, whole arrays); a snap that makes it
     larger would trade a line along the boundary for one that cuts across a
     bend, so it is not made. Lines equal before and after are not measured.
+
+    Densifying works segment by segment, so a segment whose two ends did not
+    move gives the same points before and after: the segments that moved are
+    measured first, and the ones that did not only for a line whose moved
+    segments reach farther after than before (the farthest point of the
+    whole line is the larger of the two). The answer is the one the whole
+    lines would give.
     """
     out = np.zeros(len(before), dtype=bool)
     if not len(before) or not len(targets):
@@ -562,17 +569,65 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     segs = shapely.linestrings(np.stack([xy[:-1][same], xy[1:][same]], axis=1)) if same.any() else targets
     tree = shapely.STRtree(segs)
     step = max(tol / 4.0, 1e-9)
+    m = len(moved)
 
-    def reach(lines: np.ndarray) -> np.ndarray:
-        xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
-        far = np.zeros(len(lines))
-        if len(xy):
+    def reach(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
+        """Per moved line, the farthest densified point of the segments ``start -> stop`` it owns (0 with none)."""
+        far = np.zeros(m)
+        if not len(owner):
+            return far
+        # the ends first: the distance to one target segment is convex along a segment, so no point of a segment
+        # lies farther from the targets than its two ends lie from the target nearest to either of them; where
+        # that bound is no more than the farther end's own distance, the ends decide, and only the other
+        # segments are densified
+        ends = shapely.points(np.r_[start, stop])
+        (who, near), d = tree.query_nearest(ends, return_distance=True, all_matches=False)
+        k = len(owner)
+        de = np.zeros(2 * k)
+        de[who] = d
+        te = np.full(2 * k, -1, dtype=np.int64)
+        te[who] = near
+        lo = np.maximum(de[:k], de[k:])
+        ok = (te[:k] >= 0) & (te[k:] >= 0)
+        up = np.full(k, np.inf)
+        if ok.any():
+            i = np.flatnonzero(ok)
+            other_a = shapely.distance(ends[k + i], segs[te[i]])  # stop to the target nearest to start
+            other_b = shapely.distance(ends[i], segs[te[k + i]])  # start to the target nearest to stop
+            up[i] = np.minimum(np.maximum(de[i], other_a), np.maximum(de[k + i], other_b))
+        np.maximum.at(far, owner, lo)
+        rest = np.flatnonzero(~(up <= lo))
+        if len(rest):
+            lines = shapely.linestrings(np.stack([start[rest], stop[rest]], axis=1))
+            xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
             (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
-            np.maximum.at(far, idx[who], d)
+            np.maximum.at(far, owner[rest[idx[who]]], d)
         return far
 
-    out[moved] = reach(after[moved]) > reach(before[moved]) + 1e-9
+    b, a = _segments(before[moved]), _segments(after[moved])
+    if np.array_equal(b[3], a[3]):  # the same parts and vertex counts (a snap adds no vertex): segment by segment
+        same = (b[0] == a[0]).all(axis=1) & (b[1] == a[1]).all(axis=1)
+        same_a = same
+    else:  # whole lines
+        same, same_a = np.zeros(len(b[2]), dtype=bool), np.zeros(len(a[2]), dtype=bool)
+    after_far = reach(a[0][~same_a], a[1][~same_a], a[2][~same_a])
+    before_far = reach(b[0][~same], b[1][~same], b[2][~same])
+    maybe = after_far > before_far + 1e-9
+    if (maybe & np.bincount(b[2][same], minlength=m).astype(bool)).any():
+        keep = same & maybe[b[2]]
+        unchanged = reach(b[0][keep], b[1][keep], b[2][keep])
+        maybe &= after_far > np.maximum(unchanged, before_far) + 1e-9
+    out[moved] = maybe
     return out
+
+
+def _segments(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Every segment of the lines (starts, ends, the position of its line) and the lines' shape: per part, its line and vertex count."""
+    parts, line_of = shapely.get_parts(lines, return_index=True)
+    xy, part = shapely.get_coordinates(parts, return_index=True)
+    same = part[1:] == part[:-1]
+    shape = np.stack([line_of, shapely.get_num_coordinates(parts)], axis=1)
+    return xy[:-1][same], xy[1:][same], line_of[part[:-1][same]], shape
 
 
 def _ids(state: RepairState) -> np.ndarray:

@@ -152,8 +152,10 @@ class RepairState:
     # analyses of the working units, each kept with the units frame it was computed from (a repair that changes
     # the units puts a new frame in place, so a later repair recomputes what it needs; the line repairs share one)
     analyses: dict[str, tuple[Any, Any]] = field(default_factory=dict)
-    # the overlaps resolve-overlaps saw and left (ids of the two polygons, the piece); None when it did not run
-    overlaps_left: list[tuple[str, str, Any]] | None = None
+    # the overlaps resolve-overlaps saw and left (ids of the two polygons, the piece, and whether it was left for
+    # the geologist: larger than a repair may give away, or one polygon wholly inside the other, rather than a
+    # cut GEOS failed to make); None when it did not run
+    overlaps_left: list[tuple[str, str, Any, bool]] | None = None
 
     def analysis(self, key: str, compute: Callable[[], T]) -> T:
         """``compute()`` once for the current working units; the same value until a repair replaces them."""

@@ -201,7 +201,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
                  (f"an overlap of {ar:.2f} m², larger than the {settings.overlap_max_area:.2f} m² a repair may give away"
                   if not w else "one polygon lies wholly inside the other"), p, float(ar))
             for i, j, p, ar, w in zip(a[~small], b[~small], pieces[~small], area[~small], whole[~small])]
-    state.overlaps_left += [(str(ids[i]), str(ids[j]), p) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
+    state.overlaps_left += [(str(ids[i]), str(ids[j]), p, True) for i, j, p in zip(a[~small], b[~small], pieces[~small])]
     a, b, pieces, area = a[small], b[small], pieces[small], area[small]
     if not len(a):
         return [], left
@@ -227,7 +227,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
             failed[group] = True
             left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
                              shapely.union_all(pieces[group]), float(area[group].sum())))
-            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k]) for k in group.tolist()]
+            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k], False) for k in group.tolist()]
             continue
         new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
@@ -295,9 +295,10 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     if not len(gi):
         return [], left
     # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
-    # the part of the gap within the gap width of it, the next the part of the rest within the gap width of
-    # it, and so on, so no polygon's boundary moves further than the gap width; what no neighbour reaches
-    # (a corner along the map edge) is left and listed. A gap along one polygon goes to it whole.
+    # the part of the gap within the gap width of it, and each part of the rest goes the same way among the
+    # others (ranked by their border with that part), so no polygon's boundary moves further than the gap width;
+    # what no neighbour reaches (a corner along the map edge) is left and listed. A gap along one polygon goes
+    # to it whole.
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
     reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
@@ -307,28 +308,39 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
         if len(nbrs) == 1:
             pieces.append((int(nbrs[0]), gaps[g], int(g)))
             continue
-        rest = gaps[g]
-        for n in nbrs.tolist():
-            near = shapely.get_parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
-            near = near[shapely.area(near) > 0]
-            # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
-            # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
-            near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
-            if len(near):
-                part = shapely.union_all(near)
-                pieces.append((n, part, int(g)))
-                rest = shapely.difference(rest, part)
-            if shapely.area(rest) <= 0:
-                break
-        else:
-            # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
-            # and not a polygon bounds it) stays: giving it to one would move that polygon further
-            parts = shapely.get_parts(rest)
-            parts = parts[shapely.area(parts) > 0]
-            if len(parts):
-                around = tuple(str(ids[k]) for k in nbrs)
-                left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
-                                 "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
+        # the neighbour with the longest border along the whole gap takes what is within reach of it; each part of
+        # the rest then goes by the same rule on its own (the neighbour with the longest border along that part):
+        # ranked by the whole gap instead, a neighbour the part merely touches at its end would take a thin part
+        # lying along another one, a spike that snapping then folds away further than the snapping distance
+        first = int(nbrs[0])
+        rest = _take(gaps[g], first, geoms, reach, eps, pieces, int(g))
+        unreached = []
+        others = nbrs[1:]
+        for part in _parts(rest).tolist():  # one per piece of a gap the first neighbour does not reach
+            if not len(others):
+                unreached.append(part)
+                continue
+            ranked = others[np.lexsort((others, -_border(np.full(len(others), part, dtype=object), geoms[others], eps)))]
+            for n in ranked.tolist():
+                part = _take(part, n, geoms, reach, eps, pieces, int(g))
+                if shapely.area(part) <= 0:
+                    break
+            else:
+                unreached.append(part)
+        # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
+        # and not a polygon bounds it) stays: giving it to one would move that polygon further
+        parts = _parts(shapely.union_all(unreached)) if unreached else np.zeros(0, dtype=object)
+        if len(parts):
+            around = tuple(str(ids[k]) for k in nbrs)
+            left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
+                             "from every polygon along it", shapely.union_all(parts), float(shapely.area(parts).sum())))
+    if not pieces:
+        return [], left
+    # one piece per polygon and gap (the parts of one gap a polygon took, joined)
+    joined: dict[tuple[int, int], list[Any]] = {}
+    for t, p, g in pieces:
+        joined.setdefault((t, g), []).append(p)
+    pieces = [(t, ps[0] if len(ps) == 1 else shapely.union_all(ps), g) for (t, g), ps in joined.items()]
     target = np.array([t for t, _, _ in pieces], dtype=np.int64)
     parts = np.array([p for _, p, _ in pieces], dtype=object)
     new = geoms.copy()
@@ -352,6 +364,25 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     return changes, left
 
 
+def _parts(geom: Any) -> np.ndarray:
+    """The parts of ``geom`` with some area."""
+    parts = shapely.get_parts(geom)
+    return parts[shapely.area(parts) > 0]
+
+
+def _take(rest: Any, n: int, geoms: np.ndarray, reach: float, eps: float, pieces: list[tuple[int, Any, int]], g: int) -> Any:
+    """Give polygon ``n`` the parts of ``rest`` within ``reach`` of it that run along it (appended to ``pieces``); what remains."""
+    near = _parts(shapely.intersection(rest, shapely.buffer(geoms[n], reach, quad_segs=4)))
+    # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
+    # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
+    near = near[_border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps]
+    if not len(near):
+        return rest
+    part = shapely.union_all(near)
+    pieces.append((n, part, g))
+    return shapely.difference(rest, part)
+
+
 # ---------------------------------------------------------------- snapping
 
 @repair("snap-edges", order=30)
@@ -372,10 +403,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     distance is a step of its noding, not a bound on any vertex's move, so
     every polygon is compared with its input (Hausdorff distance of the
     boundaries) and one that would move further than the distance keeps its
-    input geometry and is listed; polygons in an overlap left for the
-    geologist are kept out of the cleaning (GEOS would give the overlap
-    away); a polygon whose only difference is where its rings start or
-    their orientation is not a change.
+    input geometry and is listed; an overlap left for the geologist is
+    kept as it is (GEOS would give it away): it is cut out of one of its
+    two polygons for the cleaning and given back afterwards, or, where that
+    cannot be done (one polygon wholly inside the other), both polygons are
+    kept out of the cleaning; a polygon whose only difference is where its
+    rings start or their orientation is not a change.
     Never: it does not move a vertex further than the snapping distance.
     """
     if state.units is None or not len(state.units):
@@ -391,15 +424,41 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
         return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
     refused: dict[int, float] = {}
-    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away
-    if state.overlaps_left is not None:  # resolve-overlaps ran: the wide ones still there are those it left
+    # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
+    # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
+    # for the cleaning and given back to it afterwards, however thin it is: the overlap stays as it was listed and
+    # every other edge of both polygons is still cleaned. One that cannot be cut out that way (a polygon wholly
+    # inside the other, a GEOS failure) holds both polygons out of the cleaning, as does a wide one GEOS failed to
+    # cut (snapping may still resolve a thin one).
+    base = geoms.copy()
+    put_back: dict[int, Any] = {}
+    if state.overlaps_left is not None:  # resolve-overlaps ran: the overlaps still there are those it left
         if state.overlaps_left:
             pos = {str(v): k for k, v in enumerate(ids.tolist())}
-            pieces = np.array([p for _, _, p in state.overlaps_left], dtype=object)
-            wide = widths(pieces, settings.tolerance) > settings.tolerance * ABOVE
-            for (i, j, _), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
-                if w:
-                    hold[[pos[f] for f in (i, j) if f in pos]] = True
+            pieces = np.array([p for _, _, p, _ in state.overlaps_left], dtype=object)
+            firm = np.array([f for _, _, _, f in state.overlaps_left], dtype=bool)
+            wide = np.zeros(len(firm), dtype=bool)
+            if (~firm).any():
+                wide[~firm] = widths(pieces[~firm], settings.tolerance) > settings.tolerance * ABOVE
+            cut: dict[int, list[Any]] = {}
+            for (i, j, piece, f), w in zip(state.overlaps_left, wide.tolist()):  # one per overlap left
+                both = [pos[x] for x in (i, j) if x in pos]
+                if f and len(both) == 2:
+                    cut.setdefault(both[1], []).append(piece)
+                elif w or f:
+                    hold[both] = True
+            for k, ps in cut.items():  # one per polygon with an overlap left for the geologist
+                try:
+                    back = shapely.union_all(ps)
+                    rest = shapely.difference(geoms[k], back)
+                except GEOSException:
+                    rest = None
+                if rest is None or shapely.is_empty(rest) or shapely.area(rest) <= 0:
+                    hold[k] = True
+                    hold[[pos[x] for i, j, _, f in state.overlaps_left if f and pos.get(j) == k for x in (i, j) if x in pos]] = True
+                    continue
+                base[k] = rest
+                put_back[k] = back
     else:
         cov = ctx.coverage()
         for p in cov.overlaps:
@@ -412,13 +471,22 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
         work = geoms[sel]
         order = np.arange(len(work))
+        back = [(n, put_back[k]) for n, k in enumerate(sel.tolist()) if k in put_back]
         if strategy == "min_index":
             age = _age_rank(state, codes[sel])
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
             order = np.argsort(key, kind="stable")
         cleaned = np.empty(len(work), dtype=object)
-        cleaned[order] = shapely.coverage_clean(work[order], snapping_distance=settings.tolerance, gap_width=0.0,
+        cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
                                                 merge_strategy=strategy)
+        for n, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+            try:
+                cleaned[n] = shapely.union(cleaned[n], piece)
+                if shapely.equals(cleaned[n], work[n]):  # nothing else changed: the input as it was (its vertices)
+                    cleaned[n] = work[n]
+            except GEOSException:
+                cleaned[n] = work[n]
+        cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
         moved = _shift(work, cleaned)
         too_far = moved > settings.tolerance * ABOVE

@@ -19,6 +19,13 @@ contact (same-unit neighbours). One process then times, side by side:
 
 It also reports the findings of the repaired kinds before and after, the
 changes per repair and whether GEOS finds the copy a valid coverage.
+
+Not every injected defect is within the repair's bounds: growing a polygon by
+half the tolerance along a long shared edge can make an overlap larger than
+a repair may give away (at 10^4 polygons, seed 0: 101.69 m², a 0.5 m strip
+along about 203 m of edge, against 100 m² = 1 mm² at 1:10 000). It is left
+and listed, so the copy keeps one finding (an edge mismatch: the overlap is
+thinner than the tolerance) and GEOS does not find it a valid coverage.
 """
 
 from __future__ import annotations
