@@ -31,12 +31,19 @@ runs them all; for a quick loop while editing, leave them out::
 and run the whole suite before committing.
 """
 
+import signal
 import sys
 from pathlib import Path
 
 from hypothesis import settings
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+# A test run started in the background (`nohup`, `&` in a script) inherits an ignored SIGINT, and so would every
+# command the Ctrl-C tests start: they would wait out Ctrl-C instead of stopping. Those tests stand for a person at
+# a terminal, so the commands they start get SIGINT's default back (a Python handler is reset to it across exec).
+if signal.getsignal(signal.SIGINT) == signal.SIG_IGN:
+    signal.signal(signal.SIGINT, signal.default_int_handler)
 
 settings.register_profile("repeatable", derandomize=True, database=None, print_blob=True)
 settings.register_profile("explore", derandomize=False, print_blob=True)
