@@ -78,7 +78,7 @@ if TYPE_CHECKING:
     from .partread import ReadingExecutor
     from .project import MapProject
 
-__all__ = ["DASK_EXTRA", "LOCAL", "PARTITION_FEATURES", "open_executor", "partitions", "require_dask", "usable_cores", "worker_facts"]
+__all__ = ["DASK_EXTRA", "LOCAL", "PARTITION_FEATURES", "open_executor", "partitions", "require_dask", "worker_facts"]
 
 DASK_EXTRA = "pip install 'archivist[dask]'"
 """The install command that brings Dask (named in the error when it is missing)."""
@@ -101,14 +101,6 @@ def partitions(project: MapProject, workers: int) -> int:
     n = sum(len(layer.frame) for role, layer in project.layers.items() if role != "extent")
     workers = max(1, workers)
     return workers * max(1, -(-n // (workers * PARTITION_FEATURES)))
-
-
-def usable_cores() -> int:
-    """The cores this process may run on (its CPU affinity where the system tells it), at least 1."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except (AttributeError, OSError):
-        return max(1, os.cpu_count() or 1)
 
 
 def require_dask() -> Any:
@@ -221,7 +213,9 @@ def open_executor(
     scratch: str | None = None
     try:
         if scheduler.strip().lower() == LOCAL:
-            n = workers or usable_cores()
+            from .parallel import default_jobs
+
+            n = workers or default_jobs()
             if n < 1:
                 raise ArchivistError(f"--jobs: {n} workers cannot run a cluster; give 1 or more")
             limit = _memory_limit(memory_limit)

@@ -155,7 +155,6 @@ __all__ = [
     "run_partition",
     "run_partitioned",
     "stop_executor",
-    "worth_partitioning",
 ]
 
 # Layers every partition gets whole: the extent is one frame for the whole map.
@@ -174,17 +173,6 @@ def default_jobs() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except (AttributeError, OSError):
         return max(1, os.cpu_count() or 1)
-
-
-# Features per partition below which starting workers costs more than it saves (measured with
-# tests/benchmarks/bench_jobs.py: a 10^4-polygon map checks in about a second in one process).
-MIN_FEATURES_PER_PART = 5000
-
-
-def worth_partitioning(project: MapProject, parts: int) -> bool:
-    """Whether ``project`` is large enough to check on ``parts`` partitions (see ``MIN_FEATURES_PER_PART``)."""
-    n = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
-    return n >= MIN_FEATURES_PER_PART * parts
 
 
 def make_executor(jobs: int, kind: str = "process") -> Executor:
