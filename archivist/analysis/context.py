@@ -93,18 +93,20 @@ class CheckContext:
 
     # ------------------------------------------------------------ rules side by side
 
-    def _log(self) -> Log:
+    def _stack(self) -> list[Log]:
+        """This thread's logs, innermost recording last; at the bottom, outside any recording, a log of its own."""
         stack = getattr(self._local, "logs", None)
-        if not stack:
-            stack = self._local.logs = [[]]  # outside any recording: a log of this thread's own
-        return stack[-1]
+        if stack is None:
+            stack = self._local.logs = [[]]
+        return stack
+
+    def _log(self) -> Log:
+        return self._stack()[-1]
 
     @contextmanager
     def recording(self, log: Log) -> Iterator[Log]:
         """While inside, what this thread notes and reads through the context is written to ``log`` (one rule's run)."""
-        stack = getattr(self._local, "logs", None)
-        if stack is None:
-            stack = self._local.logs = [[]]
+        stack = self._stack()
         stack.append(log)
         try:
             yield log
