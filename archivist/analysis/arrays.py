@@ -94,6 +94,13 @@ def segment_lines(x0: np.ndarray, y0: np.ndarray, x1: np.ndarray, y1: np.ndarray
     return shapely.linestrings(pts) if len(x0) else np.empty(0, dtype=object)
 
 
+def segments(parts: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Every segment of single-part lines or rings: (start xy, end xy, index of its part in ``parts``)."""
+    xy, part = shapely.get_coordinates(parts, return_index=True)
+    same = part[1:] == part[:-1]  # consecutive coordinates of one part make a segment
+    return xy[:-1][same], xy[1:][same], part[:-1][same]
+
+
 def merge_by_group(lines: np.ndarray, groups: np.ndarray, n_groups: int) -> np.ndarray:
     """One merged (Multi)LineString per group from line pieces labelled by group."""
     out = np.full(n_groups, None, dtype=object)

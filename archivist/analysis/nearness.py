@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import shapely
 
-from .arrays import linear_parts, merge_by_group
+from .arrays import linear_parts, merge_by_group, segments
 from .messages import ABOVE
 from .polygons import Units
 
@@ -95,9 +95,7 @@ def point_distances(points: np.ndarray, refs: np.ndarray) -> np.ndarray:
 
 def _segment_distances(line: object, points: np.ndarray) -> np.ndarray:
     """Distance from each point to ``line`` (a LineString or MultiLineString) through an index of its segments."""
-    xy, k = shapely.get_coordinates(shapely.get_parts(line), return_index=True)
-    same = k[1:] == k[:-1]  # consecutive coordinates of one part make a segment
-    a, b = xy[:-1][same], xy[1:][same]
+    a, b, _ = segments(shapely.get_parts(line))
     if not len(a):  # no segment at all: GEOS's own answer
         return np.asarray(shapely.distance(points, line), dtype=float)
     segs = shapely.linestrings(np.stack([a, b], axis=1))

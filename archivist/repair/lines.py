@@ -27,6 +27,7 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
+from ..analysis.arrays import segments
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -564,9 +565,8 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     if not len(moved):
         return out
     # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
-    xy, part = shapely.get_coordinates(shapely.get_parts(targets), return_index=True)
-    same = part[1:] == part[:-1]
-    segs = shapely.linestrings(np.stack([xy[:-1][same], xy[1:][same]], axis=1)) if same.any() else targets
+    sa, sb, _ = segments(shapely.get_parts(targets))
+    segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
     tree = shapely.STRtree(segs)
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
@@ -624,10 +624,9 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
 def _segments(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Every segment of the lines (starts, ends, the position of its line) and the lines' shape: per part, its line and vertex count."""
     parts, line_of = shapely.get_parts(lines, return_index=True)
-    xy, part = shapely.get_coordinates(parts, return_index=True)
-    same = part[1:] == part[:-1]
+    a, b, part = segments(parts)
     shape = np.stack([line_of, shapely.get_num_coordinates(parts)], axis=1)
-    return xy[:-1][same], xy[1:][same], line_of[part[:-1][same]], shape
+    return a, b, line_of[part], shape
 
 
 def _ids(state: RepairState) -> np.ndarray:
