@@ -26,13 +26,17 @@ from __future__ import annotations
 import math
 import re
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from .model import Hit
+
+if TYPE_CHECKING:
+    from .project import MapProject
 
 KINDS = ("photos", "fieldbooks")
 KIND_WORDS = {"photos": ("photo", "photos"), "fieldbooks": ("field-book scan", "field-book scans")}
@@ -65,6 +69,13 @@ GPS_LAT_REF, GPS_LAT, GPS_LON_REF, GPS_LON = 1, 2, 3, 4
 DATETIME_ORIGINAL, OFFSET_TIME_ORIGINAL, DATETIME = 0x9003, 0x9011, 0x0132
 
 GLOB_CHARS = re.compile(r"[*?\[]")
+
+
+def media_sets(project: MapProject) -> Iterator[tuple[str, str, MediaSet]]:
+    """Each set of files the project names (photos, field-book scans): its kind, the word for one file, the set."""
+    for kind, media in project.media.items():
+        if isinstance(media, MediaSet):
+            yield kind, KIND_WORDS[kind][0], media
 
 
 def media_type(path: str | Path) -> str:

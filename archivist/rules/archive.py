@@ -1036,14 +1036,11 @@ def archive_fieldwork_missing(project: MapProject, ctx: CheckContext) -> Iterato
     which was left out of the zip: "photo photos/ST03_1.jpg is cited by
     tables/photos.csv row 4 (station ST03) but is not in the archive".
     """
-    from ..photos import KIND_WORDS, MediaSet
+    from ..photos import media_sets
 
     stations = project.layers.get("stations")
     known = {str(i).strip() for i in stations.ids} if stations is not None else None
-    for kind, media in project.media.items():
-        if not isinstance(media, MediaSet):
-            continue
-        word = KIND_WORDS[kind][0]
+    for kind, word, media in media_sets(project):
         for m in media.missing:
             at = f" (station {m.station})" if m.station else ""
             yield Hit(f"{word} {m.name} is cited by {media.link_source} row {m.row}{at} but is not in the archive.",

@@ -21,7 +21,7 @@ import shapely
 
 from ..analysis.messages import plural
 from ..model import Hit
-from ..photos import KIND_WORDS, MediaSet
+from ..photos import KIND_WORDS, MediaSet, media_sets
 from ..registry import rule
 
 if TYPE_CHECKING:
@@ -154,10 +154,7 @@ def photo_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """
     if project.archive is not None:
         return  # archive-fieldwork-missing
-    for kind, media in project.media.items():
-        if not isinstance(media, MediaSet):
-            continue
-        word = KIND_WORDS[kind][0]
+    for kind, word, media in media_sets(project):
         for m in media.missing:
             station = f", station {m.station}" if m.station else ""
             yield Hit(
@@ -257,8 +254,8 @@ def photo_hemisphere_mismatch(project: MapProject, ctx: CheckContext) -> Iterato
     of the longitude (GPSLongitudeRef) was lost; as 15.263000 E it lies at
     the map".
     """
-    for kind, media in project.media.items():
-        if not isinstance(media, MediaSet) or not media.files:
+    for kind, _, media in media_sets(project):
+        if not media.files:
             continue
         lon_bad, lat_bad = _flipped(media, project, ctx)
         lon, lat = media.lonlat()
@@ -316,8 +313,8 @@ def photo_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     geom, crs, _ = _map_box(project, ctx)
     if geom is None:
         return
-    for kind, media in project.media.items():
-        if not isinstance(media, MediaSet) or not media.files:
+    for kind, _, media in media_sets(project):
+        if not media.files:
             continue
         lon, lat = media.lonlat()
         lon_bad, lat_bad = _flipped(media, project, ctx)
