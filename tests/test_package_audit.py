@@ -122,6 +122,53 @@ def test_tampered_and_rebagged_data_caught_by_the_checks(tmp_path):
     assert result.exit_code == 1
 
 
+def _bag_only(root):
+    """Re-save the bag's manifests (the ``bagit`` library's own way) but not the descriptor's hashes and sizes."""
+    bag = bagit.Bag(str(root))
+    bag.save(manifests=True)
+
+
+def test_plain_file_unlike_its_descriptor_is_named(tmp_path):
+    """A plain file resource (``"type": "file"``) whose bytes and hash are not the descriptor's, with the bag re-made."""
+    root = package(tmp_path)
+    target = root / "data" / "source" / "legend.csv"
+    target.write_bytes(target.read_bytes() + b"\n")
+    _bag_only(root)
+    result = run("audit", root, "--format", "json", "--rule", "package-data-invalid")
+    found = json.loads(result.stdout)["findings"]
+    assert result.exit_code == 1
+    assert [f["features"] for f in found] == [["data/source/legend.csv"]] * 2
+    size = target.stat().st_size
+    assert any(f"holds {size} bytes, not {size - 1} as described" in f["message"] for f in found)
+    assert any("the sha256 hash of 'source/legend.csv' is" in f["message"] for f in found)
+
+
+def test_plain_files_measured_as_frictionless_measures_them(tmp_path):
+    """Each plain file resource gets the error types ``frictionless`` gives it (its own ``Resource.validate``)."""
+    import hashlib
+
+    from frictionless import Package
+
+    from archivist.package.audit.records import file_problems
+
+    (tmp_path / "a.bin").write_bytes(b"hello")
+    sha, md5 = hashlib.sha256(b"hello").hexdigest(), hashlib.md5(b"hello").hexdigest()
+    cases = [
+        {"name": "good", "path": "a.bin", "type": "file", "bytes": 5, "hash": f"sha256:{sha}"},
+        {"name": "md5-bare", "path": "a.bin", "type": "file", "hash": md5},
+        {"name": "md5-prefixed-wrong", "path": "a.bin", "type": "file", "hash": "md5:" + hashlib.md5(b"hellx").hexdigest()},
+        {"name": "both-wrong", "path": "a.bin", "type": "file", "bytes": 6, "hash": f"sha256:{sha[:-1]}0"},
+        {"name": "size-only", "path": "a.bin", "type": "file", "bytes": 4},
+        {"name": "nothing-declared", "path": "a.bin", "type": "file"},
+        {"name": "gone", "path": "missing.bin", "type": "file", "bytes": 5},
+    ]
+    reference = Package({"name": "p", "resources": cases}, basepath=str(tmp_path)).validate()
+    for res, task in zip(cases, reference.tasks):
+        ours = file_problems(res, tmp_path, "data/")
+        assert sorted(p.type for p in ours) == sorted(e.type for e in task.errors), res["name"]
+        assert all(p.file == f"data/{res['path']}" and p.resource == res["name"] for p in ours)
+
+
 # ---------------------------------------------------------------- what must show: a bare folder of layers
 
 def test_bare_folder_of_layers_gives_reuse_findings(tmp_path):

@@ -299,7 +299,9 @@ def package_data_invalid(project: MapProject, ctx: CheckContext) -> Iterator[Hit
     against the descriptor: cells that do not fit their Table Schema type,
     duplicate primary keys, foreign keys without a target (an analysis whose
     sample is not in the samples table, a unit code not in the legend), and
-    files whose bytes or hash differ from the descriptor's. At most 200
+    files whose bytes or hash differ from the descriptor's (plain files,
+    `"type": "file"` such as photos and scans, are measured by archivist
+    itself, read in blocks, with the same error types). At most 200
     problems per resource are reported. A file the bag's manifest already
     reports as missing or changed is not reported again here.
 
