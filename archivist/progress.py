@@ -153,10 +153,11 @@ class RichProgress(Progress):
             self._started = False
         if self.show_timings and not self._closed:
             self._timed(Timing("total", perf_counter() - self._t0, 0))
+        # a step still running on a thread (a rule at Ctrl-C) ends later: recorded, never shown below the total
         self._closed = True
 
     def _begin(self, step: Step) -> None:
-        if self._bars is None:
+        if self._bars is None or self._closed:
             return
         if not self._started:
             self._bars.start()
@@ -172,7 +173,7 @@ class RichProgress(Progress):
             self._bars.remove_task(step.task)
 
     def _timed(self, timing: Timing) -> None:
-        if self.show_timings:
+        if self.show_timings and not self._closed:
             self.console.print(format_timing(timing), markup=False, style="dim" if timing.depth else None)
 
 

@@ -72,6 +72,21 @@ def test_verbose_prints_timings(tmp_path):
     assert labels[-1] == "total"
 
 
+def test_nothing_printed_after_close(tmp_path):
+    """A step still running when the run stops (a rule on a thread at Ctrl-C) ends after the display closed:
+    its timing line is recorded but not printed below the total and the message that follows it."""
+    stream = io.StringIO()
+    progress = make_progress(verbose=True, stream=stream)
+    step = progress.step("topology rules")
+    step.__enter__()
+    progress.close()
+    step.__exit__(None, None, None)
+    progress.close()
+    lines = stream.getvalue().splitlines()
+    assert [TIMING.match(line).group(2) for line in lines] == ["total"]
+    assert [t.label for t in progress.timings] == ["topology rules"]
+
+
 def test_cli_verbose_and_quiet(tmp_path):
     root = tiny_project(tmp_path)
     plain = CliRunner().invoke(cli, ["check", str(root), "--only", "metadata"])
