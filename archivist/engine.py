@@ -78,6 +78,40 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
     )
 
 
+def to_findings(info: RuleInfo, hits: list[Hit], severity: Severity, forced: bool = False,
+                digits: int = LINEAR_DIGITS) -> list[Finding]:
+    """:func:`to_finding` of every hit, with the geometry work (WKT, a point on the surface) done for all at once."""
+    geoms = np.array([h.geometry for h in hits], dtype=object)
+    shown = ~shapely.is_missing(geoms)
+    shown[shown] = ~shapely.is_empty(geoms[shown])
+    wkts = np.full(len(hits), None, dtype=object)
+    xs = np.array([np.nan if h.x is None or h.y is None else h.x for h in hits], dtype=float)
+    ys = np.array([np.nan if h.x is None or h.y is None else h.y for h in hits], dtype=float)
+    if shown.any():
+        wkts[shown] = shapely.to_wkt(geoms[shown], rounding_precision=digits, trim=True)
+        need = np.flatnonzero(shown & np.isnan(xs))
+        if len(need):
+            g = geoms[need]
+            points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
+            xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
+    out = []
+    for hit, wkt, x, y in zip(hits, wkts.tolist(), xs.tolist(), ys.tolist()):
+        given = hit.x is not None and hit.y is not None
+        out.append(Finding(
+            rule=info.id,
+            family=info.family,
+            severity=severity if forced else (hit.severity or severity),
+            message=hit.message,
+            layer=hit.layer,
+            features=tuple(str(f) for f in hit.features),
+            x=_round(hit.x if given or wkt is None else x, digits),
+            y=_round(hit.y if given or wkt is None else y, digits),
+            measure=_measure(hit.measure),
+            wkt=wkt,
+        ))
+    return out
+
+
 def empty_layers(project: MapProject) -> set[str]:
     """Roles whose layer is there but holds no feature; ``layer-empty`` reports them."""
     return {role for role, layer in project.layers.items() if len(layer.frame) == 0}
@@ -163,15 +197,24 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         as_read, run_on, run_ctx = contexts(info)
         mine: list[Finding] = []
         with step.item(info.id):
+            got: list[Hit] = []
             try:
                 hits = hits_from if hits_from is not None else (info.func(run_on, run_ctx) or ())
                 for hit in hits:
                     if not as_read:
                         assert frame is not None
                         hit = frame.hit_to_map(hit)
-                    mine.append(to_finding(info, project.own_names(hit), severity, forced, digits))
+                    got.append(project.own_names(hit))
             except GEOSException as exc:
                 mine.append(rule_failed(info, exc))
+            try:
+                mine[:0] = to_findings(info, got, severity, forced, digits)
+            except GEOSException:  # one geometry GEOS cannot write: the others still are
+                for hit in got:
+                    try:
+                        mine.append(to_finding(info, hit, severity, forced, digits))
+                    except GEOSException as exc:
+                        mine.append(rule_failed(info, exc))
         return sorted(mine, key=finding_order)
 
     groups = [(family, list(members)) for family, members in groupby(selected, key=lambda i: i.family)]
