@@ -11,11 +11,21 @@ gap: units, the map extent or nothing). When GEOS finds nothing there and no
 segment is drawn twice on one side, no two polygons can overlap; otherwise
 every pair of intersecting polygons in that region whose interiors meet is
 intersected exactly (GEOS alone can miss a polygon whose edge inside another
-one is matched exactly by a third). Gaps come from the map extent minus the
-union of the units. On a valid coverage the union is read off the table (the
-faces enclosed by the edges drawn once, covered when the units lie on their
-left); otherwise it is GEOS's coverage union of the polygons with no defect
-plus a plain union of the rest.
+one is matched exactly by a third). Gaps are found without joining the map:
+the faces enclosed by the untwinned edges and the extent's edge that lie
+under no polygon say where they are (:func:`gap_faces`), and each is then
+measured from the polygons within a small margin of it, joined in index
+order (:func:`local_gaps`), so a gap's result depends on its own
+neighbourhood only. The unit area outside a declared extent is cut from each
+polygon not within it. Only a map without an extent layer still joins its
+units (its extent is their outline): on a valid coverage the union is read
+off the table (the faces enclosed by the edges drawn once, covered when the
+units lie on their left); otherwise it is GEOS's coverage union of the
+polygons with no defect plus a plain union of the rest.
+
+Pieces narrower on average than the noise floor (:func:`noise_floor`, 16
+roundings of a double at the map's largest coordinate) are rounding left by
+GEOS's overlay, not defects, and are not reported.
 
 A region covered twice or not at all is bounded by half-edges without a twin:
 crossing a twinned edge leaves one polygon and enters another, so the number of
