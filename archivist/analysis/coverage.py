@@ -57,6 +57,7 @@ from .arrays import (
     linear_parts,
     polygonal_parts,
     segment_lines,
+    segments,
     widths,
 )
 from .guard import Failure, by_cluster, elementwise, reason_of
@@ -324,6 +325,27 @@ def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.nda
     return parts, k, lost
 
 
+def _run_along(gaps: np.ndarray, polys: np.ndarray, floor: float) -> np.ndarray:
+    """For each pair, how long the gap's edge runs within ``floor`` of the polygon's edge.
+
+    A segment of the gap's rings counts whole when its ends and middle are
+    all within ``floor`` of the polygon's boundary (the gap's segments are
+    cut where the edges beside it change). Distances, not a buffer: GEOS
+    cannot buffer by a few units in the last place of the coordinates.
+    """
+    n = len(gaps)
+    if not n:
+        return np.zeros(0)
+    rings, pair = shapely.get_rings(gaps, return_index=True)
+    a, b, r = segments(rings)
+    k = pair[r]
+    edge = shapely.boundary(polys)[k]
+    near = np.ones(len(k), dtype=bool)
+    for t in (0.0, 0.5, 1.0):
+        near &= shapely.distance(shapely.points(a + t * (b - a)), edge) <= floor
+    return np.bincount(k[near], weights=np.hypot(*(b - a)[near].T), minlength=n)
+
+
 def outside_parts(extent: Any, geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:
     """The parts of each polygon outside ``extent``: (parts, polygon of each, polygons GEOS failed on, messages).
 
@@ -580,11 +602,8 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             # than on it: compared exactly, a neighbour was found or not by rounding, and a gap with
             # none was lost as a leftover of the overlay.
             gi, ui = tree.query(gaps, predicate="dwithin", distance=floor)
-            near_u, inv = np.unique(ui, return_inverse=True)
-            rims = shapely.buffer(shapely.boundary(geoms[near_u]), floor, quad_segs=2)
-            shared, unshared, more = elementwise(
-                lambda g, r: shapely.intersection(shapely.boundary(g), r), gaps[gi], rims[inv])
-            along = shapely.length(shared.astype(object)) > margin
+            run, unshared, more = elementwise(lambda g, u: _run_along(g, u, floor), gaps[gi], geoms[ui], fill=np.nan)
+            along = run.astype(float) > margin
             along[unshared] = True
             lost = lost.copy()
             lost[gi[unshared]] = True
