@@ -306,3 +306,16 @@ def test_a_thin_gap_runs_along_the_polygons_whose_edges_it_follows_a_rounding_of
                             "406231.55427800515 6501512.834147754, 406189.12436657446 6501503.694688359, 406169.033834544 6501557.967743834, "
                             "406187.28329813667 6501581.736579333, 406232.2116581286 6501565.205430902)")
     assert shapely.area(shapely.buffer(line, noise_floor(6510000.0), quad_segs=2)) == 0  # the map's largest coordinate
+
+
+def test_gaps_joined_in_small_batches_are_the_same(laden_map, monkeypatch):
+    import archivist.analysis.coverage as coverage
+
+    ctx = CheckContext(load_project(laden_map))
+    cov, geoms, tree = ctx.coverage(), ctx.units().geoms, ctx.units().tree
+    faces, points = gap_faces(ctx.edges(), cov.extent, tree)
+    margin = 1e3 * noise_floor(float(np.abs(shapely.total_bounds(geoms)).max()))
+    whole, k, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
+    monkeypatch.setattr(coverage, "TABLE_CELLS", 5)  # a few windows per batch
+    small, k2, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
+    assert k.tolist() == k2.tolist() and shapely.to_wkb(whole).tolist() == shapely.to_wkb(small).tolist()

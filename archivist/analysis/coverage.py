@@ -278,6 +278,9 @@ def gap_faces(edges: Edges, extent: Any, tree: shapely.STRtree) -> tuple[np.ndar
     return faces[inside], points[inside]
 
 
+TABLE_CELLS = 1 << 20  # polygons per batch of windows joined at once (8 MB of references)
+
+
 def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.ndarray, tree: shapely.STRtree,
                margin: float) -> tuple[np.ndarray, np.ndarray, list[tuple[np.ndarray, str]]]:
     """Each gap measured from the polygons around it only: (gaps, face of each, failures).
@@ -299,18 +302,28 @@ def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.nda
     wi, ui = wi[order], ui[order]
     lost: list[tuple[np.ndarray, str]] = []
     cover = np.full(n, None, dtype=object)
+    failed = np.zeros(n, dtype=bool)
+    cuts = np.searchsorted(wi, np.arange(n + 1))
     if len(wi):
-        rank = np.arange(len(wi)) - np.searchsorted(wi, wi)
-        table = np.full((n, int(rank.max()) + 1), None, dtype=object)
-        table[wi, rank] = geoms[ui]
-        cover, failed, reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table)
-        cuts = np.searchsorted(wi, np.arange(n + 1))
-        lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(np.flatnonzero(failed), reasons)]
-    else:
-        failed = np.zeros(n, dtype=bool)
+        # a table of polygons per window, in batches of windows of like size (a few large gaps
+        # do not widen the table of all the others)
+        count = np.diff(cuts)
+        by_size = np.argsort(count, kind="stable")
+        start = 0
+        while start < n:  # one pass per batch
+            cells = np.maximum(count[by_size[start:]], 1) * np.arange(1, n - start + 1)  # non-decreasing
+            stop = start + max(1, int(np.searchsorted(cells, max(TABLE_CELLS, int(cells[0])), side="right")))
+            rows = by_size[start:stop]
+            length = count[rows]
+            offset = np.cumsum(length) - length
+            at = np.arange(int(length.sum())) - np.repeat(offset, length)
+            table = np.full((len(rows), max(int(length.max()), 1)), None, dtype=object)
+            table[np.repeat(np.arange(len(rows)), length), at] = geoms[ui[np.repeat(cuts[rows], length) + at]]
+            cover[rows], failed[rows], reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table)
+            lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(rows[failed[rows]], reasons)]
+            start = stop
     area = shapely.intersection(windows, extent) if extent is not None else windows
     left, bad, reasons = elementwise(shapely.difference, area, cover)
-    cuts = np.searchsorted(wi, np.arange(n + 1))
     lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(np.flatnonzero(bad & ~failed), reasons)]
     left[bad | failed] = None
     parts, k = polygonal_parts(left)
