@@ -11,11 +11,21 @@ gap: units, the map extent or nothing). When GEOS finds nothing there and no
 segment is drawn twice on one side, no two polygons can overlap; otherwise
 every pair of intersecting polygons in that region whose interiors meet is
 intersected exactly (GEOS alone can miss a polygon whose edge inside another
-one is matched exactly by a third). Gaps come from the map extent minus the
-union of the units. On a valid coverage the union is read off the table (the
-faces enclosed by the edges drawn once, covered when the units lie on their
-left); otherwise it is GEOS's coverage union of the polygons with no defect
-plus a plain union of the rest.
+one is matched exactly by a third). Gaps are found without joining the map:
+the faces enclosed by the untwinned edges and the extent's edge that lie
+under no polygon say where they are (:func:`gap_faces`), and each is then
+measured from the polygons within a small margin of it, joined in index
+order (:func:`local_gaps`), so a gap's result depends on its own
+neighbourhood only. The unit area outside a declared extent is cut from each
+polygon not within it. Only a map without an extent layer still joins its
+units (its extent is their outline): on a valid coverage the union is read
+off the table (the faces enclosed by the edges drawn once, covered when the
+units lie on their left); otherwise it is GEOS's coverage union of the
+polygons with no defect plus a plain union of the rest.
+
+Pieces narrower on average than the noise floor (:func:`noise_floor`, 16
+roundings of a double at the map's largest coordinate) are rounding left by
+GEOS's overlay, not defects, and are not reported.
 
 A region covered twice or not at all is bounded by half-edges without a twin:
 crossing a twinned edge leaves one polygon and enters another, so the number of
@@ -47,11 +57,13 @@ from .arrays import (
     linear_parts,
     polygonal_parts,
     segment_lines,
+    segments,
     widths,
 )
 from .guard import Failure, by_cluster, elementwise, reason_of
 from .halfedges import Edges
 from .messages import ABOVE
+from .nearness import prepared_copy
 from .polygons import Units, polygonal
 
 if TYPE_CHECKING:
@@ -81,6 +93,10 @@ class Coverage:
     of polygons whose edges run together exactly but with different vertices;
     ``outline`` marks the edges of the half-edge table drawn once and lying on
     the map's outer edge; ``failures`` are the parts GEOS could not process.
+    ``union`` is the union of the units when the map extent had to be read
+    off it (no extent layer), else None: gaps and outside parts are found
+    without joining the map (see :func:`gap_faces`), and :meth:`covers`
+    answers what the union was asked.
     """
 
     tol: float
@@ -99,6 +115,31 @@ class Coverage:
     @property
     def extent_boundary(self) -> Any:
         return shapely.boundary(self.extent) if self.extent is not None else None
+
+    def covers(self, lines: np.ndarray) -> np.ndarray:
+        """For each line, whether the unit polygons cover it whole.
+
+        From the union where one was made (no extent layer); else from what
+        the analysis found, without joining the map: the units cover the
+        extent less its gaps, and their own parts outside it. A line crossing
+        a piece below the noise floor counts as covered.
+        """
+        if not len(lines) or self.extent is None:
+            return np.zeros(len(lines), dtype=bool)
+        if self.union is not None:
+            return np.asarray(shapely.covers(prepared_copy(self.union), lines), dtype=bool)
+        extent = prepared_copy(self.extent)
+        ok = np.asarray(shapely.covered_by(lines, extent), dtype=bool)
+        out = np.flatnonzero(~ok)
+        if len(out) and self.outside:
+            beyond = shapely.difference(lines[out], extent)
+            ok[out] = shapely.covered_by(beyond, prepared_copy(shapely.union_all([p.geom for p in self.outside])))
+        if self.gaps:
+            li, gi = shapely.STRtree([p.geom for p in self.gaps]).query(lines, predicate="intersects")
+            gaps = np.array([p.geom for p in self.gaps], dtype=object)
+            through = shapely.relate_pattern(lines[li], gaps[gi], "T********")
+            ok[li[through]] = False
+        return ok
 
     def failures_of(self, aspect: str) -> tuple[Failure, ...]:
         """The failures that leave ``aspect`` (overlaps, misfits, gaps, outside) incomplete."""
@@ -170,6 +211,165 @@ def union_from_edges(edges: Edges, geoms: np.ndarray) -> Any:
         return shapely.coverage_union_all(geoms)
     covered = np.where(fwd, edges.left[e] >= 0, edges.right[e] >= 0)
     return shapely.multipolygons(faces[covered]) if covered.any() else shapely.Polygon()
+
+
+# The noise floor of overlay rounding. GEOS computes each vertex it makes (a crossing of two
+# segments, a point of a buffer's offset) in double precision and rounds it to the nearest
+# double: at most half a unit in the last place per coordinate, so within eps * M of the exact
+# point, eps = 2**-52 (IEEE 754 binary64 machine epsilon) and M the largest absolute coordinate.
+# Two roundings of one line (one in each polygon an overlay compares) leave a strip between them
+# at most 2 * eps * M wide. NOISE_ULPS = 16 allows for the vertices that went through a few
+# operations before the check saw them (a buffer, a reprojection, a snap: each rounds again),
+# eight roundings a side; our own choice on that reasoning, not a published figure. Measured on
+# the synthetic 10^5-polygon maps (M = 6.5e6 m): the overlay leftovers between buffered polygons
+# are 0.01-0.02 eps * M wide on average, a real gap of 1 cm is 7e6 eps * M.
+NOISE_ULPS = 16
+
+
+def noise_floor(scale: float) -> float:
+    """The width below which a gap, overlap or outside piece is overlay rounding, at coordinates up to ``scale``."""
+    return NOISE_ULPS * float(np.finfo(float).eps) * max(scale, 1.0)
+
+
+def mean_width(pieces: np.ndarray) -> np.ndarray:
+    """Twice the area over the perimeter of each polygon: the width of a strip, half the widest of a wedge.
+
+    Never more than the largest width of the polygon (up to the ends of a
+    strip), so a piece narrower than the noise floor everywhere always has a
+    mean width below it.
+    """
+    if not len(pieces):
+        return np.zeros(0)
+    perimeter = shapely.length(pieces)
+    return np.where(perimeter > 0, 2.0 * shapely.area(pieces) / np.where(perimeter > 0, perimeter, 1.0), 0.0)
+
+
+def gap_faces(edges: Edges, extent: Any, tree: shapely.STRtree) -> tuple[np.ndarray, np.ndarray]:
+    """Where the gaps are: (faces, a point inside each), found from the half-edge table alone.
+
+    The edge of a gap is made of stretches of polygon edges without their twin
+    and of the extent's edge (along a twinned edge the neighbour covers the
+    other side). So the faces that the untwinned edges and the extent's edge
+    enclose, once noded, include every gap; a face is a gap when a point
+    inside it lies in the extent and in no polygon (the number of polygons
+    over a point changes only across untwinned edges, so one point tells for
+    the whole face). No polygon is joined to another here: the faces only say
+    where to look, :func:`local_gaps` measures each gap.
+    """
+    loose = np.flatnonzero(~edges.twin)
+    pieces = [edges.lines(loose)]
+    if extent is not None:
+        pieces.append(shapely.get_parts(shapely.boundary(extent)))
+    lines = np.concatenate(pieces)
+    if not len(lines):
+        return np.empty(0, dtype=object), np.empty(0, dtype=object)
+    noded = shapely.get_parts(shapely.union_all(lines))  # every crossing becomes a node, drawn-twice stretches one
+    faces = shapely.get_parts(shapely.polygonize(noded))
+    if not len(faces):
+        return faces, np.empty(0, dtype=object)
+    points = shapely.point_on_surface(faces)
+    covered = np.zeros(len(faces), dtype=bool)
+    covered[tree.query(points, predicate="intersects")[0]] = True
+    inside = ~covered
+    if extent is not None:
+        inside &= shapely.intersects(prepared_copy(extent), points)
+    else:
+        inside[:] = False
+    return faces[inside], points[inside]
+
+
+TABLE_CELLS = 1 << 20  # polygons per batch of windows joined at once (8 MB of references)
+
+
+def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.ndarray, tree: shapely.STRtree,
+               margin: float) -> tuple[np.ndarray, np.ndarray, list[tuple[np.ndarray, str]]]:
+    """Each gap measured from the polygons around it only: (gaps, face of each, failures).
+
+    For every face of :func:`gap_faces`, the window is the face grown by
+    ``margin``; the polygons meeting the window are joined in index order and
+    taken out of the window (within the extent), and the gap is the part left
+    that holds the face's point. The result depends only on the polygons
+    within ``margin`` of the gap, never on the rest of the map, so it is the
+    same whatever else the map holds and wherever the map is cut. A failure
+    is (the polygons of the window, GEOS's message).
+    """
+    n = len(faces)
+    if not n:
+        return np.empty(0, dtype=object), np.zeros(0, dtype=np.int64), []
+    windows = shapely.buffer(faces, margin, quad_segs=2, join_style="mitre")
+    wi, ui = tree.query(windows, predicate="intersects")
+    order = np.lexsort((ui, wi))
+    wi, ui = wi[order], ui[order]
+    lost: list[tuple[np.ndarray, str]] = []
+    cover = np.full(n, None, dtype=object)
+    failed = np.zeros(n, dtype=bool)
+    cuts = np.searchsorted(wi, np.arange(n + 1))
+    if len(wi):
+        # a table of polygons per window, in batches of windows of like size (a few large gaps
+        # do not widen the table of all the others)
+        count = np.diff(cuts)
+        by_size = np.argsort(count, kind="stable")
+        start = 0
+        while start < n:  # one pass per batch
+            cells = np.maximum(count[by_size[start:]], 1) * np.arange(1, n - start + 1)  # non-decreasing
+            stop = start + max(1, int(np.searchsorted(cells, max(TABLE_CELLS, int(cells[0])), side="right")))
+            rows = by_size[start:stop]
+            length = count[rows]
+            offset = np.cumsum(length) - length
+            at = np.arange(int(length.sum())) - np.repeat(offset, length)
+            table = np.full((len(rows), max(int(length.max()), 1)), None, dtype=object)
+            table[np.repeat(np.arange(len(rows)), length), at] = geoms[ui[np.repeat(cuts[rows], length) + at]]
+            cover[rows], failed[rows], reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table)
+            lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(rows[failed[rows]], reasons)]
+            start = stop
+    area = shapely.intersection(windows, extent) if extent is not None else windows
+    left, bad, reasons = elementwise(shapely.difference, area, cover)
+    lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(np.flatnonzero(bad & ~failed), reasons)]
+    left[bad | failed] = None
+    parts, k = polygonal_parts(left)
+    hold = shapely.intersects(parts, points[k])
+    parts, k = parts[hold], k[hold]
+    # a gap split into two faces by a degenerate edge inside it is one gap, kept once
+    if len(parts):
+        pi, fj = shapely.STRtree(points).query(parts, predicate="intersects")
+        dup = np.zeros(len(parts), dtype=bool)
+        dup[pi[fj < k[pi]]] = True
+        parts, k = parts[~dup], k[~dup]
+    return parts, k, lost
+
+
+def _run_along(gaps: np.ndarray, polys: np.ndarray, floor: float) -> np.ndarray:
+    """For each pair, how long the gap's edge runs within ``floor`` of the polygon's edge.
+
+    A segment of the gap's rings counts whole when its ends and middle are
+    all within ``floor`` of the polygon's boundary (the gap's segments are
+    cut where the edges beside it change). Distances, not a buffer: GEOS
+    cannot buffer by a few units in the last place of the coordinates.
+    """
+    n = len(gaps)
+    if not n:
+        return np.zeros(0)
+    rings, pair = shapely.get_rings(gaps, return_index=True)
+    a, b, r = segments(rings)
+    k = pair[r]
+    edge = shapely.boundary(polys)[k]
+    near = np.ones(len(k), dtype=bool)
+    for t in (0.0, 0.5, 1.0):
+        near &= shapely.distance(shapely.points(a + t * (b - a)), edge) <= floor
+    return np.bincount(k[near], weights=np.hypot(*(b - a)[near].T), minlength=n)
+
+
+def outside_parts(extent: Any, geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:
+    """The parts of each polygon outside ``extent``: (parts, polygon of each, polygons GEOS failed on, messages).
+
+    Only the polygons not within the extent are cut, each on its own.
+    """
+    poking = np.flatnonzero(~shapely.covers(prepared_copy(extent), geoms))
+    if not len(poking):
+        return np.empty(0, dtype=object), np.zeros(0, dtype=np.int64), poking, []
+    out, failed, reasons = elementwise(shapely.difference, geoms[poking], np.full(len(poking), extent, dtype=object))
+    parts, k = polygonal_parts(_blank(out, failed))
+    return parts, poking[k], poking[failed], reasons
 
 
 def _scale_of(geom: Any) -> float:
@@ -280,6 +480,8 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     geoms = units.geoms
     tree = units.tree
     failures: list[Failure] = []
+    # pieces narrower than this are rounding left by GEOS's overlay, not defects
+    floor = noise_floor(_scale_of(shapely.box(*shapely.total_bounds(geoms))) if len(geoms) else 1.0)
     # 1. polygons that may be part of a defect: those with an untwinned half-edge and their neighbours
     suspects = region = edges.suspects
     near = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
@@ -344,56 +546,77 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             parts, k = polygonal_parts(overlay)
             w, failed, reasons = elementwise(lambda p: widths(p, tol), parts, fill=np.nan)
             failures += _pair_failures(a[k], b[k], failed, reasons, "measuring their overlap", frozenset((OVERLAPS, MISFITS)))
-            for part, kk, ww, lost in zip(parts, k, w.astype(float), failed):
+            real = mean_width(parts) >= floor  # else overlay rounding: no overlap, though it still explains a misfit
+            for part, kk, ww, lost, above in zip(parts, k, w.astype(float), failed, real):
                 if lost:
                     continue
                 pair = (int(a[kk]), int(b[kk]))
-                pieces.append(Piece(part, float(shapely.area(part)), float(ww), pair))
                 pair_pieces.setdefault(pair, []).append(part)
-    # 4. the union of the units: GEOS coverage union on the part with no defect, plain union for the rest
+                if not above:
+                    continue
+                pieces.append(Piece(part, float(shapely.area(part)), float(ww), pair))
+    # 4. the map extent: the extent layer, or the outline of the units (which needs their union:
+    # GEOS coverage union on the part with no defect, plain union for the rest)
     involved = np.union1d(implicated, np.array([u for pair in pair_pieces for u in pair], dtype=np.int64))
     involved = np.union1d(involved, unchecked).astype(np.int64)
     union: Any = None
+    extent: Any = None
+    declared = False
     try:
-        if len(geoms) == 0:
-            union = shapely.Polygon()
-        elif len(involved) == 0:
-            union = union_from_edges(edges, geoms)
-        else:
-            rest = np.ones(len(geoms), dtype=bool)
-            rest[involved] = False
-            union = shapely.union_all(np.concatenate([[shapely.coverage_union_all(geoms[rest])], geoms[involved]]))
-    except GEOSException as exc:
-        failures.append(Failure(tuple(int(u) for u in involved), "joining them into one area",
-                                frozenset((GAPS, OUTSIDE)), reason_of(exc)))
-    try:
-        extent, declared = extent_of(project, union, tol)
+        extent, declared = extent_of(project, None, tol)
     except GEOSException as exc:
         failures.append(Failure((), "reading the map extent", frozenset((GAPS, OUTSIDE)), reason_of(exc)))
         extent, declared = None, "extent" in project.layers
+    if not declared:
+        try:
+            if len(geoms) == 0:
+                union = shapely.Polygon()
+            elif len(involved) == 0:
+                union = union_from_edges(edges, geoms)
+            else:
+                rest = np.ones(len(geoms), dtype=bool)
+                rest[involved] = False
+                union = shapely.union_all(np.concatenate([[shapely.coverage_union_all(geoms[rest])], geoms[involved]]))
+            extent, declared = extent_of(project, union, tol)
+        except GEOSException as exc:
+            failures.append(Failure(tuple(int(u) for u in involved), "joining them into one area",
+                                    frozenset((GAPS, OUTSIDE)), reason_of(exc)))
+            extent = None
+    if extent is not None:
+        floor = max(floor, noise_floor(_scale_of(extent)))
     # 5. edges that run together exactly but with different vertices (GEOS "misaligned")
     collinear: list[tuple[tuple[int, int], Any, float]] = []
     if len(implicated) > 1:
         collinear, lost = _collinear(tree, geoms, implicated, invalid, pair_pieces,
                                      {f.units for f in failures if OVERLAPS in f.aspects})  # their overlap is not known
         failures += lost
-    # 6. gaps: the extent minus the union
+    # 6. gaps: found from the untwinned edges, each measured from the polygons around it
     gap_pieces: list[Piece] = []
     outside: list[Piece] = []
-    if extent is not None and union is not None:
+    if extent is not None:
         try:
-            gaps, _ = polygonal_parts(np.array([shapely.difference(extent, union)], dtype=object))
+            faces, points = gap_faces(edges, extent, tree)
         except GEOSException as exc:
-            failures.append(Failure(tuple(int(u) for u in involved), "taking them out of the map extent",
+            failures.append(Failure(tuple(int(u) for u in edges.suspects), "tracing the gaps between them",
                                     frozenset((GAPS,)), reason_of(exc)))
-            gaps = np.empty(0, dtype=object)
+            faces = points = np.empty(0, dtype=object)
+        margin = 1e3 * floor  # how far around a gap its polygons are looked for; shorter stretches are points
+        gaps, _, lost_windows = local_gaps(faces, points, extent, geoms, tree, margin)
+        failures += [Failure(tuple(int(u) for u in us), "taking them out of the map extent", frozenset((GAPS,)), why)
+                     for us, why in lost_windows]
+        gaps = gaps[mean_width(gaps) >= floor]  # overlay rounding, not a gap
+        if len(gaps):
+            gaps = gaps[np.lexsort(shapely.get_coordinates(shapely.point_on_surface(gaps)).T[::-1])]
         if len(gaps):
             w, lost, reasons = elementwise(lambda g: widths(g, tol), gaps, fill=np.nan)
-            # the polygons along a gap: those sharing a stretch of edge with it, not just a point
-            gi, ui = tree.query(gaps, predicate="intersects")
-            shared, unshared, more = elementwise(
-                lambda g, u: shapely.intersection(shapely.boundary(g), shapely.boundary(u)), gaps[gi], geoms[ui])
-            along = shapely.length(shared.astype(object)) > 0
+            # the polygons along a gap: those with a stretch of edge within the noise floor of the gap's
+            # edge, longer than a point at the map's precision (the margin). The overlay rounds the
+            # corners it makes, so a gap's edge may run a rounding off the polygon's own edge rather
+            # than on it: compared exactly, a neighbour was found or not by rounding, and a gap with
+            # none was lost as a leftover of the overlay.
+            gi, ui = tree.query(gaps, predicate="dwithin", distance=floor)
+            run, unshared, more = elementwise(lambda g, u: _run_along(g, u, floor), gaps[gi], geoms[ui], fill=np.nan)
+            along = run.astype(float) > margin
             along[unshared] = True
             lost = lost.copy()
             lost[gi[unshared]] = True
@@ -427,27 +650,23 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
                                             reasons[0] if reasons else "GEOS failed"))
                 elif around or at_edge[gk] or not len(geoms):  # else a degenerate leftover of the overlay
                     gap_pieces.append(Piece(g, float(shapely.area(g)), float(ww), around, bool(at_edge[gk]), bool(on_frame[gk])))
-        # 7. unit area outside a declared extent
+        # 7. unit area outside a declared extent: each polygon not within it, cut on its own
         if declared:
             try:
-                out, _ = polygonal_parts(np.array([shapely.difference(union, extent)], dtype=object))
+                parts, owner, failed_units, reasons = outside_parts(extent, geoms)
             except GEOSException as exc:
-                failures.append(Failure(tuple(int(u) for u in involved), "comparing them with the map extent",
-                                        frozenset((OUTSIDE,)), reason_of(exc)))
-                out = np.empty(0, dtype=object)
-            if len(out):
-                oi, ui = tree.query(out, predicate="intersects")
-                inter, failed, reasons = elementwise(shapely.intersection, geoms[ui], out[oi])
-                failures += [Failure((int(u),), "comparing it with the map extent", frozenset((OUTSIDE,)), why)
-                             for u, why in zip(ui[failed], reasons)]
-                inter, ui = inter[~failed], ui[~failed]
-                parts, k = polygonal_parts(inter)
-                w, failed, reasons = elementwise(lambda p: widths(p, tol), parts, fill=np.nan)
-                failures += [Failure((int(u),), "measuring its area outside the map extent", frozenset((OUTSIDE,)), why)
-                             for u, why in zip(ui[k][failed], reasons)]
-                for part, kk, ww, lost_part in zip(parts, k, w.astype(float), failed):
-                    if not lost_part:
-                        outside.append(Piece(part, float(shapely.area(part)), float(ww), (int(ui[kk]),), True))
+                failures.append(Failure((), "comparing them with the map extent", frozenset((OUTSIDE,)), reason_of(exc)))
+                parts, owner, failed_units, reasons = np.empty(0, dtype=object), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), []
+            failures += [Failure((int(u),), "comparing it with the map extent", frozenset((OUTSIDE,)), why)
+                         for u, why in zip(failed_units, reasons)]
+            keep = mean_width(parts) >= floor
+            parts, owner = parts[keep], owner[keep]
+            w, failed, reasons = elementwise(lambda p: widths(p, tol), parts, fill=np.nan)
+            failures += [Failure((int(u),), "measuring its area outside the map extent", frozenset((OUTSIDE,)), why)
+                         for u, why in zip(owner[failed], reasons)]
+            for part, u, ww, lost_part in zip(parts, owner, w.astype(float), failed):
+                if not lost_part:
+                    outside.append(Piece(part, float(shapely.area(part)), float(ww), (int(u),), True))
     # the map's outer edge, for the linework family: single edges along the extent boundary
     outline = outline_of(edges, extent, tol)
     return Coverage(

@@ -52,7 +52,6 @@ from ..analysis.nearness import (
     connected_pieces,
     dwithin_pairs,
     point_distances,
-    prepared_copy,
     off_unit_boundaries,
     uncovered,
     undrawn_boundaries,
@@ -242,8 +241,8 @@ def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarr
         todo = np.ones(len(runs), dtype=bool)
         fault = np.flatnonzero(ctx.line_network().part_roles[part] == "fault")
         cov = ctx.coverage()
-        if len(fault) and tol > 0 and not cov.failures and cov.union is not None and not shapely.is_empty(cov.union):
-            inside = np.asarray(shapely.covers(prepared_copy(cov.union), runs[fault]), dtype=bool)
+        if len(fault) and tol > 0 and not cov.failures and cov.extent is not None:
+            inside = cov.covers(runs[fault])
             leaves = np.unique(part[fault[~inside]])  # a part with any run leaving the units is measured whole
             todo[fault[inside & ~np.isin(part[fault], leaves)]] = False
         off = np.full(len(runs), None, dtype=object)
