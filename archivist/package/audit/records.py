@@ -83,8 +83,8 @@ def check_descriptor(facts: ArchiveFacts, data: Path, rel_prefix: str) -> None:
     order = [i for i, _ in tables] if len(result.tasks) == len(tables) else [len(safe["resources"])] * len(result.tasks)
     for i, task in zip(order, result.tasks):
         place = getattr(task, "place", None)
-        where = f"{rel_prefix}{place}" if isinstance(place, str) else None
-        found.append((i, [DataProblem(task.name or "?", where, e.type, e.message) for e in task.errors[:200]]))
+        file_at = f"{rel_prefix}{place}" if isinstance(place, str) else None
+        found.append((i, [DataProblem(task.name or "?", file_at, e.type, e.message) for e in task.errors[:200]]))
     for i, res in files:
         found.append((i, file_problems(res, data, rel_prefix)))
     for _, problems in sorted(found, key=lambda f: f[0]):
