@@ -45,3 +45,31 @@ def test_one_reference_within_and_distances_equal_geos_pair_by_pair():
     mixed = np.array([frame, parts] * (len(pts) // 2) + [frame], dtype=object)
     assert np.array_equal(point_distances(pts, mixed), shapely.distance(pts, mixed))
     assert not shapely.is_prepared(frame)
+
+
+def test_lines_buffered_once_leave_the_same_parts_as_buffers_clipped_per_target():
+    from archivist.analysis.arrays import linear_parts
+    from archivist.analysis.nearness import _shareable, uncovered
+
+    # a grid of boundaries and lines drawn on most of them, some 0.3 m off, one ring around a block
+    rng = np.random.default_rng(11)
+    xs = np.arange(0.0, 101.0, 10.0)
+    bounds = [shapely.linestrings([[x, y], [x, y + 10]]) for x in xs for y in xs[:-1]]
+    bounds += [shapely.linestrings([[x, y], [x + 10, y]]) for y in xs for x in xs[:-1]]
+    targets = np.array(bounds, dtype=object)
+    keep = rng.random(len(bounds)) < 0.8
+    shift = np.where(rng.random(len(bounds)) < 0.2, 0.3, 0.0)
+    lines = [shapely.transform(b, lambda c, s=s: c + s) for b, k, s in zip(bounds, keep, shift) if k]
+    ring = shapely.boundary(shapely.box(40, 40, 50, 50))
+    refs = np.array(lines + [ring], dtype=object)
+    assert _shareable(refs).tolist() == [True] * len(lines) + [False]  # the closed line is clipped per target
+    for tol in (0.0, 0.1, 0.5):
+        clipped = uncovered(targets, refs, tol)
+        shared = uncovered(targets, refs, tol, share=True)
+        a, ka = linear_parts(clipped, tol)
+        b, kb = linear_parts(shared, tol)
+        assert np.array_equal(ka, kb)
+        assert np.array_equal(shapely.get_num_coordinates(a), shapely.get_num_coordinates(b))
+        assert np.allclose(shapely.get_coordinates(a), shapely.get_coordinates(b), rtol=0, atol=1e-9)
+        if tol == 0.5:
+            assert len(a) and len(a) < len(targets)  # some boundaries are left in part, the drawn ones not

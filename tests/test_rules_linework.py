@@ -438,3 +438,24 @@ def test_zero_tolerance_means_exactly_on(tmp_path):
     rows = [("contact", LineString([(5.05, 0), (5.05, 10)])), ("map-boundary", FRAME)]
     (f,) = found(square_map(tmp_path, "off", line_rows=rows, tolerance=0), "line-off-boundary")
     assert f.measure == pytest.approx(10.0, abs=1e-6)  # the whole line is 0.05 m off the edge x = 5
+
+
+def test_a_stretch_of_two_vertices_is_placed_at_its_first_vertex_whatever_its_last_bit():
+    from archivist.rules.linework import _first_of_two
+
+    # one undrawn stretch as two computations of its cut points gave it: the same to within 1e-9 m
+    a = LineString([(402790.4440372875, 6507573.527513907), (402815.9202325141, 6507568.273714242)])
+    b = LineString([(402790.4440372876, 6507573.527513907), (402815.920232514, 6507568.273714242)])
+    # GEOS's interior point of a two-vertex line (the end nearer its midpoint) is a tie the last bit breaks
+    assert shapely.equals(shapely.point_on_surface(a), shapely.Point(a.coords[0]))
+    assert shapely.equals(shapely.point_on_surface(b), shapely.Point(b.coords[1]))
+    longer = LineString([(0, 0), (1, 0), (2, 1)])
+    x, y = _first_of_two(np.array([a, b, longer], dtype=object))
+    assert (round(x[0], 3), round(y[0], 3)) == (round(x[1], 3), round(y[1], 3)) == (402790.444, 6507573.528)
+    assert x[2] is None and y[2] is None  # a longer piece keeps the engine's place (an inner vertex)
+
+
+def test_undrawn_stretch_of_two_vertices_is_placed_at_its_first_vertex(tmp_path):
+    root = square_map(tmp_path, line_rows=[("contact", LineString([(5, 0), (5, 9)])), ("map-boundary", FRAME)])
+    (g,) = found(root, "boundary-without-line")
+    assert g.wkt == "LINESTRING (5 9.1, 5 9.9)" and (g.x, g.y) == (5.0, 9.1)

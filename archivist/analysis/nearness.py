@@ -1,8 +1,9 @@
 """Which part of a line lies farther than the tolerance from other geometry.
 
 Lines are compared with buffers of the tolerance around the geometry near
-them (clipped to the line's box first, so a long reference line costs only
-its nearby stretch).
+them: clipped to the line's box first, so a long reference line costs only
+its nearby stretch, or (boundaries against the lines that draw them) each
+short open line buffered once for all the boundaries near it.
 """
 
 from __future__ import annotations
@@ -126,29 +127,81 @@ def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: flo
     return out
 
 
-def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None) -> np.ndarray:
-    """The part of each target line farther than ``tol`` from every reference line."""
+def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None,
+              share: bool = False) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every reference line.
+
+    ``share``: buffer each reference once for all targets where :func:`_shareable` allows (see
+    :func:`subtract_near`): the same parts are left, a cut point can differ in its last bit.
+    """
     targets = np.asarray(targets, dtype=object)
     if not len(targets) or not len(refs):
         return targets.copy()
     tree = tree if tree is not None else shapely.STRtree(refs)
     ti, ri = dwithin_pairs(tree, refs, targets, tol)
-    buf = near_buffers(targets, ti, refs[ri], tol)
-    out = targets.copy()
-    have = ~shapely.is_missing(buf)
-    out[have] = shapely.difference(targets[have], buf[have])
-    return out
+    return subtract_near(targets, ti, np.asarray(refs, dtype=object), ri, tol, share)
 
 
 def off_unit_boundaries(targets: np.ndarray, units: Units, tol: float) -> np.ndarray:
     """The part of each target line farther than ``tol`` from every unit polygon boundary."""
     if not len(targets) or not len(units):
         return np.asarray(targets, dtype=object).copy()
+    targets = np.asarray(targets, dtype=object)
     ti, ui = units.tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
-    buf = near_buffers(targets, ti, shapely.boundary(units.geoms[ui]), tol)
-    out = np.asarray(targets, dtype=object).copy()
-    have = ~shapely.is_missing(buf)
-    out[have] = shapely.difference(targets[have], buf[have])
+    return subtract_near(targets, ti, shapely.boundary(units.geoms[ui]), np.arange(len(ui)), tol)
+
+
+def _shareable(refs: np.ndarray) -> np.ndarray:
+    """Which references can be buffered whole, once for all the targets near them: open lines (no closed part) of at
+    most :data:`BIG` vertices.
+
+    A closed line is buffered by GEOS as a ring (a join at its first vertex), while the stretch of it clipped near a
+    target is open there (two caps): GEOS's round caps and joins are polygons (8 segments a quarter circle) whose
+    vertices fall at other angles, so the two buffers differ near that vertex (by up to 1 % of the tolerance on
+    the unit boundaries of the 10^5-polygon test maps). A long line is cheaper clipped near each target than
+    buffered whole.
+    """
+    if not len(refs):
+        return np.zeros(0, dtype=bool)
+    parts, k = shapely.get_parts(refs, return_index=True)
+    closed = np.bincount(k, weights=shapely.is_closed(parts), minlength=len(refs)) > 0
+    return ~closed & (shapely.get_num_coordinates(refs) <= BIG)
+
+
+def subtract_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, tol: float,
+                  share: bool = False) -> np.ndarray:
+    """Each target less the ``tol``-buffers of the references paired with it (``targets[ti]`` with ``refs[rj]``).
+
+    Without ``share``, every target gets one buffer of the references near it, clipped near it
+    (:func:`near_buffers`). With ``share``, a reference that :func:`_shareable` allows is buffered once, whole,
+    however many targets it is paired with, and taken out of them in rounds (the first reference of every
+    target, then the second...), each round one bulk GEOS difference; the others as without ``share``. Within
+    the tolerance of a target both buffers are made of the same offset segments and arcs, so the same parts are
+    left; a cut point can differ in its last bit (the offset segment it lies on is split elsewhere by the other
+    buffers of the union, or not), which ``boundary-without-line`` keeps out of its places.
+    """
+    out = targets.copy()
+    if not len(ti):
+        return out
+    whole = np.zeros(len(ti), dtype=bool)
+    if share and tol > 0:
+        used, back = np.unique(rj, return_inverse=True)
+        whole = _shareable(refs[used])[back]
+    if (~whole).any():
+        buf = near_buffers(targets, ti[~whole], refs[rj[~whole]], tol)
+        have = ~shapely.is_missing(buf)
+        out[have] = shapely.difference(targets[have], buf[have])
+    if whole.any():
+        used, back = np.unique(rj[whole], return_inverse=True)
+        bufs = shapely.buffer(refs[used], tol)
+        t = ti[whole]
+        order = np.argsort(t, kind="stable")
+        t, back = t[order], back[order]
+        first = np.r_[True, t[1:] != t[:-1]]
+        rank = np.arange(len(t)) - np.maximum.accumulate(np.where(first, np.arange(len(t)), 0))
+        for r in range(int(rank.max()) + 1):  # one bulk call per round, as many rounds as a target has references
+            sel = rank == r
+            out[t[sel]] = shapely.difference(out[t[sel]], bufs[back[sel]])
     return out
 
 
@@ -208,8 +261,8 @@ def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: n
 
     Edges drawn exactly by a line segment (``drawn``, from the network's
     hashed segments) are out at once; the rest are merged per pair of
-    polygons and the lines within ``tol`` (GEOS buffers, :func:`uncovered`)
-    taken out of them.
+    polygons and the lines within ``tol`` (GEOS buffers, :func:`uncovered`, each
+    line buffered once for all the boundaries near it) taken out of them.
     """
     twin = edges.twin.copy()
     if units.codes is not None and len(units):
@@ -226,7 +279,7 @@ def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: n
     whole = merge_by_group(edges.lines(idx), inv, len(uk))
     stretches = whole
     if len(net.geoms):
-        stretches = uncovered(whole, net.geoms, tol, net.tree)
+        stretches = uncovered(whole, net.geoms, tol, net.tree, share=True)
     pieces, k = linear_parts(stretches, tol * ABOVE)
     if not len(pieces):
         return None

@@ -340,7 +340,7 @@ def clusters(placements: dict[str, Placement]) -> list[Cluster]:
     """Layers grouped by CRS and overlap (each layer's lon/lat box widened as in :func:`padded`)."""
     items: list[tuple[str, Placement, np.ndarray]] = []
     for role, p in placements.items():
-        b = _box(p.lonlat[p.present])
+        b = p.box(p.present)
         if b is not None:
             items.append((role, p, b))
     parent = list(range(len(items)))

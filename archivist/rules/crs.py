@@ -24,7 +24,7 @@ import pyproj
 from shapely.geometry import box
 
 from ..analysis.messages import box_words, distance_words, join_words, plural, verb
-from ..analysis.placement import area_of_use, overshoot, suggest_projected, within
+from ..analysis.placement import area_of_use, overshoot, suggest_projected
 from ..model import Hit, Severity
 from ..project import crs_label
 from ..registry import rule
@@ -228,10 +228,12 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
         members = [p if p.role not in known else replace(p, present=p.present & ~known[p.role]) for p in members]
         names = ", ".join(p.role for p in members)
         layer = members[0].role if len(members) == 1 else None
-        lonlat = np.concatenate([p.lonlat[p.present] for p in members])
-        failed = int((~np.isfinite(lonlat).all(axis=1)).sum())
-        inside = within(lonlat, area)
-        outside = ~inside & np.isfinite(lonlat).all(axis=1)
+        # per member, its present features that cannot be placed and those placed outside the area
+        rows = [np.flatnonzero(p.present) for p in members]
+        bad = [p.failed()[r] for p, r in zip(members, rows)]
+        out_rows = [r[~p.inside(area)[r] & ~f] for p, r, f in zip(members, rows, bad)]
+        failed = int(sum(int(f.sum()) for f in bad))
+        outside = sum(len(r) for r in out_rows)
         hint = ""
         if any(p.role in swaps for p in members):
             hint = "; x and y look swapped (see crs-axis-swap-suspected)"
@@ -241,13 +243,13 @@ def crs_outside_area_of_use(project: MapProject, ctx: CheckContext) -> Iterator[
             b = np.concatenate([p.bounds[p.present] for p in members])
             if len(b):
                 geometry = box(np.nanmin(b[:, 0]), np.nanmin(b[:, 1]), np.nanmax(b[:, 2]), np.nanmax(b[:, 3]))
-        if outside.any():
-            b = lonlat[outside]
+        if outside:
+            b = np.concatenate([p.boxes(r) for p, r in zip(members, out_rows)])
             full = np.array([b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max()])
             metres, deg, direction = overshoot(full, area)
             yield Hit(
                 f"{where} ({_label(crs)}) reach {deg:.2f}° (about {distance_words(metres)}) {direction} of the CRS's "
-                f"area of use ({box_words(area)}); {plural(int(outside.sum()), 'feature')} {verb(int(outside.sum()), 'lies', 'lie')} outside it, spanning {box_words(full)}{hint}.",
+                f"area of use ({box_words(area)}); {plural(outside, 'feature')} {verb(outside, 'lies', 'lie')} outside it, spanning {box_words(full)}{hint}.",
                 layer=layer,
                 measure=metres,
                 geometry=geometry,

@@ -326,6 +326,7 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     pieces, ua, ub, twin = found.pieces, found.ua, found.ub, found.twin
     g = ground(project, units.geoms)
     lengths = np.asarray(g.lengths(pieces), dtype=float)
+    px, py = _first_of_two(pieces)
     between = ub >= 0
     totals = {
         True: _edges_length(edges, np.flatnonzero(twin), g),
@@ -340,7 +341,8 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
         if systematic:
             yield _missing_summary(project, ctx, units, pieces[sel], lengths[sel], ua[sel], ub[sel], totals[inner], inner, g.geographic)
             continue
-        for piece, length, u, v in zip(pieces[sel], lengths[sel].tolist(), ua[sel].tolist(), ub[sel].tolist()):
+        for piece, length, u, v, x, y in zip(pieces[sel], lengths[sel].tolist(), ua[sel].tolist(), ub[sel].tolist(),
+                                             px[sel].tolist(), py[sel].tolist()):
             if inner:
                 text = f"No line draws {num(length)} m of the boundary between {units.labels([u, v])}."
                 feats: tuple[str, ...] = (units.ids[u], units.ids[v])
@@ -348,7 +350,24 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
                 text = (f"No line draws {num(length)} m of the map edge along {units.label(u)}; "
                         f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
                 feats = (units.ids[u],)
-            yield Hit(text, layer="units", features=feats, measure=length, geometry=piece)
+            yield Hit(text, layer="units", features=feats, measure=length, geometry=piece, x=x, y=y)
+
+
+def _first_of_two(pieces: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Where a piece of two vertices is reported: its first vertex (None for longer pieces, placed by the engine).
+
+    The engine places a line at GEOS's interior point, for a line of two vertices the endpoint nearer its
+    midpoint: a tie, which the last bit of the coordinates breaks. A cut point computed through another buffer
+    of the same lines (the same value to within 1e-9 m) would move the place to the other end of the piece.
+    """
+    x = np.full(len(pieces), None, dtype=object)
+    y = np.full(len(pieces), None, dtype=object)
+    two = np.flatnonzero(shapely.get_num_coordinates(pieces) == 2)
+    if len(two):
+        first = shapely.get_point(pieces[two], 0)
+        x[two] = shapely.get_x(first)
+        y[two] = shapely.get_y(first)
+    return x, y
 
 
 def _edges_length(edges: Edges, idx: np.ndarray, g: Ground) -> float:
