@@ -32,7 +32,7 @@ from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
 from ..analysis.messages import ABOVE
-from ..analysis.nearness import undrawn_boundaries
+from ..analysis.nearness import dwithin_pairs, undrawn_boundaries
 from ..analysis.polygons import read_units
 from .model import FEATURE_ID, GENERATED_FIELD, SOURCE_LAYER, Change, Left
 from .registry import repair
@@ -106,7 +106,7 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
-    active = np.arange(len(parts))
+    active = np.flatnonzero(~_on_vertices(parts, tv))
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
@@ -136,6 +136,24 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
 
 
 MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
+
+
+def _on_vertices(parts: np.ndarray, tv: np.ndarray) -> np.ndarray:
+    """Per LineString part: every vertex is exactly one of the target vertices ``tv`` and no two in a row are equal.
+
+    Such a part comes out of :func:`_snap_parts` as it went in (each vertex's
+    nearest target vertex is itself, at distance 0, and removing repeated
+    points removes none), so it need not be measured at all.
+    """
+    xy, part = shapely.get_coordinates(parts, return_index=True)
+    if not len(xy):
+        return np.ones(len(parts), dtype=bool)
+    key = xy[:, 0] + 1j * xy[:, 1]
+    on = np.isin(key, tv[:, 0] + 1j * tv[:, 1])
+    repeat = np.zeros(len(xy), dtype=bool)
+    repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
+    bad = np.bincount(part, weights=(~on | repeat), minlength=len(parts)) > 0
+    return ~bad
 
 
 def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
@@ -221,7 +239,7 @@ def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact"
         return out, []
     eps = noise(net.geoms)
     pts = ends.points[cand]
-    pi, fj = net.tree.query(pts, predicate="dwithin", distance=tol)
+    pi, fj = dwithin_pairs(net.tree, net.geoms, pts, tol)
     keep = fj != ends.feat[cand][pi]
     pi, fj = pi[keep], fj[keep]
     d = shapely.distance(pts[pi], net.geoms[fj])
@@ -482,7 +500,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     ends = np.r_[net.part_off[parts], net.part_off[parts + 1] - 1]
     owner = np.r_[net.part_feat[parts], net.part_feat[parts]]
     old = net.coords[ends]
-    ki, g = net.tree.query(shapely.points(old), predicate="dwithin", distance=eps) if len(ends) else (np.empty(0, dtype=np.int64),) * 2
+    ki, g = dwithin_pairs(net.tree, net.geoms, shapely.points(old), eps) if len(ends) else (np.empty(0, dtype=np.int64),) * 2
     other = g != owner[ki]
     ki, g = ki[other], g[other]
     pinned = np.zeros(len(ends), dtype=bool)
@@ -523,7 +541,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
         todo[owner[bad_k]] = True
         todo[bad_g] = True
         # every line with a vertex on a newly pinned point is snapped again with it held
-        hit = net.tree.query(shapely.points(old[bad_k]), predicate="dwithin", distance=eps)[1]
+        hit = dwithin_pairs(net.tree, net.geoms, shapely.points(old[bad_k]), eps)[1]
         todo[hit] = True
         todo &= snapped
     return final, shift, changed, held, worse
