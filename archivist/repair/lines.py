@@ -595,9 +595,7 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         if not len(owner):
             return far
         # the ends first: the distance to one target segment is convex along a segment, so no point of a segment
-        # lies farther from the targets than its two ends lie from the target nearest to either of them; where
-        # that bound is no more than the farther end's own distance, the ends decide, and only the other
-        # segments are densified
+        # lies farther from the targets than its two ends lie from the target nearest to either of them
         ends = shapely.points(np.r_[start, stop])
         (who, near), d = tree.query_nearest(ends, return_distance=True, all_matches=False)
         k = len(owner)
@@ -614,12 +612,19 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
             other_b = shapely.distance(ends[i], segs[te[k + i]])  # start to the target nearest to stop
             up[i] = np.minimum(np.maximum(de[i], other_a), np.maximum(de[k + i], other_b))
         np.maximum.at(far, owner, lo)
-        rest = np.flatnonzero(~(up <= lo))
+        # a segment whose bound is no more than what its line already reaches (the farther end of any of its
+        # segments) cannot raise the line's farthest point: only the others are densified
+        rest = np.flatnonzero(~(up <= far[owner]))
         if len(rest):
             lines = shapely.linestrings(np.stack([start[rest], stop[rest]], axis=1))
             xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
-            (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
-            np.maximum.at(far, owner[rest[idx[who]]], d)
+            bounded = np.isfinite(up[rest])
+            if bounded.all() and len(sa):  # every point of a segment lies within its bound of a target: only those are measured
+                d = _nearest_within(xy, idx, lines, up[rest], tree, sa, sb)
+                np.maximum.at(far, owner[rest[idx]], d)
+            else:
+                (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+                np.maximum.at(far, owner[rest[idx[who]]], d)
         return far
 
     b, a = _segments(before[moved]), _segments(after[moved])
@@ -637,6 +642,74 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         maybe &= after_far > np.maximum(unchanged, before_far) + 1e-9
     out[moved] = maybe
     return out
+
+
+CHUNK = 4_000_000  # point-to-segment pairs measured at once (about 100 MB of temporaries)
+BLOCK = 8  # densified points of a line that ask the index together
+
+
+def _nearest_within(xy: np.ndarray, idx: np.ndarray, lines: np.ndarray, bound: np.ndarray, tree: shapely.STRtree,
+                    sa: np.ndarray, sb: np.ndarray) -> np.ndarray:
+    """Distance from each point ``xy`` to the nearest target segment (``sa`` -> ``sb``, indexed by ``tree``).
+
+    Each point lies on ``lines[idx]`` and within ``bound[idx]`` of some target
+    segment, so its nearest one has a box meeting the point's box widened by
+    the bound (asked for blocks of points along a line, each block's box
+    widened): only those candidates are measured, on arrays, by GEOS's own
+    point-to-segment formula (``Distance::pointToSegment``), which gives the
+    distance ``query_nearest`` would.
+    """
+    # the points in blocks of BLOCK along each line, each block asking the index with its own box
+    new = np.ones(len(xy), dtype=bool)
+    new[1:] = idx[1:] != idx[:-1]
+    line_start = np.flatnonzero(new)
+    pos = np.arange(len(xy)) - np.repeat(line_start, np.diff(np.r_[line_start, len(xy)]))
+    new |= pos % BLOCK == 0
+    bs = np.flatnonzero(new)
+    blk = np.cumsum(new) - 1
+    b = np.stack([np.minimum.reduceat(xy[:, 0], bs), np.minimum.reduceat(xy[:, 1], bs),
+                  np.maximum.reduceat(xy[:, 0], bs), np.maximum.reduceat(xy[:, 1], bs)], axis=1)
+    pad = bound[idx[bs]] * (1.0 + 1e-9) + 1e-9 * np.maximum(np.abs(b).max(axis=1), 1.0)
+    li, tj = tree.query(shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad))
+    order = np.argsort(li, kind="stable")
+    li, tj = li[order], tj[order]
+    count = np.bincount(li, minlength=len(bs))
+    idx = blk
+    first = np.r_[0, np.cumsum(count)[:-1]]
+    out = np.full(len(xy), np.inf)
+    per = count[idx]
+    start = 0
+    while start < len(xy):  # points in runs of at most CHUNK pairs
+        total = np.cumsum(per[start:])
+        stop = start + max(1, int(np.searchsorted(total, CHUNK, side="right")))
+        p = np.arange(start, stop)
+        n = per[p]
+        pp = np.repeat(p, n)
+        offs = np.arange(len(pp)) - np.repeat(np.cumsum(n) - n, n)
+        t = tj[first[idx[pp]] + offs]
+        d = _point_segment(xy[pp], sa[t], sb[t])
+        has = n > 0
+        if has.any():
+            out[p[has]] = np.minimum.reduceat(d, (np.cumsum(n) - n)[has])
+        start = stop
+    lost = np.flatnonzero(~np.isfinite(out))  # none found within the bound (rounding at its edge): the index's answer
+    if len(lost):
+        (who, _), d = tree.query_nearest(shapely.points(xy[lost]), return_distance=True, all_matches=False)
+        out[lost[who]] = d
+    return out
+
+
+def _point_segment(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """GEOS ``Distance::pointToSegment`` on arrays (the same operations in the same order)."""
+    dx, dy = b[:, 0] - a[:, 0], b[:, 1] - a[:, 1]
+    len2 = dx * dx + dy * dy
+    zero = len2 == 0
+    safe = np.where(zero, 1.0, len2)
+    r = ((p[:, 0] - a[:, 0]) * dx + (p[:, 1] - a[:, 1]) * dy) / safe
+    s = ((a[:, 1] - p[:, 1]) * dx - (a[:, 0] - p[:, 0]) * dy) / safe
+    da = np.sqrt((p[:, 0] - a[:, 0]) ** 2 + (p[:, 1] - a[:, 1]) ** 2)
+    db = np.sqrt((p[:, 0] - b[:, 0]) ** 2 + (p[:, 1] - b[:, 1]) ** 2)
+    return np.where(zero | (r <= 0.0), da, np.where(r >= 1.0, db, np.abs(s) * np.sqrt(safe)))
 
 
 def _segments(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
