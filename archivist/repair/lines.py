@@ -564,8 +564,8 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     """Per line: True when the snapped line strays farther from ``targets`` than the line as drawn.
 
     The farthest any point of a line lies from the targets, measured on the
-    line densified to a quarter of the tolerance (GEOS distances to the
-    nearest target through an STRtree, whole arrays); a snap that makes it
+    line densified to a quarter of the tolerance (the distance to the nearest
+    target segment, as GEOS measures it, whole arrays); a snap that makes it
     larger would trade a line along the boundary for one that cuts across a
     bend, so it is not made. Lines equal before and after are not measured.
 
@@ -573,8 +573,11 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     move gives the same points before and after: the segments that moved are
     measured first, and the ones that did not only for a line whose moved
     segments reach farther after than before (the farthest point of the
-    whole line is the larger of the two). The answer is the one the whole
-    lines would give.
+    whole line is the larger of the two). A segment is densified only where
+    the bound its ends give could raise what its line already reaches, and
+    its points are measured only against the target segments within that
+    bound (:func:`_nearest_within`). The answer is the one the whole lines
+    would give.
     """
     out = np.zeros(len(before), dtype=bool)
     if not len(before) or not len(targets):
