@@ -63,7 +63,8 @@ class Snapped:
     held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
 
 
-def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None) -> Snapped:
+def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None,
+                       cache: dict[str, Any] | None = None) -> Snapped:
     """Lines with every vertex within ``tol`` of the ``targets`` (lineal geometries) moved onto them.
 
     A vertex farther than ``tol`` from every target never moves. A vertex
@@ -84,7 +85,8 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     moves, so the result snapped again is the same. A vertex within
     floating-point noise of a point of ``pinned`` (an (n, 2) array of
     coordinates) never moves. Works on whole arrays (STRtree queries), no
-    loop per line.
+    loop per line. ``cache`` (a dict kept by the caller for the same
+    ``targets``) keeps the targets' indexes from one call to the next.
     """
     lines = np.asarray(lines, dtype=object)
     n = len(lines)
@@ -100,9 +102,14 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     eps = noise(np.concatenate([lines[have], targets]))
     parts, owner = shapely.get_parts(lines[have], return_index=True)
     owner = have[owner]
-    ttree = shapely.STRtree(targets)
-    tv = np.unique(shapely.get_coordinates(targets), axis=0)
-    vtree = shapely.STRtree(shapely.points(tv))
+    if cache is not None and "snap" in cache:
+        ttree, tv, vtree = cache["snap"]
+    else:
+        ttree = shapely.STRtree(targets)
+        tv = np.unique(shapely.get_coordinates(targets), axis=0)
+        vtree = shapely.STRtree(shapely.points(tv))
+        if cache is not None:
+            cache["snap"] = (ttree, tv, vtree)
     ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
@@ -506,15 +513,16 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     pinned = np.zeros(len(ends), dtype=bool)
     frozen = np.zeros(n, dtype=bool)
     todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
+    caches: list[dict[str, Any]] = [{} for _ in plan]  # per group: its targets' indexes, built once for every round
     for _ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
         shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
-        for feats, targets in plan:
+        for (feats, targets), cache in zip(plan, caches):
             f = feats[todo[feats] & ~frozen[feats]]
             if not len(f):
                 continue
-            found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned])
-            w = _farther(net.geoms[f], found.geoms, targets, tol) & found.changed
+            found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned], cache)
+            w = _farther(net.geoms[f], found.geoms, targets, tol, cache) & found.changed
             ok = found.changed & ~w
             final[f[ok]] = found.geoms[ok]
             shift[f[ok]] = found.shift[ok]
@@ -560,7 +568,7 @@ def _nearest_ends(geoms: np.ndarray, feat: np.ndarray, near: np.ndarray) -> np.n
     return out
 
 
-def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
+def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: float, cache: dict[str, Any] | None = None) -> np.ndarray:
     """Per line: True when the snapped line strays farther from ``targets`` than the line as drawn.
 
     The farthest any point of a line lies from the targets, measured on the
@@ -586,9 +594,14 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     if not len(moved):
         return out
     # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
-    sa, sb, _ = segments(shapely.get_parts(targets))
-    segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
-    tree = shapely.STRtree(segs)
+    if cache is not None and "segments" in cache:
+        sa, sb, segs, tree = cache["segments"]
+    else:
+        sa, sb, _ = segments(shapely.get_parts(targets))
+        segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
+        tree = shapely.STRtree(segs)
+        if cache is not None:
+            cache["segments"] = (sa, sb, segs, tree)
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
 
