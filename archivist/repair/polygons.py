@@ -617,7 +617,7 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
     codes = _codes(state)
     new = geoms.copy()
     keep = np.ones(len(geoms), dtype=bool)
-    changes = []
+    done: list[tuple[int, list[int]]] = []
     for target, members in groups.items():  # one per merge
         parts = np.array([geoms[target]] + [geoms[m] for m in members], dtype=object)
         try:
@@ -628,11 +628,14 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
             except GEOSException:
                 continue  # left as it is; the check of the copy reports it
         keep[members] = False
-        moved = float(_shift(np.array([geoms[target]], dtype=object), np.array([new[target]], dtype=object))[0])
-        changes.append(Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
-                              (str(codes[target]),) + tuple(str(codes[m]) for m in members),
-                              float(shapely.area(shapely.union_all(geoms[members]))), moved,
-                              shapely.union_all(geoms[[target] + members]), new[target], note))
+        done.append((target, members))
+    targets = np.array([t for t, _ in done], dtype=np.int64)
+    moved = _shift(geoms[targets], new[targets]) if len(done) else np.zeros(0)  # every merged polygon at once
+    changes = [Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
+                      (str(codes[target]),) + tuple(str(codes[m]) for m in members),
+                      float(shapely.area(shapely.union_all(geoms[members]))), float(mv),
+                      shapely.union_all(geoms[[target] + members]), new[target], note)
+               for (target, members), mv in zip(done, moved)]
     _set(state, new, keep)
     return changes
 
