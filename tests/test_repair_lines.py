@@ -332,3 +332,28 @@ def test_farther_than_drawn_agrees_with_the_whole_lines_densified():
         assert np.array_equal(_farther(before, after, targets, tol), expected), trial
         farther += int(expected.sum())
     assert 0 < farther < 8 * 40  # both answers occur
+
+
+def test_nearest_target_within_a_bound_gives_the_distances_of_the_index():
+    # points densified along lines near GEOS Voronoi cell boundaries, at UTM-sized coordinates: measuring each point
+    # against the target segments within its line's bound (GEOS's point-to-segment formula on arrays) gives the
+    # distance STRtree.query_nearest gives for every point
+    from archivist.analysis.arrays import segments
+    from archivist.repair.lines import _nearest_within
+
+    rng = np.random.default_rng(3)
+    x0, y0 = 417_000.0, 6_503_000.0
+    cells = shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 100, (40, 2)) + [x0, y0]),
+                                     extend_to=box(x0, y0, x0 + 100, y0 + 100))
+    sa, sb, _ = segments(shapely.get_parts(shapely.boundary(shapely.get_parts(cells))))
+    tree = shapely.STRtree(shapely.linestrings(np.stack([sa, sb], axis=1)))
+    lines = shapely.linestrings(rng.uniform(0, 100, (60, 2, 2)) + [x0, y0])
+    xy, idx = shapely.get_coordinates(shapely.segmentize(lines, 0.25), return_index=True)
+    (who, _), expected = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+    want = np.empty(len(xy))
+    want[who] = expected
+    bound = np.zeros(len(lines))
+    np.maximum.at(bound, idx, want)  # each line's farthest point: every point lies within it of a target
+    got = _nearest_within(xy, idx, lines, bound, tree, sa, sb)
+    assert np.allclose(got, want, rtol=0, atol=1e-9)
+    assert np.mean(got == want) > 0.99  # the same arithmetic as GEOS: equal to the last bit nearly everywhere

@@ -32,7 +32,7 @@ from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
 from ..analysis.messages import ABOVE
-from ..analysis.nearness import undrawn_boundaries
+from ..analysis.nearness import dwithin_pairs, undrawn_boundaries
 from ..analysis.polygons import read_units
 from .model import FEATURE_ID, GENERATED_FIELD, SOURCE_LAYER, Change, Left
 from .registry import repair
@@ -63,7 +63,8 @@ class Snapped:
     held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
 
 
-def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None) -> Snapped:
+def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None,
+                       cache: dict[str, Any] | None = None) -> Snapped:
     """Lines with every vertex within ``tol`` of the ``targets`` (lineal geometries) moved onto them.
 
     A vertex farther than ``tol`` from every target never moves. A vertex
@@ -84,7 +85,8 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     moves, so the result snapped again is the same. A vertex within
     floating-point noise of a point of ``pinned`` (an (n, 2) array of
     coordinates) never moves. Works on whole arrays (STRtree queries), no
-    loop per line.
+    loop per line. ``cache`` (a dict kept by the caller for the same
+    ``targets``) keeps the targets' indexes from one call to the next.
     """
     lines = np.asarray(lines, dtype=object)
     n = len(lines)
@@ -100,13 +102,18 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     eps = noise(np.concatenate([lines[have], targets]))
     parts, owner = shapely.get_parts(lines[have], return_index=True)
     owner = have[owner]
-    ttree = shapely.STRtree(targets)
-    tv = np.unique(shapely.get_coordinates(targets), axis=0)
-    vtree = shapely.STRtree(shapely.points(tv))
+    if cache is not None and "snap" in cache:
+        ttree, tv, vtree = cache["snap"]
+    else:
+        ttree = shapely.STRtree(targets)
+        tv = np.unique(shapely.get_coordinates(targets), axis=0)
+        vtree = shapely.STRtree(shapely.points(tv))
+        if cache is not None:
+            cache["snap"] = (ttree, tv, vtree)
     ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
-    active = np.arange(len(parts))
+    active = np.flatnonzero(~_on_vertices(parts, tv))
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
@@ -136,6 +143,24 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
 
 
 MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
+
+
+def _on_vertices(parts: np.ndarray, tv: np.ndarray) -> np.ndarray:
+    """Per LineString part: every vertex is exactly one of the target vertices ``tv`` and no two in a row are equal.
+
+    Such a part comes out of :func:`_snap_parts` as it went in (each vertex's
+    nearest target vertex is itself, at distance 0, and removing repeated
+    points removes none), so it need not be measured at all.
+    """
+    xy, part = shapely.get_coordinates(parts, return_index=True)
+    if not len(xy):
+        return np.ones(len(parts), dtype=bool)
+    key = xy[:, 0] + 1j * xy[:, 1]
+    on = np.isin(key, tv[:, 0] + 1j * tv[:, 1])
+    repeat = np.zeros(len(xy), dtype=bool)
+    repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
+    bad = np.bincount(part, weights=(~on | repeat), minlength=len(parts)) > 0
+    return ~bad
 
 
 def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
@@ -221,7 +246,7 @@ def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact"
         return out, []
     eps = noise(net.geoms)
     pts = ends.points[cand]
-    pi, fj = net.tree.query(pts, predicate="dwithin", distance=tol)
+    pi, fj = dwithin_pairs(net.tree, net.geoms, pts, tol)
     keep = fj != ends.feat[cand][pi]
     pi, fj = pi[keep], fj[keep]
     d = shapely.distance(pts[pi], net.geoms[fj])
@@ -482,21 +507,22 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     ends = np.r_[net.part_off[parts], net.part_off[parts + 1] - 1]
     owner = np.r_[net.part_feat[parts], net.part_feat[parts]]
     old = net.coords[ends]
-    ki, g = net.tree.query(shapely.points(old), predicate="dwithin", distance=eps) if len(ends) else (np.empty(0, dtype=np.int64),) * 2
+    ki, g = dwithin_pairs(net.tree, net.geoms, shapely.points(old), eps) if len(ends) else (np.empty(0, dtype=np.int64),) * 2
     other = g != owner[ki]
     ki, g = ki[other], g[other]
     pinned = np.zeros(len(ends), dtype=bool)
     frozen = np.zeros(n, dtype=bool)
     todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
+    caches: list[dict[str, Any]] = [{} for _ in plan]  # per group: its targets' indexes, built once for every round
     for _ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
         shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
-        for feats, targets in plan:
+        for (feats, targets), cache in zip(plan, caches):
             f = feats[todo[feats] & ~frozen[feats]]
             if not len(f):
                 continue
-            found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned])
-            w = _farther(net.geoms[f], found.geoms, targets, tol) & found.changed
+            found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned], cache)
+            w = _farther(net.geoms[f], found.geoms, targets, tol, cache) & found.changed
             ok = found.changed & ~w
             final[f[ok]] = found.geoms[ok]
             shift[f[ok]] = found.shift[ok]
@@ -523,7 +549,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
         todo[owner[bad_k]] = True
         todo[bad_g] = True
         # every line with a vertex on a newly pinned point is snapped again with it held
-        hit = net.tree.query(shapely.points(old[bad_k]), predicate="dwithin", distance=eps)[1]
+        hit = dwithin_pairs(net.tree, net.geoms, shapely.points(old[bad_k]), eps)[1]
         todo[hit] = True
         todo &= snapped
     return final, shift, changed, held, worse
@@ -542,12 +568,12 @@ def _nearest_ends(geoms: np.ndarray, feat: np.ndarray, near: np.ndarray) -> np.n
     return out
 
 
-def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: float) -> np.ndarray:
+def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: float, cache: dict[str, Any] | None = None) -> np.ndarray:
     """Per line: True when the snapped line strays farther from ``targets`` than the line as drawn.
 
     The farthest any point of a line lies from the targets, measured on the
-    line densified to a quarter of the tolerance (GEOS distances to the
-    nearest target through an STRtree, whole arrays); a snap that makes it
+    line densified to a quarter of the tolerance (the distance to the nearest
+    target segment, as GEOS measures it, whole arrays); a snap that makes it
     larger would trade a line along the boundary for one that cuts across a
     bend, so it is not made. Lines equal before and after are not measured.
 
@@ -555,8 +581,11 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     move gives the same points before and after: the segments that moved are
     measured first, and the ones that did not only for a line whose moved
     segments reach farther after than before (the farthest point of the
-    whole line is the larger of the two). The answer is the one the whole
-    lines would give.
+    whole line is the larger of the two). A segment is densified only where
+    the bound its ends give could raise what its line already reaches, and
+    its points are measured only against the target segments within that
+    bound (:func:`_nearest_within`). The answer is the one the whole lines
+    would give.
     """
     out = np.zeros(len(before), dtype=bool)
     if not len(before) or not len(targets):
@@ -565,9 +594,14 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     if not len(moved):
         return out
     # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
-    sa, sb, _ = segments(shapely.get_parts(targets))
-    segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
-    tree = shapely.STRtree(segs)
+    if cache is not None and "segments" in cache:
+        sa, sb, segs, tree = cache["segments"]
+    else:
+        sa, sb, _ = segments(shapely.get_parts(targets))
+        segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
+        tree = shapely.STRtree(segs)
+        if cache is not None:
+            cache["segments"] = (sa, sb, segs, tree)
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
 
@@ -577,9 +611,7 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         if not len(owner):
             return far
         # the ends first: the distance to one target segment is convex along a segment, so no point of a segment
-        # lies farther from the targets than its two ends lie from the target nearest to either of them; where
-        # that bound is no more than the farther end's own distance, the ends decide, and only the other
-        # segments are densified
+        # lies farther from the targets than its two ends lie from the target nearest to either of them
         ends = shapely.points(np.r_[start, stop])
         (who, near), d = tree.query_nearest(ends, return_distance=True, all_matches=False)
         k = len(owner)
@@ -596,12 +628,19 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
             other_b = shapely.distance(ends[i], segs[te[k + i]])  # start to the target nearest to stop
             up[i] = np.minimum(np.maximum(de[i], other_a), np.maximum(de[k + i], other_b))
         np.maximum.at(far, owner, lo)
-        rest = np.flatnonzero(~(up <= lo))
+        # a segment whose bound is no more than what its line already reaches (the farther end of any of its
+        # segments) cannot raise the line's farthest point: only the others are densified
+        rest = np.flatnonzero(~(up <= far[owner]))
         if len(rest):
             lines = shapely.linestrings(np.stack([start[rest], stop[rest]], axis=1))
             xy, idx = shapely.get_coordinates(shapely.segmentize(lines, step), return_index=True)
-            (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
-            np.maximum.at(far, owner[rest[idx[who]]], d)
+            bounded = np.isfinite(up[rest])
+            if bounded.all() and len(sa):  # every point of a segment lies within its bound of a target: only those are measured
+                d = _nearest_within(xy, idx, lines, up[rest], tree, sa, sb)
+                np.maximum.at(far, owner[rest[idx]], d)
+            else:
+                (who, _), d = tree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+                np.maximum.at(far, owner[rest[idx[who]]], d)
         return far
 
     b, a = _segments(before[moved]), _segments(after[moved])
@@ -619,6 +658,74 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         maybe &= after_far > np.maximum(unchanged, before_far) + 1e-9
     out[moved] = maybe
     return out
+
+
+CHUNK = 4_000_000  # point-to-segment pairs measured at once (about 100 MB of temporaries)
+BLOCK = 8  # densified points of a line that ask the index together
+
+
+def _nearest_within(xy: np.ndarray, idx: np.ndarray, lines: np.ndarray, bound: np.ndarray, tree: shapely.STRtree,
+                    sa: np.ndarray, sb: np.ndarray) -> np.ndarray:
+    """Distance from each point ``xy`` to the nearest target segment (``sa`` -> ``sb``, indexed by ``tree``).
+
+    Each point lies on ``lines[idx]`` and within ``bound[idx]`` of some target
+    segment, so its nearest one has a box meeting the point's box widened by
+    the bound (asked for blocks of points along a line, each block's box
+    widened): only those candidates are measured, on arrays, by GEOS's own
+    point-to-segment formula (``Distance::pointToSegment``), which gives the
+    distance ``query_nearest`` would.
+    """
+    # the points in blocks of BLOCK along each line, each block asking the index with its own box
+    new = np.ones(len(xy), dtype=bool)
+    new[1:] = idx[1:] != idx[:-1]
+    line_start = np.flatnonzero(new)
+    pos = np.arange(len(xy)) - np.repeat(line_start, np.diff(np.r_[line_start, len(xy)]))
+    new |= pos % BLOCK == 0
+    bs = np.flatnonzero(new)
+    blk = np.cumsum(new) - 1
+    b = np.stack([np.minimum.reduceat(xy[:, 0], bs), np.minimum.reduceat(xy[:, 1], bs),
+                  np.maximum.reduceat(xy[:, 0], bs), np.maximum.reduceat(xy[:, 1], bs)], axis=1)
+    pad = bound[idx[bs]] * (1.0 + 1e-9) + 1e-9 * np.maximum(np.abs(b).max(axis=1), 1.0)
+    li, tj = tree.query(shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad))
+    order = np.argsort(li, kind="stable")
+    li, tj = li[order], tj[order]
+    count = np.bincount(li, minlength=len(bs))
+    idx = blk
+    first = np.r_[0, np.cumsum(count)[:-1]]
+    out = np.full(len(xy), np.inf)
+    per = count[idx]
+    start = 0
+    while start < len(xy):  # points in runs of at most CHUNK pairs
+        total = np.cumsum(per[start:])
+        stop = start + max(1, int(np.searchsorted(total, CHUNK, side="right")))
+        p = np.arange(start, stop)
+        n = per[p]
+        pp = np.repeat(p, n)
+        offs = np.arange(len(pp)) - np.repeat(np.cumsum(n) - n, n)
+        t = tj[first[idx[pp]] + offs]
+        d = _point_segment(xy[pp], sa[t], sb[t])
+        has = n > 0
+        if has.any():
+            out[p[has]] = np.minimum.reduceat(d, (np.cumsum(n) - n)[has])
+        start = stop
+    lost = np.flatnonzero(~np.isfinite(out))  # none found within the bound (rounding at its edge): the index's answer
+    if len(lost):
+        (who, _), d = tree.query_nearest(shapely.points(xy[lost]), return_distance=True, all_matches=False)
+        out[lost[who]] = d
+    return out
+
+
+def _point_segment(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """GEOS ``Distance::pointToSegment`` on arrays (the same operations in the same order)."""
+    dx, dy = b[:, 0] - a[:, 0], b[:, 1] - a[:, 1]
+    len2 = dx * dx + dy * dy
+    zero = len2 == 0
+    safe = np.where(zero, 1.0, len2)
+    r = ((p[:, 0] - a[:, 0]) * dx + (p[:, 1] - a[:, 1]) * dy) / safe
+    s = ((a[:, 1] - p[:, 1]) * dx - (a[:, 0] - p[:, 0]) * dy) / safe
+    da = np.sqrt((p[:, 0] - a[:, 0]) ** 2 + (p[:, 1] - a[:, 1]) ** 2)
+    db = np.sqrt((p[:, 0] - b[:, 0]) ** 2 + (p[:, 1] - b[:, 1]) ** 2)
+    return np.where(zero | (r <= 0.0), da, np.where(r >= 1.0, db, np.abs(s) * np.sqrt(safe)))
 
 
 def _segments(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

@@ -465,13 +465,23 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             if p.width > cov.tol * ABOVE:
                 hold[units.rows[list(p.units)]] = True
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
-    # a polygon GEOS would move too far keeps its input and is cleaned no more: the cleaning is run again without
-    # it, so that its neighbours are not left fitted to a version of it that is not kept
-    for _ in range(MAX_CLEAN_ROUNDS):
-        sel = np.flatnonzero(~hold & ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows))
+    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
+    n = len(geoms)
+    current = geoms.copy()  # per polygon: as the cleaning left it (its input where it was not cleaned)
+    same_r, moved_r = np.ones(n, dtype=bool), np.zeros(n)
+    too_far_r, lost_r = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
+    region = usable.copy()  # the first cleaning: the whole map
+    near: _Near | None = None
+    rounds = 0
+    # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
+    # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
+    # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned again no longer
+    # fits one outside (GEOS's coverage validation of the two), that one joins and the cleaning is run again
+    while rounds < MAX_CLEAN_ROUNDS:
+        sel = np.flatnonzero(~hold & usable & region)
         work = geoms[sel]
         order = np.arange(len(work))
-        back = [(n, put_back[k]) for n, k in enumerate(sel.tolist()) if k in put_back]
+        back = [(k_, put_back[k]) for k_, k in enumerate(sel.tolist()) if k in put_back]
         if strategy == "min_index":
             age = _age_rank(state, codes[sel])
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
@@ -479,39 +489,88 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         cleaned = np.empty(len(work), dtype=object)
         cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
                                                 merge_strategy=strategy)
-        for n, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+        for k_, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
             try:
-                cleaned[n] = shapely.union(cleaned[n], piece)
-                if shapely.equals(cleaned[n], work[n]):  # nothing else changed: the input as it was (its vertices)
-                    cleaned[n] = work[n]
+                cleaned[k_] = shapely.union(cleaned[k_], piece)
+                if shapely.equals(cleaned[k_], work[k_]):  # nothing else changed: the input as it was (its vertices)
+                    cleaned[k_] = work[k_]
             except GEOSException:
-                cleaned[n] = work[n]
+                cleaned[k_] = work[k_]
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+        if near is not None:
+            grow = _unfitted(near, sel, cleaned, region, current)
+            if grow.any():
+                region |= grow
+                continue
         moved = _shift(work, cleaned)
         too_far = moved > settings.tolerance * ABOVE
         lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        current[sel] = cleaned
+        same_r[sel], moved_r[sel], too_far_r[sel], lost_r[sel] = same, moved, too_far, lost
         bad = (too_far | lost) & ~same
         if not bad.any():
             break
-        hold[sel[bad]] = True
-        refused.update({int(k): float(m) for k, m in zip(sel[bad], moved[bad])})
+        held = sel[bad]
+        hold[held] = True
+        refused.update({int(k): float(m) for k, m in zip(held, moved[bad])})
+        current[held] = geoms[held]
+        same_r[held] = True
+        if near is None:
+            near = _Near(geoms, usable, settings.tolerance)
+        region = near.of(held)
+        rounds += 1
     else:
-        same = np.ones(len(work), dtype=bool)  # still moving too far after every round: nothing is cleaned
-    take = ~same & ~too_far & ~lost
+        same_r[:] = True  # still moving too far after every round: nothing is cleaned
+    take = np.flatnonzero(usable & ~hold & ~same_r & ~too_far_r & ~lost_r)
     new = geoms.copy()
-    new[sel[take]] = cleaned[take]
+    new[take] = current[take]
     _set(state, new)
     left = [Left("snap-edges", "units", (str(ids[k]),), f"snapping would move it by {m:.3f} m, more than the snapping distance",
                  geoms[k], float(m)) for k, m in refused.items()]
-    area_change = np.abs(shapely.area(cleaned[take]) - shapely.area(work[take]))
+    area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'")
-               for k, ar, m in zip(sel[take], area_change, moved[take])]
+               for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
 
 
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
+
+
+def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.ndarray, current: np.ndarray) -> np.ndarray:
+    """The polygons outside ``region`` that no longer fit the polygons ``sel`` as ``cleaned`` (as ``current`` has them).
+
+    GEOS's coverage validation (``shapely.coverage_invalid_edges``) of the
+    cleaned polygons together with the polygons outside within the snapping
+    distance of them: one with an invalid edge there no longer fits.
+    """
+    out = np.zeros(near.n, dtype=bool)
+    outside = np.flatnonzero(near.of(sel) & ~region)
+    if not len(outside):
+        return out
+    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned, current[outside]], gap_width=0.0))
+    out[outside[bad[len(cleaned):]]] = True
+    return out
+
+
+class _Near:
+    """The polygons within a distance of given polygons (an STRtree over the usable ones, built once)."""
+
+    def __init__(self, geoms: np.ndarray, usable: np.ndarray, distance: float) -> None:
+        self.n = len(geoms)
+        self.rows = np.flatnonzero(usable)
+        self.geoms = geoms
+        self.tree = shapely.STRtree(geoms[self.rows])
+        self.distance = distance
+
+    def of(self, which: np.ndarray) -> np.ndarray:
+        """Boolean mask: the usable polygons within the distance of any of the polygons ``which`` (row positions)."""
+        out = np.zeros(self.n, dtype=bool)
+        if len(which):
+            _, k = self.tree.query(self.geoms[which], predicate="dwithin", distance=self.distance)
+            out[self.rows[k]] = True
+        return out
 
 
 def _single(geoms: np.ndarray) -> np.ndarray:
@@ -558,7 +617,7 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
     codes = _codes(state)
     new = geoms.copy()
     keep = np.ones(len(geoms), dtype=bool)
-    changes = []
+    done: list[tuple[int, list[int]]] = []
     for target, members in groups.items():  # one per merge
         parts = np.array([geoms[target]] + [geoms[m] for m in members], dtype=object)
         try:
@@ -569,11 +628,14 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
             except GEOSException:
                 continue  # left as it is; the check of the copy reports it
         keep[members] = False
-        moved = float(_shift(np.array([geoms[target]], dtype=object), np.array([new[target]], dtype=object))[0])
-        changes.append(Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
-                              (str(codes[target]),) + tuple(str(codes[m]) for m in members),
-                              float(shapely.area(shapely.union_all(geoms[members]))), moved,
-                              shapely.union_all(geoms[[target] + members]), new[target], note))
+        done.append((target, members))
+    targets = np.array([t for t, _ in done], dtype=np.int64)
+    moved = _shift(geoms[targets], new[targets]) if len(done) else np.zeros(0)  # every merged polygon at once
+    changes = [Change(name, "units", (str(ids[target]),) + tuple(str(ids[m]) for m in members), (str(ids[target]),),
+                      (str(codes[target]),) + tuple(str(codes[m]) for m in members),
+                      float(shapely.area(shapely.union_all(geoms[members]))), float(mv),
+                      shapely.union_all(geoms[[target] + members]), new[target], note)
+               for (target, members), mv in zip(done, moved)]
     _set(state, new, keep)
     return changes
 

@@ -7,7 +7,8 @@ For each size a map is written (``tests/coverage_builders.py`` through
 1:10 000, tolerance 1 m) and, with ``--density`` d, d x N polygons get each
 repairable defect (this script's own injector): grown over the neighbours by
 half the tolerance (overlaps), shrunk by half the tolerance (thin gaps), one
-vertex moved by half the tolerance (edge misfits), a 2 m rim cut off as a
+vertex moved by half the tolerance (edge misfits; the first vertex whose move
+leaves the polygon valid: a self-intersection is not a kind repair makes), a 2 m rim cut off as a
 polygon of another unit (slivers), and recoded to a neighbour's unit across a
 contact (same-unit neighbours). One process then times, side by side:
 
@@ -75,10 +76,17 @@ def inject(smap, density: float, seed: int = 1):
     d = smap.tolerance / 2
     g[grow] = shapely.intersection(shapely.buffer(g[grow], d, quad_segs=2), smap.extent)
     g[shrink] = shapely.buffer(g[shrink], -d, quad_segs=2)
-    for p in nudge:
-        xy = shapely.get_coordinates(g[p])
-        xy[1] += d
-        g[p] = shapely.set_coordinates(g[p], xy)
+    for p in nudge:  # the first vertex whose move leaves the polygon valid (a self-intersection is not a repairable kind)
+        for v in range(1, shapely.get_num_coordinates(g[p]) - 1):
+            xy = shapely.get_coordinates(g[p])
+            xy[v] += d
+            try:
+                moved = shapely.set_coordinates(shapely.from_wkb(shapely.to_wkb(g[p])), xy)
+            except shapely.errors.GEOSException:  # the closing vertex of a ring: not moved alone
+                continue
+            if shapely.is_valid(moved):
+                g[p] = moved
+                break
     rims = shapely.difference(g[rim], shapely.buffer(g[rim], -2.0, join_style="mitre"))
     g[rim] = shapely.buffer(g[rim], -2.0, join_style="mitre")
     for p in recode:
