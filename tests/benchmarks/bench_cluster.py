@@ -36,7 +36,10 @@ memory is one tile's, about 300 MB at any size), with ``--density D`` (a
 fraction D of the features carrying each kind of editing defect, at scale
 1:5 000, as the topology benchmark's density maps). ``--no-one-process``
 skips the one-process run (for a map one process cannot hold; the reports are
-then not compared) and ``--modes`` picks the cluster runs (``sent``: the
+then not compared), ``--partitioned-only`` checks only the rules registered
+``partitioned=True`` (a whole check sends no family to the cluster while
+every family holds a rule that runs on the whole map: the client then runs
+the whole check), and ``--modes`` picks the cluster runs (``sent``: the
 features sent with the tasks, as ``--scheduler local`` does; ``read``: read by
 the workers).
 
@@ -71,7 +74,7 @@ def peak_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
-def one_process(folder: Path, out: Path) -> dict:
+def one_process(folder: Path, out: Path, partitioned_only: bool = False) -> dict:
     import archivist
     from archivist.project import load_project
     from archivist.report import render_json
@@ -80,14 +83,23 @@ def one_process(folder: Path, out: Path) -> dict:
     project = load_project(folder)
     t_load = time.perf_counter() - t
     t = time.perf_counter()
-    report = archivist.check(project, jobs=1)
+    report = archivist.check(project, rules=chosen_rules(partitioned_only), jobs=1)
     t_check = time.perf_counter() - t
     out.write_text(render_json(report), encoding="utf-8")
     return {"load": t_load, "check": t_check, "peak_mb": peak_mb(), "findings": len(report.findings),
             "polygons": len(project.layers["units"].frame), "lines": len(project.layers["lines"].frame)}
 
 
-def on_cluster(folder: Path, reference: Path, workers: int | None, memory: str | None, read: bool) -> dict:
+def chosen_rules(partitioned_only: bool) -> tuple[str, ...]:
+    """The rule ids to check: every rule (empty), or those registered ``partitioned=True``."""
+    if not partitioned_only:
+        return ()
+    from archivist.registry import all_rules
+
+    return tuple(info.id for info in all_rules() if info.partitioned)
+
+
+def on_cluster(folder: Path, reference: Path, workers: int | None, memory: str | None, read: bool, partitioned_only: bool = False) -> dict:
     from archivist import engine
     from archivist.cluster import open_executor, partitions
     from archivist.project import load_project
@@ -104,7 +116,7 @@ def on_cluster(folder: Path, reference: Path, workers: int | None, memory: str |
         loaded_mb = peak_mb()
         parts = partitions(project, executor.workers)
         t = time.perf_counter()
-        report = engine.check(project, executor=executor, parts=parts, progress=watch)
+        report = engine.check(project, rules=chosen_rules(partitioned_only), executor=executor, parts=parts, progress=watch)
         t_check = time.perf_counter() - t
         client = executor.inner._client
         worker_peaks = sorted(v / 1024.0 for v in client.run(_worker_peak_kib).values())
@@ -160,16 +172,18 @@ def main(argv=None) -> int:
     ap.add_argument("--tiled", action="store_true", help="write the map tile by tile (topology_maps.py --tiled)")
     ap.add_argument("--density", type=float, default=0.0, help="with --tiled: fraction of features carrying each kind of defect")
     ap.add_argument("--no-one-process", action="store_true", help="skip the one-process run (the reports are not compared)")
+    ap.add_argument("--partitioned-only", action="store_true",
+                    help="check only the rules registered partitioned=True (the only ones a cluster runs)")
     ap.add_argument("--modes", nargs="+", choices=("sent", "read"), default=["sent", "read"], help="cluster runs to make")
     ap.add_argument("--_one", nargs=2, type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--_cluster", nargs=2, type=Path, help=argparse.SUPPRESS)
     ap.add_argument("--_read", action="store_true", help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args._one:
-        print(json.dumps(one_process(*args._one)))
+        print(json.dumps(one_process(*args._one, args.partitioned_only)))
         return 0
     if args._cluster:
-        print(json.dumps(on_cluster(*args._cluster, args.workers, args.worker_memory, args._read)))
+        print(json.dumps(on_cluster(*args._cluster, args.workers, args.worker_memory, args._read, args.partitioned_only)))
         return 0
     if args.density and not args.tiled:
         ap.error("--density goes with --tiled")
@@ -188,12 +202,15 @@ def main(argv=None) -> int:
         subprocess.run([sys.executable, str(HERE / "topology_maps.py"), str(folder), str(args.size), "--seed", str(args.seed), *how],
                        check=True, stdout=subprocess.DEVNULL)
         print(f"(generated {folder.name} in {time.perf_counter() - t:.0f} s)", flush=True)
-    reference = work / f"{folder.name}.one-process.json"
-    extra = [*(["--workers", str(args.workers)] if args.workers else []), *(["--worker-memory", args.worker_memory] if args.worker_memory else [])]
+    reference = work / f"{folder.name}.one-process{'.partitioned' if args.partitioned_only else ''}.json"
+    extra = [*(["--workers", str(args.workers)] if args.workers else []), *(["--worker-memory", args.worker_memory] if args.worker_memory else []),
+             *(["--partitioned-only"] if args.partitioned_only else [])]
     one = None
     if not args.no_one_process:
         print(f"one process ({load()})", flush=True)
-        out = subprocess.run([sys.executable, __file__, "--_one", str(folder), str(reference)], check=True, capture_output=True, text=True)
+        out = subprocess.run([sys.executable, __file__, "--_one", str(folder), str(reference),
+                              *(["--partitioned-only"] if args.partitioned_only else [])],
+                             check=True, capture_output=True, text=True)
         one = json.loads(out.stdout.strip().splitlines()[-1])
         print(f"  {one['polygons']} polygons, {one['lines']} lines: load {one['load']:.1f} s, check {one['check']:.1f} s, "
               f"peak {one['peak_mb']:.0f} MB, {one['findings']} findings", flush=True)
