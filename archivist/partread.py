@@ -188,6 +188,9 @@ def _read_layer(rows: FileRows) -> Any:
         raise ReadMismatch(f"{rows.path}:{rows.layer}: {exc}") from None
     frame.index = frame.index.astype(template.index.dtype)
     frame.index.name = template.index.name
+    from .project import share_text
+
+    frame = share_text(frame)  # equal text values as one object, as the client's loader holds them
     if template.crs is not None:
         frame = frame.set_crs(template.crs, allow_override=True)
     if fingerprint(frame) != rows.digest:

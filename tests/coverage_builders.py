@@ -183,7 +183,14 @@ def write_map(smap: SyntheticMap, folder: Path, *, extent: bool = True, name: st
     lines.index = np.arange(1, len(lines) + 1)
     lines.index.name = "fid"
     pyogrio.write_dataframe(lines.reset_index(), gpkg, layer="lines", driver="GPKG")
-    layers = """
+    layers = _LAYERS
+    if extent:
+        pyogrio.write_dataframe(gpd.GeoDataFrame({"name": ["map sheet"]}, geometry=[smap.extent], crs=smap.units.crs), gpkg, layer="extent", driver="GPKG")
+        layers += _EXTENT_LAYER
+    return _write_manifest(folder, smap.scale, name, layers)
+
+
+_LAYERS = """
 [layers.units]
 path = "map.gpkg"
 layer = "units"
@@ -195,14 +202,15 @@ layer = "lines"
 kind_field = "kind"
 certainty_field = "certainty"
 """
-    if extent:
-        pyogrio.write_dataframe(gpd.GeoDataFrame({"name": ["map sheet"]}, geometry=[smap.extent], crs=smap.units.crs), gpkg, layer="extent", driver="GPKG")
-        layers += '\n[layers.extent]\npath = "map.gpkg"\nlayer = "extent"\n'
+_EXTENT_LAYER = '\n[layers.extent]\npath = "map.gpkg"\nlayer = "extent"\n'
+
+
+def _write_manifest(folder: Path, scale: int, name: str, layers: str) -> Path:
     (folder / "archivist.toml").write_text(
         f"""[map]
 title = "{name}"
 version = "1.0.0"
-scale = {smap.scale}
+scale = {scale}
 crs = "{CRS}"
 licence = "CC-BY-4.0"
 abstract = "An invented map generated for tests."
@@ -378,3 +386,290 @@ def square_map(tmp_path, name="square", *, a=None, b=None, extra=(), codes=None,
     if tolerance is not None:
         manifest["checks"] = {"tolerance": tolerance}
     return tiny_project(tmp_path, name=name, units=unit_frame(*geoms, codes=codes), lines=line_frame(*rows), extent=extent, manifest=manifest)
+
+
+# ---------------------------------------------------------------- tiled maps of millions of polygons
+# synthetic_map() builds one GEOS Voronoi diagram of the whole map: its memory
+# grows with the map (4 x 10^6 polygons did not fit in 23 GB). write_tiled_map()
+# builds a map of the same kind tile by tile and appends each tile to the
+# GeoPackage, so it holds one tile (and one row of seam records) at a time.
+#
+# The cells are the quadrilaterals of a jittered grid of vertices, each
+# vertex's offset a hash of its grid position and the seed: two tiles compute
+# the vertices of their common seam identically, so neighbouring polygons
+# share their vertices exactly across tiles and the coverage is valid. The
+# map's outer vertices move only along the map edge (the map is a rectangle).
+# Cells are grouped into polygons by their nearest seed, within a tile (a
+# polygon never crosses a seam); units are drawn so that neighbours in one
+# fault block differ, across seams too (each tile keeps the unit and block of
+# its last column and row for the next tiles). Lines are made of the cells'
+# own edges: contacts per pair of polygons, faults per pair of fault blocks
+# and tile, the map boundary as one closed ring, and a few short faults
+# ending inside polygons. Defects (density) are given tile by tile with
+# with_defect_density().
+
+_MASK64 = np.uint64(0xFFFFFFFFFFFFFFFF)
+
+
+def _unit_hash(seed: int, keys: np.ndarray, salt: int) -> np.ndarray:
+    """A uniform number in [0, 1) per integer key: splitmix64 of (seed, salt, key), vectorised."""
+    with np.errstate(over="ignore"):
+        z = keys.astype(np.uint64) * np.uint64(0x9E3779B97F4A7C15) + np.uint64((seed * 1_000_003 + salt) & 0xFFFFFFFF) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+        z = z ^ (z >> np.uint64(31))
+    return (z >> np.uint64(11)).astype(np.float64) / float(1 << 53)
+
+
+@dataclass(frozen=True)
+class TiledGrid:
+    """The jittered vertex grid of a tiled map: ``cols`` x ``rows`` cells of ``step`` metres from ``origin``."""
+
+    cols: int
+    rows: int
+    step: float
+    origin: tuple[float, float]
+    seed: int
+    jitter: float = 0.25  # of a cell, on each axis: quadrilaterals stay simple (common practice for jittered meshes)
+
+    def vertices(self, r0: int, r1: int, c0: int, c1: int) -> np.ndarray:
+        """Coordinates of vertices rows r0..r1, columns c0..c1 (inclusive), shape (r1-r0+1, c1-c0+1, 2), rounded to 1 cm."""
+        R, C = np.meshgrid(np.arange(r0, r1 + 1), np.arange(c0, c1 + 1), indexing="ij")
+        key = R.astype(np.int64) * (self.cols + 1) + C
+        jx = (2 * _unit_hash(self.seed, key, 1) - 1) * self.jitter
+        jy = (2 * _unit_hash(self.seed, key, 2) - 1) * self.jitter
+        jx[(C == 0) | (C == self.cols)] = 0.0  # the map's west and east edges stay straight
+        jy[(R == 0) | (R == self.rows)] = 0.0
+        x = self.origin[0] + (C + jx) * self.step
+        y = self.origin[1] + (R + jy) * self.step
+        return np.round(np.stack([x, y], axis=-1), 2)
+
+    def frame_ring(self) -> np.ndarray:
+        """The map's outer vertices, anticlockwise from the south-west corner, closed."""
+        south = self.vertices(0, 0, 0, self.cols)[0]
+        east = self.vertices(0, self.rows, self.cols, self.cols)[:, 0]
+        north = self.vertices(self.rows, self.rows, 0, self.cols)[0][::-1]
+        west = self.vertices(0, self.rows, 0, 0)[:, 0][::-1]
+        return np.concatenate([south, east[1:], north[1:], west[1:]])
+
+
+def _fault_block(x: np.ndarray, y: np.ndarray, n_faults: int) -> np.ndarray:
+    """Fault block of points given as fractions of the map's width and height: left of wavy N-S traces."""
+    block = np.zeros(len(x), dtype=np.int64)
+    for k in range(n_faults):
+        x0 = (k + 1) / (n_faults + 1)
+        trace = x0 + 0.06 * np.sin(2 * np.pi * (y * (1.3 + 0.4 * k) + 0.7 * k)) + 0.03 * (y - 0.5)
+        block += x > trace
+    return block
+
+
+def _colour_with_fixed(pairs: np.ndarray, fixed: np.ndarray, n: int, n_units: int, block: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Unit index per polygon: neighbours in one block differ, also from already coloured polygons across a seam.
+
+    ``pairs``: (a, b) of this tile's neighbouring polygons; ``fixed``: (a, block, unit) of a polygon of
+    this tile against a neighbour coloured before.
+    """
+    codes = rng.integers(0, n_units, n)
+    a, b = pairs[:, 0], pairs[:, 1]
+    same_block = block[a] == block[b]
+    fa, fb, fu = fixed[:, 0], fixed[:, 1], fixed[:, 2]
+    seam = block[fa] == fb
+    for _ in range(1000):
+        clash = same_block & (codes[a] == codes[b])
+        fclash = seam & (codes[fa] == fu)
+        if not clash.any() and not fclash.any():
+            return codes
+        redo = np.unique(np.r_[b[clash], fa[fclash]])
+        codes[redo] = rng.integers(0, n_units, len(redo))
+    raise RuntimeError("could not colour the tiled synthetic map")
+
+
+def tiled_map_tiles(
+    n_polygons: int,
+    *,
+    seed: int = 0,
+    spacing: float = 100.0,
+    cells_per_polygon: int = 3,
+    n_units: int = 10,
+    n_faults: int = 2,
+    splay_fraction: float = 0.002,
+    tile_cells: int = 256,
+    origin: tuple[float, float] = ORIGIN,
+):
+    """The grid, then (units, lines) GeoDataFrames of one tile at a time (lines without the map boundary).
+
+    Yields ``grid`` first (a :class:`TiledGrid`), then one ``(units, lines)``
+    pair per tile, west to east, south to north. Units have columns unit,
+    block; lines kind, certainty.
+    """
+    side = max(1, round(math.sqrt(n_polygons * cells_per_polygon)))
+    step = spacing / math.sqrt(cells_per_polygon)  # a polygon of ``cells_per_polygon`` cells is about spacing^2
+    grid = TiledGrid(side, side, step, origin, seed)
+    yield grid
+    names = np.array([f"U{k + 1:02d}" for k in range(n_units)], dtype=object)
+    n_tiles = -(-side // tile_cells)
+    top: list[np.ndarray | None] = [None] * n_tiles  # per tile column: (gid, block, unit) of the cells of the last row below
+    next_gid = 0
+    for tj in range(n_tiles):
+        right: np.ndarray | None = None  # (gid, block, unit) of the cells of the last column to the west
+        for ti in range(n_tiles):
+            rng = np.random.default_rng([seed, tj, ti])
+            r0, r1 = tj * tile_cells, min(side, (tj + 1) * tile_cells)
+            c0, c1 = ti * tile_cells, min(side, (ti + 1) * tile_cells)
+            nr, nc = r1 - r0, c1 - c0
+            v = grid.vertices(r0, r1, c0, c1)
+            quads = np.stack([v[:-1, :-1], v[:-1, 1:], v[1:, 1:], v[1:, :-1], v[:-1, :-1]], axis=2).reshape(-1, 5, 2)
+            cells = shapely.polygons(quads)
+            # group the cells by their nearest seed (in grid units), within the tile
+            seeds = jittered_points(max(1, round(nr * nc / cells_per_polygon)), nc, nr, rng, jitter=0.45)
+            cr, cc = np.meshgrid(np.arange(nr) + 0.5, np.arange(nc) + 0.5, indexing="ij")
+            nearest = shapely.STRtree(shapely.points(seeds)).query_nearest(shapely.points(cc.ravel(), cr.ravel()), all_matches=False)
+            group = np.empty(nr * nc, dtype=np.int64)
+            group[nearest[0]] = nearest[1]
+            used, group = np.unique(group, return_inverse=True)
+            n = len(used)
+            polys = dissolve(cells, group, n)
+            one = shapely.get_num_geometries(polys) == 1
+            polys[one] = shapely.get_geometry(polys[one], 0)  # a Polygon where one part (defects pick those); written as Multi
+            del cells, quads
+            sx, sy = seeds[used, 0] + c0, seeds[used, 1] + r0
+            block = _fault_block(sx / side, sy / side, n_faults)
+            g2 = group.reshape(nr, nc)
+            # neighbours inside the tile (cell edges between two groups) and across the west and south seams
+            h = g2[:, :-1] != g2[:, 1:]
+            vv = g2[:-1, :] != g2[1:, :]
+            pairs = np.r_[np.c_[g2[:, :-1][h], g2[:, 1:][h]], np.c_[g2[:-1, :][vv], g2[1:, :][vv]]]
+            fixed = np.zeros((0, 3), dtype=np.int64)
+            if right is not None:
+                fixed = np.r_[fixed, np.c_[g2[:, 0], right[:, 1], right[:, 2]]]
+            if top[ti] is not None:
+                fixed = np.r_[fixed, np.c_[g2[0, :], top[ti][:, 1], top[ti][:, 2]]]
+            code = _colour_with_fixed(pairs, fixed, n, n_units, block, rng)
+            gid = next_gid + np.arange(n)
+            # every cell edge between two polygons, as (segment, polygon a, polygon b) with global ids, block and unit
+            segs, ga, gb, ba, bb, ua, ub = [], [], [], [], [], [], []
+
+            def add(s, a_g, a_b, a_u, b_g, b_b, b_u):
+                segs.append(s), ga.append(a_g), ba.append(a_b), ua.append(a_u), gb.append(b_g), bb.append(b_b), ub.append(b_u)
+
+            # vertical edges inside: between cells (r, c) and (r, c+1): vertices (r, c+1) - (r+1, c+1)
+            rr, cc_ = np.nonzero(h)
+            s = np.stack([v[rr, cc_ + 1], v[rr + 1, cc_ + 1]], axis=1)
+            a_, b_ = g2[rr, cc_], g2[rr, cc_ + 1]
+            add(s, gid[a_], block[a_], code[a_], gid[b_], block[b_], code[b_])
+            rr, cc_ = np.nonzero(vv)
+            s = np.stack([v[rr + 1, cc_], v[rr + 1, cc_ + 1]], axis=1)
+            a_, b_ = g2[rr, cc_], g2[rr + 1, cc_]
+            add(s, gid[a_], block[a_], code[a_], gid[b_], block[b_], code[b_])
+            if right is not None:
+                rr = np.arange(nr)
+                s = np.stack([v[rr, 0], v[rr + 1, 0]], axis=1)
+                b_ = g2[:, 0]
+                add(s, right[:, 0], right[:, 1], right[:, 2], gid[b_], block[b_], code[b_])
+            if top[ti] is not None:
+                cc_ = np.arange(nc)
+                s = np.stack([v[0, cc_], v[0, cc_ + 1]], axis=1)
+                b_ = g2[0, :]
+                add(s, top[ti][:, 0], top[ti][:, 1], top[ti][:, 2], gid[b_], block[b_], code[b_])
+            segs_a, ga_, gb_ = np.concatenate(segs), np.concatenate(ga), np.concatenate(gb)
+            ba_, bb_, ua_, ub_ = np.concatenate(ba), np.concatenate(bb), np.concatenate(ua), np.concatenate(ub)
+            pieces = shapely.linestrings(segs_a)
+            is_fault = ba_ != bb_
+            is_contact = ~is_fault & (ua_ != ub_)
+            rows = []
+
+            def chains(idx, key, kind, certainties):
+                if not len(idx):
+                    return
+                uk, inv = np.unique(key, return_inverse=True)
+                parts = shapely.get_parts(merge_by_group(pieces[idx], inv, len(uk)))
+                cert = rng.choice(certainties, len(parts))
+                rows.append(pd.DataFrame({"kind": kind, "certainty": cert, "geometry": parts}))
+
+            from archivist.analysis.arrays import merge_by_group
+
+            fi = np.flatnonzero(is_fault)
+            lo, hi = np.minimum(ba_[fi], bb_[fi]), np.maximum(ba_[fi], bb_[fi])
+            chains(fi, lo * (n_faults + 1) + hi, "fault", ["certain", "approximate", "concealed"])
+            ci = np.flatnonzero(is_contact)
+            lo, hi = np.minimum(ga_[ci], gb_[ci]), np.maximum(ga_[ci], gb_[ci])
+            _, key = np.unique(np.c_[lo, hi], axis=0, return_inverse=True)
+            chains(ci, key.ravel(), "contact", ["certain", "approximate", "inferred"])
+            # short faults ending inside polygons, well away from their edges
+            k = rng.choice(n, max(1, int(n * splay_fraction)), replace=False) if splay_fraction > 0 else np.zeros(0, dtype=np.int64)
+            if len(k):
+                circ = shapely.maximum_inscribed_circle(polys[k], 0.01)
+                c = shapely.get_coordinates(shapely.get_point(circ, 0))
+                rad = shapely.length(circ)
+                ang = rng.uniform(0, np.pi, len(k))
+                d = np.c_[np.cos(ang), np.sin(ang)] * (0.6 * rad)[:, None]
+                bend = np.c_[-np.sin(ang), np.cos(ang)] * (0.1 * rad)[:, None]
+                coords = np.stack([c - d, c + bend, c + d], axis=1).round(2)
+                rows.append(pd.DataFrame({"kind": "fault", "certainty": "inferred", "geometry": shapely.linestrings(coords)}))
+            units = gpd.GeoDataFrame({"unit": names[code], "block": block}, geometry=polys, crs=CRS)
+            lines = gpd.GeoDataFrame(pd.concat(rows, ignore_index=True) if rows else pd.DataFrame({"kind": [], "certainty": [], "geometry": []}),
+                                     geometry="geometry", crs=CRS)
+            yield units, lines
+            # seams for the next tiles
+            last_col, last_row = g2[:, -1], g2[-1, :]
+            right = np.c_[gid[last_col], block[last_col], code[last_col]]
+            top[ti] = np.c_[gid[last_row], block[last_row], code[last_row]]
+            next_gid += n
+    return
+
+
+def write_tiled_map(
+    folder: Path,
+    n_polygons: int,
+    *,
+    seed: int = 0,
+    density: float = 0.0,
+    scale: int = 10_000,
+    tile_cells: int = 256,
+    name: str = "Synthetic test map",
+    progress=None,
+) -> dict:
+    """Write a tiled map of about ``n_polygons`` polygons (see above) into a new project folder; what was made.
+
+    With ``density`` > 0 each tile gets with_defect_density()'s defects (at
+    least one of each kind per tile), listed under "defects" with their feature
+    numbers as with_defect_density() gives them within the tile (position + 1,
+    before deletion) plus the features written before the tile: the fids as
+    written where the tile lost no feature before them. ``progress(tiles, written)``
+    is called after each tile.
+    """
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=False)
+    gpkg = folder / "map.gpkg"
+    tiles = tiled_map_tiles(n_polygons, seed=seed, tile_cells=tile_cells)
+    grid: TiledGrid = next(tiles)
+    ring = grid.frame_ring()
+    extent = shapely.Polygon(ring)
+    made: dict = {"polygons": 0, "lines": 0, "tiles": 0, "defects": []}
+    written = {"units": 0, "lines": 0}
+    frame_line = gpd.GeoDataFrame({"kind": ["map-boundary"], "certainty": ["certain"]}, geometry=[shapely.linestrings(ring)], crs=CRS)
+    first_lines = True
+    for t, (units, lines) in enumerate(tiles):
+        if density > 0:
+            tmap, changes = with_defect_density(SyntheticMap(units, lines, extent, scale), density, seed * 100_003 + t)
+            for ch in changes:
+                key = "polygon" if "polygon" in ch else "line"
+                ch[key] += written["units" if key == "polygon" else "lines"] + (1 if key == "line" and first_lines else 0)
+            made["defects"].extend(changes)
+            units, lines = tmap.units, tmap.lines
+        if first_lines:  # the map boundary is the first line, as in synthetic_map()
+            lines = gpd.GeoDataFrame(pd.concat([frame_line, lines], ignore_index=True), geometry="geometry", crs=CRS)
+            first_lines = False
+        for frame, layer in ((units, "units"), (lines, "lines")):
+            # fids are given by the GeoPackage in order (1, 2, ... as write_map writes them): SQLite's rowid of a
+            # table only appended to is the last one plus one
+            pyogrio.write_dataframe(frame.reset_index(drop=True), gpkg, layer=layer, driver="GPKG", append=written[layer] > 0,
+                                    promote_to_multi=layer == "units")  # every unit a MultiPolygon, as write_map's are
+            written[layer] += len(frame)
+        made["tiles"] += 1
+        if progress is not None:
+            progress(made["tiles"], written)
+    made["polygons"], made["lines"] = written["units"], written["lines"]
+    pyogrio.write_dataframe(gpd.GeoDataFrame({"name": ["map sheet"]}, geometry=[extent], crs=CRS), gpkg, layer="extent", driver="GPKG")
+    _write_manifest(folder, scale, name, _LAYERS + _EXTENT_LAYER)
+    return made

@@ -82,3 +82,39 @@ def test_folder_without_map_says_so(tmp_path):
     assert report.summary.errors == 1
     (f,) = [f for f in report.findings if f.rule == "layer-missing"]
     assert "no polygon layer with unit codes" in f.message
+
+
+def test_equal_text_values_of_a_layer_are_held_once(tmp_path):
+    """The loader keeps one object per distinct text value of a column (the memory of millions of features);
+    values, missing cells and dtypes are what GDAL read."""
+    import numpy as np
+    import pyogrio
+    from shapely.geometry import LineString
+
+    lines = gpd.GeoDataFrame(
+        {"kind": ["contact", "fault", "contact", "contact", None, "fault"], "certainty": ["certain"] * 6},
+        geometry=[LineString([(k, 0), (k, 1)]) for k in range(6)], crs=CRS)
+    project = tiny_project(tmp_path, lines=lines)
+    read = pyogrio.read_dataframe(project / "map.gpkg", layer="lines", fid_as_index=True)
+    frame = load_project(project).layers["lines"].frame
+    for name in ("kind", "certainty"):
+        assert frame[name].dtype == read[name].dtype
+        assert frame[name].equals(read[name])
+    kinds = frame["kind"].to_numpy(dtype=object)
+    assert kinds[0] is kinds[2] is kinds[3] and kinds[1] is kinds[5]
+    assert frame["kind"].isna().tolist() == [False] * 4 + [True, False]
+
+
+def test_text_sharing_never_merges_values_of_other_types():
+    """1, 1.0 and True compare equal in Python; a column of mixed objects is left as it is."""
+    import numpy as np
+    import pandas as pd
+    from archivist.project import share_text
+
+    frame = pd.DataFrame({"mixed": pd.Series([1, 1.0, True, 1, 1.0, True], dtype=object),
+                          "words": pd.Series(["a", "b"] * 3, dtype=object)})
+    out = share_text(frame)
+    assert [type(v) for v in out["mixed"]] == [int, float, bool] * 2
+    assert out["words"].dtype == object and out["words"].tolist() == ["a", "b"] * 3
+    words = out["words"].to_numpy()
+    assert words[0] is words[2] is words[4]

@@ -572,8 +572,10 @@ def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, to
 
     Searched in widening circles (from ten tolerances or a thousandth of the
     map, four times wider each round, up to four map sizes), all points of a
-    round in one bulk query; among lines at the same distance the first the
-    spatial index returns wins.
+    round in one bulk query; among lines at the same distance the first in
+    the layer's order wins (not the spatial index's order, which depends on
+    which lines the index holds: a partition of the map must name the same
+    line as the whole map).
     """
     n = len(pts)
     nearest = np.full(n, -1, dtype=np.int64)
@@ -589,7 +591,7 @@ def _nearest_other_line(net: LineNetwork, pts: np.ndarray, feats: np.ndarray, to
         found = np.zeros(len(todo), dtype=bool)
         if len(pi):
             d = point_distances(pts[todo][pi], net.geoms[cand])
-            order = np.lexsort((np.arange(len(pi)), d, pi))  # per point: smallest distance, first returned
+            order = np.lexsort((cand, d, pi))  # per point: smallest distance, then first in the layer
             first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
             ok = d[first] <= radius
             hit = pi[first][ok]
