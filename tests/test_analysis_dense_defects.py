@@ -47,13 +47,13 @@ def dense(tmp_path_factory):
 # ---------------------------------------------------------------- nearest other line (line-dangle)
 
 def nearest_by_loop(geoms, tree, pt, own, tol):
-    """One point at a time: widening circles, first smallest distance among the lines the index returns."""
+    """One point at a time: widening circles, the smallest distance, ties to the first line in the layer."""
     xmin, ymin, xmax, ymax = shapely.total_bounds(geoms)
     size = max(xmax - xmin, ymax - ymin, 1.0)
     radius = max(10.0 * tol, 1e-3 * size)
     while radius <= 4.0 * size:
         cand = tree.query(shapely.buffer(pt, radius))
-        cand = cand[cand != own]
+        cand = np.sort(cand[cand != own])
         if len(cand):
             d = shapely.distance(pt, geoms[cand])
             j = int(np.argmin(d))
