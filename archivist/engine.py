@@ -57,25 +57,7 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
     ``digits``: the decimals its location and WKT keep, from the map CRS
     (:func:`archivist.project.location_digits`: 8 in degrees, 3 in metres).
     """
-    x, y, wkt = hit.x, hit.y, None
-    g = hit.geometry
-    if g is not None and not shapely.is_empty(g):
-        wkt = shapely.to_wkt(g, rounding_precision=digits, trim=True)
-        if x is None or y is None:
-            p = g if g.geom_type == "Point" else shapely.point_on_surface(g)
-            x, y = p.x, p.y
-    return Finding(
-        rule=info.id,
-        family=info.family,
-        severity=severity if forced else (hit.severity or severity),
-        message=hit.message,
-        layer=hit.layer,
-        features=tuple(str(f) for f in hit.features),
-        x=_round(x, digits),
-        y=_round(y, digits),
-        measure=_measure(hit.measure),
-        wkt=wkt,
-    )
+    return to_findings(info, [hit], severity, forced, digits)[0]
 
 
 def to_findings(info: RuleInfo, hits: list[Hit], severity: Severity, forced: bool = False,
@@ -209,7 +191,7 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                 mine.append(rule_failed(info, exc))
             try:
                 mine[:0] = to_findings(info, got, severity, forced, digits)
-            except GEOSException:  # one geometry GEOS cannot write: the others still are
+            except GEOSException:  # one geometry GEOS cannot write: the others still are, one at a time
                 for hit in got:
                     try:
                         mine.append(to_finding(info, hit, severity, forced, digits))
