@@ -38,13 +38,17 @@ Whole map, and why:
   stretch or as one summary depends on its share of the whole map.
 - ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
   ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
-  (:mod:`archivist.analysis.coverage`), whose union of the unit polygons is
-  not the same to the last bit on a part of the map as on the whole: where
-  polygons overlap, GEOS's overlay leaves slivers of 1e-9 m² that depend on
-  every polygon joined, and those slivers are gaps and misfits in the
-  report. ``unit-overlap`` alone would be local (exact pairwise
-  intersections), but it needs the whole analysis, which the other four
-  compute on the whole map anyway.
+  (:mod:`archivist.analysis.coverage`). With an extent layer each gap is
+  now measured from the polygons within a small margin of it and rounding
+  below a stated noise floor is not reported, so a gap's result no longer
+  depends on the rest of the map; but where the gaps are is still found by
+  noding the edges drawn once over the whole map, and a map without an
+  extent layer joins its units (its extent is their outline). Registering
+  these rules as partitioned needs that step cut per partition and tests of
+  identity at every density. ``unit-overlap`` alone would be local (exact
+  pairwise intersections), but it needs the whole analysis. Since a family
+  goes to the partitions only when all its running rules can, neither the
+  topology nor the linework family of a whole check goes to them today.
 - ``line-kind-unknown``, ``unit-code-missing``: attribute checks of each
   feature, faster than sending the layer to a worker.
 
