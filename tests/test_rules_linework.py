@@ -164,6 +164,25 @@ def test_contact_off_the_boundary_by_half_a_metre(tmp_path):
     assert g.measure == pytest.approx(9.8) and g.features == ("1", "2")
 
 
+def test_stretch_off_the_boundary_of_two_vertices_is_placed_at_its_first_vertex(tmp_path):
+    # the piece from (5.5, 0.1) to (5.5, 9.9): GEOS's interior point of it is either end, as the last bit falls
+    (f,) = found(contact_off(tmp_path), "line-off-boundary")
+    assert f.wkt == "LINESTRING (5.5 0.1, 5.5 9.9)" and (f.x, f.y) == (5.5, 0.1)
+
+
+def test_two_vertex_stretches_off_the_edge_are_placed_at_their_first_vertex_in_lon_lat(tmp_path):
+    """The example bundle in longitude/latitude, checked in a local frame: GEOS's interior point of a two-vertex
+    stretch, taken in the map's degrees, fell on its last vertex for some; each is placed at its first."""
+    from test_rules_crs import geographic
+
+    hits = found(geographic(tmp_path), "line-off-boundary")
+    two = [f for f in hits if len(shapely.from_wkt(f.wkt).coords) == 2]
+    assert two
+    for f in two:
+        x0, y0 = shapely.from_wkt(f.wkt).coords[0]
+        assert (f.x, f.y) == (round(x0, 8), round(y0, 8)), f.wkt
+
+
 def test_noise_within_the_tolerance_is_not_reported(tmp_path):
     wobbly = LineString([(5, 0), (5.05, 2), (4.95, 4), (5.08, 6), (4.93, 8), (5, 10)])  # at most 0.08 m off
     root = square_map(tmp_path, line_rows=[("contact", wobbly), ("map-boundary", FRAME)])

@@ -158,6 +158,7 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         links = shapely.shortest_line(targets, _far_points(pieces, targets))
         xy = shapely.get_coordinates(links).reshape(-1, 4)
         between = _across(units, inside, shapely.get_point(links, 0), tol) if what != "edge" else None
+        px, py = _first_of_two(pieces)
         for i, (piece, f, u, length) in enumerate(zip(pieces, feats.tolist(), inside.tolist(), lengths.tolist())):
             x0, y0, x1, y1 = xy[i].tolist()
             metres, towards = offset(crs, x0, y0, x1, y1, m)
@@ -171,7 +172,7 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             else:
                 text = (f"{net.label(f)} runs {num(length)} m outside every unit polygon, up to "
                         f"{away} of the nearest, {units.label(int(nearest[i]))}.")
-            yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece)
+            yield Hit(text, layer="lines", features=(net.ids[f],), measure=length, geometry=piece, x=px[i], y=py[i])
 
 
 def _first_nearest(units: Units, points: np.ndarray) -> np.ndarray:
