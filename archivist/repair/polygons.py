@@ -27,6 +27,7 @@ from shapely.errors import GEOSException
 
 from ..analysis.arrays import widths
 from ..analysis.context import CheckContext
+from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
 from ..analysis.polygons import polygonal
@@ -83,11 +84,23 @@ def _codes(state: RepairState) -> np.ndarray:
     return np.array(["" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip() for v in col], dtype=object)
 
 
-def _eps(geoms: np.ndarray) -> float:
+def _scale(geoms: np.ndarray) -> float:
+    """The largest absolute coordinate of the polygons (at least 1)."""
     if not len(geoms):
-        return 1e-9
+        return 1000.0
     b = shapely.total_bounds(geoms[~shapely.is_missing(geoms)])
-    return 1e-12 * max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
+    return max(float(np.nanmax(np.abs(b))) if np.isfinite(b).all() else 1.0, 1.0)
+
+
+def _eps(geoms: np.ndarray) -> float:
+    return 1e-12 * _scale(geoms)
+
+
+def above_noise(parts: np.ndarray, floor: float) -> np.ndarray:
+    """The parts wider on average than ``floor`` (:func:`archivist.analysis.coverage.noise_floor`): narrower ones
+    are rounding left by GEOS's overlay (on a 10^5-polygon map, a 146 m sliver of 2.4e-9 m² was listed as a
+    part of a gap left), which check does not report either."""
+    return parts[mean_width(parts) > floor] if len(parts) else parts
 
 
 def _far_if_cut(polys: np.ndarray, pieces: np.ndarray, reach: float) -> np.ndarray:
@@ -302,6 +315,7 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     order = np.lexsort((ui, -shared, gi))
     gi, ui = gi[order], ui[order]
     reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
+    floor = noise_floor(_scale(geoms))  # the differences that cut the gap leave rounding slivers: never a part left
     pieces: list[tuple[int, Any, int]] = []  # (polygon, piece, gap)
     for g in np.unique(gi):  # one per gap filled
         nbrs = ui[gi == g]
@@ -330,6 +344,7 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
         # what no neighbour reaches within the gap width (a corner of a gap along the map edge, where the edge
         # and not a polygon bounds it) stays: giving it to one would move that polygon further
         parts = _parts(shapely.union_all(unreached)) if unreached else np.zeros(0, dtype=object)
+        parts = above_noise(parts, floor)
         if len(parts):
             around = tuple(str(ids[k]) for k in nbrs)
             left.append(Left("fill-gaps", "units", around, f"part of a gap farther than the gap width {settings.gap_width:.2f} m "
