@@ -129,7 +129,7 @@ class Placement:
         """The lon/lat box of all (or the selected) transformable features, or None."""
         if self.sketch is None or "lonlat" in self.__dict__:
             b = self.lonlat if which is None else self.lonlat[which]
-            return _outer(b)
+            return outer_box(b)
         rows = np.arange(len(self.bounds)) if which is None else np.arange(len(self.bounds))[which]
         a, err = self.sketch.approx[rows], self.sketch.error
         ok = np.isfinite(a).all(axis=1)
@@ -140,10 +140,10 @@ class Placement:
         # of the interpolated extreme (every exact value is within one bound of its interpolation)
         near = (a[:, 0] <= a[:, 0].min() + 2 * err) | (a[:, 1] <= a[:, 1].min() + 2 * err) | \
             (a[:, 2] >= a[:, 2].max() - 2 * err) | (a[:, 3] >= a[:, 3].max() - 2 * err)
-        return _outer(self.boxes(rows[near]))
+        return outer_box(self.boxes(rows[near]))
 
 
-def _outer(b: np.ndarray) -> np.ndarray | None:
+def outer_box(b: np.ndarray) -> np.ndarray | None:
     """The box around the finite rows of ``b``, or None."""
     ok = np.isfinite(b).all(axis=1)
     if not ok.any():

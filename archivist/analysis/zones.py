@@ -60,7 +60,7 @@ from pyproj.database import query_crs_info
 from pyproj.enums import PJType
 
 from ..vocab.coordinates import LonLatColumns, read_lonlat
-from .placement import Box, Placement, lonlat_boxes, overshoot, within
+from .placement import Box, Placement, lonlat_boxes, outer_box, overshoot, within
 
 if TYPE_CHECKING:
     from ..project import MapProject
@@ -288,13 +288,6 @@ def compare_columns(project: MapProject, placed: Placement, swap: np.ndarray | N
 
 # ---------------------------------------------------------------- extents: declared, and of the other layers
 
-def _box(b: np.ndarray) -> np.ndarray | None:
-    ok = np.isfinite(b).all(axis=1)
-    if not ok.any():
-        return None
-    b = b[ok]
-    return np.array([b[:, 0].min(), b[:, 1].min(), b[:, 2].max(), b[:, 3].max()])
-
 
 def padded(b: Box | np.ndarray) -> Box:
     """A lon/lat box widened by 10 % of its size and 0.01° on every side."""
@@ -328,12 +321,12 @@ class Cluster:
         for role in self.roles:
             p = placements[role]
             try:
-                b = _box(lonlat_boxes(crs, p.bounds[p.present]))
+                b = outer_box(lonlat_boxes(crs, p.bounds[p.present]))
             except (pyproj.exceptions.ProjError, pyproj.exceptions.CRSError):
                 b = None
             if b is not None:
                 boxes.append(b)
-        return _box(np.array(boxes)) if boxes else None
+        return outer_box(np.array(boxes)) if boxes else None
 
 
 def clusters(placements: dict[str, Placement]) -> list[Cluster]:
@@ -360,7 +353,7 @@ def clusters(placements: dict[str, Placement]) -> list[Cluster]:
         groups.setdefault(root(i), []).append(i)
     out = []
     for members in groups.values():
-        b = _box(np.array([items[i][2] for i in members]))
+        b = outer_box(np.array([items[i][2] for i in members]))
         assert b is not None
         out.append(Cluster(items[members[0]][1].crs, tuple(items[i][0] for i in members), b,
                            int(sum(int(items[i][1].present.sum()) for i in members))))
@@ -455,7 +448,7 @@ def compare_layers(
     fits: dict[int, tuple[Candidate, np.ndarray, tuple[str, ...]]] = {}
     for i, c in enumerate(found):
         rest = [o for j, o in enumerate(found) if j != i]
-        ref = _box(np.array([o.box for o in rest]))
+        ref = outer_box(np.array([o.box for o in rest]))
         if ref is None or _intersects(np.asarray(padded(c.box)), padded(ref)):
             continue
         cand = _lines_up(c, placements, ref)
