@@ -225,12 +225,18 @@ def test_gaps_are_those_of_the_whole_map_overlay_above_the_noise_floor(laden_map
     assert np.allclose(shapely.area(ours[oi]), shapely.area(ref[~noise][ri]), rtol=1e-6, atol=floor)
 
 
-def test_a_gap_depends_only_on_the_polygons_around_it(laden_map, tmp_path):
-    # the same gaps, to the bit, when polygons far from them are taken away
-    ctx = CheckContext(load_project(laden_map))
+def gap_windows(folder):
+    """The map's coverage, polygons, their index, the faces where gaps are, a point in each, and the margin."""
+    ctx = CheckContext(load_project(folder))
     cov, geoms, tree = ctx.coverage(), ctx.units().geoms, ctx.units().tree
     faces, points = gap_faces(ctx.edges(), cov.extent, tree)
     margin = 1e3 * noise_floor(float(np.abs(shapely.total_bounds(geoms)).max()))
+    return cov, geoms, tree, faces, points, margin
+
+
+def test_a_gap_depends_only_on_the_polygons_around_it(laden_map, tmp_path):
+    # the same gaps, to the bit, when polygons far from them are taken away
+    cov, geoms, tree, faces, points, margin = gap_windows(laden_map)
     full, k, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
     assert len(full) > 10
     for f in range(0, len(full), 7):
@@ -311,10 +317,7 @@ def test_a_thin_gap_runs_along_the_polygons_whose_edges_it_follows_a_rounding_of
 def test_gaps_joined_in_small_batches_are_the_same(laden_map, monkeypatch):
     import archivist.analysis.coverage as coverage
 
-    ctx = CheckContext(load_project(laden_map))
-    cov, geoms, tree = ctx.coverage(), ctx.units().geoms, ctx.units().tree
-    faces, points = gap_faces(ctx.edges(), cov.extent, tree)
-    margin = 1e3 * noise_floor(float(np.abs(shapely.total_bounds(geoms)).max()))
+    cov, geoms, tree, faces, points, margin = gap_windows(laden_map)
     whole, k, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
     monkeypatch.setattr(coverage, "TABLE_CELLS", 5)  # a few windows per batch
     small, k2, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
