@@ -75,16 +75,25 @@ def dissolve(cells: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
     return shapely.coverage_union_all(table, axis=1)
 
 
-def colour(pairs: np.ndarray, n: int, n_units: int, block: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-    """Unit index per polygon such that neighbours in one block differ (random, repaired until clean)."""
+def colour(pairs: np.ndarray, n: int, n_units: int, block: np.ndarray, rng: np.random.Generator,
+           fixed: np.ndarray | None = None) -> np.ndarray:
+    """Unit index per polygon such that neighbours in one block differ (random, repaired until clean).
+
+    ``pairs``: (a, b) of neighbouring polygons; ``fixed`` (a tiled map): (a, block, unit) of a polygon
+    against a neighbour across a seam, coloured before, which it must differ from as well.
+    """
+    fixed = np.zeros((0, 3), dtype=np.int64) if fixed is None else fixed
     codes = rng.integers(0, n_units, n)
     a, b = pairs[:, 0], pairs[:, 1]
     same_block = block[a] == block[b]
+    fa, fb, fu = fixed[:, 0], fixed[:, 1], fixed[:, 2]
+    seam = block[fa] == fb
     for _ in range(1000):
         clash = same_block & (codes[a] == codes[b])
-        if not clash.any():
+        fclash = seam & (codes[fa] == fu)
+        if not clash.any() and not fclash.any():
             return codes
-        redo = np.unique(b[clash])
+        redo = np.unique(np.r_[b[clash], fa[fclash]])
         codes[redo] = rng.integers(0, n_units, len(redo))
     raise RuntimeError("could not colour the synthetic map")
 
@@ -463,27 +472,6 @@ def _fault_block(x: np.ndarray, y: np.ndarray, n_faults: int) -> np.ndarray:
     return block
 
 
-def _colour_with_fixed(pairs: np.ndarray, fixed: np.ndarray, n: int, n_units: int, block: np.ndarray, rng: np.random.Generator) -> np.ndarray:
-    """Unit index per polygon: neighbours in one block differ, also from already coloured polygons across a seam.
-
-    ``pairs``: (a, b) of this tile's neighbouring polygons; ``fixed``: (a, block, unit) of a polygon of
-    this tile against a neighbour coloured before.
-    """
-    codes = rng.integers(0, n_units, n)
-    a, b = pairs[:, 0], pairs[:, 1]
-    same_block = block[a] == block[b]
-    fa, fb, fu = fixed[:, 0], fixed[:, 1], fixed[:, 2]
-    seam = block[fa] == fb
-    for _ in range(1000):
-        clash = same_block & (codes[a] == codes[b])
-        fclash = seam & (codes[fa] == fu)
-        if not clash.any() and not fclash.any():
-            return codes
-        redo = np.unique(np.r_[b[clash], fa[fclash]])
-        codes[redo] = rng.integers(0, n_units, len(redo))
-    raise RuntimeError("could not colour the tiled synthetic map")
-
-
 def tiled_map_tiles(
     n_polygons: int,
     *,
@@ -544,7 +532,7 @@ def tiled_map_tiles(
                 fixed = np.r_[fixed, np.c_[g2[:, 0], right[:, 1], right[:, 2]]]
             if top[ti] is not None:
                 fixed = np.r_[fixed, np.c_[g2[0, :], top[ti][:, 1], top[ti][:, 2]]]
-            code = _colour_with_fixed(pairs, fixed, n, n_units, block, rng)
+            code = colour(pairs, n, n_units, block, rng, fixed)
             gid = next_gid + np.arange(n)
             # every cell edge between two polygons, as (segment, polygon a, polygon b) with global ids, block and unit
             segs, ga, gb, ba, bb, ua, ub = [], [], [], [], [], [], []
