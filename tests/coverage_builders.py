@@ -131,11 +131,7 @@ def synthetic_map(
     # fault blocks: left of wavy N-S traces
     pc = shapely.get_coordinates(shapely.point_on_surface(polys))
     u, v = (pc[:, 0] - ox) / side, (pc[:, 1] - oy) / side
-    block = np.zeros(n, dtype=np.int64)
-    for k in range(n_faults):
-        x0 = (k + 1) / (n_faults + 1)
-        trace = x0 + 0.06 * np.sin(2 * np.pi * (v * (1.3 + 0.4 * k) + 0.7 * k)) + 0.03 * (v - 0.5)
-        block += u > trace
+    block = _fault_block(u, v, n_faults)
     edges = build_edges(polys)
     twin = np.flatnonzero(edges.twin)
     pairs = np.c_[edges.left[twin], edges.right[twin]]
