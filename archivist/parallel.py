@@ -511,17 +511,21 @@ def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] 
 
 
 def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> np.ndarray:
-    """Whether each box (xmin, ymin, xmax, ymax; NaN for none), grown by ``reach``, lies on the grid and on marked cells only."""
+    """Whether each box (xmin, ymin, xmax, ymax; NaN for none), grown by ``reach``, lies on marked cells only.
+
+    What a grown box reaches beyond the grid does not count against it: the
+    grid spans every layer (:func:`plan_partitions`), so there is nothing
+    there, on the whole map as on a partition. A finding along the map's edge
+    is trusted like any other.
+    """
     ok = np.isfinite(boxes).all(axis=1)
     if not ok.any():
         return ok
     b = boxes[ok] + np.array([-reach, -reach, reach, reach])
-    x1, y1 = grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell
-    inside = (b[:, 0] >= grid.x0) & (b[:, 1] >= grid.y0) & (b[:, 2] < x1) & (b[:, 3] < y1)
-    r = grid.boxes(b)
+    r = grid.boxes(b)  # off the grid: its edge cells
     cells = (r[:, 2] - r[:, 0] + 1) * (r[:, 3] - r[:, 1] + 1)
     out = ok.copy()
-    out[ok] = inside & (_marked_in(_table(marked), r) == cells)
+    out[ok] = _marked_in(_table(marked), r) == cells
     return out
 
 

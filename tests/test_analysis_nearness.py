@@ -73,3 +73,16 @@ def test_lines_buffered_once_leave_the_same_parts_as_buffers_clipped_per_target(
         assert np.allclose(shapely.get_coordinates(a), shapely.get_coordinates(b), rtol=0, atol=1e-9)
         if tol == 0.5:
             assert len(a) and len(a) < len(targets)  # some boundaries are left in part, the drawn ones not
+
+
+def test_a_point_where_polygons_overlap_lies_in_the_first_of_them_in_the_layer():
+    # which polygon a point "lies inside" must not depend on the spatial index's order, which changes with the
+    # polygons the index holds (a part of the map against the whole): the first in the layer, whatever the order
+    from archivist.analysis.nearness import unit_at
+    from archivist.analysis.polygons import Units
+
+    squares = [shapely.box(i, 0, i + 10, 10) for i in range(8)]  # all eight hold x 7.5
+    for geoms in (squares, squares[::-1]):
+        units = Units(rows=np.arange(8), geoms=np.array(geoms, dtype=object), ids=np.array([str(i) for i in range(8)]),
+                      codes=None, source="units")
+        assert unit_at(shapely.points([[7.5, 5.0], [0.5, 5.0], [20.0, 5.0]]), units).tolist() == [0, 0 if geoms is squares else 7, -1]

@@ -103,8 +103,9 @@ def test_a_finding_is_trusted_only_over_marked_cells():
     grid = parallel.Grid(0.0, 0.0, 10.0, 4, 4, 1)
     marked = np.zeros((4, 4), dtype=bool)
     marked[:2, :2] = True  # x and y from 0 to 20
-    boxes = np.array([[5, 5, 12, 12], [5, 5, 25, 12], [np.nan] * 4, [-5, 5, 5, 5]], dtype=float)
-    assert parallel.trusted(grid, marked, boxes, 1.0).tolist() == [True, False, False, False]
+    # the last two run off the grid, where no layer has anything: beside marked cells, and beside unmarked ones
+    boxes = np.array([[5, 5, 12, 12], [5, 5, 25, 12], [np.nan] * 4, [-5, 5, 5, 5], [-5, 25, 5, 25]], dtype=float)
+    assert parallel.trusted(grid, marked, boxes, 1.0).tolist() == [True, False, False, True, False]
     assert parallel.trusted(grid, marked, boxes[:1], 9.0).tolist() == [False]  # its reach runs off the marked cells
 
 

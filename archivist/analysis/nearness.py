@@ -226,11 +226,18 @@ def connected_pieces(pieces: np.ndarray, groups: np.ndarray) -> tuple[np.ndarray
 
 
 def unit_at(points: np.ndarray, units: Units) -> np.ndarray:
-    """Index of the unit polygon each point lies inside, or -1."""
+    """Index of the unit polygon each point lies inside, or -1; the first in the layer where polygons overlap.
+
+    Not the first the spatial index returns: its order depends on which
+    polygons the index holds, so a part of the map would answer otherwise.
+    """
     out = np.full(len(points), -1, dtype=np.int64)
     if len(points) and len(units):
         pi, ui = units.tree.query(points, predicate="within")
-        out[pi] = ui
+        order = np.lexsort((ui, pi))
+        pi, ui = pi[order], ui[order]
+        first = np.r_[True, pi[1:] != pi[:-1]] if len(pi) else np.zeros(0, dtype=bool)
+        out[pi[first]] = ui[first]
     return out
 
 

@@ -176,8 +176,11 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
 
 def _first_nearest(units: Units, points: np.ndarray) -> np.ndarray:
-    """For each point, the unit polygon the spatial index returns first among the nearest."""
+    """For each point, the first in the layer among the nearest unit polygons (not the spatial index's first: its
+    order depends on which polygons it holds)."""
     pi, ui = units.tree.query_nearest(points)
+    order = np.lexsort((ui, pi))
+    pi, ui = pi[order], ui[order]
     first = np.r_[True, pi[1:] != pi[:-1]]
     out = np.full(len(points), -1, dtype=np.int64)
     out[pi[first]] = ui[first]
@@ -203,7 +206,7 @@ def _far_points(pieces: np.ndarray, targets: np.ndarray) -> np.ndarray:
 
 def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> list[str]:
     """For each foot on the boundary of polygon ``inside``: ``between A and B`` for the nearest other polygon within
-    ``tol`` of it (the first the spatial index returns among equals), else ``of polygon 2 (A) along the map edge``."""
+    ``tol`` of it (the first in the layer among equals), else ``of polygon 2 (A) along the map edge``."""
     out = ["" for _ in range(len(inside))]
     sel = np.flatnonzero(inside >= 0)
     if not len(sel):
@@ -214,7 +217,7 @@ def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> l
     best = np.full(len(sel), -1, dtype=np.int64)
     if len(pi):
         d = shapely.distance(feet[sel][pi], units.geoms[ui])
-        order = np.lexsort((np.arange(len(pi)), d, pi))
+        order = np.lexsort((ui, d, pi))
         first = order[np.r_[True, pi[order][1:] != pi[order][:-1]]]
         best[pi[first]] = ui[first]
     for j, s in enumerate(sel.tolist()):
