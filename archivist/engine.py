@@ -205,28 +205,27 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                                                               progress, threads)
     else:
         findings, ran = [], []
+        batches = _batches(groups, skipped, contexts) if partition else {}
+        merged: dict[bool, Any] = {}  # per batch (as read, or in the local frame): the partitions' answer
         for family, group in groups:
-            # a family goes to the partitions only when every rule of it that runs can: the rules of a family share
-            # analyses (the half-edge table, the coverage, the line network) that one rule left here would build again
-            runnable = [info for info in group if not skipped(info)] if partition else []
-            batch = runnable if runnable and all(info.partitioned for info in runnable) else []
-            merged: Any = None
-            with progress.step(f"{family} rules", total=len(group) + (parts if batch else 0)) as step:
+            key = next((k for k, b in batches.items() if any(i.family == family for i in b)), None)
+            batch = batches[key] if key is not None else []
+            with progress.step(f"{family} rules", total=len(group) + (parts if key is not None and key not in merged else 0)) as step:
                 for info in group:
                     if skipped(info):
                         step.advance()
                         continue
                     ran.append(info.id)
                     _, _, run_ctx = contexts(info)
-                    if info in batch and merged is None:  # the family's partitioned rules, all at once
+                    if info in batch and key not in merged:  # every partitioned family of this context, at once
                         from .parallel import run_partitioned
 
-                        assert executor is not None
-                        view = run_ctx.view()
-                        merged = run_partitioned(view, batch, executor, parts, step, run_ctx.left_out())
-                        for text in merged.notes:
+                        assert executor is not None and key is not None
+                        merged[key] = run_partitioned(run_ctx.view(), batch, executor, parts, step, run_ctx.left_out())
+                        for text in merged[key].notes:
                             run_ctx.note(text)
-                    given = merged.hits[info.id] if info in batch and info.id in merged.hits else None
+                    answer = merged.get(key) if info in batch else None
+                    given = answer.hits[info.id] if answer is not None and info.id in answer.hits else None
                     findings += run_one(info, step, given)
         notes, local_notes = list(ctx.notes), list(local.notes)
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
@@ -244,6 +243,24 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         rules_run=tuple(ran),
         place_decimals=6 if digits > LINEAR_DIGITS else 1,
     )
+
+
+def _batches(groups: list[tuple[str, list[RuleInfo]]], skipped: Callable[[RuleInfo], bool],
+             contexts: Callable[[RuleInfo], tuple[bool, MapProject, CheckContext]]) -> dict[bool, list[RuleInfo]]:
+    """The rules sent to the partitions, in one batch per context (as read, or in the local frame).
+
+    A family goes to the partitions only when every rule of it that runs can: the rules of a family share
+    analyses (the half-edge table, the coverage, the line network) that one rule left here would build again
+    for the whole map. The families that go are sent together, so that a partition builds the analyses they
+    share (the topology and linework families: the unit polygons, their half-edges, the coverage) once.
+    """
+    out: dict[bool, list[RuleInfo]] = {}
+    for _, group in groups:
+        runnable = [info for info in group if not skipped(info)]
+        if runnable and all(info.partitioned for info in runnable):
+            for info in runnable:
+                out.setdefault(contexts(info)[0], []).append(info)
+    return out
 
 
 def _infos(groups: list[tuple[str, list[RuleInfo]]], ran: list[str]) -> list[RuleInfo]:

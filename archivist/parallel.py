@@ -128,7 +128,9 @@ size reads "no other line on the map" on the partition, a case only a map
 with a lone line far from all others can meet. A family runs on partitions
 only when every rule of it that runs is partitioned (the engine, see
 :func:`archivist.engine.run_rules`): its rules share analyses that a rule
-left in the calling process would build again for the whole map.
+left in the calling process would build again for the whole map. The
+families that go are sent together, one task per partition, so that a
+partition builds the analyses they share once.
 """
 
 from __future__ import annotations

@@ -181,6 +181,41 @@ def test_a_family_runs_on_partitions_only_when_each_of_its_rules_can(tmp_path):
         assert sent == []
 
 
+def test_the_partitioned_families_go_together_so_a_partition_builds_their_shared_analyses_once(tmp_path):
+    import geopandas as gpd
+
+    project = _grid_project(tmp_path)
+    folder = tmp_path / "grid"
+    lines = [shapely.LineString([(0, j * 10.0), (120, j * 10.0)]) for j in range(13)]
+    gpd.GeoDataFrame({"kind": ["contact"] * len(lines)}, geometry=lines, crs="EPSG:32633").to_file(folder / "map.gpkg", layer="lines")
+    with open(folder / "archivist.toml", "a", encoding="utf-8") as f:
+        f.write('[layers.lines]\npath = "map.gpkg"\nlayer = "lines"\n')
+    project = load_project(folder)
+    sent = []
+    built = []
+
+    class Counting(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            sent.append(args[0].rules)
+            return super().submit(fn, *args, **kwargs)
+
+    from archivist.analysis import context
+
+    real = context.read_units
+
+    def counted(project):  # type: ignore[no-untyped-def]
+        built.append(project)
+        return real(project)
+
+    rules = ["unit-sliver", "line-same-unit-contact"]  # one rule of each family, both reading the unit polygons
+    with Counting(2) as pool, pytest.MonkeyPatch.context() as mp:
+        mp.setattr(context, "read_units", counted)
+        report = engine.check(project, rules=rules, executor=pool, parts=3)
+    assert sent == [tuple(rules)] * 3
+    assert len(built) == 3  # the unit polygons once per partition, not once per family and partition
+    assert report.findings == engine.check(project, rules=rules).findings
+
+
 def test_default_jobs_are_the_cores_this_process_may_use(monkeypatch):
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 3, 5}, raising=False)
     assert parallel.default_jobs() == 3
