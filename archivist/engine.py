@@ -419,7 +419,9 @@ def check(
     parts
         With ``jobs`` > 1: run the partitioned rules on this many partitions
         in ``jobs`` worker processes instead of threads (default: threads,
-        no partitions); with an executor, the number of partitions (default 2).
+        no partitions); the processes are forked from this one where the
+        system can (:class:`archivist.parallel.ForkPool`: they read the map
+        from its memory). With an executor, the number of partitions (default 2).
 
     Raises
     ------
@@ -451,7 +453,7 @@ def check(
         return run_rules(project, selected, progress)
     from .parallel import make_executor, stop_executor
 
-    pool = make_executor(jobs)
+    pool = make_executor(jobs, "fork")  # forked once the map is loaded: the workers read it from this process
     try:
         report = run_rules(project, selected, progress, executor=pool, parts=parts or jobs)
     except BaseException:

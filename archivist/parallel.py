@@ -136,7 +136,7 @@ partition builds the analyses they share once.
 from __future__ import annotations
 
 import os
-from concurrent.futures import Executor, Future, as_completed
+from concurrent.futures import FIRST_COMPLETED, Executor, Future, wait
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any, Sequence
 
@@ -182,11 +182,19 @@ def default_jobs() -> int:
 
 
 def make_executor(jobs: int, kind: str = "process") -> Executor:
-    """An executor of ``jobs`` workers: ``"process"`` (separate processes, the default) or ``"thread"``."""
+    """An executor of ``jobs`` workers: ``"process"`` (separate processes, the default), ``"thread"``, or
+    ``"fork"`` (:class:`ForkPool`: processes forked once the map is loaded, which read it from their parent's
+    memory; where the system cannot fork, ``"process"``)."""
     from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
 
     if kind == "thread":
         return ThreadPoolExecutor(max_workers=jobs, thread_name_prefix="archivist")
+    if kind == "fork":
+        import multiprocessing
+
+        if "fork" in multiprocessing.get_all_start_methods():
+            return ForkPool(jobs)
+        kind = "process"
     if kind == "process":
         import multiprocessing
 
@@ -209,6 +217,61 @@ def stop_executor(executor: Executor) -> None:
             proc.terminate()
     for proc in list((getattr(executor, "_processes", None) or {}).values()):
         proc.join(timeout=5)
+
+
+# What the processes of a ForkPool find in their parent's memory: the projects shared before they were forked.
+_SHARED: dict[str, Any] = {}
+
+
+class ForkPool(Executor):
+    """Worker processes forked from this one once the project is in memory; a partition task names it, not carries it.
+
+    :meth:`share` puts a project where a forked process finds it; the
+    processes are forked at the first task after it (again after a project
+    not yet shared), so a task sends only the partition's rows and cells and
+    the worker cuts its partition from the project it inherited
+    (:func:`run_inherited`). Nothing of the map is pickled on the way out;
+    the hits come back pickled. Only where the system forks (not Windows;
+    macOS forks, though its system libraries may refuse in a forked child).
+    """
+
+    def __init__(self, jobs: int) -> None:
+        self.workers = max(1, int(jobs))
+        self._pool: Any = None
+        self._forked_with: set[str] = set()
+        self._mine: set[str] = set()
+
+    def share(self, project: Any) -> str:
+        """A key under which the processes forked from now on find ``project``."""
+        key = f"{os.getpid()}-{id(project)}"
+        _SHARED[key] = project
+        self._mine.add(key)
+        if key not in self._forked_with and self._pool is not None:  # forked before it was there: fork again
+            self._pool.shutdown(wait=True)
+            self._pool = None
+        return key
+
+    def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Future:
+        if self._pool is None:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+
+            # every process is forked at the first task (fork start method): each holds what is shared now
+            self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("fork"),
+                                             initializer=_quiet_worker)
+            self._forked_with = set(_SHARED)
+        return self._pool.submit(fn, *args, **kwargs)
+
+    def shutdown(self, wait: bool = True, *, cancel_futures: bool = False) -> None:
+        pool, self._pool = self._pool, None
+        for key in self._mine:
+            _SHARED.pop(key, None)
+        self._mine.clear()
+        if pool is not None:
+            if cancel_futures or not wait:
+                stop_executor(pool)
+            else:
+                pool.shutdown(wait=True)
 
 
 def _quiet_worker() -> None:
@@ -531,6 +594,28 @@ def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> 
     return out
 
 
+@dataclass(frozen=True)
+class InheritedTask:
+    """A partition task for a :class:`ForkPool` process: the key of the project it inherited and the partition."""
+
+    source: str
+    part: Partition
+    rules: tuple[str, ...]
+    grid: Grid
+    reach: float
+    left_out: tuple[str, ...] = ()
+
+
+def run_inherited(task: InheritedTask) -> PartitionResult:
+    """:func:`run_partition` of the partition ``task`` names, cut from the project this process inherited."""
+    project = _SHARED.get(task.source)
+    if project is None:
+        raise RuntimeError(f"this worker process was not forked with the project {task.source}")
+    part = task.part
+    return run_partition(PartitionTask(part.index, sub_project(project, part), task.rules, task.grid, part.marked,
+                                       task.reach, task.left_out))
+
+
 def run_partition(task: PartitionTask) -> PartitionResult:
     """Run ``task.rules`` on one partition's project; every hit with its place and whether the partition can trust it."""
     from shapely.errors import GEOSException
@@ -643,17 +728,31 @@ def run_partitioned(
     if not ids:
         return Merged()
     plan = plan or plan_partitions(project, parts)
-    tasks = [PartitionTask(part.index, sub_project(project, part), ids, plan.grid, part.marked, plan.reach, left_out)
-             for part in plan.partitions]
-    futures: list[Future] = [executor.submit(run_partition, t) for t in tasks]
+    key = executor.share(project) if isinstance(executor, ForkPool) else None
+
+    def submit(part: Partition) -> Future:
+        if key is not None:
+            return executor.submit(run_inherited, InheritedTask(key, part, ids, plan.grid, plan.reach, left_out))
+        return executor.submit(run_partition, PartitionTask(part.index, sub_project(project, part), ids, plan.grid,
+                                                            part.marked, plan.reach, left_out))
+
+    # tasks go in waves: a few per worker, the next one as one ends, so that the partitions' projects (each a
+    # copy of its rows, pickled on the way) are not all made and held at once
+    window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
+    queue = list(plan.partitions)
+    running: set[Future] = set()
     results: list[PartitionResult] = []
     try:
-        for fut in as_completed(futures):
-            results.append(fut.result())
-            if step is not None:
-                step.advance()
+        while queue or running:
+            while queue and len(running) < window:
+                running.add(submit(queue.pop(0)))
+            done, running = wait(running, return_when=FIRST_COMPLETED)
+            for fut in done:
+                results.append(fut.result())
+                if step is not None:
+                    step.advance()
     except BaseException:
-        for fut in futures:
+        for fut in running:
             fut.cancel()
         raise
     return merge(plan, ids, results)

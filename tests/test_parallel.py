@@ -160,7 +160,53 @@ def test_an_interrupt_cancels_the_partitions_not_started(tmp_path):
 
     with pytest.raises(KeyboardInterrupt):
         parallel.run_partitioned(project, select(rules=["unit-sliver"]), Interrupting(1), 3)
-    assert len(submitted) == 3 and all(f.cancelled() for f in submitted[1:])
+    # the second was sent (a wave is two per worker) and is cancelled; the third is never sent
+    assert len(submitted) == 2 and all(f.cancelled() for f in submitted[1:])
+
+
+def test_partitions_are_sent_in_waves_of_two_per_worker(tmp_path):
+    project = _grid_project(tmp_path)
+    outstanding: list[int] = []
+    live: set[Future] = set()
+
+    class Watching(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            fut = super().submit(fn, *args, **kwargs)
+            live.add(fut)
+            outstanding.append(sum(not f.done() for f in live))
+            return fut
+
+    with Watching(2) as pool:
+        merged = parallel.run_partitioned(project, select(rules=["unit-sliver"]), pool, 9)
+    assert len(outstanding) == 9 and max(outstanding) <= 4
+    assert merged.whole == ()
+
+
+def test_forked_workers_read_the_map_from_their_parent_and_find_what_one_process_finds(tmp_path):
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")  # Windows: --jobs uses threads there
+    project = _grid_project(tmp_path)
+    sent: list[object] = []
+    pool = parallel.make_executor(2, "fork")
+    assert isinstance(pool, parallel.ForkPool)
+    real = pool.submit
+
+    def watched(fn, /, *args, **kwargs):  # type: ignore[no-untyped-def]
+        sent.append(args[0])
+        return real(fn, *args, **kwargs)
+
+    pool.submit = watched  # type: ignore[method-assign]
+    try:
+        report = engine.check(project, rules=["unit-sliver"], executor=pool, parts=3)
+    finally:
+        pool.shutdown()
+    assert report.findings == engine.check(project, rules=["unit-sliver"]).findings
+    # what goes to a worker is the partition, not its features: a few hundred bytes, not the layer
+    assert all(isinstance(t, parallel.InheritedTask) for t in sent) and len(sent) == 3
+    assert max(len(pickle.dumps(t)) for t in sent) < len(pickle.dumps(project.layers["units"].frame))
+    assert not parallel._SHARED  # shutting the pool down lets go of the project
 
 
 def test_a_family_runs_on_partitions_only_when_each_of_its_rules_can(tmp_path):
