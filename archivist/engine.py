@@ -224,7 +224,7 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
                         merged[key] = run_partitioned(run_ctx.view(), batch, executor, parts, step, run_ctx.left_out())
                         for text in merged[key].notes:
                             run_ctx.note(text)
-                    answer = merged.get(key) if info in batch else None
+                    answer = merged.get(key) if info in batch and key is not None else None
                     given = answer.hits[info.id] if answer is not None and info.id in answer.hits else None
                     findings += run_one(info, step, given)
         notes, local_notes = list(ctx.notes), list(local.notes)
