@@ -204,30 +204,8 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         findings, ran, notes, local_notes = _run_side_by_side(groups, skipped, contexts, run_one, ctx, local,
                                                               progress, threads)
     else:
-        findings, ran = [], []
-        batches = _batches(groups, skipped, contexts) if partition else {}
-        merged: dict[bool, Any] = {}  # per batch (as read, or in the local frame): the partitions' answer
-        for family, group in groups:
-            key = next((k for k, b in batches.items() if any(i.family == family for i in b)), None)
-            batch = batches[key] if key is not None else []
-            with progress.step(f"{family} rules", total=len(group) + (parts if key is not None and key not in merged else 0)) as step:
-                for info in group:
-                    if skipped(info):
-                        step.advance()
-                        continue
-                    ran.append(info.id)
-                    _, _, run_ctx = contexts(info)
-                    if info in batch and key not in merged:  # every partitioned family of this context, at once
-                        from .parallel import run_partitioned
-
-                        assert executor is not None and key is not None
-                        merged[key] = run_partitioned(run_ctx.view(), batch, executor, parts, step, run_ctx.left_out())
-                        for text in merged[key].notes:
-                            run_ctx.note(text)
-                    answer = merged.get(key) if info in batch and key is not None else None
-                    given = answer.hits[info.id] if answer is not None and info.id in answer.hits else None
-                    findings += run_one(info, step, given)
-        notes, local_notes = list(ctx.notes), list(local.notes)
+        findings, ran, notes, local_notes = _run_in_turn(groups, skipped, contexts, run_one, ctx, local, progress,
+                                                         executor if partition else None, parts)
     chart = [chart_credit(project.config.chart)] if set(ran) & CHART_RULES else []
     framed = frame is not None and any(not contexts(info)[0] for info in _infos(groups, ran))  # a rule ran in the local frame
     if framed:
@@ -243,6 +221,70 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
         rules_run=tuple(ran),
         place_decimals=6 if digits > LINEAR_DIGITS else 1,
     )
+
+
+def _run_in_turn(
+    groups: list[tuple[str, list[RuleInfo]]],
+    skipped: Callable[[RuleInfo], bool],
+    contexts: Callable[[RuleInfo], tuple[bool, MapProject, CheckContext]],
+    run_one: Callable[[RuleInfo, Step, Iterable[Hit] | None], list[Finding]],
+    ctx: CheckContext,
+    local: CheckContext,
+    progress: Progress,
+    executor: Executor | None,
+    parts: int,
+) -> tuple[list[Finding], list[str], list[str], list[str]]:
+    """Run the rule families one after another in this thread; the findings, rules run and notes.
+
+    With an executor, the families whose every running rule is partitioned
+    are sent to the partitions first (:func:`_batches`, :class:`archivist.parallel.Sent`),
+    and the other families run here while the workers run those; each
+    partitioned rule's findings take their place when its family's turn
+    comes. Notes are recorded per rule and given in the order of a run in
+    one thread (:meth:`CheckContext.ordered_notes`), whichever computation
+    made them first.
+    """
+    logs: dict[str, tuple[list[Any], list[Any]]] = {info.id: ([], []) for _, group in groups for info in group}
+    findings: list[Finding] = []
+    ran: list[str] = []
+    batches = _batches(groups, skipped, contexts) if executor is not None else {}
+    sent: dict[bool, Any] = {}
+    merged: dict[bool, Any] = {}  # per batch (as read, or in the local frame): the partitions' answer
+    try:
+        for as_read, batch in batches.items():
+            from .parallel import Sent
+
+            assert executor is not None
+            _, _, run_ctx = contexts(batch[0])
+            with ctx.recording([]), run_ctx.recording([]):  # its notes come with the rules that read it, in their turn
+                sent[as_read] = Sent(run_ctx.view(), batch, executor, parts, run_ctx.left_out())
+        for family, group in groups:
+            key = next((k for k, b in batches.items() if any(i.family == family for i in b)), None)
+            batch = batches[key] if key is not None else []
+            with progress.step(f"{family} rules", total=len(group) + (parts if key is not None and key not in merged else 0)) as step:
+                for info in group:
+                    with ctx.recording(logs[info.id][0]):  # skipping reads the alignment: its notes come at this rule
+                        if skipped(info):
+                            step.advance()
+                            continue
+                    ran.append(info.id)
+                    _, _, run_ctx = contexts(info)
+                    with run_ctx.recording(logs[info.id][0] if run_ctx is ctx else logs[info.id][1]):
+                        if info in batch and key is not None and key not in merged:
+                            merged[key] = sent[key].merged(step)
+                            for text in merged[key].notes:
+                                run_ctx.note(text)
+                        answer = merged.get(key) if info in batch and key is not None else None
+                        given = answer.hits[info.id] if answer is not None and info.id in answer.hits else None
+                        findings += run_one(info, step, given)
+    except BaseException:
+        for job in sent.values():
+            job.cancel()
+        raise
+    order = [info.id for _, group in groups for info in group]
+    notes = ctx.ordered_notes(logs[rid][0] for rid in order)
+    local_notes = local.ordered_notes(logs[rid][1] for rid in order) if local is not ctx else notes
+    return findings, ran, notes, local_notes
 
 
 def _batches(groups: list[tuple[str, list[RuleInfo]]], skipped: Callable[[RuleInfo], bool],

@@ -724,35 +724,66 @@ def run_partitioned(
     local frame for a map in longitude/latitude); ``left_out`` the roles the
     alignment left out. ``step`` advances once per partition done.
     """
-    ids = tuple(info.id for info in rules)
-    if not ids:
-        return Merged()
-    plan = plan or plan_partitions(project, parts)
-    key = executor.share(project) if isinstance(executor, ForkPool) else None
+    return Sent(project, rules, executor, parts, left_out, plan).merged(step)
 
-    def submit(part: Partition) -> Future:
-        if key is not None:
-            return executor.submit(run_inherited, InheritedTask(key, part, ids, plan.grid, plan.reach, left_out))
-        return executor.submit(run_partition, PartitionTask(part.index, sub_project(project, part), ids, plan.grid,
-                                                            part.marked, plan.reach, left_out))
 
-    # tasks go in waves: a few per worker, the next one as one ends, so that the partitions' projects (each a
-    # copy of its rows, pickled on the way) are not all made and held at once
-    window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
-    queue = list(plan.partitions)
-    running: set[Future] = set()
-    results: list[PartitionResult] = []
-    try:
-        while queue or running:
-            while queue and len(running) < window:
-                running.add(submit(queue.pop(0)))
-            done, running = wait(running, return_when=FIRST_COMPLETED)
-            for fut in done:
-                results.append(fut.result())
-                if step is not None:
-                    step.advance()
-    except BaseException:
-        for fut in running:
+class Sent:
+    """Partitions sent to an executor: the first wave goes out at once, :meth:`merged` waits for the rest and merges.
+
+    So the calling process can do other work (the families that run on the
+    whole map) while the workers run the partitions. Tasks go in waves: two
+    per worker, the next one as one ends, so that the partitions' projects
+    (each a copy of its rows, pickled on the way) are not all made and held
+    at once. :meth:`cancel` drops what has not ended (an error, Ctrl-C).
+    """
+
+    def __init__(self, project: MapProject, rules: Sequence[RuleInfo], executor: Executor, parts: int,
+                 left_out: tuple[str, ...] = (), plan: Plan | None = None) -> None:
+        self.project, self.executor, self.left_out = project, executor, left_out
+        self.ids = tuple(info.id for info in rules)
+        self.plan = (plan or plan_partitions(project, parts)) if self.ids else None
+        self.key = executor.share(project) if self.ids and isinstance(executor, ForkPool) else None
+        self.window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
+        self.queue = list(self.plan.partitions) if self.plan is not None else []
+        self.running: set[Future] = set()
+        try:
+            self._fill()
+        except BaseException:
+            self.cancel()
+            raise
+
+    def _submit(self, part: Partition) -> Future:
+        plan = self.plan
+        assert plan is not None
+        if self.key is not None:
+            return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach, self.left_out))
+        return self.executor.submit(run_partition, PartitionTask(part.index, sub_project(self.project, part), self.ids,
+                                                                 plan.grid, part.marked, plan.reach, self.left_out))
+
+    def _fill(self) -> None:
+        while self.queue and len(self.running) < self.window:
+            self.running.add(self._submit(self.queue.pop(0)))
+
+    def merged(self, step: Step | None = None) -> Merged:
+        """Wait for every partition (``step`` advances once per partition done) and merge their findings."""
+        if self.plan is None:
+            return Merged()
+        results: list[PartitionResult] = []
+        try:
+            while self.queue or self.running:
+                self._fill()
+                done, self.running = wait(self.running, return_when=FIRST_COMPLETED)
+                for fut in done:
+                    results.append(fut.result())
+                    if step is not None:
+                        step.advance()
+        except BaseException:
+            self.cancel()
+            raise
+        return merge(self.plan, self.ids, results)
+
+    def cancel(self) -> None:
+        """Cancel every partition not yet ended and send no more."""
+        self.queue.clear()
+        for fut in self.running:
             fut.cancel()
-        raise
-    return merge(plan, ids, results)

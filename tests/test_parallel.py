@@ -262,6 +262,28 @@ def test_the_partitioned_families_go_together_so_a_partition_builds_their_shared
     assert report.findings == engine.check(project, rules=rules).findings
 
 
+def test_the_partitions_are_sent_before_the_families_of_the_whole_map_run_here(tmp_path):
+    from archivist.progress import Progress
+
+    project = _grid_project(tmp_path)
+    events: list[str] = []
+
+    class Watching(Progress):
+        def _begin(self, step) -> None:  # type: ignore[no-untyped-def]
+            events.append(step.label)
+
+    class Counting(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            events.append("partition sent")
+            return super().submit(fn, *args, **kwargs)
+
+    with Counting(2) as pool:
+        report = engine.check(project, rules=["layer-empty", "unit-sliver"], executor=pool, parts=3, progress=Watching())
+    # the workers run the partitions while this process runs the metadata family
+    assert events == ["partition sent"] * 3 + ["metadata rules", "topology rules"]
+    assert report.findings == engine.check(project, rules=["layer-empty", "unit-sliver"]).findings
+
+
 def test_default_jobs_are_the_cores_this_process_may_use(monkeypatch):
     monkeypatch.setattr(parallel.os, "sched_getaffinity", lambda pid: {0, 3, 5}, raising=False)
     assert parallel.default_jobs() == 3
