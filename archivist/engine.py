@@ -460,10 +460,13 @@ def check(
         ``dask.distributed`` client's executor); the caller shuts it down.
     parts
         With ``jobs`` > 1: run the partitioned rules on this many partitions
-        in ``jobs`` worker processes instead of threads (default: threads,
-        no partitions); the processes are forked from this one where the
-        system can (:class:`archivist.parallel.ForkPool`: they read the map
-        from its memory). With an executor, the number of partitions (default 2).
+        in ``jobs`` worker processes instead of threads; the processes are
+        forked from this one where the system can
+        (:class:`archivist.parallel.ForkPool`: they read the map from its
+        memory). By default, :func:`archivist.parallel.fork_parts` decides:
+        ``jobs`` partitions on a map large enough where the system forks,
+        else threads without partitions. With an executor, the number of
+        partitions (default 2).
 
     Raises
     ------
@@ -489,6 +492,10 @@ def check(
     if jobs < 0:
         raise ArchivistError(f"jobs must be 0 (every core) or a positive number of workers, not {jobs}")
     jobs = default_jobs() if jobs == 0 else jobs
+    if parts is None and jobs > 1:
+        from .parallel import fork_parts
+
+        parts = fork_parts(project, selected, jobs)
     if parts is None:
         return run_rules(project, selected, progress, threads=jobs)
     if jobs == 1 and parts <= 1:

@@ -154,6 +154,7 @@ __all__ = [
     "PartitionResult",
     "PartitionTask",
     "default_jobs",
+    "fork_parts",
     "halo_width",
     "make_executor",
     "plan_partitions",
@@ -207,16 +208,35 @@ def make_executor(jobs: int, kind: str = "process") -> Executor:
 
 def stop_executor(executor: Executor) -> None:
     """Stop an executor now: cancel what has not started and end the worker processes (a Ctrl-C, an error)."""
-    executor.shutdown(wait=False, cancel_futures=True)
     terminate = getattr(executor, "terminate_workers", None)  # Python 3.14
     if terminate is not None:
         terminate()
         return
-    for proc in list((getattr(executor, "_processes", None) or {}).values()):
+    # the worker processes, taken before shutting down: shutdown() lets go of them (Python 3.9 to 3.13)
+    procs = list((getattr(executor, "_processes", None) or {}).values())
+    executor.shutdown(wait=False, cancel_futures=True)
+    for proc in procs:
         if proc.is_alive():
             proc.terminate()
-    for proc in list((getattr(executor, "_processes", None) or {}).values()):
+    for proc in procs:
         proc.join(timeout=5)
+
+
+FORK_FEATURES = 20_000
+"""Features (of every partitioned layer) from which ``check --jobs N`` runs the partitioned families on N forked
+processes rather than the families side by side on threads (measured with tests/benchmarks/bench_jobs.py: below it
+the check takes about a second, and forking and merging cost what the partitions save)."""
+
+
+def fork_parts(project: MapProject, rules: Sequence[RuleInfo], jobs: int) -> int | None:
+    """The partitions ``check --jobs N`` cuts the map into: ``jobs`` where the system forks, a partitioned rule is
+    asked for and the map has :data:`FORK_FEATURES` features or more; None (threads, no partitions) otherwise."""
+    import multiprocessing
+
+    if jobs <= 1 or "fork" not in multiprocessing.get_all_start_methods() or not any(r.partitioned for r in rules):
+        return None
+    features = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
+    return jobs if features >= FORK_FEATURES else None
 
 
 # What the processes of a ForkPool find in their parent's memory: the projects shared before they were forked.
@@ -772,7 +792,8 @@ class Sent:
         try:
             while self.queue or self.running:
                 self._fill()
-                done, self.running = wait(self.running, return_when=FIRST_COMPLETED)
+                # a timed wait: Ctrl-C reaches this thread at once (an untimed one holds it until a partition ends)
+                done, self.running = wait(self.running, timeout=0.1, return_when=FIRST_COMPLETED)
                 for fut in done:
                     results.append(fut.result())
                     if step is not None:

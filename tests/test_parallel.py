@@ -526,3 +526,59 @@ def test_ctrl_c_while_a_thread_is_inside_geos_leaves_the_command_line_with_130(t
         _, err = proc.communicate(timeout=60)
         assert proc.returncode == 130, err
         assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
+
+
+FORK_DRIVER = """
+import os
+import sys
+from dataclasses import replace
+
+import numpy as np
+import shapely
+
+from archivist import parallel, registry
+from archivist.cli import main
+
+
+def busy_in_geos(project, ctx):
+    polys = shapely.buffer(shapely.points(np.random.default_rng(0).random((20000, 2))), 0.01, quad_segs=64)
+    print("inside", os.getpid(), flush=True)
+    while True:  # GEOS work in a forked worker until it is stopped
+        shapely.union_all(shapely.buffer(polys, 0.001))
+
+
+registry._RULES["unit-sliver"] = replace(registry.get_rule("unit-sliver"), func=busy_in_geos)
+parallel.FORK_FEATURES = 0  # this small map on forked workers, as a large one would be
+sys.argv = ["archivist", "check", sys.argv[1], "-q", "--jobs", "2", "--rule", "unit-sliver"]
+main()
+"""
+
+
+@pytest.mark.slow
+def test_ctrl_c_while_forked_workers_run_leaves_no_worker_and_exits_130(tmp_path):
+    import multiprocessing
+    import os
+    import signal
+    import subprocess
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")
+    project = _grid_project(tmp_path)
+    proc = subprocess.Popen([sys.executable, "-c", FORK_DRIVER, str(project.root)], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    assert proc.stdout is not None
+    word, pid = proc.stdout.readline().split()
+    assert word == "inside" and int(pid) != proc.pid  # the rule runs in a worker process
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
+    deadline = time.monotonic() + 10
+    while time.monotonic() < deadline:
+        try:
+            os.kill(int(pid), 0)
+        except ProcessLookupError:
+            break
+        time.sleep(0.1)
+    else:
+        pytest.fail(f"worker {pid} still runs after the check stopped")
