@@ -182,6 +182,8 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
             got: list[Hit] = []
             try:
                 hits = hits_from if hits_from is not None else (info.func(run_on, run_ctx) or ())
+                if hits_from is None and info.settle is not None:  # on partitions, the merge settles them
+                    hits = info.settle.hits(run_ctx.view(), run_ctx, hits)
                 for hit in hits:
                     if not as_read:
                         assert frame is not None

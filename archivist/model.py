@@ -55,6 +55,9 @@ class Hit:
     severity
         Overrides the rule's default severity for this hit only (e.g. a
         milder case of the same problem).
+    detail
+        What the rule's settle step reads of the hit (:class:`archivist.registry.Settle`);
+        never reported.
     """
 
     message: str
@@ -66,6 +69,7 @@ class Hit:
     y: float | None = None
     severity: Severity | None = None
     rule: str | None = None  # set by the loader for problems found while loading
+    detail: Any = None
 
 
 @dataclass(frozen=True)

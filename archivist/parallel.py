@@ -21,11 +21,34 @@ process.
 Which rules are partitioned, and why
 ------------------------------------
 Partitioned: ``unit-sliver`` (each polygon alone), ``line-self-intersection``
-(each line alone), ``line-duplicate`` and ``line-same-unit-contact`` (a line,
-the lines within the tolerance of it and the polygon edges it runs along),
-``line-dangle`` (a free end, the lines and the map edge around it, and the
-nearest line, whose link is the finding's geometry), ``line-off-boundary``
-(a line and the polygon edges and map edge within the tolerance).
+and ``line-kind-unknown`` (each line alone: its geometry, its kind and
+certainty against the vocabulary), ``line-duplicate`` and
+``line-same-unit-contact`` (a line, the lines within the tolerance of it and
+the polygon edges it runs along), ``line-dangle`` (a free end, the lines and
+the map edge around it, and the nearest line, whose link is the finding's
+geometry), ``line-off-boundary`` (a line and the polygon edges and map edge
+within the tolerance).
+
+``boundary-without-line`` is partitioned with a settle step
+(:class:`archivist.registry.Settle`): each stretch of boundary no line draws
+is found from the polygon edges and lines around it, but whether the
+stretches are listed or summed up in one finding per kind of boundary
+depends on their share of the whole map, and the summary names whole-map
+facts. The partitions give every stretch and a tally: the length of the
+boundaries between units and of the units' edge along the map edge, each
+edge counted by the partition owning its first vertex, and the number of
+contact lines, each counted by the partition owning its first vertex. The
+merge adds the tallies exactly (:class:`archivist.tally.ExactSum`, the
+correctly rounded sum whatever the order, as :func:`math.fsum` gives it)
+and finishes the merged stretches with the same function a check in one
+process finishes its stretches with, which takes them in an order of its own
+(by polygon ids, then vertices), so the two agree by construction: the
+count, the missing length, the share against the threshold, the box, the
+longest stretch, the summary's geometry. Without an extent layer the map
+edge is the outline of the units, which a partition's units do not give
+(an enclosed hole open in a partition, a partition's own outer edge): the
+rule then runs on the whole map, decided before the partitions are sent
+(``Settle.partitions_can``).
 
 Whole map, and why:
 
@@ -34,8 +57,7 @@ Whole map, and why:
   whole map, the n.d. note of a table); ``crs-axis-swap-suspected`` counts
   the features of a layer that fit only swapped; ``sample-unit-mismatch``
   names the nearest polygon of the recorded unit anywhere on the map.
-- ``boundary-without-line``: whether missing linework is reported stretch by
-  stretch or as one summary depends on its share of the whole map.
+- ``boundary-without-line`` on a map without an extent layer (see above).
 - ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
   ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
   (:mod:`archivist.analysis.coverage`). With an extent layer each gap is
@@ -47,10 +69,12 @@ Whole map, and why:
   these rules as partitioned needs that step cut per partition and tests of
   identity at every density. ``unit-overlap`` alone would be local (exact
   pairwise intersections), but it needs the whole analysis. Since a family
-  goes to the partitions only when all its running rules can, neither the
-  topology nor the linework family of a whole check goes to them today.
-- ``line-kind-unknown``, ``unit-code-missing``: attribute checks of each
-  feature, faster than sending the layer to a worker.
+  goes to the partitions only when all its running rules can, the topology
+  family of a whole check does not go to them today; the linework family
+  does (with ``boundary-without-line`` on the whole map when there is no
+  extent layer).
+- ``unit-code-missing``: an attribute check of each feature, faster than
+  sending the layer to a worker.
 
 How the map is cut
 ------------------
@@ -78,10 +102,11 @@ once, by one partition.
 
 A partition *trusts* a finding when the bounds of its geometry and place,
 grown by the rules' ``reach`` (:func:`rule_reach`: the farthest a partitioned
-rule looks from a place it judges), lie on its marked cells. Every feature
-over a marked cell is in the partition (its bounds touch that cell), so the
-rule saw there exactly what it sees on the whole map, and gives the same
-hit. A finding whose place lies in the core is trusted when it is no larger
+rule looks from a place it judges), lie on its marked cells (what of them
+lies off the grid needs no cell: the grid spans every feature, so the whole
+map holds nothing there either). Every feature over a marked cell is in the
+partition (its bounds touch that cell), so the rule saw there exactly what
+it sees on the whole map, and gives the same hit. A finding whose place lies in the core is trusted when it is no larger
 than the halo less the reach (the halo is three times the larger features,
 see :func:`halo_width`). The merge keeps each partition's owned findings,
 and runs a rule on the whole map instead (its answer replaces the
@@ -93,8 +118,10 @@ partitions') when:
   (a cross-check: the two saw different maps where both should see all);
 - GEOS stopped the rule in a partition.
 
-So the merged findings are the whole map's findings; the fallback costs time,
-never a finding. Findings of a rule are then put in one total order
+Then each rule with a settle step finishes its owned hits from the exact
+sums of the partitions' tallies (:func:`settle`; GEOS stopping it sends the
+rule to the whole map). So the merged findings are the whole map's findings;
+the fallback costs time, never a finding. Findings of a rule are then put in one total order
 (:func:`archivist.engine.finding_order`), the same in one process.
 
 The interface
@@ -131,6 +158,13 @@ only when every rule of it that runs is partitioned (the engine, see
 left in the calling process would build again for the whole map. The
 families that go are sent together, one task per partition, so that a
 partition builds the analyses they share once.
+A settle step's tally must count each value from what the partition owning
+its point sees exactly as the whole map does (an edge at its first vertex:
+the polygons drawing it touch that cell); the map edge near a core is the
+extent layer's there, but which edges lie along it is tested within the
+tolerance plus 1e-9 of the extent's largest coordinate, which is the cut
+extent's in a partition: an edge at exactly that distance from the frame
+could be counted differently.
 """
 
 from __future__ import annotations
@@ -143,6 +177,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 import numpy as np
 
 from .model import Hit
+from .tally import ExactSum, totals
 
 if TYPE_CHECKING:
     from .progress import Step
@@ -558,6 +593,7 @@ class PartitionTask:
     marked: np.ndarray  # the cells within the halo of the partition's core (see Partition)
     reach: float
     left_out: tuple[str, ...] = ()
+    core: np.ndarray | None = None  # the cells it owns: the values of the rules' tallies it counts (None: none)
 
 
 @dataclass(frozen=True)
@@ -567,12 +603,16 @@ class PartitionResult:
     ``hits``: (rule id, hit, x, y, trusted) for every hit, ``x``/``y`` its
     representative point (NaN when it has none). ``failed``: rules GEOS
     stopped here. ``notes``: the notes the partition's analyses made.
+    ``tallies``: (rule id, name, exact sum) of the values of each settled
+    rule's tallies whose point lies in the partition's core (see
+    :class:`archivist.registry.Settle`).
     """
 
     index: int
     hits: tuple[tuple[str, Hit, float, float, bool], ...]
     failed: tuple[str, ...]
     notes: tuple[str, ...]
+    tallies: tuple[tuple[str, str, ExactSum], ...] = ()
 
 
 def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] | None]:
@@ -598,16 +638,17 @@ def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] 
 def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> np.ndarray:
     """Whether each box (xmin, ymin, xmax, ymax; NaN for none), grown by ``reach``, lies on marked cells only.
 
-    What a grown box reaches beyond the grid does not count against it: the
-    grid spans every layer (:func:`plan_partitions`), so there is nothing
-    there, on the whole map as on a partition. A finding along the map's edge
-    is trusted like any other.
+    The grid spans every feature of the map (:func:`plan_partitions`), so
+    beyond it the whole map holds nothing, as the partition does: what of a
+    box lies off the grid needs no cell (a finding along the map edge, whose
+    reach runs off the map, is trusted by the partition holding the cells
+    along it).
     """
     ok = np.isfinite(boxes).all(axis=1)
     if not ok.any():
         return ok
     b = boxes[ok] + np.array([-reach, -reach, reach, reach])
-    r = grid.boxes(b)  # off the grid: its edge cells
+    r = grid.boxes(b)  # the cells of the part of each box on the grid
     cells = (r[:, 2] - r[:, 0] + 1) * (r[:, 3] - r[:, 1] + 1)
     out = ok.copy()
     out[ok] = _marked_in(_table(marked), r) == cells
@@ -633,7 +674,7 @@ def run_inherited(task: InheritedTask) -> PartitionResult:
         raise RuntimeError(f"this worker process was not forked with the project {task.source}")
     part = task.part
     return run_partition(PartitionTask(part.index, sub_project(project, part), task.rules, task.grid, part.marked,
-                                       task.reach, task.left_out))
+                                       task.reach, task.left_out, part.core))
 
 
 def run_partition(task: PartitionTask) -> PartitionResult:
@@ -651,19 +692,39 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     ctx._cache["analysis.view"] = project
     found: list[tuple[str, Hit]] = []
     failed: list[str] = []
+    tallies: list[tuple[str, str, ExactSum]] = []
     for rid in task.rules:
         info = get_rule(rid)
         try:
             found.extend((rid, hit) for hit in (info.func(project, ctx) or ()))
+            if info.settle is not None:
+                owned = _owned_by(task.grid, task.core, task.index == 0)
+                tallies += [(rid, name, t.total(owned)) for name, t in info.settle.tally(project, ctx).items()]
         except GEOSException:
             failed.append(rid)
             found = [(r, h) for r, h in found if r != rid]
+            tallies = [t for t in tallies if t[0] != rid]
     places = [place_of(h) for _, h in found]
     boxes = np.array([b if b is not None else (np.nan,) * 4 for _, _, b in places], dtype=float).reshape(-1, 4)
     trust = trusted(task.grid, task.marked, boxes, task.reach)
     hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
                  for (rid, hit), (x, y, _), t in zip(found, places, trust))
-    return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes))
+    return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes), tuple(tallies))
+
+
+def _owned_by(grid: Grid, core: np.ndarray | None, first: bool) -> Any:
+    """Whether each point lies in a cell of ``core``, as :meth:`Plan.owners` reads them (a point with no
+    coordinates: ``first``, the first partition's)."""
+
+    def owned(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+        ok = np.isfinite(x) & np.isfinite(y)
+        out = ~ok if first else np.zeros(len(x), dtype=bool)
+        if core is not None and ok.any():
+            i, j = grid.ij(x[ok], y[ok])
+            out[ok] = core[j, i]
+        return out
+
+    return owned
 
 
 # ---------------------------------------------------------------- the merge
@@ -760,7 +821,12 @@ class Sent:
     def __init__(self, project: MapProject, rules: Sequence[RuleInfo], executor: Executor, parts: int,
                  left_out: tuple[str, ...] = (), plan: Plan | None = None) -> None:
         self.project, self.executor, self.left_out = project, executor, left_out
-        self.ids = tuple(info.id for info in rules)
+        # a settled rule the partitions cannot judge on this map goes whole before anything is sent
+        self.ahead = {info.id for info in rules if info.settle is not None and info.settle.partitions_can is not None
+                      and not info.settle.partitions_can(project)}
+        self.asked = tuple(info.id for info in rules)
+        self.rules = [info for info in rules if info.id not in self.ahead]
+        self.ids = tuple(info.id for info in self.rules)
         self.plan = (plan or plan_partitions(project, parts)) if self.ids else None
         self.key = executor.share(project) if self.ids and isinstance(executor, ForkPool) else None
         self.window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
@@ -778,7 +844,7 @@ class Sent:
         if self.key is not None:
             return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach, self.left_out))
         return self.executor.submit(run_partition, PartitionTask(part.index, sub_project(self.project, part), self.ids,
-                                                                 plan.grid, part.marked, plan.reach, self.left_out))
+                                                                 plan.grid, part.marked, plan.reach, self.left_out, part.core))
 
     def _fill(self) -> None:
         while self.queue and len(self.running) < self.window:
@@ -787,7 +853,7 @@ class Sent:
     def merged(self, step: Step | None = None) -> Merged:
         """Wait for every partition (``step`` advances once per partition done) and merge their findings."""
         if self.plan is None:
-            return Merged()
+            return Merged(whole=self.asked)
         results: list[PartitionResult] = []
         try:
             while self.queue or self.running:
@@ -801,10 +867,40 @@ class Sent:
         except BaseException:
             self.cancel()
             raise
-        return merge(self.plan, self.ids, results)
+        merged = settle(self.project, self.rules, merge(self.plan, self.ids, results), results)
+        return replace(merged, whole=tuple(r for r in self.asked if r in self.ahead or r in merged.whole))
 
     def cancel(self) -> None:
         """Cancel every partition not yet ended and send no more."""
         self.queue.clear()
         for fut in self.running:
             fut.cancel()
+
+
+def settle(project: MapProject, rules: Sequence[RuleInfo], merged: Merged, results: Sequence[PartitionResult]) -> Merged:
+    """The merged hits of each settled rule finished from the partitions' tallies (:class:`archivist.registry.Settle`).
+
+    Each value of a tally was counted by the one partition owning its point,
+    and the counts are exact sums (:class:`archivist.tally.ExactSum`), so the
+    totals are the whole map's to the last bit, and ``finish`` (which does
+    not depend on the order of the hits) gives what it gives in one process.
+    A rule whose ``finish`` GEOS stops goes to the whole map.
+    """
+    from shapely.errors import GEOSException
+
+    hits = dict(merged.hits)
+    whole = list(merged.whole)
+    for info in rules:
+        if info.settle is None or info.id not in hits:
+            continue
+        sums: dict[str, ExactSum] = {}
+        for res in sorted(results, key=lambda r: r.index):
+            for rid, name, total in res.tallies:
+                if rid == info.id:
+                    sums[name] = sums.get(name, ExactSum()) + total
+        try:
+            hits[info.id] = info.settle.finish(project, list(hits[info.id]), totals(sums))
+        except GEOSException:
+            del hits[info.id]
+            whole.append(info.id)
+    return replace(merged, hits=hits, whole=tuple(whole))

@@ -40,6 +40,7 @@ from .model import Hit, Severity
 if TYPE_CHECKING:
     from .analysis.context import CheckContext
     from .project import MapProject
+    from .tally import Tally
 
 
 class Rule(Protocol):
@@ -53,6 +54,35 @@ class Rule(Protocol):
 
 
 R = TypeVar("R", bound=Rule)
+
+
+@dataclass(frozen=True)
+class Settle:
+    """How a rule whose findings read whole-map facts finishes its hits: the same code in one process and on partitions.
+
+    The rule yields its hits place by place (each decided from what lies
+    near it). ``tally`` gives the values behind the whole-map facts, each at
+    a point (:class:`archivist.tally.Tally`); ``finish`` turns all the hits
+    and the exact totals of the tallies into the findings' hits (one summary
+    instead of many hits, a message naming a total). In one process every
+    value counts and ``finish`` gets the rule's hits; on partitions
+    (:mod:`archivist.parallel`) each partition counts the values in its own
+    cells and ``finish`` gets the merged hits, so both give the same hits.
+    ``finish`` must not depend on the order of its hits. ``partitions_can``
+    says whether partitions can judge the rule on a project at all (else it
+    runs on the whole map, decided before the partitions are sent).
+    """
+
+    tally: Callable[[MapProject, CheckContext], dict[str, Tally]]
+    finish: Callable[[MapProject, list[Hit], dict[str, float]], list[Hit]]
+    partitions_can: Callable[[MapProject], bool] | None = None
+
+    def hits(self, project: MapProject, ctx: CheckContext, hits: Iterable[Hit]) -> list[Hit]:
+        """The rule's hits finished in one process: every value of the tallies counts."""
+        from .tally import totals
+
+        found = list(hits)
+        return self.finish(project, found, totals({k: t.total() for k, t in self.tally(project, ctx).items()}))
 
 SECTIONS = ("Catches", "Why it matters", "Fix", "Example")
 FAMILIES = ("metadata", "topology", "linework", "crs", "legend", "samples", "structures", "stations", "photos", "literature", "archive")
@@ -84,6 +114,7 @@ class RuleInfo:
     title: str
     sections: tuple[tuple[str, str], ...]
     partitioned: bool = False  # may run on spatial partitions of the map (archivist.parallel)
+    settle: Settle | None = None  # finishes the hits from whole-map totals (see Settle)
 
     @property
     def doc(self) -> dict[str, str]:
@@ -120,7 +151,8 @@ def parse_doc(doc: str | None) -> tuple[str, tuple[tuple[str, str], ...]]:
     return title, out
 
 
-def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), partitioned: bool = False) -> Callable[[R], R]:
+def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), partitioned: bool = False,
+         settle: Settle | None = None) -> Callable[[R], R]:
     """Register a rule function under `id`.
 
     Parameters
@@ -138,8 +170,13 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), pa
         The rule decides each finding from what lies near it (within
         :func:`archivist.parallel.rule_reach` of the finding and its
         geometry), never from the whole map (no count over a layer, no
-        summary): ``check --jobs N`` may run it on spatial partitions of the
-        map and merge their findings (:mod:`archivist.parallel`).
+        summary; or only through its ``settle`` step): ``check --jobs N`` may
+        run it on spatial partitions of the map and merge their findings
+        (:mod:`archivist.parallel`).
+    settle
+        What turns the rule's hits into its findings from whole-map totals
+        (:class:`Settle`): a rule whose hits are local but whose summary or
+        wording reads the whole map may then be ``partitioned`` too.
     """
 
     def register(func: R) -> R:
@@ -150,7 +187,7 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), pa
         if family not in FAMILIES:
             raise ValueError(f"rule {id!r}: unknown family {family!r}")
         title, sections = parse_doc(func.__doc__)
-        _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections, partitioned)
+        _RULES[id] = RuleInfo(id, family, Severity.parse(severity), func, tuple(needs), title, sections, partitioned, settle)
         return func
 
     return register

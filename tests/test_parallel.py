@@ -49,6 +49,7 @@ def test_partitioned_rules_are_the_local_topology_and_linework_rules():
     assert {r.id for r in all_rules() if r.partitioned} == {
         "unit-sliver",
         "line-off-boundary", "line-dangle", "line-same-unit-contact", "line-self-intersection", "line-duplicate",
+        "line-kind-unknown", "boundary-without-line",
     }
 
 
@@ -103,10 +104,13 @@ def test_a_finding_is_trusted_only_over_marked_cells():
     grid = parallel.Grid(0.0, 0.0, 10.0, 4, 4, 1)
     marked = np.zeros((4, 4), dtype=bool)
     marked[:2, :2] = True  # x and y from 0 to 20
-    # the last two run off the grid, where no layer has anything: beside marked cells, and beside unmarked ones
-    boxes = np.array([[5, 5, 12, 12], [5, 5, 25, 12], [np.nan] * 4, [-5, 5, 5, 5], [-5, 25, 5, 25]], dtype=float)
-    assert parallel.trusted(grid, marked, boxes, 1.0).tolist() == [True, False, False, True, False]
+    boxes = np.array([[5, 5, 12, 12], [5, 5, 25, 12], [np.nan] * 4, [-5, 5, 5, 5], [-5, 5, 5, 15]], dtype=float)
+    # off the grid the whole map holds nothing, as the partition does: a box reaching off the map's edge is trusted
+    # when its cells on the grid are marked
+    assert parallel.trusted(grid, marked, boxes, 1.0).tolist() == [True, False, False, True, True]
     assert parallel.trusted(grid, marked, boxes[:1], 9.0).tolist() == [False]  # its reach runs off the marked cells
+    # off the grid on one side, over an unmarked cell on the other
+    assert parallel.trusted(grid, marked, np.array([[-5, 5, 5, 25]], dtype=float), 1.0).tolist() == [False]
 
 
 def test_a_task_and_its_result_cross_process_boundaries(tmp_path):
@@ -296,7 +300,49 @@ def test_jobs_must_not_be_negative(tmp_path):
 
 # ---------------------------------------------------------------- the rule cases, cut into partitions
 
+
+def quilt(tmp_path: Path, name: str = "quilt", *, n: int = 20, drawn: float = 0.0, frame: bool = True, seed: int = 0) -> Path:
+    """An n x n quilt of 10 m cells at 1:1 000 (tolerance 0.1 m), units A and B in a checkerboard, inner vertices
+    jittered up to 2 m (lengths that add up differently in another order), an extent layer, a map-boundary line
+    around it when ``frame``, and a contact on a random share ``drawn`` of the boundaries between cells."""
+    import geopandas as gpd
+
+    from builders import tiny_project
+    from coverage_builders import CRS
+
+    rng = np.random.default_rng(seed)
+    vx, vy = np.meshgrid(np.arange(n + 1) * 10.0, np.arange(n + 1) * 10.0, indexing="ij")
+    inner = (slice(1, n), slice(1, n))
+    vx[inner] += rng.uniform(-2, 2, (n - 1, n - 1))
+    vy[inner] += rng.uniform(-2, 2, (n - 1, n - 1))
+    v = np.stack([vx, vy], axis=-1)
+    cells = [shapely.Polygon([v[i, j], v[i + 1, j], v[i + 1, j + 1], v[i, j + 1]]) for i in range(n) for j in range(n)]
+    codes = ["A" if (i + j) % 2 == 0 else "B" for i in range(n) for j in range(n)]
+    between = [shapely.LineString([v[i, j], v[i, j + 1]]) for i in range(1, n) for j in range(n)]
+    between += [shapely.LineString([v[i, j], v[i + 1, j]]) for i in range(n) for j in range(1, n)]
+    rows = [("contact", g) for g in np.array(between, dtype=object)[rng.random(len(between)) < drawn]]
+    ring = np.r_[v[:, 0], v[-1, 1:], v[-2::-1, -1], v[0, -2::-1]]
+    if frame:
+        rows.append(("map-boundary", shapely.LineString(ring)))
+    lines = gpd.GeoDataFrame({"kind": [r[0] for r in rows], "certainty": ["certain"] * len(rows)},
+                             geometry=[r[1] for r in rows], crs=CRS)
+    units = gpd.GeoDataFrame({"unit": codes}, geometry=cells, crs=CRS)
+    return tiny_project(tmp_path, name=name, units=units, lines=lines, extent=shapely.box(0, 0, 10.0 * n, 10.0 * n),
+                        manifest={"map": {"scale": 1000}})
+
+
+def no_contact_in_a_frame(tmp_path: Path) -> Path:
+    from coverage_builders import FRAME, square_map
+
+    return square_map(tmp_path, "nocontact-extent", line_rows=[("map-boundary", FRAME)], extent=shapely.box(0, 0, 10, 10))
+
+
 CASES = {rid: pair for rid, pair in all_cases().items() if rid in PARTITIONED}
+# boundary-without-line goes to partitions only with an extent layer (else the map edge is the units' outline):
+# one stretch; every boundary undrawn (one summary from stretches all over the map); a third of them drawn
+# (stretches listed); a frame with no line (one summary of the map edge, the boundaries listed)
+CASES["boundary-without-line"] = (*CASES["boundary-without-line"], no_contact_in_a_frame, quilt,
+                                  lambda p: quilt(p, "some", drawn=0.7, seed=1), lambda p: quilt(p, "frameless", drawn=0.8, frame=False))
 
 
 @pytest.mark.parametrize("tight", [False, True], ids=["halo", "tight-halo"])
@@ -315,6 +361,96 @@ def test_rule_cases_on_partitions_give_the_findings_of_one_process(rid, tight, t
             reference = engine.check(project, rules=[rid])
             for parts in (2, 3, 5):
                 same_report(reference, engine.check(project, rules=[rid], executor=pool, parts=parts))
+
+
+def _sent_to_partitions(monkeypatch) -> list:
+    """Record what each run on partitions merged (the engine sends them with parallel.Sent and merges when needed)."""
+    merged: list = []
+    run = parallel.Sent.merged
+
+    def recording(self, *args, **kwargs):  # type: ignore[no-untyped-def]
+        merged.append(run(self, *args, **kwargs))
+        return merged[-1]
+
+    monkeypatch.setattr(parallel.Sent, "merged", recording)
+    return merged
+
+
+def test_missing_linework_at_the_threshold_is_judged_on_partitions_as_in_one_process(tmp_path, monkeypatch):
+    # The share of undrawn boundary between units is set at the threshold to the last bit: one double below it
+    # (a summary) and at it (stretch by stretch). The totals are over 760 edges of lengths that add up
+    # differently in another order (checked below), counted by the partition owning each edge.
+    import math
+
+    from archivist.analysis.context import CheckContext
+    from archivist.rules import linework
+
+    project = load_project(quilt(tmp_path, drawn=0.5, seed=2))
+    info = get_rule("boundary-without-line")
+    ctx = CheckContext(project)
+    stretches = [h for h in info.func(ctx.view(), ctx) if h.detail[0] == "between"]
+    tally = info.settle.tally(ctx.view(), ctx)["between"]
+    # the reference sums: math.fsum, the correctly rounded sum of the values (Python documentation, math.fsum)
+    missing, total = math.fsum(h.measure for h in stretches), math.fsum(tally.values.tolist())
+    plan = parallel.plan_partitions(ctx.view(), 3)
+    owner = plan.owners(tally.x, tally.y)
+    in_parts = sum(float(np.sum(tally.values[owner == k])) for k in range(3))
+    assert in_parts != total  # summed partition by partition the total would differ in its last bits
+    over = under = missing / total
+    while over * total >= missing:
+        over = float(np.nextafter(over, 0.0))
+    while under * total < missing:
+        under = float(np.nextafter(under, 1.0))
+    assert len(stretches) > linework.SYSTEMATIC_STRETCHES and float(np.nextafter(over, 1.0)) == under
+    merged = _sent_to_partitions(monkeypatch)
+    with ThreadPoolExecutor(2) as pool:
+        for share, summary in ((over, True), (under, False)):
+            monkeypatch.setattr(linework, "SYSTEMATIC_SHARE", share)
+            reference = engine.check(project, rules=["boundary-without-line"])
+            assert (len(reference.findings) == 1) is summary, share
+            for parts in (2, 3, 5):
+                merged.clear()
+                same_report(reference, engine.check(project, rules=["boundary-without-line"], executor=pool, parts=parts))
+                assert merged[0].whole == () and "boundary-without-line" in merged[0].hits
+
+
+def test_a_summary_of_stretches_owned_by_different_partitions(tmp_path, monkeypatch):
+    project = load_project(quilt(tmp_path))
+    reference = engine.check(project, rules=["boundary-without-line"])
+    (summary,) = reference.findings
+    assert summary.message.startswith("No line draws 760 stretches of the boundaries between units")
+    merged = _sent_to_partitions(monkeypatch)
+    with ThreadPoolExecutor(2) as pool:
+        same_report(reference, engine.check(project, rules=["boundary-without-line"], executor=pool, parts=4))
+    # each partition owned some of the stretches the summary counts
+    from archivist.analysis.context import CheckContext
+
+    ctx = CheckContext(project)
+    places = np.array([parallel.place_of(h)[:2] for h in get_rule("boundary-without-line").func(ctx.view(), ctx)])
+    plan = parallel.plan_partitions(ctx.view(), 4)
+    assert set(plan.owners(places[:, 0], places[:, 1]).tolist()) == {0, 1, 2, 3}
+    assert merged[0].whole == ()
+
+
+def test_missing_linework_without_an_extent_layer_stays_whole(tmp_path):
+    # the map edge is then the outline of the units, which a partition's units do not give: the rule is not sent
+    from coverage_builders import FRAME, square_map
+
+    sent = []
+
+    class Counting(ThreadPoolExecutor):
+        def submit(self, fn, /, *args, **kwargs):  # type: ignore[override]
+            sent.append(args[0].rules)
+            return super().submit(fn, *args, **kwargs)
+
+    rules = ["boundary-without-line", "line-dangle"]
+    for extent, expected in ((None, ("line-dangle",)), (shapely.box(0, 0, 10, 10), ("line-dangle", "boundary-without-line"))):
+        root = square_map(tmp_path, f"extent-{extent is not None}", line_rows=[("map-boundary", FRAME)], extent=extent)
+        project = load_project(root)
+        sent.clear()
+        with Counting(2) as pool:
+            same_report(engine.check(project, rules=rules), engine.check(project, rules=rules, executor=pool, parts=2))
+        assert sent and all(set(r) == set(expected) for r in sent)
 
 
 # ---------------------------------------------------------------- synthetic maps of 10^4 polygons
@@ -342,6 +478,33 @@ def test_jobs_1_2_and_4_give_the_same_findings_on_a_map_of_ten_thousand_polygons
     assert name == "clean" or {f.rule for f in reference.findings} >= {"line-dangle"}
     for jobs in (2, 4):
         same_report(reference, archivist.check(project, rules=PARTITIONED, jobs=jobs, parts=jobs))
+
+
+@pytest.fixture(scope="module")
+def density_maps(tmp_path_factory):
+    # the benchmark's maps with defect density as a second axis (tests/benchmarks/topology_maps.py), at 1:5 000
+    root = tmp_path_factory.mktemp("density")
+    for density in (0.0, 0.01):
+        make(root / f"density{density}", 10_000, seed=6, density=density, scale=5000)
+    return root
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("density", [0.0, 0.01])
+def test_the_linework_family_on_partitions_gives_the_findings_of_one_process(density_maps, density, monkeypatch):
+    project = load_project(density_maps / f"density{density}")
+    reference = archivist.check(project, only=["linework"])
+    rules = {r.id for r in all_rules() if r.family == "linework"}
+    assert set(reference.rules_run) == rules
+    assert density == 0.0 or {"boundary-without-line", "line-dangle", "line-off-boundary"} <= {f.rule for f in reference.findings}
+    merged = _sent_to_partitions(monkeypatch)
+    with ThreadPoolExecutor(2) as pool:
+        for parts in (2, 4):
+            merged.clear()
+            same_report(reference, archivist.check(project, only=["linework"], executor=pool, parts=parts))
+            # the whole family ran on the partitions, no rule of it on the whole map
+            (run,) = merged
+            assert run.whole == () and set(run.hits) == rules
 
 
 @pytest.mark.slow

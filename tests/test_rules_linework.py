@@ -478,3 +478,20 @@ def test_undrawn_stretch_of_two_vertices_is_placed_at_its_first_vertex(tmp_path)
     root = square_map(tmp_path, line_rows=[("contact", LineString([(5, 0), (5, 9)])), ("map-boundary", FRAME)])
     (g,) = found(root, "boundary-without-line")
     assert g.wkt == "LINESTRING (5 9.1, 5 9.9)" and (g.x, g.y) == (5.0, 9.1)
+
+
+def test_the_summary_of_a_map_in_longitude_latitude_gives_its_box_in_degrees(tmp_path):
+    # the checks run in a local metric frame; the box the missing contacts span is said in the map's own coordinates
+    # (reference: the units' bounds as GDAL reads them in EPSG:4326, through pyogrio)
+    import re
+
+    import pyogrio
+    from test_rules_crs import geographic
+
+    root = geographic(tmp_path)
+    edit_layer(root, "map.gpkg", "lines", lambda f: f[f.kind != "contact"])
+    (f,) = found(root, "boundary-without-line")
+    x0, x1, y0, y1 = map(float, re.search(r"spanning x (\S+) to (\S+), y (\S+) to (\S+);", f.message).groups())
+    bx0, by0, bx1, by1 = pyogrio.read_dataframe(root / "map.gpkg", layer="units").total_bounds
+    assert bx0 - 1e-5 <= x0 < x1 <= bx1 + 1e-5 and by0 - 1e-5 <= y0 < y1 <= by1 + 1e-5
+    assert x1 - x0 > 0.5 * (bx1 - bx0) and y1 - y0 > 0.5 * (by1 - by0)  # the stretches run all over the map

@@ -139,7 +139,10 @@ def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.S
         return targets.copy()
     tree = tree if tree is not None else shapely.STRtree(refs)
     ti, ri = dwithin_pairs(tree, refs, targets, tol)
-    return subtract_near(targets, ti, np.asarray(refs, dtype=object), ri, tol, share)
+    # the references of each target in their own order, not the index's: the buffers are taken out one by one,
+    # and a cut point's last bit depends on their order; a part of the map (its own index) cuts the same
+    order = np.lexsort((ri, ti))
+    return subtract_near(targets, ti[order], np.asarray(refs, dtype=object), ri[order], tol, share)
 
 
 def off_unit_boundaries(targets: np.ndarray, units: Units, tol: float) -> np.ndarray:
@@ -226,18 +229,17 @@ def connected_pieces(pieces: np.ndarray, groups: np.ndarray) -> tuple[np.ndarray
 
 
 def unit_at(points: np.ndarray, units: Units) -> np.ndarray:
-    """Index of the unit polygon each point lies inside, or -1; the first in the layer where polygons overlap.
+    """Index of the unit polygon each point lies inside, or -1; in two that overlap there, the first of the layer.
 
-    Not the first the spatial index returns: its order depends on which
-    polygons the index holds, so a part of the map would answer otherwise.
+    The first in the layer's order, not the spatial index's (which depends on which polygons the index holds: a
+    part of the map must name the same polygon as the whole map).
     """
     out = np.full(len(points), -1, dtype=np.int64)
     if len(points) and len(units):
         pi, ui = units.tree.query(points, predicate="within")
-        order = np.lexsort((ui, pi))
-        pi, ui = pi[order], ui[order]
-        first = np.r_[True, pi[1:] != pi[:-1]] if len(pi) else np.zeros(0, dtype=bool)
-        out[pi[first]] = ui[first]
+        first = np.full(len(points), len(units), dtype=np.int64)
+        np.minimum.at(first, pi, ui)
+        out[pi] = first[pi]
     return out
 
 
@@ -262,6 +264,15 @@ class Undrawn:
     twin: np.ndarray
 
 
+def between_units(units: Units, edges: Edges) -> np.ndarray:
+    """A mask over the edges: the boundaries between two polygons of different units (or of units with no code)."""
+    twin = edges.twin.copy()
+    if units.codes is not None and len(units):
+        cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
+        twin &= ~((cl == cr) & (cl != ""))
+    return twin
+
+
 def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: np.ndarray, net: LineNetwork,
                        tol: float) -> Undrawn | None:
     """The boundaries between units of different codes, and the map edge, that no line covers within ``tol``; None if none.
@@ -271,10 +282,7 @@ def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: n
     polygons and the lines within ``tol`` (GEOS buffers, :func:`uncovered`, each
     line buffered once for all the boundaries near it) taken out of them.
     """
-    twin = edges.twin.copy()
-    if units.codes is not None and len(units):
-        cl, cr = units.codes[np.maximum(edges.left, 0)], units.codes[np.maximum(edges.right, 0)]
-        twin &= ~((cl == cr) & (cl != ""))
+    twin = between_units(units, edges)
     consider = (twin | outline) & ~drawn
     idx = np.flatnonzero(consider)
     if not len(idx):

@@ -35,6 +35,7 @@ from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import shapely
+from shapely.errors import GEOSException
 from shapely.ops import substring
 
 from ..analysis.arrays import (
@@ -45,10 +46,12 @@ from ..analysis.arrays import (
     segment_lines,
     text_values,
 )
+from ..analysis.coverage import extent_of
 from ..analysis.halfedges import Edges
 from ..analysis.lines import LineNetwork, kind_for, loose_ends, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
 from ..analysis.nearness import (
+    between_units,
     connected_pieces,
     dwithin_pairs,
     point_distances,
@@ -60,7 +63,8 @@ from ..analysis.nearness import (
 )
 from ..analysis.polygons import Units
 from ..model import Hit
-from ..registry import rule
+from ..registry import Settle, rule
+from ..tally import ExactSum, Tally
 
 if TYPE_CHECKING:
     from ..analysis.context import CheckContext
@@ -176,14 +180,14 @@ def line_off_boundary(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 
 
 def _first_nearest(units: Units, points: np.ndarray) -> np.ndarray:
-    """For each point, the first in the layer among the nearest unit polygons (not the spatial index's first: its
-    order depends on which polygons it holds)."""
+    """For each point, the nearest unit polygon; the first of the layer among equals (not the spatial index's
+    first, which depends on which polygons it holds)."""
     pi, ui = units.tree.query_nearest(points)
-    order = np.lexsort((ui, pi))
-    pi, ui = pi[order], ui[order]
-    first = np.r_[True, pi[1:] != pi[:-1]]
     out = np.full(len(points), -1, dtype=np.int64)
-    out[pi[first]] = ui[first]
+    if len(pi):
+        first = np.full(len(points), len(units), dtype=np.int64)
+        np.minimum.at(first, pi, ui)
+        out[pi] = first[pi]
     return out
 
 
@@ -206,7 +210,8 @@ def _far_points(pieces: np.ndarray, targets: np.ndarray) -> np.ndarray:
 
 def _across(units: Units, inside: np.ndarray, feet: np.ndarray, tol: float) -> list[str]:
     """For each foot on the boundary of polygon ``inside``: ``between A and B`` for the nearest other polygon within
-    ``tol`` of it (the first in the layer among equals), else ``of polygon 2 (A) along the map edge``."""
+    ``tol`` of it (the first of the layer among equals: not the spatial index's order, which depends on which
+    polygons it holds), else ``of polygon 2 (A) along the map edge``."""
     out = ["" for _ in range(len(inside))]
     sel = np.flatnonzero(inside >= 0)
     if not len(sel):
@@ -275,7 +280,88 @@ def _span(b: np.ndarray, geographic: bool) -> str:
     return f"x {f(b[0])} to {f(b[2])}, y {f(b[1])} to {f(b[3])}"
 
 
-@rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"))
+# What the stretches of boundary-without-line are (Hit.detail) and the whole-map totals its settle step reads.
+BETWEEN, EDGE, CONTACTS = "between", "edge", "contacts"
+
+
+def _edge_lengths(edges: Edges, idx: np.ndarray, g: Ground) -> np.ndarray:
+    """Ground length (m) of each selected unit edge.
+
+    In a projected CRS straight from the coordinates, as GEOS measures a
+    two-point line (the square root of dx² + dy², not ``hypot``), so each is
+    the length of the edge drawn as a line, without drawing it.
+    """
+    if g.geographic:
+        return np.asarray(g.lengths(edges.lines(idx)), dtype=float)
+    dx = edges.qx[idx] - edges.px[idx]
+    dy = edges.qy[idx] - edges.py[idx]
+    return np.sqrt(dx * dx + dy * dy) * g.factor
+
+
+def _boundary_tally(project: MapProject, ctx: CheckContext) -> dict[str, Tally]:
+    """The lengths of the boundaries between units and of the units' edge along the map edge (each edge at its
+    first vertex), and the contact lines (each part at its first vertex): the whole-map facts of the summary."""
+    units, edges, net = ctx.units(), ctx.edges(), ctx.line_network()
+    g = ground(project, units.geoms)
+    twin = between_units(units, edges)
+    out = {}
+    for key, mask in ((BETWEEN, twin), (EDGE, ctx.coverage().outline & ~twin)):
+        idx = np.flatnonzero(mask)
+        out[key] = Tally(_edge_lengths(edges, idx, g), edges.px[idx], edges.py[idx])
+    parts = np.flatnonzero((net.part_roles == "contact") & (np.diff(net.part_off) > 0))
+    first = net.coords[net.part_off[parts]].reshape(-1, 2)
+    out[CONTACTS] = Tally(np.ones(len(parts)), first[:, 0], first[:, 1])
+    return out
+
+
+def _frame_declared(project: MapProject) -> bool:
+    """Whether the map edge is an extent layer's (else the outline of the units, which only the whole map gives)."""
+    if "extent" not in project.layers:
+        return False
+    try:
+        return bool(extent_of(project, None)[1])
+    except GEOSException:
+        return False
+
+
+def _finish_missing(project: MapProject, hits: list[Hit], totals: dict[str, float]) -> list[Hit]:
+    """The stretches of each kind of boundary as they are, or one summary when their share of the map is systematic.
+
+    Independent of the order of the stretches: the missing length is their
+    exact sum, and the summary takes them in the order of :func:`_in_order`.
+    """
+    out: list[Hit] = []
+    kinds: dict[str, list[Hit]] = {BETWEEN: [], EDGE: []}
+    for hit in hits:
+        kind = hit.detail[0] if isinstance(hit.detail, tuple) and hit.detail else None
+        (kinds[kind] if kind in kinds else out).append(hit)
+    for kind, mine in kinds.items():
+        if not mine:
+            continue
+        inner = kind == BETWEEN
+        missing = float(ExactSum.of([h.measure for h in mine]))
+        total = totals[kind]
+        if missing > SYSTEMATIC_SHARE * total and len(mine) > (SYSTEMATIC_STRETCHES if inner else 1):
+            out.append(_missing_summary(project, _in_order(mine), missing, total, inner, totals[CONTACTS] > 0))
+        else:
+            out.extend(mine)
+    return out
+
+
+def _in_order(hits: list[Hit]) -> list[Hit]:
+    """Stretches in one order whatever the order they came in: by features, then first and last vertex and length."""
+    xy, k = shapely.get_coordinates(np.array([h.geometry for h in hits], dtype=object), return_index=True)
+    a = np.full((len(hits), 2), np.nan)
+    b = a.copy()
+    step = k[1:] != k[:-1]  # the vertices come geometry by geometry
+    first, last = np.flatnonzero(np.r_[True, step]), np.flatnonzero(np.r_[step, True])
+    a[k[first]], b[k[last]] = xy[first], xy[last]
+    keys = [(h.features, *p.tolist(), *q.tolist(), h.measure) for h, p, q in zip(hits, a, b)]
+    return [hits[k] for k in sorted(range(len(hits)), key=keys.__getitem__)]
+
+
+@rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"), partitioned=True,
+      settle=Settle(_boundary_tally, _finish_missing, _frame_declared))
 def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A stretch of boundary between two units, or along the map edge, that no line draws.
 
@@ -322,39 +408,30 @@ def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hi
     units = ctx.units()
     edges = ctx.edges()
     cov = ctx.coverage()
-    outline = cov.outline
     tol = float(ctx.tolerance)
-    found = undrawn_boundaries(units, edges, outline, ctx.edges_drawn(), net, tol)
+    found = undrawn_boundaries(units, edges, cov.outline, ctx.edges_drawn(), net, tol)
     if found is None:
         return
-    pieces, ua, ub, twin = found.pieces, found.ua, found.ub, found.twin
+    pieces, ua, ub = found.pieces, found.ua, found.ub
     g = ground(project, units.geoms)
     lengths = np.asarray(g.lengths(pieces), dtype=float)
     px, py = _first_of_two(pieces)
-    between = ub >= 0
-    totals = {
-        True: _edges_length(edges, np.flatnonzero(twin), g),
-        False: _edges_length(edges, np.flatnonzero(outline & ~twin), g),
-    }
-    for inner in (True, False):
-        sel = np.flatnonzero(between == inner)
-        if not len(sel):
-            continue
-        missing = float(lengths[sel].sum())
-        systematic = missing > SYSTEMATIC_SHARE * totals[inner] and len(sel) > (SYSTEMATIC_STRETCHES if inner else 1)
-        if systematic:
-            yield _missing_summary(project, ctx, units, pieces[sel], lengths[sel], ua[sel], ub[sel], totals[inner], inner, g.geographic)
-            continue
-        for piece, length, u, v, x, y in zip(pieces[sel], lengths[sel].tolist(), ua[sel].tolist(), ub[sel].tolist(),
-                                             px[sel].tolist(), py[sel].tolist()):
-            if inner:
-                text = f"No line draws {num(length)} m of the boundary between {units.labels([u, v])}."
-                feats: tuple[str, ...] = (units.ids[u], units.ids[v])
-            else:
-                text = (f"No line draws {num(length)} m of the map edge along {units.label(u)}; "
-                        f"the frame needs a line of kind '{_kind_for(project, 'boundary', 'map-boundary')}' there.")
-                feats = (units.ids[u],)
-            yield Hit(text, layer="units", features=feats, measure=length, geometry=piece, x=x, y=y)
+    frame_kind = _kind_for(project, "boundary", "map-boundary")
+    # each polygon named once (as Units.label and Units.labels name it), however many stretches it has
+    named = np.unique(np.r_[ua, ub[ub >= 0]]).tolist()
+    name = dict(zip(named, (units.label(k).removeprefix("polygon ") for k in named)))
+    for piece, length, u, v, x, y in zip(pieces, lengths.tolist(), ua.tolist(), ub.tolist(), px.tolist(), py.tolist()):
+        if v >= 0:
+            between = f"polygons {name[u]} and {name[v]}"
+            text = f"No line draws {num(length)} m of the boundary between {between}."
+            feats: tuple[str, ...] = (units.ids[u], units.ids[v])
+            detail = (BETWEEN, between)
+        else:
+            text = (f"No line draws {num(length)} m of the map edge along polygon {name[u]}; "
+                    f"the frame needs a line of kind '{frame_kind}' there.")
+            feats = (units.ids[u],)
+            detail = (EDGE, "")
+        yield Hit(text, layer="units", features=feats, measure=length, geometry=piece, x=x, y=y, detail=detail)
 
 
 def _first_of_two(pieces: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -374,40 +451,32 @@ def _first_of_two(pieces: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return x, y
 
 
-def _edges_length(edges: Edges, idx: np.ndarray, g: Ground) -> float:
-    """Total ground length (m) of the selected unit edges.
+def _missing_summary(project: MapProject, stretches: list[Hit], missing: float, total: float, inner: bool,
+                     contacts: bool) -> Hit:
+    """One finding for systematically missing linework of one kind of boundary: how much, where, what to draw.
 
-    In a projected CRS straight from the coordinates, as GEOS measures a
-    two-point line (the square root of dx² + dy², not ``hypot``), so the
-    total is the same as measuring the edges drawn as lines, without drawing them.
+    ``stretches`` in their summary order (:func:`_in_order`); the longest is
+    the first of the longest in it.
     """
-    if g.geographic:
-        return float(np.sum(g.lengths(edges.lines(idx))))
-    dx = edges.qx[idx] - edges.px[idx]
-    dy = edges.qy[idx] - edges.py[idx]
-    return float(np.sum(np.sqrt(dx * dx + dy * dy) * g.factor))
-
-
-def _missing_summary(project: MapProject, ctx: CheckContext, units: Units, pieces: np.ndarray, lengths: np.ndarray,
-                     ua: np.ndarray, ub: np.ndarray, total: float, inner: bool, geographic: bool) -> Hit:
-    """One finding for systematically missing linework of one kind of boundary: how much, where, what to draw."""
-    missing = float(lengths.sum())
+    pieces = np.array([h.geometry for h in stretches], dtype=object)
+    lengths = np.array([h.measure for h in stretches], dtype=float)
     share = 100.0 * missing / total if total > 0 else 100.0
-    where = _span(shapely.total_bounds(pieces), geographic)
+    # the box in map coordinates: from the local frame back to longitude/latitude when the checks ran in one
+    frame = getattr(project, "local", None)
+    where = _span(shapely.total_bounds(pieces if frame is None else frame.to_map(pieces)), ground(project).geographic)
     w = int(np.argmax(lengths))
     longest = float(lengths[w])
     geom = shapely.multilinestrings(shapely.get_parts(pieces))
     if inner:
         kind = _kind_for(project, "contact", "contact")
-        net = ctx.line_network()
-        none = "" if (net.part_roles == "contact").any() else f"; the lines layer holds no line of kind '{kind}'"
+        none = "" if contacts else f"; the lines layer holds no line of kind '{kind}'"
         text = (f"No line draws {len(pieces)} stretches of the boundaries between units: {num(missing)} m of {num(total)} m "
                 f"({share:.0f} %), spanning {where}; the longest, {num(longest)} m, is between "
-                f"{units.labels([int(ua[w]), int(ub[w])])}{none}. Draw them as lines of kind '{kind}' "
+                f"{stretches[w].detail[1]}{none}. Draw them as lines of kind '{kind}' "
                 "(or a fault kind where a fault runs), snapped to the polygon edges.")
     else:
         kind = _kind_for(project, "boundary", "map-boundary")
-        frame = (f"the extent layer ({project.layers['extent'].source})" if ctx.coverage().extent_declared
+        frame = (f"the extent layer ({project.layers['extent'].source})" if _frame_declared(project)
                  else "the outer boundary of the unit polygons (no extent layer)")
         text = (f"No line draws {len(pieces)} stretches of the map edge: {num(missing)} m of {num(total)} m ({share:.0f} %), "
                 f"spanning {where}; the frame is {frame}. Draw it as lines of kind '{kind}'.")
@@ -933,7 +1002,7 @@ def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_end
     return out
 
 
-@rule("line-kind-unknown", family="linework", severity="error", needs=("lines",))
+@rule("line-kind-unknown", family="linework", severity="error", needs=("lines",), partitioned=True)
 def line_kind_unknown(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A line's kind (or certainty) is not in the vocabulary.
 

@@ -50,15 +50,12 @@ def handed_back(project, jobs: int) -> list[str]:
     from archivist.analysis.context import CheckContext
     from archivist.registry import all_rules
 
+    from concurrent.futures import ThreadPoolExecutor
+
     view = CheckContext(project).view()
     rules = [r for r in all_rules() if r.partitioned and all(role in view.layers for role in r.needs)]
-    plan = parallel.plan_partitions(view, jobs)
-    results = []
-    for part in plan.partitions:
-        task = parallel.PartitionTask(part.index, parallel.sub_project(view, part), tuple(r.id for r in rules), plan.grid,
-                                      part.marked, plan.reach)
-        results.append(parallel.run_partition(task))
-    return list(parallel.merge(plan, [r.id for r in rules], results).whole)
+    with ThreadPoolExecutor(1) as pool:  # the partitions one after the other; the merge and settle steps as a check runs them
+        return list(parallel.run_partitioned(view, rules, pool, jobs).whole)
 
 
 def cpu() -> float:
