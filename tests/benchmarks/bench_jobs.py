@@ -3,6 +3,7 @@
     python tests/benchmarks/bench_jobs.py --sizes 10000 100000 [--defects K] [--jobs 2 4] [--repeat R]
     python tests/benchmarks/bench_jobs.py --map FOLDER [--jobs 2]       # a map already written
     ... [--processes]                                                 # partitions in worker processes instead
+    ... [--threads]                                                   # threads, no partitions, whatever the size
 
 For each size a map is written by ``topology_maps.py`` (a Voronoi coverage
 dissolved into units, its contacts, faults and map boundary; with
@@ -12,7 +13,10 @@ runs it (``load_project`` then ``archivist.check``) is timed with ``jobs=1``
 and with ``jobs=N`` for each N asked (default: 2 and every core when there
 are more), ``--repeat`` times each, the best time kept; the load and the
 check are also timed apart. ``jobs=N`` runs the rule families side by side on
-N threads (:func:`archivist.engine.run_rules`); with ``--processes``, the
+N threads (:func:`archivist.engine.run_rules`) on maps below
+:data:`archivist.parallel.FORK_FEATURES` features and on N partitions in N
+forked processes above (:func:`archivist.parallel.fork_parts`); with
+``--threads``, on N threads without partitions whatever the size; with ``--processes``, the
 partitioned families on N spatial partitions in N worker processes
 (``parts=N``; :mod:`archivist.parallel`), and with ``--partitioned`` only the
 rules registered ``partitioned``. Printed per size and N: the times, the
@@ -67,6 +71,7 @@ def cpu() -> float:
 
 def main(argv=None) -> int:
     from archivist import check, load_project
+    from archivist.engine import run_rules, select
     from archivist.parallel import default_jobs
     from archivist.registry import all_rules
 
@@ -77,13 +82,14 @@ def main(argv=None) -> int:
     ap.add_argument("--jobs", type=int, nargs="+", default=None)
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--processes", action="store_true", help="partitions in worker processes instead of threads")
+    ap.add_argument("--threads", action="store_true", help="threads without partitions, whatever the map's size")
     ap.add_argument("--explain", action="store_true", help="with --processes: the rules handed back to the whole map")
     ap.add_argument("--partitioned", action="store_true", help="run only the rules registered partitioned")
     args = ap.parse_args(argv)
     jobs_list = args.jobs or sorted({2, default_jobs()} - {1})
     rules = [r.id for r in all_rules() if r.partitioned] if args.partitioned else []
     differ = False
-    print(f"cores {default_jobs()}, {load()}, {'processes on partitions' if args.processes else 'threads'}", flush=True)
+    print(f"cores {default_jobs()}, {load()}, {'processes on partitions' if args.processes else 'threads, no partitions' if args.threads else 'as check runs'}", flush=True)
     with tempfile.TemporaryDirectory(prefix="archivist-bench-jobs-") as work:
         for n in ([0] if args.map else args.sizes):
             if args.map:
@@ -103,6 +109,8 @@ def main(argv=None) -> int:
                         reports[jobs] = check(project, rules=rules, jobs=1)
                     elif args.processes:
                         reports[jobs] = check(project, rules=rules, jobs=jobs, parts=jobs)
+                    elif args.threads:
+                        reports[jobs] = run_rules(project, select((), rules), threads=jobs)
                     else:
                         reports[jobs] = check(project, rules=rules, jobs=jobs)
                     t2 = time.perf_counter()
