@@ -745,3 +745,26 @@ def test_ctrl_c_while_forked_workers_run_leaves_no_worker_and_exits_130(tmp_path
         time.sleep(0.1)
     else:
         pytest.fail(f"worker {pid} still runs after the check stopped")
+
+
+def test_jobs_fork_partitions_only_when_every_partitioned_family_goes_whole(tmp_path, monkeypatch):
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")
+    make(tmp_path / "map", 300, seed=1)
+    project = load_project(tmp_path / "map")
+    monkeypatch.setattr(parallel, "FORK_FEATURES", 0)
+    families = {info.family for info in all_rules()}
+    split = [f for f in sorted(families) if {i.partitioned for i in all_rules() if i.family == f} == {True, False}]
+    whole = [f for f in sorted(families) if {i.partitioned for i in all_rules() if i.family == f} == {True}]
+    assert split and whole
+    # every rule of a family partitioned: the family goes to the partitions, the workers are forked
+    assert parallel.fork_parts(project, select([whole[0]], []), 2) == 2
+    one = [i for i in all_rules() if i.partitioned and i.family == split[0]][:1]
+    assert parallel.fork_parts(project, one, 2) == 2
+    # a family with a rule that stays on the whole map: that family runs here, so threads, not forked partitions
+    assert parallel.fork_parts(project, select([split[0]], []), 2) is None
+    assert parallel.fork_parts(project, select([whole[0]], []), 1) is None
+    monkeypatch.setattr(parallel, "FORK_FEATURES", 10**9)
+    assert parallel.fork_parts(project, select([whole[0]], []), 2) is None
