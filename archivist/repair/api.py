@@ -158,9 +158,15 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         raise ArchivistError(f"{manifest_path}: map.crs is geographic (longitude/latitude); repair works in a projected CRS only")
     if "units" not in proj.layers and not build_polygons:
         raise ArchivistError(f"{manifest_path}: no units layer could be read; nothing to repair")
-    before = _counts(check(proj, progress=progress))
+    from ..analysis.context import CheckContext
+    from .polygons import CHECKED
+
+    checked = CheckContext(proj)  # the check's analyses of the units as read: the first repair reads them too
+    before = _counts(check(proj, progress=progress, context=checked))
     settings = settings_for(proj, build_polygons)
     state = make_state(proj)
+    if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
+        state.analyses[CHECKED] = (state.units, checked)
     changes: list[Change] = []
     left: list[Left] = []
     for r in chosen:
