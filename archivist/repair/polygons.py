@@ -530,8 +530,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     current = geoms.copy()  # per polygon: as the cleaning left it (its input where it was not cleaned)
     same_r, moved_r = np.ones(n, dtype=bool), np.zeros(n)
     too_far_r, lost_r = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
-    region = usable.copy()  # the first cleaning: the whole map
-    near: _Near | None = None
+    # the first cleaning: the polygons owning an edge without its twin (the half-edge table's suspects: every
+    # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
+    # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
+    near = _Near(geoms, usable, settings.tolerance)
+    region = near.of(units.rows[ctx.edges().suspects])
     rounds = 0
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
@@ -558,11 +561,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                 cleaned[k_] = work[k_]
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
-        if near is not None:
-            grow = _unfitted(near, sel, cleaned, region, current)
-            if grow.any():
-                region |= grow
-                continue
+        grow = _unfitted(near, sel, cleaned, region, current)
+        if grow.any():
+            region |= grow
+            continue
         moved = _shift(work, cleaned)
         too_far = moved > settings.tolerance * ABOVE
         lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
@@ -576,8 +578,6 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         refused.update({int(k): float(m) for k, m in zip(held, moved[bad])})
         current[held] = geoms[held]
         same_r[held] = True
-        if near is None:
-            near = _Near(geoms, usable, settings.tolerance)
         region = near.of(held)
         rounds += 1
     else:
@@ -603,13 +603,14 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
 
     GEOS's coverage validation (``shapely.coverage_invalid_edges``) of the
     cleaned polygons together with the polygons outside within the snapping
-    distance of them: one with an invalid edge there no longer fits.
+    distance of them, gaps as narrow as that distance included: one with an
+    invalid edge there no longer fits.
     """
     out = np.zeros(near.n, dtype=bool)
     outside = np.flatnonzero(near.of(sel) & ~region)
     if not len(outside):
         return out
-    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned, current[outside]], gap_width=0.0))
+    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned, current[outside]], gap_width=near.distance))
     out[outside[bad[len(cleaned):]]] = True
     return out
 
