@@ -492,6 +492,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # cut (snapping may still resolve a thin one).
     base = geoms.copy()
     put_back: dict[int, Any] = {}
+    owners: dict[int, list[tuple[int, Any]]] = {}  # per polygon given an overlap back: (the other polygon, the piece)
     if state.overlaps_left is not None:  # resolve-overlaps ran: the overlaps still there are those it left
         if state.overlaps_left:
             pos = {str(v): k for k, v in enumerate(ids.tolist())}
@@ -505,6 +506,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                 both = [pos[x] for x in (i, j) if x in pos]
                 if f and len(both) == 2:
                     cut.setdefault(both[1], []).append(piece)
+                    owners.setdefault(both[1], []).append((both[0], piece))
                 elif w or f:
                     hold[both] = True
             for k, ps in cut.items():  # one per polygon with an overlap left for the geologist
@@ -535,6 +537,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
     near = _Near(geoms, usable, settings.tolerance)
     region = near.of(units.rows[ctx.edges().suspects])
+    clipped: dict[int, str] = {}  # per polygon given back an overlap clipped to its cleaned neighbour: what the log says
     rounds = 0
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
@@ -544,7 +547,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         sel = np.flatnonzero(~hold & usable & region)
         work = geoms[sel]
         order = np.arange(len(work))
-        back = [(k_, put_back[k]) for k_, k in enumerate(sel.tolist()) if k in put_back]
+        back = [(k_, k) for k_, k in enumerate(sel.tolist()) if k in put_back]
         if strategy == "min_index":
             age = _age_rank(state, codes[sel])
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
@@ -552,7 +555,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         cleaned = np.empty(len(work), dtype=object)
         cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
                                                 merge_strategy=strategy)
-        for k_, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+        at = {k: k_ for k_, k in enumerate(sel.tolist())}
+        for k_, k in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+            piece, note = _fitted_back(k, owners.get(k, []), put_back[k], cleaned, at, current, ids)
+            clipped[k] = note
             try:
                 cleaned[k_] = shapely.union(cleaned[k_], piece)
                 if shapely.equals(cleaned[k_], work[k_]):  # nothing else changed: the input as it was (its vertices)
@@ -590,9 +596,39 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                  geoms[k], float(m)) for k, m in refused.items()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
-                      geoms[k], new[k], "vertices snapped to the neighbours'")
+                      geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ""))
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
+
+
+def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
+                 current: np.ndarray, ids: np.ndarray) -> tuple[Any, str]:
+    """The overlaps left between polygon ``k`` and its neighbours, each clipped to the neighbour as now cleaned.
+
+    An overlap left for the geologist is cut out of ``k`` for the cleaning;
+    given back as it was, it would no longer fit the neighbour it overlaps
+    where the cleaning moved that one's boundary (nor a third polygon it
+    reaches into), so it is given back as its intersection with the
+    neighbour as cleaned (GEOS): it still overlaps the same neighbour, now
+    along its edges exactly. Returns the piece and, where the clipping took
+    away more than rounding, what the log says of it (empty otherwise).
+    """
+    if not owners:
+        return piece, ""
+    out, notes = [], []
+    for i, p in owners:  # one per overlap left along this polygon
+        fit = cleaned[at[i]] if i in at else current[i]
+        try:
+            q = polygonal(np.array([shapely.intersection(p, fit)], dtype=object))[0]
+        except GEOSException:
+            q = p
+        if shapely.is_missing(q) or shapely.is_empty(q):
+            q = p  # nothing of it left inside the neighbour: kept as it was (never dropped without a word)
+        lost = float(shapely.area(p) - shapely.area(q))
+        if lost > noise_floor(_scale(np.array([p], dtype=object))) * max(float(shapely.length(p)), 1.0):
+            notes.append(f"; the overlap left with {ids[i]} clipped to it as cleaned ({lost:.3g} m² less)")
+        out.append(q)
+    return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes)
 
 
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
