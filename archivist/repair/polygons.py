@@ -481,8 +481,17 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     hold = np.zeros(len(geoms), dtype=bool)
     if len(ctx.edges().suspects) == 0:
         return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
-    if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
-        return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
+    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
+    # the first cleaning: the polygons owning an edge without its twin (the half-edge table's suspects: every
+    # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
+    # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
+    near = _Near(geoms, usable, settings.tolerance)
+    region = near.of(units.rows[ctx.edges().suspects])
+    # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance. An invalid edge is one without
+    # its twin (a suspect's) that meets a polygon within that distance (in the region too), so the region answers
+    # for the map: a polygon left out of it can only make the region look invalid, never valid
+    if shapely.coverage_is_valid(geoms[np.flatnonzero(region)], gap_width=settings.tolerance):
+        return [], []
     refused: dict[int, float] = {}
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
     # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
@@ -527,24 +536,22 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             if p.width > cov.tol * ABOVE:
                 hold[units.rows[list(p.units)]] = True
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
-    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
     n = len(geoms)
     current = geoms.copy()  # per polygon: as the cleaning left it (its input where it was not cleaned)
     same_r, moved_r = np.ones(n, dtype=bool), np.zeros(n)
     too_far_r, lost_r = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
-    # the first cleaning: the polygons owning an edge without its twin (the half-edge table's suspects: every
-    # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
-    # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
-    near = _Near(geoms, usable, settings.tolerance)
-    region = near.of(units.rows[ctx.edges().suspects])
     clipped: dict[int, str] = {}  # per polygon given back an overlap clipped to its cleaned neighbour: what the log says
-    rounds = 0
+    todo = region.copy()  # the polygons of the region (re)cleaned now
+    rounds = steps = 0
+    again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
-    # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned again no longer
-    # fits one outside (GEOS's coverage validation of the two), that one joins and the cleaning is run again
+    # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned no longer fits one
+    # outside the region (GEOS's coverage validation of the two), that one joins the region and the part of the
+    # region linked to it (polygons within the snapping distance of each other) is cleaned again; the other parts
+    # of the region lie farther apart than the snapping distance, so cleaning again would not change them
     while rounds < MAX_CLEAN_ROUNDS:
-        sel = np.flatnonzero(~hold & usable & region)
+        sel = np.flatnonzero(~hold & usable & todo)
         work = geoms[sel]
         order = np.arange(len(work))
         back = [(k_, k) for k_, k in enumerate(sel.tolist()) if k in put_back]
@@ -566,26 +573,31 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             except GEOSException:
                 cleaned[k_] = work[k_]
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
-        same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
-        grow = _unfitted(near, sel, cleaned, region, current)
-        if grow.any():
-            region |= grow
-            continue
-        moved = _shift(work, cleaned)
-        too_far = moved > settings.tolerance * ABOVE
-        lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        same_r[sel] = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+        moved_r[sel] = _shift(work, cleaned)
+        too_far_r[sel] = moved_r[sel] > settings.tolerance * ABOVE
+        lost_r[sel] = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
         current[sel] = cleaned
-        same_r[sel], moved_r[sel], too_far_r[sel], lost_r[sel] = same, moved, too_far, lost
-        bad = (too_far | lost) & ~same
+        grow = _unfitted(near, sel, cleaned, todo, current)
+        if grow.any():
+            steps += 1
+            add = near.of(np.flatnonzero(grow))
+            again = add if steps == 1 else again | add
+            todo = near.linked(again, add)
+            region |= todo
+            continue
+        mine = np.flatnonzero(region & ~hold & usable)
+        bad = (too_far_r[mine] | lost_r[mine]) & ~same_r[mine]
         if not bad.any():
             break
-        held = sel[bad]
+        held = mine[bad]
         hold[held] = True
-        refused.update({int(k): float(m) for k, m in zip(held, moved[bad])})
+        refused.update({int(k): float(m) for k, m in zip(held, moved_r[held])})
         current[held] = geoms[held]
         same_r[held] = True
         region = near.of(held)
-        rounds += 1
+        todo = region.copy()
+        rounds, steps = rounds + 1, 0
     else:
         same_r[:] = True  # still moving too far after every round: nothing is cleaned
     take = np.flatnonzero(usable & ~hold & ~same_r & ~too_far_r & ~lost_r)
@@ -631,6 +643,7 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
     return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes)
 
 
+LOCAL_STEPS = 12  # cleanings of only the polygons near those that no longer fit; then of all the region linked to them
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
@@ -638,35 +651,60 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     """The polygons outside ``region`` that no longer fit the polygons ``sel`` as ``cleaned`` (as ``current`` has them).
 
     GEOS's coverage validation (``shapely.coverage_invalid_edges``) of the
-    cleaned polygons together with the polygons outside within the snapping
-    distance of them, gaps as narrow as that distance included: one with an
-    invalid edge there no longer fits.
+    cleaned polygons within the snapping distance of a polygon outside,
+    together with those polygons outside, gaps as narrow as that distance
+    included: one outside with an invalid edge there no longer fits. (A
+    cleaned polygon farther from every polygon outside cannot touch one.)
     """
     out = np.zeros(near.n, dtype=bool)
     outside = np.flatnonzero(near.of(sel) & ~region)
     if not len(outside):
         return out
-    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned, current[outside]], gap_width=near.distance))
-    out[outside[bad[len(cleaned):]]] = True
+    at = np.full(near.n, -1, dtype=np.int64)
+    at[sel] = np.arange(len(sel))
+    rim = at[np.flatnonzero(near.of(outside))]
+    rim = rim[rim >= 0]
+    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned[rim], current[outside]], gap_width=near.distance))
+    out[outside[bad[len(rim):]]] = True
     return out
 
 
 class _Near:
-    """The polygons within a distance of given polygons (an STRtree over the usable ones, built once)."""
+    """The polygons within a distance of given polygons (an STRtree over the usable ones; each polygon's asked once)."""
 
     def __init__(self, geoms: np.ndarray, usable: np.ndarray, distance: float) -> None:
         self.n = len(geoms)
         self.rows = np.flatnonzero(usable)
         self.geoms = geoms
-        self.tree = shapely.STRtree(geoms[self.rows])
         self.distance = distance
+        self.tree = shapely.STRtree(geoms[self.rows])
+        self.asked = np.zeros(self.n, dtype=bool)
+        self.a, self.b = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)  # the pairs found, both ways
+
+    def _ask(self, which: np.ndarray) -> None:
+        new = np.zeros(self.n, dtype=bool)
+        new[which] = True
+        new &= ~self.asked
+        rows = np.flatnonzero(new)
+        if len(rows):
+            i, k = self.tree.query(self.geoms[rows], predicate="dwithin", distance=self.distance)
+            self.a, self.b = np.r_[self.a, rows[i], self.rows[k]], np.r_[self.b, self.rows[k], rows[i]]
+            self.asked[rows] = True
+
+    def linked(self, region: np.ndarray, seeds: np.ndarray) -> np.ndarray:
+        """Boolean mask: the polygons of ``region`` joined to a polygon of ``seeds`` (masks) by a chain of pairs in it."""
+        self._ask(np.flatnonzero(region))
+        m = region[self.a] & region[self.b]
+        label = _components(self.n, self.a[m], self.b[m])
+        return region & np.isin(label, label[seeds & region])
 
     def of(self, which: np.ndarray) -> np.ndarray:
         """Boolean mask: the usable polygons within the distance of any of the polygons ``which`` (row positions)."""
+        self._ask(which)
+        mine = np.zeros(self.n, dtype=bool)
+        mine[which] = True
         out = np.zeros(self.n, dtype=bool)
-        if len(which):
-            _, k = self.tree.query(self.geoms[which], predicate="dwithin", distance=self.distance)
-            out[self.rows[k]] = True
+        out[self.b[mine[self.a]]] = True
         return out
 
 
