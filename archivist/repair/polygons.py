@@ -486,7 +486,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
     # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
     near = _Near(geoms, usable, settings.tolerance)
-    region = near.of(units.rows[ctx.edges().suspects])
+    region = near.of(units.rows[_misfits(units, ctx.edges(), settings.tolerance)])
     # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance. An invalid edge is one without
     # its twin (a suspect's) that meets a polygon within that distance (in the region too), so the region answers
     # for the map: a polygon left out of it can only make the region look invalid, never valid
@@ -611,6 +611,28 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                       geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ""))
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
+
+
+def _misfits(units: Any, edges: Any, distance: float) -> np.ndarray:
+    """The polygons (positions in ``units``) owning an edge without its twin whose middle another polygon comes
+    within ``distance`` of, or that more than one polygon draws: the suspects of the half-edge table less those whose
+    only such edges lie on the outside of the map (along the frame, or along a gap wider than the distance),
+    which cleaning has nothing to fit to."""
+    loose = np.flatnonzero(~edges.twin)
+    if not len(loose):
+        return np.zeros(0, dtype=np.int64)
+    owner = np.where(edges.left[loose] >= 0, edges.left[loose], edges.right[loose])
+    crowded = edges.count[loose] != 1
+    one = np.flatnonzero(~crowded)
+    # each edge by its midpoint: its ends touch the polygon next along the frame, its middle does not (an edge
+    # shorter than twice the distance near a corner counts as near: it is cleaned, which it survives unchanged)
+    mid = shapely.points((edges.px[loose[one]] + edges.qx[loose[one]]) / 2, (edges.py[loose[one]] + edges.qy[loose[one]]) / 2)
+    si, k = units.tree.query(mid, predicate="dwithin", distance=distance)
+    near = np.zeros(len(one), dtype=bool)
+    near[si[k != owner[one][si]]] = True
+    many = loose[crowded]
+    out = np.r_[owner[one][near], edges.left[many], edges.right[many]]
+    return np.unique(out[out >= 0])
 
 
 def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
