@@ -284,3 +284,16 @@ def test_an_overlap_left_is_given_back_clipped_to_its_neighbour_as_cleaned():
     back, note = _fitted_back(1, [(0, piece)], piece, np.array([box(0, 0, 5.0, 10)], dtype=object), {0: 0},
                               cleaned.copy(), np.array(["A", "B"], dtype=object))
     assert shapely.equals(back, piece) and note == ""
+
+
+@pytest.mark.parametrize("w", [0.45, 0.495, 0.499, 0.501, 0.505, 0.55])
+def test_merge_slivers_decides_a_width_as_unit_sliver_does(tmp_path, w):
+    # a strip [5, 5 + w] x [0, 10] between two polygons: 10 w m² (over the 1 m² area limit), so only its width
+    # (w, by hand) against the 0.5 m sliver width decides; merge-slivers settles most widths by erosion and must
+    # merge exactly the strips unit-sliver reports
+    geoms = [box(0, 0, 5, 10), box(5 + w, 0, 10, 10), box(5, 0, 5 + w, 10)]
+    project = square(tmp_path, geoms, ["A", "B", "C"], name=f"strip-{w}")
+    reported = {f.features for f in check(project).findings if f.rule == "unit-sliver"}
+    assert reported == ({("3",)} if w < 0.5 else set())
+    result = repair(project, tmp_path / f"out-{w}", only=["merge-slivers"])
+    assert {c.features_before[-1:] for c in result.changes} == reported

@@ -797,6 +797,9 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
     return changes
 
 
+ERODE_MARGIN = 1.05  # our own margin over GEOS's 1 % buffer simplification and its arc chords (about 0.5 %, from memory)
+
+
 @repair("merge-slivers", order=40)
 def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
     """Slivers merged into the neighbour of the same unit, else the one with the longest shared edge.
@@ -826,7 +829,19 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     cand = np.flatnonzero(maybe & ~shapely.is_missing(geoms))
     wid = np.full(len(geoms), np.inf)
     if len(cand):
-        wid[cand] = widths(geoms[cand], wmin / 10.0)
+        # only the decision "narrower than wmin" is needed, as unit-sliver makes it: widths() settles each width
+        # to ``p`` (wmin/200 here, as for unit-sliver) and never above the largest circle. An erosion by
+        # ERODE_MARGIN x (wmin/2 + p) that leaves something standing shows a circle wider than that, and an empty
+        # erosion by wmin/2 / ERODE_MARGIN shows none as wide as wmin/2 (:func:`archivist.analysis.arrays.widths`:
+        # GEOS's offset curves are accurate to about 1 % of the distance); only the polygons in between are
+        # measured (GEOS maximum_inscribed_circle)
+        p = np.maximum(wmin / 200.0, np.sqrt(area[cand]) * 1e-6)
+        standing = ~shapely.is_empty(shapely.buffer(geoms[cand], -ERODE_MARGIN * (r + p)))
+        narrow = shapely.is_empty(shapely.buffer(geoms[cand], -r / ERODE_MARGIN))
+        wid[cand[narrow]] = 0.0  # narrower than wmin for sure: not measured
+        measure = cand[~standing & ~narrow]
+        if len(measure):
+            wid[measure] = widths(geoms[measure], wmin / 10.0)
     sliver = (area < amin) | (wid < wmin)
     if not sliver.any():
         return [], []
