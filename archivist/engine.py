@@ -130,7 +130,8 @@ def finding_order(f: Finding) -> tuple[Any, ...]:
 
 
 def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None, *,
-              executor: Executor | None = None, parts: int = 1, threads: int = 1) -> Report:
+              executor: Executor | None = None, parts: int = 1, threads: int = 1,
+              context: CheckContext | None = None) -> Report:
     """Run ``selected`` rules over ``project`` (severity overrides applied).
 
     ``progress`` gets one step per rule family and one item per rule run.
@@ -152,8 +153,13 @@ def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progr
     calls); ``executor`` and ``parts`` > 1 send the families whose every rule
     is partitioned to spatial partitions (:mod:`archivist.parallel`). The
     report is the same either way: findings, their order, the notes.
+    ``context`` (a :class:`CheckContext` of this very project, made by the
+    caller) lets the caller keep the analyses of the check, or hand in ones
+    it computed for this project already.
     """
-    ctx = CheckContext(project)
+    if context is not None and context.project is not project:
+        raise ValueError("run_rules: the context given is of another project")
+    ctx = context if context is not None else CheckContext(project)
     frame: LocalFrame | None = frame_for(project)
     local = CheckContext(in_frame(project, frame)) if frame is not None else ctx
     progress = progress or Progress()
@@ -436,6 +442,7 @@ def check(
     jobs: int = 1,
     executor: Executor | None = None,
     parts: int | None = None,
+    context: CheckContext | None = None,
 ) -> Report:
     """Check a map project and return its report.
 
@@ -469,6 +476,9 @@ def check(
         ``jobs`` partitions on a map large enough where the system forks,
         else threads without partitions. With an executor, the number of
         partitions (default 2).
+    context
+        A :class:`CheckContext` of ``project`` (a loaded one): the check
+        reads and keeps its analyses there (one thread, no partitions).
 
     Raises
     ------
@@ -487,6 +497,8 @@ def check(
         selected = select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
+    if context is not None:
+        return run_rules(project, selected, progress, context=context)
     if executor is not None:
         return run_rules(project, selected, progress, executor=executor, parts=parts or 2)
     from .parallel import default_jobs

@@ -77,3 +77,17 @@ def test_far_out_bounds():
     deg = np.array([Point(359.0, 10.0), Point(GEOGRAPHIC_LIMIT + 1, 0.0), Point(10.0, -GEOGRAPHIC_LIMIT - 1)], dtype=object)
     assert far_out(deg, pyproj.CRS("EPSG:4326"))[0].tolist() == [False, True, True]
     assert far_out(np.array([], dtype=object), None)[0].tolist() == []
+
+
+def test_a_context_handed_in_keeps_the_analyses_and_the_report_is_the_same(tmp_path):
+    from archivist.analysis.context import CheckContext
+    from archivist.engine import check
+
+    project = load_project(tiny_project(tmp_path))
+    ctx = CheckContext(project)
+    with_ctx = check(project, context=ctx)
+    assert "analysis.coverage" in ctx._cache  # the caller keeps what the check computed
+    plain = check(project)
+    assert with_ctx.findings == plain.findings and with_ctx.notes == plain.notes
+    with pytest.raises(ValueError):
+        run_rules(load_project(tiny_project(tmp_path / "other")), registry.select(), context=ctx)

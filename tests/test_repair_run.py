@@ -125,6 +125,29 @@ def test_broken_bundle_is_repaired_back_to_a_clean_check(tmp_path):
     assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
 
 
+def test_the_check_of_the_copy_reuses_the_repairs_analyses_and_finds_what_a_fresh_check_finds(tmp_path, monkeypatch):
+    # the copy's check is handed the half-edges and coverage analysis of the working units (the same polygons,
+    # read back from the file): its findings per rule are those of a check of the copy from scratch
+    from collections import Counter
+
+    import archivist.repair.api as api
+
+    handed: list[set[str]] = []
+    made = api._copy_context
+
+    def spy(copy, state, settings):
+        ctx = made(copy, state, settings)
+        handed.append(set(ctx._cache))
+        return ctx
+
+    monkeypatch.setattr(api, "_copy_context", spy)
+    project = five(tmp_path)
+    result = repair(project, tmp_path / "out")
+    assert handed and {"analysis.edges", "analysis.coverage"} <= handed[0]
+    fresh = check(tmp_path / "out")
+    assert result.after == dict(Counter(f.rule for f in fresh.findings))
+
+
 def test_cli_dry_run_prints_the_log_and_writes_nothing(tmp_path):
     project = five(tmp_path)
     digest = tree_digest(tmp_path)

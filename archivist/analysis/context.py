@@ -84,6 +84,12 @@ class CheckContext:
             self._cache[key] = value
             return value
 
+    def provide(self, key: str, value: Any, notes: Iterable[str] = ()) -> None:
+        """Hand in ``value`` for ``key``, computed elsewhere for this very project; ``notes``: what computing it notes."""
+        with self._guard:
+            self._cache[key] = value
+            self._logs[key] = list(notes)
+
     def note(self, text: str) -> None:
         """A note for the report (once, however many rules add it)."""
         self._log().append(text)

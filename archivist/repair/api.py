@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import shutil
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Iterable
 
@@ -158,9 +158,15 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         raise ArchivistError(f"{manifest_path}: map.crs is geographic (longitude/latitude); repair works in a projected CRS only")
     if "units" not in proj.layers and not build_polygons:
         raise ArchivistError(f"{manifest_path}: no units layer could be read; nothing to repair")
-    before = _counts(check(proj, progress=progress))
+    from ..analysis.context import CheckContext
+    from .polygons import CHECKED
+
+    checked = CheckContext(proj)  # the check's analyses of the units as read: the first repair reads them too
+    before = _counts(check(proj, progress=progress, context=checked))
     settings = settings_for(proj, build_polygons)
     state = make_state(proj)
+    if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
+        state.analyses[CHECKED] = (state.units, checked)
     changes: list[Change] = []
     left: list[Left] = []
     for r in chosen:
@@ -181,7 +187,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     with staging_dir(target) as tmp:
         manifest = write_copy(proj, state, changes, tmp)
         copy = load_project(manifest, progress=progress)
-        after = _counts(check(copy, progress=progress))
+        after = _counts(check(copy, progress=progress, context=_copy_context(copy, state, settings)))
         doc = log_document(str(project), names, settings, changes, left, before, after)
         (tmp / _log_name()).write_text(dump_log(doc), encoding="utf-8")
         from .log import GPKG_NAME, write_changes_gpkg
@@ -189,6 +195,40 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         write_changes_gpkg(changes, left, tmp / GPKG_NAME, proj.crs)
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
+
+
+def _copy_context(copy: Any, state: RepairState, settings: RepairSettings) -> Any:
+    """A check context of the written copy holding the half-edges and coverage analysis of the working units.
+
+    The line repairs analysed the units as they are written (the key of
+    :func:`archivist.repair.lines.unit_analyses`); they are handed in only
+    where the copy's units, read back from the file, are the same polygons
+    with the same coordinates in the same order (GEOS ``equals_exact`` with
+    no tolerance, a one-part multipolygon read as its polygon), and the
+    extent note is made for the copy's own extent layer. Otherwise the check
+    computes them.
+    """
+    import numpy as np
+    import shapely
+
+    from ..analysis.context import CheckContext
+    from ..analysis.coverage import extent_note
+    from .polygons import _single
+
+    ctx = CheckContext(copy)
+    hit = state.analyses.get(f"units-edges-coverage:{float(settings.tolerance)!r}")
+    if hit is None or hit[0] is not state.units or "units" not in copy.layers or ctx.view() is not copy:
+        return ctx
+    units, edges, cov = hit[1]
+    mine = ctx.units()
+    if len(mine) != len(units) or not np.array_equal(mine.rows, units.rows):
+        return ctx
+    if not bool(np.all(shapely.equals_exact(_single(mine.geoms), _single(units.geoms), tolerance=0.0))):
+        return ctx
+    ctx.provide("analysis.edges", edges)
+    note = extent_note(copy, cov.extent_declared)
+    ctx.provide("analysis.coverage", replace(cov, extent_note=note), [note])
+    return ctx
 
 
 def _log_name() -> str:

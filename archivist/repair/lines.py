@@ -605,6 +605,14 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
 
+    def ends_far(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
+        """Per moved line, the farthest end of the segments it owns from the targets (as :func:`reach` measures it)."""
+        far = np.zeros(m)
+        if len(owner):
+            (who, _), d = tree.query_nearest(shapely.points(np.r_[start, stop]), return_distance=True, all_matches=False)
+            np.maximum.at(far, np.r_[owner, owner][who], d)
+        return far
+
     def reach(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
         """Per moved line, the farthest densified point of the segments ``start -> stop`` it owns (0 with none)."""
         far = np.zeros(m)
@@ -650,7 +658,12 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     else:  # whole lines
         same, same_a = np.zeros(len(b[2]), dtype=bool), np.zeros(len(a[2]), dtype=bool)
     after_far = reach(a[0][~same_a], a[1][~same_a], a[2][~same_a])
-    before_far = reach(b[0][~same], b[1][~same], b[2][~same])
+    # the line as drawn reaches at least as far as its farthest vertex (of the segments that moved): where the
+    # snapped line reaches no farther than that, it is not farther, and the drawn line need not be densified
+    least = ends_far(b[0][~same], b[1][~same], b[2][~same])
+    need = after_far > least + 1e-9
+    sel = ~same & need[b[2]]
+    before_far = np.where(need, reach(b[0][sel], b[1][sel], b[2][sel]), least)
     maybe = after_far > before_far + 1e-9
     if (maybe & np.bincount(b[2][same], minlength=m).astype(bool)).any():
         keep = same & maybe[b[2]]

@@ -41,7 +41,24 @@ MERGE_STRATEGY = {"longest-border": "longest_border", "larger": "max_area"}
 # ---------------------------------------------------------------- the working copy as the check sees it
 
 def _context(state: RepairState) -> CheckContext:
-    """A check context over the working copy (its units and lines in place of the project's)."""
+    """A check context over the working copy (its units and lines in place of the project's).
+
+    One per version of the working units: while a repair leaves them as they
+    are, the next one reads the same analyses (the check before the repairs
+    hands in its own, :data:`CHECKED`, made for the units as read).
+    """
+    hit = state.analyses.get(CHECKED)
+    if hit is not None and hit[0] is state.units:
+        return hit[1]
+    ctx = _new_context(state)
+    state.analyses[CHECKED] = (state.units, ctx)
+    return ctx
+
+
+CHECKED = "context"  # key of RepairState.analyses: the check context of the working units
+
+
+def _new_context(state: RepairState) -> CheckContext:
     project = state.project
     layers = dict(project.layers)
     assert state.units is not None
@@ -246,11 +263,36 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
     empty = shapely.is_empty(new)
     _set(state, new, ~empty)
+    if not empty.any() and _still_covered(new, winner, loser, pieces):
+        state.analyses[GAPS_OF] = (state.units, (units, cov))
     moved = _shift(geoms[loser], new[loser])
     changes = [Change("resolve-overlaps", "units", (str(ids[w]), str(ids[lo])), (str(ids[w]),) + (() if empty[lo] else (str(ids[lo]),)),
                       (str(codes[w]), str(codes[lo])), float(ar), float(mv), geoms[lo], p, f"overlap kept by {ids[w]} ({note})")
                for w, lo, p, ar, mv, note in zip(winner, loser, pieces, area, moved, why)]
     return changes, left
+
+
+GAPS_OF = "gaps"  # key of RepairState.analyses: the units and coverage whose gaps are still the working units' gaps
+
+
+def _still_covered(new: np.ndarray, winner: np.ndarray, loser: np.ndarray, pieces: np.ndarray) -> bool:
+    """Whether every overlap piece cut out of a polygon is still covered by the polygon that kept it.
+
+    Each piece was cut out of its loser only and stays in its winner, so the
+    ground the units cover (and with it every gap) is as the coverage
+    analysis found it, unless a winner lost a piece of its own there (three
+    polygons overlapping, each losing to the next): those pieces are
+    measured (GEOS difference), the others need not be. Rounding of the cut
+    itself is below what ``check`` reports (its noise floor).
+    """
+    both = np.isin(winner, loser)
+    if not both.any():
+        return True
+    try:
+        rest = shapely.difference(pieces[both], new[winner[both]])
+    except GEOSException:
+        return False
+    return bool((mean_width(rest[~shapely.is_empty(rest)]) <= noise_floor(_scale(new))).all())
 
 
 # ---------------------------------------------------------------- gaps
@@ -271,9 +313,12 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     """
     if state.units is None or not len(state.units):
         return [], []
-    ctx = _context(state)
-    units = ctx.units()
-    cov = ctx.coverage()
+    kept = state.analyses.get(GAPS_OF)
+    if kept is not None and kept[0] is state.units:  # resolve-overlaps uncovered no ground: the gaps found before it
+        units, cov = kept[1]
+    else:
+        ctx = _context(state)
+        units, cov = ctx.units(), ctx.coverage()
     todo = [p for p in cov.gaps if not (p.on_frame and p.width <= cov.tol * ABOVE)]
     if not todo:
         return [], []
@@ -436,8 +481,17 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     hold = np.zeros(len(geoms), dtype=bool)
     if len(ctx.edges().suspects) == 0:
         return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
-    if shapely.coverage_is_valid(geoms[units.rows], gap_width=settings.tolerance):
-        return [], []  # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance
+    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
+    # the first cleaning: the polygons owning an edge without its twin (the half-edge table's suspects: every
+    # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
+    # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
+    near = _Near(geoms, usable, settings.tolerance)
+    region = near.of(units.rows[_misfits(units, ctx.edges(), settings.tolerance)])
+    # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance. An invalid edge is one without
+    # its twin (a suspect's) that meets a polygon within that distance (in the region too), so the region answers
+    # for the map: a polygon left out of it can only make the region look invalid, never valid
+    if shapely.coverage_is_valid(geoms[np.flatnonzero(region)], gap_width=settings.tolerance):
+        return [], []
     refused: dict[int, float] = {}
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
     # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
@@ -447,6 +501,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # cut (snapping may still resolve a thin one).
     base = geoms.copy()
     put_back: dict[int, Any] = {}
+    owners: dict[int, list[tuple[int, Any]]] = {}  # per polygon given an overlap back: (the other polygon, the piece)
     if state.overlaps_left is not None:  # resolve-overlaps ran: the overlaps still there are those it left
         if state.overlaps_left:
             pos = {str(v): k for k, v in enumerate(ids.tolist())}
@@ -460,6 +515,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                 both = [pos[x] for x in (i, j) if x in pos]
                 if f and len(both) == 2:
                     cut.setdefault(both[1], []).append(piece)
+                    owners.setdefault(both[1], []).append((both[0], piece))
                 elif w or f:
                     hold[both] = True
             for k, ps in cut.items():  # one per polygon with an overlap left for the geologist
@@ -480,23 +536,25 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             if p.width > cov.tol * ABOVE:
                 hold[units.rows[list(p.units)]] = True
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
-    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
     n = len(geoms)
     current = geoms.copy()  # per polygon: as the cleaning left it (its input where it was not cleaned)
     same_r, moved_r = np.ones(n, dtype=bool), np.zeros(n)
     too_far_r, lost_r = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
-    region = usable.copy()  # the first cleaning: the whole map
-    near: _Near | None = None
-    rounds = 0
+    clipped: dict[int, str] = {}  # per polygon given back an overlap clipped to its cleaned neighbour: what the log says
+    todo = region.copy()  # the polygons of the region (re)cleaned now
+    rounds = steps = 0
+    again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
-    # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned again no longer
-    # fits one outside (GEOS's coverage validation of the two), that one joins and the cleaning is run again
+    # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned no longer fits one
+    # outside the region (GEOS's coverage validation of the two), that one joins the region and the part of the
+    # region linked to it (polygons within the snapping distance of each other) is cleaned again; the other parts
+    # of the region lie farther apart than the snapping distance, so cleaning again would not change them
     while rounds < MAX_CLEAN_ROUNDS:
-        sel = np.flatnonzero(~hold & usable & region)
+        sel = np.flatnonzero(~hold & usable & todo)
         work = geoms[sel]
         order = np.arange(len(work))
-        back = [(k_, put_back[k]) for k_, k in enumerate(sel.tolist()) if k in put_back]
+        back = [(k_, k) for k_, k in enumerate(sel.tolist()) if k in put_back]
         if strategy == "min_index":
             age = _age_rank(state, codes[sel])
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
@@ -504,7 +562,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         cleaned = np.empty(len(work), dtype=object)
         cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
                                                 merge_strategy=strategy)
-        for k_, piece in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+        at = {k: k_ for k_, k in enumerate(sel.tolist())}
+        for k_, k in back:  # one per polygon with an overlap left for the geologist: the overlap given back
+            piece, note = _fitted_back(k, owners.get(k, []), put_back[k], cleaned, at, current, ids)
+            clipped[k] = note
             try:
                 cleaned[k_] = shapely.union(cleaned[k_], piece)
                 if shapely.equals(cleaned[k_], work[k_]):  # nothing else changed: the input as it was (its vertices)
@@ -512,29 +573,31 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             except GEOSException:
                 cleaned[k_] = work[k_]
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
-        same = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
-        if near is not None:
-            grow = _unfitted(near, sel, cleaned, region, current)
-            if grow.any():
-                region |= grow
-                continue
-        moved = _shift(work, cleaned)
-        too_far = moved > settings.tolerance * ABOVE
-        lost = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        same_r[sel] = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
+        moved_r[sel] = _shift(work, cleaned)
+        too_far_r[sel] = moved_r[sel] > settings.tolerance * ABOVE
+        lost_r[sel] = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
         current[sel] = cleaned
-        same_r[sel], moved_r[sel], too_far_r[sel], lost_r[sel] = same, moved, too_far, lost
-        bad = (too_far | lost) & ~same
+        grow = _unfitted(near, sel, cleaned, todo, current)
+        if grow.any():
+            steps += 1
+            add = near.of(np.flatnonzero(grow))
+            again = add if steps == 1 else again | add
+            todo = near.linked(again, add)
+            region |= todo
+            continue
+        mine = np.flatnonzero(region & ~hold & usable)
+        bad = (too_far_r[mine] | lost_r[mine]) & ~same_r[mine]
         if not bad.any():
             break
-        held = sel[bad]
+        held = mine[bad]
         hold[held] = True
-        refused.update({int(k): float(m) for k, m in zip(held, moved[bad])})
+        refused.update({int(k): float(m) for k, m in zip(held, moved_r[held])})
         current[held] = geoms[held]
         same_r[held] = True
-        if near is None:
-            near = _Near(geoms, usable, settings.tolerance)
         region = near.of(held)
-        rounds += 1
+        todo = region.copy()
+        rounds, steps = rounds + 1, 0
     else:
         same_r[:] = True  # still moving too far after every round: nothing is cleaned
     take = np.flatnonzero(usable & ~hold & ~same_r & ~too_far_r & ~lost_r)
@@ -545,11 +608,64 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                  geoms[k], float(m)) for k, m in refused.items()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
-                      geoms[k], new[k], "vertices snapped to the neighbours'")
+                      geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ""))
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
 
 
+def _misfits(units: Any, edges: Any, distance: float) -> np.ndarray:
+    """The polygons (positions in ``units``) owning an edge without its twin whose middle another polygon comes
+    within ``distance`` of, or that more than one polygon draws: the suspects of the half-edge table less those whose
+    only such edges lie on the outside of the map (along the frame, or along a gap wider than the distance),
+    which cleaning has nothing to fit to."""
+    loose = np.flatnonzero(~edges.twin)
+    if not len(loose):
+        return np.zeros(0, dtype=np.int64)
+    owner = np.where(edges.left[loose] >= 0, edges.left[loose], edges.right[loose])
+    crowded = edges.count[loose] != 1
+    one = np.flatnonzero(~crowded)
+    # each edge by its midpoint: its ends touch the polygon next along the frame, its middle does not (an edge
+    # shorter than twice the distance near a corner counts as near: it is cleaned, which it survives unchanged)
+    mid = shapely.points((edges.px[loose[one]] + edges.qx[loose[one]]) / 2, (edges.py[loose[one]] + edges.qy[loose[one]]) / 2)
+    si, k = units.tree.query(mid, predicate="dwithin", distance=distance)
+    near = np.zeros(len(one), dtype=bool)
+    near[si[k != owner[one][si]]] = True
+    many = loose[crowded]
+    out = np.r_[owner[one][near], edges.left[many], edges.right[many]]
+    return np.unique(out[out >= 0])
+
+
+def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
+                 current: np.ndarray, ids: np.ndarray) -> tuple[Any, str]:
+    """The overlaps left between polygon ``k`` and its neighbours, each clipped to the neighbour as now cleaned.
+
+    An overlap left for the geologist is cut out of ``k`` for the cleaning;
+    given back as it was, it would no longer fit the neighbour it overlaps
+    where the cleaning moved that one's boundary (nor a third polygon it
+    reaches into), so it is given back as its intersection with the
+    neighbour as cleaned (GEOS): it still overlaps the same neighbour, now
+    along its edges exactly. Returns the piece and, where the clipping took
+    away more than rounding, what the log says of it (empty otherwise).
+    """
+    if not owners:
+        return piece, ""
+    out, notes = [], []
+    for i, p in owners:  # one per overlap left along this polygon
+        fit = cleaned[at[i]] if i in at else current[i]
+        try:
+            q = polygonal(np.array([shapely.intersection(p, fit)], dtype=object))[0]
+        except GEOSException:
+            q = p
+        if shapely.is_missing(q) or shapely.is_empty(q):
+            q = p  # nothing of it left inside the neighbour: kept as it was (never dropped without a word)
+        lost = float(shapely.area(p) - shapely.area(q))
+        if lost > noise_floor(_scale(np.array([p], dtype=object))) * max(float(shapely.length(p)), 1.0):
+            notes.append(f"; the overlap left with {ids[i]} clipped to it as cleaned ({lost:.3g} m² less)")
+        out.append(q)
+    return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes)
+
+
+LOCAL_STEPS = 12  # cleanings of only the polygons near those that no longer fit; then of all the region linked to them
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
@@ -557,34 +673,60 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     """The polygons outside ``region`` that no longer fit the polygons ``sel`` as ``cleaned`` (as ``current`` has them).
 
     GEOS's coverage validation (``shapely.coverage_invalid_edges``) of the
-    cleaned polygons together with the polygons outside within the snapping
-    distance of them: one with an invalid edge there no longer fits.
+    cleaned polygons within the snapping distance of a polygon outside,
+    together with those polygons outside, gaps as narrow as that distance
+    included: one outside with an invalid edge there no longer fits. (A
+    cleaned polygon farther from every polygon outside cannot touch one.)
     """
     out = np.zeros(near.n, dtype=bool)
     outside = np.flatnonzero(near.of(sel) & ~region)
     if not len(outside):
         return out
-    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned, current[outside]], gap_width=0.0))
-    out[outside[bad[len(cleaned):]]] = True
+    at = np.full(near.n, -1, dtype=np.int64)
+    at[sel] = np.arange(len(sel))
+    rim = at[np.flatnonzero(near.of(outside))]
+    rim = rim[rim >= 0]
+    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned[rim], current[outside]], gap_width=near.distance))
+    out[outside[bad[len(rim):]]] = True
     return out
 
 
 class _Near:
-    """The polygons within a distance of given polygons (an STRtree over the usable ones, built once)."""
+    """The polygons within a distance of given polygons (an STRtree over the usable ones; each polygon's asked once)."""
 
     def __init__(self, geoms: np.ndarray, usable: np.ndarray, distance: float) -> None:
         self.n = len(geoms)
         self.rows = np.flatnonzero(usable)
         self.geoms = geoms
-        self.tree = shapely.STRtree(geoms[self.rows])
         self.distance = distance
+        self.tree = shapely.STRtree(geoms[self.rows])
+        self.asked = np.zeros(self.n, dtype=bool)
+        self.a, self.b = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)  # the pairs found, both ways
+
+    def _ask(self, which: np.ndarray) -> None:
+        new = np.zeros(self.n, dtype=bool)
+        new[which] = True
+        new &= ~self.asked
+        rows = np.flatnonzero(new)
+        if len(rows):
+            i, k = self.tree.query(self.geoms[rows], predicate="dwithin", distance=self.distance)
+            self.a, self.b = np.r_[self.a, rows[i], self.rows[k]], np.r_[self.b, self.rows[k], rows[i]]
+            self.asked[rows] = True
+
+    def linked(self, region: np.ndarray, seeds: np.ndarray) -> np.ndarray:
+        """Boolean mask: the polygons of ``region`` joined to a polygon of ``seeds`` (masks) by a chain of pairs in it."""
+        self._ask(np.flatnonzero(region))
+        m = region[self.a] & region[self.b]
+        label = _components(self.n, self.a[m], self.b[m])
+        return region & np.isin(label, label[seeds & region])
 
     def of(self, which: np.ndarray) -> np.ndarray:
         """Boolean mask: the usable polygons within the distance of any of the polygons ``which`` (row positions)."""
+        self._ask(which)
+        mine = np.zeros(self.n, dtype=bool)
+        mine[which] = True
         out = np.zeros(self.n, dtype=bool)
-        if len(which):
-            _, k = self.tree.query(self.geoms[which], predicate="dwithin", distance=self.distance)
-            out[self.rows[k]] = True
+        out[self.b[mine[self.a]]] = True
         return out
 
 
@@ -655,6 +797,9 @@ def _merge(state: RepairState, name: str, groups: dict[int, list[int]], note: st
     return changes
 
 
+ERODE_MARGIN = 1.05  # our own margin over GEOS's 1 % buffer simplification and its arc chords (about 0.5 %, from memory)
+
+
 @repair("merge-slivers", order=40)
 def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Change], list[Left]]:
     """Slivers merged into the neighbour of the same unit, else the one with the longest shared edge.
@@ -684,7 +829,19 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     cand = np.flatnonzero(maybe & ~shapely.is_missing(geoms))
     wid = np.full(len(geoms), np.inf)
     if len(cand):
-        wid[cand] = widths(geoms[cand], wmin / 10.0)
+        # only the decision "narrower than wmin" is needed, as unit-sliver makes it: widths() settles each width
+        # to ``p`` (wmin/200 here, as for unit-sliver) and never above the largest circle. An erosion by
+        # ERODE_MARGIN x (wmin/2 + p) that leaves something standing shows a circle wider than that, and an empty
+        # erosion by wmin/2 / ERODE_MARGIN shows none as wide as wmin/2 (:func:`archivist.analysis.arrays.widths`:
+        # GEOS's offset curves are accurate to about 1 % of the distance); only the polygons in between are
+        # measured (GEOS maximum_inscribed_circle)
+        p = np.maximum(wmin / 200.0, np.sqrt(area[cand]) * 1e-6)
+        standing = ~shapely.is_empty(shapely.buffer(geoms[cand], -ERODE_MARGIN * (r + p)))
+        narrow = shapely.is_empty(shapely.buffer(geoms[cand], -r / ERODE_MARGIN))
+        wid[cand[narrow]] = 0.0  # narrower than wmin for sure: not measured
+        measure = cand[~standing & ~narrow]
+        if len(measure):
+            wid[measure] = widths(geoms[measure], wmin / 10.0)
     sliver = (area < amin) | (wid < wmin)
     if not sliver.any():
         return [], []
