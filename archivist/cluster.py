@@ -42,14 +42,15 @@ built from.
 
 What this does not do yet: a family goes to the workers only when every
 rule of it that runs is partitioned (:func:`archivist.engine.run_rules`: the
-rules of a family share their analyses), and today the topology family holds
-the coverage rules and the linework family ``boundary-without-line`` and
-``line-kind-unknown``, which run on the whole map. So a whole check sends
-nothing to the workers and the client runs it as one process would, holding
-the whole map and every analysis of it: 5.3 GB at 10^6 polygons and 1 %
-defects (2.4 GB of it the loaded map), so a map of 4 x 10^6 does not fit in
-23 GB. Checked with only the
-partitioned rules (``rules=``), the partitions do go to the workers
+rules of a family share their analyses). The linework family does (its sums
+over the map settled from the partitions' partial sums,
+:mod:`archivist.tally`); the topology family holds the coverage rules, which
+run on the whole map. So a whole check sends the linework family to the
+workers but the client still builds the coverage analysis of the whole map,
+holding the whole map and that analysis: 5.5 GB at 10^6 polygons and 1 %
+defects in one process (about 2 GB of it the loaded map), so a full check of
+4 x 10^6 does not fit in 23 GB. Checked with only the partitioned rules
+(``rules=``), all partitions go to the workers
 (tests/benchmarks/bench_cluster.py ``--partitioned-only``).
 
 How the map is cut and the findings merged is :mod:`archivist.parallel`'s
