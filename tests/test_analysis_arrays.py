@@ -147,3 +147,27 @@ def test_widths_of_nothing_and_of_a_multipolygon():
     assert widths(np.empty(0, dtype=object), 0.5).shape == (0,)
     two = shapely.MultiPolygon([box(0, 0, 10, 1), box(20, 0, 30, 4)])
     assert abs(widths(np.array([two], dtype=object), 0.5)[0] - 4.0) <= 2 * 0.02 * 2.0
+
+
+def test_widths_of_one_part_multipolygons_are_settled_as_their_polygons(monkeypatch):
+    # a GeoPackage layer of MULTIPOLYGON holds every unit as a multipolygon of one part; GEOS's grid search on a
+    # long strip costs its length over the precision, so such a strip must be settled by erosion like its polygon
+    import archivist.analysis.arrays as arrays
+
+    x0, y0 = 419_000.0, 6_501_000.0
+    path = LineString([(x0, y0), (x0 + 300, y0 + 20), (x0 + 420, y0 + 250), (x0 + 800, y0 + 260)])
+    strip = shapely.buffer(path, 1.0, cap_style="flat", join_style="mitre")  # 2 m wide, wider at its mitred bends
+    calls = []
+    real = arrays.shapely.maximum_inscribed_circle
+
+    def counting(geoms, tolerance):
+        calls.append(len(np.atleast_1d(geoms)))
+        return real(geoms, tolerance)
+
+    monkeypatch.setattr(arrays.shapely, "maximum_inscribed_circle", counting)
+    one = arrays.widths(np.array([shapely.MultiPolygon([strip])], dtype=object), 0.5)
+    alone = arrays.widths(np.array([strip], dtype=object), 0.5)
+    monkeypatch.undo()
+    assert sum(calls) == 0
+    assert one[0] == alone[0]
+    _assert_within_precision([strip], 0.5)  # against GEOS's grid search at a finer precision

@@ -170,13 +170,20 @@ def widths(pieces: np.ndarray, tol: float) -> np.ndarray:
     """
     if len(pieces) == 0:
         return np.empty(0)
+    # a multipolygon of one part (as a GeoPackage layer of MULTIPOLYGON holds every polygon) is measured as its polygon
+    kind = shapely.get_type_id(pieces)
+    one = np.flatnonzero((kind == MULTIPOLYGON) & (shapely.get_num_geometries(pieces) == 1))
+    if len(one):
+        pieces = np.array(pieces, dtype=object, copy=True)
+        pieces[one] = shapely.get_geometry(pieces[one], 0)
+        kind[one] = POLYGON
     area = shapely.area(pieces)
     size = np.sqrt(area)
     coarse = np.maximum(tol / 20.0, size * 1e-6) if tol > 0 else np.maximum(size * 1e-4, 1e-9)
     radius = np.full(len(pieces), np.nan)
     perimeter = shapely.length(pieces)
     guess = np.where(perimeter > 0, area / np.where(perimeter > 0, perimeter, 1.0), 0.0)  # about the radius of a strip
-    single = shapely.get_type_id(pieces) == POLYGON  # multipolygons (a unit in parts) go to GEOS
+    single = kind == POLYGON  # multipolygons (a unit in parts) go to GEOS
     tried = np.flatnonzero(single & (guess > 0) & (BUFFER_ACCURACY * guess < coarse))
     if len(tried):
         lo, settled = _eroded_radius(pieces[tried], guess[tried], coarse[tried])
