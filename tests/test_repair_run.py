@@ -86,6 +86,15 @@ def test_the_log_follows_its_schema_and_the_gpkg_holds_every_change(tmp_path):
     assert sorted(set(before.change) | set(after.change)) == numbers
     manifest = (tmp_path / "out" / "archivist.toml").read_text(encoding="utf-8")
     assert 'record = "repair-log.json"' in manifest
+    # one line per change and per defect left, and the text is the JSON of the document (Python's json reads it back)
+    from archivist.repair.log import dump_log
+
+    text = (tmp_path / "out" / "repair-log.json").read_text(encoding="utf-8")
+    assert text == dump_log(log)
+    lines = text.splitlines()
+    assert log["changes"]
+    for entry in log["changes"] + log["left"]:
+        assert "    " + json.dumps(entry, ensure_ascii=False) in {line.rstrip(",") for line in lines}
 
 
 def test_example_bundle_is_unchanged_by_repair(tmp_path):

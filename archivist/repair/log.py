@@ -66,8 +66,31 @@ def log_document(project: str, repairs: Sequence[str], settings: RepairSettings,
     }
 
 
+LISTS = ("changes", "left")  # one entry per line in the log's text
+
+
 def dump_log(doc: dict[str, Any]) -> str:
-    return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
+    """The log as JSON text: the head indented, each change and each defect left on a line of its own.
+
+    One line per entry keeps the file readable and diffable line by line, and
+    lets Python's C encoder write the entries (an indented dump goes through
+    its pure-Python encoder: at 10^5 polygons, 36 000 changes, 1.5 s against
+    about 0.3 s measured with ``cProfile``).
+    """
+    head = {k: v for k, v in doc.items() if k not in LISTS}
+    text = json.dumps(head, indent=2, ensure_ascii=False)
+    blocks = []
+    for key in LISTS:
+        if key not in doc:
+            continue
+        rows = [json.dumps(entry, ensure_ascii=False) for entry in doc[key]]
+        body = "[\n" + ",\n".join("    " + r for r in rows) + "\n  ]" if rows else "[]"
+        blocks.append(f"  {json.dumps(key)}: {body}")
+    if not blocks:
+        return text + "\n"
+    inner = text[:-1].rstrip() if head else "{"
+    sep = ",\n" if head else "\n"
+    return inner + sep + ",\n".join(blocks) + "\n}\n"
 
 
 def write_changes_gpkg(changes: Sequence[Change], left: Sequence[Left], path: Path, crs: Any) -> None:
