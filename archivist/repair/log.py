@@ -74,8 +74,8 @@ def dump_log(doc: dict[str, Any]) -> str:
 
     One line per entry keeps the file readable and diffable line by line, and
     lets Python's C encoder write the entries (an indented dump goes through
-    its pure-Python encoder: at 10^5 polygons, 36 000 changes, 1.5 s against
-    about 0.3 s measured with ``cProfile``).
+    its pure-Python encoder: at 10^5 polygons, 36 312 changes, 0.52 s against
+    0.31 s).
     """
     head = {k: v for k, v in doc.items() if k not in LISTS}
     text = json.dumps(head, indent=2, ensure_ascii=False)
