@@ -163,12 +163,43 @@ def test_same_unit_neighbours_dissolve_unless_a_fault_runs_between(tmp_path):
     project = square(tmp_path, geoms, ["A", "A"])
     result = repair(project, tmp_path / "out")
     d = [c for c in result.changes if c.repair == "dissolve-same-unit"]
-    assert len(d) == 1 and d[0].features_before == ("1", "2") and d[0].area_moved == pytest.approx(50.0)
+    # the polygons dissolved, and the contact drawn between them (x = 5, all of it along the dissolved edge) removed
+    assert [(c.layer, c.features_before, c.features_after) for c in d] == [("units", ("1", "2"), ("1",)), ("lines", ("1",), ())]
+    assert d[0].area_moved == pytest.approx(50.0) and d[1].after is None
+    assert shapely.equals(d[1].before, LineString([(5, 0), (5, 10)]))
     units = copy_units(tmp_path / "out")
     assert len(units) == 1 and shapely.equals(units.geometry.iloc[0], box(0, 0, 10, 10))
+    lines = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="lines")
+    assert list(lines.kind) == ["map-boundary"]
+    assert not [f for f in check(tmp_path / "out").findings if f.rule.startswith("line-")]
     faulted = square(tmp_path, geoms, ["A", "A"], name="faulted",
                      lines=[("fault", LineString([(5, 0), (5, 10)])), ("map-boundary", FRAME)])
     assert [c for c in repair(faulted, tmp_path / "out2").changes if c.repair == "dissolve-same-unit"] == []
+
+
+def test_a_contact_between_dissolved_polygons_is_taken_out_along_them_only(tmp_path):
+    # A [0, 5] x [0, 10] and A [5, 10] x [0, 10] over B [0, 10] x [10, 15]: one contact runs up x = 5 from the frame
+    # to (5, 10), then along y = 10 to the frame. After the dissolve its stretch x = 5 lies inside one polygon of A:
+    # taken out (segment by segment, by hand: the first segment of the line), the stretch along y = 10, between A
+    # and B, kept as drawn.
+    geoms = [box(0, 0, 5, 10), box(5, 0, 10, 10), box(0, 10, 10, 15)]
+    frame = LineString([(0, 0), (10, 0), (10, 15), (0, 15), (0, 0)])
+    contact = LineString([(5, 0), (5, 10), (10, 10)])
+    west = LineString([(0, 10), (5, 10)])
+    lines = [("contact", contact), ("contact", west), ("map-boundary", frame)]
+    project = tiny_project(tmp_path, name="bent", units=gpd.GeoDataFrame({"unit": ["A", "A", "B"]}, geometry=geoms,
+                                                                           crs="EPSG:32633"),
+                           lines=line_frame(*lines), extent=box(0, 0, 10, 15), manifest={"map": {"scale": 1000}})
+    result = repair(project, tmp_path / "out")
+    d = [c for c in result.changes if c.repair == "dissolve-same-unit"]
+    assert [(c.layer, c.features_before, c.features_after) for c in d] == [("units", ("1", "2"), ("1",)), ("lines", ("1",), ("1",))]
+    assert shapely.equals(d[1].after, LineString([(5, 10), (10, 10)]))
+    assert d[1].max_shift == 0.0  # nothing of what is left moved
+    copy = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="lines")
+    assert shapely.equals(copy.geometry.iloc[0], LineString([(5, 10), (10, 10)]))
+    assert shapely.equals(copy.geometry.iloc[1], west)  # not along the dissolved edge: untouched
+    found = {f.rule for f in check(tmp_path / "out").findings}
+    assert not {r for r in found if r.startswith("line-") or r.startswith("unit-")}, found
 
 
 def test_misaligned_vertices_snap_within_the_tolerance(tmp_path):

@@ -22,6 +22,7 @@ from typing import Any
 
 import geopandas as gpd
 import numpy as np
+import pandas as pd
 import shapely
 from shapely.errors import GEOSException
 
@@ -904,4 +905,107 @@ def dissolve_same_unit(state: RepairState, settings: RepairSettings) -> tuple[li
     for c in np.unique(comp[involved]):  # one per group dissolved
         inside = [int(k) for k in np.flatnonzero(comp == c)]
         groups[inside[0]] = inside[1:]
-    return _merge(state, "dissolve-same-unit", groups, "same unit, no fault between them: dissolved", _geoms(state)), []
+    sides = _contact_sides(state, ctx)  # read before the polygons change
+    codes = _codes(state)
+    changes = _merge(state, "dissolve-same-unit", groups, "same unit, no fault between them: dissolved", _geoms(state))
+    return changes + _drop_inner_contacts(state, sides, changes, ids, codes), []
+
+
+def _contact_sides(state: RepairState, ctx: CheckContext) -> tuple[Any, np.ndarray, np.ndarray] | None:
+    """The line network of the working lines and, per segment, the rows of the working units on its two sides."""
+    if state.lines is None or not len(state.lines) or "lines" not in ctx.project.layers:
+        return None
+    from ..rules.linework import contact_sides
+
+    assert state.units is not None
+    left, right = contact_sides(ctx)
+    units = ctx.units()
+    row_of = pd.Index(np.asarray(state.units[FEATURE_ID], dtype=object).astype(str)).get_indexer(
+        np.asarray(units.ids, dtype=object).astype(str)) if len(units) else np.empty(0, dtype=np.int64)
+    lr = np.where(left >= 0, row_of[np.maximum(left, 0)] if len(row_of) else -1, -1)
+    rr = np.where(right >= 0, row_of[np.maximum(right, 0)] if len(row_of) else -1, -1)
+    return ctx.line_network(), lr, rr
+
+
+def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.ndarray] | None, merged: list[Change],
+                         ids: np.ndarray, codes: np.ndarray) -> list[Change]:
+    """The stretches of contact along a boundary that a dissolve took away, taken out of their lines.
+
+    A contact separates two units; once two polygons of one unit are one
+    polygon, a contact drawn between them lies inside it (``line-off-boundary``
+    in the copy). Each segment of a contact whose two sides were polygons now
+    dissolved into one is taken out; the rest of the line stays as drawn (in
+    parts where a stretch was taken out of its middle), and a line with
+    nothing left is removed. Faults and other kinds are never touched: a
+    fault between two polygons keeps them apart (``unit-same-neighbour``).
+    """
+    if sides is None or not merged:
+        return []
+    from .lines import _line_change, _set_geoms
+
+    net, lr, rr = sides
+    joined = np.arange(len(ids))  # per unit row (before the dissolve): the row it was dissolved into
+    pos = pd.Index(ids.astype(str))
+    for c in merged:
+        rows = pos.get_indexer(list(c.features_before))
+        joined[rows[rows >= 0]] = rows[0]
+    gone = (lr >= 0) & (rr >= 0) & (lr != rr)
+    gone[gone] = joined[lr[gone]] == joined[rr[gone]]
+    if not gone.any():
+        return []
+    seg_feat = net.part_feat[net.seg_part]
+    feats = np.unique(seg_feat[gone])
+    # every segment slot (coordinate c to c + 1 of a part) of those lines, with the slots taken out marked
+    parts = np.flatnonzero(np.isin(net.part_feat, feats))
+    lo, hi = net.part_off[parts], net.part_off[parts + 1] - 1  # slots lo .. hi - 1
+    n = np.maximum(hi - lo, 0)
+    slot = np.repeat(lo, n) + (np.arange(n.sum()) - np.repeat(np.cumsum(n) - n, n))
+    slot_part = np.repeat(parts, n)
+    out = np.zeros(len(net.coords), dtype=bool)
+    out[net.seg_c0[gone]] = True
+    kept = ~out[slot]
+    ks, kp = slot[kept], slot_part[kept]
+    # runs of kept slots: a new run where a slot does not follow the one before in the same part
+    start = np.ones(len(ks), dtype=bool)
+    start[1:] = (ks[1:] != ks[:-1] + 1) | (kp[1:] != kp[:-1])
+    run = np.cumsum(start) - 1
+    last = np.r_[np.flatnonzero(start)[1:] - 1, len(ks) - 1] if len(ks) else np.empty(0, dtype=np.int64)
+    cidx = np.r_[ks, ks[last] + 1]
+    crun = np.r_[run, run[last]]
+    order = np.lexsort((cidx, crun))
+    pieces = shapely.linestrings(net.coords[cidx[order]], indices=crun[order]) if len(ks) else np.empty(0, dtype=object)
+    run_feat = net.part_feat[kp[start]] if len(ks) else np.empty(0, dtype=np.int64)
+    after = np.full(len(feats), None, dtype=object)
+    has = np.isin(feats, run_feat)
+    if has.any():
+        whole = np.full(has.sum(), None, dtype=object)
+        shapely.multilinestrings(pieces, indices=np.searchsorted(feats[has], run_feat), out=whole)
+        one = shapely.get_num_geometries(whole) == 1
+        whole[one] = shapely.get_geometry(whole[one], 0)
+        after[has] = whole
+    rows = net.rows[feats]
+    before = net.geoms[feats]
+    segs = np.flatnonzero(gone)
+    first = segs[np.unique(seg_feat[segs], return_index=True)[1]]  # per line of feats, its first segment taken out
+    line_codes = [str(codes[r]) or "?" for r in lr[first].tolist()]
+    notes = [f"contact between polygons of unit {code} dissolved into one: taken out along it" if a is not None
+             else f"contact between polygons of unit {code} dissolved into one: removed (nothing of it lay elsewhere)"
+             for code, a in zip(line_codes, after)]
+    keep_rows = rows[has]
+    changes = _line_change("dissolve-same-unit", state, keep_rows, before[has], after[has], np.zeros(int(has.sum())),
+                           [nt for nt, h in zip(notes, has) if h])
+    if len(keep_rows):
+        _set_geoms(state, keep_rows, after[has])
+    dropped = rows[~has]
+    if len(dropped):
+        from .lines import _source_layers
+
+        assert state.lines is not None
+        lids = state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object)
+        layers = _source_layers(state)
+        changes += [Change("dissolve-same-unit", str(layers[r]), (str(lids[r]),), (), (), 0.0, 0.0, b, None, nt)
+                    for r, b, nt in zip(dropped.tolist(), before[~has], [nt for nt, h in zip(notes, has) if not h])]
+        keep = np.ones(len(state.lines), dtype=bool)
+        keep[dropped] = False
+        state.lines = state.lines.iloc[keep]
+    return changes

@@ -737,28 +737,10 @@ def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[H
     units = ctx.units()
     if units.codes is None or not len(units):
         return
-    edges = ctx.edges()
     tol = float(ctx.tolerance)
     m = metres_per_unit(project)
     codes = units.codes
-    se = ctx.segment_edges()
-    contact = net.seg_roles == "contact"
-    left = np.full(len(se), -1, dtype=np.int64)
-    right = np.full(len(se), -1, dtype=np.int64)
-    exact = contact & (se >= 0)
-    ok = exact.copy()
-    ok[exact] = edges.twin[se[exact]]
-    left[ok], right[ok] = edges.left[se[ok]], edges.right[se[ok]]
-    loose = np.flatnonzero(contact & (se < 0))
-    if len(loose):
-        x0, y0 = net.coords[net.seg_c0[loose]].T
-        x1, y1 = net.coords[net.seg_c0[loose] + 1].T
-        length = np.hypot(x1 - x0, y1 - y0)
-        d = 2.0 * tol if tol > 0 else 1e-6 * max(np.abs(net.coords).max(), 1.0)
-        nx, ny = -(y1 - y0) / length * d, (x1 - x0) / length * d
-        mx, my = (x0 + x1) / 2, (y0 + y1) / 2
-        left[loose] = unit_at(shapely.points(mx + nx, my + ny), units)
-        right[loose] = unit_at(shapely.points(mx - nx, my - ny), units)
+    left, right = contact_sides(ctx)
     same = (left >= 0) & (right >= 0) & (left != right)
     same[same] = (codes[left[same]] == codes[right[same]]) & (codes[left[same]] != "")
     idx = np.flatnonzero(same)
@@ -782,6 +764,40 @@ def line_same_unit_contact(project: MapProject, ctx: CheckContext) -> Iterator[H
             measure=float(length * m),
             geometry=g,
         )
+
+
+def contact_sides(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray]:
+    """For every segment of the line network, the unit polygons on its left and right (indices into
+    ``ctx.units()``), -1 where there is none or the segment is not of a contact.
+
+    A segment that is exactly a polygon edge with its twin takes the two
+    polygons of that edge; any other contact segment the polygons found just
+    off each side of its middle, twice the tolerance away (the first in the
+    layer where two overlap there).
+    """
+    net = ctx.line_network()
+    units = ctx.units()
+    edges = ctx.edges()
+    tol = float(ctx.tolerance)
+    se = ctx.segment_edges()
+    contact = net.seg_roles == "contact"
+    left = np.full(len(se), -1, dtype=np.int64)
+    right = np.full(len(se), -1, dtype=np.int64)
+    exact = contact & (se >= 0)
+    ok = exact.copy()
+    ok[exact] = edges.twin[se[exact]]
+    left[ok], right[ok] = edges.left[se[ok]], edges.right[se[ok]]
+    loose = np.flatnonzero(contact & (se < 0))
+    if len(loose) and len(units):
+        x0, y0 = net.coords[net.seg_c0[loose]].T
+        x1, y1 = net.coords[net.seg_c0[loose] + 1].T
+        length = np.hypot(x1 - x0, y1 - y0)
+        d = 2.0 * tol if tol > 0 else 1e-6 * max(np.abs(net.coords).max(), 1.0)
+        nx, ny = -(y1 - y0) / length * d, (x1 - x0) / length * d
+        mx, my = (x0 + x1) / 2, (y0 + y1) / 2
+        left[loose] = unit_at(shapely.points(mx + nx, my + ny), units)
+        right[loose] = unit_at(shapely.points(mx - nx, my - ny), units)
+    return left, right
 
 
 def join_ids(units: Units, polys: list[int]) -> str:
