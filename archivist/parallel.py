@@ -751,12 +751,11 @@ class Merged:
     notes: tuple[str, ...] = ()
 
 
-def _key(hit: Hit) -> tuple:
-    import shapely
-
-    g = None if hit.geometry is None else shapely.to_wkt(hit.geometry, rounding_precision=-1)
-    return (hit.message, hit.layer, tuple(str(f) for f in hit.features), hit.measure, g, hit.x, hit.y,
-            None if hit.severity is None else hit.severity.value)
+def _finding(hit: Hit) -> tuple:
+    """What makes two hits the same finding for the merge's cross-check: the rule's sentence, layer, features
+    and severity (the measure, place and geometry a partition computes may differ from its owner's in the last
+    bits: GEOS's overlay of a line against fewer polygons nodes it differently, 3e-7 m in 62 m seen at 10^5)."""
+    return (hit.message, hit.layer, tuple(str(f) for f in hit.features), None if hit.severity is None else hit.severity.value)
 
 
 def merge(plan: Plan, rules: Sequence[str], results: Sequence[PartitionResult]) -> Merged:
@@ -788,8 +787,8 @@ def merge(plan: Plan, rules: Sequence[str], results: Sequence[PartitionResult]) 
             continue
         have = keys.get((o, rid))
         if have is None:
-            have = keys[(o, rid)] = {_key(h) for h, _ in owned.get(o, {}).get(rid, [])}
-        if _key(hit) not in have:
+            have = keys[(o, rid)] = {_finding(h) for h, _ in owned.get(o, {}).get(rid, [])}
+        if _finding(hit) not in have:  # the owner lacks a finding another partition can vouch for
             whole.add(rid)
     out: dict[str, list[Hit]] = {rid: [] for rid in rules if rid not in whole}
     for res in results:

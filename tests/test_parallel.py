@@ -148,6 +148,15 @@ def test_merge_keeps_owned_hits_and_sends_a_rule_the_partitions_cannot_judge_to_
     assert parallel.merge(plan, ["r"], missing).whole == ("r",)
     # GEOS stopped the rule in a partition
     assert parallel.merge(plan, ["r"], [results[0], parallel.PartitionResult(1, (), ("r",), ())]).whole == ("r",)
+    # another partition measured the owner's finding a few bits apart (its overlay saw fewer polygons): the same
+    # finding, the owner's is reported; a different sentence for the same features is not the same finding
+    noisy = Hit("at 1", x=10.5, y=0.5, measure=61.66608150143114)
+    owner = Hit("at 1", x=10.5, y=0.5, measure=61.6660812134566)
+    bits = [parallel.PartitionResult(0, (("r", near0, 0.5, 0.5, True), ("r", noisy, 10.5, 0.5, True)), (), ()),
+            parallel.PartitionResult(1, (("r", owner, 10.5, 0.5, True),), (), ())]
+    assert parallel.merge(plan, ["r"], bits).hits == {"r": [near0, owner]}
+    other = [bits[0], parallel.PartitionResult(1, (("r", Hit("at 1, wider", x=10.5, y=0.5), 10.5, 0.5, True),), (), ())]
+    assert parallel.merge(plan, ["r"], other).whole == ("r",)
 
 
 def test_an_interrupt_cancels_the_partitions_not_started(tmp_path):
