@@ -714,7 +714,7 @@ from archivist.cli import main
 
 def busy_in_geos(project, ctx):
     polys = shapely.buffer(shapely.points(np.random.default_rng(0).random((20000, 2))), 0.01, quad_segs=64)
-    print("inside", os.getpid(), flush=True)
+    os.write(1, f"inside {os.getpid()}\\n".encode())  # one write: two workers' lines never interleave in the pipe
     while True:  # GEOS work in a forked worker until it is stopped
         shapely.union_all(shapely.buffer(polys, 0.001))
 
