@@ -279,8 +279,9 @@ def fork_parts(project: MapProject, rules: Sequence[RuleInfo], jobs: int) -> int
     if jobs <= 1 or "fork" not in multiprocessing.get_all_start_methods():
         return None
     runnable = [r for r in rules if all(role in project.layers for role in r.needs)]
-    families = {r.family for r in runnable if r.partitioned}
-    if not families or any(r.family in families and not r.partitioned for r in runnable):
+    can = {r.id: r.partitions(project) for r in runnable}
+    families = {r.family for r in runnable if can[r.id]}
+    if not families or any(r.family in families and not can[r.id] for r in runnable):
         return None
     features = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
     return jobs if features >= FORK_FEATURES else None
@@ -568,27 +569,9 @@ def sub_project(project: MapProject, partition: Partition) -> MapProject:
     """The project of one partition: its core and halo rows of each partitioned layer; other layers and tables whole."""
     layers = {role: (_sub_layer(layer, partition.rows[role]) if role in partition.rows else layer)
               for role, layer in project.layers.items()}
-    if "extent" in layers and partition.region is not None:
-        layers["extent"] = _clipped(layers["extent"], partition.region)
+    # the extent stays whole: a partition's gaps are traced within its region, measured against the whole extent
+    # (archivist.analysis.coverage.analyse_coverage)
     return replace(project, layers=layers, problems=[], notes=[])
-
-
-def _clipped(layer: Any, region: Any) -> Any:
-    """The extent layer cut to a partition's region, so that the partition's gaps are the map's gaps there.
-
-    Over the region every unit of the map is in the partition, so the extent
-    minus the units is, over the region, exactly the map's gaps; outside it,
-    the units not in the partition would leave one vast false gap.
-    """
-    import shapely
-
-    geoms = layer.geometry
-    keep = _present(geoms)
-    cut = geoms.copy()
-    cut[keep] = shapely.intersection(geoms[keep], region)
-    frame = layer.frame.copy()
-    frame[frame.geometry.name] = cut
-    return replace(layer, frame=frame)
 
 
 # ---------------------------------------------------------------- the work of one partition
@@ -606,6 +589,7 @@ class PartitionTask:
     reach: float
     left_out: tuple[str, ...] = ()
     core: np.ndarray | None = None  # the cells it owns: the values of the rules' tallies it counts (None: none)
+    scale: float | None = None  # the whole map's coverage.map_scale (None: the partition's own, as for a whole map)
 
 
 @dataclass(frozen=True)
@@ -677,6 +661,7 @@ class InheritedTask:
     grid: Grid
     reach: float
     left_out: tuple[str, ...] = ()
+    scale: float | None = None
 
 
 def run_inherited(task: InheritedTask) -> PartitionResult:
@@ -686,7 +671,7 @@ def run_inherited(task: InheritedTask) -> PartitionResult:
         raise RuntimeError(f"this worker process was not forked with the project {task.source}")
     part = task.part
     return run_partition(PartitionTask(part.index, sub_project(project, part), task.rules, task.grid, part.marked,
-                                       task.reach, task.left_out, part.core))
+                                       task.reach, task.left_out, part.core, task.scale))
 
 
 def run_partition(task: PartitionTask) -> PartitionResult:
@@ -694,7 +679,8 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     from shapely.errors import GEOSException
 
     from .analysis.alignment import Alignment
-    from .analysis.context import CheckContext
+    from .analysis.context import PART_KEY, CheckContext
+    from .analysis.coverage import CannotVouch
     from .registry import get_rule
 
     project = task.project
@@ -702,6 +688,8 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     # the layers are already as the checks across layers see them (the caller's aligned view)
     ctx._cache["analysis.alignment"] = Alignment(layers=dict(project.layers), left_out=task.left_out)
     ctx._cache["analysis.view"] = project
+    if task.scale is not None:
+        ctx._cache[PART_KEY] = part_of_map(task)
     found: list[tuple[str, Hit]] = []
     failed: list[str] = []
     tallies: list[tuple[str, str, ExactSum]] = []
@@ -712,7 +700,7 @@ def run_partition(task: PartitionTask) -> PartitionResult:
             if info.settle is not None:
                 owned = _owned_by(task.grid, task.core, task.index == 0)
                 tallies += [(rid, name, t.total(owned)) for name, t in info.settle.tally(project, ctx).items()]
-        except GEOSException:
+        except (GEOSException, CannotVouch):  # GEOS stopped, or a gap near the core runs past the region
             failed.append(rid)
             found = [(r, h) for r, h in found if r != rid]
             tallies = [t for t in tallies if t[0] != rid]
@@ -722,6 +710,19 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
                  for (rid, hit), (x, y, _), t in zip(found, places, trust))
     return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes), tuple(tallies))
+
+
+def part_of_map(task: PartitionTask) -> Any:
+    """The :class:`~archivist.analysis.coverage.PartOfMap` of a partition: its marked cells, its core grown by the
+    rules' reach, the whole map's scale."""
+    import shapely
+
+    from .analysis.coverage import PartOfMap
+
+    core = task.core if task.core is not None else np.zeros_like(task.marked)
+    owned = _cells_polygon(task.grid, core)
+    grown = shapely.buffer(owned, task.reach, join_style="mitre") if owned is not None else shapely.Polygon()
+    return PartOfMap(_cells_polygon(task.grid, task.marked), grown, float(task.scale or 1.0))
 
 
 def _owned_by(grid: Grid, core: np.ndarray | None, first: bool) -> Any:
@@ -832,6 +833,8 @@ class Sent:
 
     def __init__(self, project: MapProject, rules: Sequence[RuleInfo], executor: Executor, parts: int,
                  left_out: tuple[str, ...] = (), plan: Plan | None = None) -> None:
+        from .analysis.coverage import map_scale
+
         self.project, self.executor, self.left_out = project, executor, left_out
         # a settled rule the partitions cannot judge on this map goes whole before anything is sent
         self.ahead = {info.id for info in rules if info.settle is not None and info.settle.partitions_can is not None
@@ -840,6 +843,8 @@ class Sent:
         self.rules = [info for info in rules if info.id not in self.ahead]
         self.ids = tuple(info.id for info in self.rules)
         self.plan = (plan or plan_partitions(project, parts)) if self.ids else None
+        # the whole map's scale: a partition's noise floor is the whole map's (archivist.analysis.coverage.map_scale)
+        self.scale = map_scale(project) if self.ids and "units" in project.layers else None
         self.key = executor.share(project) if self.ids and isinstance(executor, ForkPool) else None
         self.window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
         self.queue = list(self.plan.partitions) if self.plan is not None else []
@@ -854,9 +859,11 @@ class Sent:
         plan = self.plan
         assert plan is not None
         if self.key is not None:
-            return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach, self.left_out))
+            return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach,
+                                                                     self.left_out, self.scale))
         return self.executor.submit(run_partition, PartitionTask(part.index, sub_project(self.project, part), self.ids,
-                                                                 plan.grid, part.marked, plan.reach, self.left_out, part.core))
+                                                                 plan.grid, part.marked, plan.reach, self.left_out, part.core,
+                                                                 self.scale))
 
     def _fill(self) -> None:
         while self.queue and len(self.running) < self.window:

@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any, Callable, Iterable, Iterator, TypeVar
 import numpy as np
 
 from .alignment import Alignment, align_layers
-from .coverage import Coverage, Mismatch, analyse_coverage, find_mismatches
+from .coverage import CannotVouch, Coverage, Mismatch, analyse_coverage, find_mismatches
 from .halfedges import Edges, build_edges
 from .lines import LineNetwork, build_line_network
 from .placement import Placement, SwapSuspects, place_layers, swap_suspects
@@ -21,6 +21,8 @@ if TYPE_CHECKING:
     from ..project import CheckConfig, Layer, MapProject
 
 T = TypeVar("T")
+PART_KEY = "analysis.part"
+"""The cache key under which a spatial partition's context holds its :class:`~.coverage.PartOfMap`."""
 
 # What one rule (or one analysis) said, in the order it said it: a note (text), or an analysis it read (the log
 # of that analysis's computation). Flattened over the rules in their order, these logs give the notes in the
@@ -199,11 +201,14 @@ class CheckContext:
         """Gaps, overlaps, misfits and the map extent of :meth:`units`; notes what the extent is."""
 
         def compute() -> Coverage:
-            cov = analyse_coverage(self.view(), self.units(), self.edges(), self.tolerance)
+            cov = analyse_coverage(self.view(), self.units(), self.edges(), self.tolerance, self._cache.get(PART_KEY))
             self.note(cov.extent_note)
             return cov
 
-        return self.shared("analysis.coverage", compute)
+        cov = self.shared("analysis.coverage", compute)
+        if cov.unvouched:  # only in a spatial partition of the map: the rule asking goes to the whole map
+            raise CannotVouch("a gap near this partition's core runs past its region")
+        return cov
 
     def mismatches(self) -> tuple[Mismatch, ...]:
         """Neighbours whose common edge nearly coincides, grouped per pair, from :meth:`coverage`."""
