@@ -719,10 +719,15 @@ def part_of_map(task: PartitionTask) -> Any:
 
     from .analysis.coverage import PartOfMap
 
+    grid = task.grid
     core = task.core if task.core is not None else np.zeros_like(task.marked)
-    owned = _cells_polygon(task.grid, core)
+    owned = _cells_polygon(grid, core)
     grown = shapely.buffer(owned, task.reach, join_style="mitre") if owned is not None else shapely.Polygon()
-    return PartOfMap(_cells_polygon(task.grid, task.marked), grown, float(task.scale or 1.0))
+    region = _cells_polygon(grid, task.marked)
+    # the region's edge inside the grid: on the grid's outer edge the map holds nothing beyond (see trusted())
+    frame = shapely.boundary(shapely.box(grid.x0, grid.y0, grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell))
+    edge = shapely.difference(shapely.boundary(region), frame) if region is not None else shapely.LineString()
+    return PartOfMap(region, edge, grown, float(task.scale or 1.0))
 
 
 def _owned_by(grid: Grid, core: np.ndarray | None, first: bool) -> Any:

@@ -220,11 +220,15 @@ class PartOfMap:
     """What an analysis of one spatial partition of the map needs to know of it (:mod:`archivist.parallel`).
 
     ``region``: the partition's marked cells as one polygon (every unit of
-    the map over it is in the partition); ``core``: the cells it owns, grown
-    by the rules' reach; ``scale``: the whole map's :func:`map_scale`.
+    the map over it is in the partition); ``edge``: the region's boundary
+    less what lies on the outer edge of the partitions' grid (beyond which
+    the map holds nothing): where a gap may go on beyond what the partition
+    sees; ``core``: the cells it owns, grown by the rules' reach; ``scale``:
+    the whole map's :func:`map_scale`.
     """
 
     region: Any
+    edge: Any
     core: Any
     scale: float
 
@@ -675,7 +679,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             faces = points = np.empty(0, dtype=object)
         if traced is not extent and len(faces):
             # a face reaching the region's edge may be part of a gap going on beyond it
-            cut = shapely.intersects(faces, shapely.boundary(within.region))  # type: ignore[union-attr]
+            cut = shapely.intersects(faces, within.edge)  # type: ignore[union-attr]
             unvouched = bool(cut.any() and shapely.intersects(faces[cut], within.core).any())  # type: ignore[union-attr]
         margin = 1e3 * floor  # how far around a gap its polygons are looked for; shorter stretches are points
         gaps, _, lost_windows = local_gaps(faces, points, extent, geoms, tree, margin)
