@@ -20,7 +20,8 @@ process.
 
 Which rules are partitioned, and why
 ------------------------------------
-Partitioned: ``unit-sliver`` (each polygon alone), ``line-self-intersection``
+Partitioned: ``unit-sliver`` (each polygon alone), ``unit-code-missing``
+(each polygon's unit field), ``line-self-intersection``
 and ``line-kind-unknown`` (each line alone: its geometry, its kind and
 certainty against the vocabulary), ``line-duplicate`` and
 ``line-same-unit-contact`` (a line, the lines within the tolerance of it and
@@ -50,6 +51,25 @@ edge is the outline of the units, which a partition's units do not give
 rule then runs on the whole map, decided before the partitions are sent
 (``Settle.partitions_can``).
 
+The coverage rules ``unit-gap``, ``unit-overlap``, ``unit-edge-mismatch``,
+``unit-same-neighbour`` and ``unit-outside-extent`` are partitioned on a map
+with an extent layer (``partitioned=extent_is_declared``, a predicate the
+engine asks of the project as the partitions get it:
+:meth:`archivist.registry.RuleInfo.partitions`). Each overlap is an exact
+intersection of two polygons, each unit's area outside the extent is cut
+from that polygon alone, and each gap is measured from the polygons within a
+small margin of it (:mod:`archivist.analysis.coverage`). A partition keeps
+the whole extent layer; it traces the gaps within the extent and its region
+(its marked cells: every unit of the map over them is in the partition) and
+measures them against the whole extent, with the whole map's noise floor
+(``PartitionTask.scale``, :func:`archivist.analysis.coverage.map_scale`).
+A gap whose traced face reaches the region's edge inside the grid may go on
+beyond it: far from the core its finding reaches off the marked cells and is
+not trusted (its owner reports it); when such a face reaches the core (grown
+by the reach), the partition cannot vouch for the coverage and every rule
+that reads it there fails (:class:`archivist.analysis.coverage.CannotVouch`),
+so the merge runs those rules on the whole map.
+
 Whole map, and why:
 
 - the metadata, crs, legend, structures and samples families: they judge
@@ -58,30 +78,17 @@ Whole map, and why:
   the features of a layer that fit only swapped; ``sample-unit-mismatch``
   names the nearest polygon of the recorded unit anywhere on the map.
 - ``boundary-without-line`` on a map without an extent layer (see above).
-- ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
-  ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
-  (:mod:`archivist.analysis.coverage`). With an extent layer each gap is
-  now measured from the polygons within a small margin of it and rounding
-  below a stated noise floor is not reported, so a gap's result no longer
-  depends on the rest of the map; but where the gaps are is still found by
-  noding the edges drawn once over the whole map, and a map without an
-  extent layer joins its units (its extent is their outline). Registering
-  these rules as partitioned needs that step cut per partition and tests of
-  identity at every density. ``unit-overlap`` alone would be local (exact
-  pairwise intersections), but it needs the whole analysis. Since a family
-  goes to the partitions only when all its running rules can, the topology
-  family of a whole check does not go to them today; the linework family
-  does (with ``boundary-without-line`` on the whole map when there is no
-  extent layer).
-- ``unit-code-missing``: an attribute check of each feature, faster than
-  sending the layer to a worker.
+- the coverage rules on a map without an extent layer: its extent is the
+  outline of the units, joined over the whole map, which a partition's units
+  do not give. The topology family then runs on the whole map (a family goes
+  to the partitions only when all its running rules can).
 
 How the map is cut
 ------------------
 A grid of square cells, at least half the halo width ``h`` wide
 (:func:`halo_width`), spans the partitioned layers (every layer of the
-project but the extent, which every partition gets whole, cut to its cells;
-tables go whole). The cells are put in the order of the Hilbert distance of
+project but the extent, which every partition gets whole; tables go
+whole). The cells are put in the order of the Hilbert distance of
 their centres over those bounds (:meth:`geopandas.GeoSeries.hilbert_distance`)
 and the order is cut into ``parts`` contiguous runs holding about the same
 number of features (counted by the centre of their bounds). A partition's
@@ -161,10 +168,9 @@ partition builds the analyses they share once.
 A settle step's tally must count each value from what the partition owning
 its point sees exactly as the whole map does (an edge at its first vertex:
 the polygons drawing it touch that cell); the map edge near a core is the
-extent layer's there, but which edges lie along it is tested within the
-tolerance plus 1e-9 of the extent's largest coordinate, which is the cut
-extent's in a partition: an edge at exactly that distance from the frame
-could be counted differently.
+extent layer's there, and which edges lie along it is tested within the
+tolerance plus 1e-9 of the extent's largest coordinate, the whole extent's
+in a partition too.
 """
 
 from __future__ import annotations
