@@ -15,10 +15,12 @@ identical (findings: rule, severity, layer, features, message, place,
 measure, geometry, in order; notes; rules run), the rules the merge sent to
 the whole map, and per partition the rules it could not judge (GEOS stopped,
 or a gap near its core runs past its region) and how many of the findings it
-owns it could not trust. Times are given for orientation only, with the
-machine's load: the partitions here run on threads of this process, which is
-not how ``check --jobs N`` runs them (tests/benchmarks/bench_jobs.py times
-that). Exits 1 when a report differs.
+owns it could not trust. The CPU time of the one-process check and of each
+partition (``time.thread_time`` of the thread running it: its own work,
+whatever else the machine runs) says how evenly the work splits; wall times
+are given for orientation only, with the machine's load: the partitions here
+run on threads of this process, which is not how ``check --jobs N`` runs them
+(tests/benchmarks/bench_jobs.py times that). Exits 1 when a report differs.
 """
 
 from __future__ import annotations
@@ -47,15 +49,24 @@ def compare(project, rules: list[str], parts_list: list[int]) -> bool:
 
     from archivist import engine, parallel
 
-    t = time.perf_counter()
+    t, c = time.perf_counter(), time.thread_time()
     reference = engine.check(project, rules=rules)
     ref = [f.to_dict() for f in reference.findings]
-    print(f"  one process: {len(ref)} findings, {time.perf_counter() - t:.1f} s ({load()})", flush=True)
+    print(f"  one process: {len(ref)} findings, {time.perf_counter() - t:.1f} s, CPU {time.thread_time() - c:.2f} s "
+          f"({load()})", flush=True)
     ok = True
     for parts in parts_list:
         results: list = []
         answers: list = []
-        merge, merged = parallel.merge, parallel.Sent.merged
+        cpu: dict[int, float] = {}
+        merge, merged, run = parallel.merge, parallel.Sent.merged, parallel.run_partition
+
+        def timed(task):  # type: ignore[no-untyped-def]
+            c = time.thread_time()  # this thread's CPU time: the partition's own work, whatever else runs
+            try:
+                return run(task)
+            finally:
+                cpu[task.index] = time.thread_time() - c
 
         def keep_results(plan, ids, res):  # type: ignore[no-untyped-def]
             results.append((plan, list(res)))
@@ -65,21 +76,22 @@ def compare(project, rules: list[str], parts_list: list[int]) -> bool:
             answers.append(merged(self, *args, **kwargs))
             return answers[-1]
 
-        parallel.merge, parallel.Sent.merged = keep_results, keep_answer
+        parallel.merge, parallel.Sent.merged, parallel.run_partition = keep_results, keep_answer, timed
         try:
             t = time.perf_counter()
             with ThreadPoolExecutor(2) as pool:
                 report = engine.check(project, rules=rules, executor=pool, parts=parts)
             took = time.perf_counter() - t
         finally:
-            parallel.merge, parallel.Sent.merged = merge, merged
+            parallel.merge, parallel.Sent.merged, parallel.run_partition = merge, merged, run
         same = [f.to_dict() for f in report.findings] == ref and report.notes == reference.notes \
             and report.rules_run == reference.rules_run
         ok &= same
         whole = sorted({r for a in answers for r in a.whole})
         sent = sorted({r for a in answers for r in (*a.hits, *a.whole)})
         print(f"  {parts} partitions: {'identical' if same else 'REPORTS DIFFER'}, {took:.1f} s ({load()}); "
-              f"{len(sent)} rules sent, to the whole map: {', '.join(whole) or 'none'}", flush=True)
+              f"{len(sent)} rules sent, to the whole map: {', '.join(whole) or 'none'}; CPU of the partitions "
+              f"{sum(cpu.values()):.2f} s, the largest {max(cpu.values(), default=0.0):.2f} s", flush=True)
         for plan, res in results:
             for r in sorted(res, key=lambda r: r.index):
                 if not r.hits:
@@ -88,7 +100,8 @@ def compare(project, rules: list[str], parts_list: list[int]) -> bool:
                     xy = np.array([(h[2], h[3]) for h in r.hits], dtype=float)
                     owner = plan.owners(xy[:, 0], xy[:, 1])
                     untrusted = sum(1 for h, o in zip(r.hits, owner.tolist()) if o == r.index and not h[4])
-                print(f"    partition {r.index}: {len(r.hits)} hits, {untrusted} owned and not trusted; "
+                print(f"    partition {r.index}: {len(r.hits)} hits, CPU {cpu.get(r.index, float('nan')):.2f} s, "
+                      f"{untrusted} owned and not trusted; "
                       f"could not judge: {', '.join(r.failed) or 'none'}", flush=True)
         if not same:
             import collections
