@@ -66,9 +66,10 @@ measures them against the whole extent, with the whole map's noise floor
 A gap whose traced face reaches the region's edge inside the grid may go on
 beyond it: far from the core its finding reaches off the marked cells and is
 not trusted (its owner reports it); when such a face reaches the core (grown
-by the reach), the partition cannot vouch for the coverage and every rule
-that reads it there fails (:class:`archivist.analysis.coverage.CannotVouch`),
-so the merge runs those rules on the whole map.
+by the reach), the partition cannot vouch for the gaps and every rule that
+reads them there fails (:class:`archivist.analysis.coverage.CannotVouch`),
+so the merge runs those rules on the whole map; the overlaps and the unit
+area outside the extent do not depend on the gaps.
 
 Whole map, and why:
 

@@ -122,14 +122,18 @@ def test_a_gap_cut_by_a_partition_edge_near_its_core_sends_the_rules_to_the_whol
         task = parallel.PartitionTask(part.index, sub, (), plan.grid, part.marked, plan.reach, (), part.core, map_scale(view))
         sub_ctx = CheckContext(sub)
         sub_ctx._cache[PART_KEY] = parallel.part_of_map(task)
+        cov = sub_ctx.coverage()
+        assert cov.unvouched and cov.overlaps == () and cov.outside == ()
         with pytest.raises(CannotVouch):
-            sub_ctx.coverage()
+            cov.gaps  # noqa: B018
     # so the rules reading the gaps run on the whole map, and the report is the one process's
     merged = _recording(monkeypatch)
     with ThreadPoolExecutor(2) as pool:
         same_report(reference, engine.check(project, rules=RULES, executor=pool, parts=2))
     (answer,) = merged
     assert {"unit-gap", "unit-edge-mismatch", "unit-same-neighbour"} <= set(answer.whole)
+    # the overlaps and the unit area outside the extent do not depend on the gaps: they stay on the partitions
+    assert {"unit-overlap", "unit-outside-extent", "unit-sliver"} <= set(answer.hits)
 
 
 def test_the_partitions_are_given_the_whole_maps_scale(density_maps):

@@ -97,7 +97,9 @@ class Coverage:
     off it (no extent layer), else None: gaps and outside parts are found
     without joining the map (see :func:`gap_faces`), and :meth:`covers`
     answers what the union was asked. ``unvouched``: in a spatial partition
-    of the map, a gap near the partition's core may run on past its region.
+    of the map, a gap near the partition's core may run on past its region;
+    reading ``gaps`` then raises :class:`CannotVouch` (the overlaps, the
+    unit area outside the extent and the outline do not depend on the gaps).
     """
 
     tol: float
@@ -107,12 +109,19 @@ class Coverage:
     union: Any
     implicated: np.ndarray
     overlaps: tuple[Piece, ...]
-    gaps: tuple[Piece, ...]
+    gap_pieces: tuple[Piece, ...]  # read through ``gaps``
     outside: tuple[Piece, ...]
     collinear: tuple[tuple[tuple[int, int], Any, float], ...]
     outline: np.ndarray
     failures: tuple[Failure, ...] = ()
     unvouched: bool = False  # a partition's gap near its core runs past its region (see analyse_coverage)
+
+    @property
+    def gaps(self) -> tuple[Piece, ...]:
+        """Every gap found; :class:`CannotVouch` in a spatial partition that cannot vouch for them (``unvouched``)."""
+        if self.unvouched:
+            raise CannotVouch("a gap near this partition's core runs past its region")
+        return self.gap_pieces
 
     @property
     def extent_boundary(self) -> Any:
@@ -234,11 +243,11 @@ class PartOfMap:
 
 
 class CannotVouch(Exception):
-    """A partition cannot give the whole map's coverage near its core: a gap there runs past its region.
+    """A partition cannot give the whole map's gaps near its core: a gap there runs past its region.
 
-    Raised by :meth:`archivist.analysis.context.CheckContext.coverage` in a
-    partition; the partition reports the rule that asked as failed, and the
-    merge runs that rule on the whole map (:func:`archivist.parallel.merge`).
+    Raised by :attr:`Coverage.gaps` in a partition; the partition reports
+    the rule that read them as failed, and the merge runs that rule on the
+    whole map (:func:`archivist.parallel.merge`).
     """
 
 
@@ -550,7 +559,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     vast false gap) and measured against the whole extent. A gap whose face
     reaches the region's edge (the gap may go on beyond it) is measured as
     far as the partition sees; when it also reaches the core, the coverage
-    says the partition cannot vouch for it (``unvouched``).
+    says the partition cannot vouch for its gaps (``unvouched``).
     """
     geoms = units.geoms
     tree = units.tree
@@ -758,7 +767,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         union=union,
         implicated=implicated,
         overlaps=tuple(pieces),
-        gaps=tuple(gap_pieces),
+        gap_pieces=tuple(gap_pieces),
         outside=tuple(outside),
         collinear=tuple(collinear),
         outline=outline,
