@@ -596,7 +596,7 @@ class PartitionTask:
     reach: float
     left_out: tuple[str, ...] = ()
     core: np.ndarray | None = None  # the cells it owns: the values of the rules' tallies it counts (None: none)
-    scale: float | None = None  # the whole map's coverage.map_scale (None: the partition's own, as for a whole map)
+    scale: float | None = None  # the whole map's coverage.map_scale (None: the partition's own)
 
 
 @dataclass(frozen=True)
@@ -695,8 +695,7 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     # the layers are already as the checks across layers see them (the caller's aligned view)
     ctx._cache["analysis.alignment"] = Alignment(layers=dict(project.layers), left_out=task.left_out)
     ctx._cache["analysis.view"] = project
-    if task.scale is not None:
-        ctx._cache[PART_KEY] = part_of_map(task)
+    ctx._cache[PART_KEY] = part_of_map(task)  # the coverage of a partition traces its gaps within its region
     found: list[tuple[str, Hit]] = []
     failed: list[str] = []
     tallies: list[tuple[str, str, ExactSum]] = []
@@ -724,7 +723,7 @@ def part_of_map(task: PartitionTask) -> Any:
     rules' reach, the whole map's scale."""
     import shapely
 
-    from .analysis.coverage import PartOfMap
+    from .analysis.coverage import PartOfMap, map_scale
 
     grid = task.grid
     core = task.core if task.core is not None else np.zeros_like(task.marked)
@@ -734,7 +733,8 @@ def part_of_map(task: PartitionTask) -> Any:
     # the region's edge inside the grid: on the grid's outer edge the map holds nothing beyond (see trusted())
     frame = shapely.boundary(shapely.box(grid.x0, grid.y0, grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell))
     edge = shapely.difference(shapely.boundary(region), frame) if region is not None else shapely.LineString()
-    return PartOfMap(region, edge, grown, float(task.scale or 1.0))
+    scale = task.scale if task.scale is not None else map_scale(task.project)  # the whole map's when given
+    return PartOfMap(region, edge, grown, float(scale))
 
 
 def _owned_by(grid: Grid, core: np.ndarray | None, first: bool) -> Any:
