@@ -307,10 +307,18 @@ def _batches(groups: list[tuple[str, list[RuleInfo]]], skipped: Callable[[RuleIn
     out: dict[bool, list[RuleInfo]] = {}
     for _, group in groups:
         runnable = [info for info in group if not skipped(info)]
-        if runnable and all(info.partitioned for info in runnable):
+        # whether a rule may be partitioned may depend on the map (the coverage rules need an extent layer):
+        # asked of the project as the partitions get it (the aligned view)
+        if runnable and all(info.partitions(_view_of(contexts(info)[2])) for info in runnable):
             for info in runnable:
                 out.setdefault(contexts(info)[0], []).append(info)
     return out
+
+
+def _view_of(run_ctx: CheckContext) -> MapProject:
+    """The project as the partitions get it; its notes come with the rules that read it, in their turn."""
+    with run_ctx.recording([]):
+        return run_ctx.view()
 
 
 def _infos(groups: list[tuple[str, list[RuleInfo]]], ran: list[str]) -> list[RuleInfo]:

@@ -20,7 +20,8 @@ process.
 
 Which rules are partitioned, and why
 ------------------------------------
-Partitioned: ``unit-sliver`` (each polygon alone), ``line-self-intersection``
+Partitioned: ``unit-sliver`` (each polygon alone), ``unit-code-missing``
+(each polygon's unit field), ``line-self-intersection``
 and ``line-kind-unknown`` (each line alone: its geometry, its kind and
 certainty against the vocabulary), ``line-duplicate`` and
 ``line-same-unit-contact`` (a line, the lines within the tolerance of it and
@@ -50,6 +51,26 @@ edge is the outline of the units, which a partition's units do not give
 rule then runs on the whole map, decided before the partitions are sent
 (``Settle.partitions_can``).
 
+The coverage rules ``unit-gap``, ``unit-overlap``, ``unit-edge-mismatch``,
+``unit-same-neighbour`` and ``unit-outside-extent`` are partitioned on a map
+with an extent layer (``partitioned=extent_is_declared``, a predicate the
+engine asks of the project as the partitions get it:
+:meth:`archivist.registry.RuleInfo.partitions`). Each overlap is an exact
+intersection of two polygons, each unit's area outside the extent is cut
+from that polygon alone, and each gap is measured from the polygons within a
+small margin of it (:mod:`archivist.analysis.coverage`). A partition keeps
+the whole extent layer; it traces the gaps within the extent and its region
+(its marked cells: every unit of the map over them is in the partition) and
+measures them against the whole extent, with the whole map's noise floor
+(``PartitionTask.scale``, :func:`archivist.analysis.coverage.map_scale`).
+A gap whose traced face reaches the region's edge inside the grid may go on
+beyond it: far from the core its finding reaches off the marked cells and is
+not trusted (its owner reports it); when such a face reaches the core (grown
+by the reach), the partition cannot vouch for the gaps and every rule that
+reads them there fails (:class:`archivist.analysis.coverage.CannotVouch`),
+so the merge runs those rules on the whole map; the overlaps and the unit
+area outside the extent do not depend on the gaps.
+
 Whole map, and why:
 
 - the metadata, crs, legend, structures and samples families: they judge
@@ -58,30 +79,17 @@ Whole map, and why:
   the features of a layer that fit only swapped; ``sample-unit-mismatch``
   names the nearest polygon of the recorded unit anywhere on the map.
 - ``boundary-without-line`` on a map without an extent layer (see above).
-- ``unit-gap``, ``unit-outside-extent``, ``unit-edge-mismatch``,
-  ``unit-same-neighbour``, ``unit-overlap``: they read the coverage analysis
-  (:mod:`archivist.analysis.coverage`). With an extent layer each gap is
-  now measured from the polygons within a small margin of it and rounding
-  below a stated noise floor is not reported, so a gap's result no longer
-  depends on the rest of the map; but where the gaps are is still found by
-  noding the edges drawn once over the whole map, and a map without an
-  extent layer joins its units (its extent is their outline). Registering
-  these rules as partitioned needs that step cut per partition and tests of
-  identity at every density. ``unit-overlap`` alone would be local (exact
-  pairwise intersections), but it needs the whole analysis. Since a family
-  goes to the partitions only when all its running rules can, the topology
-  family of a whole check does not go to them today; the linework family
-  does (with ``boundary-without-line`` on the whole map when there is no
-  extent layer).
-- ``unit-code-missing``: an attribute check of each feature, faster than
-  sending the layer to a worker.
+- the coverage rules on a map without an extent layer: its extent is the
+  outline of the units, joined over the whole map, which a partition's units
+  do not give. The topology family then runs on the whole map (a family goes
+  to the partitions only when all its running rules can).
 
 How the map is cut
 ------------------
 A grid of square cells, at least half the halo width ``h`` wide
 (:func:`halo_width`), spans the partitioned layers (every layer of the
-project but the extent, which every partition gets whole, cut to its cells;
-tables go whole). The cells are put in the order of the Hilbert distance of
+project but the extent, which every partition gets whole; tables go
+whole). The cells are put in the order of the Hilbert distance of
 their centres over those bounds (:meth:`geopandas.GeoSeries.hilbert_distance`)
 and the order is cut into ``parts`` contiguous runs holding about the same
 number of features (counted by the centre of their bounds). A partition's
@@ -161,10 +169,9 @@ partition builds the analyses they share once.
 A settle step's tally must count each value from what the partition owning
 its point sees exactly as the whole map does (an edge at its first vertex:
 the polygons drawing it touch that cell); the map edge near a core is the
-extent layer's there, but which edges lie along it is tested within the
-tolerance plus 1e-9 of the extent's largest coordinate, which is the cut
-extent's in a partition: an edge at exactly that distance from the frame
-could be counted differently.
+extent layer's there, and which edges lie along it is tested within the
+tolerance plus 1e-9 of the extent's largest coordinate, the whole extent's
+in a partition too.
 """
 
 from __future__ import annotations
@@ -279,8 +286,9 @@ def fork_parts(project: MapProject, rules: Sequence[RuleInfo], jobs: int) -> int
     if jobs <= 1 or "fork" not in multiprocessing.get_all_start_methods():
         return None
     runnable = [r for r in rules if all(role in project.layers for role in r.needs)]
-    families = {r.family for r in runnable if r.partitioned}
-    if not families or any(r.family in families and not r.partitioned for r in runnable):
+    can = {r.id: r.partitions(project) for r in runnable}
+    families = {r.family for r in runnable if can[r.id]}
+    if not families or any(r.family in families and not can[r.id] for r in runnable):
         return None
     features = sum(len(layer.frame) for role, layer in project.layers.items() if role not in WHOLE_LAYERS)
     return jobs if features >= FORK_FEATURES else None
@@ -568,27 +576,9 @@ def sub_project(project: MapProject, partition: Partition) -> MapProject:
     """The project of one partition: its core and halo rows of each partitioned layer; other layers and tables whole."""
     layers = {role: (_sub_layer(layer, partition.rows[role]) if role in partition.rows else layer)
               for role, layer in project.layers.items()}
-    if "extent" in layers and partition.region is not None:
-        layers["extent"] = _clipped(layers["extent"], partition.region)
+    # the extent stays whole: a partition's gaps are traced within its region, measured against the whole extent
+    # (archivist.analysis.coverage.analyse_coverage)
     return replace(project, layers=layers, problems=[], notes=[])
-
-
-def _clipped(layer: Any, region: Any) -> Any:
-    """The extent layer cut to a partition's region, so that the partition's gaps are the map's gaps there.
-
-    Over the region every unit of the map is in the partition, so the extent
-    minus the units is, over the region, exactly the map's gaps; outside it,
-    the units not in the partition would leave one vast false gap.
-    """
-    import shapely
-
-    geoms = layer.geometry
-    keep = _present(geoms)
-    cut = geoms.copy()
-    cut[keep] = shapely.intersection(geoms[keep], region)
-    frame = layer.frame.copy()
-    frame[frame.geometry.name] = cut
-    return replace(layer, frame=frame)
 
 
 # ---------------------------------------------------------------- the work of one partition
@@ -606,6 +596,7 @@ class PartitionTask:
     reach: float
     left_out: tuple[str, ...] = ()
     core: np.ndarray | None = None  # the cells it owns: the values of the rules' tallies it counts (None: none)
+    scale: float | None = None  # the whole map's coverage.map_scale (None: the partition's own)
 
 
 @dataclass(frozen=True)
@@ -677,6 +668,7 @@ class InheritedTask:
     grid: Grid
     reach: float
     left_out: tuple[str, ...] = ()
+    scale: float | None = None
 
 
 def run_inherited(task: InheritedTask) -> PartitionResult:
@@ -686,7 +678,7 @@ def run_inherited(task: InheritedTask) -> PartitionResult:
         raise RuntimeError(f"this worker process was not forked with the project {task.source}")
     part = task.part
     return run_partition(PartitionTask(part.index, sub_project(project, part), task.rules, task.grid, part.marked,
-                                       task.reach, task.left_out, part.core))
+                                       task.reach, task.left_out, part.core, task.scale))
 
 
 def run_partition(task: PartitionTask) -> PartitionResult:
@@ -694,7 +686,8 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     from shapely.errors import GEOSException
 
     from .analysis.alignment import Alignment
-    from .analysis.context import CheckContext
+    from .analysis.context import PART_KEY, CheckContext
+    from .analysis.coverage import CannotVouch
     from .registry import get_rule
 
     project = task.project
@@ -702,6 +695,7 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     # the layers are already as the checks across layers see them (the caller's aligned view)
     ctx._cache["analysis.alignment"] = Alignment(layers=dict(project.layers), left_out=task.left_out)
     ctx._cache["analysis.view"] = project
+    ctx._cache[PART_KEY] = part_of_map(task)  # the coverage of a partition traces its gaps within its region
     found: list[tuple[str, Hit]] = []
     failed: list[str] = []
     tallies: list[tuple[str, str, ExactSum]] = []
@@ -712,7 +706,7 @@ def run_partition(task: PartitionTask) -> PartitionResult:
             if info.settle is not None:
                 owned = _owned_by(task.grid, task.core, task.index == 0)
                 tallies += [(rid, name, t.total(owned)) for name, t in info.settle.tally(project, ctx).items()]
-        except GEOSException:
+        except (GEOSException, CannotVouch):  # GEOS stopped, or a gap near the core runs past the region
             failed.append(rid)
             found = [(r, h) for r, h in found if r != rid]
             tallies = [t for t in tallies if t[0] != rid]
@@ -722,6 +716,25 @@ def run_partition(task: PartitionTask) -> PartitionResult:
     hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
                  for (rid, hit), (x, y, _), t in zip(found, places, trust))
     return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes), tuple(tallies))
+
+
+def part_of_map(task: PartitionTask) -> Any:
+    """The :class:`~archivist.analysis.coverage.PartOfMap` of a partition: its marked cells, its core grown by the
+    rules' reach, the whole map's scale."""
+    import shapely
+
+    from .analysis.coverage import PartOfMap, map_scale
+
+    grid = task.grid
+    core = task.core if task.core is not None else np.zeros_like(task.marked)
+    owned = _cells_polygon(grid, core)
+    grown = shapely.buffer(owned, task.reach, join_style="mitre") if owned is not None else shapely.Polygon()
+    region = _cells_polygon(grid, task.marked)
+    # the region's edge inside the grid: on the grid's outer edge the map holds nothing beyond (see trusted())
+    frame = shapely.boundary(shapely.box(grid.x0, grid.y0, grid.x0 + grid.nx * grid.cell, grid.y0 + grid.ny * grid.cell))
+    edge = shapely.difference(shapely.boundary(region), frame) if region is not None else shapely.LineString()
+    scale = task.scale if task.scale is not None else map_scale(task.project)  # the whole map's when given
+    return PartOfMap(region, edge, grown, float(scale))
 
 
 def _owned_by(grid: Grid, core: np.ndarray | None, first: bool) -> Any:
@@ -831,6 +844,8 @@ class Sent:
 
     def __init__(self, project: MapProject, rules: Sequence[RuleInfo], executor: Executor, parts: int,
                  left_out: tuple[str, ...] = (), plan: Plan | None = None) -> None:
+        from .analysis.coverage import map_scale
+
         self.project, self.executor, self.left_out = project, executor, left_out
         # a settled rule the partitions cannot judge on this map goes whole before anything is sent
         self.ahead = {info.id for info in rules if info.settle is not None and info.settle.partitions_can is not None
@@ -839,6 +854,8 @@ class Sent:
         self.rules = [info for info in rules if info.id not in self.ahead]
         self.ids = tuple(info.id for info in self.rules)
         self.plan = (plan or plan_partitions(project, parts)) if self.ids else None
+        # the whole map's scale: a partition's noise floor is the whole map's (archivist.analysis.coverage.map_scale)
+        self.scale = map_scale(project) if self.ids and "units" in project.layers else None
         self.key = executor.share(project) if self.ids and isinstance(executor, ForkPool) else None
         self.window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
         self.queue = list(self.plan.partitions) if self.plan is not None else []
@@ -853,9 +870,11 @@ class Sent:
         plan = self.plan
         assert plan is not None
         if self.key is not None:
-            return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach, self.left_out))
+            return self.executor.submit(run_inherited, InheritedTask(self.key, part, self.ids, plan.grid, plan.reach,
+                                                                     self.left_out, self.scale))
         return self.executor.submit(run_partition, PartitionTask(part.index, sub_project(self.project, part), self.ids,
-                                                                 plan.grid, part.marked, plan.reach, self.left_out, part.core))
+                                                                 plan.grid, part.marked, plan.reach, self.left_out, part.core,
+                                                                 self.scale))
 
     def _fill(self) -> None:
         while self.queue and len(self.running) < self.window:

@@ -113,8 +113,15 @@ class RuleInfo:
     needs: tuple[str, ...]
     title: str
     sections: tuple[tuple[str, str], ...]
-    partitioned: bool = False  # may run on spatial partitions of the map (archivist.parallel)
+    # may run on spatial partitions of the map (archivist.parallel): always, never, or on the maps a predicate accepts
+    partitioned: bool | Callable[[MapProject], bool] = False
     settle: Settle | None = None  # finishes the hits from whole-map totals (see Settle)
+
+    def partitions(self, project: MapProject) -> bool:
+        """Whether this rule may run on spatial partitions of ``project`` (``partitioned``, or its answer for it)."""
+        if callable(self.partitioned):
+            return bool(self.partitioned(project))
+        return bool(self.partitioned)
 
     @property
     def doc(self) -> dict[str, str]:
@@ -151,7 +158,8 @@ def parse_doc(doc: str | None) -> tuple[str, tuple[tuple[str, str], ...]]:
     return title, out
 
 
-def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), partitioned: bool = False,
+def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (),
+         partitioned: bool | Callable[[MapProject], bool] = False,
          settle: Settle | None = None) -> Callable[[R], R]:
     """Register a rule function under `id`.
 
@@ -172,7 +180,9 @@ def rule(id: str, *, family: str, severity: str, needs: tuple[str, ...] = (), pa
         geometry), never from the whole map (no count over a layer, no
         summary; or only through its ``settle`` step): ``check --jobs N`` may
         run it on spatial partitions of the map and merge their findings
-        (:mod:`archivist.parallel`).
+        (:mod:`archivist.parallel`). A predicate ``(project) -> bool``
+        instead: the rule is partitioned on the maps it accepts only (the
+        coverage rules need an extent layer; :meth:`RuleInfo.partitions`).
     settle
         What turns the rule's hits into its findings from whole-map totals
         (:class:`Settle`): a rule whose hits are local but whose summary or

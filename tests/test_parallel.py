@@ -46,11 +46,27 @@ def same_report(a: archivist.Report, b: archivist.Report) -> None:
 
 def test_partitioned_rules_are_the_local_topology_and_linework_rules():
     # the rules deciding each finding from its surroundings; every other rule needs the whole map (see the registry)
-    assert {r.id for r in all_rules() if r.partitioned} == {
-        "unit-sliver",
+    assert {r.id for r in all_rules() if r.partitioned is True} == {
+        "unit-sliver", "unit-code-missing",
         "line-off-boundary", "line-dangle", "line-same-unit-contact", "line-self-intersection", "line-duplicate",
         "line-kind-unknown", "boundary-without-line",
     }
+    # the coverage rules: only on a map with an extent layer (else the extent is the units' outline, a whole-map thing)
+    from archivist.analysis.coverage import extent_is_declared
+
+    assert {r.id for r in all_rules() if r.partitioned is extent_is_declared} == {
+        "unit-overlap", "unit-gap", "unit-edge-mismatch", "unit-same-neighbour", "unit-outside-extent",
+    }
+    assert {r.id for r in all_rules() if r.partitioned} == {r.id for r in all_rules() if r.partitioned is not False}
+
+
+def test_whether_a_coverage_rule_is_partitioned_depends_on_the_extent_layer(tmp_path):
+    from coverage_builders import square_map
+
+    gap = get_rule("unit-gap")
+    assert not gap.partitions(load_project(square_map(tmp_path, "no-extent")))
+    assert gap.partitions(load_project(square_map(tmp_path, "extent", extent=shapely.box(0, 0, 10, 10))))
+    assert get_rule("unit-code-missing").partitions(load_project(square_map(tmp_path, "plain")))
 
 
 # ---------------------------------------------------------------- the partitions
@@ -761,16 +777,23 @@ def test_jobs_fork_partitions_only_when_every_partitioned_family_goes_whole(tmp_
 
     if "fork" not in multiprocessing.get_all_start_methods():
         pytest.skip("this system cannot fork")
+    from dataclasses import replace
+
     make(tmp_path / "map", 300, seed=1)
-    project = load_project(tmp_path / "map")
+    framed = load_project(tmp_path / "map")
+    assert "extent" in framed.layers
+    # without its extent layer the coverage rules stay on the whole map: the topology family is split
+    project = replace(framed, layers={role: layer for role, layer in framed.layers.items() if role != "extent"})
     monkeypatch.setattr(parallel, "FORK_FEATURES", 0)
     families = {info.family for info in all_rules()}
-    split = [f for f in sorted(families) if {i.partitioned for i in all_rules() if i.family == f} == {True, False}]
-    whole = [f for f in sorted(families) if {i.partitioned for i in all_rules() if i.family == f} == {True}]
-    assert split and whole
+    split = [f for f in sorted(families) if {i.partitions(project) for i in all_rules() if i.family == f} == {True, False}]
+    whole = [f for f in sorted(families) if {i.partitions(project) for i in all_rules() if i.family == f} == {True}]
+    assert "topology" in split and whole
+    # with the extent layer the topology family goes to the partitions whole
+    assert parallel.fork_parts(framed, select(["topology"], []), 2) == 2
     # every rule of a family partitioned: the family goes to the partitions, the workers are forked
     assert parallel.fork_parts(project, select([whole[0]], []), 2) == 2
-    one = [i for i in all_rules() if i.partitioned and i.family == split[0]][:1]
+    one = [i for i in all_rules() if i.partitions(project) and i.family == split[0]][:1]
     assert parallel.fork_parts(project, one, 2) == 2
     # a family with a rule that stays on the whole map: that family runs here, so threads, not forked partitions
     assert parallel.fork_parts(project, select([split[0]], []), 2) is None

@@ -21,6 +21,8 @@ if TYPE_CHECKING:
     from ..project import CheckConfig, Layer, MapProject
 
 T = TypeVar("T")
+PART_KEY = "analysis.part"
+"""The cache key under which a spatial partition's context holds its :class:`~.coverage.PartOfMap`."""
 
 # What one rule (or one analysis) said, in the order it said it: a note (text), or an analysis it read (the log
 # of that analysis's computation). Flattened over the rules in their order, these logs give the notes in the
@@ -199,7 +201,7 @@ class CheckContext:
         """Gaps, overlaps, misfits and the map extent of :meth:`units`; notes what the extent is."""
 
         def compute() -> Coverage:
-            cov = analyse_coverage(self.view(), self.units(), self.edges(), self.tolerance)
+            cov = analyse_coverage(self.view(), self.units(), self.edges(), self.tolerance, self._cache.get(PART_KEY))
             self.note(cov.extent_note)
             return cov
 

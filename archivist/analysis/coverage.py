@@ -96,7 +96,10 @@ class Coverage:
     ``union`` is the union of the units when the map extent had to be read
     off it (no extent layer), else None: gaps and outside parts are found
     without joining the map (see :func:`gap_faces`), and :meth:`covers`
-    answers what the union was asked.
+    answers what the union was asked. ``unvouched``: in a spatial partition
+    of the map, a gap near the partition's core may run on past its region;
+    reading ``gaps`` then raises :class:`CannotVouch` (the overlaps, the
+    unit area outside the extent and the outline do not depend on the gaps).
     """
 
     tol: float
@@ -106,11 +109,19 @@ class Coverage:
     union: Any
     implicated: np.ndarray
     overlaps: tuple[Piece, ...]
-    gaps: tuple[Piece, ...]
+    gap_pieces: tuple[Piece, ...]  # read through ``gaps``
     outside: tuple[Piece, ...]
     collinear: tuple[tuple[tuple[int, int], Any, float], ...]
     outline: np.ndarray
     failures: tuple[Failure, ...] = ()
+    unvouched: bool = False  # a partition's gap near its core runs past its region (see analyse_coverage)
+
+    @property
+    def gaps(self) -> tuple[Piece, ...]:
+        """Every gap found; :class:`CannotVouch` in a spatial partition that cannot vouch for them (``unvouched``)."""
+        if self.unvouched:
+            raise CannotVouch("a gap near this partition's core runs past its region")
+        return self.gap_pieces
 
     @property
     def extent_boundary(self) -> Any:
@@ -175,6 +186,69 @@ def extent_of(project: MapProject, union: Any, tol: float = 0.0) -> tuple[Any, b
         if shapely.area(shapely.difference(closed, enclosed)) > 0:  # else keep the outline as drawn
             enclosed = shapely.union(enclosed, closed)
     return enclosed, False
+
+
+def extent_is_declared(project: MapProject) -> bool:
+    """Whether the map extent is an extent layer's polygons (else the outline of the units, a whole-map thing).
+
+    The coverage rules run on spatial partitions of such a map only
+    (:mod:`archivist.parallel`): a partition's units do not give the outline
+    of the whole map's units.
+    """
+    if "extent" not in project.layers:
+        return False
+    try:
+        return bool(extent_of(project, None)[1])
+    except GEOSException:
+        return False
+
+
+def map_scale(project: MapProject) -> float:
+    """The largest absolute coordinate of the unit polygons and the extent layer (at least 1): the scale of
+    the noise floor (:func:`noise_floor`).
+
+    The whole map's, whatever part of it an analysis sees: a partition of the
+    map is given its whole map's scale (:class:`PartOfMap`), so that its
+    thresholds are those of a check of the whole map. Features far outside
+    any map (left to ``coordinates-implausible``) do not count.
+    """
+    scale = 1.0
+    for role in ("units", "extent"):
+        layer = project.layers.get(role)
+        if layer is None or not len(layer.frame):
+            continue
+        g = layer.geometry
+        keep = ~(shapely.is_missing(g) | shapely.is_empty(g)) & ~far_out(g, layer.crs)[0]
+        if keep.any():
+            scale = max(scale, _scale_of(shapely.box(*shapely.total_bounds(g[keep]))))
+    return scale
+
+
+@dataclass(frozen=True)
+class PartOfMap:
+    """What an analysis of one spatial partition of the map needs to know of it (:mod:`archivist.parallel`).
+
+    ``region``: the partition's marked cells as one polygon (every unit of
+    the map over it is in the partition); ``edge``: the region's boundary
+    less what lies on the outer edge of the partitions' grid (beyond which
+    the map holds nothing): where a gap may go on beyond what the partition
+    sees; ``core``: the cells it owns, grown by the rules' reach; ``scale``:
+    the whole map's :func:`map_scale`.
+    """
+
+    region: Any
+    edge: Any
+    core: Any
+    scale: float
+
+
+class CannotVouch(Exception):
+    """A partition cannot give the whole map's gaps near its core: a gap there runs past its region.
+
+    Raised by :attr:`Coverage.gaps` in a partition; the partition reports
+    the rule that read them as failed, and the merge runs that rule on the
+    whole map (:func:`archivist.parallel.merge`).
+    """
 
 
 def extent_note(project: MapProject, declared: bool) -> str:
@@ -475,13 +549,23 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
     return found, failures
 
 
-def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float) -> Coverage:
-    """Overlaps, gaps, outside parts and misaligned edges of the unit polygons, and the map extent."""
+def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float, within: PartOfMap | None = None) -> Coverage:
+    """Overlaps, gaps, outside parts and misaligned edges of the unit polygons, and the map extent.
+
+    ``within``: the project is one spatial partition of the map
+    (:mod:`archivist.parallel`). The extent is the whole map's; with a
+    declared extent, gaps are traced within the extent and the partition's
+    region only (beyond it the units not in the partition would leave one
+    vast false gap) and measured against the whole extent. A gap whose face
+    reaches the region's edge (the gap may go on beyond it) is measured as
+    far as the partition sees; when it also reaches the core, the coverage
+    says the partition cannot vouch for its gaps (``unvouched``).
+    """
     geoms = units.geoms
     tree = units.tree
     failures: list[Failure] = []
-    # pieces narrower than this are rounding left by GEOS's overlay, not defects
-    floor = noise_floor(_scale_of(shapely.box(*shapely.total_bounds(geoms))) if len(geoms) else 1.0)
+    # pieces narrower than this are rounding left by GEOS's overlay, not defects (the whole map's, in a partition)
+    floor = noise_floor(within.scale if within is not None else map_scale(project))
     # 1. polygons that may be part of a defect: those with an untwinned half-edge and their neighbours
     suspects = region = edges.suspects
     near = (np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64))
@@ -582,8 +666,6 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             failures.append(Failure(tuple(int(u) for u in involved), "joining them into one area",
                                     frozenset((GAPS, OUTSIDE)), reason_of(exc)))
             extent = None
-    if extent is not None:
-        floor = max(floor, noise_floor(_scale_of(extent)))
     # 5. edges that run together exactly but with different vertices (GEOS "misaligned")
     collinear: list[tuple[tuple[int, int], Any, float]] = []
     if len(implicated) > 1:
@@ -593,13 +675,21 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     # 6. gaps: found from the untwinned edges, each measured from the polygons around it
     gap_pieces: list[Piece] = []
     outside: list[Piece] = []
+    unvouched = False
     if extent is not None:
+        traced = extent
+        if within is not None and declared and within.region is not None:
+            traced = shapely.intersection(extent, within.region)
         try:
-            faces, points = gap_faces(edges, extent, tree)
+            faces, points = gap_faces(edges, traced, tree)
         except GEOSException as exc:
             failures.append(Failure(tuple(int(u) for u in edges.suspects), "tracing the gaps between them",
                                     frozenset((GAPS,)), reason_of(exc)))
             faces = points = np.empty(0, dtype=object)
+        if traced is not extent and len(faces):
+            # a face reaching the region's edge may be part of a gap going on beyond it
+            cut = shapely.intersects(faces, within.edge)  # type: ignore[union-attr]
+            unvouched = bool(cut.any() and shapely.intersects(faces[cut], within.core).any())  # type: ignore[union-attr]
         margin = 1e3 * floor  # how far around a gap its polygons are looked for; shorter stretches are points
         gaps, _, lost_windows = local_gaps(faces, points, extent, geoms, tree, margin)
         failures += [Failure(tuple(int(u) for u in us), "taking them out of the map extent", frozenset((GAPS,)), why)
@@ -677,11 +767,12 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         union=union,
         implicated=implicated,
         overlaps=tuple(pieces),
-        gaps=tuple(gap_pieces),
+        gap_pieces=tuple(gap_pieces),
         outside=tuple(outside),
         collinear=tuple(collinear),
         outline=outline,
         failures=tuple(failures),
+        unvouched=unvouched,
     )
 
 

@@ -16,7 +16,7 @@ import numpy as np
 import shapely
 
 from ..analysis.arrays import merge_by_group, text_values, widths
-from ..analysis.coverage import GAPS, MISFITS, OUTSIDE, OVERLAPS
+from ..analysis.coverage import GAPS, MISFITS, OUTSIDE, OVERLAPS, extent_is_declared
 from ..analysis.messages import ABOVE, Ground, capital, feature_name, ground, metres_per_unit, num
 from ..analysis.nearness import uncovered
 from ..analysis.polygons import sliver_thresholds
@@ -93,7 +93,7 @@ def mismatch_scales(g: Ground, mms: tuple[Any, ...]) -> tuple[np.ndarray, np.nda
 
 # ---------------------------------------------------------------- rules
 
-@rule("unit-overlap", family="topology", severity="error", needs=("units",))
+@rule("unit-overlap", family="topology", severity="error", needs=("units",), partitioned=extent_is_declared)
 def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two unit polygons share area.
 
@@ -148,7 +148,7 @@ def unit_overlap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, OVERLAPS)
 
 
-@rule("unit-gap", family="topology", severity="error", needs=("units",))
+@rule("unit-gap", family="topology", severity="error", needs=("units",), partitioned=extent_is_declared)
 def unit_gap(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """An unmapped hole inside the map extent.
 
@@ -296,7 +296,7 @@ def unit_sliver(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
         )
 
 
-@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",))
+@rule("unit-edge-mismatch", family="topology", severity="error", needs=("units",), partitioned=extent_is_declared)
 def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Neighbouring polygons whose common edge nearly, but not exactly, coincides.
 
@@ -368,7 +368,7 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     yield from not_processed(ctx, MISFITS)
 
 
-@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",))
+@rule("unit-same-neighbour", family="topology", severity="warning", needs=("units",), partitioned=extent_is_declared)
 def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Two adjacent polygons carry the same unit code and no fault separates them.
 
@@ -447,7 +447,7 @@ def unit_same_neighbour(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
         )
 
 
-@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"))
+@rule("unit-outside-extent", family="topology", severity="error", needs=("units", "extent"), partitioned=extent_is_declared)
 def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """Unit area lies outside the declared map extent.
 
@@ -496,7 +496,7 @@ def unit_outside_extent(project: MapProject, ctx: CheckContext) -> Iterator[Hit]
     yield from not_processed(ctx, OUTSIDE)
 
 
-@rule("unit-code-missing", family="topology", severity="error", needs=("units",))
+@rule("unit-code-missing", family="topology", severity="error", needs=("units",), partitioned=True)
 def unit_code_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A unit polygon has an empty unit code.
 

@@ -57,7 +57,7 @@ def handed_back(project, jobs: int) -> list[str]:
     from concurrent.futures import ThreadPoolExecutor
 
     view = CheckContext(project).view()
-    rules = [r for r in all_rules() if r.partitioned and all(role in view.layers for role in r.needs)]
+    rules = [r for r in all_rules() if r.partitions(view) and all(role in view.layers for role in r.needs)]
     with ThreadPoolExecutor(1) as pool:  # the partitions one after the other; the merge and settle steps as a check runs them
         return list(parallel.run_partitioned(view, rules, pool, jobs).whole)
 
