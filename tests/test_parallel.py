@@ -8,6 +8,7 @@ borders cut the defects.
 
 from __future__ import annotations
 
+import contextlib
 import pickle
 import sys
 import threading
@@ -697,6 +698,29 @@ main()
 """
 
 
+@contextlib.contextmanager
+def _driver(source: str, root: Path):
+    """A driver script run in a session of its own; whatever the test asserts, nothing of it outlives the test
+    (a failed assertion before the Ctrl-C once left its forked workers spinning in GEOS)."""
+    import os
+    import signal
+    import subprocess
+
+    proc = subprocess.Popen([sys.executable, "-c", source, str(root)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True, start_new_session=True)
+    try:
+        yield proc
+    finally:
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except (ProcessLookupError, PermissionError):
+            pass
+        try:
+            proc.communicate(timeout=10)
+        except Exception:
+            pass
+
+
 @pytest.mark.slow
 def test_ctrl_c_while_a_thread_is_inside_geos_leaves_the_command_line_with_130(tmp_path):
     # the interpreter must not shut down under a thread still inside a GEOS call (it crashed with SIGSEGV)
@@ -705,15 +729,14 @@ def test_ctrl_c_while_a_thread_is_inside_geos_leaves_the_command_line_with_130(t
 
     project = _grid_project(tmp_path)
     for attempt in range(3):
-        proc = subprocess.Popen([sys.executable, "-c", DRIVER, str(project.root)], stdout=subprocess.PIPE,
-                                stderr=subprocess.PIPE, text=True)
-        assert proc.stdout is not None
-        assert proc.stdout.readline().strip() == "inside"
-        time.sleep(0.3 * attempt)
-        proc.send_signal(signal.SIGINT)
-        _, err = proc.communicate(timeout=60)
-        assert proc.returncode == 130, err
-        assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
+        with _driver(DRIVER, project.root) as proc:
+            assert proc.stdout is not None
+            assert proc.stdout.readline().strip() == "inside"
+            time.sleep(0.3 * attempt)
+            proc.send_signal(signal.SIGINT)
+            _, err = proc.communicate(timeout=60)
+            assert proc.returncode == 130, err
+            assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
 
 
 FORK_DRIVER = """
@@ -752,24 +775,23 @@ def test_ctrl_c_while_forked_workers_run_leaves_no_worker_and_exits_130(tmp_path
     if "fork" not in multiprocessing.get_all_start_methods():
         pytest.skip("this system cannot fork")
     project = _grid_project(tmp_path)
-    proc = subprocess.Popen([sys.executable, "-c", FORK_DRIVER, str(project.root)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
-    assert proc.stdout is not None
-    word, pid = proc.stdout.readline().split()
-    assert word == "inside" and int(pid) != proc.pid  # the rule runs in a worker process
-    proc.send_signal(signal.SIGINT)
-    _, err = proc.communicate(timeout=60)
-    assert proc.returncode == 130, err
-    assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
-    deadline = time.monotonic() + 10
-    while time.monotonic() < deadline:
-        try:
-            os.kill(int(pid), 0)
-        except ProcessLookupError:
-            break
-        time.sleep(0.1)
-    else:
-        pytest.fail(f"worker {pid} still runs after the check stopped")
+    with _driver(FORK_DRIVER, project.root) as proc:
+        assert proc.stdout is not None
+        word, pid = proc.stdout.readline().split()
+        assert word == "inside" and int(pid) != proc.pid  # the rule runs in a worker process
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=60)
+        assert proc.returncode == 130, err
+        assert err.strip().splitlines()[-1] == "archivist: interrupted (Ctrl-C); an output not yet complete was not written"
+        deadline = time.monotonic() + 10
+        while time.monotonic() < deadline:
+            try:
+                os.kill(int(pid), 0)
+            except ProcessLookupError:
+                break
+            time.sleep(0.1)
+        else:
+            pytest.fail(f"worker {pid} still runs after the check stopped")
 
 
 def test_jobs_fork_partitions_only_when_every_partitioned_family_goes_whole(tmp_path, monkeypatch):
