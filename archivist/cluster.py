@@ -44,14 +44,12 @@ What this does not do yet: a family goes to the workers only when every
 rule of it that runs is partitioned (:func:`archivist.engine.run_rules`: the
 rules of a family share their analyses). The linework family does (its sums
 over the map settled from the partitions' partial sums,
-:mod:`archivist.tally`); the topology family holds the coverage rules, which
-run on the whole map. So a whole check sends the linework family to the
-workers but the client still builds the coverage analysis of the whole map,
-holding the whole map and that analysis: 5.5 GB at 10^6 polygons and 1 %
-defects in one process (about 2 GB of it the loaded map), so a full check of
-4 x 10^6 does not fit in 23 GB. Checked with only the partitioned rules
-(``rules=``), all partitions go to the workers
-(tests/benchmarks/bench_cluster.py ``--partitioned-only``).
+:mod:`archivist.tally`), and the topology family does on a map with an
+extent layer (its coverage rules need one: without it the extent is the
+outline of every unit, a whole-map thing, and the family stays here). The
+client still loads the whole map to cut it (2.3 GB after loading at 10^6
+polygons), so a map larger than this machine's memory is not yet checked
+(tests/benchmarks/bench_cluster.py; the README's Performance section).
 
 How the map is cut and the findings merged is :mod:`archivist.parallel`'s
 (Hilbert order of the features' boxes, a halo around each partition, each
