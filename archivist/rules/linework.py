@@ -35,7 +35,6 @@ from typing import TYPE_CHECKING, Any, Iterator
 
 import numpy as np
 import shapely
-from shapely.errors import GEOSException
 from shapely.ops import substring
 
 from ..analysis.arrays import (
@@ -46,7 +45,7 @@ from ..analysis.arrays import (
     segment_lines,
     text_values,
 )
-from ..analysis.coverage import extent_of
+from ..analysis.coverage import extent_is_declared
 from ..analysis.halfedges import Edges
 from ..analysis.lines import LineNetwork, kind_for, loose_ends, norm_kind
 from ..analysis.messages import ABOVE, Ground, ground, metres_per_unit, num, offset
@@ -314,16 +313,6 @@ def _boundary_tally(project: MapProject, ctx: CheckContext) -> dict[str, Tally]:
     return out
 
 
-def _frame_declared(project: MapProject) -> bool:
-    """Whether the map edge is an extent layer's (else the outline of the units, which only the whole map gives)."""
-    if "extent" not in project.layers:
-        return False
-    try:
-        return bool(extent_of(project, None)[1])
-    except GEOSException:
-        return False
-
-
 def _finish_missing(project: MapProject, hits: list[Hit], totals: dict[str, float]) -> list[Hit]:
     """The stretches of each kind of boundary as they are, or one summary when their share of the map is systematic.
 
@@ -361,7 +350,7 @@ def _in_order(hits: list[Hit]) -> list[Hit]:
 
 
 @rule("boundary-without-line", family="linework", severity="warning", needs=("lines", "units"), partitioned=True,
-      settle=Settle(_boundary_tally, _finish_missing, _frame_declared))
+      settle=Settle(_boundary_tally, _finish_missing, extent_is_declared))
 def boundary_without_line(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A stretch of boundary between two units, or along the map edge, that no line draws.
 
@@ -476,7 +465,7 @@ def _missing_summary(project: MapProject, stretches: list[Hit], missing: float, 
                 "(or a fault kind where a fault runs), snapped to the polygon edges.")
     else:
         kind = _kind_for(project, "boundary", "map-boundary")
-        frame = (f"the extent layer ({project.layers['extent'].source})" if _frame_declared(project)
+        frame = (f"the extent layer ({project.layers['extent'].source})" if extent_is_declared(project)
                  else "the outer boundary of the unit polygons (no extent layer)")
         text = (f"No line draws {len(pieces)} stretches of the map edge: {num(missing)} m of {num(total)} m ({share:.0f} %), "
                 f"spanning {where}; the frame is {frame}. Draw it as lines of kind '{kind}'.")
