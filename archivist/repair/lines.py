@@ -159,11 +159,7 @@ def _on_vertices(parts: np.ndarray, tkey: np.ndarray) -> np.ndarray:
     xy, part = shapely.get_coordinates(parts, return_index=True)
     if not len(xy):
         return np.ones(len(parts), dtype=bool)
-    key = xy[:, 0] + 1j * xy[:, 1]
-    if len(tkey):
-        on = tkey[np.minimum(np.searchsorted(tkey, key), len(tkey) - 1)] == key
-    else:
-        on = np.zeros(len(key), dtype=bool)
+    on = _in_keys(xy[:, 0] + 1j * xy[:, 1], tkey)
     repeat = np.zeros(len(xy), dtype=bool)
     repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
     bad = np.bincount(part, weights=(~on | repeat), minlength=len(parts)) > 0
@@ -798,7 +794,8 @@ def _segment_keys(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 def _in_keys(keys: np.ndarray, sorted_keys: np.ndarray) -> np.ndarray:
-    """Per key: whether it is one of ``sorted_keys`` (sorted, as :func:`numpy.unique` leaves them)."""
+    """Per key: whether it is one of ``sorted_keys`` (sorted, as :func:`numpy.unique` leaves them), by a binary
+    search of each key rather than :func:`numpy.isin`'s sort of both arrays on every call."""
     if not len(sorted_keys) or not len(keys):
         return np.zeros(len(keys), dtype=bool)
     i = np.minimum(np.searchsorted(sorted_keys, keys), len(sorted_keys) - 1)

@@ -918,12 +918,14 @@ def _contact_sides(state: RepairState, ctx: CheckContext) -> tuple[Any, np.ndarr
     from ..rules.linework import contact_sides
 
     assert state.units is not None
-    left, right = contact_sides(ctx)
     units = ctx.units()
+    if not len(units):
+        return None
+    left, right = contact_sides(ctx)
     row_of = pd.Index(np.asarray(state.units[FEATURE_ID], dtype=object).astype(str)).get_indexer(
-        np.asarray(units.ids, dtype=object).astype(str)) if len(units) else np.empty(0, dtype=np.int64)
-    lr = np.where(left >= 0, row_of[np.maximum(left, 0)] if len(row_of) else -1, -1)
-    rr = np.where(right >= 0, row_of[np.maximum(right, 0)] if len(row_of) else -1, -1)
+        np.asarray(units.ids, dtype=object).astype(str))
+    lr = np.where(left >= 0, row_of[np.maximum(left, 0)], -1)
+    rr = np.where(right >= 0, row_of[np.maximum(right, 0)], -1)
     return ctx.line_network(), lr, rr
 
 
@@ -941,7 +943,7 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
     """
     if sides is None or not merged:
         return []
-    from .lines import _line_change, _set_geoms
+    from .lines import _ids, _line_change, _set_geoms, _source_layers
 
     net, lr, rr = sides
     joined = np.arange(len(ids))  # per unit row (before the dissolve): the row it was dissolved into
@@ -998,11 +1000,8 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
         _set_geoms(state, keep_rows, after[has])
     dropped = rows[~has]
     if len(dropped):
-        from .lines import _source_layers
-
         assert state.lines is not None
-        lids = state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object)
-        layers = _source_layers(state)
+        lids, layers = _ids(state), _source_layers(state)
         changes += [Change("dissolve-same-unit", str(layers[r]), (str(lids[r]),), (), (), 0.0, 0.0, b, None, nt)
                     for r, b, nt in zip(dropped.tolist(), before[~has], [nt for nt, h in zip(notes, has) if not h])]
         keep = np.ones(len(state.lines), dtype=bool)
