@@ -84,6 +84,21 @@ def _assert_within_precision(pieces, tol: float) -> np.ndarray:
     return got
 
 
+def _count_grid_searches(monkeypatch) -> list:
+    """The number of polygons each call of GEOS's grid search (maximum_inscribed_circle) in widths() was given."""
+    import archivist.analysis.arrays as arrays
+
+    calls: list = []
+    real = arrays.shapely.maximum_inscribed_circle
+
+    def counting(geoms, tolerance):
+        calls.append(len(np.atleast_1d(geoms)))
+        return real(geoms, tolerance)
+
+    monkeypatch.setattr(arrays.shapely, "maximum_inscribed_circle", counting)
+    return calls
+
+
 def test_widths_of_strips_match_geos_without_its_grid_search(monkeypatch):
     # strips with parallel edges, as left by a polygon shifted into its neighbour: straight, bent,
     # zigzag, far from the origin (UTM-sized coordinates) and on a slant
@@ -99,14 +114,7 @@ def test_widths_of_strips_match_geos_without_its_grid_search(monkeypatch):
         shapely.buffer(zigzag, 0.8, cap_style="flat", join_style="round"),
         shapely.affinity.rotate(box(0, 0, 250, 2.4), 33.0, origin=(0, 0)),
     ]
-    calls = []
-    real = arrays.shapely.maximum_inscribed_circle
-
-    def counting(geoms, tolerance):
-        calls.append(len(np.atleast_1d(geoms)))
-        return real(geoms, tolerance)
-
-    monkeypatch.setattr(arrays.shapely, "maximum_inscribed_circle", counting)
+    calls = _count_grid_searches(monkeypatch)
     got = arrays.widths(np.array(strips, dtype=object), 0.5)
     monkeypatch.undo()
     assert sum(calls) == 0  # all settled by erosion
@@ -157,14 +165,7 @@ def test_widths_of_one_part_multipolygons_are_settled_as_their_polygons(monkeypa
     x0, y0 = 419_000.0, 6_501_000.0
     path = LineString([(x0, y0), (x0 + 300, y0 + 20), (x0 + 420, y0 + 250), (x0 + 800, y0 + 260)])
     strip = shapely.buffer(path, 1.0, cap_style="flat", join_style="mitre")  # 2 m wide, wider at its mitred bends
-    calls = []
-    real = arrays.shapely.maximum_inscribed_circle
-
-    def counting(geoms, tolerance):
-        calls.append(len(np.atleast_1d(geoms)))
-        return real(geoms, tolerance)
-
-    monkeypatch.setattr(arrays.shapely, "maximum_inscribed_circle", counting)
+    calls = _count_grid_searches(monkeypatch)
     one = arrays.widths(np.array([shapely.MultiPolygon([strip])], dtype=object), 0.5)
     alone = arrays.widths(np.array([strip], dtype=object), 0.5)
     monkeypatch.undo()

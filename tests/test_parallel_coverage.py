@@ -31,6 +31,7 @@ from archivist.registry import all_rules
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE / "benchmarks"))
 
+from test_parallel import _sent_to_partitions  # noqa: E402
 from topology_maps import make  # noqa: E402
 
 COVERAGE_RULES = ("unit-overlap", "unit-gap", "unit-edge-mismatch", "unit-same-neighbour", "unit-outside-extent")
@@ -44,19 +45,6 @@ def same_report(a: archivist.Report, b: archivist.Report) -> None:
     assert [f.to_dict() for f in b.findings] == [f.to_dict() for f in a.findings]
     assert b.notes == a.notes
     assert b.rules_run == a.rules_run
-
-
-def _recording(monkeypatch) -> list:
-    """What each run on partitions merged (per run: the hits kept per rule, the rules sent to the whole map)."""
-    merged: list = []
-    run = parallel.Sent.merged
-
-    def recording(self, *args, **kwargs):  # type: ignore[no-untyped-def]
-        merged.append(run(self, *args, **kwargs))
-        return merged[-1]
-
-    monkeypatch.setattr(parallel.Sent, "merged", recording)
-    return merged
 
 
 @pytest.fixture(scope="module")
@@ -74,7 +62,7 @@ def test_coverage_rules_on_partitions_give_the_findings_of_one_process(density_m
     found = {f.rule for f in reference.findings}
     if density >= 0.01:  # the defects reach every coverage rule but the outside one (the builder clips to the extent)
         assert found >= {"unit-overlap", "unit-gap", "unit-edge-mismatch"}
-    merged = _recording(monkeypatch)
+    merged = _sent_to_partitions(monkeypatch)
     # the partitions built in this process and sent to threads (PartitionTask)
     with ThreadPoolExecutor(2) as pool:
         for parts in (2, 4):
@@ -127,7 +115,7 @@ def test_a_gap_cut_by_a_partition_edge_near_its_core_sends_the_rules_to_the_whol
         with pytest.raises(CannotVouch):
             cov.gaps  # noqa: B018
     # so the rules reading the gaps run on the whole map, and the report is the one process's
-    merged = _recording(monkeypatch)
+    merged = _sent_to_partitions(monkeypatch)
     with ThreadPoolExecutor(2) as pool:
         same_report(reference, engine.check(project, rules=RULES, executor=pool, parts=2))
     (answer,) = merged
