@@ -73,6 +73,21 @@ def test_both_defects_found_without_failure(tmp_path):
     assert [f.measure for f in overlaps] == [round(shapely.intersection(A, B).area, 3), round(shapely.intersection(C, D).area, 3)]
 
 
+def test_an_edge_inside_a_polygon_matched_by_a_third_still_gives_both_overlaps(tmp_path):
+    # A and B share their edge at x = 5 exactly; E lies over it. GEOS finds A's and B's edges
+    # valid (matched by each other), only E's edges inside them invalid: the overlaps are asked
+    # of the pairs of an implicated polygon, E with A and E with B (reference: GEOS's own
+    # coverage_invalid_edges and intersection areas)
+    e = box(4, 2, 6, 8)
+    geoms = [box(0, 0, 5, 10), box(5, 0, 10, 10), e]
+    invalid = shapely.coverage_invalid_edges(geoms)
+    assert list(shapely.is_empty(invalid)) == [True, True, False]
+    ctx = CheckContext(load_project(square_map(tmp_path, "matched", extra=[e])))
+    found = sorted((p.units, round(p.area, 9)) for p in ctx.coverage().overlaps)
+    assert found == [((0, 2), round(shapely.intersection(geoms[0], e).area, 9)),
+                     ((1, 2), round(shapely.intersection(geoms[1], e).area, 9))]
+
+
 def test_geos_stopping_on_one_pair_is_a_finding_on_that_pair(tmp_path, monkeypatch):
     root = two_defects(tmp_path)
     monkeypatch.setattr(shapely, "intersection", refuse(shapely.intersection, C))

@@ -549,6 +549,28 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
     return found, failures
 
 
+def overlap_candidates(tree: shapely.STRtree, geoms: np.ndarray, region: np.ndarray,
+                       implicated: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs (a < b, ordered by a then b) of intersecting polygons of ``region``, one of them ``implicated``.
+
+    Two polygons whose interiors meet bound their overlap with stretches of
+    edge lying inside the other one. A stretch matched exactly by a third
+    polygon's edge passes GEOS's validation, so the pair is asked of every
+    polygon that GEOS, the half-edge table or a failure implicates, not only
+    of pairs of implicated polygons: where one of the two has every such
+    stretch matched, the other one's stretches inside it are not.
+    """
+    implicated = np.intersect1d(implicated, region)
+    if not len(implicated):
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    si, other = tree.query(geoms[implicated], predicate="intersects")
+    one = implicated[si]
+    a, b = np.minimum(one, other), np.maximum(one, other)
+    keep = (a < b) & np.isin(other, region)
+    key = np.unique(a[keep].astype(np.int64) * len(geoms) + b[keep])
+    return key // len(geoms), key % len(geoms)
+
+
 def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float, within: PartOfMap | None = None) -> Coverage:
     """Overlaps, gaps, outside parts and misaligned edges of the unit polygons, and the map extent.
 
@@ -608,13 +630,14 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         invalid = dict(zip(implicated.tolist(), inv[bad]))
     # 3. overlaps. When GEOS finds nothing invalid and no segment is drawn twice on one side,
     # the polygons cannot overlap. Otherwise every pair of intersecting polygons of the region
-    # whose interiors meet (DE-9IM T********) is intersected: GEOS alone can miss a polygon
-    # whose edge inside another one is matched exactly by a third.
-    irregular = (edges.count >= 3) | ((edges.count == 2) & ~edges.twin)
+    # with one of them implicated (an edge GEOS finds invalid, a segment drawn by three polygons
+    # or twice on one side, or left unchecked) whose interiors meet (DE-9IM T********) is
+    # intersected: GEOS alone can miss a polygon whose edge inside another one is matched
+    # exactly by a third (the other one's edge inside it is not matched, so GEOS flags that one).
     pieces: list[Piece] = []
     pair_pieces: dict[tuple[int, int], list[Any]] = {}
-    if len(implicated) or irregular.any() or len(unchecked):
-        a, b = region_pairs()
+    if len(implicated) or len(edges.crowded) or len(unchecked):
+        a, b = overlap_candidates(tree, geoms, region, np.union1d(np.union1d(implicated, edges.crowded), unchecked))
         # the union below takes these polygons whole, so gaps are still found around them
         doing, aspects = "intersecting them", frozenset((OVERLAPS, MISFITS))
         inner, failed, reasons = elementwise(lambda x, y: shapely.relate_pattern(x, y, "T********"), geoms[a], geoms[b], fill=False)

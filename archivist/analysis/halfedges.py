@@ -71,7 +71,9 @@ class Edges:
     ``left``/``right`` are the polygons with the segment's interior on their
     left going from (px, py) to (qx, qy) and the reverse (-1: none).
     ``twin`` marks the clean case: exactly one polygon on each side.
-    ``suspects`` are polygons owning any half-edge without its twin.
+    ``suspects`` are polygons owning any half-edge without its twin;
+    ``crowded`` those owning a half-edge of a segment drawn by three polygons
+    or more, or twice on one side (two of them overlap there).
     """
 
     h: np.ndarray
@@ -84,6 +86,7 @@ class Edges:
     right: np.ndarray
     twin: np.ndarray
     suspects: np.ndarray
+    crowded: np.ndarray
 
     def __len__(self) -> int:
         return len(self.h)
@@ -127,5 +130,7 @@ def build_edges(geoms: np.ndarray) -> Edges:
     left = np.where(first_fwd, first, second)
     right = np.where(first_fwd, second, first)
     suspects = np.unique(own_s[~twin[gid]]) if n else np.zeros(0, np.int64)
+    irregular = (counts >= 3) | ((counts == 2) & ~twin)
+    crowded = np.unique(own_s[irregular[gid]]) if n else np.zeros(0, np.int64)
     sel = order[starts]
-    return Edges(h[sel], px[sel], py[sel], qx[sel], qy[sel], counts, left, right, twin, suspects)
+    return Edges(h[sel], px[sel], py[sel], qx[sel], qy[sel], counts, left, right, twin, suspects, crowded)
