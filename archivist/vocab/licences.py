@@ -141,13 +141,19 @@ _OPERATORS = {"and", "or", "with"}
 
 
 @lru_cache(maxsize=1)
-def _spdx_renames() -> tuple[dict[str, str], dict[str, str]]:
-    """(older SPDX id -> current id, lower-cased; current id of a deprecated licence -> itself), from license-expression's index."""
+def _licence_index() -> list[dict[str, Any]]:
+    """license-expression's licence index (a JSON file of about 1 MB), read once per process for both its uses."""
     from license_expression import get_license_index
 
+    return get_license_index()  # type: ignore[no-any-return]
+
+
+@lru_cache(maxsize=1)
+def _spdx_renames() -> tuple[dict[str, str], dict[str, str]]:
+    """(older SPDX id -> current id, lower-cased; current id of a deprecated licence -> itself), from license-expression's index."""
     renamed: dict[str, str] = {}
     deprecated: dict[str, str] = {}
-    for entry in get_license_index():
+    for entry in _licence_index():
         current = entry.get("spdx_license_key")
         if not current or current.startswith("LicenseRef-"):
             continue
@@ -206,9 +212,9 @@ def _parse_errors() -> tuple[type[BaseException], ...]:
 @lru_cache(maxsize=1)
 def spdx_licensing() -> Any:
     """The SPDX licence list of the ``license-expression`` package, loaded once per process."""
-    from license_expression import get_spdx_licensing
+    from license_expression import build_spdx_licensing
 
-    return get_spdx_licensing()
+    return build_spdx_licensing(_licence_index())
 
 
 def licence_problem(expression: str) -> str | None:
