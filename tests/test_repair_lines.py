@@ -235,6 +235,32 @@ def test_boundary_without_line_gets_a_generated_contact(tmp_path):
     assert repair(out, tmp_path / "again").changes == ()
 
 
+def test_generated_contact_ending_on_a_line_near_a_corner_is_settled_in_the_first_run(tmp_path):
+    # B is split by the contact V (100, 50) -> (200, 70); the contact between A and B is drawn only south of V.
+    # The stretch of x = 100 north of V is undrawn; its 1 m buffer from the sloping contact ends at y = 50 + 1/cos
+    # (slope 0.2: 1.0198 m), whose nearest point on that contact (GEOS) lies 0.2 m from V along it, within the
+    # tolerance of the boundary vertex V: snap-lines would move the generated end onto V on a second run, and V
+    # is on the sloping contact too, so the first run draws it from V and the second changes nothing.
+    from coverage_builders import unit_frame
+
+    a = box(0, 0, 100, 100)
+    b1 = shapely.Polygon([(100, 50), (200, 70), (200, 100), (100, 100)])
+    b2 = shapely.Polygon([(100, 0), (200, 0), (200, 70), (100, 50)])
+    slope = LineString([(100, 50), (200, 70)])
+    project = project_with(tmp_path, ("map-boundary", FRAME), ("contact", LineString([(100, 0), (100, 50)])),
+                           ("contact", slope), units=unit_frame(a, b1, b2))
+    start = Point(100, 50 + float(np.hypot(1.0, 0.2)))  # where the 1 m buffer of the sloping contact leaves x = 100
+    foot = shapely.get_coordinates(shapely.shortest_line(start, slope))[1]
+    assert 0.19 < float(np.hypot(*(foot - [100, 50]))) < 0.21  # within the tolerance of V, not on it
+    out = tmp_path / "out"
+    result = repair(project, out)
+    (change,) = [c for c in result.changes if c.repair == "draw-missing-lines"]
+    assert change.units == ("A", "B")
+    assert shapely.equals(single(change.after), LineString([(100, 50), (100, 100)]))  # GEOS: from V, along x = 100
+    assert not REPAIRED & set(rules(out))
+    assert repair(out, tmp_path / "again").changes == ()  # idempotent
+
+
 def test_generated_stretch_meets_the_drawn_part_of_its_boundary():
     # The boundary x = 100 is drawn from y = 0 to 60 only. The undrawn stretch, as boundary-without-line finds
     # it, starts where the 1 m buffer of that line ends (y = 61); the generated line starts on the drawn line.

@@ -358,6 +358,72 @@ def undrawn_lines(pieces: np.ndarray, lines: np.ndarray, tol: float) -> np.ndarr
     return shapely.remove_repeated_points(shapely.linestrings(xy, indices=idx), 0.0)
 
 
+def settled_lines(new: np.ndarray, inner: np.ndarray, polygons: np.ndarray, frame: Any, net: LineNetwork,
+                  tol: float) -> np.ndarray:
+    """The lines :func:`undrawn_lines` drew, as ``snap-lines`` would snap them on the next run.
+
+    A line drawn between units follows the boundary through its own
+    vertices, but an end joined to the line drawn next to it lies on that
+    line, which may be short of a boundary vertex within the tolerance: the
+    next run's ``snap-lines`` would move it there (:func:`snap_to_boundaries`:
+    a vertex goes to the nearest target vertex within the tolerance). So
+    each new line is snapped here, onto the unit boundaries near it (a line
+    along the map edge onto the map edge: ``frame``). An end joined to a
+    drawn line that the snap would part from it stays where it is (pinned,
+    as :func:`snap_network` pins it); a line that would still come apart, or
+    move farther than the tolerance, is left as drawn. Repairing the
+    repaired copy then leaves the lines drawn here as they are.
+    """
+    out = np.asarray(new, dtype=object).copy()
+    if not len(out):
+        return out
+    for mask, targets in ((inner, None), (~inner, frame)):
+        rows = np.flatnonzero(mask & ~shapely.is_missing(out))
+        if not len(rows):
+            continue
+        if targets is None:
+            near = np.unique(shapely.STRtree(polygons).query(out[rows], predicate="dwithin", distance=tol)[1])
+            goal = shapely.boundary(polygons[near])
+        elif targets is not None and not shapely.is_empty(targets):
+            goal = np.array([targets], dtype=object)
+        else:
+            continue
+        # an end joined to a drawn line that the snap would part from it stays where it is (pinned), as snap-lines
+        # pins it; a line still parted from one then is left as drawn
+        pinned = np.zeros((0, 2))
+        for _ in range(2):
+            snapped = snap_to_boundaries(out[rows], goal, tol, pinned=pinned if len(pinned) else None)
+            parted = _parted_ends(out[rows], snapped, net)
+            if not len(parted) or not len(net.geoms):
+                break
+            pinned = np.r_[pinned, parted]
+        ok = snapped.changed.copy()
+        ok[_parted_ends(out[rows], snapped, net, which=True)] = False
+        out[rows[ok]] = snapped.geoms[ok]
+    return out
+
+
+def _parted_ends(before: np.ndarray, snapped: Snapped, net: LineNetwork, which: bool = False) -> np.ndarray:
+    """The ends of the changed lines that lay on a drawn line before the snap and on none after: their coordinates
+    before ((n, 2)), or with ``which`` the positions of their lines."""
+    moved = np.flatnonzero(snapped.changed)
+    if not len(moved) or not len(net.geoms):
+        return np.zeros(0, dtype=np.int64) if which else np.zeros((0, 2))
+    eps = noise(np.concatenate([before[moved], snapped.geoms[moved]]))
+    out_xy, out_k = [], []
+    for end in (0, -1):
+        was = shapely.get_point(before[moved], end)
+        now = shapely.get_point(snapped.geoms[moved], end)
+        joined = np.zeros(len(moved), dtype=bool)
+        joined[np.unique(net.tree.query(was, predicate="dwithin", distance=eps)[0])] = True
+        still = np.zeros(len(moved), dtype=bool)
+        still[np.unique(net.tree.query(now, predicate="dwithin", distance=eps)[0])] = True
+        bad = joined & ~still
+        out_xy.append(shapely.get_coordinates(was[bad]))
+        out_k.append(moved[bad])
+    return np.concatenate(out_k) if which else np.concatenate(out_xy)
+
+
 # ---------------------------------------------------------------- the working state as the analyses read it
 
 def unit_analyses(state: RepairState, project: MapProject, tol: float) -> tuple[Any, Any, Any]:
@@ -914,8 +980,8 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     found = undrawn_boundaries(units, edges, cov.outline, drawn, net, tol)
     if found is None:
         return [], []
-    new = undrawn_lines(found.pieces, net.geoms, tol)
     inner = found.ub >= 0
+    new = settled_lines(undrawn_lines(found.pieces, net.geoms, tol), inner, units.geoms, cov.extent_boundary, net, tol)
     kinds = project.config.line_kinds
     kind = np.where(inner, kind_for(kinds, "contact", "contact"), kind_for(kinds, "boundary", "map-boundary")).astype(object)
     certainty = settings.generated_certainty

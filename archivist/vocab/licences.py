@@ -145,7 +145,7 @@ def _licence_index() -> list[dict[str, Any]]:
     """license-expression's licence index (a JSON file of about 1 MB), read once per process for both its uses."""
     from license_expression import get_license_index
 
-    return get_license_index()  # type: ignore[no-any-return]
+    return get_license_index()
 
 
 @lru_cache(maxsize=1)
