@@ -221,15 +221,25 @@ def edit_map_keys(text: str, changes: dict[str, str | None]) -> str:
 def _insert_after(table: Any, anchor: str, key: str, value: str) -> None:
     """Add ``key = value`` to the tomlkit ``table`` on the line after ``anchor``.
 
-    tomlkit has no public call for a position; its container's
-    ``_insert_after`` is used when present, else the key goes at the end of
-    the table (still correct TOML, checked by the caller).
+    tomlkit has no public call for a position: its container's
+    ``_insert_after`` is used where it has one (tomlkit before 0.15), else
+    its ``_insert_at`` at the position after ``anchor`` in the table's body
+    (0.15), else the key goes at the end of the table (still correct TOML,
+    checked by the caller).
     """
-    insert = getattr(getattr(table, "value", None), "_insert_after", None)
-    if insert is None:
-        table[key] = value
+    container = getattr(table, "value", None)
+    insert_after = getattr(container, "_insert_after", None)
+    if insert_after is not None:
+        insert_after(anchor, key, value)
         return
-    insert(anchor, key, value)
+    insert_at = getattr(container, "_insert_at", None)
+    body = getattr(container, "body", None)
+    if insert_at is not None and body is not None:
+        at = next((i for i, (k, _) in enumerate(body) if k is not None and getattr(k, "key", None) == anchor), None)
+        if at is not None and at + 1 < len(body):
+            insert_at(at + 1, key, value)
+            return
+    table[key] = value
 
 
 def _package_identity(root: Path, data_manifest: dict[str, Any]) -> tuple[str, str | None]:
