@@ -536,18 +536,65 @@ def plan_partitions(project: MapProject, parts: int, halo: float | None = None, 
     # the cells within r cells of each cell, for growing a core by the halo through a summed-area table
     around = np.c_[np.maximum(ii.ravel() - r, 0), np.maximum(jj.ravel() - r, 0),
                    np.minimum(ii.ravel() + r, grid.nx - 1), np.minimum(jj.ravel() + r, grid.ny - 1)]
+    by_cell = {role: _CellIndex(grid, ranges[role]) for role in roles}
     for k in range(parts):
         core = owner == k
         marked = (_marked_in(_table(core), around) > 0).reshape(grid.ny, grid.nx)
-        sat = _table(marked)
         rows: dict[str, np.ndarray] = {}
+        sat: np.ndarray | None = None
         for role in roles:
-            here = np.flatnonzero(present[role])[_marked_in(sat, ranges[role]) > 0]
-            if k == 0:  # features with no geometry: the first partition's
+            index = by_cell[role]
+            if len(index.large):  # the few features spanning more than two cells a side: their ranges against the cells
+                sat = _table(marked) if sat is None else sat
+                large = index.large[_marked_in(sat, ranges[role][index.large]) > 0]
+            else:
+                large = np.zeros(0, dtype=np.int64)
+            found = index.features_on(marked)  # sorted, once each
+            if len(large):
+                found = np.union1d(found, large)
+            here = np.flatnonzero(present[role])[found]
+            if k == 0 and not present[role].all():  # features with no geometry: the first partition's
                 here = np.union1d(here, np.flatnonzero(~present[role]))
-            rows[role] = np.sort(here)
+            rows[role] = here
         partitions.append(Partition(k, core, marked, rows, _cells_polygon(grid, marked)))
     return Plan(grid, owner, tuple(partitions), float(halo), float(reach))
+
+
+class _CellIndex:
+    """The features of a layer by the cells their boxes cover, for the features spanning at most two cells a side.
+
+    A partition holds the features whose cell range meets its marked cells.
+    Asked of every feature for every partition, that was partitions x
+    features (290 partitions of 14 million features on a 4 x 10^6-polygon
+    map: minutes before the first task went out); from the cells, each
+    partition reads only the features of its own marked cells.
+    ``large``: the features (positions in ``ranges``) spanning more cells,
+    left to the caller.
+    """
+
+    def __init__(self, grid: Grid, ranges: np.ndarray) -> None:
+        si = ranges[:, 2] - ranges[:, 0] + 1
+        sj = ranges[:, 3] - ranges[:, 1] + 1
+        small = (si <= 2) & (sj <= 2)
+        self.large = np.flatnonzero(~small)
+        feats, cells = [], []
+        for di, dj in ((0, 0), (1, 0), (0, 1), (1, 1)):  # each cell of a range of up to 2 x 2
+            f = np.flatnonzero(small & (di < si) & (dj < sj))
+            feats.append(f)
+            cells.append((ranges[f, 1] + dj) * grid.nx + ranges[f, 0] + di)
+        feat, cell = np.concatenate(feats), np.concatenate(cells)
+        order = np.argsort(cell, kind="stable")
+        self.n = len(ranges)
+        self.feature = feat[order]
+        self.start = np.searchsorted(cell[order], np.arange(grid.nx * grid.ny + 1))
+
+    def features_on(self, marked: np.ndarray) -> np.ndarray:
+        """The features (positions in the ranges, sorted, once each) with a cell among the ``marked`` ones."""
+        # per sorted (feature, cell) pair, whether its cell is marked: one pass over the pairs, no sort
+        on = np.repeat(marked.ravel(), np.diff(self.start))
+        hit = np.zeros(self.n, dtype=bool)
+        hit[self.feature[on]] = True
+        return np.flatnonzero(hit)
 
 
 def _cells_polygon(grid: Grid, marked: np.ndarray) -> Any:

@@ -108,6 +108,24 @@ def test_cells_have_one_owner_and_the_halo_holds_every_feature_near_a_core(tmp_p
             assert set(over.tolist()) <= set(p.rows["units"].tolist())
 
 
+def test_features_read_from_their_cells_are_those_whose_range_meets_the_marked_cells():
+    # features of every size: within one cell, across two, across many (read against the cells' summed-area
+    # table), and with no cell at all; a partition holds exactly those whose cell range meets its marked cells
+    # (reference: every range counted against the table, partition by partition, as the plan did before)
+    rng = np.random.default_rng(5)
+    grid = parallel.Grid(0.0, 0.0, 10.0, 30, 20, 2)
+    x0, y0 = rng.uniform(0, 300, 400), rng.uniform(0, 200, 400)
+    size = np.where(rng.random(400) < 0.1, rng.uniform(20, 150, 400), rng.uniform(0, 12, 400))
+    ranges = grid.boxes(np.c_[x0, y0, x0 + size, y0 + size * rng.uniform(0.2, 1.5, 400)])
+    index = parallel._CellIndex(grid, ranges)
+    assert 0 < len(index.large) < 100
+    for seed in range(6):
+        marked = np.random.default_rng(seed).random((grid.ny, grid.nx)) < 0.15 * (seed + 1)
+        expected = np.flatnonzero(parallel._marked_in(parallel._table(marked), ranges) > 0)
+        small = np.setdiff1d(expected, index.large)
+        assert index.features_on(marked).tolist() == small.tolist()
+
+
 def test_a_place_is_owned_by_the_partition_of_its_cell(tmp_path):
     project = _grid_project(tmp_path)
     plan = parallel.plan_partitions(project, 4, halo=15.0, reach=1.0)
