@@ -9,9 +9,12 @@ neighbours go on to GEOS's own coverage validation
 edges along a gap no wider than the tolerance are flagged whatever closes the
 gap: units, the map extent or nothing). When GEOS finds nothing there and no
 segment is drawn twice on one side, no two polygons can overlap; otherwise
-every pair of intersecting polygons in that region whose interiors meet is
-intersected exactly (GEOS alone can miss a polygon whose edge inside another
-one is matched exactly by a third). Gaps are found without joining the map:
+every pair of intersecting polygons in that region with one of them
+implicated (an edge GEOS finds invalid, a segment drawn by three polygons or
+twice on one side, or left unchecked) whose interiors meet is intersected
+exactly (GEOS alone can miss a polygon whose edge inside another one is
+matched exactly by a third, but not the other one, whose edge inside it is
+not matched). Gaps are found without joining the map:
 the faces enclosed by the untwinned edges and the extent's edge that lie
 under no polygon say where they are (:func:`gap_faces`), and each is then
 measured from the polygons within a small margin of it, joined in index
@@ -621,7 +624,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         inv, lost_clusters = by_cluster(lambda g: shapely.coverage_invalid_edges(g, gap_width=max(tol, 0.0)),
                                         geoms[region], local_pairs)
         for members, why in lost_clusters:
-            # their overlaps are still found: every intersecting pair of the region is intersected below
+            # their overlaps are still found: every intersecting pair of the region with one of them is intersected below
             failures.append(Failure(tuple(int(u) for u in region[members]), "validating them as a coverage",
                                     frozenset((MISFITS,)), why))
             unchecked = np.union1d(unchecked, region[members])
