@@ -99,6 +99,9 @@ def _codes(state: RepairState) -> np.ndarray:
     if state.unit_field is None or state.unit_field not in state.units.columns:
         return np.full(len(state.units), "", dtype=object)
     col = state.units[state.unit_field]
+    values = col.to_numpy(dtype=object)
+    if pd.api.types.infer_dtype(values, skipna=False) == "string":  # text in every row: stripped by str.strip, in C
+        return pd.Series(values, dtype=object).str.strip().to_numpy(dtype=object)
     return np.array(["" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip() for v in col], dtype=object)
 
 
