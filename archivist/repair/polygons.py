@@ -148,12 +148,20 @@ def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
     return out
 
 
-def _border(piece: np.ndarray, other: np.ndarray, eps: float) -> np.ndarray:
-    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``)."""
+def _border(piece: np.ndarray, other: np.ndarray, eps: float, near: np.ndarray | None = None) -> np.ndarray:
+    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``).
+
+    ``near``: :func:`_rims` of ``other`` when already made."""
     if not len(piece):
         return np.zeros(0)
-    near = shapely.buffer(shapely.boundary(other), eps, cap_style="flat")
+    if near is None:
+        near = _rims(other, eps)
     return shapely.length(shapely.intersection(shapely.boundary(piece), near))
+
+
+def _rims(polys: np.ndarray, eps: float) -> np.ndarray:
+    """The boundary of each polygon widened by ``eps`` (GEOS buffer, flat caps), as :func:`_border` measures along it."""
+    return shapely.buffer(shapely.boundary(polys), eps, cap_style="flat")
 
 
 def _age_rank(state: RepairState, codes: np.ndarray) -> np.ndarray:
@@ -170,8 +178,11 @@ def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.n
             geoms: np.ndarray, codes: np.ndarray, eps: float) -> tuple[np.ndarray, list[str]]:
     """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why."""
     # the piece's border with what is left of a runs along b's boundary, and the reverse
-    with_a = _border(pieces, geoms[b], eps)
-    with_b = _border(pieces, geoms[a], eps)
+    # each polygon's rim made once: a polygon grown over its neighbours is one side of every overlap it makes
+    rows, inv = np.unique(np.r_[a, b], return_inverse=True)
+    rim = _rims(geoms[rows], eps)[inv]
+    with_a = _border(pieces, geoms[b], eps, rim[len(a):])
+    with_b = _border(pieces, geoms[a], eps, rim[:len(a)])
     longest = with_a >= with_b
     notes = ["longest border"] * len(a)
     if settings.overlap == "larger":
