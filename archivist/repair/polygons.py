@@ -755,13 +755,27 @@ def _single(geoms: np.ndarray) -> np.ndarray:
 
 # ---------------------------------------------------------------- merges
 
-def _shared_lengths(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pairs (a, b) of polygons sharing edges (a clean coverage's twinned half-edges) and the length they share."""
+def _shared_lengths(geoms: np.ndarray, of: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pairs (a, b) of polygons sharing edges (a clean coverage's twinned half-edges) and the length they share.
+
+    ``of`` (a mask): only the pairs with a polygon of it are needed. The
+    half-edge table is then built of those polygons and the ones whose boxes
+    meet theirs (every polygon drawing an edge of theirs touches them): each
+    of their edges is grouped with the same half-edges, in the same order,
+    as in the table of all polygons, so their pairs and lengths are the same.
+    Pairs of two other polygons may be missing or differ.
+    """
     from ..analysis.halfedges import build_edges
 
-    edges = build_edges(geoms)
+    rows = np.arange(len(geoms))
+    if of is not None:
+        have = np.flatnonzero(~shapely.is_missing(geoms))
+        mine = np.flatnonzero(of[have])
+        if len(have):
+            rows = have[np.unique(np.r_[mine, shapely.STRtree(geoms[have]).query(geoms[have[mine]])[1]])]
+    edges = build_edges(geoms[rows])
     sel = np.flatnonzero(edges.twin)
-    a, b = np.minimum(edges.left[sel], edges.right[sel]), np.maximum(edges.left[sel], edges.right[sel])
+    a, b = rows[np.minimum(edges.left[sel], edges.right[sel])], rows[np.maximum(edges.left[sel], edges.right[sel])]
     n = max(len(geoms), 1)
     key, inv = np.unique(a * n + b, return_inverse=True)
     length = np.bincount(inv, weights=edges.length[sel], minlength=len(key))
@@ -860,7 +874,7 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     sliver = (area < amin) | (wid < wmin)
     if not sliver.any():
         return [], []
-    a, b, length = _shared_lengths(geoms)
+    a, b, length = _shared_lengths(geoms, sliver)
     # directed: sliver s -> neighbour t, preferring the same code, then the longest edge, then a non-sliver
     s = np.r_[a, b]
     t = np.r_[b, a]
