@@ -957,7 +957,7 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
             notes.append("; ".join(f"end {fx.how} {fx.distance:.3g} to meet line {ids[net.rows[fx.other]]}" for fx in mine))
         changes = _line_change("close-dangles", state, rows, before, after, shifts, notes)
     # the free ends beyond the tolerance: listed, not guessed
-    after_net = build_line_network(working_project(state))
+    after_net = build_line_network(working_project(state)) if fixes else net  # no end closed: the same lines
     rest = loose_ends(after_net, ("contact", "boundary"), tol)
     left: list[Left] = []
     far = ~rest.near_line
