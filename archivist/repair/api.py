@@ -314,9 +314,11 @@ def _file_frame(frame: Any, layer: Any) -> Any:
     import pandas as pd
 
     out = frame.drop(columns=[c for c in (FEATURE_ID, SOURCE_LAYER) if c in frame.columns])
-    if not layer.field("id_field"):
-        ids = pd.to_numeric(frame[FEATURE_ID].astype(str).str.rsplit(":", n=1).str[-1], errors="coerce")
-        if ids.notna().all() and layer.path.suffix.lower() == ".gpkg":
+    if not layer.field("id_field") and layer.path.suffix.lower() == ".gpkg":
+        # the text after the last colon of each id, as str.rsplit would give it, without pandas' string machinery
+        tails = [str(v).rpartition(":")[2] for v in frame[FEATURE_ID].tolist()]
+        ids = pd.to_numeric(pd.Series(tails, index=frame.index, dtype=object), errors="coerce")
+        if ids.notna().all():
             out = out.copy()
             out.insert(0, "fid", ids.astype("int64").to_numpy())
     return out

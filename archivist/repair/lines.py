@@ -116,6 +116,12 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
     active = np.flatnonzero(~_on_vertices(parts, tkey))
+    # only a line with a part measured can come out changed: every part of the others stays as it is, so each
+    # would be rebuilt from its own parts and found equal (a LineString or MultiLineString; any other type is
+    # rebuilt as before)
+    odd = ~np.isin(shapely.get_type_id(lines[have]), (shapely.GeometryType.LINESTRING.value,
+                                                     shapely.GeometryType.MULTILINESTRING.value))
+    touched = np.intersect1d(np.union1d(owner[active], have[odd]), owner)
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
@@ -124,8 +130,9 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
         moved[active] = again
         active = active[diff]
     # 3. back to features; unchanged lines keep their own geometry (no rewrite within noise)
-    order = np.argsort(owner, kind="stable")
-    feats = np.unique(owner)
+    mine = np.flatnonzero(np.isin(owner, touched))
+    order = mine[np.argsort(owner[mine], kind="stable")]
+    feats = touched
     single = shapely.get_type_id(lines[feats]) == shapely.GeometryType.LINESTRING.value
     rebuilt = np.full(len(feats), None, dtype=object)
     shapely.multilinestrings(moved[order], indices=np.searchsorted(feats, owner[order]), out=rebuilt)
@@ -695,15 +702,7 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     if not len(moved):
         return out
     # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
-    if cache is not None and "segments" in cache:
-        sa, sb, segs, tree, keys = cache["segments"]
-    else:
-        sa, sb, _ = segments(shapely.get_parts(targets))
-        segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else targets
-        tree = shapely.STRtree(segs)
-        keys = np.unique(_segment_keys(sa, sb))
-        if cache is not None:
-            cache["segments"] = (sa, sb, segs, tree, keys)
+    sa, sb, segs, tree, keys = _near_segments(np.r_[before[moved], after[moved]], targets, cache)
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
 
@@ -777,6 +776,44 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         maybe &= after_far > np.maximum(unchanged, before_far) + 1e-9
     out[moved] = maybe
     return out
+
+
+def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any] | None = None
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, shapely.STRtree, np.ndarray]:
+    """The segments of the targets that can be the nearest target segment of a point of ``lines``: starts, ends,
+    the segments as LineStrings, their STRtree and their sorted keys (:func:`_segment_keys`).
+
+    Not every target's: a point of a line lies within ``R`` of the targets,
+    ``R`` the farthest vertex of its line from their nearest vertex plus half its longest
+    segment (the distance to the targets grows no faster than along the
+    line), so its nearest target segment belongs to a target within ``R`` of
+    the line (GEOS ``dwithin``, a little slack over ``R``). The nearest
+    segment found among these is the one among all, at the same distance
+    (the same point-to-segment computation); at 10^5 polygons this indexes
+    the boundaries near the lines a snap moved, not all 1.3 million segments.
+    ``cache`` (of :func:`snap_to_boundaries`, for the same ``targets``) lends
+    its index of the targets.
+    """
+    valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
+    if cache is not None and "snap" in cache:  # over the same targets, missing and empty ones left out in the same way
+        ttree, _, vtree, _ = cache["snap"]
+    else:
+        ttree = shapely.STRtree(valid)
+        vtree = shapely.STRtree(shapely.points(shapely.get_coordinates(valid)))
+    xy, li = shapely.get_coordinates(lines, return_index=True)
+    reach = np.zeros(len(lines))
+    if len(xy):  # how far a vertex lies from the targets, bounded above by how far from their nearest vertex
+        (who, _), d = vtree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
+        np.maximum.at(reach, li[who], d)
+        a, b, line, _ = _segments(lines)
+        half = np.zeros(len(lines))
+        np.maximum.at(half, line, np.hypot(*(b - a).T) / 2.0)
+        reach += half
+    reach = reach * (1.0 + 1e-9) + noise(np.r_[lines, valid])
+    pick = np.unique(ttree.query(lines, predicate="dwithin", distance=reach)[1])
+    sa, sb, _ = segments(shapely.get_parts(valid[pick]))
+    segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else valid[pick]
+    return sa, sb, segs, shapely.STRtree(segs), np.unique(_segment_keys(sa, sb))
 
 
 CHUNK = 4_000_000  # point-to-segment pairs measured at once (about 100 MB of temporaries)
@@ -920,7 +957,7 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
             notes.append("; ".join(f"end {fx.how} {fx.distance:.3g} to meet line {ids[net.rows[fx.other]]}" for fx in mine))
         changes = _line_change("close-dangles", state, rows, before, after, shifts, notes)
     # the free ends beyond the tolerance: listed, not guessed
-    after_net = build_line_network(working_project(state))
+    after_net = build_line_network(working_project(state)) if fixes else net  # no end closed: the same lines
     rest = loose_ends(after_net, ("contact", "boundary"), tol)
     left: list[Left] = []
     far = ~rest.near_line

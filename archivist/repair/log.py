@@ -29,7 +29,23 @@ def _wkt(geom: Any) -> str | None:
     return shapely.to_wkt(geom, rounding_precision=6, trim=True)
 
 
-def change_entry(n: int, c: Change) -> dict[str, Any]:
+def _wkts(geoms: Sequence[Any]) -> list[str | None]:
+    """:func:`_wkt` of each geometry, by one call to GEOS's WKT writer for them all."""
+    import numpy as np
+    import shapely
+
+    arr = np.empty(len(geoms), dtype=object)
+    arr[:] = list(geoms)
+    out = np.full(len(arr), None, dtype=object)
+    ok = ~shapely.is_missing(arr)
+    ok[ok] = ~shapely.is_empty(arr[ok])
+    if ok.any():
+        out[ok] = shapely.to_wkt(arr[ok], rounding_precision=6, trim=True)
+    return out.tolist()
+
+
+def change_entry(n: int, c: Change, before_wkt: Any = False, after_wkt: Any = False) -> dict[str, Any]:
+    """The entry of change number ``n``; its WKT given when already written (False: written here)."""
     return {
         "change": n,
         "repair": c.repair,
@@ -40,14 +56,14 @@ def change_entry(n: int, c: Change) -> dict[str, Any]:
         "area_moved": round(float(c.area_moved), 6),
         "max_shift": round(float(c.max_shift), 6),
         "note": c.note,
-        "before_wkt": _wkt(c.before),
-        "after_wkt": _wkt(c.after),
+        "before_wkt": _wkt(c.before) if before_wkt is False else before_wkt,
+        "after_wkt": _wkt(c.after) if after_wkt is False else after_wkt,
     }
 
 
-def left_entry(x: Left) -> dict[str, Any]:
+def left_entry(x: Left, wkt: Any = False) -> dict[str, Any]:
     return {"repair": x.repair, "layer": x.layer, "features": list(x.features), "reason": x.reason,
-            "measure": round(float(x.measure), 6), "wkt": _wkt(x.geometry)}
+            "measure": round(float(x.measure), 6), "wkt": _wkt(x.geometry) if wkt is False else wkt}
 
 
 def log_document(project: str, repairs: Sequence[str], settings: RepairSettings, changes: Sequence[Change],
@@ -61,8 +77,9 @@ def log_document(project: str, repairs: Sequence[str], settings: RepairSettings,
         "settings": settings.record(),
         "findings_before": dict(sorted(before.items())),
         "findings_after": None if after is None else dict(sorted(after.items())),
-        "changes": [change_entry(i + 1, c) for i, c in enumerate(changes)],
-        "left": [left_entry(x) for x in left],
+        "changes": [change_entry(i + 1, c, b, a) for i, (c, b, a) in
+                    enumerate(zip(changes, _wkts([c.before for c in changes]), _wkts([c.after for c in changes])))],
+        "left": [left_entry(x, w) for x, w in zip(left, _wkts([x.geometry for x in left]))],
     }
 
 

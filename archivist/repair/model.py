@@ -178,7 +178,8 @@ class RepairState:
             if frame is not None and len(frame):
                 import pandas as pd
 
-                nums = pd.to_numeric(frame[FEATURE_ID].astype(str).str.rsplit(":", n=1).str[-1], errors="coerce")
+                tails = [str(v).rpartition(":")[2] for v in frame[FEATURE_ID].tolist()]  # as str.rsplit(":", n=1)[-1]
+                nums = pd.to_numeric(pd.Series(tails, dtype=object), errors="coerce")
                 top = int(nums.max()) if nums.notna().any() else 0
             self._counter[layer] = top
         self._counter[layer] += 1

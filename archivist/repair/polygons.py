@@ -99,6 +99,9 @@ def _codes(state: RepairState) -> np.ndarray:
     if state.unit_field is None or state.unit_field not in state.units.columns:
         return np.full(len(state.units), "", dtype=object)
     col = state.units[state.unit_field]
+    values = col.to_numpy(dtype=object)
+    if pd.api.types.infer_dtype(values, skipna=False) == "string":  # text in every row: stripped by str.strip, in C
+        return pd.Series(values, dtype=object).str.strip().to_numpy(dtype=object)
     return np.array(["" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v).strip() for v in col], dtype=object)
 
 
@@ -145,12 +148,20 @@ def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
     return out
 
 
-def _border(piece: np.ndarray, other: np.ndarray, eps: float) -> np.ndarray:
-    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``)."""
+def _border(piece: np.ndarray, other: np.ndarray, eps: float, near: np.ndarray | None = None) -> np.ndarray:
+    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``).
+
+    ``near``: :func:`_rims` of ``other`` when already made."""
     if not len(piece):
         return np.zeros(0)
-    near = shapely.buffer(shapely.boundary(other), eps, cap_style="flat")
+    if near is None:
+        near = _rims(other, eps)
     return shapely.length(shapely.intersection(shapely.boundary(piece), near))
+
+
+def _rims(polys: np.ndarray, eps: float) -> np.ndarray:
+    """The boundary of each polygon widened by ``eps`` (GEOS buffer, flat caps), as :func:`_border` measures along it."""
+    return shapely.buffer(shapely.boundary(polys), eps, cap_style="flat")
 
 
 def _age_rank(state: RepairState, codes: np.ndarray) -> np.ndarray:
@@ -167,8 +178,11 @@ def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.n
             geoms: np.ndarray, codes: np.ndarray, eps: float) -> tuple[np.ndarray, list[str]]:
     """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why."""
     # the piece's border with what is left of a runs along b's boundary, and the reverse
-    with_a = _border(pieces, geoms[b], eps)
-    with_b = _border(pieces, geoms[a], eps)
+    # each polygon's rim made once: a polygon grown over its neighbours is one side of every overlap it makes
+    rows, inv = np.unique(np.r_[a, b], return_inverse=True)
+    rim = _rims(geoms[rows], eps)[inv]
+    with_a = _border(pieces, geoms[b], eps, rim[len(a):])
+    with_b = _border(pieces, geoms[a], eps, rim[:len(a)])
     longest = with_a >= with_b
     notes = ["longest border"] * len(a)
     if settings.overlap == "larger":
@@ -741,13 +755,27 @@ def _single(geoms: np.ndarray) -> np.ndarray:
 
 # ---------------------------------------------------------------- merges
 
-def _shared_lengths(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Pairs (a, b) of polygons sharing edges (a clean coverage's twinned half-edges) and the length they share."""
+def _shared_lengths(geoms: np.ndarray, of: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Pairs (a, b) of polygons sharing edges (a clean coverage's twinned half-edges) and the length they share.
+
+    ``of`` (a mask): only the pairs with a polygon of it are needed. The
+    half-edge table is then built of those polygons and the ones whose boxes
+    meet theirs (every polygon drawing an edge of theirs touches them): each
+    of their edges is grouped with the same half-edges, in the same order,
+    as in the table of all polygons, so their pairs and lengths are the same.
+    Pairs of two other polygons may be missing or differ.
+    """
     from ..analysis.halfedges import build_edges
 
-    edges = build_edges(geoms)
+    rows = np.arange(len(geoms))
+    if of is not None:
+        have = np.flatnonzero(~shapely.is_missing(geoms))
+        mine = np.flatnonzero(of[have])
+        if len(have):
+            rows = have[np.unique(np.r_[mine, shapely.STRtree(geoms[have]).query(geoms[have[mine]])[1]])]
+    edges = build_edges(geoms[rows])
     sel = np.flatnonzero(edges.twin)
-    a, b = np.minimum(edges.left[sel], edges.right[sel]), np.maximum(edges.left[sel], edges.right[sel])
+    a, b = rows[np.minimum(edges.left[sel], edges.right[sel])], rows[np.maximum(edges.left[sel], edges.right[sel])]
     n = max(len(geoms), 1)
     key, inv = np.unique(a * n + b, return_inverse=True)
     length = np.bincount(inv, weights=edges.length[sel], minlength=len(key))
@@ -846,7 +874,7 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     sliver = (area < amin) | (wid < wmin)
     if not sliver.any():
         return [], []
-    a, b, length = _shared_lengths(geoms)
+    a, b, length = _shared_lengths(geoms, sliver)
     # directed: sliver s -> neighbour t, preferring the same code, then the longest edge, then a non-sliver
     s = np.r_[a, b]
     t = np.r_[b, a]
