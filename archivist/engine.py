@@ -14,6 +14,7 @@ from shapely.errors import GEOSException
 from ._version import __version__
 from .analysis.context import CheckContext
 from .analysis.localframe import LocalFrame, frame_for, in_frame
+from .collector import collector_paused
 from .errors import ArchivistError
 from .model import Finding, Hit, Report, Severity
 from .progress import Progress, Step
@@ -129,6 +130,7 @@ def finding_order(f: Finding) -> tuple[Any, ...]:
             f.measure is None, f.measure or 0.0, f.message, f.wkt or "", f.severity.rank)
 
 
+@collector_paused()
 def run_rules(project: MapProject, selected: Iterable[RuleInfo], progress: Progress | None = None, *,
               executor: Executor | None = None, parts: int = 1, threads: int = 1,
               context: CheckContext | None = None) -> Report:

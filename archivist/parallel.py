@@ -183,6 +183,7 @@ from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 
+from .collector import collector_paused
 from .model import Hit
 from .tally import ExactSum, totals
 
@@ -728,6 +729,7 @@ def run_inherited(task: InheritedTask) -> PartitionResult:
                                        task.reach, task.left_out, part.core, task.scale))
 
 
+@collector_paused()
 def run_partition(task: PartitionTask) -> PartitionResult:
     """Run ``task.rules`` on one partition's project; every hit with its place and whether the partition can trust it."""
     from shapely.errors import GEOSException

@@ -23,6 +23,7 @@ import shapely
 
 from . import manifest as mf
 from . import vectorio
+from .collector import collector_paused
 from .farcoords import far_out
 from .model import Hit
 from .progress import Progress
@@ -874,6 +875,7 @@ def _label(spec: dict[str, Any]) -> str:
     return f"{path}:{inner}" if inner else path
 
 
+@collector_paused()
 def load_project(path: str | Path, *, progress: Progress | None = None, manifest: dict[str, Any] | None = None) -> MapProject:
     """Load a map project from its folder or its ``archivist.toml``.
 

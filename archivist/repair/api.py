@@ -21,6 +21,7 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from .._version import __version__
+from ..collector import collector_paused
 from ..errors import ArchivistError
 from .model import FEATURE_ID, OVERLAP_RULES, SOURCE_LAYER, Change, Left, RepairSettings, RepairState
 
@@ -126,6 +127,7 @@ def _counts(report: Any) -> dict[str, int]:
     return dict(Counter(f.rule for f in report.findings))
 
 
+@collector_paused()
 def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] = (), skip: Iterable[str] = (),
            dry_run: bool = False, force: bool = False, build_polygons: bool = False, progress: Any = None) -> RepairResult:
     """Repair a copy of ``project`` into the folder ``out`` and check it.
