@@ -143,11 +143,13 @@ class Coverage:
         if self.union is not None:
             return np.asarray(shapely.covers(prepared_copy(self.union), lines), dtype=bool)
         extent = prepared_copy(self.extent)
-        ok = np.asarray(shapely.covered_by(lines, extent), dtype=bool)
+        # asked of the prepared geometry (GEOS uses its index only as the first operand): the extent's edge may
+        # have thousands of vertices, measured against every line otherwise
+        ok = np.asarray(shapely.covers(extent, lines), dtype=bool)
         out = np.flatnonzero(~ok)
         if len(out) and self.outside:
             beyond = shapely.difference(lines[out], extent)
-            ok[out] = shapely.covered_by(beyond, prepared_copy(shapely.union_all([p.geom for p in self.outside])))
+            ok[out] = shapely.covers(prepared_copy(shapely.union_all([p.geom for p in self.outside])), beyond)
         if self.gaps:
             li, gi = shapely.STRtree([p.geom for p in self.gaps]).query(lines, predicate="intersects")
             gaps = np.array([p.geom for p in self.gaps], dtype=object)
@@ -399,7 +401,13 @@ def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.nda
             cover[rows], failed[rows], reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table)
             lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(rows[failed[rows]], reasons)]
             start = stop
-    area = shapely.intersection(windows, extent) if extent is not None else windows
+    area = windows
+    if extent is not None:
+        # a window inside the extent is its own part of it; the others are cut (GEOS overlay, whose cost grows
+        # with the extent's vertices: asked of every window, it grew faster than the map)
+        cut = ~shapely.contains_properly(prepared_copy(extent), windows)
+        area = windows.copy()
+        area[cut] = shapely.intersection(windows[cut], extent)
     left, bad, reasons = elementwise(shapely.difference, area, cover)
     lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(np.flatnonzero(bad & ~failed), reasons)]
     left[bad | failed] = None
@@ -739,7 +747,9 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             reasons = reasons + more
             gi, ui = gi[along], ui[along]
             eb = shapely.boundary(extent)
-            at_edge = shapely.length(shapely.intersection(shapely.boundary(gaps), eb)) > 0
+            at_edge = np.zeros(len(gaps), dtype=bool)
+            touch = np.flatnonzero(shapely.intersects(prepared_copy(eb), gaps))  # the extent's edge indexed once
+            at_edge[touch] = shapely.length(shapely.intersection(shapely.boundary(gaps[touch]), eb)) > 0
             w = w.astype(float)
             on_frame = np.zeros(len(gaps), dtype=bool)
             thin = np.flatnonzero(at_edge & (w <= tol * ABOVE) & ~lost)
