@@ -276,6 +276,12 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
             continue
         new[lo] = cut
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
+    # ground under three polygons or more whose choices go round (each keeps its overlap with the next and loses
+    # the one with the one before) would be lost by all of them: a gap where the map had none. It stays with one
+    pieces, new = _kept_once(geoms, new, winner, loser, pieces, noise_floor(_scale(geoms)))
+    some = ~shapely.is_empty(pieces)
+    winner, loser, pieces, why = winner[some], loser[some], pieces[some], [w for w, k in zip(why, some) if k]
+    area = shapely.area(pieces)
     empty = shapely.is_empty(new)
     _set(state, new, ~empty)
     if not empty.any() and _still_covered(new, winner, loser, pieces):
@@ -285,6 +291,55 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
                       (str(codes[w]), str(codes[lo])), float(ar), float(mv), geoms[lo], p, f"overlap kept by {ids[w]} ({note})")
                for w, lo, p, ar, mv, note in zip(winner, loser, pieces, area, moved, why)]
     return changes, left
+
+
+def _kept_once(geoms: np.ndarray, new: np.ndarray, winner: np.ndarray, loser: np.ndarray, pieces: np.ndarray,
+               floor: float) -> tuple[np.ndarray, np.ndarray]:
+    """The overlap pieces and cut polygons with no ground lost by every polygon over it.
+
+    Each overlap piece is cut out of its loser only, so ground under three
+    polygons or more is kept by one of them unless their choices go round in
+    a circle (a keeps its overlap with b, b with c, c with a): then each
+    loses it and nobody keeps it. Only a polygon that keeps one piece and
+    loses another can be part of such a circle, so only the pieces of such
+    polygons are measured (GEOS difference). Ground no polygon holds after
+    the cut stays with the one among those over it that keeps the most of
+    their overlaps with each other (ties: the first in the layer): it is
+    taken out of the pieces that polygon loses, so the change log moves it
+    nowhere. Returns the pieces (some may be empty) and the polygons as cut.
+    """
+    both = np.flatnonzero(np.isin(winner, loser))
+    if not len(both):
+        return pieces, new
+    try:
+        lost = above_noise(_parts(shapely.union_all(shapely.difference(pieces[both], new[winner[both]]))), floor)
+    except GEOSException:
+        return pieces, new
+    if not len(lost):
+        return pieces, new
+    tree = shapely.STRtree(pieces)
+    kept: list[tuple[int, np.ndarray, Any]] = []  # (the polygon keeping it, the pieces it no longer loses, the ground)
+    for part in lost:  # few: where three polygons or more overlap
+        ks = tree.query(part, predicate="intersects")
+        ks = ks[shapely.area(shapely.intersection(pieces[ks], part)) > 0]
+        over = np.unique(np.r_[winner[ks], loser[ks]])
+        try:
+            hole = shapely.difference(part, shapely.union_all(new[over]))  # empty unless their choices go round
+        except GEOSException:
+            continue
+        for u in above_noise(_parts(hole), floor):
+            kk = ks[shapely.area(shapely.intersection(pieces[ks], u)) > 0]
+            wins = {int(o): int((winner[kk] == o).sum()) for o in over.tolist()}
+            owner = min(wins, key=lambda o: (-wins[o], o))
+            kept.append((owner, kk[loser[kk] == owner], u))
+    if not kept:
+        return pieces, new
+    pieces, new = pieces.copy(), new.copy()
+    for owner, mine, u in kept:
+        pieces[mine] = shapely.difference(pieces[mine], u)
+    for o in {owner for owner, _, _ in kept}:  # one per polygon keeping such ground
+        new[o] = shapely.difference(geoms[o], shapely.union_all(pieces[loser == o]))
+    return pieces, new
 
 
 GAPS_OF = "gaps"  # key of RepairState.analyses: the units and coverage whose gaps are still the working units' gaps
