@@ -25,7 +25,7 @@ N), and whether the reports are identical (findings: rule, severity, layer,
 features, message, place, measure, geometry, in order; notes; rules run).
 The machine's load (``os.getloadavg``) is printed beside each figure: the
 speed-up needs the cores to be free. ``--timeline`` runs one more check per
-N timed inside (:func:`timeline`): when the workers start, each partition's
+N timed inside (:func:`timeline`): when the tasks are sent, each partition's
 run and CPU, the merge, the end; what lies outside the partitions runs on one
 core. Exits 1 when reports differ.
 Target: speed-up >= 1.6 with 2 jobs on 2 cores at 10^5 polygons.
@@ -66,7 +66,7 @@ def handed_back(project, jobs: int) -> list[str]:
 
 
 def timeline(folder: Path, jobs: int) -> str:
-    """Where the time of one ``check(jobs=N)`` goes, from the call: the parent's work before the workers start
+    """Where the time of one ``check(jobs=N)`` goes, from the call: the parent's work until the tasks are sent
     (cutting the map among it), each partition's run (start, end, CPU; measured in the worker), the merge, the end.
 
     ``time.perf_counter`` is the system's monotonic clock on Linux, the same in the forked workers. Each worker
@@ -140,7 +140,7 @@ def main(argv=None) -> int:
     ap.add_argument("--explain", action="store_true", help="with --processes: the rules handed back to the whole map")
     ap.add_argument("--partitioned", action="store_true", help="run only the rules registered partitioned")
     ap.add_argument("--timeline", action="store_true",
-                    help="one more check per N, timed inside: before the workers, each partition, the merge")
+                    help="one more check per N, timed inside: until the tasks are sent, each partition, the merge")
     args = ap.parse_args(argv)
     jobs_list = args.jobs or sorted({2, default_jobs()} - {1})
     rules = [r.id for r in all_rules() if r.partitioned] if args.partitioned else []
