@@ -45,11 +45,20 @@ def far_out(geoms: np.ndarray, crs: pyproj.CRS | None) -> tuple[np.ndarray, np.n
     """
     geoms = np.asarray(geoms, dtype=object)
     n = len(geoms)
+    limit = coordinate_limit(crs)
+    coords = shapely.get_coordinates(geoms, include_z=False)
+    if bool((np.abs(coords.ravel()) <= limit).all()):  # False for NaN: every coordinate finite and near
+        # the common case, without an index per coordinate: with every coordinate finite, each geometry's bounds
+        # are the least and greatest of its own coordinates, exactly, so its largest |x|, |y| is the largest of
+        # their absolute values (NaN bounds: a missing or empty geometry, 0)
+        b = np.abs(shapely.bounds(geoms))
+        largest = np.maximum(np.maximum(b[:, 0], b[:, 1]), np.maximum(b[:, 2], b[:, 3]))  # by columns: faster
+        return np.zeros(n, dtype=bool), np.nan_to_num(largest, nan=0.0)
     coords, index = shapely.get_coordinates(geoms, include_z=False, return_index=True)
     x, y = coords[:, 0], coords[:, 1]  # column by column: numpy reduces a short axis slowly
     magnitude = np.maximum(np.abs(x), np.abs(y))  # NaN where either is NaN
     finite = np.isfinite(x) & np.isfinite(y)
-    broken = ~finite | (magnitude > coordinate_limit(crs))
+    broken = ~finite | (magnitude > limit)
     mask = np.bincount(index, weights=broken, minlength=n) > 0
     largest = np.zeros(n)
     if len(index):

@@ -39,6 +39,23 @@ def test_largest_coordinate_matches_the_loop_with_missing_empty_and_broken_geome
     assert np.flatnonzero(mask).tolist() == [11, 13, 17]
 
 
+def test_largest_coordinate_of_a_layer_with_no_broken_coordinate_matches_the_loop():
+    # every coordinate finite and near: the largest comes from each geometry's bounds, which must be its coordinates'
+    rng = np.random.default_rng(8)
+    geoms = [shapely.polygons(rng.uniform(-1e6, 1e6, size=(rng.integers(3, 9), 2)).tolist() + [[0.0, 0.0]])
+             if i % 3 else shapely.linestrings(rng.uniform(-5e8, -1e3, size=(4, 2))) for i in range(90)]
+    geoms[4] = None
+    geoms[9] = shapely.Polygon()
+    geoms[20] = shapely.multipoints([[-7.5e8, 3.0], [2.0, 1.0]])
+    geoms[30] = shapely.GeometryCollection([shapely.Point(1.0, -9.25e8), shapely.LineString([(0, 0), (1, 1)])])
+    arr = np.array(geoms, dtype=object)
+    mask, largest = far_out(arr, pyproj.CRS("EPSG:32633"))
+    assert not mask.any()
+    assert np.array_equal(largest, largest_by_loop(arr))
+    assert largest[4] == 0 and largest[9] == 0 and largest[20] == 7.5e8 and largest[30] == 9.25e8
+    assert far_out(np.array([None, shapely.Point()], dtype=object), None)[1].tolist() == [0.0, 0.0]
+
+
 def test_a_layer_finds_its_far_coordinates_once_and_as_far_out_does(tmp_path):
     from builders import tiny_project
 

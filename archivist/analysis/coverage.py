@@ -53,7 +53,6 @@ import numpy as np
 import shapely
 from shapely.errors import GEOSException
 
-from ..farcoords import far_out
 from .arrays import (
     canonical,
     coord_hash,
@@ -173,7 +172,7 @@ def extent_of(project: MapProject, union: Any, tol: float = 0.0) -> tuple[Any, b
     layer = project.layers.get("extent")
     if layer is not None:
         geoms = polygonal(layer.geometry, layer.valid)
-        geoms = geoms[~shapely.is_missing(geoms) & ~far_out(layer.geometry, layer.crs)[0]]
+        geoms = geoms[~shapely.is_missing(geoms) & ~layer.far[0]]
         if len(geoms):
             return shapely.union_all(geoms), True
     if union is None or shapely.is_empty(union):
@@ -223,7 +222,7 @@ def map_scale(project: MapProject) -> float:
         if layer is None or not len(layer.frame):
             continue
         g = layer.geometry
-        keep = ~(shapely.is_missing(g) | shapely.is_empty(g)) & ~far_out(g, layer.crs)[0]
+        keep = ~(shapely.is_missing(g) | shapely.is_empty(g)) & ~layer.far[0]
         if keep.any():
             scale = max(scale, _scale_of(shapely.box(*shapely.total_bounds(g[keep]))))
     return scale

@@ -15,7 +15,6 @@ import numpy as np
 import pandas as pd
 import shapely
 
-from ..farcoords import far_out
 from ..model import Hit, Severity
 from .messages import layer_feature, offset
 
@@ -71,7 +70,7 @@ def points_outside(project: MapProject, ctx: CheckContext, role: str) -> tuple[O
     if extent is None or layer is None:
         return ()
     geoms = layer.geometry
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & ~far_out(geoms, layer.crs)[0]
+    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & ~layer.far[0]
     idx = np.flatnonzero(ok)
     dist = shapely.distance(extent.geometry, geoms[idx])
     crs = project.crs or layer.crs
