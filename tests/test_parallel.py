@@ -165,6 +165,39 @@ def _plan_of_two() -> parallel.Plan:
     return parallel.Plan(grid, owner, parts, 5.0, 1.0)
 
 
+def test_a_partition_result_pickles_its_geometries_in_bulk_and_back_the_same_to_the_last_bit():
+    # the parent reads each partition's hits back: every field of every hit as sent, geometries bit for bit (WKB
+    # holds the 64 bits of each coordinate; the SRID and Z as shapely pickles one geometry)
+    from archivist.model import Severity
+    from archivist.tally import ExactSum
+
+    line = shapely.set_srid(shapely.LineString([(0.1, 1 / 3), (2e5 + 1e-7, 7.0)]), 32633)
+    hits = (
+        ("unit-gap", Hit("a gap", layer="units", features=("1", "2"), measure=0.1 + 0.2,
+                         geometry=shapely.Polygon([(0, 0), (1, 0), (0, 1 / 7)])), 0.5, np.nan, True),
+        ("line-dangle", Hit("an end", layer="lines", geometry=line, severity=Severity.parse("warning"), detail=(1, "x")),
+         1.0, 2.0, False),
+        ("unit-code-missing", Hit("no code", features=("9",), x=3.0, y=4.0), 3.0, 4.0, True),
+        ("line-duplicate", Hit("z", geometry=shapely.Point(1.0, 2.0, 3.5)), 1.0, 2.0, True),
+        ("line-duplicate", Hit("empty", geometry=shapely.LineString()), np.nan, np.nan, False),
+    )
+    result = parallel.PartitionResult(3, hits, ("unit-overlap",), ("a note",), (("boundary-without-line", "n", ExactSum()),))
+    back = pickle.loads(pickle.dumps(result, protocol=pickle.HIGHEST_PROTOCOL))
+    assert (back.index, back.failed, back.notes, back.tallies) == (3, ("unit-overlap",), ("a note",), result.tallies)
+    assert len(back.hits) == len(hits)
+    for (rid, hit, x, y, t), (rid2, hit2, x2, y2, t2) in zip(hits, back.hits):
+        assert (rid, t) == (rid2, t2) and np.array_equal([x, y], [x2, y2], equal_nan=True)
+        assert {k: v for k, v in vars(hit).items() if k != "geometry"} == {k: v for k, v in vars(hit2).items() if k != "geometry"}
+        if hit.geometry is None:
+            assert hit2.geometry is None
+        else:
+            assert shapely.to_wkb(hit2.geometry, include_srid=True) == shapely.to_wkb(hit.geometry, include_srid=True)
+            assert shapely.get_srid(hit2.geometry) == shapely.get_srid(hit.geometry)
+    assert shapely.has_z(back.hits[3][1].geometry) and back.hits[4][1].geometry.is_empty
+    empty = pickle.loads(pickle.dumps(parallel.PartitionResult(0, (), (), ())))
+    assert empty == parallel.PartitionResult(0, (), (), ())
+
+
 def test_merge_keeps_owned_hits_and_sends_a_rule_the_partitions_cannot_judge_to_the_whole_map():
     plan = _plan_of_two()
     near0, near1 = Hit("at 0", x=0.5, y=0.5), Hit("at 1", x=10.5, y=0.5)
