@@ -29,6 +29,27 @@ def test_dwithin_pairs_equal_the_strtree_query_with_a_frame_line_of_many_vertice
     assert np.array_equal(np.stack(dwithin_pairs(tree, refs, stretches, 2.0)), tree.query(stretches, predicate="dwithin", distance=2.0))
 
 
+def test_dwithin_pairs_equal_the_strtree_query_when_the_large_geometry_is_among_those_asked():
+    # a partition's frame line asked against the lines near it (GEOS's STRtree query as the reference): every
+    # pair it meets, and pairs of two large geometries, the same as GEOS tests them pair by pair
+    rng = np.random.default_rng(11)
+    starts = rng.uniform(0, 1000, size=(300, 2))
+    lines = [shapely.linestrings([p, p + rng.uniform(-20, 20, 2)]) for p in starts]
+    frame = shapely.segmentize(shapely.boundary(shapely.box(0, 0, 1000, 1000)), 1.0)
+    wiggle = shapely.linestrings(np.c_[np.linspace(0, 1000, 3 * BIG), 500 + 5 * np.sin(np.arange(3 * BIG))])
+    edge = shapely.linestrings([[0.0, 0.4], [1000.0, 2.0]])  # small, along the frame's lower side
+    refs = np.array(lines + [edge, wiggle], dtype=object)
+    tree = shapely.STRtree(refs)
+    asked = np.array([lines[3], frame, lines[9], wiggle, frame], dtype=object)
+    for d in (0.0, 0.5, 3.0):
+        expected = tree.query(asked, predicate="dwithin", distance=d)
+        got = dwithin_pairs(tree, refs, asked, d)
+        assert np.array_equal(np.stack(got), expected)
+    got = dwithin_pairs(tree, refs, asked, 3.0)
+    assert len(refs) - 2 in got[1][got[0] == 1]  # the frame meets the edge beside it
+    assert not shapely.is_prepared(frame) and not shapely.is_prepared(wiggle)
+
+
 def test_one_reference_within_and_distances_equal_geos_pair_by_pair():
     from archivist.analysis.nearness import point_distances, within_of
 
