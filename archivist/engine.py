@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 from concurrent.futures import Executor
 from itertools import groupby
 from pathlib import Path
@@ -257,7 +258,12 @@ def _run_in_turn(
     logs: dict[str, tuple[list[Any], list[Any]]] = {info.id: ([], []) for _, group in groups for info in group}
     findings: list[Finding] = []
     ran: list[str] = []
-    batches = _batches(groups, skipped, contexts) if executor is not None else {}
+    ahead = _validity_ahead(ctx.project) if executor is not None else None
+    try:
+        batches = _batches(groups, skipped, contexts) if executor is not None else {}
+    finally:
+        if ahead is not None:  # before any worker is forked: no thread of ours inside GEOS then
+            ahead.join()
     sent: dict[bool, Any] = {}
     merged: dict[bool, Any] = {}  # per batch (as read, or in the local frame): the partitions' answer
     try:
@@ -295,6 +301,34 @@ def _run_in_turn(
     notes = ctx.ordered_notes(logs[rid][0] for rid in order)
     local_notes = local.ordered_notes(logs[rid][1] for rid in order) if local is not ctx else notes
     return findings, ran, notes, local_notes
+
+
+def _validity_ahead(project: MapProject) -> threading.Thread:
+    """A thread asking GEOS the validity of every layer (``Layer.valid``) while the calling one aligns the layers.
+
+    Before the partitions are sent the calling thread aligns the layers, on
+    one core. A partitioned check asks every layer's validity anyway (the
+    metadata rule ``geometry-invalid``, the polygons of the topology family),
+    and GEOS answers without the GIL, so the other core answers it then; the
+    partitions get their rows' answers with their rows
+    (:func:`archivist.parallel.sub_project`). The caller joins the thread
+    before it forks. A GEOS error here is left for the rule that asks again.
+    """
+    from .threads import busy
+
+    layers = [layer for layer in project.sources.values() if "valid" not in layer.__dict__]
+
+    def work() -> None:
+        with busy():
+            for layer in layers:
+                try:
+                    layer.valid
+                except Exception:  # noqa: BLE001 - asked again, and reported, where a rule reads it
+                    pass
+
+    thread = threading.Thread(target=work, name="archivist-validity", daemon=True)
+    thread.start()
+    return thread
 
 
 def _batches(groups: list[tuple[str, list[RuleInfo]]], skipped: Callable[[RuleInfo], bool],

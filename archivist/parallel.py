@@ -303,8 +303,8 @@ class ForkPool(Executor):
     """Worker processes forked from this one once the project is in memory; a partition task names it, not carries it.
 
     :meth:`share` puts a project where a forked process finds it; the
-    processes are forked at the first task after it (again after a project
-    not yet shared), so a task sends only the partition's rows and cells and
+    processes are forked at :meth:`start` or the first task after it (again
+    after a project not yet shared), so a task sends only the partition's rows and cells and
     the worker cuts its partition from the project it inherited
     (:func:`run_inherited`). Nothing of the map is pickled on the way out;
     the hits come back pickled. Only where the system forks (not Windows;
@@ -327,15 +327,21 @@ class ForkPool(Executor):
             self._pool = None
         return key
 
-    def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Future:
+    def start(self) -> None:
+        """Fork the processes now (else at the first task), so that they start while this one plans their tasks."""
         if self._pool is None:
             import multiprocessing
             from concurrent.futures import ProcessPoolExecutor
 
-            # every process is forked at the first task (fork start method): each holds what is shared now
+            # every process holds what is shared now (fork start method)
             self._pool = ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("fork"),
                                              initializer=_quiet_worker)
             self._forked_with = set(_SHARED)
+            # ProcessPoolExecutor forks every process at its first task: an empty one forks them now
+            self._pool.submit(_nothing)
+
+    def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Future:
+        self.start()
         return self._pool.submit(fn, *args, **kwargs)
 
     def shutdown(self, wait: bool = True, *, cancel_futures: bool = False) -> None:
@@ -348,6 +354,10 @@ class ForkPool(Executor):
                 stop_executor(pool)
             else:
                 pool.shutdown(wait=True)
+
+
+def _nothing() -> None:
+    """A task that does nothing (it makes a pool start its processes)."""
 
 
 def _quiet_worker() -> None:
@@ -617,6 +627,12 @@ def _cells_polygon(grid: Grid, marked: np.ndarray) -> Any:
 def _sub_layer(layer: Any, rows: np.ndarray) -> Any:
     frame = layer.frame.iloc[rows]
     sub = replace(layer, frame=frame, ids=np.asarray(layer.ids)[rows], parts=())
+    # the answers per feature the layer holds already (its validity, its far coordinates), for these rows
+    known = layer.__dict__
+    if "valid" in known:
+        sub.__dict__["valid"] = known["valid"][rows]
+    if "far" in known:
+        sub.__dict__["far"] = (known["far"][0][rows], known["far"][1][rows])
     return sub
 
 
@@ -937,10 +953,13 @@ class Sent:
         self.asked = tuple(info.id for info in rules)
         self.rules = [info for info in rules if info.id not in self.ahead]
         self.ids = tuple(info.id for info in self.rules)
+        self.key = None
+        if self.ids and isinstance(executor, ForkPool):
+            self.key = executor.share(project)
+            executor.start()  # the processes start while this one plans their tasks
         self.plan = (plan or plan_partitions(project, parts)) if self.ids else None
         # the whole map's scale: a partition's noise floor is the whole map's (archivist.analysis.coverage.map_scale)
         self.scale = map_scale(project) if self.ids and "units" in project.layers else None
-        self.key = executor.share(project) if self.ids and isinstance(executor, ForkPool) else None
         self.window = 2 * max(1, int(getattr(executor, "workers", 0) or getattr(executor, "_max_workers", 0) or default_jobs()))
         self.queue = list(self.plan.partitions) if self.plan is not None else []
         self.running: set[Future] = set()

@@ -290,6 +290,54 @@ def test_forked_workers_read_the_map_from_their_parent_and_find_what_one_process
     assert not parallel._SHARED  # shutting the pool down lets go of the project
 
 
+def test_a_fork_pool_started_ahead_forks_its_processes_before_any_task(tmp_path):
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")
+    project = _grid_project(tmp_path)
+    before = len(multiprocessing.active_children())
+    pool = parallel.make_executor(2, "fork")
+    assert isinstance(pool, parallel.ForkPool)
+    try:
+        key = pool.share(project)
+        pool.start()
+        assert len(multiprocessing.active_children()) == before + 2  # forked now, holding the project shared
+        plan = parallel.plan_partitions(project, 2)
+        part = plan.partitions[1]
+        got = pool.submit(parallel.run_inherited, parallel.InheritedTask(key, part, ("unit-sliver",), plan.grid,
+                                                                          plan.reach)).result()
+        assert got.index == 1
+    finally:
+        pool.shutdown()
+
+
+def test_a_partition_gets_the_answers_its_layer_holds_for_its_rows(tmp_path):
+    from archivist.farcoords import far_out
+
+    project = _grid_project(tmp_path)
+    layer = project.layers["units"]
+    plan = parallel.plan_partitions(project, 2)
+    part = plan.partitions[1]
+    fresh = parallel.sub_project(project, part).layers["units"]
+    assert "valid" not in fresh.__dict__ and "far" not in fresh.__dict__  # nothing known: nothing carried
+    layer.valid, layer.far
+    sub = parallel.sub_project(project, part).layers["units"]
+    assert "valid" in sub.__dict__ and "far" in sub.__dict__
+    # the rows' answers, as GEOS and far_out give them for the partition's own geometries
+    assert sub.valid.tolist() == shapely.is_valid(sub.geometry).tolist() == layer.valid[part.rows["units"]].tolist()
+    mask, largest = far_out(sub.geometry, sub.crs)
+    assert sub.far[0].tolist() == mask.tolist() and np.array_equal(sub.far[1], largest)
+
+
+def test_the_validity_asked_ahead_is_geos_answer_for_every_source_layer(tmp_path):
+    project = _grid_project(tmp_path)
+    engine._validity_ahead(project).join()
+    for layer in project.sources.values():
+        assert "valid" in layer.__dict__
+        assert layer.valid.tolist() == shapely.is_valid(layer.geometry).tolist()
+
+
 def test_a_family_runs_on_partitions_only_when_each_of_its_rules_can(tmp_path):
     project = _grid_project(tmp_path)
     sent = []
