@@ -249,15 +249,13 @@ def _run_in_turn(
 
     With an executor, the families whose every running rule is partitioned
     are sent to the partitions first (:func:`_batches`, :class:`archivist.parallel.Sent`),
-    and the other families run here while the workers run those; each
-    partitioned rule's findings take their place when its family's turn
-    comes. Notes are recorded per rule and given in the order of a run in
+    and the other families run here first, while the workers run those;
+    then the partitions' findings are merged. Findings and the rules run are
+    given in the order of the families whatever order they ran in. Notes are recorded per rule and given in the order of a run in
     one thread (:meth:`CheckContext.ordered_notes`), whichever computation
     made them first.
     """
     logs: dict[str, tuple[list[Any], list[Any]]] = {info.id: ([], []) for _, group in groups for info in group}
-    findings: list[Finding] = []
-    ran: list[str] = []
     ahead = _validity_ahead(ctx.project) if executor is not None else None
     try:
         batches = _batches(groups, skipped, contexts) if executor is not None else {}
@@ -274,16 +272,25 @@ def _run_in_turn(
             _, _, run_ctx = contexts(batch[0])
             with ctx.recording([]), run_ctx.recording([]):  # its notes come with the rules that read it, in their turn
                 sent[as_read] = Sent(run_ctx.view(), batch, executor, parts, run_ctx.left_out())
-        for family, group in groups:
-            key = next((k for k, b in batches.items() if any(i.family == family for i in b)), None)
+        # the families that stay here run first, while the workers run the partitions; the findings and rules
+        # run are then given in the order of the families
+        batched = {info.family for b in batches.values() for info in b}
+        turns = [k for k, (family, _) in enumerate(groups) if family not in batched] + \
+                [k for k, (family, _) in enumerate(groups) if family in batched]
+        found: dict[int, list[Finding]] = {}
+        ran_in: dict[int, list[str]] = {}
+        for k in turns:
+            family, group = groups[k]
+            key = next((side for side, b in batches.items() if any(i.family == family for i in b)), None)
             batch = batches[key] if key is not None else []
+            mine, ran_here = found.setdefault(k, []), ran_in.setdefault(k, [])
             with progress.step(f"{family} rules", total=len(group) + (parts if key is not None and key not in merged else 0)) as step:
                 for info in group:
                     with ctx.recording(logs[info.id][0]):  # skipping reads the alignment: its notes come at this rule
                         if skipped(info):
                             step.advance()
                             continue
-                    ran.append(info.id)
+                    ran_here.append(info.id)
                     _, _, run_ctx = contexts(info)
                     with run_ctx.recording(logs[info.id][0] if run_ctx is ctx else logs[info.id][1]):
                         if info in batch and key is not None and key not in merged:
@@ -292,7 +299,9 @@ def _run_in_turn(
                                 run_ctx.note(text)
                         answer = merged.get(key) if info in batch and key is not None else None
                         given = answer.hits[info.id] if answer is not None and info.id in answer.hits else None
-                        findings += run_one(info, step, given)
+                        mine += run_one(info, step, given)
+        findings = [f for k in range(len(groups)) for f in found.get(k, [])]
+        ran = [rid for k in range(len(groups)) for rid in ran_in.get(k, [])]
     except BaseException:
         for job in sent.values():
             job.cancel()
