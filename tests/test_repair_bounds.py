@@ -113,6 +113,10 @@ def broken(n: int, seed: int, grow: float, shrink: float, nudge: float):
 # a thin leftover of a gap, past the reach of the shrunk polygon, lying along one neighbour and touching another
 # at its end: it must go to the one it lies along, or snapping folds the spike away by more than the tolerance
 @example(n=12, seed=1, grow=0.5, shrink=0.8087160013133655, nudge=0.5)
+# the corner of a gap left by the shrunk polygon beyond its reach: what the shrunk polygon takes back and what remains
+# must be cut by one overlay, or the remainder keeps hair-thin slivers along both neighbours' edges, one neighbour
+# gains a spike 1 m long with a new vertex, and snapping folds the shrunk polygon's corner onto it (1.004 m)
+@example(n=37, seed=4665, grow=0.2808388678287442, shrink=0.6767721449984323, nudge=0.05043429032558196)
 def test_repair_bounds_on_generated_maps(tmp_path_factory, n, seed, grow, shrink, nudge):
     tmp = tmp_path_factory.mktemp("bounds")
     smap = broken(n, seed, grow, shrink, nudge)
@@ -146,18 +150,17 @@ def test_repair_bounds_on_generated_maps(tmp_path_factory, n, seed, grow, shrink
 
 
 # Generated maps the property still fails on, each run on its own and expected to fail until the cause is repaired.
-# Both are corners of a thin gap left by the shrunk polygon: fill-gaps gives it back what lies within the gap width
-# of it and the corner beyond to a neighbour, which leaves a thin spike or narrow tip at the corner (on the shrunk polygon or the
-# neighbour); GEOS's coverage cleaning then folds the spike away, moving each vertex by no more than the snapping
-# distance but the boundary by more (Hausdorff distance 1.148 m and 1.004 m at a 1 m tolerance), so snap-edges
+# A corner where the grown polygon meets two neighbours: resolve-overlaps gives the grown polygon its overlap with one
+# neighbour (longest border) and the other neighbour keeps its own, which leaves the first neighbour a narrow wedge
+# between them up to the old corner; GEOS's coverage cleaning then folds the wedge away, moving each vertex by no more
+# than the snapping distance but the boundary by more (Hausdorff distance 1.148 m at a 1 m tolerance), so snap-edges
 # holds that polygon back and its misaligned edges stay.
 SPIKE_FOLDED_BY_SNAPPING = [
     dict(n=19, seed=388, grow=0.5, shrink=0.5, nudge=0.5),
-    dict(n=37, seed=4665, grow=0.2808388678287442, shrink=0.6767721449984323, nudge=0.05043429032558196),
 ]
 
 
-@pytest.mark.xfail(strict=True, reason="a spike fill-gaps leaves at a gap's corner is folded away by snapping further "
+@pytest.mark.xfail(strict=True, reason="a wedge resolve-overlaps leaves at a corner is folded away by snapping further "
                                        "than the snapping distance; the polygon is held back and its edges stay misaligned")
 @pytest.mark.parametrize("case", SPIKE_FOLDED_BY_SNAPPING)
 def test_repair_bounds_where_snapping_folds_a_corner_spike(tmp_path_factory, case):
