@@ -117,6 +117,9 @@ def broken(n: int, seed: int, grow: float, shrink: float, nudge: float):
 # must be cut by one overlay, or the remainder keeps hair-thin slivers along both neighbours' edges, one neighbour
 # gains a spike 1 m long with a new vertex, and snapping folds the shrunk polygon's corner onto it (1.004 m)
 @example(n=37, seed=4665, grow=0.2808388678287442, shrink=0.6767721449984323, nudge=0.05043429032558196)
+# a gap along the shrunk polygon joined to the thin wedge a moved vertex opened between two other polygons: the shrunk
+# polygon takes no more of the wedge than twice the gap's width, or snapping folds the spike it took away (1.001 m)
+@example(n=22, seed=1231, grow=0.4338404428932123, shrink=0.05641629498264463, nudge=0.1869338879273492)
 def test_repair_bounds_on_generated_maps(tmp_path_factory, n, seed, grow, shrink, nudge):
     tmp = tmp_path_factory.mktemp("bounds")
     smap = broken(n, seed, grow, shrink, nudge)
