@@ -424,8 +424,9 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     if not len(gi):
         return [], left
     # per gap, its neighbours by shared border, longest first (ties: the first in the file); the first takes
-    # the part of the gap within the gap width of it, and each part of the rest goes the same way among the
-    # others (ranked by their border with that part), so no polygon's boundary moves further than the gap width;
+    # the part of the gap within reach of it (twice the gap's own width, at most the gap width), and each part of
+    # the rest goes the same way among the others (ranked by their border with that part), so no polygon's
+    # boundary moves further than the gap width;
     # what no neighbour reaches (a corner along the map edge) is left and listed. A gap along one polygon goes
     # to it whole.
     order = np.lexsort((ui, -shared, gi))
