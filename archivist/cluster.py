@@ -78,6 +78,7 @@ import shutil
 import signal
 import tempfile
 import threading
+import warnings
 from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Iterator
@@ -274,7 +275,11 @@ def open_executor(
         local = cluster is not None
         executor = ReadingExecutor(client.get_executor(pure=False), read=not local if read_on_workers is None else read_on_workers)
         executor.workers = max(1, sum(client.nthreads().values()))  # threads across the workers: tasks at once
-        yield executor
+        with warnings.catch_warnings():
+            # a task carrying its partition's features (local, or a worker that could not read them) is a large
+            # graph by design; distributed warns of each one, hundreds of lines on a large map
+            warnings.filterwarnings("ignore", message="Sending large graph", category=UserWarning)
+            yield executor
     finally:
         with _no_sigint():
             _close(executor, client, cluster)
