@@ -325,7 +325,7 @@ def _validity_ahead(project: MapProject) -> threading.Thread:
     """
     from .threads import busy
 
-    layers = [layer for layer in project.sources.values() if "valid" not in layer.__dict__]
+    layers = list(project.sources.values())  # an answer already known is read back at once
 
     def work() -> None:
         with busy():

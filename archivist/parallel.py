@@ -624,21 +624,9 @@ def _cells_polygon(grid: Grid, marked: np.ndarray) -> Any:
     return shapely.union_all(boxes) if len(boxes) else None
 
 
-def _sub_layer(layer: Any, rows: np.ndarray) -> Any:
-    frame = layer.frame.iloc[rows]
-    sub = replace(layer, frame=frame, ids=np.asarray(layer.ids)[rows], parts=())
-    # the answers per feature the layer holds already (its validity, its far coordinates), for these rows
-    known = layer.__dict__
-    if "valid" in known:
-        sub.__dict__["valid"] = known["valid"][rows]
-    if "far" in known:
-        sub.__dict__["far"] = (known["far"][0][rows], known["far"][1][rows])
-    return sub
-
-
 def sub_project(project: MapProject, partition: Partition) -> MapProject:
     """The project of one partition: its core and halo rows of each partitioned layer; other layers and tables whole."""
-    layers = {role: (_sub_layer(layer, partition.rows[role]) if role in partition.rows else layer)
+    layers = {role: (layer.take(partition.rows[role]) if role in partition.rows else layer)
               for role, layer in project.layers.items()}
     # the extent stays whole: a partition's gaps are traced within its region, measured against the whole extent
     # (archivist.analysis.coverage.analyse_coverage)

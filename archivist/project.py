@@ -100,6 +100,17 @@ class Layer:
         largest of each), computed once per load: the metadata rule and every analysis that leaves them out ask."""
         return far_out(self.geometry, self.crs)
 
+    def take(self, rows: np.ndarray) -> "Layer":
+        """The layer of the features at positions ``rows`` (a spatial partition's), with the answers per feature
+        already computed (:attr:`valid`, :attr:`far`) for those rows, not asked again."""
+        sub = replace(self, frame=self.frame.iloc[rows], ids=np.asarray(self.ids)[rows], parts=())
+        known = self.__dict__
+        if "valid" in known:
+            sub.__dict__["valid"] = known["valid"][rows]
+        if "far" in known:
+            sub.__dict__["far"] = (known["far"][0][rows], known["far"][1][rows])
+        return sub
+
     def field(self, key: str) -> str | None:
         """The attribute column named by manifest key ``key`` (e.g. ``unit_field``), if it is in the data."""
         name = self.spec.get(key)
