@@ -1,11 +1,14 @@
-"""Pairs within a distance (``dwithin_pairs``) are exactly those GEOS's STRtree query gives, in its order."""
+"""Pairs within a distance (``dwithin_pairs``) are exactly those GEOS's STRtree query gives, in its order; what of
+a line lies off the unit boundaries is what GEOS's buffer and difference leave, with or without the proof that
+spares the buffer."""
 
 from __future__ import annotations
 
 import numpy as np
 import shapely
 
-from archivist.analysis.nearness import BIG, dwithin_pairs
+from archivist.analysis.nearness import BIG, INSIDE_BUFFER, clipped_near, dwithin_pairs, off_unit_boundaries, proven_near
+from archivist.analysis.polygons import Units
 
 
 def test_dwithin_pairs_equal_the_strtree_query_with_a_frame_line_of_many_vertices():
@@ -107,3 +110,67 @@ def test_a_point_where_polygons_overlap_lies_in_the_first_of_them_in_the_layer()
         units = Units(rows=np.arange(8), geoms=np.array(geoms, dtype=object), ids=np.array([str(i) for i in range(8)]),
                       codes=None, source="units")
         assert unit_at(shapely.points([[7.5, 5.0], [0.5, 5.0], [20.0, 5.0]]), units).tolist() == [0, 0 if geoms is squares else 7, -1]
+
+
+def test_points_within_the_proof_share_of_the_distance_lie_inside_geos_buffer():
+    # the bound the proof rests on, held against GEOS itself: random polylines (sharp and shallow bends, short and
+    # long segments), buffered whole and as clipped pieces in a collection, hold every point within
+    # INSIDE_BUFFER of the distance (GEOS's round joins are polygons inside the true circle)
+    rng = np.random.default_rng(3)
+    for trial in range(200):
+        n = int(rng.integers(2, 12))
+        xy = np.cumsum(rng.normal(0, 1, (n, 2)) * rng.choice([0.05, 0.5, 3.0, 20.0]), axis=0)
+        line = shapely.linestrings(xy)
+        tol = float(rng.choice([0.1, 1.0, 2.5]))
+        pts = xy[rng.integers(0, n, 3000)] + rng.normal(0, tol, (3000, 2))
+        near = shapely.points(pts)[shapely.distance(shapely.points(pts), line) <= INSIDE_BUFFER * tol]
+        assert shapely.covers(shapely.buffer(line, tol), near).all(), trial
+        halves = shapely.geometrycollections([shapely.clip_by_rect(line, -1e9, -1e9, float(xy[:, 0].mean()), 1e9),
+                                              shapely.clip_by_rect(line, float(xy[:, 0].mean()), -1e9, 1e9, 1e9)])
+        assert shapely.covers(shapely.buffer(halves, tol), near).all(), trial
+
+
+def _voronoi_units(seed: int, n: int = 60):
+    """Unit polygons of a Voronoi tiling of a 1 km square (a clean coverage built by GEOS)."""
+    rng = np.random.default_rng(seed)
+    box = shapely.box(0, 0, 1000, 1000)
+    cells = shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 1000, (n, 2))), extend_to=box))
+    cells = shapely.intersection(cells, box)
+    return Units(np.arange(len(cells)), cells, np.array([str(i) for i in range(len(cells))], dtype=object), None, "units")
+
+
+def test_off_boundary_parts_equal_geos_buffer_and_difference_with_and_without_the_proof():
+    # lines along the unit boundaries (their edges, snapped, nudged within and beyond the tolerance, cut across):
+    # what lies farther than the tolerance is what GEOS's buffer of the boundaries and difference leave
+    rng = np.random.default_rng(5)
+    tol = 1.0
+    for seed in range(4):
+        units = _voronoi_units(seed)
+        edges = shapely.get_parts(shapely.line_merge(shapely.boundary(units.geoms)))
+        lines = []
+        for e in edges[:40]:
+            xy = shapely.get_coordinates(shapely.segmentize(e, 15.0))
+            kind = rng.integers(4)
+            if kind == 1:  # every vertex nudged well within the tolerance
+                xy = xy + rng.uniform(-0.3, 0.3, xy.shape)
+            elif kind == 2:  # nudged across the tolerance
+                xy = xy + rng.uniform(-1.4, 1.4, xy.shape)
+            elif kind == 3:  # a chord across a bend
+                xy = xy[[0, max(len(xy) // 2, 1)]]
+            lines.append(shapely.linestrings(xy))
+        lines.append(shapely.linestrings([[10.0, 10.0], [990.0, 980.0]]))  # across the units
+        lines = np.array(lines, dtype=object)
+        got = off_unit_boundaries(lines, units, tol)
+        walls = shapely.buffer(shapely.union_all(shapely.boundary(units.geoms)), tol)
+        expected = shapely.difference(lines, walls)
+        assert np.allclose(shapely.length(got), shapely.length(expected), atol=1e-6), seed
+        assert np.array_equal(shapely.is_empty(got), shapely.is_empty(expected)), seed
+        # what the proof spares is truly within the tolerance: no point of the line (densified) farther
+        ti, ui = units.tree.query(lines, predicate="dwithin", distance=tol)
+        parts, k = clipped_near(lines, ti, shapely.boundary(units.geoms[ui]), tol)
+        proven = proven_near(lines, parts, k, INSIDE_BUFFER * tol)
+        assert proven.sum() >= 10 and (~proven).sum() >= 3, seed  # both ways taken
+        dense = shapely.get_coordinates(shapely.segmentize(lines[proven], 0.1))
+        walls_line = shapely.union_all(shapely.boundary(units.geoms))
+        shapely.prepare(walls_line)
+        assert shapely.distance(shapely.points(dense), walls_line).max() <= INSIDE_BUFFER * tol + 1e-9, seed

@@ -111,26 +111,89 @@ def _segment_distances(line: object, points: np.ndarray) -> np.ndarray:
     return np.asarray(dist, dtype=float)
 
 
-def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
-    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
-    out = np.full(len(targets), None, dtype=object)
+# Every point within this share of the buffer distance of a line lies inside GEOS's buffer of that line: GEOS
+# draws a round join or cap as a polygon with its vertices on the circle, 8 segments a quarter circle, so the
+# buffer holds every point within cos(pi/32) = 0.9952 of the distance; GEOS may also simplify the line it buffers
+# by 1 % of the distance (from memory of GEOS's BufferParameters; the margin below covers both, and
+# tests/test_analysis_nearness.py holds the bound against GEOS on random lines).
+INSIDE_BUFFER = 0.98
+
+
+def clipped_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
+    """The parts of the reference geometries paired with each target (ti) that lie near it: clipped to the target's
+    box widened by twice ``tol``, empty parts left out; returns the parts and their target."""
     if not len(ti):
-        return out
+        return np.empty(0, dtype=object), np.empty(0, dtype=np.int64)
     b = shapely.bounds(targets[ti])
     pad = 2.0 * tol + 1e-9
     boxes = shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad)
     clipped = shapely.intersection(refs, boxes)
     parts, k = shapely.get_parts(clipped, return_index=True)
     keep = ~shapely.is_empty(parts)
-    parts, k = parts[keep], ti[k[keep]]
+    return parts[keep], ti[k[keep]]
+
+
+def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
+    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
+    parts, k = clipped_near(targets, ti, refs, tol)
+    return _buffers(targets, parts, k, _buffer_distance(targets, ti, tol))
+
+
+def _buffer_distance(targets: np.ndarray, ti: np.ndarray, tol: float) -> float:
+    """``tol``; with a zero tolerance, "on" means within floating-point noise of the reference (of the targets' size)."""
+    if tol > 0 or not len(ti):
+        return tol
+    return 1e-9 * max(float(np.abs(shapely.bounds(targets[ti])).max()), 1.0)
+
+
+def _buffers(targets: np.ndarray, parts: np.ndarray, k: np.ndarray, dist: float) -> np.ndarray:
+    """Per target, one ``dist``-buffer of the reference parts ``k`` pairs with it (None for a target with none)."""
+    out = np.full(len(targets), None, dtype=object)
     if not len(parts):
         return out
     order = np.argsort(k, kind="stable")
     shapely.geometrycollections(parts[order], indices=k[order], out=out)
     have = ~shapely.is_missing(out)
-    # with a zero tolerance, "on" means within floating-point noise of the reference
-    dist = tol if tol > 0 else 1e-9 * max(float(np.abs(b).max()), 1.0)
     out[have] = shapely.buffer(out[have], dist)
+    return out
+
+
+def proven_near(targets: np.ndarray, parts: np.ndarray, k: np.ndarray, reach: float) -> np.ndarray:
+    """Per target line: True where every point of it provably lies within ``reach`` of the reference parts
+    paired with it (``k``), found without a buffer.
+
+    The distance from a point to one segment is a convex function of the
+    point, so along a segment of the target it is no larger than at the
+    segment's two ends: a target segment whose two ends both lie within
+    ``reach`` of one reference segment lies wholly within ``reach`` of it.
+    A target all of whose segments pass is proven; the others (a line that
+    leaves the references, or runs past a bend of them where no single
+    segment is near both ends) are not, and are measured as before. Lines
+    drawn on the unit boundaries, or snapped onto them, pass segment by segment.
+    """
+    out = np.zeros(len(targets), dtype=bool)
+    if not len(parts) or reach <= 0:
+        return out
+    asked = np.unique(k)
+    lineal = np.isin(shapely.get_type_id(targets[asked]), (shapely.GeometryType.LINESTRING.value,
+                                                          shapely.GeometryType.MULTILINESTRING.value))
+    asked = asked[lineal]
+    tparts, towner = shapely.get_parts(targets[asked], return_index=True)
+    ta, tb, tp = segments(tparts)
+    ra, rb, rp = segments(parts)
+    if not len(ta) or not len(ra):
+        return out
+    tseg_of = asked[towner[tp]]  # the target of each target segment
+    rsegs = shapely.linestrings(np.stack([ra, rb], axis=1))
+    i, j = shapely.STRtree(rsegs).query(shapely.points(ta), predicate="dwithin", distance=reach)
+    mine = k[rp[j]] == tseg_of[i]  # a reference part clipped near this same target
+    i, j = i[mine], j[mine]
+    ok = np.asarray(shapely.distance(shapely.points(tb[i]), rsegs[j]) <= reach, dtype=bool)
+    good = np.zeros(len(ta), dtype=bool)
+    good[i[ok]] = True
+    bad = np.bincount(tseg_of, weights=~good, minlength=len(targets)) > 0
+    has = np.bincount(tseg_of, minlength=len(targets)) > 0
+    out[has & ~bad] = True
     return out
 
 
@@ -198,9 +261,16 @@ def subtract_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.
         used, back = np.unique(rj, return_inverse=True)
         whole = _shareable(refs[used])[back]
     if (~whole).any():
-        buf = near_buffers(targets, ti[~whole], refs[rj[~whole]], tol)
+        tj = ti[~whole]
+        parts, k = clipped_near(targets, tj, refs[rj[~whole]], tol)
+        # a line proven within the buffer (most lines snapped onto the boundaries) keeps nothing: its buffer is
+        # neither made nor taken out (GEOS's difference would leave it empty)
+        near = proven_near(targets, parts, k, INSIDE_BUFFER * tol)
+        buf = _buffers(targets, parts[~near[k]], k[~near[k]], _buffer_distance(targets, tj, tol))
         have = ~shapely.is_missing(buf)
         out[have] = shapely.difference(targets[have], buf[have])
+        if near.any():
+            out[near] = shapely.empty(int(near.sum()), geom_type=shapely.GeometryType.LINESTRING)
     if whole.any():
         used, back = np.unique(rj[whole], return_inverse=True)
         bufs = shapely.buffer(refs[used], tol)
