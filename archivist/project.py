@@ -111,6 +111,35 @@ class Layer:
             sub.__dict__["far"] = (known["far"][0][rows], known["far"][1][rows])
         return sub
 
+    def known_from(self, other: "Layer") -> "Layer":
+        """This layer with the per-feature answers :attr:`valid` and :attr:`far` that ``other`` already has, for the
+        geometries both hold (the same objects: a repair's working copy after a change to a few of them), asked
+        only of the others. Returns self.
+
+        Both layers are alive while their geometries are compared, so two equal object ids are one object.
+        """
+        known = other.__dict__
+        todo = [k for k in ("valid", "far") if k in known and k not in self.__dict__]
+        if "far" in todo and self.crs != other.crs:  # the limit of a plausible coordinate depends on the CRS
+            todo.remove("far")
+        if not todo:
+            return self
+        mine, theirs = self.geometry, other.geometry
+        src = same_objects(theirs, mine)
+        have = src >= 0
+        rest = np.flatnonzero(~have)
+        if "valid" in todo:
+            valid = np.zeros(len(mine), dtype=bool)
+            valid[have] = known["valid"][src[have]]
+            valid[rest] = shapely.is_valid(mine[rest])
+            self.__dict__["valid"] = valid
+        if "far" in todo:
+            mask, largest = np.zeros(len(mine), dtype=bool), np.zeros(len(mine))
+            mask[have], largest[have] = known["far"][0][src[have]], known["far"][1][src[have]]
+            mask[rest], largest[rest] = far_out(mine[rest], self.crs)
+            self.__dict__["far"] = (mask, largest)
+        return self
+
     def field(self, key: str) -> str | None:
         """The attribute column named by manifest key ``key`` (e.g. ``unit_field``), if it is in the data."""
         name = self.spec.get(key)
@@ -120,6 +149,17 @@ class Layer:
         """The column named by manifest key ``key`` as text (identifiers, codes), or None."""
         name = self.field(key)
         return None if name is None else text_column(self.frame[name])
+
+
+def same_objects(old: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """Per element of ``new``: the position in ``old`` of the very same object (identity), else -1."""
+    a = np.fromiter(map(id, old), dtype=np.int64, count=len(old))
+    b = np.fromiter(map(id, new), dtype=np.int64, count=len(new))
+    order = np.argsort(a, kind="stable")
+    at = np.searchsorted(a[order], b)
+    at[at == len(a)] = 0
+    found = (a[order][at] == b) if len(a) else np.zeros(len(b), dtype=bool)
+    return np.where(found, order[at] if len(a) else -1, -1)
 
 
 @dataclass

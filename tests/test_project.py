@@ -118,3 +118,31 @@ def test_text_sharing_never_merges_values_of_other_types():
     assert out["words"].dtype == object and out["words"].tolist() == ["a", "b"] * 3
     words = out["words"].to_numpy()
     assert words[0] is words[2] is words[4]
+
+
+def test_a_layer_takes_the_answers_another_has_for_the_same_geometries_and_asks_geos_for_the_rest(tmp_path):
+    # a repair's working copy: most geometries the same objects as the layer before it, a few replaced (one by a
+    # bowtie GEOS finds invalid, one by a coordinate no map can have), rows dropped and reordered; the answers
+    # carried over must be GEOS's own for every row (shapely.is_valid, far_out asked afresh)
+    from dataclasses import replace
+
+    import numpy as np
+    import shapely
+
+    from archivist.farcoords import far_out
+    from archivist.project import same_objects
+
+    layer = load_project(tiny_project(tmp_path)).layers["units"]
+    layer.valid, layer.far  # asked once, as the check before the repairs asks
+    geoms = layer.geometry
+    new = np.r_[geoms[::-1], [shapely.from_wkt("POLYGON ((0 0, 10 10, 10 0, 0 10, 0 0))"),
+                              shapely.box(0, 0, 1e12, 1), None, geoms[0]]]
+    frame = gpd.GeoDataFrame({"n": range(len(new))}, geometry=list(new), crs=layer.crs)
+    work = replace(layer, frame=frame, ids=np.arange(len(new)).astype(str))
+    assert "valid" not in work.__dict__
+    work.known_from(layer)
+    assert same_objects(geoms, work.geometry).tolist() == [1, 0, -1, -1, -1, 0]
+    assert work.valid.tolist() == shapely.is_valid(work.geometry).tolist() == [True, True, False, True, False, True]
+    mask, largest = far_out(work.geometry, work.crs)
+    assert work.far[0].tolist() == mask.tolist() and np.array_equal(work.far[1], largest)
+    assert work.far[0].tolist() == [False, False, False, True, False, False]

@@ -450,15 +450,15 @@ def working_project(state: RepairState) -> MapProject:
     layers = dict(project.layers)
     if state.units is not None and "units" in layers:
         u = layers["units"]
-        layers["units"] = replace(u, frame=state.units, ids=state.units[FEATURE_ID].astype(str).to_numpy(dtype=object),
-                                  spec={**u.spec, "unit_field": state.unit_field, "id_field": None})
+        layers["units"] = state.carry("units", replace(u, frame=state.units, ids=state.units[FEATURE_ID].astype(str).to_numpy(dtype=object),
+                                                       spec={**u.spec, "unit_field": state.unit_field, "id_field": None}))
     if state.lines is not None and "lines" in layers:
         ln = layers["lines"]
         spec = {"kind_field": state.kind_field}
         if state.certainty_field:
             spec["certainty_field"] = state.certainty_field
-        layers["lines"] = replace(ln, frame=state.lines, ids=state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object),
-                                  spec=spec, parts=(), origin={})
+        layers["lines"] = state.carry("lines", replace(ln, frame=state.lines, ids=state.lines[FEATURE_ID].astype(str).to_numpy(dtype=object),
+                                                       spec=spec, parts=(), origin={}))
     return replace(project, layers=layers)
 
 

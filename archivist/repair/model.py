@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any, Callable, TypeVar, cast
 if TYPE_CHECKING:
     import geopandas as gpd
 
-    from ..project import CheckConfig, MapProject
+    from ..project import CheckConfig, Layer, MapProject
     from ..vocab.ages import AgeSpan
 
 T = TypeVar("T")
@@ -156,6 +156,18 @@ class RepairState:
     # the geologist: larger than a repair may give away, or one polygon wholly inside the other, rather than a
     # cut GEOS failed to make); None when it did not run
     overlaps_left: list[tuple[str, str, Any, bool]] | None = None
+    # the last layer each repair's view of the working copy was given, by role: the next one takes over its
+    # per-feature answers (GEOS validity, far coordinates) for the geometries no repair replaced since
+    built: dict[str, "Layer"] = field(default_factory=dict)
+
+    def carry(self, role: str, layer: "Layer") -> "Layer":
+        """``layer``, a view of the working copy of ``role``, with the per-feature answers of the last view (and of
+        the project's own layer, which the check before the repairs asked) for the same geometries; kept as the last."""
+        for prev in (self.built.get(role), self.project.layers.get(role)):
+            if prev is not None and prev is not layer:
+                layer.known_from(prev)
+        self.built[role] = layer
+        return layer
 
     def analysis(self, key: str, compute: Callable[[], T]) -> T:
         """``compute()`` once for the current working units; the same value until a repair replaces them."""

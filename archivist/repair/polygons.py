@@ -65,10 +65,12 @@ def _new_context(state: RepairState) -> CheckContext:
     layers = dict(project.layers)
     assert state.units is not None
     old = project.layers["units"]
-    layers["units"] = Layer("units", old.path, old.source, state.units, np.asarray(state.units[FEATURE_ID], dtype=object), old.spec)
+    layers["units"] = state.carry("units", Layer("units", old.path, old.source, state.units,
+                                                 np.asarray(state.units[FEATURE_ID], dtype=object), old.spec))
     if state.lines is not None and "lines" in project.layers:
         old_lines = project.layers["lines"]
-        layers["lines"] = replace(old_lines, frame=state.lines, ids=np.asarray(state.lines[FEATURE_ID], dtype=object), parts=())
+        layers["lines"] = state.carry("lines", replace(old_lines, frame=state.lines, ids=np.asarray(state.lines[FEATURE_ID], dtype=object),
+                                                       parts=()))
     return CheckContext(replace(project, layers=layers, problems=[], notes=[]))
 
 
