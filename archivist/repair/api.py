@@ -169,6 +169,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     state = make_state(proj)
     if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
         state.analyses[CHECKED] = (state.units, checked)
+        state.aligned = True
     changes: list[Change] = []
     left: list[Left] = []
     for r in chosen:

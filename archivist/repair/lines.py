@@ -125,7 +125,7 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
-        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree, ptree)
+        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree, ptree, tkey)
         diff = ~shapely.equals_exact(moved[active], again, tolerance=eps)
         moved[active] = again
         active = active[diff]
@@ -174,12 +174,17 @@ def _on_vertices(parts: np.ndarray, tkey: np.ndarray) -> np.ndarray:
 
 
 def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
-                vtree: shapely.STRtree, ptree: shapely.STRtree | None = None) -> np.ndarray:
-    """One round of :func:`snap_to_boundaries` on LineString parts (vertices on a point of ``ptree`` stay)."""
+                vtree: shapely.STRtree, ptree: shapely.STRtree | None = None, tkey: np.ndarray | None = None) -> np.ndarray:
+    """One round of :func:`snap_to_boundaries` on LineString parts (vertices on a point of ``ptree`` stay).
+
+    ``tkey``: the target vertices as :func:`snap_to_boundaries` keys them; a vertex that is exactly one of them
+    is not asked (its nearest target vertex is itself, at distance 0: it stays where it is).
+    """
     coords, vpart = shapely.get_coordinates(parts, return_index=True)
     coords = coords.copy()
     # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
-    pts = shapely.points(coords)
+    ask = np.flatnonzero(~_in_keys(coords[:, 0] + 1j * coords[:, 1], tkey)) if tkey is not None else np.arange(len(coords))
+    pts = shapely.points(coords[ask])
     vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
     if ptree is not None and len(vi):
         stay = np.unique(ptree.query(pts[vi], predicate="dwithin", distance=eps)[0])
@@ -187,13 +192,14 @@ def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, 
         free[stay] = False
         vi, ti = vi[free], ti[free]
     d = shapely.distance(pts[vi], targets[ti])
+    ci = ask[vi]  # the coordinate of each vertex asked
     if len(vi):
         # onto the nearest target vertex within tol (even from a point already on a target: a junction) ...
         wi, kv = vtree.query_nearest(pts[vi], max_distance=tol, all_matches=False)
         at_vertex = np.zeros(len(vi), dtype=bool)
         at_vertex[wi] = True
         go = np.zeros(len(vi), dtype=bool)
-        go[wi] = np.hypot(*(tv[kv] - coords[vi[wi]]).T) > eps
+        go[wi] = np.hypot(*(tv[kv] - coords[ci[wi]]).T) > eps
         feet = np.zeros((len(vi), 2))
         feet[wi] = tv[kv]
         # ... else onto the nearest point of the target, unless that point lies within tol of a target vertex (the
@@ -206,7 +212,7 @@ def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, 
             feet[rest] = foot
             go[rest[~near_v]] = True
         original = coords.copy()
-        coords[vi[go]] = feet[go]
+        coords[ci[go]] = feet[go]
         # a part whose vertices would all fall on one point (shorter than tol) keeps its own
         first = np.r_[0, np.flatnonzero(np.diff(vpart)) + 1]
         same = (coords == coords[np.repeat(first, np.diff(np.r_[first, len(vpart)]))]).all(axis=1)
@@ -589,6 +595,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     frozen = np.zeros(n, dtype=bool)
     todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
     caches: list[dict[str, Any]] = [{} for _ in plan]  # per group: its targets' indexes, built once for every round
+    ends_index: dict[str, Any] = {}  # the index of the ends, built once for every round
     for round_ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
         shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
@@ -608,7 +615,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
         # as farther in the first, made once one of its ends is held), and its junctions are then asked too
         fresh = changed & ~seen
         if fresh.any():
-            k2, g2 = _touching(net, old, owner, fresh, eps)
+            k2, g2 = _touching(net, old, owner, fresh, eps, ends_index)
             pairs = np.unique(np.c_[np.r_[ki, k2], np.r_[g, g2]].astype(np.int64), axis=0)
             ki, g = pairs[:, 0], pairs[:, 1]
             seen |= fresh
@@ -638,8 +645,8 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     return final, shift, changed, held, worse
 
 
-def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.ndarray, eps: float
-              ) -> tuple[np.ndarray, np.ndarray]:
+def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.ndarray, eps: float,
+              cache: dict[str, Any] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """The pairs (end k, feature g) where the end ``old[k]`` of line ``owner[k]`` touches another line g (within
     ``eps``) and one of the two is among the lines ``changed``.
 
@@ -653,7 +660,8 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
     network's index; the other ends only of an index of the lines that
     changed (at 10^5 polygons some 15 000 of 300 000 lines), asked with
     those lines, so the 600 000 ends are not each tested against every line
-    they touch.
+    they touch. ``cache`` (a dict kept by the caller for the same ``old``) keeps the index of the ends from one
+    call to the next.
     """
     none = (np.empty(0, dtype=np.int64),) * 2
     if not len(old) or not changed.any():
@@ -663,10 +671,14 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
     ia, ga = dwithin_pairs(net.tree, net.geoms, shapely.points(old[ka]), eps) if len(ka) else none
     ka, ga = ka[ia], ga
     chg = np.flatnonzero(changed)
-    kb = np.flatnonzero(~mine)
-    if len(kb):  # the changed lines ask an index of the other ends (fewer questions than the ends asking)
-        jb, ib = shapely.STRtree(shapely.points(old[kb])).query(net.geoms[chg], predicate="dwithin", distance=eps)
-        kb, gb = kb[ib], chg[jb]
+    if (~mine).any():  # the changed lines ask an index of the ends (fewer questions than the ends asking); the
+        # other lines' ends kept
+        cache = {} if cache is None else cache
+        if "ends" not in cache:
+            cache["ends"] = shapely.STRtree(shapely.points(old))
+        jb, kb = cache["ends"].query(net.geoms[chg], predicate="dwithin", distance=eps)
+        other_end = ~mine[kb]
+        kb, gb = kb[other_end], chg[jb[other_end]]
     else:
         kb, gb = none
     ki, g = np.r_[ka, kb].astype(np.int64), np.r_[ga, gb].astype(np.int64)
@@ -807,15 +819,20 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     """
     valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
     if cache is not None and "snap" in cache:  # over the same targets, missing and empty ones left out in the same way
-        ttree, _, vtree, _ = cache["snap"]
+        ttree, _, vtree, tkey = cache["snap"]
     else:
         ttree = shapely.STRtree(valid)
-        vtree = shapely.STRtree(shapely.points(shapely.get_coordinates(valid)))
+        vxy = shapely.get_coordinates(valid)
+        vtree = shapely.STRtree(shapely.points(vxy))
+        tkey = np.unique(vxy[:, 0] + 1j * vxy[:, 1])
     xy, li = shapely.get_coordinates(lines, return_index=True)
     reach = np.zeros(len(lines))
+    # a vertex that is one of the targets' own lies 0 from them: only the others are asked
+    off = np.flatnonzero(~_in_keys(xy[:, 0] + 1j * xy[:, 1], tkey)) if len(xy) else np.zeros(0, dtype=np.int64)
     if len(xy):  # how far a vertex lies from the targets, bounded above by how far from their nearest vertex
-        (who, _), d = vtree.query_nearest(shapely.points(xy), return_distance=True, all_matches=False)
-        np.maximum.at(reach, li[who], d)
+        if len(off):
+            (who, _), d = vtree.query_nearest(shapely.points(xy[off]), return_distance=True, all_matches=False)
+            np.maximum.at(reach, li[off[who]], d)
         a, b, line, _ = _segments(lines)
         half = np.zeros(len(lines))
         np.maximum.at(half, line, np.hypot(*(b - a).T) / 2.0)

@@ -159,6 +159,9 @@ class RepairState:
     # the last layer each repair's view of the working copy was given, by role: the next one takes over its
     # per-feature answers (GEOS validity, far coordinates) for the geometries no repair replaced since
     built: dict[str, "Layer"] = field(default_factory=dict)
+    # the check before the repairs placed every layer with the map as it is (no CRS moved, no axes swapped): the
+    # working copies, whose vertices move within the tolerance, are placed the same way without asking again
+    aligned: bool = False
 
     def carry(self, role: str, layer: "Layer") -> "Layer":
         """``layer``, a view of the working copy of ``role``, with the per-feature answers of the last view (and of

@@ -26,6 +26,7 @@ import pandas as pd
 import shapely
 from shapely.errors import GEOSException
 
+from ..analysis.alignment import Alignment
 from ..analysis.arrays import widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
@@ -71,7 +72,10 @@ def _new_context(state: RepairState) -> CheckContext:
         old_lines = project.layers["lines"]
         layers["lines"] = state.carry("lines", replace(old_lines, frame=state.lines, ids=np.asarray(state.lines[FEATURE_ID], dtype=object),
                                                        parts=()))
-    return CheckContext(replace(project, layers=layers, problems=[], notes=[]))
+    ctx = CheckContext(replace(project, layers=layers, problems=[], notes=[]))
+    if state.aligned:  # placed as the check before the repairs placed the project: every layer as it is
+        ctx.provide("analysis.alignment", Alignment(layers=dict(layers)))
+    return ctx
 
 
 def _geoms(state: RepairState) -> np.ndarray:
