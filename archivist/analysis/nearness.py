@@ -44,10 +44,10 @@ def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, di
     b = shapely.bounds(geoms)
     gi, rj = tree.query(shapely.box(b[:, 0] - d, b[:, 1] - d, b[:, 2] + d, b[:, 3] + d))
     ok = np.zeros(len(gi), dtype=bool)
-    big = shapely.get_num_coordinates(refs)[rj] > BIG
+    big = _sizes(refs, rj) > BIG
     # a large geometry asked about (a frame line among the lines asked) meets every reference near it: prepared
     # once too, against the small references it meets (a partition's frame line took 2.5 s pair by pair)
-    big_geom = ~big & (shapely.get_num_coordinates(geoms)[gi] > BIG)
+    big_geom = ~big & (_sizes(geoms, gi) > BIG)
     small = ~big & ~big_geom
     ok[small] = shapely.dwithin(geoms[gi[small]], refs[rj[small]], d)
     if big.any():
@@ -59,6 +59,14 @@ def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, di
             sel = np.flatnonzero(big_geom & (gi == i))
             ok[sel] = shapely.dwithin(prepared_copy(geoms[i]), refs[rj[sel]], d)
     return gi[ok], rj[ok]
+
+
+def _sizes(geoms: np.ndarray, at: np.ndarray) -> np.ndarray:
+    """``shapely.get_num_coordinates(geoms)[at]``, counting only the geometries named when they are fewer (a few
+    polygons asked against a whole map)."""
+    if len(at) < len(geoms):
+        return np.asarray(shapely.get_num_coordinates(np.asarray(geoms, dtype=object)[at]))
+    return np.asarray(shapely.get_num_coordinates(geoms))[at]
 
 
 def prepared_copy(ref: object) -> object:

@@ -666,8 +666,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         moved_r[sel] = _shift(work, cleaned)
         too_far_r[sel] = moved_r[sel] > settings.tolerance * ABOVE
         lost_r[sel] = shapely.is_empty(cleaned) | shapely.is_missing(cleaned)
+        # the polygons this cleaning moved (from what the polygons outside last saw of them): only their neighbours
+        # outside can have stopped fitting
+        moved_now = ~shapely.equals_exact(shapely.normalize(_single(current[sel])), shapely.normalize(_single(cleaned)))
         current[sel] = cleaned
-        grow = _unfitted(near, sel, cleaned, todo, current)
+        grow = _unfitted(near, sel, cleaned, todo, current, moved_now)
         if grow.any():
             steps += 1
             add = near.of(np.flatnonzero(grow))
@@ -758,7 +761,8 @@ LOCAL_STEPS = 12  # cleanings of only the polygons near those that no longer fit
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
-def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.ndarray, current: np.ndarray) -> np.ndarray:
+def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.ndarray, current: np.ndarray,
+              moved: np.ndarray | None = None) -> np.ndarray:
     """The polygons outside ``region`` that no longer fit the polygons ``sel`` as ``cleaned`` (as ``current`` has them).
 
     GEOS's coverage validation (``shapely.coverage_invalid_edges``) of the
@@ -766,9 +770,17 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     together with those polygons outside, gaps as narrow as that distance
     included: one outside with an invalid edge there no longer fits. (A
     cleaned polygon farther from every polygon outside cannot touch one.)
+    ``moved`` (per polygon of ``sel``): the cleaning changed it; only the
+    polygons outside within the snapping distance of one that moved are
+    asked (those near the others see them as they were: a polygon outside
+    the region has every edge twinned, or lies farther than the distance
+    from any misfit, so it fitted them).
     """
     out = np.zeros(near.n, dtype=bool)
-    outside = np.flatnonzero(near.of(sel) & ~region)
+    asked = sel if moved is None else sel[moved]
+    if not len(asked):
+        return out
+    outside = np.flatnonzero(near.of(asked) & ~region)
     if not len(outside):
         return out
     at = np.full(near.n, -1, dtype=np.int64)
