@@ -24,6 +24,7 @@ import shapely
 from . import manifest as mf
 from . import vectorio
 from .collector import collector_paused
+from .analysis.arrays import same_objects
 from .farcoords import far_out
 from .model import Hit
 from .progress import Progress
@@ -149,17 +150,6 @@ class Layer:
         """The column named by manifest key ``key`` as text (identifiers, codes), or None."""
         name = self.field(key)
         return None if name is None else text_column(self.frame[name])
-
-
-def same_objects(old: np.ndarray, new: np.ndarray) -> np.ndarray:
-    """Per element of ``new``: the position in ``old`` of the very same object (identity), else -1."""
-    a = np.fromiter(map(id, old), dtype=np.int64, count=len(old))
-    b = np.fromiter(map(id, new), dtype=np.int64, count=len(new))
-    order = np.argsort(a, kind="stable")
-    at = np.searchsorted(a[order], b)
-    at[at == len(a)] = 0
-    found = (a[order][at] == b) if len(a) else np.zeros(len(b), dtype=bool)
-    return np.where(found, order[at] if len(a) else -1, -1)
 
 
 @dataclass

@@ -38,3 +38,37 @@ def test_misfit_leaves_untwinned_edges():
     edges = build_edges(geoms)
     assert not edges.twin.any()
     assert edges.find(edges.h[:1], edges.px[:1], edges.py[:1], edges.qx[:1], edges.qy[:1]).tolist() == [0]
+
+
+def _same_table(a, b) -> bool:
+    import dataclasses
+
+    return all(np.array_equal(getattr(a, f.name), getattr(b, f.name)) for f in dataclasses.fields(a))
+
+
+def test_a_table_built_from_the_last_one_equals_a_build_from_scratch():
+    # a repair's working copy, changed a few polygons at a time: polygons replaced (grown over a neighbour, a
+    # vertex moved, a multipolygon, a hole), rows dropped, reordered and added; each table built from the one
+    # before (EdgeBasis) must be the one a build from scratch gives, array for array
+    from archivist.analysis.halfedges import EdgeBasis
+
+    rng = np.random.default_rng(2)
+    pts = shapely.multipoints(rng.uniform(0, 100, (80, 2)))
+    cells = shapely.intersection(shapely.get_parts(shapely.voronoi_polygons(pts, extend_to=box(0, 0, 100, 100))), box(0, 0, 100, 100))
+    basis = EdgeBasis()
+    geoms = cells.copy()
+    assert _same_table(build_edges(geoms, basis), build_edges(geoms))
+    for step in range(6):
+        geoms = geoms.copy()
+        k = rng.choice(len(geoms), 5, replace=False)
+        geoms[k[0]] = shapely.buffer(geoms[k[0]], 0.7, quad_segs=2)  # an overlap
+        xy = shapely.get_coordinates(geoms[k[1]])
+        xy[1] += 0.3
+        geoms[k[1]] = shapely.set_coordinates(shapely.from_wkb(shapely.to_wkb(geoms[k[1]])), xy)
+        geoms[k[2]] = shapely.multipolygons(list(shapely.get_parts(geoms[k[2]])) + [box(200 + step, 0, 201 + step, 1)])
+        geoms[k[3]] = shapely.difference(geoms[k[3]], shapely.buffer(shapely.centroid(geoms[k[3]]), 0.5))  # a hole
+        if step % 2:
+            geoms = np.r_[geoms[::-1][1:], [box(300, 300, 301, 302)]]  # reordered, one dropped, one added
+        fresh = build_edges(geoms)
+        assert _same_table(build_edges(geoms, basis), fresh), step
+        assert len(fresh.suspects)  # the changes leave traces: the comparison is not of clean tables only

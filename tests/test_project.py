@@ -130,7 +130,7 @@ def test_a_layer_takes_the_answers_another_has_for_the_same_geometries_and_asks_
     import shapely
 
     from archivist.farcoords import far_out
-    from archivist.project import same_objects
+    from archivist.analysis.arrays import same_objects
 
     layer = load_project(tiny_project(tmp_path)).layers["units"]
     layer.valid, layer.far  # asked once, as the check before the repairs asks

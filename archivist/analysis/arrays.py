@@ -38,6 +38,17 @@ def _fmix(h: np.ndarray) -> np.ndarray:
     return h
 
 
+def same_objects(old: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """Per element of ``new``: the position in ``old`` of the very same object (identity), else -1."""
+    a = np.fromiter(map(id, old), dtype=np.int64, count=len(old))
+    b = np.fromiter(map(id, new), dtype=np.int64, count=len(new))
+    order = np.argsort(a, kind="stable")
+    at = np.searchsorted(a[order], b)
+    at[at == len(a)] = 0
+    found = (a[order][at] == b) if len(a) else np.zeros(len(b), dtype=bool)
+    return np.where(found, order[at] if len(a) else -1, -1)
+
+
 def coord_hash(*columns: np.ndarray) -> np.ndarray:
     """A 64-bit hash of rows of float coordinates (exact bit patterns; -0.0 counts as 0.0).
 

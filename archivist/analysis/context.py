@@ -11,7 +11,7 @@ import numpy as np
 
 from .alignment import Alignment, align_layers
 from .coverage import Coverage, Mismatch, analyse_coverage, find_mismatches
-from .halfedges import Edges, build_edges
+from .halfedges import EdgeBasis, Edges, build_edges
 from .lines import LineNetwork, build_line_network
 from .placement import Placement, SwapSuspects, place_layers, swap_suspects
 from .polygons import Units, read_units
@@ -54,6 +54,9 @@ class CheckContext:
     _locks: dict[str, threading.Lock] = field(default_factory=dict, repr=False)
     _guard: threading.Lock = field(default_factory=threading.Lock, repr=False)
     _local: threading.local = field(default_factory=threading.local, repr=False)
+    # the half-edges last built for polygons most of which are these (a repair's working copy before its last
+    # change): the table is built from them (see EdgeBasis), the same table a build from scratch gives
+    edge_basis: EdgeBasis | None = field(default=None, repr=False)
 
     @property
     def config(self) -> CheckConfig:
@@ -195,7 +198,7 @@ class CheckContext:
 
     def edges(self) -> Edges:
         """The half-edge table of :meth:`units`."""
-        return self.shared("analysis.edges", lambda: build_edges(self.units().geoms))
+        return self.shared("analysis.edges", lambda: build_edges(self.units().geoms, self.edge_basis))
 
     def coverage(self) -> Coverage:
         """Gaps, overlaps, misfits and the map extent of :meth:`units`; notes what the extent is."""

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-from .arrays import canonical, coord_hash, group_sorted, segment_lines
+from .arrays import canonical, coord_hash, group_sorted, same_objects, segment_lines
 
 
 def polygon_half_edges(geoms: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -111,12 +111,88 @@ class Edges:
         return segment_lines(self.px[idx], self.py[idx], self.qx[idx], self.qy[idx])
 
 
-def build_edges(geoms: np.ndarray) -> Edges:
-    """The half-edge table of polygons (see :class:`Edges`)."""
+@dataclass(frozen=True)
+class HalfEdgeRows:
+    """Every half-edge of a set of polygons, in the order :func:`polygon_half_edges` gives them (polygon by
+    polygon), as canonical keys: what :func:`build_edges` sorts into the table. ``geoms``: the polygons."""
+
+    geoms: np.ndarray
+    px: np.ndarray
+    py: np.ndarray
+    qx: np.ndarray
+    qy: np.ndarray
+    fwd: np.ndarray
+    h: np.ndarray
+    owner: np.ndarray
+
+
+class EdgeBasis:
+    """The half-edges last built for polygons that change a few at a time (a repair's working copy).
+
+    Passed to :func:`build_edges`, it lends the half-edges of the polygons
+    the new set shares with the last one (the very same geometry objects:
+    half-edges depend on the polygon alone) and takes the new set's in turn;
+    only the other polygons are taken apart. The table is the one a build
+    from scratch gives, array for array.
+    """
+
+    def __init__(self) -> None:
+        self.rows: HalfEdgeRows | None = None
+
+
+def half_edge_rows(geoms: np.ndarray, basis: HalfEdgeRows | None = None) -> HalfEdgeRows:
+    """The :class:`HalfEdgeRows` of ``geoms``; those of the polygons ``basis`` holds too are copied from it."""
+    geoms = np.asarray(geoms, dtype=object)
+    n = len(geoms)
+    src = same_objects(basis.geoms, geoms) if basis is not None and n else np.full(n, -1, dtype=np.int64)
+    fresh = np.flatnonzero(src < 0)
+    x0, y0, x1, y1, owner = polygon_half_edges(geoms[fresh])
+    px, py, qx, qy, fwd = canonical(x0, y0, x1, y1)
+    h = coord_hash(px, py, qx, qy)
+    new = HalfEdgeRows(geoms, px, py, qx, qy, fwd, h, fresh[owner])
+    if basis is None or len(fresh) == n:
+        return new
+    # polygon by polygon, as a build from scratch orders them: each kept polygon's block of the basis, each fresh
+    # polygon's block of the new half-edges
+    kept = np.flatnonzero(src >= 0)
+    b_start = np.searchsorted(basis.owner, np.arange(len(basis.geoms)))
+    b_count = np.diff(np.r_[b_start, len(basis.owner)])
+    n_count = np.bincount(new.owner, minlength=n)
+    count = n_count.copy()
+    count[kept] = b_count[src[kept]]
+    start = np.zeros(n, dtype=np.int64)
+    start[kept] = b_start[src[kept]]
+    start[fresh] = np.searchsorted(new.owner, fresh)
+    from_basis = np.repeat(src >= 0, count)
+    total = int(count.sum())
+    at = np.repeat(start - np.r_[0, np.cumsum(count)[:-1]], count) + np.arange(total)  # position in its source
+    owner_out = np.repeat(np.arange(n), count)
+
+    def pick(old: np.ndarray, mine: np.ndarray) -> np.ndarray:
+        out = np.empty(total, dtype=mine.dtype)
+        out[from_basis] = old[at[from_basis]]
+        out[~from_basis] = mine[at[~from_basis]]
+        return out
+
+    return HalfEdgeRows(geoms, pick(basis.px, px), pick(basis.py, py), pick(basis.qx, qx), pick(basis.qy, qy),
+                        pick(basis.fwd, fwd), pick(basis.h, h), owner_out)
+
+
+def build_edges(geoms: np.ndarray, basis: EdgeBasis | None = None) -> Edges:
+    """The half-edge table of polygons (see :class:`Edges`); ``basis``: see :class:`EdgeBasis`."""
+    if basis is not None:
+        rows = half_edge_rows(geoms, basis.rows)
+        basis.rows = rows
+        return _table(rows.px, rows.py, rows.qx, rows.qy, rows.fwd, rows.h, rows.owner)
     x0, y0, x1, y1, owner = polygon_half_edges(geoms)
     px, py, qx, qy, fwd = canonical(x0, y0, x1, y1)
     del x0, y0, x1, y1
     h = coord_hash(px, py, qx, qy)
+    return _table(px, py, qx, qy, fwd, h, owner)
+
+
+def _table(px: np.ndarray, py: np.ndarray, qx: np.ndarray, qy: np.ndarray, fwd: np.ndarray, h: np.ndarray,
+           owner: np.ndarray) -> Edges:
     order, gid, starts = group_sorted(h, px, py, qx, qy)
     n = len(order)
     counts = np.diff(np.r_[starts, n])

@@ -163,10 +163,12 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     from ..analysis.context import CheckContext
     from .polygons import CHECKED
 
-    checked = CheckContext(proj)  # the check's analyses of the units as read: the first repair reads them too
+    state = make_state(proj)
+    # the check's analyses of the units as read: the first repair reads them too, and its half-edges are lent to
+    # the next build (the working units are the same polygons until a repair replaces some)
+    checked = CheckContext(proj, edge_basis=state.edge_basis)
     before = _counts(check(proj, progress=progress, context=checked))
     settings = settings_for(proj, build_polygons)
-    state = make_state(proj)
     if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
         state.analyses[CHECKED] = (state.units, checked)
         state.aligned = True

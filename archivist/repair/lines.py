@@ -444,7 +444,7 @@ def unit_analyses(state: RepairState, project: MapProject, tol: float) -> tuple[
 
     def compute() -> tuple[Any, Any, Any]:
         units = read_units(project)
-        edges = build_edges(units.geoms)
+        edges = build_edges(units.geoms, state.edge_basis)
         return units, edges, analyse_coverage(project, units, edges, tol)
 
     return state.analysis(f"units-edges-coverage:{tol!r}", compute)

@@ -25,6 +25,7 @@ from typing import TYPE_CHECKING, Any, Callable, TypeVar, cast
 if TYPE_CHECKING:
     import geopandas as gpd
 
+    from ..analysis.halfedges import EdgeBasis
     from ..project import CheckConfig, Layer, MapProject
     from ..vocab.ages import AgeSpan
 
@@ -122,6 +123,12 @@ class RepairSettings:
         }
 
 
+def _edge_basis() -> "EdgeBasis":
+    from ..analysis.halfedges import EdgeBasis
+
+    return EdgeBasis()
+
+
 @dataclass
 class RepairState:
     """The working copies a run edits, and what repairs need to know about the project.
@@ -162,6 +169,9 @@ class RepairState:
     # the check before the repairs placed every layer with the map as it is (no CRS moved, no axes swapped): the
     # working copies, whose vertices move within the tolerance, are placed the same way without asking again
     aligned: bool = False
+    # the half-edges of the working units last built, lent to the next build (only the polygons replaced since
+    # are taken apart again)
+    edge_basis: "EdgeBasis" = field(default_factory=lambda: _edge_basis())
 
     def carry(self, role: str, layer: "Layer") -> "Layer":
         """``layer``, a view of the working copy of ``role``, with the per-feature answers of the last view (and of

@@ -72,7 +72,7 @@ def _new_context(state: RepairState) -> CheckContext:
         old_lines = project.layers["lines"]
         layers["lines"] = state.carry("lines", replace(old_lines, frame=state.lines, ids=np.asarray(state.lines[FEATURE_ID], dtype=object),
                                                        parts=()))
-    ctx = CheckContext(replace(project, layers=layers, problems=[], notes=[]))
+    ctx = CheckContext(replace(project, layers=layers, problems=[], notes=[]), edge_basis=state.edge_basis)
     if state.aligned:  # placed as the check before the repairs placed the project: every layer as it is
         ctx.provide("analysis.alignment", Alignment(layers=dict(layers)))
     return ctx
