@@ -730,11 +730,17 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     m = len(moved)
 
     def ends_far(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
-        """Per moved line, the farthest end of the segments it owns from the targets (as :func:`reach` measures it)."""
+        """Per moved line, the farthest end of the segments it owns from the targets (as :func:`reach` measures it).
+
+        An end that is an end of a target segment lies 0 from the targets: only the others are asked."""
         far = np.zeros(m)
         if len(owner):
-            (who, _), d = tree.query_nearest(shapely.points(np.r_[start, stop]), return_distance=True, all_matches=False)
-            np.maximum.at(far, np.r_[owner, owner][who], d)
+            ends = np.r_[start, stop]
+            vkeys = np.unique(np.r_[sa[:, 0] + 1j * sa[:, 1], sb[:, 0] + 1j * sb[:, 1]])
+            off = np.flatnonzero(~_in_keys(ends[:, 0] + 1j * ends[:, 1], vkeys))
+            if len(off):
+                (who, _), d = tree.query_nearest(shapely.points(ends[off]), return_distance=True, all_matches=False)
+                np.maximum.at(far, np.r_[owner, owner][off[who]], d)
         return far
 
     def reach(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
@@ -838,7 +844,10 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
         np.maximum.at(half, line, np.hypot(*(b - a).T) / 2.0)
         reach += half
     reach = reach * (1.0 + 1e-9) + noise(np.r_[lines, valid])
-    pick = np.unique(ttree.query(lines, predicate="dwithin", distance=reach)[1])
+    # the targets whose boxes come within the reach of a line's box: a few more than those within the reach
+    # (which GEOS would measure ring by ring), and the nearest segment among more is the same one
+    b = shapely.bounds(lines)
+    pick = np.unique(ttree.query(shapely.box(b[:, 0] - reach, b[:, 1] - reach, b[:, 2] + reach, b[:, 3] + reach))[1])
     sa, sb, _ = segments(shapely.get_parts(valid[pick]))
     segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else valid[pick]
     return sa, sb, segs, shapely.STRtree(segs), np.unique(_segment_keys(sa, sb))
