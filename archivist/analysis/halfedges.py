@@ -163,16 +163,14 @@ def half_edge_rows(geoms: np.ndarray, basis: HalfEdgeRows | None = None) -> Half
     start = np.zeros(n, dtype=np.int64)
     start[kept] = b_start[src[kept]]
     start[fresh] = np.searchsorted(new.owner, fresh)
-    from_basis = np.repeat(src >= 0, count)
     total = int(count.sum())
-    at = np.repeat(start - np.r_[0, np.cumsum(count)[:-1]], count) + np.arange(total)  # position in its source
+    # each half-edge's position in the basis followed by the new ones
+    start[fresh] += len(basis.owner)
+    at = np.repeat(start - np.r_[0, np.cumsum(count)[:-1]], count) + np.arange(total)
     owner_out = np.repeat(np.arange(n), count)
 
     def pick(old: np.ndarray, mine: np.ndarray) -> np.ndarray:
-        out = np.empty(total, dtype=mine.dtype)
-        out[from_basis] = old[at[from_basis]]
-        out[~from_basis] = mine[at[~from_basis]]
-        return out
+        return np.concatenate([old, mine])[at]
 
     return HalfEdgeRows(geoms, pick(basis.px, px), pick(basis.py, py), pick(basis.qx, qx), pick(basis.qy, qy),
                         pick(basis.fwd, fwd), pick(basis.h, h), owner_out)
