@@ -112,10 +112,12 @@ class Layer:
             sub.__dict__["far"] = (known["far"][0][rows], known["far"][1][rows])
         return sub
 
-    def known_from(self, other: "Layer") -> "Layer":
+    def known_from(self, other: "Layer", equal: np.ndarray | None = None) -> "Layer":
         """This layer with the per-feature answers :attr:`valid` and :attr:`far` that ``other`` already has, for the
         geometries both hold (the same objects: a repair's working copy after a change to a few of them), asked
-        only of the others. Returns self.
+        only of the others. ``equal`` (per row, with as many rows as ``other``): the caller found the geometry
+        equal to ``other``'s in the same row (GEOS ``equals_exact`` with no tolerance, a one-part multipolygon as
+        its polygon: a repaired copy read back from its file), which takes that row's answers too. Returns self.
 
         Both layers are alive while their geometries are compared, so two equal object ids are one object.
         """
@@ -127,6 +129,8 @@ class Layer:
             return self
         mine, theirs = self.geometry, other.geometry
         src = same_objects(theirs, mine)
+        if equal is not None and len(equal) == len(mine) == len(theirs):
+            src = np.where((src < 0) & equal, np.arange(len(mine)), src)
         have = src >= 0
         rest = np.flatnonzero(~have)
         if "valid" in todo:

@@ -221,6 +221,14 @@ def _copy_context(copy: Any, state: RepairState, settings: RepairSettings) -> An
     from .polygons import _single
 
     ctx = CheckContext(copy)
+    # the copy's units read back as the working copy has them, row for row: their validity and far coordinates
+    # are the working layer's (asked of the others only); the lines' are cheaper to ask than to compare
+    same_units = False
+    work, layer = state.built.get("units"), copy.layers.get("units")
+    if work is not None and layer is not None and len(work.frame) == len(layer.frame):
+        equal = np.asarray(shapely.equals_exact(_single(layer.geometry), _single(work.geometry), tolerance=0.0), dtype=bool)
+        layer.known_from(work, equal)
+        same_units = bool(equal.all()) and work.frame is state.units
     hit = state.analyses.get(f"units-edges-coverage:{float(settings.tolerance)!r}")
     if hit is None or hit[0] is not state.units or "units" not in copy.layers or ctx.view() is not copy:
         return ctx
@@ -228,7 +236,8 @@ def _copy_context(copy: Any, state: RepairState, settings: RepairSettings) -> An
     mine = ctx.units()
     if len(mine) != len(units) or not np.array_equal(mine.rows, units.rows):
         return ctx
-    if not bool(np.all(shapely.equals_exact(_single(mine.geoms), _single(units.geoms), tolerance=0.0))):
+    # the layers read back equal row for row (above) give the same polygons; else each is compared
+    if not same_units and not bool(np.all(shapely.equals_exact(_single(mine.geoms), _single(units.geoms), tolerance=0.0))):
         return ctx
     ctx.provide("analysis.edges", edges)
     note = extent_note(copy, cov.extent_declared)
