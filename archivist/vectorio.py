@@ -396,3 +396,38 @@ def untrusted() -> Iterator[None]:
             _fence_depth = 0
             pyogrio.set_gdal_config_options(before)
             lib.GDALAllRegister()
+
+
+# GDAL's SQLite settings for files written into a staging folder (GDAL configuration options of its SQLite-based
+# drivers, GeoPackage included; names as GDAL 3.12 reads them): no rollback journal, no sync at each transaction.
+STAGING_OPTIONS: dict[str, str] = {"OGR_SQLITE_JOURNAL": "OFF", "OGR_SQLITE_SYNCHRONOUS": "OFF"}
+_staging_lock = threading.Lock()
+
+
+@contextmanager
+def staged_writes() -> Iterator[None]:
+    """GeoPackages written inside are written without SQLite's rollback journal and without a sync to disk at each
+    transaction (:data:`STAGING_OPTIONS`); every option gets its previous value back on exit.
+
+    Only for files in a staging folder that is thrown away if the run stops
+    (a file cut off mid-write never reaches the user); the caller syncs each
+    one (:func:`sync_file`) before moving the folder into place. The options
+    are process-wide, like :func:`untrusted`'s: other threads writing
+    through GDAL meanwhile write the same way.
+    """
+    with _staging_lock:
+        before = {key: pyogrio.get_gdal_config_option(key) for key in STAGING_OPTIONS}
+        pyogrio.set_gdal_config_options(dict(STAGING_OPTIONS))
+        try:
+            yield
+        finally:
+            pyogrio.set_gdal_config_options(before)
+
+
+def sync_file(path: Path) -> None:
+    """Flush a written file to disk (``os.fsync``)."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)

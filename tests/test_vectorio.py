@@ -409,3 +409,28 @@ def test_missing_shx_and_unknown_format_in_mapper_words(tmp_path):
     hits = [h.message for h in load_project(root).problems if h.rule == "layer-unreadable" and "lines.gpkg" in h.message]
     assert hits, load_project(root).problems
     assert "<DRIVER>" not in hits[0] and "prefix" not in hits[0].lower()
+
+
+def test_staged_writes_turn_off_the_sqlite_journal_and_sync_only_inside_and_the_file_reads_back(tmp_path):
+    # GDAL's SQLite options as GDAL itself reports them (pyogrio.get_gdal_config_option), before, inside and after;
+    # the GeoPackage written inside reads back the same features and leaves no journal beside it
+    import geopandas as gpd
+    import pyogrio
+    from shapely.geometry import box
+
+    import shapely
+
+    from archivist.vectorio import STAGING_OPTIONS, staged_writes, sync_file
+
+    before = {k: pyogrio.get_gdal_config_option(k) for k in STAGING_OPTIONS}
+    frame = gpd.GeoDataFrame({"unit": ["A", "B"]}, geometry=[box(0, 0, 1, 1), box(1, 0, 2, 1)], crs="EPSG:32633")
+    with staged_writes():
+        # pyogrio reads GDAL's "OFF" back as False
+        assert {k: pyogrio.get_gdal_config_option(k) for k in STAGING_OPTIONS} == {"OGR_SQLITE_JOURNAL": False,
+                                                                                   "OGR_SQLITE_SYNCHRONOUS": False}
+        pyogrio.write_dataframe(frame, tmp_path / "map.gpkg", layer="units", driver="GPKG")
+    assert {k: pyogrio.get_gdal_config_option(k) for k in STAGING_OPTIONS} == before
+    sync_file(tmp_path / "map.gpkg")
+    back = pyogrio.read_dataframe(tmp_path / "map.gpkg", layer="units")
+    assert back["unit"].tolist() == ["A", "B"] and shapely.equals_exact(back.geometry.values, frame.geometry.values, tolerance=0).all()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["map.gpkg"]

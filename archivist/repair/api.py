@@ -299,8 +299,8 @@ def _place(root: Path, rel: str, tmp: Path, taken: dict[Path, str]) -> str:
     return new_rel
 
 
-def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spec: dict[str, Any], crs: Any) -> None:
-    """Write ``frame`` over the copied layer at ``dest`` in its own format, else as a GeoPackage beside it."""
+def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spec: dict[str, Any], crs: Any) -> Path:
+    """Write ``frame`` over the copied layer at ``dest`` in its own format, else as a GeoPackage beside it; the file written."""
     import pyogrio
 
     driver = WRITABLE.get(dest.suffix.lower())
@@ -311,7 +311,7 @@ def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spe
         pyogrio.write_dataframe(frame, new, layer=str(spec.get("layer") or dest.stem), driver="GPKG", promote_to_multi=True)
         raw_spec["path"] = str(Path(raw_spec["path"]).with_suffix(".gpkg").as_posix())
         raw_spec["layer"] = str(spec.get("layer") or dest.stem)
-        return
+        return new
     kw: dict[str, Any] = {}
     if driver == "GPKG":
         kw["layer"] = spec.get("layer") or dest.stem
@@ -321,6 +321,7 @@ def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spe
         for part in dataset_files(dest):
             part.unlink()
     pyogrio.write_dataframe(frame, dest, driver=driver, promote_to_multi=True, **kw)
+    return dest
 
 
 def _file_frame(frame: Any, layer: Any) -> Any:
@@ -338,7 +339,7 @@ def _file_frame(frame: Any, layer: Any) -> Any:
     return out
 
 
-def _write_built_units(state: RepairState, tmp: Path, manifest: dict[str, Any], crs: Any) -> None:
+def _write_built_units(state: RepairState, tmp: Path, manifest: dict[str, Any], crs: Any) -> Path:
     """Write the unit polygons built from the linework as a new GeoPackage layer and name it in ``[layers.units]``."""
     import pyogrio
 
@@ -351,6 +352,35 @@ def _write_built_units(state: RepairState, tmp: Path, manifest: dict[str, Any], 
         frame = frame.set_crs(crs)
     pyogrio.write_dataframe(frame, tmp / BUILT_UNITS, layer="units", driver="GPKG", promote_to_multi=True)
     manifest.setdefault("layers", {})["units"] = {"path": BUILT_UNITS, "layer": "units", "unit_field": state.unit_field or "unit"}
+    return tmp / BUILT_UNITS
+
+
+def _write_layers(project: Any, state: RepairState, changed: set[str], layers_out: dict[str, Any], out: dict[str, Any],
+                  tmp: Path) -> list[Path]:
+    """Write the changed layers of the copy (units, the line layers) into ``tmp``; the files written."""
+    written: list[Path] = []
+    if "units" in changed and state.units is not None and "units" in layers_out:
+        layer = project.layers["units"]
+        spec = layers_out["units"]
+        written.append(_write_layer(_file_frame(state.units, layer), tmp / spec["path"], spec, "units", spec, project.crs))
+    if "units" in changed and state.units is not None and "units" not in layers_out:  # built from the linework
+        written.append(_write_built_units(state, tmp, out, project.crs))
+    if state.lines is not None and "lines" in project.layers and changed - {"units"}:
+        combined = project.layers["lines"]
+        parts = combined.parts or (combined,)
+        from ..manifest import line_sources
+
+        sources = {s.name: s for s in line_sources(out.get("layers") or {})}
+        for part in parts:
+            rows = state.lines[state.lines[SOURCE_LAYER] == part.role] if combined.parts else state.lines
+            keep = [c for c in rows.columns if c in part.frame.columns or c in (FEATURE_ID, "generated")]
+            frame = rows[keep].copy()
+            if combined.parts:
+                frame[FEATURE_ID] = frame[FEATURE_ID].astype(str).str.split(":", n=1).str[-1]
+            src = sources.get(part.role)
+            spec = src.spec if src is not None else layers_out.get("lines", {})
+            written.append(_write_layer(_file_frame(frame, part), tmp / spec["path"], spec, part.role, spec, project.crs))
+    return written
 
 
 def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Path) -> Path:
@@ -359,6 +389,7 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
 
     from ..manifest import MANIFEST_NAME, read_manifest
     from ..tomltext import dump_toml
+    from ..vectorio import staged_writes, sync_file
 
     assert project.manifest_path is not None
     raw = read_manifest(project.manifest_path)
@@ -389,27 +420,11 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
             spec["link_table"] = _place(root, spec["link_table"], tmp, taken)
     changed = {c.layer for c in changes}
     layers_out = out.get("layers") or {}
-    if "units" in changed and state.units is not None and "units" in layers_out:
-        layer = project.layers["units"]
-        spec = layers_out["units"]
-        _write_layer(_file_frame(state.units, layer), tmp / spec["path"], spec, "units", spec, project.crs)
-    if "units" in changed and state.units is not None and "units" not in layers_out:  # built from the linework
-        _write_built_units(state, tmp, out, project.crs)
-    if state.lines is not None and "lines" in project.layers and changed - {"units"}:
-        combined = project.layers["lines"]
-        parts = combined.parts or (combined,)
-        from ..manifest import line_sources
-
-        sources = {s.name: s for s in line_sources(out.get("layers") or {})}
-        for part in parts:
-            rows = state.lines[state.lines[SOURCE_LAYER] == part.role] if combined.parts else state.lines
-            keep = [c for c in rows.columns if c in part.frame.columns or c in (FEATURE_ID, "generated")]
-            frame = rows[keep].copy()
-            if combined.parts:
-                frame[FEATURE_ID] = frame[FEATURE_ID].astype(str).str.split(":", n=1).str[-1]
-            src = sources.get(part.role)
-            spec = src.spec if src is not None else layers_out.get("lines", {})
-            _write_layer(_file_frame(frame, part), tmp / spec["path"], spec, part.role, spec, project.crs)
+    written: list[Path] = []
+    with staged_writes():  # in the staging folder: each file synced below, before the folder is moved into place
+        written += _write_layers(project, state, changed, layers_out, out, tmp)
+    for path in dict.fromkeys(written):
+        sync_file(path)
     rec = dict(out.get("repair") or {})
     from .log import LOG_NAME
 
