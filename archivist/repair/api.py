@@ -197,7 +197,11 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         (tmp / _log_name()).write_text(dump_log(doc), encoding="utf-8")
         from .log import GPKG_NAME, write_changes_gpkg
 
-        write_changes_gpkg(changes, left, tmp / GPKG_NAME, proj.crs)
+        from ..vectorio import staged_writes, sync_file
+
+        with staged_writes():  # synced before the folder moves into place, as the copy's layers are
+            write_changes_gpkg(changes, left, tmp / GPKG_NAME, proj.crs)
+        sync_file(tmp / GPKG_NAME)
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
 
