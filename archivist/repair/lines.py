@@ -728,6 +728,20 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     sa, sb, segs, tree, keys = _near_segments(np.r_[before[moved], after[moved]], targets, cache)
     step = max(tol / 4.0, 1e-9)
     m = len(moved)
+    # the ends of the target segments, sorted, each with a segment it ends: a point that is one of them lies 0 from
+    # the targets and that segment is a nearest one, without asking the index
+    vkeys = np.r_[sa[:, 0] + 1j * sa[:, 1], sb[:, 0] + 1j * sb[:, 1]]
+    vorder = np.argsort(vkeys, kind="stable")
+    vkeys, vseg = vkeys[vorder], np.r_[np.arange(len(sa)), np.arange(len(sa))][vorder]
+
+    def at_vertex(xy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per point: whether it is an end of a target segment, and such a segment (else -1)."""
+        if not len(vkeys) or not len(xy):
+            return np.zeros(len(xy), dtype=bool), np.full(len(xy), -1, dtype=np.int64)
+        keys = xy[:, 0] + 1j * xy[:, 1]
+        i = np.minimum(np.searchsorted(vkeys, keys), len(vkeys) - 1)
+        hit = vkeys[i] == keys
+        return hit, np.where(hit, vseg[i], -1)
 
     def ends_far(start: np.ndarray, stop: np.ndarray, owner: np.ndarray) -> np.ndarray:
         """Per moved line, the farthest end of the segments it owns from the targets (as :func:`reach` measures it).
@@ -736,8 +750,7 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         far = np.zeros(m)
         if len(owner):
             ends = np.r_[start, stop]
-            vkeys = np.unique(np.r_[sa[:, 0] + 1j * sa[:, 1], sb[:, 0] + 1j * sb[:, 1]])
-            off = np.flatnonzero(~_in_keys(ends[:, 0] + 1j * ends[:, 1], vkeys))
+            off = np.flatnonzero(~at_vertex(ends)[0])
             if len(off):
                 (who, _), d = tree.query_nearest(shapely.points(ends[off]), return_distance=True, all_matches=False)
                 np.maximum.at(far, np.r_[owner, owner][off[who]], d)
@@ -750,13 +763,17 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
             return far
         # the ends first: the distance to one target segment is convex along a segment, so no point of a segment
         # lies farther from the targets than its two ends lie from the target nearest to either of them
-        ends = shapely.points(np.r_[start, stop])
-        (who, near), d = tree.query_nearest(ends, return_distance=True, all_matches=False)
+        exy = np.r_[start, stop]
+        ends = shapely.points(exy)
         k = len(owner)
+        # an end that is an end of a target segment: 0 away, that segment a nearest one; the others asked
+        hit, te = at_vertex(exy)
         de = np.zeros(2 * k)
-        de[who] = d
-        te = np.full(2 * k, -1, dtype=np.int64)
-        te[who] = near
+        ask = np.flatnonzero(~hit)
+        if len(ask):
+            (who, near), d = tree.query_nearest(ends[ask], return_distance=True, all_matches=False)
+            de[ask[who]] = d
+            te[ask[who]] = near
         lo = np.maximum(de[:k], de[k:])
         ok = (te[:k] >= 0) & (te[k:] >= 0)
         up = np.full(k, np.inf)
