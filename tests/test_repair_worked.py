@@ -299,6 +299,50 @@ def test_snap_edges_starts_only_from_polygons_with_a_real_misfit():
     assert misfits(nudged) == [0, 1]
 
 
+def test_a_few_misfits_found_invalid_with_their_neighbours_mean_the_region_is_invalid():
+    # snap-edges skips GEOS's validation of its whole region when a few misfit polygons, validated with every
+    # polygon within the snapping distance, already have an invalid edge. Held against GEOS's coverage_is_valid of
+    # the whole map on Voronoi maps: a vertex moved by less than the distance (invalid), a gap as thin as it
+    # between two cells (invalid), a cell shrunk away from the map edge only (valid: the strip is open to the
+    # outside), a clean map (valid); whenever the few say invalid, GEOS says so of the whole
+    from archivist.repair.polygons import _Near, _surely_invalid
+
+    rng = np.random.default_rng(4)
+    frame = box(0, 0, 100, 100)
+    cells = shapely.intersection(shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 100, (40, 2))),
+                                                                          extend_to=frame)), frame)
+    tol = 0.5
+
+    def nudged(g):
+        g = g.copy()
+        xy = shapely.get_coordinates(g[3])
+        xy[1] += 0.2
+        g[3] = shapely.set_coordinates(shapely.from_wkb(shapely.to_wkb(g[3])), xy)
+        return g
+
+    def thin_gap(g):
+        g = g.copy()
+        g[5] = shapely.buffer(g[5], -0.1, join_style="mitre")
+        return g
+
+    def edge_only(g):  # a cell on the frame cut back from the frame by a strip 0.2 m wide, nothing else moved
+        g = g.copy()
+        k = int(np.flatnonzero(shapely.intersects(shapely.boundary(frame), g))[0])
+        g[k] = shapely.intersection(g[k], box(0.2, 0.2, 99.8, 99.8))
+        return g
+
+    seen = set()
+    for make in (lambda g: g, nudged, thin_gap, edge_only):
+        g = np.asarray(make(cells), dtype=object)
+        near = _Near(g, np.ones(len(g), dtype=bool), tol)
+        whole = bool(shapely.coverage_is_valid(g, gap_width=tol))  # GEOS
+        for seed in range(len(g)):
+            sure = _surely_invalid(near, g, np.array([seed]), tol)
+            assert not (sure and whole), (make, seed)
+            seen.add((whole, sure))
+    assert (False, True) in seen and (True, False) in seen  # both answers met
+
+
 def test_an_overlap_left_is_given_back_clipped_to_its_neighbour_as_cleaned():
     # polygon 1 keeps an overlap left with polygon 0: a 1 m x 0.05 m strip; polygon 0 as cleaned ends at x = 4.97,
     # 0.03 m short of the strip's far side, so the strip given back is what lies inside it (GEOS intersection):

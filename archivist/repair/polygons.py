@@ -575,11 +575,13 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # misfit, overlap and gap has one) and those within the snapping distance of them; a polygon whose edges all
     # have their twin fits its neighbours already, and where one cleaned no longer fits it, it joins (below)
     near = _Near(geoms, usable, settings.tolerance)
-    region = near.of(units.rows[_misfits(units, ctx.edges(), settings.tolerance)])
+    misfit = units.rows[_misfits(units, ctx.edges(), settings.tolerance)]
+    region = near.of(misfit)
     # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance. An invalid edge is one without
     # its twin (a suspect's) that meets a polygon within that distance (in the region too), so the region answers
     # for the map: a polygon left out of it can only make the region look invalid, never valid
-    if shapely.coverage_is_valid(geoms[np.flatnonzero(region)], gap_width=settings.tolerance):
+    if not _surely_invalid(near, geoms, misfit[usable[misfit]][:SEEDS], settings.tolerance) and \
+            shapely.coverage_is_valid(geoms[np.flatnonzero(region)], gap_width=settings.tolerance):
         return [], []
     refused: dict[int, float] = {}
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
@@ -755,6 +757,32 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
             notes.append(f"; the overlap left with {ids[i]} clipped to it as cleaned ({lost:.3g} m² less)")
         out.append(q)
     return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes)
+
+
+SEEDS = 8  # misfit polygons whose edges are validated first, with the polygons around them (see _surely_invalid)
+
+
+def _surely_invalid(near: "_Near", geoms: np.ndarray, seeds: np.ndarray, distance: float) -> bool:
+    """True when GEOS finds an invalid edge on one of the polygons ``seeds``, validated together with every usable
+    polygon within ``distance`` of them (``shapely.coverage_invalid_edges``, gaps as narrow as the distance).
+
+    Then any set of polygons holding all of those is invalid too: an edge of
+    a seed is judged by the polygons within the distance of it, all of which
+    are there (one matching it, or filling what looks like a gap, would touch
+    it); a polygon farther away can only close a gap that is open here to
+    the outside, never mend an edge found invalid. So a few polygons settle
+    what GEOS's validation of the whole region would say, wherever a misfit
+    is a real one; otherwise (False) the region is asked as before.
+    """
+    if not len(seeds):
+        return False
+    around = np.flatnonzero(near.of(seeds))
+    at = np.searchsorted(around, seeds)
+    ok = (at < len(around)) & (around[np.minimum(at, len(around) - 1)] == seeds)
+    if not ok.any():
+        return False
+    bad = ~shapely.is_empty(shapely.coverage_invalid_edges(geoms[around], gap_width=distance))
+    return bool(bad[at[ok]].any())
 
 
 LOCAL_STEPS = 12  # cleanings of only the polygons near those that no longer fit; then of all the region linked to them
