@@ -262,9 +262,14 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     # distance (a piece reaching into a corner where three polygons meet) and cutting it out of the other would
     # not, the other gives it up: the move stays within the snapping distance wherever one of the two can
     reach = settings.tolerance * ABOVE
-    far_a = _far_if_cut(geoms[a], pieces, reach)
-    far_b = _far_if_cut(geoms[b], pieces, reach)
-    flip = np.where(keep_a, far_b & ~far_a, far_a & ~far_b)
+    # the cut out of the polygon the rule chose first; the other's only where that one is too far
+    lose = np.where(keep_a, b, a)
+    far_lose = _far_if_cut(geoms[lose], pieces, reach)
+    far_keep = np.zeros(len(a), dtype=bool)
+    if far_lose.any():
+        at = np.flatnonzero(far_lose)
+        far_keep[at] = _far_if_cut(geoms[np.where(keep_a, a, b)[at]], pieces[at], reach)
+    flip = far_lose & ~far_keep
     keep_a = keep_a ^ flip
     why = [f"{w}; the other would move further than the snapping distance" if f else w for w, f in zip(why, flip)]
     winner, loser = np.where(keep_a, a, b), np.where(keep_a, b, a)
