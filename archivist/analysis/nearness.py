@@ -141,12 +141,6 @@ def clipped_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: flo
     return parts[keep], ti[k[keep]]
 
 
-def near_buffers(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> np.ndarray:
-    """Per target, the tol-buffer of the reference geometries paired with it (ti), clipped near the target."""
-    parts, k = clipped_near(targets, ti, refs, tol)
-    return _buffers(targets, parts, k, _buffer_distance(targets, ti, tol))
-
-
 def _buffer_distance(targets: np.ndarray, ti: np.ndarray, tol: float) -> float:
     """``tol``; with a zero tolerance, "on" means within floating-point noise of the reference (of the targets' size)."""
     if tol > 0 or not len(ti):
@@ -254,7 +248,7 @@ def subtract_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.
     """Each target less the ``tol``-buffers of the references paired with it (``targets[ti]`` with ``refs[rj]``).
 
     Without ``share``, every target gets one buffer of the references near it, clipped near it
-    (:func:`near_buffers`). With ``share``, a reference that :func:`_shareable` allows is buffered once, whole,
+    (:func:`clipped_near`, then one buffer of its parts per target). With ``share``, a reference that :func:`_shareable` allows is buffered once, whole,
     however many targets it is paired with, and taken out of them in rounds (the first reference of every
     target, then the second...), each round one bulk GEOS difference; the others as without ``share``. Within
     the tolerance of a target both buffers are made of the same offset segments and arcs, so the same parts are

@@ -102,16 +102,7 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     eps = noise(np.concatenate([lines[have], targets]))
     parts, owner = shapely.get_parts(lines[have], return_index=True)
     owner = have[owner]
-    if cache is not None and "snap" in cache:
-        ttree, tv, vtree, tkey = cache["snap"]
-    else:
-        ttree = shapely.STRtree(targets)
-        xy = shapely.get_coordinates(targets)
-        tkey = np.unique(xy[:, 0] + 1j * xy[:, 1])  # the target vertices once each, sorted by x then y
-        tv = np.stack([tkey.real, tkey.imag], axis=1)
-        vtree = shapely.STRtree(shapely.points(tv))
-        if cache is not None:
-            cache["snap"] = (ttree, tv, vtree, tkey)
+    ttree, tv, vtree, tkey = _target_indexes(targets, cache)
     ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
@@ -149,6 +140,23 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
         shift[ok_f] = h[~too_far]
         changed[ok_f] = True
     return Snapped(out, shift, changed, held)
+
+
+def _target_indexes(targets: np.ndarray, cache: dict[str, Any] | None = None
+                    ) -> tuple[shapely.STRtree, np.ndarray, shapely.STRtree, np.ndarray]:
+    """The indexes of the targets (none missing or empty): their STRtree, their vertices once each sorted by x
+    then y, an STRtree of those vertices, and the vertices as keys x + iy (:func:`_in_keys`); kept in ``cache``
+    (under "snap") for the next call on the same targets."""
+    if cache is not None and "snap" in cache:
+        return cache["snap"]
+    ttree = shapely.STRtree(targets)
+    xy = shapely.get_coordinates(targets)
+    tkey = np.unique(xy[:, 0] + 1j * xy[:, 1])  # the target vertices once each, sorted by x then y
+    tv = np.stack([tkey.real, tkey.imag], axis=1)
+    found = (ttree, tv, shapely.STRtree(shapely.points(tv)), tkey)
+    if cache is not None:
+        cache["snap"] = found
+    return found
 
 
 MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
@@ -841,13 +849,8 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     its index of the targets.
     """
     valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
-    if cache is not None and "snap" in cache:  # over the same targets, missing and empty ones left out in the same way
-        ttree, _, vtree, tkey = cache["snap"]
-    else:
-        ttree = shapely.STRtree(valid)
-        vxy = shapely.get_coordinates(valid)
-        vtree = shapely.STRtree(shapely.points(vxy))
-        tkey = np.unique(vxy[:, 0] + 1j * vxy[:, 1])
+    # over the same targets as snap_to_boundaries's, missing and empty ones left out in the same way
+    ttree, _, vtree, tkey = _target_indexes(valid, cache)
     xy, li = shapely.get_coordinates(lines, return_index=True)
     reach = np.zeros(len(lines))
     # a vertex that is one of the targets' own lies 0 from them: only the others are asked
