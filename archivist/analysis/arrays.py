@@ -40,13 +40,13 @@ def _fmix(h: np.ndarray) -> np.ndarray:
 
 def same_objects(old: np.ndarray, new: np.ndarray) -> np.ndarray:
     """Per element of ``new``: the position in ``old`` of the very same object (identity), else -1."""
+    if not len(old):
+        return np.full(len(new), -1, dtype=np.int64)
     a = np.fromiter(map(id, old), dtype=np.int64, count=len(old))
     b = np.fromiter(map(id, new), dtype=np.int64, count=len(new))
     order = np.argsort(a, kind="stable")
-    at = np.searchsorted(a[order], b)
-    at[at == len(a)] = 0
-    found = (a[order][at] == b) if len(a) else np.zeros(len(b), dtype=bool)
-    return np.where(found, order[at] if len(a) else -1, -1)
+    at = np.minimum(np.searchsorted(a[order], b), len(a) - 1)
+    return np.where(a[order][at] == b, order[at], -1)
 
 
 def coord_hash(*columns: np.ndarray) -> np.ndarray:

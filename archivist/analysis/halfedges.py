@@ -157,8 +157,7 @@ def half_edge_rows(geoms: np.ndarray, basis: HalfEdgeRows | None = None) -> Half
     kept = np.flatnonzero(src >= 0)
     b_start = np.searchsorted(basis.owner, np.arange(len(basis.geoms)))
     b_count = np.diff(np.r_[b_start, len(basis.owner)])
-    n_count = np.bincount(new.owner, minlength=n)
-    count = n_count.copy()
+    count = np.bincount(new.owner, minlength=n)
     count[kept] = b_count[src[kept]]
     start = np.zeros(n, dtype=np.int64)
     start[kept] = b_start[src[kept]]
@@ -178,19 +177,10 @@ def half_edge_rows(geoms: np.ndarray, basis: HalfEdgeRows | None = None) -> Half
 
 def build_edges(geoms: np.ndarray, basis: EdgeBasis | None = None) -> Edges:
     """The half-edge table of polygons (see :class:`Edges`); ``basis``: see :class:`EdgeBasis`."""
+    rows = half_edge_rows(geoms, basis.rows if basis is not None else None)
     if basis is not None:
-        rows = half_edge_rows(geoms, basis.rows)
         basis.rows = rows
-        return _table(rows.px, rows.py, rows.qx, rows.qy, rows.fwd, rows.h, rows.owner)
-    x0, y0, x1, y1, owner = polygon_half_edges(geoms)
-    px, py, qx, qy, fwd = canonical(x0, y0, x1, y1)
-    del x0, y0, x1, y1
-    h = coord_hash(px, py, qx, qy)
-    return _table(px, py, qx, qy, fwd, h, owner)
-
-
-def _table(px: np.ndarray, py: np.ndarray, qx: np.ndarray, qy: np.ndarray, fwd: np.ndarray, h: np.ndarray,
-           owner: np.ndarray) -> Edges:
+    px, py, qx, qy, fwd, h, owner = rows.px, rows.py, rows.qx, rows.qy, rows.fwd, rows.h, rows.owner
     order, gid, starts = group_sorted(h, px, py, qx, qy)
     n = len(order)
     counts = np.diff(np.r_[starts, n])

@@ -171,7 +171,7 @@ class RepairState:
     aligned: bool = False
     # the half-edges of the working units last built, lent to the next build (only the polygons replaced since
     # are taken apart again)
-    edge_basis: "EdgeBasis" = field(default_factory=lambda: _edge_basis())
+    edge_basis: "EdgeBasis" = field(default_factory=_edge_basis)
 
     def carry(self, role: str, layer: "Layer") -> "Layer":
         """``layer``, a view of the working copy of ``role``, with the per-feature answers of the last view (and of
