@@ -299,6 +299,46 @@ def test_snap_edges_starts_only_from_polygons_with_a_real_misfit():
     assert misfits(nudged) == [0, 1]
 
 
+def _finger_map(width: float):
+    # A = [0, 5] x [5, 10] less a finger of C, [4.9, 4.9 + width] x [5, 5.15]; B = [5, 10] x [5, 10] with the
+    # vertex (7.5, 4.99) on its bottom edge, 0.01 m into C = [0, 10] x [0, 5] and the finger (tolerance 0.1 m)
+    finger = box(4.9, 5, 4.9 + width, 5.15)
+    a = shapely.difference(box(0, 5, 5, 10), finger)
+    b = shapely.Polygon([(5, 5), (7.5, 4.99), (10, 5), (10, 10), (5, 10)])
+    return [a, b, shapely.union(box(0, 0, 10, 5), finger)]
+
+
+def test_snap_edges_cleans_again_at_a_finer_distance_where_the_full_one_folds_a_finger(tmp_path):
+    # The finger of C is 0.04 m wide and 0.15 m long. GEOS's cleaning at the snapping distance (0.1 m) snaps its two
+    # sides together and folds it away: C's boundary moves 0.15 m (Hausdorff distance), more than the distance; at
+    # half the distance (0.05 m) too; at a quarter (0.025 m) the sides stay apart, B's nudged vertex and C's edge
+    # are made one (C's edge takes B's vertex: B is unchanged), and no boundary moves more than 0.01 m (GEOS). So C
+    # keeps its finger and gives B the 0.025 m² wedge under the nudged vertex (5 m x 0.01 m / 2, by hand):
+    # 50 + 0.006 - 0.025 = 49.981 m².
+    project = square(tmp_path, _finger_map(0.04), ["A", "B", "B"])
+    result = repair(project, tmp_path / "out", only=["snap-edges"])
+    assert result.left == ()
+    assert [c.features_before for c in result.changes] == [("3",)]
+    assert result.changes[0].max_shift == pytest.approx(0.01)
+    units = copy_units(tmp_path / "out")
+    assert shapely.coverage_is_valid(units.geometry.values, gap_width=0.1)  # GEOS
+    assert units.geometry.loc[3].area == pytest.approx(49.981)
+    assert "unit-edge-mismatch" not in topology_rules(tmp_path / "out")
+    assert repair(tmp_path / "out", tmp_path / "again", only=["snap-edges"]).changes == ()
+
+
+def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp_path):
+    # The finger 0.01 m wide folds at every distance tried (0.1, 0.05, 0.025 and 0.0125 m: its sides are nearer than
+    # each): C would move 0.15 m, so it keeps its input and is listed, and its misfit with B stays for the geologist.
+    project = square(tmp_path, _finger_map(0.01), ["A", "B", "B"])
+    result = repair(project, tmp_path / "out", only=["snap-edges"])
+    assert [(x.features, round(x.measure, 6)) for x in result.left] == [(("3",), 0.15)]
+    units = copy_units(tmp_path / "out")
+    assert shapely.equals(units.geometry.loc[3], _finger_map(0.01)[2])
+    assert all(c.max_shift <= 0.1 for c in result.changes)
+    assert topology_rules(tmp_path / "out").get("unit-edge-mismatch", 0) >= 1
+
+
 def test_a_few_misfits_found_invalid_with_their_neighbours_mean_the_region_is_invalid():
     # snap-edges skips GEOS's validation of its whole region when a few misfit polygons, validated with every
     # polygon within the snapping distance, already have an invalid edge. Held against GEOS's coverage_is_valid of
@@ -407,9 +447,9 @@ def test_resolving_overlaps_never_opens_a_gap_on_a_generated_map(tmp_path):
     # 0.38 m² gap there, which fill-gaps then filled as though the map had had one.
     sys.path.insert(0, str(Path(__file__).resolve().parent))
     from coverage_builders import write_map
-    from test_repair_bounds import SPIKE_FOLDED_BY_SNAPPING, broken
+    from test_repair_bounds import CORNER_GOING_ROUND, broken
 
-    project = write_map(broken(**SPIKE_FOLDED_BY_SNAPPING[0]), tmp_path / "map")
+    project = write_map(broken(**CORNER_GOING_ROUND), tmp_path / "map")
     result = repair(project, tmp_path / "out", only=["resolve-overlaps"])
     assert len(result.changes) == 6
     before = pyogrio.read_dataframe(project / "map.gpkg", layer="units").geometry.values

@@ -17,7 +17,7 @@ Bounds every repair keeps (tests hold them against GEOS):
 
 from __future__ import annotations
 
-from dataclasses import replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import geopandas as gpd
@@ -556,8 +556,13 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     What GEOS does not promise, and this repair holds itself: the snapping
     distance is a step of its noding, not a bound on any vertex's move, so
     every polygon is compared with its input (Hausdorff distance of the
-    boundaries) and one that would move further than the distance keeps its
-    input geometry and is listed; an overlap left for the geologist is
+    boundaries). Where one would move further than the distance (GEOS
+    snapping the two sides of a part narrower than the distance together,
+    and folding it away), it and the polygons near it are cleaned again at
+    half the distance, then a quarter, an eighth, and the first that moves
+    none too far and leaves them a valid coverage with no gap as thin as
+    the tolerance (GEOS) is kept; otherwise the polygon keeps its input
+    geometry and is listed. An overlap left for the geologist is
     kept as it is (GEOS would give it away): it is cut out of one of its
     two polygons for the cleaning and given back afterwards, or, where that
     cannot be done (one polygon wholly inside the other), both polygons are
@@ -640,6 +645,8 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     todo = region.copy()  # the polygons of the region (re)cleaned now
     rounds = steps = 0
     again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
+    distance = settings.tolerance  # the snapping distance of the cleaning now
+    trial: _Finer | None = None  # finer cleanings tried around polygons the full distance moves too far
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
     # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned no longer fits one
@@ -656,7 +663,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
             order = np.argsort(key, kind="stable")
         cleaned = np.empty(len(work), dtype=object)
-        cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=settings.tolerance, gap_width=0.0,
+        cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=distance, gap_width=0.0,
                                                 merge_strategy=strategy)
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
         for k_, k in back:  # one per polygon with an overlap left for the geologist: the overlap given back
@@ -677,6 +684,8 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         # outside can have stopped fitting
         moved_now = ~shapely.equals_exact(shapely.normalize(_single(current[sel])), shapely.normalize(_single(cleaned)))
         current[sel] = cleaned
+        if trial is not None:
+            trial.cleaned[sel] = True
         grow = _unfitted(near, sel, cleaned, todo, current, moved_now)
         if grow.any():
             steps += 1
@@ -687,9 +696,27 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             continue
         mine = np.flatnonzero(region & ~hold & usable)
         bad = (too_far_r[mine] | lost_r[mine]) & ~same_r[mine]
-        if not bad.any():
+        if not bad.any() and (trial is None or trial.fits(near, current, usable, settings.tolerance)):
             break
-        held = mine[bad]
+        # a polygon the cleaning moves too far: first cleaned again with the polygons near it at half the snapping
+        # distance, then a quarter, an eighth (each time from the cleaning that moved it too far), kept where no
+        # polygon then moves too far and GEOS finds them and their neighbours a valid coverage with no gap as thin
+        # as the tolerance; else as before the tries, and held
+        if trial is None:
+            trial = _Finer(mine[bad], (current, same_r, moved_r, too_far_r, lost_r, region), dict(clipped))
+        if trial.level < FINER:
+            trial.level += 1
+            distance = settings.tolerance / 2.0 ** trial.level
+            current, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
+            clipped = dict(trial.clipped)
+            todo = near.of(trial.bad)
+            trial.cleaned = todo.copy()
+            region |= todo
+            steps = 0
+            continue
+        current, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
+        clipped, distance = dict(trial.clipped), settings.tolerance
+        held, trial = trial.bad, None
         hold[held] = True
         refused.update({int(k): float(m) for k, m in zip(held, moved_r[held])})
         current[held] = geoms[held]
@@ -790,7 +817,7 @@ def _surely_invalid(near: "_Near", geoms: np.ndarray, seeds: np.ndarray, distanc
     return bool(bad[at[ok]].any())
 
 
-LOCAL_STEPS = 12  # cleanings of only the polygons near those that no longer fit; then of all the region linked to them
+FINER = 3  # halvings of the snapping distance tried around a polygon the full distance moves too far (our own choice)
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
@@ -823,6 +850,23 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     bad = ~shapely.is_empty(shapely.coverage_invalid_edges(np.r_[cleaned[rim], current[outside]], gap_width=near.distance))
     out[outside[bad[len(rim):]]] = True
     return out
+
+
+@dataclass
+class _Finer:
+    """Finer cleanings tried around polygons the full snapping distance moves too far (see :func:`snap_edges`)."""
+
+    bad: np.ndarray  # the polygons moved too far (row positions)
+    saved: tuple[np.ndarray, ...]  # the cleaning's arrays as they were then, restored before each try and after
+    clipped: dict[int, str]
+    level: int = 0  # the snapping distance is the tolerance halved this many times
+    cleaned: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))  # the polygons cleaned in this try
+
+    def fits(self, near: "_Near", current: np.ndarray, usable: np.ndarray, tolerance: float) -> bool:
+        """GEOS: the polygons cleaned in this try and those near them form a valid coverage, no gap as thin as the
+        tolerance (the full distance would have closed one; a finer one may not)."""
+        around = np.flatnonzero(near.of(np.flatnonzero(self.cleaned)) & usable)
+        return bool(shapely.coverage_is_valid(current[around], gap_width=tolerance))
 
 
 class _Near:
