@@ -160,3 +160,31 @@ def test_repair_bounds_on_generated_maps(tmp_path_factory, n, seed, grow, shrink
     assert removed <= merged
     again = repair(tmp / "out", tmp / "again")
     assert again.changes == ()
+
+
+@pytest.mark.parametrize("seed", [0, 1, 4, 13, 26])
+def test_an_overlap_left_for_the_geologist_stays_as_listed_and_a_second_run_changes_nothing(tmp_path, seed):
+    # One polygon of a generated map grown by 0.5 m (round joins) over its neighbours, with the largest overlap a
+    # repair may give away set 1 m² under its largest overlap: that one is left and listed, the others are given
+    # away. GEOS's cleaning at the full snapping distance (1 m) moved the grown polygon's edges back by up to 0.5 m
+    # and clipped the overlap left to 8 to 29 m² less (these seeds, before finer cleanings were tried around it), so
+    # a second run found it under the limit and gave it away. Now the overlap stays larger than the limit (GEOS
+    # intersection of the two polygons in the copy), and repairing the copy changes nothing.
+    smap = synthetic_map(25, seed=seed)
+    g = np.asarray(smap.units.geometry.values, dtype=object).copy()
+    grown = shapely.intersection(shapely.buffer(g[12], 0.5, quad_segs=2), smap.extent)
+    overlaps = [float(shapely.area(shapely.intersection(grown, g[q]))) for q in range(len(g)) if q != 12]
+    limit = max(overlaps) - 1.0
+    g[12] = grown
+    project = write_map(with_units(smap, g), tmp_path / "map")
+    manifest = project / "archivist.toml"
+    manifest.write_text(manifest.read_text(encoding="utf-8") +
+                        f"\n[repair]\noverlap_max_area_mm2 = {limit / (smap.scale / 1000.0) ** 2}\n", encoding="utf-8")
+    only = ["resolve-overlaps", "fill-gaps", "snap-edges"]
+    result = repair(project, tmp_path / "out", only=only)
+    left = [x for x in result.left if x.repair == "resolve-overlaps"]
+    assert len(left) == 1 and left[0].measure == pytest.approx(max(overlaps), rel=1e-9)
+    units = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="units", fid_as_index=True).geometry
+    a, b = (units.loc[int(f)] for f in left[0].features)
+    assert float(shapely.area(shapely.intersection(a, b))) > limit  # GEOS: still more than a repair gives away
+    assert repair(tmp_path / "out", tmp_path / "again", only=only).changes == ()

@@ -328,13 +328,14 @@ def test_snap_edges_cleans_again_at_a_finer_distance_where_the_full_one_folds_a_
 
 
 def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp_path):
-    # The finger 0.01 m wide folds at every distance tried (0.1, 0.05, 0.025 and 0.0125 m: its sides are nearer than
-    # each): C would move 0.15 m, so it keeps its input and is listed, and its misfit with B stays for the geologist.
-    project = square(tmp_path, _finger_map(0.01), ["A", "B", "B"])
+    # The finger 0.001 m wide folds at every distance tried (0.1 m, then halved six times down to 0.0015625 m: its
+    # sides are nearer than each): C would move 0.15 m, so it keeps its input and is listed, and its misfit with B
+    # stays for the geologist.
+    project = square(tmp_path, _finger_map(0.001), ["A", "B", "B"])
     result = repair(project, tmp_path / "out", only=["snap-edges"])
     assert [(x.features, round(x.measure, 6)) for x in result.left] == [(("3",), 0.15)]
     units = copy_units(tmp_path / "out")
-    assert shapely.equals(units.geometry.loc[3], _finger_map(0.01)[2])
+    assert shapely.equals(units.geometry.loc[3], _finger_map(0.001)[2])
     assert all(c.max_shift <= 0.1 for c in result.changes)
     assert topology_rules(tmp_path / "out").get("unit-edge-mismatch", 0) >= 1
 
@@ -391,14 +392,19 @@ def test_an_overlap_left_is_given_back_clipped_to_its_neighbour_as_cleaned():
 
     piece = box(4.95, 0, 5.0, 1)
     cleaned = np.array([box(0, 0, 4.97, 10)], dtype=object)  # polygon 0 as cleaned
-    back, note = _fitted_back(1, [(0, piece)], piece, cleaned, {0: 0}, cleaned.copy(),
-                              np.array(["A", "B"], dtype=object))
+    names = np.array(["A", "B"], dtype=object)
+    back, note, small = _fitted_back(1, [(0, piece)], piece, cleaned, {0: 0}, cleaned.copy(), names)
     assert shapely.equals_exact(shapely.normalize(back), shapely.normalize(box(4.95, 0, 4.97, 1)), 1e-12)
     assert "overlap left with A clipped" in note and "0.03 m² less" in note
+    # what is left, 0.02 m x 1 m = 0.02 m², is no larger than a repair gives away when the limit is 0.025 m² (a second
+    # run would give it away), and larger when it is 0.01 m²
+    assert small is False
+    assert _fitted_back(1, [(0, piece)], piece, cleaned, {0: 0}, cleaned.copy(), names, 0.025)[2] is True
+    assert _fitted_back(1, [(0, piece)], piece, cleaned, {0: 0}, cleaned.copy(), names, 0.01)[2] is False
     # the neighbour unchanged: given back as it was, and nothing said
-    back, note = _fitted_back(1, [(0, piece)], piece, np.array([box(0, 0, 5.0, 10)], dtype=object), {0: 0},
-                              cleaned.copy(), np.array(["A", "B"], dtype=object))
-    assert shapely.equals(back, piece) and note == ""
+    back, note, small = _fitted_back(1, [(0, piece)], piece, np.array([box(0, 0, 5.0, 10)], dtype=object), {0: 0},
+                                     cleaned.copy(), names, 1.0)
+    assert shapely.equals(back, piece) and note == "" and small is False
 
 
 @pytest.mark.parametrize("w", [0.45, 0.495, 0.499, 0.501, 0.505, 0.55])

@@ -559,15 +559,22 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     boundaries). Where one would move further than the distance (GEOS
     snapping the two sides of a part narrower than the distance together,
     and folding it away), it and the polygons near it are cleaned again at
-    half the distance, then a quarter, an eighth, and the first that moves
-    none too far and leaves them a valid coverage with no gap as thin as
+    half the distance, then a quarter, and so on down to 1/64 of it
+    (``FINER``), and the first that moves none too far and leaves them a valid coverage with no gap as thin as
     the tolerance (GEOS) is kept; otherwise the polygon keeps its input
     geometry and is listed. An overlap left for the geologist is
     kept as it is (GEOS would give it away): it is cut out of one of its
-    two polygons for the cleaning and given back afterwards, or, where that
-    cannot be done (one polygon wholly inside the other), both polygons are
-    kept out of the cleaning; a polygon whose only difference is where its
-    rings start or their orientation is not a change.
+    two polygons for the cleaning and given back afterwards, clipped to the
+    other polygon as cleaned, or, where that cannot be done (one polygon
+    wholly inside the other), both polygons are kept out of the cleaning.
+    Where the clipping would leave it no larger than a repair gives away
+    (the cleaning moved the edges of the polygon it lies in, and a second
+    run would give it away), the polygons around it are cleaned again at
+    the finer distances as above. With the overlaps left cut out, a region
+    GEOS finds valid is not cleaned at all, so a second run over a copy
+    whose only defects are those overlaps changes nothing. A polygon whose
+    only difference is where its rings start or their orientation is not a
+    change.
     Never: it does not move a vertex further than the snapping distance.
     """
     if state.units is None or not len(state.units):
@@ -587,12 +594,6 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     near = _Near(geoms, usable, settings.tolerance)
     misfit = units.rows[_misfits(units, ctx.edges(), settings.tolerance)]
     region = near.of(misfit)
-    # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance. An invalid edge is one without
-    # its twin (a suspect's) that meets a polygon within that distance (in the region too), so the region answers
-    # for the map: a polygon left out of it can only make the region look invalid, never valid
-    if not _surely_invalid(near, geoms, misfit[usable[misfit]][:SEEDS], settings.tolerance) and \
-            shapely.coverage_is_valid(geoms[np.flatnonzero(region)], gap_width=settings.tolerance):
-        return [], []
     refused: dict[int, float] = {}
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
     # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
@@ -631,7 +632,14 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                     continue
                 base[k] = rest
                 put_back[k] = back
-    else:
+    # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance, the overlaps left for the
+    # geologist cut out (the second run over a copy where they are all that is left has nothing to clean). An invalid
+    # edge is one without its twin (a suspect's) that meets a polygon within that distance (in the region too), so
+    # the region answers for the map: a polygon left out of it can only make the region look invalid, never valid
+    if not _surely_invalid(near, base, misfit[usable[misfit]][:SEEDS], settings.tolerance) and \
+            shapely.coverage_is_valid(base[np.flatnonzero(region)], gap_width=settings.tolerance):
+        return [], []
+    if state.overlaps_left is None:
         cov = ctx.coverage()
         for p in cov.overlaps:
             if p.width > cov.tol * ABOVE:
@@ -639,14 +647,18 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     strategy = MERGE_STRATEGY.get(settings.overlap, "min_index")
     n = len(geoms)
     current = geoms.copy()  # per polygon: as the cleaning left it (its input where it was not cleaned)
+    bare = base.copy()  # the same before an overlap left for the geologist is given back (GEOS's cleaning as it is)
     same_r, moved_r = np.ones(n, dtype=bool), np.zeros(n)
     too_far_r, lost_r = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
-    clipped: dict[int, str] = {}  # per polygon given back an overlap clipped to its cleaned neighbour: what the log says
+    # per polygon given back an overlap clipped to its cleaned neighbour: what the log says, and whether an overlap is
+    # left no larger than a repair gives away
+    clipped: dict[int, tuple[str, bool]] = {}
     todo = region.copy()  # the polygons of the region (re)cleaned now
     rounds = steps = 0
     again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     distance = settings.tolerance  # the snapping distance of the cleaning now
-    trial: _Finer | None = None  # finer cleanings tried around polygons the full distance moves too far
+    trial: _Finer | None = None  # finer cleanings tried (see below)
+    tried: set[int] = set()  # polygons given back a clipped overlap that finer cleanings were tried around (once each)
     # a polygon GEOS would move too far keeps its input and is cleaned no more: the polygons within the snapping
     # distance of it are cleaned again without it, so that they are not left fitted to a version of it that is not
     # kept; the rest of the map keeps what the first cleaning made of it. Where a polygon cleaned no longer fits one
@@ -666,9 +678,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=distance, gap_width=0.0,
                                                 merge_strategy=strategy)
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
+        bare[sel] = cleaned
         for k_, k in back:  # one per polygon with an overlap left for the geologist: the overlap given back
-            piece, note = _fitted_back(k, owners.get(k, []), put_back[k], cleaned, at, current, ids)
-            clipped[k] = note
+            piece, note, small = _fitted_back(k, owners.get(k, []), put_back[k], cleaned, at, current, ids,
+                                              settings.overlap_max_area)
+            clipped[k] = (note, small)
             try:
                 cleaned[k_] = shapely.union(cleaned[k_], piece)
                 if shapely.equals(cleaned[k_], work[k_]):  # nothing else changed: the input as it was (its vertices)
@@ -695,31 +709,50 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             region |= todo
             continue
         mine = np.flatnonzero(region & ~hold & usable)
-        bad = (too_far_r[mine] | lost_r[mine]) & ~same_r[mine]
-        if not bad.any() and (trial is None or trial.fits(near, current, usable, settings.tolerance)):
-            break
-        # a polygon the cleaning moves too far: first cleaned again with the polygons near it at half the snapping
-        # distance, then a quarter, an eighth (each time from the cleaning that moved it too far), kept where no
-        # polygon then moves too far and GEOS finds them and their neighbours a valid coverage with no gap as thin
-        # as the tolerance; else as before the tries, and held
-        if trial is None:
-            trial = _Finer(mine[bad], (current, same_r, moved_r, too_far_r, lost_r, region), dict(clipped))
-        if trial.level < FINER:
-            trial.level += 1
+        far = mine[(too_far_r[mine] | lost_r[mine]) & ~same_r[mine]]
+        # a polygon the cleaning moves too far, or one given back an overlap left for the geologist clipped to no more
+        # than a repair gives away (the cleaning moved the boundary of the polygon it lies in, and a second run would
+        # give the rest away): cleaned again with the polygons near it at half the snapping distance, then a quarter,
+        # and so on (each time from the cleaning that did it), kept where no polygon then moves too far, no such
+        # overlap is clipped that far, and GEOS finds them and their neighbours a valid coverage with no gap as thin
+        # as the tolerance; else as before the tries: a polygon moved too far is held, a clipped overlap stays
+        # clipped. The polygons moved too far are tried first, all at once; then each clipped overlap on its own
+        held = None
+        if trial is not None:
+            if not len(far) and not (trial.clip and len(_nicked(clipped, region, trial.bad))) and \
+                    trial.fits(near, bare, usable, settings.tolerance):
+                trial = None  # kept
+            elif trial.level < FINER:
+                trial.level += 1
+            else:  # as before the tries
+                current, bare, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
+                clipped, distance = dict(trial.clipped), settings.tolerance
+                if trial.clip:
+                    far = np.zeros(0, dtype=np.int64)  # none then: clipped overlaps are tried only after
+                else:
+                    held = trial.bad
+                trial = None
+        if trial is None and held is None:
+            nicked = _nicked(clipped, region, np.setdiff1d(np.fromiter(clipped, dtype=np.int64), np.fromiter(tried, dtype=np.int64)))
+            if not len(far) and not len(nicked):
+                break
+            trial = _Finer(far if len(far) else nicked[:1], not len(far),
+                           (current, bare, same_r, moved_r, too_far_r, lost_r, region), dict(clipped))
+            if trial.clip:
+                tried.add(int(nicked[0]))
+        if trial is not None:
             distance = settings.tolerance / 2.0 ** trial.level
-            current, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
+            current, bare, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
             clipped = dict(trial.clipped)
             todo = near.of(trial.bad)
             trial.cleaned = todo.copy()
             region |= todo
             steps = 0
             continue
-        current, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
-        clipped, distance = dict(trial.clipped), settings.tolerance
-        held, trial = trial.bad, None
+        assert held is not None
         hold[held] = True
         refused.update({int(k): float(m) for k, m in zip(held, moved_r[held])})
-        current[held] = geoms[held]
+        current[held], bare[held] = geoms[held], base[held]
         same_r[held] = True
         region = near.of(held)
         todo = region.copy()
@@ -734,7 +767,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                  geoms[k], float(m)) for k, m in refused.items()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
-                      geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ""))
+                      geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ("", False))[0])
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
 
@@ -762,7 +795,7 @@ def _misfits(units: Any, edges: Any, distance: float) -> np.ndarray:
 
 
 def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
-                 current: np.ndarray, ids: np.ndarray) -> tuple[Any, str]:
+                 current: np.ndarray, ids: np.ndarray, limit: float = 0.0) -> tuple[Any, str, bool]:
     """The overlaps left between polygon ``k`` and its neighbours, each clipped to the neighbour as now cleaned.
 
     An overlap left for the geologist is cut out of ``k`` for the cleaning;
@@ -770,12 +803,14 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
     where the cleaning moved that one's boundary (nor a third polygon it
     reaches into), so it is given back as its intersection with the
     neighbour as cleaned (GEOS): it still overlaps the same neighbour, now
-    along its edges exactly. Returns the piece and, where the clipping took
-    away more than rounding, what the log says of it (empty otherwise).
+    along its edges exactly. Returns the piece, what the log says where the
+    clipping took away more than rounding (empty otherwise), and whether it
+    left an overlap no larger than ``limit``, the largest a repair gives
+    away (a second run would give it away).
     """
     if not owners:
-        return piece, ""
-    out, notes = [], []
+        return piece, "", False
+    out, notes, small = [], [], False
     for i, p in owners:  # one per overlap left along this polygon
         fit = cleaned[at[i]] if i in at else current[i]
         try:
@@ -787,8 +822,9 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
         lost = float(shapely.area(p) - shapely.area(q))
         if lost > noise_floor(_scale(np.array([p], dtype=object))) * max(float(shapely.length(p)), 1.0):
             notes.append(f"; the overlap left with {ids[i]} clipped to it as cleaned ({lost:.3g} m² less)")
+            small |= float(shapely.area(q)) <= limit
         out.append(q)
-    return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes)
+    return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes), small
 
 
 SEEDS = 8  # misfit polygons whose edges are validated first, with the polygons around them (see _surely_invalid)
@@ -817,7 +853,7 @@ def _surely_invalid(near: "_Near", geoms: np.ndarray, seeds: np.ndarray, distanc
     return bool(bad[at[ok]].any())
 
 
-FINER = 3  # halvings of the snapping distance tried around a polygon the full distance moves too far (our own choice)
+FINER = 6  # halvings of the snapping distance tried around a polygon the full distance moves too far (our own choice)
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
@@ -852,21 +888,30 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     return out
 
 
+def _nicked(clipped: dict[int, tuple[str, bool]], region: np.ndarray, among: np.ndarray) -> np.ndarray:
+    """The polygons of ``among`` in ``region`` given back an overlap left for the geologist clipped to no more than
+    a repair gives away (``clipped``: per polygon, what the log says and whether one was)."""
+    return np.array(sorted(int(k) for k in among.tolist() if clipped.get(int(k), ("", False))[1] and region[k]),
+                    dtype=np.int64)
+
+
 @dataclass
 class _Finer:
-    """Finer cleanings tried around polygons the full snapping distance moves too far (see :func:`snap_edges`)."""
+    """Cleanings at a finer snapping distance tried around some polygons (see :func:`snap_edges`)."""
 
-    bad: np.ndarray  # the polygons moved too far (row positions)
+    bad: np.ndarray  # the polygons they are tried around (row positions)
+    clip: bool  # they were given back a clipped overlap (else: moved too far)
     saved: tuple[np.ndarray, ...]  # the cleaning's arrays as they were then, restored before each try and after
-    clipped: dict[int, str]
-    level: int = 0  # the snapping distance is the tolerance halved this many times
+    clipped: dict[int, tuple[str, bool]]
+    level: int = 1  # the snapping distance is the tolerance halved this many times
     cleaned: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))  # the polygons cleaned in this try
 
-    def fits(self, near: "_Near", current: np.ndarray, usable: np.ndarray, tolerance: float) -> bool:
-        """GEOS: the polygons cleaned in this try and those near them form a valid coverage, no gap as thin as the
-        tolerance (the full distance would have closed one; a finer one may not)."""
+    def fits(self, near: "_Near", bare: np.ndarray, usable: np.ndarray, tolerance: float) -> bool:
+        """GEOS: the polygons cleaned in this try and those near them, as cleaned (``bare``: before the overlaps left
+        for the geologist are given back), form a valid coverage, no gap as thin as the tolerance (the full distance
+        would have closed one; a finer one may not)."""
         around = np.flatnonzero(near.of(np.flatnonzero(self.cleaned)) & usable)
-        return bool(shapely.coverage_is_valid(current[around], gap_width=tolerance))
+        return bool(shapely.coverage_is_valid(bare[around], gap_width=tolerance))
 
 
 class _Near:
