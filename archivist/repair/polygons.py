@@ -18,7 +18,7 @@ Bounds every repair keeps (tests hold them against GEOS):
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, Iterable
 
 import geopandas as gpd
 import numpy as np
@@ -560,9 +560,9 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     snapping the two sides of a part narrower than the distance together,
     and folding it away), it and the polygons near it are cleaned again at
     half the distance, then a quarter, and so on down to 1/64 of it
-    (``FINER``), and the first that moves none too far and leaves them a valid coverage with no gap as thin as
-    the tolerance (GEOS) is kept; otherwise the polygon keeps its input
-    geometry and is listed. An overlap left for the geologist is
+    (``FINER``), and the first that moves none too far and leaves them a
+    valid coverage with no gap as thin as the tolerance (GEOS) is kept;
+    otherwise the polygon keeps its input geometry and is listed. An overlap left for the geologist is
     kept as it is (GEOS would give it away): it is cut out of one of its
     two polygons for the cleaning and given back afterwards, clipped to the
     other polygon as cleaned, or, where that cannot be done (one polygon
@@ -733,7 +733,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                     held = trial.bad
                 trial = None
         if trial is None and held is None:
-            nicked = _nicked(clipped, region, np.setdiff1d(np.fromiter(clipped, dtype=np.int64), np.fromiter(tried, dtype=np.int64)))
+            nicked = _nicked(clipped, region, [k for k in clipped if k not in tried])
             if not len(far) and not len(nicked):
                 break
             trial = _Finer(far if len(far) else nicked[:1], not len(far),
@@ -853,7 +853,7 @@ def _surely_invalid(near: "_Near", geoms: np.ndarray, seeds: np.ndarray, distanc
     return bool(bad[at[ok]].any())
 
 
-FINER = 6  # halvings of the snapping distance tried around a polygon the full distance moves too far (our own choice)
+FINER = 6  # halvings of the snapping distance tried around a polygon moved too far or a clipped overlap (our own choice)
 MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
 
 
@@ -888,11 +888,10 @@ def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.nd
     return out
 
 
-def _nicked(clipped: dict[int, tuple[str, bool]], region: np.ndarray, among: np.ndarray) -> np.ndarray:
+def _nicked(clipped: dict[int, tuple[str, bool]], region: np.ndarray, among: Iterable[int]) -> np.ndarray:
     """The polygons of ``among`` in ``region`` given back an overlap left for the geologist clipped to no more than
-    a repair gives away (``clipped``: per polygon, what the log says and whether one was)."""
-    return np.array(sorted(int(k) for k in among.tolist() if clipped.get(int(k), ("", False))[1] and region[k]),
-                    dtype=np.int64)
+    a repair gives away (``clipped``: per polygon, what the log says and whether one was), in order."""
+    return np.array(sorted(k for k in map(int, among) if clipped.get(k, ("", False))[1] and region[k]), dtype=np.int64)
 
 
 @dataclass
