@@ -675,7 +675,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             key = np.where(np.isfinite(age), age if settings.overlap == "younger" else -age, np.inf)
             order = np.argsort(key, kind="stable")
         cleaned = np.empty(len(work), dtype=object)
-        cleaned[order] = shapely.coverage_clean(base[sel][order], snapping_distance=distance, gap_width=0.0,
+        # a cleaning for polygons outside that no longer fit starts from the region's polygons as already cleaned
+        # (they fit each other; from their inputs, every snap was made anew and set off more misfits outside: at
+        # 10^5 polygons 13 900 polygons cleaned again, now 11 100); the first cleaning of a round and the finer
+        # ones start from the inputs. Every move is measured from the input all the same
+        src = base if (trial is not None or steps == 0) else bare
+        cleaned[order] = shapely.coverage_clean(src[sel][order], snapping_distance=distance, gap_width=0.0,
                                                 merge_strategy=strategy)
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
         bare[sel] = cleaned
