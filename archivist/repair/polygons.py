@@ -562,11 +562,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     half the distance, then a quarter, and so on down to 1/64 of it
     (``FINER``), and the first that moves none too far and leaves them a
     valid coverage with no gap as thin as the tolerance (GEOS) is kept;
-    otherwise the polygon keeps its input geometry and is listed. An overlap left for the geologist is
-    kept as it is (GEOS would give it away): it is cut out of one of its
-    two polygons for the cleaning and given back afterwards, clipped to the
-    other polygon as cleaned, or, where that cannot be done (one polygon
-    wholly inside the other), both polygons are kept out of the cleaning.
+    otherwise the polygon keeps its input geometry and is listed. An
+    overlap left for the geologist is kept as it is (GEOS would give it
+    away): it is cut out of one of its two polygons for the cleaning and
+    given back afterwards, clipped to the other polygon as cleaned, or,
+    where that cannot be done (one polygon wholly inside the other), both
+    polygons are kept out of the cleaning.
     Where the clipping would leave it no larger than a repair gives away
     (the cleaning moved the edges of the polygon it lies in, and a second
     run would give it away), the polygons around it are cleaned again at
@@ -730,8 +731,8 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             elif trial.level < FINER:
                 trial.level += 1
             else:  # as before the tries
-                current, bare, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
-                clipped, distance = dict(trial.clipped), settings.tolerance
+                (current, bare, same_r, moved_r, too_far_r, lost_r, region), clipped = trial.restored()
+                distance = settings.tolerance
                 if trial.clip:
                     far = np.zeros(0, dtype=np.int64)  # none then: clipped overlaps are tried only after
                 else:
@@ -747,8 +748,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                 tried.add(int(nicked[0]))
         if trial is not None:
             distance = settings.tolerance / 2.0 ** trial.level
-            current, bare, same_r, moved_r, too_far_r, lost_r, region = (a.copy() for a in trial.saved)
-            clipped = dict(trial.clipped)
+            (current, bare, same_r, moved_r, too_far_r, lost_r, region), clipped = trial.restored()
             todo = near.of(trial.bad)
             trial.cleaned = todo.copy()
             region |= todo
@@ -909,6 +909,10 @@ class _Finer:
     clipped: dict[int, tuple[str, bool]]
     level: int = 1  # the snapping distance is the tolerance halved this many times
     cleaned: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))  # the polygons cleaned in this try
+
+    def restored(self) -> tuple[tuple[np.ndarray, ...], dict[int, tuple[str, bool]]]:
+        """Copies of the arrays and of the clipping notes as they were when the tries began."""
+        return tuple(a.copy() for a in self.saved), dict(self.clipped)
 
     def fits(self, near: "_Near", bare: np.ndarray, usable: np.ndarray, tolerance: float) -> bool:
         """GEOS: the polygons cleaned in this try and those near them, as cleaned (``bare``: before the overlaps left
