@@ -20,14 +20,14 @@ count as connected exactly (a shared vertex).
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import segments
+from ..analysis.arrays import coord_hash, segments
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -100,23 +100,15 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     if not len(have) or not len(targets) or tol <= 0:
         return Snapped(out, shift, changed, held)
     eps = noise(np.concatenate([lines[have], targets]))
-    parts, owner = shapely.get_parts(lines[have], return_index=True)
-    owner = have[owner]
-    ttree, tv, vtree, tkey = _target_indexes(targets, cache)
+    index = _targets(targets, cache)
+    parts, owner, active, touched = _to_measure(lines, have, index)
     ptree = shapely.STRtree(shapely.points(np.asarray(pinned, dtype=float))) if pinned is not None and len(pinned) else None
     # repeated until nothing moves (a vertex inserted can bring another within tol), so a second run finds nothing
     moved = parts.copy()
-    active = np.flatnonzero(~_on_vertices(parts, tkey))
-    # only a line with a part measured can come out changed: every part of the others stays as it is, so each
-    # would be rebuilt from its own parts and found equal (a LineString or MultiLineString; any other type is
-    # rebuilt as before)
-    odd = ~np.isin(shapely.get_type_id(lines[have]), (shapely.GeometryType.LINESTRING.value,
-                                                     shapely.GeometryType.MULTILINESTRING.value))
-    touched = np.intersect1d(np.union1d(owner[active], have[odd]), owner)
     for _ in range(MAX_ROUNDS):
         if not len(active):
             break
-        again = _snap_parts(moved[active], targets, tol, eps, ttree, tv, vtree, ptree, tkey)
+        again = _snap_parts(moved[active], index, tol, eps, ptree)
         diff = ~shapely.equals_exact(moved[active], again, tolerance=eps)
         moved[active] = again
         active = active[diff]
@@ -142,18 +134,112 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     return Snapped(out, shift, changed, held)
 
 
-def _target_indexes(targets: np.ndarray, cache: dict[str, Any] | None = None
-                    ) -> tuple[shapely.STRtree, np.ndarray, shapely.STRtree, np.ndarray]:
-    """The indexes of the targets (none missing or empty): their STRtree, their vertices once each sorted by x
-    then y, an STRtree of those vertices, and the vertices as keys x + iy (:func:`_in_keys`); kept in ``cache``
-    (under "snap") for the next call on the same targets."""
+def _to_measure(lines: np.ndarray, have: np.ndarray, index: _Targets) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The LineString parts of ``lines[have]`` (none missing or empty), the line of each, the parts a snap onto the
+    targets of ``index`` measures (not every vertex on a target vertex: :func:`_on_vertices`) and the lines it can
+    change.
+
+    Only a line with a part measured can come out changed: every part of the
+    others stays as it is, so each would be rebuilt from its own parts and
+    found equal (a LineString or MultiLineString; any other type is rebuilt
+    and compared).
+    """
+    parts, owner = shapely.get_parts(lines[have], return_index=True)
+    owner = have[owner]
+    active = np.flatnonzero(~_on_vertices(parts, index))
+    odd = ~np.isin(shapely.get_type_id(lines[have]), (shapely.GeometryType.LINESTRING.value,
+                                                     shapely.GeometryType.MULTILINESTRING.value))
+    touched = np.intersect1d(np.union1d(owner[active], have[odd]), owner)
+    return parts, owner, active, touched
+
+
+def unsnappable(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any] | None = None) -> np.ndarray:
+    """Per line: :func:`snap_to_boundaries` onto ``targets`` (with the same ``cache``) returns it as it is, whatever
+    the tolerance and the points pinned, without measuring it: missing, empty, or a LineString or
+    MultiLineString whose every part has its vertices on target vertices, no two in a row equal.
+
+    A caller snapping the same lines again and again (with other points
+    pinned) asks once and leaves these out.
+    """
+    lines = np.asarray(lines, dtype=object)
+    out = np.ones(len(lines), dtype=bool)
+    targets = np.asarray(targets, dtype=object)
+    targets = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
+    have = np.flatnonzero(~shapely.is_missing(lines) & ~shapely.is_empty(lines))
+    if len(have) and len(targets):
+        out[_to_measure(lines, have, _targets(targets, cache))[3]] = False
+    return out
+
+
+class _Targets:
+    """The targets of a snap (lineal geometries, none missing or empty) and what the snap asks of them.
+
+    ``tree``: their STRtree. :meth:`on`: whether points are exactly one of
+    their vertices. :meth:`vertices`: an STRtree of the target vertices near
+    the points asked, grown as points elsewhere are asked; a map's boundaries
+    have over a million vertices, and the lines a repair moves lie near a few
+    of them. Kept in a snap's ``cache`` (under "snap") for the next call on
+    the same targets.
+    """
+
+    def __init__(self, targets: np.ndarray) -> None:
+        self.targets = targets
+        self.tree = shapely.STRtree(targets)
+        # every target vertex by a 64-bit hash of its coordinates, sorted: a lookup is one binary search
+        xy = shapely.get_coordinates(targets)
+        h = coord_hash(xy[:, 0], xy[:, 1])
+        order = np.argsort(h, kind="stable")
+        self._hash, self._xy = h[order], xy[order]
+        self._have = np.zeros(len(targets), dtype=bool)  # the targets whose vertices the vertex index holds
+        self._index: tuple[shapely.STRtree, np.ndarray] | None = None
+
+    def on(self, xy: np.ndarray) -> np.ndarray:
+        """Per point ((n, 2) coordinates): whether it is exactly one of the target vertices.
+
+        Where two different vertices share a hash (about 2^-64 per pair) a point
+        may be answered False though it is a vertex; the snap then measures it
+        and finds its nearest vertex is itself, 0 away: the same result, asked.
+        """
+        if not len(self._hash) or not len(xy):
+            return np.zeros(len(xy), dtype=bool)
+        h = coord_hash(xy[:, 0], xy[:, 1])
+        order = np.argsort(h)  # searched in order: about 2.5 times faster than in hash order (10^6 keys, measured)
+        i = np.empty(len(h), dtype=np.int64)
+        i[order] = np.minimum(np.searchsorted(self._hash, h[order]), len(self._hash) - 1)
+        return (self._hash[i] == h) & (self._xy[i] == xy).all(axis=1)
+
+    def vertices(self, pts: np.ndarray, distance: float) -> tuple[shapely.STRtree, np.ndarray]:
+        """An STRtree of target vertices and their coordinates ((n, 2), in the tree's order), holding every vertex
+        within ``distance`` of each of the points ``pts``.
+
+        A vertex within ``distance`` of a point lies on a target within that
+        distance of it (GEOS ``dwithin`` on the targets' index), so the tree
+        holds the vertices of those targets (and of the targets asked
+        before); a query for the nearest vertex within ``distance`` gets the
+        one a tree of every vertex would (at equal distances, either one).
+        """
+        new = np.unique(self.tree.query(pts, predicate="dwithin", distance=distance)[1]) if len(pts) else np.zeros(0, dtype=np.int64)
+        new = new[~self._have[new]]
+        if self._index is None or len(new):
+            self._have[new] = True
+            xy = shapely.get_coordinates(self.targets[self._have])
+            # each vertex once (shared vertices and ring closures repeat): by hash, then coordinates, so two
+            # vertices sharing a hash are both kept
+            h = coord_hash(xy[:, 0], xy[:, 1])
+            order = np.argsort(h, kind="stable")
+            h, xy = h[order], xy[order]
+            first = np.ones(len(xy), dtype=bool)
+            first[1:] = (h[1:] != h[:-1]) | (xy[1:] != xy[:-1]).any(axis=1)
+            xy = xy[first]
+            self._index = (shapely.STRtree(shapely.points(xy)), xy)
+        return self._index
+
+
+def _targets(targets: np.ndarray, cache: dict[str, Any] | None = None) -> _Targets:
+    """The :class:`_Targets` of ``targets`` (none missing or empty), kept in ``cache`` under "snap" for the next call."""
     if cache is not None and "snap" in cache:
-        return cache["snap"]
-    ttree = shapely.STRtree(targets)
-    xy = shapely.get_coordinates(targets)
-    tkey = np.unique(xy[:, 0] + 1j * xy[:, 1])  # the target vertices once each, sorted by x then y
-    tv = np.stack([tkey.real, tkey.imag], axis=1)
-    found = (ttree, tv, shapely.STRtree(shapely.points(tv)), tkey)
+        return cast(_Targets, cache["snap"])
+    found = _Targets(targets)
     if cache is not None:
         cache["snap"] = found
     return found
@@ -162,10 +248,8 @@ def _target_indexes(targets: np.ndarray, cache: dict[str, Any] | None = None
 MAX_ROUNDS = 4  # rounds of snapping per run; a round changes only what the one before left within reach
 
 
-def _on_vertices(parts: np.ndarray, tkey: np.ndarray) -> np.ndarray:
+def _on_vertices(parts: np.ndarray, index: _Targets) -> np.ndarray:
     """Per LineString part: every vertex is exactly one of the target vertices and no two in a row are equal.
-
-    ``tkey``: the target vertices as complex numbers x + iy, sorted (as :func:`numpy.unique` leaves them).
 
     Such a part comes out of :func:`_snap_parts` as it went in (each vertex's
     nearest target vertex is itself, at distance 0, and removing repeated
@@ -174,26 +258,27 @@ def _on_vertices(parts: np.ndarray, tkey: np.ndarray) -> np.ndarray:
     xy, part = shapely.get_coordinates(parts, return_index=True)
     if not len(xy):
         return np.ones(len(parts), dtype=bool)
-    on = _in_keys(xy[:, 0] + 1j * xy[:, 1], tkey)
+    on = index.on(xy)
     repeat = np.zeros(len(xy), dtype=bool)
     repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
     bad = np.bincount(part, weights=(~on | repeat), minlength=len(parts)) > 0
     return ~bad
 
 
-def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, ttree: shapely.STRtree, tv: np.ndarray,
-                vtree: shapely.STRtree, ptree: shapely.STRtree | None = None, tkey: np.ndarray | None = None) -> np.ndarray:
-    """One round of :func:`snap_to_boundaries` on LineString parts (vertices on a point of ``ptree`` stay).
+def _snap_parts(parts: np.ndarray, index: _Targets, tol: float, eps: float, ptree: shapely.STRtree | None = None) -> np.ndarray:
+    """One round of :func:`snap_to_boundaries` on LineString parts onto the targets of ``index`` (vertices on a
+    point of ``ptree`` stay).
 
-    ``tkey``: the target vertices as :func:`snap_to_boundaries` keys them; a vertex that is exactly one of them
-    is not asked (its nearest target vertex is itself, at distance 0: it stays where it is).
+    A vertex that is exactly one of the target vertices is not asked (its
+    nearest target vertex is itself, at distance 0: it stays where it is).
     """
     coords, vpart = shapely.get_coordinates(parts, return_index=True)
     coords = coords.copy()
     # 1. vertices within tol of a target: onto its nearest vertex within tol, else onto its nearest point
-    ask = np.flatnonzero(~_in_keys(coords[:, 0] + 1j * coords[:, 1], tkey)) if tkey is not None else np.arange(len(coords))
+    targets = index.targets
+    ask = np.flatnonzero(~index.on(coords))
     pts = shapely.points(coords[ask])
-    vi, ti = ttree.query_nearest(pts, max_distance=tol, all_matches=False)
+    vi, ti = index.tree.query_nearest(pts, max_distance=tol, all_matches=False)
     if ptree is not None and len(vi):
         stay = np.unique(ptree.query(pts[vi], predicate="dwithin", distance=eps)[0])
         free = np.ones(len(vi), dtype=bool)
@@ -203,6 +288,7 @@ def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, 
     ci = ask[vi]  # the coordinate of each vertex asked
     if len(vi):
         # onto the nearest target vertex within tol (even from a point already on a target: a junction) ...
+        vtree, tv = index.vertices(pts[vi], tol)
         wi, kv = vtree.query_nearest(pts[vi], max_distance=tol, all_matches=False)
         at_vertex = np.zeros(len(vi), dtype=bool)
         at_vertex[wi] = True
@@ -216,7 +302,9 @@ def _snap_parts(parts: np.ndarray, targets: np.ndarray, tol: float, eps: float, 
         if len(rest):
             foot = shapely.get_coordinates(shapely.get_point(shapely.shortest_line(pts[vi[rest]], targets[ti[rest]]), 1))
             near_v = np.zeros(len(rest), dtype=bool)
-            near_v[np.unique(vtree.query(shapely.points(foot), predicate="dwithin", distance=tol)[0])] = True
+            on_target = shapely.points(foot)
+            vtree, _ = index.vertices(on_target, tol)
+            near_v[np.unique(vtree.query(on_target, predicate="dwithin", distance=tol)[0])] = True
             feet[rest] = foot
             go[rest[~near_v]] = True
         original = coords.copy()
@@ -603,12 +691,17 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     frozen = np.zeros(n, dtype=bool)
     todo = snapped.copy()  # each line is snapped on its own: a round redoes only the lines a new pin or freeze touches
     caches: list[dict[str, Any]] = [{} for _ in plan]  # per group: its targets' indexes, built once for every round
+    # the lines whose every vertex is on a vertex of their targets already come out of every round as drawn: they
+    # are never snapped (most contacts of a map; their ends still hold the lines they meet, below)
+    settled = np.zeros(n, dtype=bool)
+    for (feats, targets), cache in zip(plan, caches):
+        settled[feats] = unsnappable(net.geoms[feats], targets, cache)
     ends_index: dict[str, Any] = {}  # the index of the ends, built once for every round
     for round_ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
         shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
         for (feats, targets), cache in zip(plan, caches):
-            f = feats[todo[feats] & ~frozen[feats]]
+            f = feats[todo[feats] & ~frozen[feats] & ~settled[feats]]
             if not len(f):
                 continue
             found = snap_to_boundaries(net.geoms[f], targets, tol, old[pinned], cache)
@@ -665,10 +758,12 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
     the line it meets (a generated map: the end of a contact moved 0.063 m
     off a fault onto a boundary vertex, and close-dangles closed it again on
     every run). The ends of the lines that changed are asked of the whole
-    network's index; the other ends only of an index of the lines that
-    changed (at 10^5 polygons some 15 000 of 300 000 lines), asked with
-    those lines, so the 600 000 ends are not each tested against every line
-    they touch. ``cache`` (a dict kept by the caller for the same ``old``) keeps the index of the ends from one
+    network's index. The other ends are found from the lines that changed
+    (at 10^5 polygons some 15 000 of 300 000 lines): a line whose end lies
+    within ``eps`` of one lies within ``eps`` of it, so the network's index
+    names the lines to look at and only their ends are measured (GEOS
+    ``dwithin``), not all 600 000 ends. ``cache`` (a dict kept by the caller
+    for the same ``old`` and ``owner``) keeps the ends sorted by line from one
     call to the next.
     """
     none = (np.empty(0, dtype=np.int64),) * 2
@@ -679,14 +774,20 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
     ia, ga = dwithin_pairs(net.tree, net.geoms, shapely.points(old[ka]), eps) if len(ka) else none
     ka, ga = ka[ia], ga
     chg = np.flatnonzero(changed)
-    if (~mine).any():  # the changed lines ask an index of the ends (fewer questions than the ends asking); the
-        # other lines' ends kept
+    if (~mine).any():  # the lines near the changed ones, then their ends not of a changed line
         cache = {} if cache is None else cache
         if "ends" not in cache:
-            cache["ends"] = shapely.STRtree(shapely.points(old))
-        jb, kb = cache["ends"].query(net.geoms[chg], predicate="dwithin", distance=eps)
-        other_end = ~mine[kb]
-        kb, gb = kb[other_end], chg[jb[other_end]]
+            by_line = np.argsort(owner, kind="stable")
+            cache["ends"] = (by_line, np.searchsorted(owner[by_line], np.arange(len(net.geoms) + 1)))
+        by_line, first = cache["ends"]
+        jc, near = dwithin_pairs(net.tree, net.geoms, net.geoms[chg], eps)
+        count = first[near + 1] - first[near]
+        pair = np.repeat(np.arange(len(near)), count)
+        kb = by_line[first[near][pair] + np.arange(len(pair)) - np.repeat(np.cumsum(count) - count, count)]
+        keep = ~mine[kb]
+        kb, pair = kb[keep], pair[keep]
+        hit = shapely.dwithin(shapely.points(old[kb]), net.geoms[chg[jc[pair]]], eps)
+        kb, gb = kb[hit], chg[jc[pair[hit]]]
     else:
         kb, gb = none
     ki, g = np.r_[ka, kb].astype(np.int64), np.r_[ga, gb].astype(np.int64)
@@ -695,15 +796,24 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
 
 
 def _nearest_ends(geoms: np.ndarray, feat: np.ndarray, near: np.ndarray) -> np.ndarray:
-    """For each i, the end point of a part of ``geoms[feat[i]]`` nearest to ``near[i]`` (coordinates)."""
-    parts, owner = shapely.get_parts(geoms[feat], return_index=True)
-    ends = np.concatenate([shapely.get_coordinates(shapely.get_point(parts, 0)), shapely.get_coordinates(shapely.get_point(parts, -1))])
-    who = np.r_[owner, owner]
-    d = np.hypot(*(ends - near[who]).T)
-    o = np.lexsort((d, who))
-    first = o[np.r_[True, who[o][1:] != who[o][:-1]]]
+    """For each i, the end point of a part of ``geoms[feat[i]]`` nearest to ``near[i]`` (coordinates); where two
+    are as near, a start before an end, then the first part."""
     out = np.array(near, dtype=float, copy=True)
-    out[who[first]] = ends[first]
+    lines, which = np.unique(feat, return_inverse=True)  # each line's parts read once (a line meets several others)
+    parts, line = shapely.get_parts(geoms[lines], return_index=True)
+    if not len(parts):
+        return out
+    # each line's part ends in order: per part its start then its end
+    ends = np.stack([shapely.get_coordinates(shapely.get_point(parts, 0)),
+                     shapely.get_coordinates(shapely.get_point(parts, -1))], axis=1).reshape(-1, 2)
+    first = np.searchsorted(np.repeat(line, 2), np.arange(len(lines) + 1))
+    count = (first[1:] - first[:-1])[which]
+    pair = np.repeat(np.arange(len(feat)), count)
+    cand = first[which][pair] + np.arange(len(pair)) - np.repeat(np.cumsum(count) - count, count)
+    d = np.hypot(*(ends[cand] - near[pair]).T)
+    o = np.lexsort((cand // 2, cand % 2, d, pair))  # ties: starts before ends, parts in order
+    best = o[np.r_[True, pair[o][1:] != pair[o][:-1]]]
+    out[pair[best]] = ends[cand[best]]
     return out
 
 
@@ -838,9 +948,9 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     the segments as LineStrings, their STRtree and their sorted keys (:func:`_segment_keys`).
 
     Not every target's: a point of a line lies within ``R`` of the targets,
-    ``R`` the farthest vertex of its line from their nearest vertex plus half its longest
-    segment (the distance to the targets grows no faster than along the
-    line), so its nearest target segment belongs to a target within ``R`` of
+    ``R`` the farthest any vertex of its line lies from them plus half its
+    longest segment (the distance to the targets grows no faster than along
+    the line), so its nearest target segment belongs to a target within ``R`` of
     the line (GEOS ``dwithin``, a little slack over ``R``). The nearest
     segment found among these is the one among all, at the same distance
     (the same point-to-segment computation); at 10^5 polygons this indexes
@@ -850,14 +960,14 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     """
     valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
     # over the same targets as snap_to_boundaries's, missing and empty ones left out in the same way
-    ttree, _, vtree, tkey = _target_indexes(valid, cache)
+    index = _targets(valid, cache)
     xy, li = shapely.get_coordinates(lines, return_index=True)
     reach = np.zeros(len(lines))
     # a vertex that is one of the targets' own lies 0 from them: only the others are asked
-    off = np.flatnonzero(~_in_keys(xy[:, 0] + 1j * xy[:, 1], tkey)) if len(xy) else np.zeros(0, dtype=np.int64)
-    if len(xy):  # how far a vertex lies from the targets, bounded above by how far from their nearest vertex
+    off = np.flatnonzero(~index.on(xy)) if len(xy) else np.zeros(0, dtype=np.int64)
+    if len(xy):  # how far a vertex lies from the targets (GEOS, the nearest target's distance)
         if len(off):
-            (who, _), d = vtree.query_nearest(shapely.points(xy[off]), return_distance=True, all_matches=False)
+            (who, _), d = index.tree.query_nearest(shapely.points(xy[off]), return_distance=True, all_matches=False)
             np.maximum.at(reach, li[off[who]], d)
         a, b, line, _ = _segments(lines)
         half = np.zeros(len(lines))
@@ -867,7 +977,7 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     # the targets whose boxes come within the reach of a line's box: a few more than those within the reach
     # (which GEOS would measure ring by ring), and the nearest segment among more is the same one
     b = shapely.bounds(lines)
-    pick = np.unique(ttree.query(shapely.box(b[:, 0] - reach, b[:, 1] - reach, b[:, 2] + reach, b[:, 3] + reach))[1])
+    pick = np.unique(index.tree.query(shapely.box(b[:, 0] - reach, b[:, 1] - reach, b[:, 2] + reach, b[:, 3] + reach))[1])
     sa, sb, _ = segments(shapely.get_parts(valid[pick]))
     segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else valid[pick]
     return sa, sb, segs, shapely.STRtree(segs), np.unique(_segment_keys(sa, sb))
