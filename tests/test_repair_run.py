@@ -134,6 +134,38 @@ def test_broken_bundle_is_repaired_back_to_a_clean_check(tmp_path):
     assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
 
 
+def test_the_copy_keeps_the_geometry_type_of_each_layer_it_rewrites(tmp_path):
+    # a layer of Polygons or LineStrings rewritten stays one, as GDAL reads the GeoPackage's geometry type: the copy
+    # is the mapper's map with the changes of the log, not one a style or script made for it no longer reads
+    project = five(tmp_path)
+    result = repair(project, tmp_path / "out")
+    assert {c.layer for c in result.changes} == {"units", "lines"}  # both layers rewritten
+    kinds = dict(pyogrio.list_layers(project / "map.gpkg"))
+    assert (kinds["units"], kinds["lines"]) == ("Polygon", "LineString")
+    assert {str(n): str(t) for n, t in pyogrio.list_layers(tmp_path / "out" / "map.gpkg")} == kinds
+
+
+def test_a_layer_given_a_multipart_geometry_is_written_multipart(tmp_path):
+    # a GeoPackage layer holds one geometry type (GDAL): where a repaired polygon has two parts, the layer of
+    # Polygons becomes MultiPolygon rather than lose a part, and a MultiPolygon layer stays one
+    import geopandas as gpd
+    from shapely.geometry import MultiPolygon
+
+    from archivist.repair.api import _write_layer
+
+    for first in ("Polygon", "MultiPolygon"):
+        dest = tmp_path / f"{first}.gpkg"
+        start = box(0, 0, 1, 1) if first == "Polygon" else MultiPolygon([box(0, 0, 1, 1)])
+        gpd.GeoDataFrame({"unit": ["A"]}, geometry=[start], crs="EPSG:32633").to_file(dest, layer="units", engine="pyogrio")
+        assert dict(pyogrio.list_layers(dest))["units"] == first
+        two = MultiPolygon([box(0, 0, 1, 1), box(2, 0, 3, 1)])
+        frame = gpd.GeoDataFrame({"unit": ["A", "B"]}, geometry=[box(0, 0, 1, 1), two], crs="EPSG:32633")
+        _write_layer(frame, dest, {"layer": "units"}, "units", {"path": dest.name, "layer": "units"}, None)
+        assert dict(pyogrio.list_layers(dest))["units"] == "MultiPolygon"
+        back = pyogrio.read_dataframe(dest, layer="units")
+        assert shapely.equals(back.geometry.values[1], two) and shapely.area(back.geometry.values).sum() == 3.0
+
+
 def test_the_check_of_the_copy_reuses_the_repairs_analyses_and_finds_what_a_fresh_check_finds(tmp_path, monkeypatch):
     # the copy's check is handed the half-edges and coverage analysis of the working units (the same polygons,
     # read back from the file): its findings per rule are those of a check of the copy from scratch

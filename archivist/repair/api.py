@@ -310,9 +310,10 @@ def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spe
     driver = WRITABLE.get(dest.suffix.lower())
     if frame.crs is None and crs is not None:
         frame = frame.set_crs(crs, allow_override=True)
+    multi = _multi(dest, spec.get("layer") if driver is None else (spec.get("layer") or dest.stem) if driver == "GPKG" else None)
     if driver is None:
         new = dest.with_suffix(".gpkg")
-        pyogrio.write_dataframe(frame, new, layer=str(spec.get("layer") or dest.stem), driver="GPKG", promote_to_multi=True)
+        pyogrio.write_dataframe(frame, new, layer=str(spec.get("layer") or dest.stem), driver="GPKG", promote_to_multi=multi)
         raw_spec["path"] = str(Path(raw_spec["path"]).with_suffix(".gpkg").as_posix())
         raw_spec["layer"] = str(spec.get("layer") or dest.stem)
         return new
@@ -324,8 +325,22 @@ def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spe
 
         for part in dataset_files(dest):
             part.unlink()
-    pyogrio.write_dataframe(frame, dest, driver=driver, promote_to_multi=True, **kw)
+    pyogrio.write_dataframe(frame, dest, driver=driver, promote_to_multi=multi, **kw)
     return dest
+
+
+def _multi(dest: Path, layer: Any) -> bool | None:
+    """``promote_to_multi`` for writing over the copied layer ``layer`` of ``dest``: True where it holds multi-part
+    geometry types (MultiPolygon, MultiLineString), else None, so that a layer of LineStrings stays one (pyogrio
+    then makes the layer multi-part only where single and multi-part geometries mix, in a format that cannot
+    hold both). One that cannot be read back is written multi-part."""
+    import pyogrio
+
+    try:
+        gtype = pyogrio.read_info(dest, layer=layer).get("geometry_type")
+    except (pyogrio.errors.DataSourceError, pyogrio.errors.DataLayerError):
+        return True
+    return True if gtype is None or str(gtype).startswith("Multi") else None
 
 
 def _file_frame(frame: Any, layer: Any) -> Any:
