@@ -299,6 +299,31 @@ def test_snap_edges_starts_only_from_polygons_with_a_real_misfit():
     assert misfits(nudged) == [0, 1]
 
 
+def test_snap_edges_leaves_a_polygon_far_from_every_misfit_edge_as_drawn(tmp_path):
+    # A = [0, 4] x [0, 10] with the vertex (4.05, 2.5) 0.05 m into B = [4, 7] x [0, 10] (tolerance 0.1 m): their edges
+    # misfit. C = [7, 10] x [0, 5] and D = [7, 10] x [5, 10] touch B and share an edge with a bump 0.03 m high and
+    # 0.04 m wide, drawn alike on both sides: no misfit, but its vertices lie within the snapping distance of each
+    # other, and GEOS's cleaning folds the bump away wherever it cleans C and D (asked below). C and D lie 3 m from
+    # the misfit edges: only A and B are cleaned, and C and D keep every vertex as drawn.
+    bump = [(8.5, 5), (8.52, 5.03), (8.54, 5)]
+    a = shapely.Polygon([(0, 0), (4, 0), (4.05, 2.5), (4, 10), (0, 10)])
+    c = shapely.Polygon([(7, 0), (10, 0), (10, 5), *bump[::-1], (7, 5)])
+    d = shapely.Polygon([(7, 5), *bump, (10, 5), (10, 10), (7, 10)])
+    b = shapely.Polygon([(4, 0), (7, 0), (7, 5), (7, 10), (4, 10)])  # with C's and D's corner: no misfit there
+    geoms = [a, b, c, d]
+    cleaned = shapely.coverage_clean(np.array(geoms, dtype=object), snapping_distance=0.1)  # GEOS, all four at once
+    assert not shapely.equals_exact(cleaned[2], c, tolerance=0.0) and not shapely.equals_exact(cleaned[3], d, tolerance=0.0)
+    project = square(tmp_path, geoms, ["A", "B", "C", "D"])
+    result = repair(project, tmp_path / "out", only=["snap-edges"])
+    assert result.changes and {f for ch in result.changes for f in ch.features_before} <= {"1", "2"}
+    units = copy_units(tmp_path / "out")
+    for fid, drawn in ((3, c), (4, d)):
+        assert shapely.equals_exact(shapely.get_geometry(units.geometry.loc[fid], 0), drawn, tolerance=0.0) or \
+            shapely.equals_exact(units.geometry.loc[fid], drawn, tolerance=0.0)
+    assert shapely.coverage_is_valid(units.geometry.values, gap_width=0.1)  # GEOS
+    assert repair(tmp_path / "out", tmp_path / "again", only=["snap-edges"]).changes == ()
+
+
 def _finger_map(width: float):
     # A = [0, 5] x [5, 10] less a finger of C, [4.9, 4.9 + width] x [5, 5.15]; B = [5, 10] x [5, 10] with the
     # vertex (7.5, 4.99) on its bottom edge, 0.01 m into C = [0, 10] x [0, 5] and the finger (tolerance 0.1 m)
