@@ -153,22 +153,29 @@ def _to_measure(lines: np.ndarray, have: np.ndarray, index: _Targets) -> tuple[n
     return parts, owner, active, touched
 
 
-def unsnappable(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any] | None = None) -> np.ndarray:
-    """Per line: :func:`snap_to_boundaries` onto ``targets`` (with the same ``cache``) returns it as it is, whatever
-    the tolerance and the points pinned, without measuring it: missing, empty, or a LineString or
-    MultiLineString whose every part has its vertices on target vertices, no two in a row equal.
+class _RowSet:
+    """Rows of float coordinates (an (n, k) array): each looked up by a 64-bit hash of the row (:func:`coord_hash`,
+    sorted: one binary search per row asked), then compared exactly.
 
-    A caller snapping the same lines again and again (with other points
-    pinned) asks once and leaves these out.
+    Where two different rows share a hash (about 2^-64 a pair) a row may be
+    answered False though it is one of them: the callers use the answer only
+    to skip work whose result it would not change.
     """
-    lines = np.asarray(lines, dtype=object)
-    out = np.ones(len(lines), dtype=bool)
-    targets = np.asarray(targets, dtype=object)
-    targets = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
-    have = np.flatnonzero(~shapely.is_missing(lines) & ~shapely.is_empty(lines))
-    if len(have) and len(targets):
-        out[_to_measure(lines, have, _targets(targets, cache))[3]] = False
-    return out
+
+    def __init__(self, rows: np.ndarray) -> None:
+        h = coord_hash(*rows.T) if len(rows) else np.zeros(0, dtype=np.uint64)
+        order = np.argsort(h, kind="stable")
+        self._hash, self._rows = h[order], rows[order]
+
+    def has(self, rows: np.ndarray) -> np.ndarray:
+        """Per row of ``rows``: whether it is one of the set's."""
+        if not len(self._hash) or not len(rows):
+            return np.zeros(len(rows), dtype=bool)
+        h = coord_hash(*rows.T)
+        order = np.argsort(h)  # searched in order: about 2.5 times faster than in hash order (10^6 keys, measured)
+        i = np.empty(len(h), dtype=np.int64)
+        i[order] = np.minimum(np.searchsorted(self._hash, h[order]), len(self._hash) - 1)
+        return (self._hash[i] == h) & (self._rows[i] == rows).all(axis=1)
 
 
 class _Targets:
@@ -185,28 +192,14 @@ class _Targets:
     def __init__(self, targets: np.ndarray) -> None:
         self.targets = targets
         self.tree = shapely.STRtree(targets)
-        # every target vertex by a 64-bit hash of its coordinates, sorted: a lookup is one binary search
-        xy = shapely.get_coordinates(targets)
-        h = coord_hash(xy[:, 0], xy[:, 1])
-        order = np.argsort(h, kind="stable")
-        self._hash, self._xy = h[order], xy[order]
+        self._vertices = _RowSet(shapely.get_coordinates(targets))
         self._have = np.zeros(len(targets), dtype=bool)  # the targets whose vertices the vertex index holds
         self._index: tuple[shapely.STRtree, np.ndarray] | None = None
 
     def on(self, xy: np.ndarray) -> np.ndarray:
-        """Per point ((n, 2) coordinates): whether it is exactly one of the target vertices.
-
-        Where two different vertices share a hash (about 2^-64 per pair) a point
-        may be answered False though it is a vertex; the snap then measures it
-        and finds its nearest vertex is itself, 0 away: the same result, asked.
-        """
-        if not len(self._hash) or not len(xy):
-            return np.zeros(len(xy), dtype=bool)
-        h = coord_hash(xy[:, 0], xy[:, 1])
-        order = np.argsort(h)  # searched in order: about 2.5 times faster than in hash order (10^6 keys, measured)
-        i = np.empty(len(h), dtype=np.int64)
-        i[order] = np.minimum(np.searchsorted(self._hash, h[order]), len(self._hash) - 1)
-        return (self._hash[i] == h) & (self._xy[i] == xy).all(axis=1)
+        """Per point ((n, 2) coordinates): whether it is exactly one of the target vertices (:class:`_RowSet`: a
+        vertex answered False is measured by the snap, which finds its nearest vertex is itself, 0 away)."""
+        return self._vertices.has(xy)
 
     def vertices(self, pts: np.ndarray, distance: float) -> tuple[shapely.STRtree, np.ndarray]:
         """An STRtree of target vertices and their coordinates ((n, 2), in the tree's order), holding every vertex
@@ -693,9 +686,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
     caches: list[dict[str, Any]] = [{} for _ in plan]  # per group: its targets' indexes, built once for every round
     # the lines whose every vertex is on a vertex of their targets already come out of every round as drawn: they
     # are never snapped (most contacts of a map; their ends still hold the lines they meet, below)
-    settled = np.zeros(n, dtype=bool)
-    for (feats, targets), cache in zip(plan, caches):
-        settled[feats] = unsnappable(net.geoms[feats], targets, cache)
+    settled = _on_targets(net, plan, caches)
     ends_index: dict[str, Any] = {}  # the index of the ends, built once for every round
     for round_ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
@@ -744,6 +735,27 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], to
         todo[hit] = True
         todo &= snapped
     return final, shift, changed, held, worse
+
+
+def _on_targets(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], caches: list[dict[str, Any]]) -> np.ndarray:
+    """Per network feature: a feature of a group of ``plan`` whose every part has each vertex exactly on a vertex of
+    the group's targets and no two in a row equal (:func:`_on_vertices`, read off the network's coordinates):
+    :func:`snap_to_boundaries` returns it as it is, whatever the points pinned. ``caches``: per group, the cache
+    of its snaps."""
+    out = np.zeros(len(net.geoms), dtype=bool)
+    vertex_part = np.repeat(np.arange(net.n_parts), np.diff(net.part_off))
+    repeat = np.zeros(len(net.coords), dtype=bool)
+    repeat[1:] = (vertex_part[1:] == vertex_part[:-1]) & (net.coords[1:] == net.coords[:-1]).all(axis=1)
+    for (feats, targets), cache in zip(plan, caches):
+        valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]  # as snap_to_boundaries keeps them
+        if not len(valid):
+            continue
+        mine = np.flatnonzero(np.isin(net.part_feat, feats)[vertex_part])
+        off = ~_targets(valid, cache).on(net.coords[mine]) | repeat[mine]
+        ok = np.ones(len(net.geoms), dtype=bool)
+        ok[net.part_feat[np.unique(vertex_part[mine[off]])]] = False
+        out[feats] = ok[feats]
+    return out
 
 
 def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.ndarray, eps: float,
@@ -903,7 +915,7 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         # a segment that is a target segment (the same two vertices, either way round) lies on the targets: its
         # farthest point is 0 away, which the bound above misses where an end is a vertex shared by two target
         # segments and the index named the other one (most segments of a line snapped onto the boundary's vertices)
-        up[_in_keys(_segment_keys(start, stop), keys)] = 0.0
+        up[keys.has(_segment_rows(start, stop))] = 0.0
         np.maximum.at(far, owner, lo)
         # a segment whose bound is no more than what its line already reaches (the farther end of any of its
         # segments) cannot raise the line's farthest point: only the others are densified
@@ -943,9 +955,9 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
 
 
 def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any] | None = None
-                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, shapely.STRtree, np.ndarray]:
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, shapely.STRtree, _RowSet]:
     """The segments of the targets that can be the nearest target segment of a point of ``lines``: starts, ends,
-    the segments as LineStrings, their STRtree and their sorted keys (:func:`_segment_keys`).
+    the segments as LineStrings, their STRtree and the set of them (:func:`_segment_rows`).
 
     Not every target's: a point of a line lies within ``R`` of the targets,
     ``R`` the farthest any vertex of its line lies from them plus half its
@@ -980,7 +992,7 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     pick = np.unique(index.tree.query(shapely.box(b[:, 0] - reach, b[:, 1] - reach, b[:, 2] + reach, b[:, 3] + reach))[1])
     sa, sb, _ = segments(shapely.get_parts(valid[pick]))
     segs = shapely.linestrings(np.stack([sa, sb], axis=1)) if len(sa) else valid[pick]
-    return sa, sb, segs, shapely.STRtree(segs), np.unique(_segment_keys(sa, sb))
+    return sa, sb, segs, shapely.STRtree(segs), _RowSet(_segment_rows(sa, sb))
 
 
 CHUNK = 4_000_000  # point-to-segment pairs measured at once (about 100 MB of temporaries)
@@ -1051,25 +1063,12 @@ def _point_segment(p: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.where(zero | (r <= 0.0), da, np.where(r >= 1.0, db, np.abs(s) * np.sqrt(safe)))
 
 
-def _segment_keys(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """One key per segment ``a -> b`` ((n, 2) coordinates), the same for ``b -> a``: the bytes of its two ends in order.
-
-    Keys are equal exactly when the segments have the same two ends (-0.0 is
-    made 0.0 first); their order is the bytes', good for sorting and lookup only.
-    """
+def _segment_rows(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """One row per segment ``a -> b`` ((n, 2) coordinates), the same for ``b -> a``: its two ends in order, as an
+    (n, 4) array (rows are equal exactly when the segments have the same two ends)."""
     swap = (a[:, 0] > b[:, 0]) | ((a[:, 0] == b[:, 0]) & (a[:, 1] > b[:, 1]))
     lo, hi = np.where(swap[:, None], b, a), np.where(swap[:, None], a, b)
-    both = np.ascontiguousarray(np.concatenate([lo, hi], axis=1).astype(np.float64) + 0.0)
-    return both.view(np.dtype((np.void, 32))).ravel()
-
-
-def _in_keys(keys: np.ndarray, sorted_keys: np.ndarray) -> np.ndarray:
-    """Per key: whether it is one of ``sorted_keys`` (sorted, as :func:`numpy.unique` leaves them), by a binary
-    search of each key rather than :func:`numpy.isin`'s sort of both arrays on every call."""
-    if not len(sorted_keys) or not len(keys):
-        return np.zeros(len(keys), dtype=bool)
-    i = np.minimum(np.searchsorted(sorted_keys, keys), len(sorted_keys) - 1)
-    return sorted_keys[i] == keys
+    return np.concatenate([lo, hi], axis=1).astype(np.float64)
 
 
 def _segments(lines: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
