@@ -1211,9 +1211,11 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
     net, lr, rr = sides
     joined = np.arange(len(ids))  # per unit row (before the dissolve): the row it was dissolved into
     pos = pd.Index(ids.astype(str))
-    for c in merged:
-        rows = pos.get_indexer(list(c.features_before))
-        joined[rows[rows >= 0]] = rows[0]
+    # per merge, the rows of its polygons: the first is the one the others went into (one lookup for all merges)
+    members = [c.features_before for c in merged]
+    rows = pos.get_indexer([f for m in members for f in m])
+    first = np.repeat(rows[np.cumsum([0] + [len(m) for m in members[:-1]])], [len(m) for m in members])
+    joined[rows[rows >= 0]] = first[rows >= 0]
     gone = (lr >= 0) & (rr >= 0) & (lr != rr)
     gone[gone] = joined[lr[gone]] == joined[rr[gone]]
     if not gone.any():
