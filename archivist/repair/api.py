@@ -310,7 +310,13 @@ def _write_layer(frame: Any, dest: Path, spec: dict[str, Any], key: str, raw_spe
     driver = WRITABLE.get(dest.suffix.lower())
     if frame.crs is None and crs is not None:
         frame = frame.set_crs(crs, allow_override=True)
-    multi = _multi(dest, spec.get("layer") if driver is None else (spec.get("layer") or dest.stem) if driver == "GPKG" else None)
+    if driver == "GPKG":
+        name = spec.get("layer") or dest.stem
+    elif driver is None:
+        name = spec.get("layer")  # GDAL's first layer when the manifest names none
+    else:
+        name = None  # one layer per file
+    multi = _multi(dest, name)
     if driver is None:
         new = dest.with_suffix(".gpkg")
         pyogrio.write_dataframe(frame, new, layer=str(spec.get("layer") or dest.stem), driver="GPKG", promote_to_multi=multi)
