@@ -352,22 +352,15 @@ def _multi(dest: Path, layer: Any) -> bool | None:
 def _file_frame(frame: Any, layer: Any) -> Any:
     """The working frame as it goes to the file: the feature ids back in the file's FID where they came from it."""
     import numpy as np
-    import pandas as pd
+
+    from .model import id_numbers
 
     out = frame.drop(columns=[c for c in (FEATURE_ID, SOURCE_LAYER) if c in frame.columns])
     if not layer.field("id_field") and layer.path.suffix.lower() == ".gpkg":
-        # the text after the last colon of each id, as str.rsplit would give it, without pandas' string machinery
-        # (ids without a colon, the usual case, as they are)
-        texts = [str(v) for v in frame[FEATURE_ID].tolist()]
-        tails = [t.rpartition(":")[2] for t in texts] if ":" in "".join(texts) else texts
-        try:  # whole numbers in every row, read by numpy (as pandas would read them)
-            fids: Any = np.asarray(tails, dtype=str).astype(np.int64)
-        except (ValueError, OverflowError):
-            ids = pd.to_numeric(pd.Series(tails, index=frame.index, dtype=object), errors="coerce")
-            fids = ids.astype("int64").to_numpy() if ids.notna().all() else None
-        if fids is not None:
+        fids = id_numbers(frame[FEATURE_ID].tolist())
+        if np.isfinite(fids).all():
             out = out.copy()
-            out.insert(0, "fid", fids)
+            out.insert(0, "fid", fids.astype(np.int64))
     return out
 
 

@@ -201,11 +201,26 @@ class RepairState:
         if layer not in self._counter:
             top = 0
             if frame is not None and len(frame):
-                import pandas as pd
+                import numpy as np
 
-                tails = [str(v).rpartition(":")[2] for v in frame[FEATURE_ID].tolist()]  # as str.rsplit(":", n=1)[-1]
-                nums = pd.to_numeric(pd.Series(tails, dtype=object), errors="coerce")
-                top = int(nums.max()) if nums.notna().any() else 0
+                nums = id_numbers(frame[FEATURE_ID].tolist())
+                nums = nums[np.isfinite(nums)]
+                top = int(nums.max()) if len(nums) else 0
             self._counter[layer] = top
         self._counter[layer] += 1
         return str(self._counter[layer])
+
+
+def id_numbers(ids: Any) -> Any:
+    """The number each feature id ends in (the text after its last colon, as ``str.rsplit(":", 1)[-1]`` gives it),
+    as a numpy array: whole numbers as int64 when every id has one (read by numpy), else floats, NaN where the
+    text is not a number (pandas ``to_numeric``)."""
+    import numpy as np
+    import pandas as pd
+
+    texts = [str(v) for v in ids]
+    tails = [t.rpartition(":")[2] for t in texts] if ":" in "".join(texts) else texts  # most ids have no colon
+    try:
+        return np.asarray(tails, dtype=str).astype(np.int64)
+    except (ValueError, OverflowError):
+        return pd.to_numeric(pd.Series(tails, dtype=object), errors="coerce").to_numpy(dtype=float)
