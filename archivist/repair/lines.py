@@ -30,7 +30,7 @@ from shapely.ops import substring
 from ..analysis.arrays import coord_hash, segments
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
-from ..analysis.lines import LineNetwork, build_line_network, kind_for, kind_role, loose_ends, parse_kind
+from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
 from ..analysis.messages import ABOVE
 from ..analysis.nearness import dwithin_pairs, undrawn_boundaries
 from ..analysis.polygons import read_units
@@ -325,7 +325,8 @@ class EndFix:
     distance: float  # how far the end moved (extended or trimmed length, or the move)
 
 
-def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact", "boundary")) -> tuple[np.ndarray, list[EndFix]]:
+def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact", "boundary"),
+               ends: LooseEnds | None = None) -> tuple[np.ndarray, list[EndFix]]:
     """The network's features with the loose ends within ``tol`` of another line closed onto it.
 
     The ends are those ``line-dangle`` reads (:func:`archivist.analysis.lines.loose_ends`):
@@ -342,10 +343,12 @@ def close_ends(net: LineNetwork, tol: float, roles: tuple[str, ...] = ("contact"
 
     Returns the features' geometries (the network's ``geoms`` with the
     closed ones replaced) and one :class:`EndFix` per end closed. Ends
-    farther than ``tol`` from every line are never touched.
+    farther than ``tol`` from every line are never touched. ``ends``: the
+    :func:`~archivist.analysis.lines.loose_ends` of ``net`` for ``roles``
+    and ``tol`` where the caller has them.
     """
     out = np.array(net.geoms, dtype=object, copy=True)
-    ends = loose_ends(net, roles, tol)
+    ends = loose_ends(net, roles, tol) if ends is None else ends
     cand = np.flatnonzero(ends.near_line)
     if not len(cand) or tol <= 0:
         return out, []
@@ -1106,7 +1109,8 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     net = build_line_network(project)
     if not len(net.geoms):
         return [], []
-    geoms, fixes = close_ends(net, tol)
+    found = loose_ends(net, ("contact", "boundary"), tol)
+    geoms, fixes = close_ends(net, tol, ends=found)
     changes: list[Change] = []
     if fixes:
         feats = np.array(sorted({fx.feat for fx in fixes}), dtype=np.int64)
@@ -1123,8 +1127,8 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
             notes.append("; ".join(f"end {fx.how} {fx.distance:.3g} to meet line {ids[net.rows[fx.other]]}" for fx in mine))
         changes = _line_change("close-dangles", state, rows, before, after, shifts, notes)
     # the free ends beyond the tolerance: listed, not guessed
-    after_net = build_line_network(working_project(state)) if fixes else net  # no end closed: the same lines
-    rest = loose_ends(after_net, ("contact", "boundary"), tol)
+    after_net = build_line_network(working_project(state)) if fixes else net  # no end closed: the same lines, ends
+    rest = loose_ends(after_net, ("contact", "boundary"), tol) if fixes else found
     left: list[Left] = []
     far = ~rest.near_line
     if state.units is not None and len(state.units) and far.any():
