@@ -579,8 +579,24 @@ def _source_layers(state: RepairState) -> np.ndarray:
     return np.full(len(frame), "lines", dtype=object)
 
 
+LINE_NETWORK = "line-network"  # key of RepairState.analyses: (the working lines frame, its network)
+
+
+def line_network(state: RepairState, project: MapProject) -> LineNetwork:
+    """The network of the working lines (``project``: :func:`working_project` of ``state``), built once while the
+    lines stay the same frame with the same geometries (:func:`_set_geoms` forgets it; every other change of the
+    lines makes a new frame)."""
+    hit = state.analyses.get(LINE_NETWORK)
+    if hit is not None and hit[0] is state.lines:
+        return cast(LineNetwork, hit[1])
+    net = build_line_network(project)
+    state.analyses[LINE_NETWORK] = (state.lines, net)
+    return net
+
+
 def _set_geoms(state: RepairState, rows: np.ndarray, geoms: np.ndarray) -> None:
     assert state.lines is not None
+    state.analyses.pop(LINE_NETWORK, None)  # the frame keeps its identity: its network goes
     col = state.lines.geometry.name
     values = np.asarray(state.lines.geometry.array, dtype=object).copy()
     values[rows] = geoms
@@ -1106,7 +1122,7 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
         return [], []
     tol = float(settings.tolerance)
     project = working_project(state)
-    net = build_line_network(project)
+    net = line_network(state, project)
     if not len(net.geoms):
         return [], []
     found = loose_ends(net, ("contact", "boundary"), tol)
@@ -1127,7 +1143,7 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
             notes.append("; ".join(f"end {fx.how} {fx.distance:.3g} to meet line {ids[net.rows[fx.other]]}" for fx in mine))
         changes = _line_change("close-dangles", state, rows, before, after, shifts, notes)
     # the free ends beyond the tolerance: listed, not guessed
-    after_net = build_line_network(working_project(state)) if fixes else net  # no end closed: the same lines, ends
+    after_net = line_network(state, working_project(state)) if fixes else net  # no end closed: the same lines, ends
     rest = loose_ends(after_net, ("contact", "boundary"), tol) if fixes else found
     left: list[Left] = []
     far = ~rest.near_line
@@ -1179,7 +1195,7 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
         return [], []
     tol = float(settings.tolerance)
     project = working_project(state)
-    net = build_line_network(project)
+    net = line_network(state, project)
     units, edges, cov = unit_analyses(state, project, tol)
     if not len(units):
         return [], []
