@@ -17,6 +17,7 @@ from archivist.analysis.arrays import (
     linear_parts,
     merge_by_group,
     polygonal_parts,
+    spans,
 )
 
 
@@ -43,6 +44,16 @@ def test_group_sorted_groups_identical_rows():
     for row, g in zip(order, gid):
         groups.setdefault(int(g), []).append(float(x[row]))
     assert sorted(sorted(v) for v in groups.values()) == [[1.0, 1.0], [2.0, 2.0], [3.0]]
+
+
+def test_spans_list_each_range_in_order_and_skip_empty_ones():
+    # by hand: 5..6, nothing, 0, 10..12; numpy's own concatenation of the ranges is the reference
+    starts, counts = np.array([5, 7, 0, 10]), np.array([2, 0, 1, 3])
+    which, at = spans(starts, counts)
+    assert which.tolist() == [0, 0, 2, 3, 3, 3]
+    assert at.tolist() == [5, 6, 0, 10, 11, 12]
+    assert at.tolist() == np.concatenate([np.arange(s, s + c) for s, c in zip(starts, counts)]).tolist()
+    assert [len(x) for x in spans(np.zeros(0), np.zeros(0))] == [0, 0]
 
 
 def test_parts_of_an_overlay_collection():

@@ -78,6 +78,15 @@ def canonical(
     return px, py, qx, qy, fwd
 
 
+def spans(starts: np.ndarray, counts: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Every position of the spans ``starts[i]`` .. ``starts[i] + counts[i] - 1``, span by span, in order: the
+    span ``i`` of each and the position (a ragged range, on arrays)."""
+    counts = np.asarray(counts, dtype=np.int64)
+    which = np.repeat(np.arange(len(counts)), counts)
+    begin = np.repeat(np.asarray(starts, dtype=np.int64), counts)
+    return which, begin + np.arange(len(which)) - np.repeat(np.cumsum(counts) - counts, counts)
+
+
 def group_sorted(h: np.ndarray, *cols: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Sort rows by hash and split them into groups of identical rows.
 

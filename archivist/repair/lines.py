@@ -27,7 +27,7 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import coord_hash, segments
+from ..analysis.arrays import coord_hash, group_sorted, segments, spans
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -216,14 +216,9 @@ class _Targets:
         if self._index is None or len(new):
             self._have[new] = True
             xy = shapely.get_coordinates(self.targets[self._have])
-            # each vertex once (shared vertices and ring closures repeat): by hash, then coordinates, so two
-            # vertices sharing a hash are both kept
-            h = coord_hash(xy[:, 0], xy[:, 1])
-            order = np.argsort(h, kind="stable")
-            h, xy = h[order], xy[order]
-            first = np.ones(len(xy), dtype=bool)
-            first[1:] = (h[1:] != h[:-1]) | (xy[1:] != xy[:-1]).any(axis=1)
-            xy = xy[first]
+            # each vertex once (shared vertices and ring closures repeat): grouped by hash and coordinates
+            order, _, starts = group_sorted(coord_hash(xy[:, 0], xy[:, 1]), xy[:, 0], xy[:, 1])
+            xy = xy[order[starts]]
             self._index = (shapely.STRtree(shapely.points(xy)), xy)
         return self._index
 
@@ -249,12 +244,18 @@ def _on_vertices(parts: np.ndarray, index: _Targets) -> np.ndarray:
     points removes none), so it need not be measured at all.
     """
     xy, part = shapely.get_coordinates(parts, return_index=True)
+    return _parts_on(xy, part, len(parts), index)
+
+
+def _parts_on(xy: np.ndarray, part: np.ndarray, n: int, index: _Targets) -> np.ndarray:
+    """:func:`_on_vertices` of parts 0 .. n - 1 given by their vertices ``xy`` in order (``part``: the part of each,
+    ascending; a part with none answers True)."""
     if not len(xy):
-        return np.ones(len(parts), dtype=bool)
+        return np.ones(n, dtype=bool)
     on = index.on(xy)
     repeat = np.zeros(len(xy), dtype=bool)
     repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
-    bad = np.bincount(part, weights=(~on | repeat), minlength=len(parts)) > 0
+    bad = np.bincount(part, weights=(~on | repeat), minlength=n) > 0
     return ~bad
 
 
@@ -763,16 +764,14 @@ def _on_targets(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray]], cac
     of its snaps."""
     out = np.zeros(len(net.geoms), dtype=bool)
     vertex_part = np.repeat(np.arange(net.n_parts), np.diff(net.part_off))
-    repeat = np.zeros(len(net.coords), dtype=bool)
-    repeat[1:] = (vertex_part[1:] == vertex_part[:-1]) & (net.coords[1:] == net.coords[:-1]).all(axis=1)
     for (feats, targets), cache in zip(plan, caches):
         valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]  # as snap_to_boundaries keeps them
         if not len(valid):
             continue
-        mine = np.flatnonzero(np.isin(net.part_feat, feats)[vertex_part])
-        off = ~_targets(valid, cache).on(net.coords[mine]) | repeat[mine]
+        mine = np.flatnonzero(np.isin(net.part_feat, feats)[vertex_part])  # the vertices of the group's parts
+        on = _parts_on(net.coords[mine], vertex_part[mine], net.n_parts, _targets(valid, cache))
         ok = np.ones(len(net.geoms), dtype=bool)
-        ok[net.part_feat[np.unique(vertex_part[mine[off]])]] = False
+        ok[net.part_feat[~on]] = False
         out[feats] = ok[feats]
     return out
 
@@ -812,9 +811,8 @@ def _touching(net: LineNetwork, old: np.ndarray, owner: np.ndarray, changed: np.
             cache["ends"] = (by_line, np.searchsorted(owner[by_line], np.arange(len(net.geoms) + 1)))
         by_line, first = cache["ends"]
         jc, near = dwithin_pairs(net.tree, net.geoms, net.geoms[chg], eps)
-        count = first[near + 1] - first[near]
-        pair = np.repeat(np.arange(len(near)), count)
-        kb = by_line[first[near][pair] + np.arange(len(pair)) - np.repeat(np.cumsum(count) - count, count)]
+        pair, at = spans(first[near], first[near + 1] - first[near])
+        kb = by_line[at]
         keep = ~mine[kb]
         kb, pair = kb[keep], pair[keep]
         hit = shapely.dwithin(shapely.points(old[kb]), net.geoms[chg[jc[pair]]], eps)
@@ -838,9 +836,7 @@ def _nearest_ends(geoms: np.ndarray, feat: np.ndarray, near: np.ndarray) -> np.n
     ends = np.stack([shapely.get_coordinates(shapely.get_point(parts, 0)),
                      shapely.get_coordinates(shapely.get_point(parts, -1))], axis=1).reshape(-1, 2)
     first = np.searchsorted(np.repeat(line, 2), np.arange(len(lines) + 1))
-    count = (first[1:] - first[:-1])[which]
-    pair = np.repeat(np.arange(len(feat)), count)
-    cand = first[which][pair] + np.arange(len(pair)) - np.repeat(np.cumsum(count) - count, count)
+    pair, cand = spans(first[which], (first[1:] - first[:-1])[which])
     d = np.hypot(*(ends[cand] - near[pair]).T)
     o = np.lexsort((cand // 2, cand % 2, d, pair))  # ties: starts before ends, parts in order
     best = o[np.r_[True, pair[o][1:] != pair[o][:-1]]]
@@ -1054,9 +1050,9 @@ def _nearest_within(xy: np.ndarray, idx: np.ndarray, lines: np.ndarray, bound: n
         stop = start + max(1, int(np.searchsorted(total, CHUNK, side="right")))
         p = np.arange(start, stop)
         n = per[p]
-        pp = np.repeat(p, n)
-        offs = np.arange(len(pp)) - np.repeat(np.cumsum(n) - n, n)
-        t = tj[first[idx[pp]] + offs]
+        which, at = spans(first[idx[p]], n)
+        pp = p[which]
+        t = tj[at]
         d = _point_segment(xy[pp], sa[t], sb[t])
         has = n > 0
         if has.any():

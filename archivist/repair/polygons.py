@@ -27,7 +27,7 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..analysis.alignment import Alignment
-from ..analysis.arrays import widths
+from ..analysis.arrays import spans, widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
@@ -1225,9 +1225,8 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
     # every segment slot (coordinate c to c + 1 of a part) of those lines, with the slots taken out marked
     parts = np.flatnonzero(np.isin(net.part_feat, feats))
     lo, hi = net.part_off[parts], net.part_off[parts + 1] - 1  # slots lo .. hi - 1
-    n = np.maximum(hi - lo, 0)
-    slot = np.repeat(lo, n) + (np.arange(n.sum()) - np.repeat(np.cumsum(n) - n, n))
-    slot_part = np.repeat(parts, n)
+    which, slot = spans(lo, np.maximum(hi - lo, 0))
+    slot_part = parts[which]
     out = np.zeros(len(net.coords), dtype=bool)
     out[net.seg_c0[gone]] = True
     kept = ~out[slot]
