@@ -56,6 +56,9 @@ def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip:
         click.echo(f"  {name:<28} {n:>6}")
     if result.left:
         click.echo(f"Left for the geologist: {len(result.left)} (listed in the change log).")
+    for w in result.log.get("layers_written") or []:
+        if w["how"] != "edited":  # GDAL made the table anew from the values: widths, constraints, defaults not kept
+            click.echo(f"Layer {w['layer']} written anew in {w['path']} (field definitions as GDAL makes them): {w['reason']}.")
     if dry_run:
         click.echo("Dry run: nothing written.")
     else:

@@ -190,10 +190,10 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     from ..fsutil import move_into_place, staging_dir
 
     with staging_dir(target) as tmp:
-        manifest = write_copy(proj, state, changes, tmp)
+        manifest, written = write_copy(proj, state, changes, tmp)
         copy = load_project(manifest, progress=progress)
         after = _counts(check(copy, progress=progress, context=_copy_context(copy, state, settings)))
-        doc = log_document(str(project), names, settings, changes, left, before, after)
+        doc = log_document(str(project), names, settings, changes, left, before, after, written)
         (tmp / _log_name()).write_text(dump_log(doc), encoding="utf-8")
         from .log import GPKG_NAME, write_changes_gpkg
 
@@ -380,14 +380,67 @@ def _write_built_units(state: RepairState, tmp: Path, manifest: dict[str, Any], 
     return tmp / BUILT_UNITS
 
 
+def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], role: str) -> dict[str, Any] | str:
+    """Write the working ``frame`` of ``layer`` into its copied GeoPackage table at ``dest`` in place
+    (:mod:`.inplace`): the record of what was done, or why it could not be (the caller then writes it anew)."""
+    import numpy as np
+    import pandas as pd
+
+    from .inplace import NotInPlace, edit_layer
+    from .model import id_numbers
+
+    table = str(spec.get("layer") or dest.stem)
+    if layer.parts or layer.path.suffix.lower() != ".gpkg" or dest.suffix.lower() != ".gpkg" or not dest.exists():
+        return "only a layer of one GeoPackage is edited in place; other formats are written whole"
+    ids = [str(v) for v in frame[FEATURE_ID]]
+    known = pd.Index([str(v) for v in layer.ids])
+    if not known.is_unique:
+        return "its feature ids repeat, so rows cannot be told apart"
+    pos = known.get_indexer(ids)
+    old = np.asarray(layer.frame.index, dtype=np.int64)
+    fids = np.zeros(len(ids), dtype=np.int64)
+    fids[pos >= 0] = old[pos[pos >= 0]]
+    new = np.flatnonzero(pos < 0)
+    if len(new) and not layer.field("id_field"):  # the feature id is the FID: a new feature's is its own
+        nums = id_numbers([ids[k] for k in new])
+        if not np.issubdtype(np.asarray(nums).dtype, np.integer):
+            return "a new feature's id is not a whole number"
+        fids[new] = nums
+    elif len(new):
+        fids[new] = max(int(old.max()) if len(old) else 0, int(fids.max()) if len(fids) else 0) + 1 + np.arange(len(new))
+    work = frame.drop(columns=[c for c in (FEATURE_ID, SOURCE_LAYER) if c in frame.columns])
+    try:
+        done = edit_layer(dest, table, work, fids, layer.frame, dest.with_name(f".{dest.stem}.{role}.rows.gpkg"))
+    except NotInPlace as why:
+        return str(why)
+    return {"how": "edited", "deleted": done.deleted, "updated": done.updated, "inserted": done.inserted,
+            "fields_added": list(done.added_fields)}
+
+
+def _write_one(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], role: str, crs: Any, tmp: Path,
+               record: list[dict[str, Any]]) -> Path:
+    """Write one changed layer of the copy: edited in its GeoPackage table where it can be, else anew."""
+    rel = dest.relative_to(tmp).as_posix()
+    done = _edit_in_place(frame, layer, dest, spec, role)
+    if isinstance(done, dict):
+        record.append({"layer": role, "path": rel, "table": str(spec.get("layer") or dest.stem), **done, "reason": None})
+        return dest
+    path = _write_layer(_file_frame(frame, layer), dest, spec, role, spec, crs)
+    how = "converted" if path != dest else "rewritten"
+    record.append({"layer": role, "path": path.relative_to(tmp).as_posix(), "table": spec.get("layer"), "how": how,
+                   "deleted": None, "updated": None, "inserted": None, "fields_added": [], "reason": done})
+    return path
+
+
 def _write_layers(project: Any, state: RepairState, changed: set[str], layers_out: dict[str, Any], out: dict[str, Any],
-                  tmp: Path) -> list[Path]:
-    """Write the changed layers of the copy (units, the line layers) into ``tmp``; the files written."""
+                  tmp: Path, record: list[dict[str, Any]]) -> list[Path]:
+    """Write the changed layers of the copy (units, the line layers) into ``tmp``; the files written. How each was
+    written goes to ``record``."""
     written: list[Path] = []
     if "units" in changed and state.units is not None and "units" in layers_out:
         layer = project.layers["units"]
         spec = layers_out["units"]
-        written.append(_write_layer(_file_frame(state.units, layer), tmp / spec["path"], spec, "units", spec, project.crs))
+        written.append(_write_one(state.units, layer, tmp / spec["path"], spec, "units", project.crs, tmp, record))
     if "units" in changed and state.units is not None and "units" not in layers_out:  # built from the linework
         written.append(_write_built_units(state, tmp, out, project.crs))
     if state.lines is not None and "lines" in project.layers and changed - {"units"}:
@@ -404,12 +457,13 @@ def _write_layers(project: Any, state: RepairState, changed: set[str], layers_ou
                 frame[FEATURE_ID] = frame[FEATURE_ID].astype(str).str.split(":", n=1).str[-1]
             src = sources.get(part.role)
             spec = src.spec if src is not None else layers_out.get("lines", {})
-            written.append(_write_layer(_file_frame(frame, part), tmp / spec["path"], spec, part.role, spec, project.crs))
+            written.append(_write_one(frame, part, tmp / spec["path"], spec, part.role, project.crs, tmp, record))
     return written
 
 
-def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Path) -> Path:
-    """Write the repaired copy into the folder ``tmp``; return the path of its manifest."""
+def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Path) -> tuple[Path, list[dict[str, Any]]]:
+    """Write the repaired copy into the folder ``tmp``; return the path of its manifest and how each changed
+    layer was written (the log's ``layers_written``)."""
     import copy
 
     from ..manifest import MANIFEST_NAME, read_manifest
@@ -446,8 +500,9 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
     changed = {c.layer for c in changes}
     layers_out = out.get("layers") or {}
     written: list[Path] = []
+    record: list[dict[str, Any]] = []
     with staged_writes():  # in the staging folder: each file synced below, before the folder is moved into place
-        written += _write_layers(project, state, changed, layers_out, out, tmp)
+        written += _write_layers(project, state, changed, layers_out, out, tmp, record)
     for path in dict.fromkeys(written):
         sync_file(path)
     rec = dict(out.get("repair") or {})
@@ -459,4 +514,4 @@ def write_copy(project: Any, state: RepairState, changes: list[Change], tmp: Pat
                                  f"every change is in {LOG_NAME}.\n")
     target = tmp / MANIFEST_NAME
     target.write_text(text, encoding="utf-8")
-    return target
+    return target, record

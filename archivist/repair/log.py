@@ -67,8 +67,10 @@ def left_entry(x: Left, wkt: Any = False) -> dict[str, Any]:
 
 
 def log_document(project: str, repairs: Sequence[str], settings: RepairSettings, changes: Sequence[Change],
-                 left: Sequence[Left], before: dict[str, int], after: dict[str, int] | None) -> dict[str, Any]:
-    """The change log as a JSON-ready dict."""
+                 left: Sequence[Left], before: dict[str, int], after: dict[str, int] | None,
+                 written: Sequence[dict[str, Any]] | None = None) -> dict[str, Any]:
+    """The change log as a JSON-ready dict; ``written``: how each changed layer of the copy was written (none in
+    a dry run)."""
     return {
         "tool": "archivist",
         "version": __version__,
@@ -77,6 +79,7 @@ def log_document(project: str, repairs: Sequence[str], settings: RepairSettings,
         "settings": settings.record(),
         "findings_before": dict(sorted(before.items())),
         "findings_after": None if after is None else dict(sorted(after.items())),
+        "layers_written": None if written is None else [dict(w) for w in written],
         "changes": [change_entry(i + 1, c, b, a) for i, (c, b, a) in
                     enumerate(zip(changes, _wkts([c.before for c in changes]), _wkts([c.after for c in changes])))],
         "left": [left_entry(x, w) for x, w in zip(left, _wkts([x.geometry for x in left]))],

@@ -1,0 +1,195 @@
+"""The repaired copy's GeoPackage layers edited in place: the table's definition and untouched rows kept.
+
+Checked against the GeoPackage encoding standard (OGC 12-128r18): the
+spatial index extension (``rtree_<table>_<column>``, one entry per row with
+a non-empty geometry, the box of its envelope), ``gpkg_contents`` (the
+table's extent) and GDAL's ``gpkg_ogr_contents`` feature count; against
+SQLite's own checks (``PRAGMA integrity_check``, ``rtreecheck``); and
+against GDAL reading the copy (pyogrio), with a spatial filter that goes
+through the index, matched to GEOS's intersects.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import sqlite3
+import sys
+from pathlib import Path
+
+import geopandas as gpd
+import numpy as np
+import pyogrio
+import pytest
+import shapely
+from shapely.geometry import MultiPolygon, box
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from test_repair_run import five  # noqa: E402
+
+from click.testing import CliRunner  # noqa: E402
+
+from archivist.cli import cli  # noqa: E402
+from archivist.repair.api import repair  # noqa: E402
+from archivist.repair.inplace import NotInPlace, edit_layer  # noqa: E402
+
+
+def redefine(gpkg: Path, table: str, old: str, new: str) -> None:
+    """Change a field's definition in the table's CREATE statement (SQLite's writable_schema: constraints and
+    declared types only, the stored rows are as they were), as a GIS that sets a width, NOT NULL or a default
+    leaves it."""
+    con = sqlite3.connect(gpkg)
+    sql = con.execute("SELECT sql FROM sqlite_master WHERE type = 'table' AND name = ?", (table,)).fetchone()[0]
+    assert old in sql
+    con.execute("PRAGMA writable_schema = ON")
+    con.execute("UPDATE sqlite_master SET sql = ? WHERE type = 'table' AND name = ?", (sql.replace(old, new), table))
+    con.commit()
+    con.close()
+
+
+def add_field(gpkg: Path, layer: str, name: str, values: list[str]) -> None:
+    """Write ``layer`` again with one more text field (values in FID order)."""
+    frame = pyogrio.read_dataframe(gpkg, layer=layer, fid_as_index=True)
+    frame[name] = values
+    pyogrio.write_dataframe(frame.reset_index(), gpkg, layer=layer)
+
+
+def table_sql(gpkg: Path, table: str) -> str:
+    with sqlite3.connect(gpkg) as con:
+        return con.execute("SELECT sql FROM sqlite_master WHERE type = 'table' AND name = ?", (table,)).fetchone()[0]
+
+
+def rows(gpkg: Path, table: str) -> dict[int, tuple]:
+    with sqlite3.connect(gpkg) as con:
+        return {r[0]: r for r in con.execute(f'SELECT * FROM "{table}"')}
+
+
+def digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def assert_sound_geopackage(gpkg: Path, table: str) -> None:
+    """The spatial index, extent and count of ``table`` agree with its rows (GeoPackage 1.2+ spatial index
+    extension, gpkg_contents; SQLite's checks), and GDAL's spatial filter finds what GEOS finds."""
+    frame = pyogrio.read_dataframe(gpkg, layer=table, fid_as_index=True)
+    geoms = frame.geometry.values
+    with sqlite3.connect(gpkg) as con:
+        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+        assert con.execute(f"SELECT rtreecheck('rtree_{table}_geom')").fetchone()[0] == "ok"
+        index = {r[0]: r[1:] for r in con.execute(f"SELECT id, minx, maxx, miny, maxy FROM rtree_{table}_geom")}
+        count = con.execute("SELECT feature_count FROM gpkg_ogr_contents WHERE table_name = ?", (table,)).fetchone()[0]
+        extent = con.execute("SELECT min_x, min_y, max_x, max_y FROM gpkg_contents WHERE table_name = ?", (table,)).fetchone()
+    have = ~shapely.is_empty(geoms)
+    assert set(index) == set(frame.index[have].tolist())  # one entry per row with a geometry, no other
+    for fid, (x0, y0, x1, y1) in zip(frame.index[have], shapely.bounds(geoms[have])):
+        lo_x, hi_x, lo_y, hi_y = index[fid]  # 32-bit floats rounded outward (SQLite R*Tree)
+        assert lo_x <= x0 and hi_x >= x1 and lo_y <= y0 and hi_y >= y1
+        assert hi_x - lo_x <= (x1 - x0) + 1e-5 * max(1.0, abs(x1)) and hi_y - lo_y <= (y1 - y0) + 1e-5 * max(1.0, abs(y1))
+    assert count == len(frame)
+    assert tuple(extent) == pytest.approx(tuple(shapely.total_bounds(geoms)))
+    window = (4.0, 4.0, 6.0, 6.0)
+    found = pyogrio.read_dataframe(gpkg, layer=table, bbox=window, fid_as_index=True)
+    assert set(found.index) == set(frame.index[shapely.intersects(geoms, box(*window))])
+
+
+def test_a_repaired_table_keeps_its_definition_and_every_row_no_repair_touched(tmp_path):
+    # the units' code field set to at most 8 characters, never empty, 'X' by default, and a DATE field; GDAL
+    # writing the layer anew would make both plain TEXT. The copy's table has the definition as the mapper's GIS
+    # left it, and the rows no change names are the same bytes
+    project = five(tmp_path)
+    gpkg = project / "map.gpkg"
+    add_field(gpkg, "units", "mapped_on", ["2026-05-14", "2026-05-15", "2026-05-16", "2026-05-17", "2026-05-18"])
+    redefine(gpkg, "units", '"unit" TEXT', '"unit" TEXT(8) NOT NULL DEFAULT \'X\'')
+    redefine(gpkg, "units", '"mapped_on" TEXT', '"mapped_on" DATE')
+    before_sql, before_rows = table_sql(gpkg, "units"), rows(gpkg, "units")
+    lines_sql = table_sql(gpkg, "lines")
+    result = repair(project, tmp_path / "out")
+    copy = tmp_path / "out" / "map.gpkg"
+    assert table_sql(copy, "units") == before_sql
+    # the lines gain the field that marks generated lines (GeoPackage BOOLEAN, GDAL's type for it), at the end
+    assert table_sql(copy, "lines") == lines_sql[:-1] + ', "generated" BOOLEAN)'
+    touched = {int(f) for c in result.changes if c.layer == "units" for f in c.features_before + c.features_after}
+    after_rows = rows(copy, "units")
+    untouched = set(before_rows) - touched
+    assert untouched and all(after_rows[f] == before_rows[f] for f in untouched)
+    assert set(after_rows) == set(before_rows) - {f for f in touched if f not in after_rows}
+    assert all(r[2:] == before_rows[f][2:] for f, r in after_rows.items())  # codes and dates as they were
+    written = {w["layer"]: w for w in result.log["layers_written"]}
+    assert written["units"]["how"] == written["lines"]["how"] == "edited"
+    assert written["units"]["deleted"] == len(set(before_rows) - set(after_rows)) == 1  # the sliver E merged
+    assert written["lines"]["fields_added"] == ["generated"]
+    for table in ("units", "lines"):
+        assert_sound_geopackage(copy, table)
+    # GDAL reads the DATE field as a date, as in the project
+    assert pyogrio.read_info(copy, layer="units")["ogr_types"][list(pyogrio.read_info(copy, layer="units")["fields"]).index("mapped_on")] == "OFTDate"
+    generated = pyogrio.read_dataframe(copy, layer="lines", fid_as_index=True)["generated"]
+    assert generated.astype(bool).sum() == written["lines"]["inserted"] > 0
+
+
+def test_the_copy_read_back_is_the_map_the_rewrite_gave(tmp_path):
+    # the same polygons and lines, feature for feature, as writing the layers anew (the repairs' results)
+    project = five(tmp_path)
+    result = repair(project, tmp_path / "out")
+    dry = repair(project, None, dry_run=True)
+    assert [c.after.wkt if c.after is not None else None for c in result.changes] == \
+           [c.after.wkt if c.after is not None else None for c in dry.changes]
+    units = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="units", fid_as_index=True)
+    assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
+    assert sorted(units["unit"]) == ["A", "B", "C", "D"]
+
+
+def test_a_table_that_cannot_take_the_rows_is_left_as_it_was(tmp_path):
+    # a table of POLYGONs given a two-part polygon: the GeoPackage's one geometry type per table (GDAL) does not
+    # allow it, so nothing is written and the caller writes the layer anew (MultiPolygon)
+    gpkg = tmp_path / "map.gpkg"
+    frame = gpd.GeoDataFrame({"unit": ["A", "B"]}, geometry=[box(0, 0, 1, 1), box(1, 0, 2, 1)], crs="EPSG:32633")
+    frame.index = frame.index + 1
+    pyogrio.write_dataframe(frame.rename_axis("fid").reset_index(), gpkg, layer="units")
+    original = pyogrio.read_dataframe(gpkg, layer="units", fid_as_index=True)
+    before = digest(gpkg)
+    work = original.copy()
+    work.loc[2, "geometry"] = MultiPolygon([box(1, 0, 2, 1), box(3, 0, 4, 1)])
+    with pytest.raises(NotInPlace, match="several parts"):
+        edit_layer(gpkg, "units", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
+    assert digest(gpkg) == before and not (tmp_path / "scratch.gpkg").exists()
+
+
+def test_a_not_null_field_a_new_row_leaves_empty_rolls_the_edit_back(tmp_path):
+    # SQLite refuses the generated lines (no value for a NOT NULL field without default): the edit is rolled
+    # back whole and the layer written anew, the log saying why
+    project = five(tmp_path)
+    gpkg = project / "map.gpkg"
+    add_field(gpkg, "lines", "drawn_by", ["team"] * len(pyogrio.read_dataframe(gpkg, layer="lines")))
+    redefine(gpkg, "lines", '"drawn_by" TEXT', '"drawn_by" TEXT NOT NULL')
+    run = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "out"), "--quiet"])
+    assert run.exit_code == 0, run.output
+    log = json.loads((tmp_path / "out" / "repair-log.json").read_text(encoding="utf-8"))
+    written = {w["layer"]: w for w in log["layers_written"]}
+    assert written["lines"]["how"] == "rewritten"
+    assert "NOT NULL" in written["lines"]["reason"]
+    assert f"Layer lines written anew in map.gpkg (field definitions as GDAL makes them): {written['lines']['reason']}." in run.output
+    assert "Layer units" not in run.output
+    assert written["units"]["how"] == "edited"
+    lines = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="lines")
+    assert lines["generated"].astype(bool).sum() > 0
+
+
+def test_values_only_a_repair_changed_are_written_without_the_geometry(tmp_path):
+    # a row whose geometry stayed but one value changed: the value is set, the geometry blob kept byte for byte
+    gpkg = tmp_path / "map.gpkg"
+    frame = gpd.GeoDataFrame({"kind": ["contact", "fault"]}, geometry=[box(0, 0, 1, 1).boundary, box(1, 0, 2, 1).boundary],
+                             crs="EPSG:32633")
+    frame.index = frame.index + 1
+    pyogrio.write_dataframe(frame.rename_axis("fid").reset_index(), gpkg, layer="lines")
+    original = pyogrio.read_dataframe(gpkg, layer="lines", fid_as_index=True)
+    before = rows(gpkg, "lines")
+    work = original.copy()
+    work["generated"] = False
+    work.loc[2, "kind"] = "contact"
+    done = edit_layer(gpkg, "lines", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
+    assert (done.deleted, done.updated, done.inserted, done.added_fields) == (0, 2, 0, ("generated",))
+    after = rows(gpkg, "lines")
+    assert after[1][:3] == before[1][:3] and after[2][:2] == before[2][:2]  # fid and geometry blob as they were
+    assert (after[1][3], after[2][2], after[2][3]) == (0, "contact", 0)
+    assert_sound_geopackage(gpkg, "lines")
