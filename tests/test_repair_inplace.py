@@ -26,13 +26,15 @@ from shapely.geometry import MultiPolygon, box
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from builders import edit_layer  # noqa: E402
 from test_repair_run import five  # noqa: E402
 
 from click.testing import CliRunner  # noqa: E402
 
 from archivist.cli import cli  # noqa: E402
 from archivist.repair.api import repair  # noqa: E402
-from archivist.repair.inplace import NotInPlace, edit_layer  # noqa: E402
+from archivist.repair.inplace import NotInPlace  # noqa: E402
+from archivist.repair.inplace import edit_layer as edit_table  # noqa: E402
 
 
 def redefine(gpkg: Path, table: str, old: str, new: str) -> None:
@@ -46,13 +48,6 @@ def redefine(gpkg: Path, table: str, old: str, new: str) -> None:
     con.execute("UPDATE sqlite_master SET sql = ? WHERE type = 'table' AND name = ?", (sql.replace(old, new), table))
     con.commit()
     con.close()
-
-
-def add_field(gpkg: Path, layer: str, name: str, values: list[str]) -> None:
-    """Write ``layer`` again with one more text field (values in FID order)."""
-    frame = pyogrio.read_dataframe(gpkg, layer=layer, fid_as_index=True)
-    frame[name] = values
-    pyogrio.write_dataframe(frame.reset_index(), gpkg, layer=layer)
 
 
 def table_sql(gpkg: Path, table: str) -> str:
@@ -102,7 +97,7 @@ def test_a_repaired_table_keeps_its_definition_and_every_row_no_repair_touched(t
     # left it, and the rows no change names are the same bytes
     project = five(tmp_path)
     gpkg = project / "map.gpkg"
-    add_field(gpkg, "units", "mapped_on", ["2026-05-14", "2026-05-15", "2026-05-16", "2026-05-17", "2026-05-18"])
+    edit_layer(project, "map.gpkg", "units", lambda f: f.assign(mapped_on=[f"2026-05-1{d}" for d in range(4, 9)]))
     redefine(gpkg, "units", '"unit" TEXT', '"unit" TEXT(8) NOT NULL DEFAULT \'X\'')
     redefine(gpkg, "units", '"mapped_on" TEXT', '"mapped_on" DATE')
     before_sql, before_rows = table_sql(gpkg, "units"), rows(gpkg, "units")
@@ -154,7 +149,7 @@ def test_a_table_that_cannot_take_the_rows_is_left_as_it_was(tmp_path):
     work = original.copy()
     work.loc[2, "geometry"] = MultiPolygon([box(1, 0, 2, 1), box(3, 0, 4, 1)])
     with pytest.raises(NotInPlace, match="several parts"):
-        edit_layer(gpkg, "units", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
+        edit_table(gpkg, "units", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
     assert digest(gpkg) == before and not (tmp_path / "scratch.gpkg").exists()
 
 
@@ -163,7 +158,7 @@ def test_a_not_null_field_a_new_row_leaves_empty_rolls_the_edit_back(tmp_path):
     # back whole and the layer written anew, the log saying why
     project = five(tmp_path)
     gpkg = project / "map.gpkg"
-    add_field(gpkg, "lines", "drawn_by", ["team"] * len(pyogrio.read_dataframe(gpkg, layer="lines")))
+    edit_layer(project, "map.gpkg", "lines", lambda f: f.assign(drawn_by="team"))
     redefine(gpkg, "lines", '"drawn_by" TEXT', '"drawn_by" TEXT NOT NULL')
     run = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "out"), "--quiet"])
     assert run.exit_code == 0, run.output
@@ -190,7 +185,7 @@ def test_values_only_a_repair_changed_are_written_without_the_geometry(tmp_path)
     work = original.copy()
     work["generated"] = False
     work.loc[2, "kind"] = "contact"
-    done = edit_layer(gpkg, "lines", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
+    done = edit_table(gpkg, "lines", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
     assert (done.deleted, done.updated, done.inserted, done.added_fields) == (0, 2, 0, ("generated",))
     after = rows(gpkg, "lines")
     assert after[1][:3] == before[1][:3] and after[2][:2] == before[2][:2]  # fid and geometry blob as they were

@@ -400,3 +400,26 @@ def test_a_line_snapped_only_once_its_other_end_is_held_keeps_its_junctions(tmp_
     first = repair(project, tmp_path / "out")
     assert not [c for c in first.changes if c.repair == "close-dangles"]
     assert repair(tmp_path / "out", tmp_path / "again").changes == ()
+
+
+@pytest.mark.parametrize("ids", [["L1", "L2"], [101, 102]])
+def test_a_generated_line_carries_the_id_the_log_gives_it_in_the_layers_id_field(tmp_path, ids):
+    # the lines' ids come from a field of their own (text, or whole numbers in an INTEGER field): each line
+    # draw-missing-lines adds holds its id there, so the copy, the log and diff name it the same
+    from builders import edit_layer, edit_manifest
+
+    from archivist.diff import diff
+
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "C"]},
+                             geometry=[box(0, 0, 100, 100), box(100, 0, 200, 50), box(100, 50, 200, 100)], crs=CRS)
+    project = project_with(tmp_path, ("contact", LineString([(100, 0), (100, 100)])), ("map-boundary", FRAME), units=units)
+    edit_layer(project, "map.gpkg", "lines", lambda f: f.assign(line_id=ids))
+    edit_manifest(project, lambda d: d["layers"]["lines"].update({"id_field": "line_id"}))
+    result = repair(project, tmp_path / "out", only=["draw-missing-lines"])
+    (added,) = [c for c in result.changes if c.repair == "draw-missing-lines"]
+    copy = load_project(tmp_path / "out")
+    assert list(copy.layers["lines"].ids) == [str(i) for i in ids] + list(added.features_after)
+    stored = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="lines")["line_id"]
+    assert stored.dtype.kind == ("i" if isinstance(ids[0], int) else "O")
+    found = [c for c in diff(project, tmp_path / "out").changes if c.change == "line-added"]
+    assert [c.features for c in found] == [added.features_after]

@@ -1157,6 +1157,25 @@ def close_dangles(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     return changes, left
 
 
+def _fill_ids(state: RepairState, frame: pd.DataFrame, add: pd.DataFrame) -> None:
+    """Write each new line's feature id into its layer's id field (``id_field``), where the manifest names one:
+    the copy then holds the ids the change log gives them (a number, stored as one in a numeric field)."""
+    lines = state.project.layers.get("lines")
+    if lines is None:
+        return
+    fields = {p.role: p.field("id_field") for p in lines.parts} if lines.parts else {"lines": lines.field("id_field")}
+    sources = add[SOURCE_LAYER] if SOURCE_LAYER in add.columns else pd.Series("lines", index=add.index)
+    for src, field in fields.items():
+        mine = (sources == src).to_numpy()
+        if not field or not mine.any():
+            continue
+        ids = [str(v).rpartition(":")[2] for v in add.loc[mine, FEATURE_ID]]
+        numeric = field in frame.columns and pd.api.types.is_numeric_dtype(frame[field])
+        if field not in add.columns:
+            add[field] = None
+        add.loc[mine, field] = [int(v) for v in ids] if numeric else ids
+
+
 def _line_target(state: RepairState, role: str) -> str:
     """The mapper's own line layer a generated line of ``role`` is written to."""
     lines = state.project.layers.get("lines")
@@ -1234,6 +1253,7 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
         add[state.kind_field] = texts
     if state.certainty_field:
         add[state.certainty_field] = certainty
+    _fill_ids(state, frame, add)
     import geopandas as gpd
 
     add[frame.geometry.name] = new
