@@ -32,6 +32,7 @@ from test_repair_run import five  # noqa: E402
 from click.testing import CliRunner  # noqa: E402
 
 from archivist.cli import cli  # noqa: E402
+from archivist.engine import check  # noqa: E402
 from archivist.repair.api import repair  # noqa: E402
 from archivist.repair.inplace import NotInPlace  # noqa: E402
 from archivist.repair.inplace import edit_layer as edit_table  # noqa: E402
@@ -218,3 +219,29 @@ def test_the_edited_copy_reads_back_as_the_copy_written_anew(tmp_path, monkeypat
             x, y = a[c].to_numpy(dtype=object), b[c].to_numpy(dtype=object)
             assert all((u == v) or (u != u and v != v) or (u is None and v is None) for u, v in zip(x, y)), c
         assert_sound_geopackage(tmp_path / "edited" / "map.gpkg", layer)
+
+
+@pytest.mark.parametrize("edited", [True, False])
+def test_a_layer_the_manifest_does_not_name_is_written_in_the_files_only_layer(tmp_path, monkeypatch, edited):
+    # the units in a GeoPackage of one layer, 'geology_polygons', the manifest giving only the path (as the loader
+    # allows): the copy changes that layer, edited in place or written anew, and adds none named after the file
+    # (a second layer made the copy's manifest ambiguous: 'layer-missing' on the copy)
+    import archivist.repair.api as api
+    from builders import edit_manifest
+
+    project = five(tmp_path)
+    units = pyogrio.read_dataframe(project / "map.gpkg", layer="units", fid_as_index=True)
+    pyogrio.write_dataframe(units.reset_index(), project / "polys.gpkg", layer="geology_polygons")
+
+    def units_alone(d):
+        d["layers"]["units"]["path"] = "polys.gpkg"
+        del d["layers"]["units"]["layer"]
+
+    edit_manifest(project, units_alone)
+    if not edited:
+        monkeypatch.setattr(api, "_edit_in_place", lambda *a, **k: "written anew for the test")
+    result = repair(project, tmp_path / "out")
+    (written,) = [w for w in result.log["layers_written"] if w["layer"] == "units"]
+    assert (written["how"], written["table"]) == ("edited" if edited else "rewritten", "geology_polygons")
+    assert [(str(n), str(t)) for n, t in pyogrio.list_layers(tmp_path / "out" / "polys.gpkg")] == [("geology_polygons", "Polygon")]
+    assert "layer-missing" not in {f.rule for f in check(tmp_path / "out").findings}

@@ -397,7 +397,10 @@ def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], rol
     if not known.is_unique:
         return "its feature ids repeat, so rows cannot be told apart"
     pos = known.get_indexer(ids)
-    old = np.asarray(layer.frame.index, dtype=np.int64)
+    try:
+        old = np.asarray(layer.frame.index, dtype=np.int64)
+    except (TypeError, ValueError):
+        return "its rows were not read with their GeoPackage feature ids"
     fids = np.zeros(len(ids), dtype=np.int64)
     fids[pos >= 0] = old[pos[pos >= 0]]
     new = np.flatnonzero(pos < 0)
@@ -417,17 +420,34 @@ def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], rol
             "fields_added": list(done.added_fields)}
 
 
+def _named(dest: Path, spec: dict[str, Any]) -> dict[str, Any]:
+    """``spec`` naming the GeoPackage layer it reads: where the manifest names none, the file's only layer (as the
+    project was loaded), so that the copy writes that layer, not a new one named after the file."""
+    if spec.get("layer") or dest.suffix.lower() != ".gpkg" or not dest.exists():
+        return spec
+    import pyogrio
+
+    try:
+        names = [str(n) for n, _ in pyogrio.list_layers(dest)]
+    except pyogrio.errors.DataSourceError:
+        return spec
+    return {**spec, "layer": names[0]} if len(names) == 1 else spec
+
+
 def _write_one(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], role: str, crs: Any, tmp: Path,
                record: list[dict[str, Any]]) -> Path:
-    """Write one changed layer of the copy: edited in its GeoPackage table where it can be, else anew."""
+    """Write one changed layer of the copy: edited in its GeoPackage table where it can be, else anew. ``spec`` is
+    the copy's manifest entry (a layer converted to GeoPackage gets its new path and layer there)."""
+    entry, spec = spec, _named(dest, spec)
     rel = dest.relative_to(tmp).as_posix()
     done = _edit_in_place(frame, layer, dest, spec, role)
     if isinstance(done, dict):
         record.append({"layer": role, "path": rel, "table": str(spec.get("layer") or dest.stem), **done, "reason": None})
         return dest
-    path = _write_layer(_file_frame(frame, layer), dest, spec, role, spec, crs)
+    path = _write_layer(_file_frame(frame, layer), dest, spec, role, entry, crs)
     how = "converted" if path != dest else "rewritten"
-    record.append({"layer": role, "path": path.relative_to(tmp).as_posix(), "table": spec.get("layer"), "how": how,
+    table = str(spec.get("layer") or path.stem) if path.suffix.lower() == ".gpkg" else None
+    record.append({"layer": role, "path": path.relative_to(tmp).as_posix(), "table": table, "how": how,
                    "deleted": None, "updated": None, "inserted": None, "fields_added": [], "reason": done})
     return path
 
