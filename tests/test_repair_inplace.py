@@ -34,8 +34,7 @@ from click.testing import CliRunner  # noqa: E402
 from archivist.cli import cli  # noqa: E402
 from archivist.engine import check  # noqa: E402
 from archivist.repair.api import repair  # noqa: E402
-from archivist.repair.inplace import NotInPlace  # noqa: E402
-from archivist.repair.inplace import edit_layer as edit_table  # noqa: E402
+from archivist.repair.inplace import NotInPlace, edit_table  # noqa: E402
 
 
 def redefine(gpkg: Path, table: str, old: str, new: str) -> None:

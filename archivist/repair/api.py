@@ -386,7 +386,7 @@ def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], rol
     import numpy as np
     import pandas as pd
 
-    from .inplace import NotInPlace, edit_layer
+    from .inplace import NotInPlace, edit_table
     from .model import id_numbers
 
     table = str(spec.get("layer") or dest.stem)
@@ -413,7 +413,7 @@ def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], rol
         fids[new] = max(int(old.max()) if len(old) else 0, int(fids.max()) if len(fids) else 0) + 1 + np.arange(len(new))
     work = frame.drop(columns=[c for c in (FEATURE_ID, SOURCE_LAYER) if c in frame.columns])
     try:
-        done = edit_layer(dest, table, work, fids, layer.frame, dest.with_name(f".{dest.stem}.{role}.rows.gpkg"))
+        done = edit_table(dest, table, work, fids, layer.frame, dest.with_name(f".{dest.stem}.{role}.rows.gpkg"))
     except NotInPlace as why:
         return str(why)
     return {"how": "edited", "deleted": done.deleted, "updated": done.updated, "inserted": done.inserted,

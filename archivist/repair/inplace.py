@@ -159,7 +159,7 @@ def _value_sql(column: str, declared: str) -> str:
     return ref
 
 
-def edit_layer(path: Path, table: str, frame: Any, fids: np.ndarray, original: Any, scratch: Path) -> Edited:
+def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: Any, scratch: Path) -> Edited:
     """Make table ``table`` of the GeoPackage ``path`` hold ``frame`` (a GeoDataFrame whose rows have the feature ids
     ``fids``), given ``original``, the table's rows as read before (a GeoDataFrame indexed by feature id).
 
