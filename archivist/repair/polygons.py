@@ -861,13 +861,13 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
         return False
 
     def unexplained(rows: np.ndarray) -> bool:
-        invalid = shapely.coverage_invalid_edges(geoms[rows], gap_width=distance)
-        invalid = invalid[~shapely.is_missing(invalid) & ~shapely.is_empty(invalid)]
-        if not len(invalid):
-            return False
         try:
+            invalid = shapely.coverage_invalid_edges(geoms[rows], gap_width=distance)
+            invalid = invalid[~shapely.is_missing(invalid) & ~shapely.is_empty(invalid)]
+            if not len(invalid):
+                return False
             rest = shapely.difference(shapely.union_all(invalid), explained)
-        except GEOSException:
+        except GEOSException:  # GEOS cannot tell: cleaned as before
             return True
         return float(shapely.length(rest)) > eps  # bits of edge at the overlap's corners, cut in rounding
 
