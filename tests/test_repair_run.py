@@ -213,6 +213,26 @@ def test_cli_refuses_an_output_inside_the_project_or_existing(tmp_path):
     assert res.exit_code == 2 and "unknown repair 'no-such-repair'" in res.output
 
 
+def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
+    # units read from a list of files (a season's hand-in, which the manifest allows) would have each row go back
+    # to its own file: refused with one line naming the layer and its files, exit 2, nothing written (it stopped as
+    # an internal error, a TypeError, asking to be reported)
+    role = "units"
+    project = five(tmp_path)
+    frame = pyogrio.read_dataframe(project / "map.gpkg", layer=role, fid_as_index=True)
+    half = len(frame) // 2
+    pyogrio.write_dataframe(frame.iloc[:half].reset_index(), project / "west.gpkg", layer=role)
+    pyogrio.write_dataframe(frame.iloc[half:].reset_index(), project / "east.gpkg", layer=role)
+    edit_manifest(project, lambda d: d["layers"][role].update({"path": ["west.gpkg", "east.gpkg"]}))
+    digest = tree_digest(project)
+    for extra in (["--out", str(tmp_path / "out")], ["--dry-run"]):
+        res = CliRunner().invoke(cli, ["repair", str(project), *extra])
+        assert res.exit_code == 2, res.output
+        assert f"layers.{role} is read from 2 files (west.gpkg, east.gpkg)" in res.output
+        assert "Traceback" not in res.output and len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists() and tree_digest(project) == digest
+
+
 def test_package_of_a_repaired_copy_records_the_run(tmp_path):
     from archivist.package import pack
 

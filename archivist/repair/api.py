@@ -160,6 +160,13 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         raise ArchivistError(f"{manifest_path}: map.crs is geographic (longitude/latitude); repair works in a projected CRS only")
     if "units" not in proj.layers and not build_polygons:
         raise ArchivistError(f"{manifest_path}: no units layer could be read; nothing to repair")
+    for role in ("units", "lines"):
+        handed = [p for p in (proj.layers[role].parts or (proj.layers[role],)) if len(p.files) > 1] if role in proj.layers else []
+        if handed:  # each row would have to go back to its own file, and a new one to some file: not done
+            h = handed[0]
+            raise ArchivistError(f"{manifest_path}: {h.key or 'layers.' + role} is read from {len(h.files)} files "
+                                 f"({', '.join(f.name for f in h.files)}); repair writes each layer back into its one "
+                                 "file: join them into one layer first")
     from ..analysis.context import CheckContext
     from .polygons import CHECKED
 
