@@ -151,6 +151,10 @@ def test_a_table_that_cannot_take_the_rows_is_left_as_it_was(tmp_path):
     with pytest.raises(NotInPlace, match="several parts"):
         edit_table(gpkg, "units", work, np.array([1, 2]), original, tmp_path / "scratch.gpkg")
     assert digest(gpkg) == before and not (tmp_path / "scratch.gpkg").exists()
+    # a field named like the column the scratch file carries the feature ids in (GDAL's FID column name)
+    with pytest.raises(NotInPlace, match="named fid"):
+        edit_table(gpkg, "units", original.assign(FID=[7, 8]), np.array([1, 2]), original, tmp_path / "scratch.gpkg")
+    assert digest(gpkg) == before
 
 
 def test_a_not_null_field_a_new_row_leaves_empty_rolls_the_edit_back(tmp_path):

@@ -159,42 +159,42 @@ def _value_sql(column: str, declared: str) -> str:
     return ref
 
 
-def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: Any, scratch: Path) -> Edited:
-    """Make table ``table`` of the GeoPackage ``path`` hold ``frame`` (a GeoDataFrame whose rows have the feature ids
-    ``fids``), given ``original``, the table's rows as read before (a GeoDataFrame indexed by feature id).
+@dataclass(frozen=True)
+class _Plan:
+    """What an edit writes: the rows to delete (``gone``, feature ids), the frame's rows already in the table
+    (``kept``), those GDAL encodes (``encoded``: moved, new, or with a value SQLite cannot take as a parameter),
+    per field the rows whose value changed (``changed``), and the values set as parameters (``params``)."""
 
-    ``scratch`` is a path for the scratch GeoPackage, removed at the end. Raises :class:`NotInPlace` (with the
-    file as it was) where the table cannot take the rows.
-    """
+    gone: np.ndarray
+    kept: np.ndarray
+    encoded: np.ndarray
+    changed: dict[str, np.ndarray]
+    params: dict[str, Fill | list[tuple[Any, int]]]
+
+    @property
+    def idle(self) -> bool:
+        return not len(self.gone) and not self.encoded.any() and not self.params and not self.changed
+
+
+def _plan(frame: Any, fids: np.ndarray, original: Any) -> _Plan:
+    """Compare the working rows with the table's rows as read (``original``, indexed by feature id)."""
     import pandas as pd
-    import pyogrio
     import shapely
 
-    fids = np.asarray(fids, dtype=np.int64)
-    if len(np.unique(fids)) != len(fids):
-        raise NotInPlace("two rows of the working copy have one feature id")
     old_fids = np.asarray(original.index, dtype=np.int64)
     pos = pd.Index(old_fids).get_indexer(fids)
     kept = pos >= 0
     gone = np.setdiff1d(old_fids, fids[kept])
-    new_geoms = np.asarray(frame.geometry.values, dtype=object)
-    old_geoms = np.asarray(original.geometry.values, dtype=object)[pos[kept]]
+    a = np.asarray(frame.geometry.values, dtype=object)[kept]
+    b = np.asarray(original.geometry.values, dtype=object)[pos[kept]]
     moved = np.zeros(len(frame), dtype=bool)
-    a, b = new_geoms[kept], old_geoms
-    missing = shapely.is_missing(a) & shapely.is_missing(b)
-    moved[kept] = ~(missing | np.asarray(shapely.equals_identical(a, b), dtype=bool))
-    geom_name = frame.geometry.name
-    fields = [c for c in frame.columns if c != geom_name]
-    changed: dict[str, np.ndarray] = {}  # field -> rows (of frame) whose value differs from the table's
-    for c in fields:
+    moved[kept] = ~((shapely.is_missing(a) & shapely.is_missing(b)) | np.asarray(shapely.equals_identical(a, b), dtype=bool))
+    changed: dict[str, np.ndarray] = {}
+    for c in (c for c in frame.columns if c != frame.geometry.name):
         d = np.zeros(len(frame), dtype=bool)
-        if c in original.columns:
-            d[kept] = _differs(frame[c].to_numpy()[kept], original[c].to_numpy()[pos[kept]])
-        else:
-            d[kept] = True
+        d[kept] = _differs(frame[c].to_numpy()[kept], original[c].to_numpy()[pos[kept]]) if c in original.columns else True
         if d.any() or c not in original.columns:
             changed[c] = d
-    # rows whose new values GDAL encodes: moved, new, or with a changed value SQLite cannot take as a parameter
     encoded = moved | ~kept
     params: dict[str, Fill | list[tuple[Any, int]]] = {}
     for c, d in changed.items():
@@ -202,15 +202,34 @@ def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: A
         values = frame[c].to_numpy()[rows]
         distinct = pd.unique(pd.Series(values, dtype=object))
         if len(distinct) == 1 and _simple(distinct[0])[0]:  # one value (a field added): set by one statement
-            value = _simple(distinct[0])[1]
-            params[c] = Fill(value, fids[rows], len(rows) == int((kept & ~encoded).sum()))
+            params[c] = Fill(_simple(distinct[0])[1], fids[rows], len(rows) == int((kept & ~encoded).sum()))
             continue
         simple = [_simple(v) for v in values]
         if all(ok for ok, _ in simple):
             params[c] = [(v, int(fids[r])) for (_, v), r in zip(simple, rows)]
         else:
             encoded[rows] = True
-    if not len(gone) and not encoded.any() and not params and not changed:
+    return _Plan(gone, kept, encoded, changed, params)
+
+
+def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: Any, scratch: Path) -> Edited:
+    """Make table ``table`` of the GeoPackage ``path`` hold ``frame`` (a GeoDataFrame whose rows have the feature ids
+    ``fids``), given ``original``, the table's rows as read before (a GeoDataFrame indexed by feature id).
+
+    ``scratch`` is a path for the scratch GeoPackage, removed at the end. Raises :class:`NotInPlace` (with the
+    file as it was) where the table cannot take the rows.
+    """
+    import pyogrio
+    import shapely
+
+    fids = np.asarray(fids, dtype=np.int64)
+    if len(np.unique(fids)) != len(fids):
+        raise NotInPlace("two rows of the working copy have one feature id")
+    fields = [c for c in frame.columns if c != frame.geometry.name]
+    if "fid" in (c.lower() for c in fields):
+        raise NotInPlace("the working copy has a field named fid, the name the rows' feature ids are written under")
+    plan = _plan(frame, fids, original)
+    if plan.idle:
         return Edited(0, 0, 0, ())
     con = sqlite3.connect(str(path), isolation_level=None)
     try:
@@ -221,21 +240,21 @@ def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: A
                 raise NotInPlace(f"the working copy has a field '{c}' named like the table's key or geometry")
             if c not in t.columns and c.lower() in {k.lower() for k in t.columns}:
                 raise NotInPlace(f"the working copy's field '{c}' differs from the table's only in case")
-        multi = t.geometry_type in MULTI
-        rows = np.flatnonzero(encoded)
+        rows = np.flatnonzero(plan.encoded)
         if t.geometry_type in SINGLE and len(rows):
-            kinds = shapely.get_type_id(new_geoms[rows])
+            kinds = shapely.get_type_id(np.asarray(frame.geometry.values, dtype=object)[rows])
             if np.any((kinds >= 4) & (kinds <= 7)):
                 raise NotInPlace(f"a repaired feature has several parts and the table holds {t.geometry_type}s")
         sub = frame.iloc[rows].copy()
         sub.insert(0, "fid", fids[rows])
         if sub.crs is None and original.crs is not None:
             sub = sub.set_crs(original.crs)
-        pyogrio.write_dataframe(sub, scratch, layer="rows", driver="GPKG", promote_to_multi=True if multi else None,
+        pyogrio.write_dataframe(sub, scratch, layer="rows", driver="GPKG",
+                                promote_to_multi=True if t.geometry_type in MULTI else None,
                                 layer_options={"SPATIAL_INDEX": "NO"})
         con.execute("ATTACH DATABASE ? AS scratch", (str(scratch),))
         try:
-            return _apply(con, t, sub, gone, params, new_fields, changed, rows, kept, fids, _extent(new_geoms))
+            return _apply(con, t, sub, plan, new_fields, rows, fids, _extent(np.asarray(frame.geometry.values, dtype=object)))
         finally:
             con.execute("DETACH DATABASE scratch")
     except sqlite3.Error as exc:
@@ -247,11 +266,12 @@ def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: A
                 p.unlink()
 
 
-def _apply(con: sqlite3.Connection, t: _Table, sub: Any, gone: np.ndarray, params: dict[str, Fill | list[tuple[Any, int]]],
-           new_fields: tuple[str, ...], changed: dict[str, np.ndarray], rows: np.ndarray, kept: np.ndarray,
+def _apply(con: sqlite3.Connection, t: _Table, sub: Any, plan: _Plan, new_fields: tuple[str, ...], rows: np.ndarray,
            fids: np.ndarray, extent: tuple[float, float, float, float] | None) -> Edited:
+    """Carry out ``plan`` in one transaction, the scratch file attached (``sub``: its rows, feature ids ``fids[rows]``)."""
     import shapely
 
+    gone, params, changed, kept = plan.gone, plan.params, plan.changed, plan.kept
     s = _table(con, "rows", "scratch")
     if s.srs_id != t.srs_id:
         raise NotInPlace(f"GDAL gave the rows coordinate system {s.srs_id}, the table has {t.srs_id}")
