@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import contextvars
 import ctypes
+import errno
 import os
 import re
 import shutil
@@ -422,6 +423,41 @@ def staged_writes() -> Iterator[None]:
             yield
         finally:
             pyogrio.set_gdal_config_options(before)
+
+
+def settled_copy(src: Path, dest: Path, *, times: bool = True) -> tuple[str, ...]:
+    """Copy the file ``src`` to ``dest`` (with its times and mode where ``times``, as ``shutil.copy2``; else its
+    bytes only); an SQLite database with its log files (``-wal``, ``-journal``), which are then settled into the
+    copy, so that it holds what a reader of ``src`` reads, in one file.
+
+    A GeoPackage open in a GIS keeps its latest committed edits in the ``-wal`` file until SQLite copies them
+    into the database (a checkpoint); a copy of the database file alone lacks them. The copy is opened with
+    Python's ``sqlite3``: a hot ``-journal`` is rolled back on the first read (as a reader would see the file),
+    and the write-ahead log is checkpointed into the database (``PRAGMA wal_checkpoint(TRUNCATE)``); the copy's
+    own log files are then gone. ``src`` and its log files are only read. Returns the log files settled into the
+    copy (none: the copy is ``src`` byte for byte).
+    """
+    (shutil.copy2 if times else shutil.copyfile)(src, dest)
+    state = sqlite_state(src)
+    if not state.is_sqlite or not state.sidecars:
+        return ()
+    import sqlite3
+
+    for suffix in state.sidecars:
+        shutil.copyfile(f"{src}{suffix}", f"{dest}{suffix}")
+    con = sqlite3.connect(str(dest))
+    try:
+        con.execute("PRAGMA schema_version").fetchone()  # the first read rolls a hot journal back
+        if "-wal" in state.sidecars:
+            busy, _, _ = con.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchone()
+            if busy:  # a copy only this run opens: not expected
+                raise OSError(errno.EBUSY, "its write-ahead log could not be copied into the database", str(src))
+    finally:
+        con.close()
+    for suffix in (*SIDECARS, "-shm"):  # emptied above; a journal left by journal_mode=PERSIST is not hot
+        if os.path.lexists(f"{dest}{suffix}"):
+            os.unlink(f"{dest}{suffix}")
+    return state.sidecars
 
 
 def sync_file(path: Path) -> None:

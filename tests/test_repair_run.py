@@ -213,6 +213,23 @@ def test_cli_refuses_an_output_inside_the_project_or_existing(tmp_path):
     assert res.exit_code == 2 and "unknown repair 'no-such-repair'" in res.output
 
 
+def test_the_copy_holds_the_edits_a_gis_left_in_the_write_ahead_log(tmp_path):
+    # a GIS still has map.gpkg open: polygon 4 recoded to Q sits in the -wal, not yet in the database file. The check
+    # reads it (vectorio's private copy); the repaired copy holds it too, in one file, and the project is only read
+    # (the copy took the database file alone, without the edit, where no repair touched the row)
+    from builders import folder_state, leave_in_wal
+
+    project = five(tmp_path)
+    leave_in_wal(project / "map.gpkg", "UPDATE units SET unit = 'Q' WHERE fid = 4")
+    before = folder_state(project)
+    result = repair(project, tmp_path / "out")
+    assert "4" not in {f for c in result.changes for f in c.features_before}  # a row no repair touched
+    units = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="units", fid_as_index=True)
+    assert units.loc[4, "unit"] == "Q"
+    assert not [p.name for p in (tmp_path / "out").iterdir() if p.name.endswith(("-wal", "-shm", "-journal"))]
+    assert folder_state(project) == before
+
+
 def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
     # units read from a list of files (a season's hand-in, which the manifest allows) would have each row go back
     # to its own file: refused with one line naming the layer and its files, exit 2, nothing written (it stopped as

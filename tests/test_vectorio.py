@@ -57,6 +57,23 @@ def test_builder_leaves_committed_frames_in_the_wal(tmp_path):
     assert wal_frames(root / "map.gpkg-wal") >= 1  # WAL frames (4.1)
 
 
+def test_a_settled_copy_holds_the_rows_of_the_wal_in_one_file(tmp_path):
+    # the committed frames of the -wal (WAL format, section 4.1) are in the copy's database file itself: read
+    # there without its log files, the copy has the renamed unit; the source and its log are only read
+    root = wal_project(tmp_path)
+    before = folder_state(root)
+    out = tmp_path / "copy"
+    out.mkdir()
+    vectorio.settled_copy(root / "map.gpkg", out / "map.gpkg")
+    assert sorted(p.name for p in out.iterdir()) == ["map.gpkg"]
+    assert sorted(pyogrio.read_dataframe(out / "map.gpkg", layer="units")["unit"]) == ["A", "Z"]
+    assert folder_state(root) == before
+    plain = tmp_path / "plain.csv"
+    plain.write_text("a,b\n1,2\n", encoding="utf-8")
+    vectorio.settled_copy(plain, out / "plain.csv")
+    assert (out / "plain.csv").read_bytes() == plain.read_bytes()
+
+
 def test_sqlite_state_reads_the_header_not_the_name(tmp_path):
     root = wal_project(tmp_path)
     renamed = root / "map.data"
@@ -188,8 +205,15 @@ def test_pack_changes_nothing_and_packs_the_wal_rows(tmp_path):
     assert result.exit_code in (0, 1), result.output
     _assert_untouched(before, folder_state(root))
     packaged = [p for p in out.rglob("map.gpkg") if "data" in p.parts]
-    assert packaged
-    assert "Z" in set(pyogrio.read_dataframe(packaged[0], layer="units")["unit"])
+    # the package's GeoPackage and its copy of the source file as handed in (data/source/), both with the rows
+    # of the -wal: the source copy held the database file alone, without them
+    assert sorted(p.parent.name for p in packaged) == ["data", "source"]
+    for path in packaged:
+        assert "Z" in set(pyogrio.read_dataframe(path, layer="units")["unit"]), path
+    assert not [p for p in out.rglob("*") if p.name.endswith(SIDECAR_NAMES)]
+    described = json.loads(next(out.rglob("datapackage.json")).read_text(encoding="utf-8"))["resources"]
+    (source,) = [r for r in described if r["path"] == "source/map.gpkg"]
+    assert "map.gpkg-wal" in source["description"] and "not byte for byte" in source["description"]
 
 
 def test_diff_changes_nothing_and_sees_the_wal_rows(tmp_path):

@@ -37,6 +37,7 @@ import pyproj
 
 from .. import engine
 from ..errors import ArchivistError
+from ..vectorio import settled_copy
 from ..fileset import dataset_files
 from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir, staging_file
 from ..interrupt import Interrupted, terminate_as_exception
@@ -477,6 +478,7 @@ def _write_payload(
         inputs = input_files(project)
         own_manifest = source_manifest(project, names)
         rewritten: dict[str, str] = {}
+        settled: dict[str, tuple[str, ...]] = {}  # inputs whose SQLite log files were settled into the copy
         for src, rel, _ in inputs:
             dest = data / "source" / stored_name(rel)
             dest.parent.mkdir(parents=True, exist_ok=True)
@@ -484,7 +486,9 @@ def _write_payload(
                 write_text(dest, own_manifest[0])
                 rewritten[rel] = own_manifest[1]
                 continue
-            shutil.copyfile(src, dest)
+            logs = settled_copy(src, dest, times=False)  # a GeoPackage with the edits its -wal holds, as read
+            if logs:
+                settled[rel] = logs
 
         # Photos and field-book scans: streamed into folders of their own, hashed on the way, with their link tables.
         packed_media = [pack_media(m, data, hashes, progress or Progress()) for m in project.media.values() if m.files]
@@ -537,7 +541,10 @@ def _write_payload(
         source_facts.append(FileFact(rel, digest, size, label))
         resources.append(dp.ResourceInfo(
             f"source/{stored_name(rel)}", _resource_name(f"source-{rel}", resources), f"{rel} (as handed in)",
-            f"Input file ({label}), {rewritten[rel]}." if rel in rewritten else f"Input file ({label}), byte for byte as it was in the project.",
+            f"Input file ({label}), {rewritten[rel]}." if rel in rewritten else
+            f"Input file ({label}), with the edits its SQLite log ({', '.join(rel + x for x in settled[rel])}) held settled into "
+            "it (a checkpoint), as the check read it; not byte for byte." if rel in settled else
+            f"Input file ({label}), byte for byte as it was in the project.",
         ))
     output_facts = []
     for info in resources:

@@ -305,8 +305,11 @@ def _place(root: Path, rel: str, tmp: Path, taken: dict[Path, str]) -> str:
     if src.is_dir():
         shutil.copytree(src, dest)
     else:
+        from ..vectorio import settled_copy
+
         for part in dataset_files(src) if src.exists() else []:  # a shapefile's .shx, .dbf, .prj... too
-            shutil.copy2(part, dest.parent / part.name)
+            # a GeoPackage with the edits its -wal holds (a GIS has it open), as the project was read
+            settled_copy(part, dest.parent / part.name)
     return new_rel
 
 
