@@ -136,9 +136,7 @@ class Reader:
         self.copies += 1
         dest = folder / path.name
         try:
-            shutil.copyfile(path, dest)
-            for suffix in state.sidecars:
-                shutil.copyfile(f"{path}{suffix}", f"{dest}{suffix}")
+            _copy_with_logs(path, dest, state.sidecars)
         except OSError as exc:
             raise VectorReadError(f"'{path.name}' could not be read ({exc.strerror or exc})") from None
         return dest
@@ -425,6 +423,13 @@ def staged_writes() -> Iterator[None]:
             pyogrio.set_gdal_config_options(before)
 
 
+def _copy_with_logs(src: Path, dest: Path, logs: tuple[str, ...], copy: Any = shutil.copyfile) -> None:
+    """Copy a database file and the log files ``logs`` (suffixes, :data:`SIDECARS`) beside it."""
+    copy(src, dest)
+    for suffix in logs:
+        shutil.copyfile(f"{src}{suffix}", f"{dest}{suffix}")
+
+
 def settled_copy(src: Path, dest: Path, *, times: bool = True) -> tuple[str, ...]:
     """Copy the file ``src`` to ``dest`` (with its times and mode where ``times``, as ``shutil.copy2``; else its
     bytes only); an SQLite database with its log files (``-wal``, ``-journal``), which are then settled into the
@@ -437,14 +442,12 @@ def settled_copy(src: Path, dest: Path, *, times: bool = True) -> tuple[str, ...
     own log files are then gone. ``src`` and its log files are only read. Returns the log files settled into the
     copy (none: the copy is ``src`` byte for byte).
     """
-    (shutil.copy2 if times else shutil.copyfile)(src, dest)
     state = sqlite_state(src)
+    _copy_with_logs(src, dest, state.sidecars if state.is_sqlite else (), shutil.copy2 if times else shutil.copyfile)
     if not state.is_sqlite or not state.sidecars:
         return ()
     import sqlite3
 
-    for suffix in state.sidecars:
-        shutil.copyfile(f"{src}{suffix}", f"{dest}{suffix}")
     con = sqlite3.connect(str(dest))
     try:
         con.execute("PRAGMA schema_version").fetchone()  # the first read rolls a hot journal back
