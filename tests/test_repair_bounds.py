@@ -190,13 +190,15 @@ def test_an_overlap_left_for_the_geologist_stays_as_listed_and_a_second_run_chan
     assert repair(tmp_path / "out", tmp_path / "again", only=only).changes == ()
 
 
-@pytest.mark.parametrize("seed", [9, 20])
+@pytest.mark.parametrize("seed", [5, 9, 20])
 def test_a_second_run_is_not_set_off_by_the_rounding_of_an_overlap_cut_out(tmp_path, seed):
-    # As above with GEOS's default round joins (8 segments a quarter circle) and every repair. In the copy the
-    # overlaps left are the only invalid edges (GEOS); cut out of their polygon for the validation, they left a
-    # spike some units in the last place off the neighbour's edge, so the second run cleaned the region again and
-    # rounded a neighbour's vertices (a change of no area and no shift). Now the region is asked as it is: every
-    # invalid edge lies on an overlap left, so there is nothing to clean
+    # As above with GEOS's default round joins (8 segments a quarter circle) and every repair. Seeds 9 and 20: in
+    # the copy the overlaps left are the only invalid edges (GEOS); cut out of their polygon for the validation,
+    # they left a spike some units in the last place off the neighbour's edge, so the second run cleaned the region
+    # again and rounded a neighbour's vertices (a change of no area and no shift). Now the region is asked as it
+    # is: every invalid edge lies on an overlap left, so there is nothing to clean. Seed 5: a misfit beside the
+    # overlap is cleaned again, and GEOS rounds the polygon between them by 10^-10 m without mending anything (its
+    # validation finds as many invalid edges either way): the polygon keeps its input
     smap = synthetic_map(25, seed=seed)
     g = np.asarray(smap.units.geometry.values, dtype=object).copy()
     grown = shapely.intersection(shapely.buffer(g[12], 0.5), smap.extent)
