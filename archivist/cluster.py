@@ -239,7 +239,11 @@ def open_executor(
                     processes=True,
                     memory_limit=limit,
                     dashboard_address=None,
-                    silence_logs=logging.ERROR,
+                    # the workers' own log: at ERROR it printed a worker's heartbeat that met the scheduler
+                    # already closing (distributed's "Failed to communicate with scheduler during heartbeat" and
+                    # its traceback) at the end of a good run; a failing task still reaches the client as its
+                    # exception, and a lost worker as distributed's KilledWorker
+                    silence_logs=logging.CRITICAL,
                     local_directory=scratch,
                 )
                 client = distributed.Client(cluster, set_as_default=False)
