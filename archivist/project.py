@@ -456,7 +456,7 @@ def share_text(frame: pd.DataFrame) -> pd.DataFrame:
 MEASURED_WARNING = "Measured (M) geometry types are not supported"
 
 
-def _sql_name(name: str) -> str:
+def sql_name(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
@@ -480,7 +480,7 @@ def _measured_features(path: Path, layer: str, rel: str, frame: gpd.GeoDataFrame
             flags = vectorio.read_dataframe(
                 path,
                 label=rel,
-                sql=f"SELECT ST_IsMeasured({_sql_name(column)}) AS m FROM {_sql_name(layer)}",
+                sql=f"SELECT ST_IsMeasured({sql_name(column)}) AS m FROM {sql_name(layer)}",
                 sql_dialect="SQLITE",
                 read_geometry=False,
             )

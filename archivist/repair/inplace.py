@@ -42,6 +42,8 @@ from typing import Any
 
 import numpy as np
 
+from ..project import sql_name as _q
+
 MULTI = {"MULTIPOINT", "MULTILINESTRING", "MULTIPOLYGON", "MULTICURVE", "MULTISURFACE", "GEOMETRYCOLLECTION"}
 SINGLE = {"POINT", "LINESTRING", "POLYGON"}
 
@@ -67,10 +69,6 @@ class Fill:
     value: Any
     fids: np.ndarray
     everywhere: bool
-
-
-def _q(name: str) -> str:
-    return '"' + name.replace('"', '""') + '"'
 
 
 @dataclass(frozen=True)
@@ -141,14 +139,11 @@ def _equal(x: Any, y: Any) -> bool:
 
 
 def _extent(geoms: np.ndarray) -> tuple[float, float, float, float] | None:
-    """The bounds of all the geometries together; None when none has any."""
+    """The bounds of all the geometries together (GEOS total bounds); None when none has any."""
     import shapely
 
-    box = shapely.bounds(geoms)
-    box = box[~np.isnan(box).any(axis=1)]
-    if not len(box):
-        return None
-    return float(box[:, 0].min()), float(box[:, 1].min()), float(box[:, 2].max()), float(box[:, 3].max())
+    box = shapely.total_bounds(geoms)
+    return None if np.isnan(box).any() else (float(box[0]), float(box[1]), float(box[2]), float(box[3]))
 
 
 def _value_sql(column: str, declared: str) -> str:
