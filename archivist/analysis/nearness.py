@@ -141,6 +141,118 @@ def clipped_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: flo
     return parts[keep], ti[k[keep]]
 
 
+def length_near(lines: np.ndarray, refs: np.ndarray, dist: float) -> np.ndarray:
+    """Per pair: the length of ``lines[k]`` lying within ``dist`` of ``refs[k]`` (linear geometries, pair by pair).
+
+    Measured segment by segment, on arrays: the points of a segment within
+    ``dist`` of a reference segment are one stretch of it (the region
+    within ``dist`` of a segment is convex: a rectangle with a half disc at
+    each end), found in closed form, and the stretches of a segment are
+    joined before they are added up. The references are first clipped to
+    the line's box (:func:`clipped_near`). This is what GEOS's buffer of
+    the reference followed by an intersection measures, without the buffer:
+    at a distance of 10^-12 of the coordinates (the rounding slack a repair
+    measures shared borders with) GEOS 3.14's buffer of a polygon's
+    boundary missed stretches of it. On a generated map of 10^5 polygons,
+    12 of the 8 525 borders between a gap and a polygon along it came out
+    more than 1 mm off (one 69 m long as 1.2e-5 m), and 9 gaps went to the
+    neighbour with the shorter border.
+    """
+    out = np.zeros(len(lines))
+    if not len(lines):
+        return out
+    parts, k = clipped_near(lines, np.arange(len(lines)), refs, dist)
+    line_parts, line_of = shapely.get_parts(lines, return_index=True)
+    sa, sb, si = segments(line_parts)
+    ta, tb, tp = segments(parts)
+    if not len(sa) or not len(ta):
+        return out
+    line_of = line_of[si]
+    # candidate pairs: a reference segment whose box comes within dist of the line segment's, of the same pair
+    tree = shapely.STRtree(shapely.linestrings(np.stack([ta, tb], axis=1)))
+    lo, hi = np.minimum(sa, sb) - dist, np.maximum(sa, sb) + dist
+    s, t = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
+    mine = line_of[s] == k[tp[t]]
+    s, t = s[mine], t[mine]
+    u0, u1 = _stretch_near(sa[s], sb[s], ta[t], tb[t], dist)
+    some = u1 > u0
+    s, u0, u1 = s[some], u0[some], u1[some]
+    # the stretches of each segment joined: sorted by segment then start, each counts from the farthest end of
+    # the segment's stretches before it
+    order = np.lexsort((u0, s))
+    s, u0, u1 = s[order], u0[order], u1[order]
+    reached = u1.copy()  # the farthest end so far within each segment: a prefix maximum in log2(stretches) steps
+    step = 1
+    while step < len(s):
+        same = s[step:] == s[:-step]
+        if not same.any():
+            break
+        reached[step:] = np.where(same, np.maximum(reached[step:], reached[:-step]), reached[step:])
+        step *= 2
+    first = np.r_[True, s[1:] != s[:-1]]
+    before = np.where(first, -np.inf, np.r_[-np.inf, reached[:-1]])
+    covered = np.maximum(u1 - np.maximum(u0, before), 0.0)
+    np.add.at(out, line_of[s], covered * np.hypot(*(sb - sa)[s].T))
+    return out
+
+
+def _stretch_near(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, r: float) -> tuple[np.ndarray, np.ndarray]:
+    """Per pair, the stretch [u0, u1] (as a share of segment a -> b, within [0, 1]) lying within ``r`` of segment
+    c -> d; u1 <= u0 where none does. The union of what lies in the rectangle along c -> d and in the discs around
+    c and d, each measured from the segment's own offsets (no squared distance of far points is differenced)."""
+    dv = b - a
+    dd = np.einsum("ij,ij->i", dv, dv)
+    lo = np.full(len(a), np.inf)
+    hi = np.full(len(a), -np.inf)
+
+    def disc(p: np.ndarray) -> None:
+        # the points of the line a + u dv within r of p: around the foot of p, half-width sqrt(r^2 - h^2)
+        w = p - a
+        ok = dd > 0
+        safe = np.where(ok, dd, 1.0)
+        uc = np.einsum("ij,ij->i", w, dv) / safe
+        h2 = (dv[:, 0] * w[:, 1] - dv[:, 1] * w[:, 0]) ** 2 / safe
+        half = np.sqrt(np.maximum(r * r - h2, 0.0) / safe)
+        hit = ok & (h2 <= r * r)
+        # a segment of no length: all of it or nothing
+        point = ~ok & (np.hypot(w[:, 0], w[:, 1]) <= r)
+        lo[:] = np.where(hit, np.minimum(lo, uc - half), np.where(point, np.minimum(lo, 0.0), lo))
+        hi[:] = np.where(hit, np.maximum(hi, uc + half), np.where(point, np.maximum(hi, 1.0), hi))
+
+    disc(c)
+    disc(d)
+    e = d - c
+    ee = np.einsum("ij,ij->i", e, e)
+    length = np.sqrt(ee)
+    w = a - c
+    # along c -> d: 0 <= (p - c).e <= |e|^2; across: |e x (p - c)| <= r |e|; both linear in u
+    f0, f1 = np.einsum("ij,ij->i", w, e), np.einsum("ij,ij->i", dv, e)
+    g0 = e[:, 0] * w[:, 1] - e[:, 1] * w[:, 0]
+    g1 = e[:, 0] * dv[:, 1] - e[:, 1] * dv[:, 0]
+    r0, r1 = _linear_between(f0, f1, 0.0, ee)
+    q0, q1 = _linear_between(g0, g1, -r * length, r * length)
+    s0, s1 = np.maximum(r0, q0), np.minimum(r1, q1)
+    band = (ee > 0) & (s1 >= s0)
+    lo[band] = np.minimum(lo[band], s0[band])
+    hi[band] = np.maximum(hi[band], s1[band])
+    return np.clip(lo, 0.0, 1.0), np.clip(hi, 0.0, 1.0)
+
+
+def _linear_between(v0: np.ndarray, v1: np.ndarray, low: float | np.ndarray, high: float | np.ndarray
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """The u with low <= v0 + u v1 <= high, as an interval (empty: start > end; every u: -inf, inf)."""
+    low = np.broadcast_to(low, v0.shape)
+    high = np.broadcast_to(high, v0.shape)
+    flat = v1 == 0
+    safe = np.where(flat, 1.0, v1)
+    x, y = (low - v0) / safe, (high - v0) / safe
+    start, end = np.minimum(x, y), np.maximum(x, y)
+    inside = (v0 >= low) & (v0 <= high)
+    start = np.where(flat, np.where(inside, -np.inf, np.inf), start)
+    end = np.where(flat, np.where(inside, np.inf, -np.inf), end)
+    return start, end
+
+
 def _buffer_distance(targets: np.ndarray, ti: np.ndarray, tol: float) -> float:
     """``tol``; with a zero tolerance, "on" means within floating-point noise of the reference (of the targets' size)."""
     if tol > 0 or not len(ti):

@@ -32,7 +32,7 @@ from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
-from ..analysis.nearness import dwithin_pairs
+from ..analysis.nearness import dwithin_pairs, length_near
 from ..analysis.polygons import polygonal
 from ..project import Layer
 from .model import FEATURE_ID, Change, Left, RepairSettings, RepairState
@@ -155,20 +155,12 @@ def _shift(before: np.ndarray, after: np.ndarray) -> np.ndarray:
     return out
 
 
-def _border(piece: np.ndarray, other: np.ndarray, eps: float, near: np.ndarray | None = None) -> np.ndarray:
-    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``).
-
-    ``near``: :func:`_rims` of ``other`` when already made."""
+def _border(piece: np.ndarray, other: np.ndarray, eps: float) -> np.ndarray:
+    """Length of the boundary of each ``piece`` that runs along the boundary of ``other`` (to within ``eps``,
+    :func:`archivist.analysis.nearness.length_near`)."""
     if not len(piece):
         return np.zeros(0)
-    if near is None:
-        near = _rims(other, eps)
-    return shapely.length(shapely.intersection(shapely.boundary(piece), near))
-
-
-def _rims(polys: np.ndarray, eps: float) -> np.ndarray:
-    """The boundary of each polygon widened by ``eps`` (GEOS buffer, flat caps), as :func:`_border` measures along it."""
-    return shapely.buffer(shapely.boundary(polys), eps, cap_style="flat")
+    return length_near(shapely.boundary(piece), shapely.boundary(other), eps)
 
 
 def _age_rank(state: RepairState, codes: np.ndarray) -> np.ndarray:
@@ -185,11 +177,8 @@ def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.n
             geoms: np.ndarray, codes: np.ndarray, eps: float) -> tuple[np.ndarray, list[str]]:
     """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why."""
     # the piece's border with what is left of a runs along b's boundary, and the reverse
-    # each polygon's rim made once: a polygon grown over its neighbours is one side of every overlap it makes
-    rows, inv = np.unique(np.r_[a, b], return_inverse=True)
-    rim = _rims(geoms[rows], eps)[inv]
-    with_a = _border(pieces, geoms[b], eps, rim[len(a):])
-    with_b = _border(pieces, geoms[a], eps, rim[:len(a)])
+    with_a = _border(pieces, geoms[b], eps)
+    with_b = _border(pieces, geoms[a], eps)
     longest = with_a >= with_b
     notes = ["longest border"] * len(a)
     if settings.overlap == "larger":
@@ -445,22 +434,32 @@ def fill_gaps(state: RepairState, settings: RepairSettings) -> tuple[list[Change
     reach = settings.gap_width  # not the admission slack: a buffer of it already reaches the bound, to within rounding
     floor = noise_floor(_scale(geoms))  # the differences that cut the gap leave rounding slivers: never a part left
     pieces: list[tuple[int, Any, int]] = []  # (polygon, piece, gap)
-    for g in np.unique(gi):  # one per gap filled
-        nbrs = ui[gi == g]
+    filled, start, count = np.unique(gi, return_index=True, return_counts=True)
+    # the neighbour with the longest border along the whole gap takes what is within reach of it (all such gaps
+    # at once); each part of the rest then goes by the same rule on its own (the neighbour with the longest
+    # border along that part): ranked by the whole gap instead, a neighbour the part merely touches at its end
+    # would take a thin part lying along another one, a spike that snapping then folds away further than the
+    # snapping distance.
+    # Within twice the gap's own width (and the gap width): the strip a polygon lost lies within that of it,
+    # while a branch of the gap running on between two other polygons (their edges misfit) reaches farther;
+    # taken as far as the gap width, its end became a spike on the first polygon, which snapping then folded
+    # away further than the snapping distance (1.001 m at a 1 m tolerance on a generated map)
+    widths = np.array([fill[g].width for g in filled.tolist()])
+    several = count > 1
+    first_taken = np.full(len(filled), None, dtype=object)
+    first_rest = np.full(len(filled), None, dtype=object)
+    if several.any():
+        first_taken[several], first_rest[several] = _take_many(gaps[filled[several]], ui[start[several]], geoms,
+                                                                np.minimum(reach, 2.0 * widths[several]), eps)
+    for j, g in enumerate(filled.tolist()):  # one per gap filled
+        nbrs = ui[start[j]:start[j] + count[j]]
         if len(nbrs) == 1:
-            pieces.append((int(nbrs[0]), gaps[g], int(g)))
+            pieces.append((int(nbrs[0]), gaps[g], g))
             continue
-        # the neighbour with the longest border along the whole gap takes what is within reach of it; each part of
-        # the rest then goes by the same rule on its own (the neighbour with the longest border along that part):
-        # ranked by the whole gap instead, a neighbour the part merely touches at its end would take a thin part
-        # lying along another one, a spike that snapping then folds away further than the snapping distance
-        first = int(nbrs[0])
-        # within twice the gap's own width (and the gap width): the strip a polygon lost lies within that of it,
-        # while a branch of the gap running on between two other polygons (their edges misfit) reaches farther;
-        # taken as far as the gap width, its end became a spike on the first polygon, which snapping then folded
-        # away further than the snapping distance (1.001 m at a 1 m tolerance on a generated map)
-        near = min(reach, 2.0 * fill[g].width)
-        rest = _take(gaps[g], first, geoms, near, eps, pieces, int(g))
+        near = min(reach, 2.0 * widths[j])
+        if first_taken[j] is not None:
+            pieces.append((int(nbrs[0]), first_taken[j], g))
+        rest = first_rest[j]
         unreached = []
         others = nbrs[1:]
         for part in _parts(rest).tolist():  # one per piece of a gap the first neighbour does not reach
@@ -520,21 +519,53 @@ def _parts(geom: Any) -> np.ndarray:
 
 def _take(rest: Any, n: int, geoms: np.ndarray, reach: float, eps: float, pieces: list[tuple[int, Any, int]], g: int) -> Any:
     """Give polygon ``n`` the parts of ``rest`` within ``reach`` of it that run along it (appended to ``pieces``); what remains."""
+    taken, remain = _take_many(np.array([rest], dtype=object), np.array([n]), geoms, np.array([reach]), eps)
+    if taken[0] is not None:
+        pieces.append((n, taken[0], g))
+    return remain[0]
+
+
+def _take_many(rest: np.ndarray, n: np.ndarray, geoms: np.ndarray, reach: np.ndarray, eps: float
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Per row, what polygon ``n[i]`` takes of ``rest[i]``: the parts within ``reach[i]`` of it that run along it
+    (None where none does), and what remains (``rest[i]`` itself where it takes nothing)."""
     within = shapely.buffer(geoms[n], reach, quad_segs=4)
-    near = _parts(shapely.intersection(rest, within))
+    near, row = shapely.get_parts(shapely.intersection(rest, within), return_index=True)
+    some = shapely.area(near) > 0
+    near, row = near[some], row[some]
     # only the parts that run along the polygon: a part that merely comes within reach of it (a corner, a
     # wedge past its end) would hang off it by a point and is left for a neighbour it runs along
-    along = _border(near, np.full(len(near), geoms[n], dtype=object), eps) > 4 * eps
-    if not along.any():
-        return rest
-    part = shapely.union_all(near[along])
-    pieces.append((n, part, g))
+    along = _border(near, geoms[n[row]], eps) > 4 * eps
+    taken = np.full(len(rest), None, dtype=object)
+    remain = np.array(rest, dtype=object, copy=True)
+    rows = np.unique(row[along])
+    if not len(rows):
+        return taken, remain
+    taken[rows] = _union_rows(near[along], row[along], rows)
     # what remains is what lies beyond the reach, cut by the same overlay as the part taken (and the parts not
     # taken): the gap less the part taken left hair-thin slivers along the neighbours' edges where the overlay
     # noded the two cuts apart (50 m long, 1e-6 m wide, on a generated map), and a neighbour given one gained a
     # spike that snapping then folded away by more than the snapping distance
-    beyond = shapely.difference(rest, within)
-    return beyond if along.all() else shapely.union_all(np.r_[[beyond], near[~along]])
+    beyond = shapely.difference(rest[rows], within[rows])
+    remain[rows] = beyond
+    mixed = np.intersect1d(rows, row[~along])
+    if len(mixed):
+        at = np.searchsorted(rows, mixed)
+        keep = np.isin(row, mixed) & ~along
+        remain[mixed] = _union_rows(np.r_[beyond[at], near[keep]], np.r_[mixed, row[keep]], mixed)
+    return taken, remain
+
+
+def _union_rows(geoms: np.ndarray, row: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Per row of ``rows`` (sorted), the union of the ``geoms`` labelled with it, in their order (GEOS, one
+    unary union per row, as ``shapely.union_all`` of that row's geometries)."""
+    order = np.argsort(row, kind="stable")
+    row = row[order]
+    slot = np.searchsorted(rows, row)
+    pos = np.arange(len(row)) - np.searchsorted(row, row)  # place within its row
+    grid = np.full((len(rows), int(pos.max()) + 1), None, dtype=object)
+    grid[slot, pos] = geoms[order]
+    return shapely.union_all(grid, axis=1)
 
 
 # ---------------------------------------------------------------- snapping
