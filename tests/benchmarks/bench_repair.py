@@ -19,7 +19,9 @@ contact (same-unit neighbours). One process then times, side by side:
 * ratio: repair / check (target <= 3 at 10^5 polygons).
 
 It also reports the findings of the repaired kinds before and after, the
-changes per repair and whether GEOS finds the copy a valid coverage.
+changes per repair, whether GEOS finds the copy a valid coverage, and how
+``archivist diff`` of the project and the copy agrees with the change log
+(:func:`diff_agreement`, after the timings).
 
 Every injected defect is one a repair may make: a polygon grown by half
 the tolerance along a long border with one neighbour makes an overlap
@@ -130,6 +132,62 @@ def inject(smap, density: float, seed: int = 1):
                                                                        "passed_over": int((largest > SAFE * overlap_limit(smap)).sum())}
 
 
+def diff_agreement(project: Path, out: Path, changes, tol: float) -> dict:
+    """``archivist diff`` of the project and its repaired copy against the change log, feature by feature.
+
+    * unexplained: changes of units or lines diff lists that name no feature
+      of a logged change (the lines' new ``generated`` column aside);
+    * visible: logged changes diff can see (a feature removed or added, an
+      overlap or gap moving a boundary further than the tolerance, beyond
+      rounding (a gap of exactly the gap width moves its polygon by it, to
+      within 1e-9 m); snapping moves nothing further, so diff's tolerance
+      hides it), and how many of
+      them name no feature of a diff change; of those, how many are lines
+      with no more than twice the tolerance of their length farther than the
+      tolerance from the other map's lines of their kind
+      (``archivist.analysis.nearness.length_near``), which diff counts as
+      the same linework split or joined at a node, not as a change (a short
+      contact between two junctions, removed where two polygons of one unit
+      were dissolved).
+    """
+    import pyogrio
+
+    from archivist.analysis.nearness import length_near
+    from archivist.diff import diff
+
+    report = diff(project, out)
+    logged = {(("units" if c.layer == "units" else "lines"), f) for c in changes for f in (*c.features_before, *c.features_after)}
+    named = {(c.layer, f) for c in report.changes for f in (*c.old_features, *c.new_features)}
+    mine = [c for c in report.changes if c.layer in ("units", "lines") and c.change != "column-added"]
+    unexplained = [c for c in mine if not any((c.layer, f) in logged for f in (*c.old_features, *c.new_features))]
+    visible = [c for c in changes
+               if set(c.features_before) ^ set(c.features_after)
+               or (c.layer == "units" and c.repair in ("resolve-overlaps", "fill-gaps") and c.max_shift > tol * (1 + 1e-6))]
+    unseen = [c for c in visible
+              if not any(("units" if c.layer == "units" else "lines", f) in named for f in (*c.features_before, *c.features_after))]
+    sides = {side: pyogrio.read_dataframe(folder / "map.gpkg", layer="lines", fid_as_index=True) for side, folder in
+             (("old", project), ("new", out))}
+
+    def within(line, side: str, kind: str) -> bool:
+        other = sides[side]
+        other = other[other["kind"] == kind].geometry.values
+        near = other[shapely.STRtree(other).query(line, predicate="dwithin", distance=tol)]
+        off = line.length - length_near(np.array([line]), np.array([shapely.multilinestrings(shapely.get_parts(near))]), tol)[0]
+        return bool(off <= 2 * tol)
+
+    renoded = 0
+    for c in unseen:
+        if c.layer == "units":
+            continue
+        gone = not c.features_after
+        fid = int((c.features_before if gone else c.features_after)[0])
+        frame = sides["old" if gone else "new"]
+        line = frame.loc[fid].geometry
+        renoded += within(line, "new" if gone else "old", frame.loc[fid]["kind"])
+    return {"diff_changes": len(mine), "unexplained": len(unexplained), "visible": len(visible), "unseen": len(unseen),
+            "unseen_within_tolerance": renoded}
+
+
 def run(size: int, density: float, keep: Path | None) -> dict:
     from archivist import check
     from archivist.project import load_project
@@ -157,13 +215,14 @@ def run(size: int, density: float, keep: Path | None) -> dict:
         import pyogrio
 
         units = pyogrio.read_dataframe(tmp / "out" / "map.gpkg", layer="units")
+        agreement = diff_agreement(project, tmp / "out", result.changes, settings.tolerance)
         before = {k: sum(1 for f in report.findings if f.rule == k) for k in KINDS}
         after = {k: result.after.get(k, 0) for k in KINDS}
         out = {"polygons": size, "defects_per_kind": made["per_kind"], "grown": made["grown"],
                "grow_passed_over": made["passed_over"], "check_s": round(t_check, 2),
                "repairs_s": round(t_repairs, 2), "repair_s": round(t_repair, 2), "ratio": round(t_repair / t_check, 2),
                "before": before, "after": after, "changes": result.per_repair(), "left": len(result.left),
-               "coverage_valid": bool(shapely.coverage_is_valid(units.geometry.values))}
+               "coverage_valid": bool(shapely.coverage_is_valid(units.geometry.values)), "diff": agreement}
         if keep is not None:
             shutil.copytree(tmp, keep / f"repair-{size}", dirs_exist_ok=True)
         return out
