@@ -423,3 +423,58 @@ def test_a_generated_line_carries_the_id_the_log_gives_it_in_the_layers_id_field
     assert stored.dtype.kind == ("i" if isinstance(ids[0], int) else "O")
     found = [c for c in diff(project, tmp_path / "out").changes if c.change == "line-added"]
     assert [c.features for c in found] == [added.features_after]
+
+
+def _moved_boundary_state(project: Path, x: float):
+    """The working copy of ``project`` as if the polygon repairs had moved A and B's common edge to ``x``."""
+    from archivist.repair.api import make_state, settings_for
+
+    proj = load_project(project)
+    state = make_state(proj)
+    geoms = np.asarray(state.units.geometry.values, dtype=object).copy()
+    geoms[0], geoms[1] = box(0, 0, x, 100), box(x, 0, 200, 100)
+    state.units = state.units.set_geometry(list(geoms), crs=state.units.crs)
+    return state, settings_for(proj)
+
+
+@pytest.mark.parametrize("x, follows", [(101.5, True), (102.5, False)])
+def test_a_contact_on_a_boundary_the_polygon_repairs_moved_follows_it_within_twice_the_tolerance(tmp_path, x, follows):
+    # The contact lies on A and B's common edge x = 100 as drawn (tolerance 1 m). The polygon repairs moved that
+    # edge to x = 101.5 (two repairs within their bounds can move it up to 2 m): its middle vertex (100, 50) is
+    # 1.5 m from every boundary, and within the tolerance it would stay there, a line-off-boundary the map did not
+    # have. It follows the edge, by hand: (100, 0) to the boundary vertex (101.5, 0), (100, 50) to the nearest point
+    # (101.5, 50), (100, 100) to (101.5, 100), 1.5 m each. Moved to x = 102.5 (beyond twice the tolerance) it stays.
+    # The frame has no vertex where the contact meets it (at a shared vertex the junction holds the contact's end).
+    from archivist.repair.lines import snap_lines
+
+    frame = LineString([(0, 0), (0, 100), (200, 100), (200, 0), (0, 0)])
+    project = project_with(tmp_path, ("contact", LineString([(100, 0), (100, 50), (100, 100)])), ("map-boundary", frame))
+    state, settings = _moved_boundary_state(project, x)
+    changes, left = snap_lines(state, settings)
+    contact = state.lines.geometry.iloc[0]
+    if not follows:
+        assert [c for c in changes if c.features_before == ("1",)] == []
+        assert shapely.get_coordinates(contact).tolist() == [[100, 0], [100, 50], [100, 100]]
+        return
+    assert shapely.get_coordinates(single(contact)).tolist() == [[101.5, 0], [101.5, 50], [101.5, 100]]
+    (change,) = [c for c in changes if c.features_before == ("1",)]
+    assert change.max_shift == pytest.approx(1.5, abs=1e-9)
+    assert float(shapely.hausdorff_distance(change.before, change.after)) == pytest.approx(1.5, abs=1e-9)  # GEOS
+    assert "moved more than 1 from it" in change.note
+
+
+def test_a_contact_drawn_off_its_boundary_does_not_follow_a_boundary_the_repairs_moved(tmp_path):
+    # Drawn at x = 98.5, 1.5 m west of the common edge x = 100 (a line-off-boundary before any repair): the
+    # repairs moving the edge to x = 99.5 bring it within 1 m, so it is snapped as any contact within the
+    # tolerance; moved to x = 101 (2.5 m away) it stays where it was drawn: only a contact drawn on a boundary
+    # follows it
+    from archivist.repair.lines import snap_lines
+
+    line = LineString([(98.5, 0), (98.5, 50), (98.5, 100)])
+    for x, moved in ((99.5, True), (101.0, False)):
+        project = project_with(tmp_path / str(x), ("contact", line), ("map-boundary", FRAME))
+        state, settings = _moved_boundary_state(project, x)
+        changes, _ = snap_lines(state, settings)
+        mine = [c for c in changes if c.features_before == ("1",)]
+        assert bool(mine) is moved
+        assert all("polygon repairs moved" not in c.note for c in mine)
