@@ -916,12 +916,12 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
                         distance: float) -> bool:
     """True when every edge GEOS's validation finds invalid among the polygons of ``region`` (a mask; gaps as narrow
     as ``distance``) lies on the boundary of one of the overlaps left for the geologist (``pieces``), to within
-    ``NEAR_LEFT`` of the coordinates' size (GEOS buffers a line by the noise floor into nothing): nothing but those
-    overlaps is left to clean. The polygons around the misfit ``seeds`` are asked first (a real misfit there
-    answers at once), then the whole region."""
+    ``NEAR_LEFT`` of the coordinates' size (measured on arrays, :func:`archivist.analysis.nearness.length_near`:
+    GEOS's buffer at that distance misses stretches): nothing but those overlaps is left to clean. The polygons
+    around the misfit ``seeds`` are asked first (a real misfit there answers at once), then the whole region."""
     eps = NEAR_LEFT * _scale(geoms)
     try:
-        explained = shapely.buffer(shapely.union_all(shapely.boundary(np.array(pieces, dtype=object))), eps)
+        edges = shapely.union_all(shapely.boundary(np.array(pieces, dtype=object)))
     except GEOSException:
         return False
 
@@ -931,10 +931,11 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
             invalid = invalid[~shapely.is_missing(invalid) & ~shapely.is_empty(invalid)]
             if not len(invalid):
                 return False
-            rest = shapely.difference(shapely.union_all(invalid), explained)
+            union = shapely.union_all(invalid)
         except GEOSException:  # GEOS cannot tell: cleaned as before
             return True
-        return float(shapely.length(rest)) > eps  # bits of edge at the overlap's corners, cut in rounding
+        off = float(shapely.length(union)) - float(length_near(np.array([union]), np.array([edges]), eps)[0])
+        return off > eps  # bits of edge at the overlap's corners, cut in rounding
 
     if len(seeds) and unexplained(np.flatnonzero(near.of(seeds))):
         return False
@@ -942,8 +943,7 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
 
 
 # How near an overlap left for the geologist an invalid edge counts as its edge, relative to the coordinates'
-# size: some 4 500 units in the last place (6.5 µm at 6.5 x 10^6 m), so that GEOS buffers by it robustly (our
-# own choice)
+# size: some 4 500 units in the last place (6.5 µm at 6.5 x 10^6 m; our own choice)
 NEAR_LEFT = 1e-12
 SEEDS = 8  # misfit polygons whose edges are validated first, with the polygons around them (see _surely_invalid)
 
