@@ -236,8 +236,9 @@ def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: A
             if c not in t.columns and c.lower() in {k.lower() for k in t.columns}:
                 raise NotInPlace(f"the working copy's field '{c}' differs from the table's only in case")
         rows = np.flatnonzero(plan.encoded)
+        geoms = np.asarray(frame.geometry.values, dtype=object)
         if t.geometry_type in SINGLE and len(rows):
-            kinds = shapely.get_type_id(np.asarray(frame.geometry.values, dtype=object)[rows])
+            kinds = shapely.get_type_id(geoms[rows])
             if np.any((kinds >= 4) & (kinds <= 7)):
                 raise NotInPlace(f"a repaired feature has several parts and the table holds {t.geometry_type}s")
         sub = frame.iloc[rows].copy()
@@ -249,7 +250,7 @@ def edit_table(path: Path, table: str, frame: Any, fids: np.ndarray, original: A
                                 layer_options={"SPATIAL_INDEX": "NO"})
         con.execute("ATTACH DATABASE ? AS scratch", (str(scratch),))
         try:
-            return _apply(con, t, sub, plan, new_fields, rows, fids, _extent(np.asarray(frame.geometry.values, dtype=object)))
+            return _apply(con, t, sub, plan, new_fields, rows, fids, _extent(geoms))
         finally:
             con.execute("DETACH DATABASE scratch")
     except sqlite3.Error as exc:
