@@ -29,6 +29,11 @@ _M2 = np.uint64(0xC4CEB9FE1A85EC53)
 _S33 = np.uint64(33)
 
 
+def present(geoms: np.ndarray) -> np.ndarray:
+    """Mask of the geometries that are there (not missing) and not empty."""
+    return ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+
+
 def _fmix(h: np.ndarray) -> np.ndarray:
     h ^= h >> _S33
     h *= _M1

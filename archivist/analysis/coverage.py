@@ -58,6 +58,7 @@ from .arrays import (
     coord_hash,
     linear_parts,
     polygonal_parts,
+    present,
     segment_lines,
     segments,
     widths,
@@ -635,7 +636,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
             failures.append(Failure(tuple(int(u) for u in region[members]), "validating them as a coverage",
                                     frozenset((MISFITS,)), why))
             unchecked = np.union1d(unchecked, region[members])
-        bad = ~shapely.is_missing(inv) & ~shapely.is_empty(inv)
+        bad = present(inv)
         implicated = region[bad]
         invalid = dict(zip(implicated.tolist(), inv[bad]))
     # 3. overlaps. When GEOS finds nothing invalid and no segment is drawn twice on one side,

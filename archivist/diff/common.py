@@ -17,6 +17,7 @@ import pandas as pd
 import pyproj
 import shapely
 
+from ..analysis.arrays import present
 from ..analysis.localframe import LocalFrame, frame_for
 from ..project import Layer, MapProject, crs_label
 from ..readers import text_column
@@ -142,11 +143,6 @@ def column_changes(role: str, old: pd.DataFrame, new: pd.DataFrame, x: float | N
 
 
 # ------------------------------------------------------------------ arrays
-
-def present(geoms: np.ndarray) -> np.ndarray:
-    """Mask of the geometries that are there and not empty."""
-    return ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-
 
 def valid(geoms: np.ndarray) -> np.ndarray:
     """A copy with the invalid geometries made valid (GEOS make_valid)."""

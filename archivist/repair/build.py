@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 import shapely
 
+from ..analysis.arrays import present
 from ..errors import ArchivistError
 from ..project import Layer
 from .model import FEATURE_ID, Change, Left
@@ -75,7 +76,7 @@ def build_units(lines: np.ndarray, frame: Any, label_points: np.ndarray, label_c
     name one unit (empty codes ignored); otherwise it gets ``""``.
     """
     geoms = np.asarray(lines, dtype=object)
-    geoms = geoms[~shapely.is_missing(geoms) & ~shapely.is_empty(geoms)]
+    geoms = geoms[present(geoms)]
     if frame is not None and not shapely.is_empty(frame):
         geoms = np.append(geoms, shapely.boundary(frame))
     empty = np.empty(0, dtype=object)
@@ -89,7 +90,7 @@ def build_units(lines: np.ndarray, frame: Any, label_points: np.ndarray, label_c
         polys = polys[np.lexsort((rep[:, 0], rep[:, 1]))]
     points = np.asarray(label_points, dtype=object)
     label_codes = np.asarray(label_codes, dtype=object)
-    have = np.flatnonzero(~shapely.is_missing(points) & ~shapely.is_empty(points))
+    have = np.flatnonzero(present(points))
     li, pi = shapely.STRtree(polys).query(points[have], predicate="within") if len(polys) and len(have) else (empty, empty)
     li = have[np.asarray(li, dtype=np.int64)]
     pi = np.asarray(pi, dtype=np.int64)

@@ -27,7 +27,7 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import coord_hash, group_sorted, segments, spans
+from ..analysis.arrays import coord_hash, group_sorted, present, segments, spans
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -95,8 +95,8 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     changed = np.zeros(n, dtype=bool)
     held = np.zeros(n, dtype=bool)
     targets = np.asarray(targets, dtype=object)
-    targets = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
-    have = np.flatnonzero(~shapely.is_missing(lines) & ~shapely.is_empty(lines))
+    targets = _kept(targets)
+    have = np.flatnonzero(present(lines))
     if not len(have) or not len(targets) or tol <= 0:
         return Snapped(out, shift, changed, held)
     eps = noise(np.concatenate([lines[have], targets]))
@@ -221,6 +221,12 @@ class _Targets:
             xy = xy[order[starts]]
             self._index = (shapely.STRtree(shapely.points(xy)), xy)
         return self._index
+
+
+def _kept(targets: np.ndarray) -> np.ndarray:
+    """The targets a snap keeps: those neither missing nor empty. Whatever reads a snap's cache of its targets
+    (:func:`_targets`) filters them here, so that the cached index is of the same targets."""
+    return targets[present(targets)]
 
 
 def _targets(targets: np.ndarray, cache: dict[str, Any] | None = None) -> _Targets:
@@ -697,7 +703,7 @@ def _following(state: RepairState, net: LineNetwork, contacts: np.ndarray, bound
     """
     none = np.zeros(0, dtype=np.int64)
     layer = state.project.layers.get("units")
-    valid = boundaries[~shapely.is_missing(boundaries) & ~shapely.is_empty(boundaries)]  # as the snap keeps them
+    valid = _kept(boundaries)
     if layer is None or not len(contacts) or not len(valid) or tol <= 0:
         return none
     index = _targets(valid, cache)
@@ -716,7 +722,7 @@ def _following(state: RepairState, net: LineNetwork, contacts: np.ndarray, bound
         return none
     # each vertex within tol of the boundaries as read (the units the check read, near these lines only)
     before = np.asarray(layer.frame.geometry.values, dtype=object)
-    before = before[~shapely.is_missing(before) & ~shapely.is_empty(before)]
+    before = before[present(before)]
     near = before[np.unique(shapely.STRtree(before).query(net.geoms[cand], predicate="dwithin", distance=tol)[1])]
     if not len(near):
         return none
@@ -837,7 +843,7 @@ def _on_targets(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, float
     out = np.zeros(len(net.geoms), dtype=bool)
     vertex_part = np.repeat(np.arange(net.n_parts), np.diff(net.part_off))
     for (feats, targets, _), cache in zip(plan, caches):
-        valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]  # as snap_to_boundaries keeps them
+        valid = _kept(targets)
         if not len(valid):
             continue
         mine = np.flatnonzero(np.isin(net.part_feat, feats)[vertex_part])  # the vertices of the group's parts
@@ -1057,8 +1063,7 @@ def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any]
     ``cache`` (of :func:`snap_to_boundaries`, for the same ``targets``) lends
     its index of the targets.
     """
-    valid = targets[~shapely.is_missing(targets) & ~shapely.is_empty(targets)]
-    # over the same targets as snap_to_boundaries's, missing and empty ones left out in the same way
+    valid = _kept(targets)
     index = _targets(valid, cache)
     xy, li = shapely.get_coordinates(lines, return_index=True)
     reach = np.zeros(len(lines))
