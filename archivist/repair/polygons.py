@@ -27,7 +27,7 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..analysis.alignment import Alignment
-from ..analysis.arrays import spans, widths
+from ..analysis.arrays import present, segment_lines, segments, spans, widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
@@ -619,7 +619,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     hold = np.zeros(len(geoms), dtype=bool)
     if len(ctx.edges().suspects) == 0:
         return [], []  # every edge drawn twice, once each way: nothing to snap (the half-edge table proves it)
-    usable = ~shapely.is_missing(geoms) & ~shapely.is_empty(geoms) & np.isin(np.arange(len(geoms)), units.rows)
+    usable = present(geoms) & np.isin(np.arange(len(geoms)), units.rows)
     # the first cleaning: the polygons owning an edge without its twin (the half-edge table's suspects: every
     # misfit, overlap and gap has one) and those within the snapping distance of such an edge; a polygon whose edges
     # all have their twin fits its neighbours already, as does the stretch of a polygon's boundary farther than the
@@ -915,10 +915,23 @@ def _rounding_only(near: "_Near", geoms: np.ndarray, current: np.ndarray, change
 def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, seeds: np.ndarray, pieces: list[Any],
                         distance: float) -> bool:
     """True when every edge GEOS's validation finds invalid among the polygons of ``region`` (a mask; gaps as narrow
-    as ``distance``) lies on the boundary of one of the overlaps left for the geologist (``pieces``), to within
-    ``NEAR_LEFT`` of the coordinates' size (measured on arrays, :func:`archivist.analysis.nearness.length_near`:
-    GEOS's buffer at that distance misses stretches): nothing but those overlaps is left to clean. The polygons
-    around the misfit ``seeds`` are asked first (a real misfit there answers at once), then the whole region."""
+    as ``distance``) is explained by the overlaps left for the geologist (``pieces``): nothing else is left to clean.
+    The polygons around the misfit ``seeds`` are asked first (a real misfit there answers at once), then the whole
+    region.
+
+    An invalid edge is explained segment by segment. GEOS flags a whole
+    segment, so a segment of a polygon running along an overlap's boundary
+    and on past its corner (where the other polygon's boundary crosses it
+    between two of its vertices) is flagged beyond the corner too, though
+    what lies past the corner may fit its neighbour exactly: such a segment
+    is explained when a stretch of it longer than ``ALONG_LEFT`` of the
+    snapping distance lies along an overlap's boundary. Any other segment is
+    explained only as far as it lies along one, and what is left of all of
+    them must be no longer than ``NEAR_LEFT`` of the coordinates' size.
+    "Along" is to within that same ``NEAR_LEFT``, measured on arrays
+    (:func:`archivist.analysis.nearness.length_near`: GEOS's buffer at that
+    distance misses stretches).
+    """
     eps = NEAR_LEFT * _scale(geoms)
     try:
         edges = shapely.union_all(shapely.boundary(np.array(pieces, dtype=object)))
@@ -928,14 +941,17 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
     def unexplained(rows: np.ndarray) -> bool:
         try:
             invalid = shapely.coverage_invalid_edges(geoms[rows], gap_width=distance)
-            invalid = invalid[~shapely.is_missing(invalid) & ~shapely.is_empty(invalid)]
+            invalid = invalid[present(invalid)]
             if not len(invalid):
                 return False
-            union = shapely.union_all(invalid)
+            parts = shapely.get_parts(invalid)  # each polygon's own segments, as GEOS flags them (not noded)
         except GEOSException:  # GEOS cannot tell: cleaned as before
             return True
-        off = float(shapely.length(union)) - float(length_near(np.array([union]), np.array([edges]), eps)[0])
-        return off > eps  # bits of edge at the overlap's corners, cut in rounding
+        a, b, _ = segments(parts)
+        lines = segment_lines(a[:, 0], a[:, 1], b[:, 0], b[:, 1])
+        along = length_near(lines, np.full(len(lines), edges, dtype=object), eps)
+        off = shapely.length(lines) - along
+        return float(off[along <= ALONG_LEFT * distance].sum()) > eps  # bits of edge at the overlap's corners, cut in rounding
 
     if len(seeds) and unexplained(np.flatnonzero(near.of(seeds))):
         return False
@@ -945,6 +961,10 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
 # How near an overlap left for the geologist an invalid edge counts as its edge, relative to the coordinates'
 # size: some 4 500 units in the last place (6.5 µm at 6.5 x 10^6 m; our own choice)
 NEAR_LEFT = 1e-12
+# How long a stretch of an invalid segment along an overlap left for the geologist makes GEOS flag it whole, relative
+# to the snapping distance (1 mm at 1 m; our own choice: a segment merely crossing the overlap's boundary at its
+# corner lies within NEAR_LEFT of it for far less, unless it meets it at less than a degree)
+ALONG_LEFT = 1e-3
 SEEDS = 8  # misfit polygons whose edges are validated first, with the polygons around them (see _surely_invalid)
 
 
