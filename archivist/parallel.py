@@ -356,6 +356,60 @@ class ForkPool(Executor):
                 pool.shutdown(wait=True)
 
 
+class Aside:
+    """``fn(*args)`` run in one process forked from this one, while this one goes on with other work.
+
+    The process finds ``fn`` and its arguments in the memory it inherited
+    (nothing is pickled on the way out; the result comes back pickled), so
+    it suits a task over large objects already in memory, such as writing a
+    file from them. Where the system does not fork, the forked process dies,
+    or ``fork`` is false (a task too small to be worth a process), the task
+    runs here when :meth:`result` asks for it. Used as a
+    context manager: leaving it on an error or a Ctrl-C ends the process.
+    """
+
+    def __init__(self, fn: Any, *args: Any, fork: bool = True) -> None:
+        import multiprocessing
+
+        self._task = (fn, args)
+        self._pool: ForkPool | None = None
+        self._future: Future | None = None
+        if fork and "fork" in multiprocessing.get_all_start_methods():
+            self._pool = ForkPool(1)
+            self._future = self._pool.submit(_run_shared, self._pool.share(self._task))
+
+    def result(self) -> Any:
+        """The task's result (its exception raised here); run here when it could not run aside."""
+        from concurrent.futures.process import BrokenProcessPool
+
+        if self._future is not None:
+            try:
+                return self._future.result()
+            except BrokenProcessPool:  # the forked process died (killed, or a library refused to run forked)
+                pass
+            finally:
+                self.close()
+        fn, args = self._task
+        return fn(*args)
+
+    def close(self, stop: bool = False) -> None:
+        pool, self._pool, self._future = self._pool, None, None
+        if pool is not None:
+            pool.shutdown(wait=not stop, cancel_futures=stop)
+
+    def __enter__(self) -> "Aside":
+        return self
+
+    def __exit__(self, kind: Any, *_: Any) -> None:
+        self.close(stop=kind is not None)
+
+
+def _run_shared(key: str) -> Any:
+    """Run the task a :class:`ForkPool` shared under ``key`` (``(fn, args)``), in a process forked with it."""
+    fn, args = _SHARED[key]
+    return fn(*args)
+
+
 def _nothing() -> None:
     """A task that does nothing (it makes a pool start its processes)."""
 

@@ -312,6 +312,90 @@ def test_a_fork_pool_started_ahead_forks_its_processes_before_any_task(tmp_path)
         pool.shutdown()
 
 
+class _NoPickle:
+    """An argument that refuses to be pickled: a task given it runs where it finds it in memory."""
+
+    value = 41
+
+    def __reduce__(self):
+        raise TypeError("not to be pickled")
+
+
+def _pid_plus(x: _NoPickle) -> tuple[int, int]:
+    import os
+
+    return os.getpid(), x.value + 1
+
+
+def _fails() -> None:
+    raise ValueError("bad cell B7")
+
+
+def _dies_if_forked(parent: int) -> int:
+    import os
+
+    if os.getpid() != parent:
+        os._exit(3)  # the forked process dies without a word
+    return os.getpid()
+
+
+def _sleeps() -> None:
+    time.sleep(60)
+
+
+def _needs_fork() -> None:
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")
+
+
+def test_a_task_aside_runs_in_a_forked_process_on_what_it_finds_in_memory():
+    import os
+
+    _needs_fork()
+    with parallel.Aside(_pid_plus, _NoPickle()) as aside:
+        pid, value = aside.result()
+    assert pid != os.getpid() and value == 42
+
+
+def test_a_task_aside_raises_its_error_here():
+    _needs_fork()
+    with parallel.Aside(_fails) as aside:
+        with pytest.raises(ValueError, match="bad cell B7"):
+            aside.result()
+
+
+def test_a_task_not_forked_runs_here_when_its_result_is_asked():
+    import os
+
+    assert parallel.Aside(_pid_plus, _NoPickle(), fork=False).result() == (os.getpid(), 42)
+
+
+def test_a_task_whose_forked_process_dies_runs_here():
+    import os
+
+    _needs_fork()
+    with parallel.Aside(_dies_if_forked, os.getpid()) as aside:
+        assert aside.result() == os.getpid()
+
+
+def test_leaving_a_task_aside_on_an_error_ends_its_process():
+    import multiprocessing
+
+    _needs_fork()
+    before = set(multiprocessing.active_children())
+    t = time.perf_counter()
+    with pytest.raises(KeyboardInterrupt):
+        with parallel.Aside(_sleeps):
+            time.sleep(0.2)
+            raise KeyboardInterrupt
+    for proc in set(multiprocessing.active_children()) - before:
+        proc.join(timeout=10)
+    assert not set(multiprocessing.active_children()) - before
+    assert time.perf_counter() - t < 30  # not left to sleep its minute
+
+
 def test_a_partition_gets_the_answers_its_layer_holds_for_its_rows(tmp_path):
     from archivist.farcoords import far_out
 

@@ -97,6 +97,63 @@ def test_the_log_follows_its_schema_and_the_gpkg_holds_every_change(tmp_path):
         assert "    " + json.dumps(entry, ensure_ascii=False) in {line.rstrip(",") for line in lines}
 
 
+@pytest.mark.parametrize("aside", [False, True], ids=["here", "forked"])
+def test_the_log_written_by_a_forked_process_is_the_log_written_here(tmp_path, monkeypatch, aside):
+    # a large log's GeoPackage and entries are written by a forked process while the copy is checked
+    # (archivist.parallel.Aside); the threshold lowered here so that the small map takes that road too
+    import multiprocessing
+
+    import archivist.repair.api as api
+
+    if aside and "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("this system cannot fork")
+    import archivist.engine as engine
+
+    project = five(tmp_path)
+    repair(project, tmp_path / "ref")
+    monkeypatch.setattr(api, "ASIDE_ENTRIES", 0 if aside else 10**9)
+    seen: list[set[str]] = []
+    check_ = engine.check
+
+    def check(proj, **kw):  # what the copy's folder holds while the copy is checked
+        seen.append({f.name for f in Path(proj.root).iterdir()})
+        return check_(proj, **kw)
+
+    monkeypatch.setattr(engine, "check", check)
+    result = repair(project, tmp_path / "out")
+    assert seen[1] == {"archivist.toml", "map.gpkg", "legend.csv"}  # no log yet, not even half-written
+    assert {f.name for f in tmp_path.iterdir()} == {"five", "ref", "out"}  # nothing left beside it
+    ref, out = (json.loads((tmp_path / d / "repair-log.json").read_text(encoding="utf-8")) for d in ("ref", "out"))
+    ref.pop("project"), out.pop("project")
+    assert out == ref and out["changes"] and out["findings_after"] == dict(sorted(result.after.items()))
+    for layer in ("before", "after", "left"):
+        a = pyogrio.read_dataframe(tmp_path / "ref" / "repair-changes.gpkg", layer=layer)
+        b = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer=layer)
+        assert a.drop(columns="geometry").equals(b.drop(columns="geometry"))
+        assert list(shapely.to_wkb(a.geometry.values)) == list(shapely.to_wkb(b.geometry.values))
+
+
+def test_a_repair_interrupted_while_the_copy_is_checked_leaves_nothing(tmp_path, monkeypatch):
+    import archivist.engine as engine
+    import archivist.repair.api as api
+
+    project = five(tmp_path)
+    monkeypatch.setattr(api, "ASIDE_ENTRIES", 0)  # the log written by a forked process, where the system forks
+    calls = []
+    check_ = engine.check
+
+    def check(proj, **kw):
+        calls.append(proj)
+        if len(calls) == 2:  # the copy's check: Ctrl-C
+            raise KeyboardInterrupt
+        return check_(proj, **kw)
+
+    monkeypatch.setattr(engine, "check", check)
+    with pytest.raises(KeyboardInterrupt):
+        repair(project, tmp_path / "out")
+    assert {f.name for f in tmp_path.iterdir()} == {"five"}
+
+
 def test_example_bundle_is_unchanged_by_repair(tmp_path):
     bundle = copy_bundle(tmp_path)
     digest = tree_digest(bundle)
