@@ -257,16 +257,14 @@ def staging_dir(target: Path) -> Iterator[Path]:
 
 
 @contextmanager
-def staging_file(target: Path, beside: Path | None = None) -> Iterator[Path]:
+def staging_file(target: Path) -> Iterator[Path]:
     """A hidden sibling path for the file ``target``; removed on any exit unless it was moved into place.
 
     An OS error in writing it is an :class:`OutputError` naming ``target``;
     one about another file (an input read inside the block) keeps its own name.
-    ``beside``: the folder to make the hidden path in, when not ``target``'s
-    own (a folder still being staged, say).
     """
     target = Path(target)
-    tmp = (target.parent if beside is None else Path(beside)) / _staging_name(target.name, "part")
+    tmp = target.parent / _staging_name(target.name, "part")
     with _staged(target, tmp):
         yield tmp
 

@@ -194,7 +194,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         doc = log_document(str(project), names, settings, changes, left, before, after)
         return RepairResult(str(project), None, names, settings, tuple(changes), tuple(left), before, after, doc)
     assert target is not None
-    from ..fsutil import move_into_place, staging_dir, staging_file
+    from ..fsutil import move_into_place, staging_dir
 
     with staging_dir(target) as tmp:
         manifest, written = write_copy(proj, state, changes, tmp)
@@ -203,18 +203,18 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         doc = log_document(str(project), names, settings, changes, left, before, None, written)
         # the log's GeoPackage and entries do not wait for the check of the copy: a large log is written by a
         # process forked for it meanwhile (at 10^5 polygons and 1 % defects, about a second of 30). The GeoPackage
-        # is written beside the copy's folder, not in it, until the copy is checked: a pattern of the copy's
-        # [files] could otherwise find it half-written
+        # is written in a staging folder of its own beside the copy's until the copy is checked: a pattern of the
+        # copy's [files] could otherwise find it half-written
         from ..parallel import Aside
 
-        with staging_file(target / GPKG_NAME, beside=target.parent) as side, \
-                Aside(write_log_parts, doc, changes, left, side, proj.crs,
+        with staging_dir(target) as beside, \
+                Aside(write_log_parts, doc, changes, left, beside / GPKG_NAME, proj.crs,
                       fork=len(changes) + len(left) >= ASIDE_ENTRIES) as aside:
             copy = load_project(manifest, progress=progress)
             after = _counts(check(copy, progress=progress, context=_copy_context(copy, state, settings)))
             doc["findings_after"] = dict(sorted(after.items()))
             lists = aside.result()
-            move_into_place(side, tmp / GPKG_NAME)
+            move_into_place(beside / GPKG_NAME, tmp / GPKG_NAME)
         (tmp / _log_name()).write_text(dump_log(doc, lists), encoding="utf-8")
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
