@@ -66,7 +66,7 @@ from .arrays import (
 from .guard import Failure, by_cluster, elementwise, reason_of
 from .halfedges import Edges
 from .messages import ABOVE
-from .nearness import prepared_copy
+from .nearness import length_near, prepared_copy
 from .polygons import Units, polygonal
 
 if TYPE_CHECKING:
@@ -760,9 +760,11 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
                     on_frame[thin] = shapely.covered_by(gaps[thin], shapely.buffer(eb, tol * ABOVE))
                     eps = 1e-9 * _scale_of(extent)
                     for gk in thin[on_frame[thin]]:  # few: thin gaps at the frame
-                        near = shapely.buffer(shapely.boundary(gaps[gk]), eps)
                         flagged = [invalid[u] for u in ui[gi == gk].tolist() if u in invalid]
-                        if flagged and float(shapely.length(shapely.intersection(shapely.union_all(flagged), near))) > 4 * eps:
+                        # the length of flagged edge along the gap's boundary, measured on arrays (GEOS's buffer at
+                        # a rounding distance can miss stretches: archivist.analysis.nearness.length_near)
+                        if flagged and float(length_near(np.array([shapely.union_all(flagged)]),
+                                                         np.array([shapely.boundary(gaps[gk])]), eps)[0]) > 4 * eps:
                             on_frame[gk] = False
                 except GEOSException as exc:
                     failures.append(Failure(tuple(int(u) for u in np.unique(ui[np.isin(gi, thin)])),
