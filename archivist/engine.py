@@ -531,7 +531,8 @@ def check(
         partitions (default 2).
     context
         A :class:`CheckContext` of ``project`` (a loaded one): the check
-        reads and keeps its analyses there (one thread, no partitions).
+        reads and keeps its analyses there (no partitions; with ``jobs`` > 1
+        the families side by side on threads, which share it).
 
     Raises
     ------
@@ -550,15 +551,15 @@ def check(
         selected = select(only, rules)
     except KeyError as exc:
         raise ArchivistError(f"unknown {exc.args[0]}; 'archivist rules' lists them") from None
-    if context is not None:
-        return run_rules(project, selected, progress, context=context)
-    if executor is not None:
+    if executor is not None and context is None:
         return run_rules(project, selected, progress, executor=executor, parts=parts or 2)
     from .parallel import default_jobs
 
     if jobs < 0:
         raise ArchivistError(f"jobs must be 0 (every core) or a positive number of workers, not {jobs}")
     jobs = default_jobs() if jobs == 0 else jobs
+    if context is not None:
+        return run_rules(project, selected, progress, context=context, threads=jobs)
     if parts is None and jobs > 1:
         from .parallel import fork_parts
 

@@ -120,7 +120,7 @@ def test_the_log_written_by_a_forked_process_is_the_log_written_here(tmp_path, m
         return check_(proj, **kw)
 
     monkeypatch.setattr(engine, "check", check)
-    result = repair(project, tmp_path / "out")
+    result = repair(project, tmp_path / "out", jobs=2)
     assert seen[1] == {"archivist.toml", "map.gpkg", "legend.csv"}  # no log yet, not even half-written
     assert {f.name for f in tmp_path.iterdir()} == {"five", "ref", "out"}  # nothing left beside it
     # GDAL warns of a GeoPackage whose name does not end in .gpkg (a staging name): none here
@@ -133,6 +133,32 @@ def test_the_log_written_by_a_forked_process_is_the_log_written_here(tmp_path, m
         b = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer=layer)
         assert a.drop(columns="geometry").equals(b.drop(columns="geometry"))
         assert list(shapely.to_wkb(a.geometry.values)) == list(shapely.to_wkb(b.geometry.values))
+
+
+def test_repair_on_threads_writes_the_copy_and_log_of_one_thread(tmp_path, monkeypatch):
+    # jobs > 1: the checks before and after run their families side by side on threads sharing the context the
+    # repairs read, and the log is written by a forked process (the threshold lowered for this small map)
+    import archivist.repair.api as api
+
+    project = five(tmp_path)
+    one = repair(project, tmp_path / "one", jobs=1)
+    monkeypatch.setattr(api, "ASIDE_ENTRIES", 0)
+    many = repair(project, tmp_path / "many", jobs=4)
+    assert many.changes == one.changes and many.left == one.left
+    assert many.before == one.before and many.after == one.after
+    a, b = (json.loads((tmp_path / d / "repair-log.json").read_text(encoding="utf-8")) for d in ("one", "many"))
+    assert a == b
+    assert pyogrio.read_dataframe(tmp_path / "one" / "map.gpkg", layer="units").equals(
+        pyogrio.read_dataframe(tmp_path / "many" / "map.gpkg", layer="units"))
+
+
+def test_repair_refuses_a_negative_number_of_jobs(tmp_path):
+    from archivist.errors import ArchivistError
+
+    with pytest.raises(ArchivistError, match="jobs must be 0"):
+        repair(five(tmp_path), tmp_path / "out", jobs=-1)
+    result = CliRunner().invoke(cli, ["repair", str(tmp_path / "five"), "--out", str(tmp_path / "out"), "--jobs", "-1"])
+    assert result.exit_code == 2 and "-1" in result.output
 
 
 def test_a_repair_interrupted_while_the_copy_is_checked_leaves_nothing(tmp_path, monkeypatch):
@@ -152,7 +178,7 @@ def test_a_repair_interrupted_while_the_copy_is_checked_leaves_nothing(tmp_path,
 
     monkeypatch.setattr(engine, "check", check)
     with pytest.raises(KeyboardInterrupt):
-        repair(project, tmp_path / "out")
+        repair(project, tmp_path / "out", jobs=2)
     assert {f.name for f in tmp_path.iterdir()} == {"five"}
 
 

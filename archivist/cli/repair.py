@@ -20,10 +20,14 @@ from .options import progress_for, progress_options
 @click.option("--dry-run", is_flag=True, help="Print the change log; write nothing.")
 @click.option("--force", is_flag=True, help="Replace an existing DIR.")
 @click.option("--build-polygons", is_flag=True, help="Build the unit polygons from contacts, faults and frame, coded by label points.")
+@click.option("--jobs", "-j", "jobs", type=click.IntRange(min=0), default=None, show_default="every core",
+              help="Threads the checks before and after run their rule families on side by side (0: every core; 1: "
+                   "everything in one thread, one process). The repairs run in one thread; the copy and the log are "
+                   "the same whatever the number.")
 @progress_options
 @handle_errors
 def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip: tuple[str, ...], dry_run: bool, force: bool,
-                   build_polygons: bool, quiet: bool, verbose: bool) -> None:
+                   build_polygons: bool, jobs: int | None, quiet: bool, verbose: bool) -> None:
     """Repair a copy of the map PROJECT into DIR, then check the copy.
 
     PROJECT itself is never changed. The repairs (see --only/--skip) snap
@@ -43,7 +47,7 @@ def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip:
         raise click.UsageError("--out DIR is required (or --dry-run)")
     with progress_for(quiet, verbose) as progress:
         result = repair(project, out, only=only, skip=skip, dry_run=dry_run, force=force,
-                        build_polygons=build_polygons, progress=progress)
+                        build_polygons=build_polygons, progress=progress, jobs=0 if jobs is None else jobs)
     if dry_run:
         sys.stdout.write(render_log_text(result.log))
     rules = sorted(set(result.before) | set(result.after))

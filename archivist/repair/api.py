@@ -129,13 +129,19 @@ def _counts(report: Any) -> dict[str, int]:
 
 @collector_paused()
 def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] = (), skip: Iterable[str] = (),
-           dry_run: bool = False, force: bool = False, build_polygons: bool = False, progress: Any = None) -> RepairResult:
+           dry_run: bool = False, force: bool = False, build_polygons: bool = False, progress: Any = None,
+           jobs: int = 1) -> RepairResult:
     """Repair a copy of ``project`` into the folder ``out`` and check it.
 
     ``only``/``skip`` select repairs by name (:func:`archivist.repair.registry.select`);
     ``dry_run`` computes the changes without writing anything (``out`` may be None);
-    ``force`` replaces an existing ``out``. Raises ArchivistError (exit 2) when
-    the project cannot be repaired or ``out`` is refused.
+    ``force`` replaces an existing ``out``. ``jobs``: as ``check``'s, the threads
+    the checks before and after run their rule families on side by side (0:
+    every core); with more than one, a large change log is also written by a
+    forked process while the copy is checked. The repairs themselves run in
+    this thread, and the result is the same whatever the number. Raises
+    ArchivistError (exit 2) when the project cannot be repaired or ``out`` is
+    refused.
     """
     from ..engine import check
     from ..fsutil import guard_output
@@ -144,7 +150,12 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     from ..project import load_project
     from .registry import select
 
+    from ..parallel import default_jobs
+
     progress = progress or Progress()
+    if jobs < 0:
+        raise ArchivistError(f"jobs must be 0 (every core) or a positive number of threads, not {jobs}")
+    jobs = default_jobs() if jobs == 0 else jobs
     root, manifest_path = find_manifest(project)
     if manifest_path is None:
         raise ArchivistError(f"{project}: repair needs a project with an archivist.toml ('archivist init' writes one)")
@@ -174,7 +185,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     # the check's analyses of the units as read: the first repair reads them too, and its half-edges are lent to
     # the next build (the working units are the same polygons until a repair replaces some)
     checked = CheckContext(proj, edge_basis=state.edge_basis)
-    before = _counts(check(proj, progress=progress, context=checked))
+    before = _counts(check(proj, progress=progress, context=checked, jobs=jobs))
     settings = settings_for(proj, build_polygons)
     if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
         state.analyses[CHECKED] = (state.units, checked)
@@ -190,7 +201,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     from .log import dump_log, log_document
 
     if dry_run:
-        after = _counts(check(_in_memory(proj, state), progress=progress))
+        after = _counts(check(_in_memory(proj, state), progress=progress, jobs=jobs))
         doc = log_document(str(project), names, settings, changes, left, before, after)
         return RepairResult(str(project), None, names, settings, tuple(changes), tuple(left), before, after, doc)
     assert target is not None
@@ -201,17 +212,17 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         from .log import GPKG_NAME, write_log_parts
 
         doc = log_document(str(project), names, settings, changes, left, before, None, written)
-        # the log's GeoPackage and entries do not wait for the check of the copy: a large log is written by a
-        # process forked for it meanwhile (at 10^5 polygons and 1 % defects, about a second of 30). The GeoPackage
+        # the log's GeoPackage and entries do not wait for the check of the copy: with jobs > 1 a large log is written
+        # by a process forked for it meanwhile (at 10^5 polygons and 1 % defects, about a second of 30). The GeoPackage
         # is written in a staging folder of its own beside the copy's until the copy is checked: a pattern of the
         # copy's [files] could otherwise find it half-written
         from ..parallel import Aside
 
         with staging_dir(target) as beside, \
                 Aside(write_log_parts, doc, changes, left, beside / GPKG_NAME, proj.crs,
-                      fork=len(changes) + len(left) >= ASIDE_ENTRIES) as aside:
+                      fork=jobs > 1 and len(changes) + len(left) >= ASIDE_ENTRIES) as aside:
             copy = load_project(manifest, progress=progress)
-            after = _counts(check(copy, progress=progress, context=_copy_context(copy, state, settings)))
+            after = _counts(check(copy, progress=progress, context=_copy_context(copy, state, settings), jobs=jobs))
             doc["findings_after"] = dict(sorted(after.items()))
             lists = aside.result()
             move_into_place(beside / GPKG_NAME, tmp / GPKG_NAME)

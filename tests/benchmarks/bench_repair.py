@@ -21,9 +21,10 @@ contact (same-unit neighbours). One process then times, side by side:
 With ``--repeat N`` check and repair are timed N times in pairs, each
 repair right after its check (the host's speed drifts by some 10 % within
 minutes), and the median of the N ratios is reported beside them. Both run
-with their defaults: check in one process (``jobs=1``), repair in one
-process except its change log, which a forked process writes while the
-copy is checked (:class:`archivist.parallel.Aside`).
+with the same ``--jobs`` (default 1: one thread each, as their Python
+functions do; ``--jobs 2`` as their commands do on a 2-core machine: check
+forks two partitions, repair runs the families of its checks on two
+threads and writes its log in a forked process).
 
 It also reports the findings of the repaired kinds before and after, the
 changes per repair, whether GEOS finds the copy a valid coverage, and how
@@ -195,7 +196,7 @@ def diff_agreement(project: Path, out: Path, changes, tol: float) -> dict:
             "unseen_within_tolerance": renoded}
 
 
-def run(size: int, density: float, keep: Path | None, repeat: int = 1) -> dict:
+def run(size: int, density: float, keep: Path | None, repeat: int = 1, jobs: int = 1) -> dict:
     from archivist import check
     from archivist.project import load_project
     from archivist.repair.api import make_state, repair, settings_for
@@ -209,10 +210,10 @@ def run(size: int, density: float, keep: Path | None, repeat: int = 1) -> dict:
         for k in range(repeat):  # check and repair side by side, pair by pair: the host's speed drifts
             out_k = tmp / f"out-{k}"
             t = time.perf_counter()
-            report = check(project)
+            report = check(project, jobs=jobs)
             checks.append(time.perf_counter() - t)
             t = time.perf_counter()
-            result = repair(project, out_k)
+            result = repair(project, out_k, jobs=jobs)
             repairs.append(time.perf_counter() - t)
             if k:
                 shutil.rmtree(out_k)
@@ -232,7 +233,7 @@ def run(size: int, density: float, keep: Path | None, repeat: int = 1) -> dict:
         agreement = diff_agreement(project, tmp / "out", result.changes, settings.tolerance)
         before = {k: sum(1 for f in report.findings if f.rule == k) for k in KINDS}
         after = {k: result.after.get(k, 0) for k in KINDS}
-        out = {"polygons": size, "defects_per_kind": made["per_kind"], "grown": made["grown"],
+        out = {"polygons": size, "jobs": jobs, "defects_per_kind": made["per_kind"], "grown": made["grown"],
                "grow_passed_over": made["passed_over"], "check_s": [round(t, 2) for t in checks],
                "repairs_s": round(t_repairs, 2), "repair_s": [round(t, 2) for t in repairs],
                "ratio": [round(x, 2) for x in ratios], "ratio_median": round(float(np.median(ratios)), 2),
@@ -251,9 +252,10 @@ def main(argv=None) -> int:
     ap.add_argument("--density", type=float, default=0.01)
     ap.add_argument("--keep", type=Path)
     ap.add_argument("--repeat", type=int, default=1, help="pairs of check and repair timed (the median ratio reported)")
+    ap.add_argument("--jobs", type=int, default=1, help="jobs of both check and repair (1: one thread each)")
     args = ap.parse_args(argv)
     for size in args.sizes:
-        print(json.dumps(run(size, args.density, args.keep, args.repeat)), flush=True)
+        print(json.dumps(run(size, args.density, args.keep, args.repeat, args.jobs)), flush=True)
     return 0
 
 
