@@ -444,12 +444,6 @@ def rule_reach(project: MapProject) -> float:
     return 2.0 * reach
 
 
-def _present(geoms: np.ndarray) -> np.ndarray:
-    import shapely
-
-    return ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
-
-
 def halo_width(project: MapProject, reach: float | None = None) -> float:
     """The halo width: the reach of the rules plus ``HALO_FEATURES`` times the size of the larger features.
 
@@ -464,9 +458,11 @@ def halo_width(project: MapProject, reach: float | None = None) -> float:
     """
     import shapely
 
+    from .analysis.arrays import present
+
     roles = _partitioned_layers(project)
     boxes = {role: shapely.bounds(project.layers[role].geometry) for role in roles}
-    return _halo(project, reach, [boxes[r][_present(project.layers[r].geometry)] for r in roles])
+    return _halo(project, reach, [boxes[r][present(project.layers[r].geometry)] for r in roles])
 
 
 def _halo(project: MapProject, reach: float | None, boxes: list[np.ndarray]) -> float:
@@ -568,14 +564,16 @@ def plan_partitions(project: MapProject, parts: int, halo: float | None = None, 
     import geopandas as gpd
     import shapely
 
+    from .analysis.arrays import present
+
     reach = rule_reach(project) if reach is None else reach
     roles = _partitioned_layers(project)
     bounds = {role: shapely.bounds(project.layers[role].geometry) for role in roles}
-    present = {role: _present(project.layers[role].geometry) for role in roles}
-    halo = _halo(project, reach, [bounds[r][present[r]] for r in roles]) if halo is None else halo
-    every = np.concatenate([bounds[r][present[r]] for r in roles] or [np.zeros((0, 4))])
+    drawn = {role: present(project.layers[role].geometry) for role in roles}
+    halo = _halo(project, reach, [bounds[r][drawn[r]] for r in roles]) if halo is None else halo
+    every = np.concatenate([bounds[r][drawn[r]] for r in roles] or [np.zeros((0, 4))])
     # the grid spans the whole layers too (an extent reaching past the features)
-    spans = [every] + [shapely.bounds(layer.geometry)[_present(layer.geometry)] for role, layer in project.layers.items()
+    spans = [every] + [shapely.bounds(layer.geometry)[present(layer.geometry)] for role, layer in project.layers.items()
                        if role in WHOLE_LAYERS]
     allb = np.concatenate(spans)
     total = ((allb[:, 0].min(), allb[:, 1].min(), allb[:, 2].max(), allb[:, 3].max()) if len(allb) else (0.0, 0.0, 1.0, 1.0))
@@ -594,7 +592,7 @@ def plan_partitions(project: MapProject, parts: int, halo: float | None = None, 
     flat = np.empty(grid.nx * grid.ny, dtype=np.int64)
     flat[order] = np.minimum((before * parts) // max(int(weight.sum()), 1), parts - 1)
     owner = flat.reshape(grid.ny, grid.nx)
-    ranges = {role: grid.boxes(bounds[role][present[role]]) for role in roles}
+    ranges = {role: grid.boxes(bounds[role][drawn[role]]) for role in roles}
     partitions = []
     r = grid.reach
     # the cells within r cells of each cell, for growing a core by the halo through a summed-area table
@@ -614,9 +612,9 @@ def plan_partitions(project: MapProject, parts: int, halo: float | None = None, 
             else:
                 large = np.zeros(0, dtype=np.int64)
             found = index.features_on(marked, large)  # sorted, once each
-            here = np.flatnonzero(present[role])[found]
-            if k == 0 and not present[role].all():  # features with no geometry: the first partition's
-                here = np.union1d(here, np.flatnonzero(~present[role]))
+            here = np.flatnonzero(drawn[role])[found]
+            if k == 0 and not drawn[role].all():  # features with no geometry: the first partition's
+                here = np.union1d(here, np.flatnonzero(~drawn[role]))
             rows[role] = here
         partitions.append(Partition(k, core, marked, rows, _cells_polygon(grid, marked)))
     return Plan(grid, owner, tuple(partitions), float(halo), float(reach))

@@ -146,11 +146,10 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     from ..engine import check
     from ..fsutil import guard_output
     from ..manifest import find_manifest
+    from ..parallel import default_jobs
     from ..progress import Progress
     from ..project import load_project
     from .registry import select
-
-    from ..parallel import default_jobs
 
     progress = progress or Progress()
     if jobs < 0:
