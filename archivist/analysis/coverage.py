@@ -223,7 +223,7 @@ def map_scale(project: MapProject) -> float:
         if layer is None or not len(layer.frame):
             continue
         g = layer.geometry
-        keep = ~(shapely.is_missing(g) | shapely.is_empty(g)) & ~layer.far[0]
+        keep = present(g) & ~layer.far[0]
         if keep.any():
             scale = max(scale, _scale_of(shapely.box(*shapely.total_bounds(g[keep]))))
     return scale

@@ -16,6 +16,7 @@ import pandas as pd
 import shapely
 
 from ..model import Hit, Severity
+from .arrays import present
 from .messages import layer_feature, offset
 
 if TYPE_CHECKING:
@@ -40,7 +41,7 @@ def map_extent(ctx: CheckContext) -> MapExtent | None:
             if layer is None:
                 continue
             geoms = layer.geometry
-            ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & shapely.is_valid(geoms)
+            ok = present(geoms) & shapely.is_valid(geoms)
             if ok.any():
                 geom = shapely.union_all(geoms[ok])
                 shapely.prepare(geom)
@@ -70,7 +71,7 @@ def points_outside(project: MapProject, ctx: CheckContext, role: str) -> tuple[O
     if extent is None or layer is None:
         return ()
     geoms = layer.geometry
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & ~layer.far[0]
+    ok = present(geoms) & ~layer.far[0]
     idx = np.flatnonzero(ok)
     dist = shapely.distance(extent.geometry, geoms[idx])
     crs = project.crs or layer.crs
@@ -133,8 +134,8 @@ def unit_mismatches(project: MapProject, ctx: CheckContext, role: str) -> tuple[
     recorded = np.array([r.strip() for r in recorded], dtype=object)
     codes = np.array([c.strip() for c in codes], dtype=object)
     pts, polys = points.geometry, units.geometry
-    usable = ~(shapely.is_missing(pts) | shapely.is_empty(pts)) & (recorded != "")
-    poly_ok = ~(shapely.is_missing(polys) | shapely.is_empty(polys))
+    usable = present(pts) & (recorded != "")
+    poly_ok = present(polys)
     nothing = np.array(None, dtype=object)
     tree = shapely.STRtree(np.where(poly_ok, polys, nothing))
     pi, ui = tree.query(np.where(usable, pts, nothing), predicate="intersects")

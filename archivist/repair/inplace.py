@@ -267,6 +267,8 @@ def _apply(con: sqlite3.Connection, t: _Table, sub: Any, plan: _Plan, new_fields
     """Carry out ``plan`` in one transaction, the scratch file attached (``sub``: its rows, feature ids ``fids[rows]``)."""
     import shapely
 
+    from ..analysis.arrays import present
+
     gone, params, changed, kept = plan.gone, plan.params, plan.changed, plan.kept
     s = _table(con, "rows", "scratch")
     if s.srs_id != t.srs_id:
@@ -319,7 +321,7 @@ def _apply(con: sqlite3.Connection, t: _Table, sub: Any, plan: _Plan, new_fields
         updated += len(valued - set(fids[rows].tolist()))
         geoms = np.asarray(sub.geometry.values, dtype=object)
         if t.rtree is not None and len(rows):
-            have = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+            have = present(geoms)
             con.executemany(f"DELETE FROM main.{_q(t.rtree)} WHERE id = ?", [(int(f),) for f in fids[rows][~have]])
             box = shapely.bounds(geoms[have])
             con.executemany(f"INSERT OR REPLACE INTO main.{_q(t.rtree)} VALUES (?, ?, ?, ?, ?)",

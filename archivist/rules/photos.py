@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any, Iterator
 import numpy as np
 import shapely
 
+from ..analysis.arrays import present
 from ..analysis.messages import plural
 from ..model import Hit
 from ..photos import KIND_WORDS, MediaSet, media_sets
@@ -59,7 +60,7 @@ def _map_box(project: MapProject, ctx: CheckContext) -> tuple[Any, Any, tuple[fl
             if layer is None or layer.crs is None:
                 continue
             geoms = layer.geometry
-            ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms)) & shapely.is_valid(geoms)
+            ok = present(geoms) & shapely.is_valid(geoms)
             if not ok.any():
                 continue
             geom = shapely.union_all(geoms[ok])
@@ -376,7 +377,7 @@ def photo_far_from_station(project: MapProject, ctx: CheckContext) -> Iterator[H
     if stations is None or media is None or stations.crs is None:
         return
     geoms = stations.geometry
-    ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+    ok = present(geoms)
     pos: dict[str, int] = {}
     for j in np.flatnonzero(ok):
         pos.setdefault(str(stations.ids[j]).strip(), int(j))

@@ -36,6 +36,7 @@ from typing import TYPE_CHECKING, Any, Iterator
 import numpy as np
 import shapely
 
+from ..analysis.arrays import present
 from ..analysis.idmatch import SampleIndex, probable_samples, space_keys
 from ..analysis.messages import plural, verb
 from ..analysis.points import (
@@ -101,7 +102,7 @@ def _sample_points(project: MapProject, ctx: CheckContext) -> dict[str, Any]:
         if layer is None:
             return {}
         geoms = layer.geometry
-        ok = ~(shapely.is_missing(geoms) | shapely.is_empty(geoms))
+        ok = present(geoms)
         out = {}
         for sid, g in zip(layer.ids[ok][::-1], geoms[ok][::-1]):
             out[sid] = g
