@@ -335,6 +335,69 @@ def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
     assert not (tmp_path / "out").exists() and tree_digest(project) == digest
 
 
+def _to_zone_32(frame):
+    return frame.to_crs("EPSG:32632")  # the neighbouring UTM zone: a real transformation, the layer still on the map
+
+
+def _xy_exchanged(frame):
+    frame = frame.copy()
+    frame["geometry"] = shapely.transform(frame.geometry.values, lambda xy: xy[:, ::-1])
+    return frame
+
+
+@pytest.mark.parametrize("role, edit, said", [
+    ("units", _to_zone_32, "is in EPSG:32632 (WGS 84 / UTM zone 32N), not in the map's EPSG:32633 (WGS 84 / UTM zone 33N)"),
+    ("lines", _to_zone_32, "is in EPSG:32632 (WGS 84 / UTM zone 32N), not in the map's EPSG:32633 (WGS 84 / UTM zone 33N)"),
+    ("units", _xy_exchanged, "has x and y exchanged in"),
+])
+def test_repair_refuses_a_layer_the_check_reads_moved_into_place(tmp_path, role, edit, said):
+    # the check reads such a layer transformed to the map CRS, or its axes exchanged back (crs-mismatch,
+    # crs-axis-swap-suspected); the repairs measured that layer and edited the one in the file, in another frame. Here
+    # the clean bundle's copy got 82 contacts drawn beside the units as filed (116 with the lines in zone 32), and its
+    # check 33 dangles and 82 lines off their boundary; an overlap of units filed in WGS 84 was logged as moved, its
+    # area in metres, and kept in the copy. The CRS names are pyproj's, from the EPSG data
+    bundle = copy_bundle(tmp_path)
+    edit_layer(bundle, "map.gpkg", role, edit)
+    digest = tree_digest(bundle)
+    for extra in (["--out", str(tmp_path / "out")], ["--dry-run"]):
+        res = CliRunner().invoke(cli, ["repair", str(bundle), *extra])
+        assert res.exit_code == 2, res.output
+        assert f"layers.{role} (map.gpkg:{role}) {said}" in res.output
+        assert "Traceback" not in res.output and len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists() and tree_digest(bundle) == digest
+
+
+def test_repair_runs_where_only_a_layer_it_does_not_edit_is_in_another_crs(tmp_path):
+    bundle = copy_bundle(tmp_path)
+    edit_layer(bundle, "map.gpkg", "samples", _to_zone_32)
+    assert "crs-mismatch" in {f.rule for f in check(bundle).findings}
+    result = repair(bundle, tmp_path / "out")
+    assert result.changes == () and result.after == result.before
+
+
+def test_units_only_labelled_with_another_crs_are_repaired_as_filed(tmp_path):
+    # coordinates in the map's zone 33, the label zone 32: the check reads them as they are (crs-mismatch says so),
+    # and so do the repairs; the copy keeps the file's label
+    bundle = copy_bundle(tmp_path)
+
+    def moved_vertex_mislabelled(frame):
+        g = frame.geometry.values.copy()
+        xy = shapely.get_coordinates(g[8])
+        xy[3] += 0.3  # within the bundle's tolerance (0.5 m at 1:25 000)
+        g[8] = shapely.set_coordinates(g[8], xy)
+        frame = frame.copy()
+        frame["geometry"] = g
+        return frame.set_crs("EPSG:32632", allow_override=True)
+
+    edit_layer(bundle, "map.gpkg", "units", moved_vertex_mislabelled)
+    assert {"crs-mismatch", "unit-edge-mismatch"} <= {f.rule for f in check(bundle).findings}
+    result = repair(bundle, tmp_path / "out")
+    assert result.changes
+    assert not {f.rule for f in check(tmp_path / "out").findings} & TOPOLOGY
+    units = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="units")
+    assert units.crs.to_epsg() == 32632 and shapely.coverage_is_valid(units.geometry.values)  # GEOS
+
+
 def test_package_of_a_repaired_copy_records_the_run(tmp_path):
     from archivist.package import pack
 

@@ -8,8 +8,10 @@ whose paths point into the copy and whose ``[repair] record`` names the
 change log), then check the copy. The project folder is only read. The copy
 is staged in a hidden sibling of ``out`` and moved into place at the end.
 
-What it does not cover: maps in a geographic CRS (longitude/latitude) and
-projects without a manifest are refused; repairs work in map units.
+What it does not cover: maps in a geographic CRS (longitude/latitude),
+projects without a manifest, and units, lines or extent that the check reads
+moved into place (another CRS, x and y exchanged: :func:`refuse_moved_layers`)
+are refused; repairs work in map units.
 """
 
 from __future__ import annotations
@@ -184,6 +186,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     # the check's analyses of the units as read: the first repair reads them too, and its half-edges are lent to
     # the next build (the working units are the same polygons until a repair replaces some)
     checked = CheckContext(proj, edge_basis=state.edge_basis)
+    refuse_moved_layers(proj, checked.alignment(), manifest_path, build_polygons)
     before = _counts(check(proj, progress=progress, context=checked, jobs=jobs))
     settings = settings_for(proj, build_polygons)
     if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
@@ -228,6 +231,35 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         (tmp / _log_name()).write_text(dump_log(doc, lists), encoding="utf-8")
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
+
+
+def refuse_moved_layers(project: Any, alignment: Any, manifest_path: Path, build_polygons: bool = False) -> None:
+    """Raise ArchivistError (exit 2) where the check reads a layer the repairs edit or measure against other than as
+    it is in its file: transformed from another CRS, some features' x and y exchanged, or not placed at all.
+
+    The check reads such a layer placed with the map (:func:`archivist.analysis.alignment.align_layers`; it reports
+    ``crs-mismatch`` or ``crs-axis-swap-suspected``). The repairs would measure the placed layer and edit the one in
+    the file, in another frame, and writing it back transformed would move every vertex, repaired or not. A layer
+    only labelled with another CRS, its coordinates already the map's, is read as it is and repaired; layers the
+    repairs do not read (samples, structures) may be placed.
+    """
+    from ..project import crs_label
+    from .build import LABELS
+
+    swapped = dict(alignment.swapped)
+    for role in ("units", "lines", "extent") + ((LABELS,) if build_polygons else ()):
+        layer = project.layers.get(role)
+        if layer is None:
+            continue
+        where = f"{manifest_path}: layers.{role} ({layer.source})"
+        if role in swapped:
+            raise ArchivistError(f"{where} has x and y exchanged in {swapped[role]} feature(s) (see crs-axis-swap-suspected): "
+                                 "repair edits a layer as it is in its file; exchange them back first")
+        if role in alignment.reprojected or role in alignment.left_out:
+            how = " and cannot be placed with the map" if role in alignment.left_out else ""
+            raise ArchivistError(f"{where} is in {crs_label(layer.crs)}, not in the map's {crs_label(project.crs)}{how} "
+                                 "(see crs-mismatch): repair edits layers in the map's CRS only (a copy written back "
+                                 "transformed would move every vertex); transform the layer to the map's CRS first")
 
 
 ASIDE_ENTRIES = 2_000
