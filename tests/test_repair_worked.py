@@ -148,6 +148,25 @@ def test_sliver_of_3_square_metres_merges_into_the_longest_neighbour(tmp_path):
     assert units.unit.tolist() == ["A", "B", "C"]
 
 
+@pytest.mark.parametrize("nothing", [shapely.Polygon(), None], ids=["empty", "missing"])
+def test_a_polygon_filed_without_geometry_is_left_as_filed_by_every_repair(tmp_path, nothing):
+    # The overlap of A = [0, 5.1] x [0, 10] with C = [5, 5.3] x [0, 10] (1.00 m², by hand) and the sliver C, beside a
+    # row E whose geometry is empty or missing (geometry-missing reports it). resolve-overlaps dropped an empty row
+    # with the polygons it had cut away whole, with no entry in the log, and merge-slivers listed it as a sliver
+    # with no neighbour: no repair touches it now, and every row gone from the copy is one a logged merge removed
+    geoms = [box(0, 0, 5.1, 10), box(5.3, 0, 10, 5), box(5.3, 5, 10, 10), box(5, 0, 5.3, 10), nothing]
+    project = square(tmp_path, geoms, ["A", "B", "C", "D", "E"])
+    result = repair(project, tmp_path / "out")
+    assert {c.repair for c in result.changes} >= {"resolve-overlaps", "merge-slivers"}
+    assert not [c for c in result.changes if "5" in c.features_before] and not [x for x in result.left if "5" in x.features]
+    units = copy_units(tmp_path / "out")
+    assert units.loc[5, "unit"] == "E" and (units.geometry.loc[5] is None or units.geometry.loc[5].is_empty)
+    removed = {f for c in result.changes for f in c.features_before if f not in c.features_after}
+    assert {"1", "2", "3", "4", "5"} - {str(i) for i in units.index} == removed == {"4"}
+    found = {f.rule for f in check(tmp_path / "out").findings}
+    assert "geometry-missing" in found and not found & TOPOLOGY
+
+
 def test_sliver_merges_into_a_neighbour_of_its_own_unit(tmp_path):
     # the same sliver coded B: B1 (also B) touches it, so it goes there although A shares more: 23.5 + 3 = 26.5 m²
     geoms = [box(0, 0, 5, 10), box(5.3, 0, 10, 5), box(5.3, 5, 10, 10), box(5, 0, 5.3, 10)]
@@ -363,6 +382,19 @@ def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp
     assert shapely.equals(units.geometry.loc[3], _finger_map(0.001)[2])
     assert all(c.max_shift <= 0.1 for c in result.changes)
     assert topology_rules(tmp_path / "out").get("unit-edge-mismatch", 0) >= 1
+
+
+def test_snap_edges_says_a_polygon_narrower_than_the_snapping_distance_is_held_as_it_would_collapse(tmp_path):
+    # tests/builders.py's two squares at 1:10 000 (tolerance 1 m), with a strip C = [0, 200] x [100, 100.5] along
+    # their top and a vertex of B 0.3 m into it: GEOS's cleaning snaps C's two long sides (0.5 m apart) together and
+    # C comes out empty. It is held as filed; the log said it would move "by 0.000 m, more than the snapping distance"
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "C"]}, crs="EPSG:32633", geometry=[
+        box(0, 0, 100, 100), shapely.Polygon([(100, 0), (200, 0), (200, 100), (150, 100.3), (100, 100)]),
+        box(0, 100, 200, 100.5)])
+    result = repair(tiny_project(tmp_path, units=units), None, dry_run=True, only=["snap-edges"])
+    assert result.changes == ()
+    assert [(x.features, x.reason) for x in result.left] == [
+        (("3",), "snapping would collapse it: narrower than the snapping distance")]
 
 
 def test_a_few_misfits_found_invalid_with_their_neighbours_mean_the_region_is_invalid():

@@ -283,7 +283,8 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     some = ~shapely.is_empty(pieces)
     winner, loser, pieces, why = winner[some], loser[some], pieces[some], [w for w, k in zip(why, some) if k]
     area = shapely.area(pieces)
-    empty = shapely.is_empty(new)
+    empty = np.zeros(len(new), dtype=bool)  # a polygon given away whole (one filed empty is kept: no repair's change)
+    empty[loser] = shapely.is_empty(new[loser])
     _set(state, new, ~empty)
     if not empty.any() and _still_covered(new, winner, loser, pieces):
         state.analyses[GAPS_OF] = (state.units, (units, cov))
@@ -631,7 +632,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     misfit = units.rows[found]
     region = near.along(ctx.edges().lines(loose))
     region[misfit[usable[misfit]]] = True
-    refused: dict[int, float] = {}
+    refused: dict[int, tuple[float, bool]] = {}  # polygon held: how far the cleaning moved it, whether it collapsed
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
     # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
     # for the cleaning and given back to it afterwards, however thin it is: the overlap stays as it was listed and
@@ -797,7 +798,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             continue
         assert held is not None
         hold[held] = True
-        refused.update({int(k): float(m) for k, m in zip(held, moved_r[held])})
+        refused.update({int(k): (float(m), bool(gone)) for k, m, gone in zip(held, moved_r[held], lost_r[held])})
         current[held], bare[held] = geoms[held], base[held]
         same_r[held] = True
         region = near.of(held)
@@ -811,8 +812,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     new = geoms.copy()
     new[take] = current[take]
     _set(state, new)
-    left = [Left("snap-edges", "units", (str(ids[k]),), f"snapping would move it by {m:.3f} m, more than the snapping distance",
-                 geoms[k], float(m)) for k, m in refused.items()]
+    left = [Left("snap-edges", "units", (str(ids[k]),),
+                 "snapping would collapse it: narrower than the snapping distance" if gone else
+                 f"snapping would move it by {m:.3f} m, more than the snapping distance", geoms[k], float(m))
+            for k, (m, gone) in refused.items()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ("", False))[0])
@@ -1213,7 +1216,8 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     area = shapely.area(geoms)
     r = wmin / 2.0
     maybe = (area < amin) | (area <= shapely.length(geoms) * r + shapely.get_num_coordinates(geoms) * (np.pi / 2) * r * r)
-    cand = np.flatnonzero(maybe & ~shapely.is_missing(geoms))
+    drawn = present(geoms)  # an empty or missing geometry is geometry-missing's, no sliver
+    cand = np.flatnonzero(maybe & drawn)
     wid = np.full(len(geoms), np.inf)
     if len(cand):
         # only the decision "narrower than wmin" is needed, as unit-sliver makes it: widths() settles each width
@@ -1229,7 +1233,7 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
         measure = cand[~standing & ~narrow]
         if len(measure):
             wid[measure] = widths(geoms[measure], wmin / 10.0)
-    sliver = (area < amin) | (wid < wmin)
+    sliver = ((area < amin) | (wid < wmin)) & drawn
     if not sliver.any():
         return [], []
     a, b, length = _shared_lengths(geoms, sliver)
