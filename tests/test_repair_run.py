@@ -335,6 +335,28 @@ def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
     assert not (tmp_path / "out").exists() and tree_digest(project) == digest
 
 
+@pytest.mark.parametrize("ids, said", [
+    (["P-1", "P-2", "P-2", "P-4", "P-5"], "id_field 'poly_id' gives 'P-2' to 2 features"),
+    (["P-1", None, "P-3", "P-4", "P-5"], "id_field 'poly_id' is empty on 1 feature(s)"),
+])
+def test_repair_refuses_units_whose_id_field_does_not_name_each_feature_once(tmp_path, ids, said):
+    # the change log and diff name features by the id_field: two polygons named P-2 stopped the run with an internal
+    # error (pandas: "Reindexing only valid with uniquely valued Index objects"), and an empty id was logged as ''
+    project = five(tmp_path)
+    edit_layer(project, "map.gpkg", "units", lambda f: f.assign(poly_id=ids))
+    edit_manifest(project, lambda d: d["layers"]["units"].update({"id_field": "poly_id"}))
+    digest = tree_digest(project)
+    res = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "out")])
+    assert res.exit_code == 2, res.output
+    assert f"layers.units (map.gpkg:units) {said}" in res.output and "leave id_field out" in res.output
+    assert "Traceback" not in res.output and len(res.output.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists() and tree_digest(project) == digest
+    edit_layer(project, "map.gpkg", "units", lambda f: f.assign(poly_id=[f"P-{k}" for k in range(1, 6)]))
+    assert repair(project, tmp_path / "out").changes  # unique ids: repaired, the log naming them
+    assert {f for c in json.loads((tmp_path / "out" / "repair-log.json").read_text())["changes"]
+            for f in c["features_before"] if c["layer"] == "units"} <= {f"P-{k}" for k in range(1, 6)}
+
+
 def _to_zone_32(frame):
     return frame.to_crs("EPSG:32632")  # the neighbouring UTM zone: a real transformation, the layer still on the map
 

@@ -179,6 +179,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
             raise ArchivistError(f"{manifest_path}: {h.key or 'layers.' + role} is read from {len(h.files)} files "
                                  f"({', '.join(f.name for f in h.files)}); repair writes each layer back into its one "
                                  "file: join them into one layer first")
+    refuse_ambiguous_ids(proj, manifest_path)
     from ..analysis.context import CheckContext
     from .polygons import CHECKED
 
@@ -231,6 +232,33 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         (tmp / _log_name()).write_text(dump_log(doc, lists), encoding="utf-8")
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
+
+
+def refuse_ambiguous_ids(project: Any, manifest_path: Path) -> None:
+    """Raise ArchivistError (exit 2) where the ``id_field`` of the units or of a line layer leaves a feature without
+    an id or gives two features one: the change log and ``diff`` name features by it, and a merge or a removal
+    would be ambiguous. Layers without an ``id_field`` are named by their feature ids (FID), always unique."""
+    import numpy as np
+
+    for role in ("units", "lines"):
+        layer = project.layers.get(role)
+        for part in (layer.parts or (layer,)) if layer is not None else ():
+            name = part.field("id_field")
+            if name is None:
+                continue
+            where = f"{manifest_path}: {part.key} ({part.source}) id_field '{name}'"
+            ids = np.asarray(part.text("id_field"), dtype=object).astype(str)
+            blank = np.char.strip(ids) == ""
+            if blank.any():
+                raise ArchivistError(f"{where} is empty on {int(blank.sum())} feature(s): the change log names features by "
+                                     "it; fill it in, or leave id_field out to name them by their feature id")
+            values, counts = np.unique(ids, return_counts=True)
+            if (counts > 1).any():
+                k = int(np.argmax(counts > 1))
+                raise ArchivistError(f"{where} gives '{values[k]}' to {int(counts[k])} features"
+                                     f"{f' ({int((counts > 1).sum())} ids shared in all)' if (counts > 1).sum() > 1 else ''}: "
+                                     "the change log names features by it; make the ids unique, or leave id_field out to "
+                                     "name them by their feature id")
 
 
 def refuse_moved_layers(project: Any, alignment: Any, manifest_path: Path, build_polygons: bool = False) -> None:
