@@ -336,8 +336,8 @@ def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
 
 
 @pytest.mark.parametrize("ids, said", [
-    (["P-1", "P-2", "P-2", "P-4", "P-5"], "id_field 'poly_id' gives 'P-2' to 2 features"),
-    (["P-1", None, "P-3", "P-4", "P-5"], "id_field 'poly_id' is empty on 1 feature(s)"),
+    (["P-1", "P-2", "P-2", "P-4", "P-5"], "id 'P-2' in poly_id is given to 2 features (feature 2, feature 3)"),
+    (["P-1", None, "P-3", "P-4", "P-5"], "1 feature has no id in poly_id: feature 2"),
 ])
 def test_repair_refuses_units_whose_id_field_does_not_name_each_feature_once(tmp_path, ids, said):
     # the change log and diff name features by the id_field: two polygons named P-2 stopped the run with an internal
@@ -348,7 +348,7 @@ def test_repair_refuses_units_whose_id_field_does_not_name_each_feature_once(tmp
     digest = tree_digest(project)
     res = CliRunner().invoke(cli, ["repair", str(project), "--out", str(tmp_path / "out")])
     assert res.exit_code == 2, res.output
-    assert f"layers.units (map.gpkg:units) {said}" in res.output and "leave id_field out" in res.output
+    assert f"units (map.gpkg:units): {said} (see feature-id-duplicate)" in res.output and "leave id_field out" in res.output
     assert "Traceback" not in res.output and len(res.output.strip().splitlines()) == 1
     assert not (tmp_path / "out").exists() and tree_digest(project) == digest
     edit_layer(project, "map.gpkg", "units", lambda f: f.assign(poly_id=[f"P-{k}" for k in range(1, 6)]))

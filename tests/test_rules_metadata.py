@@ -130,6 +130,19 @@ def measured_lines(tmp_path):
     return tiny_with_measures(tmp_path)
 
 
+def units_with_ids(tmp_path, ids):
+    units = two_units().assign(poly_id=ids)
+    return tiny_project(tmp_path, units=units, manifest={"layers": {"units": {"id_field": "poly_id"}}})
+
+
+def shared_id(tmp_path):
+    return units_with_ids(tmp_path, ["P-1", " P-1"])
+
+
+def unique_ids(tmp_path):
+    return units_with_ids(tmp_path, ["P-1", "P-2"])
+
+
 CASES = {
     "manifest-invalid": (unknown_key, clean),
     "layer-missing": (missing_file, clean),
@@ -140,6 +153,7 @@ CASES = {
     "licence-unknown": (bad_licence, clean),
     "identifier-invalid": (bad_orcid, clean),
     "geometry-missing": (null_geometry, clean),
+    "feature-id-duplicate": (shared_id, unique_ids),
     "geometry-type-unexpected": (wrong_type, clean),
     "geometry-invalid": (bow_tie, clean),
     "column-unnamed": (merged_header, clean),
@@ -153,6 +167,20 @@ CASES = {
 
 def findings(root, rule):
     return [f for f in archivist.check(root, rules=[rule]).findings if f.rule == rule]
+
+
+def test_feature_id_duplicate_names_the_id_and_its_features_and_the_features_without_one(tmp_path):
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "A", "B", "A"], "poly_id": ["P-7", "P-2", "P-7 ", None, "P-2"]},
+                             geometry=[box(0, 0, 40, 100), box(40, 0, 80, 100), box(80, 0, 120, 100), box(120, 0, 160, 100),
+                                       box(160, 0, 200, 100)], crs=CRS)
+    root = tiny_project(tmp_path, units=units, manifest={"layers": {"units": {"id_field": "poly_id"}}})
+    got = [(f.features, f.message) for f in findings(root, "feature-id-duplicate")]
+    assert got == [
+        (("4",), "units (map.gpkg:units): 1 feature has no id in poly_id: feature 4."),
+        (("P-2",), "units (map.gpkg:units): id 'P-2' in poly_id is given to 2 features (feature 2, feature 5)."),
+        (("P-7",), "units (map.gpkg:units): id 'P-7' in poly_id is given to 2 features (feature 1, feature 3)."),
+    ]
+    assert findings(tiny_project(tmp_path, name="no-id-field", units=units), "feature-id-duplicate") == []  # FIDs
 
 
 # ---------------------------------------------------------------- named findings, project untouched

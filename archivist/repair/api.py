@@ -236,29 +236,19 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
 
 def refuse_ambiguous_ids(project: Any, manifest_path: Path) -> None:
     """Raise ArchivistError (exit 2) where the ``id_field`` of the units or of a line layer leaves a feature without
-    an id or gives two features one: the change log and ``diff`` name features by it, and a merge or a removal
-    would be ambiguous. Layers without an ``id_field`` are named by their feature ids (FID), always unique."""
-    import numpy as np
+    an id or gives two features one (``feature-id-duplicate``): the change log and ``diff`` name features by it, and
+    a merge or a removal would be ambiguous. Layers without an ``id_field`` are named by their feature ids (FID)."""
+    from ..analysis.context import CheckContext
+    from ..rules.metadata import feature_id_duplicate
 
-    for role in ("units", "lines"):
-        layer = project.layers.get(role)
-        for part in (layer.parts or (layer,)) if layer is not None else ():
-            name = part.field("id_field")
-            if name is None:
-                continue
-            where = f"{manifest_path}: {part.key} ({part.source}) id_field '{name}'"
-            ids = np.asarray(part.text("id_field"), dtype=object).astype(str)
-            blank = np.char.strip(ids) == ""
-            if blank.any():
-                raise ArchivistError(f"{where} is empty on {int(blank.sum())} feature(s): the change log names features by "
-                                     "it; fill it in, or leave id_field out to name them by their feature id")
-            values, counts = np.unique(ids, return_counts=True)
-            if (counts > 1).any():
-                k = int(np.argmax(counts > 1))
-                raise ArchivistError(f"{where} gives '{values[k]}' to {int(counts[k])} features"
-                                     f"{f' ({int((counts > 1).sum())} ids shared in all)' if (counts > 1).sum() > 1 else ''}: "
-                                     "the change log names features by it; make the ids unique, or leave id_field out to "
-                                     "name them by their feature id")
+    edited = {part.role for role in ("units", "lines") if role in project.layers
+              for part in (project.layers[role].parts or (project.layers[role],))}
+    hits = [h for h in feature_id_duplicate(project, CheckContext(project)) if h.layer in edited]
+    if hits:
+        more = f"; {len(hits) - 1} more such" if len(hits) > 1 else ""
+        raise ArchivistError(f"{manifest_path}: {hits[0].message.rstrip('.')} (see feature-id-duplicate{more}): the "
+                             "change log names features by their id; give each feature its own id, or leave id_field out to name "
+                             "them by their feature id")
 
 
 def refuse_moved_layers(project: Any, alignment: Any, manifest_path: Path, build_polygons: bool = False) -> None:

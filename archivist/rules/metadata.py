@@ -375,6 +375,52 @@ def geometry_missing(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
             yield Hit(f"{role} feature {fid} ({layer.source}) has no geometry.", layer=role, features=(fid,))
 
 
+@rule("feature-id-duplicate", family="metadata", severity="error")
+def feature_id_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
+    """Two features of a map layer share an id, or one has none.
+
+    Catches
+    -------
+    In a layer whose manifest entry names an `id_field` (units, lines,
+    structures, extent), an id given to more than one feature, and features
+    whose id is empty. Ids are compared as text with surrounding spaces
+    ignored. Samples and stations have rules of their own
+    (`sample-duplicate-id`, `station-duplicate-id`).
+
+    Why it matters
+    --------------
+    The id is how findings, the change log of `archivist repair`, `diff`
+    and other people's notes point at a feature; with two features under one
+    id they point at either, and `repair` refuses to run.
+
+    Fix
+    ---
+    Give each feature its own id, or leave `id_field` out of the manifest
+    entry to have features named by their feature id (FID).
+
+    Example
+    -------
+    Two polygons numbered P-7 in `poly_id` give "units (map.gpkg:units):
+    id 'P-7' in poly_id is given to 2 features (feature 4, feature 9)."
+    """
+    for role, layer in project.sources.items():
+        name = layer.field("id_field")
+        if role in ("samples", "stations") or name is None:
+            continue
+        ids = np.char.strip(np.asarray(layer.text("id_field"), dtype=object).astype(str))
+        fids = layer.frame.index
+        blank = np.flatnonzero(ids == "")
+        if len(blank):
+            shown = ", ".join(f"feature {fids[i]}" for i in blank[:20]) + (", ..." if len(blank) > 20 else "")
+            yield Hit(f"{role} ({layer.source}): {plural(len(blank), 'feature')} {verb(len(blank), 'has', 'have')} no id "
+                      f"in {name}: {shown}.", layer=role, features=tuple(str(fids[i]) for i in blank))
+        values, counts = np.unique(ids, return_counts=True)
+        for k in np.flatnonzero((counts > 1) & (values != "")):  # one per id given twice or more
+            rows = np.flatnonzero(ids == values[k])
+            yield Hit(f"{role} ({layer.source}): id '{values[k]}' in {name} is given to {len(rows)} features "
+                      f"({', '.join(f'feature {fids[i]}' for i in rows)}).", layer=role, features=(str(values[k]),))
+
+
 @rule("geometry-type-unexpected", family="metadata", severity="error")
 def geometry_type_unexpected(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     """A layer holds geometries of the wrong type for its role.
