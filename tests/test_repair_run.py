@@ -80,6 +80,7 @@ def test_the_log_follows_its_schema_and_the_gpkg_holds_every_change(tmp_path):
     repair(project, tmp_path / "out")
     log = json.loads((tmp_path / "out" / "repair-log.json").read_text(encoding="utf-8"))
     jsonschema.Draft202012Validator(load_schema("repair-log.schema.json")).validate(log)
+    assert "do not judge the geological interpretation" in log["caution"]
     before = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer="before")
     after = pyogrio.read_dataframe(tmp_path / "out" / "repair-changes.gpkg", layer="after")
     numbers = [c["change"] for c in log["changes"]]
@@ -282,6 +283,9 @@ def test_cli_dry_run_prints_the_log_and_writes_nothing(tmp_path):
     assert "resolve-overlaps" in res.output and "merge-slivers" in res.output and "Dry run" in res.output
     assert "unit-sliver" in res.output  # the counts before -> after
     assert tree_digest(tmp_path) == digest
+    from archivist.repair.log import CAUTION
+
+    assert res.output.rstrip().endswith(CAUTION)  # what the repairs do not cover, last (and in the log: "caution")
 
 
 def test_cli_refuses_an_output_inside_the_project_or_existing(tmp_path):

@@ -41,7 +41,7 @@ def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip:
     Exit 0: repaired (or nothing to repair). 2: could not run.
     """
     from ..repair.api import repair
-    from ..repair.log import render_log_text
+    from ..repair.log import CAUTION, LOG_NAME, render_log_text
 
     if out is None and not dry_run:
         raise click.UsageError("--out DIR is required (or --dry-run)")
@@ -59,7 +59,8 @@ def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip:
     for name, n in result.per_repair().items():
         click.echo(f"  {name:<28} {n:>6}")
     if result.left:
-        click.echo(f"Left for the geologist: {len(result.left)} (listed in the change log).")
+        where = "above" if dry_run else f"in {printable(Path(result.out or '') / LOG_NAME)}"
+        click.echo(f"Left for the geologist: {len(result.left)} (listed {where}).")
     for w in result.log.get("layers_written") or []:
         if w["how"] != "edited":  # GDAL made the table anew from the values: widths, constraints, defaults not kept
             click.echo(f"Layer {w['layer']} written anew in {w['path']} (field definitions as GDAL makes them): {w['reason']}.")
@@ -67,3 +68,4 @@ def repair_command(project: Path, out: Path | None, only: tuple[str, ...], skip:
         click.echo("Dry run: nothing written.")
     else:
         click.echo(f"Repaired copy: {printable(result.out)}")
+    click.echo(CAUTION)

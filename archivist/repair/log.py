@@ -19,6 +19,12 @@ from .model import Change, Left, RepairSettings
 
 LOG_NAME = "repair-log.json"
 GPKG_NAME = "repair-changes.gpkg"
+CAUTION = (
+    "The repairs change geometry only, each within the tolerance and thresholds of [checks] and [repair]; they do "
+    "not judge the geological interpretation. Review the changes (repair-log.json, repair-changes.gpkg) before the "
+    "copy replaces the map: which unit a piece of ground belongs to, and whether a thin body is real, stays the "
+    "mapper's call under local practice."
+)
 
 
 def _wkt(geom: Any) -> str | None:
@@ -75,6 +81,7 @@ def log_document(project: str, repairs: Sequence[str], settings: RepairSettings,
         "tool": "archivist",
         "version": __version__,
         "project": project,
+        "caution": CAUTION,
         "repairs": list(repairs),
         "settings": settings.record(),
         "findings_before": dict(sorted(before.items())),
