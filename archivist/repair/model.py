@@ -196,7 +196,8 @@ class RepairState:
         return float(self.config.tolerance)
 
     def new_id(self, layer: str) -> str:
-        """A fresh feature id for ``layer`` ("units" or "lines"): one past the largest numeric id, else ``new-N``."""
+        """A fresh feature id for ``layer`` ("units" or "lines"): one past the largest id that is a number (1 when none is),
+        so never one a feature has: an id that reads as that number would be the largest."""
         frame = self.units if layer == "units" else self.lines
         if layer not in self._counter:
             top = 0
