@@ -302,6 +302,36 @@ def test_cli_refuses_an_output_inside_the_project_or_existing(tmp_path):
     assert res.exit_code == 2 and "unknown repair 'no-such-repair'" in res.output
 
 
+def test_force_replaces_only_a_copy_repair_wrote_and_nothing_changed_since(tmp_path):
+    # --force replaced any folder: a folder of the mapper's own named by mistake, or a repaired copy edited since,
+    # was deleted whole. Now only an empty folder or a copy repair wrote (its mark), untouched, is replaced
+    project = five(tmp_path)
+
+    def run(out, *extra):
+        return CliRunner().invoke(cli, ["repair", str(project), "--out", str(out), "-q", *extra])
+
+    mine = tmp_path / "thesis"
+    mine.mkdir()
+    (mine / "chapter1.txt").write_text("keep me")
+    for extra in ((), ("--force",)):
+        res = run(mine, *extra)
+        assert res.exit_code == 2 and "not made by 'archivist repair'" in res.output, res.output
+        assert [p.name for p in mine.iterdir()] == ["chapter1.txt"] and (mine / "chapter1.txt").read_text() == "keep me"
+    out = tmp_path / "fixed"
+    assert run(out).exit_code == 0
+    mark = json.loads((out / ".archivist-repair.json").read_text())
+    assert set(mark["files"]) == {p.relative_to(out).as_posix() for p in out.rglob("*") if p.is_file()} - {".archivist-repair.json"}
+    res = run(out)
+    assert res.exit_code == 2 and "made by an earlier 'archivist repair', unchanged" in res.output and "--force" in res.output
+    assert run(out, "--force").exit_code == 0  # unchanged: replaced
+    edit_layer(out, "map.gpkg", "units", lambda f: f.assign(unit=["A"] * len(f)))  # the mapper works on the copy
+    res = run(out, "--force")
+    assert res.exit_code == 2 and "'map.gpkg' was changed after 'archivist repair' wrote it" in res.output
+    assert set(pyogrio.read_dataframe(out / "map.gpkg", layer="units").unit) == {"A"}  # the edit is still there
+    (tmp_path / "empty").mkdir()
+    assert run(tmp_path / "empty", "--force").exit_code == 0
+
+
 def test_the_copy_holds_the_edits_a_gis_left_in_the_write_ahead_log(tmp_path):
     # a GIS still has map.gpkg open: polygon 4 recoded to Q sits in the -wal, not yet in the database file. The check
     # reads it (vectorio's private copy); the repaired copy holds it too, in one file, and the project is only read

@@ -18,7 +18,7 @@ from .options import progress_for, progress_options
 @click.option("--only", "only", multiple=True, metavar="REPAIR", help="Apply only this repair (repeatable).")
 @click.option("--skip", "skip", multiple=True, metavar="REPAIR", help="Do not apply this repair (repeatable).")
 @click.option("--dry-run", is_flag=True, help="Print the change log; write nothing.")
-@click.option("--force", is_flag=True, help="Replace an existing DIR.")
+@click.option("--force", is_flag=True, help="Replace an existing DIR that an earlier repair wrote, unchanged since (or an empty one).")
 @click.option("--build-polygons", is_flag=True, help="Build the unit polygons from contacts, faults and frame, coded by label points.")
 @click.option("--jobs", "-j", "jobs", type=click.IntRange(min=0), default=None, show_default="every core",
               help="Threads the checks before and after run their rule families on side by side (0: every core; 1: "

@@ -55,7 +55,6 @@ sibling and the private copy of the package in the temporary folder.
 
 from __future__ import annotations
 
-import json
 import os
 import re
 import tomllib
@@ -63,11 +62,11 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from .._version import __version__
 from ..errors import ArchivistError
 from ..filebytes import copy_new_file, sha256_bytes, sha256_file
 from ..fileset import dataset_files
 from ..fsutil import guard_output, move_into_place, remove_leftovers, staging_dir
+from ..madefolder import Mark
 from ..interrupt import Interrupted, terminate_as_exception
 from ..manifest import MANIFEST_NAME, spec_paths
 from ..tomltext import dump_toml
@@ -79,6 +78,7 @@ from .source import is_bag
 MARKER = ".archivist-unpack.json"
 """The file in an unpacked folder that records what ``unpack`` wrote there (see the module docstring)."""
 MARKER_KIND = "archivist unpack record"
+MARK = Mark(MARKER, MARKER_KIND, "unpack", "unpacking")
 
 _SEMVER = re.compile(r"^(\d+)\.(\d+)\.(\d+)(?:[-+].*)?$")
 _NUMERIC = re.compile(r"^(.*?)(\d+)([^\d]*)$")
@@ -274,53 +274,14 @@ def _write_new(dest: Path, data: bytes) -> str:
     return sha256_bytes(data)
 
 
-def _listing(folder: Path) -> tuple[dict[str, os.stat_result], list[str]]:
-    """(regular files under ``folder`` by relative path -> stat, entries that are links or special files)."""
-    files: dict[str, os.stat_result] = {}
-    odd: list[str] = []
-    for here, dirs, names in os.walk(folder, followlinks=False):
-        base = Path(here)
-        for name in sorted(dirs):
-            if (base / name).is_symlink():
-                odd.append((base / name).relative_to(folder).as_posix())
-        for name in sorted(names):
-            p = base / name
-            rel = p.relative_to(folder).as_posix()
-            st = p.lstat()
-            if p.is_symlink() or not p.is_file():
-                odd.append(rel)
-            else:
-                files[rel] = st
-    return files, sorted(odd)
-
-
-def _marker_files(target: Path) -> dict[str, str]:
-    """The files and SHA-256 that the mark of an unpacked folder records; ArchivistError when there is none."""
-    marker = target / MARKER
-    if not marker.is_file() or marker.is_symlink():
-        raise ArchivistError(
-            f"{target}: already exists and was not made by 'archivist unpack' (it has no {MARKER}); "
-            "unpack replaces only a folder it made, so choose a new folder"
-        )
-    try:
-        record = json.loads(marker.read_text(encoding="utf-8"))
-        files = record["files"] if isinstance(record, dict) and record.get("kind") == MARKER_KIND else None
-        if not isinstance(files, dict) or not all(
-            isinstance(k, str) and isinstance(v, str) and re.fullmatch(r"[0-9a-f]{64}", v) for k, v in files.items()
-        ):
-            raise ValueError("not the record unpack writes")
-    except (OSError, UnicodeDecodeError, ValueError, KeyError) as exc:
-        raise ArchivistError(f"{marker}: cannot be read as the record of 'archivist unpack' ({exc}); the folder is left alone, choose a new one") from None
-    return files
-
-
 def replaceable(target: Path, package: Path) -> dict[str, tuple[int, int]]:
     """Check that the existing folder ``target`` may be replaced by a new unpack of ``package``.
 
     It may when it is a folder that ``unpack`` made (its :data:`MARKER` is
     there), holds no file that unpack did not write and no file whose
     content differs from what unpack wrote, is not and does not hold
-    ``package``, and is not the current folder or one that holds it.
+    ``package``, and is not the current folder or one that holds it
+    (:meth:`archivist.madefolder.Mark.replaceable`).
 
     Returns the size and modification time (ns) of each file, to see just
     before the swap that nothing changed meanwhile.
@@ -330,40 +291,7 @@ def replaceable(target: Path, package: Path) -> dict[str, tuple[int, int]]:
     ArchivistError
         One line naming the folder (or the file in it) and why it stays.
     """
-    target = Path(target)
-    if target.is_symlink():
-        raise ArchivistError(f"{target}: is a link; unpack writes a new folder, choose one that does not exist")
-    if not target.is_dir():
-        raise ArchivistError(f"{target}: exists and is not a folder")
-    resolved = target.resolve()
-    pkg = Path(package).resolve()
-    if pkg == resolved or resolved in pkg.parents:
-        raise ArchivistError(f"{target}: holds the package {package} being unpacked; unpack never replaces it, choose a new folder")
-    cwd = Path.cwd().resolve()
-    if resolved == cwd or resolved in cwd.parents:
-        raise ArchivistError(f"{target}: is the current folder or holds it; unpack never replaces it, choose a new folder")
-    recorded = _marker_files(target)
-    files, odd = _listing(target)
-    extra = odd + sorted(rel for rel in files if rel != MARKER and rel not in recorded)
-    if extra:
-        more = f" (and {len(extra) - 1} more)" if len(extra) > 1 else ""
-        raise ArchivistError(
-            f"{target}: holds '{extra[0]}'{more}, which 'archivist unpack' did not write; replacing the folder would lose it, so it is left alone"
-        )
-    for rel in sorted(files):
-        if rel != MARKER and sha256_file(target / rel) != recorded[rel]:
-            raise ArchivistError(
-                f"{target}: '{rel}' was changed after 'archivist unpack' wrote it; replacing the folder would lose the change, so it is left alone"
-            )
-    return {rel: (st.st_size, st.st_mtime_ns) for rel, st in files.items()}
-
-
-def _still_same(target: Path, before: dict[str, tuple[int, int]]) -> None:
-    files, odd = _listing(target)
-    now = {rel: (st.st_size, st.st_mtime_ns) for rel, st in files.items()}
-    if odd or now != before:
-        changed = sorted(set(now) ^ set(before) | {r for r in now.keys() & before.keys() if now[r] != before[r]} | set(odd))
-        raise ArchivistError(f"{target}: '{changed[0]}' changed while unpacking; the folder is left alone and nothing was written")
+    return MARK.replaceable(target, [(Path(package), f"the package {package} being unpacked")])
 
 
 def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, limits: Limits | None = None) -> UnpackResult:
@@ -409,7 +337,7 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
     if target.exists() or target.is_symlink():
         before = replaceable(target, source)
         if not force:
-            raise ArchivistError(f"{target}: already exists (made by an earlier 'archivist unpack', unchanged); use --force to replace it")
+            raise MARK.exists(target, before)
     final = Path(os.path.abspath(target))
     placed = False
     try:
@@ -419,7 +347,7 @@ def unpack(archive: str | Path, out_dir: str | Path, *, force: bool = False, lim
                 written, version, previous, derived, origin = _unpack_into(source, tmp, limits)
                 os.chmod(tmp, 0o755)
                 if before is not None:
-                    _still_same(target, before)
+                    MARK.still_same(target, before)
                 move_into_place(tmp, final)
                 placed = True
     except (Interrupted, KeyboardInterrupt):
@@ -498,6 +426,5 @@ def _unpack_into(source: Path, tmp: Path, limits: Limits | None) -> tuple[tuple[
             dest.parent.mkdir(parents=True, exist_ok=True)
             written[dest_rel] = _copy_file(src_file, dest)
         written[MANIFEST_NAME] = _write_new(tmp / MANIFEST_NAME, new_text.encode("utf-8"))
-    record = {"kind": MARKER_KIND, "archivist": __version__, "package": derived, "authors": authors, "files": dict(sorted(written.items()))}
-    _write_new(tmp / MARKER, (json.dumps(record, indent=2, ensure_ascii=False) + "\n").encode("utf-8"))
+    MARK.write(tmp, written, package=derived, authors=authors)
     return tuple(sorted(written)), version, previous, derived, origin

@@ -6,7 +6,8 @@ copy (every file the manifest names, the changed layers rewritten in their
 own format where GDAL writes it, else as GeoPackage; a manifest of its own
 whose paths point into the copy and whose ``[repair] record`` names the
 change log), then check the copy. The project folder is only read. The copy
-is staged in a hidden sibling of ``out`` and moved into place at the end.
+is staged in a hidden sibling of ``out`` and moved into place at the end,
+with a mark of what was written (:data:`MARK`).
 
 What it does not cover: maps in a geographic CRS (longitude/latitude),
 projects without a manifest, and units, lines or extent that the check reads
@@ -25,9 +26,13 @@ from typing import Any, Iterable
 from .._version import __version__
 from ..collector import collector_paused
 from ..errors import ArchivistError
+from ..madefolder import Mark
 from .model import FEATURE_ID, OVERLAP_RULES, SOURCE_LAYER, Change, Left, RepairSettings, RepairState
 
 RECORD_KEY = "record"  # [repair] record = "repair-log.json" in the copy's manifest
+MARK = Mark(".archivist-repair.json", "archivist repair record", "repair", "repairing")
+"""The mark of a repaired copy: the SHA-256 of every file repair wrote there (:mod:`archivist.madefolder`), so that
+``--force`` replaces only such a copy, and only while the mapper has added and changed nothing in it."""
 
 
 @dataclass(frozen=True)
@@ -137,7 +142,8 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
 
     ``only``/``skip`` select repairs by name (:func:`archivist.repair.registry.select`);
     ``dry_run`` computes the changes without writing anything (``out`` may be None);
-    ``force`` replaces an existing ``out``. ``jobs``: as ``check``'s, the threads
+    ``force`` replaces an existing ``out`` that is empty, or that an earlier
+    run wrote and nothing was added to or changed in since (:data:`MARK`). ``jobs``: as ``check``'s, the threads
     the checks before and after run their rule families on side by side (0:
     every core); with more than one, a large change log is also written by a
     forked process while the copy is checked. The repairs themselves run in
@@ -162,11 +168,16 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
         raise ArchivistError(f"{project}: repair needs a project with an archivist.toml ('archivist init' writes one)")
     chosen = select(only, skip, build_polygons)
     target = None
+    before_files = None  # an existing output folder the run may replace: its files as they were (see MARK)
     if not dry_run:
         if out is None:
             raise ArchivistError("repair: --out is required (or use --dry-run)")
-        target = guard_output(Path(out), force=force, project_root=root, kind="folder", refuse_ancestor=True,
+        target = guard_output(Path(out), force=True, project_root=root, kind="folder", refuse_ancestor=True,
                               hint="choose a folder outside it")
+        if target.exists() or target.is_symlink():
+            before_files = MARK.replaceable(target, [(root, f"the project {root}")])
+            if not force:
+                raise MARK.exists(target, before_files)
     proj = load_project(manifest_path, progress=progress)
     if proj.crs is not None and proj.crs.is_geographic:
         raise ArchivistError(f"{manifest_path}: map.crs is geographic (longitude/latitude); repair works in a projected CRS only")
@@ -230,6 +241,9 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
             lists = aside.result()
             move_into_place(beside / GPKG_NAME, tmp / GPKG_NAME)
         (tmp / _log_name()).write_text(dump_log(doc, lists), encoding="utf-8")
+        MARK.write(tmp, project=str(project))
+        if before_files is not None:
+            MARK.still_same(target, before_files)
         move_into_place(tmp, target)
     return RepairResult(str(project), target, names, settings, tuple(changes), tuple(left), before, after, doc)
 
