@@ -109,6 +109,18 @@ def test_unpack_refuses_a_folder_it_did_not_make_even_with_force(tmp_path):
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".work")] == []
 
 
+def test_unpack_replaces_an_empty_folder_with_force_only(tmp_path):
+    # nothing in it to lose (a folder made for the output beforehand): replaced with --force, as an unchanged
+    # earlier unpack is; without it, one line says it exists and is empty
+    root = package(tmp_path)
+    target = tmp_path / "work"
+    target.mkdir()
+    refused = run("unpack", root, target)
+    assert refused.exit_code == 2 and "already exists (empty); use --force" in refused.stderr
+    assert run("unpack", root, target, "--force").exit_code == 0
+    assert (target / MARKER).is_file() and archivist.check(target).ok
+
+
 def test_damaged_package_refused_naming_the_file(tmp_path):
     root = package(tmp_path)
     flip_byte(root / "data" / "source" / "legend.csv", 3)
