@@ -22,7 +22,7 @@ from shapely.geometry import LineString, box
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from builders import tiny_project, tree_digest  # noqa: E402
+from builders import edit_layer, edit_manifest, tiny_project, tree_digest  # noqa: E402
 from coverage_builders import FRAME, line_frame  # noqa: E402
 
 from archivist.engine import check  # noqa: E402
@@ -194,6 +194,32 @@ def test_same_unit_neighbours_dissolve_unless_a_fault_runs_between(tmp_path):
     faulted = square(tmp_path, geoms, ["A", "A"], name="faulted",
                      lines=[("fault", LineString([(5, 0), (5, 10)])), ("map-boundary", FRAME)])
     assert [c for c in repair(faulted, tmp_path / "out2").changes if c.repair == "dissolve-same-unit"] == []
+
+
+def test_same_unit_neighbours_whose_other_attributes_differ_are_left_and_listed(tmp_path):
+    # A = [0, 5] x [0, 5] observed, its neighbour [5, 10] x [0, 5] inferred, and a third A = [0, 10] x [5, 7.5]
+    # above both with no value: dissolving kept the first polygon's fields and dropped the others' (the copy said
+    # "observed" for ground mapped as inferred). The two B = [0, 5] and [5, 10] x [7.5, 10], both observed, still go
+    geoms = [box(0, 0, 5, 5), box(5, 0, 10, 5), box(0, 5, 10, 7.5), box(0, 7.5, 5, 10), box(5, 7.5, 10, 10)]
+    project = square(tmp_path, geoms, ["A", "A", "A", "B", "B"])
+    edit_layer(project, "map.gpkg", "units", lambda f: f.assign(
+        confidence=["observed", "inferred", None, "observed", "observed"], poly_id=["P1", "P2", "P3", "P4", "P5"]))
+    edit_manifest(project, lambda d: d["layers"]["units"].update({"id_field": "poly_id"}))
+    result = repair(project, tmp_path / "out", only=["dissolve-same-unit"])
+    d = [c for c in result.changes if c.repair == "dissolve-same-unit" and c.layer == "units"]
+    assert [(c.features_before, c.features_after) for c in d] == [(("P4", "P5"), ("P4",))]  # both observed: one body
+    assert sorted((x.features, x.reason) for x in result.left) == [
+        (("P1", "P2"), "same unit, no fault between them, but confidence differs ('observed' / 'inferred'): not "
+                       "dissolved, the geologist decides whether they are one body"),
+        (("P1", "P3"), "same unit, no fault between them, but confidence differs ('observed' / no value): not "
+                       "dissolved, the geologist decides whether they are one body"),
+        (("P2", "P3"), "same unit, no fault between them, but confidence differs ('inferred' / no value): not "
+                       "dissolved, the geologist decides whether they are one body"),
+    ]
+    units = copy_units(tmp_path / "out")
+    assert units.poly_id.tolist() == ["P1", "P2", "P3", "P4"]
+    assert units.confidence.tolist()[:2] == ["observed", "inferred"] and units.confidence.isna().tolist()[2]
+    assert shapely.equals(units.geometry.iloc[3], box(0, 7.5, 10, 10))
 
 
 def test_a_contact_between_dissolved_polygons_is_taken_out_along_them_only(tmp_path):

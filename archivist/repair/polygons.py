@@ -35,7 +35,7 @@ from ..analysis.messages import ABOVE
 from ..analysis.nearness import dwithin_pairs, length_near
 from ..analysis.polygons import polygonal
 from ..project import Layer
-from .model import FEATURE_ID, Change, Left, RepairSettings, RepairState
+from .model import FEATURE_ID, SOURCE_LAYER, Change, Left, RepairSettings, RepairState
 from .registry import repair
 
 MERGE_STRATEGY = {"longest-border": "longest_border", "larger": "max_area"}
@@ -1276,6 +1276,9 @@ def dissolve_same_unit(state: RepairState, settings: RepairSettings) -> tuple[li
     of the first of them in the file.
     Never: polygons separated by a fault stay apart, and two polygons whose
     codes differ are never joined (a wrong code is the geologist's to fix).
+    Nor two whose other attributes differ (a confidence, a source, a note:
+    any field but the unit code and the id): the split may be the mapper's,
+    and dissolving would drop one polygon's values; they are left and listed.
     """
     if state.units is None or not len(state.units) or state.unit_field is None:
         return [], []
@@ -1289,6 +1292,16 @@ def dissolve_same_unit(state: RepairState, settings: RepairSettings) -> tuple[li
     pos = {str(v): i for i, v in enumerate(ids.tolist())}
     a = np.array([pos[h.features[0]] for h in hits])
     b = np.array([pos[h.features[1]] for h in hits])
+    differ = _differing_field(state, a, b)
+    left = [Left("dissolve-same-unit", "units", (str(ids[i]), str(ids[j])),
+                 f"same unit, no fault between them, but {field} differs ({_shown(state.units[field].iloc[i])} / "
+                 f"{_shown(state.units[field].iloc[j])}): not dissolved, the geologist decides whether they are one body",
+                 h.geometry, float(h.measure or 0.0))
+            for i, j, field, h in zip(a, b, differ, hits) if field is not None]
+    same = np.array([f is None for f in differ], dtype=bool)
+    a, b = a[same], b[same]
+    if not len(a):
+        return [], left
     comp = _components(len(ids), a, b)
     involved = np.unique(np.r_[a, b])
     groups: dict[int, list[int]] = {}
@@ -1298,7 +1311,34 @@ def dissolve_same_unit(state: RepairState, settings: RepairSettings) -> tuple[li
     sides = _contact_sides(state, ctx)  # read before the polygons change
     codes = _codes(state)
     changes = _merge(state, "dissolve-same-unit", groups, "same unit, no fault between them: dissolved", _geoms(state))
-    return changes + _drop_inner_contacts(state, sides, changes, ids, codes), []
+    return changes + _drop_inner_contacts(state, sides, changes, ids, codes), left
+
+
+def _shown(value: Any) -> str:
+    """An attribute value in a message: its repr, or "no value"."""
+    return "no value" if value is None or (np.ndim(value) == 0 and bool(pd.isna(value))) else repr(value)
+
+
+def _differing_field(state: RepairState, a: np.ndarray, b: np.ndarray) -> list[str | None]:
+    """Per pair of working unit rows (a[k], b[k]): the first attribute whose values differ, or None where all agree.
+
+    Every field counts but the geometry, the unit code and the id (``id_field``, the working copy's own columns);
+    two missing values agree, a missing and a filled one do not.
+    """
+    assert state.units is not None
+    frame = state.units
+    id_field = state.project.layers["units"].field("id_field") if "units" in state.project.layers else None
+    skip = {frame.geometry.name, FEATURE_ID, SOURCE_LAYER, state.unit_field, id_field}
+    fields = [str(c) for c in frame.columns if c not in skip]
+    first = np.full(len(a), -1)
+    for j, name in enumerate(fields):  # one per attribute field
+        values = np.array(frame[name].to_numpy(dtype=object), dtype=object, copy=True)  # not a view of the frame
+        missing = np.asarray(pd.isna(values), dtype=bool)
+        values[missing] = None  # pandas' NA answers == with NA, not a truth value
+        ma, mb = missing[a], missing[b]
+        agree = (ma & mb) | (~ma & ~mb & np.asarray(values[a] == values[b], dtype=bool))
+        first[(first < 0) & ~agree] = j
+    return [fields[j] if j >= 0 else None for j in first.tolist()]
 
 
 def _contact_sides(state: RepairState, ctx: CheckContext) -> tuple[Any, np.ndarray, np.ndarray] | None:
