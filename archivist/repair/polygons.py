@@ -664,6 +664,8 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                     rest = shapely.difference(geoms[k], back)
                 except GEOSException:
                     rest = None
+                if rest is not None:  # a cut out of an invalid polygon can leave a line beside the area (a collection)
+                    rest = polygonal(np.array([rest], dtype=object))[0]
                 if rest is None or shapely.is_empty(rest) or shapely.area(rest) <= 0:
                     hold[k] = True
                     hold[[pos[x] for i, j, _, f in state.overlaps_left if f and pos.get(j) == k for x in (i, j) if x in pos]] = True
