@@ -29,7 +29,7 @@ from shapely.errors import GEOSException
 from ..analysis.alignment import Alignment
 from ..analysis.arrays import present, segment_lines, segments, spans, widths
 from ..analysis.context import CheckContext
-from ..analysis.coverage import mean_width, noise_floor
+from ..analysis.coverage import NOISE_ULPS, mean_width, noise_floor
 from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
 from ..analysis.nearness import dwithin_pairs, length_near
@@ -729,16 +729,15 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                                                 merge_strategy=strategy)
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
         bare[sel] = cleaned
-        for k_, k in back:  # one per polygon with an overlap left for the geologist: the overlap given back
-            piece, note, small = _fitted_back(k, owners.get(k, []), put_back[k], cleaned, at, current, ids,
-                                              settings.overlap_max_area)
-            clipped[k] = (note, small)
-            try:
-                cleaned[k_] = shapely.union(cleaned[k_], piece)
-                if shapely.equals(cleaned[k_], work[k_]):  # nothing else changed: the input as it was (its vertices)
-                    cleaned[k_] = work[k_]
-            except GEOSException:
-                cleaned[k_] = work[k_]
+        if back:  # the polygons with an overlap left for the geologist: the overlaps given back
+            bk_, bk = np.array([k_ for k_, _ in back]), np.array([k for _, k in back])
+            given, notes, small = _fitted_back_all(bk, owners, put_back, cleaned, at, current, ids,
+                                                   settings.overlap_max_area)
+            clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk, notes, small)})
+            joined, failed, _ = elementwise(shapely.union, cleaned[bk_], given)
+            same, unsure, _ = elementwise(shapely.equals, np.where(failed, work[bk_], joined), work[bk_], fill=False)
+            # nothing else changed (or GEOS could not say): the input as it was (its vertices)
+            cleaned[bk_] = np.where(failed | unsure | np.asarray(same, dtype=bool), work[bk_], joined)
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same_r[sel] = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
         moved_r[sel] = _shift(work, cleaned)
@@ -854,35 +853,58 @@ def _misfit_edges(units: Any, edges: Any, distance: float) -> tuple[np.ndarray, 
 
 def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
                  current: np.ndarray, ids: np.ndarray, limit: float = 0.0) -> tuple[Any, str, bool]:
-    """The overlaps left between polygon ``k`` and its neighbours, each clipped to the neighbour as now cleaned.
+    """:func:`_fitted_back_all` of one polygon ``k``: its piece given back, what the log says, whether it is small."""
+    pieces, notes, small = _fitted_back_all(np.array([k]), {k: owners}, {k: piece}, cleaned, at, current, ids, limit)
+    return pieces[0], notes[0], bool(small[0])
+
+
+def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], put_back: dict[int, Any],
+                     cleaned: np.ndarray, at: dict[int, int], current: np.ndarray, ids: np.ndarray,
+                     limit: float = 0.0) -> tuple[np.ndarray, list[str], np.ndarray]:
+    """The overlaps left between each polygon of ``ks`` and its neighbours, each clipped to the neighbour as now
+    cleaned.
 
     An overlap left for the geologist is cut out of ``k`` for the cleaning;
     given back as it was, it would no longer fit the neighbour it overlaps
     where the cleaning moved that one's boundary (nor a third polygon it
     reaches into), so it is given back as its intersection with the
-    neighbour as cleaned (GEOS): it still overlaps the same neighbour, now
-    along its edges exactly. Returns the piece, what the log says where the
-    clipping took away more than rounding (empty otherwise), and whether it
-    left an overlap no larger than ``limit``, the largest a repair gives
-    away (a second run would give it away).
+    neighbour as cleaned by GEOS (``cleaned``, for the polygons ``at`` maps
+    to it; ``current`` for the others): it still overlaps the same
+    neighbour, now along its edges exactly. Per polygon: the piece (the
+    union of its clipped overlaps; ``put_back`` where it has no owner), what
+    the log says where the clipping took away more than rounding (empty
+    otherwise), and whether it left an overlap no larger than ``limit``, the
+    largest a repair gives away (a second run would give it away). All
+    overlaps at once (GEOS element-wise): at 10 % defects they were clipped
+    one by one, once per cleaning round, most of the repair's time.
     """
-    if not owners:
-        return piece, "", False
-    out, notes, small = [], [], False
-    for i, p in owners:  # one per overlap left along this polygon
-        fit = cleaned[at[i]] if i in at else current[i]
-        try:
-            q = polygonal(np.array([shapely.intersection(p, fit)], dtype=object))[0]
-        except GEOSException:
-            q = p
-        if shapely.is_missing(q) or shapely.is_empty(q):
-            q = p  # nothing of it left inside the neighbour: kept as it was (never dropped without a word)
-        lost = float(shapely.area(p) - shapely.area(q))
-        if lost > noise_floor(_scale(np.array([p], dtype=object))) * max(float(shapely.length(p)), 1.0):
-            notes.append(f"; the overlap left with {ids[i]} clipped to it as cleaned ({lost:.3g} m² less)")
-            small |= float(shapely.area(q)) <= limit
-        out.append(q)
-    return (out[0] if len(out) == 1 else shapely.union_all(out)), "".join(notes), small
+    groups = [owners.get(int(k)) or [] for k in ks]
+    size = np.array([len(g) for g in groups], dtype=np.int64)
+    k_of = np.repeat(np.arange(len(ks)), size)
+    nbr = np.array([i for g in groups for i, _ in g], dtype=np.int64)
+    pieces = np.array([p for g in groups for _, p in g], dtype=object)
+    pos = np.array([at.get(int(i), -1) for i in nbr], dtype=np.int64)
+    fit = current[nbr] if len(nbr) else np.empty(0, dtype=object)
+    fit[pos >= 0] = cleaned[pos[pos >= 0]]
+    clip, failed, _ = elementwise(lambda p, f: polygonal(shapely.intersection(p, f)), pieces, fit)
+    keep = failed | shapely.is_missing(clip) | shapely.is_empty(clip)  # nothing left inside: kept as it was
+    clip[keep] = pieces[keep]  # (never dropped without a word)
+    lost = shapely.area(pieces) - shapely.area(clip)
+    bounds = np.abs(shapely.bounds(pieces)) if len(pieces) else np.empty((0, 4))
+    scale = np.maximum(np.where(np.isfinite(bounds).all(axis=1), np.max(bounds, axis=1, initial=0.0), 1.0), 1.0)
+    noted = lost > NOISE_ULPS * float(np.finfo(float).eps) * scale * np.maximum(shapely.length(pieces), 1.0)
+    small = np.zeros(len(ks), dtype=bool)
+    np.logical_or.at(small, k_of[noted], shapely.area(clip[noted]) <= limit)
+    notes = [""] * len(ks)
+    for j in np.flatnonzero(noted):  # one per overlap clipped by more than rounding
+        notes[k_of[j]] += f"; the overlap left with {ids[nbr[j]]} clipped to it as cleaned ({lost[j]:.3g} m² less)"
+    out = np.array([put_back.get(int(k)) for k in ks], dtype=object)
+    starts = np.r_[0, np.cumsum(size)[:-1]] if len(size) else np.zeros(0, dtype=np.int64)
+    one = size == 1
+    out[one] = clip[starts[one]]
+    for g in np.flatnonzero(size > 1):  # one per polygon with overlaps left with two neighbours or more
+        out[g] = shapely.union_all(clip[starts[g]:starts[g] + size[g]])
+    return out, notes, small
 
 
 def _rounding_only(near: "_Near", geoms: np.ndarray, current: np.ndarray, changed: np.ndarray, moved: np.ndarray,
@@ -939,7 +961,8 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
     """
     eps = NEAR_LEFT * _scale(geoms)
     try:
-        edges = shapely.union_all(shapely.boundary(np.array(pieces, dtype=object)))
+        rings = shapely.boundary(np.array(pieces, dtype=object))
+        rings = rings[present(rings)]
     except GEOSException:
         return False
 
@@ -954,13 +977,45 @@ def _only_overlaps_left(near: "_Near", geoms: np.ndarray, region: np.ndarray, se
             return True
         a, b, _ = segments(parts)
         lines = segment_lines(a[:, 0], a[:, 1], b[:, 0], b[:, 1])
-        along = length_near(lines, np.full(len(lines), edges, dtype=object), eps)
+        try:
+            along = _along_any(lines, rings, eps)
+        except GEOSException:  # GEOS cannot tell: cleaned as before
+            return True
         off = shapely.length(lines) - along
         return float(off[along <= ALONG_LEFT * distance].sum()) > eps  # bits of edge at the overlap's corners, cut in rounding
 
     if len(seeds) and unexplained(np.flatnonzero(near.of(seeds))):
         return False
     return not unexplained(np.flatnonzero(region))
+
+
+def _along_any(lines: np.ndarray, refs: np.ndarray, dist: float) -> np.ndarray:
+    """Per line: the length of it within ``dist`` of the union of ``refs`` (linear geometries).
+
+    :func:`archivist.analysis.nearness.length_near` against the union of the
+    references that reach into the line's box widened as it widens it (twice
+    ``dist``): the others have nothing within ``dist`` of the line. Measured
+    against the union of them all, each line clipped that whole union to its
+    box: with a few thousand overlaps left for the geologist (a map of 10^5
+    polygons, 1 % defects, polygons grown 2 m), 21 of the 41 s of snap-edges.
+    """
+    out = np.zeros(len(lines))
+    if not len(lines) or not len(refs):
+        return out
+    b = shapely.bounds(lines)
+    pad = 2.0 * dist + 1e-9  # as archivist.analysis.nearness.clipped_near pads
+    li, ri = shapely.STRtree(refs).query(shapely.box(b[:, 0] - pad, b[:, 1] - pad, b[:, 2] + pad, b[:, 3] + pad),
+                                         predicate="intersects")
+    if not len(li):
+        return out
+    order = np.lexsort((ri, li))
+    li, ri = li[order], ri[order]
+    near, start, count = np.unique(li, return_index=True, return_counts=True)
+    ref = refs[ri[start]]
+    for g in np.flatnonzero(count > 1):  # one per line reached by two references or more
+        ref[g] = shapely.union_all(refs[ri[start[g]:start[g] + count[g]]])
+    out[near] = length_near(lines[near], ref, dist)
+    return out
 
 
 # How near an overlap left for the geologist an invalid edge counts as its edge, relative to the coordinates'
