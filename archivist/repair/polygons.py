@@ -731,13 +731,24 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         bare[sel] = cleaned
         if back:  # the polygons with an overlap left for the geologist: the overlaps given back
             bk_, bk = np.array([k_ for k_, _ in back]), np.array([k for _, k in back])
-            given, notes, small = _fitted_back_all(bk, owners, put_back, cleaned, at, current, ids,
-                                                   settings.overlap_max_area)
-            clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk, notes, small)})
-            joined, failed, _ = elementwise(shapely.union, cleaned[bk_], given)
-            same, unsure, _ = elementwise(shapely.equals, np.where(failed, work[bk_], joined), work[bk_], fill=False)
-            # nothing else changed (or GEOS could not say): the input as it was (its vertices)
-            cleaned[bk_] = np.where(failed | unsure | np.asarray(same, dtype=bool), work[bk_], joined)
+            # in the order of the polygons, each clipped to its neighbours as they stand then (one given its own
+            # overlaps back already, or as GEOS cleaned it): in waves, each polygon after the earlier neighbours
+            # it is clipped to, the polygons of a wave all at once
+            earlier = {int(k): t for t, k in enumerate(bk.tolist())}
+            wave = np.zeros(len(bk), dtype=np.int64)
+            for t, k in enumerate(bk.tolist()):  # one per polygon given overlaps back (integers only)
+                wave[t] = 1 + max((wave[earlier[i]] for i, _ in owners.get(k, []) if earlier.get(i, t) < t), default=-1)
+            as_cleaned = cleaned.copy()
+            for w in range(int(wave.max()) + 1):
+                now = np.flatnonzero(wave == w)
+                given, notes, small = _fitted_back_all(bk[now], owners, put_back, cleaned, at, current, ids,
+                                                       settings.overlap_max_area, as_cleaned, earlier)
+                clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk[now], notes, small)})
+                k_ = bk_[now]
+                joined, failed, _ = elementwise(shapely.union, cleaned[k_], given)
+                same, unsure, _ = elementwise(shapely.equals, np.where(failed, work[k_], joined), work[k_], fill=False)
+                # nothing else changed (or GEOS could not say): the input as it was (its vertices)
+                cleaned[k_] = np.where(failed | unsure | np.asarray(same, dtype=bool), work[k_], joined)
         cleaned = polygonal(cleaned) if back else cleaned  # a union can leave a line beside the area
         same_r[sel] = shapely.equals_exact(shapely.normalize(_single(work)), shapely.normalize(_single(cleaned)))
         moved_r[sel] = _shift(work, cleaned)
@@ -860,7 +871,8 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
 
 def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], put_back: dict[int, Any],
                      cleaned: np.ndarray, at: dict[int, int], current: np.ndarray, ids: np.ndarray,
-                     limit: float = 0.0) -> tuple[np.ndarray, list[str], np.ndarray]:
+                     limit: float = 0.0, as_cleaned: np.ndarray | None = None,
+                     earlier: dict[int, int] | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
     """The overlaps left between each polygon of ``ks`` and its neighbours, each clipped to the neighbour as now
     cleaned.
 
@@ -874,9 +886,14 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     union of its clipped overlaps; ``put_back`` where it has no owner), what
     the log says where the clipping took away more than rounding (empty
     otherwise), and whether it left an overlap no larger than ``limit``, the
-    largest a repair gives away (a second run would give it away). All
-    overlaps at once (GEOS element-wise): at 10 % defects they were clipped
-    one by one, once per cleaning round, most of the repair's time.
+    largest a repair gives away (a second run would give it away). With
+    ``earlier`` (each polygon's place in the order they are given their
+    overlaps back), a neighbour placed after ``k`` is taken from
+    ``as_cleaned`` (GEOS's cleaning, before any overlap went back) and one
+    placed before it from ``cleaned``: as if given back one at a time in that
+    order. All overlaps of ``ks`` at once (GEOS element-wise): at 10 %
+    defects they were clipped one by one, once per cleaning round, most of
+    the repair's time.
     """
     groups = [owners.get(int(k)) or [] for k in ks]
     size = np.array([len(g) for g in groups], dtype=np.int64)
@@ -886,6 +903,9 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     pos = np.array([at.get(int(i), -1) for i in nbr], dtype=np.int64)
     fit = current[nbr] if len(nbr) else np.empty(0, dtype=object)
     fit[pos >= 0] = cleaned[pos[pos >= 0]]
+    if earlier is not None and as_cleaned is not None:  # neighbours given their overlaps back after k: not yet
+        later = np.array([earlier.get(int(i), -1) > earlier.get(int(ks[k]), -1) for i, k in zip(nbr, k_of)], dtype=bool)
+        fit[later & (pos >= 0)] = as_cleaned[pos[later & (pos >= 0)]]
     clip, failed, _ = elementwise(lambda p, f: polygonal(shapely.intersection(p, f)), pieces, fit)
     keep = failed | shapely.is_missing(clip) | shapely.is_empty(clip)  # nothing left inside: kept as it was
     clip[keep] = pieces[keep]  # (never dropped without a word)
