@@ -29,7 +29,7 @@ from shapely.errors import GEOSException
 from ..analysis.alignment import Alignment
 from ..analysis.arrays import present, segment_lines, segments, spans, widths
 from ..analysis.context import CheckContext
-from ..analysis.coverage import NOISE_ULPS, mean_width, noise_floor
+from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
 from ..analysis.nearness import dwithin_pairs, length_near
@@ -912,7 +912,7 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     lost = shapely.area(pieces) - shapely.area(clip)
     bounds = np.abs(shapely.bounds(pieces)) if len(pieces) else np.empty((0, 4))
     scale = np.maximum(np.where(np.isfinite(bounds).all(axis=1), np.max(bounds, axis=1, initial=0.0), 1.0), 1.0)
-    noted = lost > NOISE_ULPS * float(np.finfo(float).eps) * scale * np.maximum(shapely.length(pieces), 1.0)
+    noted = lost > noise_floor(1.0) * scale * np.maximum(shapely.length(pieces), 1.0)  # noise_floor(scale), per piece
     small = np.zeros(len(ks), dtype=bool)
     np.logical_or.at(small, k_of[noted], shapely.area(clip[noted]) <= limit)
     notes = [""] * len(ks)
