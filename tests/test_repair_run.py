@@ -370,7 +370,8 @@ def test_cli_refuses_units_handed_in_as_several_files(tmp_path):
 
 
 @pytest.mark.parametrize("ids, said", [
-    (["P-1", "P-2", "P-2", "P-4", "P-5"], "id 'P-2' in poly_id is given to 2 features (feature 2, feature 3)"),
+    # the centres of [5, 10] x [0, 5] and [0, 5] x [5, 10], by hand: sqrt(50) = 7.07 m apart
+    (["P-1", "P-2", "P-2", "P-4", "P-5"], "id 'P-2' in poly_id is given to 2 features (feature 2, feature 3), 7.1 m apart"),
     (["P-1", None, "P-3", "P-4", "P-5"], "1 feature has no id in poly_id: feature 2"),
 ])
 def test_repair_refuses_units_whose_id_field_does_not_name_each_feature_once(tmp_path, ids, said):

@@ -177,9 +177,13 @@ def test_feature_id_duplicate_names_the_id_and_its_features_and_the_features_wit
     got = [(f.features, f.message) for f in findings(root, "feature-id-duplicate")]
     assert got == [
         (("4",), "units (map.gpkg:units): 1 feature has no id in poly_id: feature 4."),
-        (("P-2",), "units (map.gpkg:units): id 'P-2' in poly_id is given to 2 features (feature 2, feature 5)."),
-        (("P-7",), "units (map.gpkg:units): id 'P-7' in poly_id is given to 2 features (feature 1, feature 3)."),
+        (("P-2",), "units (map.gpkg:units): id 'P-2' in poly_id is given to 2 features (feature 2, feature 5), 120.0 m apart."),
+        (("P-7",), "units (map.gpkg:units): id 'P-7' in poly_id is given to 2 features (feature 1, feature 3), 80.0 m apart."),
     ]
+    # how far apart: between the centres of the 40 m x 100 m boxes, worked by hand (GEOS's point on surface of a box)
+    shared = {f.features: f for f in findings(root, "feature-id-duplicate")}
+    assert shared[("P-7",)].measure == pytest.approx(80.0) and shared[("P-2",)].measure == pytest.approx(120.0)
+    assert all(f.wkt and f.x is not None for f in shared.values())  # where: the features' geometries
     assert findings(tiny_project(tmp_path, name="no-id-field", units=units), "feature-id-duplicate") == []  # FIDs
 
 

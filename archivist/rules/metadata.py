@@ -400,8 +400,10 @@ def feature_id_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit
 
     Example
     -------
-    Two polygons numbered P-7 in `poly_id` give "units (map.gpkg:units):
-    id 'P-7' in poly_id is given to 2 features (feature 4, feature 9)."
+    Two polygons numbered P-7 in `poly_id`, 80 m apart, give "units
+    (map.gpkg:units): id 'P-7' in poly_id is given to 2 features (feature 4,
+    feature 9), 80.0 m apart." The finding's geometry holds those features;
+    its measure is how far apart they lie (0 m suggests a row entered twice).
     """
     for role, layer in project.sources.items():
         name = layer.field("id_field")
@@ -409,16 +411,28 @@ def feature_id_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit
             continue
         ids = np.char.strip(np.asarray(layer.text("id_field"), dtype=object).astype(str))
         fids = layer.frame.index
+        geoms = layer.geometry
+        drawn = ~_empty_mask(geoms)
         blank = np.flatnonzero(ids == "")
         if len(blank):
             shown = ", ".join(f"feature {fids[i]}" for i in blank[:20]) + (", ..." if len(blank) > 20 else "")
             yield Hit(f"{role} ({layer.source}): {plural(len(blank), 'feature')} {verb(len(blank), 'has', 'have')} no id "
-                      f"in {name}: {shown}.", layer=role, features=tuple(str(fids[i]) for i in blank))
-        values, counts = np.unique(ids, return_counts=True)
+                      f"in {name}: {shown}.", layer=role, features=tuple(str(fids[i]) for i in blank),
+                      geometry=shapely.geometrycollections(geoms[blank[drawn[blank]]]) if drawn[blank].any() else None)
+        values, inverse, counts = np.unique(ids, return_inverse=True, return_counts=True)
+        grouped = np.argsort(inverse, kind="stable")  # rows by id, each id's rows in file order
+        start = np.r_[0, np.cumsum(counts)[:-1]]
         for k in np.flatnonzero((counts > 1) & (values != "")):  # one per id given twice or more
-            rows = np.flatnonzero(ids == values[k])
+            rows = grouped[start[k]:start[k] + counts[k]]
+            placed = rows[drawn[rows]]
+            spread = None
+            if len(placed) > 1:  # the representative points of the features farthest apart (GEOS point on surface)
+                xy = shapely.get_coordinates(shapely.point_on_surface(geoms[placed]))
+                spread = float(np.max(np.hypot(xy[:, None, 0] - xy[None, :, 0], xy[:, None, 1] - xy[None, :, 1])))
+            apart = f", {spread:.1f} m apart" if spread is not None else ""
             yield Hit(f"{role} ({layer.source}): id '{values[k]}' in {name} is given to {len(rows)} features "
-                      f"({', '.join(f'feature {fids[i]}' for i in rows)}).", layer=role, features=(str(values[k]),))
+                      f"({', '.join(f'feature {fids[i]}' for i in rows)}){apart}.", layer=role, features=(str(values[k]),),
+                      measure=spread, geometry=shapely.geometrycollections(geoms[placed]) if len(placed) else None)
 
 
 @rule("geometry-type-unexpected", family="metadata", severity="error")
