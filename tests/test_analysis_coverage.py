@@ -337,3 +337,25 @@ def test_gaps_joined_in_small_batches_are_the_same(laden_map, monkeypatch):
     monkeypatch.setattr(coverage, "TABLE_CELLS", 5)  # a few windows per batch
     small, k2, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
     assert k.tolist() == k2.tolist() and shapely.to_wkb(whole).tolist() == shapely.to_wkb(small).tolist()
+
+
+def test_the_map_scale_is_the_largest_coordinate_of_the_units_and_extent_as_geos_bounds_them(tmp_path):
+    # map_scale reads each geometry's largest |x|, |y| from the layer's far-coordinate answer; outside
+    # reference: GEOS's envelope of the same geometries (shapely.total_bounds), features far outside any map
+    # (left to coordinates-implausible) and empty ones not counted
+    import geopandas as gpd
+    from builders import tiny_project
+
+    from archivist.analysis.coverage import map_scale
+
+    units = gpd.GeoDataFrame(
+        {"unit": ["A", "B", "A", "B"]},
+        geometry=[box(-350_000.25, 6_000_000, -349_990, 6_000_010), box(512_345.5, 6_400_000.75, 512_355.5, 6_400_010.75),
+                  box(1e12, 1e12, 1e12 + 10, 1e12 + 10), Polygon()],
+        crs="EPSG:32633",
+    )
+    root = tiny_project(tmp_path, units=units, extent=box(-400_000, 5_900_000, 600_000, 6_500_000.5))
+    project = load_project(root)
+    kept = [g for g in units.geometry[:2]] + [box(-400_000, 5_900_000, 600_000, 6_500_000.5)]
+    x0, y0, x1, y1 = shapely.total_bounds(np.array(kept, dtype=object))
+    assert map_scale(project) == max(abs(x0), abs(y0), abs(x1), abs(y1)) == 6_500_000.5

@@ -1005,3 +1005,30 @@ def test_jobs_fork_partitions_only_when_every_partitioned_family_goes_whole(tmp_
     assert parallel.fork_parts(project, select([whole[0]], []), 1) is None
     monkeypatch.setattr(parallel, "FORK_FEATURES", 10**9)
     assert parallel.fork_parts(project, select([whole[0]], []), 2) is None
+
+
+def test_free_memory_is_released_before_the_workers_fork_and_nothing_held_changes(tmp_path, monkeypatch):
+    # glibc's malloc_trim only gives free pages back to the system; where there is no glibc nothing is done
+    import ctypes
+
+    _needs_fork()
+    project = _grid_project(tmp_path)
+    before = [g.wkb for g in project.layers["units"].geometry]
+    parallel.release_free_memory()
+    assert [g.wkb for g in project.layers["units"].geometry] == before
+    calls: list[int] = []
+    real = parallel.release_free_memory
+    monkeypatch.setattr(parallel, "release_free_memory", lambda: calls.append(1) or real())
+    pool = parallel.ForkPool(1)
+    try:
+        pool.share(project)
+        pool.start()
+        assert calls == [1]
+    finally:
+        pool.shutdown()
+
+    def no_libc(*args, **kwargs):
+        raise OSError("no C library here")
+
+    monkeypatch.setattr(ctypes, "CDLL", no_libc)
+    assert real() is None

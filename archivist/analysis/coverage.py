@@ -222,10 +222,10 @@ def map_scale(project: MapProject) -> float:
         layer = project.layers.get(role)
         if layer is None or not len(layer.frame):
             continue
-        g = layer.geometry
-        keep = present(g) & ~layer.far[0]
+        far, largest = layer.far  # each geometry's largest |x|, |y|: the largest of its bounds, exactly
+        keep = present(layer.geometry) & ~far
         if keep.any():
-            scale = max(scale, _scale_of(shapely.box(*shapely.total_bounds(g[keep]))))
+            scale = max(scale, float(largest[keep].max()))
     return scale
 
 
