@@ -72,3 +72,31 @@ def test_a_table_built_from_the_last_one_equals_a_build_from_scratch():
         fresh = build_edges(geoms)
         assert _same_table(build_edges(geoms, basis), fresh), step
         assert len(fresh.suspects)  # the changes leave traces: the comparison is not of clean tables only
+
+
+def test_polygons_taken_apart_in_batches_give_the_rows_of_one_pass_and_geos_outline(monkeypatch):
+    # a grid of squares, every fourth one with a hole, some as one-part multipolygons, one of two parts: cut into
+    # batches of a few coordinates (a batch boundary inside a multipolygon never: a polygon is never split)
+    from shapely.geometry import MultiPolygon
+
+    from archivist.analysis import halfedges
+
+    cells = []
+    for i in range(12):
+        for j in range(9):
+            b = box(i, j, i + 1, j + 1)
+            if (i + j) % 4 == 0:
+                b = b.difference(box(i + 0.25, j + 0.25, i + 0.75, j + 0.75))
+            cells.append(MultiPolygon([b]) if (i * j) % 5 == 1 else b)
+    cells.append(MultiPolygon([box(20, 0, 21, 1), box(22, 0, 23, 1)]))
+    geoms = np.array(cells, dtype=object)
+    one = halfedges.half_edge_rows(geoms)
+    monkeypatch.setattr(halfedges, "BATCH_COORDS", 7)
+    batched = halfedges.half_edge_rows(geoms)
+    for name in ("px", "py", "qx", "qy", "fwd", "h", "owner"):
+        a, b = getattr(one, name), getattr(batched, name)
+        assert a.dtype == b.dtype and np.array_equal(a, b), name
+    edges = build_edges(geoms)
+    # outside reference: the edges drawn once are the outline GEOS's coverage union gives (holes included)
+    outline = shapely.length(shapely.boundary(shapely.coverage_union_all(geoms)))
+    assert float(edges.length[~edges.twin].sum()) == outline == 2 * (12 + 9) + 27 * 2 + 8
