@@ -786,24 +786,37 @@ def _result_from(index: int, rows: tuple[Any, ...], wkb: np.ndarray, failed: tup
     return PartitionResult(index, hits, failed, notes, tallies)
 
 
-def place_of(hit: Hit) -> tuple[float, float, tuple[float, float, float, float] | None]:
-    """A hit's representative point (as :func:`archivist.engine.to_finding` takes it) and the bounds of its geometry and point."""
+def places_of(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Each hit's representative point and the box around its geometry and that point, for all hits at once.
+
+    The point is the one :func:`archivist.engine.to_findings` gives the
+    finding: the hit's own x and y, else its geometry itself where that is a
+    point, else GEOS's point on the geometry's surface. Returns x, y (NaN
+    where the hit has neither a point nor a geometry that is not empty) and
+    the boxes (xmin, ymin, xmax, ymax: the geometry's bounds grown to take in
+    the point; NaN where there is neither).
+    """
     import shapely
 
-    x, y = hit.x, hit.y
-    g = hit.geometry
-    box = None
-    if g is not None and not shapely.is_empty(g):
-        b = shapely.bounds(g)
-        box = (float(b[0]), float(b[1]), float(b[2]), float(b[3]))
-        if x is None or y is None:
-            p = g if g.geom_type == "Point" else shapely.point_on_surface(g)
-            x, y = p.x, p.y
-    if x is None or y is None:
-        return np.nan, np.nan, box
-    x, y = float(x), float(y)
-    box = (x, y, x, y) if box is None else (min(box[0], x), min(box[1], y), max(box[2], x), max(box[3], y))
-    return x, y, box
+    n = len(hits)
+    geoms = np.empty(n, dtype=object)
+    geoms[:] = [h.geometry for h in hits]
+    xs = np.array([float(h.x) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    ys = np.array([float(h.y) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    given = np.array([h.x is not None and h.y is not None for h in hits], dtype=bool)
+    boxes = np.full((n, 4), np.nan)
+    shown = ~shapely.is_missing(geoms)
+    shown[shown] = ~shapely.is_empty(geoms[shown])
+    if shown.any():
+        boxes[shown] = shapely.bounds(geoms[shown])
+        need = np.flatnonzero(shown & ~given)
+        if len(need):
+            g = geoms[need]
+            points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
+            xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
+    boxes[:, 0], boxes[:, 1] = np.fmin(boxes[:, 0], xs), np.fmin(boxes[:, 1], ys)
+    boxes[:, 2], boxes[:, 3] = np.fmax(boxes[:, 2], xs), np.fmax(boxes[:, 3], ys)
+    return xs, ys, boxes
 
 
 def trusted(grid: Grid, marked: np.ndarray, boxes: np.ndarray, reach: float) -> np.ndarray:
@@ -879,11 +892,9 @@ def run_partition(task: PartitionTask) -> PartitionResult:
             failed.append(rid)
             found = [(r, h) for r, h in found if r != rid]
             tallies = [t for t in tallies if t[0] != rid]
-    places = [place_of(h) for _, h in found]
-    boxes = np.array([b if b is not None else (np.nan,) * 4 for _, _, b in places], dtype=float).reshape(-1, 4)
-    trust = trusted(task.grid, task.marked, boxes, task.reach)
-    hits = tuple((rid, hit, x, y, bool(t) and bool(np.isfinite(x)))
-                 for (rid, hit), (x, y, _), t in zip(found, places, trust))
+    xs, ys, boxes = places_of([h for _, h in found])
+    trust = trusted(task.grid, task.marked, boxes, task.reach) & np.isfinite(xs)
+    hits = tuple((rid, hit, x, y, t) for (rid, hit), x, y, t in zip(found, xs.tolist(), ys.tolist(), trust.tolist()))
     return PartitionResult(task.index, hits, tuple(failed), tuple(ctx.notes), tuple(tallies))
 
 

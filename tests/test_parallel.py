@@ -635,10 +635,38 @@ def test_a_summary_of_stretches_owned_by_different_partitions(tmp_path, monkeypa
     from archivist.analysis.context import CheckContext
 
     ctx = CheckContext(project)
-    places = np.array([parallel.place_of(h)[:2] for h in get_rule("boundary-without-line").func(ctx.view(), ctx)])
+    xs, ys, _ = parallel.places_of(list(get_rule("boundary-without-line").func(ctx.view(), ctx)))
+    places = np.c_[xs, ys]
     plan = parallel.plan_partitions(ctx.view(), 4)
     assert set(plan.owners(places[:, 0], places[:, 1]).tolist()) == {0, 1, 2, 3}
     assert merged[0].whole == ()
+
+
+def test_a_hits_place_is_the_findings_place_and_its_box_takes_in_geometry_and_point():
+    # what a partition owns a hit by must be where the finding will stand: archivist.engine.to_findings places it
+    # (rounded there to the map's digits); the box is GEOS's bounds of the geometry, grown to the point
+    info = get_rule("unit-overlap")
+    tri = shapely.Polygon([(0, 0), (4, 0), (0, 3)])
+    hits = [
+        Hit("own point", geometry=tri, x=10.0, y=-2.0),  # its own point, outside its geometry
+        Hit("polygon", geometry=tri),
+        Hit("point", geometry=shapely.Point(2.5, 7.25)),
+        Hit("line", geometry=shapely.LineString([(0, 0), (2, 2), (6, 2)])),
+        Hit("empty", geometry=shapely.Polygon()),
+        Hit("nothing"),
+        Hit("point only", x=1.5, y=2.5),
+    ]
+    xs, ys, boxes = parallel.places_of(hits)
+    findings = engine.to_findings(info, hits, info.severity, digits=9)
+    for f, x, y in zip(findings, xs.tolist(), ys.tolist()):
+        assert (f.x, f.y) == ((round(x, 9), round(y, 9)) if np.isfinite(x) else (None, None)), f.message
+    on = shapely.point_on_surface(tri)
+    assert (xs[1], ys[1]) == (on.x, on.y) and (xs[2], ys[2]) == (2.5, 7.25)
+    assert boxes[0].tolist() == [0.0, -2.0, 10.0, 3.0]
+    assert boxes[1].tolist() == list(shapely.bounds(tri)) and boxes[3].tolist() == [0.0, 0.0, 6.0, 2.0]
+    assert boxes[6].tolist() == [1.5, 2.5, 1.5, 2.5]
+    assert np.isnan(boxes[4]).all() and np.isnan(boxes[5]).all() and np.isnan(xs[4]) and np.isnan(xs[5])
+    assert [len(a) for a in parallel.places_of([])] == [0, 0, 0]
 
 
 def test_missing_linework_without_an_extent_layer_stays_whole(tmp_path):
