@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import threading
 from concurrent.futures import Executor
 from itertools import groupby
@@ -38,15 +39,18 @@ __all__ = ["CheckContext", "check", "run_rules", "to_finding", "rule_failed", "e
 
 
 def _round(v: float | None, digits: int = LINEAR_DIGITS) -> float | None:
-    """A location to ``digits`` decimals of map units (:func:`archivist.project.location_digits`); see :func:`_measure` for sizes."""
-    if v is None or not np.isfinite(v):
+    """A location to ``digits`` decimals of map units (:func:`archivist.project.location_digits`); see :func:`_measure` for sizes.
+
+    ``math.isfinite``, not numpy's: this runs for every finding's x and y, and numpy's scalar call costs ten times more.
+    """
+    if v is None or not math.isfinite(v):
         return None
     return float(round(v, digits))
 
 
 def _measure(v: float | None) -> float | None:
     """A size to 1e-3 from 1 up, and to three significant digits below 1 (a 1e-6 m² overlap stays 1e-6)."""
-    if v is None or not np.isfinite(v):
+    if v is None or not math.isfinite(v):
         return None
     if v == 0.0 or abs(v) >= 0.9995:
         return float(round(v, 3))
