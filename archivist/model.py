@@ -20,13 +20,14 @@ class Severity(str, enum.Enum):
 
     @property
     def rank(self) -> int:
-        return {"error": 0, "warning": 1, "notice": 2}[self.value]
+        return _RANKS[self.value]
 
     @classmethod
     def parse(cls, value: str) -> "Severity":
         return cls(str(value).strip().lower())
 
 
+_RANKS = {"error": 0, "warning": 1, "notice": 2}  # the order of a report's findings (one dict, not one per call)
 SEVERITY_CHOICES = ("error", "warning", "notice", "off")
 
 
