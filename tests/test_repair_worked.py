@@ -177,6 +177,24 @@ def test_sliver_merges_into_a_neighbour_of_its_own_unit(tmp_path):
     assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.0, 26.5, 23.5])
 
 
+def test_a_sliver_left_says_whether_it_runs_along_a_neighbour_or_touches_none(tmp_path):
+    # tests/builders.py's squares at 1:10 000 (tolerance 1 m, slivers under 5 m wide): C = [0, 200] x [100, 100.5] along
+    # their tops with one bottom edge, no vertex at x = 100 where A's top meets B's, and B's vertex 0.3 m into C
+    # (resolve-overlaps gives that 15 m² to C, by hand 100 x 0.3 / 2). C shares no twinned edge, yet its bottom
+    # runs 100 m along A's top and 100 m along B's (GEOS's intersection of the boundaries): not "sharing no edge",
+    # the tie goes to the first polygon. D = [300, 300.3] x [0, 10], apart from all, is an island
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "C", "D"]}, crs="EPSG:32633", geometry=[
+        box(0, 0, 100, 100), shapely.Polygon([(100, 0), (200, 0), (200, 100), (150, 100.3), (100, 100)]),
+        box(0, 100, 200, 100.5), box(300, 0, 300.3, 10)])
+    result = repair(tiny_project(tmp_path, units=units), None, dry_run=True)
+    slivers = {x.features: x.reason for x in result.left if x.repair == "merge-slivers"}
+    assert slivers == {
+        ("3",): "a sliver whose edge runs along polygon 1's without sharing its vertices (snap-edges could not snap "
+                "them): not merged, merge it by hand",
+        ("4",): "a sliver sharing no edge with another polygon"}
+    assert [c.area_moved for c in result.changes if c.repair == "resolve-overlaps"] == [pytest.approx(15.0)]
+
+
 def test_same_unit_neighbours_dissolve_unless_a_fault_runs_between(tmp_path):
     geoms = [box(0, 0, 5, 10), box(5, 0, 10, 10)]
     project = square(tmp_path, geoms, ["A", "A"])

@@ -1220,6 +1220,30 @@ def _shared_lengths(geoms: np.ndarray, of: np.ndarray | None = None) -> tuple[np
     return key // n, key % n, length
 
 
+def _running_along(geoms: np.ndarray, rows: np.ndarray, ids: np.ndarray) -> dict[int, str]:
+    """For the polygons ``rows`` that share no edge (no twinned half-edge): the id of the polygon whose boundary
+    runs longest along theirs all the same, where one does (GEOS's intersection of the two boundaries has a length:
+    the same line drawn with other vertices, a misfit snap-edges could not snap)."""
+    if not len(rows):
+        return {}
+    have = np.flatnonzero(present(geoms))
+    i, j = shapely.STRtree(geoms[have]).query(geoms[rows], predicate="intersects")
+    j = have[j]
+    keep = j != rows[i]
+    i, j = i[keep], j[keep]
+    if not len(i):
+        return {}
+    length, _, _ = elementwise(lambda a, b: shapely.length(shapely.intersection(shapely.boundary(a), shapely.boundary(b))),
+                               geoms[rows[i]], geoms[j], fill=0.0)  # where GEOS stops: not known to run along
+    length = length.astype(float)
+    on = length > 0
+    i, j, length = i[on], j[on], length[on]
+    order = np.lexsort((j, -length, i))  # per sliver, the longest run first (then the first polygon)
+    i, j = i[order], j[order]
+    first = np.r_[True, i[1:] != i[:-1]] if len(i) else np.zeros(0, dtype=bool)
+    return {int(rows[a]): str(ids[b]) for a, b in zip(i[first], j[first])}
+
+
 def _components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Connected component label of each of n nodes joined by edges (a, b): union-find on arrays."""
     parent = np.arange(n)
@@ -1280,7 +1304,9 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     polygon keeps the neighbour's id, code and attributes. Sliver chains
     merge into the first polygon that is not a sliver.
     Never: a sliver with no neighbour sharing an edge (an island) is left
-    and listed; a real small body (a dyke, a thin bed) is for the geologist
+    and listed, as is one whose edge runs along a neighbour's without
+    sharing its vertices (a misfit snap-edges could not snap; the entry
+    names that neighbour); a real small body (a dyke, a thin bed) is for the geologist
     to keep and exaggerate, so skip this repair (``--skip merge-slivers``)
     where the map has them.
     """
@@ -1327,8 +1353,12 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     target = np.full(len(geoms), -1)
     target[s[first]] = t[first]
     lonely = np.flatnonzero(sliver & (target < 0))
-    left = [Left("merge-slivers", "units", (str(ids[k]),), "a sliver sharing no edge with another polygon", geoms[k], float(area[k]))
-            for k in lonely]
+    along = _running_along(geoms, lonely, ids)
+    left = [Left("merge-slivers", "units", (str(ids[k]),),
+                 f"a sliver whose edge runs along polygon {along[k]}'s without sharing its vertices (snap-edges could not "
+                 "snap them): not merged, merge it by hand" if k in along else
+                 "a sliver sharing no edge with another polygon", geoms[k], float(area[k]))
+            for k in lonely.tolist()]
     # follow chains to a non-sliver (or to the largest sliver of a group of slivers only)
     src = np.flatnonzero(target >= 0)
     comp = _components(len(geoms), src, target[src])
