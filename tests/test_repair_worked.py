@@ -177,22 +177,66 @@ def test_sliver_merges_into_a_neighbour_of_its_own_unit(tmp_path):
     assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.0, 26.5, 23.5])
 
 
-def test_a_sliver_left_says_whether_it_runs_along_a_neighbour_or_touches_none(tmp_path):
+def _strip_map(tmp_path: Path, name: str = "strip") -> Path:
     # tests/builders.py's squares at 1:10 000 (tolerance 1 m, slivers under 5 m wide): C = [0, 200] x [100, 100.5] along
-    # their tops with one bottom edge, no vertex at x = 100 where A's top meets B's, and B's vertex 0.3 m into C
-    # (resolve-overlaps gives that 15 m² to C, by hand 100 x 0.3 / 2). C shares no twinned edge, yet its bottom
-    # runs 100 m along A's top and 100 m along B's (GEOS's intersection of the boundaries): not "sharing no edge",
-    # the tie goes to the first polygon. D = [300, 300.3] x [0, 10], apart from all, is an island
+    # their tops with one bottom edge, no vertex at x = 100 where A's top meets B's, and B's vertex 0.3 m into C;
+    # D = [300, 300.3] x [0, 10], apart from all, an island
     units = gpd.GeoDataFrame({"unit": ["A", "B", "C", "D"]}, crs="EPSG:32633", geometry=[
         box(0, 0, 100, 100), shapely.Polygon([(100, 0), (200, 0), (200, 100), (150, 100.3), (100, 100)]),
         box(0, 100, 200, 100.5), box(300, 0, 300.3, 10)])
-    result = repair(tiny_project(tmp_path, units=units), None, dry_run=True)
-    slivers = {x.features: x.reason for x in result.left if x.repair == "merge-slivers"}
-    assert slivers == {
+    return tiny_project(tmp_path, name=name, units=units)
+
+
+def test_a_strip_along_the_map_edge_narrower_than_the_tolerance_is_noded_and_merged(tmp_path):
+    # resolve-overlaps gives B's bump to C (by hand 100 x 0.3 / 2 = 15 m²); snapping at 1 m would fold C (0.5 m wide)
+    # away, at half and a quarter of it C keeps its shape and gets a vertex at (100, 100): nothing moves. GEOS's
+    # thin-gap test flags C's top edge all the same (0.5 m from A's and B's tops across C itself; no ground is
+    # uncovered), which held C as filed before. Then C shares 100 m with A and 100 m with B: the tie goes to A,
+    # 10 000 + 100 = 10 100 m²; B 10 015 - 15 = 10 000 m². D, an island, is left
+    result = repair(_strip_map(tmp_path), tmp_path / "out")
+    done = [(c.repair, c.features_before, c.features_after) for c in result.changes if c.repair != "draw-missing-lines"]
+    assert done == [("resolve-overlaps", ("3", "2"), ("3", "2")), ("snap-edges", ("3",), ("3",)),
+                    ("merge-slivers", ("1", "3"), ("1",))]
+    snapped = next(c for c in result.changes if c.repair == "snap-edges")
+    assert snapped.max_shift == 0.0 and shapely.equals(snapped.after, box(0, 100, 200, 100.5))
+    assert [(x.repair, x.features, x.reason) for x in result.left] == [
+        ("merge-slivers", ("4",), "a sliver sharing no edge with another polygon")]
+    units = copy_units(tmp_path / "out")
+    assert units.index.tolist() == [1, 2, 4]
+    assert units.geometry.area.tolist() == pytest.approx([10100.0, 10000.0, 3.0])
+    assert shapely.coverage_is_valid(units.geometry.values[:2])
+    assert topology_rules(tmp_path / "out") == {"unit-sliver": 1}  # D
+    assert repair(tmp_path / "out", None, dry_run=True).changes == ()
+
+
+def test_a_sliver_left_says_whether_it_runs_along_a_neighbour_or_touches_none(tmp_path):
+    # merge-slivers alone on the same map: C shares no twinned edge, yet its bottom runs 100 m along A's top (GEOS's
+    # intersection of the boundaries; B's top still bends up into C): not "sharing no edge". D touches nothing
+    result = repair(_strip_map(tmp_path), None, dry_run=True, only=["merge-slivers"])
+    assert result.changes == ()
+    assert {x.features: x.reason for x in result.left} == {
         ("3",): "a sliver whose edge runs along polygon 1's without sharing its vertices (snap-edges could not snap "
                 "them): not merged, merge it by hand",
         ("4",): "a sliver sharing no edge with another polygon"}
-    assert [c.area_moved for c in result.changes if c.repair == "resolve-overlaps"] == [pytest.approx(15.0)]
+
+
+def test_uncovered_ground_is_looked_for_where_geos_flags_a_thin_gap():
+    from archivist.repair.polygons import _uncovered_along
+
+    a, b = box(0, 0, 100, 100), box(100, 0, 200, 100)
+    strip = shapely.Polygon([(0, 100), (0, 100.5), (200, 100.5), (200, 100), (100, 100), (0, 100)])
+    geoms = np.array([a, b, strip], dtype=object)
+    # GEOS (the reference): a valid coverage, yet its thin-gap test at 1 m flags the strip's top edge
+    assert shapely.coverage_is_valid(geoms) and not shapely.coverage_is_valid(geoms, gap_width=1.0)
+    assert shapely.equals(shapely.coverage_invalid_edges(geoms, gap_width=1.0)[2], LineString([(0, 100.5), (200, 100.5)]))
+    assert not _uncovered_along(geoms, geoms, 1.0)  # nothing uncovered: the strip lies along the outside
+    assert _uncovered_along(geoms, geoms, 1.0, extent=box(0, 0, 200, 101))  # 0.5 m of the extent above it is bare
+    # a real thin gap: 0.3 m between two squares, flagged by GEOS and uncovered
+    apart = np.array([box(0, 0, 10, 10), box(10.3, 0, 20, 10)], dtype=object)
+    assert not shapely.coverage_is_valid(apart, gap_width=1.0) and _uncovered_along(apart, apart, 1.0, box(0, 0, 20, 10))
+    # without an extent a gap counts where the polygons near it enclose it: a 0.3 m slot cut into a square's middle
+    ring = np.array([box(0, 0, 10, 10).difference(box(4, 2, 4.3, 8)), box(4.05, 2, 4.25, 8)], dtype=object)
+    assert _uncovered_along(ring, ring, 1.0)
 
 
 def test_same_unit_neighbours_dissolve_unless_a_fault_runs_between(tmp_path):
@@ -429,12 +473,14 @@ def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp
 
 
 def test_snap_edges_says_a_polygon_narrower_than_the_snapping_distance_is_held_as_it_would_collapse(tmp_path):
-    # tests/builders.py's two squares at 1:10 000 (tolerance 1 m), with a strip C = [0, 200] x [100, 100.5] along
-    # their top and a vertex of B 0.3 m into it: GEOS's cleaning snaps C's two long sides (0.5 m apart) together and
-    # C comes out empty. It is held as filed; the log said it would move "by 0.000 m, more than the snapping distance"
+    # tests/builders.py's two squares at 1:10 000 (tolerance 1 m), with a strip C = [0, 200] x [100, 100.01] along
+    # their top and a vertex of B 5 mm into it: GEOS's cleaning snaps C's two long sides (1 cm apart) together and
+    # C comes out empty, at 1 m and at every finer distance tried (down to 1/64 m, 1.6 cm). It is held as filed; the
+    # log said it would move "by 0.000 m, more than the snapping distance". (A strip 0.5 m wide keeps its shape at a
+    # quarter of the distance: test_a_strip_along_the_map_edge_narrower_than_the_tolerance_is_noded_and_merged)
     units = gpd.GeoDataFrame({"unit": ["A", "B", "C"]}, crs="EPSG:32633", geometry=[
-        box(0, 0, 100, 100), shapely.Polygon([(100, 0), (200, 0), (200, 100), (150, 100.3), (100, 100)]),
-        box(0, 100, 200, 100.5)])
+        box(0, 0, 100, 100), shapely.Polygon([(100, 0), (200, 0), (200, 100), (150, 100.005), (100, 100)]),
+        box(0, 100, 200, 100.01)])
     result = repair(tiny_project(tmp_path, units=units), None, dry_run=True, only=["snap-edges"])
     assert result.changes == ()
     assert [(x.features, x.reason) for x in result.left] == [

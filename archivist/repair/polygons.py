@@ -780,7 +780,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         held = None
         if trial is not None:
             if not len(far) and not (trial.clip and len(_nicked(clipped, region, trial.bad))) and \
-                    trial.fits(near, bare, usable, settings.tolerance):
+                    trial.fits(near, bare, usable, settings.tolerance, state.extent):
                 trial = None  # kept
             elif trial.level < FINER:
                 trial.level += 1
@@ -1127,12 +1127,50 @@ class _Finer:
         """Copies of the arrays and of the clipping notes as they were when the tries began."""
         return tuple(a.copy() for a in self.saved), dict(self.clipped)
 
-    def fits(self, near: "_Near", bare: np.ndarray, usable: np.ndarray, tolerance: float) -> bool:
+    def fits(self, near: "_Near", bare: np.ndarray, usable: np.ndarray, tolerance: float, extent: Any = None) -> bool:
         """GEOS: the polygons cleaned in this try and those near them, as cleaned (``bare``: before the overlaps left
         for the geologist are given back), form a valid coverage, no gap as thin as the tolerance (the full distance
-        would have closed one; a finer one may not)."""
+        would have closed one; a finer one may not). Where GEOS's only objection is a thin gap, there must be
+        uncovered ground along the edges it flags (:func:`_uncovered_along`): GEOS also flags the outer edge of a
+        polygon narrower than the tolerance lying along the outside of the map."""
         around = np.flatnonzero(near.of(np.flatnonzero(self.cleaned)) & usable)
-        return bool(shapely.coverage_is_valid(bare[around], gap_width=tolerance))
+        if shapely.coverage_is_valid(bare[around], gap_width=tolerance):
+            return True
+        if not shapely.coverage_is_valid(bare[around], gap_width=0.0):
+            return False  # an overlap or edges that do not match
+        return not _uncovered_along(bare[around], bare[usable], tolerance, extent)
+
+
+def _uncovered_along(geoms: np.ndarray, others: np.ndarray, tolerance: float, extent: Any = None) -> bool:
+    """Whether there is ground no polygon covers within ``tolerance`` of the edges GEOS's thin-gap test flags in
+    ``geoms`` (a valid coverage apart from that test; ``others``: every polygon of the map as it stands).
+
+    GEOS's coverage validation with a gap width flags an edge that runs within the width of another polygon's
+    edge without matching it; that takes in the outer edge of a polygon narrower than the width lying along the
+    outside of the map (a 0.5 m strip along the top of a map at a 1 m tolerance: its top edge lies 0.5 m from the
+    top edges of the polygons below it, across the strip itself), where no ground is uncovered. Ground counts
+    inside the declared map extent, or without one inside the outline of the polygons near the flagged edges (a
+    gap they enclose). Pieces narrower than the noise floor (:func:`archivist.analysis.coverage.noise_floor`) are
+    overlay rounding. Where GEOS stops, there may be a gap: True.
+    """
+    try:
+        flagged = shapely.coverage_invalid_edges(geoms, gap_width=tolerance)
+        flagged = flagged[present(flagged)]
+        if not len(flagged):
+            return False
+        window = shapely.buffer(shapely.union_all(flagged), tolerance)
+        near = others[shapely.STRtree(others).query(window, predicate="intersects")] if len(others) else others
+        covered = shapely.union_all(near)
+        if extent is not None:
+            ground = shapely.intersection(window, extent)
+        else:
+            outline = shapely.union_all(shapely.polygons(shapely.get_exterior_ring(shapely.get_parts(covered))))
+            ground = shapely.intersection(window, outline)
+        pieces = polygonal(np.array([shapely.difference(ground, covered)], dtype=object))
+        parts = shapely.get_parts(pieces[~shapely.is_missing(pieces)])
+    except GEOSException:
+        return True
+    return bool((mean_width(parts) >= noise_floor(_scale(geoms))).any())
 
 
 class _Near:
