@@ -852,20 +852,29 @@ def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ..
     """For each thin misfit: does it lie within the tolerance of a reported gap or overlap of the same polygons?
 
     "The same polygons": the misfit's polygons are among the defect's, or the
-    defect's among the misfit's (a gap GEOS finds along one polygon only,
-    whose far side is floating-point noise against the neighbour it was cut
-    from). Such a misfit is left over from the same edit and belongs to that
-    defect. A thin misfit with another neighbour of a polygon that also has a
-    wide overlap is a defect of its own and stays.
+    defect's among the misfit's where the two touch (a gap GEOS finds along
+    one polygon only, whose far side is floating-point noise against the
+    neighbour it was cut from: the misfit lies on that side, within
+    :func:`noise_floor` x 1000 of it). Such a misfit is left over from the
+    same edit and belongs to that defect. A misfit merely within the
+    tolerance of a defect along fewer polygons is a defect of its own and
+    stays: a strip 0.5 m wide with a gap along its top and its bottom edge
+    misaligned with the polygons below (at a 1 m tolerance) is a gap and two
+    misfits. So does a thin misfit with another neighbour of a polygon that
+    also has a wide overlap.
     """
     out = [False] * len(geoms)
     if not wide or not geoms:
         return out
-    tree = shapely.STRtree(np.array([p.geom for p in wide], dtype=object))
-    gi, wi = tree.query(np.array(geoms, dtype=object), predicate="dwithin", distance=max(tol, 0.0))
+    wide_geoms = np.array([p.geom for p in wide], dtype=object)
+    misfits = np.array(geoms, dtype=object)
+    tree = shapely.STRtree(wide_geoms)
+    gi, wi = tree.query(misfits, predicate="dwithin", distance=max(tol, 0.0))
+    b = shapely.total_bounds(np.r_[wide_geoms[wi], misfits[gi]]) if len(gi) else np.zeros(4)
+    touch = 1e3 * noise_floor(float(np.nanmax(np.abs(b))) if np.isfinite(b).any() else 1.0)
     for g, w in zip(gi.tolist(), wi.tolist()):  # few: thin misfits next to a reported defect
         mine, theirs = set(units[g]), set(wide[w].units)
-        if theirs and (mine <= theirs or theirs <= mine):
+        if theirs and (mine <= theirs or (theirs <= mine and shapely.distance(misfits[g], wide_geoms[w]) <= touch)):
             out[g] = True
     return out
 

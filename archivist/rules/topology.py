@@ -321,7 +321,10 @@ def unit_edge_mismatch(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
     reported once; misaligned vertices at the corners of such a gap or
     overlap belong to it, as does a thin misfit of the same polygons within
     the tolerance of it (the floating-point far side of a bite cut out of one
-    polygon). A unit edge within the tolerance of the declared
+    polygon); a misfit of more polygons than such a defect's belongs to it only
+    where the two touch (a misfit along the far side of a strip narrower than
+    the tolerance, with a gap along its other side, is a defect of its own).
+    A unit edge within the tolerance of the declared
     extent counts as lying on it, as lines do, unless GEOS flags an edge
     along the gap between them.
     Even a misfit far below the tolerance (floating-point noise after
