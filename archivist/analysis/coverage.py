@@ -118,6 +118,7 @@ class Coverage:
     outline: np.ndarray
     failures: tuple[Failure, ...] = ()
     unvouched: bool = False  # a partition's gap near its core runs past its region (see analyse_coverage)
+    floor: float = 0.0  # the noise floor of the whole map (noise_floor of its scale; in a partition, the whole map's)
 
     @property
     def gaps(self) -> tuple[Piece, ...]:
@@ -811,6 +812,7 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
         outline=outline,
         failures=tuple(failures),
         unvouched=unvouched,
+        floor=floor,
     )
 
 
@@ -848,14 +850,15 @@ def _reported_pieces(cov: Coverage) -> list[Piece]:
             + [p for p in cov.gaps if not p.on_frame and (p.width > tol or len(p.units) <= 1)])
 
 
-def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ...]], tol: float) -> list[bool]:
+def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ...]], tol: float,
+                  floor: float) -> list[bool]:
     """For each thin misfit: does it lie within the tolerance of a reported gap or overlap of the same polygons?
 
     "The same polygons": the misfit's polygons are among the defect's, or the
     defect's among the misfit's where the two touch (a gap GEOS finds along
     one polygon only, whose far side is floating-point noise against the
-    neighbour it was cut from: the misfit lies on that side, within
-    :func:`noise_floor` x 1000 of it). Such a misfit is left over from the
+    neighbour it was cut from: the misfit lies on that side, within 1000 x
+    ``floor``, the map's noise floor (:func:`noise_floor`), of it). Such a misfit is left over from the
     same edit and belongs to that defect. A misfit merely within the
     tolerance of a defect along fewer polygons is a defect of its own and
     stays: a strip 0.5 m wide with a gap along its top and its bottom edge
@@ -870,8 +873,7 @@ def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ..
     misfits = np.array(geoms, dtype=object)
     tree = shapely.STRtree(wide_geoms)
     gi, wi = tree.query(misfits, predicate="dwithin", distance=max(tol, 0.0))
-    b = shapely.total_bounds(np.r_[wide_geoms[wi], misfits[gi]]) if len(gi) else np.zeros(4)
-    touch = 1e3 * noise_floor(float(np.nanmax(np.abs(b))) if np.isfinite(b).any() else 1.0)
+    touch = 1e3 * floor
     for g, w in zip(gi.tolist(), wi.tolist()):  # few: thin misfits next to a reported defect
         mine, theirs = set(units[g]), set(wide[w].units)
         if theirs and (mine <= theirs or (theirs <= mine and shapely.distance(misfits[g], wide_geoms[w]) <= touch)):
@@ -897,7 +899,7 @@ def find_mismatches(cov: Coverage) -> tuple[Mismatch, ...]:
     thin_gaps = [p for p in cov.gaps if p.width <= tol * ABOVE and len(p.units) > 1 and not p.on_frame]
     wide = _reported_pieces(cov)
     part_of = _part_of_wide(wide, [p.geom for p in thin_overlaps + thin_gaps] + [c[1] for c in cov.collinear],
-                            [p.units for p in thin_overlaps + thin_gaps] + [c[0] for c in cov.collinear], tol)
+                            [p.units for p in thin_overlaps + thin_gaps] + [c[0] for c in cov.collinear], tol, cov.floor)
     for piece, inside in zip(thin_overlaps + thin_gaps, part_of):
         if not inside:
             add(piece.units, shapely.boundary(piece.geom), stretch_length(piece.geom), piece.width)
