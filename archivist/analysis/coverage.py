@@ -858,13 +858,13 @@ def _part_of_wide(wide: list[Piece], geoms: list[Any], units: list[tuple[int, ..
     defect's among the misfit's where the two touch (a gap GEOS finds along
     one polygon only, whose far side is floating-point noise against the
     neighbour it was cut from: the misfit lies on that side, within 1000 x
-    ``floor``, the map's noise floor (:func:`noise_floor`), of it). Such a misfit is left over from the
-    same edit and belongs to that defect. A misfit merely within the
-    tolerance of a defect along fewer polygons is a defect of its own and
-    stays: a strip 0.5 m wide with a gap along its top and its bottom edge
-    misaligned with the polygons below (at a 1 m tolerance) is a gap and two
-    misfits. So does a thin misfit with another neighbour of a polygon that
-    also has a wide overlap.
+    ``floor`` of it, the map's noise floor, :func:`noise_floor`). Such a
+    misfit is left over from the same edit and belongs to that defect. A
+    misfit merely within the tolerance of a defect along fewer polygons is a
+    defect of its own and stays: a strip 0.5 m wide with a gap along its top
+    and its bottom edge misaligned with the polygons below (at a 1 m
+    tolerance) is a gap and two misfits. So does a thin misfit with another
+    neighbour of a polygon that also has a wide overlap.
     """
     out = [False] * len(geoms)
     if not wide or not geoms:
