@@ -137,15 +137,40 @@ def test_sliver_of_3_square_metres_merges_into_the_longest_neighbour(tmp_path):
     # and 5 m with each of B1 = [5.3, 10] x [0, 5] and B2 = [5.3, 10] x [5, 10], so A takes it: 50 + 3 = 53 m².
     geoms = [box(0, 0, 5, 10), box(5.3, 0, 10, 5), box(5.3, 5, 10, 10), box(5, 0, 5.3, 10)]
     project = square(tmp_path, geoms, ["A", "B", "C", "D"])
+    # The contact x = 5 ran between A and C: inside A afterwards, it is taken out (before, the copy kept it, and its
+    # check found it "9.80 m off the unit boundaries, up to 0.30 m west of the boundary between A and B");
+    # draw-missing-lines gives A's new edge x = 5.3 its contact
     result = repair(project, tmp_path / "out")
     merged = [c for c in result.changes if c.repair == "merge-slivers"]
-    assert len(merged) == 1
+    assert [c.layer for c in merged] == ["units", "lines"]
     assert merged[0].features_before == ("1", "4") and merged[0].features_after == ("1",)
     assert merged[0].units == ("A", "D") and merged[0].area_moved == pytest.approx(3.0)
+    assert merged[1].features_before == ("1",) and merged[1].features_after == () and merged[1].after is None
+    assert shapely.equals(merged[1].before, LineString([(5, 0), (5, 10)]))
+    assert merged[1].note == "contact along a sliver merged into its neighbour: removed (nothing of it lay elsewhere)"
     units = copy_units(tmp_path / "out")
     assert units.index.tolist() == [1, 2, 3]
     assert units.geometry.area.tolist() == pytest.approx([53.0, 23.5, 23.5])
     assert units.unit.tolist() == ["A", "B", "C"]
+    assert [f.rule for f in check(tmp_path / "out").findings if f.family in ("topology", "linework")] == []
+
+
+def test_a_contact_drawn_twice_around_a_sliver_keeps_the_trace_on_the_new_boundary(tmp_path):
+    # the contact digitised twice, x = 5 and x = 5.3, and the polygons built from both: a sliver C = [5, 5.3] x [0, 10]
+    # between A and B (3 m², 0.3 m wide). C shares 10 m with each; the tie goes to the first, A. The trace x = 5 lay
+    # between A and C and is taken out; x = 5.3, now between A and B, stays as drawn. Before, the copy had both
+    # traces 0.3 m apart inside the tolerance of each other, and its check found them sharing the boundary
+    geoms = [box(0, 0, 5, 10), box(5.3, 0, 10, 10), box(5, 0, 5.3, 10)]
+    lines = [("contact", LineString([(5, 0), (5, 10)])), ("contact", LineString([(5.3, 0), (5.3, 10)])),
+             ("map-boundary", FRAME)]
+    project = square(tmp_path, geoms, ["A", "B", "C"], lines=lines)
+    result = repair(project, tmp_path / "out")
+    assert [(c.repair, c.layer, c.features_before, c.features_after) for c in result.changes] == [
+        ("merge-slivers", "units", ("1", "3"), ("1",)), ("merge-slivers", "lines", ("1",), ())]
+    kept = pyogrio.read_dataframe(tmp_path / "out" / "map.gpkg", layer="lines", fid_as_index=True)
+    assert kept.index.tolist() == [2, 3] and shapely.equals(kept.geometry.loc[2], LineString([(5.3, 0), (5.3, 10)]))
+    assert [f.rule for f in check(tmp_path / "out").findings if f.family in ("topology", "linework")] == []
+    assert repair(tmp_path / "out", None, dry_run=True).changes == ()
 
 
 @pytest.mark.parametrize("nothing", [shapely.Polygon(), None], ids=["empty", "missing"])
@@ -161,7 +186,7 @@ def test_a_polygon_filed_without_geometry_is_left_as_filed_by_every_repair(tmp_p
     assert not [c for c in result.changes if "5" in c.features_before] and not [x for x in result.left if "5" in x.features]
     units = copy_units(tmp_path / "out")
     assert units.loc[5, "unit"] == "E" and (units.geometry.loc[5] is None or units.geometry.loc[5].is_empty)
-    removed = {f for c in result.changes for f in c.features_before if f not in c.features_after}
+    removed = {f for c in result.changes if c.layer == "units" for f in c.features_before if f not in c.features_after}
     assert {"1", "2", "3", "4", "5"} - {str(i) for i in units.index} == removed == {"4"}
     found = {f.rule for f in check(tmp_path / "out").findings}
     assert "geometry-missing" in found and not found & TOPOLOGY
@@ -608,7 +633,9 @@ def test_merge_slivers_decides_a_width_as_unit_sliver_does(tmp_path, w):
     reported = {f.features for f in check(project).findings if f.rule == "unit-sliver"}
     assert reported == ({("3",)} if w < 0.5 else set())
     result = repair(project, tmp_path / f"out-{w}", only=["merge-slivers"])
-    assert {c.features_before[-1:] for c in result.changes} == reported
+    assert {c.features_before[-1:] for c in result.changes if c.layer == "units"} == reported
+    # the contact x = 5 between A and the strip it takes in goes with it (a line inside the merged polygon)
+    assert [c.features_before for c in result.changes if c.layer == "lines"] == ([("1",)] if reported else [])
 
 
 def test_ground_under_three_polygons_whose_choices_go_round_stays_with_one():

@@ -1340,7 +1340,10 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
     edge with it: one with the same unit code if any (the longest shared edge
     among them), else the one with the longest shared edge; the merged
     polygon keeps the neighbour's id, code and attributes. Sliver chains
-    merge into the first polygon that is not a sliver.
+    merge into the first polygon that is not a sliver. A contact drawn
+    between a sliver and the polygon it joins (the contact digitised twice,
+    a sliver between the two traces) is taken out along it, as
+    dissolve-same-unit does: it would lie inside the merged polygon.
     Never: a sliver with no neighbour sharing an edge (an island) is left
     and listed, as is one whose edge runs along a neighbour's without
     sharing its vertices (a misfit snap-edges could not snap; the entry
@@ -1407,7 +1410,10 @@ def merge_slivers(state: RepairState, settings: RepairSettings) -> tuple[list[Ch
         big = inside[~sliver[inside]]
         root = int(big[0]) if len(big) else int(inside[np.argmax(area[inside])])
         groups[root] = [int(k) for k in inside if k != root]
-    return _merge(state, "merge-slivers", groups, "sliver merged into its neighbour", geoms), left
+    # the contacts between a sliver and the polygon it joins lie inside it afterwards: read before the polygons change
+    sides = _contact_sides(state, _context(state)) if groups and state.lines is not None and len(state.lines) else None
+    changes = _merge(state, "merge-slivers", groups, "sliver merged into its neighbour", geoms)
+    return changes + _drop_inner_contacts(state, sides, changes, ids, codes, "merge-slivers"), left
 
 
 @repair("dissolve-same-unit", order=50)
@@ -1505,16 +1511,19 @@ def _contact_sides(state: RepairState, ctx: CheckContext) -> tuple[Any, np.ndarr
 
 
 def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.ndarray] | None, merged: list[Change],
-                         ids: np.ndarray, codes: np.ndarray) -> list[Change]:
-    """The stretches of contact along a boundary that a dissolve took away, taken out of their lines.
+                         ids: np.ndarray, codes: np.ndarray, name: str = "dissolve-same-unit") -> list[Change]:
+    """The stretches of contact along a boundary that a dissolve (or a sliver's merge) took away, taken out of their lines.
 
-    A contact separates two units; once two polygons of one unit are one
-    polygon, a contact drawn between them lies inside it (``line-off-boundary``
-    in the copy). Each segment of a contact whose two sides were polygons now
-    dissolved into one is taken out; the rest of the line stays as drawn (in
+    A contact separates two units; once two polygons are one polygon, a
+    contact drawn between them lies inside it (``line-off-boundary`` in the
+    copy, or ``line-duplicate`` beside the contact drawn on the sliver's
+    other side). Each segment of a contact whose two sides were polygons now
+    joined into one is taken out; the rest of the line stays as drawn (in
     parts where a stretch was taken out of its middle), and a line with
     nothing left is removed. Faults and other kinds are never touched: a
     fault between two polygons keeps them apart (``unit-same-neighbour``).
+    ``name``: the repair the changes are logged under (``merge-slivers`` or
+    ``dissolve-same-unit``).
     """
     if sides is None or not merged:
         return []
@@ -1566,11 +1575,14 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
     segs = np.flatnonzero(gone)
     first = segs[np.unique(seg_feat[segs], return_index=True)[1]]  # per line of feats, its first segment taken out
     line_codes = [str(codes[r]) or "?" for r in lr[first].tolist()]
-    notes = [f"contact between polygons of unit {code} dissolved into one: taken out along it" if a is not None
-             else f"contact between polygons of unit {code} dissolved into one: removed (nothing of it lay elsewhere)"
-             for code, a in zip(line_codes, after)]
+    if name == "merge-slivers":
+        what = ["contact along a sliver merged into its neighbour"] * len(line_codes)
+    else:
+        what = [f"contact between polygons of unit {code} dissolved into one" for code in line_codes]
+    notes = [f"{w}: taken out along it" if a is not None else f"{w}: removed (nothing of it lay elsewhere)"
+             for w, a in zip(what, after)]
     keep_rows = rows[has]
-    changes = _line_change("dissolve-same-unit", state, keep_rows, before[has], after[has], np.zeros(int(has.sum())),
+    changes = _line_change(name, state, keep_rows, before[has], after[has], np.zeros(int(has.sum())),
                            [nt for nt, h in zip(notes, has) if h])
     if len(keep_rows):
         _set_geoms(state, keep_rows, after[has])
@@ -1578,7 +1590,7 @@ def _drop_inner_contacts(state: RepairState, sides: tuple[Any, np.ndarray, np.nd
     if len(dropped):
         assert state.lines is not None
         lids, layers = _ids(state), _source_layers(state)
-        changes += [Change("dissolve-same-unit", str(layers[r]), (str(lids[r]),), (), (), 0.0, 0.0, b, None, nt)
+        changes += [Change(name, str(layers[r]), (str(lids[r]),), (), (), 0.0, 0.0, b, None, nt)
                     for r, b, nt in zip(dropped.tolist(), before[~has], [nt for nt, h in zip(notes, has) if not h])]
         keep = np.ones(len(state.lines), dtype=bool)
         keep[dropped] = False
