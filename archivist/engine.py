@@ -7,7 +7,7 @@ import threading
 from concurrent.futures import Executor
 from itertools import groupby
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Sequence
 
 import numpy as np
 import shapely
@@ -66,22 +66,37 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
     return to_findings(info, [hit], severity, forced, digits)[0]
 
 
+def hit_points(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Each hit's geometry, whether it shows one (neither missing nor empty), and the x and y of its finding's place.
+
+    The place is the hit's own x and y where it has both, else its geometry
+    itself where that is a point, else GEOS's point on the geometry's
+    surface; NaN where the hit has neither. All hits at once: the findings
+    (:func:`to_findings`) and the partitions that own them
+    (:func:`archivist.parallel.places_of`) take the same place.
+    """
+    geoms = np.empty(len(hits), dtype=object)
+    geoms[:] = [h.geometry for h in hits]
+    given = np.array([h.x is not None and h.y is not None for h in hits], dtype=bool)
+    xs = np.array([float(h.x) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    ys = np.array([float(h.y) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    shown = ~shapely.is_missing(geoms)
+    shown[shown] = ~shapely.is_empty(geoms[shown])
+    need = np.flatnonzero(shown & ~given)
+    if len(need):
+        g = geoms[need]
+        points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
+        xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
+    return geoms, shown, xs, ys
+
+
 def to_findings(info: RuleInfo, hits: list[Hit], severity: Severity, forced: bool = False,
                 digits: int = LINEAR_DIGITS) -> list[Finding]:
     """:func:`to_finding` of every hit, with the geometry work (WKT, a point on the surface) done for all at once."""
-    geoms = np.array([h.geometry for h in hits], dtype=object)
-    shown = ~shapely.is_missing(geoms)
-    shown[shown] = ~shapely.is_empty(geoms[shown])
+    geoms, shown, xs, ys = hit_points(hits)
     wkts = np.full(len(hits), None, dtype=object)
-    xs = np.array([np.nan if h.x is None or h.y is None else h.x for h in hits], dtype=float)
-    ys = np.array([np.nan if h.x is None or h.y is None else h.y for h in hits], dtype=float)
     if shown.any():
         wkts[shown] = shapely.to_wkt(geoms[shown], rounding_precision=digits, trim=True)
-        need = np.flatnonzero(shown & np.isnan(xs))
-        if len(need):
-            g = geoms[need]
-            points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
-            xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
     out = []
     for hit, wkt, x, y in zip(hits, wkts.tolist(), xs.tolist(), ys.tolist()):
         given = hit.x is not None and hit.y is not None

@@ -789,31 +789,19 @@ def _result_from(index: int, rows: tuple[Any, ...], wkb: np.ndarray, failed: tup
 def places_of(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each hit's representative point and the box around its geometry and that point, for all hits at once.
 
-    The point is the one :func:`archivist.engine.to_findings` gives the
-    finding: the hit's own x and y, else its geometry itself where that is a
-    point, else GEOS's point on the geometry's surface. Returns x, y (NaN
-    where the hit has neither a point nor a geometry that is not empty) and
-    the boxes (xmin, ymin, xmax, ymax: the geometry's bounds grown to take in
-    the point; NaN where there is neither).
+    The point is the one its finding takes (:func:`archivist.engine.hit_points`).
+    Returns x, y (NaN where the hit has neither a point nor a geometry that
+    is not empty) and the boxes (xmin, ymin, xmax, ymax: the geometry's
+    bounds grown to take in the point; NaN where there is neither).
     """
     import shapely
 
-    n = len(hits)
-    geoms = np.empty(n, dtype=object)
-    geoms[:] = [h.geometry for h in hits]
-    xs = np.array([float(h.x) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
-    ys = np.array([float(h.y) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
-    given = np.array([h.x is not None and h.y is not None for h in hits], dtype=bool)
-    boxes = np.full((n, 4), np.nan)
-    shown = ~shapely.is_missing(geoms)
-    shown[shown] = ~shapely.is_empty(geoms[shown])
+    from .engine import hit_points
+
+    geoms, shown, xs, ys = hit_points(hits)
+    boxes = np.full((len(hits), 4), np.nan)
     if shown.any():
         boxes[shown] = shapely.bounds(geoms[shown])
-        need = np.flatnonzero(shown & ~given)
-        if len(need):
-            g = geoms[need]
-            points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
-            xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
     boxes[:, 0], boxes[:, 1] = np.fmin(boxes[:, 0], xs), np.fmin(boxes[:, 1], ys)
     boxes[:, 2], boxes[:, 3] = np.fmax(boxes[:, 2], xs), np.fmax(boxes[:, 3], ys)
     return xs, ys, boxes
