@@ -1134,16 +1134,20 @@ class _Finer:
         uncovered ground along the edges it flags (:func:`_uncovered_along`): GEOS also flags the outer edge of a
         polygon narrower than the tolerance lying along the outside of the map."""
         around = np.flatnonzero(near.of(np.flatnonzero(self.cleaned)) & usable)
-        if shapely.coverage_is_valid(bare[around], gap_width=tolerance):
+        flagged = shapely.coverage_invalid_edges(bare[around], gap_width=tolerance)
+        flagged = flagged[present(flagged)]
+        if not len(flagged):
             return True
         if not shapely.coverage_is_valid(bare[around], gap_width=0.0):
             return False  # an overlap or edges that do not match
-        return not _uncovered_along(bare[around], bare[usable], tolerance, extent)
+        return not _uncovered_along(flagged, bare[around], bare[usable], tolerance, extent)
 
 
-def _uncovered_along(geoms: np.ndarray, others: np.ndarray, tolerance: float, extent: Any = None) -> bool:
+def _uncovered_along(flagged: np.ndarray, geoms: np.ndarray, others: np.ndarray, tolerance: float,
+                     extent: Any = None) -> bool:
     """Whether there is ground no polygon covers within ``tolerance`` of the edges GEOS's thin-gap test flags in
-    ``geoms`` (a valid coverage apart from that test; ``others``: every polygon of the map as it stands).
+    ``geoms`` (``flagged``: ``shapely.coverage_invalid_edges(geoms, gap_width=tolerance)``, the non-empty ones, of a
+    coverage valid apart from that test; ``others``: every polygon of the map as it stands).
 
     GEOS's coverage validation with a gap width flags an edge that runs within the width of another polygon's
     edge without matching it; that takes in the outer edge of a polygon narrower than the width lying along the
@@ -1153,11 +1157,9 @@ def _uncovered_along(geoms: np.ndarray, others: np.ndarray, tolerance: float, ex
     gap they enclose). Pieces narrower than the noise floor (:func:`archivist.analysis.coverage.noise_floor`) are
     overlay rounding. Where GEOS stops, there may be a gap: True.
     """
+    if not len(flagged):
+        return False
     try:
-        flagged = shapely.coverage_invalid_edges(geoms, gap_width=tolerance)
-        flagged = flagged[present(flagged)]
-        if not len(flagged):
-            return False
         window = shapely.buffer(shapely.union_all(flagged), tolerance)
         near = others[shapely.STRtree(others).query(window, predicate="intersects")] if len(others) else others
         covered = shapely.union_all(near)
