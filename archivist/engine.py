@@ -7,13 +7,14 @@ import threading
 from concurrent.futures import Executor
 from itertools import groupby
 from pathlib import Path
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any, Callable, Iterable
 
 import numpy as np
 import shapely
 from shapely.errors import GEOSException
 
 from ._version import __version__
+from .analysis.arrays import hit_points
 from .analysis.context import CheckContext
 from .analysis.localframe import LocalFrame, frame_for, in_frame
 from .collector import collector_paused
@@ -64,30 +65,6 @@ def to_finding(info: RuleInfo, hit: Hit, severity: Severity, forced: bool = Fals
     (:func:`archivist.project.location_digits`: 8 in degrees, 3 in metres).
     """
     return to_findings(info, [hit], severity, forced, digits)[0]
-
-
-def hit_points(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Each hit's geometry, whether it shows one (neither missing nor empty), and the x and y of its finding's place.
-
-    The place is the hit's own x and y where it has both, else its geometry
-    itself where that is a point, else GEOS's point on the geometry's
-    surface; NaN where the hit has neither. All hits at once: the findings
-    (:func:`to_findings`) and the partitions that own them
-    (:func:`archivist.parallel.places_of`) take the same place.
-    """
-    geoms = np.empty(len(hits), dtype=object)
-    geoms[:] = [h.geometry for h in hits]
-    given = np.array([h.x is not None and h.y is not None for h in hits], dtype=bool)
-    xs = np.array([float(h.x) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
-    ys = np.array([float(h.y) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
-    shown = ~shapely.is_missing(geoms)
-    shown[shown] = ~shapely.is_empty(geoms[shown])
-    need = np.flatnonzero(shown & ~given)
-    if len(need):
-        g = geoms[need]
-        points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
-        xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
-    return geoms, shown, xs, ys
 
 
 def to_findings(info: RuleInfo, hits: list[Hit], severity: Severity, forced: bool = False,

@@ -789,14 +789,14 @@ def _result_from(index: int, rows: tuple[Any, ...], wkb: np.ndarray, failed: tup
 def places_of(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Each hit's representative point and the box around its geometry and that point, for all hits at once.
 
-    The point is the one its finding takes (:func:`archivist.engine.hit_points`).
+    The point is the one its finding takes (:func:`archivist.analysis.arrays.hit_points`).
     Returns x, y (NaN where the hit has neither a point nor a geometry that
     is not empty) and the boxes (xmin, ymin, xmax, ymax: the geometry's
     bounds grown to take in the point; NaN where there is neither).
     """
     import shapely
 
-    from .engine import hit_points
+    from .analysis.arrays import hit_points
 
     geoms, shown, xs, ys = hit_points(hits)
     boxes = np.full((len(hits), 4), np.nan)

@@ -6,7 +6,7 @@ geometries at once; nothing loops over features in Python.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Callable
+from typing import TYPE_CHECKING, Callable, Sequence
 
 import numpy as np
 import pandas as pd
@@ -15,6 +15,7 @@ import shapely
 from ..readers import as_text
 
 if TYPE_CHECKING:
+    from ..model import Hit
     from ..project import Layer
 
 POLYGON = shapely.GeometryType.POLYGON.value
@@ -354,3 +355,27 @@ def text_values(layer: Layer, key: str) -> tuple[np.ndarray, np.ndarray] | None:
     codes, uniques = pd.factorize(layer.frame[name], use_na_sentinel=True)
     texts = np.array([as_text(u) for u in uniques] + [""], dtype=object)
     return codes, texts
+
+
+def hit_points(hits: Sequence[Hit]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Each hit's geometry, whether it shows one (neither missing nor empty), and the x and y of its finding's place.
+
+    The place is the hit's own x and y where it has both, else its geometry
+    itself where that is a point, else GEOS's point on the geometry's
+    surface; NaN where the hit has neither. All hits at once: the findings
+    (:func:`archivist.engine.to_findings`) and the partitions that own them
+    (:func:`archivist.parallel.places_of`) take the same place.
+    """
+    geoms = np.empty(len(hits), dtype=object)
+    geoms[:] = [h.geometry for h in hits]
+    given = np.array([h.x is not None and h.y is not None for h in hits], dtype=bool)
+    xs = np.array([float(h.x) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    ys = np.array([float(h.y) if h.x is not None and h.y is not None else np.nan for h in hits], dtype=float)
+    shown = ~shapely.is_missing(geoms)
+    shown[shown] = ~shapely.is_empty(geoms[shown])
+    need = np.flatnonzero(shown & ~given)
+    if len(need):
+        g = geoms[need]
+        points = np.where(shapely.get_type_id(g) == 0, g, shapely.point_on_surface(g))
+        xs[need], ys[need] = shapely.get_x(points), shapely.get_y(points)
+    return geoms, shown, xs, ys
