@@ -1,6 +1,6 @@
 """Pairs within a distance (``dwithin_pairs``) are exactly those GEOS's STRtree query gives, in its order; what of
-a line lies off the unit boundaries is what GEOS's buffer and difference leave, with or without the proof that
-spares the buffer; the length of a line near another is what GEOS's distance, sampled along it, brackets."""
+a line lies farther than a distance from other lines (``far_parts``) and the length of a line near another are
+what GEOS's distance, sampled along the line, brackets, in the pieces GEOS's buffer and difference leave."""
 
 from __future__ import annotations
 
@@ -8,8 +8,7 @@ import numpy as np
 import pytest
 import shapely
 
-from archivist.analysis.nearness import (BIG, INSIDE_BUFFER, clipped_near, dwithin_pairs, length_near, off_unit_boundaries,
-                                       proven_near)
+from archivist.analysis.nearness import BIG, dwithin_pairs, length_near, off_unit_boundaries, uncovered
 from archivist.analysis.polygons import Units
 
 
@@ -73,32 +72,72 @@ def test_one_reference_within_and_distances_equal_geos_pair_by_pair():
     assert not shapely.is_prepared(frame)
 
 
-def test_lines_buffered_once_leave_the_same_parts_as_buffers_clipped_per_target():
-    from archivist.analysis.arrays import linear_parts
-    from archivist.analysis.nearness import _shareable, uncovered
+def test_far_parts_by_hand():
+    # a 10 m segment, a reference 4 m long 0.3 m beside it (within 0.5 from 1.6 to 6.4: its rectangle covers 2 to 6,
+    # the discs at its ends reach sqrt(0.5^2 - 0.3^2) = 0.4 m further each way; by hand): 0 to 1.6 and 6.4 to 10 left
+    line = shapely.LineString([(0, 0), (10, 0)])
+    got = uncovered(np.array([line]), np.array([shapely.LineString([(2, 0.3), (6, 0.3)])]), 0.5)[0]
+    assert got.geom_type == "MultiLineString"
+    xy = [shapely.get_coordinates(p) for p in shapely.get_parts(got)]
+    assert np.allclose(xy[0], [[0, 0], [1.6, 0]], atol=1e-12) and np.allclose(xy[1], [[6.4, 0], [10, 0]], atol=1e-12)
+    # a bent line whose middle vertex lies under a reference (a ring of 0.1 m around it: within 1 m of the ring is
+    # within 1.1 m of the vertex): one piece on each side, 3.9 m each
+    bent = shapely.LineString([(0, 0), (5, 0), (5, 5)])
+    got = uncovered(np.array([bent, line]), np.array([shapely.Point(5, 0).buffer(0.1).exterior]), 1.0)
+    assert [round(float(shapely.length(p)), 9) for p in shapely.get_parts(got[0])] == pytest.approx([3.9, 3.9])
+    assert got[1].geom_type == "MultiLineString" and shapely.length(got[1]) == pytest.approx(10 - 2.2, abs=1e-9)
+    # nothing near: the target as it was; all of it near: an empty line
+    far = shapely.LineString([(0, 50), (10, 50)])
+    got = uncovered(np.array([far, line]), np.array([line]), 0.5)
+    assert got[0] is far and got[1].is_empty and got[1].geom_type == "LineString"
 
-    # a grid of boundaries and lines drawn on most of them, some 0.3 m off, one ring around a block
-    rng = np.random.default_rng(11)
-    xs = np.arange(0.0, 101.0, 10.0)
-    bounds = [shapely.linestrings([[x, y], [x, y + 10]]) for x in xs for y in xs[:-1]]
-    bounds += [shapely.linestrings([[x, y], [x + 10, y]]) for y in xs for x in xs[:-1]]
-    targets = np.array(bounds, dtype=object)
-    keep = rng.random(len(bounds)) < 0.8
-    shift = np.where(rng.random(len(bounds)) < 0.2, 0.3, 0.0)
-    lines = [shapely.transform(b, lambda c, s=s: c + s) for b, k, s in zip(bounds, keep, shift) if k]
-    ring = shapely.boundary(shapely.box(40, 40, 50, 50))
-    refs = np.array(lines + [ring], dtype=object)
-    assert _shareable(refs).tolist() == [True] * len(lines) + [False]  # the closed line is clipped per target
-    for tol in (0.0, 0.1, 0.5):
-        clipped = uncovered(targets, refs, tol)
-        shared = uncovered(targets, refs, tol, share=True)
-        a, ka = linear_parts(clipped, tol)
-        b, kb = linear_parts(shared, tol)
-        assert np.array_equal(ka, kb)
-        assert np.array_equal(shapely.get_num_coordinates(a), shapely.get_num_coordinates(b))
-        assert np.allclose(shapely.get_coordinates(a), shapely.get_coordinates(b), rtol=0, atol=1e-9)
-        if tol == 0.5:
-            assert len(a) and len(a) < len(targets)  # some boundaries are left in part, the drawn ones not
+
+def _far_bounds(line, ref, dist: float, step: float) -> tuple[float, float]:
+    """The length of ``line`` farther than ``dist`` from ``ref`` by GEOS's distance sampled ``step`` apart along each
+    of its parts: steps with both ends farther (a lower bound) and with either end farther (an upper bound)."""
+    lo = hi = 0.0
+    for part in shapely.get_parts(line):
+        xy = shapely.get_coordinates(shapely.segmentize(part, step))
+        d = shapely.distance(shapely.points(xy), ref) > dist
+        seg = np.hypot(*np.diff(xy, axis=0).T)
+        lo, hi = lo + float(seg[d[:-1] & d[1:]].sum()), hi + float(seg[d[:-1] | d[1:]].sum())
+    return lo, hi
+
+
+def test_far_parts_against_geos_distance_and_geos_pieces_on_random_lines():
+    # random polylines (simple ones, some multi-part, some closed) and references near them: what is left is what
+    # GEOS's distance, sampled every millimetre, brackets, every point of it is farther than the distance, and it
+    # comes in the pieces GEOS's difference with a fine buffer (64 segments a quarter circle) leaves
+    rng = np.random.default_rng(2)
+    checked = 0
+    for trial in range(200):
+        lines = []
+        for _ in range(int(rng.integers(1, 3))):
+            xy = np.cumsum(rng.normal(0, 1, (int(rng.integers(2, 8)), 2)) * rng.choice([0.3, 2.0, 10.0]), axis=0)
+            if rng.random() < 0.2:
+                xy = np.r_[xy, xy[:1]]
+            lines.append(shapely.linestrings(xy))
+        target = shapely.multilinestrings(lines) if len(lines) > 1 else lines[0]
+        if not shapely.is_simple(target):
+            continue
+        xy = shapely.get_coordinates(target)
+        refs = np.array([shapely.linestrings(xy[rng.integers(0, len(xy))]
+                                             + np.cumsum(rng.normal(0, 1, (int(rng.integers(2, 6)), 2)) * rng.choice([0.3, 2.0]), axis=0))
+                         for _ in range(int(rng.integers(1, 4)))], dtype=object)
+        tol = float(rng.choice([0.2, 1.0, 2.0]))
+        got = uncovered(np.array([target]), refs, tol)[0]
+        every = shapely.union_all(refs)
+        shapely.prepare(every)
+        lo, hi = _far_bounds(target, every, tol, 0.002)
+        assert lo - 1e-9 <= shapely.length(got) <= hi + 1e-9, trial
+        if not got.is_empty:
+            pts = shapely.points(shapely.get_coordinates(shapely.segmentize(got, 0.01)))
+            assert shapely.distance(pts, every).min() >= tol * (1 - 1e-9), trial
+        fine = shapely.difference(target, shapely.buffer(every, tol, quad_segs=64))
+        longer = [p for p in shapely.get_parts(got) if shapely.length(p) > 0.05 * tol]
+        assert len(longer) == len([p for p in shapely.get_parts(fine) if shapely.length(p) > 0.05 * tol]), trial
+        checked += 1
+    assert checked > 100
 
 
 def test_a_point_where_polygons_overlap_lies_in_the_first_of_them_in_the_layer():
@@ -114,24 +153,6 @@ def test_a_point_where_polygons_overlap_lies_in_the_first_of_them_in_the_layer()
         assert unit_at(shapely.points([[7.5, 5.0], [0.5, 5.0], [20.0, 5.0]]), units).tolist() == [0, 0 if geoms is squares else 7, -1]
 
 
-def test_points_within_the_proof_share_of_the_distance_lie_inside_geos_buffer():
-    # the bound the proof rests on, held against GEOS itself: random polylines (sharp and shallow bends, short and
-    # long segments), buffered whole and as clipped pieces in a collection, hold every point within
-    # INSIDE_BUFFER of the distance (GEOS's round joins are polygons inside the true circle)
-    rng = np.random.default_rng(3)
-    for trial in range(200):
-        n = int(rng.integers(2, 12))
-        xy = np.cumsum(rng.normal(0, 1, (n, 2)) * rng.choice([0.05, 0.5, 3.0, 20.0]), axis=0)
-        line = shapely.linestrings(xy)
-        tol = float(rng.choice([0.1, 1.0, 2.5]))
-        pts = xy[rng.integers(0, n, 3000)] + rng.normal(0, tol, (3000, 2))
-        near = shapely.points(pts)[shapely.distance(shapely.points(pts), line) <= INSIDE_BUFFER * tol]
-        assert shapely.covers(shapely.buffer(line, tol), near).all(), trial
-        halves = shapely.geometrycollections([shapely.clip_by_rect(line, -1e9, -1e9, float(xy[:, 0].mean()), 1e9),
-                                              shapely.clip_by_rect(line, float(xy[:, 0].mean()), -1e9, 1e9, 1e9)])
-        assert shapely.covers(shapely.buffer(halves, tol), near).all(), trial
-
-
 def _voronoi_units(seed: int, n: int = 60):
     """Unit polygons of a Voronoi tiling of a 1 km square (a clean coverage built by GEOS)."""
     rng = np.random.default_rng(seed)
@@ -141,9 +162,10 @@ def _voronoi_units(seed: int, n: int = 60):
     return Units(np.arange(len(cells)), cells, np.array([str(i) for i in range(len(cells))], dtype=object), None, "units")
 
 
-def test_off_boundary_parts_equal_geos_buffer_and_difference_with_and_without_the_proof():
+def test_off_boundary_parts_against_geos_distance_and_geos_pieces():
     # lines along the unit boundaries (their edges, snapped, nudged within and beyond the tolerance, cut across):
-    # what lies farther than the tolerance is what GEOS's buffer of the boundaries and difference leave
+    # what lies farther than the tolerance is what GEOS's distance to the boundaries, sampled along the line,
+    # brackets, in the pieces GEOS's fine buffer of the boundaries and difference leave
     rng = np.random.default_rng(5)
     tol = 1.0
     for seed in range(4):
@@ -163,19 +185,16 @@ def test_off_boundary_parts_equal_geos_buffer_and_difference_with_and_without_th
         lines.append(shapely.linestrings([[10.0, 10.0], [990.0, 980.0]]))  # across the units
         lines = np.array(lines, dtype=object)
         got = off_unit_boundaries(lines, units, tol)
-        walls = shapely.buffer(shapely.union_all(shapely.boundary(units.geoms)), tol)
-        expected = shapely.difference(lines, walls)
-        assert np.allclose(shapely.length(got), shapely.length(expected), atol=1e-6), seed
-        assert np.array_equal(shapely.is_empty(got), shapely.is_empty(expected)), seed
-        # what the proof spares is truly within the tolerance: no point of the line (densified) farther
-        ti, ui = units.tree.query(lines, predicate="dwithin", distance=tol)
-        parts, k = clipped_near(lines, ti, shapely.boundary(units.geoms[ui]), tol)
-        proven = proven_near(lines, parts, k, INSIDE_BUFFER * tol)
-        assert proven.sum() >= 10 and (~proven).sum() >= 3, seed  # both ways taken
-        dense = shapely.get_coordinates(shapely.segmentize(lines[proven], 0.1))
-        walls_line = shapely.union_all(shapely.boundary(units.geoms))
-        shapely.prepare(walls_line)
-        assert shapely.distance(shapely.points(dense), walls_line).max() <= INSIDE_BUFFER * tol + 1e-9, seed
+        walls = shapely.union_all(shapely.boundary(units.geoms))
+        shapely.prepare(walls)
+        fine = shapely.difference(lines, shapely.buffer(walls, tol, quad_segs=64))
+        for k, (line, g) in enumerate(zip(lines, got)):
+            lo, hi = _far_bounds(line, walls, tol, 0.05)
+            assert lo - 1e-9 <= shapely.length(g) <= hi + 1e-9, (seed, k)
+            if shapely.is_simple(line):
+                n = [sum(shapely.length(p) > 0.05 * tol for p in shapely.get_parts(x)) for x in (g, fine[k])]
+                assert n[0] == n[1], (seed, k)
+        assert shapely.is_empty(got).sum() >= 10 and (~shapely.is_empty(got)).sum() >= 3, seed  # both ways taken
 
 
 def _densified_bounds(line, ref, dist: float, step: float) -> tuple[float, float]:

@@ -1,20 +1,21 @@
 """Which part of a line lies farther than the tolerance from other geometry.
 
-Lines are compared with buffers of the tolerance around the geometry near
-them: clipped to the line's box first, so a long reference line costs only
-its nearby stretch, or (boundaries against the lines that draw them) each
-short open line buffered once for all the boundaries near it.
+Lines are compared segment by segment with the segments of the geometry
+near them, in closed form on arrays (the points of a segment within a
+distance of another segment are one stretch of it): what lies within the
+tolerance is measured (:func:`length_near`) or cut away (:func:`far_parts`)
+without building GEOS's buffers.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 import shapely
 
-from .arrays import linear_parts, merge_by_group, segments
+from .arrays import LINESTRING, MULTILINESTRING, linear_parts, merge_by_group, segments
 from .messages import ABOVE
 from .polygons import Units
 
@@ -27,6 +28,7 @@ if TYPE_CHECKING:
 # distance) rather than segment by segment: a frame line of thousands of vertices spans the whole map, so
 # every query meets it (our own choice; the answers are the same either way, only the time differs).
 BIG = 256
+LINEAR = (LINESTRING, MULTILINESTRING, shapely.GeometryType.LINEARRING.value)
 
 
 def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, distance: float) -> tuple[np.ndarray, np.ndarray]:
@@ -119,14 +121,6 @@ def _segment_distances(line: object, points: np.ndarray) -> np.ndarray:
     return np.asarray(dist, dtype=float)
 
 
-# Every point within this share of the buffer distance of a line lies inside GEOS's buffer of that line: GEOS
-# draws a round join or cap as a polygon with its vertices on the circle, 8 segments a quarter circle, so the
-# buffer holds every point within cos(pi/32) = 0.9952 of the distance; GEOS may also simplify the line it buffers
-# by 1 % of the distance (from memory of GEOS's BufferParameters; the margin below covers both, and
-# tests/test_analysis_nearness.py holds the bound against GEOS on random lines).
-INSIDE_BUFFER = 0.98
-
-
 def clipped_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     """The parts of the reference geometries paired with each target (ti) that lie near it: clipped to the target's
     box widened by twice ``tol``, empty parts left out; returns the parts and their target."""
@@ -168,17 +162,32 @@ def length_near(lines: np.ndarray, refs: np.ndarray, dist: float) -> np.ndarray:
     if not len(sa) or not len(ta):
         return out
     line_of = line_of[si]
-    # candidate pairs: a reference segment whose box comes within dist of the line segment's, of the same pair
+    s, u0, u1, before = _near_stretches(sa, sb, ta, tb, dist, lambda s, t: line_of[s] == k[tp[t]])
+    covered = np.maximum(u1 - np.maximum(u0, before), 0.0)
+    np.add.at(out, line_of[s], covered * np.hypot(*(sb - sa)[s].T))
+    return out
+
+
+def _near_stretches(sa: np.ndarray, sb: np.ndarray, ta: np.ndarray, tb: np.ndarray, dist: float,
+                    mine: Callable[[np.ndarray, np.ndarray], np.ndarray]
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The stretches of the segments sa -> sb lying within ``dist`` of the segments ta -> tb of the same pair
+    (``mine(s, t)``: segment s may be measured against segment t).
+
+    Returns, sorted by segment then start, each stretch's segment ``s`` and its ends ``u0`` < ``u1`` (shares of
+    the segment), and ``before``: the farthest end of the stretches before it on its segment (-inf for the
+    first). A stretch counts from max(u0, before): the stretches of a segment joined.
+    """
+    # candidate pairs: a reference segment whose box comes within dist of the segment's, of the same pair
     tree = shapely.STRtree(shapely.linestrings(np.stack([ta, tb], axis=1)))
     lo, hi = np.minimum(sa, sb) - dist, np.maximum(sa, sb) + dist
     s, t = tree.query(shapely.box(lo[:, 0], lo[:, 1], hi[:, 0], hi[:, 1]))
-    mine = line_of[s] == k[tp[t]]
-    s, t = s[mine], t[mine]
+    keep = mine(s, t)
+    s, t = s[keep], t[keep]
     u0, u1 = _stretch_near(sa[s], sb[s], ta[t], tb[t], dist)
     some = u1 > u0
     s, u0, u1 = s[some], u0[some], u1[some]
-    # the stretches of each segment joined: sorted by segment then start, each counts from the farthest end of
-    # the segment's stretches before it
+    # each counts from the farthest end of the segment's stretches before it
     order = np.lexsort((u0, s))
     s, u0, u1 = s[order], u0[order], u1[order]
     reached = u1.copy()  # the farthest end so far within each segment: a prefix maximum in log2(stretches) steps
@@ -191,8 +200,98 @@ def length_near(lines: np.ndarray, refs: np.ndarray, dist: float) -> np.ndarray:
         step *= 2
     first = np.r_[True, s[1:] != s[:-1]]
     before = np.where(first, -np.inf, np.r_[-np.inf, reached[:-1]])
-    covered = np.maximum(u1 - np.maximum(u0, before), 0.0)
-    np.add.at(out, line_of[s], covered * np.hypot(*(sb - sa)[s].T))
+    return s, u0, u1, before
+
+
+def far_parts(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, dist: float) -> np.ndarray:
+    """Each target line less every point within ``dist`` of the reference lines paired with it (``targets[ti]``
+    with ``refs[rj]``), on arrays: what GEOS's buffer of the references and difference leave, without the buffer.
+
+    Each target segment is measured against the reference segments near it
+    (:func:`_stretch_near`, exact: a point at ``dist`` or nearer is near);
+    what no stretch covers is left, and the pieces left of consecutive
+    segments of one part that meet at their common vertex are one line, as
+    GEOS's difference joins them (GEOS also cuts a line where it crosses
+    itself; here it is not cut there). A target's vertices are kept bit for bit;
+    the ends of a piece lie on its segment at the share found. A target with
+    nothing near it is returned as it is; one with something near as the
+    line, the multi-line or the empty line left. GEOS's buffer is a polygon
+    inside the true one (8 segments a quarter circle, the line simplified by
+    1 % of the distance), so it left a little more of a line crossing it;
+    the stretches here are the true distance, which the buffer approximated.
+    Targets and references are linear (LineString, LinearRing,
+    MultiLineString).
+    """
+    out = np.asarray(targets, dtype=object).copy()
+    if not len(ti):
+        return out
+    used, back = np.unique(rj, return_inverse=True)
+    asked = np.unique(ti)
+    parts, owner = shapely.get_parts(out[asked], return_index=True)
+    sa, sb, sp = segments(parts)
+    rparts, rowner = shapely.get_parts(refs[used], return_index=True)
+    ra, rb, rp = segments(rparts)
+    if not len(sa):
+        return out
+    seg_target = asked[owner[sp]]
+    if len(ra):
+        pairs = np.unique(ti.astype(np.int64) * len(used) + back)
+        ref_of = rowner[rp]  # index into used
+        s, u0, u1, before = _near_stretches(
+            sa, sb, ra, rb, dist, lambda s, t: np.isin(seg_target[s] * len(used) + ref_of[t], pairs))
+    else:
+        s = np.zeros(0, dtype=np.int64)
+    if not len(s):
+        return out
+    touched = np.unique(seg_target[s])
+    # what is left of each segment: before each stretch (from the farthest end before it, or the start) and
+    # after the last one; a segment with no stretch is left whole
+    start = np.where(np.isneginf(before), 0.0, before)
+    head = u0 > start
+    last = np.r_[s[1:] != s[:-1], True]
+    end = np.maximum(u1, np.where(np.isneginf(before), u1, before))
+    tail = last & (end < 1.0)
+    bare = np.ones(len(sa), dtype=bool)
+    bare[s] = False
+    bare &= np.isin(seg_target, touched)
+    g_seg = np.concatenate([s[head], s[tail], np.flatnonzero(bare)])
+    g0 = np.concatenate([start[head], end[tail], np.zeros(int(bare.sum()))])
+    g1 = np.concatenate([u0[head], np.ones(int(tail.sum())), np.ones(int(bare.sum()))])
+    order = np.lexsort((g0, g_seg))
+    g_seg, g0, g1 = g_seg[order], g0[order], g1[order]
+    # consecutive pieces of one part meeting at a vertex are one line
+    joined = np.r_[False, (g_seg[1:] == g_seg[:-1] + 1) & (sp[g_seg[1:]] == sp[g_seg[:-1]]) & (g1[:-1] >= 1.0) & (g0[1:] <= 0.0)]
+    joined = joined[:len(g_seg)]
+    chain = np.cumsum(~joined) - 1
+    n_chain = int(chain[-1]) + 1 if len(chain) else 0
+    ends = np.r_[~joined[1:], True][:len(g_seg)]
+
+    def at(seg: np.ndarray, u: np.ndarray) -> np.ndarray:
+        a, b = sa[seg], sb[seg]
+        return np.where((u <= 0.0)[:, None], a, np.where((u >= 1.0)[:, None], b, a + u[:, None] * (b - a)))
+
+    coords = np.empty((len(g_seg) + n_chain, 2))
+    pos = np.arange(len(g_seg)) + chain
+    coords[pos] = at(g_seg, g0)
+    coords[pos[ends] + 1] = at(g_seg[ends], g1[ends])
+    index = np.empty(len(coords), dtype=np.int64)
+    index[pos] = chain
+    index[pos[ends] + 1] = chain[ends]
+    pieces = shapely.linestrings(coords, indices=index) if n_chain else np.empty(0, dtype=object)
+    piece_target = seg_target[g_seg[ends]]
+    real = shapely.length(pieces) > 0
+    pieces, piece_target = pieces[real], piece_target[real]
+    # per touched target: nothing left, one piece, or a multi-line of its pieces
+    count = np.bincount(piece_target, minlength=len(out))
+    none = touched[count[touched] == 0]
+    if len(none):
+        out[none] = shapely.empty(len(none), geom_type=shapely.GeometryType.LINESTRING)
+    one = count[piece_target] == 1
+    out[piece_target[one]] = pieces[one]
+    many = np.flatnonzero(count[touched] > 1)
+    if len(many):
+        sel = ~one
+        out[touched[many]] = shapely.multilinestrings(pieces[sel], indices=np.searchsorted(touched[many], piece_target[sel]))
     return out
 
 
@@ -272,61 +371,14 @@ def _buffers(targets: np.ndarray, parts: np.ndarray, k: np.ndarray, dist: float)
     return out
 
 
-def proven_near(targets: np.ndarray, parts: np.ndarray, k: np.ndarray, reach: float) -> np.ndarray:
-    """Per target line: True where every point of it provably lies within ``reach`` of the reference parts
-    paired with it (``k``), found without a buffer.
-
-    The distance from a point to one segment is a convex function of the
-    point, so along a segment of the target it is no larger than at the
-    segment's two ends: a target segment whose two ends both lie within
-    ``reach`` of one reference segment lies wholly within ``reach`` of it.
-    A target all of whose segments pass is proven; the others (a line that
-    leaves the references, or runs past a bend of them where no single
-    segment is near both ends) are not, and are measured as before. Lines
-    drawn on the unit boundaries, or snapped onto them, pass segment by segment.
-    """
-    out = np.zeros(len(targets), dtype=bool)
-    if not len(parts) or reach <= 0:
-        return out
-    asked = np.unique(k)
-    lineal = np.isin(shapely.get_type_id(targets[asked]), (shapely.GeometryType.LINESTRING.value,
-                                                          shapely.GeometryType.MULTILINESTRING.value))
-    asked = asked[lineal]
-    tparts, towner = shapely.get_parts(targets[asked], return_index=True)
-    ta, tb, tp = segments(tparts)
-    ra, rb, rp = segments(parts)
-    if not len(ta) or not len(ra):
-        return out
-    tseg_of = asked[towner[tp]]  # the target of each target segment
-    rsegs = shapely.linestrings(np.stack([ra, rb], axis=1))
-    i, j = shapely.STRtree(rsegs).query(shapely.points(ta), predicate="dwithin", distance=reach)
-    mine = k[rp[j]] == tseg_of[i]  # a reference part clipped near this same target
-    i, j = i[mine], j[mine]
-    ok = np.asarray(shapely.distance(shapely.points(tb[i]), rsegs[j]) <= reach, dtype=bool)
-    good = np.zeros(len(ta), dtype=bool)
-    good[i[ok]] = True
-    bad = np.bincount(tseg_of, weights=~good, minlength=len(targets)) > 0
-    has = np.bincount(tseg_of, minlength=len(targets)) > 0
-    out[has & ~bad] = True
-    return out
-
-
-def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None,
-              share: bool = False) -> np.ndarray:
-    """The part of each target line farther than ``tol`` from every reference line.
-
-    ``share``: buffer each reference once for all targets where :func:`_shareable` allows (see
-    :func:`subtract_near`): the same parts are left, a cut point can differ in its last bit.
-    """
+def uncovered(targets: np.ndarray, refs: np.ndarray, tol: float, tree: shapely.STRtree | None = None) -> np.ndarray:
+    """The part of each target line farther than ``tol`` from every reference line (:func:`subtract_near`)."""
     targets = np.asarray(targets, dtype=object)
     if not len(targets) or not len(refs):
         return targets.copy()
     tree = tree if tree is not None else shapely.STRtree(refs)
     ti, ri = dwithin_pairs(tree, refs, targets, tol)
-    # the references of each target in their own order, not the index's: the buffers are taken out one by one,
-    # and a cut point's last bit depends on their order; a part of the map (its own index) cuts the same
-    order = np.lexsort((ri, ti))
-    return subtract_near(targets, ti[order], np.asarray(refs, dtype=object), ri[order], tol, share)
+    return subtract_near(targets, ti, np.asarray(refs, dtype=object), ri, tol)
 
 
 def off_unit_boundaries(targets: np.ndarray, units: Units, tol: float) -> np.ndarray:
@@ -335,67 +387,31 @@ def off_unit_boundaries(targets: np.ndarray, units: Units, tol: float) -> np.nda
         return np.asarray(targets, dtype=object).copy()
     targets = np.asarray(targets, dtype=object)
     ti, ui = units.tree.query(targets, predicate="dwithin", distance=max(tol, 0.0))
-    return subtract_near(targets, ti, shapely.boundary(units.geoms[ui]), np.arange(len(ui)), tol)
+    used, back = np.unique(ui, return_inverse=True)
+    return subtract_near(targets, ti, shapely.boundary(units.geoms[used]), back, tol)
 
 
-def _shareable(refs: np.ndarray) -> np.ndarray:
-    """Which references can be buffered whole, once for all the targets near them: open lines (no closed part) of at
-    most :data:`BIG` vertices.
+def subtract_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, tol: float) -> np.ndarray:
+    """Each target less the points within ``tol`` of the references paired with it (``targets[ti]`` with
+    ``refs[rj]``).
 
-    A closed line is buffered by GEOS as a ring (a join at its first vertex), while the stretch of it clipped near a
-    target is open there (two caps): GEOS's round caps and joins are polygons (8 segments a quarter circle) whose
-    vertices fall at other angles, so the two buffers differ near that vertex (by up to 1 % of the tolerance on
-    the unit boundaries of the 10^5-polygon test maps). A long line is cheaper clipped near each target than
-    buffered whole.
+    Linear targets are cut on arrays (:func:`far_parts`); any other (a
+    polygon, a collection) keeps GEOS's way: one ``tol``-buffer of the
+    references near it, clipped near it (:func:`clipped_near`), taken out.
     """
-    if not len(refs):
-        return np.zeros(0, dtype=bool)
-    parts, k = shapely.get_parts(refs, return_index=True)
-    closed = np.bincount(k, weights=shapely.is_closed(parts), minlength=len(refs)) > 0
-    return ~closed & (shapely.get_num_coordinates(refs) <= BIG)
-
-
-def subtract_near(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, tol: float,
-                  share: bool = False) -> np.ndarray:
-    """Each target less the ``tol``-buffers of the references paired with it (``targets[ti]`` with ``refs[rj]``).
-
-    Without ``share``, every target gets one buffer of the references near it, clipped near it
-    (:func:`clipped_near`, then one buffer of its parts per target). With ``share``, a reference that :func:`_shareable` allows is buffered once, whole,
-    however many targets it is paired with, and taken out of them in rounds (the first reference of every
-    target, then the second...), each round one bulk GEOS difference; the others as without ``share``. Within
-    the tolerance of a target both buffers are made of the same offset segments and arcs, so the same parts are
-    left; a cut point can differ in its last bit (the offset segment it lies on is split elsewhere by the other
-    buffers of the union, or not), which ``boundary-without-line`` keeps out of its places.
-    """
-    out = targets.copy()
+    out = np.asarray(targets, dtype=object).copy()
     if not len(ti):
         return out
-    whole = np.zeros(len(ti), dtype=bool)
-    if share and tol > 0:
-        used, back = np.unique(rj, return_inverse=True)
-        whole = _shareable(refs[used])[back]
-    if (~whole).any():
-        tj = ti[~whole]
-        parts, k = clipped_near(targets, tj, refs[rj[~whole]], tol)
-        # a line proven within the buffer (most lines snapped onto the boundaries) keeps nothing: its buffer is
-        # neither made nor taken out (GEOS's difference would leave it empty)
-        near = proven_near(targets, parts, k, INSIDE_BUFFER * tol)
-        buf = _buffers(targets, parts[~near[k]], k[~near[k]], _buffer_distance(targets, tj, tol))
+    dist = _buffer_distance(out, ti, tol)
+    linear = np.isin(shapely.get_type_id(out[ti]), LINEAR)
+    if linear.any():
+        out = far_parts(out, ti[linear], refs, rj[linear], dist)
+    if (~linear).any():
+        tj = ti[~linear]
+        parts, k = clipped_near(out, tj, refs[rj[~linear]], tol)
+        buf = _buffers(out, parts, k, dist)
         have = ~shapely.is_missing(buf)
-        out[have] = shapely.difference(targets[have], buf[have])
-        if near.any():
-            out[near] = shapely.empty(int(near.sum()), geom_type=shapely.GeometryType.LINESTRING)
-    if whole.any():
-        used, back = np.unique(rj[whole], return_inverse=True)
-        bufs = shapely.buffer(refs[used], tol)
-        t = ti[whole]
-        order = np.argsort(t, kind="stable")
-        t, back = t[order], back[order]
-        first = np.r_[True, t[1:] != t[:-1]]
-        rank = np.arange(len(t)) - np.maximum.accumulate(np.where(first, np.arange(len(t)), 0))
-        for r in range(int(rank.max()) + 1):  # one bulk call per round, as many rounds as a target has references
-            sel = rank == r
-            out[t[sel]] = shapely.difference(out[t[sel]], bufs[back[sel]])
+        out[have] = shapely.difference(out[have], buf[have])
     return out
 
 
@@ -470,8 +486,7 @@ def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: n
 
     Edges drawn exactly by a line segment (``drawn``, from the network's
     hashed segments) are out at once; the rest are merged per pair of
-    polygons and the lines within ``tol`` (GEOS buffers, :func:`uncovered`, each
-    line buffered once for all the boundaries near it) taken out of them.
+    polygons and what lies within ``tol`` of a line taken out of them (:func:`uncovered`).
     """
     twin = between_units(units, edges)
     consider = (twin | outline) & ~drawn
@@ -485,7 +500,7 @@ def undrawn_boundaries(units: Units, edges: Edges, outline: np.ndarray, drawn: n
     whole = merge_by_group(edges.lines(idx), inv, len(uk))
     stretches = whole
     if len(net.geoms):
-        stretches = uncovered(whole, net.geoms, tol, net.tree, share=True)
+        stretches = uncovered(whole, net.geoms, tol, net.tree)
     pieces, k = linear_parts(stretches, tol * ABOVE)
     if not len(pieces):
         return None

@@ -23,7 +23,8 @@ of the unit polygons (:mod:`archivist.analysis.halfedges`; one hash per segment,
 numpy ``searchsorted``). On a map whose lines and polygons were built from
 each other, nearly every segment is found there exactly, and the checks are
 pure array work. Only the rest, the segments with no exact twin, go through
-GEOS geometry (distance within the tolerance, buffers, differences), so the
+geometry (GEOS's distance within the tolerance; what lies within it cut
+away segment by segment on arrays, :mod:`archivist.analysis.nearness`), so the
 cost of the exact checks grows with the number of problems, not the size of
 the map.
 """
@@ -238,7 +239,7 @@ def _off_boundaries(ctx: CheckContext) -> tuple[np.ndarray, np.ndarray, np.ndarr
     What lies off is left out (None) for the runs of a fault part that lies wholly inside the unit polygons
     (every run of the part covered by their union): whatever of it lies off the boundaries lies inside a unit,
     where a fault may run, so line-off-boundary reports none of it; line-duplicate takes such a run as near
-    the boundaries. Their buffers are most of the work on a map whose faults cut across the units.
+    the boundaries. Measuring them is most of the work on a map whose faults cut across the units.
     """
 
     def compute() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -427,8 +428,8 @@ def _first_of_two(pieces: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Where a piece of two vertices is reported: its first vertex (None for longer pieces, placed by the engine).
 
     The engine places a line at GEOS's interior point, for a line of two vertices the endpoint nearer its
-    midpoint: a tie, which the last bit of the coordinates breaks. A cut point computed through another buffer
-    of the same lines (the same value to within 1e-9 m) would move the place to the other end of the piece.
+    midpoint: a tie, which the last bit of the coordinates breaks. A cut point computed another way from the
+    same lines (the same value to within 1e-9 m) would move the place to the other end of the piece.
     """
     x = np.full(len(pieces), None, dtype=object)
     y = np.full(len(pieces), None, dtype=object)
