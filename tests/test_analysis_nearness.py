@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import shapely
 
-from archivist.analysis.nearness import BIG, dwithin_pairs, length_near, off_unit_boundaries, uncovered
+from archivist.analysis.nearness import BIG, dwithin_pairs, far_parts, length_near, near_parts, off_unit_boundaries, uncovered
 from archivist.analysis.polygons import Units
 
 
@@ -86,6 +86,14 @@ def test_far_parts_by_hand():
     got = uncovered(np.array([bent, line]), np.array([shapely.Point(5, 0).buffer(0.1).exterior]), 1.0)
     assert [round(float(shapely.length(p)), 9) for p in shapely.get_parts(got[0])] == pytest.approx([3.9, 3.9])
     assert got[1].geom_type == "MultiLineString" and shapely.length(got[1]) == pytest.approx(10 - 2.2, abs=1e-9)
+    # a point as the reference (a segment of no length), in a collection with a line: within 0.5 of (5, 0.3) is
+    # 5 -/+ 0.4 (by hand), within 0.5 of the line from (9, 0.3) on is 8.6 onwards
+    refs = np.array([shapely.GeometryCollection([shapely.Point(5, 0.3), shapely.LineString([(9, 0.3), (12, 0.3)])])])
+    got = far_parts(np.array([line]), np.array([0]), refs, np.array([0]), 0.5)[0]
+    assert np.allclose(shapely.get_coordinates(got), [[0, 0], [4.6, 0], [5.4, 0], [8.6, 0]], atol=1e-12)
+    # what near_parts keeps is the rest: 4.6 to 5.4 and 8.6 to 10
+    kept = near_parts(np.array([line]), refs, 0.5)[0]
+    assert np.allclose(shapely.get_coordinates(kept), [[4.6, 0], [5.4, 0], [8.6, 0], [10, 0]], atol=1e-12)
     # nothing near: the target as it was; all of it near: an empty line
     far = shapely.LineString([(0, 50), (10, 50)])
     got = uncovered(np.array([far, line]), np.array([line]), 0.5)
@@ -160,6 +168,42 @@ def _voronoi_units(seed: int, n: int = 60):
     cells = shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 1000, (n, 2))), extend_to=box))
     cells = shapely.intersection(cells, box)
     return Units(np.arange(len(cells)), cells, np.array([str(i) for i in range(len(cells))], dtype=object), None, "units")
+
+
+def test_near_parts_against_geos_distance_and_geos_pieces_on_random_lines():
+    # pair by pair, what near_parts keeps is what GEOS's distance sampled along the line brackets (the line's length
+    # less what lies farther), every point of it within the distance, in the pieces GEOS's intersection with a fine
+    # buffer keeps; with far_parts it makes up the whole line
+    rng = np.random.default_rng(4)
+    targets, refs, tols = [], [], []
+    for _ in range(150):
+        xy = np.cumsum(rng.normal(0, 1, (int(rng.integers(2, 8)), 2)) * rng.choice([0.3, 2.0]), axis=0)
+        targets.append(shapely.linestrings(xy))
+        keep = rng.random(len(xy)) < 0.8
+        keep[:2] = True
+        refs.append(shapely.linestrings(xy[keep] + rng.normal(0, 0.3, (int(keep.sum()), 2))))
+        tols.append(float(rng.choice([0.2, 0.5])))
+    checked = 0
+    for tol in (0.2, 0.5):
+        pick = np.flatnonzero(np.array(tols) == tol)
+        t, r = np.array(targets, dtype=object)[pick], np.array(refs, dtype=object)[pick]
+        near = near_parts(t, r, tol)
+        far = far_parts(t, np.arange(len(t)), r, np.arange(len(t)), tol)
+        assert np.allclose(shapely.length(near) + shapely.length(far), shapely.length(t), rtol=0, atol=1e-9)
+        for k in range(len(t)):
+            ref = r[k]
+            lo, hi = _far_bounds(t[k], ref, tol, 0.002)
+            total = float(shapely.length(t[k]))
+            assert total - hi - 1e-9 <= shapely.length(near[k]) <= total - lo + 1e-9, k
+            if not near[k].is_empty:
+                pts = shapely.points(shapely.get_coordinates(shapely.segmentize(near[k], 0.01)))
+                assert shapely.distance(pts, ref).max() <= tol * (1 + 1e-9), k
+            if shapely.is_simple(t[k]):
+                fine = shapely.intersection(t[k], shapely.buffer(ref, tol, quad_segs=64))
+                n = [sum(shapely.length(p) > 0.05 * tol for p in shapely.get_parts(x)) for x in (near[k], fine)]
+                assert n[0] == n[1], k
+                checked += 1
+    assert checked > 50
 
 
 def test_off_boundary_parts_against_geos_distance_and_geos_pieces():

@@ -29,6 +29,8 @@ if TYPE_CHECKING:
 # every query meets it (our own choice; the answers are the same either way, only the time differs).
 BIG = 256
 LINEAR = (LINESTRING, MULTILINESTRING, shapely.GeometryType.LINEARRING.value)
+MULTI = tuple(t.value for t in (shapely.GeometryType.MULTIPOINT, shapely.GeometryType.MULTILINESTRING,
+                                shapely.GeometryType.GEOMETRYCOLLECTION))
 
 
 def dwithin_pairs(tree: shapely.STRtree, refs: np.ndarray, geoms: np.ndarray, distance: float) -> tuple[np.ndarray, np.ndarray]:
@@ -204,62 +206,115 @@ def _near_stretches(sa: np.ndarray, sb: np.ndarray, ta: np.ndarray, tb: np.ndarr
 
 
 def far_parts(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, dist: float) -> np.ndarray:
-    """Each target line less every point within ``dist`` of the reference lines paired with it (``targets[ti]``
-    with ``refs[rj]``), on arrays: what GEOS's buffer of the references and difference leave, without the buffer.
+    """Each target line less every point within ``dist`` of the references paired with it (``targets[ti]`` with
+    ``refs[rj]``), on arrays: what GEOS's buffer of the references and difference leave, without the buffer.
 
     Each target segment is measured against the reference segments near it
     (:func:`_stretch_near`, exact: a point at ``dist`` or nearer is near);
     what no stretch covers is left, and the pieces left of consecutive
     segments of one part that meet at their common vertex are one line, as
     GEOS's difference joins them (GEOS also cuts a line where it crosses
-    itself; here it is not cut there). A target's vertices are kept bit for bit;
-    the ends of a piece lie on its segment at the share found. A target with
-    nothing near it is returned as it is; one with something near as the
-    line, the multi-line or the empty line left. GEOS's buffer is a polygon
-    inside the true one (8 segments a quarter circle, the line simplified by
-    1 % of the distance), so it left a little more of a line crossing it;
-    the stretches here are the true distance, which the buffer approximated.
-    Targets and references are linear (LineString, LinearRing,
-    MultiLineString).
+    itself; here it is not cut there). A target's vertices are kept bit for
+    bit; the ends of a piece lie on its segment at the share found. A target
+    with nothing near it is returned as it is; one with something near as
+    the line, the multi-line or the empty line left. GEOS's buffer is a
+    polygon inside the true one (8 segments a quarter circle, the line
+    simplified by 1 % of the distance), so it left a little more of a line
+    crossing it; the stretches here are the true distance, which the buffer
+    approximated. Targets are linear (LineString, LinearRing,
+    MultiLineString); references linear or points (a point is a segment of
+    no length), also in collections.
     """
+    return _cut(targets, ti, refs, rj, dist, near=False)
+
+
+def near_parts(targets: np.ndarray, refs: np.ndarray, dist: float) -> np.ndarray:
+    """Per pair, the part of ``targets[k]`` within ``dist`` of ``refs[k]``: what GEOS's buffer of the reference and
+    intersection keep, on arrays as :func:`far_parts` (an empty line where nothing is near)."""
+    n = len(targets)
+    return _cut(targets, np.arange(n), refs, np.arange(n), dist, near=True)
+
+
+def _ref_segments(refs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Every segment of linear or point geometries (collections opened): start, end, index of its geometry; a point
+    is a segment from itself to itself."""
+    parts, owner = shapely.get_parts(refs, return_index=True)
+    nested = np.isin(shapely.get_type_id(parts), MULTI)
+    if nested.any():
+        inner, k = shapely.get_parts(parts[nested], return_index=True)
+        parts = np.concatenate([parts[~nested], inner])
+        owner = np.concatenate([owner[~nested], owner[nested][k]])
+    xy, at = shapely.get_coordinates(parts, return_index=True)
+    same = at[1:] == at[:-1]
+    alone = np.bincount(at, minlength=len(parts))[at] == 1
+    a = np.concatenate([xy[:-1][same], xy[alone]])
+    b = np.concatenate([xy[1:][same], xy[alone]])
+    return a, b, owner[np.concatenate([at[:-1][same], at[alone]])]
+
+
+def _cut(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, dist: float, near: bool) -> np.ndarray:
+    """:func:`far_parts` (``near`` False) or the parts within ``dist`` (``near`` True) of each target asked."""
     out = np.asarray(targets, dtype=object).copy()
     if not len(ti):
         return out
     used, back = np.unique(rj, return_inverse=True)
     asked = np.unique(ti)
-    parts, owner = shapely.get_parts(out[asked], return_index=True)
+    if near:
+        out[asked] = shapely.empty(len(asked), geom_type=shapely.GeometryType.LINESTRING)
+    parts, owner = shapely.get_parts(np.asarray(targets, dtype=object)[asked], return_index=True)
     sa, sb, sp = segments(parts)
-    rparts, rowner = shapely.get_parts(refs[used], return_index=True)
-    ra, rb, rp = segments(rparts)
-    if not len(sa):
-        return out
-    seg_target = asked[owner[sp]]
-    if len(ra):
+    ra, rb, ref_of = _ref_segments(refs[used])  # ref_of: index into used
+    s = np.zeros(0, dtype=np.int64)
+    if len(sa) and len(ra):
+        seg_target = asked[owner[sp]]
         pairs = np.unique(ti.astype(np.int64) * len(used) + back)
-        ref_of = rowner[rp]  # index into used
         s, u0, u1, before = _near_stretches(
             sa, sb, ra, rb, dist, lambda s, t: np.isin(seg_target[s] * len(used) + ref_of[t], pairs))
-    else:
-        s = np.zeros(0, dtype=np.int64)
     if not len(s):
         return out
     touched = np.unique(seg_target[s])
-    # what is left of each segment: before each stretch (from the farthest end before it, or the start) and
-    # after the last one; a segment with no stretch is left whole
-    start = np.where(np.isneginf(before), 0.0, before)
-    head = u0 > start
+    reached = np.maximum(u1, before)  # the farthest end of the stretches so far on the segment
     last = np.r_[s[1:] != s[:-1], True]
-    end = np.maximum(u1, np.where(np.isneginf(before), u1, before))
-    tail = last & (end < 1.0)
-    bare = np.ones(len(sa), dtype=bool)
-    bare[s] = False
-    bare &= np.isin(seg_target, touched)
-    g_seg = np.concatenate([s[head], s[tail], np.flatnonzero(bare)])
-    g0 = np.concatenate([start[head], end[tail], np.zeros(int(bare.sum()))])
-    g1 = np.concatenate([u0[head], np.ones(int(tail.sum())), np.ones(int(bare.sum()))])
-    order = np.lexsort((g0, g_seg))
-    g_seg, g0, g1 = g_seg[order], g0[order], g1[order]
-    # consecutive pieces of one part meeting at a vertex are one line
+    if near:
+        # the stretches joined: one piece from each stretch that starts beyond all before it to the farthest end
+        # reached before the next such one
+        opens = u0 > before
+        closes = np.r_[opens[1:], True] | last
+        g_seg, g0, g1 = s[opens], u0[opens], reached[closes]
+    else:
+        # what is left of each segment: before each stretch (from the farthest end before it, or the start) and
+        # after the last one; a segment with no stretch is left whole
+        start = np.where(np.isneginf(before), 0.0, before)
+        head = u0 > start
+        tail = last & (reached < 1.0)
+        bare = np.ones(len(sa), dtype=bool)
+        bare[s] = False
+        bare &= np.isin(seg_target, touched)
+        g_seg = np.concatenate([s[head], s[tail], np.flatnonzero(bare)])
+        g0 = np.concatenate([start[head], reached[tail], np.zeros(int(bare.sum()))])
+        g1 = np.concatenate([u0[head], np.ones(int(tail.sum())), np.ones(int(bare.sum()))])
+        order = np.lexsort((g0, g_seg))
+        g_seg, g0, g1 = g_seg[order], g0[order], g1[order]
+    pieces, piece_target = _chains(sa, sb, sp, seg_target, g_seg, g0, g1)
+    # per target: nothing, one piece, or a multi-line of its pieces
+    count = np.bincount(piece_target, minlength=len(out))
+    if not near:
+        none = touched[count[touched] == 0]
+        if len(none):
+            out[none] = shapely.empty(len(none), geom_type=shapely.GeometryType.LINESTRING)
+    one = count[piece_target] == 1
+    out[piece_target[one]] = pieces[one]
+    many = np.flatnonzero(count > 1)
+    if len(many):
+        sel = ~one
+        out[many] = shapely.multilinestrings(pieces[sel], indices=np.searchsorted(many, piece_target[sel]))
+    return out
+
+
+def _chains(sa: np.ndarray, sb: np.ndarray, sp: np.ndarray, seg_target: np.ndarray, g_seg: np.ndarray,
+            g0: np.ndarray, g1: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Lines from stretches [g0, g1] of segments ``g_seg`` (sorted along the lines): consecutive stretches of one
+    part meeting at a vertex joined; pieces of no length left out. Returns the pieces and their target."""
     joined = np.r_[False, (g_seg[1:] == g_seg[:-1] + 1) & (sp[g_seg[1:]] == sp[g_seg[:-1]]) & (g1[:-1] >= 1.0) & (g0[1:] <= 0.0)]
     joined = joined[:len(g_seg)]
     chain = np.cumsum(~joined) - 1
@@ -280,19 +335,7 @@ def far_parts(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndar
     pieces = shapely.linestrings(coords, indices=index) if n_chain else np.empty(0, dtype=object)
     piece_target = seg_target[g_seg[ends]]
     real = shapely.length(pieces) > 0
-    pieces, piece_target = pieces[real], piece_target[real]
-    # per touched target: nothing left, one piece, or a multi-line of its pieces
-    count = np.bincount(piece_target, minlength=len(out))
-    none = touched[count[touched] == 0]
-    if len(none):
-        out[none] = shapely.empty(len(none), geom_type=shapely.GeometryType.LINESTRING)
-    one = count[piece_target] == 1
-    out[piece_target[one]] = pieces[one]
-    many = np.flatnonzero(count[touched] > 1)
-    if len(many):
-        sel = ~one
-        out[touched[many]] = shapely.multilinestrings(pieces[sel], indices=np.searchsorted(touched[many], piece_target[sel]))
-    return out
+    return pieces[real], piece_target[real]
 
 
 def _stretch_near(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, r: float) -> tuple[np.ndarray, np.ndarray]:

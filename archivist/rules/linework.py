@@ -54,6 +54,8 @@ from ..analysis.nearness import (
     between_units,
     connected_pieces,
     dwithin_pairs,
+    far_parts,
+    near_parts,
     point_distances,
     off_unit_boundaries,
     uncovered,
@@ -990,21 +992,23 @@ def line_duplicate(project: MapProject, ctx: CheckContext) -> Iterator[Hit]:
 def _near_shared(runs: np.ndarray, lines: np.ndarray, other: np.ndarray, own_ends: np.ndarray, tol: float) -> np.ndarray:
     """The part of each run within ``tol`` of the other line (``lines[other]``), away from where the two lines meet or end.
 
-    Each line is buffered once, however many runs it is compared with. Where the part within ``tol`` is itself
-    no longer than the tolerance (``tol * ABOVE``), it is returned as it is: too short to report either way.
+    Cut on arrays (:func:`archivist.analysis.nearness.near_parts` and ``far_parts``: the true distance, as GEOS's
+    buffers approximated it). Where the part within ``tol`` is itself no longer than the tolerance
+    (``tol * ABOVE``), it is returned as it is: too short to report either way.
     """
-    used, back = np.unique(other, return_inverse=True)
-    close = shapely.intersection(runs, shapely.buffer(lines[used], tol)[back])
+    close = near_parts(runs, lines[other], tol)
     # taking the junctions out only shortens: a run whose close part is already no longer than the tolerance
-    # is kept as it is (the caller drops it), and the junctions are built for the others only
+    # is kept as it is (the caller drops it), and the junctions are found for the others only
     out = close.copy()
     long = np.flatnonzero(shapely.length(close) > tol * ABOVE)
     if len(long):
         others = lines[other[long]]
-        meet = shapely.intersection(runs[long], others)
-        ends = shapely.union(shapely.boundary(others), shapely.multipoints(own_ends[long]))
-        junctions = shapely.buffer(shapely.union(meet, ends), 5.0 * tol)
-        out[long] = shapely.difference(close[long], junctions)
+        n = len(long)
+        # within 5 x tol of where the two lines meet, of the other line's ends, or of the run's own line's ends
+        junctions = np.concatenate([shapely.intersection(runs[long], others), shapely.boundary(others),
+                                    shapely.multipoints(own_ends[long])])
+        k = np.tile(np.arange(n), 3)
+        out[long] = far_parts(close[long], k, junctions, np.arange(3 * n), 5.0 * tol)
     return out
 
 
