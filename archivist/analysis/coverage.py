@@ -503,15 +503,21 @@ def _blank(values: np.ndarray, failed: np.ndarray) -> np.ndarray:
 
 def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray, invalid: dict[int, Any],
                pair_pieces: dict[tuple[int, int], list[Any]], unexplained: set[tuple[int, ...]],
+               pairs: tuple[np.ndarray, np.ndarray] | None = None,
                ) -> tuple[list[tuple[tuple[int, int], Any, float]], list[Failure]]:
     """Edges of two polygons GEOS found invalid that run together, less what an overlap of the pair explains.
 
     For every pair of intersecting implicated polygons (one per defect): the
     common part of their invalid edges, merged, minus their overlap pieces;
-    all pairs at once. A pair GEOS cannot process is one failure.
+    all pairs at once. A pair GEOS cannot process is one failure. ``pairs``:
+    the intersecting pairs (polygon, other) of the implicated polygons as
+    ``tree.query`` gives them, when already asked.
     """
-    a, b = tree.query(geoms[implicated], predicate="intersects")
-    a = implicated[a]
+    if pairs is None:
+        a, b = tree.query(geoms[implicated], predicate="intersects")
+        a = implicated[a]
+    else:
+        a, b = pairs
     keep = (a < b) & np.isin(b, implicated)
     a, b = a[keep], b[keep]
     if unexplained:
@@ -562,7 +568,8 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
 
 
 def overlap_candidates(tree: shapely.STRtree, geoms: np.ndarray, region: np.ndarray,
-                       implicated: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                       implicated: np.ndarray, pairs: tuple[np.ndarray, np.ndarray] | None = None,
+                       ) -> tuple[np.ndarray, np.ndarray]:
     """Pairs (a < b, ordered by a then b) of intersecting polygons of ``region``, one of them ``implicated``.
 
     Two polygons whose interiors meet bound their overlap with stretches of
@@ -570,13 +577,18 @@ def overlap_candidates(tree: shapely.STRtree, geoms: np.ndarray, region: np.ndar
     polygon's edge passes GEOS's validation, so the pair is asked of every
     polygon that GEOS, the half-edge table or a failure implicates, not only
     of pairs of implicated polygons: where one of the two has every such
-    stretch matched, the other one's stretches inside it are not.
+    stretch matched, the other one's stretches inside it are not. ``pairs``:
+    the intersecting pairs (polygon, other) of those implicated in the
+    region, when already asked.
     """
     implicated = np.intersect1d(implicated, region)
     if not len(implicated):
         return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    si, other = tree.query(geoms[implicated], predicate="intersects")
-    one = implicated[si]
+    if pairs is None:
+        si, other = tree.query(geoms[implicated], predicate="intersects")
+        one = implicated[si]
+    else:
+        one, other = pairs
     a, b = np.minimum(one, other), np.maximum(one, other)
     keep = (a < b) & np.isin(other, region)
     key = np.unique(a[keep].astype(np.int64) * len(geoms) + b[keep])
@@ -648,8 +660,26 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     # exactly by a third (the other one's edge inside it is not matched, so GEOS flags that one).
     pieces: list[Piece] = []
     pair_pieces: dict[tuple[int, int], list[Any]] = {}
+    def intersecting(polys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(polygon, other) for the sorted polygons ``polys``, as ``tree.query(geoms[polys], predicate="intersects")``
+        gives them: the suspects' pairs as asked in step 1, the others' asked now (each polygon's own pairs in the
+        index's order, the polygons in order)."""
+        known = np.isin(polys, suspects)
+        rows = np.isin(near[0], polys[known])
+        a, b = near[0][rows], near[1][rows]
+        rest = polys[~known]
+        if len(rest):
+            ra, rb = tree.query(geoms[rest], predicate="intersects")
+            a, b = np.concatenate([a, rest[ra]]), np.concatenate([b, rb])
+            order = np.argsort(a, kind="stable")
+            a, b = a[order], b[order]
+        return a, b
+
+    asked = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     if len(implicated) or len(edges.crowded) or len(unchecked):
-        a, b = overlap_candidates(tree, geoms, region, np.union1d(np.union1d(implicated, edges.crowded), unchecked))
+        cand = np.intersect1d(np.union1d(np.union1d(implicated, edges.crowded), unchecked), region)
+        asked = intersecting(cand)
+        a, b = overlap_candidates(tree, geoms, region, cand, asked)
         # the union below takes these polygons whole, so gaps are still found around them
         doing, aspects = "intersecting them", frozenset((OVERLAPS, MISFITS))
         inner, failed, reasons = elementwise(lambda x, y: shapely.relate_pattern(x, y, "T********"), geoms[a], geoms[b], fill=False)
@@ -704,8 +734,10 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     # 5. edges that run together exactly but with different vertices (GEOS "misaligned")
     collinear: list[tuple[tuple[int, int], Any, float]] = []
     if len(implicated) > 1:
+        mine = np.isin(asked[0], implicated)  # implicated polygons are in the region: their pairs were asked above
         collinear, lost = _collinear(tree, geoms, implicated, invalid, pair_pieces,
-                                     {f.units for f in failures if OVERLAPS in f.aspects})  # their overlap is not known
+                                     {f.units for f in failures if OVERLAPS in f.aspects},  # their overlap is not known
+                                     (asked[0][mine], asked[1][mine]))
         failures += lost
     # 6. gaps: found from the untwinned edges, each measured from the polygons around it
     gap_pieces: list[Piece] = []
