@@ -227,13 +227,21 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     sqrt(area / pi); r <= 2 x area / perimeter of the convex hull (for a
     convex polygon, area = 1/2 x sum of side x distance from the centre of
     the circle to that side's line >= 1/2 x r x perimeter, and the hull
-    holds every circle the polygon holds); and where ``shapely.buffer(piece,
-    -t)`` is empty, r <= t x (1 + BUFFER_ACCURACY) (the offsets are exact
-    along edges, the arcs at reflex corners are chords that leave more
-    standing, and GEOS simplifies its input by 1 % of t). Lower: the true
-    distance to the boundary (``shapely.distance``) of a point inside the
-    polygon (``point_on_surface``) and of a point of each non-empty erosion.
-    Each round tries t just above the lower bound (to settle it), halfway
+    holds every circle the polygon holds); r <= half the hull's least width
+    (``shapely.minimum_width``: a disc inside the hull is no wider than it
+    in any direction; tight for a straight strip); and where
+    ``shapely.buffer(piece, -t)`` is empty, r <= t x (1 + BUFFER_ACCURACY)
+    (the offsets are exact along edges, the arcs at reflex corners are
+    chords that leave more standing, and GEOS simplifies its input by 1 %
+    of t). Where it is not empty, what is left holds the true erosion by
+    t x (1 + BUFFER_ACCURACY) (the same reading), so r <= t x (1 +
+    BUFFER_ACCURACY) + half the least width of what is left: tight where
+    that is a straight strip, as it is further along a bent one. Lower: the
+    true distance to the boundary (``shapely.distance``) of a point inside
+    the polygon (``point_on_surface``), of the middle of the hull's least
+    width (the centre of the widest circle in a straight strip or a thin
+    wedge) and of a point of each non-empty erosion and the middle of its
+    least width. Each round tries t just above the lower bound (to settle it), halfway
     across the bracket, and where the deepest erosion so far says r is
     (its area over its perimeter, once for a strip, twice for a blob).
     Rings are cut to nine vertices at least: GEOS drops the erosion of a
@@ -257,6 +265,11 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     hull_length = shapely.length(hull)
     hi = np.minimum(np.sqrt(area / np.pi),
                     np.where(hull_length > 0, 2.0 * shapely.area(hull) / np.where(hull_length > 0, hull_length, 1.0), np.inf))
+    # the hull's least width: no disc inside is wider (an upper bound), and the middle of it, where the polygon is a
+    # straight strip or a thin wedge, is the centre of the widest (a lower bound, measured)
+    least = shapely.minimum_width(pieces)
+    hi = np.minimum(hi, shapely.length(least) / 2.0)
+    lo = np.maximum(lo, _inside_distance(pieces, edge, np.arange(n), shapely.centroid(least)))
 
     def precision(rows: np.ndarray) -> np.ndarray:
         return np.maximum(np.minimum(coarse[rows], WIDTH_RELATIVE * lo[rows]), noise[rows])
@@ -293,6 +306,11 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
         np.minimum.at(hi, k[empty], t[empty])
         full = np.flatnonzero(~empty)
         np.maximum.at(lo, k[full], _inside_distance(pieces, edge, k[full], shapely.point_on_surface(eroded[full])))
+        # r <= t (1 + BUFFER_ACCURACY) + half the least width of what is left, kept as hi (r <= hi (1 + BUFFER_ACCURACY));
+        # the middle of that width is a point inside to measure
+        left = shapely.minimum_width(eroded[full])
+        np.minimum.at(hi, k[full], t[full] + shapely.length(left) / (2.0 * (1.0 + BUFFER_ACCURACY)))
+        np.maximum.at(lo, k[full], _inside_distance(pieces, edge, k[full], shapely.centroid(left)))
         if len(full):
             # per piece, the deepest erosion that left something
             order = np.lexsort((t[full], k[full]))
