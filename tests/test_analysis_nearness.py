@@ -170,19 +170,25 @@ def _voronoi_units(seed: int, n: int = 60):
     return Units(np.arange(len(cells)), cells, np.array([str(i) for i in range(len(cells))], dtype=object), None, "units")
 
 
+def _lines_and_references(rng, n: int, most: int, scales: tuple, jitter: float, dists: tuple) -> tuple[list, list, list]:
+    """``n`` random polylines (2 to ``most`` - 1 vertices, steps of one of ``scales``), each with a reference that
+    runs near it in places (its vertices jittered by ``jitter`` and some dropped) and a distance (one of ``dists``)."""
+    lines, refs, chosen = [], [], []
+    for _ in range(n):
+        xy = np.cumsum(rng.normal(0, 1, (int(rng.integers(2, most)), 2)) * rng.choice(list(scales)), axis=0)
+        lines.append(shapely.linestrings(xy))
+        keep = rng.random(len(xy)) < 0.8
+        keep[:2] = True
+        refs.append(shapely.linestrings(xy[keep] + rng.normal(0, jitter, (int(keep.sum()), 2))))
+        chosen.append(float(rng.choice(list(dists))))
+    return lines, refs, chosen
+
+
 def test_near_parts_against_geos_distance_and_geos_pieces_on_random_lines():
     # pair by pair, what near_parts keeps is what GEOS's distance sampled along the line brackets (the line's length
     # less what lies farther), every point of it within the distance, in the pieces GEOS's intersection with a fine
     # buffer keeps; with far_parts it makes up the whole line
-    rng = np.random.default_rng(4)
-    targets, refs, tols = [], [], []
-    for _ in range(150):
-        xy = np.cumsum(rng.normal(0, 1, (int(rng.integers(2, 8)), 2)) * rng.choice([0.3, 2.0]), axis=0)
-        targets.append(shapely.linestrings(xy))
-        keep = rng.random(len(xy)) < 0.8
-        keep[:2] = True
-        refs.append(shapely.linestrings(xy[keep] + rng.normal(0, 0.3, (int(keep.sum()), 2))))
-        tols.append(float(rng.choice([0.2, 0.5])))
+    targets, refs, tols = _lines_and_references(np.random.default_rng(4), 150, 8, (0.3, 2.0), 0.3, (0.2, 0.5))
     checked = 0
     for tol in (0.2, 0.5):
         pick = np.flatnonzero(np.array(tols) == tol)
@@ -267,16 +273,7 @@ def test_length_near_by_hand():
 def test_length_near_equals_geos_distance_sampled_along_random_lines():
     # against GEOS: random polylines and references, each point's distance to the reference (GEOS) sampled every
     # millimetre brackets the length within the distance
-    rng = np.random.default_rng(11)
-    lines, refs, dists = [], [], []
-    for _ in range(60):
-        xy = np.cumsum(rng.normal(0, 1, (int(rng.integers(2, 9)), 2)) * rng.choice([0.5, 3.0]), axis=0)
-        lines.append(shapely.linestrings(xy))
-        # a reference that runs near the line in places: its vertices jittered and some dropped
-        keep = rng.random(len(xy)) < 0.8
-        keep[:2] = True
-        refs.append(shapely.linestrings(xy[keep] + rng.normal(0, 0.2, (int(keep.sum()), 2))))
-        dists.append(float(rng.choice([0.1, 0.3])))
+    lines, refs, dists = _lines_and_references(np.random.default_rng(11), 60, 9, (0.5, 3.0), 0.2, (0.1, 0.3))
     for d in (0.1, 0.3):
         pick = np.flatnonzero(np.array(dists) == d)
         got = length_near(np.array(lines, dtype=object)[pick], np.array(refs, dtype=object)[pick], d)
