@@ -414,6 +414,36 @@ def test_overlap_whose_cut_geos_cannot_make_on_one_side_goes_to_the_other(tmp_pa
     assert shapely.coverage_is_valid(units.geometry.values)  # GEOS
 
 
+def test_overlap_whose_cut_geos_cannot_make_on_either_side_is_left_and_said(tmp_path, monkeypatch):
+    # cutting anything out of either square fails (simulated as above): the 1.00 m² overlap (by hand) is left as
+    # filed, listed with GEOS's message and its area, and the polygons keep their areas (51 and 50 m²)
+    from shapely.errors import GEOSException
+
+    import archivist.repair.polygons as repair_polygons
+
+    squares = [box(0, 0, 5.1, 10), box(5, 0, 10, 10)]
+    real = shapely.difference
+
+    def difference(a, b, **kwargs):
+        if any(g is not None and any(shapely.equals(g, q) for q in squares) for g in np.atleast_1d(np.asarray(a, dtype=object)).ravel()):
+            raise GEOSException("TopologyException: found non-noded intersection (simulated)")
+        return real(a, b, **kwargs)
+
+    class Shapely:
+        def __getattr__(self, name):
+            return difference if name == "difference" else getattr(shapely, name)
+
+    project = square(tmp_path, squares, ["A", "B"], repair_keys={"overlap": "larger"})
+    monkeypatch.setattr(repair_polygons, "shapely", Shapely())
+    result = repair(project, None, dry_run=True, only=["resolve-overlaps"])
+    monkeypatch.undo()
+    assert [c for c in result.changes if c.repair == "resolve-overlaps"] == []
+    (left,) = [x for x in result.left if x.repair == "resolve-overlaps"]
+    assert "GEOS could not cut the overlap out of it" in left.reason and "(simulated)" in left.reason
+    assert left.measure == pytest.approx(1.0) and shapely.area(left.geometry) == pytest.approx(1.0)
+    assert left.features == ("2",)  # B, the smaller, loses the overlap under "larger"
+
+
 def test_a_rounding_sliver_of_a_gap_is_never_listed_as_left():
     """What the differences that divide a gap leave below the noise floor of overlay rounding is no part left.
 

@@ -266,16 +266,22 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     new = geoms.copy()
     losers, starts = np.unique(loser[order], return_index=True)
     failed = np.zeros(len(loser), dtype=bool)
-    for lo, group in zip(losers, np.split(order, starts[1:])):  # one per polygon losing area
-        try:
-            cut = shapely.difference(new[lo], shapely.union_all(pieces[group]))
-        except GEOSException as exc:  # left as it is, and said so; snapping may still resolve a thin one
-            failed[group] = True
-            left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({exc})",
-                             shapely.union_all(pieces[group]), float(area[group].sum())))
-            state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k], False) for k in group.tolist()]
-            continue
-        new[lo] = cut
+    # one cut per polygon losing area, all at once: its pieces joined (a row of a table, in order), then taken out
+    count = np.diff(np.r_[starts, len(order)])
+    table = np.full((len(losers), int(count.max()) if len(count) else 1), None, dtype=object)
+    table[np.repeat(np.arange(len(losers)), count), np.arange(len(order)) - np.repeat(starts, count)] = pieces[order]
+    joined, bad_join, why_join = elementwise(lambda t: shapely.union_all(t, axis=1), table)
+    ok = np.flatnonzero(~bad_join)
+    cut, bad_cut, why_cut = elementwise(shapely.difference, new[losers[ok]], joined[ok])
+    new[losers[ok[~bad_cut]]] = cut[~bad_cut]
+    reasons = dict(zip(np.flatnonzero(bad_join).tolist(), why_join)) | dict(zip(ok[bad_cut].tolist(), why_cut))
+    for g in sorted(reasons):  # left as it is, and said so; snapping may still resolve a thin one
+        lo, group = losers[g], order[starts[g]:starts[g] + count[g]]
+        failed[group] = True
+        what = joined[g] if not bad_join[g] else shapely.geometrycollections(list(pieces[group]))
+        left.append(Left("resolve-overlaps", "units", (str(ids[lo]),), f"GEOS could not cut the overlap out of it ({reasons[g]})",
+                         what, float(area[group].sum())))
+        state.overlaps_left += [(str(ids[winner[k]]), str(ids[lo]), pieces[k], False) for k in group.tolist()]
     winner, loser, pieces, area, why = winner[~failed], loser[~failed], pieces[~failed], area[~failed], [w for w, f in zip(why, failed) if not f]
     # ground under three polygons or more whose choices go round (each keeps its overlap with the next and loses
     # the one with the one before) would be lost by all of them: a gap where the map had none. It stays with one
