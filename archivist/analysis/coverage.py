@@ -567,32 +567,22 @@ def _collinear(tree: shapely.STRtree, geoms: np.ndarray, implicated: np.ndarray,
     return found, failures
 
 
-def overlap_candidates(tree: shapely.STRtree, geoms: np.ndarray, region: np.ndarray,
-                       implicated: np.ndarray, pairs: tuple[np.ndarray, np.ndarray] | None = None,
-                       ) -> tuple[np.ndarray, np.ndarray]:
-    """Pairs (a < b, ordered by a then b) of intersecting polygons of ``region``, one of them ``implicated``.
+def overlap_candidates(pairs: tuple[np.ndarray, np.ndarray], region: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Pairs (a < b, ordered by a then b) of intersecting polygons of ``region``, one of them implicated, from
+    ``pairs`` (polygon, other): the intersecting pairs of the implicated polygons of the region; ``n`` polygons.
 
     Two polygons whose interiors meet bound their overlap with stretches of
     edge lying inside the other one. A stretch matched exactly by a third
     polygon's edge passes GEOS's validation, so the pair is asked of every
     polygon that GEOS, the half-edge table or a failure implicates, not only
     of pairs of implicated polygons: where one of the two has every such
-    stretch matched, the other one's stretches inside it are not. ``pairs``:
-    the intersecting pairs (polygon, other) of those implicated in the
-    region, when already asked.
+    stretch matched, the other one's stretches inside it are not.
     """
-    implicated = np.intersect1d(implicated, region)
-    if not len(implicated):
-        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
-    if pairs is None:
-        si, other = tree.query(geoms[implicated], predicate="intersects")
-        one = implicated[si]
-    else:
-        one, other = pairs
+    one, other = pairs
     a, b = np.minimum(one, other), np.maximum(one, other)
     keep = (a < b) & np.isin(other, region)
-    key = np.unique(a[keep].astype(np.int64) * len(geoms) + b[keep])
-    return key // len(geoms), key % len(geoms)
+    key = np.unique(a[keep].astype(np.int64) * n + b[keep])
+    return key // n, key % n
 
 
 def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float, within: PartOfMap | None = None) -> Coverage:
@@ -624,15 +614,24 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     invalid: dict[int, Any] = {}
     unchecked = np.zeros(0, dtype=np.int64)
 
+    def intersecting(polys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(polygon, other) for the sorted polygons ``polys``, as ``tree.query(geoms[polys], predicate="intersects")``
+        gives them: the suspects' pairs as asked in step 1, the others' asked now (each polygon's own pairs in the
+        index's order, the polygons in order)."""
+        known = np.isin(polys, suspects)
+        rows = np.isin(near[0], polys[known])
+        a, b = near[0][rows], near[1][rows]
+        rest = polys[~known]
+        if len(rest):
+            ra, rb = tree.query(geoms[rest], predicate="intersects")
+            a, b = np.concatenate([a, rest[ra]]), np.concatenate([b, rb])
+            order = np.argsort(a, kind="stable")
+            a, b = a[order], b[order]
+        return a, b
+
     def region_pairs() -> tuple[np.ndarray, np.ndarray]:
-        """Pairs (a < b) of intersecting polygons of the region (those of the suspects already known)."""
-        others = np.setdiff1d(region, suspects)
-        oa, ob = tree.query(geoms[others], predicate="intersects")
-        a = np.concatenate([near[0], others[oa]])
-        b = np.concatenate([near[1], ob])
-        # by polygon, each one's neighbours in the order a query of the whole region gives them
-        order = np.argsort(a, kind="stable")
-        a, b = a[order], b[order]
+        """Pairs (a < b) of intersecting polygons of the region."""
+        a, b = intersecting(region)
         keep = (a < b) & np.isin(b, region)
         return a[keep], b[keep]
 
@@ -660,26 +659,11 @@ def analyse_coverage(project: MapProject, units: Units, edges: Edges, tol: float
     # exactly by a third (the other one's edge inside it is not matched, so GEOS flags that one).
     pieces: list[Piece] = []
     pair_pieces: dict[tuple[int, int], list[Any]] = {}
-    def intersecting(polys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(polygon, other) for the sorted polygons ``polys``, as ``tree.query(geoms[polys], predicate="intersects")``
-        gives them: the suspects' pairs as asked in step 1, the others' asked now (each polygon's own pairs in the
-        index's order, the polygons in order)."""
-        known = np.isin(polys, suspects)
-        rows = np.isin(near[0], polys[known])
-        a, b = near[0][rows], near[1][rows]
-        rest = polys[~known]
-        if len(rest):
-            ra, rb = tree.query(geoms[rest], predicate="intersects")
-            a, b = np.concatenate([a, rest[ra]]), np.concatenate([b, rb])
-            order = np.argsort(a, kind="stable")
-            a, b = a[order], b[order]
-        return a, b
-
     asked = np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
     if len(implicated) or len(edges.crowded) or len(unchecked):
         cand = np.intersect1d(np.union1d(np.union1d(implicated, edges.crowded), unchecked), region)
         asked = intersecting(cand)
-        a, b = overlap_candidates(tree, geoms, region, cand, asked)
+        a, b = overlap_candidates(asked, region, len(geoms))
         # the union below takes these polygons whole, so gaps are still found around them
         doing, aspects = "intersecting them", frozenset((OVERLAPS, MISFITS))
         inner, failed, reasons = elementwise(lambda x, y: shapely.relate_pattern(x, y, "T********"), geoms[a], geoms[b], fill=False)

@@ -244,12 +244,10 @@ def _ref_segments(refs: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
         inner, k = shapely.get_parts(parts[nested], return_index=True)
         parts = np.concatenate([parts[~nested], inner])
         owner = np.concatenate([owner[~nested], owner[nested][k]])
-    xy, at = shapely.get_coordinates(parts, return_index=True)
-    same = at[1:] == at[:-1]
-    alone = np.bincount(at, minlength=len(parts))[at] == 1
-    a = np.concatenate([xy[:-1][same], xy[alone]])
-    b = np.concatenate([xy[1:][same], xy[alone]])
-    return a, b, owner[np.concatenate([at[:-1][same], at[alone]])]
+    a, b, at = segments(parts)
+    points = np.flatnonzero(shapely.get_num_coordinates(parts) == 1)
+    xy = shapely.get_coordinates(parts[points])
+    return np.concatenate([a, xy]), np.concatenate([b, xy]), owner[np.concatenate([at, points])]
 
 
 def _cut(targets: np.ndarray, ti: np.ndarray, refs: np.ndarray, rj: np.ndarray, dist: float, near: bool) -> np.ndarray:
