@@ -719,3 +719,57 @@ def test_resolving_overlaps_never_opens_a_gap_on_a_generated_map(tmp_path):
         assert shapely.area(shapely.intersection(c.after, loser)) < 1e-6
         held = sum(float(shapely.area(shapely.intersection(c.after, g))) for g in after)
         assert held == pytest.approx(float(shapely.area(c.after)), abs=1e-6)
+
+
+def _square_with_contact(tmp_path: Path, contact) -> Path:
+    return square(tmp_path, [box(0, 0, 5, 10), box(5, 0, 10, 10)], ["A", "B"],
+                  lines=[("contact", contact), ("map-boundary", FRAME)])
+
+
+def test_a_contact_drawn_off_its_boundary_is_not_drawn_again_beside_it(tmp_path):
+    # The boundary A|B is x = 5; its contact is drawn at x = 5.3, 0.3 m off at a 0.1 m tolerance: line-off-boundary
+    # reports the contact and boundary-without-line the boundary, 9.8 m of it (0.1 m from the frame at each end).
+    # A generated contact along x = 5 would draw the boundary twice and decide that the polygons are right. It is
+    # left (the contact lies within BESIDE x 0.1 = 1 m), listed, and the copy's findings are the project's
+    project = _square_with_contact(tmp_path, LineString([(5.3, 0), (5.3, 10)]))
+    result = repair(project, tmp_path / "out")
+    assert [c for c in result.changes if c.repair == "draw-missing-lines"] == []
+    (left,) = [x for x in result.left if x.repair == "draw-missing-lines"]
+    assert left.features == ("1",) and left.layer == "lines"
+    assert left.measure == pytest.approx(9.8, abs=1e-9)
+    assert shapely.equals(left.geometry, LineString([(5, 0.1), (5, 9.9)]))
+    assert "Contact 1 runs beside 9.8 of it within 1" in left.reason
+
+    def rules(p):
+        return sorted(f.rule for f in check(p).findings if f.family == "linework")
+
+    assert rules(tmp_path / "out") == rules(project) == ["boundary-without-line", "line-off-boundary"]
+    assert repair(tmp_path / "out", None, dry_run=True).changes == ()
+
+
+def test_a_boundary_a_contact_drawn_off_it_runs_beside_in_part_is_left_whole(tmp_path):
+    # The contact drawn at x = 5.3 from y = 0 to y = 4 only. The points (5, y) of the boundary within 1 m of it are
+    # y <= 4 + sqrt(1 - 0.3^2) = 4.95394 (by hand), 4.85394 m from the frame's tolerance at 0.1. A generated line
+    # from there to the frame would end free 1 m from the contact's end (a line-dangle the map did not have), so
+    # the whole 9.8 m is left and listed, with the 4.854 m the contact runs beside
+    project = _square_with_contact(tmp_path, LineString([(5.3, 0), (5.3, 4)]))
+    result = repair(project, tmp_path / "out")
+    assert [c for c in result.changes if c.repair == "draw-missing-lines"] == []
+    (left,) = [x for x in result.left if x.repair == "draw-missing-lines"]
+    assert shapely.equals(left.geometry, LineString([(5, 0.1), (5, 9.9)]))
+    assert "Contact 1 runs beside 4.85 of it within 1" in left.reason
+
+    def dangles(p):
+        return sum(f.rule == "line-dangle" for f in check(p).findings)
+
+    assert dangles(tmp_path / "out") == dangles(project) == 1  # the contact's own free end, at y = 4
+
+
+@pytest.mark.parametrize("x, beside", [(5.95, True), (6.05, False)])
+def test_a_contact_counts_as_drawn_beside_a_boundary_within_ten_tolerances(tmp_path, x, beside):
+    # BESIDE = 10 tolerances = 1 m here: a contact 0.95 m from the boundary keeps a second line off it; one 1.05 m
+    # away is another line, and the boundary gets its own
+    result = repair(_square_with_contact(tmp_path, LineString([(x, 0), (x, 10)])), tmp_path / "out")
+    drawn = [c for c in result.changes if c.repair == "draw-missing-lines"]
+    left = [x for x in result.left if x.repair == "draw-missing-lines"]
+    assert (len(drawn), len(left)) == ((0, 1) if beside else (1, 0))

@@ -27,12 +27,12 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import coord_hash, group_sorted, present, segments, spans
+from ..analysis.arrays import coord_hash, group_sorted, linear_parts, merge_by_group, present, segments, spans
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
 from ..analysis.messages import ABOVE
-from ..analysis.nearness import dwithin_pairs, undrawn_boundaries
+from ..analysis.nearness import Undrawn, dwithin_pairs, near_parts, off_unit_boundaries, uncovered, undrawn_boundaries
 from ..analysis.polygons import read_units
 from .model import FEATURE_ID, GENERATED_FIELD, SOURCE_LAYER, Change, Left
 from .registry import repair
@@ -1281,7 +1281,10 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     kind as "contact, inferred" when the lines have no certainty field; and
     the field ``generated`` is true on it (false on every other line). Never
     decides that a boundary is a fault rather than a contact: a mapper who
-    knows it is changes the kind.
+    knows it is changes the kind. Nor draws a boundary a line of its kind
+    runs beside, off it (within :data:`BESIDE` tolerances: the line drawn a
+    little off its boundary that ``line-off-boundary`` reports): that
+    stretch is left and listed (:func:`drawn_beside`).
     """
     if state.lines is None or state.units is None or not len(state.units):
         return [], []
@@ -1295,6 +1298,11 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     found = undrawn_boundaries(units, edges, cov.outline, drawn, net, tol)
     if found is None:
         return [], []
+    edge = np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object)
+    found, beside = drawn_beside(found, net, units, edge, tol)
+    left = _left_beside(state, units, net, beside, tol)
+    if not len(found.pieces):
+        return [], left
     inner = found.ub >= 0
     new = settled_lines(undrawn_lines(found.pieces, net.geoms, tol), inner, units.geoms, cov.extent_boundary, net, tol)
     kinds = project.config.line_kinds
@@ -1336,7 +1344,149 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     add[frame.geometry.name] = new
     added = gpd.GeoDataFrame(add, geometry=frame.geometry.name, crs=frame.crs)
     state.lines = _append(frame, added)
-    return changes, []
+    return changes, left
+
+
+# how far from a line drawn off its boundary a stretch of that boundary counts as drawn, off, by it (in tolerances):
+# our own choice, 1 mm on the map at the default tolerance of 0.1 mm (archivist.manifest), where a line is plainly
+# the drawing of the boundary beside it
+BESIDE = 10.0
+
+
+@dataclass(frozen=True)
+class Beside:
+    """Stretches of undrawn boundary a line of their kind runs beside, off them: ``stretches[k]`` of the
+    boundary between ``ua[k]`` and ``ub[k]`` (-1: the map edge), the lines (network features) ``lines[k]``, and
+    the length of the stretch within reach of them, ``along[k]``."""
+
+    stretches: np.ndarray
+    ua: np.ndarray
+    ub: np.ndarray
+    lines: tuple[np.ndarray, ...]
+    along: np.ndarray
+
+
+def drawn_beside(found: Undrawn, net: LineNetwork, units: Any, edge: np.ndarray, tol: float) -> tuple[Undrawn, Beside]:
+    """The undrawn boundary less what a line of its kind drawn off it runs beside, and that.
+
+    A contact drawn a little off the boundary it draws leaves that boundary
+    with no line within the tolerance: ``boundary-without-line`` reports the
+    boundary and ``line-off-boundary`` the contact. A line drawn there
+    would draw the boundary twice, the mapper's contact and a generated one
+    beside it, and decide that the polygon is right and the line wrong,
+    which only the mapper can. So the stretch of undrawn boundary within
+    :data:`BESIDE` tolerances of what a line lies farther than the tolerance
+    from every unit boundary and from the map edge ``edge`` (for longer than
+    the tolerance), running along it for more than that distance, is not
+    drawn (a line crossing the stretch or ending near it is not beside it):
+    a stretch between units beside a contact,
+    one along the map edge beside a map-boundary line (a line lying on
+    another boundary draws that one). The whole stretch is left, not the
+    rest of it drawn: a line drawn around the part beside would end free
+    where the line beside it takes over, a dangle the map did not have; for
+    the same reason so is a stretch that meets a stretch left where no line
+    is drawn (:func:`_meeting_left`).
+    """
+    none = Beside(np.empty(0, dtype=object), np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64), (), np.zeros(0))
+    pieces = np.asarray(found.pieces, dtype=object)
+    reach = BESIDE * tol
+    if not len(pieces) or not len(net.geoms) or tol <= 0:
+        return found, none
+    pi, li = net.tree.query(pieces, predicate="dwithin", distance=reach)
+    keep = net.roles[li] == np.where(found.ub[pi] >= 0, "contact", "boundary")
+    pi, li = pi[keep], li[keep]
+    if not len(pi):
+        return found, none
+    cand, back = np.unique(li, return_inverse=True)
+    # what lies off every unit boundary (and off the map edge): a line on some other boundary draws that one
+    off = off_unit_boundaries(net.geoms[cand], units, tol)
+    if len(edge):
+        off = uncovered(off, edge, tol)
+    parts, k = linear_parts(off, tol * ABOVE)
+    offs = merge_by_group(parts, k, len(cand))
+    ok = present(offs)[back]
+    pi, lj = pi[ok], back[ok]
+    if len(pi):
+        # beside, not across: the line's part within reach of the piece spans more than the reach along it (a line
+        # crossing the piece, or ending near it, spans little: all of it lies about one place of the piece)
+        xy, j = shapely.get_coordinates(near_parts(offs[lj], pieces[pi], reach), return_index=True)
+        at = shapely.line_locate_point(pieces[pi[j]], shapely.points(xy))
+        lo, hi = np.full(len(pi), np.inf), np.full(len(pi), -np.inf)
+        np.minimum.at(lo, j, at)
+        np.maximum.at(hi, j, at)
+        along = hi - lo > reach
+        pi, lj = pi[along], lj[along]
+    if not len(pi):
+        return found, none
+    order = np.argsort(pi, kind="stable")
+    pi, lj = pi[order], lj[order]
+    near = np.unique(pi)
+    each, j = shapely.get_parts(offs[lj], return_index=True)
+    refs = merge_by_group(each, np.searchsorted(near, pi)[j], len(near))  # the lines off beside each piece, as one
+    along = shapely.length(near_parts(pieces[near], refs, reach))
+    long = along > tol * ABOVE
+    near, along = near[long], along[long]
+    lo, hi = np.searchsorted(pi, near, "left"), np.searchsorted(pi, near, "right")
+    lines = tuple(np.unique(cand[lj[a:b]]) for a, b in zip(lo.tolist(), hi.tolist()))
+    drawn = np.ones(len(pieces), dtype=bool)
+    drawn[near] = False
+    after = _meeting_left(pieces, drawn, net, tol)
+    cascade = np.flatnonzero(drawn & ~after)
+    drawn = after
+    out = replace(found, pieces=pieces[drawn], ua=found.ua[drawn], ub=found.ub[drawn], stretch=found.stretch[drawn])
+    left = np.r_[near, cascade]
+    return out, Beside(pieces[left], found.ua[left], found.ub[left], lines + tuple(np.zeros(0, dtype=np.int64) for _ in cascade),
+                       np.r_[along, np.zeros(len(cascade))])
+
+
+def _meeting_left(pieces: np.ndarray, drawn: np.ndarray, net: LineNetwork, tol: float) -> np.ndarray:
+    """``drawn`` less every piece that would end free where a piece not drawn ends, in turn until none does.
+
+    Pieces of undrawn boundary meet end to end where no line is drawn (an
+    end within the tolerance of a drawn line is joined to it by
+    :func:`undrawn_lines`). A piece drawn up to one left undrawn would end
+    free there, a dangle the map did not have; so it is left too, and so on
+    along the boundaries it meets.
+    """
+    drawn = drawn.copy()
+    if drawn.all() or not drawn.any():
+        return drawn
+    near = ABOVE * tol
+    ends = np.r_[shapely.get_point(pieces, 0), shapely.get_point(pieces, -1)]
+    owner = np.r_[np.arange(len(pieces)), np.arange(len(pieces))]
+    free = np.ones(len(ends), dtype=bool)
+    if len(net.geoms):
+        free[np.unique(net.tree.query(ends, predicate="dwithin", distance=near)[0])] = False
+    a, b = shapely.STRtree(ends).query(ends, predicate="dwithin", distance=near)
+    keep = free[a] & free[b] & (owner[a] != owner[b])  # two pieces meeting where no line is drawn
+    a, b = owner[a[keep]], owner[b[keep]]
+    while True:
+        meets = np.unique(a[drawn[a] & ~drawn[b]])
+        if not len(meets):
+            return drawn
+        drawn[meets] = False
+
+
+def _left_beside(state: RepairState, units: Any, net: LineNetwork, beside: Beside, tol: float) -> list[Left]:
+    """One :class:`Left` per stretch of boundary :func:`drawn_beside` leaves undrawn, naming the lines beside it."""
+    layers = _source_layers(state)
+    out = []
+    for stretch, u, v, lines, along in zip(beside.stretches, beside.ua.tolist(), beside.ub.tolist(), beside.lines,
+                                           beside.along.tolist()):
+        where = (f"the boundary between polygons {units.ids[u]} and {units.ids[v]}" if v >= 0
+                 else f"the map edge along polygon {units.ids[u]}")
+        length = float(shapely.length(stretch))
+        if not len(lines):  # it meets one left for the mapper where no line is drawn
+            out.append(Left("draw-missing-lines", "units", tuple(str(units.ids[w]) for w in (u, v) if w >= 0),
+                            f"no line draws {length:.3g} of {where}; it meets a stretch of boundary left for the mapper "
+                            "where no line is drawn, and a generated line would end free there", stretch, length))
+            continue
+        names = " and ".join(net.label(int(f)) for f in lines)
+        out.append(Left("draw-missing-lines", str(layers[int(net.rows[int(lines[0])])]), tuple(str(net.ids[int(f)]) for f in lines),
+                        f"no line draws {length:.3g} of {where}, but {names} runs beside {along:.3g} of it within "
+                        f"{BESIDE * tol:g}, farther than the tolerance {tol:g}: a generated line would draw it twice; "
+                        "which of the line and the polygons is right is for the mapper (line-off-boundary)", stretch, length))
+    return out
 
 
 def _append(frame: gpd.GeoDataFrame, added: gpd.GeoDataFrame) -> gpd.GeoDataFrame:
