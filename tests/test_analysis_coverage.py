@@ -329,12 +329,43 @@ def test_a_thin_gap_runs_along_the_polygons_whose_edges_it_follows_a_rounding_of
     assert shapely.area(shapely.buffer(line, noise_floor(6510000.0), quad_segs=2)) == 0  # the map's largest coordinate
 
 
+def test_gap_faces_traced_cluster_by_cluster_are_geos_faces_of_all_the_edges_at_once(laden_map, monkeypatch):
+    # outside reference: GEOS's union (noding) and polygonize of every untwinned edge and the extent's edge in one
+    # call each, a face a gap where its point on the surface lies in the extent and in no polygon. The faces found
+    # cluster by cluster are those (their outer rings: a face holding another cluster has it as a hole in GEOS's),
+    # and so are the gaps measured from them; in batches of a few clusters too
+    import archivist.analysis.arrays as arrays
+
+    ctx = CheckContext(load_project(laden_map))
+    cov, edges, tree = ctx.coverage(), ctx.edges(), ctx.units().tree
+    lines = np.concatenate([edges.lines(np.flatnonzero(~edges.twin)), shapely.get_parts(shapely.boundary(cov.extent))])
+    every = shapely.get_parts(shapely.polygonize(shapely.get_parts(shapely.union_all(lines))))
+    points = shapely.point_on_surface(every)
+    gap = shapely.within(points, cov.extent)
+    gap[tree.query(points, predicate="intersects")[0]] = False
+    expected, at = every[gap], points[gap]
+
+    def outer(faces):
+        return sorted(shapely.to_wkb(shapely.normalize(shapely.polygons(shapely.get_exterior_ring(faces)))).tolist())
+
+    faces, found = gap_faces(edges, cov.extent, tree)
+    assert len(expected) > 20 and outer(faces) == outer(expected)
+    assert shapely.contains_properly(faces, found).all()
+    geoms, margin = ctx.units().geoms, 1e3 * noise_floor(float(np.abs(shapely.total_bounds(ctx.units().geoms)).max()))
+    mine = local_gaps(faces, found, cov.extent, geoms, tree, margin)[0]
+    theirs = local_gaps(expected, at, cov.extent, geoms, tree, margin)[0]
+    assert outer(mine) == outer(theirs) and np.isclose(shapely.area(mine).sum(), shapely.area(theirs).sum(), rtol=1e-12)
+    monkeypatch.setattr(arrays, "TABLE_CELLS", 7)
+    small, found_small = gap_faces(edges, cov.extent, tree)
+    assert shapely.to_wkb(small).tolist() == shapely.to_wkb(faces).tolist() and shapely.equals(found_small, found).all()
+
+
 def test_gaps_joined_in_small_batches_are_the_same(laden_map, monkeypatch):
-    import archivist.analysis.coverage as coverage
+    import archivist.analysis.arrays as arrays
 
     cov, geoms, tree, faces, points, margin = gap_windows(laden_map)
     whole, k, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
-    monkeypatch.setattr(coverage, "TABLE_CELLS", 5)  # a few windows per batch
+    monkeypatch.setattr(arrays, "TABLE_CELLS", 5)  # a few windows per batch
     small, k2, _ = local_gaps(faces, points, cov.extent, geoms, tree, margin)
     assert k.tolist() == k2.tolist() and shapely.to_wkb(whole).tolist() == shapely.to_wkb(small).tolist()
 

@@ -156,6 +156,17 @@ def test_gap_open_to_the_map_edge_needs_the_extent(tmp_path):
     assert f.measure == 5.0 and f.features == ("1", "2") and "at the map edge" in f.message  # A borders it along x = 5
 
 
+def test_gap_around_an_island_is_found_though_the_island_lies_where_the_gap_face_has_its_centre(tmp_path):
+    # A has a 2 m x 2 m hole at [1, 3] x [4, 6] that nothing fills but a 1 m x 1 m island C at its centre: the gap
+    # is 4 - 1 = 3 m² (by hand). The hole's edges and the island's are traced apart (their boxes do not meet); the
+    # face of the hole alone has its point on the surface at (2, 5), inside the island, so the point is taken from
+    # the face less the island
+    a = box(0, 0, 5, 10).difference(box(1, 4, 3, 6))
+    (f,) = found(square_map(tmp_path, a=a, extra=[box(1.5, 4.5, 2.5, 5.5)], codes=["A", "B", "C"], tolerance=0.01),
+                 "unit-gap")
+    assert f.measure == 3.0 and f.features == ("1", "3")
+
+
 def test_gap_closed_by_polygons_touching_at_points(tmp_path):
     # B's west edge bends 0.3 m east at (5.3, 5): the wedge between A and B is closed only by
     # two polygons meeting at points; its area is 10 m x 0.3 m / 2 = 1.5 m²

@@ -6,7 +6,7 @@ geometries at once; nothing loops over features in Python.
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Callable, Sequence
+from typing import TYPE_CHECKING, Callable, Iterator, Sequence
 
 import numpy as np
 import pandas as pd
@@ -137,6 +137,37 @@ def merge_by_group(lines: np.ndarray, groups: np.ndarray, n_groups: int) -> np.n
     have = ~shapely.is_missing(out)
     out[have] = shapely.line_merge(out[have])
     return out
+
+
+TABLE_CELLS = 1 << 20  # geometries per batch of group tables (8 MB of references)
+
+
+def group_tables(values: np.ndarray, groups: np.ndarray, n: int,
+                 cells: int | None = None) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+    """``values`` by group (``groups[i]`` in 0..n-1), as tables for a call along their rows (``func(table, axis=1)``:
+    GEOS's union or polygonize of each group in one call): per batch, the groups (rows) and their table, each row
+    its group's values in their order, padded with None (an empty group is a row of None).
+
+    Groups of like size go together, in batches of about ``cells`` cells (default :data:`TABLE_CELLS`): a few
+    large groups do not widen the table of all the others. Every group is in one batch.
+    """
+    cells = TABLE_CELLS if cells is None else cells
+    order = np.argsort(groups, kind="stable")
+    count = np.bincount(groups, minlength=n)[:n] if len(groups) else np.zeros(n, dtype=np.int64)
+    first = np.cumsum(count) - count
+    by_size = np.argsort(count, kind="stable")
+    start = 0
+    while start < n:
+        wide = np.maximum(count[by_size[start:]], 1) * np.arange(1, n - start + 1)  # non-decreasing
+        stop = start + max(1, int(np.searchsorted(wide, max(cells, int(wide[0])), side="right")))
+        rows = by_size[start:stop]
+        length = count[rows]
+        offset = np.cumsum(length) - length
+        at = np.arange(int(length.sum())) - np.repeat(offset, length)
+        table = np.full((len(rows), max(int(length.max()), 1)), None, dtype=object)
+        table[np.repeat(np.arange(len(rows)), length), at] = values[order[np.repeat(first[rows], length) + at]]
+        yield rows, table
+        start = stop
 
 
 def _parts_of_type(

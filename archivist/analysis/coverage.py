@@ -56,6 +56,7 @@ from shapely.errors import GEOSException
 from .arrays import (
     canonical,
     coord_hash,
+    group_tables,
     linear_parts,
     polygonal_parts,
     present,
@@ -63,7 +64,7 @@ from .arrays import (
     segments,
     widths,
 )
-from .guard import Failure, by_cluster, elementwise, reason_of
+from .guard import Failure, by_cluster, clusters, elementwise, reason_of
 from .halfedges import Edges
 from .messages import ABOVE
 from .nearness import length_near, prepared_copy
@@ -336,18 +337,11 @@ def gap_faces(edges: Edges, extent: Any, tree: shapely.STRtree) -> tuple[np.ndar
     the whole face). No polygon is joined to another here: the faces only say
     where to look, :func:`local_gaps` measures each gap.
     """
-    loose = np.flatnonzero(~edges.twin)
-    pieces = [edges.lines(loose)]
-    if extent is not None:
-        pieces.append(shapely.get_parts(shapely.boundary(extent)))
-    lines = np.concatenate(pieces)
-    if not len(lines):
+    lines = edges.lines(np.flatnonzero(~edges.twin))
+    ring = shapely.get_parts(shapely.boundary(extent)) if extent is not None else np.empty(0, dtype=object)
+    if not len(lines) and not len(ring):
         return np.empty(0, dtype=object), np.empty(0, dtype=object)
-    noded = shapely.get_parts(shapely.union_all(lines))  # every crossing becomes a node, drawn-twice stretches one
-    faces = shapely.get_parts(shapely.polygonize(noded))
-    if not len(faces):
-        return faces, np.empty(0, dtype=object)
-    points = shapely.point_on_surface(faces)
+    faces, points = _faces_by_cluster(lines, ring)
     covered = np.zeros(len(faces), dtype=bool)
     covered[tree.query(points, predicate="intersects")[0]] = True
     inside = ~covered
@@ -358,7 +352,65 @@ def gap_faces(edges: Edges, extent: Any, tree: shapely.STRtree) -> tuple[np.ndar
     return faces[inside], points[inside]
 
 
-TABLE_CELLS = 1 << 20  # polygons per batch of windows joined at once (8 MB of references)
+def _faces_by_cluster(lines: np.ndarray, ring: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The faces the ``lines`` and the extent's edge (``ring``, its parts) enclose once noded, and a point inside each.
+
+    What GEOS's union (which nodes them) and polygonize of them all give, a
+    cluster at a time: lines whose boxes do not meet never cross, so the
+    lines are cut into clusters of meeting boxes (and the edge's parts with
+    the lines they meet), each noded and polygonized on its own, the clusters
+    in tables (:func:`~.arrays.group_tables`). Both GEOS calls grew faster
+    than the map over all of them at once: 193 197 edges at 10^5 polygons and
+    5 % defects, 2.4 s, 50 times the 19 616 at 10^4 (a face holding every
+    cluster as a hole, 12 555 of them). A face of one cluster does not have
+    the clusters inside it as holes; its point is GEOS's point on its surface
+    unless that lies on a cluster inside it (in a face of it, or on a line),
+    and then the point on the face less the faces inside it, as one
+    polygonize of all would have it. The faces come in the order of their
+    boxes.
+    """
+    n = len(lines)
+    every = np.concatenate([lines, ring])
+    a, b = np.empty(0, dtype=np.int64), np.empty(0, dtype=np.int64)
+    if n:
+        index = shapely.STRtree(lines)
+        a, b = index.query(lines)  # boxes that meet (the edge's parts span the map: they meet exactly, below)
+        if len(ring):
+            ri, li = index.query(ring, predicate="intersects")
+            a, b = np.r_[a, n + ri], np.r_[b, li]
+    label = np.unique(clusters(len(every), a, b), return_inverse=True)[1].ravel()
+    k = int(label.max()) + 1
+    noded = np.empty(k, dtype=object)
+    for rows, table in group_tables(every, label, k):
+        noded[rows] = shapely.union_all(table, axis=1)  # every crossing becomes a node, drawn-twice stretches one
+    pieces, of = shapely.get_parts(noded, return_index=True)
+    found = np.empty(k, dtype=object)
+    for rows, table in group_tables(pieces, of, k):
+        found[rows] = shapely.polygonize(table, axis=1)
+    faces, cluster = shapely.get_parts(found, return_index=True)
+    if not len(faces):
+        return faces, np.empty(0, dtype=object)
+    points = shapely.point_on_surface(faces)
+    # a face of one cluster holding another: its point must not lie on that one (in a face of it, or on a line)
+    first = np.unique(label, return_index=True)[1]
+    by_face = shapely.STRtree(faces)
+    ci, fi = by_face.query(shapely.get_point(every[first], 0), predicate="within")
+    hosts = np.unique(fi[cluster[fi] != ci])
+    if len(hosts):
+        pf, hit = by_face.query(points[hosts], predicate="intersects")
+        on = np.zeros(len(hosts), dtype=bool)
+        on[pf[hit != hosts[pf]]] = True
+        if n:
+            on[np.unique(index.query(points[hosts], predicate="intersects")[0])] = True
+        bad = hosts[on]
+        if len(bad):  # the point from the face less the faces inside it, as one polygonize of all would give it
+            bi, fj = by_face.query(faces[bad], predicate="contains_properly")
+            joined = np.empty(len(bad), dtype=object)
+            for rows, table in group_tables(faces[fj], bi, len(bad)):
+                joined[rows] = shapely.union_all(table, axis=1)
+            points[bad] = shapely.point_on_surface(shapely.difference(faces[bad], joined))
+    order = np.lexsort(shapely.bounds(faces).T[::-1])  # by their boxes: the same order however the lines came
+    return faces[order], points[order]
 
 
 def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.ndarray, tree: shapely.STRtree,
@@ -385,23 +437,10 @@ def local_gaps(faces: np.ndarray, points: np.ndarray, extent: Any, geoms: np.nda
     failed = np.zeros(n, dtype=bool)
     cuts = np.searchsorted(wi, np.arange(n + 1))
     if len(wi):
-        # a table of polygons per window, in batches of windows of like size (a few large gaps
-        # do not widen the table of all the others)
-        count = np.diff(cuts)
-        by_size = np.argsort(count, kind="stable")
-        start = 0
-        while start < n:  # one pass per batch
-            cells = np.maximum(count[by_size[start:]], 1) * np.arange(1, n - start + 1)  # non-decreasing
-            stop = start + max(1, int(np.searchsorted(cells, max(TABLE_CELLS, int(cells[0])), side="right")))
-            rows = by_size[start:stop]
-            length = count[rows]
-            offset = np.cumsum(length) - length
-            at = np.arange(int(length.sum())) - np.repeat(offset, length)
-            table = np.full((len(rows), max(int(length.max()), 1)), None, dtype=object)
-            table[np.repeat(np.arange(len(rows)), length), at] = geoms[ui[np.repeat(cuts[rows], length) + at]]
+        # the polygons of each window joined, a table of windows at a time
+        for rows, table in group_tables(geoms[ui], wi, n):
             cover[rows], failed[rows], reasons = elementwise(lambda t: shapely.union_all(t, axis=1), table)
             lost += [(ui[cuts[f]:cuts[f + 1]], why) for f, why in zip(rows[failed[rows]], reasons)]
-            start = stop
     area = windows
     if extent is not None:
         # a window inside the extent is its own part of it; the others are cut (GEOS overlay, whose cost grows
