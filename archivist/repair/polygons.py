@@ -27,7 +27,7 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..analysis.alignment import Alignment
-from ..analysis.arrays import present, segment_lines, segments, spans, widths
+from ..analysis.arrays import group_tables, present, segment_lines, segments, spans, widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
@@ -268,13 +268,16 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     failed = np.zeros(len(loser), dtype=bool)
     # one cut per polygon losing area, all at once: its pieces joined (a row of a table, in order), then taken out
     count = np.diff(np.r_[starts, len(order)])
-    table = np.full((len(losers), int(count.max()) if len(count) else 1), None, dtype=object)
-    table[np.repeat(np.arange(len(losers)), count), np.arange(len(order)) - np.repeat(starts, count)] = pieces[order]
-    joined, bad_join, why_join = elementwise(lambda t: shapely.union_all(t, axis=1), table)
+    joined = np.empty(len(losers), dtype=object)
+    bad_join = np.zeros(len(losers), dtype=bool)
+    reasons: dict[int, str] = {}
+    for rows, table in group_tables(pieces, np.searchsorted(losers, loser), len(losers)):
+        joined[rows], bad_join[rows], why_join = elementwise(lambda t: shapely.union_all(t, axis=1), table)
+        reasons.update(zip(rows[bad_join[rows]].tolist(), why_join))
     ok = np.flatnonzero(~bad_join)
     cut, bad_cut, why_cut = elementwise(shapely.difference, new[losers[ok]], joined[ok])
     new[losers[ok[~bad_cut]]] = cut[~bad_cut]
-    reasons = dict(zip(np.flatnonzero(bad_join).tolist(), why_join)) | dict(zip(ok[bad_cut].tolist(), why_cut))
+    reasons |= dict(zip(ok[bad_cut].tolist(), why_cut))
     for g in sorted(reasons):  # left as it is, and said so; snapping may still resolve a thin one
         lo, group = losers[g], order[starts[g]:starts[g] + count[g]]
         failed[group] = True
@@ -566,13 +569,10 @@ def _take_many(rest: np.ndarray, n: np.ndarray, geoms: np.ndarray, reach: np.nda
 def _union_rows(geoms: np.ndarray, row: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """Per row of ``rows`` (sorted), the union of the ``geoms`` labelled with it, in their order (GEOS, one
     unary union per row, as ``shapely.union_all`` of that row's geometries)."""
-    order = np.argsort(row, kind="stable")
-    row = row[order]
-    slot = np.searchsorted(rows, row)
-    pos = np.arange(len(row)) - np.searchsorted(row, row)  # place within its row
-    grid = np.full((len(rows), int(pos.max()) + 1), None, dtype=object)
-    grid[slot, pos] = geoms[order]
-    return shapely.union_all(grid, axis=1)
+    out = np.empty(len(rows), dtype=object)
+    for at, table in group_tables(geoms, np.searchsorted(rows, row), len(rows)):
+        out[at] = shapely.union_all(table, axis=1)
+    return out
 
 
 # ---------------------------------------------------------------- snapping
