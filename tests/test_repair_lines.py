@@ -360,6 +360,37 @@ def test_farther_than_drawn_agrees_with_the_whole_lines_densified():
     assert 0 < farther < 8 * 40  # both answers occur
 
 
+def test_lines_snapped_onto_boundary_segments_are_never_farther_and_need_no_measuring():
+    # lines along GEOS Voronoi cell boundaries, vertex for vertex (each segment one of a boundary's own), drawn a
+    # little off them: lying on the targets all along, the snap cannot be farther than drawn. Read off the cells'
+    # half-edge table (the snap's cache), they are not measured, and the answer is the one the densified whole
+    # lines give; a line whose vertices are boundary vertices but whose segment cuts across a cell is measured
+    from archivist.analysis.halfedges import build_edges
+    from archivist.repair.lines import SEGMENTS, _along_targets, _farther
+
+    rng = np.random.default_rng(11)
+    cells = np.array(shapely.get_parts(shapely.voronoi_polygons(shapely.multipoints(rng.uniform(0, 100, (40, 2))),
+                                                                extend_to=box(0, 0, 100, 100))), dtype=object)
+    cells = shapely.intersection(cells, box(0, 0, 100, 100))
+    targets = shapely.boundary(cells)
+    along, across = [], []
+    for c in cells[:20]:
+        ring = shapely.get_coordinates(shapely.get_exterior_ring(c))
+        k = int(rng.integers(2, len(ring)))
+        along.append(shapely.linestrings(ring[:k]))  # k - 1 segments of the ring, in order
+        across.append(shapely.linestrings(ring[[0, 2]]))  # a chord of the cell: its ends are vertices, it is not an edge
+    after = np.array(along + across, dtype=object)
+    before = shapely.set_coordinates(after.copy(), shapely.get_coordinates(after) + rng.normal(0, 0.3, (shapely.get_num_coordinates(after).sum(), 2)))
+    cache = {SEGMENTS: build_edges(cells)}
+    on = _along_targets(after, cache)
+    assert on[:20].all() and not on[20:].any()
+    assert not _along_targets(after, {}).any()  # no table: every line is measured
+    expected = _farthest_whole_lines(before, after, targets, 0.5)
+    assert not expected[:20].any() and expected[20:].any()  # the chords stray farther than drawn
+    assert np.array_equal(_farther(before, after, targets, 0.5, cache), expected)
+    assert np.array_equal(_farther(before, after, targets, 0.5), expected)
+
+
 def test_nearest_target_within_a_bound_gives_the_distances_of_the_index():
     # points densified along lines near GEOS Voronoi cell boundaries, at UTM-sized coordinates: measuring each point
     # against the target segments within its line's bound (GEOS's point-to-segment formula on arrays) gives the

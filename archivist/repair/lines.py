@@ -27,7 +27,7 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import coord_hash, group_sorted, linear_parts, merge_by_group, present, segments, spans
+from ..analysis.arrays import canonical, coord_hash, group_sorted, linear_parts, merge_by_group, present, segments, spans
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -649,7 +649,7 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     frame_edge = np.array([cov.extent_boundary], dtype=object) if cov.extent is not None else np.empty(0, dtype=object)
     plan = [(role, np.flatnonzero(net.roles == role), targets, tol) for role, targets in (("contact", boundaries), ("boundary", frame_edge))]
     plan = [(role, feats, targets, t) for role, feats, targets, t in plan if len(feats) and len(targets)]
-    caches: dict[int, dict[str, Any]] = {id(boundaries): {}}
+    caches: dict[int, dict[str, Any]] = {id(boundaries): {SEGMENTS: edges}}  # the boundaries' segments: the units' edges
     if plan and plan[0][0] == "contact":
         follow = _following(state, net, plan[0][1], boundaries, tol, caches[id(boundaries)])
         if len(follow):
@@ -945,6 +945,8 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
     if not len(before) or not len(targets):
         return out
     moved = np.flatnonzero(~shapely.equals_exact(before, after, tolerance=0.0))
+    # a snapped line whose every segment is one of the targets' own lies on them all along (0 away): never farther
+    moved = moved[~_along_targets(after[moved], cache)]
     if not len(moved):
         return out
     # the targets as their segments: a nearest-segment query is a point-to-segment distance, not one to a whole ring
@@ -1045,6 +1047,27 @@ def _farther(before: np.ndarray, after: np.ndarray, targets: np.ndarray, tol: fl
         maybe &= after_far > np.maximum(unchanged, before_far) + 1e-9
     out[moved] = maybe
     return out
+
+
+SEGMENTS = "segments"  # key of a snap's cache: the half-edge table of the polygons whose boundaries are the targets
+
+
+def _along_targets(lines: np.ndarray, cache: dict[str, Any] | None) -> np.ndarray:
+    """Per line: every segment of it is a segment of the targets (the same two vertices, either way round), read off
+    the half-edge table the snap's ``cache`` holds under :data:`SEGMENTS` (the edges of the polygons whose
+    boundaries are the targets: every segment of those boundaries, zero-length ones aside). False for every line
+    where the cache holds none, and for a line with no segment."""
+    out = np.zeros(len(lines), dtype=bool)
+    edges = cache.get(SEGMENTS) if cache is not None else None
+    if edges is None or not len(lines):
+        return out
+    a, b, line, _ = _segments(lines)
+    if not len(line):
+        return out
+    px, py, qx, qy, _ = canonical(a[:, 0], a[:, 1], b[:, 0], b[:, 1])
+    off = edges.find(coord_hash(px, py, qx, qy), px, py, qx, qy) < 0
+    n = len(lines)
+    return (np.bincount(line, weights=off, minlength=n) == 0) & (np.bincount(line, minlength=n) > 0)
 
 
 def _near_segments(lines: np.ndarray, targets: np.ndarray, cache: dict[str, Any] | None = None
