@@ -490,3 +490,38 @@ def test_package_of_a_repaired_copy_records_the_run(tmp_path):
     # a package of the project itself records no repair
     plain = pack(project, tmp_path / "pkg2", allow_errors=True)
     assert "pkg:run/repair" not in json.loads((plain.path / "data" / "metadata" / "provenance.json").read_text(encoding="utf-8"))["activity"]
+
+
+def test_contexts_over_the_same_lines_share_the_line_network_of_the_check_before(tmp_path, monkeypatch):
+    # the line network depends on the lines alone: the check contexts the polygon repairs make for new units over
+    # the lines as read take over the network the check before the repairs built (a context over other lines builds
+    # its own), and the run's changes and counts are those of a run where every context builds its own
+    import archivist.repair.polygons as polygons
+
+    real = polygons._new_context
+    made: list[tuple[object, object]] = []
+
+    def spy(state):
+        ctx = real(state)
+        made.append((state.lines, ctx))
+        return ctx
+
+    def entries(result):
+        return [(c.repair, c.layer, c.features_before, c.features_after, c.area_moved, c.max_shift,
+                 None if c.after is None else shapely.to_wkb(c.after)) for c in result.changes]
+
+    project = five(tmp_path)
+    monkeypatch.setattr(polygons, "_new_context", spy)
+    shared = repair(project, tmp_path / "out")
+    first = made[0][0]
+    networks = [ctx.computed(polygons.NETWORK) for lines, ctx in made if lines is first]
+    networks = [n[0] for n in networks if n is not None]
+    assert len(networks) >= 2 and all(n is networks[0] for n in networks)  # one network, handed from context to context
+    made.clear()
+    monkeypatch.setattr(polygons, "NETWORK", "analysis.none")  # nothing handed on: each context builds its own
+    own = repair(project, tmp_path / "own")
+    built = [ctx.computed("analysis.lines") for _, ctx in made]
+    built = [n[0] for n in built if n is not None]
+    assert len(built) >= 2 and len({id(n) for n in built}) == len(built)
+    assert entries(shared) == entries(own)
+    assert (shared.before, shared.after) == (own.before, own.after)

@@ -95,6 +95,14 @@ class CheckContext:
             self._cache[key] = value
             self._logs[key] = list(notes)
 
+    def computed(self, key: str) -> tuple[Any, list[str]] | None:
+        """The value under ``key`` and what computing it noted, when it has been computed or handed in; else None
+        (nothing is computed)."""
+        with self._guard:
+            if key not in self._cache:
+                return None
+            return self._cache[key], list(self._logs.get(key, []))
+
     def note(self, text: str) -> None:
         """A note for the report (once, however many rules add it)."""
         self._log().append(text)

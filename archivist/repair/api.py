@@ -103,6 +103,7 @@ def _ages(project: Any) -> dict[str, Any]:
 def make_state(project: Any) -> RepairState:
     """Working copies of the project's units and lines, with their feature ids in column FEATURE_ID."""
     import numpy as np
+    import pandas as pd
 
     state = RepairState(project=project, config=project.config, ages=_ages(project))
     units = project.layers.get("units")
@@ -115,7 +116,12 @@ def make_state(project: Any) -> RepairState:
     if lines is not None:
         frame = lines.frame.copy()
         frame[FEATURE_ID] = np.asarray(lines.ids, dtype=object)
-        frame[SOURCE_LAYER] = [lines.origin[i][0] if i in lines.origin else "lines" for i in frame[FEATURE_ID]]
+        if lines.origin:  # lines combined from several layers: each row's own layer (the row order of the ids)
+            own = pd.Index(list(lines.origin)).get_indexer(np.asarray(lines.ids, dtype=object))
+            roles = np.array([role for role, _ in lines.origin.values()] + ["lines"], dtype=object)
+            frame[SOURCE_LAYER] = roles[own]  # -1: the last, "lines"
+        else:
+            frame[SOURCE_LAYER] = "lines"
         state.lines = frame
         state.kind_field = lines.field("kind_field")
         state.certainty_field = lines.field("certainty_field")
@@ -192,7 +198,7 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
                                  "file: join them into one layer first")
     refuse_ambiguous_ids(proj, manifest_path)
     from ..analysis.context import CheckContext
-    from .polygons import CHECKED
+    from .polygons import CHECKED, LINES_SEEN
 
     state = make_state(proj)
     # the check's analyses of the units as read: the first repair reads them too, and its half-edges are lent to
@@ -203,6 +209,9 @@ def repair(project: str | Path, out: str | Path | None, *, only: Iterable[str] =
     settings = settings_for(proj, build_polygons)
     if checked.view() is proj:  # no layer moved into place by the check (another CRS, swapped axes): the same units
         state.analyses[CHECKED] = (state.units, checked)
+        # the check's lines layer is the working lines' own (their frame a copy of it, with ids, geometries and
+        # fields the same): its network is theirs (see _new_context)
+        state.analyses[LINES_SEEN] = (state.lines, checked)
         state.aligned = True
     changes: list[Change] = []
     left: list[Left] = []
@@ -490,8 +499,8 @@ def _edit_in_place(frame: Any, layer: Any, dest: Path, spec: dict[str, Any], rol
     table = str(spec.get("layer") or dest.stem)
     if layer.parts or layer.path.suffix.lower() != ".gpkg" or dest.suffix.lower() != ".gpkg" or not dest.exists():
         return "only a layer of one GeoPackage is edited in place; other formats are written whole"
-    ids = [str(v) for v in frame[FEATURE_ID]]
-    known = pd.Index([str(v) for v in layer.ids])
+    ids = np.array([str(v) for v in frame[FEATURE_ID].to_numpy(dtype=object)], dtype=object)
+    known = pd.Index(np.array([str(v) for v in np.asarray(layer.ids, dtype=object)], dtype=object))
     if not known.is_unique:
         return "its feature ids repeat, so rows cannot be told apart"
     pos = known.get_indexer(ids)

@@ -179,7 +179,10 @@ def _plan(frame: Any, fids: np.ndarray, original: Any) -> _Plan:
     old_fids = np.asarray(original.index, dtype=np.int64)
     pos = pd.Index(old_fids).get_indexer(fids)
     kept = pos >= 0
-    gone = np.setdiff1d(old_fids, fids[kept])
+    # the table's rows no working row is (its feature ids are its key: each once), in ascending order
+    hit = np.zeros(len(old_fids), dtype=bool)
+    hit[pos[kept]] = True
+    gone = np.sort(old_fids[~hit])
     a = np.asarray(frame.geometry.values, dtype=object)[kept]
     b = np.asarray(original.geometry.values, dtype=object)[pos[kept]]
     moved = np.zeros(len(frame), dtype=bool)

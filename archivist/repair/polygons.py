@@ -59,6 +59,10 @@ def _context(state: RepairState) -> CheckContext:
 
 
 CHECKED = "context"  # key of RepairState.analyses: the check context of the working units
+# key of RepairState.analyses: (a lines frame, the last check context made over it). The line network depends on
+# the lines alone: a context made for new units over the same lines frame takes over that one's network
+LINES_SEEN = "context-of-lines"
+NETWORK = "analysis.lines"  # the key a check context keeps its line network under
 
 
 def _new_context(state: RepairState) -> CheckContext:
@@ -75,6 +79,11 @@ def _new_context(state: RepairState) -> CheckContext:
     ctx = CheckContext(replace(project, layers=layers, problems=[], notes=[]), edge_basis=state.edge_basis)
     if state.aligned:  # placed as the check before the repairs placed the project: every layer as it is
         ctx.provide("analysis.alignment", Alignment(layers=dict(layers)))
+    seen = state.analyses.get(LINES_SEEN)
+    known = seen[1].computed(NETWORK) if seen is not None and seen[0] is state.lines else None
+    if known is not None:  # the same lines, the same layer made of them: the same network
+        ctx.provide(NETWORK, *known)
+    state.analyses[LINES_SEEN] = (state.lines, ctx)
     return ctx
 
 
