@@ -195,11 +195,24 @@ class _Targets:
         self._vertices = _RowSet(shapely.get_coordinates(targets))
         self._have = np.zeros(len(targets), dtype=bool)  # the targets whose vertices the vertex index holds
         self._index: tuple[shapely.STRtree, np.ndarray] | None = None
+        self._asked: tuple[np.ndarray, np.ndarray] | None = None  # see on_at
 
     def on(self, xy: np.ndarray) -> np.ndarray:
         """Per point ((n, 2) coordinates): whether it is exactly one of the target vertices (:class:`_RowSet`: a
         vertex answered False is measured by the snap, which finds its nearest vertex is itself, 0 away)."""
         return self._vertices.has(xy)
+
+    def on_at(self, coords: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """:meth:`on` of ``coords[rows]``, each row's answer kept for the next call on the same array (the line
+        network's coordinates: the contacts' vertices are asked by :func:`_following`, then by
+        :func:`_on_targets`)."""
+        if self._asked is None or self._asked[0] is not coords:
+            self._asked = (coords, np.full(len(coords), -1, dtype=np.int8))
+        known = self._asked[1]
+        ask = rows[known[rows] < 0]
+        if len(ask):
+            known[ask] = self.on(coords[ask])
+        return known[rows] == 1
 
     def vertices(self, pts: np.ndarray, distance: float) -> tuple[shapely.STRtree, np.ndarray]:
         """An STRtree of target vertices and their coordinates ((n, 2), in the tree's order), holding every vertex
@@ -253,12 +266,12 @@ def _on_vertices(parts: np.ndarray, index: _Targets) -> np.ndarray:
     return _parts_on(xy, part, len(parts), index)
 
 
-def _parts_on(xy: np.ndarray, part: np.ndarray, n: int, index: _Targets) -> np.ndarray:
+def _parts_on(xy: np.ndarray, part: np.ndarray, n: int, index: _Targets, on: np.ndarray | None = None) -> np.ndarray:
     """:func:`_on_vertices` of parts 0 .. n - 1 given by their vertices ``xy`` in order (``part``: the part of each,
-    ascending; a part with none answers True)."""
+    ascending; a part with none answers True). ``on``: :meth:`_Targets.on` of ``xy``, when already asked."""
     if not len(xy):
         return np.ones(n, dtype=bool)
-    on = index.on(xy)
+    on = index.on(xy) if on is None else on
     repeat = np.zeros(len(xy), dtype=bool)
     repeat[1:] = (part[1:] == part[:-1]) & (xy[1:] == xy[:-1]).all(axis=1)
     bad = np.bincount(part, weights=(~on | repeat), minlength=n) > 0
@@ -710,7 +723,7 @@ def _following(state: RepairState, net: LineNetwork, contacts: np.ndarray, bound
     parts = np.flatnonzero(np.isin(net.part_feat, contacts))
     starts, stops = net.part_off[parts], net.part_off[parts + 1]
     vertex, which = spans(starts, stops - starts)[1], np.repeat(net.part_feat[parts], stops - starts)
-    off = ~index.on(net.coords[vertex])
+    off = ~index.on_at(net.coords, vertex)
     vertex, which = vertex[off], which[off]
     if not len(vertex):
         return none
@@ -847,7 +860,8 @@ def _on_targets(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, float
         if not len(valid):
             continue
         mine = np.flatnonzero(np.isin(net.part_feat, feats)[vertex_part])  # the vertices of the group's parts
-        on = _parts_on(net.coords[mine], vertex_part[mine], net.n_parts, _targets(valid, cache))
+        index = _targets(valid, cache)
+        on = _parts_on(net.coords[mine], vertex_part[mine], net.n_parts, index, index.on_at(net.coords, mine))
         ok = np.ones(len(net.geoms), dtype=bool)
         ok[net.part_feat[~on]] = False
         out[feats] = ok[feats]
