@@ -294,6 +294,35 @@ def test_combined_line_layers_get_the_generated_contact_in_the_contacts_layer(tm
     assert not REPAIRED & set(rules(out))
 
 
+def test_the_working_lines_know_the_layer_each_came_from(tmp_path):
+    # three line layers read as one: each working row names its own layer (the row order of the combined ids),
+    # one lines layer names "lines"
+    from builders import edit_manifest, write_layer
+
+    from archivist.project import load_project
+    from archivist.repair.api import make_state
+    from archivist.repair.model import FEATURE_ID, SOURCE_LAYER
+
+    project = tiny_project(tmp_path, lines=line_frame(("map-boundary", FRAME)))
+    assert make_state(load_project(project)).lines[SOURCE_LAYER].tolist() == ["lines"]
+    gpkg = project / "map.gpkg"
+    two = [LineString([(100, 0), (100, 40)]), LineString([(100, 40), (100, 100)])]
+    write_layer(gpkg, "contacts", gpd.GeoDataFrame({"certainty": ["certain"] * 2}, geometry=two, crs=CRS))
+    write_layer(gpkg, "faults", gpd.GeoDataFrame({"certainty": ["certain"]}, geometry=[LineString([(0, 50), (200, 50)])], crs=CRS))
+    write_layer(gpkg, "frame", gpd.GeoDataFrame({"certainty": ["certain"]}, geometry=[FRAME], crs=CRS))
+
+    def change(d):
+        del d["layers"]["lines"]
+        for name in ("faults", "contacts", "frame"):
+            d["layers"][name] = {"path": "map.gpkg", "layer": name, "certainty_field": "certainty"}
+
+    edit_manifest(project, change)
+    lines = make_state(load_project(project)).lines
+    assert [(str(i).split(":")[0], layer) for i, layer in zip(lines[FEATURE_ID], lines[SOURCE_LAYER])] == [
+        (layer, layer) for layer in lines[SOURCE_LAYER]]
+    assert sorted(lines[SOURCE_LAYER].tolist()) == ["contacts", "contacts", "faults", "frame"]
+
+
 def test_repaired_copy_has_no_linework_finding_of_the_repaired_kinds(tmp_path):
     # Three defects at once (tolerance 1 m): a contact 0.3 m off, an end 0.4 m short, a boundary with no line.
     units = gpd.GeoDataFrame({"unit": ["A", "B", "C"]},
