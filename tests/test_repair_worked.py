@@ -773,3 +773,27 @@ def test_a_contact_counts_as_drawn_beside_a_boundary_within_ten_tolerances(tmp_p
     drawn = [c for c in result.changes if c.repair == "draw-missing-lines"]
     left = [x for x in result.left if x.repair == "draw-missing-lines"]
     assert (len(drawn), len(left)) == ((0, 1) if beside else (1, 0))
+
+
+def test_a_boundary_whose_line_would_end_free_is_left_and_listed(tmp_path):
+    # A = [0, 5] x [0, 5], B = [5, 10] x [0, 5] under C = [0, 10] x [5, 10]; the contact along y = 5 is drawn in two
+    # pieces that stop 0.15 m short of the node (5, 5) on either side, at a 0.1 m tolerance (two dangles of the map).
+    # The boundary A|B (x = 5) has no line: a line drawn along it, from the frame up to (5, 5), would end 0.15 m
+    # from both pieces, farther than the tolerance: a third dangle, which the map did not have. It is left and
+    # listed with where it would end free, and the copy's linework findings are the project's
+    contacts = [("contact", LineString([(0, 5), (4.85, 5)])), ("contact", LineString([(5.15, 5), (10, 5)]))]
+    project = square(tmp_path, [box(0, 0, 5, 5), box(5, 0, 10, 5), box(0, 5, 10, 10)], ["A", "B", "C"],
+                     lines=contacts + [("map-boundary", FRAME)])
+
+    def rules(p):
+        return sorted(f.rule for f in check(p).findings if f.family == "linework")
+
+    assert rules(project) == ["boundary-without-line", "line-dangle", "line-dangle"]
+    result = repair(project, tmp_path / "out")
+    assert [c for c in result.changes if c.repair == "draw-missing-lines"] == []
+    (left,) = [x for x in result.left if x.repair == "draw-missing-lines"]
+    assert set(left.features) == {"1", "2"}
+    assert left.measure == pytest.approx(4.9, abs=1e-6)  # y = 0.1 (the frame's tolerance) to 5: no line within 0.1
+    assert "would end free at (5.00, 5.00)" in left.reason
+    assert rules(tmp_path / "out") == rules(project)
+    assert repair(tmp_path / "out", None, dry_run=True).changes == ()
