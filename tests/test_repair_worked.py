@@ -797,3 +797,19 @@ def test_a_boundary_whose_line_would_end_free_is_left_and_listed(tmp_path):
     assert "would end free at (5.00, 5.00)" in left.reason
     assert rules(tmp_path / "out") == rules(project)
     assert repair(tmp_path / "out", None, dry_run=True).changes == ()
+
+
+def test_a_boundary_stretch_along_an_overlap_is_told_from_one_running_on_past_it():
+    # The overlap [5, 5.5] x [0, 5] at a 0.1 m tolerance: a stretch on its edge, or inside it, lies along it (within
+    # the tolerance all along: GEOS covered_by its buffer); one running on past its corner, or 0.15 m beside it, does
+    # not, and draw-missing-lines draws those
+    from archivist.repair.lines import along_overlaps
+
+    stretches = np.array([LineString([(5.5, 0.1), (5.5, 4.9)]), LineString([(5.25, 1), (5.25, 4)]),
+                          LineString([(5, 5), (5, 10)]), LineString([(5.65, 0), (5.65, 5)]),
+                          LineString([(5.55, 0), (5.55, 5)])], dtype=object)
+    assert along_overlaps(stretches, [box(5, 0, 5.5, 5)], 0.1).tolist() == [True, True, False, False, True]
+    assert along_overlaps(stretches, [], 0.1).tolist() == [False] * 5
+    # two overlaps meeting end to end: a stretch along both lies along their union
+    assert along_overlaps(np.array([LineString([(5.5, 0), (5.5, 9)])], dtype=object),
+                          [box(5, 0, 5.5, 5), box(5, 5, 5.5, 9)], 0.1).tolist() == [True]
