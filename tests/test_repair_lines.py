@@ -94,6 +94,21 @@ def test_vertex_farther_than_the_tolerance_never_moves():
     assert not done.held[0]
 
 
+def test_a_snap_that_would_make_a_line_cross_itself_is_not_made():
+    # The line (0, 0) (10, 0) (10.2, 0.19) (20, 5) is simple (GEOS). Its vertex (10, 0) is held where another line
+    # meets it, on the boundary (9.997, -5) (9.997, 0) (30, 0) but 3 mm past its vertex (9.997, 0); (10.2, 0.19) lies
+    # 0.278 m from that vertex (by hand), within the 0.5 m tolerance. Snapped there, the line would run to x = 10 and
+    # back 3 mm along itself: not simple (a 7 mm loop of this kind on the topology benchmark's map of 10^5 polygons).
+    # The line stays as drawn and says why
+    line = np.array([LineString([(0, 0), (10, 0), (10.2, 0.19), (20, 5)])], dtype=object)
+    targets = np.array([LineString([(9.997, -5), (9.997, 0), (30, 0)])], dtype=object)
+    done = snap_to_boundaries(line, targets, 0.5, pinned=np.array([[10.0, 0.0]]))
+    assert done.tangled is not None and done.tangled[0]
+    assert not done.changed[0] and not done.held[0]
+    assert shapely.equals_exact(done.geoms[0], line[0], tolerance=0.0)
+    assert not shapely.is_simple(LineString([(0, 0), (10, 0), (9.997, 0), (20, 5)]))  # what the snap would make
+
+
 def test_no_vertex_moves_more_than_the_tolerance():
     # A wavy boundary and a noisy copy of it (deterministic noise up to 0.9 m, and a stretch 2.5 m off;
     # tolerance 1 m). Each vertex of the drawn line has one of the result within the tolerance (GEOS distance);

@@ -83,6 +83,29 @@ def test_overlap_by_age_goes_to_the_younger_unit(tmp_path):
     assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx([50.0, 50.0])
 
 
+@pytest.mark.parametrize("x, by_lines, keeper, areas", [
+    (5.0, True, "2", [50.0, 50.0]),  # the contact draws B's edge: B keeps the overlap, A is cut back to it
+    (5.1, True, "1", [51.0, 49.0]),  # it draws A's edge: A keeps it
+    (5.0, False, "1", [51.0, 49.0]),  # overlap_by_lines = false: the rule alone (larger: A)
+])
+def test_an_overlap_goes_to_the_polygon_whose_edge_a_contact_draws(tmp_path, x, by_lines, keeper, areas):
+    # A = [0, 5.1] x [0, 10] overlaps B = [5, 10] x [0, 10] by 0.1 m x 10 m = 1.00 m², 0.1 m wide, at a 0.05 m
+    # tolerance: a contact along one edge lies farther than the tolerance from the other. The line says where the
+    # boundary is, before the declared rule (larger: A); the areas by hand
+    project = square(tmp_path, [box(0, 0, 5.1, 10), box(5, 0, 10, 10)], ["A", "B"], checks={"tolerance": 0.05},
+                     repair_keys={"overlap": "larger", "overlap_by_lines": by_lines},
+                     lines=[("contact", LineString([(x, 0), (x, 10)])), ("map-boundary", FRAME)])
+    result = repair(project, tmp_path / "out")
+    (c,) = [c for c in result.changes if c.repair == "resolve-overlaps"]
+    assert c.features_before[0] == keeper and c.area_moved == pytest.approx(1.0)
+    assert ("a line drawn along its edge" in c.note) == by_lines
+    assert copy_units(tmp_path / "out").geometry.area.tolist() == pytest.approx(areas)
+    assert result.settings.overlap_by_lines is by_lines
+    # with the line deciding, the contact lies on the copy's boundary; by the rule alone, B's edge moved 0.1 m from it
+    linework = sorted(f.rule for f in check(tmp_path / "out").findings if f.family == "linework")
+    assert linework == ([] if by_lines else ["boundary-without-line", "line-off-boundary"])
+
+
 def test_overlap_above_the_limit_is_left(tmp_path):
     # A = [0, 5.3] x [0, 10] overlaps B by 0.3 m x 10 m = 3 m² > 1 m²: left and listed, both polygons unchanged.
     project = square(tmp_path, [box(0, 0, 5.3, 10), box(5, 0, 10, 10)], ["A", "B"])

@@ -77,6 +77,7 @@ def settings_for(project: Any, build_polygons: bool = False) -> RepairSettings:
         sliver_width=float(width),
         generated_certainty=str(rep.get("generated_certainty", "inferred")),
         build_polygons=build_polygons,
+        overlap_by_lines=rep.get("overlap_by_lines", True) is not False,  # the schema reports a value not true or false
     )
 
 

@@ -61,6 +61,7 @@ class Snapped:
     shift: np.ndarray  # per line: Hausdorff distance between before and after (0 when unchanged)
     changed: np.ndarray  # per line: bool
     held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
+    tangled: np.ndarray | None = None  # per line: the snap would have made a simple line cross itself (left as it was)
 
 
 def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None,
@@ -97,8 +98,9 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
     targets = np.asarray(targets, dtype=object)
     targets = _kept(targets)
     have = np.flatnonzero(present(lines))
+    tangled = np.zeros(n, dtype=bool)
     if not len(have) or not len(targets) or tol <= 0:
-        return Snapped(out, shift, changed, held)
+        return Snapped(out, shift, changed, held, tangled)
     eps = noise(np.concatenate([lines[have], targets]))
     index = _targets(targets, cache)
     parts, owner, active, touched = _to_measure(lines, have, index)
@@ -127,11 +129,16 @@ def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinne
         h = shapely.hausdorff_distance(before, rebuilt)
         too_far = h > tol * ABOVE
         held[feats[too_far]] = True
-        ok_f = feats[~too_far]
-        out[ok_f] = rebuilt[~too_far]
-        shift[ok_f] = h[~too_far]
+        # a line drawn simple that the snap would make cross or touch itself (two of its vertices snapped onto
+        # boundary vertices a few mm apart, in the other order: a loop of 7 mm on a generated map) stays as drawn
+        knot = ~too_far & shapely.is_simple(before) & ~shapely.is_simple(rebuilt)
+        tangled[feats[knot]] = True
+        ok = ~too_far & ~knot
+        ok_f = feats[ok]
+        out[ok_f] = rebuilt[ok]
+        shift[ok_f] = h[ok]
         changed[ok_f] = True
-    return Snapped(out, shift, changed, held)
+    return Snapped(out, shift, changed, held, tangled)
 
 
 def _to_measure(lines: np.ndarray, have: np.ndarray, index: _Targets) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -638,7 +645,7 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     ``[checks] tolerance`` (our own choice: the distance ``check`` already
     counts as "on the boundary"). A vertex farther than that never moves; a
     line that would end up farther than that from where it was drawn is left
-    and listed. A contact drawn on a boundary (every vertex within the
+    and listed, as is one the snap would make cross itself. A contact drawn on a boundary (every vertex within the
     tolerance of the unit boundaries as read) that the polygon repairs moved
     further than the tolerance from it follows it, within twice the
     tolerance (``FOLLOW``: a polygon moves by no more than two repairs'
@@ -668,7 +675,7 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         if len(follow):
             plan[0] = ("contact", np.setdiff1d(plan[0][1], follow), boundaries, tol)
             plan.append(("follow", follow, boundaries, FOLLOW * tol))
-    final, shift, changed, held, worse = snap_network(net, [(feats, targets, t) for _, feats, targets, t in plan], caches)
+    final, shift, changed, held, worse, tangled = snap_network(net, [(feats, targets, t) for _, feats, targets, t in plan], caches)
     ids = _ids(state)
     layers = _source_layers(state)
     for role, feats, _, t in plan:
@@ -690,6 +697,11 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             r = int(net.rows[f])
             left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
                              "snapping its vertices would leave part of it farther from the unit boundaries than it was drawn",
+                             net.geoms[f], 0.0))
+        for f in feats[tangled[feats]]:
+            r = int(net.rows[f])
+            left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
+                             "snapping its vertices onto the boundary would make it cross itself (line-self-intersection)",
                              net.geoms[f], 0.0))
     return changes, left
 
@@ -751,7 +763,8 @@ MAX_JOIN_ROUNDS = 8  # rounds of holding line ends where lines meet; each round 
 
 
 def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, float]],
-                 shared: dict[int, dict[str, Any]] | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+                 shared: dict[int, dict[str, Any]] | None = None
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The network's features of each ``(features, targets, distance)`` of ``plan`` snapped, lines that meet kept
     meeting.
 
@@ -768,18 +781,19 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, floa
 
     ``shared``: snap caches (:func:`snap_to_boundaries`) already made, by the
     id of the targets they index. Returns per network feature: its geometry after, the distance it moved,
-    whether it changed, whether it was held back (too far) and whether the
-    snap was refused as farther from the targets.
+    whether it changed, whether it was held back (too far), whether the
+    snap was refused as farther from the targets, and whether it was refused
+    as making the line cross itself.
     """
     n = len(net.geoms)
     final = np.array(net.geoms, dtype=object, copy=True)
     shift, changed = np.zeros(n), np.zeros(n, dtype=bool)
-    held, worse = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
+    held, worse, tangled = np.zeros(n, dtype=bool), np.zeros(n, dtype=bool), np.zeros(n, dtype=bool)
     snapped = np.zeros(n, dtype=bool)
     for feats, _, _ in plan:
         snapped[feats] = True
     if not snapped.any():
-        return final, shift, changed, held, worse
+        return final, shift, changed, held, worse, tangled
     eps = noise(net.geoms)
     # the ends of the snapped lines that touch another line: (end k, other feature g)
     parts = np.flatnonzero(snapped[net.part_feat])
@@ -801,7 +815,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, floa
     ends_index: dict[str, Any] = {}  # the index of the ends, built once for every round
     for round_ in range(MAX_JOIN_ROUNDS):
         final[todo] = net.geoms[todo]
-        shift[todo], changed[todo], held[todo], worse[todo] = 0.0, False, False, False
+        shift[todo], changed[todo], held[todo], worse[todo], tangled[todo] = 0.0, False, False, False, False
         for (feats, targets, dist), cache in zip(plan, caches):
             f = feats[todo[feats] & ~frozen[feats] & ~settled[feats]]
             if not len(f):
@@ -814,6 +828,8 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, floa
             changed[f[ok]] = True
             held[f[found.held]] = True
             worse[f[w]] = True
+            if found.tangled is not None:
+                tangled[f[found.tangled]] = True
         # the junctions of the lines that changed: a line can change first in a later round (its own snap refused
         # as farther in the first, made once one of its ends is held), and its junctions are then asked too
         fresh = changed & ~seen
@@ -845,7 +861,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, floa
         hit = dwithin_pairs(net.tree, net.geoms, shapely.points(old[bad_k]), eps)[1]
         todo[hit] = True
         todo &= snapped
-    return final, shift, changed, held, worse
+    return final, shift, changed, held, worse, tangled
 
 
 def _on_targets(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, float]], caches: list[dict[str, Any]]) -> np.ndarray:

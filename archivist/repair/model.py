@@ -92,6 +92,9 @@ class RepairSettings:
     ``check`` reports a thin gap as a misfit rather than a gap, i.e. the
     tolerance, unless ``[repair] gap_width_mm`` sets it at map scale.
     ``overlap``: who gets an overlap (``[repair] overlap``).
+    ``overlap_by_lines``: a contact or fault drawn along one of an overlap's
+    two edges, and not along the other, decides who gets it before that rule
+    (``[repair] overlap_by_lines``, default true).
     ``overlap_max_area``: overlaps larger than this (m²) are left
     (``[repair] overlap_max_area_mm2`` at map scale).
     ``sliver_area``/``sliver_width``: the sliver thresholds of ``[checks]``
@@ -108,6 +111,7 @@ class RepairSettings:
     sliver_width: float = 0.0
     generated_certainty: str = "inferred"
     build_polygons: bool = False
+    overlap_by_lines: bool = True
 
     def record(self) -> dict[str, Any]:
         """The settings as plain values, for the change log and the provenance record."""
@@ -120,6 +124,7 @@ class RepairSettings:
             "sliver_width": self.sliver_width,
             "generated_certainty": self.generated_certainty,
             "build_polygons": self.build_polygons,
+            "overlap_by_lines": self.overlap_by_lines,
         }
 
 

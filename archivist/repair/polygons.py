@@ -27,12 +27,12 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..analysis.alignment import Alignment
-from ..analysis.arrays import group_tables, present, segment_lines, segments, spans, widths
+from ..analysis.arrays import group_tables, merge_by_group, present, segment_lines, segments, spans, widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
 from ..analysis.messages import ABOVE
-from ..analysis.nearness import dwithin_pairs, length_near
+from ..analysis.nearness import dwithin_pairs, length_near, near_parts
 from ..analysis.polygons import polygonal
 from ..project import Layer
 from .model import FEATURE_ID, SOURCE_LAYER, Change, Left, RepairSettings, RepairState
@@ -189,19 +189,66 @@ def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.n
     with_a = _border(pieces, geoms[b], eps)
     with_b = _border(pieces, geoms[a], eps)
     longest = with_a >= with_b
-    notes = ["longest border"] * len(a)
+    choice, notes = longest, ["longest border"] * len(a)
     if settings.overlap == "larger":
         area_a, area_b = shapely.area(geoms[a]), shapely.area(geoms[b])
         choice = np.where(area_a == area_b, longest, area_a > area_b)
-        return choice, ["larger polygon"] * len(a)
+        notes = ["larger polygon"] * len(a)
     if settings.overlap in ("younger", "older"):
         age_a, age_b = _age_rank(state, codes[a]), _age_rank(state, codes[b])
         known = np.isfinite(age_a) & np.isfinite(age_b) & (age_a != age_b)
         pick = age_a < age_b if settings.overlap == "younger" else age_a > age_b
         choice = np.where(known, pick, longest)
         notes = [f"{settings.overlap} unit" if k else "longest border (ages not known or equal in the legend)" for k in known]
-        return choice, notes
-    return longest, notes
+    if settings.overlap_by_lines:
+        side = _drawn_sides(state, a, b, pieces, geoms, eps, settings.tolerance)
+        choice = np.where(side != 0, side > 0, choice)
+        notes = ["a line drawn along its edge" if s_ else n for s_, n in zip(side.tolist(), notes)]
+    return choice, notes
+
+
+LINE_SHARE = 0.5  # an edge of an overlap is drawn when a line runs along more than this share of it: our own choice
+
+
+def _drawn_sides(state: RepairState, a: np.ndarray, b: np.ndarray, pieces: np.ndarray, geoms: np.ndarray, eps: float,
+                 tol: float) -> np.ndarray:
+    """Per overlap piece between polygons a and b (row positions): 1 where a contact or fault of the working lines
+    runs along the piece's edge that is a's boundary (over :data:`LINE_SHARE` of it, within the tolerance ``tol``)
+    and not along its edge that is b's, so that a keeps it; -1 the reverse; 0 where neither or both are drawn.
+
+    The piece lies between the two edges: a's boundary inside b and b's
+    inside a. A line drawn along a's edge says the boundary is there, and
+    the piece, inside a, is a's (a polygon grown past the contact its
+    neighbour was drawn to is cut back to it: on the topology benchmark's map
+    of 10^4 polygons at 1 %, 16 contacts drawn on such boundaries were left
+    up to 2 m off the copy's boundaries when the grown polygon kept its
+    overlap by the longest border). A piece no wider than the tolerance has
+    both edges within it of the line: undecided, as it should be.
+    """
+    out = np.zeros(len(a), dtype=np.int8)
+    if state.lines is None or not len(state.lines) or not len(a) or tol <= 0:
+        return out
+    ctx = _context(state)
+    if "lines" not in ctx.project.layers:
+        return out
+    net = ctx.line_network()
+    rim = shapely.boundary(pieces)
+    k, f = dwithin_pairs(net.tree, net.geoms, rim, tol)
+    keep = np.isin(net.roles[f], ("contact", "fault"))
+    k, f = k[keep], f[keep]
+    if not len(k):
+        return out
+    near = np.unique(k)
+    parts, j = shapely.get_parts(net.geoms[f], return_index=True)
+    drawn = merge_by_group(parts, np.searchsorted(near, k)[j], len(near))  # the lines near each piece, as one
+    share = []
+    for own in (a[near], b[near]):
+        edge = near_parts(rim[near], shapely.boundary(geoms[own]), eps)  # the piece's edge that is this polygon's
+        length = shapely.length(edge)
+        along = length_near(edge, drawn, tol * ABOVE)
+        share.append(np.where(length > 0, along / np.where(length > 0, length, 1.0), 0.0) > LINE_SHARE)
+    out[near] = np.where(share[0] & ~share[1], 1, np.where(share[1] & ~share[0], -1, 0))
+    return out
 
 
 # ---------------------------------------------------------------- overlaps
