@@ -183,8 +183,9 @@ def _age_rank(state: RepairState, codes: np.ndarray) -> np.ndarray:
 
 
 def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.ndarray, pieces: np.ndarray,
-            geoms: np.ndarray, codes: np.ndarray, eps: float) -> tuple[np.ndarray, list[str]]:
-    """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why."""
+            geoms: np.ndarray, codes: np.ndarray, eps: float, wide: np.ndarray | None = None) -> tuple[np.ndarray, list[str]]:
+    """For each overlap piece between polygons a and b (row positions), which one keeps it (True: a), and why.
+    ``wide``: the pieces wider than the tolerance, the only ones a line drawn along an edge decides (None: all)."""
     # the piece's border with what is left of a runs along b's boundary, and the reverse
     with_a = _border(pieces, geoms[b], eps)
     with_b = _border(pieces, geoms[a], eps)
@@ -201,7 +202,9 @@ def _winner(state: RepairState, settings: RepairSettings, a: np.ndarray, b: np.n
         choice = np.where(known, pick, longest)
         notes = [f"{settings.overlap} unit" if k else "longest border (ages not known or equal in the legend)" for k in known]
     if settings.overlap_by_lines:
-        side = _drawn_sides(state, a, b, pieces, geoms, eps, settings.tolerance)
+        side = np.zeros(len(a), dtype=np.int8)
+        at = np.arange(len(a)) if wide is None else np.flatnonzero(wide)
+        side[at] = _drawn_sides(state, a[at], b[at], pieces[at], geoms, eps, settings.tolerance)
         choice = np.where(side != 0, side > 0, choice)
         notes = ["a line drawn along its edge" if s_ else n for s_, n in zip(side.tolist(), notes)]
     return choice, notes
@@ -222,8 +225,13 @@ def _drawn_sides(state: RepairState, a: np.ndarray, b: np.ndarray, pieces: np.nd
     neighbour was drawn to is cut back to it: on the topology benchmark's map
     of 10^4 polygons at 1 %, 16 contacts drawn on such boundaries were left
     up to 2 m off the copy's boundaries when the grown polygon kept its
-    overlap by the longest border). A piece no wider than the tolerance has
-    both edges within it of the line: undecided, as it should be.
+    overlap by the longest border). A piece both of whose edges the line
+    runs along is undecided. :func:`resolve_overlaps` asks only of pieces
+    wider than the tolerance: cutting a narrower one out of either polygon
+    moves a boundary no further than the tolerance, and snap-lines puts a
+    line within the tolerance onto it (at 10^5 polygons with 1 % defects,
+    6 974 pieces 0.5 m wide at a 1 m tolerance: 0.8 s of measuring for
+    nothing).
     """
     out = np.zeros(len(a), dtype=np.int8)
     if state.lines is None or not len(state.lines) or not len(a) or tol <= 0:
@@ -292,6 +300,8 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     a = units.rows[np.array([p.units[0] for p in cov.overlaps])]
     b = units.rows[np.array([p.units[1] for p in cov.overlaps])]
     area = shapely.area(pieces)
+    wide = np.array([p.width for p in cov.overlaps], dtype=float)  # NaN where GEOS could not measure it: asked
+    wide = np.where(np.isnan(wide), np.inf, wide)
     whole = shapely.equals(pieces, geoms[a]) | shapely.equals(pieces, geoms[b])
     small = (area <= settings.overlap_max_area) & ~whole
     left = [Left("resolve-overlaps", "units", (str(ids[i]), str(ids[j])),
@@ -302,7 +312,7 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     a, b, pieces, area = a[small], b[small], pieces[small], area[small]
     if not len(a):
         return [], left
-    keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps)
+    keep_a, why = _winner(state, settings, a, b, pieces, geoms, codes, eps, wide[small] > settings.tolerance * ABOVE)
     # where cutting the piece out of the polygon the rule chose would move its boundary further than the snapping
     # distance (a piece reaching into a corner where three polygons meet) and cutting it out of the other would
     # not, the other gives it up: the move stays within the snapping distance wherever one of the two can
