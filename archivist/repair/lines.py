@@ -1442,18 +1442,28 @@ def along_overlaps(pieces: np.ndarray, overlaps: list[Any], tol: float) -> np.nd
     return out
 
 
-def _left_along_overlaps(units: Any, found: Undrawn, contested: np.ndarray) -> list[Left]:
-    """One :class:`Left` per stretch of boundary :func:`along_overlaps` finds along an overlap."""
+def _stretch_name(units: Any, u: int, v: int) -> str:
+    """How a left stretch of undrawn boundary is named: between polygons ``u`` and ``v``, or along the map edge (v -1)."""
+    return (f"the boundary between polygons {units.ids[u]} and {units.ids[v]}" if v >= 0
+            else f"the map edge along polygon {units.ids[u]}")
+
+
+def _left_stretches(units: Any, found: Undrawn, rows: np.ndarray, why: list[str]) -> list[Left]:
+    """One :class:`Left` of draw-missing-lines per stretch ``found.pieces[rows[i]]``, saying ``why[i]`` it is not drawn."""
     out = []
-    for k in np.flatnonzero(contested).tolist():
+    for k, reason in zip(rows.tolist(), why):
         u, v = int(found.ua[k]), int(found.ub[k])
         length = float(shapely.length(found.pieces[k]))
-        what = (f"the boundary between polygons {units.ids[u]} and {units.ids[v]}" if v >= 0
-                else f"the map edge along polygon {units.ids[u]}")
         out.append(Left("draw-missing-lines", "units", tuple(str(units.ids[w]) for w in (u, v) if w >= 0),
-                        f"no line draws {length:.3g} of {what}; it runs along an overlap of the polygons left for the "
-                        "mapper: which edge is the contact is decided with the overlap", found.pieces[k], length))
+                        f"no line draws {length:.3g} of {_stretch_name(units, u, v)}; {reason}", found.pieces[k], length))
     return out
+
+
+def _left_along_overlaps(units: Any, found: Undrawn, contested: np.ndarray) -> list[Left]:
+    """The stretches :func:`along_overlaps` finds along an overlap, left (:func:`_left_stretches`)."""
+    rows = np.flatnonzero(contested)
+    return _left_stretches(units, found, rows, ["it runs along an overlap of the polygons left for the mapper: which "
+                                                "edge is the contact is decided with the overlap"] * len(rows))
 
 
 def ends_met(new: np.ndarray, net: LineNetwork, edge: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
@@ -1514,22 +1524,13 @@ def ends_met(new: np.ndarray, net: LineNetwork, edge: np.ndarray, tol: float) ->
 
 
 def _left_free(units: Any, found: Undrawn, gone: np.ndarray, where: np.ndarray, tol: float) -> list[Left]:
-    """One :class:`Left` per stretch of boundary :func:`ends_met` does not draw (``gone``), with where its line
-    would end free (``where``)."""
-    out = []
-    for k in np.flatnonzero(gone).tolist():
-        u, v = int(found.ua[k]), int(found.ub[k])
-        stretch = found.pieces[k]
-        length = float(shapely.length(stretch))
-        what = (f"the boundary between polygons {units.ids[u]} and {units.ids[v]}" if v >= 0
-                else f"the map edge along polygon {units.ids[u]}")
-        x, y = where[k]
-        at = f" at ({x:.2f}, {y:.2f})" if np.isfinite(x) else ""
-        out.append(Left("draw-missing-lines", "units", tuple(str(units.ids[w]) for w in (u, v) if w >= 0),
-                        f"no line draws {length:.3g} of {what}; a line drawn along it would end free{at}, with no "
-                        f"other line or the map edge within the tolerance {tol:g} (a dangle the map did not have): how "
-                        "the linework meets it there is for the mapper", stretch, length))
-    return out
+    """The stretches of boundary :func:`ends_met` does not draw (``gone``), left with where their lines would end free
+    (``where``) (:func:`_left_stretches`)."""
+    rows = np.flatnonzero(gone)
+    at = [f" at ({x:.2f}, {y:.2f})" if np.isfinite(x) else "" for x, y in where[rows].tolist()]
+    return _left_stretches(units, found, rows, [
+        f"a line drawn along it would end free{a}, with no other line or the map edge within the tolerance {tol:g} "
+        "(a dangle the map did not have): how the linework meets it there is for the mapper" for a in at])
 
 
 # how far from a line drawn off its boundary a stretch of that boundary counts as drawn, off, by it (in tolerances):
@@ -1658,8 +1659,7 @@ def _left_beside(state: RepairState, units: Any, net: LineNetwork, beside: Besid
     out = []
     for stretch, u, v, lines, along in zip(beside.stretches, beside.ua.tolist(), beside.ub.tolist(), beside.lines,
                                            beside.along.tolist()):
-        where = (f"the boundary between polygons {units.ids[u]} and {units.ids[v]}" if v >= 0
-                 else f"the map edge along polygon {units.ids[u]}")
+        where = _stretch_name(units, u, v)
         length = float(shapely.length(stretch))
         if not len(lines):  # it meets one left for the mapper where no line is drawn
             out.append(Left("draw-missing-lines", "units", tuple(str(units.ids[w]) for w in (u, v) if w >= 0),
