@@ -273,7 +273,11 @@ def resolve_overlaps(state: RepairState, settings: RepairSettings) -> tuple[list
     larger polygon), ``younger`` or ``older`` (by the legend's ages, read by
     :mod:`archivist.vocab.ages`: a younger intrusion or superficial deposit
     usually overprints, common practice); where the ages are unknown or
-    equal, the longest border decides and the log says so. Where cutting
+    equal, the longest border decides and the log says so. Before the rule,
+    the linework (``[repair] overlap_by_lines``, default true): where a
+    contact or fault runs along one of the two edges of a piece wider than
+    the tolerance and not along the other, the polygon whose edge the line
+    draws keeps it (:func:`_drawn_sides`). Where cutting
     the piece out of the chosen polygon would move its boundary further than
     the snapping distance (``[checks] tolerance``) and cutting it out of the
     other would not, the other gives it up (the log says so).
