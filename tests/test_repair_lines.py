@@ -309,6 +309,28 @@ def test_combined_line_layers_get_the_generated_contact_in_the_contacts_layer(tm
     assert not REPAIRED & set(rules(out))
 
 
+def test_generated_lines_with_a_free_end_are_dropped_in_turn():
+    # Drawn: a fault along y = -5. Generated: B from (0, -5) up to (0, 0), A from (0, 0) up to (0, 5), C a closed
+    # square ring off on its own, D from the fault at (10, -5) to the map edge x = 20. A's end (0, 5) meets nothing
+    # within the 0.1 tolerance: not drawn. B's end (0, 0) then meets only A: not drawn either. C's two ends are one
+    # point (closed), D's ends meet the fault and the edge: both drawn
+    from types import SimpleNamespace
+
+    from archivist.repair.lines import ends_met
+
+    fault = np.array([LineString([(-20, -5), (20, -5)])], dtype=object)
+    net = SimpleNamespace(geoms=fault, tree=shapely.STRtree(fault))
+    new = np.array([LineString([(0, 0), (0, 5)]), LineString([(0, -5), (0, 0)]),
+                    LineString([(5, 5), (6, 5), (6, 6), (5, 6), (5, 5)]), LineString([(10, -5), (20, -2)])], dtype=object)
+    edge = np.array([LineString([(20, -10), (20, 10)])], dtype=object)
+    keep, free = ends_met(new, net, edge, 0.1)
+    assert keep.tolist() == [False, False, True, True]
+    assert free[0].tolist() == [0, 5] and free[1].tolist() == [0, 0]  # where each would end free
+    assert np.isnan(free[2:]).all()
+    # with no map edge, D's end at x = 20 meets nothing
+    assert ends_met(new, net, np.empty(0, dtype=object), 0.1)[0].tolist() == [False, False, True, False]
+
+
 def test_the_working_lines_know_the_layer_each_came_from(tmp_path):
     # three line layers read as one: each working row names its own layer (the row order of the combined ids),
     # one lines layer names "lines"
