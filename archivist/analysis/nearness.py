@@ -511,6 +511,10 @@ class Undrawn:
     stretches: np.ndarray
     twin: np.ndarray
 
+    def take(self, mask: np.ndarray) -> "Undrawn":
+        """The stretches where ``mask`` is True (the whole boundaries and the edge mask as they are)."""
+        return Undrawn(self.pieces[mask], self.ua[mask], self.ub[mask], self.stretch[mask], self.stretches, self.twin)
+
 
 def between_units(units: Units, edges: Edges) -> np.ndarray:
     """A mask over the edges: the boundaries between two polygons of different units (or of units with no code)."""

@@ -61,7 +61,7 @@ class Snapped:
     shift: np.ndarray  # per line: Hausdorff distance between before and after (0 when unchanged)
     changed: np.ndarray  # per line: bool
     held: np.ndarray  # per line: the snap would have moved it farther than the tolerance (left as it was)
-    tangled: np.ndarray | None = None  # per line: the snap would have made a simple line cross itself (left as it was)
+    tangled: np.ndarray  # per line: the snap would have made a simple line cross itself (left as it was)
 
 
 def snap_to_boundaries(lines: np.ndarray, targets: np.ndarray, tol: float, pinned: np.ndarray | None = None,
@@ -688,21 +688,13 @@ def snap_lines(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                     "follow": (f"drawn on a unit boundary that the polygon repairs moved more than {tol:g} from it: "
                                f"vertices within {t:g} of the boundary moved onto it")}[role]
             changes += _line_change("snap-lines", state, rows, net.geoms[done], final[done], shift[done], [note] * len(done))
-        for f in feats[held[feats]]:
-            r = int(net.rows[f])
-            left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
-                             f"snapping it onto the boundary would move it more than {t:g} from where it was drawn",
-                             net.geoms[f], 0.0))
-        for f in feats[worse[feats]]:
-            r = int(net.rows[f])
-            left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
-                             "snapping its vertices would leave part of it farther from the unit boundaries than it was drawn",
-                             net.geoms[f], 0.0))
-        for f in feats[tangled[feats]]:
-            r = int(net.rows[f])
-            left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),),
-                             "snapping its vertices onto the boundary would make it cross itself (line-self-intersection)",
-                             net.geoms[f], 0.0))
+        refused = ((held, f"snapping it onto the boundary would move it more than {t:g} from where it was drawn"),
+                   (worse, "snapping its vertices would leave part of it farther from the unit boundaries than it was drawn"),
+                   (tangled, "snapping its vertices onto the boundary would make it cross itself (line-self-intersection)"))
+        for mask, reason in refused:
+            for f in feats[mask[feats]]:
+                r = int(net.rows[f])
+                left.append(Left("snap-lines", str(layers[r]), (str(ids[r]),), reason, net.geoms[f], 0.0))
     return changes, left
 
 
@@ -828,8 +820,7 @@ def snap_network(net: LineNetwork, plan: list[tuple[np.ndarray, np.ndarray, floa
             changed[f[ok]] = True
             held[f[found.held]] = True
             worse[f[w]] = True
-            if found.tangled is not None:
-                tangled[f[found.tangled]] = True
+            tangled[f[found.tangled]] = True
         # the junctions of the lines that changed: a line can change first in a later round (its own snap refused
         # as farther in the first, made once one of its ends is held), and its junctions are then asked too
         fresh = changed & ~seen
@@ -1359,8 +1350,7 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     contested = along_overlaps(found.pieces, [p.geom for p in cov.overlaps], tol)
     left += _left_along_overlaps(units, found, contested)
     if contested.any():
-        found = replace(found, pieces=found.pieces[~contested], ua=found.ua[~contested], ub=found.ub[~contested],
-                        stretch=found.stretch[~contested])
+        found = found.take(~contested)
     if not len(found.pieces):
         return [], left
     inner = found.ub >= 0
@@ -1368,7 +1358,7 @@ def draw_missing_lines(state: RepairState, settings: RepairSettings) -> tuple[li
     keep, where_free = ends_met(new, net, edge, tol)
     left += _left_free(units, found, ~keep, where_free, tol)
     if not keep.all():
-        found = replace(found, pieces=found.pieces[keep], ua=found.ua[keep], ub=found.ub[keep], stretch=found.stretch[keep])
+        found = found.take(keep)
         new, inner = new[keep], inner[keep]
     if not len(new):
         return [], left
@@ -1513,13 +1503,12 @@ def ends_met(new: np.ndarray, net: LineNetwork, edge: np.ndarray, tol: float) ->
         free = ok & ~met & ~by_drawn & keep[owner]
         if not free.any():
             break
-        gone = np.unique(owner[free])
-        xy = shapely.get_coordinates(ends[free])
         at = owner[free]
-        order = np.argsort(at, kind="stable")
+        xy = shapely.get_coordinates(ends[free])
+        order = np.argsort(at, kind="stable")  # per line, the first of its free ends
         firsts = np.r_[True, at[order][1:] != at[order][:-1]]
         free_at[at[order][firsts]] = xy[order][firsts]
-        keep[gone] = False
+        keep[at] = False
     return keep, free_at
 
 
@@ -1619,7 +1608,7 @@ def drawn_beside(found: Undrawn, net: LineNetwork, units: Any, edge: np.ndarray,
     after = _meeting_left(pieces, drawn, net, tol)
     cascade = np.flatnonzero(drawn & ~after)
     drawn = after
-    out = replace(found, pieces=pieces[drawn], ua=found.ua[drawn], ub=found.ub[drawn], stretch=found.stretch[drawn])
+    out = found.take(drawn)
     left = np.r_[near, cascade]
     return out, Beside(pieces[left], found.ua[left], found.ub[left], lines + tuple(np.zeros(0, dtype=np.int64) for _ in cascade),
                        np.r_[along, np.zeros(len(cascade))])
