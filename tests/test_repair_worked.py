@@ -574,6 +574,37 @@ def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp
     assert topology_rules(tmp_path / "out").get("unit-edge-mismatch", 0) >= 1
 
 
+def test_snap_edges_out_of_rounds_leaves_as_drawn_only_the_polygons_linked_to_the_last_ones_held(tmp_path, monkeypatch):
+    # The finger map (x 0 to 10: C's finger folds at every distance tried, so C is held) beside a square D (x 10 to
+    # 20, its edges drawn as its neighbours draw them) and two polygons E, F (x 20 to 30) where F's west edge has
+    # a vertex at (25.05, 5), a gap 0.05 m wide (tolerance 0.1 m). With one round of cleaning allowed, the round
+    # ends holding C, and none is left to clean A and B again without it: the cleaning had fitted them to C as it
+    # cleaned it, not as kept. Before, snap-edges then kept every polygon as drawn, E and F too. Now A and B keep
+    # their input and are listed; D, which the cleaning left as it was, fits C as drawn; E, linked to A and B by
+    # no chain of changed polygons within the snapping distance, stays snapped: its edge takes F's vertex, 0.05 m.
+    import archivist.repair.polygons as polygons
+
+    monkeypatch.setattr(polygons, "MAX_CLEAN_ROUNDS", 1)
+    a, b, c = _finger_map(0.001)
+    d = shapely.Polygon([(10, 0), (20, 0), (20, 10), (10, 10), (10, 5)])
+    e = box(20, 0, 25, 10)
+    f = shapely.Polygon([(25, 0), (30, 0), (30, 10), (25, 10), (25.05, 5)])
+    units = gpd.GeoDataFrame({"unit": ["A", "B", "B", "A", "B", "A"]}, geometry=[a, b, c, d, e, f], crs="EPSG:32633")
+    frame = LineString([(0, 0), (0, 10), (30, 10), (30, 0), (0, 0)])
+    project = tiny_project(tmp_path, name="rounds", units=units, extent=box(0, 0, 30, 10),
+                           lines=line_frame(("map-boundary", frame)), manifest={"map": {"scale": 1000}})
+    result = repair(project, tmp_path / "out", only=["snap-edges"])
+    assert [(ch.features_before, round(ch.max_shift, 6)) for ch in result.changes] == [(("5",), 0.05)]
+    said = {x.features: x.reason for x in result.left}
+    assert said.pop(("3",)).startswith("snapping would move it by 0.150 m")
+    assert sorted(said) == [("1",), ("2",)]
+    assert all(reason.startswith("left as drawn: snapping still moved polygons near it") for reason in said.values())
+    units_out = copy_units(tmp_path / "out")
+    for fid, drawn in ((1, a), (2, b), (3, c), (4, d), (6, f)):
+        assert shapely.equals(units_out.geometry.loc[fid], drawn)
+    assert shapely.coverage_is_valid(units_out.geometry.loc[[4, 5, 6]].values, gap_width=0.1)  # GEOS
+
+
 def test_snap_edges_says_a_polygon_narrower_than_the_snapping_distance_is_held_as_it_would_collapse(tmp_path):
     # tests/builders.py's two squares at 1:10 000 (tolerance 1 m), with a strip C = [0, 200] x [100, 100.01] along
     # their top and a vertex of B 5 mm into it: GEOS's cleaning snaps C's two long sides (1 cm apart) together and

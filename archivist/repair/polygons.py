@@ -670,12 +670,22 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     half the distance, then a quarter, and so on down to 1/64 of it
     (``FINER``), and the first that moves none too far and leaves them a
     valid coverage with no gap as thin as the tolerance (GEOS) is kept;
-    otherwise the polygon keeps its input geometry and is listed. An
-    overlap left for the geologist is kept as it is (GEOS would give it
-    away): it is cut out of one of its two polygons for the cleaning and
-    given back afterwards, clipped to the other polygon as cleaned, or,
-    where that cannot be done (one polygon wholly inside the other), both
-    polygons are kept out of the cleaning.
+    otherwise the polygon keeps its input geometry and is listed. Each
+    round of cleaning after the first cleans again around the polygons the
+    round before held; when :data:`MAX_CLEAN_ROUNDS` rounds still hold
+    some, the polygons the last round fitted to them as cleaned (and those
+    linked to these by a chain of changed polygons within the snapping
+    distance) keep their input and are listed; the rest stays cleaned. An
+    overlap left for the geologist is kept (GEOS would give it away): it
+    is cut out of one of its two polygons, and of the other where that
+    one is cleaned too, and cleaned as a polygon of its own, so that its
+    edges are snapped as every edge is and both polygons get it back
+    along edges they share exactly. One too narrow for that (an opening
+    by the snapping distance keeps less than :data:`WIDE_KEPT` of it), or
+    that the cleaning folds away or splits, is cut out of one polygon
+    only and given back as listed, clipped to the other polygon as
+    cleaned; where it cannot be cut out (one polygon wholly inside the
+    other), both polygons are kept out of the cleaning.
     Where the clipping would leave it no larger than a repair gives away
     (the cleaning moved the edges of the polygon it lies in, and a second
     run would give it away), the polygons around it are cleaned again at
@@ -709,6 +719,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     region = near.along(ctx.edges().lines(loose))
     region[misfit[usable[misfit]]] = True
     refused: dict[int, tuple[float, bool]] = {}  # polygon held: how far the cleaning moved it, whether it collapsed
+    unsettled = np.zeros(0, dtype=np.int64)  # polygons left as drawn when the rounds ran out (below)
     # overlaps still there were left for the geologist (or their repair was skipped): GEOS would give them away.
     # One left for the geologist (larger than a repair may give away) is cut out of the second of its two polygons
     # for the cleaning and given back to it afterwards, however thin it is: the overlap stays as it was listed and
@@ -775,6 +786,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # left no larger than a repair gives away
     clipped: dict[int, tuple[str, bool]] = {}
     todo = region.copy()  # the polygons of the region (re)cleaned now
+    # per overlap left given back (polygon k it is cut out of, the other polygon i, the overlap): the overlap as the
+    # last cleaning left it (see _clean_with_strips)
+    entries = [(k, i, p) for k, pairs in owners.items() for i, p in pairs]
+    strips = np.array([p for _, _, p in entries], dtype=object)
+    wide_at: dict[float, np.ndarray] = {}  # per snapping distance: the overlaps left cleaned as polygons of their own
     rounds = steps = 0
     again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     distance = settings.tolerance  # the snapping distance of the cleaning now
@@ -801,9 +817,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         # 10^5 polygons 13 900 polygons cleaned again, now 11 100); the first cleaning of a round and the finer
         # ones start from the inputs. Every move is measured from the input all the same
         src = base if (trial is not None or steps == 0) else bare
-        cleaned[order] = shapely.coverage_clean(src[sel][order], snapping_distance=distance, gap_width=0.0,
-                                                merge_strategy=strategy)
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
+        if distance not in wide_at:
+            wide_at[distance] = _wide(np.array([p for _, _, p in entries], dtype=object), distance)
+        cleaned[order], strips = _clean_with_strips(src[sel][order], np.asarray(sel)[order], entries, wide_at[distance],
+                                                    strips if src is bare else None, distance, strategy)
         bare[sel] = cleaned
         if back:  # the polygons with an overlap left for the geologist: the overlaps given back
             bk_, bk = np.array([k_ for k_, _ in back]), np.array([k for _, k in back])
@@ -817,8 +835,9 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             as_cleaned = cleaned.copy()
             for w in range(int(wave.max()) + 1):
                 now = np.flatnonzero(wave == w)
-                given, notes, small = _fitted_back_all(bk[now], owners, put_back, cleaned, at, current, ids,
-                                                       settings.overlap_max_area, as_cleaned, earlier)
+                given, notes, small = _fitted_back_all(bk[now], _owners_now(entries, strips), put_back, cleaned, at,
+                                                       current, ids, settings.overlap_max_area, as_cleaned, earlier,
+                                                       owners)
                 clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk[now], notes, small)})
                 k_ = bk_[now]
                 joined, failed, _ = elementwise(shapely.union, cleaned[k_], given)
@@ -861,7 +880,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             elif trial.level < FINER:
                 trial.level += 1
             else:  # as before the tries
-                (current, bare, same_r, moved_r, too_far_r, lost_r, region), clipped = trial.restored()
+                (current, bare, same_r, moved_r, too_far_r, lost_r, region, strips), clipped = trial.restored()
                 distance = settings.tolerance
                 if trial.clip:
                     far = np.zeros(0, dtype=np.int64)  # none then: clipped overlaps are tried only after
@@ -873,12 +892,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             if not len(far) and not len(nicked):
                 break
             trial = _Finer(far if len(far) else nicked[:1], not len(far),
-                           (current, bare, same_r, moved_r, too_far_r, lost_r, region), dict(clipped))
+                           (current, bare, same_r, moved_r, too_far_r, lost_r, region, strips), dict(clipped))
             if trial.clip:
                 tried.add(int(nicked[0]))
         if trial is not None:
             distance = settings.tolerance / 2.0 ** trial.level
-            (current, bare, same_r, moved_r, too_far_r, lost_r, region), clipped = trial.restored()
+            (current, bare, same_r, moved_r, too_far_r, lost_r, region, strips), clipped = trial.restored()
             todo = near.of(trial.bad)
             trial.cleaned = todo.copy()
             region |= todo
@@ -893,7 +912,15 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         todo = region.copy()
         rounds, steps = rounds + 1, 0
     else:
-        same_r[:] = True  # still moving too far after every round: nothing is cleaned
+        # still moving polygons too far after every round: the polygons around the last ones held that the
+        # cleaning changed were fitted to them as cleaned, not as kept. Those, and every polygon the cleaning
+        # changed linked to them by a chain of such polygons within the snapping distance of each other, keep
+        # their input (so they fit their neighbours as drawn) and are listed; the rest of the region was cleaned
+        # and found to fit in an earlier round (a polygon it left as drawn fits the held ones as drawn)
+        pending = usable & ~hold & ~same_r & ~too_far_r & ~lost_r
+        undone = near.linked(pending, pending & todo)
+        unsettled = np.flatnonzero(undone)
+        same_r[undone] = True
     changed = usable & ~hold & ~same_r & ~too_far_r & ~lost_r
     changed &= ~_rounding_only(near, geoms, current, changed, moved_r, settings.tolerance)
     take = np.flatnonzero(changed)
@@ -904,11 +931,154 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                  "snapping would collapse it: narrower than the snapping distance" if gone else
                  f"snapping would move it by {m:.3f} m, more than the snapping distance", geoms[k], float(m))
             for k, (m, gone) in refused.items()]
+    left += [Left("snap-edges", "units", (str(ids[k]),),
+                  "left as drawn: snapping still moved polygons near it further than the snapping distance after "
+                  f"the most rounds of cleaning a run makes ({MAX_CLEAN_ROUNDS})", geoms[k], 0.0) for k in unsettled.tolist()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ("", False))[0])
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
+
+
+def _owners_now(entries: list[tuple[int, int, Any]], strips: np.ndarray) -> dict[int, list[tuple[int, Any]]]:
+    """Per polygon given overlaps back: (the other polygon, the overlap as the last cleaning left it)."""
+    out: dict[int, list[tuple[int, Any]]] = {}
+    for (k, i, _), strip in zip(entries, strips):
+        out.setdefault(k, []).append((i, strip))
+    return out
+
+
+def _wide(pieces: np.ndarray, distance: float) -> np.ndarray:
+    """Which overlaps left are wide enough to be cleaned as polygons of their own at the snapping ``distance``: what
+    an opening by the distance (GEOS erosion, then dilation) keeps of each is at least :data:`WIDE_KEPT` of it.
+
+    The cleaning snaps the two sides of a part narrower than the distance together: cleaned as a polygon of its own,
+    a narrow overlap would be folded away, and the overlap the geologist was left would be gone. Only its tips may
+    be so narrow."""
+    if not len(pieces):
+        return np.zeros(0, dtype=bool)
+    try:
+        opened = shapely.buffer(shapely.buffer(pieces, -distance, quad_segs=2), distance, quad_segs=2)
+        return shapely.area(opened) >= WIDE_KEPT * shapely.area(pieces)
+    except GEOSException:
+        return np.zeros(len(pieces), dtype=bool)
+
+
+WIDE_KEPT = 0.9  # share of an overlap left an opening by the snapping distance must keep (our own choice, see _wide)
+
+
+def _part_to_holder(now: np.ndarray, polys: np.ndarray, at: dict[int, int], entries: list[tuple[int, int, Any]],
+                    x: int, y: int) -> bool:
+    """Where the overlaps left ``x`` and ``y`` of one polygon overlap each other and only one of their other
+    polygons covers the ground both cover (at least :data:`HOLDER_SHARE` of it, the other at most
+    1 - that), that ground is taken out of the other overlap (``now`` is changed); whether it was."""
+    ix, iy = entries[x][1], entries[y][1]
+    if ix not in at or iy not in at:
+        return False
+    try:
+        both = shapely.intersection(now[x], now[y])
+        area = float(shapely.area(both))
+        cx, cy = (float(shapely.area(shapely.intersection(both, polys[at[i]]))) for i in (ix, iy))
+        if area <= 0 or min(cx, cy) > (1 - HOLDER_SHARE) * area or max(cx, cy) < HOLDER_SHARE * area:
+            return False
+        loser = y if cx > cy else x
+        rest = polygonal(np.array([shapely.difference(now[loser], both)], dtype=object))[0]
+    except GEOSException:
+        return False
+    if rest is None or shapely.is_empty(rest):
+        return False
+    now[loser] = rest
+    return True
+
+
+HOLDER_SHARE = 0.99  # share of the ground two overlaps left both cover that one other polygon must hold (our own choice)
+
+
+def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[int, int, Any]], wide: np.ndarray,
+                       strips: np.ndarray | None, distance: float, strategy: str) -> tuple[np.ndarray, np.ndarray]:
+    """GEOS's cleaning of ``polys`` (the polygons ``rows``), each overlap left for the geologist between two of them
+    cleaned as a polygon of its own; the polygons as cleaned (the first of each overlap with it again) and each
+    overlap as now cleaned.
+
+    An overlap left is cut out of one of its two polygons (``k`` of ``entries``: the polygon, the other one, the
+    overlap as listed); the other one (``i``) still covers it. Cleaned so, the edge it was cut along is snapped
+    on one side only, and the overlap given back beside the cleaned polygon leaves thin seams open along that edge,
+    as deep into the polygon as the overlap is wide. Here the overlap is cleaned as a polygon of its own, cut out
+    of the other polygon too where that one is cleaned: they then share every edge exactly, and each polygon is
+    the union of its part and the overlap, whose edges the cleaning moved as it moved every edge (no further than
+    the snapping distance). Where the other polygon is not cleaned now, the overlap as cleaned is given back
+    clipped to it as it stands (:func:`_fitted_back_all`). Only overlaps ``wide`` enough (:func:`_wide`), and only where the
+    cleaning keeps each in as many pieces as it had: one it folds away or splits is cleaned the other way (one
+    more cleaning). ``strips``: the overlaps as the last cleaning left them (the
+    polygons are as that cleaning left them), or None: as listed (the polygons as read). Where cutting fails,
+    leaves nothing, or two overlaps overlap each other, the overlap stays with the other polygon in the cleaning,
+    as before.
+    """
+    now = np.array([p for _, _, p in entries], dtype=object) if strips is None else strips
+    out_strips = now.copy()
+    at = {int(r): j for j, r in enumerate(rows.tolist())}
+    mine = np.array([k in at for k, _, _ in entries], dtype=bool)
+    use = np.flatnonzero(mine & wide & present(now)) if len(entries) else np.zeros(0, dtype=np.int64)
+    if len(use) > 1:
+        now = now.copy()
+        a, b = shapely.STRtree(now[use]).query(now[use], predicate="intersects")
+        a, b = a[a < b], b[a < b]
+        inner = shapely.relate_pattern(now[use][a], now[use][b], "T********")  # interiors meet
+        clash = np.zeros(len(use), dtype=bool)
+        for x, y in zip(a[inner].tolist(), b[inner].tolist()):  # two overlaps left overlapping each other: few
+            # listed before a repair gave the ground both cover to one of their other polygons: that one's alone
+            if not _part_to_holder(now, polys, at, entries, use[x], use[y]):
+                clash[[x, y]] = True  # else neither is a polygon of its own
+        use = use[~clash]
+    if not len(use):
+        return shapely.coverage_clean(polys, snapping_distance=distance, gap_width=0.0, merge_strategy=strategy), out_strips
+    inp = polys.copy()
+    # the other polygon, where it is cleaned too: the overlaps it holds cut out of it for the cleaning
+    inner = np.array([entries[e][1] in at for e in use], dtype=bool)
+    firsts = np.array([at[entries[e][1]] for e in use[inner]], dtype=np.int64)
+    order = np.argsort(firsts, kind="stable")
+    firsts, cut = firsts[order], use[inner][order]
+    owner = np.zeros(0, dtype=np.int64)
+    counts = np.zeros(0, dtype=np.int64)
+    if len(cut):
+        starts = np.flatnonzero(np.r_[True, firsts[1:] != firsts[:-1]])
+        owner, counts = firsts[starts], np.diff(np.r_[starts, len(firsts)])
+        joined = now[cut][starts].copy()
+        for j in np.flatnonzero(counts > 1).tolist():  # a polygon holding two overlaps left or more as the other one: few
+            joined[j] = shapely.union_all(now[cut][starts[j]:starts[j] + counts[j]])
+        try:
+            rest = polygonal(shapely.difference(inp[owner], joined))
+        except GEOSException:
+            rest = np.full(len(owner), None, dtype=object)
+        ok = ~shapely.is_missing(rest) & ~shapely.is_empty(rest) & (shapely.area(rest) > 0)
+        # where cutting fails or leaves nothing, those overlaps stay with that polygon and are not cleaned apart
+        use = np.setdiff1d(use, cut[~np.repeat(ok, counts)])
+        owner, rest, counts = owner[ok], rest[ok], counts[ok]
+        cut = cut[np.repeat(ok, np.diff(np.r_[starts, len(firsts)]))]
+        inp[owner] = rest
+    if not len(use):
+        return shapely.coverage_clean(polys, snapping_distance=distance, gap_width=0.0, merge_strategy=strategy), out_strips
+    cleaned = shapely.coverage_clean(np.r_[inp, now[use]], snapping_distance=distance, gap_width=0.0,
+                                     merge_strategy=strategy)
+    out, faces = cleaned[:len(inp)], cleaned[len(inp):]
+    # an overlap the cleaning did not keep in one piece (folded away, or split where narrow): cleaned again the
+    # other way. Its edges may move as every edge does, within the snapping distance
+    broken = ~present(faces)
+    ok = ~broken
+    broken[ok] = shapely.get_num_geometries(faces[ok]) > shapely.get_num_geometries(now[use][ok])
+    if broken.any():
+        narrow = wide.copy()
+        narrow[use[broken]] = False
+        return _clean_with_strips(polys, rows, entries, narrow, strips, distance, strategy)
+    face_of = {int(e): f for e, f in zip(use.tolist(), faces)}
+    out = out.copy()
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+    for g in range(len(owner)):  # one per polygon given its overlaps back (GEOS unions: few)
+        parts = np.array([face_of[int(e)] for e in cut[starts[g]:starts[g] + counts[g]]], dtype=object)
+        out[owner[g]] = polygonal(np.array([shapely.union_all(np.r_[[out[owner[g]]], parts])], dtype=object))[0]
+    out_strips[use] = faces
+    return out, out_strips
 
 
 def _misfits(units: Any, edges: Any, distance: float) -> np.ndarray:
@@ -948,7 +1118,8 @@ def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.
 def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], put_back: dict[int, Any],
                      cleaned: np.ndarray, at: dict[int, int], current: np.ndarray, ids: np.ndarray,
                      limit: float = 0.0, as_cleaned: np.ndarray | None = None,
-                     earlier: dict[int, int] | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
+                     earlier: dict[int, int] | None = None,
+                     listed: dict[int, list[tuple[int, Any]]] | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
     """The overlaps left between each polygon of ``ks`` and its neighbours, each clipped to the neighbour as now
     cleaned.
 
@@ -967,7 +1138,9 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     overlaps back), a neighbour placed after ``k`` is taken from
     ``as_cleaned`` (GEOS's cleaning, before any overlap went back) and one
     placed before it from ``cleaned``: as if given back one at a time in that
-    order. All overlaps of ``ks`` at once (GEOS element-wise): at 10 %
+    order. ``listed``: the overlaps as listed, where ``owners`` has them as a
+    cleaning left them; what the log says and whether one is small are
+    measured against these. All overlaps of ``ks`` at once (GEOS element-wise): at 10 %
     defects they were clipped one by one, once per cleaning round, most of
     the repair's time.
     """
@@ -985,6 +1158,9 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     clip, failed, _ = elementwise(lambda p, f: polygonal(shapely.intersection(p, f)), pieces, fit)
     keep = failed | shapely.is_missing(clip) | shapely.is_empty(clip)  # nothing left inside: kept as it was
     clip[keep] = pieces[keep]  # (never dropped without a word)
+    if listed is not None:
+        pieces = np.array([p for k in ks for _, p in (listed.get(int(k)) or [])], dtype=object)
+        clip[keep] = pieces[keep]
     lost = shapely.area(pieces) - shapely.area(clip)
     bounds = np.abs(shapely.bounds(pieces)) if len(pieces) else np.empty((0, 4))
     scale = np.maximum(np.where(np.isfinite(bounds).all(axis=1), np.max(bounds, axis=1, initial=0.0), 1.0), 1.0)
