@@ -574,17 +574,18 @@ def test_snap_edges_holds_a_polygon_every_finer_distance_still_moves_too_far(tmp
     assert topology_rules(tmp_path / "out").get("unit-edge-mismatch", 0) >= 1
 
 
-def test_snap_edges_out_of_rounds_leaves_as_drawn_only_the_polygons_linked_to_the_last_ones_held(tmp_path, monkeypatch):
-    # The finger map (x 0 to 10: C's finger folds at every distance tried, so C is held) beside a square D (x 10 to
-    # 20, its edges drawn as its neighbours draw them) and two polygons E, F (x 20 to 30) where F's west edge has
-    # a vertex at (25.05, 5), a gap 0.05 m wide (tolerance 0.1 m). With one round of cleaning allowed, the round
-    # ends holding C, and none is left to clean A and B again without it: the cleaning had fitted them to C as it
-    # cleaned it, not as kept. Before, snap-edges then kept every polygon as drawn, E and F too. Now A and B keep
-    # their input and are listed; D, which the cleaning left as it was, fits C as drawn; E, linked to A and B by
-    # no chain of changed polygons within the snapping distance, stays snapped: its edge takes F's vertex, 0.05 m.
+def test_snap_edges_out_of_rounds_leaves_as_drawn_only_the_polygons_linked_to_the_one_still_too_far(tmp_path, monkeypatch):
+    # The finger map (x 0 to 10: C's finger folds at every distance tried) beside a square D (x 10 to 20, its edges
+    # drawn as its neighbours draw them) and two polygons E, F (x 20 to 30) where F's west edge has a vertex at
+    # (25.05, 5), a gap 0.05 m wide (tolerance 0.1 m). With no round of holding allowed, the first cleaning is the
+    # last, with no finer tries: C moves too far in it and keeps its input, listed as held, and A and B, which it
+    # fitted to C as cleaned, not as kept, keep their input too and are listed. Before, snap-edges then kept every
+    # polygon as drawn, E and F too, and listed none. D, which the cleaning left as it was, fits C as drawn; E,
+    # linked to A and B by no chain of changed polygons within the snapping distance, stays snapped: its edge takes
+    # F's vertex, 0.05 m. (With one round allowed, the cleaning after it fits A and B to C as drawn.)
     import archivist.repair.polygons as polygons
 
-    monkeypatch.setattr(polygons, "MAX_CLEAN_ROUNDS", 1)
+    monkeypatch.setattr(polygons, "MAX_CLEAN_ROUNDS", 0)
     a, b, c = _finger_map(0.001)
     d = shapely.Polygon([(10, 0), (20, 0), (20, 10), (10, 10), (10, 5)])
     e = box(20, 0, 25, 10)
@@ -598,7 +599,7 @@ def test_snap_edges_out_of_rounds_leaves_as_drawn_only_the_polygons_linked_to_th
     said = {x.features: x.reason for x in result.left}
     assert said.pop(("3",)).startswith("snapping would move it by 0.150 m")
     assert sorted(said) == [("1",), ("2",)]
-    assert all(reason.startswith("left as drawn: snapping still moved polygons near it") for reason in said.values())
+    assert all(reason.startswith("left as drawn: snapping still moved a polygon near it") for reason in said.values())
     units_out = copy_units(tmp_path / "out")
     for fid, drawn in ((1, a), (2, b), (3, c), (4, d), (6, f)):
         assert shapely.equals(units_out.geometry.loc[fid], drawn)

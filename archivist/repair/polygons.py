@@ -672,10 +672,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     valid coverage with no gap as thin as the tolerance (GEOS) is kept;
     otherwise the polygon keeps its input geometry and is listed. Each
     round of cleaning after the first cleans again around the polygons the
-    round before held; when :data:`MAX_CLEAN_ROUNDS` rounds still hold
-    some, the polygons the last round fitted to them as cleaned (and those
-    linked to these by a chain of changed polygons within the snapping
-    distance) keep their input and are listed; the rest stays cleaned. An
+    round before held, up to :data:`MAX_CLEAN_ROUNDS` rounds of holding; in
+    the cleaning after the last, with no finer tries, a polygon still moved
+    too far is held, and the polygons that cleaning fitted to it as cleaned
+    (and those linked to these by a chain of changed polygons within the
+    snapping distance) keep their input and are listed; the rest stays
+    cleaned. An
     overlap left for the geologist is kept (GEOS would give it away): it
     is cut out of one of its two polygons, and of the other where that
     one is cleaned too, and cleaned as a polygon of its own, so that its
@@ -745,20 +747,14 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                     owners.setdefault(both[1], []).append((both[0], piece))
                 elif w or f:
                     hold[both] = True
-            for k, ps in cut.items():  # one per polygon with an overlap left for the geologist
-                try:
-                    back = shapely.union_all(ps)
-                    rest = shapely.difference(geoms[k], back)
-                except GEOSException:
-                    rest = None
-                if rest is not None:  # a cut out of an invalid polygon can leave a line beside the area (a collection)
-                    rest = polygonal(np.array([rest], dtype=object))[0]
-                if rest is None or shapely.is_empty(rest) or shapely.area(rest) <= 0:
-                    hold[k] = True
-                    hold[[pos[x] for i, j, _, f in state.overlaps_left if f and pos.get(j) == k for x in (i, j) if x in pos]] = True
-                    continue
-                base[k] = rest
-                put_back[k] = back
+            ks, backs, rests = _cut_out(geoms, cut)
+            lost = shapely.is_missing(rests) | shapely.is_empty(rests)
+            lost[~lost] = shapely.area(rests[~lost]) <= 0
+            for k in ks[lost].tolist():  # the cut left nothing or GEOS failed: few
+                hold[k] = True
+                hold[[pos[x] for i, j, _, f in state.overlaps_left if f and pos.get(j) == k for x in (i, j) if x in pos]] = True
+            base[ks[~lost]] = rests[~lost]
+            put_back.update(zip(ks[~lost].tolist(), backs[~lost]))
     # GEOS: no misaligned edge, no overlap, no gap as thin as the snapping distance, the overlaps left for the
     # geologist cut out (the second run over a copy where they are all that is left has nothing to clean). An invalid
     # edge is one without its twin (a suspect's) that meets a polygon within that distance (in the region too), so
@@ -802,7 +798,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # outside the region (GEOS's coverage validation of the two), that one joins the region and the part of the
     # region linked to it (polygons within the snapping distance of each other) is cleaned again; the other parts
     # of the region lie farther apart than the snapping distance, so cleaning again would not change them
-    while rounds < MAX_CLEAN_ROUNDS:
+    while True:
         sel = np.flatnonzero(~hold & usable & todo)
         work = geoms[sel]
         order = np.arange(len(work))
@@ -833,11 +829,11 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             for t, k in enumerate(bk.tolist()):  # one per polygon given overlaps back (integers only)
                 wave[t] = 1 + max((wave[earlier[i]] for i, _ in owners.get(k, []) if earlier.get(i, t) < t), default=-1)
             as_cleaned = cleaned.copy()
+            owners_now = _owners_now(entries, strips)
             for w in range(int(wave.max()) + 1):
                 now = np.flatnonzero(wave == w)
-                given, notes, small = _fitted_back_all(bk[now], _owners_now(entries, strips), put_back, cleaned, at,
-                                                       current, ids, settings.overlap_max_area, as_cleaned, earlier,
-                                                       owners)
+                given, notes, small = _fitted_back_all(bk[now], owners_now, put_back, cleaned, at, current, ids,
+                                                       settings.overlap_max_area, as_cleaned, earlier, owners)
                 clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk[now], notes, small)})
                 k_ = bk_[now]
                 joined, failed, _ = elementwise(shapely.union, cleaned[k_], given)
@@ -865,6 +861,19 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             continue
         mine = np.flatnonzero(region & ~hold & usable)
         far = mine[(too_far_r[mine] | lost_r[mine]) & ~same_r[mine]]
+        if rounds >= MAX_CLEAN_ROUNDS:
+            # the cleaning after the last round's holds, with no tries left: a polygon it still moves too far keeps
+            # its input and is listed, as held; the polygons this cleaning changed near it were fitted to it as
+            # cleaned, not as kept, so they, and every polygon it changed linked to them by a chain of such
+            # polygons within the snapping distance of each other, keep their input too (they fit their
+            # neighbours as drawn) and are listed. The rest of the region fits, as GEOS's cleaning left it
+            if len(far):
+                refused.update({int(k): (float(m), bool(gone)) for k, m, gone in zip(far, moved_r[far], lost_r[far])})
+                pending = usable & ~hold & ~same_r & ~too_far_r & ~lost_r
+                undone = near.linked(pending, pending & near.of(far))
+                unsettled = np.flatnonzero(undone)
+                same_r[undone] = True
+            break
         # a polygon the cleaning moves too far, or one given back an overlap left for the geologist clipped to no more
         # than a repair gives away (the cleaning moved the boundary of the polygon it lies in, and a second run would
         # give the rest away): cleaned again with the polygons near it at half the snapping distance, then a quarter,
@@ -911,16 +920,6 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         region = near.of(held)
         todo = region.copy()
         rounds, steps = rounds + 1, 0
-    else:
-        # still moving polygons too far after every round: the polygons around the last ones held that the
-        # cleaning changed were fitted to them as cleaned, not as kept. Those, and every polygon the cleaning
-        # changed linked to them by a chain of such polygons within the snapping distance of each other, keep
-        # their input (so they fit their neighbours as drawn) and are listed; the rest of the region was cleaned
-        # and found to fit in an earlier round (a polygon it left as drawn fits the held ones as drawn)
-        pending = usable & ~hold & ~same_r & ~too_far_r & ~lost_r
-        undone = near.linked(pending, pending & todo)
-        unsettled = np.flatnonzero(undone)
-        same_r[undone] = True
     changed = usable & ~hold & ~same_r & ~too_far_r & ~lost_r
     changed &= ~_rounding_only(near, geoms, current, changed, moved_r, settings.tolerance)
     take = np.flatnonzero(changed)
@@ -932,13 +931,37 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
                  f"snapping would move it by {m:.3f} m, more than the snapping distance", geoms[k], float(m))
             for k, (m, gone) in refused.items()]
     left += [Left("snap-edges", "units", (str(ids[k]),),
-                  "left as drawn: snapping still moved polygons near it further than the snapping distance after "
+                  "left as drawn: snapping still moved a polygon near it further than the snapping distance after "
                   f"the most rounds of cleaning a run makes ({MAX_CLEAN_ROUNDS})", geoms[k], 0.0) for k in unsettled.tolist()]
     area_change = np.abs(shapely.area(current[take]) - shapely.area(geoms[take]))
     changes = [Change("snap-edges", "units", (str(ids[k]),), (str(ids[k]),), (str(codes[k]),), float(ar), float(m),
                       geoms[k], new[k], "vertices snapped to the neighbours'" + clipped.get(int(k), ("", False))[0])
                for k, ar, m in zip(take, area_change, moved_r[take])]
     return changes, left
+
+
+def _cut_out(geoms: np.ndarray, cut: dict[int, list[Any]]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per polygon of ``cut`` (row: the overlaps left cut out of it): the rows, the union of each one's overlaps
+    (GEOS union_all of them) and the polygon less it, polygonal (a cut out of an invalid polygon can leave a line
+    beside the area); None where GEOS fails. All polygons at once; one by one only where GEOS fails on them."""
+    ks = np.array(list(cut), dtype=np.int64)
+    flat = np.array([p for k in ks.tolist() for p in cut[k]], dtype=object)
+    label = np.repeat(np.arange(len(ks)), [len(cut[k]) for k in ks.tolist()])
+    try:
+        backs = _union_rows(flat, label, np.arange(len(ks)))
+    except GEOSException:
+        backs = np.empty(len(ks), dtype=object)
+        for t, k in enumerate(ks.tolist()):  # GEOS failed on one of them: each on its own
+            try:
+                backs[t] = shapely.union_all(cut[k])
+            except GEOSException:
+                backs[t] = None
+    ok = ~shapely.is_missing(backs)
+    rests = np.full(len(ks), None, dtype=object)
+    rest, failed, _ = elementwise(shapely.difference, geoms[ks[ok]], backs[ok])
+    rest[failed] = None
+    rests[ok] = rest
+    return ks, backs, polygonal(rests)
 
 
 def _owners_now(entries: list[tuple[int, int, Any]], strips: np.ndarray) -> dict[int, list[tuple[int, Any]]]:
@@ -969,27 +992,50 @@ WIDE_KEPT = 0.9  # share of an overlap left an opening by the snapping distance 
 
 
 def _part_to_holder(now: np.ndarray, polys: np.ndarray, at: dict[int, int], entries: list[tuple[int, int, Any]],
-                    x: int, y: int) -> bool:
-    """Where the overlaps left ``x`` and ``y`` of one polygon overlap each other and only one of their other
-    polygons covers the ground both cover (at least :data:`HOLDER_SHARE` of it, the other at most
-    1 - that), that ground is taken out of the other overlap (``now`` is changed); whether it was."""
-    ix, iy = entries[x][1], entries[y][1]
-    if ix not in at or iy not in at:
-        return False
+                    use: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """Where the overlaps left ``use[x]`` and ``use[y]`` (pairs) of one polygon overlap each other and only one of
+    their other polygons covers the ground both cover (at least :data:`HOLDER_SHARE` of it, the other at most
+    1 - that), that ground is taken out of the other overlap (``now`` is changed). Per overlap of ``use``: whether
+    it is in a pair where that could not be done. All pairs at once (GEOS element-wise), from the overlaps as
+    listed."""
+    clash = np.zeros(len(use), dtype=bool)
+    if not len(x):
+        return clash
+    ex, ey = use[x], use[y]
+    ix = np.array([at.get(entries[e][1], -1) for e in ex.tolist()], dtype=np.int64)
+    iy = np.array([at.get(entries[e][1], -1) for e in ey.tolist()], dtype=np.int64)
+    sure = (ix >= 0) & (iy >= 0)
+    area = np.zeros(len(x))
+    cx, cy = np.zeros(len(x)), np.zeros(len(x))
+    both = np.full(len(x), None, dtype=object)
     try:
-        both = shapely.intersection(now[x], now[y])
-        area = float(shapely.area(both))
-        cx, cy = (float(shapely.area(shapely.intersection(both, polys[at[i]]))) for i in (ix, iy))
-        if area <= 0 or min(cx, cy) > (1 - HOLDER_SHARE) * area or max(cx, cy) < HOLDER_SHARE * area:
-            return False
-        loser = y if cx > cy else x
-        rest = polygonal(np.array([shapely.difference(now[loser], both)], dtype=object))[0]
+        both[sure] = shapely.intersection(now[ex[sure]], now[ey[sure]])
+        area[sure] = shapely.area(both[sure])
+        cx[sure] = shapely.area(shapely.intersection(both[sure], polys[ix[sure]]))
+        cy[sure] = shapely.area(shapely.intersection(both[sure], polys[iy[sure]]))
     except GEOSException:
-        return False
-    if rest is None or shapely.is_empty(rest):
-        return False
-    now[loser] = rest
-    return True
+        sure[:] = False
+    sure &= (area > 0) & (np.minimum(cx, cy) <= (1 - HOLDER_SHARE) * area) & \
+        (np.maximum(cx, cy) >= HOLDER_SHARE * area)
+    clash[x[~sure]] = True
+    clash[y[~sure]] = True
+    rows = np.flatnonzero(sure)
+    loser = np.where(cx[rows] > cy[rows], y[rows], x[rows])
+    order = np.argsort(loser, kind="stable")
+    rows, loser = rows[order], loser[order]
+    if not len(rows):
+        return clash
+    starts = np.flatnonzero(np.r_[True, loser[1:] != loser[:-1]])
+    who = loser[starts]
+    try:
+        lost = _union_rows(both[rows], loser, who)
+        rest = polygonal(shapely.difference(now[use[who]], lost))
+    except GEOSException:
+        rest = np.full(len(who), None, dtype=object)
+    gone = shapely.is_missing(rest) | shapely.is_empty(rest)
+    now[use[who[~gone]]] = rest[~gone]
+    clash[who[gone]] = True
+    return clash
 
 
 HOLDER_SHARE = 0.99  # share of the ground two overlaps left both cover that one other polygon must hold (our own choice)
@@ -1025,12 +1071,9 @@ def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[
         a, b = shapely.STRtree(now[use]).query(now[use], predicate="intersects")
         a, b = a[a < b], b[a < b]
         inner = shapely.relate_pattern(now[use][a], now[use][b], "T********")  # interiors meet
-        clash = np.zeros(len(use), dtype=bool)
-        for x, y in zip(a[inner].tolist(), b[inner].tolist()):  # two overlaps left overlapping each other: few
-            # listed before a repair gave the ground both cover to one of their other polygons: that one's alone
-            if not _part_to_holder(now, polys, at, entries, use[x], use[y]):
-                clash[[x, y]] = True  # else neither is a polygon of its own
-        use = use[~clash]
+        # two overlaps left overlapping each other, listed before a repair gave the ground both cover to one of
+        # their other polygons: that one's alone; else neither is a polygon of its own
+        use = use[~_part_to_holder(now, polys, at, entries, use, a[inner], b[inner])]
     if not len(use):
         return shapely.coverage_clean(polys, snapping_distance=distance, gap_width=0.0, merge_strategy=strategy), out_strips
     inp = polys.copy()
@@ -1044,10 +1087,13 @@ def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[
     if len(cut):
         starts = np.flatnonzero(np.r_[True, firsts[1:] != firsts[:-1]])
         owner, counts = firsts[starts], np.diff(np.r_[starts, len(firsts)])
-        joined = now[cut][starts].copy()
-        for j in np.flatnonzero(counts > 1).tolist():  # a polygon holding two overlaps left or more as the other one: few
-            joined[j] = shapely.union_all(now[cut][starts[j]:starts[j] + counts[j]])
         try:
+            joined = now[cut][starts].copy()
+            many = np.flatnonzero(counts > 1)  # polygons holding two overlaps left or more as the other one
+            if len(many):
+                group = np.repeat(np.arange(len(owner)), counts)
+                member = np.isin(group, many)
+                joined[many] = _union_rows(now[cut][member], group[member], many)
             rest = polygonal(shapely.difference(inp[owner], joined))
         except GEOSException:
             rest = np.full(len(owner), None, dtype=object)
@@ -1071,12 +1117,13 @@ def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[
         narrow = wide.copy()
         narrow[use[broken]] = False
         return _clean_with_strips(polys, rows, entries, narrow, strips, distance, strategy)
-    face_of = {int(e): f for e, f in zip(use.tolist(), faces)}
     out = out.copy()
-    starts = np.r_[0, np.cumsum(counts)[:-1]]
-    for g in range(len(owner)):  # one per polygon given its overlaps back (GEOS unions: few)
-        parts = np.array([face_of[int(e)] for e in cut[starts[g]:starts[g] + counts[g]]], dtype=object)
-        out[owner[g]] = polygonal(np.array([shapely.union_all(np.r_[[out[owner[g]]], parts])], dtype=object))[0]
+    if len(owner):
+        face = faces[np.searchsorted(use, cut)]  # ``use`` is sorted; ``cut`` in the order of the owners
+        group = np.repeat(np.arange(len(owner)), counts)
+        # GEOS's union of each polygon's part with its overlaps (union_all of them, one call)
+        joined = _union_rows(np.r_[out[owner], face], np.r_[np.arange(len(owner)), group], np.arange(len(owner)))
+        out[owner] = polygonal(joined)
     out_strips[use] = faces
     return out, out_strips
 
@@ -1174,8 +1221,10 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     starts = np.r_[0, np.cumsum(size)[:-1]] if len(size) else np.zeros(0, dtype=np.int64)
     one = size == 1
     out[one] = clip[starts[one]]
-    for g in np.flatnonzero(size > 1):  # one per polygon with overlaps left with two neighbours or more
-        out[g] = shapely.union_all(clip[starts[g]:starts[g] + size[g]])
+    many = np.flatnonzero(size > 1)  # polygons with overlaps left with two neighbours or more: each one's union
+    if len(many):
+        rows = np.isin(k_of, many)
+        out[many] = _union_rows(clip[rows], k_of[rows], many)
     return out, notes, small
 
 
@@ -1324,7 +1373,7 @@ def _surely_invalid(near: "_Near", geoms: np.ndarray, seeds: np.ndarray, distanc
 
 
 FINER = 6  # halvings of the snapping distance tried around a polygon moved too far or a clipped overlap (our own choice)
-MAX_CLEAN_ROUNDS = 4  # cleanings per run of snap-edges; each one after the first leaves out what the one before moved too far
+MAX_CLEAN_ROUNDS = 4  # rounds of holding per run of snap-edges; each is followed by a cleaning without what it held
 
 
 def _unfitted(near: "_Near", sel: np.ndarray, cleaned: np.ndarray, region: np.ndarray, current: np.ndarray,
