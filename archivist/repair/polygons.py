@@ -787,6 +787,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     entries = [(k, i, p) for k, pairs in owners.items() for i, p in pairs]
     strips = np.array([p for _, _, p in entries], dtype=object)
     wide_at: dict[float, np.ndarray] = {}  # per snapping distance: the overlaps left cleaned as polygons of their own
+    strips_listed = strips.copy()
     rounds = steps = 0
     again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     distance = settings.tolerance  # the snapping distance of the cleaning now
@@ -815,7 +816,12 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         src = base if (trial is not None or steps == 0) else bare
         at = {k: k_ for k_, k in enumerate(sel.tolist())}
         if distance not in wide_at:
-            wide_at[distance] = _wide(np.array([p for _, _, p in entries], dtype=object), distance)
+            # wide at a distance, wide at any shorter one (an opening by a smaller disc keeps more): only the others
+            coarser = [d for d in wide_at if d > distance]
+            known = wide_at[min(coarser)] if coarser else np.zeros(len(entries), dtype=bool)
+            wide = known.copy()
+            wide[~known] = _wide(strips_listed[~known], distance)
+            wide_at[distance] = wide
         cleaned[order], strips = _clean_with_strips(src[sel][order], np.asarray(sel)[order], entries, wide_at[distance],
                                                     strips if src is bare else None, distance, strategy)
         bare[sel] = cleaned
