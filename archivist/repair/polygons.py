@@ -785,9 +785,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     # per overlap left given back (polygon k it is cut out of, the other polygon i, the overlap): the overlap as the
     # last cleaning left it (see _clean_with_strips)
     entries = [(k, i, p) for k, pairs in owners.items() for i, p in pairs]
-    strips = np.array([p for _, _, p in entries], dtype=object)
+    left_over = _Overlaps(np.array([k for k, _, _ in entries], dtype=np.int64), np.array([i for _, i, _ in entries], dtype=np.int64),
+                          np.array([p for _, _, p in entries], dtype=object))
+    strips = left_over.listed.copy()
     wide_at: dict[float, np.ndarray] = {}  # per snapping distance: the overlaps left cleaned as polygons of their own
-    strips_listed = strips.copy()
     rounds = steps = 0
     again = region  # the polygons cleaned again since the first cleaning of this round (only ever grows)
     distance = settings.tolerance  # the snapping distance of the cleaning now
@@ -820,9 +821,9 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             coarser = [d for d in wide_at if d > distance]
             known = wide_at[min(coarser)] if coarser else np.zeros(len(entries), dtype=bool)
             wide = known.copy()
-            wide[~known] = _wide(strips_listed[~known], distance)
+            wide[~known] = _wide(left_over.listed[~known], distance)
             wide_at[distance] = wide
-        cleaned[order], strips = _clean_with_strips(src[sel][order], np.asarray(sel)[order], entries, wide_at[distance],
+        cleaned[order], strips = _clean_with_strips(src[sel][order], np.asarray(sel)[order], left_over, wide_at[distance],
                                                     strips if src is bare else None, distance, strategy)
         bare[sel] = cleaned
         if back:  # the polygons with an overlap left for the geologist: the overlaps given back
@@ -997,19 +998,37 @@ def _wide(pieces: np.ndarray, distance: float) -> np.ndarray:
 WIDE_KEPT = 0.9  # share of an overlap left an opening by the snapping distance must keep (our own choice, see _wide)
 
 
-def _part_to_holder(now: np.ndarray, polys: np.ndarray, at: dict[int, int], entries: list[tuple[int, int, Any]],
-                    use: np.ndarray, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+@dataclass(frozen=True)
+class _Overlaps:
+    """The overlaps left for the geologist that snap-edges gives back: per overlap, the polygon it is cut out of
+    (row), the other polygon (row) and the overlap as listed."""
+
+    k: np.ndarray
+    i: np.ndarray
+    listed: np.ndarray
+
+
+def _positions(rows: np.ndarray, wanted: np.ndarray) -> np.ndarray:
+    """The place of each of ``wanted`` in ``rows`` (distinct row numbers, in any order); -1 where it is not there."""
+    if not len(rows) or not len(wanted):
+        return np.full(len(wanted), -1, dtype=np.int64)
+    order = np.argsort(rows, kind="stable")
+    at = np.minimum(np.searchsorted(rows[order], wanted), len(rows) - 1)
+    return np.where(rows[order][at] == wanted, order[at], -1)
+
+
+def _part_to_holder(now: np.ndarray, polys: np.ndarray, other: np.ndarray, use: np.ndarray, x: np.ndarray,
+                    y: np.ndarray) -> np.ndarray:
     """Where the overlaps left ``use[x]`` and ``use[y]`` (pairs) of one polygon overlap each other and only one of
     their other polygons covers the ground both cover (at least :data:`HOLDER_SHARE` of it, the other at most
     1 - that), that ground is taken out of the other overlap (``now`` is changed). Per overlap of ``use``: whether
-    it is in a pair where that could not be done. All pairs at once (GEOS element-wise), from the overlaps as
-    listed."""
+    it is in a pair where that could not be done. ``other``: per overlap, the place of its other polygon among
+    ``polys`` (-1: not there). All pairs at once (GEOS element-wise), from the overlaps as they stand (``now``)."""
     clash = np.zeros(len(use), dtype=bool)
     if not len(x):
         return clash
     ex, ey = use[x], use[y]
-    ix = np.array([at.get(entries[e][1], -1) for e in ex.tolist()], dtype=np.int64)
-    iy = np.array([at.get(entries[e][1], -1) for e in ey.tolist()], dtype=np.int64)
+    ix, iy = other[ex], other[ey]
     sure = (ix >= 0) & (iy >= 0)
     area = np.zeros(len(x))
     cx, cy = np.zeros(len(x)), np.zeros(len(x))
@@ -1047,31 +1066,29 @@ def _part_to_holder(now: np.ndarray, polys: np.ndarray, at: dict[int, int], entr
 HOLDER_SHARE = 0.99  # share of the ground two overlaps left both cover that one other polygon must hold (our own choice)
 
 
-def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[int, int, Any]], wide: np.ndarray,
+def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, left: _Overlaps, wide: np.ndarray,
                        strips: np.ndarray | None, distance: float, strategy: str) -> tuple[np.ndarray, np.ndarray]:
     """GEOS's cleaning of ``polys`` (the polygons ``rows``), each overlap left for the geologist between two of them
     cleaned as a polygon of its own; the polygons as cleaned (the first of each overlap with it again) and each
     overlap as now cleaned.
 
-    An overlap left is cut out of one of its two polygons (``k`` of ``entries``: the polygon, the other one, the
-    overlap as listed); the other one (``i``) still covers it. Cleaned so, the edge it was cut along is snapped
+    An overlap left is cut out of one of its two polygons (``left.k``); the other one (``left.i``) still covers it. Cleaned so, the edge it was cut along is snapped
     on one side only, and the overlap given back beside the cleaned polygon leaves thin seams open along that edge,
     as deep into the polygon as the overlap is wide. Here the overlap is cleaned as a polygon of its own, cut out
     of the other polygon too where that one is cleaned: they then share every edge exactly, and each polygon is
     the union of its part and the overlap, whose edges the cleaning moved as it moved every edge (no further than
     the snapping distance). Where the other polygon is not cleaned now, the overlap as cleaned is given back
-    clipped to it as it stands (:func:`_fitted_back_all`). Only overlaps ``wide`` enough (:func:`_wide`), and only where the
-    cleaning keeps each in as many pieces as it had: one it folds away or splits is cleaned the other way (one
-    more cleaning). ``strips``: the overlaps as the last cleaning left them (the
-    polygons are as that cleaning left them), or None: as listed (the polygons as read). Where cutting fails,
-    leaves nothing, or two overlaps overlap each other, the overlap stays with the other polygon in the cleaning,
-    as before.
+    clipped to it as it stands (:func:`_fitted_back_all`). Only overlaps ``wide`` enough (:func:`_wide`), and
+    only where the cleaning keeps each in as many pieces as it had: one it folds away or splits is cleaned the
+    other way (one more cleaning). ``strips``: the overlaps as the last cleaning left them (the polygons are as
+    that cleaning left them), or None: as listed (the polygons as read). Where cutting fails or leaves nothing,
+    or two overlaps overlap each other where neither other polygon alone holds the ground both cover
+    (:func:`_part_to_holder`), the overlap stays with the other polygon in the cleaning, as before.
     """
-    now = np.array([p for _, _, p in entries], dtype=object) if strips is None else strips
+    now = left.listed if strips is None else strips
     out_strips = now.copy()
-    at = {int(r): j for j, r in enumerate(rows.tolist())}
-    mine = np.array([k in at for k, _, _ in entries], dtype=bool)
-    use = np.flatnonzero(mine & wide & present(now)) if len(entries) else np.zeros(0, dtype=np.int64)
+    mine, other = _positions(rows, left.k) >= 0, _positions(rows, left.i)
+    use = np.flatnonzero(mine & wide & present(now)) if len(now) else np.zeros(0, dtype=np.int64)
     if len(use) > 1:
         now = now.copy()
         a, b = shapely.STRtree(now[use]).query(now[use], predicate="intersects")
@@ -1079,13 +1096,13 @@ def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[
         inner = shapely.relate_pattern(now[use][a], now[use][b], "T********")  # interiors meet
         # two overlaps left overlapping each other, listed before a repair gave the ground both cover to one of
         # their other polygons: that one's alone; else neither is a polygon of its own
-        use = use[~_part_to_holder(now, polys, at, entries, use, a[inner], b[inner])]
+        use = use[~_part_to_holder(now, polys, other, use, a[inner], b[inner])]
     if not len(use):
         return shapely.coverage_clean(polys, snapping_distance=distance, gap_width=0.0, merge_strategy=strategy), out_strips
     inp = polys.copy()
     # the other polygon, where it is cleaned too: the overlaps it holds cut out of it for the cleaning
-    inner = np.array([entries[e][1] in at for e in use], dtype=bool)
-    firsts = np.array([at[entries[e][1]] for e in use[inner]], dtype=np.int64)
+    inner = other[use] >= 0
+    firsts = other[use[inner]]
     order = np.argsort(firsts, kind="stable")
     firsts, cut = firsts[order], use[inner][order]
     owner = np.zeros(0, dtype=np.int64)
@@ -1122,7 +1139,7 @@ def _clean_with_strips(polys: np.ndarray, rows: np.ndarray, entries: list[tuple[
     if broken.any():
         narrow = wide.copy()
         narrow[use[broken]] = False
-        return _clean_with_strips(polys, rows, entries, narrow, strips, distance, strategy)
+        return _clean_with_strips(polys, rows, left, narrow, strips, distance, strategy)
     out = out.copy()
     if len(owner):
         face = faces[np.searchsorted(use, cut)]  # ``use`` is sorted; ``cut`` in the order of the owners
