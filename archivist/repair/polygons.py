@@ -836,11 +836,10 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
             for t, k in enumerate(bk.tolist()):  # one per polygon given overlaps back (integers only)
                 wave[t] = 1 + max((wave[earlier[i]] for i, _ in owners.get(k, []) if earlier.get(i, t) < t), default=-1)
             as_cleaned = cleaned.copy()
-            owners_now = _owners_now(entries, strips)
             for w in range(int(wave.max()) + 1):
                 now = np.flatnonzero(wave == w)
-                given, notes, small = _fitted_back_all(bk[now], owners_now, put_back, cleaned, at, current, ids,
-                                                       settings.overlap_max_area, as_cleaned, earlier, owners)
+                given, notes, small = _fitted_back_all(bk[now], left_over, strips, put_back, cleaned, at, current, ids,
+                                                       settings.overlap_max_area, as_cleaned, earlier)
                 clipped.update({int(k): (note, bool(sm)) for k, note, sm in zip(bk[now], notes, small)})
                 k_ = bk_[now]
                 joined, failed, _ = elementwise(shapely.union, cleaned[k_], given)
@@ -969,14 +968,6 @@ def _cut_out(geoms: np.ndarray, cut: dict[int, list[Any]]) -> tuple[np.ndarray, 
     rest[failed] = None
     rests[ok] = rest
     return ks, backs, polygonal(rests)
-
-
-def _owners_now(entries: list[tuple[int, int, Any]], strips: np.ndarray) -> dict[int, list[tuple[int, Any]]]:
-    """Per polygon given overlaps back: (the other polygon, the overlap as the last cleaning left it)."""
-    out: dict[int, list[tuple[int, Any]]] = {}
-    for (k, i, _), strip in zip(entries, strips):
-        out.setdefault(k, []).append((i, strip))
-    return out
 
 
 def _wide(pieces: np.ndarray, distance: float) -> np.ndarray:
@@ -1181,15 +1172,16 @@ def _misfit_edges(units: Any, edges: Any, distance: float) -> tuple[np.ndarray, 
 def _fitted_back(k: int, owners: list[tuple[int, Any]], piece: Any, cleaned: np.ndarray, at: dict[int, int],
                  current: np.ndarray, ids: np.ndarray, limit: float = 0.0) -> tuple[Any, str, bool]:
     """:func:`_fitted_back_all` of one polygon ``k``: its piece given back, what the log says, whether it is small."""
-    pieces, notes, small = _fitted_back_all(np.array([k]), {k: owners}, {k: piece}, cleaned, at, current, ids, limit)
+    left = _Overlaps(np.full(len(owners), k, dtype=np.int64), np.array([i for i, _ in owners], dtype=np.int64),
+                     np.array([p for _, p in owners], dtype=object))
+    pieces, notes, small = _fitted_back_all(np.array([k]), left, left.listed, {k: piece}, cleaned, at, current, ids, limit)
     return pieces[0], notes[0], bool(small[0])
 
 
-def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], put_back: dict[int, Any],
+def _fitted_back_all(ks: np.ndarray, left: _Overlaps, strips: np.ndarray, put_back: dict[int, Any],
                      cleaned: np.ndarray, at: dict[int, int], current: np.ndarray, ids: np.ndarray,
                      limit: float = 0.0, as_cleaned: np.ndarray | None = None,
-                     earlier: dict[int, int] | None = None,
-                     listed: dict[int, list[tuple[int, Any]]] | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
+                     earlier: dict[int, int] | None = None) -> tuple[np.ndarray, list[str], np.ndarray]:
     """The overlaps left between each polygon of ``ks`` and its neighbours, each clipped to the neighbour as now
     cleaned.
 
@@ -1208,29 +1200,28 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
     overlaps back), a neighbour placed after ``k`` is taken from
     ``as_cleaned`` (GEOS's cleaning, before any overlap went back) and one
     placed before it from ``cleaned``: as if given back one at a time in that
-    order. ``listed``: the overlaps as listed, where ``owners`` has them as a
-    cleaning left them; what the log says and whether one is small are
-    measured against these. All overlaps of ``ks`` at once (GEOS element-wise): at 10 %
+    order. ``left``: the overlaps left given back (the polygon each is cut
+    out of, the other, the overlap as listed), ``strips`` each as the last
+    cleaning left it; what the log says and whether one is small are
+    measured against them as listed. All overlaps of ``ks`` at once (GEOS element-wise): at 10 %
     defects they were clipped one by one, once per cleaning round, most of
     the repair's time.
     """
-    groups = [owners.get(int(k)) or [] for k in ks]
-    size = np.array([len(g) for g in groups], dtype=np.int64)
-    k_of = np.repeat(np.arange(len(ks)), size)
-    nbr = np.array([i for g in groups for i, _ in g], dtype=np.int64)
-    pieces = np.array([p for g in groups for _, p in g], dtype=object)
-    pos = np.array([at.get(int(i), -1) for i in nbr], dtype=np.int64)
+    ks = np.asarray(ks, dtype=np.int64)
+    place = _positions(ks, left.k)  # each overlap's polygon among ks: the overlaps of ks, polygon by polygon
+    e = np.flatnonzero(place >= 0)
+    e = e[np.argsort(place[e], kind="stable")]
+    k_of, nbr, pieces = place[e], left.i[e], left.listed[e]
+    size = np.bincount(k_of, minlength=len(ks))
+    pos = _looked_up(at, nbr)
     fit = current[nbr] if len(nbr) else np.empty(0, dtype=object)
     fit[pos >= 0] = cleaned[pos[pos >= 0]]
     if earlier is not None and as_cleaned is not None:  # neighbours given their overlaps back after k: not yet
-        later = np.array([earlier.get(int(i), -1) > earlier.get(int(ks[k]), -1) for i, k in zip(nbr, k_of)], dtype=bool)
+        later = _looked_up(earlier, nbr) > _looked_up(earlier, ks[k_of])
         fit[later & (pos >= 0)] = as_cleaned[pos[later & (pos >= 0)]]
-    clip, failed, _ = elementwise(lambda p, f: polygonal(shapely.intersection(p, f)), pieces, fit)
+    clip, failed, _ = elementwise(lambda p, f: polygonal(shapely.intersection(p, f)), strips[e], fit)
     keep = failed | shapely.is_missing(clip) | shapely.is_empty(clip)  # nothing left inside: kept as it was
     clip[keep] = pieces[keep]  # (never dropped without a word)
-    if listed is not None:
-        pieces = np.array([p for k in ks for _, p in (listed.get(int(k)) or [])], dtype=object)
-        clip[keep] = pieces[keep]
     lost = shapely.area(pieces) - shapely.area(clip)
     bounds = np.abs(shapely.bounds(pieces)) if len(pieces) else np.empty((0, 4))
     scale = np.maximum(np.where(np.isfinite(bounds).all(axis=1), np.max(bounds, axis=1, initial=0.0), 1.0), 1.0)
@@ -1249,6 +1240,16 @@ def _fitted_back_all(ks: np.ndarray, owners: dict[int, list[tuple[int, Any]]], p
         rows = np.isin(k_of, many)
         out[many] = _union_rows(clip[rows], k_of[rows], many)
     return out, notes, small
+
+
+def _looked_up(table: dict[int, int], keys: np.ndarray) -> np.ndarray:
+    """``table[key]`` for each of ``keys`` (integers), -1 where a key is not in it."""
+    if not table or not len(keys):
+        return np.full(len(keys), -1, dtype=np.int64)
+    have = np.fromiter(table.keys(), dtype=np.int64, count=len(table))
+    values = np.fromiter(table.values(), dtype=np.int64, count=len(table))
+    at = _positions(have, np.asarray(keys, dtype=np.int64))
+    return np.where(at >= 0, values[np.maximum(at, 0)], -1)
 
 
 def _rounding_only(near: "_Near", geoms: np.ndarray, current: np.ndarray, changed: np.ndarray, moved: np.ndarray,
