@@ -18,6 +18,7 @@ from archivist.analysis.arrays import (
     merge_by_group,
     polygonal_parts,
     spans,
+    union_by_group,
 )
 
 
@@ -183,3 +184,24 @@ def test_widths_of_one_part_multipolygons_are_settled_as_their_polygons(monkeypa
     assert sum(calls) == 0
     assert one[0] == alone[0]
     _assert_within_precision([strip], 0.5)  # against GEOS's grid search at a finer precision
+
+
+def test_union_by_group_is_geos_union_of_each_group_in_batches():
+    # against GEOS's union_all of each group's values alone (shapely), with groups of very different sizes split
+    # over several tables (a batch of 64 cells) and an empty group
+    rng = np.random.default_rng(3)
+    values = shapely.buffer(shapely.points(rng.uniform(0, 100, (300, 2))), rng.uniform(0.5, 6.0, 300), quad_segs=4)
+    groups = np.r_[np.zeros(150, dtype=np.int64), rng.integers(1, 9, 150)]  # group 0 large; group 9 empty
+    from archivist.analysis import arrays
+
+    whole = union_by_group(values, groups, 10)
+    for g in range(10):
+        assert shapely.equals(whole[g], shapely.union_all(values[groups == g])), g
+    assert shapely.is_empty(whole[9])
+    small = arrays.TABLE_CELLS
+    try:
+        arrays.TABLE_CELLS = 64
+        batched = union_by_group(values, groups, 10)
+    finally:
+        arrays.TABLE_CELLS = small
+    assert all(shapely.equals_exact(a, b, tolerance=0.0) for a, b in zip(whole, batched))

@@ -170,6 +170,15 @@ def group_tables(values: np.ndarray, groups: np.ndarray, n: int,
         start = stop
 
 
+def union_by_group(values: np.ndarray, groups: np.ndarray, n: int) -> np.ndarray:
+    """Per group 0..n-1, GEOS's union of its ``values`` in their order (``shapely.union_all`` of them; an empty
+    group gives an empty collection), tables of groups at a time (:func:`group_tables`)."""
+    out = np.empty(n, dtype=object)
+    for rows, table in group_tables(values, groups, n):
+        out[rows] = shapely.union_all(table, axis=1)
+    return out
+
+
 def _parts_of_type(
     geoms: np.ndarray, single: int, multi: int, measure: Callable[[np.ndarray], np.ndarray], minimum: float
 ) -> tuple[np.ndarray, np.ndarray]:

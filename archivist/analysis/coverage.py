@@ -62,6 +62,7 @@ from .arrays import (
     present,
     segment_lines,
     segments,
+    union_by_group,
     widths,
 )
 from .guard import Failure, by_cluster, clusters, elementwise, reason_of
@@ -382,9 +383,7 @@ def _faces_by_cluster(lines: np.ndarray, ring: np.ndarray) -> tuple[np.ndarray, 
             a, b = np.r_[a, n + ri], np.r_[b, li]
     label = np.unique(clusters(len(every), a, b), return_inverse=True)[1].ravel()
     k = int(label.max()) + 1
-    noded = np.empty(k, dtype=object)
-    for rows, table in group_tables(every, label, k):
-        noded[rows] = shapely.union_all(table, axis=1)  # every crossing becomes a node, drawn-twice stretches one
+    noded = union_by_group(every, label, k)  # every crossing becomes a node, drawn-twice stretches one
     pieces, of = shapely.get_parts(noded, return_index=True)
     found = np.empty(k, dtype=object)
     for rows, table in group_tables(pieces, of, k):
@@ -407,9 +406,7 @@ def _faces_by_cluster(lines: np.ndarray, ring: np.ndarray) -> tuple[np.ndarray, 
         bad = hosts[on]
         if len(bad):  # the point from the face less the faces inside it, as one polygonize of all would give it
             bi, fj = by_face.query(faces[bad], predicate="contains_properly")
-            joined = np.empty(len(bad), dtype=object)
-            for rows, table in group_tables(faces[fj], bi, len(bad)):
-                joined[rows] = shapely.union_all(table, axis=1)
+            joined = union_by_group(faces[fj], bi, len(bad))
             points[bad] = shapely.point_on_surface(shapely.difference(faces[bad], joined))
     order = np.lexsort(shapely.bounds(faces).T[::-1])  # by their boxes: the same order however the lines came
     return faces[order], points[order]

@@ -27,7 +27,7 @@ import pandas as pd
 import shapely
 from shapely.ops import substring
 
-from ..analysis.arrays import canonical, coord_hash, group_sorted, group_tables, linear_parts, merge_by_group, present, segments, spans
+from ..analysis.arrays import canonical, coord_hash, group_sorted, linear_parts, merge_by_group, present, segments, spans, union_by_group
 from ..analysis.coverage import analyse_coverage
 from ..analysis.halfedges import build_edges
 from ..analysis.lines import LineNetwork, LooseEnds, build_line_network, kind_for, kind_role, loose_ends, parse_kind
@@ -1425,10 +1425,7 @@ def along_overlaps(pieces: np.ndarray, overlaps: list[Any], tol: float) -> np.nd
         return out
     near = np.unique(pi)
     # per stretch, the overlaps near it as one area (GEOS's union of each group, one call per table of groups)
-    unions = np.empty(len(near), dtype=object)
-    for at, table in group_tables(zone[oi], np.searchsorted(near, pi), len(near)):
-        unions[at] = shapely.union_all(table, axis=1)
-    out[near] = shapely.covered_by(pieces[near], unions)
+    out[near] = shapely.covered_by(pieces[near], union_by_group(zone[oi], np.searchsorted(near, pi), len(near)))
     return out
 
 

@@ -27,7 +27,7 @@ import shapely
 from shapely.errors import GEOSException
 
 from ..analysis.alignment import Alignment
-from ..analysis.arrays import group_tables, merge_by_group, present, segment_lines, segments, spans, widths
+from ..analysis.arrays import group_tables, merge_by_group, present, segment_lines, segments, spans, union_by_group, widths
 from ..analysis.context import CheckContext
 from ..analysis.coverage import mean_width, noise_floor
 from ..analysis.guard import elementwise
@@ -639,10 +639,7 @@ def _take_many(rest: np.ndarray, n: np.ndarray, geoms: np.ndarray, reach: np.nda
 def _union_rows(geoms: np.ndarray, row: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """Per row of ``rows`` (sorted), the union of the ``geoms`` labelled with it, in their order (GEOS, one
     unary union per row, as ``shapely.union_all`` of that row's geometries)."""
-    out = np.empty(len(rows), dtype=object)
-    for at, table in group_tables(geoms, np.searchsorted(rows, row), len(rows)):
-        out[at] = shapely.union_all(table, axis=1)
-    return out
+    return union_by_group(geoms, np.searchsorted(rows, row), len(rows))
 
 
 # ---------------------------------------------------------------- snapping
@@ -784,9 +781,9 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
     todo = region.copy()  # the polygons of the region (re)cleaned now
     # per overlap left given back (polygon k it is cut out of, the other polygon i, the overlap): the overlap as the
     # last cleaning left it (see _clean_with_strips)
-    entries = [(k, i, p) for k, pairs in owners.items() for i, p in pairs]
-    left_over = _Overlaps(np.array([k for k, _, _ in entries], dtype=np.int64), np.array([i for _, i, _ in entries], dtype=np.int64),
-                          np.array([p for _, _, p in entries], dtype=object))
+    left_over = _Overlaps(np.array([k for k, pairs in owners.items() for _ in pairs], dtype=np.int64),
+                          np.array([i for pairs in owners.values() for i, _ in pairs], dtype=np.int64),
+                          np.array([p for pairs in owners.values() for _, p in pairs], dtype=object))
     strips = left_over.listed.copy()
     wide_at: dict[float, np.ndarray] = {}  # per snapping distance: the overlaps left cleaned as polygons of their own
     rounds = steps = 0
@@ -819,7 +816,7 @@ def snap_edges(state: RepairState, settings: RepairSettings) -> tuple[list[Chang
         if distance not in wide_at:
             # wide at a distance, wide at any shorter one (an opening by a smaller disc keeps more): only the others
             coarser = [d for d in wide_at if d > distance]
-            known = wide_at[min(coarser)] if coarser else np.zeros(len(entries), dtype=bool)
+            known = wide_at[min(coarser)] if coarser else np.zeros(len(left_over.k), dtype=bool)
             wide = known.copy()
             wide[~known] = _wide(left_over.listed[~known], distance)
             wide_at[distance] = wide
@@ -1001,11 +998,7 @@ class _Overlaps:
 
 def _positions(rows: np.ndarray, wanted: np.ndarray) -> np.ndarray:
     """The place of each of ``wanted`` in ``rows`` (distinct row numbers, in any order); -1 where it is not there."""
-    if not len(rows) or not len(wanted):
-        return np.full(len(wanted), -1, dtype=np.int64)
-    order = np.argsort(rows, kind="stable")
-    at = np.minimum(np.searchsorted(rows[order], wanted), len(rows) - 1)
-    return np.where(rows[order][at] == wanted, order[at], -1)
+    return pd.Index(np.asarray(rows, dtype=np.int64)).get_indexer(np.asarray(wanted, dtype=np.int64))
 
 
 def _part_to_holder(now: np.ndarray, polys: np.ndarray, other: np.ndarray, use: np.ndarray, x: np.ndarray,
