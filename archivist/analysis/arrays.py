@@ -281,9 +281,13 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
     the polygon (``point_on_surface``), of the middle of the hull's least
     width (the centre of the widest circle in a straight strip or a thin
     wedge) and of a point of each non-empty erosion and the middle of its
-    least width. Each round tries t just above the lower bound (to settle it), halfway
-    across the bracket, and where the deepest erosion so far says r is
-    (its area over its perimeter, once for a strip, twice for a blob).
+    least width. The first round tries t just above the lower bound (to
+    settle it) and at area / perimeter (a little under a strip's half-width:
+    the erosion leaves its spine); each later round tries t just above the
+    lower bound, halfway across the bracket, and about where the deepest
+    erosion so far says r is (its area over its perimeter, once for a strip,
+    twice for a blob). Which tries are made changes only how many rounds the
+    bracket takes, never a bound.
     Rings are cut to nine vertices at least: GEOS drops the erosion of a
     smaller ring whose offset lies within 0.99 t of it as an inverted curve
     (from memory: BufferCurveSetBuilder::isRingCurveInverted; seen here as a
@@ -328,11 +332,14 @@ def _eroded_radius(pieces: np.ndarray, guess: np.ndarray, coarse: np.ndarray) ->
         span = (hi - lo)[todo, None]
         step = precision(todo)[:, None]
         if round_ == 0:
-            t = np.concatenate([lo[todo, None] + step * np.array([0.3, 0.6]),
-                                guess[todo, None] * np.array([1.02, 1.08, 1.2])], axis=1)
+            # just above the lower bound (settles it), and at the guess: a strip's area over its perimeter is
+            # a little under its half-width, so this erosion leaves its spine, whose own measure says the rest
+            t = np.concatenate([lo[todo, None] + step * 0.6, guess[todo, None]], axis=1)
         else:
-            t = np.concatenate([lo[todo, None] + step * np.array([0.3, 0.6]), lo[todo, None] + span * 0.5,
-                                estimate[todo] * 0.998], axis=1)
+            # just above the lower bound, halfway across the bracket, just under where the deepest erosion says
+            # r is for a strip and just over where it says for a blob (one of them empty, one not, most often)
+            t = np.concatenate([lo[todo, None] + step * 0.6, lo[todo, None] + span * 0.5,
+                                estimate[todo] * np.array([0.998, 1.01])], axis=1)
         k = np.repeat(todo, t.shape[1])
         t = t.ravel()
         useful = (t > lo[k]) & (t < hi[k])
