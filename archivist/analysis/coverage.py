@@ -476,10 +476,11 @@ def _run_along(gaps: np.ndarray, polys: np.ndarray, floor: float) -> np.ndarray:
     rings, pair = shapely.get_rings(gaps, return_index=True)
     a, b, r = segments(rings)
     k = pair[r]
-    edge = shapely.boundary(polys)[k]
+    edge = shapely.boundary(polys)
     near = np.ones(len(k), dtype=bool)
     for t in (0.0, 0.5, 1.0):
-        near &= shapely.distance(shapely.points(a + t * (b - a)), edge) <= floor
+        at = np.flatnonzero(near)  # a segment far at one point is not asked again
+        near[at] = shapely.distance(shapely.points(a[at] + t * (b[at] - a[at])), edge[k[at]]) <= floor
     return np.bincount(k[near], weights=np.hypot(*(b - a)[near].T), minlength=n)
 
 
