@@ -171,8 +171,12 @@ class _RowSet:
 
     def __init__(self, rows: np.ndarray) -> None:
         h = coord_hash(*rows.T) if len(rows) else np.zeros(0, dtype=np.uint64)
-        order = np.argsort(h, kind="stable")
-        self._hash, self._rows = h[order], rows[order]
+        # not a stable sort: rows of one hash are one row (or a collision, above), in whatever order; numpy's
+        # default sort of 64-bit keys took a fifth of the time of its stable one (10^6 keys, measured)
+        self._order = np.argsort(h)
+        # the rows stay in their order, each asked row compared with the one its hash found (gathering a
+        # million rows into hash order cost more than all the lookups of a repair)
+        self._hash, self._rows = h[self._order], rows
 
     def has(self, rows: np.ndarray) -> np.ndarray:
         """Per row of ``rows``: whether it is one of the set's."""
@@ -182,7 +186,7 @@ class _RowSet:
         order = np.argsort(h)  # searched in order: about 2.5 times faster than in hash order (10^6 keys, measured)
         i = np.empty(len(h), dtype=np.int64)
         i[order] = np.minimum(np.searchsorted(self._hash, h[order]), len(self._hash) - 1)
-        return (self._hash[i] == h) & (self._rows[i] == rows).all(axis=1)
+        return (self._hash[i] == h) & (self._rows[self._order[i]] == rows).all(axis=1)
 
 
 class _Targets:
