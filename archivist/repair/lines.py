@@ -174,8 +174,8 @@ class _RowSet:
         # not a stable sort: rows of one hash are one row (or a collision, above), in whatever order; numpy's
         # default sort of 64-bit keys took a fifth of the time of its stable one (10^6 keys, measured)
         self._order = np.argsort(h)
-        # the rows stay in their order, each asked row compared with the one its hash found (gathering a
-        # million rows into hash order cost more than all the lookups of a repair)
+        # the rows stay in their order: each asked row is compared with the one its hash found, rather than all
+        # rows gathered into hash order once (with the stable sort, 0.165 s against 0.025 s for 1.4 million rows)
         self._hash, self._rows = h[self._order], rows
 
     def has(self, rows: np.ndarray) -> np.ndarray:

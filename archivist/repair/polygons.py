@@ -1029,13 +1029,10 @@ def _part_to_holder(now: np.ndarray, polys: np.ndarray, other: np.ndarray, use: 
     clash[x[~sure]] = True
     clash[y[~sure]] = True
     rows = np.flatnonzero(sure)
-    loser = np.where(cx[rows] > cy[rows], y[rows], x[rows])
-    order = np.argsort(loser, kind="stable")
-    rows, loser = rows[order], loser[order]
     if not len(rows):
         return clash
-    starts = np.flatnonzero(np.r_[True, loser[1:] != loser[:-1]])
-    who = loser[starts]
+    loser = np.where(cx[rows] > cy[rows], y[rows], x[rows])
+    who = np.unique(loser)  # _union_rows groups them, each group in the order of its pairs
     try:
         lost = _union_rows(both[rows], loser, who)
         rest = polygonal(shapely.difference(now[use[who]], lost))
